@@ -455,3 +455,146 @@ def write_spec(spec: StudySpec, path: str | Path) -> None:
 
     path = Path(path)
     atomic_write_text(path, spec.to_toml(relative_to=path.resolve().parent))
+
+
+# ----------------------------------------------------------------------------- drafting
+
+_ROLE_HINTS = {
+    "rater": ("rater", "reviewer", "reader", "grader", "judge", "assessor", "scorer", "marker",
+              "evaluator", "examiner"),
+    "case": ("case", "applicant", "candidate", "file", "essay_id", "student", "item", "subject",
+             "id", "application"),
+    "judgment": ("judgment", "judgement", "rating", "score", "grade", "decision", "verdict", "mark",
+                 "evaluation", "rank"),
+    "sequence": ("sequence", "order", "read_order", "position", "timestamp", "time", "seq", "when"),
+    "phase": ("phase", "session", "wave", "round_name", "stage", "period"),
+    "criterion": ("criterion", "outcome", "result", "first_year_result", "performance", "truth",
+                  "key", "expert_score"),
+}
+
+
+def _guess_role(columns: list[str], role: str, taken: set[str]) -> str | None:
+    hints = _ROLE_HINTS[role]
+    lowered = {c: c.lower().strip() for c in columns if c not in taken}
+    for hint in hints:  # exact names first, in order of preference
+        for col, low in lowered.items():
+            if low == hint:
+                return col
+    for hint in hints:
+        for col, low in lowered.items():
+            if hint in low and len(hint) > 2:
+                return col
+    return None
+
+
+def draft_spec(table: "pd.DataFrame", *, data_name: str, study_name: str) -> str:  # noqa: F821
+    """Draft a spec (TOML text with comments) from a judgments table.
+
+    Roles are guessed from column names (and, for the judgment, numeric type);
+    the other columns become cues: numeric when every value is a number,
+    categorical otherwise. Every guess is marked for the user to check.
+    """
+    import pandas as pd
+
+    columns = [c for c in table.columns if not str(c).startswith("_")]
+    taken: set[str] = set()
+    roles: dict[str, str | None] = {}
+    for role in ("rater", "case", "judgment", "sequence", "phase", "criterion"):
+        roles[role] = _guess_role(columns, role, taken)
+        if roles[role]:
+            taken.add(roles[role])
+    numeric = {}
+    for c in columns:
+        values = table[c].dropna()
+        converted = pd.to_numeric(values, errors="coerce")
+        numeric[c] = bool(len(values)) and bool(converted.notna().all())
+    if roles["judgment"] is None:
+        candidates = [c for c in columns if c not in taken and numeric[c]]
+        roles["judgment"] = candidates[-1] if candidates else None
+        if roles["judgment"]:
+            taken.add(roles["judgment"])
+    jcol = roles["judgment"]
+    scale, jmin, jmax, labels = "continuous", None, None, {}
+    if jcol is not None:
+        values = table[jcol].dropna()
+        if numeric[jcol]:
+            nums = pd.to_numeric(values)
+            distinct = sorted(nums.unique())
+            if set(distinct) <= {0, 1}:
+                scale, jmin, jmax = "binary", 0, 1
+            elif all(float(v).is_integer() for v in distinct) and len(distinct) <= 11:
+                scale, jmin, jmax = "ordinal", int(min(distinct)), int(max(distinct))
+            else:
+                scale, jmin, jmax = "continuous", float(nums.min()), float(nums.max())
+        else:
+            words = sorted(str(v).strip() for v in values.unique())
+            if len(words) == 2:
+                scale, jmin, jmax = "binary", 0, 1
+                yes = [w for w in words if w.lower() in ("admit", "yes", "accept", "pass", "1", "true")]
+                first = yes[0] if yes else words[0]
+                labels = {first: 1, next(w for w in words if w != first): 0}
+            else:
+                scale, jmin, jmax = "ordinal", 1, len(words)
+                labels = {w: i + 1 for i, w in enumerate(words)}
+    cues = []
+    for c in columns:
+        if c in taken:
+            continue
+        values = table[c].dropna()
+        if numeric[c]:
+            kind = "numeric"
+            missing = "indicator" if table[c].isna().any() else None
+        elif values.nunique() <= max(12, len(values) // 20):
+            kind, missing = "categorical", None
+        else:
+            continue  # free text or ids: not a cue
+        cues.append((c, kind, missing))
+
+    def q(text: str) -> str:
+        return '"' + str(text).replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+    lines = [
+        "# Draft study spec written by 'calibrate init'. Check every line marked CHECK,",
+        "# then run 'calibrate check' on this file.",
+        "",
+        "[study]",
+        f"name = {q(study_name)}",
+        f"data = {q(data_name)}",
+        "# cases = \"cases.csv\"        # optional: a table of cues per case, joined on the case id",
+        f"seed = {DEFAULT_SEED}",
+        "",
+        "[columns]   # CHECK: which column plays which role",
+    ]
+    for role in ("rater", "case", "judgment", "sequence", "phase", "criterion"):
+        col = roles[role]
+        if col is None:
+            if role in ROLES_REQUIRED:
+                lines.append(f"{role} = \"\"   # CHECK: not found; name the {role} column")
+            else:
+                lines.append(f"# {role} = \"\"   # optional")
+        else:
+            lines.append(f"{role} = {q(col)}")
+    lines += ["", "[judgment]   # CHECK: the scale", f"scale = {q(scale)}"]
+    if jmin is not None:
+        lines += [f"min = {jmin}", f"max = {jmax}"]
+    if labels:
+        lines.append("labels = { " + ", ".join(f"{q(k)} = {v}" for k, v in labels.items()) + " }")
+    lines += ["", "[cues]   # CHECK: numeric or categorical; remove columns that are not cues"]
+    for name, kind, missing in cues:
+        if missing:
+            lines.append(f"{q(name)} = {{ type = \"numeric\", missing = \"indicator\" }}  "
+                         "# has missing values: 'indicator' keeps those cases, 'drop' removes them")
+        else:
+            lines.append(f"{q(name)} = {q(kind)}")
+    lines += [
+        "",
+        "# [rubric]              # optional: the weights the panel is meant to use",
+        "# basis = \"standardized\"",
+        "# [excluded]            # optional: attributes that must not influence judgments",
+        "# columns = []",
+    ]
+    if roles["phase"]:
+        phases = [str(v) for v in pd.unique(table[roles["phase"]].dropna())]
+        lines += ["", "[phases]   # CHECK: the order of the phases",
+                  "order = [" + ", ".join(q(p) for p in phases) + "]"]
+    return "\n".join(lines) + "\n"

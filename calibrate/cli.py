@@ -1,0 +1,144 @@
+"""The command line: a thin shell over the Python API.
+
+It parses arguments, calls the same functions a notebook user calls, prints a
+short summary and maps our errors to exit code 2 with one clear paragraph.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import click
+
+from . import __version__
+from .errors import CalibrateError
+
+EXIT_USER_ERROR = 2
+
+
+def _fail(exc: CalibrateError) -> None:
+    click.echo(f"calibrate: {exc}", err=True)
+    sys.exit(EXIT_USER_ERROR)
+
+
+class _Group(click.Group):
+    """Turns any CalibrateError into a clear message and exit code 2, never a traceback."""
+
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except CalibrateError as exc:
+            _fail(exc)
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="calibrate")
+def main() -> None:
+    """Audit a panel of raters: capture each rater's policy, measure consistency and
+    agreement, and write private feedback reports.
+
+    Start with 'calibrate demo' for an invented example, or 'calibrate init' on your own
+    judgments table.
+    """
+
+
+@main.command()
+@click.option("--out", "out", default="demo_data", show_default=True, type=click.Path(path_type=Path),
+              help="Folder to write the demo study into.")
+@click.option("--force", is_flag=True, help="Write even if the folder already holds a study.toml.")
+def demo(out: Path, force: bool) -> None:
+    """Write the invented demo study (tables, spec and a README of its planted truths)."""
+    from .demo import write_demo
+
+    if (out / "study.toml").exists() and not force:
+        click.echo(f"{out / 'study.toml'} already exists; leaving it as it is (add --force to rewrite).")
+        return
+    files = write_demo(out)
+    click.echo(f"Wrote the demo study to {files.folder}/ (spec: {files.spec}).")
+    click.echo(f"Next: calibrate check {files.spec}   then   calibrate audit {files.spec} --out reports/demo")
+
+
+@main.command()
+@click.argument("data", type=click.Path(path_type=Path))
+@click.option("--out", "out", type=click.Path(path_type=Path), default=None,
+              help="Where to write the draft spec [default: study.toml beside DATA].")
+@click.option("--name", default=None, help="Study name [default: from the file name].")
+@click.option("--force", is_flag=True, help="Replace an existing spec file.")
+def init(data: Path, out: Path | None, name: str | None, force: bool) -> None:
+    """Draft a study spec from a judgments table, with comments to check."""
+    import os
+
+    from .errors import OutputExistsError
+    from .ingest import read_table
+    from .outputs import atomic_write_text
+    from .study import draft_spec
+
+    if not data.is_file():
+        raise CalibrateError(f"the table {data} does not exist.")
+    out = out or data.with_name("study.toml")
+    if out.exists() and not force:
+        raise OutputExistsError(f"{out} already exists; choose another --out or add --force.")
+    table = read_table(data)
+    rel = os.path.relpath(data.resolve(), out.resolve().parent)
+    text = draft_spec(table, data_name=Path(rel).as_posix(), study_name=name or data.stem)
+    atomic_write_text(out, text)
+    click.echo(f"Wrote a draft spec to {out}. Check the lines marked CHECK, then run: calibrate check {out}")
+
+
+@main.command()
+@click.argument("spec", type=click.Path(path_type=Path))
+def check(spec: Path) -> None:
+    """Validate the data against the spec and describe it; exit 0 when it can be analysed, 2 when not."""
+    from .ingest import inspect_study
+    from .summary import format_summary, summarize
+
+    table, problems = inspect_study(spec)
+    errors = [p for p in problems if p.severity == "error"]
+    warnings = [p for p in problems if p.severity == "warning"]
+    if table is not None:
+        click.echo(f"Study: {table.spec.name}")
+        click.echo(format_summary(summarize(table)))
+        click.echo("")
+    if warnings:
+        click.echo(f"{len(warnings)} warning(s):")
+        for w in warnings:
+            click.echo(f"  - {w}")
+    if errors:
+        click.echo(f"{len(errors)} problem(s) stop the analysis:", err=True)
+        for e in errors:
+            click.echo(f"  - {e}", err=True)
+        sys.exit(EXIT_USER_ERROR)
+    click.echo("The data can be analysed.")
+
+
+@main.command()
+@click.argument("spec", type=click.Path(path_type=Path))
+@click.option("--out", "out", required=True, type=click.Path(path_type=Path),
+              help="Folder for the results (created; see --overwrite).")
+@click.option("--overwrite", is_flag=True, help="Replace the output folder if it exists.")
+@click.option("--seed", type=int, default=None, help="Resampling seed [default: the spec's seed].")
+def audit(spec: Path, out: Path, overwrite: bool, seed: int | None) -> None:
+    """Run the full audit and write results.json, tables, a workbook and reports into OUT."""
+    from .audit import audit as run_audit
+    from .audit import write_audit
+    from .ingest import load_study
+    from .outputs import OutputFolder
+
+    OutputFolder(out, overwrite=overwrite)  # refuse early, before any work
+    table = load_study(spec)
+    for w in table.warnings:
+        click.echo(f"warning: {w}", err=True)
+    result = run_audit(table, seed=seed)
+    write_audit(result, out, overwrite=overwrite)
+    n_raters = len({e["rater"] for e in result.raters})
+    click.echo(f"Audited {n_raters} raters over {len(result.phases)} phase(s): "
+               f"{', '.join(result.phases)}.")
+    flagged = [e for e in result.raters if e["flags"]]
+    for e in flagged:
+        click.echo(f"  {e['rater']} ({e['phase']}): {', '.join(e['flags'])}")
+    click.echo(f"Results: {out}/results.json, tables in {out}/tables/, workbook {out}/audit.xlsx")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,5 @@
+"""Shared test settings."""
+
+import os
+
+os.environ.setdefault("MPLBACKEND", "Agg")
