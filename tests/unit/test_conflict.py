@@ -1,0 +1,173 @@
+"""Pairwise conflict (interpersonal lens model) on shared cases."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+
+import calibrate.conflict as conflict
+from calibrate.conflict import pairwise_conflict
+from calibrate.errors import DataError
+from tests.disagreement_panels import case_pool, first_judgments
+
+WEIGHTS = np.array([[0.10, 0.5, 0.8, -0.6],
+                    [0.02, 1.0, 0.1, -0.1],
+                    [0.08, 0.2, 1.2, -1.0],
+                    [0.12, 0.6, 0.0, 0.0],
+                    [0.05, 0.4, 0.5, -0.5],
+                    [0.00, 0.9, 0.9, 0.2]])
+
+
+def _panel(seed: int, *, per_rater=70, n_cases=120, missing_share=0.0, noise=None):
+    rng = np.random.default_rng(seed)
+    design = case_pool(rng, n_cases, missing_share=missing_share)
+    noise = np.linspace(0.4, 1.6, len(WEIGHTS)) if noise is None else noise
+    return design, first_judgments(rng, design, per_rater=per_rater, weights=WEIGHTS, noise=noise)
+
+
+def _identity_gap(frame: pd.DataFrame) -> np.ndarray:
+    rebuilt = (frame.g * frame.r_s_a * frame.r_s_b
+               + frame.c * np.sqrt(1 - frame.r_s_a ** 2) * np.sqrt(1 - frame.r_s_b ** 2))
+    return np.abs(frame.r - rebuilt).to_numpy()
+
+
+@pytest.mark.parametrize("per_rater, missing_share", [(120, 0.0), (70, 0.0), (60, 0.15)])
+def test_identity_is_exact_on_complete_and_incomplete_designs(per_rater, missing_share):
+    # Exact identity r = G R_a R_b + C sqrt(1-R_a^2) sqrt(1-R_b^2) when both policies are
+    # refitted on the same cases (Tucker 1964, Psychological Review 71:528-530, from memory).
+    design, first = _panel(11, per_rater=per_rater, missing_share=missing_share)
+    frame = pairwise_conflict(design, first).to_frame()
+    assert len(frame) > 0
+    assert np.nanmax(_identity_gap(frame)) < 1e-9
+    decomposed = frame.loss_inconsistency + frame.loss_weighting - frame.unmodelled
+    assert np.max(np.abs((1 - frame.r) - decomposed)) < 1e-9
+
+
+def test_components_match_statsmodels_fits_on_the_shared_cases():
+    # Reference: each rater's policy refitted with statsmodels OLS on exactly the shared
+    # cases; R, G, C and r as plain Pearson correlations (np.corrcoef) of the pieces.
+    design, first = _panel(5, per_rater=70, missing_share=0.1)
+    result = pairwise_conflict(design, first)
+    complete = pd.Series(design.complete_rows(), index=list(design.case_ids))
+    worst = 0.0
+    for pair in result.pairs:
+        a = first[first.rater == pair.rater_a].set_index("case").judgment
+        b = first[first.rater == pair.rater_b].set_index("case").judgment
+        shared = sorted(set(a.index) & set(b.index))
+        shared = [c for c in shared if complete[c]]
+        assert len(shared) == pair.n
+        X = sm.add_constant(design.matrix[design.row_of(shared)])
+        fit_a = sm.OLS(a[shared].to_numpy(), X).fit()
+        fit_b = sm.OLS(b[shared].to_numpy(), X).fit()
+        expected = {
+            "r": np.corrcoef(a[shared], b[shared])[0, 1],
+            "g": np.corrcoef(fit_a.fittedvalues, fit_b.fittedvalues)[0, 1],
+            "c": np.corrcoef(fit_a.resid, fit_b.resid)[0, 1],
+            "r_s_a": np.sqrt(fit_a.rsquared),
+            "r_s_b": np.sqrt(fit_b.rsquared),
+            "mean_gap": float(np.mean(a[shared].to_numpy() - b[shared].to_numpy())),
+        }
+        for key, value in expected.items():
+            worst = max(worst, abs(getattr(pair, key) - value))
+    assert worst < 1e-10
+
+
+def test_pairs_below_min_shared_are_left_out():
+    rng = np.random.default_rng(3)
+    design = case_pool(rng, 60, categorical=False)
+    ids = np.asarray(design.case_ids)
+    y = rng.normal(size=60)
+    # a and b share 30 cases, a and c share 15, b and c share 0.
+    first = pd.concat([
+        pd.DataFrame({"rater": "a", "case": ids[:45], "judgment": y[:45] + rng.normal(size=45)}),
+        pd.DataFrame({"rater": "b", "case": ids[15:45], "judgment": y[15:45]}),
+        pd.DataFrame({"rater": "c", "case": ids[45:] , "judgment": y[45:]}),
+        pd.DataFrame({"rater": "c", "case": ids[:15], "judgment": y[:15]}),
+    ])
+    result = pairwise_conflict(design, first, min_shared=20)
+    assert [(p.rater_a, p.rater_b, p.n) for p in result.pairs] == [("a", "b", 30)]
+    assert result.n_pairs_eligible == 1
+    assert len(pairwise_conflict(design, first, min_shared=15).pairs) == 2
+
+
+def test_max_pairs_keeps_the_most_conflicting():
+    design, first = _panel(8, per_rater=90)
+    everything = pairwise_conflict(design, first)
+    kept = pairwise_conflict(design, first, max_pairs=5)
+    assert everything.n_pairs_eligible == kept.n_pairs_eligible == 15
+    lowest = everything.to_frame().nsmallest(5, "r")
+    assert [(p.rater_a, p.rater_b) for p in kept.pairs] == list(zip(lowest.rater_a, lowest.rater_b))
+    assert kept.n_pairs_kept == 5 and any("most conflicting" in w for w in kept.warnings)
+    # pairs are ordered from the lowest agreement up
+    assert np.all(np.diff(everything.to_frame().r) >= 0)
+
+
+def test_chunking_does_not_change_the_numbers(monkeypatch):
+    design, first = _panel(9)
+    whole = pairwise_conflict(design, first).to_frame()
+    monkeypatch.setattr(conflict, "_CELLS_PER_CHUNK", 250)  # about two pairs per chunk
+    pieces = pairwise_conflict(design, first).to_frame()
+    pd.testing.assert_frame_equal(whole, pieces, rtol=0, atol=1e-13)
+
+
+def test_planted_sources_of_disagreement():
+    # Planted truth: pair (0, 1) has the same policy and lots of noise -> inconsistency;
+    # pair (2, 3) is almost noise-free with opposite weights -> weighting.
+    rng = np.random.default_rng(21)
+    design = case_pool(rng, 200, categorical=False)
+    w = np.array([[0.1, 0.5], [0.1, 0.5], [0.1, -0.5], [-0.1, 0.5]])
+    first = first_judgments(rng, design, per_rater=200, weights=w,
+                            noise=np.array([1.5, 1.5, 0.05, 0.05]))
+    by_pair = {(p.rater_a, p.rater_b): p for p in pairwise_conflict(design, first).pairs}
+    noisy = by_pair[("reader000", "reader001")]
+    opposed = by_pair[("reader002", "reader003")]
+    assert noisy.main_source == "inconsistency" and noisy.g > 0.95
+    assert opposed.main_source == "weighting" and opposed.r_s_a > 0.95 and opposed.g < 0.5
+
+
+def test_constant_rater_gives_empty_figures_and_a_warning():
+    design, first = _panel(4)
+    first = first.copy()
+    first.loc[first.rater == "reader001", "judgment"] = 4.0
+    result = pairwise_conflict(design, first)
+    with_constant = [p for p in result.pairs if "reader001" in (p.rater_a, p.rater_b)]
+    assert with_constant and all(np.isnan(p.r) and p.main_source is None for p in with_constant)
+    assert any("constant judgments" in w for w in result.warnings)
+    others = [p for p in result.pairs if "reader001" not in (p.rater_a, p.rater_b)]
+    assert all(np.isfinite(p.r) for p in others)
+    json.dumps(result.to_dict())  # NaN must become null
+
+
+def test_no_overlap_gives_an_empty_result_with_a_warning():
+    rng = np.random.default_rng(2)
+    design = case_pool(rng, 80, categorical=False)
+    ids = np.asarray(design.case_ids)
+    first = pd.DataFrame({"rater": ["a"] * 40 + ["b"] * 40, "case": ids,
+                          "judgment": rng.normal(size=80)})
+    result = pairwise_conflict(design, first)
+    assert result.pairs == () and result.n_pairs_eligible == 0
+    assert result.warnings and result.to_frame().empty
+
+
+@pytest.mark.parametrize("change, message", [
+    (lambda f: f.drop(columns="judgment"), "lacks column"),
+    (lambda f: pd.concat([f, pd.DataFrame({"rater": ["x"], "case": ["nowhere"],
+                                           "judgment": [1.0]})]), "absent from the cue design"),
+    (lambda f: pd.concat([f, f.iloc[:1]]), "more than one row"),
+])
+def test_bad_input_raises_a_data_error(change, message):
+    design, first = _panel(1)
+    with pytest.raises(DataError, match=message):
+        pairwise_conflict(design, change(first))
+
+
+def test_same_input_same_output():
+    design, first = _panel(13)
+    shuffled = first.sample(frac=1.0, random_state=3)
+    a = pairwise_conflict(design, first).to_dict()
+    b = pairwise_conflict(design, shuffled).to_dict()
+    assert json.dumps(a) == json.dumps(b)
