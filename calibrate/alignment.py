@@ -71,7 +71,6 @@ class AlignmentResult(RaterLookup, ResultMixin):
     raters: tuple[RaterAlignment, ...]
     warnings: tuple[str, ...] = ()
 
-
     def to_frame(self) -> pd.DataFrame:
         """Tidy: one row per rater x cue with the rater's share and the rubric's."""
         records = [
@@ -251,7 +250,6 @@ class ExcludedResult(RaterLookup, ResultMixin):
     alpha: float
     caution: str = ASSOCIATION_CAUTION
     warnings: tuple[str, ...] = ()
-
 
     def proxies_of(self, attribute: str) -> list[str]:
         """Cues strongly related to ``attribute``, strongest first."""

@@ -80,7 +80,6 @@ class CutoffResult(RaterLookup, ResultMixin):
     cues_searched: tuple[str, ...]
     warnings: tuple[str, ...] = ()
 
-
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([{k: v for k, v in r.to_dict().items() if k != "warnings"}
                              for r in self.raters])

@@ -1,0 +1,89 @@
+"""Behaviour of calibrate.lens beyond the published identities (see tests/reference)."""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from calibrate.errors import DataError
+from calibrate.lens import lens_model
+from tests.simulated_panels import linear_panel
+
+LENS_KEYS = {"r_a", "g", "c", "r_e", "r_s", "model_validity", "model_validity_cv"}
+
+
+@pytest.fixture(scope="module")
+def panel_and_criterion():
+    rng = np.random.default_rng(30)
+    panel = linear_panel(rng, n_cases=150, n_raters=5, per_rater=60,
+                         weights=np.array([0.05, 0.4, 0.3]), noise=1.0)
+    X = panel.design.matrix
+    criterion = pd.Series(X @ np.array([0.05, 0.3, 0.3]) + rng.standard_normal(150),
+                          index=list(panel.design.case_ids))
+    return panel, criterion
+
+
+def test_same_seed_same_numbers_and_json_contract(panel_and_criterion):
+    panel, criterion = panel_and_criterion
+    a = lens_model(panel.design, panel.first, criterion, rng=7)
+    b = lens_model(panel.design, panel.first, criterion, rng=7)
+    assert json.dumps(a.to_dict(), sort_keys=True) == json.dumps(b.to_dict(), sort_keys=True)
+    block = a.raters[0].to_dict()
+    assert LENS_KEYS <= set(block)
+    assert set(a.to_frame().columns) >= LENS_KEYS | {"rater", "n"}
+    assert not a.cautions
+
+
+def test_selected_criterion_carries_a_caution(panel_and_criterion):
+    panel, criterion = panel_and_criterion
+    result = lens_model(panel.design, panel.first, criterion, criterion_selected=True, rng=1)
+    assert len(result.cautions) == 1 and "selection" in result.cautions[0]
+
+
+def test_partly_known_criterion_is_reported(panel_and_criterion):
+    panel, criterion = panel_and_criterion
+    partial = criterion.copy()
+    partial.iloc[::3] = np.nan
+    result = lens_model(panel.design, panel.first, partial, rng=1)
+    assert any("known for" in w for w in result.warnings)
+    assert all(r.n < 60 for r in result.raters)
+
+
+def test_rater_with_too_few_criterion_cases_gets_nan_and_a_warning(panel_and_criterion):
+    panel, criterion = panel_and_criterion
+    few = pd.DataFrame({"rater": "late", "case": list(panel.design.case_ids[:4]), "judgment": [1., 2., 3., 5.]})
+    result = lens_model(panel.design, pd.concat([panel.first, few]), criterion, rng=1)
+    late = result.for_rater("late")
+    assert np.isnan(late.r_a) and np.isnan(late.model_validity_cv)
+    assert late.warnings and "cannot be fitted" in late.warnings[0]
+    assert json.loads(json.dumps(late.to_dict()))["g"] is None
+    assert all(np.isfinite(r.g) for r in result.raters if r.rater != "late")
+
+
+def test_bootstrap_sentence_says_which_way(panel_and_criterion):
+    panel, criterion = panel_and_criterion
+    for r in lens_model(panel.design, panel.first, criterion, rng=2).raters:
+        if r.bootstrap_gain > 0.01:
+            assert r.summary.startswith("A model of your own policy would have predicted the outcome better")
+        elif r.bootstrap_gain < -0.01:
+            assert r.summary.startswith("Your judgments predicted the outcome better")
+
+
+@pytest.mark.parametrize("change, message", [
+    (dict(k_folds=1), "k_folds"),
+    (dict(criterion="none"), "unknown for every judged case"),
+    (dict(case="nowhere"), "absent from the cue design"),
+    (dict(column="score"), "lacks column"),
+])
+def test_user_errors_are_data_errors(panel_and_criterion, change, message):
+    panel, criterion = panel_and_criterion
+    first = panel.first.copy()
+    if "case" in change:
+        first.loc[0, "case"] = change["case"]
+    if "column" in change:
+        first = first.rename(columns={"judgment": change["column"]})
+    if change.get("criterion") == "none":
+        criterion = criterion * np.nan
+    with pytest.raises(DataError, match=message):
+        lens_model(panel.design, first, criterion, k_folds=change.get("k_folds", 5))
