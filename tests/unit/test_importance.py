@@ -1,0 +1,112 @@
+"""Relative importance: dominance weights and Johnson's relative weights.
+
+Checks: an all-subsets brute force written here independently (statsmodels OLS
+R^2 for every subset, averaged as Azen & Budescu 2003 define general dominance);
+the identity that both measures sum to the full-model R^2 (Budescu 1993;
+Johnson 2000); and planted independent cues, whose population dominance weight
+is beta_j^2 / var(y).
+"""
+
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+import pytest
+import statsmodels.api as sm
+
+from calibrate.errors import CalibrateError
+from calibrate.importance import (
+    MAX_DOMINANCE_CUES,
+    cue_importance,
+    dominance_weights,
+    relative_weights,
+)
+from calibrate.policy import fit_policies
+from tests.policy_panels import independent_cue_panel, mixed_panel, rater_matrix
+
+
+def brute_force_dominance(X, y, groups):
+    """General dominance by explicit enumeration (no shared code with calibrate)."""
+    k = len(groups)
+
+    def r2(subset):
+        if not subset:
+            return 0.0
+        cols = [c for j in subset for c in groups[j]]
+        return sm.OLS(y, sm.add_constant(X[:, cols])).fit().rsquared
+
+    cache = {s: r2(s) for size in range(k + 1) for s in itertools.combinations(range(k), size)}
+    out = []
+    for j in range(k):
+        others = [i for i in range(k) if i != j]
+        by_size = []
+        for size in range(k):
+            gains = [cache[tuple(sorted(s + (j,)))] - cache[s]
+                     for s in itertools.combinations(others, size)]
+            by_size.append(np.mean(gains))
+        out.append(np.mean(by_size))
+    return np.array(out)
+
+
+def test_dominance_equals_brute_force_with_categorical_cue():
+    design, first = mixed_panel(seed=3)
+    policies = fit_policies(design, first, scale="continuous", n_boot=0)
+    for policy in policies.raters[:-1]:  # every column estimable for these raters
+        X, y, names = rater_matrix(design, first, policy.rater)
+        groups = [design.columns_of(c) for c in design.cues]
+        expected = brute_force_dominance(X, y, groups)
+        ours = [policy.importance_r2[c] for c in design.cues]
+        np.testing.assert_allclose(ours, expected, rtol=1e-9, atol=1e-12)
+        assert sum(ours) == pytest.approx(policy.r2, rel=1e-10)
+        assert sum(policy.importance.values()) == pytest.approx(1.0, rel=1e-10)
+
+
+def test_relative_weights_sum_to_r2_and_track_dominance():
+    design, first = mixed_panel(seed=4)
+    policies = fit_policies(design, first, scale="continuous", n_boot=0)
+    for policy in policies.raters:
+        rw = np.array(list(policy.relative_weights_r2.values()))
+        finite = rw[np.isfinite(rw)]
+        assert finite.sum() == pytest.approx(policy.r2, rel=1e-9)
+        dom = np.array([policy.importance_r2[c] for c in policy.relative_weights_r2])
+        # Johnson (2000) reports relative weights within a few hundredths of dominance
+        # weights in his examples (from memory); a loose check that they agree.
+        np.testing.assert_allclose(rw[np.isfinite(rw)], dom[np.isfinite(rw)], atol=0.05)
+
+
+def test_relative_weights_equal_squared_correlations_for_orthogonal_cues():
+    # Exact identity: with uncorrelated cues each weight is r(y, x_j)^2.
+    corr_xx = np.eye(3)[None]
+    corr_xy = np.array([[[0.5, -0.3, 0.1]]])
+    np.testing.assert_allclose(relative_weights(corr_xx, corr_xy, [[0], [1], [2]])[0, 0],
+                               [0.25, 0.09, 0.01], rtol=1e-12)
+    np.testing.assert_allclose(dominance_weights(corr_xx, corr_xy, [[0], [1], [2]])[0, 0],
+                               [0.25, 0.09, 0.01], rtol=1e-12)
+
+
+def test_planted_importance_is_recovered():
+    beta = np.array([0.6, 0.4, 0.2, 0.0])
+    design, first = independent_cue_panel(2, n_designs=40, raters_per_design=1, n_cases=400,
+                                          beta=beta, noise_sd=0.5)
+    policies = fit_policies(design, first, scale="continuous", n_boot=0)
+    shares = np.array([[p.importance[c] for c in design.cues] for p in policies.raters])
+    np.testing.assert_allclose(shares.mean(axis=0), beta**2 / (beta**2).sum(), atol=0.02)
+
+
+def test_auto_switches_to_relative_weights_beyond_the_limit():
+    k = MAX_DOMINANCE_CUES + 1
+    rng = np.random.default_rng(0)
+    A = rng.normal(size=(200, k))
+    corr = np.corrcoef(np.column_stack([A, A @ rng.normal(size=k) + rng.normal(size=200)]),
+                       rowvar=False)
+    values, method = cue_importance(corr[None, :k, :k], corr[None, None, k, :k],
+                                    [[j] for j in range(k)])
+    assert method == "relative_weights"
+    r2 = corr[k, :k] @ np.linalg.solve(corr[:k, :k], corr[:k, k])
+    assert values.sum() == pytest.approx(r2, rel=1e-10)
+
+
+def test_unknown_method_is_a_clear_error():
+    with pytest.raises(CalibrateError, match="'method' option of cue_importance"):
+        cue_importance(np.eye(2)[None], np.zeros((1, 1, 2)), [[0], [1]], method="shapley")
