@@ -1,0 +1,404 @@
+"""Tests for calibrate.grouping (groups of raters who share a policy)."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+from scipy.cluster.hierarchy import fcluster, linkage
+from sklearn.metrics import adjusted_rand_score
+
+from calibrate.cues import CueRule, build_cue_design
+from calibrate.errors import DataError
+from calibrate.grouping import (
+    _resample_budget,
+    _resampled_labels,
+    general_dominance,
+    group_raters,
+    relative_weights,
+)
+from calibrate.linalg import grouped_sscp
+
+
+def make_panel(seed, policies, sizes, *, n_cases=60, noise=0.6, share_seen=1.0,
+               leniency=1.0, categorical=False):
+    """Invented panel: raters in planted groups, each group with its own cue weights."""
+    rng = np.random.default_rng(seed)
+    p = len(policies[0]) - (1 if categorical else 0)
+    X = rng.normal(size=(n_cases, p))
+    cases = pd.DataFrame(X, columns=[f"cue{j}" for j in range(p)],
+                         index=[f"case{i:03d}" for i in range(n_cases)])
+    rules = [CueRule(c) for c in cases.columns]
+    if categorical:
+        cases["track"] = rng.choice(["arts", "science", "trade"], size=n_cases,
+                                    p=[0.5, 0.3, 0.2])
+        rules.append(CueRule("track", kind="categorical"))
+    design = build_cue_design(cases, rules)
+    M = design.matrix
+    rows, truth, k = [], {}, 0
+    for g, (weights, size) in enumerate(zip(policies, sizes)):
+        w = np.asarray(weights, dtype=float)
+        if categorical:  # last weight goes on the first dummy column only
+            w = np.concatenate([w, [0.0]])
+        for _ in range(size):
+            rater = f"rev{k:02d}"
+            k += 1
+            truth[rater] = g
+            seen = np.flatnonzero(rng.random(n_cases) < share_seen)
+            y = M[seen] @ w + rng.normal(0.0, noise, seen.size) + rng.normal(0.0, leniency)
+            rows += [{"rater": rater, "case": design.case_ids[i], "judgment": v}
+                     for i, v in zip(seen, y)]
+    return design, pd.DataFrame(rows), truth
+
+
+THREE_POLICIES = [[1.0, 0.5, 0.0, 0.0], [0.0, 0.2, 1.0, 0.5], [0.5, 0.5, 0.5, -0.8]]
+
+
+def rss_pooled_statsmodels(design, first, raters):
+    """RSS of one equation with shared weights and an intercept per rater, refitted on rows."""
+    part = first[first["rater"].isin(raters)]
+    X = design.matrix[design.row_of(part["case"])]
+    dummies = pd.get_dummies(part["rater"]).to_numpy(dtype=float)
+    return sm.OLS(part["judgment"].to_numpy(), np.column_stack([dummies, X])).fit().ssr
+
+
+def within_tss(first, raters):
+    part = first[first["rater"].isin(raters)]
+    return float(part.groupby("rater")["judgment"].apply(lambda s: ((s - s.mean()) ** 2).sum()).sum())
+
+
+def test_every_merge_cost_equals_refitting_raw_rows():
+    # Exact identity: the pooled-within SSCP gives the same fit as OLS on the stacked
+    # rows with a dummy per rater (statsmodels refit, independent of calibrate.linalg).
+    design, first, _ = make_panel(11, THREE_POLICIES, [3, 2, 2], share_seen=0.7,
+                                  categorical=True)
+    result = group_raters(design, first, rng=0, n_resamples=0)
+    tss = within_tss(first, list(result.raters))
+    assert len(result.merges) == len(result.raters) - 1
+    worst = 0.0
+    for m in result.merges:
+        both = rss_pooled_statsmodels(design, first, m.merged_a + m.merged_b)
+        each = (rss_pooled_statsmodels(design, first, m.merged_a)
+                + rss_pooled_statsmodels(design, first, m.merged_b))
+        worst = max(worst, abs((both - each) / tss - m.r2_drop))
+    assert worst < 1e-9  # measured about 1e-15
+
+
+def test_overall_r2_and_f_test_match_statsmodels_nested_models():
+    # Overall R^2 = 1 - sum RSS / sum within-rater TSS; the merge F test equals
+    # statsmodels' compare_f_test between the grouping before and after the merge
+    # (nested OLS, Chow 1960 test of equal slopes). Its p-value is not ours: see
+    # test_f_test_p_values_would_split_one_policy_panels.
+    design, first, _ = make_panel(5, THREE_POLICIES[:2], [3, 2], share_seen=0.8)
+    result = group_raters(design, first, rng=0, n_resamples=0)
+    raters = list(result.raters)
+    tss = within_tss(first, raters)
+    X = design.matrix[design.row_of(first["case"])]
+    dummies = pd.get_dummies(first["rater"]).to_numpy(dtype=float)
+
+    def fit(partition):
+        blocks = [dummies]
+        for members in partition:
+            inside = first["rater"].isin(members).to_numpy()[:, None]
+            blocks.append(X * inside)
+        return sm.OLS(first["judgment"].to_numpy(), np.column_stack(blocks)).fit()
+
+    partition = [(r,) for r in raters]
+    before = fit(partition)
+    for m in result.merges:
+        partition = [g for g in partition if g not in (m.merged_a, m.merged_b)]
+        partition.append(tuple(sorted(m.merged_a + m.merged_b)))
+        partition = [tuple(sorted(g)) for g in partition]
+        after = fit(partition)
+        f_value, p_value, df_diff = before.compare_f_test(after)  # before: unrestricted
+        assert m.r2 == pytest.approx(1.0 - after.ssr / tss, abs=1e-10)
+        assert m.f_statistic == pytest.approx(f_value, rel=1e-8)
+        assert m.df_num == df_diff
+        before = after
+        # merge sides are stored sorted, matching the tuples built here
+        assert m.merged_a == tuple(sorted(m.merged_a))
+
+
+def test_r2_individual_is_pooled_share_of_separate_fits():
+    # One equation per rater: statsmodels per-rater OLS (reference only, not hot path).
+    design, first, _ = make_panel(2, THREE_POLICIES, [2, 2, 1], share_seen=0.6)
+    result = group_raters(design, first, rng=0, n_resamples=0)
+    rss = sum(sm.OLS(part["judgment"].to_numpy(),
+                     sm.add_constant(design.matrix[design.row_of(part["case"])])).fit().ssr
+              for _, part in first.groupby("rater"))
+    assert result.r2_individual == pytest.approx(1 - rss / within_tss(first, list(result.raters)),
+                                                 abs=1e-12)
+
+
+def test_planted_groups_are_recovered_exactly_and_stable():
+    # Planted truth: three policies on an incomplete design (each rater sees ~70% of cases).
+    design, first, truth = make_panel(3, THREE_POLICIES, [6, 4, 3], share_seen=0.7)
+    result = group_raters(design, first, rng=42, n_resamples=100)
+    assert result.n_groups == 3
+    found = [result.rater_group[r] for r in result.raters]
+    assert adjusted_rand_score([truth[r] for r in result.raters], found) == 1.0
+    # Labels are ordered by group size: the planted group of 6 is 'A', of 3 is 'C'.
+    assert [g.group for g in result.groups] == ["A", "B", "C"]
+    assert [len(g.raters) for g in result.groups] == [6, 4, 3]
+    assert result.ari_estimate > 0.95
+    assert all(g.survives for g in result.groups)
+    assert result.ward_ari == 1.0 and result.ward_matched == 1.0
+    # Planted group weights come back in the pooled policy (raw weights, noise 0.6).
+    a = result.groups[0]
+    assert a.weights["cue0"] == pytest.approx(1.0, abs=0.1)
+    assert a.weights["cue2"] == pytest.approx(0.0, abs=0.1)
+    assert sum(a.importance.values()) == pytest.approx(1.0)
+    assert sum(a.importance_r2.values()) == pytest.approx(a.r2, abs=1e-12)
+    assert "cue0" in a.sets_apart and a.sets_apart.startswith("Group A weighs")
+    c = result.groups[2]
+    assert "cue3" in c.sets_apart and "opposite direction" in c.sets_apart
+
+
+def test_shared_policy_gives_one_group_in_at_least_90_percent():
+    # Planted truth: every rater has the same weights plus noise and own leniency;
+    # the issue asks for one group in at least 90% of 100 simulations.
+    one = 0
+    sizes_seen = []
+    for seed in range(100):
+        rng = np.random.default_rng(1000 + seed)
+        n_raters = int(rng.integers(4, 16))
+        design, first, _ = make_panel(seed, [[0.8, 0.4, 0.2, 0.0]], [n_raters],
+                                      n_cases=int(rng.integers(30, 90)),
+                                      noise=float(rng.uniform(0.3, 1.2)), share_seen=0.8)
+        result = group_raters(design, first, rng=seed, n_resamples=0)
+        one += result.n_groups == 1
+        sizes_seen.append(result.n_groups)
+    assert one >= 90, sizes_seen  # measured 100 of 100
+
+
+def test_leniency_alone_does_not_split_groups():
+    design, first, _ = make_panel(8, [[1.0, 0.5, 0.0, 0.0]], [6], leniency=5.0)
+    result = group_raters(design, first, rng=0, n_resamples=0)
+    assert result.n_groups == 1
+    assert result.merges[-1].r2_drop < 0.01
+
+
+def test_same_seed_same_numbers_and_input_order_does_not_matter():
+    design, first, _ = make_panel(4, THREE_POLICIES, [4, 3, 2], share_seen=0.8)
+    a = group_raters(design, first, rng=7, n_resamples=40).to_dict()
+    b = group_raters(design, first, rng=7, n_resamples=40).to_dict()
+    c = group_raters(design, first.sample(frac=1.0, random_state=1), rng=7,
+                     n_resamples=40).to_dict()
+    assert json.dumps(a) == json.dumps(b)
+    assert json.dumps(a) == json.dumps(c)
+
+
+def test_to_dict_follows_the_results_contract():
+    design, first, _ = make_panel(3, THREE_POLICIES, [3, 2, 2], categorical=True)
+    out = group_raters(design, first, rng=1, n_resamples=20).to_dict()
+    json.dumps(out, allow_nan=False)
+    for g in out["groups"]:
+        assert set(g) >= {"group", "raters", "std_weights", "importance"}
+        assert set(g["importance"]) == {"cue0", "cue1", "cue2", "track"}
+        assert set(g["std_weights"]) == set(design.columns)
+    assert all({"rater", "group"} <= set(r) for r in out["raters"])
+    n = len(out["raters"])
+    assert len(out["stability"]["pairs"]) == n * (n - 1) // 2
+
+
+def test_co_assignment_is_a_symmetric_share():
+    design, first, truth = make_panel(3, THREE_POLICIES, [4, 3, 3])
+    result = group_raters(design, first, rng=5, n_resamples=60)
+    co = result.co_assignment
+    np.testing.assert_allclose(co, co.T)
+    np.testing.assert_allclose(np.diag(co), 1.0)
+    assert ((co >= 0) & (co <= 1)).all()
+    same = np.array([[truth[a] == truth[b] for b in result.raters] for a in result.raters])
+    assert co[same].min() > 0.9 and co[~same].max() < 0.1
+
+
+def test_identity_resample_reproduces_the_full_data_grouping():
+    # Counts of one for every case must give back the full-data grouping: checks the
+    # stacking of resamples into grouped_sscp weights.
+    design, first, _ = make_panel(6, THREE_POLICIES, [3, 3, 2], share_seen=0.75)
+    result = group_raters(design, first, rng=0, n_resamples=0)
+    rows = design.row_of(first["case"])
+    Z = np.column_stack([design.matrix[rows], first["judgment"].to_numpy()])
+    who = first["rater"].map({r: k for k, r in enumerate(result.raters)}).to_numpy()
+    counts = np.ones((2, len(design.case_ids)))
+    slots = _resampled_labels(Z, who, rows, counts, np.ones(len(result.raters), bool),
+                              design.n_columns, result.n_groups)
+    truth = [result.rater_group[r] for r in result.raters]
+    assert adjusted_rand_score(truth, slots[0]) == 1.0
+    assert (slots[0] == slots[1]).all()
+
+
+def test_weighted_sscp_equals_replicated_rows():
+    # Count weights in grouped_sscp equal physically repeating rows (exact identity).
+    rng = np.random.default_rng(0)
+    Z = rng.normal(size=(30, 3))
+    groups = rng.integers(0, 3, 30)
+    counts = rng.integers(0, 4, 30).astype(float)
+    weighted = grouped_sscp(Z, groups, 3, weights=counts)
+    rep = np.repeat(np.arange(30), counts.astype(int))
+    plain = grouped_sscp(Z[rep], groups[rep], 3)
+    np.testing.assert_allclose(weighted.sscp, plain.sscp, atol=1e-10)
+
+
+def test_noise_groups_do_not_survive_resampling():
+    # Planted truth: no structure at all; forcing four groups must be flagged unstable.
+    design, first, _ = make_panel(9, [[0.5, 0.5, 0.5, 0.5]], [12], noise=1.5, n_cases=40)
+    result = group_raters(design, first, rng=2, n_resamples=60, n_groups=4)
+    assert result.n_groups == 4 and result.rule == "4 group(s), as asked."
+    assert any(g.survives is False for g in result.groups)
+    assert any("does not survive" in w for w in result.warnings)
+    assert result.ari_estimate < 0.5
+
+
+def test_ward_view_matches_scipy_on_standardized_weights():
+    # Reference: scipy Ward linkage on each rater's standardized OLS weights (statsmodels).
+    design, first, _ = make_panel(12, THREE_POLICIES, [3, 3, 3], noise=1.0)
+    result = group_raters(design, first, rng=0, n_resamples=0, n_groups=3)
+    profiles = []
+    for r in result.raters:
+        part = first[first["rater"] == r]
+        X = design.matrix[design.row_of(part["case"])]
+        b = sm.OLS(part["judgment"].to_numpy(), sm.add_constant(X)).fit().params[1:]
+        profiles.append(b * X.std(axis=0) / part["judgment"].std(ddof=0))
+    cut = fcluster(linkage(np.array(profiles), method="ward"), t=3, criterion="maxclust")
+    assert adjusted_rand_score(cut, [result.ward_group[r] for r in result.raters]) == 1.0
+    assert result.ward_ari == pytest.approx(
+        adjusted_rand_score([result.rater_group[r] for r in result.raters],
+                            [result.ward_group[r] for r in result.raters]), abs=1e-12)
+
+
+def test_unfittable_raters_are_left_out_with_a_warning():
+    design, first, _ = make_panel(3, THREE_POLICIES[:2], [3, 3])
+    few = pd.DataFrame({"rater": "tiny", "case": list(design.case_ids[:4]),
+                        "judgment": [1.0, 2.0, 3.0, 4.0]})
+    flat = pd.DataFrame({"rater": "flat", "case": list(design.case_ids[:20]), "judgment": 3.0})
+    result = group_raters(design, pd.concat([first, few, flat]), rng=0, n_resamples=20)
+    assert result.rater_group["tiny"] is None and result.rater_group["flat"] is None
+    assert any("'tiny' judged only 4" in w for w in result.warnings)
+    assert any("'flat' gave the same judgment" in w for w in result.warnings)
+    assert result.n_groups == 2
+    assert json.dumps(result.to_dict(), allow_nan=False)
+
+
+def test_single_rater_and_no_fittable_rater_do_not_crash():
+    design, first, _ = make_panel(3, THREE_POLICIES[:1], [1])
+    one = group_raters(design, first, rng=0)
+    assert one.n_groups == 1 and one.merges == () and one.n_resamples == 0
+    flat = first.assign(judgment=2.0)
+    none = group_raters(design, flat, rng=0)
+    assert none.n_groups == 0 and none.groups == ()
+    assert any("No rater" in w for w in none.warnings)
+
+
+def test_user_errors_raise_data_error():
+    design, first, _ = make_panel(3, THREE_POLICIES[:1], [3])
+    with pytest.raises(DataError, match="lacks column"):
+        group_raters(design, first.drop(columns="judgment"))
+    with pytest.raises(DataError, match="not in the cue design"):
+        group_raters(design, pd.concat([first, pd.DataFrame(
+            {"rater": ["rev00"], "case": ["nope"], "judgment": [1.0]})]))
+    with pytest.raises(DataError, match="n_groups must be between 1 and 3"):
+        group_raters(design, first, n_groups=5)
+    with pytest.raises(DataError, match="threshold"):
+        group_raters(design, first, threshold=-1.0)
+
+
+def test_resample_budget_shrinks_for_large_panels():
+    assert _resample_budget(200, 30) == 200
+    assert _resample_budget(200, 200) == 50
+    assert _resample_budget(200, 2000) == 20
+
+
+def test_general_dominance_matches_all_subsets_statsmodels():
+    # Reference: every subset's R^2 refitted with statsmodels, then averaged as in
+    # Budescu (1993) by subset size; identity: the weights sum to the full R^2.
+    rng = np.random.default_rng(4)
+    n = 200
+    X = rng.normal(size=(n, 4)) @ np.array([[1, .3, 0, 0], [0, 1, .4, 0],
+                                              [0, 0, 1, .2], [0, 0, 0, 1.]])
+    y = X @ np.array([.5, -.3, .2, .4]) + rng.normal(size=n)
+    cue_columns = [[0], [1, 2], [3]]  # a two-column cue enters as one set
+    corr = np.corrcoef(np.column_stack([X, y]), rowvar=False)
+    got = general_dominance(corr, cue_columns)
+
+    def r2(sets):
+        cols = [c for s in sets for c in cue_columns[s]]
+        if not cols:
+            return 0.0
+        return sm.OLS(y, sm.add_constant(X[:, cols])).fit().rsquared
+
+    import itertools
+    import math
+    q = len(cue_columns)
+    expected = np.zeros(q)
+    for j in range(q):
+        others = [s for s in range(q) if s != j]
+        for k in range(q):
+            subsets = list(itertools.combinations(others, k))
+            expected[j] += np.mean([r2(set(s) | {j}) - r2(s) for s in subsets]) / q
+            assert len(subsets) == math.comb(q - 1, k)
+    np.testing.assert_allclose(got, expected, atol=1e-12)
+    assert got.sum() == pytest.approx(r2(range(q)), abs=1e-12)
+
+
+def test_relative_weights_sum_to_r2_and_equal_r2_when_uncorrelated():
+    # Identities (Johnson 2000): weights sum to R^2; with orthogonal predictors each
+    # weight is that predictor's squared correlation with the judgment.
+    rng = np.random.default_rng(1)
+    X = rng.normal(size=(100, 3))
+    y = X @ np.array([1.0, 0.5, -0.2]) + rng.normal(size=100)
+    corr = np.corrcoef(np.column_stack([X, y]), rowvar=False)
+    rw = relative_weights(corr, [[0], [1], [2]])
+    full_r2 = sm.OLS(y, sm.add_constant(X)).fit().rsquared
+    assert rw.sum() == pytest.approx(full_r2, abs=1e-12)
+    ortho = np.eye(4)
+    ortho[:3, 3] = ortho[3, :3] = [0.5, 0.3, -0.1]
+    np.testing.assert_allclose(relative_weights(ortho, [[0], [1], [2]]), [0.25, 0.09, 0.01])
+    np.testing.assert_allclose(general_dominance(ortho, [[0], [1], [2]]), [0.25, 0.09, 0.01])
+
+
+def test_many_cues_switch_importance_to_relative_weights():
+    policy = [[0.3] * 13]
+    design, first, _ = make_panel(1, policy, [3], n_cases=80)
+    result = group_raters(design, first, rng=0, n_resamples=0)
+    assert any("relative weights" in w for w in result.warnings)
+    g = result.groups[0]
+    assert sum(g.importance_r2.values()) == pytest.approx(g.r2, abs=1e-10)
+
+
+def test_frames_are_tidy():
+    design, first, _ = make_panel(3, THREE_POLICIES, [2, 2, 2])
+    result = group_raters(design, first, rng=0, n_resamples=10)
+    assert list(result.to_frame().columns) == ["rater", "group", "ward_group"]
+    merges = result.merge_frame()
+    assert len(merges) == 5 and list(merges["n_groups"]) == [5, 4, 3, 2, 1]
+    assert (merges["r2"].diff().dropna() <= 1e-12).all()
+    assert set(result.groups_frame()["measure"]) == {"std_weight", "importance"}
+    assert len(result.pairs_frame()) == 15
+
+
+def test_f_test_p_values_would_split_one_policy_panels():
+    # Planted truth: one shared policy. The simulated (parametric bootstrap) p-value
+    # of the last merge keeps its level; the textbook F p-value (scipy F distribution
+    # on our F statistic) does not, because the groups were built to differ.
+    # Measured on these 100 panels: 6% vs 77% below .05.
+    from scipy import stats
+
+    simulated, textbook = [], []
+    for seed in range(100):
+        rng = np.random.default_rng(1000 + seed)
+        design, first, _ = make_panel(seed, [[0.8, 0.4, 0.2, 0.0]],
+                                      [int(rng.integers(4, 16))],
+                                      n_cases=int(rng.integers(30, 90)),
+                                      noise=float(rng.uniform(0.3, 1.2)), share_seen=0.8)
+        last = group_raters(design, first, rng=seed, n_resamples=0, threshold=0.0,
+                            n_null=50).merges[-1]
+        simulated.append(last.p_value)
+        textbook.append(stats.f.sf(last.f_statistic, last.df_num, last.df_den))
+    assert np.mean(np.array(simulated) < 0.05) <= 0.10
+    assert np.mean(np.array(textbook) < 0.05) >= 0.5
+    # p-values of a calibrated test spread over (0, 1): median measured 0.44.
+    assert 0.3 < np.median(simulated) < 0.7
