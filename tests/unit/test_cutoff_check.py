@@ -1,0 +1,131 @@
+"""The cutoff check: step search, its parametric bootstrap, planted threshold raters."""
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import statsmodels.api as sm
+
+from calibrate.cues import CueRule, build_cue_design
+from calibrate.cutoffs import CUTOFF_FLAG, cutoff_check, step_search
+from calibrate.errors import DataError
+from tests.simulated_panels import linear_panel
+
+WEIGHTS = np.array([0.08, 0.4, 0.3])
+
+
+def _threshold_plant(probe, cut=68.0, drop=1.0):
+    """Rater 0 declines every file below `cut` on grades whatever the other cues say:
+    there the judgment is a fixed low value (the panel mean less `drop` judgment SDs)
+    plus the usual noise, instead of the linear policy."""
+    grades = probe.cases["grades"].to_numpy()
+    signal = probe.design.matrix @ WEIGHTS
+    low = signal.mean() - drop * np.sqrt(signal.var() + 1.0)
+
+    def extra(r, rows):
+        if r != 0:
+            return 0.0
+        return np.where(grades[rows] < cut, low - signal[rows], 0.0)
+    return extra
+
+
+def test_step_search_matches_brute_force_statsmodels():
+    # Independent reference: statsmodels OLS with the step dummy for every admissible
+    # threshold on every cue; the gain (e'd)^2/(d'Md) is the drop in RSS.
+    rng = np.random.default_rng(60)
+    n = 45
+    X = rng.standard_normal((n, 3))
+    X[:, 2] = np.round(X[:, 2])                     # ties: thresholds only between distinct values
+    y = X @ np.array([1.0, -0.5, 0.3]) + rng.standard_normal(n)
+    base = sm.OLS(y, sm.add_constant(X)).fit()
+    best, best_at = -np.inf, None
+    for j in range(3):
+        values = np.unique(X[:, j])
+        for t in (values[1:] + values[:-1]) / 2:
+            d = (X[:, j] < t).astype(float)
+            if min(d.sum(), n - d.sum()) < 5:
+                continue
+            fit = sm.OLS(y, sm.add_constant(np.column_stack([X, d]))).fit()
+            gain = (base.ssr - fit.ssr) / base.ssr
+            if gain > best:
+                best, best_at = gain, (j, int(d.sum()))
+    stat, where = step_search(X, y[None, :], [0, 1, 2], 5)
+    assert stat[0] == pytest.approx(best, rel=1e-10)
+    assert (int(where[0, 0]), int(where[0, 1])) == best_at
+
+
+def test_linear_raters_are_flagged_at_the_nominal_rate():
+    # Issue 4: over 1,000 simulated linear raters, 3-7% flagged at the 5% level. The
+    # bootstrap test is exact for normal errors (Dwass 1957 Monte Carlo test), so the
+    # expected rate is 5% (n_sim = 199: p <= .05 when at most 9 simulations reach it).
+    rng = np.random.default_rng(61)
+    panel = linear_panel(rng, n_cases=300, n_raters=1000, per_rater=60, weights=WEIGHTS, noise=1.0)
+    result = cutoff_check(panel.design, panel.first, rng=1, n_sim=199)
+    rate = np.mean([r.flagged for r in result.raters])
+    # measured 5.1% with this seed (and 4.0% when the judgments are rounded and clipped to 1-7)
+    assert 0.03 <= rate <= 0.07, rate
+
+
+def test_planted_threshold_raters_are_found():
+    # Planted truth: 60 panels; in each, rater 0 gives every file below grades = 68
+    # (about the 40th percentile) one low judgment (1.5 judgment SDs below the mean)
+    # whatever the other cues say.
+    found, right_cue, others = 0, 0, 0
+    for panel_no in range(60):
+        seed = 1000 + panel_no
+        probe = linear_panel(np.random.default_rng(seed), n_cases=150, n_raters=1, per_rater=1,
+                             weights=WEIGHTS, noise=0)
+        panel = linear_panel(np.random.default_rng(seed), n_cases=150, n_raters=4, per_rater=80,
+                             weights=WEIGHTS, noise=1.0, extra=_threshold_plant(probe, drop=1.5))
+        result = cutoff_check(panel.design, panel.first, rng=panel_no, n_sim=199)
+        planted = result.raters[0]
+        found += planted.flagged
+        right_cue += planted.flagged and planted.cue == "grades" and 64 < planted.threshold < 72
+        others += sum(r.flagged for r in result.raters[1:])
+    # measured: 48 of 60 found (median delta R^2 of the step .09, a moderate plant),
+    # 45 of them on grades between 64 and 72; 8 of the 180 linear raters flagged (4.4%)
+    assert found >= 42, found
+    assert right_cue >= 40, right_cue
+    assert others <= 18, others
+
+
+def test_binary_decisions_use_bernoulli_draws_and_find_a_plant():
+    probe = linear_panel(np.random.default_rng(5), n_cases=200, n_raters=1, per_rater=1,
+                         weights=WEIGHTS, noise=0)
+    panel = linear_panel(np.random.default_rng(5), n_cases=200, n_raters=40, per_rater=120,
+                         weights=WEIGHTS, noise=1.0, extra=_threshold_plant(probe, drop=3.0))
+    first = panel.first.assign(judgment=(panel.first.judgment > 7.4).astype(float))
+    result = cutoff_check(panel.design, first, rng=2, n_sim=199, scale="binary")
+    assert result.raters[0].flagged and result.raters[0].cue == "grades"
+    # approximate for binary (Bernoulli draws from the linear probabilities); measured 3 of 39
+    assert np.mean([r.flagged for r in result.raters[1:]]) <= 0.15
+
+
+def test_same_seed_same_numbers_json_and_flags():
+    rng = np.random.default_rng(64)
+    panel = linear_panel(rng, n_cases=100, n_raters=3, per_rater=70, weights=WEIGHTS, noise=1.0)
+    a = cutoff_check(panel.design, panel.first, rng=5, n_sim=99)
+    b = cutoff_check(panel.design, panel.first, rng=5, n_sim=99)
+    assert json.dumps(a.to_dict(), sort_keys=True) == json.dumps(b.to_dict(), sort_keys=True)
+    for r in a.raters:
+        assert r.flags == ((CUTOFF_FLAG,) if r.flagged else ())
+        assert r.p_adjusted >= r.p_value
+    assert CUTOFF_FLAG == "cutoff_rule"
+    assert set(a.to_frame().columns) >= {"rater", "cue", "threshold", "step", "p_value", "flagged"}
+
+
+def test_degenerate_inputs():
+    rng = np.random.default_rng(65)
+    panel = linear_panel(rng, n_cases=100, n_raters=2, per_rater=60, weights=WEIGHTS, noise=1.0)
+    few = pd.DataFrame({"rater": "brief", "case": list(panel.design.case_ids[:8]), "judgment": np.arange(8.0)})
+    result = cutoff_check(panel.design, pd.concat([panel.first, few]), rng=1, n_sim=49)
+    brief = result.for_rater("brief")
+    assert np.isnan(brief.p_value) and not brief.flagged and "too few" in brief.warnings[0]
+    assert json.loads(json.dumps(brief.to_dict()))["p_value"] is None
+    with pytest.raises(DataError, match="n_sim"):
+        cutoff_check(panel.design, panel.first, n_sim=5)
+    only_category = pd.DataFrame({"kind": ["a", "b"] * 50}, index=list(panel.design.case_ids))
+    design = build_cue_design(only_category, [CueRule("kind", "categorical")])
+    none = cutoff_check(design, panel.first, rng=1, n_sim=49)
+    assert "No numeric cue" in none.warnings[0] and not any(r.flagged for r in none.raters)
