@@ -11,14 +11,17 @@ judgment on the cues) on exactly those shared cases. Then
 holds exactly, where ``r_ab`` is the correlation of the two raters' judgments,
 ``R_a`` and ``R_b`` their consistencies (multiple correlations), ``G_ab`` the
 correlation of their fitted policies and ``C_ab`` the correlation of their
-residuals (Hammond, Wilkins & Todd 1966; Tucker 1964 for the identity).
+residuals (Hammond, Wilkins & Todd 1966, Psychological Bulletin 65:221-232;
+Tucker 1964, Psychological Review 71:528-530, for the identity; citations from
+memory).
 
 Policy homogeneity asks whether the raters weigh the cues differently at all:
 separate slopes per rater against common slopes with a separate intercept per
 rater. Raters differ in their error variance, so the headline test is a Wald
 test of equal slopes with a separate error variance per rater, with a
-parametric-bootstrap p-value (Krishnamoorthy, Lu & Mathew 2007); the classical
-nested-model F test, which assumes one error variance, is reported beside it.
+parametric-bootstrap p-value (Krishnamoorthy, Lu & Mathew 2007, from memory);
+the classical nested-model F test, which assumes one error variance, is
+reported beside it.
 
 Everything is vectorized across raters and rater pairs through
 :func:`calibrate.linalg.grouped_sscp`.
@@ -458,7 +461,7 @@ def policy_homogeneity(
     is too liberal with few cases per rater, so the p-value comes from a
     parametric bootstrap under the null (Krishnamoorthy, Lu & Mathew 2007,
     Computational Statistics & Data Analysis 51:5731-5742, for the one-way
-    case): draw :math:`b_r^* \\sim N(0, s_r^2 (X_r^\\top X_r)^{-1})` and
+    case; citation from memory): draw :math:`b_r^* \\sim N(0, s_r^2 (X_r^\\top X_r)^{-1})` and
     :math:`s_r^{*2} = s_r^2 \\chi^2_{f_r} / f_r`, recompute T, and count
     :math:`p = (1 + \\#\\{T^* \\ge T\\}) / (B + 1)`. T does not depend on the
     common slope, so the draws need no refit. The classical nested-model F,
