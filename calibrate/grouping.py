@@ -29,6 +29,7 @@ from itertools import combinations
 
 import numpy as np
 import pandas as pd
+from scipy import sparse
 from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.optimize import linear_sum_assignment
 
@@ -719,28 +720,53 @@ def group_raters(
 
 
 def _stacked_sscp(Z, who, R, *, weights=None, judgments=None):
-    """Per-rater centred SSCPs for B variants of the data in one grouped pass.
+    """Per-rater centred SSCPs for B variants of the data, without copying rows.
 
-    Variant ``b`` weights the rows by ``weights[b]`` (resampled cases) and/or replaces
-    the judgment column by ``judgments[b]`` (simulated judgments). Returns
-    ``sscp`` (B, R, k, k) and ``n`` (B, R).
+    Variant ``b`` either weights the rows by ``weights[b]`` (case resamples as count
+    vectors) or replaces the judgment column by ``judgments[b]`` (simulated
+    judgments). Rows are first centred at each rater's full-data mean (so the
+    moments below suffer no cancellation), then every variant's weighted sums
+    and cross-products come from one sparse matrix product per moment:
+    ``S = sum w z z' - (sum w z)(sum w z)' / sum w``. Returns ``sscp`` (B, R, k, k)
+    and ``n`` (B, R); equal to :func:`grouped_sscp` per variant (tested).
     """
-    B = (weights if weights is not None else judgments).shape[0]
     m, k = Z.shape
-    # Chunks keep the stacked rows (B_chunk * judgments) modest in memory.
-    chunk = max(1, min(B, 2_000_000 // max(m, 1)))
-    sscp = np.empty((B, R, k, k))
-    n = np.empty((B, R))
-    for start in range(0, B, chunk):
-        b = min(chunk, B - start)
-        stacked = np.tile(Z, (b, 1))
-        if judgments is not None:
-            stacked[:, -1] = judgments[start:start + b].ravel()
-        w = None if weights is None else weights[start:start + b].ravel()
-        groups = (np.arange(b)[:, None] * R + who[None, :]).ravel()
-        stats = grouped_sscp(stacked, groups, b * R, weights=w)
-        sscp[start:start + b] = stats.sscp.reshape(b, R, k, k)
-        n[start:start + b] = stats.n.reshape(b, R)
+    p = k - 1
+    base = grouped_sscp(Z, who, R)
+    centred = Z - base.mean[who]
+    rows = np.arange(m)
+
+    def scatter(values):  # (m, w) -> sparse (m, R * w), rater blocks side by side
+        w = values.shape[1]
+        cols = (who[:, None] * w + np.arange(w)[None, :]).ravel()
+        return sparse.csr_array((values.ravel(), (np.repeat(rows, w), cols)), shape=(m, R * w))
+
+    def times(dense, matrix):  # dense (B, m) @ sparse (m, c) -> dense (B, c)
+        return np.asarray((matrix.T @ dense.T).T)
+
+    indicator = scatter(np.ones((m, 1)))
+    if judgments is None:
+        B = weights.shape[0]
+        n = times(weights, indicator)
+        sums = times(weights, scatter(centred)).reshape(B, R, k)
+        outer = (centred[:, :, None] * centred[:, None, :]).reshape(m, k * k)
+        moments = times(weights, scatter(outer)).reshape(B, R, k, k)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift = sums[..., :, None] * sums[..., None, :] / n[..., None, None]
+        sscp = moments - np.where(n[..., None, None] > 0, shift, 0.0)
+        diagonal = np.einsum("brii->bri", sscp)  # a writable view
+        np.maximum(diagonal, 0.0, out=diagonal)  # rounding can leave -1e-17
+        return sscp, n
+    B = judgments.shape[0]
+    n = np.broadcast_to(base.n, (B, R)).copy()
+    sums = times(judgments, indicator)
+    cross = times(judgments, scatter(centred[:, :p])).reshape(B, R, p)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ss = times(judgments * judgments, indicator) - np.where(n > 0, sums * sums / n, 0.0)
+    sscp = np.broadcast_to(base.sscp, (B, R, k, k)).copy()
+    sscp[..., :p, p] = cross
+    sscp[..., p, :p] = cross
+    sscp[..., p, p] = np.maximum(ss, 0.0)
     return sscp, n
 
 

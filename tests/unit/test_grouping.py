@@ -402,3 +402,25 @@ def test_f_test_p_values_would_split_one_policy_panels():
     assert np.mean(np.array(textbook) < 0.05) >= 0.5
     # p-values of a calibrated test spread over (0, 1): median measured 0.44.
     assert 0.3 < np.median(simulated) < 0.7
+
+
+def test_stacked_sscp_equals_grouped_sscp_per_variant():
+    # Each resample / simulated variant must equal calibrate.linalg.grouped_sscp run on
+    # that variant alone (two-pass centred SSCP, checked against NIST Longley there).
+    from calibrate.grouping import _stacked_sscp
+
+    rng = np.random.default_rng(3)
+    m, R = 90, 4
+    Z = rng.normal(size=(m, 4)) + 5.0
+    who = np.sort(rng.integers(0, R, m))
+    counts = rng.integers(0, 3, size=(3, m)).astype(float)
+    judgments = rng.normal(size=(3, m)) + 5.0
+    sscp_w, n_w = _stacked_sscp(Z, who, R, weights=counts)
+    sscp_y, n_y = _stacked_sscp(Z, who, R, judgments=judgments)
+    for b in range(3):
+        ref = grouped_sscp(Z, who, R, weights=counts[b])
+        np.testing.assert_allclose(sscp_w[b], ref.sscp, atol=1e-9)
+        np.testing.assert_allclose(n_w[b], ref.n)
+        ref = grouped_sscp(np.column_stack([Z[:, :3], judgments[b]]), who, R)
+        np.testing.assert_allclose(sscp_y[b], ref.sscp, atol=1e-9)
+        np.testing.assert_allclose(n_y[b], ref.n)
