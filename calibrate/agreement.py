@@ -173,7 +173,8 @@ def icc_incomplete(
     draws = np.full((n_boot, len(ICC_FORMS)), np.nan)
     counts = gen.multinomial(layout.n_cases, np.full(layout.n_cases, 1.0 / layout.n_cases), size=n_boot)
     for b in range(n_boot):
-        comps = henderson_components(fit_additive(layout, case_weights=counts[b].astype(float)))
+        fit = fit_additive(layout, case_weights=counts[b].astype(float), iterative=True)
+        comps = henderson_components(fit)
         values = icc_from_components(comps, k)
         draws[b] = [values[form] for form, _ in ICC_FORMS]
     low, high = _percentile_interval(draws, confidence)

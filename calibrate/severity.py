@@ -28,7 +28,7 @@ from scipy.sparse import csgraph
 from scipy.stats import norm
 
 from ._results import ResultMixin
-from .errors import DataError, DataProblem
+from .errors import DataError, DataProblem, DegenerateFitError
 
 SCALES = ("continuous", "ordinal", "binary")
 
@@ -247,6 +247,7 @@ def fit_additive(
     *,
     case_weights: np.ndarray | None = None,
     with_variance: bool = False,
+    iterative: bool = False,
 ) -> AdditiveFit:
     """Fit y = mu + a_case + b_rater + e by absorbing the case effects.
 
@@ -257,6 +258,10 @@ def fit_additive(
     (the rows of the reduced matrix sum to zero within a part, so ``E`` spans its
     null space). With case weights ``w`` every case counts ``w`` times, which is
     exactly the fit on a data set with that case repeated ``w`` times.
+
+    ``iterative=True`` solves by preconditioned conjugate gradients on the sparse
+    matrix instead of a dense Cholesky factor (much faster for many raters, used
+    in bootstrap loops); ``with_variance`` needs the dense route.
     """
     R, C = layout.n_raters, layout.n_cases
     w_case = np.ones(C) if case_weights is None else np.asarray(case_weights, float)
@@ -279,25 +284,26 @@ def fit_additive(
     n_parts, part_r, part_c = connected_parts(layout, w_case if case_weights is not None else None)
     inc_w = layout.incidence(w)
     inc = layout.incidence()
-    reduced = (inc_w @ sparse.diags(1.0 / n_c) @ inc.T).toarray()
-    reduced = np.diag(n_r) - reduced
+    reduced = sparse.diags(n_r) - inc_w @ sparse.diags(1.0 / n_c) @ inc.T
     rhs = np.bincount(ri, weights=w * dev_case, minlength=R)
     present = part_r >= 0
     indicator = np.zeros((R, max(n_parts, 1)))
     indicator[np.flatnonzero(present), part_r[present]] = 1.0
-    system = reduced + indicator @ indicator.T
-    system[~present, ~present] += 1.0        # absent raters: effect pinned to 0
-    factor = sla.cho_factor(system, lower=True, check_finite=False)
-    offsets = sla.cho_solve(factor, rhs, check_finite=False)
-    offsets[~present] = np.nan
-    if with_variance:
-        inv = sla.cho_solve(factor, np.eye(R), check_finite=False)
-        raters_per_part = np.bincount(part_r[present], minlength=n_parts).astype(float)
-        var_unit = np.diag(inv).copy()
-        var_unit[present] -= 1.0 / raters_per_part[part_r[present]] ** 2
-        var_unit[~present] = np.nan
+    pin = (~present).astype(float)        # absent raters: effect pinned to 0
+    var_unit = np.full(R, np.nan)
+    if with_variance or not iterative:
+        system = reduced.toarray() + indicator @ indicator.T + np.diag(pin)
+        factor = sla.cho_factor(system, lower=True, check_finite=False)
+        offsets = sla.cho_solve(factor, rhs, check_finite=False)
+        if with_variance:
+            inv = sla.cho_solve(factor, np.eye(R), check_finite=False)
+            raters_per_part = np.bincount(part_r[present], minlength=n_parts).astype(float)
+            var_unit = np.diag(inv).copy()
+            var_unit[present] -= 1.0 / raters_per_part[part_r[present]] ** 2
+            var_unit[~present] = np.nan
     else:
-        var_unit = np.full(R, np.nan)
+        offsets = _solve_iteratively(reduced.tocsr(), indicator, pin, rhs)
+    offsets[~present] = np.nan
     reduction = float(np.dot(np.where(present, offsets, 0.0), rhs))
     return AdditiveFit(
         offsets=offsets,
@@ -317,6 +323,23 @@ def fit_additive(
         ss_rater_given_case=reduction,
         ss_residual=max(ss_within - reduction, 0.0),
     )
+
+
+def _solve_iteratively(reduced, indicator, pin, rhs) -> np.ndarray:
+    """Conjugate gradients on (reduced + E E' + diag(pin)) x = rhs, Jacobi-preconditioned."""
+    from scipy.sparse.linalg import LinearOperator, cg
+
+    def apply(x):
+        return reduced @ x + indicator @ (indicator.T @ x) + pin * x
+
+    diag = reduced.diagonal() + (indicator**2).sum(axis=1) + pin
+    size = rhs.size
+    operator = LinearOperator((size, size), matvec=apply, dtype=float)
+    precondition = LinearOperator((size, size), matvec=lambda x: x / diag, dtype=float)
+    solution, info = cg(operator, rhs, rtol=1e-12, atol=0.0, maxiter=20 * size, M=precondition)
+    if info != 0:
+        raise DegenerateFitError("The rater + case model did not converge; the rater network is too thin.")
+    return solution
 
 
 # ---------------------------------------------------------------------------
