@@ -424,3 +424,25 @@ def test_stacked_sscp_equals_grouped_sscp_per_variant():
         ref = grouped_sscp(np.column_stack([Z[:, :3], judgments[b]]), who, R)
         np.testing.assert_allclose(sscp_y[b], ref.sscp, atol=1e-9)
         np.testing.assert_allclose(n_y[b], ref.n)
+
+
+def test_demo_planted_groups_are_recovered_exactly_and_stable():
+    # Planted truth: calibrate.demo plants three policy groups (records, voice, field)
+    # in the 'before' round, with an inconsistent, a drifting and an excluded-attribute
+    # reviewer inside them. Measured: exact recovery, ARI 0.998, Jaccard >= 0.998.
+    from calibrate.demo import REVIEWERS, build_demo
+
+    cases, judgments = build_demo()
+    before = judgments["before"].sort_values("read_order")
+    first = before.drop_duplicates(["reviewer", "applicant"]).rename(
+        columns={"reviewer": "rater", "applicant": "case", "score": "judgment"})
+    design = build_cue_design(cases.set_index("applicant"), [
+        CueRule("grades"), CueRule("test_score", missing="indicator"), CueRule("essay"),
+        CueRule("interview"), CueRule("field_years"),
+        CueRule("recommendation", kind="categorical")])
+    result = group_raters(design, first, rng=20261201, n_resamples=100)
+    planted = [REVIEWERS[r][0] for r in result.raters]
+    assert result.n_groups == 3
+    assert adjusted_rand_score(planted, [result.rater_group[r] for r in result.raters]) == 1.0
+    assert all(g.survives for g in result.groups) and result.ari_ci_low > 0.9
+    assert result.warnings == ()
