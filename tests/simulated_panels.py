@@ -55,3 +55,20 @@ def linear_panel(rng: np.random.Generator, *, n_cases: int, n_raters: int, per_r
         rater_rows[name] = rows
         frames.append(pd.DataFrame({"rater": name, "case": np.asarray(design.case_ids)[rows], "judgment": y}))
     return Panel(cases, design, pd.concat(frames, ignore_index=True), rater_rows)
+
+
+DEMO_RULES = [CueRule("grades"), CueRule("test_score", missing="indicator"), CueRule("essay"),
+              CueRule("interview"), CueRule("field_years"), CueRule("recommendation", "categorical")]
+
+
+def demo_phases():
+    """(phase, design, first judgments, cases table) of the invented demo study, per phase."""
+    from calibrate.demo import build_demo
+
+    cases, judgments = build_demo()
+    cases = cases.set_index("applicant")
+    for phase, table in judgments.items():
+        table = table.sort_values(["reviewer", "read_order"]).drop_duplicates(["reviewer", "applicant"])
+        first = table.rename(columns={"reviewer": "rater", "applicant": "case", "score": "judgment"})
+        pool = cases.loc[first["case"].unique()]
+        yield phase, build_cue_design(pool, DEMO_RULES), first[["rater", "case", "judgment"]], pool

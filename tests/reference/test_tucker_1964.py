@@ -12,9 +12,8 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from calibrate.cues import build_cue_design
 from calibrate.lens import lens_model
-from tests.simulated_panels import linear_panel, rules_for
+from tests.simulated_panels import demo_phases, linear_panel
 
 
 def _criterion(panel, rng, *, known_share=1.0):
@@ -84,20 +83,8 @@ def test_environment_model_matches_statsmodels():
 
 def test_lens_model_equation_holds_on_the_demo():
     # Identity on the invented demo study (Tucker 1964), both phases.
-    from calibrate.demo import build_demo
-
-    cases, judgments = build_demo()
-    cases = cases.set_index("applicant")
-    for table in judgments.values():
-        table = table.sort_values(["reviewer", "read_order"]).drop_duplicates(["reviewer", "applicant"])
-        first = table.rename(columns={"reviewer": "rater", "applicant": "case", "score": "judgment"})
-        pool = cases.loc[first["case"].unique()]
-        cue_table = pool[["grades", "test_score", "essay", "interview", "field_years", "recommendation"]]
-        rules = rules_for(cue_table)
-        rules[1] = type(rules[1])("test_score", "numeric", "indicator")
-        design = build_cue_design(cue_table, rules)
-        result = lens_model(design, first[["rater", "case", "judgment"]], pool["first_year_result"],
-                            criterion_selected=True, rng=3)
+    for _, design, first, pool in demo_phases():
+        result = lens_model(design, first, pool["first_year_result"], criterion_selected=True, rng=3)
         assert result.max_lme_error < 1e-9
         assert len(result.raters) == 14
         assert any("biased" in c for c in result.cautions)

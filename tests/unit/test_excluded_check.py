@@ -10,9 +10,8 @@ from scipy import stats
 
 from calibrate.alignment import (ASSOCIATION_CAUTION, EXCLUDED_FLAG, canonical_correlation,
                                  excluded_check)
-from calibrate.cues import CueRule, build_cue_design
 from calibrate.errors import DataError
-from tests.simulated_panels import linear_panel
+from tests.simulated_panels import demo_phases, linear_panel
 
 WEIGHTS = np.array([0.05, 0.4, 0.3])
 
@@ -178,17 +177,8 @@ def test_binary_judgments_must_be_zero_or_one():
 
 def test_on_the_demo_only_the_planted_reviewer_is_flagged():
     # Planted truth of the invented demo study: 'Juniper' leans on alumni_family.
-    from calibrate.demo import LEANS_ON_EXCLUDED, build_demo
+    from calibrate.demo import LEANS_ON_EXCLUDED
 
-    cases, judgments = build_demo()
-    cases = cases.set_index("applicant")
-    rules = [CueRule("grades"), CueRule("test_score", missing="indicator"), CueRule("essay"),
-             CueRule("interview"), CueRule("field_years"), CueRule("recommendation", "categorical")]
-    for table in judgments.values():
-        table = table.sort_values(["reviewer", "read_order"]).drop_duplicates(["reviewer", "applicant"])
-        first = table.rename(columns={"reviewer": "rater", "applicant": "case", "score": "judgment"})
-        pool = cases.loc[first["case"].unique()]
-        design = build_cue_design(pool, rules)
-        result = excluded_check(design, first[["rater", "case", "judgment"]], pool[["alumni_family"]],
-                                scale="ordinal")
+    for _, design, first, pool in demo_phases():
+        result = excluded_check(design, first, pool[["alumni_family"]], scale="ordinal")
         assert [r.rater for r in result.raters if r.flags] == [LEANS_ON_EXCLUDED]
