@@ -8,6 +8,7 @@ folder that appears whole or not at all.
 from __future__ import annotations
 
 import json
+import re
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
@@ -216,7 +217,12 @@ def _zip_fixed_dates(data: bytes) -> bytes:
             fixed = zipfile.ZipInfo(info.filename, date_time=(2000, 1, 1, 0, 0, 0))
             fixed.compress_type = zipfile.ZIP_DEFLATED
             fixed.external_attr = 0o644 << 16
-            dst.writestr(fixed, src.read(info.filename))
+            content = src.read(info.filename)
+            if info.filename == "docProps/core.xml":
+                # openpyxl stamps the save time into the document properties
+                content = re.sub(rb"(<dcterms:(?:created|modified)[^>]*>)[^<]*", rb"\g<1>2000-01-01T00:00:00Z",
+                                 content)
+            dst.writestr(fixed, content)
     return out.getvalue()
 
 
