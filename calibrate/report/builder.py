@@ -1,0 +1,146 @@
+"""Build the PDFs: one private report per rater and the chair's panel summary.
+
+``build_reports`` is what ``calibrate audit`` calls. Builds are byte-identical when
+``SOURCE_DATE_EPOCH`` is set (reportlab's invariant mode fixes the document ids and
+the printed date comes from that variable).
+"""
+
+from __future__ import annotations
+
+import io
+import json
+from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from ..outputs import atomic_write_bytes, safe_file_stem
+from . import wording
+from ._read import ReportInput, as_report_input
+from .panel import PanelReport
+from .rater import RaterReport
+from .styles import ReportDocument
+
+PANEL_FILE = "panel-summary.pdf"
+RATERS_FOLDER = "raters"
+
+Progress = Callable[[int, int, str], None]
+
+
+def rater_pdf(result: Any, rater: str, *, include_excluded: bool = False) -> bytes:
+    """The private feedback report of one rater, as PDF bytes.
+
+    Parameters
+    ----------
+    result : an AuditResult, the results.json dictionary, or a ReportInput.
+    rater : the rater id as in results.json.
+    include_excluded : show the excluded-attribute check in the rater's own report (the
+        chair's choice; by default it stays in the panel summary).
+    """
+    data = as_report_input(result)
+    report = RaterReport(data, str(rater), include_excluded=include_excluded)
+    buf = io.BytesIO()
+    doc = ReportDocument(buf, study_name=data.study_name, title="Private feedback",
+                         caution=wording.CAUTION_LINE)
+    doc.build(report.flowables())
+    return buf.getvalue()
+
+
+def panel_pdf(result: Any) -> bytes:
+    """The chair's panel summary, as PDF bytes."""
+    data = as_report_input(result)
+    buf = io.BytesIO()
+    doc = ReportDocument(buf, study_name=data.study_name, title="Panel summary (names every rater)",
+                         caution=wording.CAUTION_LINE)
+    doc.build(PanelReport(data).flowables())
+    return buf.getvalue()
+
+
+def rater_file_names(raters: list[str]) -> dict[str, str]:
+    """Rater id -> sanitised PDF file name, clashes numbered in a fixed (sorted) order."""
+    taken: set[str] = set()
+    return {r: safe_file_stem(r, taken=taken) + ".pdf" for r in sorted(raters)}
+
+
+def _build_chunk(data: ReportInput, raters: list[str], include_excluded: bool) -> list[tuple[str, bytes]]:
+    return [(r, rater_pdf(data, r, include_excluded=include_excluded)) for r in raters]
+
+
+def build_reports(result: Any, out_dir: str | Path, *, jobs: int = 1, include_excluded: bool = False,
+                  progress: Progress | None = None, panel: bool = True) -> list[Path]:
+    """Write ``panel-summary.pdf`` and ``raters/<sanitised id>.pdf`` into ``out_dir``.
+
+    Parameters
+    ----------
+    result : an AuditResult, the results.json dictionary, or a ReportInput.
+    out_dir : the folder to write into (created if needed); each file is written atomically.
+    jobs : worker processes for the rater reports (1: build in this process).
+    include_excluded : show the excluded-attribute check in each rater's own report.
+    progress : called as ``progress(done, total, file_name)`` after each file is written.
+    panel : also write the panel summary.
+
+    Returns
+    -------
+    The written paths: the panel summary first, then the rater reports in id order.
+    """
+    if not isinstance(jobs, int) or jobs < 1:
+        from ..errors import CalibrateError
+
+        raise CalibrateError(f"jobs must be a whole number of at least 1; got {jobs!r}.")
+    data = as_report_input(result)
+    out_dir = Path(out_dir)
+    names = rater_file_names(data.rater_ids())
+    total = len(names) + (1 if panel else 0)
+    written: list[Path] = []
+    done = 0
+
+    def wrote(path: Path) -> None:
+        nonlocal done
+        written.append(path)
+        done += 1
+        if progress is not None:
+            progress(done, total, path.name)
+
+    if panel:
+        path = out_dir / PANEL_FILE
+        atomic_write_bytes(path, panel_pdf(data))
+        wrote(path)
+    raters = list(names)
+    if jobs == 1 or len(raters) < 2:
+        for r in raters:
+            path = out_dir / RATERS_FOLDER / names[r]
+            atomic_write_bytes(path, rater_pdf(data, r, include_excluded=include_excluded))
+            wrote(path)
+    else:
+        # A few raters per task: enough tasks to balance the workers and update progress,
+        # few enough that shipping the results to each task stays cheap.
+        size = max(1, len(raters) // (jobs * 4))
+        chunks = [raters[i:i + size] for i in range(0, len(raters), size)]
+        with ProcessPoolExecutor(max_workers=jobs) as pool:
+            futures = [pool.submit(_build_chunk, data, chunk, include_excluded) for chunk in chunks]
+            for future in futures:
+                for r, pdf in future.result():
+                    path = out_dir / RATERS_FOLDER / names[r]
+                    atomic_write_bytes(path, pdf)
+                    wrote(path)
+    rater_paths = sorted(written[1:] if panel else written)
+    return ([written[0]] if panel else []) + rater_paths
+
+
+def load_report_input(folder: str | Path) -> ReportInput:
+    """Read a results folder (results.json and tables/*.csv) back for rebuilding reports."""
+    folder = Path(folder)
+    results = json.loads((folder / "results.json").read_text("utf-8"))
+    tables: dict[str, pd.DataFrame] = {}
+    tables_dir = folder / "tables"
+    if tables_dir.is_dir():
+        for path in sorted(tables_dir.glob("*.csv")):
+            tables[path.stem] = pd.read_csv(path, keep_default_na=True)
+    return ReportInput(results=results, tables=tables)
+
+
+
+__all__ = ["PANEL_FILE", "RATERS_FOLDER", "build_reports", "load_report_input", "panel_pdf", "rater_pdf",
+           "rater_file_names"]

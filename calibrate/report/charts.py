@@ -1,0 +1,268 @@
+"""Charts. Small per-rater charts are reportlab vector drawings (fast, sharp, small);
+the two rich panel figures (heat map, grouping tree) are matplotlib ``Figure``s drawn
+at their final size and embedded as PNG."""
+
+from __future__ import annotations
+
+import io
+from collections import Counter
+from collections.abc import Mapping, Sequence
+
+from reportlab.graphics.shapes import Circle, Drawing, Line, PolyLine, Rect, String
+from reportlab.platypus import Image
+
+from .styles import ACCENT, ACCENT_LIGHT, BASE_FONT, INK, MUTED, PALE, PANEL, RUBRIC, RULE
+from .wording import fmt
+
+LABEL_SIZE = 7.5
+
+
+def _nice_ticks(low: float, high: float, count: int = 5) -> list[float]:
+    span = high - low
+    if span <= 0:
+        return [low]
+    raw = span / count
+    magnitude = 10 ** int(f"{raw:e}".split("e")[1])
+    step = next(m * magnitude for m in (1, 2, 2.5, 5, 10) if m * magnitude >= raw)
+    first = (low // step) * step
+    ticks, t = [], first
+    while t <= high + 1e-9:
+        if t >= low - 1e-9:
+            ticks.append(round(t, 10))
+        t += step
+    return ticks
+
+
+def weight_chart(cues: Sequence[str], series: Sequence[tuple[str, Mapping[str, float], object]],
+                 *, width: float, title: str | None = None) -> Drawing:
+    """Horizontal bars, one row per cue and one thin bar per series (label, values, colour).
+
+    Values may be negative (a weight share keeps its sign); the axis spans them.
+    """
+    series = [s for s in series if s[1]]
+    bar_h, gap = 6.0, 7.0
+    row_h = bar_h * max(len(series), 1) + gap
+    label_w = min(150.0, max(60.0, 5.0 * max((len(c) for c in cues), default=8)))
+    legend_h = 16.0
+    axis_h = 16.0
+    height = legend_h + axis_h + row_h * len(cues) + 4
+    d = Drawing(width, height)
+    values = [v for _, vals, _ in series for v in vals.values() if v is not None]
+    low = min([0.0, *values])
+    high = max([0.0, *values, 0.05])
+    ticks = _nice_ticks(low, high, 4)
+    low, high = min(low, ticks[0]), max(high, ticks[-1])
+    x0, x1 = label_w + 6, width - 10
+
+    def x_of(v: float) -> float:
+        return x0 + (v - low) / (high - low) * (x1 - x0)
+
+    # legend
+    lx = x0
+    for label, _, colour in series:
+        d.add(Rect(lx, height - 10, 8, 7, fillColor=colour, strokeColor=None))
+        d.add(String(lx + 11, height - 9, label, fontName=BASE_FONT, fontSize=LABEL_SIZE, fillColor=INK))
+        lx += 18 + 4.3 * len(label) + 10
+    top = height - legend_h
+    for t in ticks:
+        d.add(Line(x_of(t), axis_h, x_of(t), top, strokeColor=RULE, strokeWidth=0.4))
+        d.add(String(x_of(t), axis_h - 9, fmt(t, 2), fontName=BASE_FONT, fontSize=LABEL_SIZE - 0.5,
+                     fillColor=MUTED, textAnchor="middle"))
+    d.add(Line(x_of(0), axis_h, x_of(0), top, strokeColor=INK, strokeWidth=0.7))
+    for i, cue in enumerate(cues):
+        y_top = top - i * row_h - gap / 2
+        d.add(String(label_w, y_top - row_h / 2 + 1, cue, fontName=BASE_FONT, fontSize=LABEL_SIZE + 0.5,
+                     fillColor=INK, textAnchor="end"))
+        for j, (_, vals, colour) in enumerate(series):
+            v = vals.get(cue)
+            if v is None:
+                continue
+            y = y_top - (j + 1) * bar_h
+            left, right = sorted((x_of(0), x_of(v)))
+            d.add(Rect(left, y, max(right - left, 0.6), bar_h - 1, fillColor=colour, strokeColor=None))
+    return d
+
+
+def strip_chart(values: Sequence[float], mine: float, *, low: float, high: float, width: float,
+                low_words: str = "lower", high_words: str = "higher") -> Drawing:
+    """The reader's figure (a filled dot) among the panel's (small open dots, unlabelled)."""
+    height = 20.0
+    d = Drawing(width, height)
+    lo, hi = min([low, mine, *values]), max([high, mine, *values])
+    x0, x1 = 28.0, width - 30.0
+
+    def x_of(v: float) -> float:
+        return x0 + (v - lo) / (hi - lo) * (x1 - x0) if hi > lo else (x0 + x1) / 2
+
+    y = 10.0
+    d.add(Line(x0, y, x1, y, strokeColor=RULE, strokeWidth=1.2))
+    d.add(String(x0 - 3, y - 2.5, low_words, fontName=BASE_FONT, fontSize=6.5, fillColor=MUTED,
+                 textAnchor="end"))
+    d.add(String(x1 + 3, y - 2.5, high_words, fontName=BASE_FONT, fontSize=6.5, fillColor=MUTED))
+    for k, v in enumerate(sorted(values)):
+        offset = (k % 3 - 1) * 2.5   # a little vertical spread so close values stay visible
+        d.add(Circle(x_of(v), y + offset, 2.2, fillColor=PALE, strokeColor=PANEL, strokeWidth=0.6))
+    d.add(Circle(x_of(mine), y, 4.2, fillColor=ACCENT, strokeColor=INK, strokeWidth=0.6))
+    return d
+
+
+def retest_scatter(pairs: Sequence[tuple[float, float]], *, low: float, high: float,
+                   size: float = 150.0) -> Drawing:
+    """First against second judgment of each repeated case; dot area grows with the count."""
+    d = Drawing(size + 30, size + 26)
+    x0, y0 = 26.0, 20.0
+    lo, hi = low, high
+    if hi <= lo:
+        hi = lo + 1
+
+    def sx(v):
+        return x0 + (v - lo) / (hi - lo) * size
+
+    def sy(v):
+        return y0 + (v - lo) / (hi - lo) * size
+
+    d.add(Rect(x0, y0, size, size, fillColor=None, strokeColor=RULE, strokeWidth=0.6))
+    d.add(Line(sx(lo), sy(lo), sx(hi), sy(hi), strokeColor=RUBRIC, strokeWidth=0.8,
+               strokeDashArray=[3, 2]))
+    for t in _nice_ticks(lo, hi, 6):
+        d.add(String(sx(t), y0 - 9, fmt(t, 0 if float(t).is_integer() else 1), fontName=BASE_FONT,
+                     fontSize=6.5, fillColor=MUTED, textAnchor="middle"))
+        d.add(String(x0 - 3, sy(t) - 2, fmt(t, 0 if float(t).is_integer() else 1), fontName=BASE_FONT,
+                     fontSize=6.5, fillColor=MUTED, textAnchor="end"))
+    d.add(String(x0 + size / 2, 0, "first judgment", fontName=BASE_FONT, fontSize=7, fillColor=INK,
+                 textAnchor="middle"))
+    d.add(String(x0 + 2, y0 + size + 4, "second judgment", fontName=BASE_FONT, fontSize=7, fillColor=INK))
+    counts = Counter((float(a), float(b)) for a, b in pairs)
+    for (a, b), n in sorted(counts.items()):
+        d.add(Circle(sx(a), sy(b), 2.2 + 1.4 * (n - 1) ** 0.5, fillColor=ACCENT_LIGHT, strokeColor=ACCENT,
+                     strokeWidth=0.7))
+    return d
+
+
+def order_chart(positions: Sequence[float], judgments: Sequence[float], *, low: float, high: float,
+                width: float, height: float = 90.0) -> Drawing:
+    """Judgments over the reading order with a running mean (window of a tenth of the cases)."""
+    d = Drawing(width, height)
+    x0, y0, x1, y1 = 26.0, 16.0, width - 6, height - 6
+    n = len(positions)
+    pmin, pmax = (min(positions), max(positions)) if n else (0, 1)
+    if pmax <= pmin:
+        pmax = pmin + 1
+    if high <= low:
+        high = low + 1
+
+    def sx(v):
+        return x0 + (v - pmin) / (pmax - pmin) * (x1 - x0)
+
+    def sy(v):
+        return y0 + (v - low) / (high - low) * (y1 - y0)
+
+    d.add(Rect(x0, y0, x1 - x0, y1 - y0, fillColor=None, strokeColor=RULE, strokeWidth=0.6))
+    for t in _nice_ticks(low, high, 4):
+        d.add(String(x0 - 3, sy(t) - 2, fmt(t, 0 if float(t).is_integer() else 1), fontName=BASE_FONT,
+                     fontSize=6.5, fillColor=MUTED, textAnchor="end"))
+    d.add(String((x0 + x1) / 2, 3, "reading order (first case left)", fontName=BASE_FONT, fontSize=7,
+                 fillColor=INK, textAnchor="middle"))
+    order = sorted(zip(positions, judgments))
+    for p, j in order:
+        d.add(Circle(sx(p), sy(j), 1.3, fillColor=PANEL, strokeColor=None))
+    window = max(3, n // 10)
+    if n >= window:
+        points = []
+        running = sum(j for _, j in order[:window])
+        for k in range(window, n + 1):
+            centre = order[k - window // 2 - 1][0]
+            points.extend([sx(centre), sy(running / window)])
+            if k < n:
+                running += order[k][1] - order[k - window][1]
+        d.add(PolyLine(points, strokeColor=ACCENT, strokeWidth=1.6))
+    return d
+
+
+# ---------------------------------------------------------------- matplotlib figures
+
+
+def _png_image(fig, width_pt: float, height_pt: float) -> Image:
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+    FigureCanvasAgg(fig)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=200, metadata={"Software": None})
+    buf.seek(0)
+    return Image(buf, width=width_pt, height=height_pt)
+
+
+def weight_heat_map(raters: Sequence[str], terms: Sequence[str], values: Sequence[Sequence[float | None]],
+                    groups: Sequence[str | None], *, width_pt: float) -> Image:
+    """Standardized weights, raters (rows, ordered by group) by design terms (columns)."""
+    import numpy as np
+    from matplotlib.colors import LinearSegmentedColormap
+    from matplotlib.figure import Figure
+
+    data = np.array([[np.nan if v is None else v for v in row] for row in values], dtype=float)
+    longest = max((len(t) for t in terms), default=4)
+    bottom_in = 0.2 + 0.04 * longest          # room for the slanted term names
+    height_in = bottom_in + 0.15 + 0.17 * max(len(raters), 1)
+    width_in = width_pt / 72
+    fig = Figure(figsize=(width_in, height_in))
+    bottom = bottom_in / height_in
+    top = 1 - 0.15 / height_in
+    ax = fig.add_axes((0.2, bottom, 0.66, top - bottom))
+    cmap = LinearSegmentedColormap.from_list("calm", ["#b5651d", "#f7f4ee", "#2f7d74"])
+    finite = data[np.isfinite(data)]
+    bound = max(float(np.max(np.abs(finite))) if finite.size else 1.0, 0.05)
+    im = ax.imshow(np.ma.masked_invalid(data), cmap=cmap, vmin=-bound, vmax=bound, aspect="auto")
+    ax.set_xticks(range(len(terms)), labels=list(terms), rotation=40, ha="right", fontsize=6.5)
+    labels = [f"{r}  ({g})" if g else str(r) for r, g in zip(raters, groups)]
+    ax.set_yticks(range(len(raters)), labels=labels, fontsize=6.5)
+    for k in range(1, len(groups)):
+        if groups[k] != groups[k - 1]:
+            ax.axhline(k - 0.5, color="#27323a", linewidth=1.0)
+    ax.tick_params(length=0)
+    for spine in ax.spines.values():
+        spine.set_visible(False)
+    cax = fig.add_axes((0.89, bottom, 0.02, top - bottom))
+    bar = fig.colorbar(im, cax=cax)
+    bar.ax.tick_params(labelsize=6)
+    bar.set_label("standardized weight", fontsize=6.5)
+    return _png_image(fig, width_pt, height_in * 72)
+
+
+def grouping_tree(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str], Sequence[str], float]],
+                  leaf_groups: Mapping[str, str | None], *, width_pt: float) -> Image:
+    """A tree drawn from the merge sequence: each merge joins two sets of raters at the
+    overall R^2 lost so far (the height), leaves ordered so that no branches cross."""
+    from matplotlib.figure import Figure
+
+    # order leaves by replaying merges: each cluster is a list, merged lists concatenate
+    clusters = {frozenset([leaf]): [leaf] for leaf in leaves}
+    pos_height: dict[frozenset, float] = {frozenset([leaf]): 0.0 for leaf in leaves}
+    links = []
+    for a, b, h in merges:
+        ka, kb = frozenset(a), frozenset(b)
+        if ka not in clusters or kb not in clusters:
+            continue
+        links.append((ka, kb, h))
+        clusters[ka | kb] = clusters.pop(ka) + clusters.pop(kb)
+        pos_height[ka | kb] = h
+    order = [leaf for members in clusters.values() for leaf in members]
+    x_of_leaf = {leaf: i for i, leaf in enumerate(order)}
+    height_in = max(2.0, 0.22 * len(order) + 0.6)
+    fig = Figure(figsize=(width_pt / 72, height_in))
+    ax = fig.add_axes((0.2, 0.1, 0.72, 0.85))
+    centre: dict[frozenset, float] = {frozenset([leaf]): x_of_leaf[leaf] for leaf in leaves}
+    for ka, kb, h in links:
+        ca, cb = centre[ka], centre[kb]
+        ha, hb = pos_height[ka], pos_height[kb]
+        ax.plot([ha, h, h, hb], [ca, ca, cb, cb], color="#2f7d74", linewidth=1.0)
+        centre[ka | kb] = (ca + cb) / 2
+    labels = [f"{leaf}  ({leaf_groups.get(leaf)})" if leaf_groups.get(leaf) else str(leaf) for leaf in order]
+    ax.set_yticks(range(len(order)), labels=labels, fontsize=6.5)
+    ax.set_ylim(-0.6, len(order) - 0.4)
+    ax.invert_yaxis()
+    ax.set_xlabel("overall R² lost by merging", fontsize=7)
+    ax.tick_params(axis="x", labelsize=6.5)
+    ax.tick_params(axis="y", length=0)
+    for side in ("top", "right", "left"):
+        ax.spines[side].set_visible(False)
+    return _png_image(fig, width_pt, height_in * 72)

@@ -1,0 +1,349 @@
+"""The chair's panel summary: flags first, every rater, weights, groups, agreement,
+conflict, files to read again, excluded attributes, data quality, methods, cautions."""
+
+from __future__ import annotations
+
+from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, Table
+
+from . import charts, wording
+from ._read import ReportInput, dig, interval, num
+from .rater import _misallocation, _offset, _policy_r, _retest_r, collect_warnings
+from .styles import (BODY, CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, SMALL, TITLE, markup,
+                     table_style, text)
+from .wording import fmt
+
+ICC_FORMS = (("i1", "ICC(1,1)", "one rater, raters random, absolute"),
+             ("a1", "ICC(A,1)", "one rater, absolute agreement"),
+             ("c1", "ICC(C,1)", "one rater, consistency"),
+             ("ik", "ICC(1,k)", "mean of the raters, raters random"),
+             ("ak", "ICC(A,k)", "mean of the raters, absolute agreement"),
+             ("ck", "ICC(C,k)", "mean of the raters, consistency"))
+
+METHODS = (
+    ("Rater policy", "ordinary least squares of judgments on cues; R_s = multiple R",
+     "Hammond, Hursch & Todd (1964); Cooksey (1996)"),
+    ("Relative importance", "general dominance weights (sum to R²); relative weights beyond about 12 cues",
+     "Budescu (1993); Azen & Budescu (2003); Johnson (2000)"),
+    ("Interval for R_s", "bias-corrected and accelerated bootstrap", "Efron (1987)"),
+    ("Lens model", "Lens Model Equation r_a = G R_e R_s + C sqrt(1-R_e²) sqrt(1-R_s²)", "Tucker (1964)"),
+    ("Judgment bootstrapping", "model of the judge against the judge; unit weights",
+     "Goldberg (1970); Dawes (1979)"),
+    ("Agreement", "the six ICC forms; incomplete designs from variance components",
+     "Shrout & Fleiss (1979); McGraw & Wong (1996)"),
+    ("Krippendorff's alpha", "agreement beyond chance at the scale's level", "Krippendorff (2011)"),
+    ("Readers per file", "generalizability variance components and a D-study",
+     "Cronbach et al. (1972); Brennan (2001)"),
+    ("Pairwise conflict", "interpersonal lens: agreement split into matching G and consistency",
+     "Hammond (1965)"),
+    ("Groups of raters", "hierarchical grouping losing the least overall R² at each merge",
+     "Ward (1963); Christal (1968)"),
+    ("Excluded attributes", "incremental R² with a nested F test; Holm adjustment", "Holm (1979)"),
+    ("Test-retest", "correlation, ICC(A,1), weighted kappa, Bland-Altman limits",
+     "Cohen (1968); Bland & Altman (1986)"),
+    ("Wording bands", "ICC bands; others are this tool's own choice (see each)",
+     "Koo & Li (2016); Krippendorff (2004)"),
+)
+
+
+class PanelReport:
+    def __init__(self, data: ReportInput):
+        self.data = data
+
+    def flowables(self) -> list:
+        story = self.overview()
+        story.append(PageBreak())
+        story += self.rater_table()
+        for phase in self.data.phases:
+            story += self.phase_sections(phase)
+        story += self.files_to_reread()
+        story += self.excluded()
+        story += self.data_quality()
+        story += self.methods()
+        story += self.cautions()
+        return story
+
+    # ------------------------------------------------------------------ overview
+    def overview(self) -> list:
+        res = self.data.results
+        story = [text("Panel summary", TITLE),
+                 text("For the chair of the panel. It names every rater; please keep it within the "
+                      "committee. Each rater receives a separate private report about their own judgments.",
+                      BODY)]
+        for summary in dig(res, "data_summary", "phases", default=[]) or []:
+            phase = summary.get("phase")
+            story.append(text(
+                (f"Phase {phase}: " if phase else "")
+                + f"{summary.get('n_raters')} raters, {summary.get('n_cases')} cases, "
+                f"{summary.get('n_judgments')} judgments, {summary.get('n_repeat_pairs')} repeated pairs.", BODY))
+        story.append(text("Flags first", HEADING))
+        flagged = [e for e in res.get("raters", []) if e.get("flags")]
+        if flagged:
+            rows = [[text(h, CELL_BOLD) for h in ("Rater", "Phase", "What was flagged")]]
+            for e in flagged:
+                rows.append([text(e["rater"], CELL), text(e.get("phase") or "", CELL),
+                             text("; ".join(wording.flag_words(f) for f in e["flags"]), CELL)])
+            table = Table(rows, colWidths=[90, 60, CONTENT_WIDTH - 150], repeatRows=1, hAlign="LEFT")
+            table.setStyle(table_style())
+            story.append(table)
+        else:
+            story.append(text("No rater was flagged.", BODY))
+        story.append(text("Panel at a glance", HEADING))
+        rows = [[text(h, CELL_BOLD) for h in ("Phase", "ICC(A,1)", "Krippendorff's alpha", "Groups",
+                                             "Policies alike? (p)", "Reading")]]
+        for phase in self.data.phases:
+            panel = self.data.panel(phase)
+            a1 = num(dig(panel, "icc", "a1"))
+            alpha = num(panel.get("alpha"))
+            groups = panel.get("groups") or []
+            hom_p = num(dig(panel, "homogeneity", "p_value"))
+            reading = []
+            if a1 is not None:
+                reading.append(f"single-rater agreement {wording.icc_reading(a1)} ({wording.ICC_BANDS.source})")
+            if alpha is not None:
+                reading.append(f"alpha {wording.ALPHA_BANDS.words(alpha)}")
+            rows.append([text(phase or "all", CELL), text(fmt(a1), CELL), text(fmt(alpha), CELL),
+                         text(str(len(groups)) if groups else "n/a", CELL), text(fmt(hom_p, 3), CELL),
+                         text("; ".join(reading) or "not available yet", CELL)])
+        table = Table(rows, colWidths=[55, 55, 80, 45, 80, CONTENT_WIDTH - 315], hAlign="LEFT")
+        table.setStyle(table_style())
+        story.append(table)
+        n_warn = len(self.all_warnings())
+        story.append(text(f"The data-quality section lists {n_warn} note(s) from reading and fitting the data.",
+                          SMALL))
+        story.append(Spacer(1, 6))
+        story.append(text(wording.CAUTIONS[0], NOTE))
+        return story
+
+    def rater_table(self) -> list:
+        story = [text("Every rater", HEADING)]
+        head = ("Rater", "Phase", "Cases", "Repeats", "R_s", "Retest r", "Offset", "Misalloc.", "G rubric",
+                "Group", "Flags")
+        rows = [[text(h, CELL_BOLD) for h in head]]
+        for e in self.data.results.get("raters", []):
+            rows.append([text(e["rater"], CELL), text(e.get("phase") or "", CELL), text(str(e.get("n_cases")), CELL),
+                         text(str(e.get("n_repeats")), CELL), text(fmt(_policy_r(e)), CELL),
+                         text(fmt(_retest_r(e)), CELL), text(fmt(_offset(e)), CELL),
+                         text(fmt(_misallocation(e)), CELL), text(fmt(num(dig(e, "alignment", "g_rubric"))), CELL),
+                         text(str(e.get("group") or ""), CELL), text(", ".join(e.get("flags", [])), CELL)])
+        widths = [62, 40, 34, 40, 32, 40, 36, 44, 42, 34]
+        widths.append(CONTENT_WIDTH - sum(widths))
+        table = Table(rows, colWidths=widths, repeatRows=1)
+        table.setStyle(table_style(("FONT", (0, 1), (-1, -1), "Helvetica", 7.5)))
+        story.append(table)
+        story.append(text("Offset: positive means judgments run higher than the panel's on the same cases. "
+                          "Misalloc.: misallocation against the rubric (0 = the rubric's weights).", SMALL))
+        return story
+
+    # ------------------------------------------------------------------ per phase
+    def phase_sections(self, phase) -> list:
+        label = f" (phase {phase})" if phase else ""
+        panel = self.data.panel(phase)
+        story = [CondPageBreak(250), text(f"Cue weights by rater{label}", HEADING)]
+        story += self.heat_map(phase)
+        story += [CondPageBreak(200), text(f"Groups of raters{label}", HEADING)]
+        story += self.groups(panel)
+        story += [CondPageBreak(200), text(f"Agreement and readers per file{label}", HEADING)]
+        story += self.agreement(panel)
+        story += [CondPageBreak(200), text(f"Where pairs of raters disagree{label}", HEADING)]
+        story += self.conflict(panel)
+        return story
+
+    def heat_map(self, phase) -> list:
+        entries = [e for e in self.data.entries_in(phase) if dig(e, "policy", "std_weights")]
+        if not entries:
+            return [text("Standardized weights are not available yet for this phase.", BODY)]
+        terms = self.data.design_terms() or list(entries[0]["policy"]["std_weights"])
+        entries.sort(key=lambda e: (str(e.get("group") or "~"), str(e["rater"])))
+        values = [[num(e["policy"]["std_weights"].get(t)) for t in terms] for e in entries]
+        image = charts.weight_heat_map([str(e["rater"]) for e in entries], terms, values,
+                                       [e.get("group") for e in entries], width_pt=CONTENT_WIDTH)
+        return [image, text("Rows are raters ordered by group (letter in brackets); green: the judgment rises "
+                            "with the cue, brown: it falls. Weights are on z-scored cues and judgments.", SMALL)]
+
+    def groups(self, panel: dict) -> list:
+        groups = panel.get("groups") or []
+        if not groups:
+            return [text("Groups of raters are not available for this study yet.", BODY)]
+        story = []
+        grouping = panel.get("grouping") or {}
+        merges = grouping.get("merges") or panel.get("merges") or []
+        leaves = [str(r.get("rater")) for r in grouping.get("raters", []) if r.get("group")] or \
+            sorted({str(r) for g in groups for r in g.get("raters", [])})
+        if merges:
+            base = num(grouping.get("r2_individual"))
+            steps = []
+            for m in merges:
+                r2 = num(m.get("r2"))
+                height = (base - r2) if (base is not None and r2 is not None) else float(m.get("step", 0))
+                steps.append((m.get("merged_a", []), m.get("merged_b", []), height))
+            leaf_group = {str(r): g.get("group") for g in groups for r in g.get("raters", [])}
+            story.append(charts.grouping_tree(leaves, steps, leaf_group, width_pt=CONTENT_WIDTH * 0.85))
+            rule = grouping.get("rule")
+            if rule:
+                story.append(text(f"Number of groups: {rule}", SMALL))
+        rows = [[text(h, CELL_BOLD) for h in ("Group", "Raters", "What sets it apart")]]
+        for g in groups:
+            rows.append([text(str(g.get("group")), CELL), text(", ".join(map(str, g.get("raters", []))), CELL),
+                         text(str(g.get("sets_apart") or ""), CELL)])
+        table = Table(rows, colWidths=[45, 170, CONTENT_WIDTH - 215], repeatRows=1, hAlign="LEFT")
+        table.setStyle(table_style())
+        story.append(table)
+        hom = panel.get("homogeneity")
+        if hom:
+            story.append(text(f"Test that all raters share one set of weights: statistic "
+                              f"{fmt(num(hom.get('statistic')))}, p = {fmt(num(hom.get('p_value')), 3)}.", BODY))
+        return story
+
+    def agreement(self, panel: dict) -> list:
+        story = []
+        icc = panel.get("icc")
+        if icc:
+            rows = [[text(h, CELL_BOLD) for h in ("Form", "Estimate", "95% interval", "Meaning", "Reading")]]
+            for key, label, meaning in ICC_FORMS:
+                value = icc.get(key)
+                est, ci = num(value), interval(value) if isinstance(value, dict) else None
+                rows.append([text(label, CELL), text(fmt(est), CELL),
+                             text(f"{fmt(ci[0])} to {fmt(ci[1])}" if ci else "", CELL), text(meaning, CELL),
+                             text(wording.icc_reading(est), CELL)])
+            table = Table(rows, colWidths=[60, 50, 80, 200, CONTENT_WIDTH - 390], hAlign="LEFT")
+            table.setStyle(table_style())
+            story.append(table)
+            if icc.get("method") or icc.get("estimator"):
+                story.append(text(f"Estimated by: {icc.get('method') or icc.get('estimator')}.", SMALL))
+            story.append(text(f"Bands: {wording.ICC_BANDS.source}.", SMALL))
+        else:
+            story.append(text("ICC agreement is not available for this study yet.", BODY))
+        alpha = num(panel.get("alpha"))
+        if alpha is not None:
+            story.append(text(f"Krippendorff's alpha = {fmt(alpha)}: {wording.ALPHA_BANDS.words(alpha)} "
+                              f"({wording.ALPHA_BANDS.source}).", BODY))
+        vc = panel.get("variance_components")
+        if vc:
+            parts = ", ".join(f"{k} {fmt(num(v), 3)}" for k, v in vc.items() if num(v) is not None)
+            story.append(text(f"Variance components: {parts}.", BODY))
+        d_study = panel.get("d_study") or []
+        if d_study:
+            rows = [[text(h, CELL_BOLD) for h in ("Readers per file", "Relative G (ranking)",
+                                                 "Phi (absolute level)")]]
+            for row in d_study:
+                rows.append([text(str(row.get("raters")), CELL), text(fmt(num(row.get("g_rel"))), CELL),
+                             text(fmt(num(row.get("phi"))), CELL)])
+            table = Table(rows, colWidths=[100, 120, 120], hAlign="LEFT")
+            table.setStyle(table_style())
+            story += [Spacer(1, 4), table,
+                      text("How dependable a file's mean score would be with this many readers "
+                           "(Cronbach et al. 1972; Brennan 2001).", SMALL)]
+        else:
+            story.append(text("The readers-per-file table is not available for this study yet.", BODY))
+        return story
+
+    def conflict(self, panel: dict) -> list:
+        pairs = dig(panel, "conflict", "pairs") or panel.get("pairs") or []
+        if not pairs:
+            return [text("The pairwise view is not available for this study yet.", BODY)]
+        pairs = sorted(pairs, key=lambda p: (num(p.get("r")) if num(p.get("r")) is not None else 9))[:15]
+        rows = [[text(h, CELL_BOLD) for h in ("Rater", "Rater", "Shared cases", "r", "G", "C",
+                                             "Mainly from")]]
+        for p in pairs:
+            source = p.get("main_source")
+            rows.append([text(p.get("rater_a"), CELL), text(p.get("rater_b"), CELL), text(str(p.get("n")), CELL),
+                         text(fmt(num(p.get("r"))), CELL), text(fmt(num(p.get("g"))), CELL),
+                         text(fmt(num(p.get("c"))), CELL),
+                         text({"weighting": "different weighting (G)", "inconsistency": "inconsistency (R_s)"}
+                              .get(source, str(source or "")), CELL)])
+        table = Table(rows, colWidths=[70, 70, 60, 40, 40, 40, CONTENT_WIDTH - 320], repeatRows=1, hAlign="LEFT")
+        table.setStyle(table_style())
+        return [text("The pairs that agree least, with where their disagreement comes from: weighting the "
+                     "cues differently (low G) or applying a policy inconsistently (low R_s).", BODY), table]
+
+    # ------------------------------------------------------------------ files, excluded, quality
+    def files_to_reread(self) -> list:
+        story = [CondPageBreak(150), text("Files that need another read", HEADING)]
+        frame = self.data.table("files", "case_scores", "cases")
+        flag_col = None
+        if frame is not None:
+            flag_col = next((c for c in ("needs_another_read", "another_read", "reread") if c in frame.columns), None)
+        if frame is None or flag_col is None:
+            return story + [text("The per-file table is not available for this study yet.", BODY)]
+        chosen = frame[frame[flag_col].astype(bool)]
+        if chosen.empty:
+            return story + [text("No file needs another read.", BODY)]
+        cols = [c for c in ("phase", "case", "raw_mean", "adjusted", "adjusted_score", "disagreement", "n")
+                if c in chosen.columns]
+        rows = [[text(c.replace("_", " "), CELL_BOLD) for c in cols]]
+        for _, r in chosen.head(40).iterrows():
+            rows.append([text(fmt(num(r[c])) if isinstance(r[c], float) else str(r[c]), CELL) for c in cols])
+        table = Table(rows, repeatRows=1, hAlign="LEFT")
+        table.setStyle(table_style())
+        story.append(table)
+        if len(chosen) > 40:
+            story.append(text(f"{len(chosen) - 40} more in the workbook.", SMALL))
+        return story
+
+    def excluded(self) -> list:
+        story = [CondPageBreak(150), text("Attributes that must not count", HEADING)]
+        rows = []
+        for e in self.data.results.get("raters", []):
+            for attr, res in (e.get("excluded") or {}).items():
+                res = res or {}
+                rows.append((e["rater"], e.get("phase") or "", attr, num(res.get("delta_r2")),
+                             num(res.get("p_value")), num(res.get("p_adjusted")), bool(res.get("flagged"))))
+        if not rows:
+            return story + [text("No excluded-attribute result is available for this study.", BODY)]
+        rows.sort(key=lambda r: (not r[6], r[5] if r[5] is not None else 9))
+        shown = [r for r in rows if r[6]] or rows[:5]
+        shown = shown if len(shown) >= 5 else rows[:5]
+        table_rows = [[text(h, CELL_BOLD) for h in ("Rater", "Phase", "Attribute", "Added R²", "p", "p (Holm)",
+                                                   "Flagged")]]
+        for r in shown[:40]:
+            table_rows.append([text(r[0], CELL), text(r[1], CELL), text(r[2], CELL), text(fmt(r[3], 3), CELL),
+                               text(fmt(r[4], 3), CELL), text(fmt(r[5], 3), CELL), text("yes" if r[6] else "", CELL)])
+        table = Table(table_rows, repeatRows=1, hAlign="LEFT")
+        table.setStyle(table_style())
+        story += [text("Each attribute added to each rater's policy; p adjusted across raters and attributes "
+                       "(Holm). An association can run through a cue related to the attribute. Flagged "
+                       "results first.", BODY), table]
+        n_flagged = sum(r[6] for r in rows)
+        story.append(text(f"{n_flagged} of {len(rows)} rater-attribute checks were flagged; all "
+                          f"{len(rows)} are in the workbook.", SMALL))
+        return story
+
+    def all_warnings(self) -> list[tuple[str, str]]:
+        out: list[tuple[str, str]] = []
+        for w in self.data.results.get("warnings", []):
+            where = ""
+            if isinstance(w, dict):
+                bits = [f"{k} {w[k]}" for k in ("file", "row", "column") if w.get(k) is not None]
+                where = ", ".join(bits)
+                w = w.get("message")
+            out.append(("reading the data" + (f" ({where})" if where else ""), str(w)))
+        for e in self.data.results.get("raters", []):
+            for msg in collect_warnings(e):
+                out.append((f"fitting {e['rater']}" + (f", {e.get('phase')}" if e.get("phase") else ""), msg))
+        for p in self.data.results.get("panels", []):
+            for msg in collect_warnings(p):
+                out.append(("panel" + (f", {p.get('phase')}" if p.get("phase") else ""), msg))
+        return out
+
+    def data_quality(self) -> list:
+        story = [CondPageBreak(150), text("Data quality", HEADING)]
+        warnings = self.all_warnings()
+        if not warnings:
+            return story + [text("No warning was raised while reading or fitting the data.", BODY)]
+        rows = [[text("Where", CELL_BOLD), text("Note", CELL_BOLD)]]
+        rows += [[text(where, CELL), text(msg, CELL)] for where, msg in warnings]
+        table = Table(rows, colWidths=[130, CONTENT_WIDTH - 130], repeatRows=1, hAlign="LEFT")
+        table.setStyle(table_style())
+        return story + [table]
+
+    def methods(self) -> list:
+        rows = [[text(h, CELL_BOLD) for h in ("Analysis", "Method", "Published source")]]
+        rows += [[text(a, CELL), text(m, CELL), text(s, CELL)] for a, m, s in METHODS]
+        table = Table(rows, colWidths=[100, 230, CONTENT_WIDTH - 330], repeatRows=1, hAlign="LEFT")
+        table.setStyle(table_style())
+        return [CondPageBreak(200), text("Methods and sources", HEADING), table,
+                text("Sources are cited from memory; check the original before quoting them.", SMALL)]
+
+    def cautions(self) -> list:
+        return [KeepTogether([text("Cautions", HEADING)] + [text(f"- {c}", BODY) for c in wording.CAUTIONS])]
+

@@ -1,0 +1,546 @@
+"""The private feedback report of one rater.
+
+Privacy: the report names this rater only. Colleagues appear as unnamed dots in a
+distribution, and only when the phase's panel has at least
+``wording.MIN_PANEL_FOR_PEERS`` raters; any free text (warnings, group sentences)
+that names another rater is left out.
+"""
+
+from __future__ import annotations
+
+import math
+import statistics
+from collections.abc import Callable
+from dataclasses import dataclass
+from xml.sax.saxutils import escape
+
+from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, Table
+
+from . import charts, wording
+from ._read import ReportInput, dig, id_pattern, interval, num
+from .styles import (ACCENT, ACCENT_LIGHT, BODY, CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, PANEL,
+                     RUBRIC, SMALL, TITLE, markup, table_style, text)
+from .wording import fmt
+
+
+@dataclass(frozen=True)
+class KeyFigure:
+    """One row of the first page: a figure, where it lives in results.json, its reading."""
+
+    label: str
+    value: Callable[[dict], float | None]
+    reading: Callable[[dict], str]
+    strip: tuple[float, float, str, str] | None  # axis low, high, words at each end
+
+
+def _policy_r(e):
+    return num(dig(e, "policy", "r"))
+
+
+def _retest_r(e):
+    return num(dig(e, "retest", "r"))
+
+
+def _agreement_r(e):
+    block = e.get("agreement")
+    if isinstance(block, dict):
+        return num(block.get("r", block.get("estimate")))
+    return num(block)
+
+
+def _offset(e):
+    sev = e.get("severity") or {}
+    return num(sev.get("offset", sev.get("estimate")))
+
+
+def _misallocation(e):
+    return num(dig(e, "alignment", "misallocation"))
+
+
+def _g_rubric(e):
+    return num(dig(e, "alignment", "g_rubric"))
+
+
+KEY_FIGURES = (
+    KeyFigure("Consistency (R_s)", _policy_r,
+              lambda e: wording.consistency_reading(_policy_r(e)), (0.0, 1.0, "looser", "closer")),
+    KeyFigure("Test-retest r", _retest_r,
+              lambda e: wording.retest_reading(_retest_r(e), dig(e, "retest", "n_pairs")),
+              (0.0, 1.0, "looser", "closer")),
+    KeyFigure("Agreement with the panel (r)", _agreement_r,
+              lambda e: wording.agreement_reading(_agreement_r(e)), (0.0, 1.0, "lower", "higher")),
+    KeyFigure("Severity offset", _offset,
+              lambda e: wording.severity_reading(_offset(e), num(dig(e, "severity", "se")),
+                                                 tuple(dig(e, "severity", "flags", default=()))),
+              (-1.0, 1.0, "lower", "higher")),
+    KeyFigure("Rubric misallocation", _misallocation,
+              lambda e: wording.alignment_reading(_misallocation(e), dig(e, "alignment", "most_over"),
+                                                  dig(e, "alignment", "most_under")),
+              (0.0, 0.5, "closer", "further")),
+    KeyFigure("Match with the rubric (G)", _g_rubric,
+              lambda e: ("No rubric was given." if _g_rubric(e) is None else
+                         f"Your policy and the rubric {wording.MATCH_BANDS.words(_g_rubric(e))}."),
+              (0.0, 1.0, "lower", "higher")),
+)
+
+
+class RaterReport:
+    """Builds the flowables of one rater's report from the results dictionary."""
+
+    def __init__(self, data: ReportInput, rater: str, *, include_excluded: bool = False):
+        self.data = data
+        self.rater = rater
+        self.include_excluded = include_excluded
+        self.entries = data.entries_of(rater)
+        if not self.entries:
+            raise KeyError(f"rater {rater!r} is not in the results")
+        self.entry = self.entries[-1]        # detailed sections: the latest phase
+        self.phase = self.entry.get("phase")
+        self.others = id_pattern(r for r in data.rater_ids() if r != rater)
+
+    # ------------------------------------------------------------ helpers
+    def private(self, sentence: str | None) -> str | None:
+        """The sentence, or None when it names another rater."""
+        if not sentence:
+            return None
+        if self.others is not None and self.others.search(str(sentence)):
+            return None
+        return str(sentence)
+
+    def peers(self, phase) -> list[dict]:
+        return [e for e in self.data.entries_in(phase) if str(e["rater"]) != self.rater]
+
+    def shows_peers(self, phase) -> bool:
+        return len(self.data.entries_in(phase)) >= wording.MIN_PANEL_FOR_PEERS
+
+    def scale(self) -> tuple[float, float] | None:
+        lo = num(dig(self.data.results, "judgment", "min"))
+        hi = num(dig(self.data.results, "judgment", "max"))
+        if lo is None or hi is None:
+            frame = self.data.table("repeat_pairs", "repeats")
+            if frame is not None:
+                vals = frame[["first", "second"]].to_numpy(dtype=float)
+                return float(vals.min()), float(vals.max())
+            return None
+        return lo, hi
+
+    # ------------------------------------------------------------ sections
+    def flowables(self) -> list:
+        story = []
+        story += self.first_page()
+        story.append(PageBreak())
+        story += self.cue_weights()
+        story += self.consistency()
+        story += self.severity_and_range()
+        story += self.cases_to_revisit()
+        story += self.lens()
+        if self.include_excluded:
+            story += self.excluded()
+        story += self.context()
+        story += self.cautions_and_glossary()
+        return story
+
+    def first_page(self) -> list:
+        e = self.entry
+        story = [text("Feedback on your judgments", TITLE),
+                 markup(f"Prepared for <b>{escape(wording.to_text(self.rater))}</b> alone. "
+                        "It describes how your judgments relate to the information in the cases, "
+                        "so you can decide which cues and which cases to look at again.", BODY)]
+        phases = [x.get("phase") for x in self.entries]
+        counts = ", ".join(
+            f"{x.get('n_cases')} cases" + (f" in phase {x.get('phase')}" if x.get("phase") else "")
+            + (f" ({x.get('n_repeats')} shown twice)" if x.get("n_repeats") else "")
+            for x in self.entries)
+        story.append(text(f"You judged {counts}.", BODY))
+        story.append(Spacer(1, 4))
+        story.append(self.key_figure_table(phases))
+        if self.shows_peers(self.phase):
+            story.append(text("Dots: your figure (filled) among your colleagues' figures (open, unnamed).",
+                              SMALL))
+        else:
+            story.append(text("The panel has fewer than five raters, so no comparison with colleagues is "
+                              "shown: with so few, a summary could reveal a colleague's figures.", SMALL))
+        story += self.group_line()
+        story.append(text(wording.drift_reading(e.get("drift")), BODY))
+        flags = [f for f in e.get("flags", []) if f != "excluded_attribute" or self.include_excluded]
+        if flags:
+            items = "; ".join(escape(wording.flag_words(f)) for f in flags)
+            story.append(markup(f"<b>Worth a look:</b> {items}.", NOTE))
+        else:
+            story.append(markup("<b>Nothing was flagged</b> in this audit.", NOTE))
+        story += self.next_steps()
+        return story
+
+    def key_figure_table(self, phases) -> Table:
+        multi = len(phases) > 1
+        head = ["Figure"] + ([str(p) for p in phases] if multi else ["Value"])
+        head += ["Among colleagues" if self.shows_peers(self.phase) else "", "What it says"]
+        rows = [[text(h, CELL_BOLD) for h in head]]
+        strip_w = 120.0
+        label_w, value_w = 100.0, 42.0
+        for fig in KEY_FIGURES:
+            values = [fig.value(x) for x in self.entries]
+            mine = values[-1]
+            row = [text(fig.label, CELL)] + [text(fmt(v), CELL) for v in values]
+            strip = ""
+            if fig.strip and mine is not None and self.shows_peers(self.phase):
+                peer_values = [v for v in (fig.value(p) for p in self.peers(self.phase)) if v is not None]
+                if peer_values:
+                    lo, hi, lw, hw = fig.strip
+                    strip = charts.strip_chart(peer_values, mine, low=lo, high=hi, width=strip_w,
+                                               low_words=lw, high_words=hw)
+            row += [strip, text(fig.reading(self.entry), CELL)]
+            rows.append(row)
+        widths = [label_w] + [value_w] * len(self.entries) + [strip_w]
+        widths.append(CONTENT_WIDTH - sum(widths))
+        table = Table(rows, colWidths=widths, repeatRows=1)
+        table.setStyle(table_style(("VALIGN", (0, 1), (-1, -1), "MIDDLE")))
+        return table
+
+    def my_group(self) -> dict | None:
+        label = self.entry.get("group")
+        if label is None:
+            return None
+        for g in dig(self.data.panel(self.phase), "groups", default=[]) or []:
+            if str(g.get("group")) == str(label):
+                return g
+        return None
+
+    def group_line(self) -> list:
+        label = self.entry.get("group")
+        if label is None:
+            return [text("Groups of raters with similar policies are not available for this study.", BODY)]
+        sentence = f"Your policy falls in group {label} of raters who weigh the cues alike."
+        group = self.my_group()
+        if group and self.shows_peers(self.phase) and len(group.get("raters", [])) >= wording.MIN_GROUP_FOR_PEERS:
+            extra = self.private(group.get("sets_apart"))
+            if extra:
+                sentence += f" {extra}"
+        return [text(sentence, BODY)]
+
+    def cue_weights(self) -> list:
+        story = [text("How you weigh the cues", HEADING)]
+        policy = self.entry.get("policy")
+        if not policy:
+            return story + [text("Your policy is not available for this study (too few cases, or the "
+                                 "analysis did not run).", BODY)]
+        cues = self.data.cues()
+        shares = dig(self.entry, "alignment", "shares") or policy.get("importance") or {}
+        series = [("your weight shares", {c: num(shares.get(c)) for c in cues if num(shares.get(c)) is not None},
+                   ACCENT)]
+        if self.shows_peers(self.phase):
+            median = self.panel_median_shares(cues, "shares" if dig(self.entry, "alignment", "shares") else None)
+            series.append(("panel median", median, PANEL))
+        group = self.my_group()
+        if (group and self.shows_peers(self.phase)
+                and len(group.get("raters", [])) >= wording.MIN_GROUP_FOR_PEERS and group.get("importance")):
+            series.append((f"group {group.get('group')}", {c: num(v) for c, v in group["importance"].items()},
+                           ACCENT_LIGHT))
+        rubric = self.rubric_shares()
+        if rubric:
+            series.append(("rubric", rubric, RUBRIC))
+        story.append(charts.weight_chart(cues, series, width=CONTENT_WIDTH))
+        story.append(text("A share is a cue's part of the whole policy; the shares add up to 1. "
+                          "A cue with a larger share moves your judgments more.", SMALL))
+        story.append(self.weights_table(policy))
+        return story
+
+    def panel_median_shares(self, cues, key) -> dict:
+        out = {}
+        for c in cues:
+            vals = []
+            for p in self.data.entries_in(self.phase):
+                source = dig(p, "alignment", "shares") if key else dig(p, "policy", "importance")
+                v = num((source or {}).get(c))
+                if v is not None:
+                    vals.append(v)
+            if vals:
+                out[c] = statistics.median(vals)
+        return out
+
+    def rubric_shares(self) -> dict:
+        for candidate in (dig(self.data.panel(self.phase), "alignment", "rubric_shares"),
+                          dig(self.data.panel(self.phase), "rubric_shares"),
+                          dig(self.data.results, "rubric", "shares"),
+                          dig(self.data.results, "rubric")):
+            if isinstance(candidate, dict) and candidate:
+                vals = {c: num(v) for c, v in candidate.items() if num(v) is not None}
+                if vals:
+                    return vals
+        return {}
+
+    def weights_table(self, policy: dict):
+        weights = policy.get("weights") or {}
+        if not weights:
+            return Spacer(1, 1)
+        std = policy.get("std_weights") or {}
+        lo, hi = policy.get("ci_low") or {}, policy.get("ci_high") or {}
+        rows = [[text(h, CELL_BOLD) for h in ("Term", "Weight (scale points per unit)", "95% interval",
+                                             "Standardized weight")]]
+        for term, w in weights.items():
+            ci = (num(lo.get(term)), num(hi.get(term)))
+            ci_text = "n/a" if None in ci else f"{fmt(ci[0])} to {fmt(ci[1])}"
+            rows.append([text(term, CELL), text(fmt(num(w)), CELL), text(ci_text, CELL),
+                         text(fmt(num(std.get(term))), CELL)])
+        table = Table(rows, colWidths=[150, 120, 110, CONTENT_WIDTH - 380], repeatRows=1)
+        table.setStyle(table_style())
+        return KeepTogether([Spacer(1, 4), table])
+
+    def consistency(self) -> list:
+        story = [CondPageBreak(200), text("How consistently the cues are used", HEADING)]
+        r_s = _policy_r(self.entry)
+        retest = self.entry.get("retest") or {}
+        r_tt = num(retest.get("r"))
+        story.append(text(wording.consistency_reading(r_s), BODY))
+        pairs = self.repeat_pairs()
+        bounds = self.scale()
+        if pairs and bounds:
+            story.append(charts.retest_scatter(pairs, low=bounds[0], high=bounds[1]))
+            story.append(text("Each dot is a case you saw twice; dots on the dashed line got the same "
+                              "judgment both times, and larger dots stand for several cases.", SMALL))
+        elif r_tt is None:
+            story.append(text("No case was shown to you twice, so test-retest is not available.", BODY))
+        if r_tt is not None:
+            story.append(text(wording.retest_reading(r_tt, retest.get("n_pairs")), BODY))
+            story.append(text(ceiling_sentence(r_s, r_tt, retest), BODY))
+        return story
+
+    def my_rows(self, names: tuple[str, ...], x: str, y: str) -> list[tuple[float, float]]:
+        """(x, y) pairs of this rater (and phase) from the first table found under ``names``."""
+        frame = self.data.table(*names)
+        if frame is None or not {"rater", x, y} <= set(frame.columns):
+            return []
+        mine = frame[frame["rater"].astype(str) == self.rater]
+        if "phase" in mine.columns and self.phase is not None:
+            mine = mine[mine["phase"].astype(str) == str(self.phase)]
+        pairs = zip(mine[x].astype(float), mine[y].astype(float))
+        return [(a, b) for a, b in pairs if math.isfinite(a) and math.isfinite(b)]
+
+    def repeat_pairs(self) -> list[tuple[float, float]]:
+        return self.my_rows(("repeat_pairs", "repeats"), "first", "second")
+
+    def severity_and_range(self) -> list:
+        story = [CondPageBreak(150), text("Level, range and reading order", HEADING)]
+        sev = self.entry.get("severity") or {}
+        offset, se = _offset(self.entry), num(sev.get("se"))
+        if offset is None:
+            story.append(text("Severity is not available for this study.", BODY))
+        else:
+            tail = f" (offset {fmt(offset)}" + (f", standard error {fmt(se)})" if se is not None else ")")
+            story.append(text(wording.severity_reading(offset, se, tuple(sev.get("flags", ()))) + tail, BODY))
+        ratio = num(sev.get("sd_ratio"))
+        if ratio is not None:
+            story.append(text(f"You use {wording.RANGE_BANDS.words(ratio)} (spread {fmt(ratio)} times the "
+                              "panel's).", BODY))
+        middle, panel_middle = num(sev.get("middle_share")), num(sev.get("panel_middle_share"))
+        if middle is not None:
+            line = f"{fmt(100 * middle, 0)}% of your judgments sit in the middle of the scale"
+            if panel_middle is not None and self.shows_peers(self.phase):
+                line += f" (panel: {fmt(100 * panel_middle, 0)}%)"
+            story.append(text(line + ".", BODY))
+        story.append(text(wording.drift_reading(self.entry.get("drift")), BODY))
+        order = self.reading_order()
+        bounds = self.scale()
+        if order and bounds:
+            story.append(charts.order_chart([p for p, _ in order], [j for _, j in order], low=bounds[0],
+                                            high=bounds[1], width=CONTENT_WIDTH * 0.8))
+            story.append(text("Grey dots: your judgments in reading order; line: their running average.",
+                              SMALL))
+        return story
+
+    def reading_order(self) -> list[tuple[float, float]]:
+        return self.my_rows(("reading_order", "ordered"), "position", "judgment")
+
+    def cases_to_revisit(self) -> list:
+        story = [CondPageBreak(120), text("Cases to look at again", HEADING)]
+        cases = dig(self.entry, "policy", "look_again", default=[]) or []
+        if not cases:
+            return story + [text("No case stands out from your own policy, or the policy is not available.",
+                                 BODY)]
+        story.append(text("These cases received a judgment far from what your own policy predicts for "
+                          "them. Re-reading them may show a cue that was missed or an exception that "
+                          "deserves a rule.", BODY))
+        rows = [[text(h, CELL_BOLD) for h in ("Case", "Your judgment", "Your policy predicts", "Difference")]]
+        for c in cases[:12]:
+            j, pred = num(c.get("judgment")), num(c.get("predicted"))
+            diff = None if j is None or pred is None else j - pred
+            rows.append([text(str(c.get("case")), CELL), text(fmt(j, 1), CELL), text(fmt(pred, 1), CELL),
+                         text(fmt(diff, 1), CELL)])
+        table = Table(rows, colWidths=[140, 100, 120, 100], hAlign="LEFT", repeatRows=1)
+        table.setStyle(table_style())
+        return story + [table]
+
+    def lens(self) -> list:
+        lens = self.entry.get("lens")
+        story = [CondPageBreak(150), text("Judgments and the later outcome (lens model)", HEADING)]
+        if not lens:
+            return story + [text("No outcome (criterion) is recorded for this study, so this section is not "
+                                 "available.", BODY)]
+        r_a, g, c = num(lens.get("r_a")), num(lens.get("g")), num(lens.get("c"))
+        r_e, r_s = num(lens.get("r_e")), num(lens.get("r_s"))
+        mv, mv_cv = num(lens.get("model_validity")), num(lens.get("model_validity_cv"))
+        rows = [[text(h, CELL_BOLD) for h in ("Figure", "Value", "Meaning")],
+                [text("r_a", CELL), text(fmt(r_a), CELL), text("how well your judgments tracked the outcome", CELL)],
+                [text("G", CELL), text(fmt(g), CELL), text("how far your policy matches the cues' best rule", CELL)],
+                [text("C", CELL), text(fmt(c), CELL), text("what your judgments caught beyond the cues", CELL)],
+                [text("R_e", CELL), text(fmt(r_e), CELL), text("how predictable the outcome is from the cues", CELL)],
+                [text("R_s", CELL), text(fmt(r_s), CELL), text("your consistency on these cases", CELL)]]
+        table = Table(rows, colWidths=[60, 60, CONTENT_WIDTH - 120], hAlign="LEFT")
+        table.setStyle(table_style())
+        story.append(table)
+        story.append(text(bootstrap_sentence(r_a, mv, mv_cv), BODY))
+        if self.data.results.get("criterion_selected") or any(
+                "criterion" in str(w.get("message", w) if isinstance(w, dict) else w)
+                and "missing" in str(w.get("message", w) if isinstance(w, dict) else w)
+                for w in self.data.results.get("warnings", [])):
+            story.append(text(wording.LENS_SELECTED_CAUTION, NOTE))
+        return story
+
+    def excluded(self) -> list:
+        story = [CondPageBreak(100), text("Attributes that must not count", HEADING)]
+        block = self.entry.get("excluded") or {}
+        if not block:
+            return story + [text("No excluded attribute was checked for this study.", BODY)]
+        rows = [[text(h, CELL_BOLD) for h in ("Attribute", "Added R²", "p (adjusted)", "Reading")]]
+        for attr, res in block.items():
+            res = res or {}
+            flagged = bool(res.get("flagged"))
+            rows.append([text(attr, CELL), text(fmt(num(res.get("delta_r2")), 3), CELL),
+                         text(fmt(num(res.get("p_adjusted")), 3), CELL),
+                         text("associated with your judgments beyond the cues" if flagged
+                              else "no clear association beyond the cues", CELL)])
+        table = Table(rows, colWidths=[120, 70, 80, CONTENT_WIDTH - 270], hAlign="LEFT")
+        table.setStyle(table_style())
+        return story + [table, text("An association is not proof that the attribute was used: a cue related "
+                                    "to it can carry it.", SMALL)]
+
+    def context(self) -> list:
+        rows = [[text(h, CELL_BOLD) for h in ("Figure", "Published value", "Source")]]
+        for item in wording.PUBLISHED_CONTEXT:
+            rows.append([text(item.figure, CELL), text(item.value, CELL), text(item.source, CELL)])
+        table = Table(rows, colWidths=[140, 110, CONTENT_WIDTH - 250], hAlign="LEFT")
+        table.setStyle(table_style())
+        return [CondPageBreak(120), text("Published context", HEADING),
+                text("Figures from studies of expert judges in many fields, as a rough yardstick only.", BODY),
+                table]
+
+    def next_steps(self) -> list:
+        steps = suggestions(self.entry, include_excluded=self.include_excluded)
+        story = [text("What to try next", HEADING)]
+        for s in steps:
+            story.append(text(f"- {s}", BODY))
+        return story
+
+    def cautions_and_glossary(self) -> list:
+        story = [CondPageBreak(150), text("Cautions", HEADING)]
+        story += [text(f"- {c}", BODY) for c in wording.CAUTIONS]
+        notes = [self.private(w) for w in collect_warnings(self.entry)]
+        notes = [n for n in notes if n]
+        if notes:
+            story.append(text("Notes on your data", HEADING))
+            story += [text(f"- {n}", SMALL) for n in notes]
+        story.append(text("Terms used", HEADING))
+        rows = [[text(term, CELL_BOLD), text(meaning, CELL)] for term, meaning in wording.GLOSSARY.items()]
+        table = Table(rows, colWidths=[120, CONTENT_WIDTH - 120], hAlign="LEFT")
+        table.setStyle(table_style(("LINEBELOW", (0, 0), (-1, 0), 0.3, ACCENT_LIGHT)))
+        story.append(table)
+        return story
+
+
+def ceiling_sentence(r_s: float | None, r_tt: float, retest: dict) -> str:
+    """R_s set against sqrt(r_tt): in the population R_s <= sqrt(r_tt) when the cues
+    stay fixed and only the unreliable part of the judgment differs between readings
+    (a standard reliability bound: a correlation cannot exceed the square root of the
+    reliability; common practice, no single source)."""
+    if r_s is None:
+        return "Without a fitted policy, consistency cannot be set against test-retest."
+    if r_tt <= 0:
+        return ("Repeated cases were judged so differently that the test-retest bound says nothing about "
+                "the policy.")
+    ceiling = math.sqrt(r_tt)
+    verdict = retest.get("verdict")
+    head = f"Consistency R_s = {fmt(r_s)} against the square root of test-retest, {fmt(ceiling)}. "
+    if isinstance(verdict, str) and verdict:
+        return head + verdict
+    if r_s > ceiling + 0.05:
+        return head + ("The policy fits better than the repeats alone would suggest; with few repeated "
+                       "cases this happens by chance.")
+    if r_s < ceiling - 0.10:
+        return head + ("Your judgments repeat well but a straight-line rule of these cues does not "
+                       "capture all of them: information beyond the listed cues, or cut-offs and "
+                       "combinations of cues, may be shaping them.")
+    return head + "The two agree: what a linear rule leaves out is mostly the ordinary noise of repeating."
+
+
+def bootstrap_sentence(r_a, mv, mv_cv) -> str:
+    if r_a is None:
+        return "The outcome comparison is not available."
+    model = mv_cv if mv_cv is not None else mv
+    if model is None:
+        return f"Your judgments correlated {fmt(r_a)} with the outcome."
+    kind = "tested on cases it was not fitted to" if mv_cv is not None else "fitted to these cases"
+    if model > r_a + 0.02:
+        return (f"A model of your own policy, applied the same way every time ({kind}), tracked the "
+                f"outcome at {fmt(model)}, better than the judgments themselves ({fmt(r_a)}): the "
+                "inconsistency, not the weighting, costs accuracy here.")
+    if model < r_a - 0.02:
+        return (f"Your judgments ({fmt(r_a)}) tracked the outcome better than a model of your own policy "
+                f"({kind}: {fmt(model)}): they use something the listed cues do not hold.")
+    return (f"Your judgments ({fmt(r_a)}) and a model of your own policy ({kind}: {fmt(model)}) tracked "
+            "the outcome about equally.")
+
+
+def suggestions(entry: dict, *, include_excluded: bool) -> list[str]:
+    """Concrete next steps from this rater's own figures (about cues and cases)."""
+    out = []
+    over, under = dig(entry, "alignment", "most_over"), dig(entry, "alignment", "most_under")
+    mis = _misallocation(entry)
+    if mis is not None and mis >= wording.MISALLOCATION_BANDS.bands[1].low:
+        if over:
+            out.append(f"Read the rubric's guidance on {over}: your judgments lean on it more than intended.")
+        if under:
+            out.append(f"Check how {under} is used: it carries less weight in your judgments than the rubric asks.")
+    cases = dig(entry, "policy", "look_again", default=[]) or []
+    if cases:
+        ids = ", ".join(str(c.get("case")) for c in cases[:3])
+        out.append(f"Re-read cases {ids} and note what set them apart from your usual rule.")
+    r_tt = _retest_r(entry)
+    if r_tt is not None and r_tt < wording.RETEST_BANDS.bands[1].low:
+        out.append("Before scoring, write down the two or three cues that decide most cases, and check each "
+                   "case against them.")
+    r_s = _policy_r(entry)
+    if r_s is not None and r_s < wording.CONSISTENCY_BANDS.bands[1].low:
+        out.append("Use the same order of reading the cues for every case; it steadies how they are combined.")
+    drift = entry.get("drift") or {}
+    if drift.get("flagged"):
+        out.append("Re-read a few early cases at the end of a session to check that the standard has not moved.")
+    flags = set(entry.get("flags", [])) | set(dig(entry, "severity", "flags", default=()) or ())
+    if "narrow_range" in flags or "central_tendency" in flags:
+        out.append("Use the ends of the scale where a case deserves it; the anchors describe what they mean.")
+    if include_excluded and "excluded_attribute" in flags:
+        out.append("Cover the attribute that must not count while reading, and check which cues relate to it.")
+    if not out:
+        out.append("Keep your current approach and compare with the next audit; nothing here calls for a change.")
+    return out
+
+
+def collect_warnings(node) -> list[str]:
+    """Every plain-English warning string found anywhere in an entry (de-duplicated)."""
+    found: list[str] = []
+
+    def walk(x):
+        if isinstance(x, dict):
+            for k, v in x.items():
+                if k == "warnings" and isinstance(v, list):
+                    for w in v:
+                        msg = w.get("message") if isinstance(w, dict) else w
+                        if msg and str(msg) not in found:
+                            found.append(str(msg))
+                else:
+                    walk(v)
+        elif isinstance(x, list):
+            for v in x:
+                walk(v)
+
+    walk(node)
+    return found

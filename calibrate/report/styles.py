@@ -1,0 +1,131 @@
+"""The look of every report: a calm palette, five paragraph styles, one table style,
+and the page frame (study name, audit date, page number, caution line)."""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+from xml.sax.saxutils import escape
+
+from reportlab.lib import colors
+from reportlab.lib.enums import TA_LEFT
+from reportlab.lib.pagesizes import A4
+from reportlab.lib.styles import ParagraphStyle
+from reportlab.lib.units import mm
+from reportlab.platypus import BaseDocTemplate, Frame, PageTemplate, Paragraph, TableStyle
+
+# Palette: slate ink on white, a sea-green accent, a warm sand for "look here".
+INK = colors.HexColor("#27323a")
+MUTED = colors.HexColor("#6b7780")
+RULE = colors.HexColor("#c9d1d6")
+PALE = colors.HexColor("#eef2f3")
+ACCENT = colors.HexColor("#2f7d74")      # the reader's own figures
+ACCENT_LIGHT = colors.HexColor("#a9d3cc")
+PANEL = colors.HexColor("#9aa7b0")       # anonymous panel figures
+RUBRIC = colors.HexColor("#c8924a")      # the rubric
+ATTENTION = colors.HexColor("#b5651d")
+ATTENTION_PALE = colors.HexColor("#f6e7d6")
+
+PAGE_SIZE = A4
+MARGIN = 18 * mm
+CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
+
+BASE_FONT = "Helvetica"
+BOLD_FONT = "Helvetica-Bold"
+
+TITLE = ParagraphStyle("title", fontName=BOLD_FONT, fontSize=17, leading=21, textColor=INK,
+                       spaceAfter=4)
+HEADING = ParagraphStyle("heading", fontName=BOLD_FONT, fontSize=12, leading=15, textColor=ACCENT,
+                         spaceBefore=10, spaceAfter=4)
+BODY = ParagraphStyle("body", fontName=BASE_FONT, fontSize=9.5, leading=12.5, textColor=INK,
+                      alignment=TA_LEFT, spaceAfter=4)
+SMALL = ParagraphStyle("small", parent=BODY, fontSize=8, leading=10, textColor=MUTED, spaceAfter=2)
+CELL = ParagraphStyle("cell", parent=BODY, fontSize=8.5, leading=10.5, spaceAfter=0)
+CELL_BOLD = ParagraphStyle("cell_bold", parent=CELL, fontName=BOLD_FONT)
+NOTE = ParagraphStyle("note", parent=BODY, backColor=ATTENTION_PALE, borderPadding=(4, 5, 4, 5),
+                      spaceBefore=4, spaceAfter=8)
+
+
+def table_style(*extra) -> TableStyle:
+    """The one table style: a ruled header, light row bands, no vertical lines."""
+    commands = [
+        ("FONT", (0, 0), (-1, 0), BOLD_FONT, 8.5),
+        ("FONT", (0, 1), (-1, -1), BASE_FONT, 8.5),
+        ("TEXTCOLOR", (0, 0), (-1, -1), INK),
+        ("LINEBELOW", (0, 0), (-1, 0), 0.8, INK),
+        ("LINEBELOW", (0, -1), (-1, -1), 0.5, RULE),
+        ("ROWBACKGROUNDS", (0, 1), (-1, -1), [colors.white, PALE]),
+        ("VALIGN", (0, 0), (-1, -1), "TOP"),
+        ("TOPPADDING", (0, 0), (-1, -1), 2.5),
+        ("BOTTOMPADDING", (0, 0), (-1, -1), 2.5),
+        ("LEFTPADDING", (0, 0), (-1, -1), 4),
+        ("RIGHTPADDING", (0, 0), (-1, -1), 4),
+    ]
+    commands.extend(extra)
+    return TableStyle(commands)
+
+
+def text(value: str, style: ParagraphStyle = BODY) -> Paragraph:
+    """A paragraph of plain text (escaped: ids and messages may hold < or &)."""
+    return Paragraph(escape(str(value)), style)
+
+
+def markup(value: str, style: ParagraphStyle = BODY) -> Paragraph:
+    """A paragraph whose text is already reportlab markup (escape the parts you insert)."""
+    return Paragraph(value, style)
+
+
+def audit_date() -> str:
+    """The printed date: from SOURCE_DATE_EPOCH when set (reproducible builds), else today."""
+    epoch = os.environ.get("SOURCE_DATE_EPOCH")
+    if epoch and epoch.strip().lstrip("-").isdigit():
+        return dt.datetime.fromtimestamp(int(epoch), tz=dt.timezone.utc).date().isoformat()
+    return dt.date.today().isoformat()
+
+
+def to_latin1(value: str) -> str:
+    """What the standard PDF fonts can show: other characters become '?'."""
+    return str(value).encode("latin-1", "replace").decode("latin-1")
+
+
+class ReportDocument(BaseDocTemplate):
+    """A4 pages framed by the study name and report title above, and the audit date,
+    page number and caution line below. ``invariant=True`` keeps builds byte-identical."""
+
+    def __init__(self, target, *, study_name: str, title: str, caution: str, author: str = "calibrate"):
+        super().__init__(target, pagesize=PAGE_SIZE, leftMargin=MARGIN, rightMargin=MARGIN,
+                         topMargin=MARGIN + 6 * mm, bottomMargin=MARGIN + 10 * mm,
+                         title=to_latin1(title), author=author, subject=to_latin1(study_name),
+                         creator="calibrate", invariant=True)
+        self.study_name = to_latin1(study_name)
+        self.report_title = to_latin1(title)
+        self.caution = caution
+        self.date = audit_date()
+        frame = Frame(self.leftMargin, self.bottomMargin, self.width, self.height, id="body",
+                      leftPadding=0, rightPadding=0, topPadding=0, bottomPadding=0)
+        self.addPageTemplates([PageTemplate(id="page", frames=[frame], onPage=self._frame)])
+
+    def _frame(self, canvas, doc) -> None:
+        width, height = PAGE_SIZE
+        canvas.saveState()
+        top = height - MARGIN
+        canvas.setFont(BOLD_FONT, 8)
+        canvas.setFillColor(INK)
+        canvas.drawString(MARGIN, top, _clip(self.study_name, 80))
+        canvas.setFont(BASE_FONT, 8)
+        canvas.setFillColor(MUTED)
+        canvas.drawRightString(width - MARGIN, top, self.report_title)
+        canvas.setStrokeColor(RULE)
+        canvas.setLineWidth(0.6)
+        canvas.line(MARGIN, top - 3, width - MARGIN, top - 3)
+        bottom = MARGIN
+        canvas.line(MARGIN, bottom + 19, width - MARGIN, bottom + 19)
+        canvas.drawString(MARGIN, bottom + 10, f"Audit date {self.date}")
+        canvas.drawRightString(width - MARGIN, bottom + 10, f"Page {doc.page}")
+        canvas.setFont("Helvetica-Oblique", 7.5)
+        canvas.drawCentredString(width / 2, bottom, self.caution)
+        canvas.restoreState()
+
+
+def _clip(value: str, limit: int) -> str:
+    return value if len(value) <= limit else value[: limit - 3] + "..."

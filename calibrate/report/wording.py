@@ -1,0 +1,291 @@
+"""Every word the reports put on a number, in one place.
+
+Each threshold that turns a figure into words names its source, or says that it
+is our own choice. Change a band here and every report follows.
+
+Tone: the sentences are about the task (a cue, a case, the scale), never about
+the person. Feedback aimed at the self rather than the task tends to lower later
+performance (Kluger & DeNisi 1996, Psychological Bulletin 119:254-284; from memory).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+# --------------------------------------------------------------------- bands
+
+
+@dataclass(frozen=True)
+class Band:
+    """A half-open band ``low <= value < high`` and the words for it."""
+
+    low: float
+    high: float
+    words: str
+
+
+@dataclass(frozen=True)
+class Scale:
+    """Ordered bands for one kind of figure, with where the cut points come from."""
+
+    name: str
+    bands: tuple[Band, ...]
+    source: str
+
+    def words(self, value: float | None) -> str | None:
+        if value is None:
+            return None
+        for band in self.bands:
+            if band.low <= value < band.high:
+                return band.words
+        return self.bands[-1].words if value >= self.bands[-1].high else self.bands[0].words
+
+
+INF = float("inf")
+
+# Koo & Li (2016), J. Chiropractic Medicine 15:155-163: ICC below .50 poor, .50-.75
+# moderate, .75-.90 good, above .90 excellent (from memory).
+ICC_BANDS = Scale("ICC", (
+    Band(-INF, 0.50, "poor"),
+    Band(0.50, 0.75, "moderate"),
+    Band(0.75, 0.90, "good"),
+    Band(0.90, INF, "excellent"),
+), "Koo & Li (2016), guideline for ICC (from memory)")
+
+# Krippendorff (2004), Content Analysis, 2nd ed., p. 241: rely on alpha >= .800; .667
+# to .800 only for tentative conclusions (from memory).
+ALPHA_BANDS = Scale("Krippendorff's alpha", (
+    Band(-INF, 0.667, "too low to rely on"),
+    Band(0.667, 0.800, "enough only for tentative conclusions"),
+    Band(0.800, INF, "reliable"),
+), "Krippendorff (2004), p. 241 (from memory)")
+
+# Consistency R_s and test-retest r: our own choice. The .70 line matches the
+# 'inconsistent' flag of calibrate.policy and calibrate.consistency; .80 is near the
+# mean R_s of expert judges reported by Karelaia & Hogarth (2008) (from memory).
+CONSISTENCY_BANDS = Scale("consistency", (
+    Band(-INF, 0.70, "follow the cues less closely than is usual"),
+    Band(0.70, 0.80, "follow the cues fairly closely"),
+    Band(0.80, 0.90, "follow the cues closely"),
+    Band(0.90, INF, "follow the cues very closely"),
+), "our own choice (the .70 line is the tool's flag for low consistency)")
+
+RETEST_BANDS = Scale("test-retest", (
+    Band(-INF, 0.70, "often differed the second time"),
+    Band(0.70, 0.85, "were mostly repeated"),
+    Band(0.85, INF, "were repeated closely"),
+), "our own choice (the .70 line is the tool's flag for low test-retest)")
+
+# Misallocation = 1/2 sum |share - rubric share|: 0 means the rubric's weights exactly,
+# 1 means all weight on cues the rubric ignores. Bands: our own choice.
+MISALLOCATION_BANDS = Scale("misallocation", (
+    Band(-INF, 0.10, "sits close to the rubric"),
+    Band(0.10, 0.25, "differs from the rubric on some cues"),
+    Band(0.25, INF, "differs clearly from the rubric"),
+), "our own choice")
+
+# Matching G (correlation between two linear models' predictions): our own choice.
+MATCH_BANDS = Scale("G", (
+    Band(-INF, 0.70, "rank files differently"),
+    Band(0.70, 0.90, "rank files similarly"),
+    Band(0.90, INF, "rank files almost the same way"),
+), "our own choice")
+
+# Range use: the rater's SD of judgments over the panel's. Our own choice.
+RANGE_BANDS = Scale("range use", (
+    Band(-INF, 0.75, "a narrower part of the scale than the panel"),
+    Band(0.75, 1.25, "about as much of the scale as the panel"),
+    Band(1.25, INF, "a wider part of the scale than the panel"),
+), "our own choice")
+
+# Peers are shown only as an anonymous distribution and only from this many raters
+# up: with fewer, a median can reveal a colleague's figure. Our own rule (DESIGN.md).
+MIN_PANEL_FOR_PEERS = 5
+# A group's pooled policy is shown to a member only when the group has this many
+# raters: a group of two would show the other member's weights. Our own rule.
+MIN_GROUP_FOR_PEERS = 3
+
+# ------------------------------------------------------------------ readings
+
+
+def fmt(value: float | None, digits: int = 2) -> str:
+    """A figure as printed: fixed decimals, a true minus sign avoided (Latin-1 fonts)."""
+    if value is None:
+        return "n/a"
+    text = f"{value:.{digits}f}"
+    if text.startswith("-") and float(text) == 0:
+        text = text[1:]
+    return text
+
+
+def consistency_reading(r_s: float | None) -> str:
+    words = CONSISTENCY_BANDS.words(r_s)
+    if words is None:
+        return "Not available for this study."
+    return f"Your judgments {words}: a single weighted rule of the cues reproduces them to R_s = {fmt(r_s)}."
+
+
+def retest_reading(r: float | None, n_pairs: int | None) -> str:
+    words = RETEST_BANDS.words(r)
+    if words is None:
+        return "No case was shown to you twice, so test-retest is not available."
+    pairs = f" over {n_pairs} repeated cases" if n_pairs else ""
+    return f"Judgments on cases seen twice {words}{pairs}."
+
+
+def severity_reading(offset: float | None, se: float | None, flags=()) -> str:
+    if offset is None:
+        return "Not available for this study."
+    if "lenient" in flags:
+        return "Your judgments run higher than the panel's on the same cases."
+    if "severe" in flags or "strict" in flags:
+        return "Your judgments run lower than the panel's on the same cases."
+    if se is not None and se > 0 and abs(offset) < 2 * se:
+        return "Your judgments sit about at the panel's level on the same cases."
+    side = "higher" if offset > 0 else "lower"
+    return f"Your judgments run somewhat {side} than the panel's on the same cases."
+
+
+def alignment_reading(misallocation: float | None, most_over: str | None,
+                      most_under: str | None) -> str:
+    words = MISALLOCATION_BANDS.words(misallocation)
+    if words is None:
+        return "No rubric was given, so alignment is not available."
+    parts = [f"The weight you give the cues is {words}."]
+    if misallocation is not None and misallocation >= MISALLOCATION_BANDS.bands[1].low:
+        if most_over:
+            parts.append(f"Most extra weight: {most_over}.")
+        if most_under:
+            parts.append(f"Most missing weight: {most_under}.")
+    return " ".join(parts)
+
+
+def drift_reading(drift: dict | None) -> str:
+    if not drift:
+        return "No reading order was recorded, so drift is not available."
+    if drift.get("flagged"):
+        slope = drift.get("slope")
+        if isinstance(slope, (int, float)) and slope < 0:
+            return "Judgments became lower as the reading went on."
+        if isinstance(slope, (int, float)) and slope > 0:
+            return "Judgments became higher as the reading went on."
+        return "The way cases were judged changed over the reading order."
+    return "Judgments stayed steady over the reading order."
+
+
+def icc_reading(value: float | None) -> str:
+    words = ICC_BANDS.words(value)
+    return "not available" if words is None else words
+
+
+def agreement_reading(r: float | None) -> str:
+    words = MATCH_BANDS.words(r)
+    if words is None:
+        return "Not available for this study."
+    return f"On the cases you shared with colleagues, you and the panel {words}."
+
+
+# --------------------------------------------------------------- context values
+
+
+@dataclass(frozen=True)
+class Context:
+    figure: str
+    value: str
+    source: str
+
+
+# From REFERENCE-DATA.md; the first is marked from memory there and stays so here.
+PUBLISHED_CONTEXT = (
+    Context("consistency R_s of judges", "about .80 on average",
+            "Karelaia & Hogarth (2008), Psychological Bulletin 134:404-426, meta-analysis "
+            "of 249 judgment tasks (figures from memory)"),
+    Context("test-retest of judgments in policy capturing", "about .78 on average",
+            "Zhu, Tomassetti, Dalal et al. (2022), Organizational Research Methods "
+            "25:541-574 (from the abstract)"),
+    Context("the model of the judge against the judge", "the model did better in most studies",
+            "Karelaia & Hogarth (2008) (from memory); Goldberg (1970)"),
+)
+
+# ------------------------------------------------------------------- cautions
+
+CAUTION_LINE = ("A statistical description of judgments on a sample of cases, not a verdict "
+                "on a person.")
+
+CAUTIONS = (
+    "These figures describe patterns in judgments on a sample of cases. They are not a "
+    "verdict on anyone's ability or character.",
+    "Weights estimated from a modest number of cases are unstable: a cue's weight can move "
+    "noticeably with a different set of cases. Read the intervals, not just the estimates.",
+    "A statistical association with a cue or an attribute does not show why a judgment "
+    "was made.",
+    "Decisions about people follow the institution's own policies and the applicable law, "
+    "not these figures alone.",
+)
+
+LENS_SELECTED_CAUTION = (
+    "The outcome was recorded only for selected cases (those admitted on these judgments), "
+    "so the lens figures are biased and are best read as a rough guide.")
+
+# ------------------------------------------------------------------- glossary
+
+GLOSSARY = {
+    "cue": "A piece of information about a case that a judgment can use (for example a grade).",
+    "policy": "The weighted rule of the cues that best reproduces a set of judgments "
+              "(a linear regression of the judgments on the cues).",
+    "weight share": "A cue's part of the total weight in the policy; the shares add up to 1.",
+    "R_s (consistency)": "How closely the judgments follow their own policy: the correlation "
+                         "between the judgments and the policy's predictions (0 to 1).",
+    "test-retest r": "The correlation between the first and second judgments of cases shown "
+                     "twice.",
+    "sqrt(r_tt)": "The square root of test-retest r: in the population, R_s cannot exceed it; "
+                  "in a small sample it is a guide, not a hard limit.",
+    "severity offset": "How much higher (positive) or lower (negative) judgments run than the "
+                       "panel's on the same cases, on the judgment scale.",
+    "range use": "How much of the judgment scale is used, compared with the panel.",
+    "drift": "A steady change in judgments over the reading order.",
+    "rubric": "The weights the institution intends the cues to have.",
+    "misallocation": "Half the summed differences between the policy's weight shares and the "
+                     "rubric's: 0 when they match, 1 when they share nothing.",
+    "G": "Matching: the correlation between the predictions of two linear models, such as "
+         "a policy and the rubric, or a policy and the outcome's model.",
+    "C": "The correlation between the parts of the judgments and of the outcome that the "
+         "linear models leave unexplained.",
+    "r_a": "Achievement: the correlation between the judgments and the outcome.",
+    "R_e": "How well the cues predict the outcome with the best linear rule.",
+    "group": "Raters whose policies are similar enough to share one rule without losing much fit.",
+    "ICC": "Intraclass correlation: agreement between raters on the same cases (0 to 1).",
+    "Krippendorff's alpha": "Agreement among raters beyond chance, allowing missing judgments.",
+    "case to look at again": "A case whose judgment is far from what the rater's own policy "
+                             "predicts for it.",
+}
+
+# ---------------------------------------------------------------------- flags
+
+# Plain words for the flag identifiers the analyses set (about the task, not the person).
+FLAG_WORDS = {
+    "too_few_cases": "too few cases to fit a policy",
+    "few_cases": "few cases per cue, so the weights are rough",
+    "not_fitted": "no policy could be fitted",
+    "collinear_cues": "some cues move together, so their separate weights are uncertain",
+    "curvature": "the judgments bend away from a straight-line rule of the cues",
+    "inconsistent": "the judgments follow the cues less closely than usual",
+    "separation": "a yes/no rule splits the cases perfectly, so odds weights are unbounded",
+    "low_retest": "repeated cases were often judged differently the second time",
+    "lenient": "judgments run higher than the panel's on the same cases",
+    "severe": "judgments run lower than the panel's on the same cases",
+    "narrow_range": "a narrow part of the scale is used",
+    "wide_range": "a wide part of the scale is used",
+    "central_tendency": "many judgments sit in the middle of the scale",
+    "drift": "judgments changed over the reading order",
+    "excluded_attribute": "judgments are associated with an attribute that must not count",
+}
+
+
+def flag_words(flag: str) -> str:
+    return FLAG_WORDS.get(flag, flag.replace("_", " "))
+
+
+def to_text(value) -> str:
+    """A value as the standard PDF fonts can show it (other characters become '?')."""
+    return str(value).encode("latin-1", "replace").decode("latin-1")
