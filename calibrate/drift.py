@@ -34,7 +34,7 @@ from ._results import ResultMixin
 from ._judgment_rows import JudgmentRows, RaterLookup, holm_adjust, line_up
 from .cues import CueDesign
 from .errors import DataError, DataProblem
-from .linalg import grouped_sscp, ols_from_sscp
+from .linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
 
 DRIFT_FLAG = "drift"
 DRIFT_METHOD = (
@@ -142,31 +142,64 @@ def _half_of_each_row(rater: np.ndarray, position: np.ndarray, n_raters: int) ->
     return (rank >= (counts[rater] + 1) // 2).astype(np.intp)
 
 
-def _half_r_s(Z: np.ndarray, cell: np.ndarray, n_cells: int, p: int) -> np.ndarray:
-    """R_s of the judgment (last column of Z) on the p cues, per cell."""
-    fit = ols_from_sscp(grouped_sscp(Z, cell, n_cells), np.arange(p), p)
+def _r_s_from(stats: GroupedSSCP, p: int) -> np.ndarray:
+    """R_s of the judgment (column p) on the p cues, per group."""
+    fit = ols_from_sscp(stats, np.arange(p), p)
     with np.errstate(invalid="ignore"):
         return np.where(fit.rank_ok & (fit.tss > 0), np.sqrt(np.clip(fit.r2, 0.0, 1.0)),
                         np.nan)
 
 
-def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk=100):
+def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk=50):
     """Percentile interval of R_s(second) - R_s(first) per rater, cases resampled per half.
 
-    Rows are put in reading order within each half first, so the draws do not
-    depend on the row order of the input table.
+    Each half (cell) is resampled with replacement to its own size. The resampled
+    sums of squares and cross-products come from one batched matrix product of
+    the draw counts with the per-row moments, with rows centred at their cell's
+    mean first so that no digits are lost. Rows are put in reading order within
+    each half, so the draws do not depend on the row order of the input table.
     """
     order = np.lexsort((position, cell))
     Z, cell = Z[order], cell[order]
+    k = Z.shape[1]
     sizes = np.bincount(cell, minlength=n_cells)
     starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    slot = np.arange(cell.size) - starts[cell]
+    longest = max(int(sizes.max()), 1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        centre = np.stack([np.bincount(cell, weights=Z[:, j], minlength=n_cells)
+                           for j in range(k)], axis=1) / sizes[:, None]
+    Zc = Z - centre[cell]
+    upper_i, upper_j = np.triu_indices(k)
+    moments = np.zeros((n_cells, longest, k + upper_i.size))
+    moments[cell, slot, :k] = Zc
+    moments[cell, slot, k:] = Zc[:, upper_i] * Zc[:, upper_j]
+    in_cell = np.arange(longest)[None, :] < sizes[:, None]          # (cells, longest)
+    last = np.maximum(sizes - 1, 0)[None, :, None]
     diffs = []
-    for first in range(0, n_resamples, chunk):
-        B = min(chunk, n_resamples - first)
-        u = rng.random((B, cell.size))
-        picked = starts[cell] + np.minimum((u * sizes[cell]).astype(np.intp), sizes[cell] - 1)
-        cells = (np.arange(B)[:, None] * n_cells + cell[None, :]).ravel()
-        r_s = _half_r_s(Z[picked.ravel()], cells, B * n_cells, p).reshape(B, n_cells // 2, 2)
+    for done in range(0, n_resamples, chunk):
+        B = min(chunk, n_resamples - done)
+        drawn = np.minimum((rng.random((B, n_cells, longest)) * sizes[None, :, None])
+                           .astype(np.intp), last)
+        base = (np.arange(B)[:, None, None] * n_cells + np.arange(n_cells)[None, :, None]) * longest
+        flat = (base + drawn)[np.broadcast_to(in_cell, drawn.shape)]
+        counts = np.bincount(flat, minlength=B * n_cells * longest).reshape(B, n_cells, longest)
+        summed = np.matmul(counts.transpose(1, 0, 2).astype(float), moments)  # (cells, B, m)
+        n = np.broadcast_to(sizes[:, None].astype(float), (n_cells, B))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift = summed[..., :k] / n[..., None]
+        sscp = np.empty((n_cells, B, k, k))
+        products = summed[..., k:] - n[..., None] * shift[..., upper_i] * shift[..., upper_j]
+        sscp[..., upper_i, upper_j] = products
+        sscp[..., upper_j, upper_i] = products
+        # A resample that repeats one row has exactly zero spread; keep rounding from
+        # turning that into a negative sum of squares.
+        diagonal = np.arange(k)
+        sscp[..., diagonal, diagonal] = np.maximum(sscp[..., diagonal, diagonal], 0.0)
+        stats = GroupedSSCP(n=n.T.ravel(), mean=(centre[:, None, :] + shift).transpose(1, 0, 2)
+                            .reshape(B * n_cells, k), sscp=sscp.transpose(1, 0, 2, 3)
+                            .reshape(B * n_cells, k, k))
+        r_s = _r_s_from(stats, p).reshape(B, n_cells // 2, 2)
         diffs.append(r_s[:, :, 1] - r_s[:, :, 0])
     diffs = np.concatenate(diffs)
     with warnings.catch_warnings():
@@ -285,7 +318,7 @@ def drift(
     half = _half_of_each_row(g, t, K)
     cell = 2 * g + half
     Zh = np.column_stack([X, y])
-    r_s = _half_r_s(Zh, cell, 2 * K, p).reshape(K, 2)
+    r_s = _r_s_from(grouped_sscp(Zh, cell, 2 * K), p).reshape(K, 2)
     n_half = np.bincount(cell, minlength=2 * K).reshape(K, 2)
     ci_change = (np.full(K, np.nan), np.full(K, np.nan))
     if n_resamples > 0:
