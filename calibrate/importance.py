@@ -44,19 +44,18 @@ from .errors import CalibrateError
 MAX_DOMINANCE_CUES = 12
 
 
-def _solve_quadratic_form(corr_xx: np.ndarray, corr_xy: np.ndarray) -> np.ndarray:
-    """``r' R^{-1} r`` for stacked systems: corr_xx (N, s, s), corr_xy (N, R, s) -> (N, R).
+def r2_from_correlations(corr_xx: np.ndarray, corr_xy: np.ndarray) -> np.ndarray:
+    """``r' R^{-1} r`` for stacked systems: corr_xx (N, s, s), corr_xy (N, s, R) -> (N, R).
 
     A singular block (a column constant in one resample) falls back to the
     pseudo-inverse, which still gives the right R^2 of the projection onto the
     span of the columns.
     """
-    rhs = np.swapaxes(corr_xy, 1, 2)
     try:
-        solution = np.linalg.solve(corr_xx, rhs)
+        solution = np.linalg.solve(corr_xx, corr_xy)
     except np.linalg.LinAlgError:
-        solution = np.linalg.pinv(corr_xx, hermitian=True) @ rhs
-    return np.einsum("nrs,nsr->nr", corr_xy, solution)
+        solution = np.linalg.pinv(corr_xx, hermitian=True) @ corr_xy
+    return (corr_xy * solution).sum(axis=1)
 
 
 def subset_r2(
@@ -67,7 +66,7 @@ def subset_r2(
     Parameters
     ----------
     corr_xx : (N, p, p) correlation matrices of the design columns.
-    corr_xy : (N, R, p) correlations of R responses with the design columns
+    corr_xy : (N, p, R) correlations of the design columns with R responses
         (R responses share each predictor matrix: raters who saw the same cases).
     cue_groups : design-column indices per cue; a cue's columns move together.
 
@@ -78,18 +77,19 @@ def subset_r2(
 
     .. math:: R^2(S) = r_S^\\top R_{SS}^{-1} r_S
     """
-    n_cues = len(cue_groups)
-    N, R, _ = corr_xy.shape
-    out = np.zeros((N, R, 2**n_cues))
-    for mask in range(1, 2**n_cues):
-        cols = [c for j in range(n_cues) if mask >> j & 1 for c in cue_groups[j]]
-        if not cols:
-            continue
-        idx = np.asarray(cols)
-        out[:, :, mask] = _solve_quadratic_form(
-            corr_xx[:, idx[:, None], idx[None, :]], corr_xy[:, :, idx]
-        )
-    return out
+    N, _, R = corr_xy.shape
+    out = np.zeros((N, 2 ** len(cue_groups), R))
+    for mask in range(1, 2 ** len(cue_groups)):
+        out[:, mask, :] = _mask_r2(corr_xx, corr_xy, cue_groups, mask)
+    return np.swapaxes(out, 1, 2)
+
+
+def _mask_r2(corr_xx, corr_xy, cue_groups, mask: int) -> np.ndarray:
+    cols = [c for j, group in enumerate(cue_groups) if mask >> j & 1 for c in group]
+    if not cols:
+        return np.zeros((corr_xy.shape[0], corr_xy.shape[2]))
+    idx = np.asarray(cols)
+    return r2_from_correlations(corr_xx[:, idx[:, None], idx[None, :]], corr_xy[:, idx, :])
 
 
 @lru_cache(maxsize=None)
@@ -123,7 +123,17 @@ def dominance_weights(
 
     See :func:`subset_r2` for the arguments.
     """
-    return subset_r2(corr_xx, corr_xy, cue_groups) @ dominance_matrix(len(cue_groups))
+    n_cues = len(cue_groups)
+    weights = dominance_matrix(n_cues)
+    N, _, R = corr_xy.shape
+    out = np.zeros((N, R, n_cues))
+    # Accumulate a few subsets at a time, so memory grows with k, not with 2**k.
+    masks = np.arange(1, 2**n_cues)
+    for start in range(0, masks.size, 16):
+        chunk = masks[start:start + 16]
+        r2 = np.stack([_mask_r2(corr_xx, corr_xy, cue_groups, int(m)) for m in chunk], axis=-1)
+        out += r2 @ weights[chunk]
+    return out
 
 
 def relative_weights(
@@ -145,8 +155,8 @@ def relative_weights(
         inv_root = np.einsum(
             "nij,nj,nkj->nik", evecs, np.where(evals > 0, 1.0 / np.sqrt(evals), 0.0), evecs
         )
-    beta = np.einsum("nij,nrj->nri", inv_root, corr_xy)
-    per_column = np.einsum("njk,nrk->nrj", root**2, beta**2)
+    beta = inv_root @ corr_xy  # (N, p, R)
+    per_column = np.swapaxes((root**2) @ (beta**2), 1, 2)  # (N, R, p)
     return np.stack([per_column[:, :, g].sum(axis=2) for g in cue_groups], axis=2)
 
 

@@ -29,8 +29,8 @@ Flags (fixed identifiers):
 ``inconsistent``
     The upper end of the rater's interval for R_s is below ``inconsistent_below``
     (default 0.70), or, in a panel of at least five fitted raters, below the
-    panel's median R_s: the data rule out the rater being as consistent as the
-    typical panel member. The bound 0.70 is our own choice, set under the mean
+    median of the other raters' lower ends: the rater's interval lies wholly
+    under that of a typical panel member. The bound 0.70 is our own choice, set under the mean
     R_s of about .80 reported across 249 judgment tasks by Karelaia & Hogarth
     (2008) (figure from memory).
 ``separation``
@@ -59,14 +59,20 @@ from . import diagnostics as dg
 from ._results import ResultMixin, jsonable
 from .cues import CueDesign
 from .errors import CalibrateError, DataError, DataProblem
-from .importance import cue_importance, importance_shares, relative_weights
+from .importance import (
+    MAX_DOMINANCE_CUES,
+    cue_importance,
+    importance_shares,
+    r2_from_correlations,
+    relative_weights,
+)
 from .linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
 
 POLICIES_SCHEMA = "calibrate.policies/1"
 SCALES = ("continuous", "ordinal", "binary")
 N_LOOK_AGAIN = 5
 #: Bound the float count of one bootstrap chunk (resamples x raters x subsets).
-_CHUNK_ELEMENTS = 4_000_000
+_CHUNK_ELEMENTS = 16_000_000
 
 
 # --------------------------------------------------------------------------- results
@@ -315,53 +321,106 @@ def _column_quantiles(values: np.ndarray, n_finite: np.ndarray, level: np.ndarra
 # --------------------------------------------------------------------------- resampled fits
 
 
-def _weighted_r2_and_importance(
-    X: np.ndarray,
-    Y: np.ndarray,
-    counts: np.ndarray,
-    cue_groups: list[list[int]],
-    method: str,
-) -> tuple[np.ndarray, np.ndarray]:
-    """R^2 and importance (R^2 units) of every response in every count vector.
+def _weighted_correlations(
+    X: np.ndarray, Y: np.ndarray, counts: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Correlations of cues and judgments under each vector of case counts.
 
-    X (n, p) is shared by the R responses in Y (n, R); counts (B, n) weight the
-    cases (bootstrap counts, or jackknife vectors of ones with one zero). Returns
-    r2 (B, R) and importance (B, R, k); NaN where a resample leaves a cue or the
-    judgments constant. Raters are processed in chunks to bound memory.
+    X (n, p) is shared by the R raters whose judgments are the columns of Y
+    (n, R); counts (N, n) weight the cases (bootstrap counts, or jackknife
+    vectors of ones with one zero). Returns corr_xx (N, p, p), corr_xy
+    (N, p, R) and ``bad`` (N, R): a resample that leaves a cue or the judgments
+    constant. Cross-products are taken about the full-sample means, so the
+    correction for the resample mean stays small.
     """
     n, p = X.shape
-    B = counts.shape[0]
+    N = counts.shape[0]
     total = counts.sum(axis=1)
     Xc = X - X.mean(axis=0)
+    Yc = Y - Y.mean(axis=0)
     x_mean = counts @ Xc / total[:, None]
-    cross = (counts @ (Xc[:, :, None] * Xc[:, None, :]).reshape(n, p * p)).reshape(B, p, p)
-    Sxx = cross - total[:, None, None] * x_mean[:, :, None] * x_mean[:, None, :]
-    dx = np.sqrt(np.clip(np.einsum("bii->bi", Sxx), 0.0, None))
+    y_mean = counts @ Yc / total[:, None]
+    Sxx = (counts @ (Xc[:, :, None] * Xc[:, None, :]).reshape(n, p * p)).reshape(N, p, p)
+    Sxx -= total[:, None, None] * x_mean[:, :, None] * x_mean[:, None, :]
+    Sxy = ((counts[:, None, :] * Xc.T[None]).reshape(N * p, n) @ Yc).reshape(N, p, -1)
+    Sxy -= total[:, None, None] * x_mean[:, :, None] * y_mean[:, None, :]
+    Syy = counts @ Yc**2 - total[:, None] * y_mean**2
+    dx = np.sqrt(np.clip(np.einsum("nii->ni", Sxx), 0.0, None))
     x_bad = np.any(dx**2 <= 1e-10 * (Xc**2).sum(axis=0), axis=1)
-    dx_safe = np.where(dx > 0, dx, 1.0)
-    corr_xx = Sxx / (dx_safe[:, :, None] * dx_safe[:, None, :])
+    y_bad = Syy <= 1e-10 * (Yc**2).sum(axis=0)
+    dx = np.where(dx > 0, dx, 1.0)
+    dy = np.sqrt(np.where(y_bad, 1.0, Syy))
+    corr_xx = Sxx / (dx[:, :, None] * dx[:, None, :])
     corr_xx[x_bad] = np.eye(p)
-    n_subsets = 2 ** len(cue_groups) if method == "dominance" else len(cue_groups)
-    chunk = max(1, _CHUNK_ELEMENTS // (B * max(n_subsets, p)))
-    r2 = np.empty((B, Y.shape[1]))
-    imp = np.empty((B, Y.shape[1], len(cue_groups)))
-    for start in range(0, Y.shape[1], chunk):
-        part = slice(start, start + chunk)
-        Yc = Y[:, part] - Y[:, part].mean(axis=0)
-        y_mean = counts @ Yc / total[:, None]
-        Sxy = np.stack([(counts * Xc[:, j]) @ Yc for j in range(p)], axis=2)
-        Sxy -= total[:, None, None] * y_mean[:, :, None] * x_mean[:, None, :]
-        Syy = counts @ Yc**2 - total[:, None] * y_mean**2
-        y_bad = Syy <= 1e-10 * (Yc**2).sum(axis=0)
-        dy = np.sqrt(np.where(y_bad, 1.0, Syy))
-        corr_xy = Sxy / (dx_safe[:, None, :] * dy[:, :, None])
-        r2_part = np.einsum("brj,brj->br", corr_xy, np.swapaxes(
-            np.linalg.solve(corr_xx, np.swapaxes(corr_xy, 1, 2)), 1, 2))
-        imp_part, _ = cue_importance(corr_xx, corr_xy, cue_groups, method=method)
-        bad = y_bad | x_bad[:, None]
-        r2[:, part] = np.where(bad, np.nan, np.clip(r2_part, 0.0, 1.0))
-        imp[:, part] = np.where(bad[:, :, None], np.nan, imp_part)
-    return r2, imp
+    corr_xy = Sxy / (dx[:, :, None] * dy[:, None, :])
+    return corr_xx, corr_xy, y_bad | x_bad[:, None]
+
+
+@dataclass
+class _ResampleUnit:
+    """Raters who saw the same cases, with the bootstrap and jackknife count vectors."""
+
+    raters: np.ndarray     # indices into the full rater arrays
+    raters_local: np.ndarray  # indices into the pattern's arrays (r2, imp)
+    X: np.ndarray
+    Y: np.ndarray
+    counts: np.ndarray     # (n_boot + n, n): bootstrap rows, then jackknife rows
+    n_boot: int
+
+
+def _resampled_intervals(units: list[_ResampleUnit], cue_groups, cue_cols, A: _Arrays, *,
+                         alpha: float, method: str, r2: np.ndarray, imp: np.ndarray) -> None:
+    """BCa intervals for R_s and importance shares of every unit's raters.
+
+    Units with the same number of raters are stacked along the resample axis,
+    so many small blocks (raters who each saw their own cases) are solved in a
+    few large batched calls instead of one call per rater.
+    """
+    n_terms = 16 + len(cue_groups)
+    by_width: dict[int, list[_ResampleUnit]] = {}
+    for unit in units:
+        by_width.setdefault(unit.Y.shape[1], []).append(unit)
+    for width, members in sorted(by_width.items()):
+        batch, size = [], 0
+        for unit in members:
+            batch.append(unit)
+            size += unit.counts.shape[0] * width * n_terms
+            if size >= _CHUNK_ELEMENTS:
+                _intervals_for_batch(batch, cue_groups, cue_cols, A, alpha=alpha, method=method,
+                                     r2=r2, imp=imp)
+                batch, size = [], 0
+        if batch:
+            _intervals_for_batch(batch, cue_groups, cue_cols, A, alpha=alpha, method=method,
+                                 r2=r2, imp=imp)
+
+
+def _intervals_for_batch(batch, cue_groups, cue_cols, A: _Arrays, *, alpha, method, r2, imp):
+    parts = [_weighted_correlations(u.X, u.Y, u.counts) for u in batch]
+    corr_xx = np.concatenate([c[0] for c in parts])
+    corr_xy = np.concatenate([c[1] for c in parts])
+    bad = np.concatenate([c[2] for c in parts])
+    all_r2 = r2_from_correlations(corr_xx, corr_xy)
+    all_imp, _ = cue_importance(corr_xx, corr_xy, cue_groups, method=method)
+    all_r2 = np.where(bad, np.nan, np.clip(all_r2, 0.0, 1.0))
+    all_imp = np.where(bad[:, :, None], np.nan, all_imp)
+    start = 0
+    for unit in batch:
+        stop = start + unit.counts.shape[0]
+        boot = slice(start, start + unit.n_boot)
+        jack = slice(start + unit.n_boot, stop)
+        local = unit.raters_local
+        with np.errstate(invalid="ignore", divide="ignore"):
+            lo, hi = bca_interval(np.sqrt(r2[local]), np.sqrt(all_r2[boot]),
+                                  np.sqrt(all_r2[jack]), alpha=alpha)
+            shares = importance_shares(all_imp, all_r2)
+            share_hat = importance_shares(imp[local], r2[local]).ravel()
+        k = share_hat.size // local.size
+        s_lo, s_hi = bca_interval(share_hat, shares[boot].reshape(unit.n_boot, -1),
+                                  shares[jack].reshape(stop - start - unit.n_boot, -1), alpha=alpha)
+        A.r_lo[unit.raters], A.r_hi[unit.raters] = lo, hi
+        A.imp_lo[np.ix_(unit.raters, cue_cols)] = s_lo.reshape(local.size, k)
+        A.imp_hi[np.ix_(unit.raters, cue_cols)] = s_hi.reshape(local.size, k)
+        start = stop
 
 
 # --------------------------------------------------------------------------- preparation
@@ -574,14 +633,14 @@ def fit_policies(
         arrays.notes[g].append(
             f"{rows.dropped[g]} judgment(s) left out: missing judgment or a cue with the 'drop' rule."
         )
+    method = importance_method
+    if method == "auto":
+        method = "dominance" if k <= MAX_DOMINANCE_CUES else "relative_weights"
     patterns = _column_patterns(X_all, rows, G, p)
     seeds = generator.spawn(len(patterns)) if patterns else []
     for (active, members), seed in zip(patterns, seeds):
         _fit_pattern(design, rows, X_all, np.asarray(active), members, arrays,
-                     n_boot=n_boot, rng=seed, alpha=alpha, method=importance_method)
-    method = importance_method
-    if method == "auto":
-        method = "dominance" if k <= 12 else "relative_weights"
+                     n_boot=n_boot, rng=seed, alpha=alpha, method=method)
     if scale == "binary":
         _fit_logistic(rows, X_all, arrays)
     return _assemble(design, rows, arrays, scale=scale, n_boot=n_boot, alpha=alpha,
@@ -680,7 +739,7 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
         icpt_var = fit.sigma2 * (1.0 / fit.n + np.einsum("gi,gij,gj->g", x_mean, fit.xtx_inv, x_mean))
     corr = stats.correlation()
     corr_xx = corr[:, :n_active, :n_active]
-    corr_xy = corr[:, None, n_active, :n_active]
+    corr_xy = corr[:, :n_active, n_active:]
     r2 = np.where(ok, fit.r2, np.nan)
     sdx = np.sqrt(np.einsum("gii->gi", stats.sscp)[:, :n_active])
     sdy = np.sqrt(stats.sscp[:, n_active, n_active])
@@ -697,7 +756,7 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
     A.ci_low[np.ix_(rows_g, cols)] = fit.coef - t_crit[:, None] * se
     A.ci_high[np.ix_(rows_g, cols)] = fit.coef + t_crit[:, None] * se
     A.std[np.ix_(rows_g, cols)] = fit.coef * sdx / sdy[:, None]
-    A.util[np.ix_(rows_g, cols)] = corr_xy[:, 0, :]
+    A.util[np.ix_(rows_g, cols)] = corr_xy[:, :, 0]
     A.r2[rows_g] = r2
     A.r2_adj[rows_g] = np.where(ok, fit.r2_adj, np.nan)
 
@@ -732,7 +791,7 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
                 studentized=float(influence.studentized[i]),
             ))
     if n_boot > 0 and ok.any():
-        _bootstrap_pattern(X, y, groups, members, ok, design.case_ids, rows.case_row[sel],
+        _bootstrap_pattern(X, y, groups, members, ok, rows.case_row[sel],
                            cue_groups, cue_cols, A, n_boot=n_boot, rng=rng, alpha=alpha,
                            method=method, r2=r2, imp=imp[:, 0, :])
 
@@ -742,10 +801,9 @@ def _local_cue_groups(design: CueDesign, active: np.ndarray) -> list[list[int]]:
     return [[position[j] for j in cols if j in position] for cols in design.cue_groups()]
 
 
-def _bootstrap_pattern(X, y, groups, members, ok, case_ids, case_row, cue_groups, cue_cols,
+def _bootstrap_pattern(X, y, groups, members, ok, case_row, cue_groups, cue_cols,
                        A: _Arrays, *, n_boot, rng, alpha, method, r2, imp) -> None:
-    """BCa intervals for R_s and importance shares, block by block of raters with the same cases."""
-    method = method if method != "auto" else ("dominance" if len(cue_groups) <= 12 else "relative_weights")
+    """Resample cases per block of raters who saw the same cases; one count matrix per block."""
     starts = np.r_[0, np.flatnonzero(np.diff(groups)) + 1]
     ends = np.r_[starts[1:], groups.size]
     blocks: dict[bytes, list[int]] = {}
@@ -753,27 +811,24 @@ def _bootstrap_pattern(X, y, groups, members, ok, case_ids, case_row, cue_groups
         if ok[gl]:
             blocks.setdefault(case_row[s:e].tobytes(), []).append(gl)
     block_list = list(blocks.values())
-    block_rngs = rng.spawn(len(block_list))
-    for block, block_rng in zip(block_list, block_rngs):
+    n_terms = 16 + X.shape[1]  # subsets held at once in dominance_weights, plus Sxy
+    units = []
+    for block, block_rng in zip(block_list, rng.spawn(len(block_list))):
         s0, e0 = starts[block[0]], ends[block[0]]
-        Xb = X[s0:e0]
-        Yb = np.column_stack([y[starts[g]:ends[g]] for g in block])
-        n = Xb.shape[0]
-        counts = block_rng.multinomial(n, np.full(n, 1.0 / n), size=n_boot).astype(float)
-        jack = 1.0 - np.eye(n)
-        boot_r2, boot_imp = _weighted_r2_and_importance(Xb, Yb, counts, cue_groups, method)
-        jack_r2, jack_imp = _weighted_r2_and_importance(Xb, Yb, jack, cue_groups, method)
-        with np.errstate(invalid="ignore"):
-            r_hat = np.sqrt(r2[block])
-            lo, hi = bca_interval(r_hat, np.sqrt(boot_r2), np.sqrt(jack_r2), alpha=alpha)
-            share_hat = importance_shares(imp[block], r2[block]).ravel()
-            boot_share = importance_shares(boot_imp, boot_r2).reshape(n_boot, -1)
-            jack_share = importance_shares(jack_imp, jack_r2).reshape(n, -1)
-        s_lo, s_hi = bca_interval(share_hat, boot_share, jack_share, alpha=alpha)
-        full = members[block]
-        A.r_lo[full], A.r_hi[full] = lo, hi
-        A.imp_lo[np.ix_(full, cue_cols)] = s_lo.reshape(len(block), -1)
-        A.imp_hi[np.ix_(full, cue_cols)] = s_hi.reshape(len(block), -1)
+        n = e0 - s0
+        draws = block_rng.integers(0, n, size=(n_boot, n)) + n * np.arange(n_boot)[:, None]
+        counts = np.vstack([
+            np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n).astype(float),
+            1.0 - np.eye(n),
+        ])
+        width = max(1, _CHUNK_ELEMENTS // (counts.shape[0] * n_terms))
+        for first in range(0, len(block), width):
+            local = np.array(block[first:first + width])
+            Y = np.column_stack([y[starts[g]:ends[g]] for g in local])
+            units.append(_ResampleUnit(raters=members[local], raters_local=local,
+                                       X=X[s0:e0], Y=Y, counts=counts, n_boot=n_boot))
+    _resampled_intervals(units, cue_groups, cue_cols, A, alpha=alpha, method=method,
+                         r2=r2, imp=imp)
 
 
 def _fit_logistic(rows: _Rows, X_all, arrays: _Arrays) -> None:
@@ -826,8 +881,7 @@ def _assemble(design: CueDesign, rows: _Rows, A: _Arrays, *, scale, n_boot, alph
         structure = A.util / r[:, None]
         per_weight = A.n / np.maximum(np.isfinite(A.coef).sum(axis=1), 1)
         gvif_scaled = A.gvif ** (1.0 / np.array([max(len(g), 1) for g in design.cue_groups()]))
-    finite_r = r[np.isfinite(r)]
-    panel_median = float(np.median(finite_r)) if finite_r.size >= 5 else np.nan
+    typical_low = _typical_lower_end_of_others(A.r_lo)
     policies = []
     for g, rater in enumerate(rows.raters):
         flags, notes = [], list(A.notes[g])
@@ -853,13 +907,13 @@ def _assemble(design: CueDesign, rows: _Rows, A: _Arrays, *, scale, n_boot, alph
                     f"p = {reset_adj[g]:.3g} after Holm adjustment across raters)."
                 )
             upper = A.r_hi[g]
-            if upper < inconsistent_below or upper < panel_median:
+            if upper < inconsistent_below or upper < typical_low[g]:
                 flags.append("inconsistent")
                 notes.append(
                     f"R_s = {r[g]:.2f}, interval up to {upper:.2f}: below "
                     + (f"{inconsistent_below:.2f}" if upper < inconsistent_below
-                       else f"the panel median {panel_median:.2f}")
-                    + "; the same cues get noticeably different judgments."
+                       else f"the typical panel member's interval (from {typical_low[g]:.2f})")
+                    + "; similar cases get noticeably different judgments."
                 )
         if A.lg_separation[g]:
             flags.append("separation")
@@ -898,6 +952,27 @@ def _assemble(design: CueDesign, rows: _Rows, A: _Arrays, *, scale, n_boot, alph
     return PolicySet(raters=tuple(policies), columns=columns,
                      cue_of_column=design.cue_of_column, cues=cues, scale=scale,
                      n_boot=n_boot, alpha=alpha, warnings=panel_notes)
+
+
+def _typical_lower_end_of_others(lower: np.ndarray) -> np.ndarray:
+    """Per rater, the median lower interval end of the other fitted raters (NaN under 5)."""
+    out = np.full(lower.shape, np.nan)
+    finite = np.flatnonzero(np.isfinite(lower))
+    if finite.size < 5:
+        return out
+    order = finite[np.argsort(lower[finite], kind="stable")]
+    values = lower[order]
+    rank = np.arange(order.size)
+    m = order.size - 1  # size of "the others"
+
+    def reduced(j):  # j-th smallest of the others, for every left-out rank at once
+        return np.where(j < rank, values[np.minimum(j, m)], values[np.minimum(j + 1, m)])
+
+    if m % 2:
+        out[order] = reduced(m // 2)
+    else:
+        out[order] = 0.5 * (reduced(m // 2 - 1) + reduced(m // 2))
+    return out
 
 
 def _named(names, values) -> dict[str, float]:

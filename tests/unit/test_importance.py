@@ -19,8 +19,10 @@ from calibrate.errors import CalibrateError
 from calibrate.importance import (
     MAX_DOMINANCE_CUES,
     cue_importance,
+    dominance_matrix,
     dominance_weights,
     relative_weights,
+    subset_r2,
 )
 from calibrate.policy import fit_policies
 from tests.policy_panels import independent_cue_panel, mixed_panel, rater_matrix
@@ -78,7 +80,7 @@ def test_relative_weights_sum_to_r2_and_track_dominance():
 def test_relative_weights_equal_squared_correlations_for_orthogonal_cues():
     # Exact identity: with uncorrelated cues each weight is r(y, x_j)^2.
     corr_xx = np.eye(3)[None]
-    corr_xy = np.array([[[0.5, -0.3, 0.1]]])
+    corr_xy = np.array([[[0.5], [-0.3], [0.1]]])  # (N, p, R)
     np.testing.assert_allclose(relative_weights(corr_xx, corr_xy, [[0], [1], [2]])[0, 0],
                                [0.25, 0.09, 0.01], rtol=1e-12)
     np.testing.assert_allclose(dominance_weights(corr_xx, corr_xy, [[0], [1], [2]])[0, 0],
@@ -100,7 +102,7 @@ def test_auto_switches_to_relative_weights_beyond_the_limit():
     A = rng.normal(size=(200, k))
     corr = np.corrcoef(np.column_stack([A, A @ rng.normal(size=k) + rng.normal(size=200)]),
                        rowvar=False)
-    values, method = cue_importance(corr[None, :k, :k], corr[None, None, k, :k],
+    values, method = cue_importance(corr[None, :k, :k], corr[None, :k, k:],
                                     [[j] for j in range(k)])
     assert method == "relative_weights"
     r2 = corr[k, :k] @ np.linalg.solve(corr[:k, :k], corr[:k, k])
@@ -109,4 +111,19 @@ def test_auto_switches_to_relative_weights_beyond_the_limit():
 
 def test_unknown_method_is_a_clear_error():
     with pytest.raises(CalibrateError, match="'method' option of cue_importance"):
-        cue_importance(np.eye(2)[None], np.zeros((1, 1, 2)), [[0], [1]], method="shapley")
+        cue_importance(np.eye(2)[None], np.zeros((1, 2, 1)), [[0], [1]], method="shapley")
+
+
+def test_subset_table_and_accumulated_dominance_agree():
+    # The chunked accumulation must equal the all-subsets table times the weight map.
+    rng = np.random.default_rng(5)
+    data = rng.normal(size=(60, 6)) @ rng.normal(size=(6, 6))
+    corr = np.corrcoef(data, rowvar=False)
+    groups = [[0], [1, 2], [3], [4]]
+    table = subset_r2(corr[None, :5, :5], corr[None, :5, 5:], groups)
+    np.testing.assert_allclose(table @ dominance_matrix(4),
+                               dominance_weights(corr[None, :5, :5], corr[None, :5, 5:], groups),
+                               rtol=1e-12, atol=1e-15)
+    assert table[0, 0, 0] == 0.0
+    assert table[0, 0, -1] == pytest.approx(
+        corr[:5, 5] @ np.linalg.solve(corr[:5, :5], corr[:5, 5]), rel=1e-12)
