@@ -56,8 +56,8 @@ MAX_CUES_FOR_DOMINANCE = 12
 #: Data Analysis 52:258-271, calls clusters at or below 0.5 "dissolved"; from memory).
 SURVIVAL_JACCARD = 0.5
 
-#: Resample budget: resamples x raters^2 stays under this (200 resamples at 100 raters).
-_RESAMPLE_WORK_BUDGET = 200 * 100**2
+#: Work budget: simulations x raters^2 stays under this (the full 200 up to 60 raters).
+_RESAMPLE_WORK_BUDGET = 200 * 60**2
 
 #: Largest batch of small regressions solved in one call (bounds memory).
 _FIT_CHUNK = 50_000
@@ -380,8 +380,10 @@ def _agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
 
     cost = np.full((B, R, R), np.inf)
     iu, ju = np.triu_indices(R, k=1)
-    bb, pair = np.nonzero(active[:, iu] & active[:, ju])
-    if bb.size:
+    all_bb, all_pair = np.nonzero(active[:, iu] & active[:, ju])
+    # In chunks: B * R^2 / 2 stacked SSCPs at once would take gigabytes for big panels.
+    for start in range(0, all_bb.size, _FIT_CHUNK):
+        bb, pair = all_bb[start:start + _FIT_CHUNK], all_pair[start:start + _FIT_CHUNK]
         a, b = iu[pair], ju[pair]
         pair_rss = _merged_rss(group_sscp[bb, a] + group_sscp[bb, b],
                                group_n[bb, a] + group_n[bb, b], p)
@@ -397,7 +399,7 @@ def _agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
         todo = batch[n_groups > stop_at]
         if todo.size == 0:
             break
-        flat = cost[todo].reshape(todo.size, -1).argmin(axis=1)
+        flat = (cost if todo.size == B else cost[todo]).reshape(todo.size, -1).argmin(axis=1)
         i, j = np.divmod(flat, R)
         i, j = np.minimum(i, j), np.maximum(i, j)
         step_cost = cost[todo, i, j]
@@ -453,10 +455,11 @@ def _standardized(coef: np.ndarray, sscp: np.ndarray, p: int) -> np.ndarray:
         return coef * d[..., :p] / d[..., p:p + 1]
 
 
-def _resample_budget(n_resamples: int, n_raters: int) -> int:
+def _resample_budget(n_resamples: int, n_raters: int, *, floor: int = 20) -> int:
+    """Simulations to run: as asked, fewer for big panels, never fewer than ``floor``."""
     if n_raters < 2:
         return n_resamples
-    return max(20, min(n_resamples, _RESAMPLE_WORK_BUDGET // (n_raters * n_raters)))
+    return min(n_resamples, max(floor, _RESAMPLE_WORK_BUDGET // (n_raters * n_raters)))
 
 
 def _as_generator(rng) -> np.random.Generator:
@@ -630,6 +633,10 @@ def group_raters(
     else:
         chosen = 1
         by_groups = {m.n_groups: m for m in merges}
+        asked_null, n_null = n_null, _resample_budget(n_null, n_eligible, floor=50)
+        if n_null < asked_null:
+            warnings.append(f"The number-of-groups test simulated {n_null} panels instead of "
+                            f"{asked_null} to keep the run short for {n_eligible} raters.")
         while chosen in by_groups:
             m = by_groups[chosen]
             if not m.r2_drop > threshold:

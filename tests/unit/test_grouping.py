@@ -308,8 +308,11 @@ def test_user_errors_raise_data_error():
 
 def test_resample_budget_shrinks_for_large_panels():
     assert _resample_budget(200, 30) == 200
-    assert _resample_budget(200, 200) == 50
+    assert _resample_budget(200, 60) == 200
+    assert _resample_budget(200, 120) == 50
     assert _resample_budget(200, 2000) == 20
+    assert _resample_budget(100, 2000, floor=50) == 50
+    assert _resample_budget(30, 2000, floor=50) == 30  # never more than asked
 
 
 def test_general_dominance_matches_all_subsets_statsmodels():
