@@ -174,3 +174,13 @@ def test_user_errors_are_clear():
         fit_policies(design, good, scale="nominal")
     with pytest.raises(CalibrateError, match="'n_boot' option"):
         fit_policies(design, good, scale="continuous", n_boot=-1)
+
+
+def test_statistics_modules_do_not_load_plotting_or_pdf_code():
+    import subprocess
+    import sys
+
+    code = ("import sys, calibrate.policy, calibrate.importance, calibrate.diagnostics; "
+            "print(sorted(m for m in ('matplotlib', 'reportlab', 'pingouin') if m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "[]"
