@@ -36,6 +36,7 @@ from scipy.optimize import linear_sum_assignment
 from ._results import ResultMixin, jsonable
 from .cues import CueDesign
 from .errors import DataError
+from .importance import cue_importance
 from .linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
 
 __all__ = [
@@ -44,12 +45,7 @@ __all__ = [
     "GroupingResult",
     "group_raters",
     "adjusted_rand_index",
-    "general_dominance",
 ]
-
-#: Above this many cues, importance uses relative weights (Johnson 2000) instead of
-#: all-subsets dominance, whose cost doubles with every cue.
-MAX_CUES_FOR_DOMINANCE = 12
 
 #: A group whose mean best-match Jaccard similarity over resamples falls below this
 #: is reported as not surviving resampling (Hennig 2007, Computational Statistics &
@@ -249,56 +245,6 @@ def adjusted_rand_index(labels_a, labels_b) -> float:
         # Both labelings are trivial (all one group, or all singletons): they agree.
         return 1.0
     return float((sum_cells - expected) / (top))
-
-
-def general_dominance(corr: np.ndarray, cue_columns: list[list[int]]) -> np.ndarray:
-    """General dominance weights of sets of predictors from a correlation matrix.
-
-    ``corr`` is the (p + 1, p + 1) correlation matrix of the design columns and the
-    judgment (judgment last). Each cue is a set of columns (a categorical cue's
-    dummies enter together). The weight of cue ``j`` averages its increment in R^2
-    over all subsets of the other cues, first within each subset size and then over
-    sizes (Budescu 1993, Psychological Bulletin 114:542-551; Azen & Budescu 2003):
-
-    .. math:: GD_j = \\frac1q \\sum_{k=0}^{q-1} \\binom{q-1}{k}^{-1}
-              \\sum_{S \\not\\ni j,\\,|S| = k} [R^2_{S \\cup j} - R^2_S]
-
-    The weights sum to the full model's R^2.
-    """
-    q = len(cue_columns)
-    p = corr.shape[0] - 1
-    rxx = corr[:p, :p]
-    rxy = corr[:p, p]
-    n_sets = 1 << q
-    r2 = np.zeros(n_sets)
-    for mask in range(1, n_sets):
-        cols = [c for j in range(q) if mask >> j & 1 for c in cue_columns[j]]
-        sub = rxy[cols]
-        r2[mask] = sub @ np.linalg.solve(rxx[np.ix_(cols, cols)], sub)
-    masks = np.arange(n_sets)
-    sizes = np.array([bin(m).count("1") for m in masks])
-    weights = np.zeros(q)
-    for j in range(q):
-        without = masks[(masks >> j & 1) == 0]
-        k = sizes[without]
-        binom = np.array([math.comb(q - 1, int(x)) for x in k], dtype=float)
-        weights[j] = np.sum((r2[without | (1 << j)] - r2[without]) / binom) / q
-    return weights
-
-
-def relative_weights(corr: np.ndarray, cue_columns: list[list[int]]) -> np.ndarray:
-    """Relative weights (Johnson 2000, Multivariate Behavioral Research 35:1-19).
-
-    With ``Rxx = V diag(e) V'`` and ``L = V diag(sqrt(e)) V'``, regress the judgment
-    on the orthogonal counterparts: ``beta = L^{-1} r_xy``; column ``i`` gets
-    ``sum_k L_ik^2 beta_k^2``. A cue gets the sum over its columns; weights sum to R^2.
-    """
-    p = corr.shape[0] - 1
-    evals, evecs = np.linalg.eigh(corr[:p, :p])
-    lam = (evecs * np.sqrt(np.clip(evals, 0.0, None))) @ evecs.T
-    beta = np.linalg.solve(lam, corr[:p, p])
-    per_column = (lam**2) @ (beta**2)
-    return np.array([per_column[cols].sum() for cols in cue_columns])
 
 
 def _group_label(i: int) -> str:
@@ -860,15 +806,16 @@ def _group_policies(full, slots, names, raters, p, design, cue_names, cue_column
     d = np.sqrt(np.einsum("gii->gi", both))
     with np.errstate(invalid="ignore", divide="ignore"):
         corr = both / (d[:, :, None] * d[:, None, :])
-    use_dominance = len(cue_columns) <= MAX_CUES_FOR_DOMINANCE
-    if not use_dominance:
-        warnings.append(f"With {len(cue_columns)} cues, group importance uses relative "
-                        "weights (Johnson 2000) instead of dominance analysis.")
+    # Importance on each pooled-within correlation matrix: general dominance (Budescu
+    # 1993), or relative weights (Johnson 2000) beyond 12 cues, from calibrate.importance.
     importance_r2 = np.full((len(both), len(cue_columns)), np.nan)
-    for g in range(len(both)):
-        if fit.rank_ok[g] and np.all(np.isfinite(corr[g])):
-            importance_r2[g] = (general_dominance if use_dominance else relative_weights)(
-                corr[g], cue_columns)
+    ok = fit.rank_ok & np.isfinite(corr).all(axis=(1, 2))
+    if ok.any():
+        values, method = cue_importance(corr[ok, :p, :p], corr[ok, :p, p:], cue_columns)
+        importance_r2[ok] = values[:, 0, :]
+        if method != "dominance":
+            warnings.append(f"With {len(cue_columns)} cues, group importance uses relative "
+                            "weights (Johnson 2000) instead of dominance analysis.")
     with np.errstate(invalid="ignore", divide="ignore"):
         shares = importance_r2 / importance_r2.sum(axis=1, keepdims=True)
 

@@ -16,9 +16,7 @@ from calibrate.errors import DataError
 from calibrate.grouping import (
     _resample_budget,
     _resampled_labels,
-    general_dominance,
     group_raters,
-    relative_weights,
 )
 from calibrate.linalg import grouped_sscp
 
@@ -315,52 +313,37 @@ def test_resample_budget_shrinks_for_large_panels():
     assert _resample_budget(30, 2000, floor=50) == 30  # never more than asked
 
 
-def test_general_dominance_matches_all_subsets_statsmodels():
-    # Reference: every subset's R^2 refitted with statsmodels, then averaged as in
-    # Budescu (1993) by subset size; identity: the weights sum to the full R^2.
-    rng = np.random.default_rng(4)
-    n = 200
-    X = rng.normal(size=(n, 4)) @ np.array([[1, .3, 0, 0], [0, 1, .4, 0],
-                                              [0, 0, 1, .2], [0, 0, 0, 1.]])
-    y = X @ np.array([.5, -.3, .2, .4]) + rng.normal(size=n)
-    cue_columns = [[0], [1, 2], [3]]  # a two-column cue enters as one set
-    corr = np.corrcoef(np.column_stack([X, y]), rowvar=False)
-    got = general_dominance(corr, cue_columns)
+def test_group_importance_is_general_dominance_on_the_pooled_judgments():
+    # Reference: a group's pooled equation is OLS on rater-centred rows; every subset's
+    # R^2 refitted with statsmodels and averaged by subset size as in Budescu (1993)
+    # must give the group's importance_r2; identity: they sum to the group's R^2.
+    import itertools
+
+    design, first, truth = make_panel(21, THREE_POLICIES[:2], [3, 2], share_seen=0.8,
+                                      categorical=True)
+    result = group_raters(design, first, rng=0, n_resamples=0, n_groups=2)
+    group = result.groups[0]
+    part = first[first["rater"].isin(group.raters)]
+    X = design.matrix[design.row_of(part["case"])]
+    X = X - pd.DataFrame(X).groupby(part["rater"].to_numpy()).transform("mean").to_numpy()
+    y = (part["judgment"] - part.groupby("rater")["judgment"].transform("mean")).to_numpy()
+    cues = list(group.importance_r2)
+    cue_columns = [design.columns_of(c) for c in cues]
 
     def r2(sets):
         cols = [c for s in sets for c in cue_columns[s]]
-        if not cols:
-            return 0.0
-        return sm.OLS(y, sm.add_constant(X[:, cols])).fit().rsquared
+        return sm.OLS(y, X[:, cols]).fit().rsquared if cols else 0.0  # centred: no constant
 
-    import itertools
-    import math
-    q = len(cue_columns)
+    q = len(cues)
     expected = np.zeros(q)
     for j in range(q):
         others = [s for s in range(q) if s != j]
         for k in range(q):
             subsets = list(itertools.combinations(others, k))
             expected[j] += np.mean([r2(set(s) | {j}) - r2(s) for s in subsets]) / q
-            assert len(subsets) == math.comb(q - 1, k)
-    np.testing.assert_allclose(got, expected, atol=1e-12)
-    assert got.sum() == pytest.approx(r2(range(q)), abs=1e-12)
-
-
-def test_relative_weights_sum_to_r2_and_equal_r2_when_uncorrelated():
-    # Identities (Johnson 2000): weights sum to R^2; with orthogonal predictors each
-    # weight is that predictor's squared correlation with the judgment.
-    rng = np.random.default_rng(1)
-    X = rng.normal(size=(100, 3))
-    y = X @ np.array([1.0, 0.5, -0.2]) + rng.normal(size=100)
-    corr = np.corrcoef(np.column_stack([X, y]), rowvar=False)
-    rw = relative_weights(corr, [[0], [1], [2]])
-    full_r2 = sm.OLS(y, sm.add_constant(X)).fit().rsquared
-    assert rw.sum() == pytest.approx(full_r2, abs=1e-12)
-    ortho = np.eye(4)
-    ortho[:3, 3] = ortho[3, :3] = [0.5, 0.3, -0.1]
-    np.testing.assert_allclose(relative_weights(ortho, [[0], [1], [2]]), [0.25, 0.09, 0.01])
-    np.testing.assert_allclose(general_dominance(ortho, [[0], [1], [2]]), [0.25, 0.09, 0.01])
+    np.testing.assert_allclose([group.importance_r2[c] for c in cues], expected, atol=1e-10)
+    assert sum(group.importance_r2.values()) == pytest.approx(group.r2, abs=1e-10)
+    assert group.r2 == pytest.approx(r2(range(q)), abs=1e-10)
 
 
 def test_many_cues_switch_importance_to_relative_weights():
