@@ -89,16 +89,16 @@ def strip_chart(values: Sequence[float], mine: float, *, low: float, high: float
     height = 20.0
     d = Drawing(width, height)
     lo, hi = min([low, mine, *values]), max([high, mine, *values])
-    x0, x1 = 28.0, width - 30.0
+    x0, x1 = 34.0, width - 36.0
 
     def x_of(v: float) -> float:
         return x0 + (v - lo) / (hi - lo) * (x1 - x0) if hi > lo else (x0 + x1) / 2
 
     y = 10.0
     d.add(Line(x0, y, x1, y, strokeColor=RULE, strokeWidth=1.2))
-    d.add(String(x0 - 3, y - 2.5, low_words, fontName=BASE_FONT, fontSize=6.5, fillColor=MUTED,
+    d.add(String(x0 - 6, y - 2.5, low_words, fontName=BASE_FONT, fontSize=6.5, fillColor=MUTED,
                  textAnchor="end"))
-    d.add(String(x1 + 3, y - 2.5, high_words, fontName=BASE_FONT, fontSize=6.5, fillColor=MUTED))
+    d.add(String(x1 + 6, y - 2.5, high_words, fontName=BASE_FONT, fontSize=6.5, fillColor=MUTED))
     for k, v in enumerate(sorted(values)):
         offset = (k % 3 - 1) * 2.5   # a little vertical spread so close values stay visible
         d.add(Circle(x_of(v), y + offset, 2.2, fillColor=PALE, strokeColor=PANEL, strokeWidth=0.6))

@@ -102,7 +102,7 @@ class PanelReport:
             if alpha is not None:
                 reading.append(f"alpha {wording.ALPHA_BANDS.words(alpha)}")
             rows.append([text(phase or "all", CELL), text(fmt(a1), CELL), text(fmt(alpha), CELL),
-                         text(str(len(groups)) if groups else "n/a", CELL), text(fmt(hom_p, 3), CELL),
+                         text(str(len(groups)) if groups else "n/a", CELL), text(wording.fmt_p(hom_p), CELL),
                          text("; ".join(reading) or "not available yet", CELL)])
         table = Table(rows, colWidths=[55, 55, 80, 45, 80, CONTENT_WIDTH - 315], hAlign="LEFT")
         table.setStyle(table_style())
@@ -191,7 +191,7 @@ class PanelReport:
         hom = panel.get("homogeneity")
         if hom:
             story.append(text(f"Test that all raters share one set of weights: statistic "
-                              f"{fmt(num(hom.get('statistic')))}, p = {fmt(num(hom.get('p_value')), 3)}.", BODY))
+                              f"{fmt(num(hom.get('statistic')))}, p = {wording.fmt_p(num(hom.get('p_value')))}.", BODY))
         return story
 
     def agreement(self, panel: dict) -> list:
@@ -199,17 +199,22 @@ class PanelReport:
         icc = panel.get("icc")
         if icc:
             rows = [[text(h, CELL_BOLD) for h in ("Form", "Estimate", "95% interval", "Meaning", "Reading")]]
+            detail = {f.get("form"): f for f in dig(panel, "agreement", "icc_detail", "forms", default=[]) or []}
             for key, label, meaning in ICC_FORMS:
                 value = icc.get(key)
-                est, ci = num(value), interval(value) if isinstance(value, dict) else None
+                est = num(value)
+                ci = interval(value) if isinstance(value, dict) else interval(detail.get(key))
                 rows.append([text(label, CELL), text(fmt(est), CELL),
                              text(f"{fmt(ci[0])} to {fmt(ci[1])}" if ci else "", CELL), text(meaning, CELL),
                              text(wording.icc_reading(est), CELL)])
             table = Table(rows, colWidths=[60, 50, 80, 200, CONTENT_WIDTH - 390], hAlign="LEFT")
             table.setStyle(table_style())
             story.append(table)
-            if icc.get("method") or icc.get("estimator"):
-                story.append(text(f"Estimated by: {icc.get('method') or icc.get('estimator')}.", SMALL))
+            method = icc.get("method") or dig(panel, "agreement", "icc_detail", "method")
+            if method:
+                ci_method = dig(panel, "agreement", "icc_detail", "ci_method")
+                story.append(text(f"Estimated by: {method}" + (f"; intervals: {ci_method}" if ci_method else "")
+                                  + ".", SMALL))
             story.append(text(f"Bands: {wording.ICC_BANDS.source}.", SMALL))
         else:
             story.append(text("ICC agreement is not available for this study yet.", BODY))
@@ -219,8 +224,10 @@ class PanelReport:
                               f"({wording.ALPHA_BANDS.source}).", BODY))
         vc = panel.get("variance_components")
         if vc:
-            parts = ", ".join(f"{k} {fmt(num(v), 3)}" for k, v in vc.items() if num(v) is not None)
-            story.append(text(f"Variance components: {parts}.", BODY))
+            parts = ", ".join(f"{k} {fmt(num(vc.get(k)), 3)}" for k in ("case", "rater", "residual")
+                              if num(vc.get(k)) is not None)
+            how = f" ({vc['estimator']})" if isinstance(vc.get("estimator"), str) else ""
+            story.append(text(f"Variance components{how}: {parts}.", BODY))
         d_study = panel.get("d_study") or []
         if d_study:
             rows = [[text(h, CELL_BOLD) for h in ("Readers per file", "Relative G (ranking)",
@@ -233,6 +240,23 @@ class PanelReport:
             story += [Spacer(1, 4), table,
                       text("How dependable a file's mean score would be with this many readers "
                            "(Cronbach et al. 1972; Brennan 2001).", SMALL)]
+            needed = panel.get("readers_needed") or {}
+            bits = []
+            for key, what in (("g_rel", "ranking files (relative G)"), ("phi", "absolute levels (phi)")):
+                value = needed.get(key)
+                if isinstance(value, dict):
+                    value = ", ".join(f"{n if n is not None else 'more than studied'} to reach {t}"
+                                      for t, n in value.items())
+                if value is not None:
+                    bits.append(f"for {what}: {value}")
+            if bits:
+                story.append(text("Readers per file needed " + "; ".join(bits) + ".", BODY))
+            flips = panel.get("flips") or []
+            if flips:
+                parts = [f"{f.get('raters')} reader(s): {fmt(100 * num(f.get('flip_rate')), 0)}%"
+                         for f in flips if num(f.get("flip_rate")) is not None]
+                story.append(text("How often a file near the cut-off would land on the other side with other "
+                                  "readers: " + ", ".join(parts) + ".", BODY))
         else:
             story.append(text("The readers-per-file table is not available for this study yet.", BODY))
         return story
@@ -264,13 +288,25 @@ class PanelReport:
         if frame is not None:
             flag_col = next((c for c in ("needs_another_read", "another_read", "reread") if c in frame.columns), None)
         if frame is None or flag_col is None:
-            return story + [text("The per-file table is not available for this study yet.", BODY)]
+            listed = [(p.get("phase"), p.get("files_needing_another_read")) for p in self.data.results.get("panels", [])
+                      if p.get("files_needing_another_read")]
+            if not listed:
+                return story + [text("The per-file results are not available for this study yet.", BODY)]
+            for phase, ids in listed:
+                shown = ", ".join(map(str, ids[:60])) + (f" and {len(ids) - 60} more" if len(ids) > 60 else "")
+                story.append(text((f"Phase {phase}, {len(ids)} file(s): " if phase else f"{len(ids)} file(s): ")
+                                  + shown + ".", BODY))
+            story.append(text("The full list, with the reason for each file, is in the files table.", SMALL))
+            return story
         chosen = frame[frame[flag_col].astype(bool)]
         if chosen.empty:
             return story + [text("No file needs another read.", BODY)]
-        cols = [c for c in ("phase", "case", "raw_mean", "adjusted", "adjusted_score", "disagreement", "n")
-                if c in chosen.columns]
+        cols = [c for c in ("phase", "case", "n_readers", "raw_mean", "adjusted", "spread_sd", "disagreement",
+                            "reasons") if c in chosen.columns]
         rows = [[text(c.replace("_", " "), CELL_BOLD) for c in cols]]
+        story.append(text(f"{len(chosen)} file(s) were marked for another read: readers disagreed more than "
+                          "usual, or the file sits close to the cut-off. Raw mean: average judgment; adjusted: "
+                          "after removing each reader's severity offset.", BODY))
         for _, r in chosen.head(40).iterrows():
             rows.append([text(fmt(num(r[c])) if isinstance(r[c], float) else str(r[c]), CELL) for c in cols])
         table = Table(rows, repeatRows=1, hAlign="LEFT")
@@ -297,12 +333,19 @@ class PanelReport:
                                                    "Flagged")]]
         for r in shown[:40]:
             table_rows.append([text(r[0], CELL), text(r[1], CELL), text(r[2], CELL), text(fmt(r[3], 3), CELL),
-                               text(fmt(r[4], 3), CELL), text(fmt(r[5], 3), CELL), text("yes" if r[6] else "", CELL)])
+                               text(wording.fmt_p(r[4]), CELL), text(wording.fmt_p(r[5]), CELL), text("yes" if r[6] else "", CELL)])
         table = Table(table_rows, repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story += [text("Each attribute added to each rater's policy; p adjusted across raters and attributes "
                        "(Holm). An association can run through a cue related to the attribute. Flagged "
                        "results first.", BODY), table]
+        proxies = [(p.get("attribute"), p.get("cue"), num(p.get("association")))
+                   for panel in self.data.results.get("panels", []) for p in panel.get("excluded_proxies") or []
+                   if p.get("strong")]
+        if proxies:
+            story.append(text("Cues strongly related to an excluded attribute (a rater can lean on the attribute "
+                              "through them): " + "; ".join(f"{c} with {a} ({fmt(v)})" for a, c, v in
+                                                           dict.fromkeys(proxies)) + ".", BODY))
         n_flagged = sum(r[6] for r in rows)
         story.append(text(f"{n_flagged} of {len(rows)} rater-attribute checks were flagged; all "
                           f"{len(rows)} are in the workbook.", SMALL))
@@ -316,7 +359,7 @@ class PanelReport:
                 bits = [f"{k} {w[k]}" for k in ("file", "row", "column") if w.get(k) is not None]
                 where = ", ".join(bits)
                 w = w.get("message")
-            out.append(("reading the data" + (f" ({where})" if where else ""), str(w)))
+            out.append((f"reading the data ({where})" if where else "analysis", str(w)))
         for e in self.data.results.get("raters", []):
             for msg in collect_warnings(e):
                 out.append((f"fitting {e['rater']}" + (f", {e.get('phase')}" if e.get("phase") else ""), msg))

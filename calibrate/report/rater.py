@@ -9,6 +9,7 @@ that names another rater is left out.
 from __future__ import annotations
 
 import math
+import re
 import statistics
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -51,6 +52,15 @@ def _agreement_r(e):
 def _offset(e):
     sev = e.get("severity") or {}
     return num(sev.get("offset", sev.get("estimate")))
+
+
+def _severity_value(e, key):
+    """A severity figure, flat (``sd_ratio``) or nested (``range_use.sd_ratio``)."""
+    sev = e.get("severity") or {}
+    for holder in (sev, sev.get("range_use") or {}, sev.get("central_tendency") or {}):
+        if isinstance(holder, dict) and key in holder:
+            return num(holder[key])
+    return None
 
 
 def _misallocation(e):
@@ -174,7 +184,8 @@ class RaterReport:
     def key_figure_table(self, phases) -> Table:
         multi = len(phases) > 1
         head = ["Figure"] + ([str(p) for p in phases] if multi else ["Value"])
-        head += ["Among colleagues" if self.shows_peers(self.phase) else "", "What it says"]
+        head += ["Among colleagues" if self.shows_peers(self.phase) else "",
+                 f"What it says ({phases[-1]})" if multi else "What it says"]
         rows = [[text(h, CELL_BOLD) for h in head]]
         strip_w = 120.0
         label_w, value_w = 100.0, 42.0
@@ -215,6 +226,9 @@ class RaterReport:
         if group and self.shows_peers(self.phase) and len(group.get("raters", [])) >= wording.MIN_GROUP_FOR_PEERS:
             extra = self.private(group.get("sets_apart"))
             if extra:
+                # the figures in brackets mix in other raters' weights; the first page keeps to
+                # figures from this rater's own entry
+                extra = re.sub(r"\s*\([^()]*\d[^()]*\)", "", extra)
                 sentence += f" {extra}"
         return [text(sentence, BODY)]
 
@@ -242,6 +256,9 @@ class RaterReport:
         story.append(charts.weight_chart(cues, series, width=CONTENT_WIDTH))
         story.append(text("A share is a cue's part of the whole policy; the shares add up to 1. "
                           "A cue with a larger share moves your judgments more.", SMALL))
+        cutoff = self.entry.get("cutoff") or {}
+        if cutoff.get("flagged") and cutoff.get("cue") is not None:
+            story.append(text(cutoff_sentence(cutoff), NOTE))
         story.append(self.weights_table(policy))
         return story
 
@@ -267,6 +284,10 @@ class RaterReport:
                 vals = {c: num(v) for c, v in candidate.items() if num(v) is not None}
                 if vals:
                     return vals
+        frame = self.data.table("alignment")
+        if frame is not None and {"cue", "rubric_share"} <= set(frame.columns):
+            rows = frame.drop_duplicates("cue")
+            return {str(c): float(v) for c, v in zip(rows["cue"], rows["rubric_share"]) if math.isfinite(float(v))}
         return {}
 
     def weights_table(self, policy: dict):
@@ -275,10 +296,11 @@ class RaterReport:
             return Spacer(1, 1)
         std = policy.get("std_weights") or {}
         lo, hi = policy.get("ci_low") or {}, policy.get("ci_high") or {}
+        pairs = policy.get("ci") or {}
         rows = [[text(h, CELL_BOLD) for h in ("Term", "Weight (scale points per unit)", "95% interval",
                                              "Standardized weight")]]
         for term, w in weights.items():
-            ci = (num(lo.get(term)), num(hi.get(term)))
+            ci = interval(pairs.get(term)) or (num(lo.get(term)), num(hi.get(term)))
             ci_text = "n/a" if None in ci else f"{fmt(ci[0])} to {fmt(ci[1])}"
             rows.append([text(term, CELL), text(fmt(num(w)), CELL), text(ci_text, CELL),
                          text(fmt(num(std.get(term))), CELL)])
@@ -302,7 +324,8 @@ class RaterReport:
             story.append(text("No case was shown to you twice, so test-retest is not available.", BODY))
         if r_tt is not None:
             story.append(text(wording.retest_reading(r_tt, retest.get("n_pairs")), BODY))
-            story.append(text(ceiling_sentence(r_s, r_tt, retest), BODY))
+            verdict = dig(self.entry, "consistency", "verdict") or retest.get("verdict")
+            story.append(text(ceiling_sentence(r_s, r_tt, verdict), BODY))
         return story
 
     def my_rows(self, names: tuple[str, ...], x: str, y: str) -> list[tuple[float, float]]:
@@ -328,11 +351,12 @@ class RaterReport:
         else:
             tail = f" (offset {fmt(offset)}" + (f", standard error {fmt(se)})" if se is not None else ")")
             story.append(text(wording.severity_reading(offset, se, tuple(sev.get("flags", ()))) + tail, BODY))
-        ratio = num(sev.get("sd_ratio"))
+        ratio = _severity_value(self.entry, "sd_ratio")
         if ratio is not None:
             story.append(text(f"You use {wording.RANGE_BANDS.words(ratio)} (spread {fmt(ratio)} times the "
                               "panel's).", BODY))
-        middle, panel_middle = num(sev.get("middle_share")), num(sev.get("panel_middle_share"))
+        middle = _severity_value(self.entry, "middle_share")
+        panel_middle = _severity_value(self.entry, "panel_middle_share")
         if middle is not None:
             line = f"{fmt(100 * middle, 0)}% of your judgments sit in the middle of the scale"
             if panel_middle is not None and self.shows_peers(self.phase):
@@ -447,7 +471,7 @@ class RaterReport:
         return story
 
 
-def ceiling_sentence(r_s: float | None, r_tt: float, retest: dict) -> str:
+def ceiling_sentence(r_s: float | None, r_tt: float, verdict: str | None = None) -> str:
     """R_s set against sqrt(r_tt): in the population R_s <= sqrt(r_tt) when the cues
     stay fixed and only the unreliable part of the judgment differs between readings
     (a standard reliability bound: a correlation cannot exceed the square root of the
@@ -458,10 +482,9 @@ def ceiling_sentence(r_s: float | None, r_tt: float, retest: dict) -> str:
         return ("Repeated cases were judged so differently that the test-retest bound says nothing about "
                 "the policy.")
     ceiling = math.sqrt(r_tt)
-    verdict = retest.get("verdict")
     head = f"Consistency R_s = {fmt(r_s)} against the square root of test-retest, {fmt(ceiling)}. "
     if isinstance(verdict, str) and verdict:
-        return head + verdict
+        return head + wording.CEILING_VERDICTS.get(verdict, verdict.replace("_", " ") + ".")
     if r_s > ceiling + 0.05:
         return head + ("The policy fits better than the repeats alone would suggest; with few repeated "
                        "cases this happens by chance.")
@@ -470,6 +493,13 @@ def ceiling_sentence(r_s: float | None, r_tt: float, retest: dict) -> str:
                        "capture all of them: information beyond the listed cues, or cut-offs and "
                        "combinations of cues, may be shaping them.")
     return head + "The two agree: what a linear rule leaves out is mostly the ordinary noise of repeating."
+
+
+def cutoff_sentence(cutoff: dict) -> str:
+    threshold = num(cutoff.get("threshold"))
+    at = f" near {fmt(threshold)}" if threshold is not None else ""
+    return (f"Your judgments jump when {cutoff.get('cue')} passes a point{at}, more than a steady weight "
+            "would: a cut-off may be at work. Check whether the rubric intends one.")
 
 
 def bootstrap_sentence(r_a, mv, mv_cv) -> str:
@@ -500,6 +530,10 @@ def suggestions(entry: dict, *, include_excluded: bool) -> list[str]:
             out.append(f"Read the rubric's guidance on {over}: your judgments lean on it more than intended.")
         if under:
             out.append(f"Check how {under} is used: it carries less weight in your judgments than the rubric asks.")
+    cutoff = entry.get("cutoff") or {}
+    if cutoff.get("flagged") and cutoff.get("cue") is not None:
+        out.append(f"Look at files just either side of your step on {cutoff.get('cue')}: would the rubric "
+                   "separate them as sharply?")
     cases = dig(entry, "policy", "look_again", default=[]) or []
     if cases:
         ids = ", ".join(str(c.get("case")) for c in cases[:3])

@@ -118,6 +118,13 @@ def fmt(value: float | None, digits: int = 2) -> str:
     return text
 
 
+def fmt_p(value: float | None) -> str:
+    """A p-value as printed: three decimals, and '<0.001' below that."""
+    if value is None:
+        return "n/a"
+    return "<0.001" if value < 0.001 else fmt(value, 3)
+
+
 def consistency_reading(r_s: float | None) -> str:
     words = CONSISTENCY_BANDS.words(r_s)
     if words is None:
@@ -151,7 +158,7 @@ def alignment_reading(misallocation: float | None, most_over: str | None,
     words = MISALLOCATION_BANDS.words(misallocation)
     if words is None:
         return "No rubric was given, so alignment is not available."
-    parts = [f"The weight you give the cues is {words}."]
+    parts = [f"The weight you give the cues {words}."]
     if misallocation is not None and misallocation >= MISALLOCATION_BANDS.bands[1].low:
         if most_over:
             parts.append(f"Most extra weight: {most_over}.")
@@ -184,6 +191,17 @@ def agreement_reading(r: float | None) -> str:
         return "Not available for this study."
     return f"On the cases you shared with colleagues, you and the panel {words}."
 
+
+# The identifiers of calibrate.consistency.consistency_verdict, in plain words.
+CEILING_VERDICTS = {
+    "model_misses_rule": "Your judgments repeat well, yet a straight-line rule of these cues misses part of "
+                         "them: information beyond the listed cues, or cut-offs and combinations of cues, "
+                         "may be shaping them.",
+    "inconsistent": "Both figures are clearly low: the same case can get a different judgment on another "
+                    "reading, and that limits how closely any rule can follow the judgments.",
+    "cannot_tell": "With this many repeated cases the two figures cannot be told apart; the uncertainty is "
+                   "wider than the gap between them.",
+}
 
 # --------------------------------------------------------------- context values
 
@@ -278,6 +296,7 @@ FLAG_WORDS = {
     "wide_range": "a wide part of the scale is used",
     "central_tendency": "many judgments sit in the middle of the scale",
     "drift": "judgments changed over the reading order",
+    "cutoff": "judgments jump at one point on a cue, like a cut-off",
     "excluded_attribute": "judgments are associated with an attribute that must not count",
 }
 

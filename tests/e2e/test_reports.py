@@ -1,0 +1,141 @@
+"""Reports end to end on the demo study: privacy, first-page numbers, reproducible bytes,
+worker processes, and rebuilding from a results folder."""
+
+from __future__ import annotations
+
+import io
+import re
+import time
+
+import pytest
+from pypdf import PdfReader
+
+from calibrate.audit import audit, write_audit
+from calibrate.demo import write_demo
+from calibrate.report import build_reports, load_report_input, panel_pdf, rater_file_names, rater_pdf
+from calibrate.report._read import as_report_input, id_pattern
+from calibrate.report.wording import fmt
+
+EPOCH = "1780000000"  # 2026-05-28 UTC
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("demo")
+    files = write_demo(folder / "study")
+    result = audit(files.spec)
+    return folder, result
+
+
+@pytest.fixture(scope="module")
+def built(demo):
+    folder, result = demo
+    mp = pytest.MonkeyPatch()
+    mp.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    calls = []
+    try:
+        start = time.perf_counter()
+        paths = build_reports(result, folder / "out", progress=lambda *a: calls.append(a))
+        seconds = time.perf_counter() - start
+    finally:
+        mp.undo()
+    return folder / "out", paths, calls, seconds
+
+
+def texts(data: bytes | str) -> list[str]:
+    source = io.BytesIO(data) if isinstance(data, bytes) else str(data)
+    return [page.extract_text() for page in PdfReader(source).pages]
+
+
+def test_every_report_is_written_with_progress(demo, built):
+    _, result = demo
+    out, paths, calls, seconds = built
+    raters = sorted({e["rater"] for e in result.to_dict()["raters"]})
+    assert paths[0] == out / "panel-summary.pdf"
+    assert sorted(p.name for p in paths[1:]) == sorted(rater_file_names(raters).values())
+    assert [c[0] for c in calls] == list(range(1, len(raters) + 2))
+    assert all(c[1] == len(raters) + 1 for c in calls)
+    # a generous bound: measured about 0.05 s per rater report on the 2-core machine
+    assert seconds / len(paths) < 1.0
+
+
+def test_rater_reports_name_their_rater_and_nobody_else(demo, built):
+    _, result = demo
+    out, *_ = built
+    ids = sorted({e["rater"] for e in result.to_dict()["raters"]})
+    for rater, name in rater_file_names(ids).items():
+        pages = texts(out / "raters" / name)
+        assert 2 <= len(pages) <= 4
+        text = "\n".join(pages)
+        assert id_pattern([rater]).search(text)
+        assert not id_pattern([r for r in ids if r != rater]).findall(text), rater
+
+
+def test_panel_summary_names_every_rater(demo, built):
+    _, result = demo
+    out, *_ = built
+    text = "\n".join(texts(out / "panel-summary.pdf"))
+    for rater in {e["rater"] for e in result.to_dict()["raters"]}:
+        assert id_pattern([rater]).search(text), rater
+    assert "Audit date 2026-05-28" in text
+
+
+def _flat(node, out):
+    if isinstance(node, dict):
+        for v in node.values():
+            _flat(v, out)
+    elif isinstance(node, list):
+        for v in node:
+            _flat(v, out)
+    elif isinstance(node, (int, float)) and not isinstance(node, bool):
+        out.update({fmt(float(node)), str(node)})
+    return out
+
+
+def test_first_page_numbers_equal_results_json(demo, built):
+    _, result = demo
+    out, *_ = built
+    data = as_report_input(result)
+    for rater, name in rater_file_names(data.rater_ids()).items():
+        body = texts(out / "raters" / name)[0].split("Feedback on your judgments", 1)[1]
+        allowed = set()
+        for entry in data.entries_of(rater):
+            _flat(entry, allowed)
+        numbers = re.findall(r"(?<![\w.])-?\d+(?:\.\d+)?(?![\w])", body)
+        assert numbers, rater
+        assert [n for n in numbers if n not in allowed] == [], rater
+
+
+def test_same_epoch_same_bytes(demo, monkeypatch):
+    _, result = demo
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    rater = result.to_dict()["raters"][0]["rater"]
+    assert rater_pdf(result, rater) == rater_pdf(result, rater)
+    assert panel_pdf(result) == panel_pdf(result)
+
+
+def test_worker_processes_give_the_same_files(demo, built, tmp_path, monkeypatch):
+    _, result = demo
+    out, paths, *_ = built
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    again = build_reports(result, tmp_path, jobs=2, panel=False)
+    assert [p.name for p in again] == [p.name for p in paths[1:]]
+    for path in again:
+        assert path.read_bytes() == (out / "raters" / path.name).read_bytes(), path.name
+
+
+def test_reports_rebuild_from_a_results_folder(demo, tmp_path, monkeypatch):
+    folder, result = demo
+    write_audit(result, tmp_path / "audit")
+    monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
+    rebuilt = load_report_input(tmp_path / "audit")
+    rater = rebuilt.rater_ids()[0]
+    assert texts(rater_pdf(rebuilt, rater))[0] == texts(rater_pdf(result, rater))[0]
+    assert "Panel summary" in texts(panel_pdf(rebuilt))[0]
+
+
+def test_excluded_attribute_stays_with_the_chair_by_default(demo):
+    _, result = demo
+    rater = result.to_dict()["raters"][0]["rater"]
+    assert "Attributes that must not count" not in "\n".join(texts(rater_pdf(result, rater)))
+    assert "Attributes that must not count" in "\n".join(texts(rater_pdf(result, rater, include_excluded=True)))
