@@ -139,3 +139,15 @@ def test_excluded_attribute_stays_with_the_chair_by_default(demo):
     rater = result.to_dict()["raters"][0]["rater"]
     assert "Attributes that must not count" not in "\n".join(texts(rater_pdf(result, rater)))
     assert "Attributes that must not count" in "\n".join(texts(rater_pdf(result, rater, include_excluded=True)))
+
+
+def test_workbook_holds_every_audit_table(demo):
+    from openpyxl import load_workbook
+
+    from calibrate.workbook import sheet_names, workbook_bytes
+
+    _, result = demo
+    data = workbook_bytes(result.tables, {})
+    wb = load_workbook(io.BytesIO(data), read_only=True)
+    for name, sheet in sheet_names(result.tables).items():
+        assert wb[sheet].max_row == len(result.tables[name]) + 1, name

@@ -1,0 +1,210 @@
+"""The tables as one spreadsheet workbook (audit.xlsx).
+
+One sheet per table, the header row frozen and filterable, numbers stored as
+numbers with a format that suits the column (whole numbers, three decimals,
+four for p-values), and a read-me sheet that describes every sheet and every
+column. Text that a spreadsheet would run as a formula (starting with = + - @,
+a tab or a carriage return) is stored as text and shown with a quote prefix, so
+it is displayed and never run; numbers, negative ones included, stay numbers.
+The same tables always give the same bytes (fixed document and member dates).
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import math
+import re
+import zipfile
+from collections.abc import Mapping
+
+import numpy as np
+import pandas as pd
+
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_SHEET_FORBIDDEN = re.compile(r"[\[\]:*?/\\]")
+_FIXED_DATE = (2000, 1, 1, 0, 0, 0)
+README_SHEET = "read-me"
+
+# What common columns hold; a caller's own notes take precedence.
+COLUMN_NOTES = {
+    "rater": "Rater id, as in the judgments table.",
+    "phase": "Phase of the study (for example before / after a training); 'null' without phases.",
+    "case": "Case (file) id, as in the judgments table.",
+    "cue": "Cue: a piece of case information the judgments can use.",
+    "term": "Design column: a numeric cue, or one level of a categorical cue ('cue=level').",
+    "measure": "Which quantity the row holds.",
+    "estimate": "The estimate.",
+    "se": "Standard error of the estimate.",
+    "ci_low": "Lower end of the 95% confidence interval.",
+    "ci_high": "Upper end of the 95% confidence interval.",
+    "p_value": "p-value of the test.",
+    "p_adjusted": "p-value adjusted for the number of tests (Holm).",
+    "n": "Number of observations behind the figure.",
+    "n_cases": "Cases the rater judged (first judgments).",
+    "n_repeats": "Cases the rater judged twice (test-retest pairs).",
+    "n_judgments": "All judgments kept, repeats included.",
+    "usable_cases": "Cases usable in the policy fit (no dropped cue).",
+    "cases_per_term": "Usable cases per model term (a rough guide: fewer than 10 gives unstable weights).",
+    "group": "Group of raters with similar policies.",
+    "flags": "Flags raised for the rater (identifiers listed in the README), separated by spaces.",
+    "judgment": "The judgment given.",
+    "r": "Correlation.",
+    "r_s": "Consistency R_s: correlation between judgments and the rater's own policy.",
+}
+
+
+def _column_note(column: str, notes: Mapping[str, str]) -> str:
+    if column in notes:
+        return notes[column]
+    if column in COLUMN_NOTES:
+        return COLUMN_NOTES[column]
+    return column.replace("_", " ").capitalize() + " (see the README's table list)."
+
+
+def sheet_names(names) -> dict[str, str]:
+    """Table name -> a valid, unique sheet name (31 characters, no []:*?/\\)."""
+    used = {README_SHEET}
+    out = {}
+    for name in names:
+        base = _SHEET_FORBIDDEN.sub("_", str(name)).strip("'")[:31] or "table"
+        candidate, i = base, 2
+        while candidate.lower() in used:
+            suffix = f"_{i}"
+            candidate = base[: 31 - len(suffix)] + suffix
+            i += 1
+        used.add(candidate.lower())
+        out[name] = candidate
+    return out
+
+
+def _cell_value(value):
+    """A value as openpyxl should store it: numbers as numbers, missing as empty, text as text."""
+    from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
+
+    if value is None or value is pd.NA or value is pd.NaT:
+        return None
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(float(value)) else None
+    if isinstance(value, (dict, list, tuple)):
+        value = json.dumps(value, ensure_ascii=False, default=str)
+    return ILLEGAL_CHARACTERS_RE.sub("", str(value))
+
+
+def _number_format(column: str, values: pd.Series) -> str | None:
+    if pd.api.types.is_bool_dtype(values):
+        return None
+    if pd.api.types.is_integer_dtype(values):
+        return "0"
+    if pd.api.types.is_float_dtype(values):
+        finite = values[np.isfinite(values.to_numpy(dtype=float))]
+        if len(finite) and np.all(np.equal(np.mod(finite, 1), 0)) and column.startswith(("n", "n_")):
+            return "0"
+        if column.startswith("p_") or column in {"p", "p_value", "p_adjusted"}:
+            return "0.0000"
+        return "0.000"
+    return None
+
+
+def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str, str], *,
+                   column_notes: Mapping[str, str] | None = None) -> bytes:
+    """The tables as an .xlsx file (bytes).
+
+    Parameters
+    ----------
+    tables : table name -> tidy DataFrame; one sheet each, in this order.
+    descriptions : table name -> one sentence on what the table holds (read-me sheet).
+    column_notes : column name -> what it holds, for columns the built-in notes miss.
+    """
+    from openpyxl import Workbook
+    from openpyxl.styles import Alignment, Font
+    from openpyxl.utils import get_column_letter
+
+    notes = dict(column_notes or {})
+    names = sheet_names(tables)
+    wb = Workbook()
+    readme = wb.active
+    readme.title = README_SHEET
+    readme.append(["sheet", "column", "what it holds"])
+    for name, frame in tables.items():
+        readme.append([names[name], "", _cell_value(descriptions.get(name, ""))])
+        readme.cell(row=readme.max_row, column=1).font = Font(bold=True)
+        for col in frame.columns:
+            readme.append([names[name], _cell_value(str(col)), _column_note(str(col), notes)])
+    _finish_sheet(readme, [12, 24, 90])
+    for cell in readme["C"]:
+        cell.alignment = Alignment(wrap_text=True, vertical="top")
+
+    for name, frame in tables.items():
+        ws = wb.create_sheet(title=names[name])
+        ws.append([_cell_value(str(c)) for c in frame.columns])
+        formats = [_number_format(str(c), frame[c]) for c in frame.columns]
+        for row in frame.itertuples(index=False, name=None):
+            ws.append([_cell_value(v) for v in row])
+        widths = []
+        for j, col in enumerate(ws.iter_cols(min_row=1), start=1):
+            longest = len(str(frame.columns[j - 1]))
+            for cell in col[1:]:
+                if isinstance(cell.value, str):
+                    _as_text(cell)
+                    longest = max(longest, len(cell.value))
+                elif isinstance(cell.value, float) and formats[j - 1]:
+                    cell.number_format = formats[j - 1]
+                    longest = max(longest, 9)
+                elif isinstance(cell.value, int) and not isinstance(cell.value, bool):
+                    cell.number_format = "0"
+                    longest = max(longest, len(str(cell.value)))
+            widths.append(min(max(longest + 2, 8), 60))
+        _finish_sheet(ws, widths)
+        if ws.max_row > 1:
+            ws.auto_filter.ref = f"A1:{get_column_letter(max(ws.max_column, 1))}{ws.max_row}"
+    return _reproducible(wb)
+
+
+def _as_text(cell) -> None:
+    """Store a string as text, never as a formula; show formula-like text with a quote prefix."""
+    cell.data_type = "s"
+    if cell.value.startswith(_FORMULA_START):
+        cell.quotePrefix = True
+
+
+def _finish_sheet(ws, widths) -> None:
+    from openpyxl.styles import Font
+    from openpyxl.utils import get_column_letter
+
+    for cell in ws[1]:
+        cell.font = Font(bold=True)
+        if isinstance(cell.value, str):
+            _as_text(cell)
+    for j, width in enumerate(widths, start=1):
+        ws.column_dimensions[get_column_letter(j)].width = width
+    ws.freeze_panes = "A2"
+
+
+def _reproducible(wb) -> bytes:
+    """Save with fixed document and zip member dates so equal tables give equal bytes."""
+    import datetime as dt
+
+    fixed = dt.datetime(2000, 1, 1)
+    wb.properties.created = fixed
+    wb.properties.modified = fixed
+    buf = io.BytesIO()
+    wb.save(buf)
+    src = zipfile.ZipFile(io.BytesIO(buf.getvalue()))
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for info in src.infolist():
+            member = zipfile.ZipInfo(info.filename, date_time=_FIXED_DATE)
+            member.compress_type = zipfile.ZIP_DEFLATED
+            member.external_attr = 0o644 << 16
+            content = src.read(info.filename)
+            if info.filename == "docProps/core.xml":
+                # openpyxl stamps the save time into the document properties
+                content = re.sub(rb"(<dcterms:(?:created|modified)[^>]*>)[^<]*", rb"\g<1>2000-01-01T00:00:00Z",
+                                 content)
+            dst.writestr(member, content)
+    return out.getvalue()
