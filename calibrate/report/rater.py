@@ -511,8 +511,8 @@ def bootstrap_sentence(r_a, mv, mv_cv) -> str:
     kind = "tested on cases it was not fitted to" if mv_cv is not None else "fitted to these cases"
     if model > r_a + 0.02:
         return (f"A model of your own policy, applied the same way every time ({kind}), tracked the "
-                f"outcome at {fmt(model)}, better than the judgments themselves ({fmt(r_a)}): the "
-                "inconsistency, not the weighting, costs accuracy here.")
+                f"outcome at {fmt(model)}, better than the judgments themselves ({fmt(r_a)}): applying the "
+                "same weights to every case would have helped here.")
     if model < r_a - 0.02:
         return (f"Your judgments ({fmt(r_a)}) tracked the outcome better than a model of your own policy "
                 f"({kind}: {fmt(model)}): they use something the listed cues do not hold.")
