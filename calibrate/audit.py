@@ -1,16 +1,12 @@
-"""Run the analyses of a study and write the results folder.
+"""Run the analyses of a study: JudgmentTable in, :class:`AuditResult` out.
 
-``audit()`` is pure: JudgmentTable in, :class:`AuditResult` out. ``write_audit()``
-writes results.json, policies.json, the CSV tables and the workbook into a
-folder that appears whole or not at all.
+Pure: nothing is written here (see :mod:`calibrate.writing`), and nothing from the
+reports or the CLI is imported.
 """
 
 from __future__ import annotations
 
-import json
-import re
 from dataclasses import dataclass, field
-from importlib import resources
 from pathlib import Path
 
 import numpy as np
@@ -31,7 +27,7 @@ from .ingest import JudgmentTable, PhaseData, load_study
 from .lens import LensResult, lens_model
 from .policy import PolicySet, captured_policies, fit_policies
 from .severity import SeverityResult, severity
-from .outputs import OutputFolder, atomic_write_bytes, atomic_write_text, dump_json, escape_formula
+from .peer_agreement import PeerAgreementSet, agreement_with_panel
 from .study import StudySpec
 from .summary import DataSummary, summarize
 
@@ -47,6 +43,7 @@ class PhaseAnalyses:
     policies: PolicySet | None
     retest: RetestSet
     agreement: AgreementResult | None
+    peer_agreement: PeerAgreementSet | None
     severity: SeverityResult | None
     gstudy: GStudyResult | None
     files: FileView | None
@@ -76,7 +73,8 @@ class AuditResult:
     tables: dict[str, pd.DataFrame] = field(default_factory=dict, repr=False)
     policies: dict = field(default_factory=dict, repr=False)
     analyses: dict[str, PhaseAnalyses] = field(default_factory=dict, repr=False)
-    scale: dict = field(default_factory=dict)
+    judgment: dict = field(default_factory=dict)
+    rubric: dict | None = None
     criterion_only_for_selected: bool = False
 
     def to_dict(self) -> dict:
@@ -84,8 +82,10 @@ class AuditResult:
             "schema": RESULTS_SCHEMA,
             "tool_version": __version__,
             "seed": self.seed,
-            "study": {"name": self.study_name, "scale": self.scale,
+            "study": {"name": self.study_name,
                       "criterion_only_for_selected": self.criterion_only_for_selected},
+            "judgment": self.judgment,
+            "rubric": self.rubric,
             "inputs": list(self.inputs),
             "phases": list(self.phases),
             "warnings": list(self.warnings),
@@ -150,6 +150,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     several = first["rater"].nunique() >= 2
     agreement = (panel_agreement(first, scale=kind, scale_min=lo, scale_max=hi,
                                  rng=_rng(seed, phase_index, "agreement")) if several else None)
+    peers = agreement_with_panel(first) if several else None
     sev = severity(first, scale=kind, scale_min=lo, scale_max=hi) if several else None
     gstudy = (generalizability(first, cut_off=scale.cut_off, rng=_rng(seed, phase_index, "gstudy"))
               if several else None)
@@ -192,6 +193,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
             verdicts[pol.rater] = consistency_verdict(pol.r, rt.r, r_tt_ci=(rt.r_ci_low, rt.r_ci_high),
                                                       r_s_ci=tuple(pol.r_ci))
     return PhaseAnalyses(phase=ph.label, policies=policies, retest=retest_set, agreement=agreement,
+                         peer_agreement=peers,
                          severity=sev, gstudy=gstudy, files=files, lens=lens, alignment=alignment,
                          excluded=excluded, cutoffs=cutoffs, drift=drift_result, conflict=conflict,
                          homogeneity=homogeneity, grouping=grouping, verdicts=verdicts)
@@ -217,7 +219,7 @@ def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict) -> d
         "n_repeats": counts["n_repeats"],
         "policy": policy,
     }
-    for key, result in (("retest", a.retest), ("lens", a.lens), ("severity", a.severity),
+    for key, result in (("retest", a.retest), ("agreement", a.peer_agreement), ("lens", a.lens), ("severity", a.severity),
                         ("alignment", a.alignment), ("drift", a.drift), ("cutoff", a.cutoffs)):
         item = _lookup(result, rater)
         entry[key] = None if item is None else item.to_dict()
@@ -295,13 +297,14 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
             raters.append(_rater_entry(rater, ph, a, per_rater[rater]))
         panels.append(_panel_entry(ph, a, ph_summary.connectedness.connected))
         for name, result in (("policies", a.policies), ("retest", a.retest),
-                             ("agreement", a.agreement), ("severity", a.severity),
+                             ("agreement", a.agreement), ("peer_agreement", a.peer_agreement),
+                             ("severity", a.severity),
                              ("gstudy", a.gstudy), ("files", a.files), ("lens", a.lens),
                              ("alignment", a.alignment), ("excluded", a.excluded),
                              ("cutoffs", a.cutoffs), ("drift", a.drift), ("conflict", a.conflict),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.label, name, result)
-        _collect_tables(tables, ph.label, a)
+        _collect_tables(tables, ph, a)
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.design)
     tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables}
@@ -317,13 +320,14 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
         tables=tables,
         policies=policies_out,
         analyses=analyses,
-        scale={"kind": spec.judgment.kind, "min": spec.judgment.min, "max": spec.judgment.max,
-               "cut_off": spec.judgment.cut_off},
+        judgment={"scale": spec.judgment.kind, "min": spec.judgment.min, "max": spec.judgment.max,
+                  "cut_off": spec.judgment.cut_off, "labels": dict(spec.judgment.labels)},
+        rubric=(None if not spec.rubric else {"basis": spec.rubric_basis, "shares": dict(spec.rubric)}),
         criterion_only_for_selected=spec.criterion_only_for_selected,
     )
 
 
-def _collect_tables(tables: dict[str, pd.DataFrame], phase: str, a: PhaseAnalyses) -> None:
+def _collect_tables(tables: dict[str, pd.DataFrame], ph: PhaseData, a: PhaseAnalyses) -> None:
     """Append this phase's tidy tables (a ``phase`` column first) to the study's tables."""
     frames: dict[str, pd.DataFrame | None] = {}
     if a.policies is not None:
@@ -331,7 +335,9 @@ def _collect_tables(tables: dict[str, pd.DataFrame], phase: str, a: PhaseAnalyse
         frames["policy_weights"] = a.policies.columns_frame()
         frames["policy_importance"] = a.policies.cues_frame()
     frames["retest"] = a.retest.to_frame()
-    for name in ("severity", "files", "lens", "alignment", "excluded", "cutoffs", "drift",
+    frames["repeat_pairs"] = ph.repeats.copy()
+    frames["reading_order"] = ph.ordered[["rater", "case", "position", "judgment"]].copy()
+    for name in ("peer_agreement", "severity", "files", "lens", "alignment", "excluded", "cutoffs", "drift",
                  "conflict", "grouping"):
         result = getattr(a, name)
         frames[name] = None if result is None else result.to_frame()
@@ -340,11 +346,14 @@ def _collect_tables(tables: dict[str, pd.DataFrame], phase: str, a: PhaseAnalyse
     if a.agreement is not None:
         detail = a.agreement.to_dict().get("icc_detail") or {}
         frames["agreement"] = pd.DataFrame(detail.get("forms", []))
+    if a.grouping is not None:
+        frames["group_merges"] = a.grouping.merge_frame()
+        frames["groups"] = a.grouping.groups_frame()
     for name, frame in frames.items():
         if frame is None or frame.empty:
             continue
         frame = frame.copy()
-        frame.insert(0, "phase", phase)
+        frame.insert(0, "phase", ph.label)
         tables[name] = frame if name not in tables else pd.concat([tables[name], frame],
                                                                    ignore_index=True)
 
@@ -360,115 +369,3 @@ def _rater_table(raters: list[dict]) -> pd.DataFrame:
                      "retest_r": rt.get("r"), "severity_offset": sev.get("offset"),
                      "group": e["group"], "flags": " ".join(e["flags"])})
     return pd.DataFrame(rows)
-
-
-# ----------------------------------------------------------------------------- writing
-
-
-def results_schema() -> dict:
-    """The JSON Schema of results.json (shipped in the package)."""
-    text = resources.files("calibrate").joinpath("schemas/results.schema.json").read_text("utf-8")
-    return json.loads(text)
-
-
-def _csv_bytes(frame: pd.DataFrame) -> bytes:
-    safe = frame.copy()
-    for col in safe.columns:
-        if safe[col].dtype == object:
-            safe[col] = safe[col].map(escape_formula)
-    return safe.to_csv(index=False, lineterminator="\n", float_format="%.10g").encode("utf-8")
-
-
-def _xlsx_bytes(tables: dict[str, pd.DataFrame], descriptions: dict[str, str]) -> bytes:
-    """The tables as one workbook: a sheet each, header frozen, text that looks like a
-    formula stored as text, numbers as numbers. Fixed document dates keep it reproducible."""
-    import datetime as dt
-    import io
-
-    from openpyxl import Workbook
-    from openpyxl.styles import Font
-
-    wb = Workbook()
-    readme = wb.active
-    readme.title = "read-me"
-    readme.append(["sheet", "what it holds"])
-    for name in tables:
-        readme.append([name, descriptions.get(name, "")])
-    readme["A1"].font = Font(bold=True)
-    readme["B1"].font = Font(bold=True)
-    readme.freeze_panes = "A2"
-    for name, frame in tables.items():
-        ws = wb.create_sheet(title=name[:31])
-        ws.append([str(c) for c in frame.columns])
-        for cell in ws[1]:
-            cell.font = Font(bold=True)
-        for row in frame.itertuples(index=False):
-            values = []
-            for v in row:
-                if isinstance(v, (np.floating, float)):
-                    values.append(None if not np.isfinite(v) else float(v))
-                elif isinstance(v, (np.integer,)):
-                    values.append(int(v))
-                elif isinstance(v, (np.bool_, bool)):
-                    values.append(bool(v))
-                elif v is None or v is pd.NA:
-                    values.append(None)
-                else:
-                    values.append(str(v))
-            ws.append(values)
-        for col_cells in ws.iter_cols(min_row=2):
-            for cell in col_cells:
-                if isinstance(cell.value, str):
-                    cell.data_type = "s"  # never a formula, whatever it starts with
-                elif isinstance(cell.value, float):
-                    cell.number_format = "0.000"
-        ws.freeze_panes = "A2"
-    fixed = dt.datetime(2000, 1, 1)
-    wb.properties.created = fixed
-    wb.properties.modified = fixed
-    buf = io.BytesIO()
-    wb.save(buf)
-    return _zip_fixed_dates(buf.getvalue())
-
-
-def _zip_fixed_dates(data: bytes) -> bytes:
-    """Rewrite a zip (xlsx) with fixed member dates so the same tables give the same bytes."""
-    import io
-    import zipfile
-
-    src = zipfile.ZipFile(io.BytesIO(data))
-    out = io.BytesIO()
-    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
-        for info in src.infolist():
-            fixed = zipfile.ZipInfo(info.filename, date_time=(2000, 1, 1, 0, 0, 0))
-            fixed.compress_type = zipfile.ZIP_DEFLATED
-            fixed.external_attr = 0o644 << 16
-            content = src.read(info.filename)
-            if info.filename == "docProps/core.xml":
-                # openpyxl stamps the save time into the document properties
-                content = re.sub(rb"(<dcterms:(?:created|modified)[^>]*>)[^<]*", rb"\g<1>2000-01-01T00:00:00Z",
-                                 content)
-            dst.writestr(fixed, content)
-    return out.getvalue()
-
-
-TABLE_DESCRIPTIONS = {
-    "raters": "One row per rater and phase: counts, group and flags.",
-    "data_summary": "One row per rater and phase: cases, repeats, all judgments, usable cases, "
-                    "cases per model term.",
-}
-
-
-def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False,
-                progress: bool = False) -> Path:
-    """Write the results folder; returns its path. The folder appears whole or not at all."""
-    out = Path(out)
-    with OutputFolder(out, overwrite=overwrite) as tmp:
-        atomic_write_text(tmp / "results.json", dump_json(result.to_dict()))
-        if result.policies:
-            atomic_write_text(tmp / "policies.json", dump_json(jsonable(result.policies)))
-        tables_dir = tmp / "tables"
-        for name, frame in result.tables.items():
-            atomic_write_bytes(tables_dir / f"{name}.csv", _csv_bytes(frame))
-        atomic_write_bytes(tmp / "audit.xlsx", _xlsx_bytes(result.tables, TABLE_DESCRIPTIONS))
-    return out

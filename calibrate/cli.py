@@ -118,26 +118,56 @@ def check(spec: Path) -> None:
               help="Folder for the results (created; see --overwrite).")
 @click.option("--overwrite", is_flag=True, help="Replace the output folder if it exists.")
 @click.option("--seed", type=int, default=None, help="Resampling seed [default: the spec's seed].")
-def audit(spec: Path, out: Path, overwrite: bool, seed: int | None) -> None:
-    """Run the full audit and write results.json, tables, a workbook and reports into OUT."""
+@click.option("--no-pdf", "no_pdf", is_flag=True, help="Skip the PDF reports (results, tables and "
+              "workbook only).")
+@click.option("--jobs", type=click.IntRange(min=1), default=1, show_default=True,
+              help="Worker processes for building the rater PDFs.")
+@click.option("--show-excluded-to-raters", "include_excluded", is_flag=True,
+              help="Also print the excluded-attribute result in each rater's own report "
+                   "(by default it stays in the chair's summary).")
+def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool, jobs: int,
+          include_excluded: bool) -> None:
+    """Run the full audit and write results, tables, a workbook and PDF reports into OUT."""
+    from tqdm import tqdm
+
     from .audit import audit as run_audit
-    from .audit import write_audit
     from .ingest import load_study
     from .outputs import OutputFolder
+    from .writing import write_audit
 
     OutputFolder(out, overwrite=overwrite)  # refuse early, before any work
     table = load_study(spec)
     for w in table.warnings:
         click.echo(f"warning: {w}", err=True)
-    result = run_audit(table, seed=seed)
-    write_audit(result, out, overwrite=overwrite)
+    with tqdm(desc="analyses", unit=" step", leave=False, disable=None, file=sys.stderr) as bar:
+        def step(name: str) -> None:
+            bar.set_postfix_str(name)
+            bar.update(1)
+
+        result = run_audit(table, seed=seed, progress=step)
+    bar_pdf = tqdm(desc="reports", unit=" pdf", leave=False, disable=None if not no_pdf else True,
+                   file=sys.stderr)
+
+    def wrote(done: int, total: int, name: str) -> None:
+        bar_pdf.total = total
+        bar_pdf.update(done - bar_pdf.n)
+
+    try:
+        write_audit(result, out, overwrite=overwrite, pdf=not no_pdf, jobs=jobs,
+                    include_excluded=include_excluded, progress=wrote)
+    finally:
+        bar_pdf.close()
     n_raters = len({e["rater"] for e in result.raters})
     click.echo(f"Audited {n_raters} raters over {len(result.phases)} phase(s): "
                f"{', '.join(result.phases)}.")
     flagged = [e for e in result.raters if e["flags"]]
+    if flagged:
+        click.echo("Flags (see the README for what each means):")
     for e in flagged:
         click.echo(f"  {e['rater']} ({e['phase']}): {', '.join(e['flags'])}")
-    click.echo(f"Results: {out}/results.json, tables in {out}/tables/, workbook {out}/audit.xlsx")
+    click.echo(f"Results: {out}/results.json; tables in {out}/tables/; workbook {out}/audit.xlsx")
+    if not no_pdf:
+        click.echo(f"Reports: {out}/panel-summary.pdf and one private report per rater in {out}/raters/")
 
 
 if __name__ == "__main__":  # pragma: no cover

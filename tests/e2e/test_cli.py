@@ -9,7 +9,7 @@ import jsonschema
 import numpy as np
 import pytest
 
-from calibrate.audit import results_schema
+from calibrate.writing import results_schema
 from tests.helpers import simple_judgments, write_study
 
 

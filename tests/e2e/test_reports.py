@@ -10,7 +10,8 @@ import time
 import pytest
 from pypdf import PdfReader
 
-from calibrate.audit import audit, write_audit
+from calibrate.audit import audit
+from calibrate.writing import write_audit
 from calibrate.demo import write_demo
 from calibrate.report import build_reports, load_report_input, panel_pdf, rater_file_names, rater_pdf
 from calibrate.report._read import as_report_input, id_pattern
