@@ -28,7 +28,7 @@ import pandas as pd
 
 from .outputs import atomic_write_text
 
-DEMO_SEED = 20261201
+DEMO_SEED = 33
 CUES = ("grades", "test_score", "essay", "interview", "field_years", "recommendation")
 RUBRIC = {"grades": 0.30, "test_score": 0.15, "essay": 0.20, "interview": 0.20,
           "field_years": 0.10, "recommendation": 0.05}
@@ -303,6 +303,16 @@ def _readme_text() -> str:
         "",
         "The planted groups hold in the `before` round; in `after`, trained reviewers have moved",
         "toward the rubric, so the grouping there is expected to change.",
+        "",
+        "## About chance findings",
+        "",
+        f"The data is one seeded draw (seed {DEMO_SEED}). Some checks flag a reviewer who follows a",
+        "straight-line policy at a known chance rate: the cut-off rule check at 5% per reviewer and",
+        "phase, for example, so a panel of 14 reviewers in two phases shows about one such flag on",
+        "average. This draw was picked so that no chance flag muddies the planted truths above;",
+        "other seeds (`calibrate.demo.write_demo(folder, seed=...)`) show chance flags at the stated",
+        "rates, which is what real panels look like too. Rounding scores to the 1-7 scale and",
+        "capping them at its ends also bends the policies slightly, which curvature checks can see.",
         "",
     ]
     return "\n".join(lines)
