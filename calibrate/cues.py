@@ -39,6 +39,8 @@ class CueDesign(ResultMixin):
     cues : cue names in spec order.
     kinds : cue -> "numeric" | "categorical".
     reference_levels : categorical cue -> its reference level.
+    missing_rules : cue -> "drop" | "indicator" (how a missing value is handled).
+    fill_values : numeric cue with the indicator rule -> the mean that fills a missing value.
     """
 
     case_ids: tuple[str, ...]
@@ -48,6 +50,8 @@ class CueDesign(ResultMixin):
     cues: tuple[str, ...]
     kinds: dict[str, str]
     reference_levels: dict[str, str]
+    missing_rules: dict[str, str] = field(default_factory=dict)
+    fill_values: dict[str, float] = field(default_factory=dict)
 
     @property
     def n_columns(self) -> int:
@@ -77,6 +81,8 @@ class CueDesign(ResultMixin):
             "cues": list(self.cues),
             "kinds": dict(self.kinds),
             "reference_levels": dict(self.reference_levels),
+            "missing_rules": dict(self.missing_rules),
+            "fill_values": dict(self.fill_values),
             "n_cases": len(self.case_ids),
         }
 
@@ -96,6 +102,7 @@ def build_cue_design(cases: pd.DataFrame, rules: list[CueRule]) -> CueDesign:
     owner: list[str] = []
     refs: dict[str, str] = {}
     kinds: dict[str, str] = {}
+    fills: dict[str, float] = {}
     for rule in rules:
         kinds[rule.name] = rule.kind
         raw = cases[rule.name]
@@ -116,7 +123,8 @@ def build_cue_design(cases: pd.DataFrame, rules: list[CueRule]) -> CueDesign:
             x = pd.to_numeric(raw, errors="coerce").to_numpy(dtype=float)
             if rule.missing == "indicator":
                 miss = np.isnan(x)
-                fill = np.nanmean(x) if (~miss).any() else 0.0
+                fill = float(np.nanmean(x)) if (~miss).any() else 0.0
+                fills[rule.name] = fill
                 blocks.append(np.where(miss, fill, x))
                 columns.append(rule.name)
                 owner.append(rule.name)
@@ -137,4 +145,6 @@ def build_cue_design(cases: pd.DataFrame, rules: list[CueRule]) -> CueDesign:
         cues=tuple(r.name for r in rules),
         kinds=kinds,
         reference_levels=refs,
+        missing_rules={r.name: r.missing for r in rules},
+        fill_values=fills,
     )

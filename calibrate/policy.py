@@ -1002,11 +1002,9 @@ def captured_policies(policy_set: PolicySet, design: CueDesign) -> dict[str, Any
         else:
             value_col = cols[0] if cols else None
             indicator = [j for j in cols if design.columns[j].endswith(":missing")]
+            entry["missing_rule"] = design.missing_rules.get(cue, "drop")
             entry["missing_indicator"] = design.columns[indicator[0]] if indicator else None
-            entry["fill_value"] = None
-            if value_col is not None and indicator:
-                filled = matrix[matrix[:, indicator[0]] == 1.0, value_col]
-                entry["fill_value"] = float(filled[0]) if filled.size else None
+            entry["fill_value"] = design.fill_values.get(cue)
             if value_col is not None:
                 with np.errstate(invalid="ignore"):
                     entry["mean"] = float(np.nanmean(matrix[:, value_col])) if np.isfinite(
