@@ -296,7 +296,7 @@ FLAG_WORDS = {
     "wide_range": "a wide part of the scale is used",
     "central_tendency": "many judgments sit in the middle of the scale",
     "drift": "judgments changed over the reading order",
-    "cutoff": "judgments jump at one point on a cue, like a cut-off",
+    "cutoff_rule": "judgments jump at one point on a cue, like a cut-off",
     "excluded_attribute": "judgments are associated with an attribute that must not count",
 }
 

@@ -43,7 +43,7 @@ def test_every_flag_the_analyses_set_has_words():
     # flag identifiers set by calibrate.policy, consistency, severity, drift, alignment, cutoffs
     for flag in ("too_few_cases", "few_cases", "not_fitted", "collinear_cues", "curvature", "inconsistent",
                  "separation", "low_retest", "lenient", "severe", "narrow_range", "wide_range",
-                 "central_tendency", "drift", "excluded_attribute", "cutoff"):
+                 "central_tendency", "drift", "excluded_attribute", "cutoff_rule"):
         assert flag in wording.FLAG_WORDS, flag
 
 
@@ -53,3 +53,16 @@ def test_sentences_talk_about_the_task_not_the_person():
              *(b.words for s in SCALES for b in s.bands)]
     for t in texts:
         assert not any(w in t.lower() for w in person_words), t
+
+
+def test_readme_flag_table_matches_the_flag_words():
+    # the README documents every flag identifier; the reports have plain words for each
+    import re
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text()
+    section = readme.split("### Flags", 1)[1].split("\n## ", 1)[0]
+    documented = set()
+    for cell in re.findall(r"^\| (`[^|]+`) \|", section, flags=re.M):
+        documented |= set(re.findall(r"`([a-z_]+)`", cell))
+    assert documented == set(wording.FLAG_WORDS)
