@@ -301,20 +301,45 @@ class PanelReport:
         chosen = frame[frame[flag_col].astype(bool)]
         if chosen.empty:
             return story + [text("No file needs another read.", BODY)]
+        chosen = self._most_urgent_first(chosen)
         cols = [c for c in ("phase", "case", "n_readers", "raw_mean", "adjusted", "spread_sd", "disagreement",
                             "reasons") if c in chosen.columns]
         rows = [[text(c.replace("_", " "), CELL_BOLD) for c in cols]]
         story.append(text(f"{len(chosen)} file(s) were marked for another read: readers disagreed more than "
-                          "usual, or the file sits close to the cut-off. Raw mean: average judgment; adjusted: "
-                          "after removing each reader's severity offset.", BODY))
-        for _, r in chosen.head(40).iterrows():
+                          "usual, or the cut-off lies within the file's uncertainty, so its side of the cut-off "
+                          "depends on who read it. Most urgent first: disagreement, then the files closest to "
+                          "the cut-off. Raw mean: average judgment; adjusted: after removing each reader's "
+                          "severity offset.", BODY))
+        per_phase = 40 // max(1, chosen["phase"].nunique()) if "phase" in chosen.columns else 40
+        shown = (chosen.groupby("phase", sort=False).head(per_phase) if "phase" in chosen.columns
+                 else chosen.head(per_phase))
+        for _, r in shown.iterrows():
             rows.append([text(fmt(num(r[c])) if isinstance(r[c], float) else str(r[c]), CELL) for c in cols])
         table = Table(rows, repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
-        if len(chosen) > 40:
-            story.append(text(f"{len(chosen) - 40} more in the workbook.", SMALL))
+        if len(chosen) > len(shown):
+            story.append(text(f"{len(chosen) - len(shown)} more in the files table of the workbook.", SMALL))
         return story
+
+    def _most_urgent_first(self, chosen):
+        """Files whose readers disagree come first, then files whose adjusted score sits closest
+        to the cut-off for its uncertainty; phases keep their order."""
+        cut = num(dig(self.data.results, "judgment", "cut_off"))
+        chosen = chosen.copy()
+        reasons = chosen["reasons"].astype(str) if "reasons" in chosen.columns else ""
+        chosen["_disagree"] = ~reasons.str.contains("high_disagreement") if "reasons" in chosen.columns else True
+        if cut is not None and {"adjusted", "se"} <= set(chosen.columns):
+            chosen["_closeness"] = (chosen["adjusted"] - cut).abs() / chosen["se"].where(chosen["se"] > 0)
+        else:
+            chosen["_closeness"] = 0.0
+        phases = list(self.data.results.get("phases", []))
+        if "phase" in chosen.columns:
+            chosen["_phase"] = chosen["phase"].map({p: i for i, p in enumerate(phases)})
+        else:
+            chosen["_phase"] = 0
+        chosen = chosen.sort_values(["_phase", "_disagree", "_closeness"], kind="mergesort")
+        return chosen.drop(columns=["_disagree", "_closeness", "_phase"])
 
     def excluded(self) -> list:
         story = [CondPageBreak(150), text("Attributes that must not count", HEADING)]
