@@ -142,8 +142,17 @@ def format_summary(summary: DataSummary) -> str:
                                                       summary.reference_levels.items()))
     miss = {k: v for k, v in summary.missing_per_cue.items() if v}
     lines.append("Missing cue values: " + (", ".join(f"{k} {v}" for k, v in miss.items()) or "none"))
-    strong = []
     terms = list(summary.cue_correlations)
+    if 1 < len(terms) <= 15:
+        lines.append("Cue intercorrelations (r over the judged cases):")
+        width = max(len(t) for t in terms)
+        for i, a in enumerate(terms):
+            cells = []
+            for b in terms[:i]:
+                r = summary.cue_correlations[a][b]
+                cells.append("   . " if r is None else f"{r:+.2f}")
+            lines.append(f"  {a:<{width}} " + " ".join(cells))
+    strong = []
     for i, a in enumerate(terms):
         for b in terms[i + 1:]:
             r = summary.cue_correlations[a][b]
