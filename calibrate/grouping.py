@@ -18,46 +18,44 @@ Overall R^2 here is ``1 - sum(RSS of every group's equation) / sum(each rater's
 centred sum of squares of judgments)``: the share of each rater's own spread of
 judgments that the group equations explain. Differences in leniency (intercepts)
 are not counted as explained, in line with giving each rater an intercept.
+
+This module holds the results and the public entry point :func:`group_raters`; the
+merge engine is in :mod:`calibrate.grouping_merges` and the checks on a grouping
+(number of groups, resampling stability, Ward cross-check) in
+:mod:`calibrate.grouping_stability`.
 """
 
 from __future__ import annotations
 
 import dataclasses
-import math
 from dataclasses import dataclass, field
 from itertools import combinations
 
 import numpy as np
 import pandas as pd
-from scipy import sparse
-from scipy.cluster.hierarchy import fcluster, linkage
-from scipy.optimize import linear_sum_assignment
 
 from ._results import ResultMixin, jsonable
 from .cues import CueDesign
 from .errors import DataError
+from .grouping_merges import agglomerate, labels_at, name_groups, standardized_weights
+from .grouping_stability import (
+    SURVIVAL_JACCARD,
+    adjusted_rand_index,
+    number_of_groups,
+    resample_budget,
+    resampling_stability,
+    ward_cross_check,
+)
 from .importance import cue_importance
 from .linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
 
 __all__ = [
-    "MergeStep",
     "GroupPolicy",
     "GroupingResult",
-    "group_raters",
+    "MergeStep",
     "adjusted_rand_index",
+    "group_raters",
 ]
-
-#: A group whose mean best-match Jaccard similarity over resamples falls below this
-#: is reported as not surviving resampling (Hennig 2007, Computational Statistics &
-#: Data Analysis 52:258-271, calls clusters at or below 0.5 "dissolved"; from memory).
-SURVIVAL_JACCARD = 0.5
-
-#: Work budget: simulations x raters^2 stays under this (the full 200 up to 60 raters).
-_RESAMPLE_WORK_BUDGET = 200 * 60**2
-
-#: Largest batch of small regressions solved in one call (bounds memory).
-_FIT_CHUNK = 50_000
-
 
 # --------------------------------------------------------------------------- results
 
@@ -212,201 +210,6 @@ class GroupingResult(ResultMixin):
         return pd.DataFrame(pairs, columns=["rater_a", "rater_b", "together"])
 
 
-# --------------------------------------------------------------------------- helpers
-
-
-def adjusted_rand_index(labels_a, labels_b) -> float:
-    """Adjusted Rand index between two labelings of the same items.
-
-    .. math::
-        ARI = \\frac{\\sum_{ij} \\binom{n_{ij}}{2} - E}{\\tfrac12\\left[\\sum_i \\binom{a_i}{2}
-              + \\sum_j \\binom{b_j}{2}\\right] - E}, \\quad
-        E = \\frac{\\sum_i \\binom{a_i}{2} \\sum_j \\binom{b_j}{2}}{\\binom{n}{2}}
-
-    with ``n_ij`` the contingency table and ``a_i``, ``b_j`` its margins (Hubert &
-    Arabie 1985, Journal of Classification 2:193-218). Two identical labelings give
-    1 (also when both put everything in one group); chance agreement gives about 0.
-    """
-    a = np.unique(np.asarray(labels_a), return_inverse=True)[1]
-    b = np.unique(np.asarray(labels_b), return_inverse=True)[1]
-    if a.shape != b.shape:
-        raise ValueError("the two labelings must label the same items")
-    n = a.size
-    table = np.zeros((a.max(initial=-1) + 1, b.max(initial=-1) + 1))
-    np.add.at(table, (a, b), 1.0)
-    pairs = lambda x: (x * (x - 1.0) / 2.0).sum()  # noqa: E731
-    sum_cells = pairs(table)
-    sum_a = pairs(table.sum(axis=1))
-    sum_b = pairs(table.sum(axis=0))
-    total = n * (n - 1.0) / 2.0
-    expected = sum_a * sum_b / total if total > 0 else 0.0
-    top = 0.5 * (sum_a + sum_b) - expected
-    if top == 0.0:
-        # Both labelings are trivial (all one group, or all singletons): they agree.
-        return 1.0
-    return float((sum_cells - expected) / (top))
-
-
-def _group_label(i: int) -> str:
-    """'A'..'Z', then 'AA', 'AB', ... (spreadsheet-style)."""
-    label = ""
-    i += 1
-    while i:
-        i, rem = divmod(i - 1, 26)
-        label = chr(65 + rem) + label
-    return label
-
-
-def _batched_rss(sscp: np.ndarray, n: np.ndarray, p: int) -> np.ndarray:
-    """RSS of the judgment (last column) on the p cues for a stack of centred SSCPs.
-
-    NaN where the cues are rank-deficient in that SSCP.
-    """
-    shape = sscp.shape[:-2]
-    k = sscp.shape[-1]
-    flat = sscp.reshape(-1, k, k)
-    flat_n = np.broadcast_to(n, shape).reshape(-1)
-    out = np.empty(flat.shape[0])
-    cols = np.arange(p)
-    for start in range(0, flat.shape[0], _FIT_CHUNK):
-        stop = start + _FIT_CHUNK
-        stats = GroupedSSCP(n=flat_n[start:stop], mean=np.zeros((len(flat_n[start:stop]), k)),
-                            sscp=flat[start:stop])
-        out[start:stop] = ols_from_sscp(stats, cols, p).rss
-    return out.reshape(shape)
-
-
-def _merged_rss(sscp: np.ndarray, n: np.ndarray, p: int) -> np.ndarray:
-    """RSS for stacked SSCPs of merged groups, (M, k, k) -> (M,).
-
-    A sum of full-rank rater SSCPs is full rank, so a batched solve on the
-    correlation-scaled cue block suffices (no eigen-decomposition: about 10 times
-    faster than :func:`ols_from_sscp`, which also checks rank). Should a chunk still
-    prove singular, it goes through the rank-checked path.
-    """
-    out = np.empty(sscp.shape[0])
-    for start in range(0, sscp.shape[0], _FIT_CHUNK):
-        part = sscp[start:start + _FIT_CHUNK]
-        d = np.sqrt(np.einsum("mii->mi", part[:, :p, :p]))
-        corr = part[:, :p, :p] / (d[:, :, None] * d[:, None, :])
-        rhs = part[:, :p, p] / d
-        try:
-            coef = np.linalg.solve(corr, rhs[..., None])[..., 0]
-        except np.linalg.LinAlgError:
-            out[start:start + _FIT_CHUNK] = _batched_rss(part, n[start:start + _FIT_CHUNK], p)
-            continue
-        out[start:start + _FIT_CHUNK] = np.maximum(
-            part[:, p, p] - np.einsum("mp,mp->m", coef, rhs), 0.0)
-    return out
-
-
-@dataclass
-class _Agglomeration:
-    """Lockstep merge state for a batch of B groupings of R raters."""
-
-    labels: np.ndarray          # (B, R) slot each rater currently belongs to; -1 absent
-    history: list               # per step: (b-array, i, j, cost, rss_total, n_groups)
-    last_cost: np.ndarray       # (B,) RSS cost of each batch's last merge (NaN: none)
-    tss: np.ndarray             # (B,) sum of the active raters' centred SS of judgments
-
-
-def _agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
-                 stop_at: int, record: bool) -> _Agglomeration:
-    """Merge groups bottom-up, the cheapest merge first, in every batch at once.
-
-    sscp : (B, R, k, k) centred SSCP per rater; n : (B, R) judgments per rater;
-    active : (B, R) raters taking part. Merging stops in a batch when it has
-    ``stop_at`` groups. Ties go to the lowest (i, j) slot pair, so runs repeat.
-    """
-    B, R = active.shape
-    group_sscp = np.where(active[:, :, None, None], sscp, 0.0)
-    group_n = np.where(active, n, 0.0)
-    group_rss = np.where(active, _batched_rss(group_sscp, group_n, p), 0.0)
-    labels = np.where(active, np.arange(R)[None, :], -1)
-
-    cost = np.full((B, R, R), np.inf)
-    iu, ju = np.triu_indices(R, k=1)
-    all_bb, all_pair = np.nonzero(active[:, iu] & active[:, ju])
-    # In chunks: B * R^2 / 2 stacked SSCPs at once would take gigabytes for big panels.
-    for start in range(0, all_bb.size, _FIT_CHUNK):
-        bb, pair = all_bb[start:start + _FIT_CHUNK], all_pair[start:start + _FIT_CHUNK]
-        a, b = iu[pair], ju[pair]
-        pair_rss = _merged_rss(group_sscp[bb, a] + group_sscp[bb, b],
-                               group_n[bb, a] + group_n[bb, b], p)
-        cost[bb, a, b] = pair_rss - group_rss[bb, a] - group_rss[bb, b]
-        cost[bb, b, a] = cost[bb, a, b]
-    alive = active.copy()
-
-    history = []
-    last_cost = np.full(B, np.nan)
-    n_groups = active.sum(axis=1)
-    batch = np.arange(B)
-    while True:
-        todo = batch[n_groups > stop_at]
-        if todo.size == 0:
-            break
-        flat = (cost if todo.size == B else cost[todo]).reshape(todo.size, -1).argmin(axis=1)
-        i, j = np.divmod(flat, R)
-        i, j = np.minimum(i, j), np.maximum(i, j)
-        step_cost = cost[todo, i, j]
-        last_cost[todo] = step_cost
-        if record:
-            history.append((todo.copy(), i.copy(), j.copy(), step_cost.copy(),
-                            group_rss[todo].sum(axis=1), n_groups[todo].copy()))
-        group_sscp[todo, i] += group_sscp[todo, j]
-        group_n[todo, i] += group_n[todo, j]
-        group_sscp[todo, j] = 0.0
-        group_n[todo, j] = 0.0
-        group_rss[todo, i] += group_rss[todo, j] + step_cost
-        group_rss[todo, j] = 0.0
-        moved = labels[todo] == j[:, None]
-        labels[todo] = np.where(moved, i[:, None], labels[todo])
-        cost[todo, j, :] = np.inf
-        cost[todo, :, j] = np.inf
-        n_groups[todo] -= 1
-        alive[todo, j] = False
-        live = alive[todo]
-        live[np.arange(todo.size), i] = False
-        rows, other = np.nonzero(live)
-        tb, ti = todo[rows], i[rows]
-        new_rss = _merged_rss(group_sscp[tb, ti] + group_sscp[tb, other],
-                              group_n[tb, ti] + group_n[tb, other], p)
-        cost[tb, ti, other] = new_rss - group_rss[tb, ti] - group_rss[tb, other]
-        cost[tb, other, ti] = cost[tb, ti, other]
-    tss = np.where(active, sscp[:, :, p, p], 0.0).sum(axis=1)
-    return _Agglomeration(labels=labels, history=history, last_cost=last_cost, tss=tss)
-
-
-def _labels_at(labels_start: np.ndarray, history: list, n_steps: int) -> np.ndarray:
-    """Slot labels (single batch) after the first ``n_steps`` merges."""
-    labels = labels_start.copy()
-    for _, i, j, *_ in history[:n_steps]:
-        labels = np.where(labels == j[0], i[0], labels)
-    return labels
-
-
-def _name_groups(slots: np.ndarray, raters: list[str]) -> list[str | None]:
-    """Letters by group size (largest 'A'); ties by the group's first rater id."""
-    present = sorted({int(s) for s in slots if s >= 0})
-    members = {s: [raters[k] for k in np.flatnonzero(slots == s)] for s in present}
-    order = sorted(present, key=lambda s: (-len(members[s]), min(members[s])))
-    name = {s: _group_label(pos) for pos, s in enumerate(order)}
-    return [name[int(s)] if s >= 0 else None for s in slots]
-
-
-def _standardized(coef: np.ndarray, sscp: np.ndarray, p: int) -> np.ndarray:
-    """Standardized weights b_j * sd(x_j) / sd(y) from a centred SSCP (any leading shape)."""
-    d = np.sqrt(np.einsum("...ii->...i", sscp))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return coef * d[..., :p] / d[..., p:p + 1]
-
-
-def _resample_budget(n_resamples: int, n_raters: int, *, floor: int = 20) -> int:
-    """Simulations to run: as asked, fewer for big panels, never fewer than ``floor``."""
-    if n_raters < 2:
-        return n_resamples
-    return min(n_resamples, max(floor, _RESAMPLE_WORK_BUDGET // (n_raters * n_raters)))
-
 
 def _as_generator(rng) -> np.random.Generator:
     if isinstance(rng, np.random.Generator):
@@ -540,19 +343,100 @@ def group_raters(
 
     n_eligible = int(eligible.sum())
     active = eligible[None, :]
-    agg = _agglomerate(full.sscp[None], full.n[None], active, p, stop_at=1, record=True)
+    agg = agglomerate(full.sscp[None], full.n[None], active, p, stop_at=1, record=True)
     tss = float(full.sscp[eligible, p, p].sum())
     n_total = float(full.n[eligible].sum())
     with np.errstate(invalid="ignore", divide="ignore"):
         r2_individual = 1.0 - float(own.rss[eligible].sum()) / tss if n_eligible else np.nan
 
     start_labels = np.where(eligible, np.arange(R), -1)
+    merges = _merge_steps(agg.history, start_labels, raters, tss=tss,
+                          n_residual=n_total - n_eligible, p=p)
+
+    if n_groups is not None:
+        if not 1 <= n_groups <= max(n_eligible, 1):
+            raise DataError(f"n_groups must be between 1 and {max(n_eligible, 1)} "
+                            f"(the raters that can be grouped); got {n_groups!r}.")
+        chosen = int(n_groups)
+        rule = f"{chosen} group(s), as asked."
+    else:
+        asked_null, n_null = n_null, resample_budget(n_null, n_eligible, floor=50)
+        if n_null < asked_null:
+            warnings.append(f"The number-of-groups test simulated {n_null} panels instead of "
+                            f"{asked_null} to keep the run short for {n_eligible} raters.")
+        chosen, p_values = number_of_groups(
+            {m.n_groups: m.r2_drop for m in merges}, Z, who, start_labels, agg.history,
+            eligible, own.rss, own.df_resid, p, threshold=threshold, alpha=alpha,
+            n_sims=n_null, generator=generator)
+        merges = [dataclasses.replace(m, p_value=p_values[m.n_groups])
+                  if m.n_groups in p_values else m for m in merges]
+        rule = (f"Keep two groups apart when merging them loses more than {threshold:g} "
+                f"of overall R^2 and more than in panels simulated with one shared policy "
+                f"for them (p < {alpha:g}, {n_null} simulations).")
+    if n_eligible == 0:
+        chosen = 0
+        warnings.append("No rater's policy could be fitted; no groups formed.")
+    slots = labels_at(start_labels, agg.history, max(n_eligible - chosen, 0))
+    names = name_groups(slots, raters)
+    rater_group = dict(zip(raters, names))
+
+    used_resamples = resample_budget(n_resamples, n_eligible) if n_eligible >= 2 else 0
+    if used_resamples < n_resamples and n_eligible >= 2:
+        warnings.append(f"Stability used {used_resamples} case resamples instead of "
+                        f"{n_resamples} to keep the run short for {n_eligible} raters.")
+    stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots, eligible,
+                                     p, chosen, used_resamples, generator)
+    if stability.n_sat_out:
+        warnings.append(f"In {stability.n_sat_out} of {used_resamples} resamples some rater "
+                        "had too few distinct cases for an equation and sat that resample out.")
+    ari = stability.ari
+
+    groups = _group_policies(full, slots, names, raters, p, design, cue_names, cue_columns,
+                             stability.jaccard, warnings)
+    for g in groups:
+        if g.survives is False:
+            warnings.append(f"Group {g.group} does not survive resampling of cases "
+                            f"(mean Jaccard similarity {g.stability:.2f}, below "
+                            f"{SURVIVAL_JACCARD}); treat it as unstable.")
+
+    ward_names, ward_ari, ward_matched = ward_cross_check(own.coef, full.sscp, eligible, p,
+                                                          chosen, raters, slots)
+
+    return GroupingResult(
+        raters=tuple(raters),
+        rater_group=rater_group,
+        merges=tuple(merges),
+        r2_individual=r2_individual,
+        n_groups=chosen,
+        rule=rule,
+        threshold=float(threshold),
+        alpha=float(alpha),
+        groups=tuple(groups),
+        n_resamples=used_resamples,
+        ari_estimate=float(ari.mean()) if ari.size else np.nan,
+        ari_ci_low=float(np.quantile(ari, 0.025)) if ari.size else np.nan,
+        ari_ci_high=float(np.quantile(ari, 0.975)) if ari.size else np.nan,
+        co_assignment=stability.co_assignment,
+        ward_group=dict(zip(raters, ward_names)),
+        ward_ari=float(ward_ari),
+        ward_matched=float(ward_matched),
+        warnings=tuple(warnings),
+    )
+
+
+def _merge_steps(history, start_labels, raters, *, tss, n_residual, p) -> list[MergeStep]:
+    """The merge table of one grouping, from the recorded history of :func:`agglomerate`.
+
+    ``n_residual`` is the judgments pooled less one intercept per rater; the F of
+    equal slopes (Chow 1960) has ``p`` and ``n_residual - p * groups_before``
+    degrees of freedom.
+    """
     merges: list[MergeStep] = []
     labels = start_labels.copy()
-    for step, (_, i, j, cost, rss_before, groups_before) in enumerate(agg.history, start=1):
+    for step, (_, i, j, cost, rss_before, groups_before) in enumerate(history, start=1):
         i, j, cost = int(i[0]), int(j[0]), float(cost[0])
         rss_before, groups_before = float(rss_before[0]), int(groups_before[0])
-        df_den = n_total - n_eligible - groups_before * p
+        df_den = n_residual - groups_before * p
         with np.errstate(invalid="ignore", divide="ignore"):
             f_stat = (cost / p) / (rss_before / df_den) if df_den > 0 else np.nan
         rss_after = rss_before + cost
@@ -569,220 +453,7 @@ def group_raters(
             p_value=np.nan,
         ))
         labels = np.where(labels == j, i, labels)
-
-    if n_groups is not None:
-        if not 1 <= n_groups <= max(n_eligible, 1):
-            raise DataError(f"n_groups must be between 1 and {max(n_eligible, 1)} "
-                            f"(the raters that can be grouped); got {n_groups!r}.")
-        chosen = int(n_groups)
-        rule = f"{chosen} group(s), as asked."
-    else:
-        chosen = 1
-        by_groups = {m.n_groups: m for m in merges}
-        asked_null, n_null = n_null, _resample_budget(n_null, n_eligible, floor=50)
-        if n_null < asked_null:
-            warnings.append(f"The number-of-groups test simulated {n_null} panels instead of "
-                            f"{asked_null} to keep the run short for {n_eligible} raters.")
-        while chosen in by_groups:
-            m = by_groups[chosen]
-            if not m.r2_drop > threshold:
-                break
-            level_slots = _labels_at(start_labels, agg.history, n_eligible - chosen)
-            null = _null_drops(Z, who, level_slots, eligible, own.rss, own.df_resid, p,
-                               chosen, n_null, generator)
-            p_mc = (1.0 + np.sum(null >= m.r2_drop)) / (n_null + 1.0)
-            merges[m.step - 1] = dataclasses.replace(m, p_value=float(p_mc))
-            if not p_mc < alpha:
-                break
-            chosen += 1
-        rule = (f"Keep two groups apart when merging them loses more than {threshold:g} "
-                f"of overall R^2 and more than in panels simulated with one shared policy "
-                f"for them (p < {alpha:g}, {n_null} simulations).")
-    if n_eligible == 0:
-        chosen = 0
-        warnings.append("No rater's policy could be fitted; no groups formed.")
-    slots = _labels_at(start_labels, agg.history, max(n_eligible - chosen, 0))
-    names = _name_groups(slots, raters)
-    rater_group = dict(zip(raters, names))
-
-    # Stability: all resamples grouped in lockstep.
-    used_resamples = _resample_budget(n_resamples, n_eligible) if n_eligible >= 2 else 0
-    if used_resamples < n_resamples and n_eligible >= 2:
-        warnings.append(f"Stability used {used_resamples} case resamples instead of "
-                        f"{n_resamples} to keep the run short for {n_eligible} raters.")
-    co = np.full((R, R), np.nan)
-    ari = np.array([])
-    jaccard = {}
-    if used_resamples:
-        counts = generator.multinomial(len(design.case_ids),
-                                       np.full(len(design.case_ids), 1.0 / len(design.case_ids)),
-                                       size=used_resamples).astype(float)
-        boot_slots = _resampled_labels(Z, who, case_row, counts, eligible, p, chosen)
-        present = boot_slots >= 0
-        same = (boot_slots[:, :, None] == boot_slots[:, None, :]) & present[:, :, None] \
-            & present[:, None, :]
-        both = (present[:, :, None] & present[:, None, :]).sum(axis=0)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            co = np.where(both > 0, same.sum(axis=0) / both, np.nan)
-        ari = np.array([adjusted_rand_index(slots[present[b] & eligible],
-                                            boot_slots[b][present[b] & eligible])
-                        for b in range(used_resamples)])
-        jaccard = _group_jaccard(slots, boot_slots, eligible)
-        dropped = int((~present[:, eligible]).any(axis=1).sum())
-        if dropped:
-            warnings.append(f"In {dropped} of {used_resamples} resamples some rater had too "
-                            "few distinct cases for an equation and sat that resample out.")
-
-    groups = _group_policies(full, slots, names, raters, p, design, cue_names, cue_columns,
-                             jaccard, warnings)
-    for g in groups:
-        if g.survives is False:
-            warnings.append(f"Group {g.group} does not survive resampling of cases "
-                            f"(mean Jaccard similarity {g.stability:.2f}, below "
-                            f"{SURVIVAL_JACCARD}); treat it as unstable.")
-
-    ward_names = _ward_view(own.coef, full.sscp, eligible, p, chosen, raters)
-    ward_slots = np.array([-1 if w is None else sorted(set(filter(None, ward_names))).index(w)
-                           for w in ward_names])
-    if n_eligible >= 2:
-        ward_ari = adjusted_rand_index(slots[eligible], ward_slots[eligible])
-        ward_matched = _matched_share(slots[eligible], ward_slots[eligible])
-    else:
-        ward_ari = ward_matched = np.nan
-
-    return GroupingResult(
-        raters=tuple(raters),
-        rater_group=rater_group,
-        merges=tuple(merges),
-        r2_individual=r2_individual,
-        n_groups=chosen,
-        rule=rule,
-        threshold=float(threshold),
-        alpha=float(alpha),
-        groups=tuple(groups),
-        n_resamples=used_resamples,
-        ari_estimate=float(ari.mean()) if ari.size else np.nan,
-        ari_ci_low=float(np.quantile(ari, 0.025)) if ari.size else np.nan,
-        ari_ci_high=float(np.quantile(ari, 0.975)) if ari.size else np.nan,
-        co_assignment=co,
-        ward_group=dict(zip(raters, ward_names)),
-        ward_ari=float(ward_ari),
-        ward_matched=float(ward_matched),
-        warnings=tuple(warnings),
-    )
-
-
-def _stacked_sscp(Z, who, R, *, weights=None, judgments=None):
-    """Per-rater centred SSCPs for B variants of the data, without copying rows.
-
-    Variant ``b`` either weights the rows by ``weights[b]`` (case resamples as count
-    vectors) or replaces the judgment column by ``judgments[b]`` (simulated
-    judgments). Rows are first centred at each rater's full-data mean (so the
-    moments below suffer no cancellation), then every variant's weighted sums
-    and cross-products come from one sparse matrix product per moment:
-    ``S = sum w z z' - (sum w z)(sum w z)' / sum w``. Returns ``sscp`` (B, R, k, k)
-    and ``n`` (B, R); equal to :func:`grouped_sscp` per variant (tested).
-    """
-    m, k = Z.shape
-    p = k - 1
-    base = grouped_sscp(Z, who, R)
-    centred = Z - base.mean[who]
-    rows = np.arange(m)
-
-    def scatter(values):  # (m, w) -> sparse (m, R * w), rater blocks side by side
-        w = values.shape[1]
-        cols = (who[:, None] * w + np.arange(w)[None, :]).ravel()
-        return sparse.csr_array((values.ravel(), (np.repeat(rows, w), cols)), shape=(m, R * w))
-
-    def times(dense, matrix):  # dense (B, m) @ sparse (m, c) -> dense (B, c)
-        return np.asarray((matrix.T @ dense.T).T)
-
-    indicator = scatter(np.ones((m, 1)))
-    if judgments is None:
-        B = weights.shape[0]
-        n = times(weights, indicator)
-        sums = times(weights, scatter(centred)).reshape(B, R, k)
-        outer = (centred[:, :, None] * centred[:, None, :]).reshape(m, k * k)
-        moments = times(weights, scatter(outer)).reshape(B, R, k, k)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            shift = sums[..., :, None] * sums[..., None, :] / n[..., None, None]
-        sscp = moments - np.where(n[..., None, None] > 0, shift, 0.0)
-        diagonal = np.einsum("brii->bri", sscp)  # a writable view
-        np.maximum(diagonal, 0.0, out=diagonal)  # rounding can leave -1e-17
-        return sscp, n
-    B = judgments.shape[0]
-    n = np.broadcast_to(base.n, (B, R)).copy()
-    sums = times(judgments, indicator)
-    cross = times(judgments, scatter(centred[:, :p])).reshape(B, R, p)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        ss = times(judgments * judgments, indicator) - np.where(n > 0, sums * sums / n, 0.0)
-    sscp = np.broadcast_to(base.sscp, (B, R, k, k)).copy()
-    sscp[..., :p, p] = cross
-    sscp[..., p, :p] = cross
-    sscp[..., p, p] = np.maximum(ss, 0.0)
-    return sscp, n
-
-
-def _null_drops(Z, who, slots, eligible, own_rss, own_df, p, n_groups, n_sims, generator):
-    """Overall-R^2 drop of the merge into ``n_groups`` groups when ``n_groups`` is true.
-
-    Parametric bootstrap: judgments are simulated from the ``n_groups``-group model
-    (each group's common weights; each rater's own residual spread, normal errors),
-    regrouped from scratch, and the drop of the merge that reaches ``n_groups``
-    groups is recorded (McLachlan 1987, Applied Statistics 36:318-324, bootstraps the
-    test for the number of mixture components this way; from memory).
-    """
-    R = eligible.size
-    present = np.unique(slots[slots >= 0])
-    member = (slots[None, :] == present[:, None]).astype(float)
-    base = grouped_sscp(Z, who, R)
-    pooled = np.einsum("gr,rij->gij", member, base.sscp)
-    fit = ols_from_sscp(GroupedSSCP(n=member @ base.n, mean=np.zeros((present.size, p + 1)),
-                                    sscp=pooled), np.arange(p), p)
-    coef_of_rater = np.zeros((R, p))
-    rows_of_slot = np.searchsorted(present, slots[eligible])
-    coef_of_rater[eligible] = fit.coef[rows_of_slot]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sigma = np.where(eligible, np.sqrt(own_rss / own_df), 0.0)
-    # The intercepts are left out: centring within rater removes them anyway.
-    signal = np.einsum("mp,mp->m", Z[:, :p], coef_of_rater[who])
-    noise = generator.standard_normal((n_sims, Z.shape[0])) * sigma[who]
-    sscp, n = _stacked_sscp(Z, who, R, judgments=signal[None, :] + noise)
-    active = np.broadcast_to(eligible, (n_sims, R))
-    agg = _agglomerate(sscp, n, active, p, stop_at=n_groups, record=False)
-    return agg.last_cost / agg.tss
-
-
-def _resampled_labels(Z, who, case_row, counts, eligible, p, chosen) -> np.ndarray:
-    """Group every resample (rows of ``counts``) and cut at ``chosen`` groups.
-
-    Returns (B, R) slot labels; -1 for a rater left out of that resample.
-    """
-    R = eligible.size
-    sscp, n = _stacked_sscp(Z, who, R, weights=counts[:, case_row])
-    own_rss = _batched_rss(sscp, n, p)
-    active = eligible[None, :] & np.isfinite(own_rss) & (sscp[:, :, p, p] > 0)
-    agg = _agglomerate(sscp, n, active, p, stop_at=max(chosen, 1), record=False)
-    return agg.labels
-
-
-def _group_jaccard(slots: np.ndarray, boot_slots: np.ndarray, eligible: np.ndarray) -> dict:
-    """Per full-data group slot: mean over resamples of the best Jaccard match."""
-    out = {}
-    for s in sorted({int(x) for x in slots[eligible]}):
-        member = slots == s
-        scores = []
-        for labels in boot_slots:
-            here = labels >= 0
-            target = member & here
-            if not target.any():
-                continue
-            found = labels[:, None] == np.unique(labels[here])[None, :]
-            inter = (found & target[:, None]).sum(axis=0)
-            union = (found | target[:, None]).sum(axis=0)
-            scores.append((inter / union).max())
-        out[s] = float(np.mean(scores)) if scores else np.nan
-    return out
+    return merges
 
 
 def _group_policies(full, slots, names, raters, p, design, cue_names, cue_columns,
@@ -802,7 +473,7 @@ def _group_policies(full, slots, names, raters, p, design, cue_names, cue_column
     both_n = np.concatenate([pooled_n, rest_n])
     fit = ols_from_sscp(GroupedSSCP(n=both_n, mean=np.zeros((len(both_n), p + 1)), sscp=both),
                         np.arange(p), p)
-    std = _standardized(fit.coef, both, p)
+    std = standardized_weights(fit.coef, both, p)
     d = np.sqrt(np.einsum("gii->gi", both))
     with np.errstate(invalid="ignore", divide="ignore"):
         corr = both / (d[:, :, None] * d[:, None, :])
@@ -867,29 +538,3 @@ def _sets_apart_sentence(label, std_group, std_rest, share_group, share_rest,
             f"(importance share {share_group[j]:.0%} against {share_rest[j]:.0%} "
             "for the other raters).")
 
-
-def _ward_view(coef, sscp, eligible, p, chosen, raters) -> list[str | None]:
-    """Ward clustering (scipy) of the raters' standardized weight profiles."""
-    names: list[str | None] = [None] * len(raters)
-    idx = np.flatnonzero(eligible)
-    if idx.size == 0:
-        return names
-    if idx.size == 1:
-        names[idx[0]] = "A"
-        return names
-    profiles = _standardized(coef[idx], sscp[idx], p)
-    tree = linkage(profiles, method="ward")
-    cut = fcluster(tree, t=max(chosen, 1), criterion="maxclust")
-    slots = np.full(len(raters), -1)
-    slots[idx] = cut
-    return _name_groups(slots, raters)
-
-
-def _matched_share(a: np.ndarray, b: np.ndarray) -> float:
-    """Share of items labelled alike after the best one-to-one pairing of labels."""
-    ua, ia = np.unique(a, return_inverse=True)
-    ub, ib = np.unique(b, return_inverse=True)
-    table = np.zeros((ua.size, ub.size))
-    np.add.at(table, (ia, ib), 1.0)
-    rows, cols = linear_sum_assignment(-table)
-    return float(table[rows, cols].sum() / a.size)

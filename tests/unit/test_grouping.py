@@ -13,11 +13,9 @@ from sklearn.metrics import adjusted_rand_score
 
 from calibrate.cues import CueRule, build_cue_design
 from calibrate.errors import DataError
-from calibrate.grouping import (
-    _resample_budget,
-    _resampled_labels,
-    group_raters,
-)
+from calibrate.grouping import group_raters
+from calibrate.grouping_merges import stacked_sscp
+from calibrate.grouping_stability import resample_budget, resampled_labels
 from calibrate.linalg import grouped_sscp
 
 
@@ -111,7 +109,7 @@ def test_overall_r2_and_f_test_match_statsmodels_nested_models():
         partition.append(tuple(sorted(m.merged_a + m.merged_b)))
         partition = [tuple(sorted(g)) for g in partition]
         after = fit(partition)
-        f_value, p_value, df_diff = before.compare_f_test(after)  # before: unrestricted
+        f_value, _, df_diff = before.compare_f_test(after)  # before: unrestricted
         assert m.r2 == pytest.approx(1.0 - after.ssr / tss, abs=1e-10)
         assert m.f_statistic == pytest.approx(f_value, rel=1e-8)
         assert m.df_num == df_diff
@@ -222,8 +220,8 @@ def test_identity_resample_reproduces_the_full_data_grouping():
     Z = np.column_stack([design.matrix[rows], first["judgment"].to_numpy()])
     who = first["rater"].map({r: k for k, r in enumerate(result.raters)}).to_numpy()
     counts = np.ones((2, len(design.case_ids)))
-    slots = _resampled_labels(Z, who, rows, counts, np.ones(len(result.raters), bool),
-                              design.n_columns, result.n_groups)
+    slots = resampled_labels(Z, who, rows, counts, np.ones(len(result.raters), bool),
+                             design.n_columns, result.n_groups)
     truth = [result.rater_group[r] for r in result.raters]
     assert adjusted_rand_score(truth, slots[0]) == 1.0
     assert (slots[0] == slots[1]).all()
@@ -305,12 +303,12 @@ def test_user_errors_raise_data_error():
 
 
 def test_resample_budget_shrinks_for_large_panels():
-    assert _resample_budget(200, 30) == 200
-    assert _resample_budget(200, 60) == 200
-    assert _resample_budget(200, 120) == 50
-    assert _resample_budget(200, 2000) == 20
-    assert _resample_budget(100, 2000, floor=50) == 50
-    assert _resample_budget(30, 2000, floor=50) == 30  # never more than asked
+    assert resample_budget(200, 30) == 200
+    assert resample_budget(200, 60) == 200
+    assert resample_budget(200, 120) == 50
+    assert resample_budget(200, 2000) == 20
+    assert resample_budget(100, 2000, floor=50) == 50
+    assert resample_budget(30, 2000, floor=50) == 30  # never more than asked
 
 
 def test_group_importance_is_general_dominance_on_the_pooled_judgments():
@@ -319,7 +317,7 @@ def test_group_importance_is_general_dominance_on_the_pooled_judgments():
     # must give the group's importance_r2; identity: they sum to the group's R^2.
     import itertools
 
-    design, first, truth = make_panel(21, THREE_POLICIES[:2], [3, 2], share_seen=0.8,
+    design, first, _ = make_panel(21, THREE_POLICIES[:2], [3, 2], share_seen=0.8,
                                       categorical=True)
     result = group_raters(design, first, rng=0, n_resamples=0, n_groups=2)
     group = result.groups[0]
@@ -393,16 +391,14 @@ def test_f_test_p_values_would_split_one_policy_panels():
 def test_stacked_sscp_equals_grouped_sscp_per_variant():
     # Each resample / simulated variant must equal calibrate.linalg.grouped_sscp run on
     # that variant alone (two-pass centred SSCP, checked against NIST Longley there).
-    from calibrate.grouping import _stacked_sscp
-
     rng = np.random.default_rng(3)
     m, R = 90, 4
     Z = rng.normal(size=(m, 4)) + 5.0
     who = np.sort(rng.integers(0, R, m))
     counts = rng.integers(0, 3, size=(3, m)).astype(float)
     judgments = rng.normal(size=(3, m)) + 5.0
-    sscp_w, n_w = _stacked_sscp(Z, who, R, weights=counts)
-    sscp_y, n_y = _stacked_sscp(Z, who, R, judgments=judgments)
+    sscp_w, n_w = stacked_sscp(Z, who, R, weights=counts)
+    sscp_y, n_y = stacked_sscp(Z, who, R, judgments=judgments)
     for b in range(3):
         ref = grouped_sscp(Z, who, R, weights=counts[b])
         np.testing.assert_allclose(sscp_w[b], ref.sscp, atol=1e-9)
