@@ -138,14 +138,3 @@ def test_anova_on_incomplete_design_raises():
         panel_agreement(first, scale="continuous", method="anova")
     with pytest.raises(DataError, match="level must be one of"):
         krippendorff_alpha(first["case"], first["judgment"], level="cardinal")
-
-
-def test_panel_modules_load_no_plotting_or_reference_libraries():
-    import subprocess
-    import sys
-
-    code = ("import sys; import calibrate.agreement, calibrate.consistency, calibrate.severity, "
-            "calibrate.generalizability, calibrate.files; "
-            "print(sorted(m for m in ('matplotlib', 'reportlab', 'pingouin', 'statsmodels') if m in sys.modules))")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert out.stdout.strip() == "[]"

@@ -87,15 +87,3 @@ def test_user_errors_are_data_errors(panel_and_criterion, change, message):
         criterion = criterion * np.nan
     with pytest.raises(DataError, match=message):
         lens_model(panel.design, first, criterion, k_folds=change.get("k_folds", 5))
-
-
-def test_modules_load_no_plotting_or_report_code():
-    # Design rule: statistics modules never import matplotlib, reportlab or pingouin.
-    import subprocess
-    import sys
-
-    code = ("import sys, calibrate.lens, calibrate.alignment, calibrate.cutoffs; "
-            "print(sorted(m for m in ('matplotlib', 'reportlab', 'pingouin', 'calibrate.cli') "
-            "if m in sys.modules))")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert out.stdout.strip() == "[]"
