@@ -4,18 +4,16 @@ worker processes, and rebuilding from a results folder."""
 from __future__ import annotations
 
 import io
-import re
 import time
 
 import pytest
-from pypdf import PdfReader
 
 from calibrate.audit import audit
 from calibrate.writing import write_audit
 from calibrate.demo import write_demo
 from calibrate.report import build_reports, load_report_input, panel_pdf, rater_file_names, rater_pdf
 from calibrate.report._read import as_report_input, id_pattern
-from calibrate.report.wording import fmt
+from tests.pdf_text import numbers_in, numbers_of, page_texts
 
 EPOCH = "1780000000"  # 2026-05-28 UTC
 
@@ -43,11 +41,6 @@ def built(demo):
     return folder / "out", paths, calls, seconds
 
 
-def texts(data: bytes | str) -> list[str]:
-    source = io.BytesIO(data) if isinstance(data, bytes) else str(data)
-    return [page.extract_text() for page in PdfReader(source).pages]
-
-
 def test_every_report_is_written_with_progress(demo, built):
     _, result = demo
     out, paths, calls, seconds = built
@@ -65,7 +58,7 @@ def test_rater_reports_name_their_rater_and_nobody_else(demo, built):
     out, *_ = built
     ids = sorted({e["rater"] for e in result.to_dict()["raters"]})
     for rater, name in rater_file_names(ids).items():
-        pages = texts(out / "raters" / name)
+        pages = page_texts(out / "raters" / name)
         assert 2 <= len(pages) <= 4
         text = "\n".join(pages)
         assert id_pattern([rater]).search(text)
@@ -75,22 +68,10 @@ def test_rater_reports_name_their_rater_and_nobody_else(demo, built):
 def test_panel_summary_names_every_rater(demo, built):
     _, result = demo
     out, *_ = built
-    text = "\n".join(texts(out / "panel-summary.pdf"))
+    text = "\n".join(page_texts(out / "panel-summary.pdf"))
     for rater in {e["rater"] for e in result.to_dict()["raters"]}:
         assert id_pattern([rater]).search(text), rater
     assert "Audit date 2026-05-28" in text
-
-
-def _flat(node, out):
-    if isinstance(node, dict):
-        for v in node.values():
-            _flat(v, out)
-    elif isinstance(node, list):
-        for v in node:
-            _flat(v, out)
-    elif isinstance(node, (int, float)) and not isinstance(node, bool):
-        out.update({fmt(float(node)), str(node)})
-    return out
 
 
 def test_first_page_numbers_equal_results_json(demo, built):
@@ -98,11 +79,9 @@ def test_first_page_numbers_equal_results_json(demo, built):
     out, *_ = built
     data = as_report_input(result)
     for rater, name in rater_file_names(data.rater_ids()).items():
-        body = texts(out / "raters" / name)[0].split("Feedback on your judgments", 1)[1]
-        allowed = set()
-        for entry in data.entries_of(rater):
-            _flat(entry, allowed)
-        numbers = re.findall(r"(?<![\w.])-?\d+(?:\.\d+)?(?![\w])", body)
+        body = page_texts(out / "raters" / name)[0].split("Feedback on your judgments", 1)[1]
+        allowed = numbers_of(data.entries_of(rater))
+        numbers = numbers_in(body)
         assert numbers, rater
         assert [n for n in numbers if n not in allowed] == [], rater
 
@@ -131,15 +110,15 @@ def test_reports_rebuild_from_a_results_folder(demo, tmp_path, monkeypatch):
     monkeypatch.setenv("SOURCE_DATE_EPOCH", EPOCH)
     rebuilt = load_report_input(tmp_path / "audit")
     rater = rebuilt.rater_ids()[0]
-    assert texts(rater_pdf(rebuilt, rater))[0] == texts(rater_pdf(result, rater))[0]
-    assert "Panel summary" in texts(panel_pdf(rebuilt))[0]
+    assert page_texts(rater_pdf(rebuilt, rater))[0] == page_texts(rater_pdf(result, rater))[0]
+    assert "Panel summary" in page_texts(panel_pdf(rebuilt))[0]
 
 
 def test_excluded_attribute_stays_with_the_chair_by_default(demo):
     _, result = demo
     rater = result.to_dict()["raters"][0]["rater"]
-    assert "Attributes that must not count" not in "\n".join(texts(rater_pdf(result, rater)))
-    assert "Attributes that must not count" in "\n".join(texts(rater_pdf(result, rater, include_excluded=True)))
+    assert "Attributes that must not count" not in "\n".join(page_texts(rater_pdf(result, rater)))
+    assert "Attributes that must not count" in "\n".join(page_texts(rater_pdf(result, rater, include_excluded=True)))
 
 
 def test_workbook_holds_every_audit_table(demo):

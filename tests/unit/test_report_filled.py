@@ -10,7 +10,6 @@ checked here is the report, not the statistics.
 from __future__ import annotations
 
 import copy
-import re
 
 import numpy as np
 import pandas as pd
@@ -24,6 +23,7 @@ from calibrate.report import build_reports, rater_pdf
 from calibrate.report._read import ReportInput, id_pattern
 from calibrate.report.builder import rater_file_names
 from calibrate.report.wording import fmt
+from tests.pdf_text import numbers_in, numbers_of, page_texts
 
 EPOCH = "1780000000"
 
@@ -129,10 +129,6 @@ def built(filled, tmp_path_factory):
     return out, paths
 
 
-def page_texts(path) -> list[str]:
-    return [page.extract_text() for page in PdfReader(str(path)).pages]
-
-
 def test_rater_reports_name_only_their_rater(filled, built):
     out, _ = built
     ids = filled.rater_ids()
@@ -158,32 +154,13 @@ def test_panel_summary_names_every_rater_and_every_section(filled, built):
     assert "not available" not in text.split("Methods and sources")[0].split("Files that need")[0]
 
 
-def _numbers(text: str) -> list[str]:
-    return re.findall(r"(?<![\w.])-?\d+(?:\.\d+)?(?![\w])", text)
-
-
-def _flat_values(node, out):
-    if isinstance(node, dict):
-        for v in node.values():
-            _flat_values(v, out)
-    elif isinstance(node, list):
-        for v in node:
-            _flat_values(v, out)
-    elif isinstance(node, (int, float)) and not isinstance(node, bool):
-        out.add(fmt(float(node)))
-        out.add(str(node))
-    return out
-
-
 def test_first_page_numbers_come_from_results(filled, built):
     out, _ = built
     for rater, name in rater_file_names(filled.rater_ids()).items():
         first = page_texts(out / "raters" / name)[0]
         body = first.split("Feedback on your judgments", 1)[1]
-        allowed = set()
-        for entry in filled.entries_of(rater):
-            _flat_values(entry, allowed)
-        numbers = _numbers(body)
+        allowed = numbers_of(filled.entries_of(rater))
+        numbers = numbers_in(body)
         assert len(numbers) >= 8
         stray = [n for n in numbers if n not in allowed]
         assert not stray, (rater, stray)
@@ -201,9 +178,8 @@ def test_key_figures_on_the_first_page_match_the_entry(filled, built):
 
 def test_excluded_attribute_only_when_asked(filled):
     rater = filled.rater_ids()[3]
-    plain = "\n".join(p.extract_text() for p in PdfReader(__import__("io").BytesIO(rater_pdf(filled, rater))).pages)
-    asked = "\n".join(p.extract_text() for p in PdfReader(
-        __import__("io").BytesIO(rater_pdf(filled, rater, include_excluded=True))).pages)
+    plain = "\n".join(page_texts(rater_pdf(filled, rater)))
+    asked = "\n".join(page_texts(rater_pdf(filled, rater, include_excluded=True)))
     assert "alumni_family" not in plain
     assert "alumni_family" in asked
 
@@ -213,8 +189,6 @@ def test_no_peer_figures_below_five_raters(filled):
     keep = filled.rater_ids()[:4]
     small["raters"] = [e for e in small["raters"] if e["rater"] in keep]
     data = ReportInput(results=small, tables=filled.tables)
-    import io
-
-    text = "\n".join(p.extract_text() for p in PdfReader(io.BytesIO(rater_pdf(data, keep[0]))).pages)
+    text = "\n".join(page_texts(rater_pdf(data, keep[0])))
     assert "fewer than five raters" in text
     assert "panel median" not in text and "Among colleagues" not in text
