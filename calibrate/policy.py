@@ -37,390 +37,45 @@ Flags (fixed identifiers):
     Binary decisions that the cues predict perfectly: logistic weights are
     infinite and not reported.
 
-References
-----------
-.. [1] Efron, B. (1987). Better bootstrap confidence intervals. JASA, 82,
-       171-185 (BCa interval).
-.. [2] Tjur, T. (2009). Coefficients of determination in logistic regression
-       models. The American Statistician, 63, 366-372.
+The work is split by concern: this module prepares the rows, fits and flags;
+:mod:`calibrate.policy_results` holds the result objects,
+:mod:`calibrate.resampling` the case bootstrap and the BCa interval (Efron
+1987), :mod:`calibrate.logistic` the batched logistic fit (Tjur 2009). Their
+public names are importable from here too.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
-from scipy import special
 from scipy import stats as sps
 
 from . import diagnostics as dg
-from ._results import ResultMixin, jsonable
+from ._results import jsonable
 from .cues import CueDesign
 from .errors import CalibrateError, DataError, DataProblem
 from .importance import (
     MAX_DOMINANCE_CUES,
     cue_importance,
     importance_shares,
-    r2_from_correlations,
     relative_weights,
 )
-from .linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
+from .linalg import grouped_sscp, ols_from_sscp
+from .logistic import fit_logistic
+from .policy_results import CaseToReview, LogisticPolicy, PolicySet, RaterPolicy
+from .resampling import bca_interval, case_bootstrap_intervals
+
+__all__ = [
+    "POLICIES_SCHEMA", "SCALES", "CaseToReview", "LogisticPolicy", "PolicySet", "RaterPolicy",
+    "bca_interval", "captured_policies", "fit_policies",
+]
 
 POLICIES_SCHEMA = "calibrate.policies/1"
 SCALES = ("continuous", "ordinal", "binary")
 N_LOOK_AGAIN = 5
-#: Bound the float count of one bootstrap chunk (resamples x raters x subsets).
-_CHUNK_ELEMENTS = 16_000_000
-
-
-# --------------------------------------------------------------------------- results
-
-
-@dataclass(frozen=True)
-class LogisticPolicy(ResultMixin):
-    """Logistic fit of a binary decision: weights in log-odds, odds ratios, Tjur's R^2."""
-
-    intercept: float
-    weights: dict[str, float]
-    se: dict[str, float]
-    odds_ratios: dict[str, float]
-    p_value: dict[str, float]
-    tjur_r2: float
-    converged: bool
-    separation: bool
-
-
-@dataclass(frozen=True)
-class CaseToReview(ResultMixin):
-    """A case far from the rater's own policy."""
-
-    case: str
-    judgment: float
-    predicted: float           # the rater's policy, fitted on all their cases
-    predicted_without: float   # the policy fitted without this case
-    residual: float
-    studentized: float
-
-
-@dataclass(frozen=True)
-class RaterPolicy(ResultMixin):
-    """One rater's captured policy for one phase.
-
-    ``weights``-like mappings are keyed by design column (a categorical cue's
-    dummies are ``cue=level``); ``importance``-like mappings by cue.
-    """
-
-    rater: str
-    n_cases: int
-    intercept: float
-    intercept_se: float
-    weights: dict[str, float]
-    se: dict[str, float]
-    ci_low: dict[str, float]
-    ci_high: dict[str, float]
-    p_value: dict[str, float]
-    std_weights: dict[str, float]
-    utilization: dict[str, float]
-    structure: dict[str, float]
-    r: float
-    r_ci: tuple[float, float]
-    r2: float
-    r2_adj: float
-    r_cv: float
-    importance: dict[str, float]
-    importance_r2: dict[str, float]
-    importance_ci: dict[str, tuple[float, float]]
-    importance_method: str
-    relative_weights_r2: dict[str, float]
-    cases_per_weight: float
-    vif: dict[str, float]
-    gvif: dict[str, float]
-    condition_number: float
-    reset: dict[str, float]
-    look_again: tuple[CaseToReview, ...]
-    logistic: LogisticPolicy | None
-    flags: tuple[str, ...]
-    warnings: tuple[str, ...]
-
-    def policy_dict(self) -> dict:
-        """The ``raters[].policy`` block of results.json (DESIGN.md keys first)."""
-        pair = lambda lo, hi: [lo, hi]  # noqa: E731 - JSON wants lists for intervals
-        block = {
-            "intercept": self.intercept,
-            "weights": self.weights,
-            "std_weights": self.std_weights,
-            "importance": self.importance,
-            "importance_r2": self.importance_r2,
-            "r": self.r,
-            "r_ci": list(self.r_ci),
-            "r2_adj": self.r2_adj,
-            "r_cv": self.r_cv,
-            "r2": self.r2,
-            "n_cases": self.n_cases,
-            "intercept_se": self.intercept_se,
-            "se": self.se,
-            "ci": {c: pair(self.ci_low[c], self.ci_high[c]) for c in self.weights},
-            "p_value": self.p_value,
-            "utilization": self.utilization,
-            "structure": self.structure,
-            "importance_ci": {c: list(v) for c, v in self.importance_ci.items()},
-            "importance_method": self.importance_method,
-            "relative_weights_r2": self.relative_weights_r2,
-            "cases_per_weight": self.cases_per_weight,
-            "vif": self.vif,
-            "gvif": self.gvif,
-            "condition_number": self.condition_number,
-            "reset": self.reset,
-            "look_again": [c.to_dict() for c in self.look_again],
-            "logistic": None if self.logistic is None else self.logistic.to_dict(),
-        }
-        return jsonable(block)
-
-    def to_dict(self) -> dict:
-        return {
-            "rater": self.rater,
-            "n_cases": self.n_cases,
-            "policy": self.policy_dict(),
-            "flags": list(self.flags),
-            "warnings": list(self.warnings),
-        }
-
-
-@dataclass(frozen=True)
-class PolicySet(ResultMixin):
-    """The captured policies of every rater in one phase."""
-
-    raters: tuple[RaterPolicy, ...]
-    columns: tuple[str, ...]
-    cue_of_column: tuple[str, ...]
-    cues: tuple[str, ...]
-    scale: str
-    n_boot: int
-    alpha: float
-    warnings: tuple[str, ...] = field(default=())
-
-    def __getitem__(self, rater: str) -> RaterPolicy:
-        for policy in self.raters:
-            if policy.rater == rater:
-                return policy
-        raise KeyError(rater)
-
-    def to_dict(self) -> dict:
-        return {
-            "scale": self.scale,
-            "n_boot": self.n_boot,
-            "alpha": self.alpha,
-            "columns": list(self.columns),
-            "cues": list(self.cues),
-            "raters": [p.to_dict() for p in self.raters],
-            "warnings": list(self.warnings),
-        }
-
-    def to_frame(self) -> pd.DataFrame:
-        """One row per rater: consistency, fit diagnostics and flags."""
-        rows = [
-            {
-                "rater": p.rater, "n_cases": p.n_cases, "intercept": p.intercept,
-                "r": p.r, "r_ci_low": p.r_ci[0], "r_ci_high": p.r_ci[1], "r2": p.r2,
-                "r2_adj": p.r2_adj, "r_cv": p.r_cv, "cases_per_weight": p.cases_per_weight,
-                "condition_number": p.condition_number, "reset_p_value": p.reset["p_value"],
-                "reset_p_adjusted": p.reset["p_adjusted"],
-                "tjur_r2": np.nan if p.logistic is None else p.logistic.tjur_r2,
-                "flags": ";".join(p.flags),
-            }
-            for p in self.raters
-        ]
-        return pd.DataFrame(rows)
-
-    def columns_frame(self) -> pd.DataFrame:
-        """One row per rater x design column: weights with SE, CI, and related figures."""
-        rows = []
-        for p in self.raters:
-            for c, cue in zip(self.columns, self.cue_of_column):
-                rows.append({
-                    "rater": p.rater, "column": c, "cue": cue, "estimate": p.weights[c],
-                    "se": p.se[c], "ci_low": p.ci_low[c], "ci_high": p.ci_high[c],
-                    "p_value": p.p_value[c], "std_weight": p.std_weights[c],
-                    "utilization": p.utilization[c], "structure": p.structure[c],
-                    "vif": p.vif[c],
-                    "odds_ratio": np.nan if p.logistic is None else p.logistic.odds_ratios[c],
-                })
-        return pd.DataFrame(rows)
-
-    def cues_frame(self) -> pd.DataFrame:
-        """One row per rater x cue: relative importance with its interval, and GVIF."""
-        rows = [
-            {
-                "rater": p.rater, "cue": cue, "importance": p.importance[cue],
-                "ci_low": p.importance_ci[cue][0], "ci_high": p.importance_ci[cue][1],
-                "importance_r2": p.importance_r2[cue],
-                "relative_weight_r2": p.relative_weights_r2[cue], "gvif": p.gvif[cue],
-                "method": p.importance_method,
-            }
-            for p in self.raters for cue in self.cues
-        ]
-        return pd.DataFrame(rows)
-
-
-# --------------------------------------------------------------------------- BCa
-
-
-def bca_interval(
-    estimate: np.ndarray, boot: np.ndarray, jack: np.ndarray, *, alpha: float = 0.05
-) -> tuple[np.ndarray, np.ndarray]:
-    """Bias-corrected and accelerated bootstrap interval, one per column.
-
-    .. math:: z_0 = \\Phi^{-1}\\big(\\#\\{\\theta^*_b < \\hat\\theta\\}/B\\big), \\quad
-              a = \\frac{\\sum_i d_i^3}{6 (\\sum_i d_i^2)^{3/2}},\\; d_i = \\bar\\theta_{(\\cdot)} - \\theta_{(i)}
-
-    .. math:: \\alpha_{1,2} = \\Phi\\Big(z_0 + \\frac{z_0 + z_{\\alpha/2,\\,1-\\alpha/2}}
-              {1 - a (z_0 + z_{\\alpha/2,\\,1-\\alpha/2})}\\Big)
-
-    (Efron 1987). Ties count half. NaN resamples (degenerate refits) are left
-    out; a column with fewer than 10 finite resamples gets NaN.
-
-    Parameters
-    ----------
-    estimate : (R,) full-sample values.
-    boot : (B, R) bootstrap values.
-    jack : (n, R) leave-one-out values.
-    """
-    boot = np.asarray(boot, dtype=float)
-    finite = np.isfinite(boot)
-    n_finite = finite.sum(axis=0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        below = ((boot < estimate) & finite).sum(0) + 0.5 * ((boot == estimate) & finite).sum(0)
-        share = np.clip(below / n_finite, 0.5 / np.maximum(n_finite, 1), 1 - 0.5 / np.maximum(n_finite, 1))
-        z0 = special.ndtri(share)
-        dev = np.nanmean(jack, axis=0) - jack if np.isfinite(jack).any() else jack
-        num = np.nansum(dev**3, axis=0)
-        den = 6.0 * np.nansum(dev**2, axis=0) ** 1.5
-        accel = np.where(den > 0, num / den, 0.0)
-        ends = []
-        for z in (special.ndtri(alpha / 2), special.ndtri(1 - alpha / 2)):
-            level = special.ndtr(z0 + (z0 + z) / (1.0 - accel * (z0 + z)))
-            ends.append(_column_quantiles(boot, n_finite, level))
-    bad = (n_finite < 10) | ~np.isfinite(np.asarray(estimate, dtype=float))
-    return np.where(bad, np.nan, ends[0]), np.where(bad, np.nan, ends[1])
-
-
-def _column_quantiles(values: np.ndarray, n_finite: np.ndarray, level: np.ndarray) -> np.ndarray:
-    """Linear-interpolated quantile of each column at its own level (NaN sorted last)."""
-    ordered = np.sort(values, axis=0)
-    pos = np.clip(level, 0.0, 1.0) * np.maximum(n_finite - 1, 0)
-    pos = np.where(np.isfinite(pos), pos, 0.0)
-    lo = np.floor(pos).astype(np.intp)
-    hi = np.minimum(lo + 1, np.maximum(n_finite - 1, 0))
-    cols = np.arange(values.shape[1])
-    frac = pos - lo
-    return ordered[lo, cols] + frac * (ordered[hi, cols] - ordered[lo, cols])
-
-
-# --------------------------------------------------------------------------- resampled fits
-
-
-def _weighted_correlations(
-    X: np.ndarray, Y: np.ndarray, counts: np.ndarray
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Correlations of cues and judgments under each vector of case counts.
-
-    X (n, p) is shared by the R raters whose judgments are the columns of Y
-    (n, R); counts (N, n) weight the cases (bootstrap counts, or jackknife
-    vectors of ones with one zero). Returns corr_xx (N, p, p), corr_xy
-    (N, p, R) and ``bad`` (N, R): a resample that leaves a cue or the judgments
-    constant. Cross-products are taken about the full-sample means, so the
-    correction for the resample mean stays small.
-    """
-    n, p = X.shape
-    N = counts.shape[0]
-    total = counts.sum(axis=1)
-    Xc = X - X.mean(axis=0)
-    Yc = Y - Y.mean(axis=0)
-    x_mean = counts @ Xc / total[:, None]
-    y_mean = counts @ Yc / total[:, None]
-    Sxx = (counts @ (Xc[:, :, None] * Xc[:, None, :]).reshape(n, p * p)).reshape(N, p, p)
-    Sxx -= total[:, None, None] * x_mean[:, :, None] * x_mean[:, None, :]
-    Sxy = ((counts[:, None, :] * Xc.T[None]).reshape(N * p, n) @ Yc).reshape(N, p, -1)
-    Sxy -= total[:, None, None] * x_mean[:, :, None] * y_mean[:, None, :]
-    Syy = counts @ Yc**2 - total[:, None] * y_mean**2
-    dx = np.sqrt(np.clip(np.einsum("nii->ni", Sxx), 0.0, None))
-    x_bad = np.any(dx**2 <= 1e-10 * (Xc**2).sum(axis=0), axis=1)
-    y_bad = Syy <= 1e-10 * (Yc**2).sum(axis=0)
-    dx = np.where(dx > 0, dx, 1.0)
-    dy = np.sqrt(np.where(y_bad, 1.0, Syy))
-    corr_xx = Sxx / (dx[:, :, None] * dx[:, None, :])
-    corr_xx[x_bad] = np.eye(p)
-    corr_xy = Sxy / (dx[:, :, None] * dy[:, None, :])
-    return corr_xx, corr_xy, y_bad | x_bad[:, None]
-
-
-@dataclass
-class _ResampleUnit:
-    """Raters who saw the same cases, with the bootstrap and jackknife count vectors."""
-
-    raters: np.ndarray     # indices into the full rater arrays
-    raters_local: np.ndarray  # indices into the pattern's arrays (r2, imp)
-    X: np.ndarray
-    Y: np.ndarray
-    counts: np.ndarray     # (n_boot + n, n): bootstrap rows, then jackknife rows
-    n_boot: int
-
-
-def _resampled_intervals(units: list[_ResampleUnit], cue_groups, cue_cols, A: _Arrays, *,
-                         alpha: float, method: str, r2: np.ndarray, imp: np.ndarray) -> None:
-    """BCa intervals for R_s and importance shares of every unit's raters.
-
-    Units with the same number of raters are stacked along the resample axis,
-    so many small blocks (raters who each saw their own cases) are solved in a
-    few large batched calls instead of one call per rater.
-    """
-    n_terms = 16 + len(cue_groups)
-    by_width: dict[int, list[_ResampleUnit]] = {}
-    for unit in units:
-        by_width.setdefault(unit.Y.shape[1], []).append(unit)
-    for width, members in sorted(by_width.items()):
-        batch, size = [], 0
-        for unit in members:
-            batch.append(unit)
-            size += unit.counts.shape[0] * width * n_terms
-            if size >= _CHUNK_ELEMENTS:
-                _intervals_for_batch(batch, cue_groups, cue_cols, A, alpha=alpha, method=method,
-                                     r2=r2, imp=imp)
-                batch, size = [], 0
-        if batch:
-            _intervals_for_batch(batch, cue_groups, cue_cols, A, alpha=alpha, method=method,
-                                 r2=r2, imp=imp)
-
-
-def _intervals_for_batch(batch, cue_groups, cue_cols, A: _Arrays, *, alpha, method, r2, imp):
-    parts = [_weighted_correlations(u.X, u.Y, u.counts) for u in batch]
-    corr_xx = np.concatenate([c[0] for c in parts])
-    corr_xy = np.concatenate([c[1] for c in parts])
-    bad = np.concatenate([c[2] for c in parts])
-    all_r2 = r2_from_correlations(corr_xx, corr_xy)
-    all_imp, _ = cue_importance(corr_xx, corr_xy, cue_groups, method=method)
-    all_r2 = np.where(bad, np.nan, np.clip(all_r2, 0.0, 1.0))
-    all_imp = np.where(bad[:, :, None], np.nan, all_imp)
-    start = 0
-    for unit in batch:
-        stop = start + unit.counts.shape[0]
-        boot = slice(start, start + unit.n_boot)
-        jack = slice(start + unit.n_boot, stop)
-        local = unit.raters_local
-        with np.errstate(invalid="ignore", divide="ignore"):
-            lo, hi = bca_interval(np.sqrt(r2[local]), np.sqrt(all_r2[boot]),
-                                  np.sqrt(all_r2[jack]), alpha=alpha)
-            shares = importance_shares(all_imp, all_r2)
-            share_hat = importance_shares(imp[local], r2[local]).ravel()
-        k = share_hat.size // local.size
-        s_lo, s_hi = bca_interval(share_hat, shares[boot].reshape(unit.n_boot, -1),
-                                  shares[jack].reshape(stop - start - unit.n_boot, -1), alpha=alpha)
-        A.r_lo[unit.raters], A.r_hi[unit.raters] = lo, hi
-        A.imp_lo[np.ix_(unit.raters, cue_cols)] = s_lo.reshape(local.size, k)
-        A.imp_hi[np.ix_(unit.raters, cue_cols)] = s_hi.reshape(local.size, k)
-        start = stop
 
 
 # --------------------------------------------------------------------------- preparation
@@ -483,62 +138,6 @@ def _binary_judgments(y: np.ndarray, scale_min: float | None, scale_max: float |
     return np.where(np.isfinite(y), (y == high).astype(float), np.nan)
 
 
-# --------------------------------------------------------------------------- logistic
-
-
-def _logistic_batched(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: int,
-                      *, max_iter: int = 60, tol: float = 1e-10):
-    """Newton-Raphson logistic fits for many raters at once (rows sorted by group).
-
-    Cues are standardized within each rater for the iterations, and the
-    coefficients mapped back. Returns intercept, coef, covariance of
-    [intercept, coef], fitted probabilities per row, converged and separation
-    flags. Separation: a fitted probability within 1e-8 of 0 or 1, or no
-    convergence (our own rule).
-    """
-    stats = grouped_sscp(X, groups, n_groups)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sd = np.sqrt(np.einsum("gii->gi", stats.sscp) / stats.n[:, None])
-    sd = np.where(sd > 0, sd, 1.0)
-    Z = np.column_stack([np.ones(len(y)), (X - stats.mean[groups]) / sd[groups]])
-    q = Z.shape[1]
-    starts = np.r_[0, np.flatnonzero(np.diff(groups)) + 1]
-    beta = np.zeros((n_groups, q))
-    converged = np.zeros(n_groups, dtype=bool)
-    pair = (Z[:, :, None] * Z[:, None, :]).reshape(len(y), q * q)
-    info = np.zeros((n_groups, q, q))
-    for _ in range(max_iter):
-        eta = np.einsum("mi,mi->m", Z, beta[groups])
-        prob = special.expit(eta)
-        weight = prob * (1.0 - prob)
-        info = np.add.reduceat(weight[:, None] * pair, starts, axis=0).reshape(n_groups, q, q)
-        score = np.add.reduceat((y - prob)[:, None] * Z, starts, axis=0)
-        info_safe = info + np.eye(q) * 1e-300
-        try:
-            step = np.linalg.solve(info_safe, score[..., None])[..., 0]
-        except np.linalg.LinAlgError:
-            step = (np.linalg.pinv(info_safe) @ score[..., None])[..., 0]
-        step = np.where(converged[:, None], 0.0, step)
-        beta = beta + step
-        converged |= np.max(np.abs(step), axis=1) < tol
-        if converged.all():
-            break
-    eta = np.einsum("mi,mi->m", Z, beta[groups])
-    prob = special.expit(eta)
-    extreme = np.minimum(prob, 1.0 - prob) < 1e-8
-    separation = ~converged | (np.bincount(groups, weights=extreme, minlength=n_groups) > 0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        cov_std = np.linalg.pinv(info, hermitian=True)
-    # Back to the raw cue scale: b_j = beta_j / sd_j, b_0 = beta_0 - sum b_j * mean_j.
-    transform = np.zeros((n_groups, q, q))
-    transform[:, 0, 0] = 1.0
-    transform[:, 0, 1:] = -stats.mean / sd
-    transform[:, np.arange(1, q), np.arange(1, q)] = 1.0 / sd
-    raw = np.einsum("gij,gj->gi", transform, beta)
-    cov = transform @ cov_std @ np.swapaxes(transform, 1, 2)
-    return raw[:, 0], raw[:, 1:], cov, prob, converged, separation
-
-
 # --------------------------------------------------------------------------- main
 
 
@@ -552,7 +151,7 @@ class _Arrays:
 
     def __post_init__(self):
         G, p, k = self.G, self.p, self.k
-        nan = lambda *shape: np.full(shape, np.nan)  # noqa: E731
+        nan = lambda *shape: np.full(shape, np.nan)
         self.n = np.zeros(G)
         for name in ("intercept", "intercept_se", "r2", "r2_adj", "r_cv", "cond",
                      "reset_f", "reset_p", "r_lo", "r_hi", "lg_intercept", "tjur"):
@@ -791,44 +390,17 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
                 studentized=float(influence.studentized[i]),
             ))
     if n_boot > 0 and ok.any():
-        _bootstrap_pattern(X, y, groups, members, ok, rows.case_row[sel],
-                           cue_groups, cue_cols, A, n_boot=n_boot, rng=rng, alpha=alpha,
-                           method=method, r2=r2, imp=imp[:, 0, :])
+        intervals = case_bootstrap_intervals(
+            X, y, groups, ok, rows.case_row[sel], cue_groups, n_boot=n_boot, rng=rng,
+            alpha=alpha, method=method, r2=r2, importance_r2=imp[:, 0, :])
+        A.r_lo[rows_g], A.r_hi[rows_g] = intervals.r_low, intervals.r_high
+        A.imp_lo[np.ix_(rows_g, cue_cols)] = intervals.share_low
+        A.imp_hi[np.ix_(rows_g, cue_cols)] = intervals.share_high
 
 
 def _local_cue_groups(design: CueDesign, active: np.ndarray) -> list[list[int]]:
     position = {j: i for i, j in enumerate(active.tolist())}
     return [[position[j] for j in cols if j in position] for cols in design.cue_groups()]
-
-
-def _bootstrap_pattern(X, y, groups, members, ok, case_row, cue_groups, cue_cols,
-                       A: _Arrays, *, n_boot, rng, alpha, method, r2, imp) -> None:
-    """Resample cases per block of raters who saw the same cases; one count matrix per block."""
-    starts = np.r_[0, np.flatnonzero(np.diff(groups)) + 1]
-    ends = np.r_[starts[1:], groups.size]
-    blocks: dict[bytes, list[int]] = {}
-    for gl, (s, e) in enumerate(zip(starts, ends)):
-        if ok[gl]:
-            blocks.setdefault(case_row[s:e].tobytes(), []).append(gl)
-    block_list = list(blocks.values())
-    n_terms = 16 + X.shape[1]  # subsets held at once in dominance_weights, plus Sxy
-    units = []
-    for block, block_rng in zip(block_list, rng.spawn(len(block_list))):
-        s0, e0 = starts[block[0]], ends[block[0]]
-        n = e0 - s0
-        draws = block_rng.integers(0, n, size=(n_boot, n)) + n * np.arange(n_boot)[:, None]
-        counts = np.vstack([
-            np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n).astype(float),
-            1.0 - np.eye(n),
-        ])
-        width = max(1, _CHUNK_ELEMENTS // (counts.shape[0] * n_terms))
-        for first in range(0, len(block), width):
-            local = np.array(block[first:first + width])
-            Y = np.column_stack([y[starts[g]:ends[g]] for g in local])
-            units.append(_ResampleUnit(raters=members[local], raters_local=local,
-                                       X=X[s0:e0], Y=Y, counts=counts, n_boot=n_boot))
-    _resampled_intervals(units, cue_groups, cue_cols, A, alpha=alpha, method=method,
-                         r2=r2, imp=imp)
 
 
 def _fit_logistic(rows: _Rows, X_all, arrays: _Arrays) -> None:
@@ -847,24 +419,17 @@ def _fit_logistic(rows: _Rows, X_all, arrays: _Arrays) -> None:
         groups = local[rows.group[sel]]
         X = X_all[sel][:, list(cols)]
         y = rows.y[sel]
-        b0, b, cov, prob, converged, separation = _logistic_batched(X, y, groups, members.size)
-        se_all = np.sqrt(np.clip(np.einsum("gii->gi", cov), 0, None))
-        with np.errstate(invalid="ignore", divide="ignore"):
-            pvals = 2 * sps.norm.sf(np.abs(b / se_all[:, 1:]))
-            ones = np.bincount(groups, weights=prob * y, minlength=members.size) / np.bincount(
-                groups, weights=y, minlength=members.size)
-            zeros = np.bincount(groups, weights=prob * (1 - y), minlength=members.size) / np.bincount(
-                groups, weights=1 - y, minlength=members.size)
-        good = ~separation
+        fits = fit_logistic(X, y, groups, members.size)
+        good = ~fits.separation
         idx = np.ix_(members, list(cols))
-        arrays.lg_intercept[members] = np.where(good, b0, np.nan)
-        arrays.lg_coef[idx] = np.where(good[:, None], b, np.nan)
-        arrays.lg_se[idx] = np.where(good[:, None], se_all[:, 1:], np.nan)
-        arrays.lg_p[idx] = np.where(good[:, None], pvals, np.nan)
-        arrays.tjur[members] = ones - zeros
-        arrays.lg_converged[members] = converged
-        arrays.lg_separation[members] = separation
-        for g in members[separation]:
+        arrays.lg_intercept[members] = np.where(good, fits.intercept, np.nan)
+        arrays.lg_coef[idx] = np.where(good[:, None], fits.coef, np.nan)
+        arrays.lg_se[idx] = np.where(good[:, None], fits.se, np.nan)
+        arrays.lg_p[idx] = np.where(good[:, None], fits.p_value, np.nan)
+        arrays.tjur[members] = fits.tjur_r2
+        arrays.lg_converged[members] = fits.converged
+        arrays.lg_separation[members] = fits.separation
+        for g in members[fits.separation]:
             arrays.notes[g].append(
                 "The cues separate this rater's decisions perfectly (or almost): weights in odds "
                 "terms would be infinite and are not reported; the linear probability results stand."

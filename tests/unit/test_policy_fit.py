@@ -18,11 +18,11 @@ from calibrate.cues import CueRule, build_cue_design
 from calibrate.errors import CalibrateError, DataError
 from calibrate.policy import (
     POLICIES_SCHEMA,
-    _column_quantiles,
     bca_interval,
     captured_policies,
     fit_policies,
 )
+from calibrate.resampling import _column_quantiles
 from tests.policy_panels import mixed_panel, rater_matrix
 
 DESIGN_POLICY_KEYS = {"intercept", "weights", "std_weights", "importance", "importance_r2",
@@ -95,7 +95,7 @@ def test_same_seed_same_numbers_and_json_safe(fitted):
 
 
 def test_tables_are_tidy(fitted):
-    design, first, policies = fitted
+    design, _first, policies = fitted
     assert len(policies.to_frame()) == 6
     cols = policies.columns_frame()
     assert len(cols) == 6 * design.n_columns
@@ -180,7 +180,8 @@ def test_statistics_modules_do_not_load_plotting_or_pdf_code():
     import subprocess
     import sys
 
-    code = ("import sys, calibrate.policy, calibrate.importance, calibrate.diagnostics; "
+    code = ("import sys, calibrate.policy, calibrate.importance, calibrate.diagnostics, "
+            "calibrate.resampling, calibrate.logistic, calibrate.policy_results; "
             "print(sorted(m for m in ('matplotlib', 'reportlab', 'pingouin') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
