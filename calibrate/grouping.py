@@ -210,13 +210,6 @@ class GroupingResult(ResultMixin):
         return pd.DataFrame(pairs, columns=["rater_a", "rater_b", "together"])
 
 
-
-def _as_generator(rng) -> np.random.Generator:
-    if isinstance(rng, np.random.Generator):
-        return rng
-    return np.random.default_rng(rng)
-
-
 # --------------------------------------------------------------------------- main
 
 
@@ -300,7 +293,7 @@ def group_raters(
     if missing:
         raise DataError(f"The judgments table lacks column(s) {', '.join(missing)}; "
                         "it needs rater, case and judgment.")
-    generator = _as_generator(rng)
+    generator = np.random.default_rng(rng)  # a Generator passes through unchanged
     warnings: list[str] = []
 
     raters = sorted(str(r) for r in pd.unique(first["rater"]))
