@@ -7,6 +7,13 @@ importance follow from its correlation matrices (:mod:`calibrate.importance`),
 never from a refit on rows. Leave-one-out (jackknife) fits ride along as count
 vectors of ones with a single zero, for the acceleration of the BCa interval.
 
+When raters each read their own cases there are as many blocks as raters, and
+the work is millions of tiny systems (raters x resamples). Blocks of the same
+size are stacked so one product gives several blocks' cross-products, and the
+2**k subset R^2 values of the dominance weights come from the elimination tree
+of :func:`calibrate.importance.dominance_weights` (``solver="sweep"``) rather
+than one linear solve per subset and system.
+
 References
 ----------
 .. [1] Efron, B. (1987). Better bootstrap confidence intervals. Journal of the
@@ -24,6 +31,8 @@ from .importance import cue_importance, importance_shares, r2_from_correlations
 
 #: Bound the float count of one bootstrap chunk (resamples x raters x subsets).
 _CHUNK_ELEMENTS = 16_000_000
+#: Bound the floats of one stacked product of counts with per-case terms.
+_STACK_FLOATS = 4_000_000
 
 
 def bca_interval(
@@ -87,31 +96,51 @@ def weighted_correlations(
     (n, R); counts (N, n) weight the cases (bootstrap counts, or jackknife
     vectors of ones with one zero). Returns corr_xx (N, p, p), corr_xy
     (N, p, R) and ``bad`` (N, R): a resample that leaves a cue or the judgments
-    constant. Cross-products are taken about the full-sample means, so the
-    correction for the resample mean stays small.
+    constant. A leading axis stacks U independent blocks of the same size:
+    X (U, n, p), Y (U, n, R) and counts (U, N, n) give (U, N, ...) results.
+
+    Cross-products are taken about the full-sample means, so the correction
+    for the resample mean stays small:
+
+    .. math:: S_{ab} = \\sum_i c_i \\tilde a_i \\tilde b_i - (\\textstyle\\sum_i c_i)\\,
+              \\bar a_c \\bar b_c
+
+    with :math:`\\tilde a` centred at the full-sample mean and :math:`\\bar a_c`
+    its count-weighted mean. Every sum over cases comes from one matrix
+    product of the counts with a table of per-case terms.
     """
-    n, p = X.shape
-    N = counts.shape[0]
-    total = counts.sum(axis=1)
-    Xc = X - X.mean(axis=0)
-    Yc = Y - Y.mean(axis=0)
-    x_mean = counts @ Xc / total[:, None]
-    y_mean = counts @ Yc / total[:, None]
-    Sxx = (counts @ (Xc[:, :, None] * Xc[:, None, :]).reshape(n, p * p)).reshape(N, p, p)
-    Sxx -= total[:, None, None] * x_mean[:, :, None] * x_mean[:, None, :]
-    Sxy = ((counts[:, None, :] * Xc.T[None]).reshape(N * p, n) @ Yc).reshape(N, p, -1)
-    Sxy -= total[:, None, None] * x_mean[:, :, None] * y_mean[:, None, :]
-    Syy = counts @ Yc**2 - total[:, None] * y_mean**2
-    dx = np.sqrt(np.clip(np.einsum("nii->ni", Sxx), 0.0, None))
-    x_bad = np.any(dx**2 <= 1e-10 * (Xc**2).sum(axis=0), axis=1)
-    y_bad = Syy <= 1e-10 * (Yc**2).sum(axis=0)
+    n, p = X.shape[-2:]
+    R = Y.shape[-1]
+    N = counts.shape[-2]
+    lead = counts.shape[:-2]
+    Xc = X - X.mean(axis=-2, keepdims=True)
+    Yc = Y - Y.mean(axis=-2, keepdims=True)
+    terms = np.concatenate([
+        Xc, Yc, Yc**2,
+        (Xc[..., :, None] * Xc[..., None, :]).reshape(*lead, n, p * p),
+        (Xc[..., :, None] * Yc[..., None, :]).reshape(*lead, n, p * R),
+    ], axis=-1)
+    # Stacked blocks are small products: numpy's own loop beats many tiny threaded
+    # BLAS calls (measured on 2 cores); one block is one BLAS product.
+    sums = np.einsum("uij,ujk->uik", counts, terms) if lead else counts @ terms
+    total = counts.sum(axis=-1)[..., None]
+    x_mean = sums[..., :p] / total
+    y_mean = sums[..., p:p + R] / total
+    at = p + 2 * R
+    Sxx = sums[..., at:at + p * p].reshape(*lead, N, p, p)
+    Sxx -= total[..., None] * x_mean[..., :, None] * x_mean[..., None, :]
+    Sxy = sums[..., at + p * p:].reshape(*lead, N, p, R)
+    Sxy -= total[..., None] * x_mean[..., :, None] * y_mean[..., None, :]
+    Syy = sums[..., p + R:at] - total * y_mean**2
+    dx = np.sqrt(np.clip(np.diagonal(Sxx, axis1=-2, axis2=-1), 0.0, None))
+    x_bad = np.any(dx**2 <= 1e-10 * (Xc**2).sum(axis=-2)[..., None, :], axis=-1)
+    y_bad = Syy <= 1e-10 * (Yc**2).sum(axis=-2)[..., None, :]
     dx = np.where(dx > 0, dx, 1.0)
     dy = np.sqrt(np.where(y_bad, 1.0, Syy))
-    corr_xx = Sxx / (dx[:, :, None] * dx[:, None, :])
+    corr_xx = Sxx / (dx[..., :, None] * dx[..., None, :])
     corr_xx[x_bad] = np.eye(p)
-    corr_xy = Sxy / (dx[:, :, None] * dy[:, None, :])
-    return corr_xx, corr_xy, y_bad | x_bad[:, None]
-
+    corr_xy = Sxy / (dx[..., :, None] * dy[..., None, :])
+    return corr_xx, corr_xy, y_bad | x_bad[..., None]
 
 
 @dataclass(frozen=True)
@@ -130,13 +159,53 @@ class PolicyIntervals:
 
 @dataclass
 class _ResampleUnit:
-    """Raters who saw the same cases, with the bootstrap and jackknife count vectors."""
+    """Raters who saw the same cases: one block, or a slice of a large one."""
 
+    block: int             # index of the block, whose count vectors the unit uses
     raters: np.ndarray     # indices of the raters in the batch being resampled
-    X: np.ndarray
-    Y: np.ndarray
-    counts: np.ndarray     # (n_boot + n, n): bootstrap rows, then jackknife rows
-    n_boot: int
+    X: np.ndarray          # (n, p) the block's design rows
+    Y: np.ndarray          # (n, R) the raters' judgments
+
+    @property
+    def n_cases(self) -> int:
+        return self.X.shape[0]
+
+
+class _BlockCounts:
+    """Bootstrap and jackknife count vectors of each block, drawn when first used.
+
+    Each block draws from its own child generator, so its counts do not depend
+    on when it is used; they are dropped after the block's last unit, so memory
+    holds a batch's blocks rather than every block of the panel.
+    """
+
+    def __init__(self, generators: list[np.random.Generator], units: list[_ResampleUnit],
+                 n_boot: int):
+        self._generators = generators
+        self._n_boot = n_boot
+        self._uses: dict[int, int] = {}
+        for unit in units:
+            self._uses[unit.block] = self._uses.get(unit.block, 0) + 1
+        self._held: dict[int, np.ndarray] = {}
+
+    def take(self, unit: _ResampleUnit) -> np.ndarray:
+        """(n_boot + n, n): bootstrap counts, then the n leave-one-out vectors."""
+        block = unit.block
+        if block not in self._held:
+            self._held[block] = _draw_counts(self._generators[block], unit.n_cases, self._n_boot)
+        counts = self._held[block]
+        self._uses[block] -= 1
+        if not self._uses[block]:
+            del self._held[block]
+        return counts
+
+
+def _draw_counts(generator: np.random.Generator, n: int, n_boot: int) -> np.ndarray:
+    draws = generator.integers(0, n, size=(n_boot, n)) + n * np.arange(n_boot)[:, None]
+    counts = np.empty((n_boot + n, n))
+    counts[:n_boot] = np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n)
+    counts[n_boot:] = 1.0 - np.eye(n)
+    return counts
 
 
 def case_bootstrap_intervals(
@@ -185,27 +254,22 @@ def case_bootstrap_intervals(
     block_list = list(blocks.values())
     n_terms = 16 + X.shape[1]  # subsets held at once in dominance_weights, plus Sxy
     units = []
-    for block, block_rng in zip(block_list, rng.spawn(len(block_list))):
+    for b, block in enumerate(block_list):
         s0, e0 = starts[block[0]], ends[block[0]]
-        n = e0 - s0
-        draws = block_rng.integers(0, n, size=(n_boot, n)) + n * np.arange(n_boot)[:, None]
-        counts = np.vstack([
-            np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n).astype(float),
-            1.0 - np.eye(n),
-        ])
-        width = max(1, _CHUNK_ELEMENTS // (counts.shape[0] * n_terms))
+        width = max(1, _CHUNK_ELEMENTS // ((n_boot + e0 - s0) * n_terms))
         for first in range(0, len(block), width):
             local = np.array(block[first:first + width])
             Y = np.column_stack([y[starts[g]:ends[g]] for g in local])
-            units.append(_ResampleUnit(raters=local, X=X[s0:e0], Y=Y, counts=counts,
-                                       n_boot=n_boot))
-    _resampled_intervals(units, cue_groups, intervals, alpha=alpha, method=method, r2=r2,
-                         imp=importance_r2)
+            units.append(_ResampleUnit(block=b, raters=local, X=X[s0:e0], Y=Y))
+    counts = _BlockCounts(rng.spawn(len(block_list)), units, n_boot)
+    _resampled_intervals(units, counts, cue_groups, intervals, n_boot=n_boot, alpha=alpha,
+                         method=method, r2=r2, imp=importance_r2)
     return intervals
 
 
-def _resampled_intervals(units: list[_ResampleUnit], cue_groups, out: PolicyIntervals, *,
-                         alpha: float, method: str, r2: np.ndarray, imp: np.ndarray) -> None:
+def _resampled_intervals(units: list[_ResampleUnit], counts: _BlockCounts, cue_groups,
+                         out: PolicyIntervals, *, n_boot: int, alpha: float, method: str,
+                         r2: np.ndarray, imp: np.ndarray) -> None:
     """BCa intervals for R_s and importance shares of every unit's raters.
 
     Units with the same number of raters are stacked along the resample axis,
@@ -216,43 +280,75 @@ def _resampled_intervals(units: list[_ResampleUnit], cue_groups, out: PolicyInte
     by_width: dict[int, list[_ResampleUnit]] = {}
     for unit in units:
         by_width.setdefault(unit.Y.shape[1], []).append(unit)
+    options = {"n_boot": n_boot, "alpha": alpha, "method": method, "r2": r2, "imp": imp}
     for width, members in sorted(by_width.items()):
         batch, size = [], 0
         for unit in members:
             batch.append(unit)
-            size += unit.counts.shape[0] * width * n_terms
+            size += (n_boot + unit.n_cases) * width * n_terms
             if size >= _CHUNK_ELEMENTS:
-                _intervals_for_batch(batch, cue_groups, out, alpha=alpha, method=method,
-                                     r2=r2, imp=imp)
+                _intervals_for_batch(batch, counts, cue_groups, out, **options)
                 batch, size = [], 0
         if batch:
-            _intervals_for_batch(batch, cue_groups, out, alpha=alpha, method=method,
-                                 r2=r2, imp=imp)
+            _intervals_for_batch(batch, counts, cue_groups, out, **options)
 
 
-def _intervals_for_batch(batch, cue_groups, out: PolicyIntervals, *, alpha, method, r2, imp):
-    parts = [weighted_correlations(u.X, u.Y, u.counts) for u in batch]
-    corr_xx = np.concatenate([c[0] for c in parts])
-    corr_xy = np.concatenate([c[1] for c in parts])
-    bad = np.concatenate([c[2] for c in parts])
+def _batch_correlations(batch, counts: _BlockCounts, n_boot: int):
+    """Resampled correlations of every unit of a batch, concatenated in unit order.
+
+    Units with the same number of cases are stacked, a few at a time, so one
+    matrix product serves several raters' blocks.
+    """
+    rows = np.cumsum([0] + [n_boot + u.n_cases for u in batch])
+    p, width = batch[0].X.shape[1], batch[0].Y.shape[1]
+    corr_xx = np.empty((rows[-1], p, p))
+    corr_xy = np.empty((rows[-1], p, width))
+    bad = np.empty((rows[-1], width), dtype=bool)
+    by_size: dict[int, list[int]] = {}
+    for position, unit in enumerate(batch):
+        by_size.setdefault(unit.n_cases, []).append(position)
+    for n, positions in by_size.items():
+        per_unit = (n_boot + n) * (n + p * p + p * width + 2 * width + p)
+        step = max(1, _STACK_FLOATS // per_unit)
+        for first in range(0, len(positions), step):
+            chosen = positions[first:first + step]
+            if len(chosen) == 1:
+                unit = batch[chosen[0]]
+                parts = [part[None] for part in weighted_correlations(unit.X, unit.Y,
+                                                                      counts.take(unit))]
+            else:
+                parts = weighted_correlations(
+                    np.stack([batch[i].X for i in chosen]), np.stack([batch[i].Y for i in chosen]),
+                    np.stack([counts.take(batch[i]) for i in chosen]))
+            for slot, i in enumerate(chosen):
+                span = slice(rows[i], rows[i + 1])
+                corr_xx[span], corr_xy[span], bad[span] = (part[slot] for part in parts)
+    return corr_xx, corr_xy, bad
+
+
+def _intervals_for_batch(batch, counts: _BlockCounts, cue_groups, out: PolicyIntervals, *,
+                         n_boot, alpha, method, r2, imp):
+    corr_xx, corr_xy, bad = _batch_correlations(batch, counts, n_boot)
     all_r2 = r2_from_correlations(corr_xx, corr_xy)
-    all_imp, _ = cue_importance(corr_xx, corr_xy, cue_groups, method=method)
+    # Millions of small systems here: the elimination tree beats one solve per subset.
+    all_imp, _ = cue_importance(corr_xx, corr_xy, cue_groups, method=method, solver="sweep")
     all_r2 = np.where(bad, np.nan, np.clip(all_r2, 0.0, 1.0))
     all_imp = np.where(bad[:, :, None], np.nan, all_imp)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        all_shares = importance_shares(all_imp, all_r2)
     start = 0
     for unit in batch:
-        stop = start + unit.counts.shape[0]
-        boot = slice(start, start + unit.n_boot)
-        jack = slice(start + unit.n_boot, stop)
+        stop = start + n_boot + unit.n_cases
+        boot = slice(start, start + n_boot)
+        jack = slice(start + n_boot, stop)
         local = unit.raters
         with np.errstate(invalid="ignore", divide="ignore"):
             lo, hi = bca_interval(np.sqrt(r2[local]), np.sqrt(all_r2[boot]),
                                   np.sqrt(all_r2[jack]), alpha=alpha)
-            shares = importance_shares(all_imp, all_r2)
             share_hat = importance_shares(imp[local], r2[local]).ravel()
         k = share_hat.size // local.size
-        s_lo, s_hi = bca_interval(share_hat, shares[boot].reshape(unit.n_boot, -1),
-                                  shares[jack].reshape(stop - start - unit.n_boot, -1), alpha=alpha)
+        s_lo, s_hi = bca_interval(share_hat, all_shares[boot].reshape(n_boot, -1),
+                                  all_shares[jack].reshape(unit.n_cases, -1), alpha=alpha)
         out.r_low[local], out.r_high[local] = lo, hi
         out.share_low[local] = s_lo.reshape(local.size, k)
         out.share_high[local] = s_hi.reshape(local.size, k)

@@ -1,7 +1,9 @@
 """Relative importance: dominance weights and Johnson's relative weights.
 
 Checks: an all-subsets brute force written here independently (statsmodels OLS
-R^2 for every subset, averaged as Azen & Budescu 2003 define general dominance);
+R^2 for every subset, averaged as Azen & Budescu 2003 define general dominance),
+for both ways of finding the subset R^2 values (one solve per subset, and the
+elimination tree used for bootstrap resamples);
 the identity that both measures sum to the full-model R^2 (Budescu 1993;
 Johnson 2000); and planted independent cues, whose population dominance weight
 is beta_j^2 / var(y).
@@ -55,7 +57,7 @@ def test_dominance_equals_brute_force_with_categorical_cue():
     design, first = mixed_panel(seed=3)
     policies = fit_policies(design, first, scale="continuous", n_boot=0)
     for policy in policies.raters[:-1]:  # every column estimable for these raters
-        X, y, names = rater_matrix(design, first, policy.rater)
+        X, y, _ = rater_matrix(design, first, policy.rater)
         groups = [design.columns_of(c) for c in design.cues]
         expected = brute_force_dominance(X, y, groups)
         ours = [policy.importance_r2[c] for c in design.cues]
@@ -127,3 +129,64 @@ def test_subset_table_and_accumulated_dominance_agree():
     assert table[0, 0, 0] == 0.0
     assert table[0, 0, -1] == pytest.approx(
         corr[:5, 5] @ np.linalg.solve(corr[:5, :5], corr[:5, 5]), rel=1e-12)
+
+
+def _correlations(data):
+    centred = data - data.mean(axis=0)
+    cov = centred.T @ centred
+    scale = np.sqrt(np.diag(cov))
+    return cov / np.outer(scale, scale)
+
+
+@pytest.mark.parametrize("groups", [
+    [[0], [1], [2], [3], [4]],
+    [[0], [1, 2], [3], [4]],
+    [[3], [0, 1, 2], [4]],   # cues need not follow the column order
+    [[0], [], [1, 2, 3, 4]],  # a cue with no column in this fit
+])
+def test_elimination_tree_equals_statsmodels_brute_force(groups):
+    rng = np.random.default_rng(len(groups))
+    X = rng.normal(size=(70, 5)) @ rng.normal(size=(5, 5))
+    y = X @ rng.normal(size=5) + rng.normal(size=70)
+    corr = _correlations(np.column_stack([X, y]))
+    swept = dominance_weights(corr[None, :5, :5], corr[None, :5, 5:], groups, solver="sweep")
+    present = [g for g in groups if g]
+    expected = brute_force_dominance(X, y, present)
+    ours = swept[0, 0, [j for j, g in enumerate(groups) if g]]
+    np.testing.assert_allclose(ours, expected, rtol=1e-9, atol=1e-12)
+    assert swept[0, 0, [j for j, g in enumerate(groups) if not g]] == pytest.approx(0.0, abs=1e-15)
+
+
+@pytest.mark.filterwarnings("ignore:The design matrix is rank-deficient")  # the point of the test
+def test_elimination_tree_treats_an_exactly_collinear_column_as_a_projection():
+    # Column 2 = column 0 + column 1: statsmodels' pseudo-inverse R^2 is the reference.
+    rng = np.random.default_rng(8)
+    base = rng.normal(size=(50, 3))
+    X = np.column_stack([base[:, 0], base[:, 1], base[:, 0] + base[:, 1], base[:, 2]])
+    y = X @ [0.4, -0.3, 0.0, 0.6] + rng.normal(size=50)
+    corr = _correlations(np.column_stack([X, y]))
+    groups = [[0], [1], [2], [3]]
+    swept = dominance_weights(corr[None, :4, :4], corr[None, :4, 4:], groups, solver="sweep")
+    np.testing.assert_allclose(swept[0, 0], brute_force_dominance(X, y, groups), atol=1e-9)
+
+
+def test_both_solvers_agree_on_many_stacked_systems():
+    # Many small systems with several responses each, as in a case bootstrap; the
+    # solve path's own accuracy is checked against statsmodels above.
+    rng = np.random.default_rng(13)
+    data = rng.normal(size=(400, 40, 9)) @ rng.normal(size=(9, 9))
+    data -= data.mean(axis=1, keepdims=True)
+    data /= np.sqrt((data**2).sum(axis=1, keepdims=True))
+    corr = np.swapaxes(data, 1, 2) @ data
+    groups = [[0], [1, 2], [3], [4, 5], [6]]
+    args = (corr[:, :7, :7], corr[:, :7, 7:], groups)
+    solved = dominance_weights(*args)
+    swept = dominance_weights(*args, solver="sweep")
+    np.testing.assert_allclose(swept, solved, rtol=1e-10, atol=1e-13)
+    r2 = (corr[:, :7, 7:] * np.linalg.solve(corr[:, :7, :7], corr[:, :7, 7:])).sum(axis=1)
+    np.testing.assert_allclose(swept.sum(axis=2), r2, rtol=1e-11)
+
+
+def test_unknown_solver_is_a_clear_error():
+    with pytest.raises(CalibrateError, match="'solver' option of dominance_weights"):
+        dominance_weights(np.eye(2)[None], np.zeros((1, 2, 1)), [[0], [1]], solver="qr")

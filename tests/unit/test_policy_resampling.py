@@ -1,0 +1,145 @@
+"""The case bootstrap behind the policy intervals (calibrate.resampling).
+
+References used here, none sharing code with calibrate.resampling:
+numpy.cov with frequency weights (the definition of a weighted covariance);
+an explicit bootstrap that indexes the rater's rows with the drawn case numbers
+and fits each resample with numpy.linalg.lstsq; dominance weights of the
+resampled rows' numpy.corrcoef by the one-solve-per-subset path (itself checked
+against statsmodels in test_importance.py). The draw contract checked: one child
+generator per block of raters with the same cases, spawned in the order the
+blocks first appear, each drawing an (n_boot, n) array of case numbers.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from calibrate import resampling
+from calibrate.importance import dominance_weights, importance_shares
+from calibrate.resampling import (
+    bca_interval,
+    case_bootstrap_intervals,
+    weighted_correlations,
+)
+
+CUE_GROUPS = [[0], [1, 2]]  # a one-column cue and a two-column (categorical-like) cue
+N_BOOT = 60
+
+
+def test_weighted_correlations_match_numpy_frequency_weights():
+    rng = np.random.default_rng(11)
+    n = 25
+    X = rng.normal(size=(n, 3)) @ rng.normal(size=(3, 3))
+    Y = np.column_stack([X @ [0.5, -0.2, 0.1] + rng.normal(size=n), rng.normal(size=n)])
+    counts = np.vstack([rng.multinomial(n, np.full(n, 1 / n), size=4), 1 - np.eye(n)[:2]])
+    corr_xx, corr_xy, bad = weighted_correlations(X, Y, counts.astype(float))
+    for row, weights in enumerate(counts):
+        full = np.cov(np.column_stack([X, Y]), rowvar=False, fweights=weights)
+        scale = np.sqrt(np.diag(full))
+        expected = full / np.outer(scale, scale)
+        np.testing.assert_allclose(corr_xx[row], expected[:3, :3], rtol=1e-12, atol=1e-14)
+        np.testing.assert_allclose(corr_xy[row], expected[:3, 3:], rtol=1e-12, atol=1e-14)
+    assert not bad.any()
+
+
+def test_a_resample_that_leaves_a_cue_constant_is_marked_bad():
+    X = np.array([[0.0, 1.0], [0.0, 2.0], [1.0, 0.5], [1.0, 3.0]])
+    Y = np.array([[1.0], [2.0], [0.0], [4.0]])
+    counts = np.array([[2.0, 2.0, 0.0, 0.0], [1.0, 1.0, 1.0, 1.0]])  # first: cue 0 constant
+    _, _, bad = weighted_correlations(X, Y, counts)
+    assert bad[:, 0].tolist() == [True, False]
+
+
+def _panel(seed: int):
+    """Own-case raters of different sizes, one block read by two raters, one rater unfitted."""
+    rng = np.random.default_rng(seed)
+    pool = rng.normal(size=(120, 3)) @ np.array([[1.0, 0.3, 0.0], [0.0, 1.0, 0.4], [0.0, 0.0, 1.0]])
+    shared = rng.choice(120, 35, replace=False)
+    case_sets = [rng.choice(120, 30, replace=False), shared, rng.choice(120, 25, replace=False),
+                 shared, rng.choice(120, 40, replace=False), rng.choice(120, 20, replace=False)]
+    X, y, groups, case_row = [], [], [], []
+    for g, cases in enumerate(case_sets):
+        weights = rng.normal(size=3)
+        X.append(pool[cases])
+        y.append(pool[cases] @ weights + rng.normal(0, 0.5 + 0.3 * g, cases.size))
+        groups.append(np.full(cases.size, g))
+        case_row.append(cases)
+    fitted = np.array([True, True, True, True, True, False])
+    return (np.vstack(X), np.concatenate(y), np.concatenate(groups), fitted,
+            np.concatenate(case_row))
+
+
+def _explicit_statistics(X, y):
+    """R^2 by least squares on the rows, importance from numpy's correlation matrix."""
+    design = np.column_stack([np.ones(y.size), X])
+    residual = y - design @ np.linalg.lstsq(design, y, rcond=None)[0]
+    r2 = 1 - residual @ residual / ((y - y.mean()) ** 2).sum()
+    corr = np.corrcoef(np.column_stack([X, y]), rowvar=False)
+    importance = dominance_weights(corr[None, :3, :3], corr[None, :3, 3:], CUE_GROUPS)[0, 0]
+    return r2, importance
+
+
+def _explicit_intervals(X, y, groups, fitted, case_row, seed, alpha=0.05):
+    """Per rater: redraw the same case numbers, refit every resample from its rows."""
+    starts = np.r_[0, np.flatnonzero(np.diff(groups)) + 1]
+    ends = np.r_[starts[1:], groups.size]
+    block_of: dict[tuple, int] = {}
+    for g in np.flatnonzero(fitted):
+        block_of.setdefault(tuple(case_row[starts[g]:ends[g]]), len(block_of))
+    generators = np.random.default_rng(seed).spawn(len(block_of))
+    draws = {}
+    expected = {}
+    for g in np.flatnonzero(fitted):
+        rows = slice(starts[g], ends[g])
+        Xg, yg = X[rows], y[rows]
+        n = yg.size
+        block = block_of[tuple(case_row[rows])]
+        if block not in draws:
+            draws[block] = generators[block].integers(0, n, size=(N_BOOT, n))
+        r2, imp = _explicit_statistics(Xg, yg)
+        boot = [_explicit_statistics(Xg[i], yg[i]) for i in draws[block]]
+        jack = [_explicit_statistics(np.delete(Xg, i, 0), np.delete(yg, i)) for i in range(n)]
+        r_lo, r_hi = bca_interval(np.sqrt([r2]), np.sqrt([[b[0]] for b in boot]),
+                                  np.sqrt([[j[0]] for j in jack]), alpha=alpha)
+        boot_shares = np.array([importance_shares(b[1], b[0]) for b in boot])
+        jack_shares = np.array([importance_shares(j[1], j[0]) for j in jack])
+        s_lo, s_hi = bca_interval(importance_shares(imp, r2), boot_shares, jack_shares,
+                                  alpha=alpha)
+        expected[g] = (r2, imp, r_lo[0], r_hi[0], s_lo, s_hi)
+    return expected
+
+
+def _batched(X, y, groups, fitted, case_row, seed):
+    stats = {g: _explicit_statistics(X[groups == g], y[groups == g]) for g in np.unique(groups)}
+    r2 = np.array([stats[g][0] for g in sorted(stats)])
+    imp = np.array([stats[g][1] for g in sorted(stats)])
+    return case_bootstrap_intervals(
+        X, y, groups, fitted, case_row, CUE_GROUPS, n_boot=N_BOOT,
+        rng=np.random.default_rng(seed), alpha=0.05, method="dominance", r2=r2,
+        importance_r2=imp)
+
+
+def test_batched_bootstrap_equals_an_explicit_refit_per_rater():
+    X, y, groups, fitted, case_row = _panel(5)
+    ours = _batched(X, y, groups, fitted, case_row, seed=9)
+    expected = _explicit_intervals(X, y, groups, fitted, case_row, seed=9)
+    for g, (_, _, r_lo, r_hi, s_lo, s_hi) in expected.items():
+        assert ours.r_low[g] == pytest.approx(r_lo, rel=1e-9)
+        assert ours.r_high[g] == pytest.approx(r_hi, rel=1e-9)
+        np.testing.assert_allclose(ours.share_low[g], s_lo, rtol=1e-9)
+        np.testing.assert_allclose(ours.share_high[g], s_hi, rtol=1e-9)
+    # The two raters of the shared block used the same resamples but judged differently.
+    assert ours.r_low[1] != ours.r_low[3]
+    assert np.isnan(ours.r_low[5]) and np.isnan(ours.share_high[5]).all()
+
+
+def test_small_chunks_give_the_same_intervals(monkeypatch):
+    # Forcing one rater per unit and one unit per batch splits the shared block
+    # across batches: its resamples must be drawn once and reused.
+    X, y, groups, fitted, case_row = _panel(6)
+    whole = _batched(X, y, groups, fitted, case_row, seed=2)
+    monkeypatch.setattr(resampling, "_CHUNK_ELEMENTS", 10)
+    pieces = _batched(X, y, groups, fitted, case_row, seed=2)
+    for field in ("r_low", "r_high", "share_low", "share_high"):
+        np.testing.assert_allclose(getattr(pieces, field), getattr(whole, field), rtol=1e-12)
