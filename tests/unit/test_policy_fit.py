@@ -185,3 +185,19 @@ def test_statistics_modules_do_not_load_plotting_or_pdf_code():
             "print(sorted(m for m in ('matplotlib', 'reportlab', 'pingouin') if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "[]"
+
+
+def test_public_names_stay_importable_from_the_policy_module():
+    # The split into policy_results, resampling and logistic keeps the old import paths.
+    import calibrate.logistic
+    import calibrate.policy
+    import calibrate.policy_results
+    import calibrate.resampling
+
+    for name in ("PolicySet", "RaterPolicy", "LogisticPolicy", "CaseToReview"):
+        assert getattr(calibrate.policy, name) is getattr(calibrate.policy_results, name)
+    assert calibrate.policy.bca_interval is calibrate.resampling.bca_interval
+    assert set(calibrate.policy.__all__) >= {"fit_policies", "captured_policies", "bca_interval",
+                                             "PolicySet", "RaterPolicy", "LogisticPolicy",
+                                             "CaseToReview"}
+    assert callable(calibrate.logistic.fit_logistic)
