@@ -176,17 +176,6 @@ def test_user_errors_are_clear():
         fit_policies(design, good, scale="continuous", n_boot=-1)
 
 
-def test_statistics_modules_do_not_load_plotting_or_pdf_code():
-    import subprocess
-    import sys
-
-    code = ("import sys, calibrate.policy, calibrate.importance, calibrate.diagnostics, "
-            "calibrate.resampling, calibrate.logistic, calibrate.policy_results; "
-            "print(sorted(m for m in ('matplotlib', 'reportlab', 'pingouin') if m in sys.modules))")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert out.stdout.strip() == "[]"
-
-
 def test_public_names_stay_importable_from_the_policy_module():
     # The split into policy_results, resampling and logistic keeps the old import paths.
     import calibrate.logistic
