@@ -148,9 +148,6 @@ def icc_from_components(c: ComponentEstimates, k: float) -> dict[str, float]:
         }
 
 
-def _as_generator(rng) -> np.random.Generator:
-    return rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
-
 
 def icc_incomplete(
     first: pd.DataFrame,
@@ -169,7 +166,7 @@ def icc_incomplete(
     readers = layout.readers_per_case()
     k = float(readers.size / np.sum(1.0 / readers))
     point = icc_from_components(henderson_components(fit_additive(layout)), k)
-    gen = _as_generator(rng)
+    gen = np.random.default_rng(rng)  # passes a Generator through
     draws = np.full((n_boot, len(ICC_FORMS)), np.nan)
     counts = gen.multinomial(layout.n_cases, np.full(layout.n_cases, 1.0 / layout.n_cases), size=n_boot)
     for b in range(n_boot):
@@ -333,7 +330,7 @@ def krippendorff_alpha(
     estimate = float(_alpha_from_weights(units, level, np.ones((1, U)))[0])
     low = high = np.nan
     if n_boot > 0:
-        gen = _as_generator(rng)
+        gen = np.random.default_rng(rng)  # passes a Generator through
         w = gen.multinomial(U, np.full(U, 1.0 / U), size=n_boot).astype(float)
         draws = _alpha_from_weights(units, level, w)
         lo, hi = _percentile_interval(draws[:, None], confidence)
@@ -475,7 +472,7 @@ def panel_agreement(
     if method not in ("auto", "anova", "components"):
         raise DataError(f"The ICC method must be 'auto', 'anova' or 'components'; got {method!r}.")
     data = check_first(first)
-    gen = _as_generator(rng)
+    gen = np.random.default_rng(rng)  # passes a Generator through
     layout = crossed_layout(data)
     R, C, N = layout.n_raters, layout.n_cases, layout.y.size
     complete = N == R * C

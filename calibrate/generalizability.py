@@ -184,9 +184,6 @@ def _smallest_k(case: float, rater: float, residual: float, target: float, k_max
     return out
 
 
-def _as_generator(rng) -> np.random.Generator:
-    return rng if isinstance(rng, np.random.Generator) else np.random.default_rng(rng)
-
 
 def flip_rates(
     rater: float,
@@ -205,7 +202,7 @@ def flip_rates(
     and ``k`` residuals (variance ``residual``), all normal. The case component
     does not enter: the files are conditioned to lie near the cut-off.
     """
-    gen = _as_generator(rng)
+    gen = np.random.default_rng(rng)  # passes a Generator through
     rows = []
     sd_r, sd_e = np.sqrt(max(rater, 0.0)), np.sqrt(max(residual, 0.0))
     for k in range(1, max_readers + 1):
