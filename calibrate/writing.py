@@ -26,8 +26,8 @@ def results_schema() -> dict:
 def _csv_bytes(frame: pd.DataFrame) -> bytes:
     safe = frame.copy()
     for col in safe.columns:
-        if safe[col].dtype == object:
-            safe[col] = safe[col].map(escape_formula)
+        if pd.api.types.is_object_dtype(safe[col]) or pd.api.types.is_string_dtype(safe[col]):
+            safe[col] = safe[col].map(escape_formula, na_action="ignore")
     return safe.to_csv(index=False, lineterminator="\n", float_format="%.10g").encode("utf-8")
 
 

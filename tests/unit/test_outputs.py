@@ -45,3 +45,15 @@ def test_existing_folder_needs_overwrite(tmp_path):
     (tmp_path / "out").mkdir()
     with pytest.raises(OutputExistsError, match="--overwrite"):
         OutputFolder(tmp_path / "out")
+
+
+def test_csv_tables_escape_formula_text_and_keep_numbers():
+    import pandas as pd
+
+    from calibrate.writing import _csv_bytes
+
+    frame = pd.DataFrame({"rater": ["=HYPERLINK(1)", "ok"], "note": pd.Series(["@x", None], dtype="string"),
+                          "value": [-1.5, 2.0]})
+    text = _csv_bytes(frame).decode()
+    assert "'=HYPERLINK(1)" in text and "'@x" in text
+    assert "-1.5" in text and "'-1.5" not in text
