@@ -90,6 +90,15 @@ def merged_rss(sscp: np.ndarray, n: np.ndarray, p: int) -> np.ndarray:
     return out
 
 
+#: Safety margins of the lower bound on a merge cost. A pair is skipped only when its
+#: bound clears the current cheapest merge by more than rounding in either number can
+#: explain: the bound is shrunk by a relative 1e-6, and by 1e-8 of the pair's pooled
+#: sum of squares of judgments (rounding in an exact cost is about 1e-16 of that times
+#: the condition number of the cues; our choice, generous on purpose).
+_BOUND_RELATIVE_SLACK = 1e-6
+_BOUND_ABSOLUTE_SLACK = 1e-8
+
+
 @dataclass
 class Agglomeration:
     """Lockstep merge state for a batch of B groupings of R raters."""
@@ -98,47 +107,259 @@ class Agglomeration:
     history: list               # per step: (b-array, i, j, cost, rss_total, n_groups)
     last_cost: np.ndarray       # (B,) RSS cost of each batch's last merge (NaN: none)
     tss: np.ndarray             # (B,) sum of the active raters' centred SS of judgments
+    n_exact: int = 0            # pair costs computed exactly (the rest were ruled out)
+
+
+class _PairCosts:
+    """Merge costs of every pair of groups, exact where needed and bounded elsewhere.
+
+    Entry ``cost[b, x, y]`` is the exact cost of merging groups x and y of batch b
+    where ``exact[b, x, y]``, and otherwise a lower bound on it (inf for a dead group
+    or the diagonal). Invariant kept for every live row x: each bounded entry of the
+    row exceeds the row's smallest exact entry, so the row minimum (``row_min``,
+    ``row_arg``: the smallest column holding it) is exact without computing the row.
+
+    Lower bound. With ``A``, ``B`` the cue SSCPs of two groups and ``d`` the
+    difference of their common weights, the cost of the merge is
+    ``d' (A^-1 + B^-1)^-1 d`` (the numerator of the test of equal slopes, Chow 1960,
+    Econometrica 28:591-605). For a fixed positive-definite metric ``W`` (the panel's
+    pooled cue covariance) and ``a = lambda_min(W^-1/2 A W^-1/2)``, ``A >= a W``, so
+    ``A^-1 + B^-1 <= (1/a + 1/b) W^-1`` and
+    ``cost >= a b / (a + b) * |W^1/2 d|^2``: O(p) per pair once each group's ``a``
+    and ``W^1/2 d`` are known (our derivation; tested against exact costs).
+    """
+
+    def __init__(self, group_sscp, group_n, group_rss, active, p, prune):
+        self.sscp, self.n, self.rss, self.p = group_sscp, group_n, group_rss, p
+        B, R = active.shape
+        self.alive = active.copy()
+        # Step of the last merge into each slot (-1: never). An exact cost subtracts the
+        # RSS of the side merged into most recently first, as the costs were always
+        # formed, so every digit stays as it was.
+        self.last_merge = np.full((B, R), -1)
+        self.prune = prune and bool(active.any())
+        self.u = np.zeros((B, R, p))
+        self.a = np.zeros((B, R))
+        if self.prune:
+            pooled = group_sscp[active][:, :p, :p].sum(axis=0) / group_n[active].sum()
+            evals, evecs = np.linalg.eigh(pooled)
+            self.prune = bool(evals[0] > 0)
+            if self.prune:
+                self.root = (evecs * np.sqrt(evals)) @ evecs.T
+                self.inv_root = (evecs / np.sqrt(evals)) @ evecs.T
+        self.cost = np.full((B, R, R), np.inf)
+        self.exact = np.ones((B, R, R), dtype=bool)
+        self.row_min = np.full((B, R), np.inf)
+        self.row_arg = np.full((B, R), -1)
+        self.n_exact = 0
+        self.refresh_profiles(*np.nonzero(active))
+        # A few batches at a time keeps the temporaries small.
+        per = max(1, 4_000_000 // max(R * R, 1))
+        for start in range(0, B, per):
+            self._first_minima(np.arange(start, min(start + per, B)), active)
+
+    def _first_minima(self, part, active):
+        """Bound every pair of batches ``part``, then settle every row's minimum."""
+        R = active.shape[1]
+        live = active[part]
+        pair = live[:, :, None] & live[:, None, :]
+        pair[:, np.arange(R), np.arange(R)] = False
+        cost = np.where(pair, self.all_pair_bounds(part), np.inf)
+        self.cost[part] = cost
+        self.exact[part] = ~pair
+        # First each row's smallest bound (all entries are bounds yet), then every
+        # entry bounded below the row's exact minimum so far.
+        pb, pr = np.nonzero(live)
+        self.fill_exact(part[pb], pr, cost[pb, pr].argmin(axis=1))
+        cost = self.cost[part]
+        known_min = np.where(self.exact[part], cost, np.inf).min(axis=2)
+        b, x, y = np.nonzero(~self.exact[part] & (cost <= known_min[:, :, None]))
+        self.fill_exact(part[b], x, y)
+        cost = self.cost[part]
+        arg = cost.argmin(axis=2)
+        self.row_arg[part] = np.where(live, arg, -1)
+        self.row_min[part] = np.take_along_axis(cost, arg[:, :, None], axis=2)[:, :, 0]
+
+    # ------------------------------------------------------------------ profiles, bounds
+
+    def refresh_profiles(self, bb, gg):
+        """Metric weights ``W^1/2 beta`` and ``lambda_min`` of groups (bb, gg)."""
+        if not self.prune or bb.size == 0:
+            return
+        p = self.p
+        cues = self.sscp[bb, gg, :p, :p]
+        try:
+            beta = np.linalg.solve(cues, self.sscp[bb, gg, :p, p:])[..., 0]
+            low = np.linalg.eigvalsh(self.inv_root @ cues @ self.inv_root)[:, 0]
+        except np.linalg.LinAlgError:  # a sum of full-rank SSCPs is never singular
+            beta, low = np.zeros((bb.size, p)), np.zeros(bb.size)
+        u = beta @ self.root
+        ok = np.isfinite(u).all(axis=1) & np.isfinite(low)
+        # A group without a usable profile gets a = 0: its bounds are never above a cost.
+        self.u[bb, gg] = np.where(ok[:, None], u, 0.0)
+        self.a[bb, gg] = np.where(ok, np.maximum(low, 0.0), 0.0)
+
+    @staticmethod
+    def _bound(raw, a_x, a_y, ss_x, ss_y):
+        """The bound from squared metric distances ``raw`` (arrays broadcast)."""
+        den = a_x + a_y
+        with np.errstate(invalid="ignore", divide="ignore"):
+            h = np.where(den > 0, a_x * a_y / den, 0.0)
+        h *= raw
+        h *= 1.0 - _BOUND_RELATIVE_SLACK
+        h -= _BOUND_ABSOLUTE_SLACK * (ss_x + ss_y)
+        return h
+
+    def all_pair_bounds(self, part):
+        """(b, R, R) bounds for every pair in batches ``part``."""
+        p = self.p
+        if not self.prune:
+            return np.full((part.size,) + self.cost.shape[1:], -np.inf)
+        u, a = self.u[part], self.a[part]
+        ss = self.sscp[part, :, p, p]
+        sq = np.einsum("brp,brp->br", u, u)
+        # |u_x - u_y|^2 by expansion, less 1e-12 of |u_x|^2 + |u_y|^2 for its rounding.
+        raw = u @ u.transpose(0, 2, 1)
+        raw *= -2.0
+        raw += (1.0 - 1e-12) * (sq[:, :, None] + sq[:, None, :])
+        np.maximum(raw, 0.0, out=raw)
+        return self._bound(raw, a[:, :, None], a[:, None, :], ss[:, :, None], ss[:, None, :])
+
+    def row_bounds(self, bb, gg):
+        """(M, R) bounds between groups (bb, gg) and every slot of their batch."""
+        p = self.p
+        if not self.prune:
+            return np.full((bb.size, self.cost.shape[2]), -np.inf)
+        u = self.u if bb.size == self.u.shape[0] and (bb == np.arange(bb.size)).all() \
+            else self.u[bb]
+        raw = np.square(u - self.u[bb, gg][:, None, :]).sum(axis=2)
+        return self._bound(raw, self.a[bb, gg][:, None], self.a[bb],
+                           self.sscp[bb, gg, p, p][:, None], self.sscp[bb, :, p, p])
+
+    # ------------------------------------------------------------------ exact costs
+
+    def fill_exact(self, bb, xx, yy):
+        """Compute the exact costs of pairs (bb, xx, yy) not yet exact (each once)."""
+        if bb.size == 0:
+            return
+        R = self.cost.shape[1]
+        lo, hi = np.minimum(xx, yy), np.maximum(xx, yy)
+        key = np.unique((bb * R + lo) * R + hi)
+        key = key[~self.exact.reshape(-1)[key]]
+        if key.size == 0:
+            return
+        self.n_exact += key.size
+        bb, rest = np.divmod(key, R * R)
+        lo, hi = np.divmod(rest, R)
+        merged = merged_rss(self.sscp[bb, lo] + self.sscp[bb, hi],
+                            self.n[bb, lo] + self.n[bb, hi], self.p)
+        hi_first = self.last_merge[bb, hi] > self.last_merge[bb, lo]
+        first = np.where(hi_first, hi, lo)
+        second = np.where(hi_first, lo, hi)
+        value = merged - self.rss[bb, first] - self.rss[bb, second]
+        self.cost[bb, lo, hi] = value
+        self.cost[bb, hi, lo] = value
+        self.exact[bb, lo, hi] = True
+        self.exact[bb, hi, lo] = True
+
+    def settle_rows(self, bb, rows):
+        """Make the minimum of rows (bb, rows) exact and record it (rows distinct)."""
+        if bb.size == 0:
+            return
+        at = np.arange(bb.size)
+        # First the smallest bound of each row, then every bounded entry not above the
+        # row's exact minimum so far.
+        stored, bounded = self.cost[bb, rows], ~self.exact[bb, rows]
+        known_min = np.where(bounded, np.inf, stored).min(axis=1)
+        candidate = np.where(bounded, stored, np.inf)
+        best = candidate.argmin(axis=1)
+        take = candidate[at, best] <= known_min
+        self.fill_exact(bb[take], rows[take], best[take])
+        stored, bounded = self.cost[bb, rows], ~self.exact[bb, rows]
+        known_min = np.where(bounded, np.inf, stored).min(axis=1)
+        m, other = np.nonzero(bounded & (stored <= known_min[:, None]))
+        if m.size:
+            self.fill_exact(bb[m], rows[m], other)
+            stored = self.cost[bb, rows]
+        arg = stored.argmin(axis=1)
+        self.row_arg[bb, rows] = arg
+        self.row_min[bb, rows] = stored[at, arg]
+
+    # ------------------------------------------------------------------ a merge
+
+    def merge(self, todo, i, j, step):
+        """Record that slot j merged into slot i in batches ``todo`` (state already summed)."""
+        at = np.arange(todo.size)
+        self.last_merge[todo, i] = step
+        self.alive[todo, j] = False
+        self.row_min[todo, j] = np.inf
+        self.refresh_profiles(todo, i)
+        others = self.alive[todo]
+        others[at, i] = False
+        bound = np.where(others, self.row_bounds(todo, i), np.inf)
+        exact = ~others
+        self.cost[todo, i, :] = bound
+        self.exact[todo, i, :] = exact
+        self.cost[todo, j, :] = np.inf
+        self.exact[todo, j, :] = True
+        # The matrix stays symmetric: copy both rows into their columns.
+        self.cost[todo, :, i] = bound
+        self.exact[todo, :, i] = exact
+        self.cost[todo, :, j] = np.inf
+        self.exact[todo, :, j] = True
+        arg = self.row_arg[todo]
+        stale = others & ((arg == i[:, None]) | (arg == j[:, None]))
+        fresh = others & ~stale
+        current = self.row_min[todo]
+        # A row whose minimum lies elsewhere needs the new cost only if it could undercut.
+        m, other = np.nonzero(fresh & (bound <= current))
+        self.fill_exact(todo[m], i[m], other)
+        self.settle_rows(todo, i)
+        row = self.cost[todo, i, :]
+        better = fresh & self.exact[todo, i, :] & (
+            (row < current) | ((row == current) & (i[:, None] < arg)))
+        m, other = np.nonzero(better)
+        self.row_min[todo[m], other] = row[m, other]
+        self.row_arg[todo[m], other] = i[m]
+        m, other = np.nonzero(stale)
+        self.settle_rows(todo[m], other)
 
 
 def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
-                stop_at: int, record: bool) -> Agglomeration:
+                stop_at: int, record: bool, *, prune: bool = True) -> Agglomeration:
     """Merge groups bottom-up, the cheapest merge first, in every batch at once.
 
     sscp : (B, R, k, k) centred SSCP per rater; n : (B, R) judgments per rater;
     active : (B, R) raters taking part. Merging stops in a batch when it has
     ``stop_at`` groups. Ties go to the lowest (i, j) slot pair, so runs repeat.
+
+    Each step only touches the costs that involve the new group, and a cost is
+    computed exactly only when its lower bound (see :class:`_PairCosts`) does not
+    rule it out; ``prune=False`` computes every cost (same merges, same digits,
+    slower). Each row's cheapest merge is kept, so a step scans R row minima
+    instead of all R^2 pairs.
     """
     B, R = active.shape
     group_sscp = np.where(active[:, :, None, None], sscp, 0.0)
     group_n = np.where(active, n, 0.0)
     group_rss = np.where(active, batched_rss(group_sscp, group_n, p), 0.0)
     labels = np.where(active, np.arange(R)[None, :], -1)
-
-    cost = np.full((B, R, R), np.inf)
-    iu, ju = np.triu_indices(R, k=1)
-    all_bb, all_pair = np.nonzero(active[:, iu] & active[:, ju])
-    # In chunks: B * R^2 / 2 stacked SSCPs at once would take gigabytes for big panels.
-    for start in range(0, all_bb.size, _FIT_CHUNK):
-        bb, pair = all_bb[start:start + _FIT_CHUNK], all_pair[start:start + _FIT_CHUNK]
-        a, b = iu[pair], ju[pair]
-        pair_rss = merged_rss(group_sscp[bb, a] + group_sscp[bb, b],
-                               group_n[bb, a] + group_n[bb, b], p)
-        cost[bb, a, b] = pair_rss - group_rss[bb, a] - group_rss[bb, b]
-        cost[bb, b, a] = cost[bb, a, b]
-    alive = active.copy()
+    costs = _PairCosts(group_sscp, group_n, group_rss, active, p, prune)
 
     history = []
     last_cost = np.full(B, np.nan)
     n_groups = active.sum(axis=1)
     batch = np.arange(B)
+    step = 0
     while True:
         todo = batch[n_groups > stop_at]
         if todo.size == 0:
             break
-        flat = (cost if todo.size == B else cost[todo]).reshape(todo.size, -1).argmin(axis=1)
-        i, j = np.divmod(flat, R)
-        i, j = np.minimum(i, j), np.maximum(i, j)
-        step_cost = cost[todo, i, j]
+        row_min = costs.row_min[todo]
+        first = row_min.argmin(axis=1)
+        second = costs.row_arg[todo, first]
+        i, j = np.minimum(first, second), np.maximum(first, second)
+        step_cost = costs.cost[todo, i, j]
         last_cost[todo] = step_cost
         if record:
             history.append((todo.copy(), i.copy(), j.copy(), step_cost.copy(),
@@ -151,20 +372,12 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
         group_rss[todo, j] = 0.0
         moved = labels[todo] == j[:, None]
         labels[todo] = np.where(moved, i[:, None], labels[todo])
-        cost[todo, j, :] = np.inf
-        cost[todo, :, j] = np.inf
         n_groups[todo] -= 1
-        alive[todo, j] = False
-        live = alive[todo]
-        live[np.arange(todo.size), i] = False
-        rows, other = np.nonzero(live)
-        tb, ti = todo[rows], i[rows]
-        new_rss = merged_rss(group_sscp[tb, ti] + group_sscp[tb, other],
-                              group_n[tb, ti] + group_n[tb, other], p)
-        cost[tb, ti, other] = new_rss - group_rss[tb, ti] - group_rss[tb, other]
-        cost[tb, other, ti] = cost[tb, ti, other]
+        costs.merge(todo, i, j, step)
+        step += 1
     tss = np.where(active, sscp[:, :, p, p], 0.0).sum(axis=1)
-    return Agglomeration(labels=labels, history=history, last_cost=last_cost, tss=tss)
+    return Agglomeration(labels=labels, history=history, last_cost=last_cost, tss=tss,
+                         n_exact=costs.n_exact)
 
 
 def labels_at(labels_start: np.ndarray, history: list, n_steps: int) -> np.ndarray:
