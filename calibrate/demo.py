@@ -43,7 +43,7 @@ GROUP_WEIGHTS = {
     "field": {"grades": 0.20, "test_score": 0.10, "essay": 0.15, "interview": 0.20,
               "field_years": 0.90, "recommendation": 0.70},
 }
-RUBRIC_WEIGHTS = {c: 1.6 * w for c, w in RUBRIC.items()}
+RUBRIC_WEIGHTS = {c: 2.6 * w for c, w in RUBRIC.items()}  # about as strong a signal as a group's
 
 REVIEWERS = {
     # name: (group, trained, leniency offset)
@@ -69,7 +69,7 @@ LEANS_ON_EXCLUDED = "Juniper"
 EXCLUDED_EFFECT = 1.2
 DRIFTER = "Wren"
 DRIFT_POINTS = 1.5
-TRAINED_NOISE_SD = 0.30
+TRAINED_NOISE_SD = 0.25
 TRAINING_PULL = 0.6
 FILES_PER_ROUND = 350
 READERS_PER_FILE = 4

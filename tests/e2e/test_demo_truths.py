@@ -73,3 +73,19 @@ def test_nobody_else_carries_a_flag(demo):
                LEANS_ON_EXCLUDED: {"excluded_attribute"}, DRIFTER: {"drift"}}
     for e in demo["raters"]:
         assert set(e["flags"]) <= planted.get(e["rater"], set()), (e["rater"], e["phase"], e["flags"])
+
+
+def test_training_made_trained_reviewers_more_consistent_and_closer_to_the_rubric(demo):
+    # planted: trained reviewers' noise falls and their weights move 60% toward the rubric;
+    # controls stay as they were
+    by = {(e["rater"], e["phase"]): e for e in demo["raters"]}
+    trained = [n for n, (_, t, _) in REVIEWERS.items() if t]
+    controls = [n for n, (_, t, _) in REVIEWERS.items() if not t]
+
+    def change(names, get):
+        return float(np.mean([get(by[(n, "after")]) - get(by[(n, "before")]) for n in names]))
+
+    r_s = lambda e: e["policy"]["r"]  # noqa: E731
+    misallocation = lambda e: e["alignment"]["misallocation"]  # noqa: E731
+    assert change(trained, r_s) > 0.02 and abs(change(controls, r_s)) < 0.02
+    assert change(trained, misallocation) < -0.1 and abs(change(controls, misallocation)) < 0.05
