@@ -138,8 +138,12 @@ class _PairCosts:
         # formed, so every digit stays as it was.
         self.last_merge = np.full((B, R), -1)
         self.prune = prune and bool(active.any())
+        # Per group, for the bound (see _bound): W^1/2 beta, its squared length, 1 / a
+        # and the absolute slack, each with its safety margin folded in.
         self.u = np.zeros((B, R, p))
-        self.a = np.zeros((B, R))
+        self.norm = np.zeros((B, R))
+        self.inv_a = np.full((B, R), np.inf)
+        self.slack = _BOUND_ABSOLUTE_SLACK * group_sscp[:, :, p, p]
         if self.prune:
             pooled = group_sscp[active][:, :p, :p].sum(axis=0) / group_n[active].sum()
             evals, evecs = np.linalg.eigh(pooled)
@@ -147,8 +151,8 @@ class _PairCosts:
             if self.prune:
                 self.root = (evecs * np.sqrt(evals)) @ evecs.T
                 self.inv_root = (evecs / np.sqrt(evals)) @ evecs.T
-        self.cost = np.full((B, R, R), np.inf)
-        self.exact = np.ones((B, R, R), dtype=bool)
+        self.cost = np.empty((B, R, R))              # every batch is set below
+        self.exact = np.zeros((B, R, R), dtype=bool)  # dead groups are masked by alive
         self.row_min = np.full((B, R), np.inf)
         self.row_arg = np.full((B, R), -1)
         self.n_exact = 0
@@ -156,29 +160,32 @@ class _PairCosts:
         # A few batches at a time keeps the temporaries small.
         per = max(1, 4_000_000 // max(R * R, 1))
         for start in range(0, B, per):
-            self._first_minima(np.arange(start, min(start + per, B)), active)
+            self._first_minima(slice(start, min(start + per, B)), active)
 
     def _first_minima(self, part, active):
-        """Bound every pair of batches ``part``, then settle every row's minimum."""
+        """Bound every pair of batches ``part`` (a slice), then settle every row's minimum."""
         R = active.shape[1]
         live = active[part]
-        pair = live[:, :, None] & live[:, None, :]
-        pair[:, np.arange(R), np.arange(R)] = False
-        cost = np.where(pair, self.all_pair_bounds(part), np.inf)
-        self.cost[part] = cost
-        self.exact[part] = ~pair
+        cost = self.cost[part]  # a view
+        cost[...] = self.all_pair_bounds(np.arange(self.cost.shape[0])[part])
+        cost[~live] = np.inf
+        np.copyto(cost, np.inf, where=~live[:, None, :])
+        cost[:, np.arange(R), np.arange(R)] = np.inf
         # First each row's smallest bound (all entries are bounds yet), then every
         # entry bounded below the row's exact minimum so far.
         pb, pr = np.nonzero(live)
-        self.fill_exact(part[pb], pr, cost[pb, pr].argmin(axis=1))
-        cost = self.cost[part]
-        known_min = np.where(self.exact[part], cost, np.inf).min(axis=2)
-        b, x, y = np.nonzero(~self.exact[part] & (cost <= known_min[:, :, None]))
-        self.fill_exact(part[b], x, y)
-        cost = self.cost[part]
+        first = part.start + pb
+        self.fill_exact(first, pr, cost[pb, pr].argmin(axis=1))
+        done = self.exact[part]
+        known_min = np.where(live, np.inf, -np.inf)
+        b, x, y = np.nonzero(done)
+        np.minimum.at(known_min, (b, x), cost[b, x, y])
+        b, x, y = np.nonzero(cost <= known_min[:, :, None])
+        self.fill_exact(part.start + b, x, y)
         arg = cost.argmin(axis=2)
         self.row_arg[part] = np.where(live, arg, -1)
-        self.row_min[part] = np.take_along_axis(cost, arg[:, :, None], axis=2)[:, :, 0]
+        self.row_min[part] = np.where(live, np.take_along_axis(cost, arg[:, :, None], axis=2)[:, :, 0],
+                                      np.inf)
 
     # ------------------------------------------------------------------ profiles, bounds
 
@@ -196,45 +203,51 @@ class _PairCosts:
         u = beta @ self.root
         ok = np.isfinite(u).all(axis=1) & np.isfinite(low)
         # A group without a usable profile gets a = 0: its bounds are never above a cost.
-        self.u[bb, gg] = np.where(ok[:, None], u, 0.0)
-        self.a[bb, gg] = np.where(ok, np.maximum(low, 0.0), 0.0)
+        u = np.where(ok[:, None], u, 0.0)
+        low = np.where(ok, low, 0.0) * (1.0 - _BOUND_RELATIVE_SLACK)
+        self.u[bb, gg] = u
+        # Rounding of |u_x - u_y|^2 by expansion is far below 1e-12 of |u_x|^2 + |u_y|^2.
+        self.norm[bb, gg] = (1.0 - 1e-12) * np.einsum("mp,mp->m", u, u)
+        with np.errstate(divide="ignore"):
+            self.inv_a[bb, gg] = np.where(low > 0, 1.0 / np.maximum(low, 1e-300), np.inf)
+        self.slack[bb, gg] = _BOUND_ABSOLUTE_SLACK * self.sscp[bb, gg, p, p]
 
     @staticmethod
-    def _bound(raw, a_x, a_y, ss_x, ss_y):
-        """The bound from squared metric distances ``raw`` (arrays broadcast)."""
-        den = a_x + a_y
-        with np.errstate(invalid="ignore", divide="ignore"):
-            h = np.where(den > 0, a_x * a_y / den, 0.0)
-        h *= raw
-        h *= 1.0 - _BOUND_RELATIVE_SLACK
-        h -= _BOUND_ABSOLUTE_SLACK * (ss_x + ss_y)
-        return h
+    def _bound(dot, x, y):
+        """Bounds from dot products ``dot`` of u (overwritten) and group quantities.
+
+        ``x``, ``y``: (norm, inv_a, slack) of each side, broadcasting against ``dot``.
+        ``|u_x - u_y|^2 / (1/a_x + 1/a_y)`` is the bound of the class docstring.
+        """
+        dot *= -2.0
+        dot += x[0]
+        dot += y[0]
+        np.maximum(dot, 0.0, out=dot)
+        dot /= x[1] + y[1]
+        dot -= x[2]
+        dot -= y[2]
+        return dot
 
     def all_pair_bounds(self, part):
         """(b, R, R) bounds for every pair in batches ``part``."""
         p = self.p
         if not self.prune:
             return np.full((part.size,) + self.cost.shape[1:], -np.inf)
-        u, a = self.u[part], self.a[part]
-        ss = self.sscp[part, :, p, p]
-        sq = np.einsum("brp,brp->br", u, u)
-        # |u_x - u_y|^2 by expansion, less 1e-12 of |u_x|^2 + |u_y|^2 for its rounding.
-        raw = u @ u.transpose(0, 2, 1)
-        raw *= -2.0
-        raw += (1.0 - 1e-12) * (sq[:, :, None] + sq[:, None, :])
-        np.maximum(raw, 0.0, out=raw)
-        return self._bound(raw, a[:, :, None], a[:, None, :], ss[:, :, None], ss[:, None, :])
+        u = self.u[part]
+        each = [q[part] for q in (self.norm, self.inv_a, self.slack)]
+        # einsum: three times faster than matmul on a transposed (b, p, R) view here.
+        return self._bound(np.einsum("brp,bsp->brs", u, u), [q[:, :, None] for q in each],
+                           [q[:, None, :] for q in each])
 
     def row_bounds(self, bb, gg):
         """(M, R) bounds between groups (bb, gg) and every slot of their batch."""
-        p = self.p
         if not self.prune:
             return np.full((bb.size, self.cost.shape[2]), -np.inf)
-        u = self.u if bb.size == self.u.shape[0] and (bb == np.arange(bb.size)).all() \
-            else self.u[bb]
-        raw = np.square(u - self.u[bb, gg][:, None, :]).sum(axis=2)
-        return self._bound(raw, self.a[bb, gg][:, None], self.a[bb],
-                           self.sscp[bb, gg, p, p][:, None], self.sscp[bb, :, p, p])
+        whole = bb.size == self.u.shape[0] and (bb == np.arange(bb.size)).all()
+        quantities = (self.u, self.norm, self.inv_a, self.slack)
+        u, *rest = quantities if whole else [q[bb] for q in quantities]
+        mine = [q[bb, gg][:, None] for q in quantities[1:]]
+        return self._bound((u @ self.u[bb, gg][:, :, None])[:, :, 0], mine, rest)
 
     # ------------------------------------------------------------------ exact costs
 
@@ -262,25 +275,40 @@ class _PairCosts:
         self.exact[bb, lo, hi] = True
         self.exact[bb, hi, lo] = True
 
-    def settle_rows(self, bb, rows):
-        """Make the minimum of rows (bb, rows) exact and record it (rows distinct)."""
+    def settle_rows(self, bb, rows, extra=None):
+        """Make the minimum of rows (bb, rows) exact and record it (rows distinct).
+
+        ``extra``: (positions in ``rows``, columns) of further entries of those rows
+        to compute exactly along the way.
+        """
         if bb.size == 0:
             return
         at = np.arange(bb.size)
-        # First the smallest bound of each row, then every bounded entry not above the
-        # row's exact minimum so far.
-        stored, bounded = self.cost[bb, rows], ~self.exact[bb, rows]
+        live = self.alive[bb]
+        live[at, rows] = False
+        # Entries of dead groups are never cleared from the matrix: masked here.
+        stored = np.where(live, self.cost[bb, rows], np.inf)
+        bounded = live & ~self.exact[bb, rows]
         known_min = np.where(bounded, np.inf, stored).min(axis=1)
+
+        def fill(m, other):  # exact costs, copied into this call's view of the rows
+            self.fill_exact(bb[m], rows[m], other)
+            stored[m, other] = self.cost[bb[m], rows[m], other]
+            bounded[m, other] = False
+
+        # First the smallest bound of each row, then every bounded entry not above the
+        # row's exact minimum so far. An entry computed for another row is left as
+        # its bound here: it lies above this row's minimum, so no answer changes.
         candidate = np.where(bounded, stored, np.inf)
         best = candidate.argmin(axis=1)
-        take = candidate[at, best] <= known_min
-        self.fill_exact(bb[take], rows[take], best[take])
-        stored, bounded = self.cost[bb, rows], ~self.exact[bb, rows]
-        known_min = np.where(bounded, np.inf, stored).min(axis=1)
+        m = np.flatnonzero(bounded[at, best] & (candidate[at, best] <= known_min))
+        other = best[m]
+        if extra is not None:
+            m, other = np.concatenate([m, extra[0]]), np.concatenate([other, extra[1]])
+        fill(m, other)
+        np.minimum.at(known_min, m, stored[m, other])
         m, other = np.nonzero(bounded & (stored <= known_min[:, None]))
-        if m.size:
-            self.fill_exact(bb[m], rows[m], other)
-            stored = self.cost[bb, rows]
+        fill(m, other)
         arg = stored.argmin(axis=1)
         self.row_arg[bb, rows] = arg
         self.row_min[bb, rows] = stored[at, arg]
@@ -297,32 +325,26 @@ class _PairCosts:
         others = self.alive[todo]
         others[at, i] = False
         bound = np.where(others, self.row_bounds(todo, i), np.inf)
-        exact = ~others
+        # Row and column i (the matrix stays symmetric); j's are masked by ``alive``.
         self.cost[todo, i, :] = bound
-        self.exact[todo, i, :] = exact
-        self.cost[todo, j, :] = np.inf
-        self.exact[todo, j, :] = True
-        # The matrix stays symmetric: copy both rows into their columns.
         self.cost[todo, :, i] = bound
-        self.exact[todo, :, i] = exact
-        self.cost[todo, :, j] = np.inf
-        self.exact[todo, :, j] = True
+        self.exact[todo, i, :] = False
+        self.exact[todo, :, i] = False
         arg = self.row_arg[todo]
         stale = others & ((arg == i[:, None]) | (arg == j[:, None]))
         fresh = others & ~stale
         current = self.row_min[todo]
-        # A row whose minimum lies elsewhere needs the new cost only if it could undercut.
-        m, other = np.nonzero(fresh & (bound <= current))
-        self.fill_exact(todo[m], i[m], other)
-        self.settle_rows(todo, i)
+        # Row i and the rows whose minimum was i or j are settled together. A row whose
+        # minimum lies elsewhere needs the new cost only if it could undercut it.
+        m, other = np.nonzero(stale)
+        self.settle_rows(np.concatenate([todo, todo[m]]), np.concatenate([i, other]),
+                         extra=np.nonzero(fresh & (bound <= current)))
         row = self.cost[todo, i, :]
         better = fresh & self.exact[todo, i, :] & (
             (row < current) | ((row == current) & (i[:, None] < arg)))
         m, other = np.nonzero(better)
         self.row_min[todo[m], other] = row[m, other]
         self.row_arg[todo[m], other] = i[m]
-        m, other = np.nonzero(stale)
-        self.settle_rows(todo[m], other)
 
 
 def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
