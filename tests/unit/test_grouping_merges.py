@@ -137,6 +137,25 @@ def test_stopping_early_gives_the_first_merges_and_the_last_cost():
     assert part.last_cost[0] == full.history[10][3][0]
 
 
+def test_unrecorded_runs_drop_dead_slots_and_end_alike():
+    # Without a record the engine drops dead groups' slots as it goes (40 raters, so
+    # the slots are compacted several times); labels and last costs must not change.
+    n_raters, p = 40, 4
+    Z, who, case = random_panel(21, n_raters, 150, p, share_seen=0.5)
+    rng = np.random.default_rng(8)
+    counts = rng.multinomial(150, np.full(150, 1.0 / 150), size=5).astype(float)
+    sscp, n = stacked_sscp(Z, who, n_raters, weights=counts[:, case])
+    active = np.isfinite(batched_rss(sscp, n, p)) & (n > p + 1)
+    active[0, ::3] = False  # batches of unequal size: the smaller ones get padded
+    for stop_at in (1, 3, 9):
+        kept = agglomerate(sscp, n, active, p, stop_at=stop_at, record=True)
+        compacted = agglomerate(sscp, n, active, p, stop_at=stop_at, record=False)
+        assert (kept.labels == compacted.labels).all()
+        assert np.array_equal(kept.last_cost, compacted.last_cost)
+        if stop_at == 1:
+            assert len(np.unique(compacted.labels[1])) == 1
+
+
 def test_pruning_changes_no_digit_and_skips_most_pairs():
     # Same merges and the same digits with and without the bound; with it, most pair
     # costs of a 120-rater panel are never computed (measured: about 6% computed).
