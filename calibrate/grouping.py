@@ -37,7 +37,13 @@ import pandas as pd
 from ._results import ResultMixin, jsonable
 from .cues import CueDesign
 from .errors import DataError
-from .grouping_merges import agglomerate, labels_at, name_groups, standardized_weights
+from .grouping_merges import (
+    agglomerate,
+    labels_at,
+    name_groups,
+    release_work_memory,
+    standardized_weights,
+)
 from .grouping_stability import (
     SURVIVAL_JACCARD,
     adjusted_rand_index,
@@ -289,6 +295,15 @@ def group_raters(
         ``first`` lacks a needed column, names a case missing from the design, or
         has no usable judgments.
     """
+    try:
+        return _group_raters(design, first, rng=rng, n_resamples=n_resamples,
+                             threshold=threshold, alpha=alpha, n_groups=n_groups, n_null=n_null)
+    finally:
+        release_work_memory()  # the pair-cost matrices kept between the groupings
+
+
+def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups,
+                  n_null) -> GroupingResult:
     if threshold < 0 or not np.isfinite(threshold):
         raise DataError(f"threshold must be a non-negative number of R^2; got {threshold!r}.")
     if not 0 < alpha <= 1:

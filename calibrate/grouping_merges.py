@@ -29,12 +29,54 @@ __all__ = [
     "labels_at",
     "merged_rss",
     "name_groups",
+    "release_work_memory",
     "stacked_sscp",
     "standardized_weights",
 ]
 
 #: Largest batch of small regressions solved in one call (bounds memory).
 _FIT_CHUNK = 50_000
+
+#: Pair-cost matrices kept between groupings. Memory a process touches for the first
+#: time costs far more than memory it reuses (measured on the 2-core machine: first
+#: writes to 400 MB took 1.1 s, a second write 0.05 s), and a number-of-groups test
+#: allocates the same B x R x R matrices once per level. Released by
+#: :func:`release_work_memory`.
+_SPARE: dict[str, np.ndarray] = {}
+
+
+def _borrow(name: str, size: int, dtype) -> np.ndarray:
+    """A flat array of ``size`` items, reusing the spare one of that name if big enough."""
+    spare = _SPARE.pop(name, None)
+    if spare is None or spare.size < size or spare.dtype != dtype:
+        spare = np.empty(size, dtype=dtype)
+    return spare
+
+
+def _give_back(name: str, array: np.ndarray) -> None:
+    _SPARE[name] = array
+
+
+def release_work_memory() -> None:
+    """Free the matrices kept between groupings (:func:`calibrate.grouping.group_raters`
+    calls this when it is done)."""
+    _SPARE.clear()
+
+
+def _compact_slots(array: np.ndarray, order: np.ndarray, square: bool) -> np.ndarray:
+    """``array[b][order[b]]`` (and the same on axis 2 when ``square``), in its own memory.
+
+    ``array`` (C-contiguous, batches on axis 0, slots on axis 1) is overwritten from
+    the front: batch b's result ends before batch b + 1's input begins, and each batch
+    is read whole before it is written, so nothing is read after being overwritten.
+    """
+    B, keep = order.shape
+    shape = (B, keep) + ((keep,) if square else ()) + array.shape[3 if square else 2:]
+    out = array.reshape(-1)[:int(np.prod(shape))].reshape(shape)
+    for b in range(B):
+        taken = array[b, order[b]]
+        out[b] = taken[:, order[b]] if square else taken
+    return out
 
 
 def group_label(i: int) -> str:
@@ -154,15 +196,19 @@ class _PairCosts:
             if self.prune:
                 self.root = (evecs * np.sqrt(evals)) @ evecs.T
                 self.inv_root = (evecs / np.sqrt(evals)) @ evecs.T
-        self.cost = np.empty((B, R, R))              # every batch is set below
-        self.exact = np.zeros((B, R, R), dtype=bool)  # dead groups are masked by alive
+        # Every batch of cost is set below; dead groups are masked by alive.
+        self.cost_memory = _borrow("cost", B * R * R, float)
+        self.exact_memory = _borrow("exact", B * R * R, bool)
+        self.cost = self.cost_memory[:B * R * R].reshape(B, R, R)
+        self.exact = self.exact_memory[:B * R * R].reshape(B, R, R)
+        self.exact[...] = False
         self.row_min = np.full((B, R), np.inf)
         self.row_arg = np.full((B, R), -1)
         self.slot_of = np.broadcast_to(np.arange(R), (B, R)).copy()  # see compact()
         self.n_exact = 0
         self.refresh_profiles(*np.nonzero(active))
         # A few batches at a time keeps the temporaries small.
-        per = max(1, 4_000_000 // max(R * R, 1))
+        per = max(1, 1_000_000 // max(R * R, 1))  # temporaries under 8 MB: see _SPARE
         for start in range(0, B, per):
             self._first_minima(slice(start, min(start + per, B)), active)
 
@@ -171,19 +217,19 @@ class _PairCosts:
         R = active.shape[1]
         live = active[part]
         cost = self.cost[part]  # a view
-        cost[...] = self.all_pair_bounds(np.arange(self.cost.shape[0])[part])
-        cost[~live] = np.inf
-        np.copyto(cost, np.inf, where=~live[:, None, :])
+        self.all_pair_bounds(part, out=cost)
+        if not live.all():
+            cost[~live] = np.inf
+            np.copyto(cost, np.inf, where=~live[:, None, :])
         cost[:, np.arange(R), np.arange(R)] = np.inf
         # First each row's smallest bound (all entries are bounds yet), then every
         # entry bounded below the row's exact minimum so far.
         pb, pr = np.nonzero(live)
-        first = part.start + pb
-        self.fill_exact(first, pr, cost[pb, pr].argmin(axis=1))
-        done = self.exact[part]
+        b, x, y, value = self.fill_exact(part.start + pb, pr, cost.argmin(axis=2)[pb, pr])
         known_min = np.where(live, np.inf, -np.inf)
-        b, x, y = np.nonzero(done)
-        np.minimum.at(known_min, (b, x), cost[b, x, y])
+        b -= part.start
+        np.minimum.at(known_min, (b, x), value)
+        np.minimum.at(known_min, (b, y), value)
         b, x, y = np.nonzero(cost <= known_min[:, :, None])
         self.fill_exact(part.start + b, x, y)
         arg = cost.argmin(axis=2)
@@ -232,16 +278,16 @@ class _PairCosts:
         dot -= y[2]
         return dot
 
-    def all_pair_bounds(self, part):
-        """(b, R, R) bounds for every pair in batches ``part``."""
-        p = self.p
+    def all_pair_bounds(self, part, out):
+        """Bounds for every pair in batches ``part`` (a slice), written into ``out``."""
         if not self.prune:
-            return np.full((part.size,) + self.cost.shape[1:], -np.inf)
+            out[...] = -np.inf
+            return out
         u = self.u[part]
         each = [q[part] for q in (self.norm, self.inv_a, self.slack)]
         # einsum: three times faster than matmul on a transposed (b, p, R) view here.
-        return self._bound(np.einsum("brp,bsp->brs", u, u), [q[:, :, None] for q in each],
-                           [q[:, None, :] for q in each])
+        return self._bound(np.einsum("brp,bsp->brs", u, u, out=out),
+                           [q[:, :, None] for q in each], [q[:, None, :] for q in each])
 
     def row_bounds(self, bb, gg):
         """(M, R) bounds between groups (bb, gg) and every slot of their batch."""
@@ -256,15 +302,16 @@ class _PairCosts:
     # ------------------------------------------------------------------ exact costs
 
     def fill_exact(self, bb, xx, yy):
-        """Compute the exact costs of pairs (bb, xx, yy) not yet exact (each once)."""
-        if bb.size == 0:
-            return
+        """Compute the exact costs of pairs (bb, xx, yy) not yet exact (each once).
+
+        Returns the pairs computed (batch, lower slot, higher slot) and their costs.
+        """
         R = self.cost.shape[1]
         lo, hi = np.minimum(xx, yy), np.maximum(xx, yy)
         key = np.unique((bb * R + lo) * R + hi)
         key = key[~self.exact.reshape(-1)[key]]
         if key.size == 0:
-            return
+            return key, key, key, np.zeros(0)
         self.n_exact += key.size
         bb, rest = np.divmod(key, R * R)
         lo, hi = np.divmod(rest, R)
@@ -278,6 +325,7 @@ class _PairCosts:
         self.cost[bb, hi, lo] = value
         self.exact[bb, lo, hi] = True
         self.exact[bb, hi, lo] = True
+        return bb, lo, hi, value
 
     def settle_rows(self, bb, rows, extra=None):
         """Make the minimum of rows (bb, rows) exact and record it (rows distinct).
@@ -378,10 +426,12 @@ class _PairCosts:
         self.row_arg = np.where(live, np.take_along_axis(position, np.maximum(arg, 0), axis=1), -1)
         self.row_min = np.where(live, np.take_along_axis(self.row_min, order, axis=1), np.inf)
         self.slot_of = np.where(live, np.take_along_axis(self.slot_of, order, axis=1), -1)
-        for name in ("sscp", "n", "rss", "last_merge", "u", "norm", "inv_a", "slack"):
+        for name in ("n", "rss", "last_merge", "u", "norm", "inv_a", "slack"):
             setattr(self, name, getattr(self, name)[at, order])
-        self.cost = self.cost[at[:, :, None], order[:, :, None], order[:, None, :]]
-        self.exact = self.exact[at[:, :, None], order[:, :, None], order[:, None, :]]
+        # The big ones are compacted in their own memory (see _SPARE).
+        self.sscp = _compact_slots(self.sscp, order, square=False)
+        self.cost = _compact_slots(self.cost, order, square=True)
+        self.exact = _compact_slots(self.exact, order, square=True)
         self.alive = live
 
 
@@ -400,13 +450,25 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
     every cost: same merges, same digits. Without ``record``, the slots of dead
     groups are dropped as merging goes on (:meth:`_PairCosts.compact`).
     """
-    B, R = active.shape
+    R = active.shape[1]
     group_sscp = np.where(active[:, :, None, None], sscp, 0.0)
     group_n = np.where(active, n, 0.0)
     group_rss = np.where(active, batched_rss(group_sscp, group_n, p), 0.0)
     labels = np.where(active, np.arange(R)[None, :], -1)
     costs = _PairCosts(group_sscp, group_n, group_rss, active, p, prune and R >= _PRUNE_FROM)
+    try:
+        history, last_cost = _merge_until(costs, labels, active, stop_at, record)
+    finally:
+        _give_back("cost", costs.cost_memory)
+        _give_back("exact", costs.exact_memory)
+    tss = np.where(active, sscp[:, :, p, p], 0.0).sum(axis=1)
+    return Agglomeration(labels=labels, history=history, last_cost=last_cost, tss=tss,
+                         n_exact=costs.n_exact)
 
+
+def _merge_until(costs, labels, active, stop_at, record):
+    """The merge loop of :func:`agglomerate`; updates ``labels`` in place."""
+    B = active.shape[0]
     history = []
     last_cost = np.full(B, np.nan)
     n_groups = active.sum(axis=1)
@@ -435,9 +497,7 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
         if not record:
             costs.compact()
         step += 1
-    tss = np.where(active, sscp[:, :, p, p], 0.0).sum(axis=1)
-    return Agglomeration(labels=labels, history=history, last_cost=last_cost, tss=tss,
-                         n_exact=costs.n_exact)
+    return history, last_cost
 
 
 def labels_at(labels_start: np.ndarray, history: list, n_steps: int) -> np.ndarray:

@@ -9,8 +9,12 @@ bound against exact costs, and check that pruning changes no digit.
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 
+from calibrate import grouping_merges
+from calibrate.cues import CueRule, build_cue_design
+from calibrate.grouping import group_raters
 from calibrate.grouping_merges import _PairCosts, agglomerate, batched_rss, stacked_sscp
 from calibrate.linalg import grouped_sscp
 
@@ -156,6 +160,34 @@ def test_unrecorded_runs_drop_dead_slots_and_end_alike():
             assert len(np.unique(compacted.labels[1])) == 1
 
 
+def test_reused_work_memory_leaves_no_trace():
+    # The pair-cost matrices are kept between groupings; a grouping run after a bigger
+    # one (whose numbers still fill that memory) must come out as it did before it,
+    # and group_raters hands the memory back when it is done.
+    def run(seed, n_raters, record):
+        Z, who, _ = random_panel(seed, n_raters, 120, 4, share_seen=0.6)
+        noise = np.random.default_rng(seed).normal(size=(3, len(Z)))
+        sims, n = stacked_sscp(Z, who, n_raters, judgments=Z[:, 4] + noise)
+        active = np.ones((3, n_raters), bool)
+        return agglomerate(sims, n, active, 4, stop_at=2, record=record)
+
+    grouping_merges.release_work_memory()
+    before = run(1, 36, record=False)
+    run(2, 70, record=False)
+    run(3, 50, record=True)
+    after = run(1, 36, record=False)
+    assert (before.labels == after.labels).all()
+    assert np.array_equal(before.last_cost, after.last_cost)
+    assert grouping_merges._SPARE  # kept for the next grouping
+    cases = pd.DataFrame(np.random.default_rng(0).normal(size=(5, 2)), columns=["a", "b"],
+                         index=[f"k{i}" for i in range(5)])
+    design = build_cue_design(cases, [CueRule("a"), CueRule("b")])
+    first = pd.DataFrame({"rater": ["r1"] * 5 + ["r2"] * 5, "case": list(cases.index) * 2,
+                          "judgment": np.arange(10.0) % 4})
+    group_raters(design, first, rng=0, n_resamples=0)
+    assert not grouping_merges._SPARE
+
+
 def test_pruning_changes_no_digit_and_skips_most_pairs():
     # Same merges and the same digits with and without the bound; with it, most pair
     # costs of a 120-rater panel are never computed (measured: about 6% computed).
@@ -204,7 +236,7 @@ def test_lower_bound_never_exceeds_the_exact_cost():
     active = np.ones((1, R), bool)
     rss = batched_rss(sscp, n, p)
     costs = _PairCosts(sscp, n, rss, active, p, prune=True)
-    bounds = costs.all_pair_bounds(np.array([0]))[0]
+    bounds = costs.all_pair_bounds(slice(0, 1), out=np.empty((1, R, R)))[0]
     worst_identity, worst_slack = 0.0, np.inf
     for a in range(R):
         for b in range(a + 1, R):
