@@ -339,14 +339,23 @@ class _PairCosts:
         live = self.alive[bb]
         live[at, rows] = False
         # Entries of dead groups are never cleared from the matrix: masked here.
+        if not self.prune:  # no bounds: every entry is exact once ``extra`` is
+            if extra is not None and extra[0].size:
+                self.fill_exact(bb[extra[0]], rows[extra[0]], extra[1])
+            stored = np.where(live, self.cost[bb, rows], np.inf)
+            arg = stored.argmin(axis=1)
+            self.row_arg[bb, rows] = arg
+            self.row_min[bb, rows] = stored[at, arg]
+            return
         stored = np.where(live, self.cost[bb, rows], np.inf)
         bounded = live & ~self.exact[bb, rows]
         known_min = np.where(bounded, np.inf, stored).min(axis=1)
 
         def fill(m, other):  # exact costs, copied into this call's view of the rows
-            self.fill_exact(bb[m], rows[m], other)
-            stored[m, other] = self.cost[bb[m], rows[m], other]
-            bounded[m, other] = False
+            if m.size:
+                self.fill_exact(bb[m], rows[m], other)
+                stored[m, other] = self.cost[bb[m], rows[m], other]
+                bounded[m, other] = False
 
         # First the smallest bound of each row, then every bounded entry not above the
         # row's exact minimum so far. An entry computed for another row is left as
