@@ -138,10 +138,11 @@ def merged_rss(sscp: np.ndarray, n: np.ndarray, p: int) -> np.ndarray:
 #: sum of squares of judgments (rounding in an exact cost is about 1e-16 of that times
 #: the condition number of the cues; our choice, generous on purpose).
 _BOUND_RELATIVE_SLACK = 1e-6
-#: Below this many raters the bookkeeping of the bound costs more than it saves
-#: (measured: even at 16 raters, faster with it by 10%).
-_PRUNE_FROM = 12
 _BOUND_ABSOLUTE_SLACK = 1e-8
+
+#: Panels this small compute every merge cost (measured: with the bound, 16 raters
+#: group 10% faster, 64 raters 2.6 times faster; below 12 it saves nothing).
+_PRUNE_FROM = 12
 
 
 @dataclass
@@ -234,8 +235,8 @@ class _PairCosts:
         self.fill_exact(part.start + b, x, y)
         arg = cost.argmin(axis=2)
         self.row_arg[part] = np.where(live, arg, -1)
-        self.row_min[part] = np.where(live, np.take_along_axis(cost, arg[:, :, None], axis=2)[:, :, 0],
-                                      np.inf)
+        smallest = np.take_along_axis(cost, arg[:, :, None], axis=2)[:, :, 0]
+        self.row_min[part] = np.where(live, smallest, np.inf)
 
     # ------------------------------------------------------------------ profiles, bounds
 
@@ -417,8 +418,9 @@ class _PairCosts:
     def compact(self):
         """Drop the slots of dead groups once a quarter of them are dead.
 
-        Every step costs time in proportion to the number of slots, so this saves
-        about a third of the work over a whole grouping. Live slots keep their order,
+        Every step costs time in proportion to the number of slots, so the later
+        steps get cheaper (measured on 50 simulated panels of 1,000 raters: about
+        a fifth of the merging time saved). Live slots keep their order,
         so ties still go to the same pair; ``slot_of`` maps a slot to the rater slot
         it started as. Batches with fewer groups are padded with dead slots.
         """
