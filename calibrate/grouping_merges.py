@@ -140,9 +140,10 @@ def merged_rss(sscp: np.ndarray, n: np.ndarray, p: int) -> np.ndarray:
 _BOUND_RELATIVE_SLACK = 1e-6
 _BOUND_ABSOLUTE_SLACK = 1e-8
 
-#: Panels this small compute every merge cost (measured: with the bound, 16 raters
-#: group 10% faster, 64 raters 2.6 times faster; below 12 it saves nothing).
-_PRUNE_FROM = 12
+#: Panels smaller than this use the plain engine (:class:`_AllCosts`): measured with
+#: 100 resamples and 100 simulated panels, 16 raters took 0.132 s with it against
+#: 0.145 s with :class:`_PairCosts`, 24 raters 0.256 s against 0.237 s.
+_SMALL_PANEL = 20
 
 
 @dataclass
@@ -380,12 +381,7 @@ class _PairCosts:
     def merge(self, todo, i, j, step, step_cost):
         """Merge slot j into slot i in batches ``todo``, then bring the costs up to date."""
         at = np.arange(todo.size)
-        self.sscp[todo, i] += self.sscp[todo, j]
-        self.n[todo, i] += self.n[todo, j]
-        self.sscp[todo, j] = 0.0
-        self.n[todo, j] = 0.0
-        self.rss[todo, i] += self.rss[todo, j] + step_cost
-        self.rss[todo, j] = 0.0
+        _pool(self, todo, i, j, step_cost)
         self.last_merge[todo, i] = step
         self.alive[todo, j] = False
         self.row_min[todo, j] = np.inf
@@ -446,6 +442,67 @@ class _PairCosts:
         self.alive = live
 
 
+def _pool(state, todo, i, j, step_cost):
+    """Add group j's sufficient statistics and RSS (plus the merge cost) into group i."""
+    state.sscp[todo, i] += state.sscp[todo, j]
+    state.n[todo, i] += state.n[todo, j]
+    state.sscp[todo, j] = 0.0
+    state.n[todo, j] = 0.0
+    state.rss[todo, i] += state.rss[todo, j] + step_cost
+    state.rss[todo, j] = 0.0
+
+
+class _AllCosts:
+    """Every pair's merge cost, the new group's recomputed in full at each merge.
+
+    The plain bookkeeping: fastest for small panels, where the bound of
+    :class:`_PairCosts` costs more to keep than it saves. Same interface and the same
+    arithmetic, so the same merges and digits.
+    """
+
+    def __init__(self, group_sscp, group_n, group_rss, active, p):
+        self.sscp, self.n, self.rss, self.p = group_sscp, group_n, group_rss, p
+        B, R = active.shape
+        self.alive = active.copy()
+        self.slot_of = np.broadcast_to(np.arange(R), (B, R)).copy()
+        self.cost = np.full((B, R, R), np.inf)
+        upper, lower = np.triu_indices(R, k=1)
+        all_bb, all_pair = np.nonzero(active[:, upper] & active[:, lower])
+        self.n_exact = all_bb.size
+        for start in range(0, all_bb.size, _FIT_CHUNK):
+            bb, pair = all_bb[start:start + _FIT_CHUNK], all_pair[start:start + _FIT_CHUNK]
+            self._fill(bb, upper[pair], lower[pair])
+        self._minima()
+
+    def _fill(self, bb, first, second):
+        """Exact costs of pairs (bb, first, second); ``first``'s RSS is subtracted first."""
+        merged = merged_rss(self.sscp[bb, first] + self.sscp[bb, second],
+                            self.n[bb, first] + self.n[bb, second], self.p)
+        value = merged - self.rss[bb, first] - self.rss[bb, second]
+        self.cost[bb, first, second] = value
+        self.cost[bb, second, first] = value
+
+    def _minima(self):
+        self.row_arg = self.cost.argmin(axis=2)
+        self.row_min = np.take_along_axis(self.cost, self.row_arg[:, :, None], axis=2)[:, :, 0]
+
+    def merge(self, todo, i, j, step, step_cost):
+        """Merge slot j into slot i in batches ``todo``, then recompute i's costs."""
+        _pool(self, todo, i, j, step_cost)
+        self.cost[todo, j, :] = np.inf
+        self.cost[todo, :, j] = np.inf
+        self.alive[todo, j] = False
+        live = self.alive[todo]
+        live[np.arange(todo.size), i] = False
+        rows, other = np.nonzero(live)
+        self.n_exact += rows.size
+        self._fill(todo[rows], i[rows], other)
+        self._minima()
+
+    def compact(self):
+        """Nothing to gain on small panels."""
+
+
 def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
                 stop_at: int, record: bool, *, prune: bool = True) -> Agglomeration:
     """Merge groups bottom-up, the cheapest merge first, in every batch at once.
@@ -457,21 +514,26 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
     Each row's cheapest merge is kept, so a step scans R row minima instead of all
     R^2 pairs, and only the costs that involve the new group change. A cost is
     computed exactly only when its lower bound (see :class:`_PairCosts`) does not
-    rule it out; ``prune=False`` (and panels under ``_PRUNE_FROM`` raters) compute
-    every cost: same merges, same digits. Without ``record``, the slots of dead
-    groups are dropped as merging goes on (:meth:`_PairCosts.compact`).
+    rule it out; ``prune=False`` computes every cost: same merges, same digits.
+    Without ``record``, the slots of dead groups are dropped as merging goes on
+    (:meth:`_PairCosts.compact`). Panels under ``_SMALL_PANEL`` raters use the
+    plain :class:`_AllCosts` instead (again the same merges and digits).
     """
     R = active.shape[1]
     group_sscp = np.where(active[:, :, None, None], sscp, 0.0)
     group_n = np.where(active, n, 0.0)
     group_rss = np.where(active, batched_rss(group_sscp, group_n, p), 0.0)
     labels = np.where(active, np.arange(R)[None, :], -1)
-    costs = _PairCosts(group_sscp, group_n, group_rss, active, p, prune and R >= _PRUNE_FROM)
-    try:
+    if R < _SMALL_PANEL:
+        costs = _AllCosts(group_sscp, group_n, group_rss, active, p)
         history, last_cost = _merge_until(costs, labels, active, stop_at, record)
-    finally:
-        _give_back("cost", costs.cost_memory)
-        _give_back("exact", costs.exact_memory)
+    else:
+        costs = _PairCosts(group_sscp, group_n, group_rss, active, p, prune)
+        try:
+            history, last_cost = _merge_until(costs, labels, active, stop_at, record)
+        finally:
+            _give_back("cost", costs.cost_memory)
+            _give_back("exact", costs.exact_memory)
     tss = np.where(active, sscp[:, :, p, p], 0.0).sum(axis=1)
     return Agglomeration(labels=labels, history=history, last_cost=last_cost, tss=tss,
                          n_exact=costs.n_exact)
