@@ -1,7 +1,7 @@
 """Cohen (1968), weighted kappa: 3 categories, cell proportions, disagreement weights 0 1 3 / 1 0 6 / 3 6 0.
 
 Kappa .492 and weighted kappa .348 (recomputed .4915 and .3478), as copied in
-/work/shared/REFERENCE-DATA.md.
+the shared REFERENCE-DATA.md.
 """
 
 import numpy as np

@@ -1,7 +1,7 @@
 """Krippendorff (2011), "Computing Krippendorff's Alpha-Reliability": 4 coders x 12 units.
 
 The data with missing values and the alphas (nominal .743, ordinal .815,
-interval .849, ratio .797) as copied in /work/shared/REFERENCE-DATA.md.
+interval .849, ratio .797) as copied in the shared REFERENCE-DATA.md.
 Unit 12 has one value and is not pairable.
 """
 

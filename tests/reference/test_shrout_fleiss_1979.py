@@ -1,7 +1,7 @@
 """Shrout & Fleiss (1979), Psychological Bulletin 86:420-428: 6 targets rated by 4 judges.
 
 Data and the six ICC values (.17 .29 .71 .44 .62 .91) from their Table 1 and
-Table 4, as copied in /work/shared/REFERENCE-DATA.md; four-decimal values
+Table 4, as copied in the shared REFERENCE-DATA.md; four-decimal values
 recomputed there (.1657 .2898 .7148 .4428 .6201 .9093). Their mean squares:
 targets 11.24, judges 32.49, within targets 6.26, residual 1.02.
 """
