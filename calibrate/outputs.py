@@ -22,6 +22,15 @@ from .errors import OutputExistsError
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 
+def _current_umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+_UMASK = _current_umask()
+
+
 def atomic_write_bytes(path: Path, data: bytes) -> None:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
@@ -29,6 +38,7 @@ def atomic_write_bytes(path: Path, data: bytes) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
+        os.chmod(tmp, 0o666 & ~_UMASK)  # mkstemp makes 0600; outputs are ordinary files
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
@@ -118,7 +128,7 @@ class OutputFolder:
         if exc_type is not None:
             shutil.rmtree(self.path, ignore_errors=True)
             return
-        os.chmod(self.path, 0o755)
+        os.chmod(self.path, 0o777 & ~_UMASK)
         if self.final.exists():
             old = self.final.with_name(f".{self.final.name}.old")
             shutil.rmtree(old, ignore_errors=True)

@@ -8,8 +8,7 @@ from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, T
 from . import charts, wording
 from ._read import ReportInput, dig, interval, num
 from .rater import _misallocation, _offset, _policy_r, _retest_r, collect_warnings
-from .styles import (BODY, CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, SMALL, TITLE, markup,
-                     table_style, text)
+from .styles import (BASE_FONT, BODY, CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, SMALL, TITLE, table_style, text)
 from .wording import fmt
 
 ICC_FORMS = (("i1", "ICC(1,1)", "one rater, raters random, absolute"),
@@ -128,7 +127,7 @@ class PanelReport:
         widths = [62, 40, 34, 40, 32, 40, 36, 44, 42, 34]
         widths.append(CONTENT_WIDTH - sum(widths))
         table = Table(rows, colWidths=widths, repeatRows=1)
-        table.setStyle(table_style(("FONT", (0, 1), (-1, -1), "Helvetica", 7.5)))
+        table.setStyle(table_style(("FONT", (0, 1), (-1, -1), BASE_FONT, 7.5)))
         story.append(table)
         story.append(text("Offset: positive means judgments run higher than the panel's on the same cases. "
                           "Misalloc.: misallocation against the rubric (0 = the rubric's weights).", SMALL))

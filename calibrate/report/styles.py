@@ -30,8 +30,36 @@ PAGE_SIZE = A4
 MARGIN = 18 * mm
 CONTENT_WIDTH = PAGE_SIZE[0] - 2 * MARGIN
 
-BASE_FONT = "Helvetica"
-BOLD_FONT = "Helvetica-Bold"
+def _register_fonts() -> tuple[str, str, str]:
+    """Embed DejaVu Sans (shipped with matplotlib, a dependency) so rater ids and study
+    names in any Latin, Greek or Cyrillic script print as written; the standard PDF
+    fonts only know Latin-1. Falls back to Helvetica if the font files are missing."""
+    from pathlib import Path
+
+    from reportlab.lib.fonts import addMapping
+    from reportlab.pdfbase import pdfmetrics
+    from reportlab.pdfbase.ttfonts import TTFont
+
+    try:
+        import matplotlib
+
+        folder = Path(matplotlib.get_data_path()) / "fonts" / "ttf"
+        faces = {"CalibrateSans": "DejaVuSans.ttf", "CalibrateSans-Bold": "DejaVuSans-Bold.ttf",
+                 "CalibrateSans-Oblique": "DejaVuSans-Oblique.ttf",
+                 "CalibrateSans-BoldOblique": "DejaVuSans-BoldOblique.ttf"}
+        if "CalibrateSans" not in pdfmetrics.getRegisteredFontNames():
+            for name, file in faces.items():
+                pdfmetrics.registerFont(TTFont(name, str(folder / file)))
+            addMapping("CalibrateSans", 0, 0, "CalibrateSans")
+            addMapping("CalibrateSans", 1, 0, "CalibrateSans-Bold")
+            addMapping("CalibrateSans", 0, 1, "CalibrateSans-Oblique")
+            addMapping("CalibrateSans", 1, 1, "CalibrateSans-BoldOblique")
+        return "CalibrateSans", "CalibrateSans-Bold", "CalibrateSans-Oblique"
+    except (ImportError, OSError):
+        return "Helvetica", "Helvetica-Bold", "Helvetica-Oblique"
+
+
+BASE_FONT, BOLD_FONT, ITALIC_FONT = _register_fonts()
 
 TITLE = ParagraphStyle("title", fontName=BOLD_FONT, fontSize=17, leading=21, textColor=INK,
                        spaceAfter=4)
@@ -122,7 +150,7 @@ class ReportDocument(BaseDocTemplate):
         canvas.line(MARGIN, bottom + 19, width - MARGIN, bottom + 19)
         canvas.drawString(MARGIN, bottom + 10, f"Audit date {self.date}")
         canvas.drawRightString(width - MARGIN, bottom + 10, f"Page {doc.page}")
-        canvas.setFont("Helvetica-Oblique", 7.5)
+        canvas.setFont(ITALIC_FONT, 7.5)
         canvas.drawCentredString(width / 2, bottom, self.caution)
         canvas.restoreState()
 

@@ -306,5 +306,6 @@ def flag_words(flag: str) -> str:
 
 
 def to_text(value) -> str:
-    """A value as the standard PDF fonts can show it (other characters become '?')."""
-    return str(value).encode("latin-1", "replace").decode("latin-1")
+    """A value as text for the reports (the embedded font covers Latin, Greek and Cyrillic;
+    control characters are dropped)."""
+    return "".join(ch for ch in str(value) if ch.isprintable())

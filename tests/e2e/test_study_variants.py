@@ -93,3 +93,19 @@ def test_network_in_two_parts_is_named(tmp_path):
     assert "2 separate parts" in proc.stdout and "p1, p2, p3 | q1, q2, q3" in proc.stdout
     results = _audit(path, tmp_path / "out", "--no-pdf")
     assert results["panels"][0]["connected"] is False
+
+
+def test_rater_ids_in_other_scripts_print_as_written_and_become_safe_file_names(tmp_path):
+    from pypdf import PdfReader
+
+    df = _panel(n_raters=3)
+    names = {"p1": "Zoë Ødegård", "p2": "Ярослава", "p3": "../=cmd"}
+    df["rater"] = df["rater"].map(names)
+    path = write_study(tmp_path / "s", df, scale="continuous", jmin=0, jmax=100, cues=CUES)
+    _audit(path, tmp_path / "out")
+    files = sorted(p.name for p in (tmp_path / "out" / "raters").glob("*.pdf"))
+    assert files == ["Zoe_degard.pdf", "cmd.pdf", "rater.pdf"]
+    text = "".join(page.extract_text() for page in PdfReader(tmp_path / "out" / "raters" / "Zoe_degard.pdf").pages)
+    assert "Zoë Ødegård" in text and "Ярослава" not in text
+    text = "".join(page.extract_text() for page in PdfReader(tmp_path / "out" / "raters" / "rater.pdf").pages)
+    assert "Ярослава" in text

@@ -57,3 +57,16 @@ def test_csv_tables_escape_formula_text_and_keep_numbers():
     text = _csv_bytes(frame).decode()
     assert "'=HYPERLINK(1)" in text and "'@x" in text
     assert "-1.5" in text and "'-1.5" not in text
+
+
+def test_written_files_are_ordinary_files_not_private_temporaries(tmp_path):
+    import os
+    import stat
+
+    from calibrate.outputs import atomic_write_text
+
+    atomic_write_text(tmp_path / "a.txt", "x")
+    mode = stat.S_IMODE(os.stat(tmp_path / "a.txt").st_mode)
+    umask = os.umask(0)
+    os.umask(umask)
+    assert mode == 0o666 & ~umask
