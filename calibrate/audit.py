@@ -262,9 +262,8 @@ def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool) -> dict:
     entry["lens_environment"] = (a.lens.to_dict().get("environment") if a.lens is not None else None)
     entry["excluded_proxies"] = (a.excluded.to_dict().get("proxies") if a.excluded is not None
                                  else None)
-    entry["files_needing_another_read"] = (
-        [f.case if hasattr(f, "case") else f for f in a.files.needs_another_read()]
-        if a.files is not None else [])
+    entry["files_needing_another_read"] = (list(a.files.needs_another_read())
+                                           if a.files is not None else [])
     return entry
 
 
