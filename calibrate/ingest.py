@@ -234,7 +234,6 @@ def _build(spec: StudySpec, out: _Collector) -> JudgmentTable | None:
         return None
 
     # --- every role column must exist
-    needed_in_judgments = [cols[r] for r in ("rater", "case", "judgment", "sequence", "phase") if r in cols]
     for df in frames:
         fname = df[_FILE].iat[0] if len(df) else "the judgments table"
         available = [c for c in df.columns if not c.startswith("_")]

@@ -3,10 +3,8 @@
 import json
 import subprocess
 import sys
-from pathlib import Path
 
 import jsonschema
-import numpy as np
 import pytest
 
 from calibrate.writing import results_schema

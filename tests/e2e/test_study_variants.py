@@ -11,7 +11,6 @@ import sys
 import jsonschema
 import numpy as np
 import pandas as pd
-import pytest
 
 from calibrate.writing import results_schema
 from tests.helpers import write_study

@@ -13,7 +13,6 @@ biased upward.
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from calibrate.policy import fit_policies
