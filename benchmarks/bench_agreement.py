@@ -19,11 +19,11 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "unit"))
 
 from panel_simulation import simulate_panel  # noqa: E402
 
-from calibrate.agreement import panel_agreement  # noqa: E402
-from calibrate.consistency import retest  # noqa: E402
-from calibrate.files import file_view  # noqa: E402
-from calibrate.generalizability import generalizability  # noqa: E402
-from calibrate.severity import severity  # noqa: E402
+from calibrate.agreement.files import file_view  # noqa: E402
+from calibrate.agreement.icc import panel_agreement  # noqa: E402
+from calibrate.agreement.readers import generalizability  # noqa: E402
+from calibrate.agreement.offsets import severity  # noqa: E402
+from calibrate.consistency.repeats import retest  # noqa: E402
 
 
 def timed(label, fn):

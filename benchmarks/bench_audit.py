@@ -14,8 +14,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from calibrate.audit import audit
-from calibrate.ingest import load_study
+from calibrate.analyses import audit
+from calibrate.data.ingest import load_study
 
 SPEC = """\
 [study]

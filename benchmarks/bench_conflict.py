@@ -19,9 +19,9 @@ import numpy as np
 import pandas as pd
 import statsmodels.api as sm
 
-from calibrate.conflict import DEFAULT_MAX_PAIRS, pairwise_conflict, policy_homogeneity
-from calibrate.cues import CueRule, build_cue_design
-from calibrate.drift import drift
+from calibrate.consistency.reading_order import drift
+from calibrate.data.cues import CueRule, build_cue_design
+from calibrate.panel.pairs import DEFAULT_MAX_PAIRS, pairwise_conflict, policy_homogeneity
 
 N_POOL, PER_RATER, N_CUES = 600, 150, 6
 

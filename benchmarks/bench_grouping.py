@@ -38,8 +38,8 @@ import time
 import numpy as np
 import pandas as pd
 
-from calibrate.cues import CueRule, build_cue_design
-from calibrate.grouping import group_raters
+from calibrate.data.cues import CueRule, build_cue_design
+from calibrate.panel.grouping import group_raters
 
 
 def panel(seed, n_raters, n_cases, n_cues, n_policies=3, noise=0.7, share_seen=0.7):
@@ -66,7 +66,7 @@ def audit_panels(sizes=(100, 300, 1000)):
 
     from bench_audit import make_panel
 
-    from calibrate.ingest import load_study
+    from calibrate.data.ingest import load_study
 
     for n_raters in sizes:
         with tempfile.TemporaryDirectory() as tmp:

@@ -13,9 +13,9 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from calibrate.alignment import excluded_check, rubric_alignment  # noqa: E402
-from calibrate.cutoffs import cutoff_check  # noqa: E402
-from calibrate.lens import lens_model  # noqa: E402
+from calibrate.lens.cutoffs import cutoff_check  # noqa: E402
+from calibrate.lens.model import lens_model  # noqa: E402
+from calibrate.lens.rubric import excluded_check, rubric_alignment  # noqa: E402
 from tests.simulated_panels import linear_panel  # noqa: E402
 
 

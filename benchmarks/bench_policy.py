@@ -6,7 +6,7 @@ times an incomplete design where every rater reads a different set of cases
 (one resampling block per rater). The point fit is compared with a loop of
 statsmodels OLS over raters (the reference used in the tests).
 
-A last pair of rows times the two ways calibrate.importance finds the subset
+A last pair of rows times the two ways calibrate.policy.importance finds the subset
 R^2 values of the dominance weights, on 200,000 stacked 6-cue systems (one
 response each, as in the bootstrap of raters who read their own cases).
 
@@ -35,9 +35,9 @@ import numpy as np
 import pandas as pd
 import statsmodels.api as sm
 
-from calibrate.cues import CueRule, build_cue_design
-from calibrate.importance import dominance_weights
-from calibrate.policy import fit_policies
+from calibrate.data.cues import CueRule, build_cue_design
+from calibrate.policy.fit import fit_policies
+from calibrate.policy.importance import dominance_weights
 
 N_CASES, N_CUES = 100, 6
 

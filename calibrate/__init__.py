@@ -1,3 +1,43 @@
-"""calibrate: audit and calibrate human raters (judgment analysis, policy capturing)."""
+"""calibrate: audit and calibrate human raters (judgment analysis, policy capturing).
+
+The names a notebook user needs, in the order of the work::
+
+    import calibrate
+    table = calibrate.load_study("study.toml")   # validated JudgmentTable
+    result = calibrate.audit(table)              # AuditResult (writes nothing)
+    calibrate.write_audit(result, "reports/mine", overwrite=True)
+
+They load on first use, so ``import calibrate`` (and ``calibrate --help``) stays quick.
+"""
+
+from __future__ import annotations
+
+from importlib import import_module
 
 __version__ = "0.1.0"
+
+#: Public name -> the module that defines it.
+_PUBLIC = {
+    "load_study": "calibrate.data.ingest",
+    "read_spec": "calibrate.data.spec",
+    "audit": "calibrate.analyses",
+    "AuditResult": "calibrate.analyses",
+    "write_audit": "calibrate.writing",
+    "CalibrateError": "calibrate.errors",
+}
+
+__all__ = ["AuditResult", "CalibrateError", "__version__", "audit", "load_study", "read_spec",
+           "write_audit"]
+
+
+def __getattr__(name: str):
+    module = _PUBLIC.get(name)
+    if module is None:
+        raise AttributeError(f"module 'calibrate' has no attribute {name!r}")
+    value = getattr(import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__))

@@ -49,7 +49,7 @@ def main() -> None:
 @click.option("--force", is_flag=True, help="Write even if the folder already holds a study.toml.")
 def demo(out: Path, force: bool) -> None:
     """Write the invented demo study (tables, spec and a README of its planted truths)."""
-    from .demo import write_demo
+    from .data.demo import write_demo
 
     if (out / "study.toml").exists() and not force:
         click.echo(f"{out / 'study.toml'} already exists; leaving it as it is (add --force to rewrite).")
@@ -69,10 +69,10 @@ def init(data: Path, out: Path | None, name: str | None, force: bool) -> None:
     """Draft a study spec from a judgments table, with comments to check."""
     import os
 
+    from .data.ingest import read_table
+    from .data.spec import draft_spec
     from .errors import OutputExistsError
-    from .ingest import read_table
-    from .outputs import atomic_write_text
-    from .study import draft_spec
+    from .safe_files import atomic_write_text
 
     if not data.is_file():
         raise CalibrateError(f"the table {data} does not exist.")
@@ -90,8 +90,8 @@ def init(data: Path, out: Path | None, name: str | None, force: bool) -> None:
 @click.argument("spec", type=click.Path(path_type=Path))
 def check(spec: Path) -> None:
     """Validate the data against the spec and describe it; exit 0 when it can be analysed, 2 when not."""
-    from .ingest import inspect_study
-    from .summary import format_summary, summarize
+    from .data.ingest import inspect_study
+    from .data.summary import format_summary, summarize
 
     table, problems = inspect_study(spec)
     errors = [p for p in problems if p.severity == "error"]
@@ -130,9 +130,9 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
     """Run the full audit and write results, tables, a workbook and PDF reports into OUT."""
     from tqdm import tqdm
 
-    from .audit import audit as run_audit
-    from .ingest import load_study
-    from .outputs import OutputFolder
+    from .analyses import audit as run_audit
+    from .data.ingest import load_study
+    from .output.folder import OutputFolder
     from .writing import write_audit
 
     OutputFolder(out, overwrite=overwrite)  # refuse early, before any work

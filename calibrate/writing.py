@@ -6,63 +6,13 @@ never leaves half an output behind.
 
 from __future__ import annotations
 
-import json
-from importlib import resources
 from pathlib import Path
 
-import pandas as pd
-
-from ._results import jsonable
-from .audit import AuditResult
-from .outputs import OutputFolder, atomic_write_bytes, atomic_write_text, dump_json, escape_formula
-
-
-def results_schema() -> dict:
-    """The JSON Schema of results.json (shipped in the package)."""
-    text = resources.files("calibrate").joinpath("schemas/results.schema.json").read_text("utf-8")
-    return json.loads(text)
-
-
-def _csv_bytes(frame: pd.DataFrame) -> bytes:
-    safe = frame.copy()
-    for col in safe.columns:
-        if pd.api.types.is_object_dtype(safe[col]) or pd.api.types.is_string_dtype(safe[col]):
-            safe[col] = safe[col].map(escape_formula, na_action="ignore")
-    return safe.to_csv(index=False, lineterminator="\n", float_format="%.10g").encode("utf-8")
-
-
-TABLE_DESCRIPTIONS = {
-    "raters": "One row per rater and phase: counts, R_s, test-retest r, severity offset, group, flags.",
-    "data_summary": "One row per rater and phase: cases, repeats, all judgments, usable cases, "
-                    "cases per model term.",
-    "policies": "One row per rater and phase: the captured policy's consistency (R_s with its "
-                "bootstrap interval, adjusted R^2, cross-validated r) and fit diagnostics.",
-    "policy_weights": "One row per rater, phase and model term: raw weight with SE, interval and "
-                      "p-value, standardized weight, cue utilization, structure coefficient, VIF.",
-    "policy_importance": "One row per rater, phase and cue: relative importance (share and R^2 part) "
-                         "with its bootstrap interval.",
-    "retest": "One row per rater and phase: test-retest on the hidden repeated cases.",
-    "repeat_pairs": "One row per repeated case: the first and the second judgment.",
-    "reading_order": "Every judgment in each rater's reading order (position from 0).",
-    "peer_agreement": "One row per rater and phase: correlation with the other readers' mean on "
-                      "shared cases, and the mean gap.",
-    "severity": "One row per rater and phase: severity offset (positive = more lenient) with SE, "
-                "range use and central tendency.",
-    "files": "One row per file and phase: raw mean, severity-adjusted score, spread, and whether it "
-             "needs another read.",
-    "readers_per_file": "D-study: reliability (relative and absolute) for 1 to 10 readers per file.",
-    "agreement": "The six ICC forms with intervals and the method used.",
-    "lens": "One row per rater and phase: lens model (r_a, G, C, R_e, R_s) and judgment "
-            "bootstrapping figures.",
-    "alignment": "One row per rater and phase: alignment with the rubric.",
-    "excluded": "One row per rater, phase and excluded attribute: incremental R^2, test, p-values.",
-    "cutoffs": "One row per rater and phase: the best threshold rule on one cue and its test.",
-    "drift": "One row per rater and phase: leniency and consistency drift over the reading order.",
-    "conflict": "One row per rater pair and phase: interpersonal lens model (r, G, C, R_i, R_j).",
-    "grouping": "One row per rater and phase: policy group and the cross-check grouping.",
-    "group_merges": "The merge sequence of the policy grouping with the R^2 lost at each step.",
-    "groups": "One row per group and phase: pooled policy and stability.",
-}
+from .analyses import AuditResult
+from .output.folder import OutputFolder
+from .output.tables import TABLE_DESCRIPTIONS, csv_bytes
+from .result_base import jsonable
+from .safe_files import atomic_write_bytes, atomic_write_text, dump_json
 
 
 def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False, pdf: bool = True,
@@ -71,7 +21,7 @@ def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False
 
     ``progress(done, total, name)`` is called as each PDF is written.
     """
-    from .workbook import workbook_bytes
+    from .output.workbook import workbook_bytes
 
     out = Path(out)
     with OutputFolder(out, overwrite=overwrite) as tmp:
@@ -80,7 +30,7 @@ def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False
             atomic_write_text(tmp / "policies.json", dump_json(jsonable(result.policies)))
         tables_dir = tmp / "tables"
         for name, frame in result.tables.items():
-            atomic_write_bytes(tables_dir / f"{name}.csv", _csv_bytes(frame))
+            atomic_write_bytes(tables_dir / f"{name}.csv", csv_bytes(frame))
         atomic_write_bytes(tmp / "audit.xlsx", workbook_bytes(result.tables, TABLE_DESCRIPTIONS))
         if pdf:
             from .report import build_reports

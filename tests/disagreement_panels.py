@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from calibrate.cues import CueDesign, CueRule, build_cue_design
+from calibrate.data.cues import CueDesign, CueRule, build_cue_design
 
 
 def case_pool(rng: np.random.Generator, n_cases: int, *, categorical: bool = True,

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from calibrate.cues import CueRule, build_cue_design
+from calibrate.data.cues import CueRule, build_cue_design
 
 MIXED_RULES = [
     CueRule("grades"),

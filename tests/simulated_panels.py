@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from calibrate.cues import CueDesign, CueRule, build_cue_design
+from calibrate.data.cues import CueDesign, CueRule, build_cue_design
 
 
 @dataclass
@@ -63,7 +63,7 @@ DEMO_RULES = [CueRule("grades"), CueRule("test_score", missing="indicator"), Cue
 
 def demo_phases():
     """(phase, design, first judgments, cases table) of the invented demo study, per phase."""
-    from calibrate.demo import build_demo
+    from calibrate.data.demo import build_demo
 
     cases, judgments = build_demo()
     cases = cases.set_index("applicant")

@@ -16,7 +16,7 @@ from typing import Any
 
 import pandas as pd
 
-from ..outputs import atomic_write_bytes, safe_file_stem
+from ..safe_files import atomic_write_bytes, safe_file_stem
 from . import wording
 from ._read import ReportInput, as_report_input
 from .panel import PanelReport

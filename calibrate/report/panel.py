@@ -8,7 +8,19 @@ from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, T
 from . import charts, wording
 from ._read import ReportInput, dig, interval, num
 from .rater import _misallocation, _offset, _policy_r, _retest_r, collect_warnings
-from .styles import (BASE_FONT, BODY, CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, SMALL, TITLE, table_style, text)
+from .styles import (
+    BASE_FONT,
+    BODY,
+    CELL,
+    CELL_BOLD,
+    CONTENT_WIDTH,
+    HEADING,
+    NOTE,
+    SMALL,
+    TITLE,
+    table_style,
+    text,
+)
 from .wording import fmt
 
 ICC_FORMS = (("i1", "ICC(1,1)", "one rater, raters random, absolute"),

@@ -19,8 +19,23 @@ from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, T
 
 from . import charts, wording
 from ._read import ReportInput, dig, id_pattern, interval, num
-from .styles import (ACCENT, ACCENT_LIGHT, BODY, CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, PANEL,
-                     RUBRIC, SMALL, TITLE, markup, table_style, text)
+from .styles import (
+    ACCENT,
+    ACCENT_LIGHT,
+    BODY,
+    CELL,
+    CELL_BOLD,
+    CONTENT_WIDTH,
+    HEADING,
+    NOTE,
+    PANEL,
+    RUBRIC,
+    SMALL,
+    TITLE,
+    markup,
+    table_style,
+    text,
+)
 from .wording import fmt
 
 

@@ -7,7 +7,7 @@ import sys
 import jsonschema
 import pytest
 
-from calibrate.writing import results_schema
+from calibrate.output.tables import results_schema
 from tests.helpers import simple_judgments, write_study
 
 

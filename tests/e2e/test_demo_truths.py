@@ -7,9 +7,9 @@ import numpy as np
 import pytest
 from sklearn.metrics import adjusted_rand_score
 
-from calibrate.audit import audit
-from calibrate.demo import DRIFTER, INCONSISTENT, LEANS_ON_EXCLUDED, REVIEWERS, write_demo
-from calibrate.ingest import load_study
+from calibrate.analyses import audit
+from calibrate.data.demo import DRIFTER, INCONSISTENT, LEANS_ON_EXCLUDED, REVIEWERS, write_demo
+from calibrate.data.ingest import load_study
 
 
 @pytest.fixture(scope="module")

@@ -8,11 +8,11 @@ import time
 
 import pytest
 
-from calibrate.audit import audit
-from calibrate.writing import write_audit
-from calibrate.demo import write_demo
+from calibrate.analyses import audit
+from calibrate.data.demo import write_demo
 from calibrate.report import build_reports, load_report_input, panel_pdf, rater_file_names, rater_pdf
 from calibrate.report._read import as_report_input, id_pattern
+from calibrate.writing import write_audit
 from tests.pdf_text import numbers_in, numbers_of, page_texts
 
 EPOCH = "1780000000"  # 2026-05-28 UTC
@@ -124,7 +124,7 @@ def test_excluded_attribute_stays_with_the_chair_by_default(demo):
 def test_workbook_holds_every_audit_table(demo):
     from openpyxl import load_workbook
 
-    from calibrate.workbook import sheet_names, workbook_bytes
+    from calibrate.output.workbook import sheet_names, workbook_bytes
 
     _, result = demo
     data = workbook_bytes(result.tables, {})

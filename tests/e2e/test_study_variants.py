@@ -12,7 +12,7 @@ import jsonschema
 import numpy as np
 import pandas as pd
 
-from calibrate.writing import results_schema
+from calibrate.output.tables import results_schema
 from tests.helpers import write_study
 
 

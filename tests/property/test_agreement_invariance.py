@@ -5,9 +5,9 @@ import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from calibrate.agreement import panel_agreement
-from calibrate.generalizability import variance_components
-from calibrate.severity import severity
+from calibrate.agreement.icc import panel_agreement
+from calibrate.agreement.readers import variance_components
+from calibrate.agreement.offsets import severity
 
 
 @st.composite

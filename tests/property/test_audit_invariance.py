@@ -6,8 +6,8 @@ import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from calibrate.audit import audit
-from calibrate.ingest import load_study
+from calibrate.analyses import audit
+from calibrate.data.ingest import load_study
 from tests.helpers import write_study
 
 

@@ -7,8 +7,8 @@ import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from calibrate.conflict import pairwise_conflict, policy_homogeneity
-from calibrate.drift import drift
+from calibrate.consistency.reading_order import drift
+from calibrate.panel.pairs import pairwise_conflict, policy_homogeneity
 from tests.disagreement_panels import case_pool, first_judgments
 
 WEIGHTS = np.array([[0.10, 0.5, 0.8, -0.6], [0.02, 1.0, 0.1, -0.1],

@@ -1,4 +1,4 @@
-"""Property tests for calibrate.grouping (hypothesis)."""
+"""Property tests for calibrate.panel.grouping (hypothesis)."""
 
 from __future__ import annotations
 
@@ -8,8 +8,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from sklearn.metrics import adjusted_rand_score
 
-from calibrate.cues import CueRule, build_cue_design
-from calibrate.grouping import adjusted_rand_index, group_raters
+from calibrate.data.cues import CueRule, build_cue_design
+from calibrate.panel.grouping import adjusted_rand_index, group_raters
 
 
 @settings(max_examples=200, deadline=None)

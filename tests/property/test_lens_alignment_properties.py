@@ -5,9 +5,9 @@ import pandas as pd
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from calibrate.alignment import excluded_check, rubric_alignment
-from calibrate.cutoffs import cutoff_check
-from calibrate.lens import lens_model
+from calibrate.lens.cutoffs import cutoff_check
+from calibrate.lens.model import lens_model
+from calibrate.lens.rubric import excluded_check, rubric_alignment
 from tests.simulated_panels import linear_panel
 
 SETTINGS = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])

@@ -12,7 +12,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from calibrate.policy import fit_policies
+from calibrate.policy.fit import fit_policies
 from tests.policy_panels import mixed_panel
 
 DESIGN, FIRST = mixed_panel(seed=8, n_cases=60, n_raters=4)

@@ -7,7 +7,7 @@ the shared REFERENCE-DATA.md.
 import numpy as np
 import pytest
 
-from calibrate.agreement import weighted_kappa
+from calibrate.agreement.icc import weighted_kappa
 from calibrate.errors import DataError
 
 TABLE = np.array([[0.44, 0.07, 0.09], [0.05, 0.20, 0.05], [0.01, 0.03, 0.06]])

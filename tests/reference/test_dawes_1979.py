@@ -9,8 +9,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from calibrate.cues import build_cue_design
-from calibrate.lens import lens_model
+from calibrate.data.cues import build_cue_design
+from calibrate.lens.model import lens_model
 from tests.simulated_panels import case_pool, rules_for
 
 

@@ -15,8 +15,8 @@ import pytest
 from sklearn.linear_model import LinearRegression
 from sklearn.model_selection import LeaveOneOut, cross_val_predict
 
-from calibrate.cues import build_cue_design
-from calibrate.lens import lens_model
+from calibrate.data.cues import build_cue_design
+from calibrate.lens.model import lens_model
 from tests.simulated_panels import case_pool, rules_for
 
 ENV_WEIGHTS = np.array([0.06, 0.35, 0.25])

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from statsmodels.stats.multitest import multipletests
 
-from calibrate._judgment_rows import holm_adjust
+from calibrate.pvalues import holm_adjust
 
 
 def test_small_example_by_hand():

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from calibrate.agreement import krippendorff_alpha, panel_agreement
+from calibrate.agreement.icc import krippendorff_alpha, panel_agreement
 
 nan = np.nan
 CODERS = np.array([

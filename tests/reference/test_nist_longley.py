@@ -18,8 +18,8 @@ import pytest
 from statsmodels.datasets import longley
 from statsmodels.regression.tests.results.results_regression import Longley
 
-from calibrate.cues import CueRule, build_cue_design
-from calibrate.policy import fit_policies
+from calibrate.data.cues import CueRule, build_cue_design
+from calibrate.policy.fit import fit_policies
 
 CUES = ["GNPDEFL", "GNP", "UNEMP", "ARMED", "POP", "YEAR"]
 

@@ -10,9 +10,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from calibrate.agreement import icc_anova, panel_agreement
-from calibrate.generalizability import generalizability, henderson_components
-from calibrate.severity import crossed_layout, fit_additive
+from calibrate.agreement.icc import icc_anova, panel_agreement
+from calibrate.agreement.readers import generalizability, henderson_components
+from calibrate.agreement.offsets import crossed_layout, fit_additive
 
 RATINGS = np.array([
     [9, 2, 5, 8],

@@ -15,7 +15,7 @@ import statsmodels.api as sm
 from statsmodels.stats.diagnostic import linear_reset
 from statsmodels.stats.outliers_influence import OLSInfluence, variance_inflation_factor
 
-from calibrate.policy import fit_policies
+from calibrate.policy.fit import fit_policies
 from tests.policy_panels import mixed_panel, rater_matrix
 
 

@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from calibrate.lens import lens_model
+from calibrate.lens.model import lens_model
 from tests.simulated_panels import demo_phases, linear_panel
 
 

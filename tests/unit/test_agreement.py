@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 from panel_simulation import long_from_matrix, simulate_panel
 
-from calibrate.agreement import (
+from calibrate.agreement.icc import (
     icc_anova,
     krippendorff_alpha,
     pairwise_agreement,

@@ -9,9 +9,9 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-import calibrate.conflict as conflict
-from calibrate.conflict import pairwise_conflict
+import calibrate.panel.pairs as conflict
 from calibrate.errors import DataError
+from calibrate.panel.pairs import pairwise_conflict
 from tests.disagreement_panels import case_pool, first_judgments
 
 WEIGHTS = np.array([[0.10, 0.5, 0.8, -0.6],

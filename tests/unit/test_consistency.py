@@ -6,7 +6,7 @@ import pytest
 from scipy.stats import pearsonr
 from sklearn.metrics import cohen_kappa_score
 
-from calibrate.consistency import consistency_verdict, retest
+from calibrate.consistency.repeats import consistency_verdict, retest
 from calibrate.errors import DataError
 
 

@@ -7,9 +7,9 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from calibrate.cues import CueRule, build_cue_design
-from calibrate.cutoffs import CUTOFF_FLAG, cutoff_check, step_search
+from calibrate.data.cues import CueRule, build_cue_design
 from calibrate.errors import DataError
+from calibrate.lens.cutoffs import CUTOFF_FLAG, cutoff_check, step_search
 from tests.simulated_panels import linear_panel
 
 WEIGHTS = np.array([0.08, 0.4, 0.3])

@@ -2,8 +2,8 @@
 
 from pathlib import Path
 
-from calibrate.demo import REVIEWERS, write_demo
-from calibrate.ingest import load_study
+from calibrate.data.demo import REVIEWERS, write_demo
+from calibrate.data.ingest import load_study
 
 REPO = Path(__file__).resolve().parents[2]
 

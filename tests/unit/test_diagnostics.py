@@ -14,13 +14,13 @@ import pandas as pd
 import pytest
 from statsmodels.stats.multitest import multipletests
 
-from calibrate.cues import CueRule, build_cue_design
-from calibrate.diagnostics import (
+from calibrate.data.cues import CueRule, build_cue_design
+from calibrate.policy.diagnostics import (
     condition_number,
-    holm_adjust,
     top_rows_per_group,
     variance_inflation,
 )
+from calibrate.pvalues import holm_adjust
 
 
 def test_holm_matches_statsmodels_and_keeps_nan():

@@ -11,7 +11,7 @@ import statsmodels.api as sm
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
-from calibrate.drift import DRIFT_FLAG, drift
+from calibrate.consistency.reading_order import DRIFT_FLAG, drift
 from calibrate.errors import DataError
 from tests.disagreement_panels import case_pool
 
@@ -230,7 +230,7 @@ def test_alpha_out_of_range_is_refused():
 def test_batched_bootstrap_resamples_match_statsmodels_refits(monkeypatch):
     # Reference: the same bootstrap draws replayed by hand, each resampled half refitted
     # with statsmodels OLS; R_s = sqrt(R^2).
-    import calibrate.drift as module
+    import calibrate.consistency.reading_order as module
 
     rng = np.random.default_rng(0)
     sizes = np.array([20, 19, 25, 24, 18, 18])

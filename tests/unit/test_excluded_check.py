@@ -8,9 +8,8 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
-from calibrate.alignment import (ASSOCIATION_CAUTION, EXCLUDED_FLAG, canonical_correlation,
-                                 excluded_check)
 from calibrate.errors import DataError
+from calibrate.lens.rubric import ASSOCIATION_CAUTION, EXCLUDED_FLAG, canonical_correlation, excluded_check
 from tests.simulated_panels import demo_phases, linear_panel
 
 WEIGHTS = np.array([0.05, 0.4, 0.3])
@@ -177,7 +176,7 @@ def test_binary_judgments_must_be_zero_or_one():
 
 def test_on_the_demo_only_the_planted_reviewer_is_flagged():
     # Planted truth of the invented demo study: 'Juniper' leans on alumni_family.
-    from calibrate.demo import LEANS_ON_EXCLUDED
+    from calibrate.data.demo import LEANS_ON_EXCLUDED
 
     for _, design, first, pool in demo_phases():
         result = excluded_check(design, first, pool[["alumni_family"]], scale="ordinal")

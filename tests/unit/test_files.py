@@ -5,9 +5,9 @@ import pytest
 import statsmodels.formula.api as smf
 from panel_simulation import simulate_panel
 
+from calibrate.agreement.files import file_view
+from calibrate.agreement.offsets import severity
 from calibrate.errors import DataError
-from calibrate.files import file_view
-from calibrate.severity import severity
 
 
 def test_adjusted_scores_equal_additive_model_case_effects():

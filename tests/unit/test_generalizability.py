@@ -5,13 +5,13 @@ import pytest
 from panel_simulation import long_from_matrix, simulate_panel
 from scipy.stats import norm
 
-from calibrate.generalizability import (
+from calibrate.agreement.readers import (
     d_study_coefficients,
     flip_rates,
     generalizability,
     henderson_components,
 )
-from calibrate.severity import crossed_layout, fit_additive
+from calibrate.agreement.offsets import crossed_layout, fit_additive
 
 
 def _dense_henderson(first):

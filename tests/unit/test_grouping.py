@@ -1,4 +1,4 @@
-"""Tests for calibrate.grouping (groups of raters who share a policy)."""
+"""Tests for calibrate.panel.grouping (groups of raters who share a policy)."""
 
 from __future__ import annotations
 
@@ -11,12 +11,12 @@ import statsmodels.api as sm
 from scipy.cluster.hierarchy import fcluster, linkage
 from sklearn.metrics import adjusted_rand_score
 
-from calibrate.cues import CueRule, build_cue_design
+from calibrate.data.cues import CueRule, build_cue_design
 from calibrate.errors import DataError
-from calibrate.grouping import group_raters
-from calibrate.grouping_merges import stacked_sscp
-from calibrate.grouping_stability import resample_budget, resampled_labels
-from calibrate.linalg import grouped_sscp
+from calibrate.panel.grouping import group_raters
+from calibrate.panel.merges import stacked_sscp
+from calibrate.panel.stability import resample_budget, resampled_labels
+from calibrate.policy.linalg import grouped_sscp
 
 
 def make_panel(seed, policies, sizes, *, n_cases=60, noise=0.6, share_seen=1.0,
@@ -68,7 +68,7 @@ def within_tss(first, raters):
 
 def test_every_merge_cost_equals_refitting_raw_rows():
     # Exact identity: the pooled-within SSCP gives the same fit as OLS on the stacked
-    # rows with a dummy per rater (statsmodels refit, independent of calibrate.linalg).
+    # rows with a dummy per rater (statsmodels refit, independent of calibrate.policy.linalg).
     design, first, _ = make_panel(11, THREE_POLICIES, [3, 2, 2], share_seen=0.7,
                                   categorical=True)
     result = group_raters(design, first, rng=0, n_resamples=0)
@@ -389,7 +389,7 @@ def test_f_test_p_values_would_split_one_policy_panels():
 
 
 def test_stacked_sscp_equals_grouped_sscp_per_variant():
-    # Each resample / simulated variant must equal calibrate.linalg.grouped_sscp run on
+    # Each resample / simulated variant must equal calibrate.policy.linalg.grouped_sscp run on
     # that variant alone (two-pass centred SSCP, checked against NIST Longley there).
     rng = np.random.default_rng(3)
     m, R = 90, 4
@@ -409,10 +409,10 @@ def test_stacked_sscp_equals_grouped_sscp_per_variant():
 
 
 def test_demo_planted_groups_are_recovered_exactly_and_stable():
-    # Planted truth: calibrate.demo plants three policy groups (records, voice, field)
+    # Planted truth: calibrate.data.demo plants three policy groups (records, voice, field)
     # in the 'before' round, with an inconsistent, a drifting and an excluded-attribute
     # reviewer inside them. Measured: exact recovery, ARI 0.998, Jaccard >= 0.998.
-    from calibrate.demo import REVIEWERS, build_demo
+    from calibrate.data.demo import REVIEWERS, build_demo
 
     cases, judgments = build_demo()
     before = judgments["before"].sort_values("read_order")

@@ -1,4 +1,4 @@
-"""Tests for the merge engine of the policy grouping (calibrate.grouping_merges).
+"""Tests for the merge engine of the policy grouping (calibrate.panel.merges).
 
 The engine keeps each row's cheapest merge and computes a pair's cost exactly only
 when a lower bound cannot rule it out. These tests hold it to a straightforward
@@ -12,11 +12,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from calibrate import grouping_merges
-from calibrate.cues import CueRule, build_cue_design
-from calibrate.grouping import group_raters
-from calibrate.grouping_merges import _PairCosts, agglomerate, batched_rss, stacked_sscp
-from calibrate.linalg import grouped_sscp
+from calibrate.data.cues import CueRule, build_cue_design
+from calibrate.panel import merges as grouping_merges
+from calibrate.panel.grouping import group_raters
+from calibrate.panel.merges import _PairCosts, agglomerate, batched_rss, stacked_sscp
+from calibrate.policy.linalg import grouped_sscp
 
 
 def random_panel(seed, n_raters, n_cases, p, *, n_policies=3, share_seen=0.7):

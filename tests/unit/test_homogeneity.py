@@ -12,7 +12,7 @@ import statsmodels.formula.api as smf
 from scipy import stats
 from statsmodels.stats.anova import anova_lm
 
-from calibrate.conflict import heterogeneity_wald, policy_homogeneity
+from calibrate.panel.pairs import heterogeneity_wald, policy_homogeneity
 from tests.disagreement_panels import case_pool, first_judgments
 
 COMMON = np.array([0.08, 0.6, 0.7, -0.5])

@@ -18,7 +18,8 @@ import pytest
 import statsmodels.api as sm
 
 from calibrate.errors import CalibrateError
-from calibrate.importance import (
+from calibrate.policy.fit import fit_policies
+from calibrate.policy.importance import (
     MAX_DOMINANCE_CUES,
     cue_importance,
     dominance_matrix,
@@ -26,7 +27,6 @@ from calibrate.importance import (
     relative_weights,
     subset_r2,
 )
-from calibrate.policy import fit_policies
 from tests.policy_panels import independent_cue_panel, mixed_panel, rater_matrix
 
 

@@ -4,8 +4,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from calibrate.data.ingest import inspect_study, load_study
 from calibrate.errors import DataError
-from calibrate.ingest import inspect_study, load_study
 from tests.helpers import simple_judgments, write_study
 
 

@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 
 from calibrate.errors import DataError
-from calibrate.lens import lens_model
+from calibrate.lens.model import lens_model
 from tests.simulated_panels import linear_panel
 
 LENS_KEYS = {"r_a", "g", "c", "r_e", "r_s", "model_validity", "model_validity_cv"}

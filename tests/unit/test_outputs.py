@@ -5,7 +5,8 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from calibrate.errors import OutputExistsError
-from calibrate.outputs import OutputFolder, escape_formula, safe_file_stem
+from calibrate.output.folder import OutputFolder
+from calibrate.safe_files import escape_formula, safe_file_stem
 
 
 @given(st.text(max_size=200))
@@ -50,11 +51,11 @@ def test_existing_folder_needs_overwrite(tmp_path):
 def test_csv_tables_escape_formula_text_and_keep_numbers():
     import pandas as pd
 
-    from calibrate.writing import _csv_bytes
+    from calibrate.output.tables import csv_bytes
 
     frame = pd.DataFrame({"rater": ["=HYPERLINK(1)", "ok"], "note": pd.Series(["@x", None], dtype="string"),
                           "value": [-1.5, 2.0]})
-    text = _csv_bytes(frame).decode()
+    text = csv_bytes(frame).decode()
     assert "'=HYPERLINK(1)" in text and "'@x" in text
     assert "-1.5" in text and "'-1.5" not in text
 
@@ -63,7 +64,7 @@ def test_written_files_are_ordinary_files_not_private_temporaries(tmp_path):
     import os
     import stat
 
-    from calibrate.outputs import atomic_write_text
+    from calibrate.safe_files import atomic_write_text
 
     atomic_write_text(tmp_path / "a.txt", "x")
     mode = stat.S_IMODE(os.stat(tmp_path / "a.txt").st_mode)

@@ -5,7 +5,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from calibrate.peer_agreement import agreement_with_panel
+from calibrate.agreement.with_panel import agreement_with_panel
 
 
 def _incomplete_panel(seed=5, n_raters=6, n_cases=80):

@@ -15,7 +15,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from calibrate.policy import fit_policies
+from calibrate.policy.fit import fit_policies
 from tests.policy_panels import independent_cue_panel
 
 BETA = np.array([0.5, 0.4, 0.3, 0.2, 0.1, 0.0])

@@ -14,15 +14,15 @@ import pandas as pd
 import pytest
 from scipy import stats as sps
 
-from calibrate.cues import CueRule, build_cue_design
+from calibrate.data.cues import CueRule, build_cue_design
 from calibrate.errors import CalibrateError, DataError
-from calibrate.policy import (
+from calibrate.policy.fit import (
     POLICIES_SCHEMA,
     bca_interval,
     captured_policies,
     fit_policies,
 )
-from calibrate.resampling import _column_quantiles
+from calibrate.policy.resampling import _column_quantiles
 from tests.policy_panels import mixed_panel, rater_matrix
 
 DESIGN_POLICY_KEYS = {"intercept", "weights", "std_weights", "importance", "importance_r2",
@@ -178,15 +178,16 @@ def test_user_errors_are_clear():
 
 def test_public_names_stay_importable_from_the_policy_module():
     # The split into policy_results, resampling and logistic keeps the old import paths.
-    import calibrate.logistic
+    import calibrate.policy.logistic
+    import calibrate.policy.results
+    import calibrate.policy.resampling
+
     import calibrate.policy
-    import calibrate.policy_results
-    import calibrate.resampling
 
     for name in ("PolicySet", "RaterPolicy", "LogisticPolicy", "CaseToReview"):
-        assert getattr(calibrate.policy, name) is getattr(calibrate.policy_results, name)
-    assert calibrate.policy.bca_interval is calibrate.resampling.bca_interval
+        assert getattr(calibrate.policy, name) is getattr(calibrate.policy.results, name)
+    assert calibrate.policy.bca_interval is calibrate.policy.resampling.bca_interval
     assert set(calibrate.policy.__all__) >= {"fit_policies", "captured_policies", "bca_interval",
                                              "PolicySet", "RaterPolicy", "LogisticPolicy",
                                              "CaseToReview"}
-    assert callable(calibrate.logistic.fit_logistic)
+    assert callable(calibrate.policy.logistic.fit_logistic)

@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from calibrate.policy import _typical_lower_end_of_others
+from calibrate.policy.fit import _typical_lower_end_of_others
 
 
 @pytest.mark.parametrize("size", [6, 7, 10, 11, 40])
@@ -31,7 +31,7 @@ def test_small_panels_have_no_panel_reference():
 def _panel_with_noise(noise_sds, n_cases=120, seed=4):
     import pandas as pd
 
-    from calibrate.cues import CueRule, build_cue_design
+    from calibrate.data.cues import CueRule, build_cue_design
 
     rng = np.random.default_rng(seed)
     X = rng.normal(size=(n_cases, 3))
@@ -47,7 +47,7 @@ def _panel_with_noise(noise_sds, n_cases=120, seed=4):
 def test_a_usual_rater_in_a_very_consistent_panel_is_not_called_inconsistent():
     # planted: five raters with R_s near .99 and one near .86 (about the usual level of expert
     # judges; Karelaia & Hogarth 2008, from memory), and one near .6
-    from calibrate.policy import fit_policies
+    from calibrate.policy.fit import fit_policies
 
     design, first = _panel_with_noise([0.1, 0.1, 0.1, 0.1, 0.1, 0.68, 1.45])
     policies = fit_policies(design, first, scale="continuous", n_boot=300, rng=2)

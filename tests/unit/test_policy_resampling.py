@@ -1,6 +1,6 @@
-"""The case bootstrap behind the policy intervals (calibrate.resampling).
+"""The case bootstrap behind the policy intervals (calibrate.policy.resampling).
 
-References used here, none sharing code with calibrate.resampling:
+References used here, none sharing code with calibrate.policy.resampling:
 numpy.cov with frequency weights (the definition of a weighted covariance);
 an explicit bootstrap that indexes the rater's rows with the drawn case numbers
 and fits each resample with numpy.linalg.lstsq; dominance weights of the
@@ -15,9 +15,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from calibrate import resampling
-from calibrate.importance import dominance_weights, importance_shares
-from calibrate.resampling import (
+from calibrate.policy import resampling
+from calibrate.policy.importance import dominance_weights, importance_shares
+from calibrate.policy.resampling import (
     bca_interval,
     case_bootstrap_intervals,
     weighted_correlations,

@@ -16,9 +16,9 @@ import pandas as pd
 import pytest
 from pypdf import PdfReader
 
-from calibrate.audit import audit
-from calibrate.demo import write_demo
-from calibrate.ingest import load_study
+from calibrate.analyses import audit
+from calibrate.data.demo import write_demo
+from calibrate.data.ingest import load_study
 from calibrate.report import build_reports, rater_pdf
 from calibrate.report._read import ReportInput, id_pattern
 from calibrate.report.builder import rater_file_names

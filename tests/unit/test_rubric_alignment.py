@@ -7,8 +7,8 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-from calibrate.alignment import rubric_alignment
 from calibrate.errors import DataError
+from calibrate.lens.rubric import rubric_alignment
 from tests.simulated_panels import linear_panel
 
 RUBRIC = {"grades": 0.5, "essay": 0.3, "years": 0.2}

@@ -6,8 +6,8 @@ import pytest
 import statsmodels.formula.api as smf
 from panel_simulation import simulate_panel
 
+from calibrate.agreement.offsets import severity
 from calibrate.errors import DataError
-from calibrate.severity import severity
 
 
 def test_offsets_and_se_equal_statsmodels_sum_coded_fit():

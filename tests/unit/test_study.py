@@ -4,8 +4,8 @@ from pathlib import Path
 
 import pytest
 
+from calibrate.data.spec import parse_spec, read_spec
 from calibrate.errors import SpecError
-from calibrate.study import parse_spec, read_spec
 
 BASE = {
     "study": {"name": "t", "data": "j.csv"},

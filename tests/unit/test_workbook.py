@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 from openpyxl import load_workbook
 
-from calibrate.workbook import README_SHEET, sheet_names, workbook_bytes
+from calibrate.output.workbook import README_SHEET, sheet_names, workbook_bytes
 
 
 def tables():

@@ -1,0 +1,533 @@
+"""Agreement across raters on first judgments: ICC forms, Krippendorff's alpha, kappa.
+
+ICC forms follow Shrout & Fleiss (1979) and McGraw & Wong (1996): ``i`` is the
+one-way form (1,·), ``a`` absolute agreement (A,· = Shrout & Fleiss 2,·), ``c``
+consistency (C,· = Shrout & Fleiss 3,·); ``1`` is one rater, ``k`` the mean of the
+raters a file had. On a complete design they come from the two-way ANOVA mean
+squares with the F-based intervals of McGraw & Wong (1996, Table 7). On an
+incomplete design they come from variance components (Henderson's method III,
+see :mod:`calibrate.agreement.readers`), with intervals from a bootstrap over
+cases; the two routes give the same estimates on complete data.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy.stats import f as f_dist
+
+from ..errors import DataError
+from ..result_base import ResultMixin, jsonable
+from .readers import ComponentEstimates, henderson_components
+from .offsets import check_first, check_scale, crossed_layout, fit_additive
+
+ICC_FORMS = (
+    ("i1", "ICC(1,1)"), ("a1", "ICC(A,1)"), ("c1", "ICC(C,1)"),
+    ("ik", "ICC(1,k)"), ("ak", "ICC(A,k)"), ("ck", "ICC(C,k)"),
+)
+LEVEL_OF_SCALE = {"continuous": "interval", "ordinal": "ordinal", "binary": "nominal"}
+ALPHA_LEVELS = ("nominal", "ordinal", "interval", "ratio")
+# One category holding this share of judgments makes chance-corrected coefficients
+# low even under high raw agreement (the prevalence problem: Feinstein & Cicchetti
+# 1990, from memory). The 0.80 threshold is common practice without a source.
+DOMINANT_SHARE = 0.80
+
+
+# ---------------------------------------------------------------------------
+# ICC
+# ---------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class IccEstimate(ResultMixin):
+    """One ICC form with its interval."""
+
+    form: str        # i1, a1, c1, ik, ak, ck
+    label: str       # ICC(1,1), ICC(A,1), ...
+    k: float         # raters averaged (1 for single-rater forms)
+    estimate: float
+    ci_low: float
+    ci_high: float
+
+
+def icc_anova(ratings: np.ndarray, *, confidence: float = 0.95) -> tuple[IccEstimate, ...]:
+    """Six ICC forms from a complete cases x raters matrix (two-way ANOVA).
+
+    With ``n`` cases, ``k`` raters and mean squares for rows (cases) ``MSR``,
+    columns (raters) ``MSC``, within rows ``MSW`` and residual ``MSE``:
+
+    .. math::
+
+        ICC(1,1) = \\frac{MSR - MSW}{MSR + (k-1) MSW}, \\quad
+        ICC(A,1) = \\frac{MSR - MSE}{MSR + (k-1) MSE + k (MSC - MSE)/n}, \\quad
+        ICC(C,1) = \\frac{MSR - MSE}{MSR + (k-1) MSE}
+
+    and the average-measure forms :math:`(MSR - MSW)/MSR`,
+    :math:`(MSR - MSE)/(MSR + (MSC - MSE)/n)`, :math:`(MSR - MSE)/MSR`
+    (Shrout & Fleiss 1979, Table 2; McGraw & Wong 1996, Tables 4 and 7, which also
+    give the intervals: F-based, Satterthwaite degrees of freedom for the A forms).
+    """
+    x = np.asarray(ratings, dtype=float)
+    n, k = x.shape
+    if n < 2 or k < 2:
+        raise DataError("An ICC needs at least two cases and two raters.")
+    grand = x.mean()
+    ss_total = ((x - grand) ** 2).sum()
+    ss_rows = k * ((x.mean(axis=1) - grand) ** 2).sum()
+    ss_cols = n * ((x.mean(axis=0) - grand) ** 2).sum()
+    ss_err = ss_total - ss_rows - ss_cols
+    msr = ss_rows / (n - 1)
+    msc = ss_cols / (k - 1)
+    msw = (ss_total - ss_rows) / (n * (k - 1))
+    mse = ss_err / ((n - 1) * (k - 1))
+    tail = 0.5 + confidence / 2.0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        est = {
+            "i1": (msr - msw) / (msr + (k - 1) * msw),
+            "a1": (msr - mse) / (msr + (k - 1) * mse + k * (msc - mse) / n),
+            "c1": (msr - mse) / (msr + (k - 1) * mse),
+            "ik": (msr - msw) / msr,
+            "ak": (msr - mse) / (msr + (msc - mse) / n),
+            "ck": (msr - mse) / msr,
+        }
+        ci = {}
+        # one-way and consistency forms: exact F intervals
+        for one, avg, ms_den, df_den in (("i1", "ik", msw, n * (k - 1)),
+                                         ("c1", "ck", mse, (n - 1) * (k - 1))):
+            f_obs = msr / ms_den
+            f_low = f_obs / f_dist.ppf(tail, n - 1, df_den)
+            f_high = f_obs * f_dist.ppf(tail, df_den, n - 1)
+            ci[one] = ((f_low - 1) / (f_low + k - 1), (f_high - 1) / (f_high + k - 1))
+            ci[avg] = (1 - 1 / f_low, 1 - 1 / f_high)
+        # absolute agreement: Satterthwaite approximation
+        rho = est["a1"]
+        a = k * rho / (n * (1 - rho))
+        b = 1 + k * rho * (n - 1) / (n * (1 - rho))
+        v = (a * msc + b * mse) ** 2 / ((a * msc) ** 2 / (k - 1) + (b * mse) ** 2 / ((n - 1) * (k - 1)))
+        f_star_low = f_dist.ppf(tail, n - 1, v)
+        f_star_high = f_dist.ppf(tail, v, n - 1)
+        ci["a1"] = (
+            n * (msr - f_star_low * mse)
+            / (f_star_low * (k * msc + (k * n - k - n) * mse) + n * msr),
+            n * (f_star_high * msr - mse)
+            / (k * msc + (k * n - k - n) * mse + n * f_star_high * msr),
+        )
+        ci["ak"] = (
+            n * (msr - f_star_low * mse) / (f_star_low * (msc - mse) + n * msr),
+            n * (f_star_high * msr - mse) / (msc - mse + n * f_star_high * msr),
+        )
+    return tuple(
+        IccEstimate(form=form, label=label, k=float(k if form.endswith("k") else 1),
+                    estimate=float(est[form]), ci_low=float(ci[form][0]), ci_high=float(ci[form][1]))
+        for form, label in ICC_FORMS
+    )
+
+
+def icc_from_components(c: ComponentEstimates, k: float) -> dict[str, float]:
+    """The six ICC forms from variance components, ``k`` readers per case.
+
+    .. math::
+
+        ICC(A,1) = \\frac{\\sigma^2_c}{\\sigma^2_c + \\sigma^2_r + \\sigma^2_e}, \\quad
+        ICC(C,1) = \\frac{\\sigma^2_c}{\\sigma^2_c + \\sigma^2_e}, \\quad
+        ICC(1,1) = \\frac{\\sigma^2_{c,1}}{\\sigma^2_{c,1} + \\sigma^2_w}
+
+    and the ``k`` forms divide the error part by ``k`` (McGraw & Wong 1996, Table 4).
+    Raw (possibly negative) components are used so that the values equal the
+    ANOVA ones on a complete design.
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return {
+            "i1": c.case_oneway / (c.case_oneway + c.within_oneway),
+            "a1": c.case / (c.case + c.rater + c.residual),
+            "c1": c.case / (c.case + c.residual),
+            "ik": c.case_oneway / (c.case_oneway + c.within_oneway / k),
+            "ak": c.case / (c.case + (c.rater + c.residual) / k),
+            "ck": c.case / (c.case + c.residual / k),
+        }
+
+
+
+def icc_incomplete(
+    first: pd.DataFrame,
+    *,
+    n_boot: int = 500,
+    confidence: float = 0.95,
+    rng: np.random.Generator | int | None = None,
+) -> tuple[tuple[IccEstimate, ...], float]:
+    """Six ICC forms from Henderson's method III components, percentile bootstrap over cases.
+
+    ``k`` for the average-measure forms is the harmonic mean number of readers
+    per case (the number a file's mean rests on). Returns the estimates and ``k``.
+    """
+    data = check_first(first)
+    layout = crossed_layout(data)
+    readers = layout.readers_per_case()
+    k = float(readers.size / np.sum(1.0 / readers))
+    point = icc_from_components(henderson_components(fit_additive(layout)), k)
+    gen = np.random.default_rng(rng)  # passes a Generator through
+    draws = np.full((n_boot, len(ICC_FORMS)), np.nan)
+    counts = gen.multinomial(layout.n_cases, np.full(layout.n_cases, 1.0 / layout.n_cases), size=n_boot)
+    for b in range(n_boot):
+        fit = fit_additive(layout, case_weights=counts[b].astype(float), iterative=True)
+        comps = henderson_components(fit)
+        values = icc_from_components(comps, k)
+        draws[b] = [values[form] for form, _ in ICC_FORMS]
+    low, high = _percentile_interval(draws, confidence)
+    return tuple(
+        IccEstimate(form=form, label=label, k=k if form.endswith("k") else 1.0,
+                    estimate=float(point[form]), ci_low=float(low[i]), ci_high=float(high[i]))
+        for i, (form, label) in enumerate(ICC_FORMS)
+    ), k
+
+
+def _percentile_interval(draws: np.ndarray, confidence: float) -> tuple[np.ndarray, np.ndarray]:
+    """Percentile interval per column, ignoring resamples where the statistic was undefined."""
+    tail = (1.0 - confidence) / 2.0
+    low = np.full(draws.shape[1], np.nan)
+    high = np.full(draws.shape[1], np.nan)
+    for j in range(draws.shape[1]):
+        finite = draws[np.isfinite(draws[:, j]), j]
+        if finite.size:
+            low[j], high[j] = np.quantile(finite, [tail, 1.0 - tail])
+    return low, high
+
+
+# ---------------------------------------------------------------------------
+# Krippendorff's alpha and pairwise agreement
+# ---------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class _Units:
+    """Pairable units (cases with two or more values) as counts per category."""
+
+    categories: np.ndarray   # (V,) sorted distinct values
+    counts: np.ndarray       # (U, V) values of each category in each unit
+    m: np.ndarray            # (U,) values per unit
+    sum1: np.ndarray         # (U,) sum of values
+    sum2: np.ndarray         # (U,) sum of squared values
+
+
+def _pairable_units(unit_index: np.ndarray, values: np.ndarray, *, with_counts: bool) -> _Units:
+    unit_index = np.asarray(unit_index)
+    values = np.asarray(values, dtype=float)
+    keep = np.isfinite(values)
+    _, unit_index = np.unique(unit_index[keep], return_inverse=True)
+    values = values[keep]
+    n_units = int(unit_index.max()) + 1 if unit_index.size else 0
+    m_all = np.bincount(unit_index, minlength=n_units)
+    pairable = m_all >= 2
+    sel = pairable[unit_index]
+    new_index = np.cumsum(pairable) - 1
+    u, v = new_index[unit_index[sel]], values[sel]
+    U = int(pairable.sum())
+    cats, cat_index = np.unique(v, return_inverse=True)
+    counts = np.zeros((U, cats.size))
+    if with_counts and U:
+        np.add.at(counts, (u, cat_index), 1.0)
+    return _Units(
+        categories=cats,
+        counts=counts,
+        m=m_all[pairable].astype(float),
+        sum1=np.bincount(u, weights=v, minlength=U),
+        sum2=np.bincount(u, weights=v**2, minlength=U),
+    )
+
+
+def _metric(level: str, cats: np.ndarray, marginals: np.ndarray) -> np.ndarray:
+    """Difference function delta^2 (Krippendorff 2011, sec. 'metric differences').
+
+    ``marginals``: (B, V) category totals n_c (the ordinal metric depends on them).
+    Returns (B, V, V).
+    """
+    B, V = marginals.shape
+    c, k = cats[:, None], cats[None, :]
+    if level == "nominal":
+        d = (c != k).astype(float)
+    elif level == "interval":
+        d = (c - k) ** 2
+    elif level == "ratio":
+        with np.errstate(invalid="ignore", divide="ignore"):
+            d = np.where(c + k != 0, ((c - k) / (c + k)) ** 2, 0.0)
+    else:  # ordinal: (sum_{g=c}^{k} n_g - (n_c + n_k) / 2)^2
+        cum = np.cumsum(marginals, axis=1)
+        idx = np.arange(V)
+        lo, hi = np.minimum.outer(idx, idx), np.maximum.outer(idx, idx)
+        between = cum[:, hi] - cum[:, lo] + marginals[:, lo]
+        return (between - (marginals[:, :, None] + marginals[:, None, :]) / 2.0) ** 2
+    return np.broadcast_to(d, (B, V, V))
+
+
+def _alpha_from_weights(units: _Units, level: str, weights: np.ndarray) -> np.ndarray:
+    """Alpha for each row of ``weights`` (B, U): unit multiplicities (1 = as observed).
+
+    .. math:: \\alpha = 1 - (n - 1) \\frac{\\sum_{ck} o_{ck} \\delta^2_{ck}}{\\sum_{ck} n_c n_k \\delta^2_{ck}}
+
+    with the coincidence matrix :math:`o_{ck} = \\sum_u (\\text{c-k pairs in } u)/(m_u - 1)`.
+    For the interval level the sums are taken from unit moments, which avoids a
+    values x values matrix for continuous judgments.
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if level == "interval":
+            observed = weights @ ((2 * units.m * units.sum2 - 2 * units.sum1**2) / (units.m - 1))
+            n = weights @ units.m
+            s1, s2 = weights @ units.sum1, weights @ units.sum2
+            expected = 2 * n * s2 - 2 * s1**2
+            return 1.0 - (n - 1) * observed / expected
+        V = units.categories.size
+        per_unit = (units.counts[:, :, None] * units.counts[:, None, :]
+                    - units.counts[:, :, None] * np.eye(V)[None]) / (units.m - 1)[:, None, None]
+        coincidence = (weights @ per_unit.reshape(per_unit.shape[0], -1)).reshape(-1, V, V)
+        marg = coincidence.sum(axis=2)
+        n = marg.sum(axis=1)
+        delta = _metric(level, units.categories, marg)
+        observed = np.einsum("bck,bck->b", coincidence, delta)
+        expected = np.einsum("bc,bk,bck->b", marg, marg, delta)
+        return 1.0 - (n - 1) * observed / expected
+
+
+@dataclass(frozen=True)
+class AlphaEstimate(ResultMixin):
+    """Krippendorff's alpha at one level of measurement, with a case-bootstrap interval."""
+
+    level: str
+    estimate: float
+    ci_low: float
+    ci_high: float
+    n: int              # pairable values
+    n_cases: int        # pairable cases (two or more readers)
+    n_boot: int
+
+
+def krippendorff_alpha(
+    cases,
+    values,
+    *,
+    level: str,
+    n_boot: int = 0,
+    confidence: float = 0.95,
+    rng: np.random.Generator | int | None = None,
+) -> AlphaEstimate:
+    """Krippendorff's alpha (Krippendorff 2011) from long data, with a bootstrap over cases.
+
+    Parameters
+    ----------
+    cases : array of unit (case) ids, one per value.
+    values : the judgments (NaN = missing, ignored).
+    level : "nominal", "ordinal", "interval" or "ratio".
+    n_boot : bootstrap resamples of pairable cases (0: no interval).
+
+    Cases with a single value are not pairable and do not count. The interval is
+    a percentile interval from resampling cases with replacement (common practice).
+    """
+    if level not in ALPHA_LEVELS:
+        raise DataError(f"Alpha's level must be one of {', '.join(ALPHA_LEVELS)}; got {level!r}.")
+    units = _pairable_units(np.asarray(cases), np.asarray(values, float), with_counts=level != "interval")
+    U = units.m.size
+    if U == 0:
+        return AlphaEstimate(level, np.nan, np.nan, np.nan, 0, 0, n_boot)
+    estimate = float(_alpha_from_weights(units, level, np.ones((1, U)))[0])
+    low = high = np.nan
+    if n_boot > 0:
+        gen = np.random.default_rng(rng)  # passes a Generator through
+        w = gen.multinomial(U, np.full(U, 1.0 / U), size=n_boot).astype(float)
+        draws = _alpha_from_weights(units, level, w)
+        lo, hi = _percentile_interval(draws[:, None], confidence)
+        low, high = float(lo[0]), float(hi[0])
+    return AlphaEstimate(level, estimate, low, high, int(units.m.sum()), U, int(n_boot))
+
+
+def pairwise_agreement(cases, values) -> tuple[float, float]:
+    """Share of reader pairs on the same case who agree exactly, and within one scale point."""
+    units = _pairable_units(np.asarray(cases), np.asarray(values, float), with_counts=True)
+    if units.m.size == 0:
+        return np.nan, np.nan
+    n = units.counts
+    pairs = float((units.m * (units.m - 1)).sum())
+    gap = np.abs(units.categories[:, None] - units.categories[None, :])
+    near = (gap <= 1.0 + 1e-9).astype(float)
+    same = float((n**2 - n).sum())
+    within_one = float(np.einsum("uc,ck,uk->", n, near, n) - n.sum())
+    return same / pairs, within_one / pairs
+
+
+def weighted_kappa(table, *, weights: str | np.ndarray | None = None) -> float:
+    """Cohen's kappa, or weighted kappa (Cohen 1968), from a two-way table.
+
+    .. math:: \\kappa_w = 1 - \\frac{\\sum_{ij} w_{ij} p_{ij}}{\\sum_{ij} w_{ij} p_{i\\cdot} p_{\\cdot j}}
+
+    Parameters
+    ----------
+    table : (V, V) counts or proportions, rows the first judge, categories in scale order.
+    weights : None (unweighted), "linear" (|i - j|), "quadratic" ((i - j)^2) or a
+        (V, V) array of disagreement weights (zero on the diagonal).
+    """
+    p = np.asarray(table, dtype=float)
+    if p.ndim != 2 or p.shape[0] != p.shape[1]:
+        raise DataError("A kappa table must be square (the same categories for both judges).")
+    p = p / p.sum()
+    idx = np.arange(p.shape[0])
+    if weights is None:
+        w = (idx[:, None] != idx[None, :]).astype(float)
+    elif isinstance(weights, str):
+        if weights not in ("linear", "quadratic"):
+            raise DataError(f"Kappa weights must be 'linear', 'quadratic', an array or None; got {weights!r}.")
+        power = 1 if weights == "linear" else 2
+        w = np.abs(idx[:, None] - idx[None, :]).astype(float) ** power
+    else:
+        w = np.asarray(weights, dtype=float)
+        if w.shape != p.shape:
+            raise DataError(f"Kappa weights must be a {p.shape} array; got {w.shape}.")
+    expected = np.outer(p.sum(axis=1), p.sum(axis=0))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return float(1.0 - (w * p).sum() / (w * expected).sum())
+
+
+# ---------------------------------------------------------------------------
+# the panel-level function
+# ---------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class AgreementResult(ResultMixin):
+    """Agreement across raters on first judgments, for one phase."""
+
+    design: str                      # "complete" | "incomplete"
+    icc_method: str
+    icc_ci_method: str
+    readers_per_case: float
+    icc: tuple[IccEstimate, ...]
+    alpha: AlphaEstimate
+    exact_agreement: float
+    adjacent_agreement: float
+    dominant_value: float
+    dominant_share: float
+    n_raters: int
+    n_cases: int
+    n_judgments: int
+    warnings: tuple[str, ...] = ()
+
+    def icc_values(self) -> dict[str, float]:
+        return {e.form: e.estimate for e in self.icc}
+
+    def to_dict(self) -> dict:
+        has_icc = any(np.isfinite(e.estimate) for e in self.icc)
+        return jsonable({
+            "icc": self.icc_values() if has_icc else None,
+            "icc_detail": {
+                "design": self.design,
+                "method": self.icc_method,
+                "ci_method": self.icc_ci_method,
+                "readers_per_case": self.readers_per_case,
+                "forms": [e.to_dict() for e in self.icc],
+            },
+            "alpha": self.alpha.estimate,
+            "alpha_detail": self.alpha.to_dict(),
+            "exact_agreement": self.exact_agreement,
+            "adjacent_agreement": self.adjacent_agreement,
+            "dominant_category": {"value": self.dominant_value, "share": self.dominant_share},
+            "n_raters": self.n_raters,
+            "n_cases": self.n_cases,
+            "n_judgments": self.n_judgments,
+            "warnings": list(self.warnings),
+        })
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per coefficient (six ICC forms and alpha)."""
+        rows = [{"coefficient": e.label, "form": e.form, "k": e.k, "estimate": e.estimate,
+                 "ci_low": e.ci_low, "ci_high": e.ci_high} for e in self.icc]
+        a = self.alpha
+        rows.append({"coefficient": f"Krippendorff's alpha ({a.level})", "form": "alpha", "k": np.nan,
+                     "estimate": a.estimate, "ci_low": a.ci_low, "ci_high": a.ci_high})
+        return pd.DataFrame(rows)
+
+
+def panel_agreement(
+    first: pd.DataFrame,
+    *,
+    scale: str,
+    scale_min: float | None = None,
+    scale_max: float | None = None,
+    method: str = "auto",
+    n_boot: int = 500,
+    confidence: float = 0.95,
+    rng: np.random.Generator | int | None = None,
+) -> AgreementResult:
+    """ICC forms, Krippendorff's alpha and raw agreement across the panel.
+
+    Parameters
+    ----------
+    first : DataFrame with ``rater``, ``case``, ``judgment`` (one row per rater and case).
+    scale : "continuous" (alpha at the interval level), "ordinal" (ordinal level,
+        plus exact and within-one agreement) or "binary" (nominal level, exact agreement).
+    scale_min, scale_max : accepted for a uniform call; the coefficients do not need them.
+    method : "auto" (ANOVA when every rater judged every case, else components),
+        "anova" (complete designs only) or "components".
+    n_boot : bootstrap resamples of cases for alpha's interval and, on an
+        incomplete design, for the ICC intervals.
+    confidence : level of every interval.
+    rng : seed or Generator (the same seed gives the same intervals).
+    """
+    check_scale(scale, scale_min, scale_max)
+    if method not in ("auto", "anova", "components"):
+        raise DataError(f"The ICC method must be 'auto', 'anova' or 'components'; got {method!r}.")
+    data = check_first(first)
+    gen = np.random.default_rng(rng)  # passes a Generator through
+    layout = crossed_layout(data)
+    R, C, N = layout.n_raters, layout.n_cases, layout.y.size
+    complete = N == R * C
+    warnings: list[str] = []
+    if method == "anova" and not complete:
+        raise DataError(
+            f"The ANOVA route needs every rater to judge every case ({R} raters x {C} cases = "
+            f"{R * C} judgments; there are {N}). Use method='components'."
+        )
+    nan_icc = tuple(IccEstimate(f, lab, np.nan, np.nan, np.nan, np.nan) for f, lab in ICC_FORMS)
+    readers = layout.readers_per_case()
+    if R < 2 or not (readers >= 2).any():
+        icc, k = nan_icc, np.nan
+        ci_method = "none"
+        route = "none"
+        warnings.append("No case was read by two or more raters: agreement cannot be measured.")
+    elif complete and method != "components":
+        ratings = np.full((C, R), np.nan)
+        ratings[layout.case_index, layout.rater_index] = layout.y
+        icc, k = icc_anova(ratings, confidence=confidence), float(R)
+        route = "two-way ANOVA mean squares (Shrout & Fleiss 1979; McGraw & Wong 1996)"
+        ci_method = "F distribution (McGraw & Wong 1996, Table 7; Satterthwaite df for A forms)"
+    else:
+        icc, k = icc_incomplete(data, n_boot=n_boot, confidence=confidence, rng=gen)
+        route = ("variance components of the crossed random-effects model, Henderson's "
+                 "method III; k = harmonic mean readers per case")
+        ci_method = f"percentile bootstrap over cases ({n_boot} resamples)"
+    level = LEVEL_OF_SCALE[scale]
+    alpha = krippendorff_alpha(layout.case_index, layout.y, level=level, n_boot=n_boot,
+                               confidence=confidence, rng=gen)
+    exact = adjacent = dom_value = dom_share = np.nan
+    if scale != "continuous":
+        exact, adjacent = pairwise_agreement(layout.case_index, layout.y)
+        if scale == "binary":
+            adjacent = np.nan
+        values, counts = np.unique(layout.y, return_counts=True)
+        top = int(np.argmax(counts))
+        dom_value, dom_share = float(values[top]), float(counts[top] / counts.sum())
+        if dom_share >= DOMINANT_SHARE:
+            warnings.append(
+                f"One judgment value ({dom_value:g}) makes up {dom_share:.0%} of all judgments; "
+                "chance-corrected coefficients (alpha, kappa, ICC) can be low even when raters "
+                "mostly agree. Read exact agreement beside them."
+            )
+    return AgreementResult(
+        design="complete" if complete else "incomplete",
+        icc_method=route,
+        icc_ci_method=ci_method,
+        readers_per_case=float(k),
+        icc=icc,
+        alpha=alpha,
+        exact_agreement=float(exact),
+        adjacent_agreement=float(adjacent),
+        dominant_value=float(dom_value),
+        dominant_share=float(dom_share),
+        n_raters=R, n_cases=C, n_judgments=N,
+        warnings=tuple(warnings),
+    )

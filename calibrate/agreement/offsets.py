@@ -1,0 +1,596 @@
+"""Severity, range use and central tendency of raters on an incomplete design.
+
+Raters rarely read the same files, so a rater's raw mean mixes how lenient they
+are with how good their files happened to be. The additive model
+
+.. math:: y_{rc} = \\mu + a_c + b_r + e_{rc}
+
+(file effect :math:`a_c`, rater effect :math:`b_r`, both fixed) separates the two.
+Raters can only be compared through files they share: the rater-file network is
+split into connected parts first, and offsets are centred to mean zero within
+each part (they are not comparable across parts).
+
+The module also holds the crossed-design machinery that
+:mod:`calibrate.agreement.readers` and :mod:`calibrate.agreement.icc` build on: the
+file effects are absorbed, so only an ``R x R`` system is solved (``R`` raters),
+never a dense matrix over all judgments.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy import linalg as sla
+from scipy import sparse
+from scipy.sparse import csgraph
+from scipy.stats import norm
+
+from ..errors import DataError, DataProblem, DegenerateFitError
+from ..result_base import ResultMixin
+
+SCALES = ("continuous", "ordinal", "binary")
+
+
+# ---------------------------------------------------------------------------
+# input checks shared by the panel-level modules
+# ---------------------------------------------------------------------------
+
+def check_scale(scale: str, scale_min: float | None, scale_max: float | None) -> None:
+    """Raise DataError for an unknown scale name or an empty scale range."""
+    if scale not in SCALES:
+        raise DataError(
+            f"The judgment scale must be one of {', '.join(SCALES)}; got {scale!r}. "
+            "Set [judgment] scale in the study spec."
+        )
+    if scale_min is not None and scale_max is not None and not scale_max > scale_min:
+        raise DataError(
+            f"The judgment scale's max ({scale_max}) must be above its min ({scale_min}). "
+            "Fix [judgment] min and max in the study spec."
+        )
+
+
+def check_table(frame: pd.DataFrame, columns: tuple[str, ...], what: str) -> pd.DataFrame:
+    """Check that ``frame`` has ``columns`` with numbers where numbers are due.
+
+    Returns the frame restricted to those columns. Raises DataError naming every
+    missing column and every row whose number is missing.
+    """
+    if not isinstance(frame, pd.DataFrame):
+        raise DataError(f"The {what} table must be a pandas DataFrame; got {type(frame).__name__}.")
+    missing = [c for c in columns if c not in frame.columns]
+    if missing:
+        raise DataError(
+            f"The {what} table lacks column(s) {', '.join(missing)}; "
+            f"it has: {', '.join(map(str, frame.columns))}."
+        )
+    out = frame.loc[:, list(columns)].copy()
+    problems = []
+    for col in columns:
+        if col in ("rater", "case"):
+            out[col] = out[col].astype(str)
+            continue
+        values = pd.to_numeric(out[col], errors="coerce")
+        bad = np.flatnonzero(~np.isfinite(values.to_numpy(dtype=float)))
+        for i in bad[:20]:
+            problems.append(DataProblem(
+                f"{what}: '{col}' is missing or not a number for rater "
+                f"'{out['rater'].iloc[i]}', case '{out['case'].iloc[i]}'.",
+                column=col,
+            ))
+        out[col] = values.astype(float)
+    if problems:
+        raise DataError(problems)
+    return out.reset_index(drop=True)
+
+
+def check_first(first: pd.DataFrame) -> pd.DataFrame:
+    """Validate the first-judgment table: one numeric judgment per (rater, case)."""
+    out = check_table(first, ("rater", "case", "judgment"), "first-judgment")
+    dup = out.duplicated(["rater", "case"], keep=False)
+    if dup.any():
+        shown = out.loc[dup, ["rater", "case"]].drop_duplicates().head(5)
+        pairs = "; ".join(f"rater '{r}', case '{c}'" for r, c in shown.itertuples(index=False))
+        raise DataError(
+            f"The first-judgment table has more than one row for {int(dup.sum())} "
+            f"(rater, case) rows, e.g. {pairs}. Keep only the first judgment per rater and case "
+            "(later ones are repeats)."
+        )
+    if out.empty:
+        raise DataError("The first-judgment table is empty: there is nothing to analyse.")
+    return out
+
+
+def tidy_rows(items, *, join: tuple[str, ...] = ("flags",), drop: tuple[str, ...] = ()) -> pd.DataFrame:
+    """One row per dataclass item; tuple fields named in ``join`` become ';'-joined text."""
+    rows = []
+    for item in items:
+        row = {}
+        for name in item.__dataclass_fields__:
+            if name in drop:
+                continue
+            value = getattr(item, name)
+            row[name] = ";".join(value) if name in join else value
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def middle_band(scale: str, low: float, high: float) -> tuple[float, float] | None:
+    """Judgments counted as 'middle of the scale' for central tendency (our own rule).
+
+    Ordinal: the middle category (odd number of categories) or the two middle ones
+    (even number). Continuous: the middle third of the range. Binary: none.
+    """
+    centre = (low + high) / 2.0
+    if scale == "ordinal":
+        return centre - 0.5, centre + 0.5
+    if scale == "continuous":
+        third = (high - low) / 6.0
+        return centre - third, centre + third
+    return None
+
+
+# ---------------------------------------------------------------------------
+# crossed rater x case layout and the additive fit
+# ---------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class CrossedLayout:
+    """First judgments indexed for the rater x case network (raters and cases sorted)."""
+
+    raters: tuple[str, ...]
+    cases: tuple[str, ...]
+    rater_index: np.ndarray = field(repr=False)
+    case_index: np.ndarray = field(repr=False)
+    y: np.ndarray = field(repr=False)
+
+    @property
+    def n_raters(self) -> int:
+        return len(self.raters)
+
+    @property
+    def n_cases(self) -> int:
+        return len(self.cases)
+
+    def incidence(self, values: np.ndarray | None = None) -> sparse.csr_matrix:
+        """(R, C) sparse matrix with ``values`` (default 1) where a rater read a case."""
+        v = np.ones(self.y.size) if values is None else values
+        return sparse.csr_matrix(
+            (v, (self.rater_index, self.case_index)), shape=(self.n_raters, self.n_cases)
+        )
+
+    def readers_per_case(self) -> np.ndarray:
+        return np.bincount(self.case_index, minlength=self.n_cases).astype(float)
+
+
+def crossed_layout(first: pd.DataFrame) -> CrossedLayout:
+    """Index a validated first-judgment table (see :func:`check_first`)."""
+    rater_index, raters = pd.factorize(first["rater"], sort=True)
+    case_index, cases = pd.factorize(first["case"], sort=True)
+    return CrossedLayout(
+        raters=tuple(map(str, raters)),
+        cases=tuple(map(str, cases)),
+        rater_index=rater_index.astype(np.intp),
+        case_index=case_index.astype(np.intp),
+        y=first["judgment"].to_numpy(dtype=float),
+    )
+
+
+def connected_parts(
+    layout: CrossedLayout, case_weights: np.ndarray | None = None
+) -> tuple[int, np.ndarray, np.ndarray]:
+    """Connected parts of the bipartite rater-case network.
+
+    Returns ``(n_parts, part_of_rater, part_of_case)``; parts are numbered by
+    number of judgments (largest first, ties by first rater name). A rater or
+    case with no judgment (zero case weight in a resample) gets part -1.
+    """
+    R, C = layout.n_raters, layout.n_cases
+    keep = np.ones(layout.y.size, bool) if case_weights is None else case_weights[layout.case_index] > 0
+    ri, ci = layout.rater_index[keep], layout.case_index[keep]
+    graph = sparse.csr_matrix((np.ones(ri.size), (ri, R + ci)), shape=(R + C, R + C))
+    _, labels = csgraph.connected_components(graph, directed=False)
+    present = np.zeros(R + C, bool)
+    present[ri] = True
+    present[R + ci] = True
+    raw = labels[present]
+    uniq, inverse = np.unique(raw, return_inverse=True)
+    size = np.bincount(labels[ri], minlength=labels.max() + 1)[uniq]
+    _, first_of_label = np.unique(labels, return_index=True)
+    first_node = first_of_label[uniq]
+    order = np.lexsort((first_node, -size))
+    rank = np.empty_like(order)
+    rank[order] = np.arange(order.size)
+    part = np.full(R + C, -1, dtype=np.intp)
+    part[present] = rank[inverse]
+    return int(uniq.size), part[:R], part[R:]
+
+
+@dataclass(frozen=True)
+class AdditiveFit:
+    """Least-squares fit of the additive rater + case model (fixed effects).
+
+    Sums of squares are about the grand mean; ``ss_rater_given_case`` is the
+    reduction R(rater | case) and ``ss_residual`` the residual of the full
+    additive model. Counts are weighted when case weights (bootstrap counts) are used.
+    """
+
+    offsets: np.ndarray            # (R,) rater effects, sum zero within each part
+    offset_var_unit: np.ndarray    # (R,) diag of the generalized inverse; var = sigma^2 * this
+    part_of_rater: np.ndarray
+    part_of_case: np.ndarray
+    n_parts: int
+    grand_mean: float
+    n: float
+    n_cases: float
+    n_raters: int
+    sum_readers_sq_over_n: float   # sum_c n_c^2 / N, for the one-way n0
+    ss_total: float
+    ss_cases: float
+    ss_raters: float
+    ss_within_cases: float
+    ss_rater_given_case: float
+    ss_residual: float
+
+    @property
+    def df_residual(self) -> float:
+        return self.n - (self.n_cases + self.n_raters - self.n_parts)
+
+    @property
+    def ss_case_given_rater(self) -> float:
+        return self.ss_total - self.ss_residual - self.ss_raters
+
+
+def fit_additive(
+    layout: CrossedLayout,
+    *,
+    case_weights: np.ndarray | None = None,
+    with_variance: bool = False,
+    iterative: bool = False,
+) -> AdditiveFit:
+    """Fit y = mu + a_case + b_rater + e by absorbing the case effects.
+
+    The rater effects solve the reduced normal equations
+    :math:`(D_r - N D_c^{-1} N^\\top) b = N (y - \\bar y_{case})`, an ``R x R``
+    system made non-singular by adding :math:`E E^\\top` (``E`` the rater-by-part
+    indicator), which forces the sum-to-zero constraint within every part
+    (the rows of the reduced matrix sum to zero within a part, so ``E`` spans its
+    null space). With case weights ``w`` every case counts ``w`` times, which is
+    exactly the fit on a data set with that case repeated ``w`` times.
+
+    ``iterative=True`` solves by preconditioned conjugate gradients on the sparse
+    matrix instead of a dense Cholesky factor (much faster for many raters, used
+    in bootstrap loops); ``with_variance`` needs the dense route.
+    """
+    R, C = layout.n_raters, layout.n_cases
+    w_case = np.ones(C) if case_weights is None else np.asarray(case_weights, float)
+    w = w_case[layout.case_index]
+    y = layout.y
+    ci, ri = layout.case_index, layout.rater_index
+    n_c = np.bincount(ci, minlength=C).astype(float)          # readers per case (unweighted)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        case_mean = np.bincount(ci, weights=y, minlength=C) / n_c
+    n_r = np.bincount(ri, weights=w, minlength=R)
+    N = float(w.sum())
+    grand = float((w * y).sum() / N)
+    dev_case = y - case_mean[ci]
+    ss_total = float((w * (y - grand) ** 2).sum())
+    ss_within = float((w * dev_case**2).sum())
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rater_mean = np.bincount(ri, weights=w * y, minlength=R) / n_r
+    ss_raters = float(np.nansum(n_r * (rater_mean - grand) ** 2))
+
+    n_parts, part_r, part_c = connected_parts(layout, w_case if case_weights is not None else None)
+    inc_w = layout.incidence(w)
+    inc = layout.incidence()
+    reduced = sparse.diags(n_r) - inc_w @ sparse.diags(1.0 / n_c) @ inc.T
+    rhs = np.bincount(ri, weights=w * dev_case, minlength=R)
+    present = part_r >= 0
+    indicator = np.zeros((R, max(n_parts, 1)))
+    indicator[np.flatnonzero(present), part_r[present]] = 1.0
+    pin = (~present).astype(float)        # absent raters: effect pinned to 0
+    var_unit = np.full(R, np.nan)
+    if with_variance or not iterative:
+        system = reduced.toarray() + indicator @ indicator.T + np.diag(pin)
+        factor = sla.cho_factor(system, lower=True, check_finite=False)
+        offsets = sla.cho_solve(factor, rhs, check_finite=False)
+        if with_variance:
+            inv = sla.cho_solve(factor, np.eye(R), check_finite=False)
+            raters_per_part = np.bincount(part_r[present], minlength=n_parts).astype(float)
+            var_unit = np.diag(inv).copy()
+            var_unit[present] -= 1.0 / raters_per_part[part_r[present]] ** 2
+            var_unit[~present] = np.nan
+    else:
+        offsets = _solve_iteratively(reduced.tocsr(), indicator, pin, rhs)
+    offsets[~present] = np.nan
+    reduction = float(np.dot(np.where(present, offsets, 0.0), rhs))
+    return AdditiveFit(
+        offsets=offsets,
+        offset_var_unit=var_unit,
+        part_of_rater=part_r,
+        part_of_case=part_c,
+        n_parts=n_parts,
+        grand_mean=grand,
+        n=N,
+        n_cases=float(w_case[n_c > 0].sum()),
+        n_raters=int(present.sum()),
+        sum_readers_sq_over_n=float((w_case * n_c**2).sum() / N),
+        ss_total=ss_total,
+        ss_cases=ss_total - ss_within,
+        ss_raters=ss_raters,
+        ss_within_cases=ss_within,
+        ss_rater_given_case=reduction,
+        ss_residual=max(ss_within - reduction, 0.0),
+    )
+
+
+def _solve_iteratively(reduced, indicator, pin, rhs) -> np.ndarray:
+    """Conjugate gradients on (reduced + E E' + diag(pin)) x = rhs, Jacobi-preconditioned."""
+    from scipy.sparse.linalg import LinearOperator, cg
+
+    def apply(x):
+        return reduced @ x + indicator @ (indicator.T @ x) + pin * x
+
+    diag = reduced.diagonal() + (indicator**2).sum(axis=1) + pin
+    size = rhs.size
+    operator = LinearOperator((size, size), matvec=apply, dtype=float)
+    precondition = LinearOperator((size, size), matvec=lambda x: x / diag, dtype=float)
+    solution, info = cg(operator, rhs, rtol=1e-12, atol=0.0, maxiter=20 * size, M=precondition)
+    if info != 0:
+        raise DegenerateFitError("The rater + case model did not converge; the rater network is too thin.")
+    return solution
+
+
+# ---------------------------------------------------------------------------
+# results
+# ---------------------------------------------------------------------------
+
+@dataclass(frozen=True)
+class RaterSeverity(ResultMixin):
+    """One rater's offset, range use and central tendency.
+
+    ``offset`` > 0: more lenient than the panel on the same files (higher
+    judgments), < 0: more severe. ``sd_ratio`` is the spread of the rater's own
+    judgments over the spread of the other readers' severity-adjusted judgments
+    on the same files (below 1: uses less of the scale). ``middle_share`` is the
+    share of the rater's judgments in the middle of the scale, beside the other
+    readers' share on the same files.
+    """
+
+    rater: str
+    n: int
+    part: int
+    estimate: float
+    se: float
+    ci_low: float
+    ci_high: float
+    own_sd: float
+    panel_sd: float
+    sd_ratio: float
+    middle_share: float
+    panel_middle_share: float
+    flags: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        from ..result_base import jsonable
+
+        return jsonable({
+            "offset": self.estimate,
+            "se": self.se,
+            "ci_low": self.ci_low,
+            "ci_high": self.ci_high,
+            "n": self.n,
+            "part": self.part,
+            "range_use": {"sd_ratio": self.sd_ratio, "own_sd": self.own_sd, "panel_sd": self.panel_sd},
+            "central_tendency": {
+                "middle_share": self.middle_share,
+                "panel_middle_share": self.panel_middle_share,
+            },
+            "flags": list(self.flags),
+        })
+
+
+@dataclass(frozen=True)
+class ConnectedPart(ResultMixin):
+    """A set of raters linked to each other through shared files."""
+
+    part: int
+    raters: tuple[str, ...]
+    n_cases: int
+    n_judgments: int
+
+
+@dataclass(frozen=True)
+class SeverityResult(ResultMixin):
+    """Severity of every rater in one phase, plus the network's connected parts."""
+
+    raters: tuple[RaterSeverity, ...]
+    parts: tuple[ConnectedPart, ...]
+    connected: bool
+    grand_mean: float
+    residual_sd: float
+    df_residual: float
+    n_judgments: int
+    offset_margin: float
+    method: str
+    warnings: tuple[str, ...] = ()
+
+    def offsets(self) -> dict[str, float]:
+        return {r.rater: r.estimate for r in self.raters}
+
+    def for_rater(self, rater: str) -> RaterSeverity:
+        for r in self.raters:
+            if r.rater == rater:
+                return r
+        raise KeyError(rater)
+
+    def to_frame(self) -> pd.DataFrame:
+        return tidy_rows(self.raters)
+
+
+# ---------------------------------------------------------------------------
+# the public function
+# ---------------------------------------------------------------------------
+
+_MIN_CASES_FOR_FLAGS = 10
+
+
+def severity(
+    first: pd.DataFrame,
+    *,
+    scale: str,
+    scale_min: float | None = None,
+    scale_max: float | None = None,
+    offset_margin: float | None = None,
+    confidence: float = 0.95,
+) -> SeverityResult:
+    """Rater offsets, range use and central tendency on an incomplete design.
+
+    Parameters
+    ----------
+    first : DataFrame with ``rater``, ``case``, ``judgment`` (one row per rater and case).
+    scale : "continuous", "ordinal" or "binary".
+    scale_min, scale_max : ends of the judgment scale; when absent the observed
+        range is used (with a warning) for the middle band and the flag margin.
+    offset_margin : smallest offset worth a flag, in judgment units. Default
+        5% of the scale range (our own rule of thumb, no published source).
+    confidence : level of the offset intervals.
+
+    Returns
+    -------
+    SeverityResult
+
+    Notes
+    -----
+    Offsets are the rater effects :math:`b_r` of the additive fixed-effects model
+    :math:`y_{rc} = \\mu + a_c + b_r + e_{rc}` (least squares, sum of :math:`b_r`
+    zero within each connected part), with
+    :math:`SE(b_r) = \\hat\\sigma \\sqrt{[A^+]_{rr}}` where :math:`A` is the reduced
+    normal-equation matrix after absorbing the case effects and
+    :math:`\\hat\\sigma^2 = SSE / (N - C - R + K)` (``K`` parts). This is ordinary
+    least-squares theory for a two-way layout without interaction (Searle 1971,
+    Linear Models, ch. 7; from memory).
+
+    Flags (fixed identifiers; only for raters with at least 10 files):
+
+    - ``lenient`` / ``severe``: the offset's interval lies wholly above
+      ``+offset_margin`` / below ``-offset_margin``;
+    - ``narrow_range`` / ``wide_range``: ``sd_ratio`` below 0.67 / above 1.5;
+    - ``central_tendency``: ``middle_share`` exceeds the other readers' share on
+      the same files by 0.20 or more.
+
+    The thresholds are our own rules of thumb (no published source).
+    """
+    check_scale(scale, scale_min, scale_max)
+    data = check_first(first)
+    layout = crossed_layout(data)
+    warnings: list[str] = []
+    low, high = scale_min, scale_max
+    if low is None or high is None:
+        low = float(data["judgment"].min()) if low is None else low
+        high = float(data["judgment"].max()) if high is None else high
+        warnings.append(
+            "The scale's ends were not given; the observed lowest and highest judgments "
+            f"({low:g}, {high:g}) stand in for them."
+        )
+    if offset_margin is None:
+        offset_margin = 0.05 * (high - low) if high > low else 0.0
+
+    fit = fit_additive(layout, with_variance=True)
+    df = fit.df_residual
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sigma2 = fit.ss_residual / df if df > 0 else np.nan
+        se = np.sqrt(sigma2 * fit.offset_var_unit)
+    if not df > 0:
+        warnings.append(
+            "No residual degrees of freedom in the rater + case model (too few shared files): "
+            "offsets have no standard error."
+        )
+    z = norm.ppf(0.5 + confidence / 2.0)
+    R = layout.n_raters
+    ri, ci, y = layout.rater_index, layout.case_index, layout.y
+    n_r = np.bincount(ri, minlength=R)
+    n_c = layout.readers_per_case()
+
+    # spread: own judgments against the other readers' severity-adjusted judgments on the same files
+    adjusted = y - np.nan_to_num(fit.offsets)[ri]
+    own_sd = _group_sd(ri, y, R)
+    s_case = np.bincount(ci, weights=adjusted, minlength=layout.n_cases)
+    q_case = np.bincount(ci, weights=adjusted**2, minlength=layout.n_cases)
+    n_other = np.bincount(ri, weights=n_c[ci] - 1.0, minlength=R)
+    s_other = np.bincount(ri, weights=s_case[ci] - adjusted, minlength=R)
+    q_other = np.bincount(ri, weights=q_case[ci] - adjusted**2, minlength=R)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        var_other = (q_other - s_other**2 / n_other) / (n_other - 1.0)
+        panel_sd = np.where(n_other > 1, np.sqrt(np.maximum(var_other, 0.0)), np.nan)
+        sd_ratio = own_sd / panel_sd
+
+    band = middle_band(scale, low, high)
+    if band is None:
+        middle_share = panel_middle = np.full(R, np.nan)
+    else:
+        tol = 1e-9 * max(1.0, abs(high - low))
+        is_mid = ((y >= band[0] - tol) & (y <= band[1] + tol)).astype(float)
+        mid_case = np.bincount(ci, weights=is_mid, minlength=layout.n_cases)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            middle_share = np.bincount(ri, weights=is_mid, minlength=R) / n_r
+            panel_middle = np.bincount(ri, weights=mid_case[ci] - is_mid, minlength=R) / n_other
+
+    if fit.n_parts > 1:
+        warnings.append(
+            f"The raters fall into {fit.n_parts} groups that share no files; offsets are "
+            "centred within each group and cannot be compared across groups."
+        )
+    raters = []
+    for r in range(R):
+        lo_ci, hi_ci = fit.offsets[r] - z * se[r], fit.offsets[r] + z * se[r]
+        flags = []
+        if n_r[r] >= _MIN_CASES_FOR_FLAGS:
+            if lo_ci > offset_margin:
+                flags.append("lenient")
+            if hi_ci < -offset_margin:
+                flags.append("severe")
+            if sd_ratio[r] < 0.67:
+                flags.append("narrow_range")
+            if sd_ratio[r] > 1.5:
+                flags.append("wide_range")
+            if middle_share[r] - panel_middle[r] >= 0.20:
+                flags.append("central_tendency")
+        raters.append(RaterSeverity(
+            rater=layout.raters[r], n=int(n_r[r]), part=int(fit.part_of_rater[r]),
+            estimate=float(fit.offsets[r]), se=float(se[r]),
+            ci_low=float(lo_ci), ci_high=float(hi_ci),
+            own_sd=float(own_sd[r]), panel_sd=float(panel_sd[r]), sd_ratio=float(sd_ratio[r]),
+            middle_share=float(middle_share[r]), panel_middle_share=float(panel_middle[r]),
+            flags=tuple(flags),
+        ))
+    parts = []
+    for k in range(fit.n_parts):
+        members = tuple(layout.raters[i] for i in np.flatnonzero(fit.part_of_rater == k))
+        in_part = fit.part_of_case[ci] == k
+        parts.append(ConnectedPart(
+            part=k, raters=members,
+            n_cases=int((fit.part_of_case == k).sum()), n_judgments=int(in_part.sum()),
+        ))
+    return SeverityResult(
+        raters=tuple(raters),
+        parts=tuple(parts),
+        connected=fit.n_parts == 1,
+        grand_mean=fit.grand_mean,
+        residual_sd=float(np.sqrt(sigma2)),
+        df_residual=float(df),
+        n_judgments=int(fit.n),
+        offset_margin=float(offset_margin),
+        method="least-squares additive rater + case model, offsets centred within each connected part",
+        warnings=tuple(warnings),
+    )
+
+
+def _group_sd(groups: np.ndarray, values: np.ndarray, n_groups: int) -> np.ndarray:
+    """Sample SD (n - 1) of ``values`` within each group; NaN below two values."""
+    n = np.bincount(groups, minlength=n_groups).astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.bincount(groups, weights=values, minlength=n_groups) / n
+        ss = np.bincount(groups, weights=(values - mean[groups]) ** 2, minlength=n_groups)
+        return np.where(n > 1, np.sqrt(ss / (n - 1.0)), np.nan)

@@ -1,0 +1,264 @@
+"""Test-retest consistency on repeated cases, and R_s set against its ceiling.
+
+A case shown twice to the same rater gives a test-retest pair. Every statistic
+here is computed for all raters at once from per-rater sums (``np.bincount``
+over the rater index), never by looping a fitting routine over raters.
+
+Drift over the reading order is in :mod:`calibrate.consistency.reading_order`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy.stats import norm
+
+from ..agreement.offsets import check_scale, check_table, tidy_rows
+from ..result_base import ResultMixin, jsonable
+
+VERDICTS = ("model_misses_rule", "inconsistent", "cannot_tell")
+FEW_PAIRS = 10   # below this a warning says the test-retest figures are rough (common practice)
+
+
+@dataclass(frozen=True)
+class RaterRetest(ResultMixin):
+    """Test-retest figures for one rater.
+
+    ``r`` is Pearson's r between the first and the second judgment, with a
+    Fisher-z interval; ``icc_a1`` treats the two occasions as two raters
+    (absolute agreement, McGraw & Wong 1996); the Bland-Altman ``bias`` is the
+    mean of second minus first judgment with 95% limits of agreement
+    ``bias +- 1.96 SD`` (Bland & Altman 1986). ``exact``, ``within_one`` and
+    ``kappa_quadratic`` are for ordinal scales (NaN otherwise; ``exact`` also for binary).
+    """
+
+    rater: str
+    n_pairs: int
+    r: float
+    r_ci_low: float
+    r_ci_high: float
+    icc_a1: float
+    mean_abs_diff: float
+    exact: float
+    within_one: float
+    kappa_quadratic: float
+    bias: float
+    limit_low: float
+    limit_high: float
+    flags: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        return jsonable({
+            "n_pairs": self.n_pairs,
+            "r": self.r,
+            "r_ci": [self.r_ci_low, self.r_ci_high],
+            "icc_a1": self.icc_a1,
+            "mean_abs_diff": self.mean_abs_diff,
+            "exact": self.exact,
+            "within_one": self.within_one,
+            "kappa_quadratic": self.kappa_quadratic,
+            "bland_altman": {"bias": self.bias, "low": self.limit_low, "high": self.limit_high},
+            "flags": list(self.flags),
+            "warnings": list(self.warnings),
+        })
+
+
+@dataclass(frozen=True)
+class RetestSet(ResultMixin):
+    """Test-retest results for every rater with at least one repeated case."""
+
+    raters: tuple[RaterRetest, ...]
+    scale: str
+    confidence: float
+
+    def for_rater(self, rater: str) -> RaterRetest | None:
+        for r in self.raters:
+            if r.rater == rater:
+                return r
+        return None
+
+    def to_dict(self) -> dict:
+        return {r.rater: r.to_dict() for r in self.raters}
+
+    def to_frame(self) -> pd.DataFrame:
+        return tidy_rows(self.raters, drop=("warnings",))
+
+
+def retest(
+    repeats: pd.DataFrame,
+    *,
+    scale: str,
+    scale_min: float | None = None,
+    scale_max: float | None = None,
+    confidence: float = 0.95,
+    low_retest: float = 0.70,
+) -> RetestSet:
+    """Test-retest consistency of every rater from their repeated cases.
+
+    Parameters
+    ----------
+    repeats : DataFrame with ``rater``, ``case``, ``first``, ``second``.
+    scale : "continuous", "ordinal" or "binary".
+    scale_min, scale_max : accepted for a uniform call (kappa's weights use the
+        judgment values themselves, so it needs no range).
+    confidence : level of the interval for r.
+    low_retest : the ``low_retest`` flag is set when r's whole interval lies
+        below this value (0.70: common practice, no published source).
+
+    Notes
+    -----
+    Per rater, with pairs :math:`(x_i, y_i)`, :math:`i = 1..n`:
+
+    - :math:`r` with interval :math:`\\tanh(\\operatorname{atanh} r \\pm z / \\sqrt{n - 3})`
+      (Fisher 1921);
+    - ICC(A,1) of the two occasions,
+      :math:`(MSR - MSE) / (MSR + MSE + 2 (MSC - MSE) / n)` (McGraw & Wong 1996);
+    - quadratic-weighted kappa on the judgment values,
+      :math:`1 - \\overline{(x - y)^2} / (s_x^2 + s_y^2 + (\\bar x - \\bar y)^2)` with
+      variances over ``n``: the expected squared difference under independent
+      margins is exactly that denominator (Cohen 1968 with weights :math:`(i-j)^2`);
+    - Bland-Altman bias :math:`\\bar d`, :math:`d = y - x`, limits :math:`\\bar d \\pm 1.96 s_d`.
+    """
+    check_scale(scale, scale_min, scale_max)
+    data = check_table(repeats, ("rater", "case", "first", "second"), "repeated-judgment")
+    if data.empty:
+        return RetestSet(raters=(), scale=scale, confidence=confidence)
+    index, names = pd.factorize(data["rater"], sort=True)
+    G = len(names)
+    x = data["first"].to_numpy(float)
+    y = data["second"].to_numpy(float)
+
+    def total(values):
+        return np.bincount(index, weights=values, minlength=G)
+
+    n = np.bincount(index, minlength=G).astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mx, my = total(x) / n, total(y) / n
+        dx, dy = x - mx[index], y - my[index]
+        sxx, syy, sxy = total(dx * dx), total(dy * dy), total(dx * dy)
+        r = sxy / np.sqrt(sxx * syy)
+        r = np.where((sxx > 0) & (syy > 0), np.clip(r, -1.0, 1.0), np.nan)
+        z = norm.ppf(0.5 + confidence / 2.0)
+        half = z / np.sqrt(n - 3.0)
+        zr = np.arctanh(np.clip(r, -1 + 1e-15, 1 - 1e-15))
+        ok = n > 3
+        r_low = np.where(ok, np.tanh(zr - half), np.nan)
+        r_high = np.where(ok, np.tanh(zr + half), np.nan)
+
+        diff = y - x
+        bias = total(diff) / n
+        sd_diff = np.sqrt(total((diff - bias[index]) ** 2) / (n - 1.0))
+        sd_diff = np.where(n > 1, sd_diff, np.nan)
+        mad = total(np.abs(diff)) / n
+
+        # two-occasion ANOVA: cases (rows) x occasions (columns)
+        grand = (mx + my) / 2.0
+        pair_mean = (x + y) / 2.0
+        ss_rows = 2.0 * total((pair_mean - grand[index]) ** 2)
+        ss_cols = n * (mx - my) ** 2 / 2.0
+        ss_total = sxx + syy + n * ((mx - grand) ** 2 + (my - grand) ** 2)
+        ss_err = ss_total - ss_rows - ss_cols
+        msr, msc, mse = ss_rows / (n - 1.0), ss_cols, ss_err / (n - 1.0)
+        icc = (msr - mse) / (msr + mse + 2.0 * (msc - mse) / n)
+        icc = np.where(n > 1, icc, np.nan)
+
+        same = np.abs(diff) < 1e-9
+        exact = total(same.astype(float)) / n
+        within = total((np.abs(diff) <= 1.0 + 1e-9).astype(float)) / n
+        expected_sq = sxx / n + syy / n + (mx - my) ** 2
+        kappa = 1.0 - (total(diff**2) / n) / expected_sq
+        kappa = np.where(expected_sq > 0, kappa, np.nan)
+    if scale != "ordinal":
+        within = np.full(G, np.nan)
+        kappa = np.full(G, np.nan)
+        if scale == "continuous":
+            exact = np.full(G, np.nan)
+
+    raters = []
+    for g in range(G):
+        warn = []
+        if n[g] < FEW_PAIRS:
+            warn.append(f"Only {int(n[g])} repeated case(s): the test-retest figures are rough.")
+        if not np.isfinite(r[g]):
+            warn.append("The judgments on the repeated cases do not vary, so r is undefined.")
+        flags = ("low_retest",) if r_high[g] < low_retest else ()
+        raters.append(RaterRetest(
+            rater=str(names[g]), n_pairs=int(n[g]),
+            r=float(r[g]), r_ci_low=float(r_low[g]), r_ci_high=float(r_high[g]),
+            icc_a1=float(icc[g]), mean_abs_diff=float(mad[g]),
+            exact=float(exact[g]), within_one=float(within[g]), kappa_quadratic=float(kappa[g]),
+            bias=float(bias[g]),
+            limit_low=float(bias[g] - 1.96 * sd_diff[g]), limit_high=float(bias[g] + 1.96 * sd_diff[g]),
+            flags=flags, warnings=tuple(warn),
+        ))
+    return RetestSet(raters=tuple(raters), scale=scale, confidence=confidence)
+
+
+@dataclass(frozen=True)
+class ConsistencyVerdict(ResultMixin):
+    """R_s set against the ceiling sqrt(r_tt) that test-retest puts on it.
+
+    ``verdict`` is one of:
+
+    - ``model_misses_rule``: R_s lies clearly below sqrt(r_tt): the rater is
+      consistent, but follows a rule the linear policy misses (nonlinear, or
+      information outside the cues);
+    - ``inconsistent``: test-retest and R_s are both clearly low;
+    - ``cannot_tell``: the intervals are too wide, or neither holds.
+    """
+
+    r_s: float
+    r_s_ci_low: float
+    r_s_ci_high: float
+    ceiling: float
+    ceiling_ci_low: float
+    ceiling_ci_high: float
+    verdict: str
+
+
+def consistency_verdict(
+    r_s: float,
+    r_tt: float,
+    *,
+    r_tt_ci: tuple[float, float],
+    r_s_ci: tuple[float, float] | None = None,
+    low_retest: float = 0.70,
+    low_r_s: float = 0.70,
+) -> ConsistencyVerdict:
+    """Compare a rater's policy consistency R_s with sqrt(r_tt), interval against interval.
+
+    In the population :math:`R_s \\le \\sqrt{r_{tt}}` when the rater's
+    inconsistency is the same on both readings (the reliability index bounds
+    the predictability of a judgment from any rule of the cues; Hammond,
+    Hursch & Todd 1964, from memory). A sample R_s can exceed the sample bound,
+    so only intervals decide:
+
+    - ``inconsistent`` when the whole interval of r_tt lies below ``low_retest``
+      and R_s (its interval's upper end when given) lies below ``low_r_s``;
+    - ``model_misses_rule`` when R_s (upper end) lies below
+      :math:`\\sqrt{\\text{lower end of } r_{tt}}`;
+    - ``cannot_tell`` otherwise, and whenever a figure is missing.
+
+    The 0.70 thresholds are common practice, not a published rule.
+    """
+    lo_tt, hi_tt = r_tt_ci
+    s_lo, s_hi = (r_s, r_s) if r_s_ci is None else r_s_ci
+    with np.errstate(invalid="ignore"):
+        ceiling = np.sqrt(r_tt) if r_tt >= 0 else 0.0
+        c_lo = np.sqrt(max(lo_tt, 0.0)) if np.isfinite(lo_tt) else np.nan
+        c_hi = np.sqrt(max(hi_tt, 0.0)) if np.isfinite(hi_tt) else np.nan
+    verdict = "cannot_tell"
+    if np.isfinite(s_hi) and np.isfinite(hi_tt):
+        if hi_tt < low_retest and s_hi < low_r_s:
+            verdict = "inconsistent"
+        elif np.isfinite(c_lo) and s_hi < c_lo:
+            verdict = "model_misses_rule"
+    return ConsistencyVerdict(
+        r_s=float(r_s), r_s_ci_low=float(s_lo), r_s_ci_high=float(s_hi),
+        ceiling=float(ceiling) if np.isfinite(r_tt) else np.nan,
+        ceiling_ci_low=float(c_lo), ceiling_ci_high=float(c_hi),
+        verdict=verdict,
+    )

@@ -1,0 +1,600 @@
+"""The study spec: which column plays which role, the judgment scale, the cues.
+
+A spec is a small TOML file (format in README.md). :func:`read_spec` parses and
+validates it once and returns a frozen :class:`StudySpec`; everything downstream
+trusts that object. Every problem is collected and reported together, each with
+the fix (an unknown key comes with the closest valid key).
+"""
+
+from __future__ import annotations
+
+import difflib
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from ..errors import SpecError
+from .cues import CueRule
+
+SCALES = ("continuous", "ordinal", "binary")
+ROLES_REQUIRED = ("rater", "case", "judgment")
+ROLES_OPTIONAL = ("criterion", "sequence", "phase")
+MISSING_RULES = ("drop", "indicator")
+CUE_KINDS = ("numeric", "categorical")
+RUBRIC_BASES = ("standardized", "raw")
+DEFAULT_SEED = 20261201
+
+# Every key the spec may hold, per table; used for "did you mean" suggestions.
+VALID_KEYS: dict[str, tuple[str, ...]] = {
+    "": ("study", "columns", "judgment", "cues", "rubric", "excluded", "phases"),
+    "study": ("name", "data", "cases", "seed", "criterion_only_for_selected"),
+    "columns": ROLES_REQUIRED + ROLES_OPTIONAL,
+    "judgment": ("scale", "min", "max", "labels", "cut_off"),
+    "rubric": ("basis",),  # plus one key per cue
+    "excluded": ("columns",),
+    "phases": ("order", "trained"),
+    "cue": ("type", "missing"),
+    "data": ("path", "phase"),
+}
+
+
+@dataclass(frozen=True)
+class JudgmentScale:
+    """The judgment scale: its kind, range and optional words for values."""
+
+    kind: str = "ordinal"
+    min: float | None = None
+    max: float | None = None
+    labels: dict[str, float] = field(default_factory=dict)
+    cut_off: float | None = None
+
+    @property
+    def midpoint(self) -> float | None:
+        if self.min is None or self.max is None:
+            return None
+        return (self.min + self.max) / 2.0
+
+
+@dataclass(frozen=True)
+class DataSource:
+    """One judgments table; ``phase`` is set when the spec gives a phase per table."""
+
+    path: Path
+    phase: str | None = None
+
+
+@dataclass(frozen=True)
+class StudySpec:
+    """A validated study spec. Paths are absolute (resolved against the spec's folder)."""
+
+    name: str
+    data: tuple[DataSource, ...]
+    columns: dict[str, str]
+    judgment: JudgmentScale
+    cues: tuple[CueRule, ...]
+    cases: Path | None = None
+    seed: int = DEFAULT_SEED
+    rubric: dict[str, float] | None = None
+    rubric_basis: str = "standardized"
+    excluded: tuple[str, ...] = ()
+    phase_order: tuple[str, ...] | None = None
+    trained: tuple[str, ...] | None = None
+    criterion_only_for_selected: bool = False
+    source: Path | None = None
+
+    @property
+    def cue_names(self) -> tuple[str, ...]:
+        return tuple(c.name for c in self.cues)
+
+    @property
+    def has_phases(self) -> bool:
+        return self.phase_order is not None
+
+    def role(self, name: str) -> str | None:
+        return self.columns.get(name)
+
+    def to_toml(self, *, relative_to: Path | None = None) -> str:
+        """The spec as TOML text (paths relative to ``relative_to`` when given)."""
+        import tomli_w
+
+        def rel(p: Path) -> str:
+            if relative_to is None:
+                return str(p)
+            try:
+                return Path(p).resolve().relative_to(relative_to.resolve()).as_posix()
+            except ValueError:
+                return str(p)
+
+        study: dict[str, Any] = {"name": self.name}
+        if len(self.data) == 1 and self.data[0].phase is None:
+            study["data"] = rel(self.data[0].path)
+        else:
+            study["data"] = [
+                {"path": rel(d.path), **({"phase": d.phase} if d.phase else {})} for d in self.data
+            ]
+        if self.cases is not None:
+            study["cases"] = rel(self.cases)
+        study["seed"] = self.seed
+        if self.criterion_only_for_selected:
+            study["criterion_only_for_selected"] = True
+        doc: dict[str, Any] = {"study": study, "columns": dict(self.columns)}
+        judgment: dict[str, Any] = {"scale": self.judgment.kind}
+        for key in ("min", "max", "cut_off"):
+            value = getattr(self.judgment, key)
+            if value is not None:
+                judgment[key] = _plain_number(value)
+        if self.judgment.labels:
+            judgment["labels"] = {k: _plain_number(v) for k, v in self.judgment.labels.items()}
+        doc["judgment"] = judgment
+        cues: dict[str, Any] = {}
+        for c in self.cues:
+            cues[c.name] = c.kind if c.missing == "drop" else {"type": c.kind, "missing": c.missing}
+        doc["cues"] = cues
+        if self.rubric:
+            doc["rubric"] = {"basis": self.rubric_basis, **self.rubric}
+        if self.excluded:
+            doc["excluded"] = {"columns": list(self.excluded)}
+        if self.phase_order:
+            phases: dict[str, Any] = {"order": list(self.phase_order)}
+            if self.trained is not None:
+                phases["trained"] = list(self.trained)
+            doc["phases"] = phases
+        return tomli_w.dumps(doc)
+
+
+def _plain_number(value: float) -> int | float:
+    return int(value) if float(value).is_integer() else float(value)
+
+
+def _suggest(key: str, valid: tuple[str, ...] | list[str]) -> str:
+    close = difflib.get_close_matches(key, list(valid), n=1, cutoff=0.6)
+    if close:
+        return f"did you mean '{close[0]}'?"
+    return "valid keys here: " + ", ".join(sorted(valid)) + "."
+
+
+def _check_keys(table: dict, section: str, problems: list[str], valid: tuple[str, ...]) -> None:
+    where = f"[{section}]" if section else "the top level"
+    for key in table:
+        if key not in valid:
+            problems.append(f"unknown key '{key}' in {where}; {_suggest(key, valid)}")
+
+
+def _number(value: Any, what: str, problems: list[str]) -> float | None:
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        problems.append(f"{what} must be a number, got {value!r}.")
+        return None
+    return float(value)
+
+
+def parse_spec(doc: dict, *, base_dir: Path, source: Path | None = None) -> StudySpec:
+    """Validate a parsed TOML document and build a :class:`StudySpec`.
+
+    Raises
+    ------
+    SpecError
+        listing every problem found, each with its fix.
+    """
+    problems: list[str] = []
+    _check_keys(doc, "", problems, VALID_KEYS[""])
+
+    study = doc.get("study")
+    if not isinstance(study, dict):
+        problems.append("the [study] table is missing; add [study] with name and data.")
+        study = {}
+    _check_keys(study, "study", problems, VALID_KEYS["study"])
+    name = str(study.get("name", "")).strip()
+    if not name:
+        problems.append("[study] name is missing; give the study a short name.")
+
+    data_sources: list[DataSource] = []
+    raw_data = study.get("data")
+    if raw_data is None:
+        problems.append("[study] data is missing; give the judgments table's path.")
+    elif isinstance(raw_data, str):
+        data_sources.append(DataSource(path=(base_dir / raw_data)))
+    elif isinstance(raw_data, list) and raw_data:
+        for i, entry in enumerate(raw_data, start=1):
+            if isinstance(entry, str):
+                data_sources.append(DataSource(path=base_dir / entry))
+            elif isinstance(entry, dict):
+                _check_keys(entry, f"study.data #{i}", problems, VALID_KEYS["data"])
+                if "path" not in entry:
+                    problems.append(f"[study] data entry {i} has no 'path'.")
+                    continue
+                phase = entry.get("phase")
+                data_sources.append(
+                    DataSource(path=base_dir / str(entry["path"]),
+                               phase=None if phase is None else str(phase))
+                )
+            else:
+                problems.append(f"[study] data entry {i} must be a path or {{path, phase}}.")
+    else:
+        problems.append("[study] data must be a path or a list of {path = ..., phase = ...}.")
+    with_phase = [d for d in data_sources if d.phase is not None]
+    if with_phase and len(with_phase) != len(data_sources):
+        problems.append("[study] data: give a phase for every table or for none.")
+
+    cases_path = study.get("cases")
+    cases = base_dir / str(cases_path) if cases_path else None
+    seed_raw = study.get("seed", DEFAULT_SEED)
+    if isinstance(seed_raw, bool) or not isinstance(seed_raw, int) or seed_raw < 0:
+        problems.append(f"[study] seed must be a non-negative whole number, got {seed_raw!r}.")
+        seed_raw = DEFAULT_SEED
+    selected = bool(study.get("criterion_only_for_selected", False))
+
+    columns_raw = doc.get("columns")
+    if not isinstance(columns_raw, dict):
+        problems.append("the [columns] table is missing; name the rater, case and judgment columns.")
+        columns_raw = {}
+    _check_keys(columns_raw, "columns", problems, VALID_KEYS["columns"])
+    columns: dict[str, str] = {}
+    for role in ROLES_REQUIRED:
+        if role not in columns_raw:
+            problems.append(
+                f"[columns] has no '{role}'; add {role} = \"<column name>\" naming the {role} column."
+            )
+    for role, col in columns_raw.items():
+        if role in VALID_KEYS["columns"]:
+            if not isinstance(col, str) or not col:
+                problems.append(f"[columns] {role} must be a column name (text).")
+            else:
+                columns[role] = col
+    seen_cols: dict[str, str] = {}
+    for role, col in columns.items():
+        if col in seen_cols:
+            problems.append(f"[columns] column '{col}' is given two roles: {seen_cols[col]} and {role}.")
+        seen_cols[col] = role
+
+    judgment_raw = doc.get("judgment", {})
+    if not isinstance(judgment_raw, dict):
+        problems.append("[judgment] must be a table.")
+        judgment_raw = {}
+    _check_keys(judgment_raw, "judgment", problems, VALID_KEYS["judgment"])
+    kind = judgment_raw.get("scale", "ordinal")
+    if kind not in SCALES:
+        problems.append(f"[judgment] scale must be one of {', '.join(SCALES)}; got {kind!r}. "
+                        f"{_suggest(str(kind), SCALES)}")
+        kind = "ordinal"
+    jmin = _number(judgment_raw.get("min"), "[judgment] min", problems)
+    jmax = _number(judgment_raw.get("max"), "[judgment] max", problems)
+    if kind == "binary":
+        jmin = 0.0 if jmin is None else jmin
+        jmax = 1.0 if jmax is None else jmax
+        if (jmin, jmax) != (0.0, 1.0):
+            problems.append("[judgment] a binary scale runs from min = 0 to max = 1.")
+    if kind == "ordinal" and (jmin is None or jmax is None):
+        problems.append("[judgment] an ordinal scale needs min and max (e.g. min = 1, max = 7).")
+    if jmin is not None and jmax is not None and jmin >= jmax:
+        problems.append(f"[judgment] min ({_plain_number(jmin)}) must be below max "
+                        f"({_plain_number(jmax)}); swap them or fix the scale.")
+    labels_raw = judgment_raw.get("labels", {})
+    labels: dict[str, float] = {}
+    if not isinstance(labels_raw, dict):
+        problems.append("[judgment] labels must be a table of word = number.")
+    else:
+        for word, value in labels_raw.items():
+            v = _number(value, f"[judgment] labels.{word}", problems)
+            if v is not None:
+                labels[str(word)] = v
+                if jmin is not None and jmax is not None and not (jmin <= v <= jmax):
+                    problems.append(f"[judgment] label '{word}' = {_plain_number(v)} lies outside "
+                                    f"min..max ({_plain_number(jmin)}..{_plain_number(jmax)}).")
+    cut_off = _number(judgment_raw.get("cut_off"), "[judgment] cut_off", problems)
+    scale = JudgmentScale(kind=kind, min=jmin, max=jmax, labels=labels, cut_off=cut_off)
+
+    cues_raw = doc.get("cues")
+    cues: list[CueRule] = []
+    if not isinstance(cues_raw, dict) or not cues_raw:
+        problems.append("the [cues] table is missing or empty; list each cue as column = \"numeric\" "
+                        "or \"categorical\".")
+        cues_raw = {}
+    role_columns = set(columns.values())
+    for cue, rule in cues_raw.items():
+        if isinstance(rule, str):
+            ctype, missing = rule, "drop"
+        elif isinstance(rule, dict):
+            _check_keys(rule, f"cues.{cue}", problems, VALID_KEYS["cue"])
+            ctype, missing = rule.get("type", "numeric"), rule.get("missing", "drop")
+        else:
+            problems.append(f"[cues] {cue} must be \"numeric\", \"categorical\" or a table.")
+            continue
+        if ctype not in CUE_KINDS:
+            problems.append(f"[cues] {cue}: type must be numeric or categorical; got {ctype!r}. "
+                            f"{_suggest(str(ctype), CUE_KINDS)}")
+            continue
+        if missing not in MISSING_RULES:
+            problems.append(f"[cues] {cue}: missing must be drop or indicator; got {missing!r}.")
+            continue
+        if missing == "indicator" and ctype != "numeric":
+            problems.append(f"[cues] {cue}: the indicator rule is for numeric cues; a categorical cue "
+                            "can take 'missing' as one of its levels instead.")
+            continue
+        if cue in role_columns:
+            problems.append(f"[cues] '{cue}' is also named in [columns] as "
+                            f"{seen_cols.get(cue, 'a role')}; a column is either a cue or a role.")
+        cues.append(CueRule(name=str(cue), kind=ctype, missing=missing))
+    cue_names = [c.name for c in cues]
+
+    rubric = None
+    basis = "standardized"
+    rubric_raw = doc.get("rubric")
+    if rubric_raw is not None:
+        if not isinstance(rubric_raw, dict):
+            problems.append("[rubric] must be a table of cue = weight.")
+        else:
+            basis = rubric_raw.get("basis", "standardized")
+            if basis not in RUBRIC_BASES:
+                problems.append(f"[rubric] basis must be standardized or raw; got {basis!r}.")
+            weights: dict[str, float] = {}
+            for cue, w in rubric_raw.items():
+                if cue == "basis":
+                    continue
+                if cue not in cue_names:
+                    problems.append(f"[rubric] names '{cue}', which is not a cue; "
+                                    f"{_suggest(cue, cue_names)}")
+                    continue
+                value = _number(w, f"[rubric] {cue}", problems)
+                if value is None:
+                    continue
+                if value < 0:
+                    problems.append(f"[rubric] {cue} has a negative weight ({value}); rubric weights "
+                                    "are shares of attention, zero or more. Reverse-score the cue instead.")
+                    continue
+                weights[cue] = value
+            total = sum(weights.values())
+            if weights and total <= 0:
+                problems.append("[rubric] the weights add up to zero; give at least one positive weight.")
+            elif weights:
+                rubric = {c: weights.get(c, 0.0) / total for c in cue_names}
+
+    excluded: tuple[str, ...] = ()
+    excluded_raw = doc.get("excluded")
+    if excluded_raw is not None:
+        if not isinstance(excluded_raw, dict):
+            problems.append("[excluded] must be a table with columns = [...].")
+        else:
+            _check_keys(excluded_raw, "excluded", problems, VALID_KEYS["excluded"])
+            cols = excluded_raw.get("columns", [])
+            if isinstance(cols, str):
+                cols = [cols]
+            if not isinstance(cols, list):
+                problems.append("[excluded] columns must be a list of column names.")
+                cols = []
+            for col in cols:
+                if col in cue_names:
+                    problems.append(f"[excluded] '{col}' is also a cue; an attribute that must not "
+                                    "influence judgments cannot be a cue. Remove it from [cues] or [excluded].")
+                if col in role_columns:
+                    problems.append(f"[excluded] '{col}' is also named in [columns].")
+            excluded = tuple(str(c) for c in cols)
+            if len(set(excluded)) != len(excluded):
+                problems.append("[excluded] lists a column twice.")
+
+    phases_raw = doc.get("phases")
+    phase_order: tuple[str, ...] | None = None
+    trained: tuple[str, ...] | None = None
+    if phases_raw is not None:
+        if not isinstance(phases_raw, dict):
+            problems.append("[phases] must be a table with order = [...].")
+        else:
+            _check_keys(phases_raw, "phases", problems, VALID_KEYS["phases"])
+            order = phases_raw.get("order")
+            if not isinstance(order, list) or not order:
+                problems.append("[phases] order must list the phases, e.g. order = [\"before\", \"after\"].")
+            else:
+                phase_order = tuple(str(p) for p in order)
+                if len(set(phase_order)) != len(phase_order):
+                    problems.append("[phases] order lists a phase twice.")
+            if "trained" in phases_raw:
+                t = phases_raw["trained"]
+                if not isinstance(t, list):
+                    problems.append("[phases] trained must be a list of rater ids.")
+                else:
+                    trained = tuple(str(r) for r in t)
+    has_phase_source = "phase" in columns or bool(with_phase)
+    if has_phase_source and phase_order is None and not any("[phases]" in p for p in problems):
+        problems.append("the data has phases (a phase column or a phase per table) but the spec has no "
+                        "[phases] order; add [phases] order = [\"before\", \"after\"] (your phase names).")
+    if with_phase and phase_order is not None:
+        for d in with_phase:
+            if d.phase not in phase_order:
+                problems.append(f"[study] data phase '{d.phase}' is not in [phases] order.")
+    if "phase" in columns and with_phase:
+        problems.append("give phases either as a phase column or per data table, not both.")
+    if phase_order is not None and not has_phase_source:
+        problems.append("[phases] is given but the data has no phase column and no phase per table; "
+                        "add phase = \"<column>\" to [columns] or a phase to each [study] data entry.")
+
+    if problems:
+        raise SpecError(problems, path=str(source) if source else None)
+    return StudySpec(
+        name=name,
+        data=tuple(data_sources),
+        columns=columns,
+        judgment=scale,
+        cues=tuple(cues),
+        cases=cases,
+        seed=int(seed_raw),
+        rubric=rubric,
+        rubric_basis=basis,
+        excluded=excluded,
+        phase_order=phase_order,
+        trained=trained,
+        criterion_only_for_selected=selected,
+        source=source,
+    )
+
+
+def read_spec(path: str | Path) -> StudySpec:
+    """Read and validate a study spec from a TOML file."""
+    path = Path(path)
+    if not path.is_file():
+        raise SpecError(f"the spec file {path} does not exist. Draft one with "
+                        "'calibrate init <judgments table>'.")
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError:
+        raise SpecError("the spec is not UTF-8 text.", path=str(path)) from None
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        hint = ""
+        if "overwrite" in str(exc).lower() or "duplicate" in str(exc).lower():
+            hint = " A key is listed twice (for example a cue named twice in [cues]); keep one."
+        raise SpecError(f"the TOML cannot be read: {exc}.{hint}", path=str(path)) from None
+    return parse_spec(doc, base_dir=path.resolve().parent, source=path)
+
+
+def write_spec(spec: StudySpec, path: str | Path) -> None:
+    """Write ``spec`` as TOML next to its data (paths relative to the spec's folder)."""
+    from ..safe_files import atomic_write_text
+
+    path = Path(path)
+    atomic_write_text(path, spec.to_toml(relative_to=path.resolve().parent))
+
+
+# ----------------------------------------------------------------------------- drafting
+
+_ROLE_HINTS = {
+    "rater": ("rater", "reviewer", "reader", "grader", "judge", "assessor", "scorer", "marker",
+              "evaluator", "examiner"),
+    "case": ("case", "applicant", "candidate", "file", "essay_id", "student", "item", "subject",
+             "id", "application"),
+    "judgment": ("judgment", "judgement", "rating", "score", "grade", "decision", "verdict", "mark",
+                 "evaluation", "rank"),
+    "sequence": ("sequence", "order", "read_order", "position", "timestamp", "time", "seq", "when"),
+    "phase": ("phase", "session", "wave", "round_name", "stage", "period"),
+    "criterion": ("criterion", "outcome", "result", "first_year_result", "performance", "truth",
+                  "key", "expert_score"),
+}
+
+
+def _guess_role(columns: list[str], role: str, taken: set[str]) -> str | None:
+    hints = _ROLE_HINTS[role]
+    lowered = {c: c.lower().strip() for c in columns if c not in taken}
+    for hint in hints:  # exact names first, in order of preference
+        for col, low in lowered.items():
+            if low == hint:
+                return col
+    for hint in hints:
+        for col, low in lowered.items():
+            if hint in low and len(hint) > 2:
+                return col
+    return None
+
+
+def draft_spec(table: "pd.DataFrame", *, data_name: str, study_name: str) -> str:  # noqa: F821
+    """Draft a spec (TOML text with comments) from a judgments table.
+
+    Roles are guessed from column names (and, for the judgment, numeric type);
+    the other columns become cues: numeric when every value is a number,
+    categorical otherwise. Every guess is marked for the user to check.
+    """
+    import pandas as pd
+
+    columns = [c for c in table.columns if not str(c).startswith("_")]
+    taken: set[str] = set()
+    roles: dict[str, str | None] = {}
+    for role in ("rater", "case", "judgment", "sequence", "phase", "criterion"):
+        roles[role] = _guess_role(columns, role, taken)
+        if roles[role]:
+            taken.add(roles[role])
+    numeric = {}
+    for c in columns:
+        values = table[c].dropna()
+        converted = pd.to_numeric(values, errors="coerce")
+        numeric[c] = bool(len(values)) and bool(converted.notna().all())
+    if roles["judgment"] is None:
+        candidates = [c for c in columns if c not in taken and numeric[c]]
+        roles["judgment"] = candidates[-1] if candidates else None
+        if roles["judgment"]:
+            taken.add(roles["judgment"])
+    jcol = roles["judgment"]
+    scale, jmin, jmax, labels = "continuous", None, None, {}
+    if jcol is not None:
+        values = table[jcol].dropna()
+        if numeric[jcol]:
+            nums = pd.to_numeric(values)
+            distinct = sorted(nums.unique())
+            if set(distinct) <= {0, 1}:
+                scale, jmin, jmax = "binary", 0, 1
+            elif all(float(v).is_integer() for v in distinct) and len(distinct) <= 11:
+                scale, jmin, jmax = "ordinal", int(min(distinct)), int(max(distinct))
+            else:
+                scale, jmin, jmax = "continuous", float(nums.min()), float(nums.max())
+        else:
+            words = sorted(str(v).strip() for v in values.unique())
+            if len(words) == 2:
+                scale, jmin, jmax = "binary", 0, 1
+                yes = [w for w in words if w.lower() in ("admit", "yes", "accept", "pass", "1", "true")]
+                first = yes[0] if yes else words[0]
+                labels = {first: 1, next(w for w in words if w != first): 0}
+            else:
+                scale, jmin, jmax = "ordinal", 1, len(words)
+                labels = {w: i + 1 for i, w in enumerate(words)}
+    cues = []
+    for c in columns:
+        if c in taken:
+            continue
+        values = table[c].dropna()
+        if numeric[c]:
+            kind = "numeric"
+            missing = "indicator" if table[c].isna().any() else None
+        elif values.nunique() <= max(12, len(values) // 20):
+            kind, missing = "categorical", None
+        else:
+            continue  # free text or ids: not a cue
+        cues.append((c, kind, missing))
+
+    def q(text: str) -> str:
+        return '"' + str(text).replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+    lines = [
+        "# Draft study spec written by 'calibrate init'. Check every line marked CHECK,",
+        "# then run 'calibrate check' on this file.",
+        "",
+        "[study]",
+        f"name = {q(study_name)}",
+        f"data = {q(data_name)}",
+        "# cases = \"cases.csv\"        # optional: a table of cues per case, joined on the case id",
+        f"seed = {DEFAULT_SEED}",
+        "",
+        "[columns]   # CHECK: which column plays which role",
+    ]
+    for role in ("rater", "case", "judgment", "sequence", "phase", "criterion"):
+        col = roles[role]
+        if col is None:
+            if role in ROLES_REQUIRED:
+                lines.append(f"{role} = \"\"   # CHECK: not found; name the {role} column")
+            else:
+                lines.append(f"# {role} = \"\"   # optional")
+        else:
+            lines.append(f"{role} = {q(col)}")
+    lines += ["", "[judgment]   # CHECK: the scale", f"scale = {q(scale)}"]
+    if jmin is not None:
+        lines += [f"min = {jmin}", f"max = {jmax}"]
+    if labels:
+        lines.append("labels = { " + ", ".join(f"{q(k)} = {v}" for k, v in labels.items()) + " }")
+    lines += ["", "[cues]   # CHECK: numeric or categorical; remove columns that are not cues"]
+    for name, kind, missing in cues:
+        if missing:
+            lines.append(f"{q(name)} = {{ type = \"numeric\", missing = \"indicator\" }}  "
+                         "# has missing values: 'indicator' keeps those cases, 'drop' removes them")
+        else:
+            lines.append(f"{q(name)} = {q(kind)}")
+    lines += [
+        "",
+        "# [rubric]              # optional: the weights the panel is meant to use",
+        "# basis = \"standardized\"",
+        "# [excluded]            # optional: attributes that must not influence judgments",
+        "# columns = []",
+    ]
+    if roles["phase"]:
+        phases = [str(v) for v in pd.unique(table[roles["phase"]].dropna())]
+        lines += ["", "[phases]   # CHECK: the order of the phases",
+                  "order = [" + ", ".join(q(p) for p in phases) + "]"]
+    return "\n".join(lines) + "\n"

@@ -1,0 +1,15 @@
+"""The results folder: built whole and swapped in, its tidy tables as CSV, the workbook
+and the JSON Schemas of what it writes."""
+
+from .folder import OutputFolder
+from .tables import TABLE_DESCRIPTIONS, csv_bytes, results_schema
+from .workbook import sheet_names, workbook_bytes
+
+__all__ = [
+    "OutputFolder",
+    "TABLE_DESCRIPTIONS",
+    "csv_bytes",
+    "results_schema",
+    "sheet_names",
+    "workbook_bytes",
+]

@@ -1,0 +1,550 @@
+"""Groups of raters who share a policy.
+
+The panel's raters are grouped bottom-up by how much predictive power a shared
+equation costs (Ward 1963; Christal 1968). Every rater starts with an equation of
+their own. At each step the two groups whose *common* equation loses the least
+overall R^2 are merged. A group's common equation has shared cue weights while each
+rater keeps an intercept of their own, so a lenient and a severe rater who weigh
+the cues alike still land together.
+
+Everything is computed from each rater's centred sums of squares and
+cross-products (SSCP) of ``[cues..., judgment]``: the common equation of a group is
+the regression on the *sum* of its raters' centred SSCPs (the pooled-within SSCP),
+so no merge ever refits raw rows. Bootstrap resamples of cases are count vectors
+over cases, used as weights in :func:`calibrate.policy.linalg.grouped_sscp`, and all
+resamples are grouped in lockstep with numpy.
+
+Overall R^2 here is ``1 - sum(RSS of every group's equation) / sum(each rater's
+centred sum of squares of judgments)``: the share of each rater's own spread of
+judgments that the group equations explain. Differences in leniency (intercepts)
+are not counted as explained, in line with giving each rater an intercept.
+
+This module holds the results and the public entry point :func:`group_raters`; the
+merge engine is in :mod:`calibrate.panel.merges` and the checks on a grouping
+(number of groups, resampling stability, Ward cross-check) in
+:mod:`calibrate.panel.stability`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from ..data.cues import CueDesign
+from ..errors import DataError
+from ..policy.importance import cue_importance
+from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
+from ..result_base import ResultMixin, jsonable
+from .merges import agglomerate, labels_at, name_groups, release_work_memory, standardized_weights
+from .stability import (
+    SURVIVAL_JACCARD,
+    adjusted_rand_index,
+    number_of_groups,
+    resample_budget,
+    resampling_stability,
+    ward_cross_check,
+)
+
+__all__ = [
+    "GroupPolicy",
+    "GroupingResult",
+    "MergeStep",
+    "adjusted_rand_index",
+    "group_raters",
+]
+
+# --------------------------------------------------------------------------- results
+
+
+@dataclass(frozen=True)
+class MergeStep(ResultMixin):
+    """One merge of the grouping sequence.
+
+    ``r2`` is the overall R^2 after the merge and ``r2_drop`` what the merge cost.
+    ``f_statistic`` compares the two groups' weights (the F of equal slopes across
+    two sets of raters, Chow 1960, with the residual variance of the model just
+    before the merge). It is descriptive only: the groups were formed from the same
+    judgments to differ, so the F distribution would give p-values far too small for
+    the late merges (measured: half of simulated one-policy panels had some merge at
+    p < .01). ``p_value`` is instead a parametric-bootstrap p-value, given for the
+    merges the number-of-groups rule tested (None for the others).
+    """
+
+    step: int
+    merged_a: tuple[str, ...]
+    merged_b: tuple[str, ...]
+    n_groups: int
+    r2: float
+    r2_drop: float
+    f_statistic: float
+    df_num: float
+    df_den: float
+    p_value: float
+
+
+@dataclass(frozen=True)
+class GroupPolicy(ResultMixin):
+    """The shared policy of one group (pooled-within regression of its raters)."""
+
+    group: str
+    raters: tuple[str, ...]
+    n: int                          # judgments pooled
+    r2: float                       # R^2 of the common equation, within raters
+    weights: dict[str, float]       # raw weights per design column
+    std_weights: dict[str, float]   # standardized weights per design column
+    importance: dict[str, float]    # shares per cue, sum 1
+    importance_r2: dict[str, float]  # per cue, sum R^2
+    sets_apart: str                 # one plain sentence
+    stability: float                # mean best-match Jaccard over resamples (NaN: none)
+    survives: bool | None           # stability >= SURVIVAL_JACCARD; None without resamples
+
+
+@dataclass(frozen=True)
+class GroupingResult(ResultMixin):
+    """Grouping of one phase's raters by shared policy.
+
+    Attributes
+    ----------
+    raters : raters in sorted order (all raters in ``first``).
+    rater_group : rater -> group label ('A' is the largest group); None for a rater
+        whose own equation could not be fitted (listed in ``warnings``).
+    merges : the whole merge sequence, from one group per rater down to one group.
+    r2_individual : overall R^2 with one equation per rater (before any merge).
+    n_groups : number of groups chosen (by the rule, or as asked).
+    rule : the rule that chose ``n_groups``, in plain words.
+    groups : each group's pooled policy, largest first.
+    n_resamples : case resamples used for stability (0: none).
+    ari_estimate, ari_ci_low, ari_ci_high : adjusted Rand index between each
+        resample's grouping and the full-data grouping (mean, 2.5% and 97.5%).
+    co_assignment : (R, R) share of resamples in which two raters share a group.
+    ward_group : rater -> label of Ward clustering on standardized weight profiles.
+    ward_ari : adjusted Rand index between the Ward view and the main grouping.
+    ward_matched : share of raters whose Ward group matches their main group after
+        the best one-to-one pairing of labels.
+    warnings : plain-English warnings.
+    """
+
+    raters: tuple[str, ...]
+    rater_group: dict[str, str | None]
+    merges: tuple[MergeStep, ...]
+    r2_individual: float
+    n_groups: int
+    rule: str
+    threshold: float
+    alpha: float
+    groups: tuple[GroupPolicy, ...]
+    n_resamples: int
+    ari_estimate: float
+    ari_ci_low: float
+    ari_ci_high: float
+    co_assignment: np.ndarray = field(repr=False)
+    ward_group: dict[str, str | None]
+    ward_ari: float
+    ward_matched: float
+    warnings: tuple[str, ...]
+
+    def to_dict(self) -> dict:
+        out = jsonable({
+            "n_groups": self.n_groups,
+            "rule": self.rule,
+            "threshold": self.threshold,
+            "alpha": self.alpha,
+            "r2_individual": self.r2_individual,
+            "raters": [{"rater": r, "group": self.rater_group[r],
+                        "ward_group": self.ward_group[r]} for r in self.raters],
+            "groups": [g.to_dict() for g in self.groups],
+            "merges": [m.to_dict() for m in self.merges],
+            "stability": {
+                "n_resamples": self.n_resamples,
+                "ari": {"estimate": self.ari_estimate, "ci_low": self.ari_ci_low,
+                        "ci_high": self.ari_ci_high},
+                "pairs": [],
+            },
+            "ward": {"ari": self.ward_ari, "matched": self.ward_matched},
+            "warnings": list(self.warnings),
+        })
+        out["stability"]["pairs"] = self._pairs()
+        return out
+
+    def _pairs(self) -> list[dict]:
+        """Every pair of grouped raters with the share of resamples they shared a group.
+
+        Built directly as JSON values: a panel of 1,000 raters has about 500,000 pairs.
+        """
+        grouped = np.flatnonzero([self.rater_group[r] is not None for r in self.raters])
+        first, second = np.triu_indices(grouped.size, k=1)
+        together = self.co_assignment[grouped[first], grouped[second]]
+        names = [self.raters[k] for k in grouped]
+        return [{"rater_a": names[a], "rater_b": names[b],
+                 "together": v if math.isfinite(v) else None}
+                for a, b, v in zip(first.tolist(), second.tolist(), together.tolist())]
+
+    def to_frame(self) -> pd.DataFrame:
+        """One row per rater: group, Ward group."""
+        return pd.DataFrame({
+            "rater": list(self.raters),
+            "group": [self.rater_group[r] for r in self.raters],
+            "ward_group": [self.ward_group[r] for r in self.raters],
+        })
+
+    def merge_frame(self) -> pd.DataFrame:
+        """The merge table, one row per step (raters of each side joined by ', ')."""
+        rows = [m.to_dict() for m in self.merges]
+        for row in rows:
+            row["merged_a"] = ", ".join(row["merged_a"])
+            row["merged_b"] = ", ".join(row["merged_b"])
+        columns = [f.name for f in MergeStep.__dataclass_fields__.values()]
+        return pd.DataFrame(rows, columns=columns)
+
+    def groups_frame(self) -> pd.DataFrame:
+        """Tidy: one row per group and design column / cue."""
+        rows = []
+        for g in self.groups:
+            for col, w in g.std_weights.items():
+                rows.append({"group": g.group, "term": col, "measure": "std_weight",
+                             "estimate": w})
+            for cue, s in g.importance.items():
+                rows.append({"group": g.group, "term": cue, "measure": "importance",
+                             "estimate": s})
+        return pd.DataFrame(rows, columns=["group", "term", "measure", "estimate"])
+
+    def pairs_frame(self) -> pd.DataFrame:
+        """How often each pair of raters shared a group over the resamples."""
+        pairs = self.to_dict()["stability"]["pairs"]
+        return pd.DataFrame(pairs, columns=["rater_a", "rater_b", "together"])
+
+
+# --------------------------------------------------------------------------- main
+
+
+def group_raters(
+    design: CueDesign,
+    first: pd.DataFrame,
+    *,
+    rng: np.random.Generator | int | None = None,
+    n_resamples: int = 200,
+    threshold: float = 0.01,
+    alpha: float = 0.05,
+    n_groups: int | None = None,
+    n_null: int = 100,
+) -> GroupingResult:
+    """Group raters whose judgments follow a common policy.
+
+    Parameters
+    ----------
+    design : the phase's cue design over cases.
+    first : DataFrame with columns ``rater``, ``case``, ``judgment`` (first judgments).
+    rng : seed or Generator for the case resamples (same seed, same result).
+    n_resamples : case resamples for stability (0 skips it). Large panels use fewer
+        (resamples x raters^2 is capped; the number used is reported and warned).
+    threshold : drop of overall R^2 that one merge must exceed to count as joining
+        different policies.
+    alpha : level of the simulated test that must also reject for a merge to count as
+        joining different policies.
+    n_groups : force this many groups (the chair overrules the rule); None: the rule.
+    n_null : simulated panels per tested merge for the number-of-groups test.
+
+    Returns
+    -------
+    GroupingResult
+
+    Notes
+    -----
+    Merge cost. With ``S_g`` the sum of the centred SSCPs of group ``g``'s raters,
+    ``RSS_g = S_yy - S_yx S_xx^{-1} S_xy`` is the residual sum of squares of its
+    common equation (shared weights, an intercept per rater). Merging ``a`` and ``b``
+    costs ``RSS_{a+b} - RSS_a - RSS_b`` (Ward 1963, Journal of the American
+    Statistical Association 58:236-244, error sum of squares criterion; applied to
+    rater policies by Christal 1968). Overall R^2 is ``1 - sum_g RSS_g / sum_r S_yy,r``.
+
+    Number of groups (our own rule built on common practice; the defaults are
+    ours). Reading the merge table from the end, as a chair reads for a marked drop
+    in R^2 (Christal 1968), for k = 1, 2, ... the merge from k + 1 groups into k is
+    taken to join different policies when it both costs more than ``threshold`` of
+    overall R^2 *and* its cost exceeds what the same merge costs when the k-group
+    model is true: ``n_null`` panels are simulated from the fitted k-group model
+    (parametric bootstrap; McLachlan 1987) and regrouped, and the Monte Carlo
+    p-value ``(1 + #{simulated drop >= observed}) / (n_null + 1)`` must be below
+    ``alpha``. The first k whose merge fails either test is chosen. The simulation
+    keeps noisy panels from splitting; the R^2 threshold keeps large panels from
+    splitting over differences too small to matter. The whole merge table is returned
+    so a chair can choose another number (``n_groups``).
+
+    Stability. Cases are resampled with replacement (counts as weights); each
+    resample is grouped by the same merges and cut at the chosen number of groups
+    (as in Hennig 2007). Reported: how often each pair shares a group, the adjusted
+    Rand index against the full-data grouping, and per group the mean best-match
+    Jaccard similarity; below 0.5 the group does not survive resampling.
+
+    Cross-check. Ward clustering (scipy) of each rater's standardized weights, cut at
+    the same number of groups, compared with the main grouping.
+
+    Raises
+    ------
+    DataError
+        ``first`` lacks a needed column, names a case missing from the design, or
+        has no usable judgments.
+    """
+    try:
+        return _group_raters(design, first, rng=rng, n_resamples=n_resamples,
+                             threshold=threshold, alpha=alpha, n_groups=n_groups, n_null=n_null)
+    finally:
+        release_work_memory()  # the pair-cost matrices kept between the groupings
+
+
+def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups,
+                  n_null) -> GroupingResult:
+    if threshold < 0 or not np.isfinite(threshold):
+        raise DataError(f"threshold must be a non-negative number of R^2; got {threshold!r}.")
+    if not 0 < alpha <= 1:
+        raise DataError(f"alpha must be in (0, 1]; got {alpha!r}.")
+    if n_resamples < 0:
+        raise DataError(f"n_resamples must be 0 or more; got {n_resamples!r}.")
+    if n_null < 1:
+        raise DataError(f"n_null must be 1 or more; got {n_null!r}.")
+    missing = [c for c in ("rater", "case", "judgment") if c not in first.columns]
+    if missing:
+        raise DataError(f"The judgments table lacks column(s) {', '.join(missing)}; "
+                        "it needs rater, case and judgment.")
+    generator = np.random.default_rng(rng)  # a Generator passes through unchanged
+    warnings: list[str] = []
+
+    raters = sorted(str(r) for r in pd.unique(first["rater"]))
+    known = set(design.case_ids)
+    unknown = sorted({str(c) for c in first["case"]} - known)
+    if unknown:
+        raise DataError(f"{len(unknown)} case(s) in the judgments are not in the cue design, "
+                        f"e.g. '{unknown[0]}'. Every judged case needs its cues.")
+    p = design.n_columns
+    cue_columns = [cols for cols in design.cue_groups() if cols]
+    cue_names = [c for c, cols in zip(design.cues, design.cue_groups()) if cols]
+    if p == 0:
+        raise DataError("The cue design has no columns; there is no policy to group by.")
+
+    # Sorted rows make every sum, and so every digit, independent of the input's row order.
+    first = first.assign(rater=first["rater"].astype(str), case=first["case"].astype(str))
+    first = first.sort_values(["rater", "case"], kind="stable")
+    rows = design.row_of(first["case"])
+    y = pd.to_numeric(first["judgment"], errors="coerce").to_numpy(dtype=float)
+    X = design.matrix[rows]
+    usable = np.isfinite(y) & np.isfinite(X).all(axis=1)
+    rater_index = {r: k for k, r in enumerate(raters)}
+    who = first["rater"].map(rater_index).to_numpy()[usable]
+    case_row = rows[usable]
+    Z = np.column_stack([X[usable], y[usable]])
+    if Z.shape[0] == 0:
+        raise DataError("No judgment has both a value and complete cues; nothing to group.")
+    R = len(raters)
+    full = grouped_sscp(Z, who, R)
+    own = ols_from_sscp(full, np.arange(p), p)
+    eligible = own.rank_ok & (full.sscp[:, p, p] > 0)
+    for k in np.flatnonzero(~eligible):
+        if full.n[k] <= p + 1:
+            why = f"judged only {int(full.n[k])} usable case(s), too few for {p} cue term(s)"
+        elif full.sscp[k, p, p] <= 0:
+            why = "gave the same judgment to every case"
+        else:
+            why = "saw cases on which the cues are collinear"
+        warnings.append(f"Rater '{raters[k]}' {why}; left out of the grouping.")
+
+    n_eligible = int(eligible.sum())
+    active = eligible[None, :]
+    agg = agglomerate(full.sscp[None], full.n[None], active, p, stop_at=1, record=True)
+    tss = float(full.sscp[eligible, p, p].sum())
+    n_total = float(full.n[eligible].sum())
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r2_individual = 1.0 - float(own.rss[eligible].sum()) / tss if n_eligible else np.nan
+
+    start_labels = np.where(eligible, np.arange(R), -1)
+    merges = _merge_steps(agg.history, start_labels, raters, tss=tss,
+                          n_residual=n_total - n_eligible, p=p)
+
+    if n_groups is not None:
+        if not 1 <= n_groups <= max(n_eligible, 1):
+            raise DataError(f"n_groups must be between 1 and {max(n_eligible, 1)} "
+                            f"(the raters that can be grouped); got {n_groups!r}.")
+        chosen = int(n_groups)
+        rule = f"{chosen} group(s), as asked."
+    else:
+        asked_null, n_null = n_null, resample_budget(n_null, n_eligible, floor=50)
+        if n_null < asked_null:
+            warnings.append(f"The number-of-groups test simulated {n_null} panels instead of "
+                            f"{asked_null} to keep the run short for {n_eligible} raters.")
+        chosen, p_values = number_of_groups(
+            {m.n_groups: m.r2_drop for m in merges}, Z, who, start_labels, agg.history,
+            eligible, own.rss, own.df_resid, p, threshold=threshold, alpha=alpha,
+            n_sims=n_null, generator=generator)
+        merges = [dataclasses.replace(m, p_value=p_values[m.n_groups])
+                  if m.n_groups in p_values else m for m in merges]
+        rule = (f"Keep two groups apart when merging them loses more than {threshold:g} "
+                f"of overall R^2 and more than in panels simulated with one shared policy "
+                f"for them (p < {alpha:g}, {n_null} simulations).")
+    if n_eligible == 0:
+        chosen = 0
+        warnings.append("No rater's policy could be fitted; no groups formed.")
+    slots = labels_at(start_labels, agg.history, max(n_eligible - chosen, 0))
+    names = name_groups(slots, raters)
+    rater_group = dict(zip(raters, names))
+
+    used_resamples = resample_budget(n_resamples, n_eligible) if n_eligible >= 2 else 0
+    if used_resamples < n_resamples and n_eligible >= 2:
+        warnings.append(f"Stability used {used_resamples} case resamples instead of "
+                        f"{n_resamples} to keep the run short for {n_eligible} raters.")
+    stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots, eligible,
+                                     p, chosen, used_resamples, generator)
+    if stability.n_sat_out:
+        warnings.append(f"In {stability.n_sat_out} of {used_resamples} resamples some rater "
+                        "had too few distinct cases for an equation and sat that resample out.")
+    ari = stability.ari
+
+    groups = _group_policies(full, slots, names, raters, p, design, cue_names, cue_columns,
+                             stability.jaccard, warnings)
+    for g in groups:
+        if g.survives is False:
+            warnings.append(f"Group {g.group} does not survive resampling of cases "
+                            f"(mean Jaccard similarity {g.stability:.2f}, below "
+                            f"{SURVIVAL_JACCARD}); treat it as unstable.")
+
+    ward_names, ward_ari, ward_matched = ward_cross_check(own.coef, full.sscp, eligible, p,
+                                                          chosen, raters, slots)
+
+    return GroupingResult(
+        raters=tuple(raters),
+        rater_group=rater_group,
+        merges=tuple(merges),
+        r2_individual=r2_individual,
+        n_groups=chosen,
+        rule=rule,
+        threshold=float(threshold),
+        alpha=float(alpha),
+        groups=tuple(groups),
+        n_resamples=used_resamples,
+        ari_estimate=float(ari.mean()) if ari.size else np.nan,
+        ari_ci_low=float(np.quantile(ari, 0.025)) if ari.size else np.nan,
+        ari_ci_high=float(np.quantile(ari, 0.975)) if ari.size else np.nan,
+        co_assignment=stability.co_assignment,
+        ward_group=dict(zip(raters, ward_names)),
+        ward_ari=float(ward_ari),
+        ward_matched=float(ward_matched),
+        warnings=tuple(warnings),
+    )
+
+
+def _merge_steps(history, start_labels, raters, *, tss, n_residual, p) -> list[MergeStep]:
+    """The merge table of one grouping, from the recorded history of :func:`agglomerate`.
+
+    ``n_residual`` is the judgments pooled less one intercept per rater; the F of
+    equal slopes (Chow 1960) has ``p`` and ``n_residual - p * groups_before``
+    degrees of freedom.
+    """
+    merges: list[MergeStep] = []
+    labels = start_labels.copy()
+    for step, (_, i, j, cost, rss_before, groups_before) in enumerate(history, start=1):
+        i, j, cost = int(i[0]), int(j[0]), float(cost[0])
+        rss_before, groups_before = float(rss_before[0]), int(groups_before[0])
+        df_den = n_residual - groups_before * p
+        with np.errstate(invalid="ignore", divide="ignore"):
+            f_stat = (cost / p) / (rss_before / df_den) if df_den > 0 else np.nan
+        rss_after = rss_before + cost
+        merges.append(MergeStep(
+            step=step,
+            merged_a=tuple(raters[k] for k in np.flatnonzero(labels == i)),
+            merged_b=tuple(raters[k] for k in np.flatnonzero(labels == j)),
+            n_groups=groups_before - 1,
+            r2=1.0 - rss_after / tss,
+            r2_drop=cost / tss,
+            f_statistic=f_stat,
+            df_num=float(p),
+            df_den=float(df_den),
+            p_value=np.nan,
+        ))
+        labels = np.where(labels == j, i, labels)
+    return merges
+
+
+def _group_policies(full, slots, names, raters, p, design, cue_names, cue_columns,
+                    jaccard, warnings) -> list[GroupPolicy]:
+    present = sorted({int(s) for s in slots if s >= 0},
+                     key=lambda s: names[int(np.flatnonzero(slots == s)[0])])
+    if not present:
+        return []
+    member_of = np.array([[slots[r] == s for r in range(len(raters))] for s in present])
+    pooled = np.einsum("gr,rij->gij", member_of.astype(float), full.sscp)
+    pooled_n = member_of.astype(float) @ full.n
+    # The rest of the panel for each group: everybody else who was grouped.
+    grouped = slots >= 0
+    rest = np.einsum("gr,rij->gij", (grouped[None, :] & ~member_of).astype(float), full.sscp)
+    rest_n = (grouped[None, :] & ~member_of).astype(float) @ full.n
+    both = np.concatenate([pooled, rest])
+    both_n = np.concatenate([pooled_n, rest_n])
+    fit = ols_from_sscp(GroupedSSCP(n=both_n, mean=np.zeros((len(both_n), p + 1)), sscp=both),
+                        np.arange(p), p)
+    std = standardized_weights(fit.coef, both, p)
+    d = np.sqrt(np.einsum("gii->gi", both))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = both / (d[:, :, None] * d[:, None, :])
+    # Importance on each pooled-within correlation matrix: general dominance (Budescu
+    # 1993), or relative weights (Johnson 2000) beyond 12 cues, from calibrate.policy.importance.
+    importance_r2 = np.full((len(both), len(cue_columns)), np.nan)
+    ok = fit.rank_ok & np.isfinite(corr).all(axis=(1, 2))
+    if ok.any():
+        values, method = cue_importance(corr[ok, :p, :p], corr[ok, :p, p:], cue_columns)
+        importance_r2[ok] = values[:, 0, :]
+        if method != "dominance":
+            warnings.append(f"With {len(cue_columns)} cues, group importance uses relative "
+                            "weights (Johnson 2000) instead of dominance analysis.")
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shares = importance_r2 / importance_r2.sum(axis=1, keepdims=True)
+
+    G = len(present)
+    out = []
+    for g, s in enumerate(present):
+        label = names[int(np.flatnonzero(slots == s)[0])]
+        members = tuple(raters[r] for r in np.flatnonzero(slots == s))
+        sentence = _sets_apart_sentence(label, std[g], std[G + g], shares[g], shares[G + g],
+                                        cue_names, cue_columns, design.columns, G)
+        stab = jaccard.get(s, np.nan)
+        out.append(GroupPolicy(
+            group=label,
+            raters=members,
+            n=int(round(pooled_n[g])),
+            r2=float(fit.r2[g]),
+            weights={c: float(w) for c, w in zip(design.columns, fit.coef[g])},
+            std_weights={c: float(w) for c, w in zip(design.columns, std[g])},
+            importance={c: float(v) for c, v in zip(cue_names, shares[g])},
+            importance_r2={c: float(v) for c, v in zip(cue_names, importance_r2[g])},
+            sets_apart=sentence,
+            stability=float(stab),
+            survives=None if not np.isfinite(stab) else bool(stab >= SURVIVAL_JACCARD),
+        ))
+    return out
+
+
+def _sets_apart_sentence(label, std_group, std_rest, share_group, share_rest,
+                         cue_names, cue_columns, columns, n_groups) -> str:
+    """The cue whose standardized weights differ most between a group and the rest."""
+    if n_groups < 2:
+        return "All grouped raters share one policy, so no cue sets a group apart."
+    gaps = np.array([np.sqrt(np.sum((std_group[c] - std_rest[c]) ** 2)) for c in cue_columns])
+    if not np.isfinite(gaps).any():
+        return f"Group {label}: the weights could not be compared with the other raters'."
+    j = int(np.nanargmax(gaps))
+    cue, cols = cue_names[j], cue_columns[j]
+    if len(cols) == 1:
+        mine, theirs = std_group[cols[0]], std_rest[cols[0]]
+        if np.sign(mine) != np.sign(theirs) and abs(mine) > 0.05 and abs(theirs) > 0.05:
+            how = "in the opposite direction to"
+        elif abs(mine) > abs(theirs):
+            how = "more heavily than"
+        else:
+            how = "less heavily than"
+        return (f"Group {label} weighs {cue} {how} the other raters "
+                f"(standardized weight {mine:.2f} against {theirs:.2f}).")
+    return (f"Group {label} sets itself apart most on {cue} "
+            f"(importance share {share_group[j]:.0%} against {share_rest[j]:.0%} "
+            "for the other raters).")
+

@@ -1,0 +1,547 @@
+"""Why raters disagree: pairwise conflict and policy homogeneity, for one phase.
+
+Pairwise conflict follows Hammond's interpersonal lens model: for two raters
+``a`` and ``b`` who judged the same cases, fit each rater's policy (OLS of the
+judgment on the cues) on exactly those shared cases. Then
+
+.. math::
+
+    r_{ab} = G_{ab} R_a R_b + C_{ab} \\sqrt{1 - R_a^2} \\sqrt{1 - R_b^2}
+
+holds exactly, where ``r_ab`` is the correlation of the two raters' judgments,
+``R_a`` and ``R_b`` their consistencies (multiple correlations), ``G_ab`` the
+correlation of their fitted policies and ``C_ab`` the correlation of their
+residuals (Hammond, Wilkins & Todd 1966, Psychological Bulletin 65:221-232;
+Tucker 1964, Psychological Review 71:528-530, for the identity; citations from
+memory).
+
+Policy homogeneity asks whether the raters weigh the cues differently at all:
+separate slopes per rater against common slopes with a separate intercept per
+rater. Raters differ in their error variance, so the headline test is a Wald
+test of equal slopes with a separate error variance per rater, with a
+parametric-bootstrap p-value (Krishnamoorthy, Lu & Mathew 2007, from memory);
+the classical nested-model F test, which assumes one error variance, is
+reported beside it.
+
+Everything is vectorized across raters and rater pairs through
+:func:`calibrate.policy.linalg.grouped_sscp`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy import stats as sps
+
+from ..data.cues import CueDesign
+from ..data.rows import JudgmentRows, line_up
+from ..errors import DataError
+from ..policy.linalg import grouped_sscp, ols_from_sscp
+from ..result_base import ResultMixin, jsonable
+
+#: Default limit on the number of rater pairs kept in full (the most conflicting).
+#: 2,016 pairs is every pair of a 64-rater panel.
+DEFAULT_MAX_PAIRS = 2016
+
+# Pair rows are materialised in chunks of at most this many (pair x case) cells,
+# which bounds memory at roughly 8 bytes x (cues + 2) x this number.
+_CELLS_PER_CHUNK = 4_000_000
+
+
+# ---------------------------------------------------------------------------
+# Pairwise conflict
+# ---------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class PairConflict(ResultMixin):
+    """Interpersonal lens model for one pair of raters on their shared cases.
+
+    Attributes
+    ----------
+    rater_a, rater_b : the pair (``rater_a`` sorts first).
+    n : number of shared cases (first judgments of both, complete cues).
+    r : correlation of the two raters' judgments (r_ab).
+    g : correlation of the two fitted policies (G).
+    c : correlation of the two residuals (C); NaN when a policy fits perfectly.
+    r_s_a, r_s_b : each rater's consistency R_s, refitted on the shared cases.
+    mean_gap : mean of (a - b) over the shared cases (positive: a scores higher).
+    loss_inconsistency : 1 - R_a R_b, agreement lost to inconsistency.
+    loss_weighting : R_a R_b (1 - G), agreement lost to weighing cues differently.
+    unmodelled : C sqrt(1 - R_a^2) sqrt(1 - R_b^2), agreement from shared
+        judgment outside the linear policies.
+        ``1 - r = loss_inconsistency + loss_weighting - unmodelled`` exactly.
+    main_source : "weighting" or "inconsistency", the larger of the two losses.
+    """
+
+    rater_a: str
+    rater_b: str
+    n: int
+    r: float
+    g: float
+    c: float
+    r_s_a: float
+    r_s_b: float
+    mean_gap: float
+    loss_inconsistency: float
+    loss_weighting: float
+    unmodelled: float
+    main_source: str | None
+
+
+@dataclass(frozen=True)
+class ConflictResult(ResultMixin):
+    """Pairwise conflict for one phase.
+
+    pairs : the kept pairs, most conflicting (lowest r) first.
+    n_pairs_eligible : pairs with at least ``min_shared`` shared cases.
+    n_pairs_kept : ``len(pairs)``; fewer than eligible when ``max_pairs`` cut the list.
+    """
+
+    pairs: tuple[PairConflict, ...]
+    n_pairs_eligible: int
+    n_pairs_kept: int
+    min_shared: int
+    max_pairs: int
+    warnings: tuple[str, ...] = ()
+
+    def to_frame(self) -> pd.DataFrame:
+        columns = [f for f in PairConflict.__dataclass_fields__]
+        return pd.DataFrame([p.to_dict() for p in self.pairs], columns=columns)
+
+
+def _rater_case_matrix(rows: JudgmentRows, n_cases: int) -> np.ndarray:
+    """(raters x design rows) judgments with NaN where a rater did not judge a case."""
+    Y = np.full((rows.n_raters, n_cases), np.nan)
+    flat = rows.group * n_cases + rows.design_row
+    if np.unique(flat).size != flat.size:
+        raise DataError("The first-judgment table has more than one row for some "
+                        "(rater, case); keep only each rater's first judgment of a case.")
+    Y[rows.group, rows.design_row] = rows.y
+    return Y
+
+
+def _screen_pairs(Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Shared-case counts and judgment correlations for every pair, by matrix products.
+
+    Used only to choose which pairs to analyse in full; the reported figures
+    come from the exact refits.
+    """
+    seen = np.isfinite(Y)
+    M = seen.astype(float)
+    with np.errstate(invalid="ignore"):
+        centre = np.nanmean(np.where(seen, Y, np.nan), axis=1, keepdims=True)
+    Y0 = np.where(seen, Y - np.nan_to_num(centre), 0.0)
+    n = M @ M.T
+    sum_a = Y0 @ M.T                       # [a, b]: sum of a's judgments on shared cases
+    sq_a = (Y0 * Y0) @ M.T
+    cross = Y0 @ Y0.T
+    with np.errstate(invalid="ignore", divide="ignore"):
+        cov = cross - sum_a * sum_a.T / n
+        var_a = sq_a - sum_a ** 2 / n
+        r = cov / np.sqrt(var_a * var_a.T)
+    return n, r
+
+
+def pairwise_conflict(
+    design: CueDesign,
+    first: pd.DataFrame,
+    *,
+    min_shared: int = 20,
+    max_pairs: int = DEFAULT_MAX_PAIRS,
+) -> ConflictResult:
+    """Interpersonal lens model for every pair of raters with enough shared cases.
+
+    For raters a and b and the cases S both judged (first judgments, complete
+    cues), both policies are refitted on S by OLS, so that
+
+    .. math::
+
+        r_{ab} = G R_a R_b + C \\sqrt{1-R_a^2}\\sqrt{1-R_b^2}
+
+    is an identity (Tucker 1964; Hammond, Wilkins & Todd 1966). It splits the
+    pair's shortfall from perfect agreement exactly into
+    ``1 - r = (1 - R_a R_b) + R_a R_b (1 - G) - C sqrt(1-R_a^2) sqrt(1-R_b^2)``:
+    inconsistency, different weighting, and shared unmodelled judgment.
+
+    Parameters
+    ----------
+    design : the phase's cue design.
+    first : long table with columns ``rater``, ``case``, ``judgment`` (one row per
+        rater and case).
+    min_shared : a pair needs at least this many shared cases (and more than the
+        number of design columns + 2, so both policies can be fitted).
+    max_pairs : keep at most this many pairs, the most conflicting first (lowest
+        r on shared cases); the default keeps every pair of a 64-rater panel.
+
+    Returns
+    -------
+    ConflictResult
+
+    Raises
+    ------
+    DataError
+        Missing columns, unknown cases, or a repeated (rater, case) row.
+        Judgments that are missing or whose case lacks a cue under a ``drop``
+        rule are left out and counted in a warning.
+    """
+    if min_shared < 1 or max_pairs < 1:
+        raise DataError("min_shared and max_pairs must be positive integers.")
+    rows = line_up(design, first)
+    warnings: list[str] = []
+    if rows.n_dropped:
+        warnings.append(f"{rows.n_dropped} judgment(s) left out of pairwise conflict because "
+                        "the judgment or a cue of the case is missing.")
+    X = design.matrix
+    p = X.shape[1]
+    Y = _rater_case_matrix(rows, X.shape[0])
+    n_shared, r_screen = _screen_pairs(Y)
+    need = max(min_shared, p + 3)
+    a_idx, b_idx = np.triu_indices(rows.n_raters, k=1)
+    eligible = n_shared[a_idx, b_idx] >= need
+    a_idx, b_idx = a_idx[eligible], b_idx[eligible]
+    n_eligible = int(a_idx.size)
+    if n_eligible == 0:
+        warnings.append(f"No pair of raters shares {need} or more cases; pairwise conflict "
+                        "needs overlapping cases.")
+    if n_eligible > max_pairs:
+        screen = r_screen[a_idx, b_idx]
+        order = np.lexsort((b_idx, a_idx, np.where(np.isnan(screen), np.inf, screen)))
+        keep = np.sort(order[:max_pairs])
+        a_idx, b_idx = a_idx[keep], b_idx[keep]
+        warnings.append(f"{n_eligible} rater pairs share enough cases; only the "
+                        f"{max_pairs} most conflicting are kept.")
+    parts = [_pair_lens(X, Y, a_idx[s], b_idx[s])
+             for s in _chunks(a_idx.size, max(1, _CELLS_PER_CHUNK // max(1, X.shape[0])))]
+    fields = {k: np.concatenate([part[k] for part in parts]) if parts else np.zeros(0)
+              for k in ("n", "r", "g", "c", "r_s_a", "r_s_b", "mean_gap", "unmodelled",
+                        "rank_ok")}
+    bad = ~fields["rank_ok"].astype(bool)
+    if bad.any():
+        names = [f"{rows.raters[a]}-{rows.raters[b]}" for a, b in zip(a_idx[bad], b_idx[bad])]
+        warnings.append(
+            f"{int(bad.sum())} pair(s) have constant judgments or cues on their shared cases, "
+            f"so their policies cannot be separated ({', '.join(names[:5])}"
+            f"{' ...' if len(names) > 5 else ''}); their figures are empty."
+        )
+    with np.errstate(invalid="ignore"):
+        loss_incons = 1.0 - fields["r_s_a"] * fields["r_s_b"]
+        loss_weight = fields["r_s_a"] * fields["r_s_b"] * (1.0 - fields["g"])
+    order = np.lexsort((b_idx, a_idx, np.where(np.isnan(fields["r"]), np.inf, fields["r"])))
+    pairs = []
+    for k in order:
+        li, lw = float(loss_incons[k]), float(loss_weight[k])
+        source = None
+        if np.isfinite(li) and np.isfinite(lw):
+            source = "weighting" if lw > li else "inconsistency"
+        pairs.append(PairConflict(
+            rater_a=rows.raters[a_idx[k]], rater_b=rows.raters[b_idx[k]],
+            n=int(fields["n"][k]), r=float(fields["r"][k]), g=float(fields["g"][k]),
+            c=float(fields["c"][k]), r_s_a=float(fields["r_s_a"][k]),
+            r_s_b=float(fields["r_s_b"][k]), mean_gap=float(fields["mean_gap"][k]),
+            loss_inconsistency=li, loss_weighting=lw,
+            unmodelled=float(fields["unmodelled"][k]), main_source=source,
+        ))
+    return ConflictResult(
+        pairs=tuple(pairs), n_pairs_eligible=n_eligible, n_pairs_kept=len(pairs),
+        min_shared=int(min_shared), max_pairs=int(max_pairs), warnings=tuple(warnings),
+    )
+
+
+def _chunks(total: int, size: int):
+    for start in range(0, total, size):
+        yield slice(start, min(total, start + size))
+
+
+def _pair_lens(X: np.ndarray, Y: np.ndarray, a: np.ndarray, b: np.ndarray) -> dict:
+    """Exact lens-model components for pairs (a[k], b[k]) on their shared cases."""
+    p = X.shape[1]
+    shared = np.isfinite(Y[a]) & np.isfinite(Y[b])
+    pair, case = np.nonzero(shared)
+    Z = np.column_stack([X[case], Y[a[pair], case], Y[b[pair], case]])
+    st = grouped_sscp(Z, pair, a.size)
+    cues = np.arange(p)
+    fit_a = ols_from_sscp(st, cues, p)
+    fit_b = ols_from_sscp(st, cues, p + 1)
+    Sxx = st.sscp[:, :p, :p]
+    Sxy_a, Sxy_b = st.sscp[:, :p, p], st.sscp[:, :p, p + 1]
+    S_aa, S_bb, S_ab = st.sscp[:, p, p], st.sscp[:, p + 1, p + 1], st.sscp[:, p, p + 1]
+    ba, bb = fit_a.coef, fit_b.coef
+    # Sums of squares and cross-products of fitted values and residuals, expanded
+    # from the SSCP so that no row is revisited.
+    fit_aa = np.einsum("gi,gij,gj->g", ba, Sxx, ba)
+    fit_bb = np.einsum("gi,gij,gj->g", bb, Sxx, bb)
+    fit_ab = np.einsum("gi,gij,gj->g", ba, Sxx, bb)
+    res_aa = S_aa - 2.0 * np.einsum("gi,gi->g", ba, Sxy_a) + fit_aa
+    res_bb = S_bb - 2.0 * np.einsum("gi,gi->g", bb, Sxy_b) + fit_bb
+    res_ab = (S_ab - np.einsum("gi,gi->g", ba, Sxy_b) - np.einsum("gi,gi->g", bb, Sxy_a)
+              + fit_ab)
+    rank_ok = fit_a.rank_ok & fit_b.rank_ok & (S_aa > 0) & (S_bb > 0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        scale = np.sqrt(S_aa * S_bb)
+        out = {
+            "n": st.n,
+            "r": S_ab / scale,
+            "g": fit_ab / np.sqrt(fit_aa * fit_bb),
+            "c": res_ab / np.sqrt(res_aa * res_bb),
+            "r_s_a": np.sqrt(fit_aa / S_aa),
+            "r_s_b": np.sqrt(fit_bb / S_bb),
+            "mean_gap": st.mean[:, p] - st.mean[:, p + 1],
+            "unmodelled": res_ab / scale,
+        }
+    for key in ("r", "g", "c", "r_s_a", "r_s_b", "unmodelled"):
+        out[key] = np.where(rank_ok, out[key], np.nan)
+    out["rank_ok"] = rank_ok
+    return out
+
+# ---------------------------------------------------------------------------
+# Policy homogeneity
+# ---------------------------------------------------------------------------
+
+HOMOGENEITY_METHOD = (
+    "Wald test of equal slopes with a separate error variance per rater, "
+    "parametric bootstrap p-value"
+)
+
+#: Number of parametric-bootstrap draws behind the homogeneity p-values.
+DEFAULT_HOMOGENEITY_RESAMPLES = 1999
+
+
+@dataclass(frozen=True)
+class SlopeEqualityTest(ResultMixin):
+    """One test that the raters share the same weights (on all cues or on one cue).
+
+    statistic : Wald statistic T with a separate error variance per rater.
+    df : number of restrictions, (raters - 1) x columns tested.
+    p_value : parametric-bootstrap p-value of T (valid with unequal variances).
+    p_value_chi2 : the large-sample chi-square(df) p-value of T, for reference
+        (too small when raters have few cases).
+    classical_statistic, classical_df_num, classical_df_den, classical_p_value :
+        the nested-model F test that pools one error variance for all raters.
+    """
+
+    cue: str | None
+    statistic: float
+    df: float
+    p_value: float
+    p_value_chi2: float
+    classical_statistic: float
+    classical_df_num: float
+    classical_df_den: float
+    classical_p_value: float
+
+
+@dataclass(frozen=True)
+class HomogeneityResult(ResultMixin):
+    """Do the raters weigh the cues differently? Overall and per cue, for one phase.
+
+    ``statistic``/``p_value`` are the robust test on all cues together;
+    ``per_cue`` holds the same test on each cue's weight(s) alone.
+    """
+
+    method: str
+    statistic: float
+    df: float
+    p_value: float
+    classical_statistic: float
+    classical_p_value: float
+    n_raters: int
+    n: int
+    n_resamples: int
+    overall: SlopeEqualityTest
+    per_cue: tuple[SlopeEqualityTest, ...]
+    raters_left_out: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        out = {k: jsonable(getattr(self, k)) for k in (
+            "method", "statistic", "df", "p_value", "classical_statistic",
+            "classical_p_value", "n_raters", "n", "n_resamples")}
+        out["overall"] = self.overall.to_dict()
+        out["per_cue"] = {t.cue: t.to_dict() for t in self.per_cue}
+        out["raters_left_out"] = list(self.raters_left_out)
+        out["warnings"] = list(self.warnings)
+        return out
+
+    def to_frame(self) -> pd.DataFrame:
+        tests = [self.overall, *self.per_cue]
+        frame = pd.DataFrame([t.to_dict() for t in tests])
+        frame.insert(0, "scope", ["all cues"] + ["cue"] * len(self.per_cue))
+        return frame
+
+
+def heterogeneity_wald(estimates: np.ndarray, precisions: np.ndarray) -> np.ndarray:
+    """Wald statistic that K groups share one parameter vector, batched.
+
+    With estimates :math:`b_r` and precision matrices :math:`W_r = V_r^{-1}`,
+    :math:`\\bar b = (\\sum_r W_r)^{-1} \\sum_r W_r b_r` and
+
+    .. math::
+
+        T = \\sum_r (b_r - \\bar b)^\\top W_r (b_r - \\bar b),
+
+    which equals the Wald statistic of the K - 1 contrasts
+    :math:`b_r - b_K` with block-diagonal covariance (exact identity).
+
+    Parameters
+    ----------
+    estimates : (..., K, q) array.
+    precisions : (..., K, q, q) array.
+
+    Returns
+    -------
+    (...,) array of T.
+    """
+    weighted = np.einsum("...rij,...rj->...i", precisions, estimates)
+    b_bar = np.linalg.solve(precisions.sum(axis=-3), weighted[..., None])[..., 0]
+    d = estimates - b_bar[..., None, :]
+    return np.einsum("...ri,...rij,...rj->...", d, precisions, d)
+
+
+def _partial_sscp(sscp: np.ndarray, keep: np.ndarray, given: np.ndarray) -> np.ndarray:
+    """Per-group SSCP of columns ``keep`` after regressing out columns ``given``."""
+    S_kk = sscp[:, keep[:, None], keep[None, :]]
+    if given.size == 0:
+        return S_kk
+    S_gg = sscp[:, given[:, None], given[None, :]]
+    S_gk = sscp[:, given[:, None], keep[None, :]]
+    return S_kk - np.einsum("gij,gik->gjk", S_gk, np.linalg.solve(S_gg, S_gk))
+
+
+def _classical_f(sscp: np.ndarray, tested: np.ndarray, p: int, n_total: float,
+                 rss_full: float):
+    """Nested F: separate slopes on every cue vs common slopes on the ``tested`` columns.
+
+    Both models keep a separate intercept per rater and separate slopes on the
+    other columns; by Frisch-Waugh the reduced model's residual sum of squares
+    comes from the pooled partial SSCP of (tested columns, judgment).
+    """
+    K = sscp.shape[0]
+    others = np.setdiff1d(np.arange(p), tested)
+    part = _partial_sscp(sscp, np.append(tested, p), others).sum(axis=0)
+    q = tested.size
+    Sxx, Sxy, Syy = part[:q, :q], part[:q, q], part[q, q]
+    rss_reduced = Syy - Sxy @ np.linalg.solve(Sxx, Sxy)
+    df_num = float((K - 1) * q)
+    df_den = float(n_total - K * (p + 1))
+    F = ((rss_reduced - rss_full) / df_num) / (rss_full / df_den)
+    return float(F), df_num, df_den, float(sps.f.sf(F, df_num, df_den))
+
+
+def _empty_homogeneity(cues, K, n, n_resamples, left_out, warnings) -> HomogeneityResult:
+    def empty(cue):
+        return SlopeEqualityTest(cue, *([np.nan] * 8))
+
+    return HomogeneityResult(
+        method=HOMOGENEITY_METHOD, statistic=np.nan, df=np.nan, p_value=np.nan,
+        classical_statistic=np.nan, classical_p_value=np.nan, n_raters=K, n=n,
+        n_resamples=n_resamples, overall=empty(None), per_cue=tuple(empty(c) for c in cues),
+        raters_left_out=left_out, warnings=tuple(warnings))
+
+
+def policy_homogeneity(
+    design: CueDesign,
+    first: pd.DataFrame,
+    *,
+    n_resamples: int = DEFAULT_HOMOGENEITY_RESAMPLES,
+    rng: np.random.Generator | int | None = None,
+) -> HomogeneityResult:
+    """Test whether the raters' policies share the same cue weights.
+
+    Full model: a separate intercept and separate slopes per rater (each
+    rater's own policy, :math:`b_r` with covariance
+    :math:`V_r = s_r^2 (X_r^\\top X_r)^{-1}`, :math:`s_r^2` on
+    :math:`f_r = n_r - p - 1` degrees of freedom). Reduced model: a separate
+    intercept per rater and common slopes.
+
+    The robust test uses the Wald statistic of equal slopes with each rater's
+    own error variance (:func:`heterogeneity_wald`). Its chi-square reference
+    is too liberal with few cases per rater, so the p-value comes from a
+    parametric bootstrap under the null (Krishnamoorthy, Lu & Mathew 2007,
+    Computational Statistics & Data Analysis 51:5731-5742, for the one-way
+    case; citation from memory): draw :math:`b_r^* \\sim N(0, s_r^2 (X_r^\\top X_r)^{-1})` and
+    :math:`s_r^{*2} = s_r^2 \\chi^2_{f_r} / f_r`, recompute T, and count
+    :math:`p = (1 + \\#\\{T^* \\ge T\\}) / (B + 1)`. T does not depend on the
+    common slope, so the draws need no refit. The classical nested-model F,
+    which pools one error variance, is reported beside it.
+
+    Per cue, the same tests run on that cue's weight(s) (all dummies of a
+    categorical cue together), with separate slopes kept on the other cues.
+    Raters whose policy cannot be fitted (fewer than p + 3 cases with complete
+    cues, constant judgments, collinear cues on their cases) are left out and
+    named in ``raters_left_out``.
+
+    Parameters
+    ----------
+    design : the phase's cue design.
+    first : long table with columns ``rater``, ``case``, ``judgment``.
+    n_resamples : parametric-bootstrap draws (B).
+    rng : seed or generator; same input and seed give the same p-values.
+
+    Returns
+    -------
+    HomogeneityResult
+        NaN statistics plus a warning when fewer than two raters can be fitted.
+    """
+    if n_resamples < 1:
+        raise DataError("n_resamples must be a positive integer.")
+    rng = np.random.default_rng(rng)
+    rows = line_up(design, first)
+    X = design.matrix
+    p = X.shape[1]
+    st = grouped_sscp(np.column_stack([rows.X, rows.y]), rows.group, rows.n_raters)
+    fit = ols_from_sscp(st, np.arange(p), p)
+    with np.errstate(invalid="ignore"):
+        usable = fit.rank_ok & (fit.df_resid >= 2) & (fit.rss > 0)
+    left_out = tuple(r for r, ok in zip(rows.raters, usable) if not ok)
+    warnings = []
+    if rows.n_dropped:
+        warnings.append(f"{rows.n_dropped} judgment(s) left out of the homogeneity test "
+                        "because the judgment or a cue of the case is missing.")
+    if left_out:
+        warnings.append(
+            f"{len(left_out)} rater(s) left out of the homogeneity test because their policy "
+            f"cannot be fitted (too few cases, constant judgments or collinear cues): "
+            f"{', '.join(left_out[:10])}{' ...' if len(left_out) > 10 else ''}."
+        )
+    cue_names = [c for c, g in zip(design.cues, design.cue_groups()) if g]
+    groups = [np.asarray(g, dtype=np.intp) for g in design.cue_groups() if g]
+    K = int(usable.sum())
+    n_total = float(st.n[usable].sum())
+    if K < 2 or p == 0:
+        warnings.append("Policy homogeneity needs at least two raters with a fitted policy.")
+        return _empty_homogeneity(cue_names, K, int(n_total), n_resamples, left_out, warnings)
+
+    b = fit.coef[usable]
+    s2 = fit.sigma2[usable]
+    f = fit.df_resid[usable]
+    M = fit.xtx_inv[usable]                     # (K, p, p): (X_r'X_r)^-1, centred
+    rss_full = float(fit.rss[usable].sum())
+    # Null draws shared by every test, so overall and per-cue p-values agree in
+    # their randomness: b* ~ N(0, s2 M), s2* = s2 chi2_f / f.
+    chol = np.linalg.cholesky(M)
+    z = rng.standard_normal((n_resamples, K, p))
+    b_star = np.sqrt(s2)[None, :, None] * np.einsum("rij,brj->bri", chol, z)
+    s2_star = s2[None, :] * rng.chisquare(f[None, :].repeat(n_resamples, 0)) / f[None, :]
+
+    def one_test(cue: str | None, cols: np.ndarray) -> SlopeEqualityTest:
+        M_inv = np.linalg.inv(M[:, cols[:, None], cols[None, :]])
+        T = float(heterogeneity_wald(b[:, cols], M_inv / s2[:, None, None]))
+        T_star = heterogeneity_wald(b_star[:, :, cols],
+                                    M_inv[None] / s2_star[:, :, None, None])
+        df = float((K - 1) * cols.size)
+        p_boot = (1.0 + np.count_nonzero(T_star >= T)) / (n_resamples + 1.0)
+        cF, cd1, cd2, cp = _classical_f(st.sscp[usable], cols, p, n_total, rss_full)
+        return SlopeEqualityTest(cue, T, df, float(p_boot), float(sps.chi2.sf(T, df)),
+                                 cF, cd1, cd2, cp)
+
+    overall = one_test(None, np.arange(p))
+    per_cue = tuple(one_test(c, g) for c, g in zip(cue_names, groups))
+    return HomogeneityResult(
+        method=HOMOGENEITY_METHOD, statistic=overall.statistic, df=overall.df,
+        p_value=overall.p_value, classical_statistic=overall.classical_statistic,
+        classical_p_value=overall.classical_p_value, n_raters=K, n=int(n_total),
+        n_resamples=int(n_resamples), overall=overall, per_cue=per_cue,
+        raters_left_out=left_out, warnings=tuple(warnings))

@@ -1,0 +1,189 @@
+"""Checks on a captured policy: is the fit trustworthy, and which cases does it miss?
+
+All functions are batched: they take the rows of many raters at once (a group
+index per row) or stacks of per-rater matrices, and loop over nothing but
+columns or cues.
+
+Rules of thumb used for flags (kept here so the README can quote them):
+
+* :data:`FEW_CASES_PER_WEIGHT` = 10 cases per estimated weight. A rule of thumb
+  of the policy-capturing literature (common practice; no single source).
+* :data:`COLLINEAR_VIF` = 10: a (generalized) VIF, put on the VIF scale as
+  ``GVIF^(1/df)``, above 10 (common practice; no single source).
+* :data:`COLLINEAR_CONDITION` = 30: condition number of the cue correlation
+  matrix (Belsley, Kuh & Welsch 1980 use 30 on the scaled design; from memory).
+
+References
+----------
+.. [1] Fox, J., & Monette, G. (1992). Generalized collinearity diagnostics.
+       Journal of the American Statistical Association, 87, 178-183.
+.. [2] Ramsey, J. B. (1969). Tests for specification errors in classical linear
+       least-squares regression analysis. JRSS B, 31, 350-371.
+.. [3] Holm, S. (1979). A simple sequentially rejective multiple test procedure.
+       Scandinavian Journal of Statistics, 6, 65-70.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats as sps
+
+from .linalg import BatchedOLS, GroupedSSCP, grouped_sscp, ols_from_sscp
+
+FEW_CASES_PER_WEIGHT = 10.0
+COLLINEAR_VIF = 10.0
+COLLINEAR_CONDITION = 30.0
+
+
+def variance_inflation(
+    corr_xx: np.ndarray, cue_groups: list[list[int]]
+) -> tuple[np.ndarray, np.ndarray]:
+    """VIF per design column and generalized VIF per cue, for stacked correlation matrices.
+
+    .. math:: \\mathrm{VIF}_j = (R^{-1})_{jj}, \\qquad
+              \\mathrm{GVIF}_c = \\frac{\\det R_{cc}\\, \\det R_{-c,-c}}{\\det R}
+
+    (Fox & Monette 1992), where ``c`` is the set of a cue's columns. GVIF does
+    not depend on how a categorical cue is coded (which level is the
+    reference); for a one-column cue it equals the VIF.
+
+    Parameters
+    ----------
+    corr_xx : (G, p, p) correlation matrices of the design columns.
+    cue_groups : column indices per cue.
+
+    Returns
+    -------
+    vif : (G, p); gvif : (G, k). NaN where the matrix is singular.
+    """
+    G, p, _ = corr_xx.shape
+    sign, logdet = np.linalg.slogdet(corr_xx)
+    singular = sign <= 0
+    safe = np.where(singular[:, None, None], np.eye(p), corr_xx)
+    vif = np.einsum("gii->gi", np.linalg.inv(safe))
+    vif[singular] = np.nan
+    gvif = np.full((G, len(cue_groups)), np.nan)
+    for c, cols in enumerate(cue_groups):
+        if not cols:
+            continue
+        rest = [j for j in range(p) if j not in cols]
+        ld_cue = np.linalg.slogdet(corr_xx[:, cols][:, :, cols])[1]
+        ld_rest = np.linalg.slogdet(corr_xx[:, rest][:, :, rest])[1] if rest else 0.0
+        with np.errstate(over="ignore"):
+            gvif[:, c] = np.exp(ld_cue + ld_rest - logdet)
+    gvif[singular] = np.nan
+    return vif, gvif
+
+
+def condition_number(corr_xx: np.ndarray) -> np.ndarray:
+    """sqrt(largest / smallest eigenvalue) of each cue correlation matrix, (G,).
+
+    Equals the 2-norm condition number of the centred, unit-length-scaled
+    design. inf where the matrix is singular.
+    """
+    evals = np.linalg.eigvalsh(corr_xx)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(evals[:, 0] > 0, np.sqrt(evals[:, -1] / evals[:, 0]), np.inf)
+
+
+@dataclass(frozen=True)
+class CaseInfluence:
+    """Per-row leave-one-out quantities of a batched OLS fit (one entry per judgment)."""
+
+    fitted: np.ndarray        # in-sample prediction of the rater's policy
+    residual: np.ndarray      # judgment - fitted
+    leverage: np.ndarray      # hat value h_ii
+    loo_prediction: np.ndarray  # prediction from the policy fitted without this case
+    studentized: np.ndarray   # externally studentized residual
+
+
+def case_influence(
+    X: np.ndarray, y: np.ndarray, groups: np.ndarray, stats: GroupedSSCP, fit: BatchedOLS
+) -> CaseInfluence:
+    """Leverage, leave-one-out predictions and studentized residuals, all rows at once.
+
+    With :math:`\\tilde x_i` the row centred at its rater's cue means,
+
+    .. math:: h_i = 1/n + \\tilde x_i^\\top S_{xx}^{-1} \\tilde x_i, \\quad
+              \\hat y_{(i)} = y_i - e_i / (1 - h_i), \\quad
+              t_i = e_i / (s_{(i)} \\sqrt{1 - h_i}),\\;
+              s_{(i)}^2 = \\frac{RSS - e_i^2/(1-h_i)}{n - p - 2}
+
+    (the exact leave-one-out identities of least squares, e.g. Belsley, Kuh &
+    Welsch 1980, ch. 2; from memory). ``X`` holds the design columns the fit
+    used, in the same order, and ``stats`` their grouped SSCP.
+    """
+    p = X.shape[1]
+    centred = X - stats.mean[groups, :p]
+    n = stats.n[groups]
+    leverage = 1.0 / n + np.einsum("mi,mij,mj->m", centred, fit.xtx_inv[groups], centred)
+    fitted = fit.intercept[groups] + np.einsum("mi,mi->m", X, fit.coef[groups])
+    residual = y - fitted
+    with np.errstate(divide="ignore", invalid="ignore"):
+        deleted = residual / (1.0 - leverage)
+        s2_without = (fit.rss[groups] - residual * deleted) / (n - p - 2.0)
+        studentized = residual / np.sqrt(s2_without * (1.0 - leverage))
+    return CaseInfluence(
+        fitted=fitted,
+        residual=residual,
+        leverage=leverage,
+        loo_prediction=y - deleted,
+        studentized=studentized,
+    )
+
+
+def top_rows_per_group(groups: np.ndarray, score: np.ndarray, k: int) -> np.ndarray:
+    """Indices of the ``k`` rows with the largest ``score`` within each group.
+
+    Returned grouped and, within a group, by decreasing score (ties by row
+    order; NaN scores never chosen).
+    """
+    valid = np.flatnonzero(np.isfinite(score))
+    order = valid[np.lexsort((-score[valid], groups[valid]))]
+    g = groups[order]
+    starts = np.r_[0, np.flatnonzero(np.diff(g)) + 1]
+    rank = np.arange(order.size) - np.repeat(starts, np.diff(np.r_[starts, order.size]))
+    return order[rank < k]
+
+
+@dataclass(frozen=True)
+class ResetTest:
+    """Ramsey's RESET per group: F statistic, degrees of freedom, p-value."""
+
+    statistic: np.ndarray
+    df_num: int
+    df_den: np.ndarray
+    p_value: np.ndarray
+
+
+def reset_test(
+    X: np.ndarray,
+    y: np.ndarray,
+    fitted: np.ndarray,
+    groups: np.ndarray,
+    n_groups: int,
+    restricted: BatchedOLS,
+) -> ResetTest:
+    """Curvature check (Ramsey 1969): add the squared and cubed fitted values.
+
+    The powers are taken of the fitted values standardized within each rater;
+    this spans the same model as the raw powers (so the F test is identical) but
+    keeps the added columns well conditioned.
+
+    .. math:: F = \\frac{(RSS_0 - RSS_1) / 2}{RSS_1 / (n - p - 3)}
+    """
+    fit_stats = grouped_sscp(fitted[:, None], groups, n_groups)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        sd = np.sqrt(fit_stats.sscp[:, 0, 0] / fit_stats.n)
+        z = (fitted - fit_stats.mean[groups, 0]) / sd[groups]
+    p = X.shape[1]
+    Z = np.column_stack([X, z**2, z**3, y])
+    full = ols_from_sscp(grouped_sscp(Z, groups, n_groups), np.arange(p + 2), p + 2)
+    df_den = restricted.n - p - 3.0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        statistic = ((restricted.rss - full.rss) / 2.0) / (full.rss / df_den)
+        statistic = np.where(full.rank_ok & (df_den > 0), np.maximum(statistic, 0.0), np.nan)
+    p_value = sps.f.sf(statistic, 2, df_den)
+    return ResetTest(statistic=statistic, df_num=2, df_den=df_den, p_value=p_value)

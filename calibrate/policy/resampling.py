@@ -1,0 +1,355 @@
+"""The case bootstrap behind the policy intervals: resampled fits and BCa intervals.
+
+A bootstrap resample is a vector of counts over a rater's cases. Raters who saw
+the same cases share the count vectors, so they share the resampled cue
+cross-products and only their judgments differ; each resample's R^2 and cue
+importance follow from its correlation matrices (:mod:`calibrate.policy.importance`),
+never from a refit on rows. Leave-one-out (jackknife) fits ride along as count
+vectors of ones with a single zero, for the acceleration of the BCa interval.
+
+When raters each read their own cases there are as many blocks as raters, and
+the work is millions of tiny systems (raters x resamples). Blocks of the same
+size are stacked so one product gives several blocks' cross-products, and the
+2**k subset R^2 values of the dominance weights come from the elimination tree
+of :func:`calibrate.policy.importance.dominance_weights` (``solver="sweep"``) rather
+than one linear solve per subset and system.
+
+References
+----------
+.. [1] Efron, B. (1987). Better bootstrap confidence intervals. Journal of the
+       American Statistical Association, 82, 171-185 (BCa interval).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import special
+
+from .importance import cue_importance, importance_shares, r2_from_correlations
+
+#: Bound the float count of one bootstrap chunk (resamples x raters x subsets).
+_CHUNK_ELEMENTS = 16_000_000
+#: Bound the floats of one stacked product of counts with per-case terms.
+_STACK_FLOATS = 4_000_000
+
+
+def bca_interval(
+    estimate: np.ndarray, boot: np.ndarray, jack: np.ndarray, *, alpha: float = 0.05
+) -> tuple[np.ndarray, np.ndarray]:
+    """Bias-corrected and accelerated bootstrap interval, one per column.
+
+    .. math:: z_0 = \\Phi^{-1}\\big(\\#\\{\\theta^*_b < \\hat\\theta\\}/B\\big), \\quad
+              a = \\frac{\\sum_i d_i^3}{6 (\\sum_i d_i^2)^{3/2}},\\; d_i = \\bar\\theta_{(\\cdot)} - \\theta_{(i)}
+
+    .. math:: \\alpha_{1,2} = \\Phi\\Big(z_0 + \\frac{z_0 + z_{\\alpha/2,\\,1-\\alpha/2}}
+              {1 - a (z_0 + z_{\\alpha/2,\\,1-\\alpha/2})}\\Big)
+
+    (Efron 1987). Ties count half. NaN resamples (degenerate refits) are left
+    out; a column with fewer than 10 finite resamples gets NaN.
+
+    Parameters
+    ----------
+    estimate : (R,) full-sample values.
+    boot : (B, R) bootstrap values.
+    jack : (n, R) leave-one-out values.
+    """
+    boot = np.asarray(boot, dtype=float)
+    finite = np.isfinite(boot)
+    n_finite = finite.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        below = ((boot < estimate) & finite).sum(0) + 0.5 * ((boot == estimate) & finite).sum(0)
+        share = np.clip(below / n_finite, 0.5 / np.maximum(n_finite, 1), 1 - 0.5 / np.maximum(n_finite, 1))
+        z0 = special.ndtri(share)
+        dev = np.nanmean(jack, axis=0) - jack if np.isfinite(jack).any() else jack
+        num = np.nansum(dev**3, axis=0)
+        den = 6.0 * np.nansum(dev**2, axis=0) ** 1.5
+        accel = np.where(den > 0, num / den, 0.0)
+        ends = []
+        for z in (special.ndtri(alpha / 2), special.ndtri(1 - alpha / 2)):
+            level = special.ndtr(z0 + (z0 + z) / (1.0 - accel * (z0 + z)))
+            ends.append(_column_quantiles(boot, n_finite, level))
+    bad = (n_finite < 10) | ~np.isfinite(np.asarray(estimate, dtype=float))
+    return np.where(bad, np.nan, ends[0]), np.where(bad, np.nan, ends[1])
+
+
+def _column_quantiles(values: np.ndarray, n_finite: np.ndarray, level: np.ndarray) -> np.ndarray:
+    """Linear-interpolated quantile of each column at its own level (NaN sorted last)."""
+    ordered = np.sort(values, axis=0)
+    pos = np.clip(level, 0.0, 1.0) * np.maximum(n_finite - 1, 0)
+    pos = np.where(np.isfinite(pos), pos, 0.0)
+    lo = np.floor(pos).astype(np.intp)
+    hi = np.minimum(lo + 1, np.maximum(n_finite - 1, 0))
+    cols = np.arange(values.shape[1])
+    frac = pos - lo
+    return ordered[lo, cols] + frac * (ordered[hi, cols] - ordered[lo, cols])
+
+
+
+def weighted_correlations(
+    X: np.ndarray, Y: np.ndarray, counts: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Correlations of cues and judgments under each vector of case counts.
+
+    X (n, p) is shared by the R raters whose judgments are the columns of Y
+    (n, R); counts (N, n) weight the cases (bootstrap counts, or jackknife
+    vectors of ones with one zero). Returns corr_xx (N, p, p), corr_xy
+    (N, p, R) and ``bad`` (N, R): a resample that leaves a cue or the judgments
+    constant. A leading axis stacks U independent blocks of the same size:
+    X (U, n, p), Y (U, n, R) and counts (U, N, n) give (U, N, ...) results.
+
+    Cross-products are taken about the full-sample means, so the correction
+    for the resample mean stays small:
+
+    .. math:: S_{ab} = \\sum_i c_i \\tilde a_i \\tilde b_i - (\\textstyle\\sum_i c_i)\\,
+              \\bar a_c \\bar b_c
+
+    with :math:`\\tilde a` centred at the full-sample mean and :math:`\\bar a_c`
+    its count-weighted mean. Every sum over cases comes from one matrix
+    product of the counts with a table of per-case terms.
+    """
+    n, p = X.shape[-2:]
+    R = Y.shape[-1]
+    N = counts.shape[-2]
+    lead = counts.shape[:-2]
+    Xc = X - X.mean(axis=-2, keepdims=True)
+    Yc = Y - Y.mean(axis=-2, keepdims=True)
+    terms = np.concatenate([
+        Xc, Yc, Yc**2,
+        (Xc[..., :, None] * Xc[..., None, :]).reshape(*lead, n, p * p),
+        (Xc[..., :, None] * Yc[..., None, :]).reshape(*lead, n, p * R),
+    ], axis=-1)
+    # Stacked blocks are small products: numpy's own loop beats many tiny threaded
+    # BLAS calls (measured on 2 cores); one block is one BLAS product.
+    sums = np.einsum("uij,ujk->uik", counts, terms) if lead else counts @ terms
+    total = counts.sum(axis=-1)[..., None]
+    x_mean = sums[..., :p] / total
+    y_mean = sums[..., p:p + R] / total
+    at = p + 2 * R
+    Sxx = sums[..., at:at + p * p].reshape(*lead, N, p, p)
+    Sxx -= total[..., None] * x_mean[..., :, None] * x_mean[..., None, :]
+    Sxy = sums[..., at + p * p:].reshape(*lead, N, p, R)
+    Sxy -= total[..., None] * x_mean[..., :, None] * y_mean[..., None, :]
+    Syy = sums[..., p + R:at] - total * y_mean**2
+    dx = np.sqrt(np.clip(np.diagonal(Sxx, axis1=-2, axis2=-1), 0.0, None))
+    x_bad = np.any(dx**2 <= 1e-10 * (Xc**2).sum(axis=-2)[..., None, :], axis=-1)
+    y_bad = Syy <= 1e-10 * (Yc**2).sum(axis=-2)[..., None, :]
+    dx = np.where(dx > 0, dx, 1.0)
+    dy = np.sqrt(np.where(y_bad, 1.0, Syy))
+    corr_xx = Sxx / (dx[..., :, None] * dx[..., None, :])
+    corr_xx[x_bad] = np.eye(p)
+    corr_xy = Sxy / (dx[..., :, None] * dy[..., None, :])
+    return corr_xx, corr_xy, y_bad | x_bad[..., None]
+
+
+@dataclass(frozen=True)
+class PolicyIntervals:
+    """BCa intervals of one batch of raters (NaN for raters not resampled).
+
+    r_low, r_high: (G,) interval for R_s; share_low, share_high: (G, k) intervals
+    for the importance shares of the k cues.
+    """
+
+    r_low: np.ndarray
+    r_high: np.ndarray
+    share_low: np.ndarray
+    share_high: np.ndarray
+
+
+@dataclass
+class _ResampleUnit:
+    """Raters who saw the same cases: one block, or a slice of a large one."""
+
+    block: int             # index of the block, whose count vectors the unit uses
+    raters: np.ndarray     # indices of the raters in the batch being resampled
+    X: np.ndarray          # (n, p) the block's design rows
+    Y: np.ndarray          # (n, R) the raters' judgments
+
+    @property
+    def n_cases(self) -> int:
+        return self.X.shape[0]
+
+
+class _BlockCounts:
+    """Bootstrap and jackknife count vectors of each block, drawn when first used.
+
+    Each block draws from its own child generator, so its counts do not depend
+    on when it is used; they are dropped after the block's last unit, so memory
+    holds a batch's blocks rather than every block of the panel.
+    """
+
+    def __init__(self, generators: list[np.random.Generator], units: list[_ResampleUnit],
+                 n_boot: int):
+        self._generators = generators
+        self._n_boot = n_boot
+        self._uses: dict[int, int] = {}
+        for unit in units:
+            self._uses[unit.block] = self._uses.get(unit.block, 0) + 1
+        self._held: dict[int, np.ndarray] = {}
+
+    def take(self, unit: _ResampleUnit) -> np.ndarray:
+        """(n_boot + n, n): bootstrap counts, then the n leave-one-out vectors."""
+        block = unit.block
+        if block not in self._held:
+            self._held[block] = _draw_counts(self._generators[block], unit.n_cases, self._n_boot)
+        counts = self._held[block]
+        self._uses[block] -= 1
+        if not self._uses[block]:
+            del self._held[block]
+        return counts
+
+
+def _draw_counts(generator: np.random.Generator, n: int, n_boot: int) -> np.ndarray:
+    draws = generator.integers(0, n, size=(n_boot, n)) + n * np.arange(n_boot)[:, None]
+    counts = np.empty((n_boot + n, n))
+    counts[:n_boot] = np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n)
+    counts[n_boot:] = 1.0 - np.eye(n)
+    return counts
+
+
+def case_bootstrap_intervals(
+    X: np.ndarray,
+    y: np.ndarray,
+    groups: np.ndarray,
+    fitted: np.ndarray,
+    case_row: np.ndarray,
+    cue_groups: list[list[int]],
+    *,
+    n_boot: int,
+    rng: np.random.Generator,
+    alpha: float,
+    method: str,
+    r2: np.ndarray,
+    importance_r2: np.ndarray,
+) -> PolicyIntervals:
+    """BCa intervals for R_s and the importance shares, resampling each rater's cases.
+
+    Parameters
+    ----------
+    X : (m, p) design rows the fits used, sorted by rater (``groups``).
+    y : (m,) judgments.
+    groups : (m,) rater index in ``range(G)`` per row, non-decreasing.
+    fitted : (G,) bool, raters with a policy (the others keep NaN).
+    case_row : (m,) case identity per row: raters with the same sequence of
+        case rows form one resampling block and share its count vectors.
+    cue_groups : design-column indices per cue (see :mod:`calibrate.policy.importance`).
+    n_boot : resamples per block.
+    rng : generator; one child generator is spawned per block, in block order.
+    alpha, method : interval level; importance method.
+    r2, importance_r2 : (G,), (G, k) full-sample values (the interval centres).
+    """
+    n_groups = fitted.size
+    intervals = PolicyIntervals(
+        r_low=np.full(n_groups, np.nan), r_high=np.full(n_groups, np.nan),
+        share_low=np.full((n_groups, len(cue_groups)), np.nan),
+        share_high=np.full((n_groups, len(cue_groups)), np.nan),
+    )
+    starts = np.r_[0, np.flatnonzero(np.diff(groups)) + 1]
+    ends = np.r_[starts[1:], groups.size]
+    blocks: dict[bytes, list[int]] = {}
+    for g, (s, e) in enumerate(zip(starts, ends)):
+        if fitted[g]:
+            blocks.setdefault(case_row[s:e].tobytes(), []).append(g)
+    block_list = list(blocks.values())
+    n_terms = 16 + X.shape[1]  # subsets held at once in dominance_weights, plus Sxy
+    units = []
+    for b, block in enumerate(block_list):
+        s0, e0 = starts[block[0]], ends[block[0]]
+        width = max(1, _CHUNK_ELEMENTS // ((n_boot + e0 - s0) * n_terms))
+        for first in range(0, len(block), width):
+            local = np.array(block[first:first + width])
+            Y = np.column_stack([y[starts[g]:ends[g]] for g in local])
+            units.append(_ResampleUnit(block=b, raters=local, X=X[s0:e0], Y=Y))
+    counts = _BlockCounts(rng.spawn(len(block_list)), units, n_boot)
+    _resampled_intervals(units, counts, cue_groups, intervals, n_boot=n_boot, alpha=alpha,
+                         method=method, r2=r2, imp=importance_r2)
+    return intervals
+
+
+def _resampled_intervals(units: list[_ResampleUnit], counts: _BlockCounts, cue_groups,
+                         out: PolicyIntervals, *, n_boot: int, alpha: float, method: str,
+                         r2: np.ndarray, imp: np.ndarray) -> None:
+    """BCa intervals for R_s and importance shares of every unit's raters.
+
+    Units with the same number of raters are stacked along the resample axis,
+    so many small blocks (raters who each saw their own cases) are solved in a
+    few large batched calls instead of one call per rater.
+    """
+    n_terms = 16 + len(cue_groups)
+    by_width: dict[int, list[_ResampleUnit]] = {}
+    for unit in units:
+        by_width.setdefault(unit.Y.shape[1], []).append(unit)
+    options = {"n_boot": n_boot, "alpha": alpha, "method": method, "r2": r2, "imp": imp}
+    for width, members in sorted(by_width.items()):
+        batch, size = [], 0
+        for unit in members:
+            batch.append(unit)
+            size += (n_boot + unit.n_cases) * width * n_terms
+            if size >= _CHUNK_ELEMENTS:
+                _intervals_for_batch(batch, counts, cue_groups, out, **options)
+                batch, size = [], 0
+        if batch:
+            _intervals_for_batch(batch, counts, cue_groups, out, **options)
+
+
+def _batch_correlations(batch, counts: _BlockCounts, n_boot: int):
+    """Resampled correlations of every unit of a batch, concatenated in unit order.
+
+    Units with the same number of cases are stacked, a few at a time, so one
+    matrix product serves several raters' blocks.
+    """
+    rows = np.cumsum([0] + [n_boot + u.n_cases for u in batch])
+    p, width = batch[0].X.shape[1], batch[0].Y.shape[1]
+    corr_xx = np.empty((rows[-1], p, p))
+    corr_xy = np.empty((rows[-1], p, width))
+    bad = np.empty((rows[-1], width), dtype=bool)
+    by_size: dict[int, list[int]] = {}
+    for position, unit in enumerate(batch):
+        by_size.setdefault(unit.n_cases, []).append(position)
+    for n, positions in by_size.items():
+        per_unit = (n_boot + n) * (n + p * p + p * width + 2 * width + p)
+        step = max(1, _STACK_FLOATS // per_unit)
+        for first in range(0, len(positions), step):
+            chosen = positions[first:first + step]
+            if len(chosen) == 1:
+                unit = batch[chosen[0]]
+                parts = [part[None] for part in weighted_correlations(unit.X, unit.Y,
+                                                                      counts.take(unit))]
+            else:
+                parts = weighted_correlations(
+                    np.stack([batch[i].X for i in chosen]), np.stack([batch[i].Y for i in chosen]),
+                    np.stack([counts.take(batch[i]) for i in chosen]))
+            for slot, i in enumerate(chosen):
+                span = slice(rows[i], rows[i + 1])
+                corr_xx[span], corr_xy[span], bad[span] = (part[slot] for part in parts)
+    return corr_xx, corr_xy, bad
+
+
+def _intervals_for_batch(batch, counts: _BlockCounts, cue_groups, out: PolicyIntervals, *,
+                         n_boot, alpha, method, r2, imp):
+    corr_xx, corr_xy, bad = _batch_correlations(batch, counts, n_boot)
+    all_r2 = r2_from_correlations(corr_xx, corr_xy)
+    # Millions of small systems here: the elimination tree beats one solve per subset.
+    all_imp, _ = cue_importance(corr_xx, corr_xy, cue_groups, method=method, solver="sweep")
+    all_r2 = np.where(bad, np.nan, np.clip(all_r2, 0.0, 1.0))
+    all_imp = np.where(bad[:, :, None], np.nan, all_imp)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        all_shares = importance_shares(all_imp, all_r2)
+    start = 0
+    for unit in batch:
+        stop = start + n_boot + unit.n_cases
+        boot = slice(start, start + n_boot)
+        jack = slice(start + n_boot, stop)
+        local = unit.raters
+        with np.errstate(invalid="ignore", divide="ignore"):
+            lo, hi = bca_interval(np.sqrt(r2[local]), np.sqrt(all_r2[boot]),
+                                  np.sqrt(all_r2[jack]), alpha=alpha)
+            share_hat = importance_shares(imp[local], r2[local]).ravel()
+        k = share_hat.size // local.size
+        s_lo, s_hi = bca_interval(share_hat, all_shares[boot].reshape(n_boot, -1),
+                                  all_shares[jack].reshape(unit.n_cases, -1), alpha=alpha)
+        out.r_low[local], out.r_high[local] = lo, hi
+        out.share_low[local] = s_lo.reshape(local.size, k)
+        out.share_high[local] = s_hi.reshape(local.size, k)
+        start = stop

@@ -1,0 +1,94 @@
+"""Safe writing: atomic files and folders, file-name sanitising, spreadsheet escaping.
+
+Nothing is ever half-written: a file goes to a temporary name in the same folder
+and is renamed into place; an output folder is built beside its final name and
+swapped in at the end.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+import re
+import tempfile
+import unicodedata
+from pathlib import Path
+from typing import Any
+
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def _current_umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
+PROCESS_UMASK = _current_umask()  # read once: os.umask can only be read by setting it
+
+
+def atomic_write_bytes(path: Path, data: bytes) -> None:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+        os.chmod(tmp, 0o666 & ~PROCESS_UMASK)  # mkstemp makes 0600; outputs are ordinary files
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def atomic_write_text(path: Path, text: str) -> None:
+    atomic_write_bytes(path, text.encode("utf-8"))
+
+
+def dump_json(obj: Any) -> str:
+    """Deterministic JSON: sorted keys would reorder meaningful lists, so keep insertion
+    order (fixed by the code) and forbid NaN (converted to null upstream)."""
+    return json.dumps(obj, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+def write_json(path: Path, obj: Any) -> None:
+    atomic_write_text(path, dump_json(obj))
+
+
+def sha256_of(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def safe_file_stem(raw: str, *, taken: set[str] | None = None) -> str:
+    """A file-name stem from a rater id: letters, digits, '-', '_' and '.' only.
+
+    Path separators, control characters and leading dots are removed; an empty
+    result becomes 'rater'; names are capped at 80 characters. With ``taken``,
+    a clash (two ids that sanitise alike) gets a numbered suffix and the new
+    name is added to ``taken``.
+    """
+    text = unicodedata.normalize("NFKD", str(raw)).encode("ascii", "ignore").decode("ascii")
+    text = re.sub(r"[^A-Za-z0-9._-]+", "_", text).strip("._-")[:80] or "rater"
+    if text.upper() in {"CON", "PRN", "AUX", "NUL"} or re.fullmatch(r"(?i)(COM|LPT)\d", text):
+        text = f"rater_{text}"
+    if taken is not None:
+        base, i = text, 2
+        while text.lower() in taken:
+            text = f"{base}_{i}"
+            i += 1
+        taken.add(text.lower())
+    return text
+
+
+def escape_formula(value: Any) -> Any:
+    """Make a text cell safe for spreadsheets: text starting with = + - @ (or a tab/CR)
+    gets a leading apostrophe so it is shown, not run. Numbers stay numbers."""
+    if isinstance(value, str) and value.startswith(_FORMULA_START):
+        return "'" + value
+    return value
