@@ -307,3 +307,21 @@ def test_rater_with_fewer_usable_cases_than_terms_plus_two_is_kept_out():
     assert messages(out, "warning") == [
         "rater 'r2' has 3 usable case(s) in phase 'null', fewer than the 4 a policy fit needs "
         "(cue terms + 2); kept out of policy fits"]
+
+
+# ----------------------------------------------------------------------------- README points here
+
+
+def test_every_test_readme_cites_for_an_input_rule_exists():
+    import re
+
+    here = Path(__file__).resolve()
+    readme = (here.parents[2] / "README.md").read_text(encoding="utf-8")
+    section = readme[readme.index("## Input"):readme.index("## The study spec")]
+    cited = set(re.findall(r"\b(test_[a-z0-9_]+)`", section))
+    defined = set()
+    for name in ("test_ingest_rules.py", "test_ingest.py"):
+        defined |= set(re.findall(r"^def (test_\w+)", (here.parent / name).read_text(encoding="utf-8"),
+                                  flags=re.M))
+    assert len(cited) >= 9
+    assert cited <= defined, cited - defined
