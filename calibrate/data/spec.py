@@ -170,28 +170,9 @@ def _number(value: Any, what: str, problems: list[str]) -> float | None:
     return float(value)
 
 
-def parse_spec(doc: dict, *, base_dir: Path, source: Path | None = None) -> StudySpec:
-    """Validate a parsed TOML document and build a :class:`StudySpec`.
-
-    Raises
-    ------
-    SpecError
-        listing every problem found, each with its fix.
-    """
-    problems: list[str] = []
-    _check_keys(doc, "", problems, VALID_KEYS[""])
-
-    study = doc.get("study")
-    if not isinstance(study, dict):
-        problems.append("the [study] table is missing; add [study] with name and data.")
-        study = {}
-    _check_keys(study, "study", problems, VALID_KEYS["study"])
-    name = str(study.get("name", "")).strip()
-    if not name:
-        problems.append("[study] name is missing; give the study a short name.")
-
+def _parse_data_sources(raw_data: Any, base_dir: Path, problems: list[str]) -> list[DataSource]:
+    """[study] data: one path, or a list of paths or {path, phase} tables."""
     data_sources: list[DataSource] = []
-    raw_data = study.get("data")
     if raw_data is None:
         problems.append("[study] data is missing; give the judgments table's path.")
     elif isinstance(raw_data, str):
@@ -217,15 +198,36 @@ def parse_spec(doc: dict, *, base_dir: Path, source: Path | None = None) -> Stud
     with_phase = [d for d in data_sources if d.phase is not None]
     if with_phase and len(with_phase) != len(data_sources):
         problems.append("[study] data: give a phase for every table or for none.")
+    return data_sources
 
+
+def _parse_study(doc: dict, base_dir: Path, problems: list[str]) -> dict[str, Any]:
+    """[study]: name, data, cases, seed, criterion_only_for_selected (StudySpec fields)."""
+    study = doc.get("study")
+    if not isinstance(study, dict):
+        problems.append("the [study] table is missing; add [study] with name and data.")
+        study = {}
+    _check_keys(study, "study", problems, VALID_KEYS["study"])
+    name = str(study.get("name", "")).strip()
+    if not name:
+        problems.append("[study] name is missing; give the study a short name.")
+    data_sources = _parse_data_sources(study.get("data"), base_dir, problems)
     cases_path = study.get("cases")
-    cases = base_dir / str(cases_path) if cases_path else None
     seed_raw = study.get("seed", DEFAULT_SEED)
     if isinstance(seed_raw, bool) or not isinstance(seed_raw, int) or seed_raw < 0:
         problems.append(f"[study] seed must be a non-negative whole number, got {seed_raw!r}.")
         seed_raw = DEFAULT_SEED
-    selected = bool(study.get("criterion_only_for_selected", False))
+    return {
+        "name": name,
+        "data": tuple(data_sources),
+        "cases": base_dir / str(cases_path) if cases_path else None,
+        "seed": int(seed_raw),
+        "criterion_only_for_selected": bool(study.get("criterion_only_for_selected", False)),
+    }
 
+
+def _parse_columns(doc: dict, problems: list[str]) -> dict[str, str]:
+    """[columns]: rater, case and judgment are required; one role per column."""
     columns_raw = doc.get("columns")
     if not isinstance(columns_raw, dict):
         problems.append("the [columns] table is missing; name the rater, case and judgment columns.")
@@ -248,7 +250,29 @@ def parse_spec(doc: dict, *, base_dir: Path, source: Path | None = None) -> Stud
         if col in seen_cols:
             problems.append(f"[columns] column '{col}' is given two roles: {seen_cols[col]} and {role}.")
         seen_cols[col] = role
+    return columns
 
+
+def _parse_labels(labels_raw: Any, jmin: float | None, jmax: float | None,
+                  problems: list[str]) -> dict[str, float]:
+    """[judgment] labels: word = number, each within min..max."""
+    labels: dict[str, float] = {}
+    if not isinstance(labels_raw, dict):
+        problems.append("[judgment] labels must be a table of word = number.")
+        return labels
+    for word, value in labels_raw.items():
+        v = _number(value, f"[judgment] labels.{word}", problems)
+        if v is not None:
+            labels[str(word)] = v
+            if jmin is not None and jmax is not None and not (jmin <= v <= jmax):
+                problems.append(f"[judgment] label '{word}' = {_plain_number(v)} lies outside "
+                                f"min..max ({_plain_number(jmin)}..{_plain_number(jmax)}).")
+    return labels
+
+
+def _parse_judgment(doc: dict, problems: list[str]) -> JudgmentScale:
+    """[judgment]: the scale kind, min and max (ordinal needs both, binary is 0..1), labels,
+    cut_off."""
     judgment_raw = doc.get("judgment", {})
     if not isinstance(judgment_raw, dict):
         problems.append("[judgment] must be a table.")
@@ -271,130 +295,150 @@ def parse_spec(doc: dict, *, base_dir: Path, source: Path | None = None) -> Stud
     if jmin is not None and jmax is not None and jmin >= jmax:
         problems.append(f"[judgment] min ({_plain_number(jmin)}) must be below max "
                         f"({_plain_number(jmax)}); swap them or fix the scale.")
-    labels_raw = judgment_raw.get("labels", {})
-    labels: dict[str, float] = {}
-    if not isinstance(labels_raw, dict):
-        problems.append("[judgment] labels must be a table of word = number.")
-    else:
-        for word, value in labels_raw.items():
-            v = _number(value, f"[judgment] labels.{word}", problems)
-            if v is not None:
-                labels[str(word)] = v
-                if jmin is not None and jmax is not None and not (jmin <= v <= jmax):
-                    problems.append(f"[judgment] label '{word}' = {_plain_number(v)} lies outside "
-                                    f"min..max ({_plain_number(jmin)}..{_plain_number(jmax)}).")
+    labels = _parse_labels(judgment_raw.get("labels", {}), jmin, jmax, problems)
     cut_off = _number(judgment_raw.get("cut_off"), "[judgment] cut_off", problems)
-    scale = JudgmentScale(kind=kind, min=jmin, max=jmax, labels=labels, cut_off=cut_off)
+    return JudgmentScale(kind=kind, min=jmin, max=jmax, labels=labels, cut_off=cut_off)
 
+
+def _parse_cue(cue: str, rule: Any, columns: dict[str, str], problems: list[str]) -> CueRule | None:
+    """One [cues] entry: "numeric", "categorical", or {type, missing}; None when invalid."""
+    if isinstance(rule, str):
+        ctype, missing = rule, "drop"
+    elif isinstance(rule, dict):
+        _check_keys(rule, f"cues.{cue}", problems, VALID_KEYS["cue"])
+        ctype, missing = rule.get("type", "numeric"), rule.get("missing", "drop")
+    else:
+        problems.append(f"[cues] {cue} must be \"numeric\", \"categorical\" or a table.")
+        return None
+    if ctype not in CUE_KINDS:
+        problems.append(f"[cues] {cue}: type must be numeric or categorical; got {ctype!r}. "
+                        f"{_suggest(str(ctype), CUE_KINDS)}")
+        return None
+    if missing not in MISSING_RULES:
+        problems.append(f"[cues] {cue}: missing must be drop or indicator; got {missing!r}.")
+        return None
+    if missing == "indicator" and ctype != "numeric":
+        problems.append(f"[cues] {cue}: the indicator rule is for numeric cues; a categorical cue "
+                        "can take 'missing' as one of its levels instead.")
+        return None
+    if cue in set(columns.values()):
+        # a column given two roles is reported by [columns]; name the last one here
+        role = [r for r, c in columns.items() if c == cue][-1]
+        problems.append(f"[cues] '{cue}' is also named in [columns] as "
+                        f"{role}; a column is either a cue or a role.")
+    return CueRule(name=str(cue), kind=ctype, missing=missing)
+
+
+def _parse_cues(doc: dict, columns: dict[str, str], problems: list[str]) -> tuple[CueRule, ...]:
+    """[cues]: at least one cue; none may also be a role column."""
     cues_raw = doc.get("cues")
-    cues: list[CueRule] = []
     if not isinstance(cues_raw, dict) or not cues_raw:
         problems.append("the [cues] table is missing or empty; list each cue as column = \"numeric\" "
                         "or \"categorical\".")
         cues_raw = {}
-    role_columns = set(columns.values())
-    for cue, rule in cues_raw.items():
-        if isinstance(rule, str):
-            ctype, missing = rule, "drop"
-        elif isinstance(rule, dict):
-            _check_keys(rule, f"cues.{cue}", problems, VALID_KEYS["cue"])
-            ctype, missing = rule.get("type", "numeric"), rule.get("missing", "drop")
-        else:
-            problems.append(f"[cues] {cue} must be \"numeric\", \"categorical\" or a table.")
-            continue
-        if ctype not in CUE_KINDS:
-            problems.append(f"[cues] {cue}: type must be numeric or categorical; got {ctype!r}. "
-                            f"{_suggest(str(ctype), CUE_KINDS)}")
-            continue
-        if missing not in MISSING_RULES:
-            problems.append(f"[cues] {cue}: missing must be drop or indicator; got {missing!r}.")
-            continue
-        if missing == "indicator" and ctype != "numeric":
-            problems.append(f"[cues] {cue}: the indicator rule is for numeric cues; a categorical cue "
-                            "can take 'missing' as one of its levels instead.")
-            continue
-        if cue in role_columns:
-            problems.append(f"[cues] '{cue}' is also named in [columns] as "
-                            f"{seen_cols.get(cue, 'a role')}; a column is either a cue or a role.")
-        cues.append(CueRule(name=str(cue), kind=ctype, missing=missing))
-    cue_names = [c.name for c in cues]
+    cues = (_parse_cue(cue, rule, columns, problems) for cue, rule in cues_raw.items())
+    return tuple(c for c in cues if c is not None)
 
+
+def _parse_rubric(doc: dict, cue_names: list[str],
+                  problems: list[str]) -> tuple[dict[str, float] | None, str]:
+    """[rubric]: basis plus cue = weight (zero or more, not all zero), scaled to sum to 1.
+    Returns (weights per cue or None, basis)."""
     rubric = None
     basis = "standardized"
     rubric_raw = doc.get("rubric")
-    if rubric_raw is not None:
-        if not isinstance(rubric_raw, dict):
-            problems.append("[rubric] must be a table of cue = weight.")
-        else:
-            basis = rubric_raw.get("basis", "standardized")
-            if basis not in RUBRIC_BASES:
-                problems.append(f"[rubric] basis must be standardized or raw; got {basis!r}.")
-            weights: dict[str, float] = {}
-            for cue, w in rubric_raw.items():
-                if cue == "basis":
-                    continue
-                if cue not in cue_names:
-                    problems.append(f"[rubric] names '{cue}', which is not a cue; "
-                                    f"{_suggest(cue, cue_names)}")
-                    continue
-                value = _number(w, f"[rubric] {cue}", problems)
-                if value is None:
-                    continue
-                if value < 0:
-                    problems.append(f"[rubric] {cue} has a negative weight ({value}); rubric weights "
-                                    "are shares of attention, zero or more. Reverse-score the cue instead.")
-                    continue
-                weights[cue] = value
-            total = sum(weights.values())
-            if weights and total <= 0:
-                problems.append("[rubric] the weights add up to zero; give at least one positive weight.")
-            elif weights:
-                rubric = {c: weights.get(c, 0.0) / total for c in cue_names}
+    if rubric_raw is None:
+        return rubric, basis
+    if not isinstance(rubric_raw, dict):
+        problems.append("[rubric] must be a table of cue = weight.")
+        return rubric, basis
+    basis = rubric_raw.get("basis", "standardized")
+    if basis not in RUBRIC_BASES:
+        problems.append(f"[rubric] basis must be standardized or raw; got {basis!r}.")
+    weights: dict[str, float] = {}
+    for cue, w in rubric_raw.items():
+        if cue == "basis":
+            continue
+        if cue not in cue_names:
+            problems.append(f"[rubric] names '{cue}', which is not a cue; "
+                            f"{_suggest(cue, cue_names)}")
+            continue
+        value = _number(w, f"[rubric] {cue}", problems)
+        if value is None:
+            continue
+        if value < 0:
+            problems.append(f"[rubric] {cue} has a negative weight ({value}); rubric weights "
+                            "are shares of attention, zero or more. Reverse-score the cue instead.")
+            continue
+        weights[cue] = value
+    total = sum(weights.values())
+    if weights and total <= 0:
+        problems.append("[rubric] the weights add up to zero; give at least one positive weight.")
+    elif weights:
+        rubric = {c: weights.get(c, 0.0) / total for c in cue_names}
+    return rubric, basis
 
-    excluded: tuple[str, ...] = ()
+
+def _parse_excluded(doc: dict, cue_names: list[str], role_columns: set[str],
+                    problems: list[str]) -> tuple[str, ...]:
+    """[excluded] columns: attributes that must not influence judgments; never a cue or a role."""
     excluded_raw = doc.get("excluded")
-    if excluded_raw is not None:
-        if not isinstance(excluded_raw, dict):
-            problems.append("[excluded] must be a table with columns = [...].")
-        else:
-            _check_keys(excluded_raw, "excluded", problems, VALID_KEYS["excluded"])
-            cols = excluded_raw.get("columns", [])
-            if isinstance(cols, str):
-                cols = [cols]
-            if not isinstance(cols, list):
-                problems.append("[excluded] columns must be a list of column names.")
-                cols = []
-            for col in cols:
-                if col in cue_names:
-                    problems.append(f"[excluded] '{col}' is also a cue; an attribute that must not "
-                                    "influence judgments cannot be a cue. Remove it from [cues] or [excluded].")
-                if col in role_columns:
-                    problems.append(f"[excluded] '{col}' is also named in [columns].")
-            excluded = tuple(str(c) for c in cols)
-            if len(set(excluded)) != len(excluded):
-                problems.append("[excluded] lists a column twice.")
+    if excluded_raw is None:
+        return ()
+    if not isinstance(excluded_raw, dict):
+        problems.append("[excluded] must be a table with columns = [...].")
+        return ()
+    _check_keys(excluded_raw, "excluded", problems, VALID_KEYS["excluded"])
+    cols = excluded_raw.get("columns", [])
+    if isinstance(cols, str):
+        cols = [cols]
+    if not isinstance(cols, list):
+        problems.append("[excluded] columns must be a list of column names.")
+        cols = []
+    for col in cols:
+        if col in cue_names:
+            problems.append(f"[excluded] '{col}' is also a cue; an attribute that must not "
+                            "influence judgments cannot be a cue. Remove it from [cues] or [excluded].")
+        if col in role_columns:
+            problems.append(f"[excluded] '{col}' is also named in [columns].")
+    excluded = tuple(str(c) for c in cols)
+    if len(set(excluded)) != len(excluded):
+        problems.append("[excluded] lists a column twice.")
+    return excluded
 
+
+def _parse_phases(doc: dict, problems: list[str]) -> tuple[tuple[str, ...] | None, tuple[str, ...] | None]:
+    """[phases]: order (each phase once) and the trained raters. Returns (order, trained)."""
     phases_raw = doc.get("phases")
     phase_order: tuple[str, ...] | None = None
     trained: tuple[str, ...] | None = None
-    if phases_raw is not None:
-        if not isinstance(phases_raw, dict):
-            problems.append("[phases] must be a table with order = [...].")
+    if phases_raw is None:
+        return phase_order, trained
+    if not isinstance(phases_raw, dict):
+        problems.append("[phases] must be a table with order = [...].")
+        return phase_order, trained
+    _check_keys(phases_raw, "phases", problems, VALID_KEYS["phases"])
+    order = phases_raw.get("order")
+    if not isinstance(order, list) or not order:
+        problems.append("[phases] order must list the phases, e.g. order = [\"before\", \"after\"].")
+    else:
+        phase_order = tuple(str(p) for p in order)
+        if len(set(phase_order)) != len(phase_order):
+            problems.append("[phases] order lists a phase twice.")
+    if "trained" in phases_raw:
+        t = phases_raw["trained"]
+        if not isinstance(t, list):
+            problems.append("[phases] trained must be a list of rater ids.")
         else:
-            _check_keys(phases_raw, "phases", problems, VALID_KEYS["phases"])
-            order = phases_raw.get("order")
-            if not isinstance(order, list) or not order:
-                problems.append("[phases] order must list the phases, e.g. order = [\"before\", \"after\"].")
-            else:
-                phase_order = tuple(str(p) for p in order)
-                if len(set(phase_order)) != len(phase_order):
-                    problems.append("[phases] order lists a phase twice.")
-            if "trained" in phases_raw:
-                t = phases_raw["trained"]
-                if not isinstance(t, list):
-                    problems.append("[phases] trained must be a list of rater ids.")
-                else:
-                    trained = tuple(str(r) for r in t)
+            trained = tuple(str(r) for r in t)
+    return phase_order, trained
+
+
+def _check_phase_sources(columns: dict[str, str], data: tuple[DataSource, ...],
+                         phase_order: tuple[str, ...] | None, problems: list[str]) -> None:
+    """Phases come from a phase column or a phase per table (not both), and need [phases]
+    order exactly when they are given."""
+    with_phase = [d for d in data if d.phase is not None]
     has_phase_source = "phase" in columns or bool(with_phase)
     if has_phase_source and phase_order is None and not any("[phases]" in p for p in problems):
         problems.append("the data has phases (a phase column or a phase per table) but the spec has no "
@@ -409,24 +453,34 @@ def parse_spec(doc: dict, *, base_dir: Path, source: Path | None = None) -> Stud
         problems.append("[phases] is given but the data has no phase column and no phase per table; "
                         "add phase = \"<column>\" to [columns] or a phase to each [study] data entry.")
 
+
+def parse_spec(doc: dict, *, base_dir: Path, source: Path | None = None) -> StudySpec:
+    """Validate a parsed TOML document and build a :class:`StudySpec`.
+
+    Each section is checked by its own function, in the order of the file; every
+    problem is collected before anything is raised.
+
+    Raises
+    ------
+    SpecError
+        listing every problem found, each with its fix.
+    """
+    problems: list[str] = []
+    _check_keys(doc, "", problems, VALID_KEYS[""])
+    study = _parse_study(doc, base_dir, problems)
+    columns = _parse_columns(doc, problems)
+    scale = _parse_judgment(doc, problems)
+    cues = _parse_cues(doc, columns, problems)
+    cue_names = [c.name for c in cues]
+    rubric, basis = _parse_rubric(doc, cue_names, problems)
+    excluded = _parse_excluded(doc, cue_names, set(columns.values()), problems)
+    phase_order, trained = _parse_phases(doc, problems)
+    _check_phase_sources(columns, study["data"], phase_order, problems)
     if problems:
         raise SpecError(problems, path=str(source) if source else None)
-    return StudySpec(
-        name=name,
-        data=tuple(data_sources),
-        columns=columns,
-        judgment=scale,
-        cues=tuple(cues),
-        cases=cases,
-        seed=int(seed_raw),
-        rubric=rubric,
-        rubric_basis=basis,
-        excluded=excluded,
-        phase_order=phase_order,
-        trained=trained,
-        criterion_only_for_selected=selected,
-        source=source,
-    )
+    return StudySpec(**study, columns=columns, judgment=scale, cues=cues, rubric=rubric,
+                     rubric_basis=basis, excluded=excluded, phase_order=phase_order,
+                     trained=trained, source=source)
 
 
 def read_spec(path: str | Path) -> StudySpec:
@@ -487,6 +541,51 @@ def _guess_role(columns: list[str], role: str, taken: set[str]) -> str | None:
     return None
 
 
+def _guess_scale(values: "pd.Series", numeric: bool) -> tuple[str, Any, Any, dict]:  # noqa: F821
+    """The judgment scale a column looks like: (kind, min, max, labels).
+
+    Numbers: 0/1 is binary, up to 11 whole values ordinal, else continuous. Words: two
+    are binary (a yes-like word is 1), more are ordinal labels in alphabetical order.
+    """
+    import pandas as pd
+
+    if numeric:
+        nums = pd.to_numeric(values)
+        distinct = sorted(nums.unique())
+        if set(distinct) <= {0, 1}:
+            return "binary", 0, 1, {}
+        if all(float(v).is_integer() for v in distinct) and len(distinct) <= 11:
+            return "ordinal", int(min(distinct)), int(max(distinct)), {}
+        return "continuous", float(nums.min()), float(nums.max()), {}
+    words = sorted(str(v).strip() for v in values.unique())
+    if len(words) == 2:
+        yes = [w for w in words if w.lower() in ("admit", "yes", "accept", "pass", "1", "true")]
+        first = yes[0] if yes else words[0]
+        return "binary", 0, 1, {first: 1, next(w for w in words if w != first): 0}
+    return "ordinal", 1, len(words), {w: i + 1 for i, w in enumerate(words)}
+
+
+def _guess_cues(table: "pd.DataFrame", columns: list[str],  # noqa: F821
+                numeric: dict[str, bool]) -> list[tuple[str, str, str | None]]:
+    """The columns left over that look like cues: (name, kind, missing rule or None).
+
+    Numbers are numeric cues (indicator rule when some are missing); few distinct words
+    are a categorical cue; free text and ids are not cues.
+    """
+    cues = []
+    for c in columns:
+        values = table[c].dropna()
+        if numeric[c]:
+            kind = "numeric"
+            missing = "indicator" if table[c].isna().any() else None
+        elif values.nunique() <= max(12, len(values) // 20):
+            kind, missing = "categorical", None
+        else:
+            continue  # free text or ids: not a cue
+        cues.append((c, kind, missing))
+    return cues
+
+
 def draft_spec(table: "pd.DataFrame", *, data_name: str, study_name: str) -> str:  # noqa: F821
     """Draft a spec (TOML text with comments) from a judgments table.
 
@@ -514,41 +613,9 @@ def draft_spec(table: "pd.DataFrame", *, data_name: str, study_name: str) -> str
         if roles["judgment"]:
             taken.add(roles["judgment"])
     jcol = roles["judgment"]
-    scale, jmin, jmax, labels = "continuous", None, None, {}
-    if jcol is not None:
-        values = table[jcol].dropna()
-        if numeric[jcol]:
-            nums = pd.to_numeric(values)
-            distinct = sorted(nums.unique())
-            if set(distinct) <= {0, 1}:
-                scale, jmin, jmax = "binary", 0, 1
-            elif all(float(v).is_integer() for v in distinct) and len(distinct) <= 11:
-                scale, jmin, jmax = "ordinal", int(min(distinct)), int(max(distinct))
-            else:
-                scale, jmin, jmax = "continuous", float(nums.min()), float(nums.max())
-        else:
-            words = sorted(str(v).strip() for v in values.unique())
-            if len(words) == 2:
-                scale, jmin, jmax = "binary", 0, 1
-                yes = [w for w in words if w.lower() in ("admit", "yes", "accept", "pass", "1", "true")]
-                first = yes[0] if yes else words[0]
-                labels = {first: 1, next(w for w in words if w != first): 0}
-            else:
-                scale, jmin, jmax = "ordinal", 1, len(words)
-                labels = {w: i + 1 for i, w in enumerate(words)}
-    cues = []
-    for c in columns:
-        if c in taken:
-            continue
-        values = table[c].dropna()
-        if numeric[c]:
-            kind = "numeric"
-            missing = "indicator" if table[c].isna().any() else None
-        elif values.nunique() <= max(12, len(values) // 20):
-            kind, missing = "categorical", None
-        else:
-            continue  # free text or ids: not a cue
-        cues.append((c, kind, missing))
+    scale, jmin, jmax, labels = ("continuous", None, None, {}) if jcol is None else _guess_scale(
+        table[jcol].dropna(), numeric[jcol])
+    cues = _guess_cues(table, [c for c in columns if c not in taken], numeric)
 
     def q(text: str) -> str:
         return '"' + str(text).replace("\\", "\\\\").replace('"', '\\"') + '"'

@@ -1,0 +1,422 @@
+"""The input rules, one function each, in the order the door applies them.
+
+Each rule takes the rows (or the per-case table) built so far, records every
+problem it finds in a :class:`Collector` (file, row and column named, so a user
+fixes their data in one pass) and returns the rows it keeps. Errors stop the run
+after the step that found them; warnings travel into the results. The rules are
+stated as README.md's "Input" section states them.
+
+Row numbers are the ones a person sees: in a CSV or a worksheet the header is
+row 1 and the first data row is row 2.
+"""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+import pandas as pd
+
+from ..errors import DataProblem
+from .cues import CueRule
+from .spec import StudySpec
+
+FILE = "_file"
+ROW = "_row"
+PHASE = "_phase"
+MAX_LISTED = 8  # rows listed in one message before "and N more"
+MAX_ROW_MESSAGES = 50  # one message per row up to this many, then a count
+
+
+def natural_key(text: str):
+    """Sort 'r2' before 'r10'."""
+    return [int(t) if t.isdigit() else t.lower() for t in re.split(r"(\d+)", str(text))]
+
+
+def as_id(value) -> str | None:
+    """Ids as text; a float that is a whole number (from a spreadsheet) loses its '.0'."""
+    if value is None or (isinstance(value, float) and np.isnan(value)) or value is pd.NA:
+        return None
+    if isinstance(value, float) and value.is_integer():
+        value = int(value)
+    text = str(value).strip()
+    return text or None
+
+
+def rows_text(rows: list[int]) -> str:
+    """Row numbers for a message, the first few listed and the rest counted."""
+    rows = sorted(rows)
+    shown = ", ".join(str(r) for r in rows[:MAX_LISTED])
+    return shown + (f" and {len(rows) - MAX_LISTED} more" if len(rows) > MAX_LISTED else "")
+
+
+def to_numbers(series: pd.Series) -> tuple[pd.Series, pd.Series]:
+    """Convert to float; return (values, mask of present-but-not-numeric)."""
+    present = series.notna() & (series.astype(str).str.strip() != "")
+    values = pd.to_numeric(series.where(present), errors="coerce")
+    return values.astype(float), present & values.isna()
+
+
+class Collector:
+    """Every problem found, in the order found; errors and warnings kept apart by severity."""
+
+    def __init__(self) -> None:
+        self.items: list[DataProblem] = []
+
+    def error(self, message: str, *, file=None, row=None, column=None) -> None:
+        self.items.append(DataProblem(message, file=file, row=row, column=column))
+
+    def warn(self, message: str, *, file=None, row=None, column=None) -> None:
+        self.items.append(DataProblem(message, file=file, row=row, column=column, severity="warning"))
+
+    @property
+    def errors(self) -> list[DataProblem]:
+        return [p for p in self.items if p.severity == "error"]
+
+    @property
+    def warnings(self) -> list[DataProblem]:
+        return [p for p in self.items if p.severity == "warning"]
+
+
+def case_level_columns(spec: StudySpec) -> list[str]:
+    """The columns that describe a case, not a judgment: cues, excluded attributes, criterion."""
+    cols = spec.columns
+    return (list(spec.cue_names) + list(spec.excluded)
+            + ([cols["criterion"]] if "criterion" in cols else []))
+
+
+# ----------------------------------------------------------------------------- columns
+
+
+def check_columns_exist(spec: StudySpec, frames: list[pd.DataFrame], cases_df: pd.DataFrame | None,
+                        out: Collector) -> pd.DataFrame | None:
+    """Every role column named in [columns] is in each judgments table; every cue, excluded
+    attribute and criterion is in the judgments tables or the cases table. A cases table
+    without the case column cannot be joined and is set aside (returns None)."""
+    cols = spec.columns
+    cue_names = list(spec.cue_names)
+    for df in frames:
+        fname = df[FILE].iat[0] if len(df) else "the judgments table"
+        available = [c for c in df.columns if not c.startswith("_")]
+        for role in ("rater", "case", "judgment", "sequence", "phase"):
+            col = cols.get(role)
+            if col is not None and col not in df.columns:
+                out.error(f"column '{col}' ({role}) not found; available: {', '.join(available)}",
+                          file=fname, column=col)
+    if cases_df is not None and cols["case"] not in cases_df.columns:
+        out.error(f"the cases table has no case column '{cols['case']}' to join on; available: "
+                  + ", ".join(c for c in cases_df.columns if not c.startswith("_")),
+                  file=spec.cases.name, column=cols["case"])
+        cases_df = None
+    for col in case_level_columns(spec):
+        in_cases = cases_df is not None and col in cases_df.columns
+        in_judg = all(col in df.columns for df in frames)
+        if not in_cases and not in_judg:
+            where = "the judgments table" + (" or the cases table" if cases_df is not None else "")
+            role = ("cue" if col in cue_names else "excluded attribute" if col in spec.excluded
+                    else "criterion")
+            out.error(f"column '{col}' ({role}) not found in {where}; add it or fix the spec",
+                      file=frames[0][FILE].iat[0], column=col)
+    return cases_df
+
+
+# ----------------------------------------------------------------------------- rows
+
+
+def check_ids(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd.DataFrame:
+    """Every judgment needs a rater id and a case id; ids are read as text."""
+    data = data.copy()
+    for role in ("rater", "case"):
+        col = columns[role]
+        ids = data[col].map(as_id)
+        missing = ids.isna()
+        for fname, rows in data.loc[missing].groupby(FILE)[ROW]:
+            out.error(f"the {role} id is empty in rows {rows_text(rows.tolist())}; every judgment "
+                      f"needs a {role}", file=fname, column=col)
+        data[col] = ids
+    return data
+
+
+def check_phases(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.DataFrame:
+    """Phases: with [phases] order, a phase value not in the order (or empty) is an error."""
+    if spec.phase_order is None:
+        return data
+    data = data.copy()
+    ph = data[PHASE].map(as_id)
+    bad = ph.isna() | ~ph.isin(spec.phase_order)
+    for (fname, value), rows in data.loc[bad].assign(_v=ph[bad].fillna("(empty)")).groupby(
+            [FILE, "_v"])[ROW]:
+        out.error(f"phase '{value}' in rows {rows_text(rows.tolist())} is not one of "
+                  f"[phases] order ({', '.join(spec.phase_order)})", file=fname,
+                  column=spec.columns.get("phase"))
+    data[PHASE] = ph
+    return data
+
+
+def drop_duplicates(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
+    """Rows identical in every column, sequence included, are duplicates: dropped with a
+    warning, never taken as a repeat."""
+    original = [c for c in data.columns if not c.startswith("_")] + [PHASE]
+    dup = data.duplicated(subset=original, keep="first")
+    if not dup.any():
+        return data
+    for fname, rows in data.loc[dup].groupby(FILE)[ROW]:
+        out.warn(f"{len(rows)} row(s) identical in every column to an earlier row were dropped as "
+                 f"duplicates (rows {rows_text(rows.tolist())})", file=fname)
+    return data.loc[~dup].copy()
+
+
+def judgment_values(raw: pd.Series, labels: dict[str, float]) -> tuple[pd.Series, pd.Series]:
+    """Judgments as numbers; words only through [judgment] labels (case and spaces ignored).
+    Returns (values, mask of present judgments)."""
+    present = raw.notna() & (raw.astype(str).str.strip() != "")
+    if labels:
+        lookup = {k.strip().lower(): v for k, v in labels.items()}
+        words = raw.astype(str).str.strip().str.lower()
+        mapped = words.map(lookup)
+        numeric = pd.to_numeric(raw.where(present & mapped.isna()), errors="coerce")
+        return mapped.astype(float).fillna(numeric), present
+    return pd.to_numeric(raw.where(present), errors="coerce").astype(float), present
+
+
+def _report_words(data: pd.DataFrame, not_numeric: pd.Series, jcol: str, labels: dict[str, float],
+                  out: Collector) -> None:
+    """An unmapped word is an error naming its row, with the fix."""
+    some_words = data.loc[not_numeric, jcol].astype(str).str.strip().unique()[:3]
+    if labels:
+        fix = f"use a number or one of the labels ({', '.join(labels)})"
+    else:
+        fix = ("use numbers, or map the words to numbers with [judgment] labels, e.g. labels = "
+               "{ " + ", ".join(f'{w} = ?' for w in some_words) + " }")
+    for _, r in data.loc[not_numeric].head(MAX_ROW_MESSAGES).iterrows():
+        out.error(f"judgment '{r[jcol]}' is not a number; {fix}", file=r[FILE], row=int(r[ROW]),
+                  column=jcol)
+    extra = int(not_numeric.sum()) - MAX_ROW_MESSAGES
+    if extra > 0:
+        out.error(f"... and {extra} more rows with a judgment that is not a number", column=jcol)
+
+
+def check_judgments(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.DataFrame:
+    """Judgments: numbers within [judgment] min..max; words only through [judgment] labels;
+    a binary scale holds 0 and 1. A row without a judgment is dropped and counted.
+    Adds the numeric judgment as ``_judgment``."""
+    jcol = spec.columns["judgment"]
+    scale = spec.judgment
+    values, present = judgment_values(data[jcol], scale.labels)
+    not_numeric = present & values.isna()
+    if not_numeric.any():
+        _report_words(data, not_numeric, jcol, scale.labels, out)
+    lo = scale.min if scale.min is not None else -np.inf
+    hi = scale.max if scale.max is not None else np.inf
+    outside = values.notna() & ((values < lo) | (values > hi))
+    for _, r in data.loc[outside].head(MAX_ROW_MESSAGES).iterrows():
+        out.error(f"judgment {r[jcol]} lies outside the scale {scale.min:g}..{scale.max:g}; fix the "
+                  "value or the [judgment] min and max", file=r[FILE], row=int(r[ROW]), column=jcol)
+    if scale.kind == "binary":
+        notbin = values.notna() & ~values.isin([0.0, 1.0])
+        for _, r in data.loc[notbin].head(MAX_ROW_MESSAGES).iterrows():
+            out.error(f"judgment {r[jcol]} is not 0 or 1 on a binary scale", file=r[FILE],
+                      row=int(r[ROW]), column=jcol)
+    no_judgment = ~present
+    if no_judgment.any():
+        for fname, rows in data.loc[no_judgment].groupby(FILE)[ROW]:
+            out.warn(f"{len(rows)} row(s) without a judgment were dropped (rows "
+                     f"{rows_text(rows.tolist())})", file=fname, column=jcol)
+    data = data.copy()
+    data["_judgment"] = values
+    return data.loc[present].copy()
+
+
+def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd.DataFrame:
+    """A sequence is a number (position in the reading order) or a date-time; anything else
+    is an error naming its row. Adds ``_sequence`` (NaN when there is no sequence column)."""
+    data = data.copy()
+    if "sequence" not in columns:
+        data["_sequence"] = np.nan
+        return data
+    scol = columns["sequence"]
+    seq, bad = to_numbers(data[scol])
+    if bad.any():
+        as_time = pd.to_datetime(data.loc[bad, scol], errors="coerce", format="mixed")
+        if as_time.notna().all() and not seq.notna().any():
+            all_time = pd.to_datetime(data[scol], errors="coerce", format="mixed")
+            seq = (all_time - pd.Timestamp("1970-01-01")).dt.total_seconds()
+            bad = data[scol].notna() & seq.isna()
+    for _, r in data.loc[bad].head(MAX_ROW_MESSAGES).iterrows():
+        out.error(f"sequence '{r[scol]}' is neither a number nor a date-time", file=r[FILE],
+                  row=int(r[ROW]), column=scol)
+    data["_sequence"] = seq
+    return data
+
+
+# ----------------------------------------------------------------------------- cases
+
+
+def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpec,
+                      out: Collector) -> pd.DataFrame:
+    """Cues belong to the case (cases table): every row needs a case id; a case id listed
+    twice with different values is an error; every judged case must be in the table.
+    Returns the cases table indexed by case id, one row per case."""
+    ccol = spec.columns["case"]
+    case_level = case_level_columns(spec)
+    cases_df = cases_df.copy()
+    cases_df[ccol] = cases_df[ccol].map(as_id)
+    empty = cases_df[ccol].isna()
+    if empty.any():
+        out.error(f"the case id is empty in rows {rows_text(cases_df.loc[empty, ROW].tolist())}",
+                  file=spec.cases.name, column=ccol)
+    cases_df = cases_df.loc[~empty]
+    dup_ids = cases_df[ccol].duplicated(keep=False)
+    if dup_ids.any():
+        keep_cols = [c for c in cases_df.columns if c in case_level]
+        for cid, grp in cases_df.loc[dup_ids].groupby(ccol):
+            if len(grp[keep_cols].drop_duplicates()) > 1:
+                out.error(f"case '{cid}' appears in rows {rows_text(grp[ROW].tolist())} with "
+                          "different values; cues belong to the case, so keep one row per case",
+                          file=spec.cases.name, column=ccol)
+        cases_df = cases_df.drop_duplicates(subset=[ccol], keep="first")
+    cases_index = cases_df.set_index(ccol)
+    unknown = ~data[ccol].isin(cases_index.index)
+    if unknown.any():
+        ids = data.loc[unknown, ccol].unique()
+        out.error(f"{len(ids)} case id(s) in the judgments are missing from the cases table: "
+                  + ", ".join(map(str, ids[:MAX_LISTED])) + (" ..." if len(ids) > MAX_LISTED else ""),
+                  file=spec.cases.name, column=ccol)
+    return cases_index
+
+
+def case_value_from_rows(data: pd.DataFrame, col: str, case_col: str, out: Collector) -> pd.Series:
+    """Cues belong to the case (judgment rows): a value repeated on every judgment row must
+    be the same on every row of a case; a case whose values differ is an error naming the
+    case and the rows. Returns the value of each case (its first row's)."""
+    sub = data[[case_col, col, FILE, ROW]]
+    norm = sub[col].map(lambda v: None if v is None or (isinstance(v, float) and np.isnan(v))
+                        else str(v).strip())
+    n_distinct = norm.groupby(sub[case_col]).nunique(dropna=False)
+    for cid in n_distinct.index[n_distinct > 1][:MAX_ROW_MESSAGES]:
+        rows = sub.loc[sub[case_col] == cid]
+        out.error(f"case '{cid}' has different values of '{col}' in rows "
+                  f"{rows_text(rows[ROW].tolist())}; cues belong to the case, so a case's value "
+                  "must be the same on every row", file=rows[FILE].iat[0], column=col)
+    first_rows = sub.drop_duplicates(subset=[case_col], keep="first").set_index(case_col)
+    return first_rows[col]
+
+
+def check_numeric_cues(cases: pd.DataFrame, cues: tuple[CueRule, ...], row_of_case: pd.Series,
+                       case_file: str | None, out: Collector) -> pd.DataFrame:
+    """A numeric cue holds numbers or nothing; a word is an error (or declare it categorical)."""
+    cases = cases.copy()
+    for rule in cues:
+        if rule.kind != "numeric":
+            continue
+        vals, bad = to_numbers(cases[rule.name])
+        for cid in cases.index[bad][:MAX_ROW_MESSAGES]:
+            out.error(f"cue value '{cases.at[cid, rule.name]}' of case '{cid}' is not a number; fix it "
+                      "or declare the cue categorical", file=case_file, row=int(row_of_case[cid])
+                      if case_file else None, column=rule.name)
+        cases[rule.name] = vals
+    return cases
+
+
+def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | None,
+                    out: Collector) -> pd.DataFrame:
+    """The criterion holds numbers or nothing. A missing criterion only removes that case
+    from the lens model (a warning). Adds the numeric criterion as ``__criterion__``."""
+    cases = cases.copy()
+    vals, bad = to_numbers(cases[crit])
+    for cid in cases.index[bad][:MAX_ROW_MESSAGES]:
+        out.error(f"criterion '{cases.at[cid, crit]}' of case '{cid}' is not a number",
+                  file=case_file, column=crit)
+    cases["__criterion__"] = vals
+    n_missing = int(vals.isna().sum())
+    if n_missing:
+        out.warn(f"the criterion is missing for {n_missing} of {len(vals)} cases; those cases "
+                 "leave the lens model only", column=crit)
+    return cases
+
+
+def check_constant_cue(values: pd.Series, rule: CueRule, out: Collector) -> None:
+    """Constant cues are an error: their weight cannot be estimated."""
+    if values.dropna().nunique() < 2:
+        out.error(f"cue '{rule.name}' is constant over the judged cases; its weight cannot be "
+                  "estimated. Remove it from [cues]", column=rule.name)
+
+
+def report_missing_cue(values: pd.Series, rule: CueRule, out: Collector) -> None:
+    """A missing cue follows the cue's rule: ``drop`` (the case leaves the policy fits) or
+    ``indicator`` (the mean is filled in and a 0/1 missing term is fitted); either way a
+    warning counts the cases."""
+    n_missing = int(values.isna().sum())
+    if not n_missing:
+        return
+    if rule.missing == "indicator":
+        out.warn(f"cue '{rule.name}' is missing for {n_missing} case(s); filled with the mean "
+                 "and a 0/1 'missing' term is fitted with it (indicator rule)", column=rule.name)
+    else:
+        out.warn(f"cue '{rule.name}' is missing for {n_missing} case(s); those cases leave the "
+                 "policy fits (drop rule; use missing = \"indicator\" to keep them)",
+                 column=rule.name)
+
+
+def excluded_types(cases: pd.DataFrame, excluded: tuple[str, ...]) -> tuple[pd.DataFrame, dict[str, str]]:
+    """An excluded attribute is numeric when every present value is a number (and is then
+    converted), else categorical."""
+    cases = cases.copy()
+    types = {}
+    for col in excluded:
+        vals, bad = to_numbers(cases[col])
+        if bad.any():
+            types[col] = "categorical"
+        else:
+            types[col] = "numeric"
+            cases[col] = vals
+    return cases, types
+
+
+# ----------------------------------------------------------------------------- raters
+
+
+def mark_repeats(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
+    """Repeats: within one rater and phase, the first judgment of a case (by sequence, else
+    by row order) is the judgment (``_nth`` 0); the second is its repeat (``_nth`` 1); a
+    third or later is dropped with a warning. Expects ``_rater`` and ``_case`` columns;
+    adds ``_nth`` and ``_position`` (0-based place in the rater's reading order)."""
+    data = data.copy()
+    data["_order"] = np.arange(len(data))
+    sort_cols = [PHASE, "_rater", "_sequence", "_order"]
+    data = data.sort_values(sort_cols, kind="mergesort", na_position="last")
+    data["_nth"] = data.groupby([PHASE, "_rater", "_case"], dropna=False).cumcount()
+    third = data["_nth"] >= 2
+    for _, grp in data.loc[third].groupby([PHASE, "_rater", "_case"], dropna=False):
+        r = grp.iloc[0]
+        phase_txt = f" in phase '{r[PHASE]}'" if r[PHASE] is not None else ""
+        out.warn(f"rater '{r['_rater']}' judged case '{r['_case']}' more than twice{phase_txt}; "
+                 f"the judgments in rows {rows_text(grp[ROW].tolist())} were dropped (only the first "
+                 "and its repeat are used)", file=r[FILE])
+    data = data.loc[~third].copy()
+    data["_position"] = data.groupby([PHASE, "_rater"], dropna=False).cumcount()
+    return data
+
+
+def check_trained(raters: set[str], trained: tuple[str, ...] | None, out: Collector) -> None:
+    """Every rater [phases] trained names must have judgments."""
+    if trained is None:
+        return
+    for rater in trained:
+        if rater not in raters:
+            out.error(f"[phases] trained names rater '{rater}', who has no judgments; check the id")
+
+
+def too_few_cases(first: pd.DataFrame, complete: pd.Series, n_terms: int, phase_label: str,
+                  out: Collector) -> tuple[tuple[str, ...], dict[str, int]]:
+    """Too few cases: a rater with fewer usable cases (first judgments of cases with complete
+    cues) than model terms + 2 is kept out of the policy fits and listed (a warning).
+    Returns (raters fit, {rater kept out: usable cases})."""
+    usable = first.loc[first["case"].map(complete).to_numpy(dtype=bool)].groupby("rater").size()
+    usable = usable.reindex(sorted(first["rater"].unique(), key=natural_key), fill_value=0)
+    too_few = {r: int(n) for r, n in usable.items() if n < n_terms + 2}
+    for rater, n in too_few.items():
+        out.warn(f"rater '{rater}' has {n} usable case(s) in phase '{phase_label}', fewer than the "
+                 f"{n_terms + 2} a policy fit needs (cue terms + 2); kept out of policy fits")
+    fit_raters = tuple(r for r in usable.index if r not in too_few)
+    return fit_raters, too_few
