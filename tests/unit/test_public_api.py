@@ -33,7 +33,9 @@ SUBPACKAGES = {
     "output": ["OutputFolder", "TABLE_DESCRIPTIONS", "csv_bytes", "results_schema", "sheet_names",
                "workbook_bytes"],
     "report": ["build_reports", "load_report_input", "panel_pdf", "rater_file_names", "rater_pdf"],
-    "training": [],
+    "training": ["COMPARISON_SCHEMA", "Change", "ComparisonResult", "RaterComparison", "ancova_difference",
+                 "bootstrap_difference", "compare", "fisher_z_difference", "normal_difference",
+                 "paired_tests", "phase_pairs", "welch_difference"],
     "design": [],
 }
 
