@@ -30,7 +30,7 @@ SUBPACKAGES = {
     "panel": ["ConflictResult", "GroupPolicy", "GroupingResult", "HomogeneityResult", "MergeStep",
               "PairConflict", "adjusted_rand_index", "group_raters", "pairwise_conflict",
               "policy_homogeneity"],
-    "output": ["OutputFolder", "TABLE_DESCRIPTIONS", "csv_bytes", "results_schema", "sheet_names",
+    "output": ["OutputFolder", "TABLE_DESCRIPTIONS", "comparison_schema", "csv_bytes", "results_schema", "sheet_names",
                "workbook_bytes"],
     "report": ["build_reports", "load_report_input", "panel_pdf", "rater_file_names", "rater_pdf"],
     "training": ["COMPARISON_SCHEMA", "Change", "ComparisonResult", "RaterComparison", "ancova_difference",

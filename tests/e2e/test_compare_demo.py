@@ -1,0 +1,53 @@
+"""On the demo, the planted training effect (error cut, weights moved toward the rubric for the
+trained reviewers) is found for them and not for the controls."""
+
+import json
+
+import numpy as np
+import pytest
+
+from calibrate.data import load_study, write_demo
+from calibrate.data.demo import REVIEWERS
+from calibrate.training import compare
+
+
+@pytest.fixture(scope="module")
+def result(tmp_path_factory):
+    files = write_demo(tmp_path_factory.mktemp("demo"))
+    return compare(load_study(files.spec), n_boot=400)
+
+
+def test_trained_reviewers_moved_toward_the_rubric_and_controls_did_not(result):
+    for r in result.raters:
+        change = r.metrics["misallocation"]["changes"][0]
+        assert r.trained == REVIEWERS[r.rater][1]
+        if r.trained:
+            assert change.ci_high < 0, r.rater
+    controls = [r.metrics["misallocation"]["changes"][0] for r in result.raters if not r.trained]
+    # Seven controls at the 5% level: at most one chance finding of a drop is expected.
+    assert sum(c.ci_high < 0 for c in controls) <= 1
+    arms = result.panel["metrics"]["misallocation"]
+    assert arms["trained"]["changes"][0]["p_value"] < 0.01
+    assert arms["control"]["changes"][0]["p_value"] > 0.05
+
+
+def test_difference_in_differences_excludes_zero(result):
+    effect = result.panel["training_effect"]["misallocation"]
+    assert effect["ci_high"] < 0
+    assert effect["from"] == "before" and effect["to"] == "after"
+
+
+def test_comparison_is_plain_json_and_same_seed_same_bytes(result, tmp_path):
+    text = json.dumps(result.to_dict(), sort_keys=True)
+    assert "NaN" not in text
+    files = write_demo(tmp_path / "again")
+    again = compare(load_study(files.spec), n_boot=400)
+    assert json.dumps(again.to_dict(), sort_keys=True) == text
+
+
+def test_cautions_say_the_cases_differ(result):
+    assert any("different cases" in c for c in result.cautions)
+    assert not any("no control group" in c for c in result.cautions)
+    frame = result.to_frame()
+    assert set(frame["metric"]) == {"r", "retest_r", "misallocation", "severity", "r_a"}
+    assert np.isfinite(frame["delta"]).all()
