@@ -160,7 +160,8 @@ def _policy_draws(rows: JudgmentRows, order: np.ndarray, design, sd: np.ndarray,
     """R_s (and misallocation) of every rater in ``order`` for the estimate and each resample.
 
     Weighted least squares with the resample counts as weights, batched over raters and
-    resamples through centred SSCP matrices: one solve per (rater, resample).
+    resamples through SSCP matrices (never an (rater, resample, case, cue) array): one
+    small solve per (rater, resample).
     """
     per = rows.rows_of_each_rater()
     sizes = np.array([per[g].size if g >= 0 else 0 for g in order])
@@ -177,11 +178,17 @@ def _policy_draws(rows: JudgmentRows, order: np.ndarray, design, sd: np.ndarray,
     with np.errstate(invalid="ignore", divide="ignore"):
         mx = np.einsum("gbn,gnp->gbp", W, X) / sw[..., None]
         my = np.einsum("gbn,gn->gb", W, y) / sw
-    Xc = X[:, None, :, :] - mx[:, :, None, :]
-    yc = y[:, None, :] - my[:, :, None]
-    Sxx = np.einsum("gbn,gbnp,gbnq->gbpq", W, Xc, Xc)
-    Sxy = np.einsum("gbn,gbnp,gbn->gbp", W, Xc, yc)
-    Syy = np.einsum("gbn,gbn,gbn->gb", W, yc, yc)
+    # Centre on each rater's own means first (exact shift), so that the raw moments below
+    # stay well conditioned; then correct for each resample's means.
+    live = np.arange(n_max)[None, :] < sizes[:, None]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        X = np.where(live[..., None], X - mx[:, :1, :], 0.0)
+        y = np.where(live, y - my[:, :1], 0.0)
+    mx, my = mx - mx[:, :1, :], my - my[:, :1]
+    Sxx = (np.einsum("gbn,gnp,gnq->gbpq", W, X, X)
+           - sw[..., None, None] * mx[..., :, None] * mx[..., None, :])
+    Sxy = np.einsum("gbn,gnp,gn->gbp", W, X, y) - sw[..., None] * mx * my[..., None]
+    Syy = np.einsum("gbn,gn,gn->gb", W, y, y) - sw * my * my
     coef = np.full((G, n_boot + 1, p), np.nan)
     # A resample whose cases leave a cue constant cannot be fitted: drop it (NaN).
     rank_ok = np.linalg.matrix_rank(Sxx.reshape(-1, p, p), tol=1e-8).reshape(G, n_boot + 1) == p

@@ -51,3 +51,31 @@ def test_cautions_say_the_cases_differ(result):
     frame = result.to_frame()
     assert set(frame["metric"]) == {"r", "retest_r", "misallocation", "severity", "r_a"}
     assert np.isfinite(frame["delta"]).all()
+
+
+def test_values_equal_the_audit_functions(result, tmp_path):
+    from calibrate.lens.rubric import rubric_alignment
+    from calibrate.training.phases import _fit_first
+
+    files = write_demo(tmp_path / "d")
+    table = load_study(files.spec)
+    for ph in table.phases:
+        align = rubric_alignment(table.design, _fit_first(table, ph), table.spec.rubric,
+                                 basis=table.spec.rubric_basis)
+        for r in result.raters:
+            assert r.metrics["misallocation"]["values"][ph.name] == pytest.approx(
+                align.for_rater(r.rater).misallocation, abs=1e-9)
+
+
+def test_without_a_trained_list_all_count_as_trained_and_the_caution_says_so(tmp_path):
+    import dataclasses
+
+    files = write_demo(tmp_path / "d")
+    table = load_study(files.spec)
+    table = dataclasses.replace(table, spec=dataclasses.replace(table.spec, trained=None))
+    out = compare(table, n_boot=100)
+    assert out.has_control is False and all(r.trained for r in out.raters)
+    assert out.panel["training_effect"] is None
+    assert set(out.panel["metrics"]["r"]) == {"trained"}
+    assert any("no control group" in c and "cannot be credited to the training alone" in c
+               for c in out.cautions)

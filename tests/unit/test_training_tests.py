@@ -80,3 +80,48 @@ def test_bootstrap_difference_of_identical_draws_has_no_change():
     low, high, p = bootstrap_difference(draws, draws)
     assert np.allclose(low, 0) and np.allclose(high, 0)
     assert np.allclose(p, 1.0)
+
+
+def test_batched_rs_equals_statsmodels_ols_and_weighted_resample():
+    import statsmodels.api as sm
+
+    from calibrate.data.rows import JudgmentRows
+    from calibrate.training.phases import _policy_draws, _resample_counts
+
+    rng = np.random.default_rng(1)
+    G, n = 3, 30
+    X = rng.normal(size=(G * n, 3))
+    y = np.clip(np.round(5 + X @ [1.0, 0.5, 0.0] + rng.normal(size=G * n)), 1, 7)
+    rows = JudgmentRows(raters=("a", "b", "c"), group=np.repeat(np.arange(G), n),
+                        design_row=np.arange(G * n), X=X, y=y, n_dropped=0)
+    order = np.array([2, 0, 1])
+    out, _ = _policy_draws(rows, order, None, None, None, 5, np.random.default_rng(9))
+    counts = _resample_counts(np.full(G, n), n, 5, np.random.default_rng(9))
+    for i, g in enumerate(order):
+        part = slice(g * n, (g + 1) * n)
+        fit = sm.OLS(y[part], sm.add_constant(X[part])).fit()
+        assert out["r"][i, 0] == pytest.approx(np.sqrt(fit.rsquared), rel=1e-10)
+        # Resample 1 of rater i: OLS on the cases repeated as often as they were drawn.
+        reps = counts[i, 1].astype(int)
+        fit1 = sm.OLS(np.repeat(y[part], reps), sm.add_constant(np.repeat(X[part], reps, axis=0))).fit()
+        assert out["r"][i, 1] == pytest.approx(np.sqrt(fit1.rsquared), rel=1e-8)
+
+
+def test_rs_change_bootstrap_size_and_coverage_small():
+    # Seeded small version of benchmarks/bench_training.py: 100 rater pairs of phases, 60 cases
+    # each on 1-7 with a ceiling, 300 resamples. Size: binomial 99.9% band around 5% for 100
+    # (0-12%); coverage of a true change at least 85% (the benchmark measures 500 pairs).
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from training_simulation import population_rs, rs_draws
+
+    rng = np.random.default_rng(77)
+    a, b = rs_draws(rng, [0.8] * 100, 60, 300), rs_draws(rng, [0.8] * 100, 60, 300)
+    _, _, p = bootstrap_difference(a[:, 1:], b[:, 1:])
+    assert np.mean(p < 0.05) <= 0.12
+    truth = population_rs(0.6, n=60_000) - population_rs(0.9, n=60_000)
+    a, b = rs_draws(rng, [0.9] * 100, 60, 300), rs_draws(rng, [0.6] * 100, 60, 300)
+    low, high, _ = bootstrap_difference(a[:, 1:], b[:, 1:])
+    assert np.mean((low <= truth) & (truth <= high)) >= 0.85
