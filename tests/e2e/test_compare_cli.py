@@ -1,28 +1,13 @@
 """`calibrate compare` end to end on the demo: a valid comparison.json, tables, refusals, same bytes."""
 
 import json
-import subprocess
-import sys
 
 import jsonschema
 import pandas as pd
-import pytest
 
 from calibrate.output.tables import comparison_schema
+from tests.e2e.test_cli import demo_folder, run  # noqa: F401  (demo_folder is a fixture)
 from tests.helpers import simple_judgments, write_study
-
-
-def run(*args, cwd=None):
-    return subprocess.run([sys.executable, "-m", "calibrate", *map(str, args)], capture_output=True,
-                          text=True, cwd=cwd)
-
-
-@pytest.fixture(scope="module")
-def demo_folder(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("demo")
-    proc = run("demo", "--out", folder / "study")
-    assert proc.returncode == 0, proc.stderr
-    return folder / "study"
 
 
 def test_compare_writes_valid_json_and_tables_and_same_bytes(demo_folder, tmp_path):
