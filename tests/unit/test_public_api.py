@@ -5,7 +5,8 @@ import sys
 
 import calibrate
 
-TOP = ["AuditResult", "CalibrateError", "__version__", "audit", "load_study", "read_spec", "write_audit"]
+TOP = ["AuditResult", "CalibrateError", "ComparisonResult", "__version__", "audit", "compare", "load_study",
+       "read_spec", "write_audit", "write_comparison"]
 
 SUBPACKAGES = {
     "data": ["CueDesign", "CueRule", "DataSource", "DataSummary", "JudgmentRows", "JudgmentScale",

@@ -125,3 +125,36 @@ def test_rs_change_bootstrap_size_and_coverage_small():
     a, b = rs_draws(rng, [0.9] * 100, 60, 300), rs_draws(rng, [0.6] * 100, 60, 300)
     low, high, _ = bootstrap_difference(a[:, 1:], b[:, 1:])
     assert np.mean((low <= truth) & (truth <= high)) >= 0.85
+
+
+def test_cautions_name_each_design_weakness():
+    from calibrate.training.phases import comparison_cautions
+
+    plain = comparison_cautions(has_control=True, same_cases=True, apart_metrics=[], n_trained=8,
+                                n_control=8)
+    assert len(plain) == 1 and "institution's policies" in plain[0]
+    worst = comparison_cautions(has_control=False, same_cases=False, apart_metrics=["r"], n_trained=8,
+                                n_control=0, unequal_cases=2)
+    text = " ".join(worst)
+    assert "no control group" in text and "different case sets" in text
+    assert "regression to the mean" in text and "For 2 rater(s)" in text
+
+
+def test_difference_in_differences_with_a_shared_practice_effect_includes_zero():
+    # Seeded small version of the benchmark: 30 panels of 7 trained + 7 controls whose R_s all
+    # rise by the same practice effect; Welch's interval should include zero in about 95%.
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from training_simulation import rs_draws
+
+    rng = np.random.default_rng(11)
+    inside = 0
+    for _ in range(30):
+        noise = rng.uniform(0.4, 1.2, 14)
+        before = rs_draws(rng, noise, 60, 1)[:, 0]
+        after = rs_draws(rng, noise * 0.85, 60, 1)[:, 0]
+        w = welch_difference((after - before)[:7], (after - before)[7:])
+        inside += w["ci_low"] <= 0 <= w["ci_high"]
+    assert inside >= 26  # binomial(30, .95): P(X < 26) < 2%
