@@ -68,6 +68,7 @@ class RaterComparison(ResultMixin):
     rater: str
     trained: bool
     metrics: dict
+    verdicts: dict = field(default_factory=dict)  # metric -> change_word of first to last
 
 
 @dataclass(frozen=True)
@@ -82,10 +83,12 @@ class ComparisonResult(ResultMixin):
     panel: dict
     cautions: tuple[str, ...] = ()
     n_boot: int = 1000
+    summary: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
         return jsonable({"schema": COMPARISON_SCHEMA, "seed": self.seed, "n_boot": self.n_boot,
                          "phases": list(self.phases), "has_control": self.has_control,
+                         "summary": list(self.summary),
                          "raters": [r.to_dict() for r in self.raters],
                          "unmatched": list(self.unmatched), "panel": self.panel,
                          "cautions": list(self.cautions)})
@@ -371,6 +374,68 @@ def _panel(raters: list[RaterComparison], phases: tuple[str, ...], metrics: tupl
 
 # ----------------------------------------------------------------------------- words
 
+# Which way is better for each metric (severity has no better direction: it is relative
+# to the panel).
+BETTER = {"r": 1, "retest_r": 1, "r_a": 1, "misallocation": -1}
+METRIC_WORDS = {"r": "consistency (R_s)", "retest_r": "test-retest agreement",
+                "misallocation": "closeness to the rubric's weights",
+                "severity": "severity offset", "r_a": "accuracy against the outcome (r_a)"}
+
+
+def change_word(metric: str, ci_low: float, ci_high: float) -> str:
+    """'better', 'worse' or 'no clear change' (the interval holds zero or is missing); for a
+    metric without a better direction, 'higher' or 'lower'."""
+    if not (np.isfinite(ci_low) and np.isfinite(ci_high)) or ci_low <= 0 <= ci_high:
+        return "no clear change"
+    up = ci_low > 0
+    if metric not in BETTER:
+        return "higher" if up else "lower"
+    return "better" if up == (BETTER[metric] > 0) else "worse"
+
+
+def _listing(items: list[str]) -> str:
+    return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def comparison_summary(phases: tuple[str, ...], panel: dict, has_control: bool) -> tuple[str, ...]:
+    """Plain sentences: did it work, for whom, and (with three phases or more) did it last."""
+    lines = []
+    first, last = phases[0], phases[-1]
+    metrics = [m for m in panel["metrics"] if m in BETTER]
+    if has_control:
+        effects = panel["training_effect"]
+        words = {m: change_word(m, effects[m]["ci_low"], effects[m]["ci_high"]) for m in metrics}
+        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better"]
+        worse = [METRIC_WORDS[m] for m in metrics if words[m] == "worse"]
+        if better:
+            lines.append(f"From {first} to {last} the trained raters improved more than the controls "
+                         f"on {_listing(better)}.")
+        else:
+            lines.append(f"From {first} to {last} the trained raters did not improve clearly more than "
+                         "the controls on any measure.")
+        if worse:
+            lines.append(f"They fell behind the controls on {_listing(worse)}.")
+    else:
+        arm = panel["metrics"]
+        last_change = len(phase_pairs(phases)) - 1
+        words = {m: change_word(m, arm[m]["trained"]["changes"][last_change]["ci_low"],
+                                arm[m]["trained"]["changes"][last_change]["ci_high"]) for m in metrics}
+        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better"]
+        lines.append(f"From {first} to {last} the raters improved on {_listing(better)}, but with no "
+                     "control group this cannot be credited to the training alone."
+                     if better else f"From {first} to {last} the raters did not improve clearly on any "
+                     "measure.")
+    if len(phases) > 2:
+        k = len(phases) - 2  # the last consecutive change: end of training to follow-up
+        faded = [METRIC_WORDS[m] for m in metrics
+                 if change_word(m, panel["metrics"][m]["trained"]["changes"][k]["ci_low"],
+                                panel["metrics"][m]["trained"]["changes"][k]["ci_high"]) == "worse"]
+        lines.append(f"From {phases[-2]} to {last} the trained raters slipped back on "
+                     f"{_listing(faded)}." if faded else
+                     f"From {phases[-2]} to {last} the trained raters did not slip back clearly on "
+                     "any measure.")
+    return tuple(lines)
+
 
 def comparison_cautions(*, has_control: bool, same_cases: bool, apart_metrics: list[str],
                         n_trained: int, n_control: int, unequal_cases: int = 0) -> tuple[str, ...]:
@@ -443,7 +508,10 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
     for i, name in enumerate(matched):
         blocks = {m: {"values": {ph: float(figs[k].values[m][i]) for k, ph in enumerate(phases)},
                       "changes": per_metric[m][i]} for m in metrics}
-        raters.append(RaterComparison(rater=name, trained=name in trained, metrics=blocks))
+        verdicts = {m: change_word(m, blocks[m]["changes"][-1].ci_low, blocks[m]["changes"][-1].ci_high)
+                    for m in metrics}
+        raters.append(RaterComparison(rater=name, trained=name in trained, metrics=blocks,
+                                      verdicts=verdicts))
     panel = _panel(raters, phases, metrics, has_control, confidence)
     case_sets = [set(table.phase(ph).first["case"]) for ph in phases]
     same_cases = all(s == case_sets[0] for s in case_sets[1:])
@@ -458,4 +526,5 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
                                    apart_metrics=apart, n_trained=n_tr, n_control=len(raters) - n_tr,
                                    unequal_cases=unequal)
     return ComparisonResult(phases=phases, seed=seed, has_control=has_control, raters=tuple(raters),
-                            unmatched=unmatched, panel=panel, cautions=cautions, n_boot=n_boot)
+                            unmatched=unmatched, panel=panel, cautions=cautions, n_boot=n_boot,
+                            summary=comparison_summary(phases, panel, has_control))

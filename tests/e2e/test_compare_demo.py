@@ -79,3 +79,15 @@ def test_without_a_trained_list_all_count_as_trained_and_the_caution_says_so(tmp
     assert set(out.panel["metrics"]["r"]) == {"trained"}
     assert any("no control group" in c and "cannot be credited to the training alone" in c
                for c in out.cautions)
+
+
+def test_summary_and_verdicts_say_what_the_intervals_say(result):
+    assert result.summary[0].startswith("From before to after the trained raters improved more than "
+                                        "the controls on")
+    assert "closeness to the rubric's weights" in result.summary[0]
+    for r in result.raters:
+        ch = r.metrics["misallocation"]["changes"][-1]
+        expected = ("better" if ch.ci_high < 0 else "worse" if ch.ci_low > 0 else "no clear change")
+        assert r.verdicts["misallocation"] == expected
+        if r.trained:
+            assert r.verdicts["misallocation"] == "better"

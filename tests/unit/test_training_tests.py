@@ -158,3 +158,14 @@ def test_difference_in_differences_with_a_shared_practice_effect_includes_zero()
         w = welch_difference((after - before)[:7], (after - before)[7:])
         inside += w["ci_low"] <= 0 <= w["ci_high"]
     assert inside >= 26  # binomial(30, .95): P(X < 26) < 2%
+
+
+def test_change_words():
+    from calibrate.training.phases import change_word
+
+    assert change_word("r", 0.01, 0.2) == "better"
+    assert change_word("misallocation", 0.01, 0.2) == "worse"
+    assert change_word("misallocation", -0.3, -0.1) == "better"
+    assert change_word("r", -0.1, 0.2) == "no clear change"
+    assert change_word("r", float("nan"), 0.2) == "no clear change"
+    assert change_word("severity", 0.1, 0.3) == "higher"
