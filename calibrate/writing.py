@@ -49,8 +49,9 @@ COMPARISON_TABLES = {
 }
 
 
-def write_comparison(result, out: str | Path, *, overwrite: bool = False) -> Path:
-    """Write comparison.json and its tidy tables; the folder appears whole or not at all."""
+def write_comparison(result, out: str | Path, *, overwrite: bool = False, pdf: bool = True) -> Path:
+    """Write comparison.json, its tidy tables and (``pdf``) training-report.pdf; the folder
+    appears whole or not at all."""
     out = Path(out)
     frames = {"comparison_changes": result.to_frame(), "comparison_values": result.values_frame(),
               "comparison_panel": result.panel_frame()}
@@ -58,4 +59,8 @@ def write_comparison(result, out: str | Path, *, overwrite: bool = False) -> Pat
         atomic_write_text(tmp / "comparison.json", dump_json(result.to_dict()))
         for name, frame in frames.items():
             atomic_write_bytes(tmp / "tables" / f"{name}.csv", csv_bytes(frame))
+        if pdf:
+            from .report.training import TRAINING_FILE, training_pdf
+
+            atomic_write_bytes(tmp / TRAINING_FILE, training_pdf(result.to_dict()))
     return out

@@ -84,11 +84,12 @@ class ComparisonResult(ResultMixin):
     cautions: tuple[str, ...] = ()
     n_boot: int = 1000
     summary: tuple[str, ...] = ()
+    study_name: str = ""
 
     def to_dict(self) -> dict:
         return jsonable({"schema": COMPARISON_SCHEMA, "seed": self.seed, "n_boot": self.n_boot,
                          "phases": list(self.phases), "has_control": self.has_control,
-                         "summary": list(self.summary),
+                         "study": {"name": self.study_name}, "summary": list(self.summary),
                          "raters": [r.to_dict() for r in self.raters],
                          "unmatched": list(self.unmatched), "panel": self.panel,
                          "cautions": list(self.cautions)})
@@ -527,4 +528,5 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
                                    unequal_cases=unequal)
     return ComparisonResult(phases=phases, seed=seed, has_control=has_control, raters=tuple(raters),
                             unmatched=unmatched, panel=panel, cautions=cautions, n_boot=n_boot,
-                            summary=comparison_summary(phases, panel, has_control))
+                            summary=comparison_summary(phases, panel, has_control),
+                            study_name=spec.name)

@@ -20,6 +20,8 @@ def test_compare_writes_valid_json_and_tables_and_same_bytes(demo_folder, tmp_pa
     jsonschema.validate(doc, comparison_schema())
     assert doc["seed"] == 7 and doc["phases"] == ["before", "after"]
     assert doc["panel"]["training_effect"]["misallocation"]["ci_high"] < 0
+    assert (tmp_path / "a" / "training-report.pdf").is_file()
+    assert doc["summary"][0] in proc.stdout
     changes = pd.read_csv(tmp_path / "a" / "tables" / "comparison_changes.csv")
     assert {"rater", "metric", "from", "to", "delta", "ci_low", "ci_high", "p_value"} <= set(changes.columns)
     assert {p: p.read_bytes() for p in demo_folder.iterdir()} == before  # inputs untouched
@@ -29,6 +31,8 @@ def test_compare_writes_valid_json_and_tables_and_same_bytes(demo_folder, tmp_pa
     again = run("compare", spec, "--out", tmp_path / "a", "--seed", 7, "--overwrite", "--no-pdf")
     assert again.returncode == 0, again.stderr
     assert json.loads((tmp_path / "a" / "comparison.json").read_text()) == doc
+    assert not (tmp_path / "a" / "training-report.pdf").exists()  # --no-pdf
+    again = run("compare", spec, "--out", tmp_path / "a", "--seed", 7, "--overwrite")
     run("compare", spec, "--out", tmp_path / "b", "--seed", 7)
     for name in ("comparison.json", "tables/comparison_changes.csv", "tables/comparison_panel.csv"):
         assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes()

@@ -91,3 +91,15 @@ def test_summary_and_verdicts_say_what_the_intervals_say(result):
         assert r.verdicts["misallocation"] == expected
         if r.trained:
             assert r.verdicts["misallocation"] == "better"
+
+
+def test_training_report_first_page_answers_in_words(result):
+    from calibrate.report.training import training_pdf
+    from tests.pdf_text import page_texts
+
+    doc = result.to_dict()
+    doc["study"]["name"] = "Invented panel"
+    first = " ".join(page_texts(training_pdf(doc))[0].split())
+    assert "Did the training work?" in first
+    assert " ".join(result.summary[0].split()) in first
+    assert "different case sets" in first and "institution's policies" in first
