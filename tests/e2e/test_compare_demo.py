@@ -103,3 +103,27 @@ def test_training_report_first_page_answers_in_words(result):
     assert "Did the training work?" in first
     assert " ".join(result.summary[0].split()) in first
     assert "different case sets" in first and "institution's policies" in first
+
+
+def test_a_follow_up_phase_gives_every_change_and_whether_it_lasted(tmp_path):
+    import shutil
+
+    files = write_demo(tmp_path / "d")
+    folder = files.spec.parent
+    shutil.copy(folder / "judgments_spring.csv", folder / "judgments_followup.csv")
+    text = files.spec.read_text()
+    text = text.replace('{ path = "judgments_spring.csv", phase = "after" },',
+                        '{ path = "judgments_spring.csv", phase = "after" },\n'
+                        '  { path = "judgments_followup.csv", phase = "followup" },')
+    text = text.replace('order = ["before", "after"]', 'order = ["before", "after", "followup"]')
+    files.spec.write_text(text)
+    out = compare(load_study(files.spec), n_boot=100)
+    assert out.phases == ("before", "after", "followup")
+    pairs = [(c.from_phase, c.to_phase) for c in out.raters[0].metrics["r"]["changes"]]
+    assert pairs == [("before", "after"), ("after", "followup"), ("before", "followup")]
+    # The follow-up repeats the after round exactly: no change at all, nothing slipped back.
+    assert all(r.metrics["r"]["changes"][1].delta == pytest.approx(0, abs=1e-12) for r in out.raters)
+    assert out.summary[-1] == ("From after to followup the trained raters did not slip back clearly "
+                               "on any measure.")
+    effect = out.panel["training_effect"]["misallocation"]
+    assert (effect["from"], effect["to"]) == ("before", "followup") and effect["ci_high"] < 0
