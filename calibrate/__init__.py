@@ -6,6 +6,8 @@ The names a notebook user needs, in the order of the work::
     table = calibrate.load_study("study.toml")   # validated JudgmentTable
     result = calibrate.audit(table)              # AuditResult (writes nothing)
     calibrate.write_audit(result, "reports/mine", overwrite=True)
+    comparison = calibrate.compare(table)        # phases of a study: did the training work?
+    calibrate.write_comparison(comparison, "reports/training", overwrite=True)
 
 They load on first use, so ``import calibrate`` (and ``calibrate --help``) stays quick.
 """
@@ -23,11 +25,14 @@ _PUBLIC = {
     "audit": "calibrate.analyses",
     "AuditResult": "calibrate.analyses",
     "write_audit": "calibrate.writing",
+    "compare": "calibrate.training.phases",
+    "ComparisonResult": "calibrate.training.phases",
+    "write_comparison": "calibrate.writing",
     "CalibrateError": "calibrate.errors",
 }
 
-__all__ = ["AuditResult", "CalibrateError", "__version__", "audit", "load_study", "read_spec",
-           "write_audit"]
+__all__ = ["AuditResult", "CalibrateError", "ComparisonResult", "__version__", "audit", "compare",
+           "load_study", "read_spec", "write_audit", "write_comparison"]
 
 
 def __getattr__(name: str):

@@ -170,5 +170,39 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
         click.echo(f"Reports: {out}/panel-summary.pdf and one private report per rater in {out}/raters/")
 
 
+@main.command()
+@click.argument("spec", type=click.Path(path_type=Path))
+@click.option("--out", "out", required=True, type=click.Path(path_type=Path),
+              help="Folder for the comparison (created; see --overwrite).")
+@click.option("--overwrite", is_flag=True, help="Replace the output folder if it exists.")
+@click.option("--seed", type=int, default=None, help="Resampling seed [default: the spec's seed].")
+@click.option("--no-pdf", "no_pdf", is_flag=True, help="Skip training-report.pdf.")
+def compare(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool) -> None:
+    """Compare phases (before and after a training): each rater's change, and trained against controls."""
+    from .data.ingest import load_study
+    from .output.folder import OutputFolder
+    from .training import compare as run_compare
+    from .writing import write_comparison
+
+    OutputFolder(out, overwrite=overwrite)  # refuse early, before any work
+    table = load_study(spec)
+    for w in table.warnings:
+        click.echo(f"warning: {w}", err=True)
+    result = run_compare(table, seed=seed)
+    write_comparison(result, out, overwrite=overwrite, pdf=not no_pdf)
+    n_trained = sum(r.trained for r in result.raters)
+    click.echo(f"Compared {len(result.raters)} raters over phases {', '.join(result.phases)} "
+               f"({n_trained} trained, {len(result.raters) - n_trained} controls).")
+    if result.unmatched:
+        click.echo("Not in every phase (left out): "
+                   + ", ".join(u["rater"] for u in result.unmatched))
+    for caution in result.cautions:
+        click.echo(f"  - {caution}")
+    for line in result.summary:
+        click.echo(line)
+    click.echo(f"Results: {out}/comparison.json; tables in {out}/tables/"
+               + ("" if no_pdf else f"; report {out}/training-report.pdf"))
+
+
 if __name__ == "__main__":  # pragma: no cover
     main()

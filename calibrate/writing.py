@@ -38,3 +38,29 @@ def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False
             build_reports(result, tmp, jobs=jobs, include_excluded=include_excluded,
                           progress=progress)
     return out
+
+
+COMPARISON_TABLES = {
+    "comparison_changes": "One row per rater, metric and change between phases: values, change, "
+                          "interval, p-value and the method behind them.",
+    "comparison_values": "One row per rater, metric and phase: the value.",
+    "comparison_panel": "One row per metric, arm and change: mean change across raters with the "
+                        "paired t (interval, p, d_z) and Wilcoxon's signed-rank test.",
+}
+
+
+def write_comparison(result, out: str | Path, *, overwrite: bool = False, pdf: bool = True) -> Path:
+    """Write comparison.json, its tidy tables and (``pdf``) training-report.pdf; the folder
+    appears whole or not at all."""
+    out = Path(out)
+    frames = {"comparison_changes": result.to_frame(), "comparison_values": result.values_frame(),
+              "comparison_panel": result.panel_frame()}
+    with OutputFolder(out, overwrite=overwrite) as tmp:
+        atomic_write_text(tmp / "comparison.json", dump_json(result.to_dict()))
+        for name, frame in frames.items():
+            atomic_write_bytes(tmp / "tables" / f"{name}.csv", csv_bytes(frame))
+        if pdf:
+            from .report.training import TRAINING_FILE, training_pdf
+
+            atomic_write_bytes(tmp / TRAINING_FILE, training_pdf(result.to_dict()))
+    return out

@@ -2,12 +2,13 @@
 and the JSON Schemas of what it writes."""
 
 from .folder import OutputFolder
-from .tables import TABLE_DESCRIPTIONS, csv_bytes, results_schema
+from .tables import TABLE_DESCRIPTIONS, comparison_schema, csv_bytes, results_schema
 from .workbook import sheet_names, workbook_bytes
 
 __all__ = [
     "OutputFolder",
     "TABLE_DESCRIPTIONS",
+    "comparison_schema",
     "csv_bytes",
     "results_schema",
     "sheet_names",

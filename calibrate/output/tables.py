@@ -17,6 +17,12 @@ def results_schema() -> dict:
     return json.loads(text)
 
 
+def comparison_schema() -> dict:
+    """The JSON Schema of comparison.json (shipped in the package)."""
+    text = resources.files("calibrate.output").joinpath("schemas/comparison.schema.json").read_text("utf-8")
+    return json.loads(text)
+
+
 def csv_bytes(frame: pd.DataFrame) -> bytes:
     """A table as UTF-8 CSV; text a spreadsheet would run as a formula is escaped."""
     safe = frame.copy()

@@ -5,7 +5,8 @@ import sys
 
 import calibrate
 
-TOP = ["AuditResult", "CalibrateError", "__version__", "audit", "load_study", "read_spec", "write_audit"]
+TOP = ["AuditResult", "CalibrateError", "ComparisonResult", "__version__", "audit", "compare", "load_study",
+       "read_spec", "write_audit", "write_comparison"]
 
 SUBPACKAGES = {
     "data": ["CueDesign", "CueRule", "DataSource", "DataSummary", "JudgmentRows", "JudgmentScale",
@@ -30,10 +31,12 @@ SUBPACKAGES = {
     "panel": ["ConflictResult", "GroupPolicy", "GroupingResult", "HomogeneityResult", "MergeStep",
               "PairConflict", "adjusted_rand_index", "group_raters", "pairwise_conflict",
               "policy_homogeneity"],
-    "output": ["OutputFolder", "TABLE_DESCRIPTIONS", "csv_bytes", "results_schema", "sheet_names",
+    "output": ["OutputFolder", "TABLE_DESCRIPTIONS", "comparison_schema", "csv_bytes", "results_schema", "sheet_names",
                "workbook_bytes"],
     "report": ["build_reports", "load_report_input", "panel_pdf", "rater_file_names", "rater_pdf"],
-    "training": [],
+    "training": ["COMPARISON_SCHEMA", "Change", "ComparisonResult", "RaterComparison", "ancova_difference",
+                 "bootstrap_difference", "compare", "fisher_z_difference", "normal_difference",
+                 "paired_tests", "phase_pairs", "welch_difference"],
     "design": [],
 }
 

@@ -1,0 +1,129 @@
+"""On the demo, the planted training effect (error cut, weights moved toward the rubric for the
+trained reviewers) is found for them and not for the controls."""
+
+import json
+
+import numpy as np
+import pytest
+
+from calibrate.data import load_study, write_demo
+from calibrate.data.demo import REVIEWERS
+from calibrate.training import compare
+
+
+@pytest.fixture(scope="module")
+def result(tmp_path_factory):
+    files = write_demo(tmp_path_factory.mktemp("demo"))
+    return compare(load_study(files.spec), n_boot=400)
+
+
+def test_trained_reviewers_moved_toward_the_rubric_and_controls_did_not(result):
+    for r in result.raters:
+        change = r.metrics["misallocation"]["changes"][0]
+        assert r.trained == REVIEWERS[r.rater][1]
+        if r.trained:
+            assert change.ci_high < 0, r.rater
+    controls = [r.metrics["misallocation"]["changes"][0] for r in result.raters if not r.trained]
+    # Seven controls at the 5% level: at most one chance finding of a drop is expected.
+    assert sum(c.ci_high < 0 for c in controls) <= 1
+    arms = result.panel["metrics"]["misallocation"]
+    assert arms["trained"]["changes"][0]["p_value"] < 0.01
+    assert arms["control"]["changes"][0]["p_value"] > 0.05
+
+
+def test_difference_in_differences_excludes_zero(result):
+    effect = result.panel["training_effect"]["misallocation"]
+    assert effect["ci_high"] < 0
+    assert effect["from"] == "before" and effect["to"] == "after"
+
+
+def test_comparison_is_plain_json_and_same_seed_same_bytes(result, tmp_path):
+    text = json.dumps(result.to_dict(), sort_keys=True)
+    assert "NaN" not in text
+    files = write_demo(tmp_path / "again")
+    again = compare(load_study(files.spec), n_boot=400)
+    assert json.dumps(again.to_dict(), sort_keys=True) == text
+
+
+def test_cautions_say_the_cases_differ(result):
+    assert any("different cases" in c for c in result.cautions)
+    assert not any("no control group" in c for c in result.cautions)
+    frame = result.to_frame()
+    assert set(frame["metric"]) == {"r", "retest_r", "misallocation", "severity", "r_a"}
+    assert np.isfinite(frame["delta"]).all()
+
+
+def test_values_equal_the_audit_functions(result, tmp_path):
+    from calibrate.lens.rubric import rubric_alignment
+    from calibrate.training.phases import _fit_first
+
+    files = write_demo(tmp_path / "d")
+    table = load_study(files.spec)
+    for ph in table.phases:
+        align = rubric_alignment(table.design, _fit_first(table, ph), table.spec.rubric,
+                                 basis=table.spec.rubric_basis)
+        for r in result.raters:
+            assert r.metrics["misallocation"]["values"][ph.name] == pytest.approx(
+                align.for_rater(r.rater).misallocation, abs=1e-9)
+
+
+def test_without_a_trained_list_all_count_as_trained_and_the_caution_says_so(tmp_path):
+    import dataclasses
+
+    files = write_demo(tmp_path / "d")
+    table = load_study(files.spec)
+    table = dataclasses.replace(table, spec=dataclasses.replace(table.spec, trained=None))
+    out = compare(table, n_boot=100)
+    assert out.has_control is False and all(r.trained for r in out.raters)
+    assert out.panel["training_effect"] is None
+    assert set(out.panel["metrics"]["r"]) == {"trained"}
+    assert any("no control group" in c and "cannot be credited to the training alone" in c
+               for c in out.cautions)
+
+
+def test_summary_and_verdicts_say_what_the_intervals_say(result):
+    assert result.summary[0].startswith("From before to after the trained raters improved more than "
+                                        "the controls on")
+    assert "closeness to the rubric's weights" in result.summary[0]
+    for r in result.raters:
+        ch = r.metrics["misallocation"]["changes"][-1]
+        expected = ("better" if ch.ci_high < 0 else "worse" if ch.ci_low > 0 else "no clear change")
+        assert r.verdicts["misallocation"] == expected
+        if r.trained:
+            assert r.verdicts["misallocation"] == "better"
+
+
+def test_training_report_first_page_answers_in_words(result):
+    from calibrate.report.training import training_pdf
+    from tests.pdf_text import page_texts
+
+    doc = result.to_dict()
+    doc["study"]["name"] = "Invented panel"
+    first = " ".join(page_texts(training_pdf(doc))[0].split())
+    assert "Did the training work?" in first
+    assert " ".join(result.summary[0].split()) in first
+    assert "different case sets" in first and "institution's policies" in first
+
+
+def test_a_follow_up_phase_gives_every_change_and_whether_it_lasted(tmp_path):
+    import shutil
+
+    files = write_demo(tmp_path / "d")
+    folder = files.spec.parent
+    shutil.copy(folder / "judgments_spring.csv", folder / "judgments_followup.csv")
+    text = files.spec.read_text()
+    text = text.replace('{ path = "judgments_spring.csv", phase = "after" },',
+                        '{ path = "judgments_spring.csv", phase = "after" },\n'
+                        '  { path = "judgments_followup.csv", phase = "followup" },')
+    text = text.replace('order = ["before", "after"]', 'order = ["before", "after", "followup"]')
+    files.spec.write_text(text)
+    out = compare(load_study(files.spec), n_boot=100)
+    assert out.phases == ("before", "after", "followup")
+    pairs = [(c.from_phase, c.to_phase) for c in out.raters[0].metrics["r"]["changes"]]
+    assert pairs == [("before", "after"), ("after", "followup"), ("before", "followup")]
+    # The follow-up repeats the after round exactly: no change at all, nothing slipped back.
+    assert all(r.metrics["r"]["changes"][1].delta == pytest.approx(0, abs=1e-12) for r in out.raters)
+    assert out.summary[-1] == ("From after to followup the trained raters did not slip back clearly "
+                               "on any measure.")
+    effect = out.panel["training_effect"]["misallocation"]
+    assert (effect["from"], effect["to"]) == ("before", "followup") and effect["ci_high"] < 0
