@@ -26,7 +26,8 @@ import numpy as np
 import pandas as pd
 
 from ..agreement.offsets import severity
-from ..data.ingest import JudgmentTable, PhaseData, _natural_key
+from ..data.ingest import JudgmentTable, PhaseData
+from ..data.rules import natural_key
 from ..data.rows import JudgmentRows, line_up, standard_deviations
 from ..lens.rubric import _cue_shares, _validate_rubric
 from ..result_base import ResultMixin, jsonable
@@ -490,7 +491,7 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
     seed = spec.seed if seed is None else int(seed)
     generator = rng if rng is not None else np.random.default_rng(np.random.SeedSequence(seed))
     present = [set(table.phase(ph).raters) for ph in phases]
-    everyone = sorted(set().union(*present), key=_natural_key)
+    everyone = sorted(set().union(*present), key=natural_key)
     matched = tuple(r for r in everyone if all(r in s for s in present))
     unmatched = tuple({"rater": r, "phases": [ph for ph, s in zip(phases, present) if r in s]}
                       for r in everyone if r not in matched)
