@@ -190,18 +190,13 @@ class SeverityView:
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> SeverityView:
-        # Range use and central tendency sit in their own sub-objects; either may be absent
-        # when the study has too few judgments for them, and then the sentence is left out.
-        def sub(key, name):
-            holder = d.get(key)
-            if name in d:
-                return _num(d, name, path)
-            return _num(holder, name, f"{path}.{key}", default=None) if isinstance(holder, Mapping) else None
-
+        range_use = _get(d, "range_use", path)
+        middle = _get(d, "central_tendency", path)
         return cls(offset=_num(d, "offset", path), se=_num(d, "se", path),
-                   flags=tuple(map(str, _list(d, "flags", path, default=None))),
-                   sd_ratio=sub("range_use", "sd_ratio"), middle_share=sub("central_tendency", "middle_share"),
-                   panel_middle_share=sub("central_tendency", "panel_middle_share"))
+                   flags=tuple(map(str, _list(d, "flags", path))),
+                   sd_ratio=_num(range_use, "sd_ratio", f"{path}.range_use"),
+                   middle_share=_num(middle, "middle_share", f"{path}.central_tendency"),
+                   panel_middle_share=_num(middle, "panel_middle_share", f"{path}.central_tendency"))
 
 
 @dataclass(frozen=True)
