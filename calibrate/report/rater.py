@@ -74,18 +74,30 @@ def _g_rubric(e: RaterView) -> float | None:
     return None if e.alignment is None else e.alignment.g_rubric
 
 
+def _not_available(e: RaterView, section: str) -> str | None:
+    """'Not available: <why>.' when the audit left ``section`` null and said why."""
+    reason = e.reason(section)
+    return f"Not available: {reason}." if reason else None
+
+
 def _retest_reading(e: RaterView) -> str:
+    if e.retest is None and _not_available(e, "retest"):
+        return _not_available(e, "retest")
     return wording.retest_reading(_retest_r(e), None if e.retest is None else e.retest.n_pairs)
 
 
 def _severity_reading(e: RaterView) -> str:
     sev = e.severity
+    if sev is None and _not_available(e, "severity"):
+        return _not_available(e, "severity")
     return wording.severity_reading(None, None, ()) if sev is None else \
         wording.severity_reading(sev.offset, sev.se, sev.flags)
 
 
 def _alignment_reading(e: RaterView) -> str:
     al = e.alignment
+    if al is None and _not_available(e, "alignment"):
+        return _not_available(e, "alignment")
     return wording.alignment_reading(None, None, None) if al is None else \
         wording.alignment_reading(al.misallocation, al.most_over, al.most_under)
 

@@ -101,7 +101,9 @@ def test_null_stays_null_and_a_recorded_reason_is_printed(results):
     entry = next(e for e in changed["raters"] if e["rater"] == entry["rater"] and e["phase"] == last_phase)
     entry["lens"] = None
     entry["retest"] = None
-    entry["unavailable"] = {"lens": "the outcome is known for too few of these cases"}
+    entry["severity"] = None
+    entry["unavailable"] = {"lens": "the outcome is known for too few of these cases",
+                            "severity": "no other reader shared these cases"}
     rv = next(r for r in ResultsView.read(changed).raters if r.rater == entry["rater"] and r.phase == last_phase)
     assert rv.lens is None and rv.retest is None
     assert rv.reason("lens") == "the outcome is known for too few of these cases"
@@ -109,3 +111,54 @@ def test_null_stays_null_and_a_recorded_reason_is_printed(results):
     text = " ".join(" ".join(page_texts(rater_pdf(changed, entry["rater"]))).split())
     assert "The lens model is not available: the outcome is known for too few of these cases." in text
     assert "No case was shown to you twice, so test-retest is not available." in text
+    assert "Severity is not available: no other reader shared these cases." in text
+    assert "Not available: no other reader shared these cases." in text     # first-page reading
+
+
+#: Keys results.schema.json requires that no report prints (the output tests check them
+#: against the schema); every other required key must be read, and so required, by the view.
+NOT_READ_BY_REPORTS = {
+    "raters": set(), "policy": {"intercept", "importance_r2", "r_ci", "r2_adj", "r_cv"},
+    "retest": set(), "lens": set(), "severity": set(), "alignment": set(),
+    "drift": {"p_value", "p_adjusted"}, "panels": set(), "icc": set(), "variance_components": set(),
+    "homogeneity": set(), "d_study": set(), "groups": {"std_weights"},
+}
+
+
+def _schema_required(schema: dict) -> dict:
+    """Each object's required keys in the schema, with how to reach that object in a result."""
+    rater = schema["properties"]["raters"]["items"]
+    panel = schema["properties"]["panels"]["items"]
+
+    def first(r):
+        return r["raters"][0]
+
+    def block(name):
+        return lambda r: r["raters"][0][name]
+
+    def panel_block(name):
+        return lambda r: r["panels"][0][name]
+
+    out = {"raters": (rater["required"], first), "panels": (panel["required"], lambda r: r["panels"][0]),
+           "d_study": (panel["properties"]["d_study"]["items"]["required"], lambda r: r["panels"][0]["d_study"][0]),
+           "groups": (panel["properties"]["groups"]["items"]["required"], lambda r: r["panels"][0]["groups"][0])}
+    for name in ("policy", "retest", "lens", "severity", "alignment", "drift"):
+        out[name] = (rater["properties"][name]["required"], block(name))
+    for name in ("icc", "variance_components", "homogeneity"):
+        out[name] = (panel["properties"][name]["required"], panel_block(name))
+    return out
+
+
+def test_the_view_requires_what_the_schema_requires(results):
+    from calibrate.output.tables import results_schema
+
+    for name, (required, holder) in _schema_required(results_schema()).items():
+        for key in required:
+            broken = copy.deepcopy(results)
+            holder(broken).pop(key)
+            if key in NOT_READ_BY_REPORTS[name]:
+                ResultsView.read(broken)
+                continue
+            with pytest.raises(ResultsViewError) as caught:
+                ResultsView.read(broken)
+            assert caught.value.path.endswith(f".{key}"), (name, key, caught.value.path)
