@@ -162,3 +162,32 @@ def test_the_view_requires_what_the_schema_requires(results):
             with pytest.raises(ResultsViewError) as caught:
                 ResultsView.read(broken)
             assert caught.value.path.endswith(f".{key}"), (name, key, caught.value.path)
+
+
+@pytest.mark.parametrize("variant", ["binary", "too_few_cases"])
+def test_reports_build_for_studies_unlike_the_demo(tmp_path, variant):
+    """Binary decisions (a logistic policy beside the linear one) and a rater too few cases to
+    fit (policy null): the strict view must read what the audit writes for them."""
+    import pandas as pd
+
+    from calibrate.report import panel_pdf
+    from tests.e2e.test_study_variants import CUES, _panel
+    from tests.helpers import write_study
+
+    if variant == "binary":
+        path = write_study(tmp_path / "s", _panel(binary=True), scale="binary", jmin=0, jmax=1, cues=CUES,
+                           extra_judgment='labels = { admit = 1, decline = 0 }')
+    else:
+        df = _panel()
+        df = pd.concat([df[df["rater"] != "p1"], df[df["rater"] == "p1"].head(4)])
+        path = write_study(tmp_path / "s", df, scale="continuous", jmin=0, jmax=100, cues=CUES)
+    results = json.loads(json.dumps(audit(path, n_boot=100).to_dict()))
+    view = ResultsView.read(results)
+    assert panel_pdf(results).startswith(b"%PDF")
+    for rater in view.rater_ids():
+        assert rater_pdf(results, rater).startswith(b"%PDF")
+    if variant == "too_few_cases":
+        p1 = next(r for r in view.raters if r.rater == "p1")
+        assert p1.policy is None
+        text = " ".join(" ".join(page_texts(rater_pdf(results, "p1"))).split())
+        assert "Your policy is not available for this study" in text
