@@ -26,6 +26,7 @@ from .styles import (
 from .view import PanelView
 from .wording import fmt
 
+
 def _finite(value: float) -> float | None:
     """A table cell as a figure: NaN (an empty cell) prints as n/a."""
     return value if math.isfinite(value) else None

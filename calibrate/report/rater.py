@@ -19,7 +19,6 @@ from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, T
 
 from . import charts, wording
 from ._read import ReportInput, id_pattern
-from .view import CutoffView, GroupView, PolicyView, RaterView
 from .styles import (
     ACCENT,
     ACCENT_LIGHT,
@@ -37,6 +36,7 @@ from .styles import (
     table_style,
     text,
 )
+from .view import CutoffView, GroupView, PolicyView, RaterView
 from .wording import fmt
 
 

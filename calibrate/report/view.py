@@ -146,7 +146,8 @@ class PolicyView:
             pair = _get(_get(d, "ci", path), term, f"{path}.ci")
             lo, hi = (None, None) if pair is None else (_number(v, f"{path}.ci.{term}") for v in pair)
             intervals[term] = None if lo is None or hi is None else (lo, hi)
-        return cls(r=_num(d, "r", path), weights=weights, weight_intervals=intervals, std_weights=_numbers(_get(d, "std_weights", path), f"{path}.std_weights"),
+        return cls(r=_num(d, "r", path), weights=weights, weight_intervals=intervals,
+                   std_weights=_numbers(_get(d, "std_weights", path), f"{path}.std_weights"),
                    importance=_numbers(_get(d, "importance", path), f"{path}.importance"), look_again=cases)
 
 
@@ -393,7 +394,8 @@ class PanelView:
                 lo, hi = _num(f, "ci_low", where), _num(f, "ci_high", where)
                 if lo is not None and hi is not None:
                     intervals[str(_get(f, "form", where))] = (lo, hi)
-            icc = IccView(estimates={k: _num(icc_block, k, f"{path}.icc") for k in ("i1", "a1", "c1", "ik", "ak", "ck")},
+            forms = ("i1", "a1", "c1", "ik", "ak", "ck")
+            icc = IccView(estimates={k: _num(icc_block, k, f"{path}.icc") for k in forms},
                           intervals=intervals, method=_optional_text(icc_block.get("method") or detail.get("method")),
                           ci_method=_optional_text(detail.get("ci_method")))
         vc = _block(d, "variance_components", path)
@@ -439,7 +441,8 @@ class PanelView:
             groups=tuple(GroupView(str(_get(g, "group", f"{path}.groups[{i}]")),
                                    tuple(map(str, _list(g, "raters", f"{path}.groups[{i}]"))),
                                    _optional_text(g.get("sets_apart")),
-                                   _numbers(_get(g, "importance", f"{path}.groups[{i}]"), f"{path}.groups[{i}].importance"))
+                                   _numbers(_get(g, "importance", f"{path}.groups[{i}]"),
+                                            f"{path}.groups[{i}].importance"))
                          for i, g in enumerate(_list(d, "groups", path))),
             grouping=grouping,
             homogeneity=None if hom is None else (_num(hom, "statistic", f"{path}.homogeneity"),
@@ -503,7 +506,8 @@ class ResultsView:
             else:
                 warnings.append(StudyWarning(str(w), ""))
         terms = _list(summary, "design_terms", "results.data_summary", default=None)
-        raters = tuple(RaterView.read(e, f"results.raters[{i}]") for i, e in enumerate(_list(results, "raters", "results")))
+        raters = tuple(RaterView.read(e, f"results.raters[{i}]")
+                       for i, e in enumerate(_list(results, "raters", "results")))
         if not terms:
             terms = next((list(r.policy.std_weights) for r in raters if r.policy and r.policy.std_weights), [])
         cues = list(_get(summary, "missing_per_cue", "results.data_summary", default=None) or [])
@@ -522,7 +526,8 @@ class ResultsView:
             phases=recorded or (None,), phase_order=recorded, phase_counts=counts,
             cues=tuple(map(str, cues)), design_terms=tuple(map(str, terms)), rubric_shares=rubric_shares,
             warnings=tuple(warnings), raters=raters,
-            panels=tuple(PanelView.read(p, f"results.panels[{i}]") for i, p in enumerate(_list(results, "panels", "results"))))
+            panels=tuple(PanelView.read(p, f"results.panels[{i}]")
+                         for i, p in enumerate(_list(results, "panels", "results"))))
 
     # ------------------------------------------------------------ look-ups
     def rater_ids(self) -> list[str]:
