@@ -25,6 +25,11 @@ def numbers_in(text: str) -> list[str]:
     return _PRINTED_NUMBER.findall(text)
 
 
+def entries_of(results: dict, rater: str) -> list[dict]:
+    """The rater's raw results.json entries, in the order written (phase order)."""
+    return [e for e in results["raters"] if e["rater"] == rater]
+
+
 def numbers_of(entries) -> set[str]:
     """Every number inside JSON-like entries, as the reports print it and as ``str``."""
     found: set[str] = set()

@@ -42,7 +42,7 @@ def rater_pdf(result: Any, rater: str, *, include_excluded: bool = False) -> byt
     data = as_report_input(result)
     report = RaterReport(data, str(rater), include_excluded=include_excluded)
     buf = io.BytesIO()
-    doc = ReportDocument(buf, study_name=data.study_name, title="Private feedback",
+    doc = ReportDocument(buf, study_name=data.view.study_name, title="Private feedback",
                          caution=wording.CAUTION_LINE)
     doc.build(report.flowables())
     return buf.getvalue()
@@ -52,7 +52,7 @@ def panel_pdf(result: Any) -> bytes:
     """The chair's panel summary, as PDF bytes."""
     data = as_report_input(result)
     buf = io.BytesIO()
-    doc = ReportDocument(buf, study_name=data.study_name, title="Panel summary (names every rater)",
+    doc = ReportDocument(buf, study_name=data.view.study_name, title="Panel summary (names every rater)",
                          caution=wording.CAUTION_LINE)
     doc.build(PanelReport(data).flowables())
     return buf.getvalue()

@@ -3,11 +3,13 @@ conflict, files to read again, excluded attributes, data quality, methods, cauti
 
 from __future__ import annotations
 
+import math
+
 from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, Table
 
 from . import charts, wording
-from ._read import ReportInput, dig, interval, num
-from .rater import _misallocation, _offset, _policy_r, _retest_r, collect_warnings
+from ._read import ReportInput
+from .rater import _g_rubric, _misallocation, _offset, _policy_r, _retest_r
 from .styles import (
     BASE_FONT,
     BODY,
@@ -21,7 +23,14 @@ from .styles import (
     table_style,
     text,
 )
+from .view import PanelView
 from .wording import fmt
+
+
+def _finite(value: float) -> float | None:
+    """A table cell as a figure: NaN (an empty cell) prints as n/a."""
+    return value if math.isfinite(value) else None
+
 
 ICC_FORMS = (("i1", "ICC(1,1)", "one rater, raters random, absolute"),
              ("a1", "ICC(A,1)", "one rater, absolute agreement"),
@@ -59,12 +68,13 @@ METHODS = (
 class PanelReport:
     def __init__(self, data: ReportInput):
         self.data = data
+        self.view = data.view
 
     def flowables(self) -> list:
         story = self.overview()
         story.append(PageBreak())
         story += self.rater_table()
-        for phase in self.data.phases:
+        for phase in self.view.phases:
             story += self.phase_sections(phase)
         story += self.files_to_reread()
         story += self.excluded()
@@ -75,24 +85,23 @@ class PanelReport:
 
     # ------------------------------------------------------------------ overview
     def overview(self) -> list:
-        res = self.data.results
         story = [text("Panel summary", TITLE),
                  text("For the chair of the panel. It names every rater; please keep it within the "
                       "committee. Each rater receives a separate private report about their own judgments.",
                       BODY)]
-        for summary in dig(res, "data_summary", "phases", default=[]) or []:
-            phase = summary.get("phase")
+        for summary in self.view.phase_counts:
+            phase = summary.phase
             story.append(text(
                 (f"Phase {phase}: " if phase else "")
-                + f"{summary.get('n_raters')} raters, {summary.get('n_cases')} cases, "
-                f"{summary.get('n_judgments')} judgments, {summary.get('n_repeat_pairs')} repeated pairs.", BODY))
+                + f"{summary.n_raters} raters, {summary.n_cases} cases, "
+                f"{summary.n_judgments} judgments, {summary.n_repeat_pairs} repeated pairs.", BODY))
         story.append(text("Flags first", HEADING))
-        flagged = [e for e in res.get("raters", []) if e.get("flags")]
+        flagged = [e for e in self.view.raters if e.flags]
         if flagged:
             rows = [[text(h, CELL_BOLD) for h in ("Rater", "Phase", "What was flagged")]]
             for e in flagged:
-                rows.append([text(e["rater"], CELL), text(e.get("phase") or "", CELL),
-                             text("; ".join(wording.flag_words(f) for f in e["flags"]), CELL)])
+                rows.append([text(e.rater, CELL), text(e.phase or "", CELL),
+                             text("; ".join(wording.flag_words(f) for f in e.flags), CELL)])
             table = Table(rows, colWidths=[90, 60, CONTENT_WIDTH - 150], repeatRows=1, hAlign="LEFT")
             table.setStyle(table_style())
             story.append(table)
@@ -101,12 +110,12 @@ class PanelReport:
         story.append(text("Panel at a glance", HEADING))
         rows = [[text(h, CELL_BOLD) for h in ("Phase", "ICC(A,1)", "Krippendorff's alpha", "Groups",
                                              "Policies alike? (p)", "Reading")]]
-        for phase in self.data.phases:
-            panel = self.data.panel(phase)
-            a1 = num(dig(panel, "icc", "a1"))
-            alpha = num(panel.get("alpha"))
-            groups = panel.get("groups") or []
-            hom_p = num(dig(panel, "homogeneity", "p_value"))
+        for phase in self.view.phases:
+            panel = self.view.panel(phase)
+            a1 = None if panel is None or panel.icc is None else panel.icc.estimates["a1"]
+            alpha = None if panel is None else panel.alpha
+            groups = () if panel is None else panel.groups
+            hom_p = None if panel is None or panel.homogeneity is None else panel.homogeneity[1]
             reading = []
             if a1 is not None:
                 reading.append(f"single-rater agreement {wording.icc_reading(a1)} ({wording.ICC_BANDS.source})")
@@ -130,12 +139,12 @@ class PanelReport:
         head = ("Rater", "Phase", "Cases", "Repeats", "R_s", "Retest r", "Offset", "Misalloc.", "G rubric",
                 "Group", "Flags")
         rows = [[text(h, CELL_BOLD) for h in head]]
-        for e in self.data.results.get("raters", []):
-            rows.append([text(e["rater"], CELL), text(e.get("phase") or "", CELL), text(str(e.get("n_cases")), CELL),
-                         text(str(e.get("n_repeats")), CELL), text(fmt(_policy_r(e)), CELL),
+        for e in self.view.raters:
+            rows.append([text(e.rater, CELL), text(e.phase or "", CELL), text(str(e.n_cases), CELL),
+                         text(str(e.n_repeats), CELL), text(fmt(_policy_r(e)), CELL),
                          text(fmt(_retest_r(e)), CELL), text(fmt(_offset(e)), CELL),
-                         text(fmt(_misallocation(e)), CELL), text(fmt(num(dig(e, "alignment", "g_rubric"))), CELL),
-                         text(str(e.get("group") or ""), CELL), text(", ".join(e.get("flags", [])), CELL)])
+                         text(fmt(_misallocation(e)), CELL), text(fmt(_g_rubric(e)), CELL),
+                         text(e.group or "", CELL), text(", ".join(e.flags), CELL)])
         widths = [62, 40, 34, 40, 32, 40, 36, 44, 42, 34]
         widths.append(CONTENT_WIDTH - sum(widths))
         table = Table(rows, colWidths=widths, repeatRows=1)
@@ -148,7 +157,9 @@ class PanelReport:
     # ------------------------------------------------------------------ per phase
     def phase_sections(self, phase) -> list:
         label = f" (phase {phase})" if phase else ""
-        panel = self.data.panel(phase)
+        panel = self.view.panel(phase)
+        if panel is None:
+            return [CondPageBreak(100), text(f"Panel results{label} are not in the results.", BODY)]
         story = [CondPageBreak(250), text(f"Cue weights by rater{label}", HEADING)]
         story += self.heat_map(phase)
         story += [CondPageBreak(200), text(f"Groups of raters{label}", HEADING)]
@@ -160,98 +171,90 @@ class PanelReport:
         return story
 
     def heat_map(self, phase) -> list:
-        entries = [e for e in self.data.entries_in(phase) if dig(e, "policy", "std_weights")]
+        entries = [e for e in self.view.entries_in(phase) if e.policy is not None and e.policy.std_weights]
         if not entries:
             return [text("Standardized weights are not available yet for this phase.", BODY)]
-        terms = self.data.design_terms() or list(entries[0]["policy"]["std_weights"])
-        entries.sort(key=lambda e: (str(e.get("group") or "~"), str(e["rater"])))
-        values = [[num(e["policy"]["std_weights"].get(t)) for t in terms] for e in entries]
-        image = charts.weight_heat_map([str(e["rater"]) for e in entries], terms, values,
-                                       [e.get("group") for e in entries], width_pt=CONTENT_WIDTH)
+        terms = list(self.view.design_terms) or list(entries[0].policy.std_weights)
+        entries.sort(key=lambda e: (e.group or "~", e.rater))
+        values = [[e.policy.std_weights.get(t) for t in terms] for e in entries]
+        image = charts.weight_heat_map([e.rater for e in entries], terms, values,
+                                       [e.group for e in entries], width_pt=CONTENT_WIDTH)
         return [image, text("Rows are raters ordered by group (letter in brackets); green: the judgment rises "
                             "with the cue, brown: it falls. Weights are on z-scored cues and judgments.", SMALL)]
 
-    def groups(self, panel: dict) -> list:
-        groups = panel.get("groups") or []
+    def groups(self, panel: PanelView) -> list:
+        groups = panel.groups
         if not groups:
             return [text("Groups of raters are not available for this study yet.", BODY)]
         story = []
-        grouping = panel.get("grouping") or {}
-        merges = grouping.get("merges") or panel.get("merges") or []
-        leaves = [str(r.get("rater")) for r in grouping.get("raters", []) if r.get("group")] or \
-            sorted({str(r) for g in groups for r in g.get("raters", [])})
+        grouping = panel.grouping
+        merges = grouping.merges if grouping is not None else ()
+        leaves = list(grouping.grouped_raters if grouping is not None else ()) or \
+            sorted({r for g in groups for r in g.raters})
         if merges:
-            base = num(grouping.get("r2_individual"))
+            base = grouping.r2_individual
             steps = []
             for m in merges:
-                r2 = num(m.get("r2"))
-                height = (base - r2) if (base is not None and r2 is not None) else float(m.get("step", 0))
-                steps.append((m.get("merged_a", []), m.get("merged_b", []), height))
-            leaf_group = {str(r): g.get("group") for g in groups for r in g.get("raters", [])}
+                height = (base - m.r2) if (base is not None and m.r2 is not None) else m.step
+                steps.append((list(m.merged_a), list(m.merged_b), height))
+            leaf_group = {r: g.group for g in groups for r in g.raters}
             story.append(charts.grouping_tree(leaves, steps, leaf_group, width_pt=CONTENT_WIDTH * 0.85))
-            rule = grouping.get("rule")
-            if rule:
-                story.append(text(f"Number of groups: {rule}", SMALL))
+            if grouping.rule:
+                story.append(text(f"Number of groups: {grouping.rule}", SMALL))
         rows = [[text(h, CELL_BOLD) for h in ("Group", "Raters", "What sets it apart")]]
         for g in groups:
-            rows.append([text(str(g.get("group")), CELL), text(", ".join(map(str, g.get("raters", []))), CELL),
-                         text(str(g.get("sets_apart") or ""), CELL)])
+            rows.append([text(g.group, CELL), text(", ".join(g.raters), CELL),
+                         text(g.sets_apart or "", CELL)])
         table = Table(rows, colWidths=[45, 170, CONTENT_WIDTH - 215], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
-        hom = panel.get("homogeneity")
-        if hom:
+        if panel.homogeneity is not None:
+            statistic, p_value = panel.homogeneity
             story.append(text(f"Test that all raters share one set of weights: statistic "
-                              f"{fmt(num(hom.get('statistic')))}, p = {wording.fmt_p(num(hom.get('p_value')))}.", BODY))
+                              f"{fmt(statistic)}, p = {wording.fmt_p(p_value)}.", BODY))
         return story
 
-    def agreement(self, panel: dict) -> list:
+    def agreement(self, panel: PanelView) -> list:
         story = []
-        icc = panel.get("icc")
-        if icc:
+        icc = panel.icc
+        if icc is not None:
             rows = [[text(h, CELL_BOLD) for h in ("Form", "Estimate", "95% interval", "Meaning", "Reading")]]
-            detail = {f.get("form"): f for f in dig(panel, "agreement", "icc_detail", "forms", default=[]) or []}
             for key, label, meaning in ICC_FORMS:
-                value = icc.get(key)
-                est = num(value)
-                ci = interval(value) if isinstance(value, dict) else interval(detail.get(key))
+                est = icc.estimates[key]
+                ci = icc.intervals.get(key)
                 rows.append([text(label, CELL), text(fmt(est), CELL),
                              text(f"{fmt(ci[0])} to {fmt(ci[1])}" if ci else "", CELL), text(meaning, CELL),
                              text(wording.icc_reading(est), CELL)])
             table = Table(rows, colWidths=[60, 50, 80, 200, CONTENT_WIDTH - 390], hAlign="LEFT")
             table.setStyle(table_style())
             story.append(table)
-            method = icc.get("method") or dig(panel, "agreement", "icc_detail", "method")
-            if method:
-                ci_method = dig(panel, "agreement", "icc_detail", "ci_method")
-                story.append(text(f"Estimated by: {method}" + (f"; intervals: {ci_method}" if ci_method else "")
-                                  + ".", SMALL))
+            if icc.method:
+                story.append(text(f"Estimated by: {icc.method}"
+                                  + (f"; intervals: {icc.ci_method}" if icc.ci_method else "") + ".", SMALL))
             story.append(text(f"Bands: {wording.ICC_BANDS.source}.", SMALL))
         else:
             story.append(text("ICC agreement is not available for this study yet.", BODY))
-        alpha = num(panel.get("alpha"))
+        alpha = panel.alpha
         if alpha is not None:
             story.append(text(f"Krippendorff's alpha = {fmt(alpha)}: {wording.ALPHA_BANDS.words(alpha)} "
                               f"({wording.ALPHA_BANDS.source}).", BODY))
-        vc = panel.get("variance_components")
-        if vc:
-            parts = ", ".join(f"{k} {fmt(num(vc.get(k)), 3)}" for k in ("case", "rater", "residual")
-                              if num(vc.get(k)) is not None)
-            how = f" ({vc['estimator']})" if isinstance(vc.get("estimator"), str) else ""
+        vc = panel.variance_components
+        if vc is not None:
+            parts = ", ".join(f"{k} {fmt(v, 3)}" for k, v in vc.items() if v is not None)
+            how = f" ({panel.variance_estimator})" if panel.variance_estimator is not None else ""
             story.append(text(f"Variance components{how}: {parts}.", BODY))
-        d_study = panel.get("d_study") or []
+        d_study = panel.d_study
         if d_study:
             rows = [[text(h, CELL_BOLD) for h in ("Readers per file", "Relative G (ranking)",
                                                  "Phi (absolute level)")]]
             for row in d_study:
-                rows.append([text(str(row.get("raters")), CELL), text(fmt(num(row.get("g_rel"))), CELL),
-                             text(fmt(num(row.get("phi"))), CELL)])
+                rows.append([text(str(row.raters), CELL), text(fmt(row.g_rel), CELL), text(fmt(row.phi), CELL)])
             table = Table(rows, colWidths=[100, 120, 120], hAlign="LEFT")
             table.setStyle(table_style())
             story += [Spacer(1, 4), table,
                       text("How dependable a file's mean score would be with this many readers "
                            "(Cronbach et al. 1972; Brennan 2001).", SMALL)]
-            needed = panel.get("readers_needed") or {}
+            needed = panel.readers_needed
             bits = []
             for key, what in (("g_rel", "ranking files (relative G)"), ("phi", "absolute levels (phi)")):
                 value = needed.get(key)
@@ -262,28 +265,26 @@ class PanelReport:
                     bits.append(f"for {what}: {value}")
             if bits:
                 story.append(text("Readers per file needed " + "; ".join(bits) + ".", BODY))
-            flips = panel.get("flips") or []
+            flips = panel.flips
             if flips:
-                parts = [f"{f.get('raters')} reader(s): {fmt(100 * num(f.get('flip_rate')), 0)}%"
-                         for f in flips if num(f.get("flip_rate")) is not None]
+                parts = [f"{readers} reader(s): {fmt(100 * rate, 0)}%" for readers, rate in flips]
                 story.append(text("How often a file near the cut-off would land on the other side with other "
                                   "readers: " + ", ".join(parts) + ".", BODY))
         else:
             story.append(text("The readers-per-file table is not available for this study yet.", BODY))
         return story
 
-    def conflict(self, panel: dict) -> list:
-        pairs = dig(panel, "conflict", "pairs") or panel.get("pairs") or []
+    def conflict(self, panel: PanelView) -> list:
+        pairs = panel.pairs
         if not pairs:
             return [text("The pairwise view is not available for this study yet.", BODY)]
-        pairs = sorted(pairs, key=lambda p: (num(p.get("r")) if num(p.get("r")) is not None else 9))[:15]
+        pairs = sorted(pairs, key=lambda p: p.r if p.r is not None else 9)[:15]
         rows = [[text(h, CELL_BOLD) for h in ("Rater", "Rater", "Shared cases", "r", "G", "C",
                                              "Mainly from")]]
         for p in pairs:
-            source = p.get("main_source")
-            rows.append([text(p.get("rater_a"), CELL), text(p.get("rater_b"), CELL), text(str(p.get("n")), CELL),
-                         text(fmt(num(p.get("r"))), CELL), text(fmt(num(p.get("g"))), CELL),
-                         text(fmt(num(p.get("c"))), CELL),
+            source = p.main_source
+            rows.append([text(p.rater_a, CELL), text(p.rater_b, CELL), text(str(p.n), CELL),
+                         text(fmt(p.r), CELL), text(fmt(p.g), CELL), text(fmt(p.c), CELL),
                          text({"weighting": "different weighting (G)", "inconsistency": "inconsistency (R_s)"}
                               .get(source, str(source or "")), CELL)])
         table = Table(rows, colWidths=[70, 70, 60, 40, 40, 40, CONTENT_WIDTH - 320], repeatRows=1, hAlign="LEFT")
@@ -299,8 +300,8 @@ class PanelReport:
         if frame is not None:
             flag_col = next((c for c in ("needs_another_read", "another_read", "reread") if c in frame.columns), None)
         if frame is None or flag_col is None:
-            listed = [(p.get("phase"), p.get("files_needing_another_read")) for p in self.data.results.get("panels", [])
-                      if p.get("files_needing_another_read")]
+            listed = [(p.phase, p.files_needing_another_read) for p in self.view.panels
+                      if p.files_needing_another_read]
             if not listed:
                 return story + [text("The per-file results are not available for this study yet.", BODY)]
             for phase, ids in listed:
@@ -325,7 +326,7 @@ class PanelReport:
         shown = (chosen.groupby("phase", sort=False).head(per_phase) if "phase" in chosen.columns
                  else chosen.head(per_phase))
         for _, r in shown.iterrows():
-            rows.append([text(fmt(num(r[c])) if isinstance(r[c], float) else str(r[c]), CELL) for c in cols])
+            rows.append([text(fmt(_finite(r[c])) if isinstance(r[c], float) else str(r[c]), CELL) for c in cols])
         table = Table(rows, repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
@@ -336,7 +337,7 @@ class PanelReport:
     def _most_urgent_first(self, chosen):
         """Files whose readers disagree come first, then files whose adjusted score sits closest
         to the cut-off for its uncertainty; phases keep their order."""
-        cut = num(dig(self.data.results, "judgment", "cut_off"))
+        cut = self.view.cut_off
         chosen = chosen.copy()
         reasons = chosen["reasons"].astype(str) if "reasons" in chosen.columns else ""
         chosen["_disagree"] = ~reasons.str.contains("high_disagreement") if "reasons" in chosen.columns else True
@@ -344,7 +345,7 @@ class PanelReport:
             chosen["_closeness"] = (chosen["adjusted"] - cut).abs() / chosen["se"].where(chosen["se"] > 0)
         else:
             chosen["_closeness"] = 0.0
-        phases = list(self.data.results.get("phases", []))
+        phases = list(self.view.phase_order)
         if "phase" in chosen.columns:
             chosen["_phase"] = chosen["phase"].map({p: i for i, p in enumerate(phases)})
         else:
@@ -355,11 +356,9 @@ class PanelReport:
     def excluded(self) -> list:
         story = [CondPageBreak(150), text("Attributes that must not count", HEADING)]
         rows = []
-        for e in self.data.results.get("raters", []):
-            for attr, res in (e.get("excluded") or {}).items():
-                res = res or {}
-                rows.append((e["rater"], e.get("phase") or "", attr, num(res.get("delta_r2")),
-                             num(res.get("p_value")), num(res.get("p_adjusted")), bool(res.get("flagged"))))
+        for e in self.view.raters:
+            for attr, res in e.excluded.items():
+                rows.append((e.rater, e.phase or "", attr, res.delta_r2, res.p_value, res.p_adjusted, res.flagged))
         if not rows:
             return story + [text("No excluded-attribute result is available for this study.", BODY)]
         rows.sort(key=lambda r: (not r[6], r[5] if r[5] is not None else 9))
@@ -375,9 +374,8 @@ class PanelReport:
         story += [text("Each attribute added to each rater's policy; p adjusted across raters and attributes "
                        "(Holm). An association can run through a cue related to the attribute. Flagged "
                        "results first.", BODY), table]
-        proxies = [(p.get("attribute"), p.get("cue"), num(p.get("association")))
-                   for panel in self.data.results.get("panels", []) for p in panel.get("excluded_proxies") or []
-                   if p.get("strong")]
+        proxies = [(p.attribute, p.cue, p.association) for panel in self.view.panels for p in panel.proxies
+                   if p.strong]
         if proxies:
             story.append(text("Cues strongly related to an excluded attribute (a rater can lean on the attribute "
                               "through them): " + "; ".join(f"{c} with {a} ({fmt(v)})" for a, c, v in
@@ -389,19 +387,14 @@ class PanelReport:
 
     def all_warnings(self) -> list[tuple[str, str]]:
         out: list[tuple[str, str]] = []
-        for w in self.data.results.get("warnings", []):
-            where = ""
-            if isinstance(w, dict):
-                bits = [f"{k} {w[k]}" for k in ("file", "row", "column") if w.get(k) is not None]
-                where = ", ".join(bits)
-                w = w.get("message")
-            out.append((f"reading the data ({where})" if where else "analysis", str(w)))
-        for e in self.data.results.get("raters", []):
-            for msg in collect_warnings(e):
-                out.append((f"fitting {e['rater']}" + (f", {e.get('phase')}" if e.get("phase") else ""), msg))
-        for p in self.data.results.get("panels", []):
-            for msg in collect_warnings(p):
-                out.append(("panel" + (f", {p.get('phase')}" if p.get("phase") else ""), msg))
+        for w in self.view.warnings:
+            out.append((f"reading the data ({w.where})" if w.where else "analysis", w.message))
+        for e in self.view.raters:
+            for msg in e.warnings:
+                out.append((f"fitting {e.rater}" + (f", {e.phase}" if e.phase else ""), msg))
+        for p in self.view.panels:
+            for msg in p.warnings:
+                out.append(("panel" + (f", {p.phase}" if p.phase else ""), msg))
         return out
 
     def data_quality(self) -> list:

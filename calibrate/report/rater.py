@@ -18,7 +18,7 @@ from xml.sax.saxutils import escape
 from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, Table
 
 from . import charts, wording
-from ._read import ReportInput, dig, id_pattern, interval, num
+from ._read import ReportInput, id_pattern
 from .styles import (
     ACCENT,
     ACCENT_LIGHT,
@@ -36,72 +36,80 @@ from .styles import (
     table_style,
     text,
 )
+from .view import CutoffView, GroupView, PolicyView, RaterView
 from .wording import fmt
 
 
 @dataclass(frozen=True)
 class KeyFigure:
-    """One row of the first page: a figure, where it lives in results.json, its reading."""
+    """One row of the first page: a figure of a rater's entry and its reading."""
 
     label: str
-    value: Callable[[dict], float | None]
-    reading: Callable[[dict], str]
+    value: Callable[[RaterView], float | None]
+    reading: Callable[[RaterView], str]
     strip: tuple[float, float, str, str] | None  # axis low, high, words at each end
 
 
-def _policy_r(e):
-    return num(dig(e, "policy", "r"))
+def _policy_r(e: RaterView) -> float | None:
+    return None if e.policy is None else e.policy.r
 
 
-def _retest_r(e):
-    return num(dig(e, "retest", "r"))
+def _retest_r(e: RaterView) -> float | None:
+    return None if e.retest is None else e.retest.r
 
 
-def _agreement_r(e):
-    block = e.get("agreement")
-    if isinstance(block, dict):
-        return num(block.get("r", block.get("estimate")))
-    return num(block)
+def _agreement_r(e: RaterView) -> float | None:
+    return e.agreement_r
 
 
-def _offset(e):
-    sev = e.get("severity") or {}
-    return num(sev.get("offset", sev.get("estimate")))
+def _offset(e: RaterView) -> float | None:
+    return None if e.severity is None else e.severity.offset
 
 
-def _severity_value(e, key):
-    """A severity figure, flat (``sd_ratio``) or nested (``range_use.sd_ratio``)."""
-    sev = e.get("severity") or {}
-    for holder in (sev, sev.get("range_use") or {}, sev.get("central_tendency") or {}):
-        if isinstance(holder, dict) and key in holder:
-            return num(holder[key])
-    return None
+def _misallocation(e: RaterView) -> float | None:
+    return None if e.alignment is None else e.alignment.misallocation
 
 
-def _misallocation(e):
-    return num(dig(e, "alignment", "misallocation"))
+def _g_rubric(e: RaterView) -> float | None:
+    return None if e.alignment is None else e.alignment.g_rubric
 
 
-def _g_rubric(e):
-    return num(dig(e, "alignment", "g_rubric"))
+def _not_available(e: RaterView, section: str) -> str | None:
+    """'Not available: <why>.' when the audit left ``section`` null and said why."""
+    reason = e.reason(section)
+    return f"Not available: {reason}." if reason else None
+
+
+def _retest_reading(e: RaterView) -> str:
+    if e.retest is None and _not_available(e, "retest"):
+        return _not_available(e, "retest")
+    return wording.retest_reading(_retest_r(e), None if e.retest is None else e.retest.n_pairs)
+
+
+def _severity_reading(e: RaterView) -> str:
+    sev = e.severity
+    if sev is None and _not_available(e, "severity"):
+        return _not_available(e, "severity")
+    return wording.severity_reading(None, None, ()) if sev is None else \
+        wording.severity_reading(sev.offset, sev.se, sev.flags)
+
+
+def _alignment_reading(e: RaterView) -> str:
+    al = e.alignment
+    if al is None and _not_available(e, "alignment"):
+        return _not_available(e, "alignment")
+    return wording.alignment_reading(None, None, None) if al is None else \
+        wording.alignment_reading(al.misallocation, al.most_over, al.most_under)
 
 
 KEY_FIGURES = (
     KeyFigure("Consistency (R_s)", _policy_r,
               lambda e: wording.consistency_reading(_policy_r(e)), (0.0, 1.0, "looser", "closer")),
-    KeyFigure("Test-retest r", _retest_r,
-              lambda e: wording.retest_reading(_retest_r(e), dig(e, "retest", "n_pairs")),
-              (0.0, 1.0, "looser", "closer")),
+    KeyFigure("Test-retest r", _retest_r, _retest_reading, (0.0, 1.0, "looser", "closer")),
     KeyFigure("Agreement with the panel (r)", _agreement_r,
               lambda e: wording.agreement_reading(_agreement_r(e)), (0.0, 1.0, "lower", "higher")),
-    KeyFigure("Severity offset", _offset,
-              lambda e: wording.severity_reading(_offset(e), num(dig(e, "severity", "se")),
-                                                 tuple(dig(e, "severity", "flags", default=()))),
-              (-1.0, 1.0, "lower", "higher")),
-    KeyFigure("Rubric misallocation", _misallocation,
-              lambda e: wording.alignment_reading(_misallocation(e), dig(e, "alignment", "most_over"),
-                                                  dig(e, "alignment", "most_under")),
-              (0.0, 0.5, "closer", "further")),
+    KeyFigure("Severity offset", _offset, _severity_reading, (-1.0, 1.0, "lower", "higher")),
+    KeyFigure("Rubric misallocation", _misallocation, _alignment_reading, (0.0, 0.5, "closer", "further")),
     KeyFigure("Match with the rubric (G)", _g_rubric,
               lambda e: ("No rubric was given." if _g_rubric(e) is None else
                          f"Your policy and the rubric {wording.MATCH_BANDS.words(_g_rubric(e))}."),
@@ -114,14 +122,15 @@ class RaterReport:
 
     def __init__(self, data: ReportInput, rater: str, *, include_excluded: bool = False):
         self.data = data
+        self.view = data.view
         self.rater = rater
         self.include_excluded = include_excluded
-        self.entries = data.entries_of(rater)
+        self.entries = self.view.entries_of(rater)
         if not self.entries:
             raise KeyError(f"rater {rater!r} is not in the results")
         self.entry = self.entries[-1]        # detailed sections: the latest phase
-        self.phase = self.entry.get("phase")
-        self.others = id_pattern(r for r in data.rater_ids() if r != rater)
+        self.phase = self.entry.phase
+        self.others = id_pattern(r for r in self.view.rater_ids() if r != rater)
 
     # ------------------------------------------------------------ helpers
     def private(self, sentence: str | None) -> str | None:
@@ -132,22 +141,20 @@ class RaterReport:
             return None
         return str(sentence)
 
-    def peers(self, phase) -> list[dict]:
-        return [e for e in self.data.entries_in(phase) if str(e["rater"]) != self.rater]
+    def peers(self, phase) -> list[RaterView]:
+        return [e for e in self.view.entries_in(phase) if e.rater != self.rater]
 
     def shows_peers(self, phase) -> bool:
-        return len(self.data.entries_in(phase)) >= wording.MIN_PANEL_FOR_PEERS
+        return len(self.view.entries_in(phase)) >= wording.MIN_PANEL_FOR_PEERS
 
     def scale(self) -> tuple[float, float] | None:
-        lo = num(dig(self.data.results, "judgment", "min"))
-        hi = num(dig(self.data.results, "judgment", "max"))
-        if lo is None or hi is None:
+        if self.view.scale is None:
             frame = self.data.table("repeat_pairs", "repeats")
             if frame is not None:
                 vals = frame[["first", "second"]].to_numpy(dtype=float)
                 return float(vals.min()), float(vals.max())
             return None
-        return lo, hi
+        return self.view.scale
 
     # ------------------------------------------------------------ sections
     def flowables(self) -> list:
@@ -171,10 +178,10 @@ class RaterReport:
                  markup(f"Prepared for <b>{escape(wording.to_text(self.rater))}</b> alone. "
                         "It describes how your judgments relate to the information in the cases, "
                         "so you can decide which cues and which cases to look at again.", BODY)]
-        phases = [x.get("phase") for x in self.entries]
+        phases = [x.phase for x in self.entries]
         counts = ", ".join(
-            f"{x.get('n_cases')} cases" + (f" in phase {x.get('phase')}" if x.get("phase") else "")
-            + (f" ({x.get('n_repeats')} shown twice)" if x.get("n_repeats") else "")
+            f"{x.n_cases} cases" + (f" in phase {x.phase}" if x.phase else "")
+            + (f" ({x.n_repeats} shown twice)" if x.n_repeats else "")
             for x in self.entries)
         story.append(text(f"You judged {counts}.", BODY))
         story.append(Spacer(1, 4))
@@ -186,8 +193,8 @@ class RaterReport:
             story.append(text("The panel has fewer than five raters, so no comparison with colleagues is "
                               "shown: with so few, a summary could reveal a colleague's figures.", SMALL))
         story += self.group_line()
-        story.append(text(wording.drift_reading(e.get("drift")), BODY))
-        flags = [f for f in e.get("flags", []) if f != "excluded_attribute" or self.include_excluded]
+        story.append(text(wording.drift_reading(e.drift, e.reason("drift")), BODY))
+        flags = [f for f in e.flags if f != "excluded_attribute" or self.include_excluded]
         if flags:
             items = "; ".join(escape(wording.flag_words(f)) for f in flags)
             story.append(markup(f"<b>Worth a look:</b> {items}.", NOTE))
@@ -223,23 +230,21 @@ class RaterReport:
         table.setStyle(table_style(("VALIGN", (0, 1), (-1, -1), "MIDDLE")))
         return table
 
-    def my_group(self) -> dict | None:
-        label = self.entry.get("group")
-        if label is None:
+    def my_group(self) -> GroupView | None:
+        label = self.entry.group
+        panel = self.view.panel(self.phase)
+        if label is None or panel is None:
             return None
-        for g in dig(self.data.panel(self.phase), "groups", default=[]) or []:
-            if str(g.get("group")) == str(label):
-                return g
-        return None
+        return next((g for g in panel.groups if g.group == label), None)
 
     def group_line(self) -> list:
-        label = self.entry.get("group")
+        label = self.entry.group
         if label is None:
             return [text("Groups of raters with similar policies are not available for this study.", BODY)]
         sentence = f"Your policy falls in group {label} of raters who weigh the cues alike."
         group = self.my_group()
-        if group and self.shows_peers(self.phase) and len(group.get("raters", [])) >= wording.MIN_GROUP_FOR_PEERS:
-            extra = self.private(group.get("sets_apart"))
+        if group and self.shows_peers(self.phase) and len(group.raters) >= wording.MIN_GROUP_FOR_PEERS:
+            extra = self.private(group.sets_apart)
             if extra:
                 # the figures in brackets mix in other raters' weights; the first page keeps to
                 # figures from this rater's own entry
@@ -249,41 +254,47 @@ class RaterReport:
 
     def cue_weights(self) -> list:
         story = [text("How you weigh the cues", HEADING)]
-        policy = self.entry.get("policy")
-        if not policy:
-            return story + [text("Your policy is not available for this study (too few cases, or the "
+        policy = self.entry.policy
+        if policy is None:
+            reason = self.entry.reason("policy")
+            return story + [text(f"Your policy is not available: {reason}." if reason else
+                                 "Your policy is not available for this study (too few cases, or the "
                                  "analysis did not run).", BODY)]
-        cues = self.data.cues()
-        shares = dig(self.entry, "alignment", "shares") or policy.get("importance") or {}
-        series = [("your weight shares", {c: num(shares.get(c)) for c in cues if num(shares.get(c)) is not None},
+        cues = self.view.cues
+        on_rubric_basis = bool(self.entry.alignment and self.entry.alignment.shares)
+        shares = self.entry.alignment.shares if on_rubric_basis else policy.importance
+        series = [("your weight shares", {c: shares.get(c) for c in cues if shares.get(c) is not None},
                    ACCENT)]
         if self.shows_peers(self.phase):
-            median = self.panel_median_shares(cues, "shares" if dig(self.entry, "alignment", "shares") else None)
+            median = self.panel_median_shares(cues, on_rubric_basis)
             series.append(("panel median", median, PANEL))
         group = self.my_group()
         if (group and self.shows_peers(self.phase)
-                and len(group.get("raters", [])) >= wording.MIN_GROUP_FOR_PEERS and group.get("importance")):
-            series.append((f"group {group.get('group')}", {c: num(v) for c, v in group["importance"].items()},
-                           ACCENT_LIGHT))
+                and len(group.raters) >= wording.MIN_GROUP_FOR_PEERS and group.importance):
+            series.append((f"group {group.group}", dict(group.importance), ACCENT_LIGHT))
         rubric = self.rubric_shares()
         if rubric:
             series.append(("rubric", rubric, RUBRIC))
         story.append(charts.weight_chart(cues, series, width=CONTENT_WIDTH))
         story.append(text("A share is a cue's part of the whole policy; the shares add up to 1. "
                           "A cue with a larger share moves your judgments more.", SMALL))
-        cutoff = self.entry.get("cutoff") or {}
-        if cutoff.get("flagged") and cutoff.get("cue") is not None:
+        cutoff = self.entry.cutoff
+        if cutoff is not None and cutoff.flagged and cutoff.cue is not None:
             story.append(text(cutoff_sentence(cutoff), NOTE))
         story.append(self.weights_table(policy))
         return story
 
-    def panel_median_shares(self, cues, key) -> dict:
+    def panel_median_shares(self, cues, on_rubric_basis: bool) -> dict:
+        """Median share per cue over the phase's raters: rubric-basis shares or R² shares."""
         out = {}
         for c in cues:
             vals = []
-            for p in self.data.entries_in(self.phase):
-                source = dig(p, "alignment", "shares") if key else dig(p, "policy", "importance")
-                v = num((source or {}).get(c))
+            for p in self.view.entries_in(self.phase):
+                if on_rubric_basis:
+                    source = p.alignment.shares if p.alignment is not None else {}
+                else:
+                    source = p.policy.importance if p.policy is not None else {}
+                v = source.get(c)
                 if v is not None:
                     vals.append(v)
             if vals:
@@ -291,34 +302,24 @@ class RaterReport:
         return out
 
     def rubric_shares(self) -> dict:
-        for candidate in (dig(self.data.panel(self.phase), "alignment", "rubric_shares"),
-                          dig(self.data.panel(self.phase), "rubric_shares"),
-                          dig(self.data.results, "rubric", "shares"),
-                          dig(self.data.results, "rubric")):
-            if isinstance(candidate, dict) and candidate:
-                vals = {c: num(v) for c, v in candidate.items() if num(v) is not None}
-                if vals:
-                    return vals
+        if self.view.rubric_shares:
+            return dict(self.view.rubric_shares)
         frame = self.data.table("alignment")
         if frame is not None and {"cue", "rubric_share"} <= set(frame.columns):
             rows = frame.drop_duplicates("cue")
             return {str(c): float(v) for c, v in zip(rows["cue"], rows["rubric_share"]) if math.isfinite(float(v))}
         return {}
 
-    def weights_table(self, policy: dict):
-        weights = policy.get("weights") or {}
-        if not weights:
+    def weights_table(self, policy: PolicyView):
+        if not policy.weights:
             return Spacer(1, 1)
-        std = policy.get("std_weights") or {}
-        lo, hi = policy.get("ci_low") or {}, policy.get("ci_high") or {}
-        pairs = policy.get("ci") or {}
         rows = [[text(h, CELL_BOLD) for h in ("Term", "Weight (scale points per unit)", "95% interval",
                                              "Standardized weight")]]
-        for term, w in weights.items():
-            ci = interval(pairs.get(term)) or (num(lo.get(term)), num(hi.get(term)))
-            ci_text = "n/a" if None in ci else f"{fmt(ci[0])} to {fmt(ci[1])}"
-            rows.append([text(term, CELL), text(fmt(num(w)), CELL), text(ci_text, CELL),
-                         text(fmt(num(std.get(term))), CELL)])
+        for term, w in policy.weights.items():
+            ci = policy.weight_intervals.get(term)
+            ci_text = "n/a" if ci is None else f"{fmt(ci[0])} to {fmt(ci[1])}"
+            rows.append([text(term, CELL), text(fmt(w), CELL), text(ci_text, CELL),
+                         text(fmt(policy.std_weights.get(term)), CELL)])
         table = Table(rows, colWidths=[150, 120, 110, CONTENT_WIDTH - 380], repeatRows=1)
         table.setStyle(table_style())
         return KeepTogether([Spacer(1, 4), table])
@@ -326,8 +327,8 @@ class RaterReport:
     def consistency(self) -> list:
         story = [CondPageBreak(200), text("How consistently the cues are used", HEADING)]
         r_s = _policy_r(self.entry)
-        retest = self.entry.get("retest") or {}
-        r_tt = num(retest.get("r"))
+        retest = self.entry.retest
+        r_tt = _retest_r(self.entry)
         story.append(text(wording.consistency_reading(r_s), BODY))
         pairs = self.repeat_pairs()
         bounds = self.scale()
@@ -336,11 +337,12 @@ class RaterReport:
             story.append(text("Each dot is a case you saw twice; dots on the dashed line got the same "
                               "judgment both times, and larger dots stand for several cases.", SMALL))
         elif r_tt is None:
-            story.append(text("No case was shown to you twice, so test-retest is not available.", BODY))
+            reason = self.entry.reason("retest")
+            story.append(text(f"Test-retest is not available: {reason}." if reason else
+                              "No case was shown to you twice, so test-retest is not available.", BODY))
         if r_tt is not None:
-            story.append(text(wording.retest_reading(r_tt, retest.get("n_pairs")), BODY))
-            verdict = dig(self.entry, "consistency", "verdict") or retest.get("verdict")
-            story.append(text(ceiling_sentence(r_s, r_tt, verdict), BODY))
+            story.append(text(wording.retest_reading(r_tt, retest.n_pairs), BODY))
+            story.append(text(ceiling_sentence(r_s, r_tt, self.entry.ceiling_verdict), BODY))
         return story
 
     def my_rows(self, names: tuple[str, ...], x: str, y: str) -> list[tuple[float, float]]:
@@ -359,25 +361,28 @@ class RaterReport:
 
     def severity_and_range(self) -> list:
         story = [CondPageBreak(150), text("Level, range and reading order", HEADING)]
-        sev = self.entry.get("severity") or {}
-        offset, se = _offset(self.entry), num(sev.get("se"))
+        sev = self.entry.severity
+        offset = _offset(self.entry)
         if offset is None:
-            story.append(text("Severity is not available for this study.", BODY))
+            reason = self.entry.reason("severity")
+            story.append(text(f"Severity is not available: {reason}." if reason else
+                              "Severity is not available for this study.", BODY))
         else:
+            se = sev.se
             tail = f" (offset {fmt(offset)}" + (f", standard error {fmt(se)})" if se is not None else ")")
-            story.append(text(wording.severity_reading(offset, se, tuple(sev.get("flags", ()))) + tail, BODY))
-        ratio = _severity_value(self.entry, "sd_ratio")
+            story.append(text(wording.severity_reading(offset, se, sev.flags) + tail, BODY))
+        ratio = None if sev is None else sev.sd_ratio
         if ratio is not None:
             story.append(text(f"You use {wording.RANGE_BANDS.words(ratio)} (spread {fmt(ratio)} times the "
                               "panel's).", BODY))
-        middle = _severity_value(self.entry, "middle_share")
-        panel_middle = _severity_value(self.entry, "panel_middle_share")
+        middle = None if sev is None else sev.middle_share
+        panel_middle = None if sev is None else sev.panel_middle_share
         if middle is not None:
             line = f"{fmt(100 * middle, 0)}% of your judgments sit in the middle of the scale"
             if panel_middle is not None and self.shows_peers(self.phase):
                 line += f" (panel: {fmt(100 * panel_middle, 0)}%)"
             story.append(text(line + ".", BODY))
-        story.append(text(wording.drift_reading(self.entry.get("drift")), BODY))
+        story.append(text(wording.drift_reading(self.entry.drift, self.entry.reason("drift")), BODY))
         order = self.reading_order()
         bounds = self.scale()
         if order and bounds:
@@ -392,7 +397,7 @@ class RaterReport:
 
     def cases_to_revisit(self) -> list:
         story = [CondPageBreak(120), text("Cases to look at again", HEADING)]
-        cases = dig(self.entry, "policy", "look_again", default=[]) or []
+        cases = self.entry.policy.look_again if self.entry.policy is not None else ()
         if not cases:
             return story + [text("No case stands out from your own policy, or the policy is not available.",
                                  BODY)]
@@ -401,23 +406,24 @@ class RaterReport:
                           "deserves a rule.", BODY))
         rows = [[text(h, CELL_BOLD) for h in ("Case", "Your judgment", "Your policy predicts", "Difference")]]
         for c in cases[:12]:
-            j, pred = num(c.get("judgment")), num(c.get("predicted"))
+            j, pred = c.judgment, c.predicted
             diff = None if j is None or pred is None else j - pred
-            rows.append([text(str(c.get("case")), CELL), text(fmt(j, 1), CELL), text(fmt(pred, 1), CELL),
+            rows.append([text(c.case, CELL), text(fmt(j, 1), CELL), text(fmt(pred, 1), CELL),
                          text(fmt(diff, 1), CELL)])
         table = Table(rows, colWidths=[140, 100, 120, 100], hAlign="LEFT", repeatRows=1)
         table.setStyle(table_style())
         return story + [table]
 
     def lens(self) -> list:
-        lens = self.entry.get("lens")
+        lens = self.entry.lens
         story = [CondPageBreak(150), text("Judgments and the later outcome (lens model)", HEADING)]
-        if not lens:
-            return story + [text("No outcome (criterion) is recorded for this study, so this section is not "
+        if lens is None:
+            reason = self.entry.reason("lens")
+            return story + [text(f"The lens model is not available: {reason}." if reason else
+                                 "No outcome (criterion) is recorded for this study, so this section is not "
                                  "available.", BODY)]
-        r_a, g, c = num(lens.get("r_a")), num(lens.get("g")), num(lens.get("c"))
-        r_e, r_s = num(lens.get("r_e")), num(lens.get("r_s"))
-        mv, mv_cv = num(lens.get("model_validity")), num(lens.get("model_validity_cv"))
+        r_a, g, c, r_e, r_s = lens.r_a, lens.g, lens.c, lens.r_e, lens.r_s
+        mv, mv_cv = lens.model_validity, lens.model_validity_cv
         rows = [[text(h, CELL_BOLD) for h in ("Figure", "Value", "Meaning")],
                 [text("r_a", CELL), text(fmt(r_a), CELL), text("how well your judgments tracked the outcome", CELL)],
                 [text("G", CELL), text(fmt(g), CELL), text("how far your policy matches the cues' best rule", CELL)],
@@ -428,25 +434,21 @@ class RaterReport:
         table.setStyle(table_style())
         story.append(table)
         story.append(text(bootstrap_sentence(r_a, mv, mv_cv), BODY))
-        if self.data.results.get("criterion_selected") or any(
-                "criterion" in str(w.get("message", w) if isinstance(w, dict) else w)
-                and "missing" in str(w.get("message", w) if isinstance(w, dict) else w)
-                for w in self.data.results.get("warnings", [])):
+        if self.view.criterion_only_for_selected or any(
+                "criterion" in w.message and "missing" in w.message for w in self.view.warnings):
             story.append(text(wording.LENS_SELECTED_CAUTION, NOTE))
         return story
 
     def excluded(self) -> list:
         story = [CondPageBreak(100), text("Attributes that must not count", HEADING)]
-        block = self.entry.get("excluded") or {}
+        block = self.entry.excluded
         if not block:
             return story + [text("No excluded attribute was checked for this study.", BODY)]
         rows = [[text(h, CELL_BOLD) for h in ("Attribute", "Added R²", "p (adjusted)", "Reading")]]
         for attr, res in block.items():
-            res = res or {}
-            flagged = bool(res.get("flagged"))
-            rows.append([text(attr, CELL), text(fmt(num(res.get("delta_r2")), 3), CELL),
-                         text(fmt(num(res.get("p_adjusted")), 3), CELL),
-                         text("associated with your judgments beyond the cues" if flagged
+            rows.append([text(attr, CELL), text(fmt(res.delta_r2, 3), CELL),
+                         text(fmt(res.p_adjusted, 3), CELL),
+                         text("associated with your judgments beyond the cues" if res.flagged
                               else "no clear association beyond the cues", CELL)])
         table = Table(rows, colWidths=[120, 70, 80, CONTENT_WIDTH - 270], hAlign="LEFT")
         table.setStyle(table_style())
@@ -473,7 +475,7 @@ class RaterReport:
     def cautions_and_glossary(self) -> list:
         story = [CondPageBreak(150), text("Cautions", HEADING)]
         story += [text(f"- {c}", BODY) for c in wording.CAUTIONS]
-        notes = [self.private(w) for w in collect_warnings(self.entry)]
+        notes = [self.private(w) for w in self.entry.warnings]
         notes = [n for n in notes if n]
         if notes:
             story.append(text("Notes on your data", HEADING))
@@ -510,10 +512,10 @@ def ceiling_sentence(r_s: float | None, r_tt: float, verdict: str | None = None)
     return head + "The two agree: what a linear rule leaves out is mostly the ordinary noise of repeating."
 
 
-def cutoff_sentence(cutoff: dict) -> str:
-    threshold = num(cutoff.get("threshold"))
+def cutoff_sentence(cutoff: CutoffView) -> str:
+    threshold = cutoff.threshold
     at = f" near {fmt(threshold)}" if threshold is not None else ""
-    return (f"Your judgments jump when {cutoff.get('cue')} passes a point{at}, more than a steady weight "
+    return (f"Your judgments jump when {cutoff.cue} passes a point{at}, more than a steady weight "
             "would: a cut-off may be at work. Check whether the rubric intends one.")
 
 
@@ -535,23 +537,24 @@ def bootstrap_sentence(r_a, mv, mv_cv) -> str:
             "the outcome about equally.")
 
 
-def suggestions(entry: dict, *, include_excluded: bool) -> list[str]:
+def suggestions(entry: RaterView, *, include_excluded: bool) -> list[str]:
     """Concrete next steps from this rater's own figures (about cues and cases)."""
     out = []
-    over, under = dig(entry, "alignment", "most_over"), dig(entry, "alignment", "most_under")
+    over, under = (None, None) if entry.alignment is None else (entry.alignment.most_over,
+                                                                  entry.alignment.most_under)
     mis = _misallocation(entry)
     if mis is not None and mis >= wording.MISALLOCATION_BANDS.bands[1].low:
         if over:
             out.append(f"Read the rubric's guidance on {over}: your judgments lean on it more than intended.")
         if under:
             out.append(f"Check how {under} is used: it carries less weight in your judgments than the rubric asks.")
-    cutoff = entry.get("cutoff") or {}
-    if cutoff.get("flagged") and cutoff.get("cue") is not None:
-        out.append(f"Look at files just either side of your step on {cutoff.get('cue')}: would the rubric "
+    cutoff = entry.cutoff
+    if cutoff is not None and cutoff.flagged and cutoff.cue is not None:
+        out.append(f"Look at files just either side of your step on {cutoff.cue}: would the rubric "
                    "separate them as sharply?")
-    cases = dig(entry, "policy", "look_again", default=[]) or []
+    cases = entry.policy.look_again if entry.policy is not None else ()
     if cases:
-        ids = ", ".join(str(c.get("case")) for c in cases[:3])
+        ids = ", ".join(c.case for c in cases[:3])
         out.append(f"Re-read cases {ids} and note what set them apart from your usual rule.")
     r_tt = _retest_r(entry)
     if r_tt is not None and r_tt < wording.RETEST_BANDS.bands[1].low:
@@ -560,10 +563,9 @@ def suggestions(entry: dict, *, include_excluded: bool) -> list[str]:
     r_s = _policy_r(entry)
     if r_s is not None and r_s < wording.CONSISTENCY_BANDS.bands[1].low:
         out.append("Use the same order of reading the cues for every case; it steadies how they are combined.")
-    drift = entry.get("drift") or {}
-    if drift.get("flagged"):
+    if entry.drift is not None and entry.drift.flagged:
         out.append("Re-read a few early cases at the end of a session to check that the standard has not moved.")
-    flags = set(entry.get("flags", [])) | set(dig(entry, "severity", "flags", default=()) or ())
+    flags = set(entry.flags) | set(entry.severity.flags if entry.severity is not None else ())
     if "narrow_range" in flags or "central_tendency" in flags:
         out.append("Use the ends of the scale where a case deserves it; the anchors describe what they mean.")
     if include_excluded and "excluded_attribute" in flags:
@@ -571,25 +573,3 @@ def suggestions(entry: dict, *, include_excluded: bool) -> list[str]:
     if not out:
         out.append("Keep your current approach and compare with the next audit; nothing here calls for a change.")
     return out
-
-
-def collect_warnings(node) -> list[str]:
-    """Every plain-English warning string found anywhere in an entry (de-duplicated)."""
-    found: list[str] = []
-
-    def walk(x):
-        if isinstance(x, dict):
-            for k, v in x.items():
-                if k == "warnings" and isinstance(v, list):
-                    for w in v:
-                        msg = w.get("message") if isinstance(w, dict) else w
-                        if msg and str(msg) not in found:
-                            found.append(str(msg))
-                else:
-                    walk(v)
-        elif isinstance(x, list):
-            for v in x:
-                walk(v)
-
-    walk(node)
-    return found

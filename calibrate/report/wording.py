@@ -167,14 +167,16 @@ def alignment_reading(misallocation: float | None, most_over: str | None,
     return " ".join(parts)
 
 
-def drift_reading(drift: dict | None) -> str:
-    if not drift:
+def drift_reading(drift, reason: str | None = None) -> str:
+    """The drift sentence from a :class:`~calibrate.report.view.DriftView` (or None)."""
+    if drift is None:
+        if reason:
+            return f"Drift over the reading order is not available: {reason}."
         return "No reading order was recorded, so drift is not available."
-    if drift.get("flagged"):
-        slope = drift.get("slope")
-        if isinstance(slope, (int, float)) and slope < 0:
+    if drift.flagged:
+        if drift.slope is not None and drift.slope < 0:
             return "Judgments became lower as the reading went on."
-        if isinstance(slope, (int, float)) and slope > 0:
+        if drift.slope is not None and drift.slope > 0:
             return "Judgments became higher as the reading went on."
         return "The way cases were judged changed over the reading order."
     return "Judgments stayed steady over the reading order."

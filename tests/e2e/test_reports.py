@@ -13,7 +13,7 @@ from calibrate.data.demo import write_demo
 from calibrate.report import build_reports, load_report_input, panel_pdf, rater_file_names, rater_pdf
 from calibrate.report._read import as_report_input, id_pattern
 from calibrate.writing import write_audit
-from tests.pdf_text import numbers_in, numbers_of, page_texts
+from tests.pdf_text import entries_of, numbers_in, numbers_of, page_texts
 
 EPOCH = "1780000000"  # 2026-05-28 UTC
 
@@ -80,7 +80,7 @@ def test_first_page_numbers_equal_results_json(demo, built):
     data = as_report_input(result)
     for rater, name in rater_file_names(data.rater_ids()).items():
         body = page_texts(out / "raters" / name)[0].split("Feedback on your judgments", 1)[1]
-        allowed = numbers_of(data.entries_of(rater))
+        allowed = numbers_of(entries_of(data.results, rater))
         numbers = numbers_in(body)
         assert numbers, rater
         assert [n for n in numbers if n not in allowed] == [], rater

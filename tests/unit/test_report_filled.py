@@ -23,7 +23,7 @@ from calibrate.report import build_reports, rater_pdf
 from calibrate.report._read import ReportInput, id_pattern
 from calibrate.report.builder import rater_file_names
 from calibrate.report.wording import fmt
-from tests.pdf_text import numbers_in, numbers_of, page_texts
+from tests.pdf_text import entries_of, numbers_in, numbers_of, page_texts
 
 EPOCH = "1780000000"
 
@@ -48,7 +48,7 @@ def fill(result, table) -> ReportInput:
         mine = mine[mine["rater"] == e["rater"]].head(5)
         e["policy"] = {
             "intercept": 1.0, "weights": {t: v * 2 for t, v in std.items()}, "std_weights": std,
-            "ci_low": {t: v * 2 - .3 for t, v in std.items()}, "ci_high": {t: v * 2 + .3 for t, v in std.items()},
+            "ci": {t: [v * 2 - .3, v * 2 + .3] for t, v in std.items()},
             "importance": dict(zip(cues, shares)), "importance_r2": dict(zip(cues, shares * r * r)),
             "r": r, "r_ci": [r - .08, min(r + .04, 1)], "r2_adj": r * r - .02, "r_cv": r - .05,
             "look_again": [{"case": c, "judgment": float(j), "predicted": float(j) + rng.choice([-2.2, 1.9])}
@@ -60,8 +60,9 @@ def fill(result, table) -> ReportInput:
         g, c_, re_ = float(rng.uniform(.6, .95)), float(rng.uniform(-.1, .2)), .72
         e["lens"] = {"r_a": g * re_ * r, "g": g, "c": c_, "r_e": re_, "r_s": r, "model_validity": g * re_,
                      "model_validity_cv": g * re_ - .03}
-        e["severity"] = {"offset": float(rng.normal(0, .4)), "se": .12, "sd_ratio": float(rng.uniform(.6, 1.4)),
-                         "middle_share": .3, "panel_middle_share": .28, "flags": []}
+        e["severity"] = {"offset": float(rng.normal(0, .4)), "se": .12,
+                         "range_use": {"sd_ratio": float(rng.uniform(.6, 1.4))},
+                         "central_tendency": {"middle_share": .3, "panel_middle_share": .28}, "flags": []}
         e["alignment"] = {"misallocation": float(rng.uniform(.03, .35)), "most_over": cues[k % 6],
                           "most_under": cues[(k + 2) % 6], "g_rubric": float(rng.uniform(.6, .98)),
                           "shares": dict(zip(cues, shares))}
@@ -76,8 +77,10 @@ def fill(result, table) -> ReportInput:
             e["flags"] = e["flags"] + ["drift"]
     for p in d["panels"]:
         names = [e["rater"] for e in d["raters"] if e["phase"] == p["phase"]]
-        p["icc"] = {f: {"estimate": v, "ci_low": v - .1, "ci_high": v + .05}
-                    for f, v in zip(("i1", "a1", "c1", "ik", "ak", "ck"), (.55, .57, .62, .71, .73, .77))}
+        icc = dict(zip(("i1", "a1", "c1", "ik", "ak", "ck"), (.55, .57, .62, .71, .73, .77)))
+        p["icc"] = icc
+        p["agreement"]["icc_detail"]["forms"] = [{"form": f, "estimate": v, "ci_low": v - .1, "ci_high": v + .05}
+                                                 for f, v in icc.items()]
         p["alpha"] = .58
         p["variance_components"] = {"case": .9, "rater": .1, "residual": .6}
         p["d_study"] = [{"raters": k, "g_rel": .6 * k / (1 + .6 * (k - 1)), "phi": .55 * k / (1 + .55 * (k - 1))}
@@ -159,7 +162,7 @@ def test_first_page_numbers_come_from_results(filled, built):
     for rater, name in rater_file_names(filled.rater_ids()).items():
         first = page_texts(out / "raters" / name)[0]
         body = first.split("Feedback on your judgments", 1)[1]
-        allowed = numbers_of(filled.entries_of(rater))
+        allowed = numbers_of(entries_of(filled.results, rater))
         numbers = numbers_in(body)
         assert len(numbers) >= 8
         stray = [n for n in numbers if n not in allowed]
@@ -170,7 +173,7 @@ def test_key_figures_on_the_first_page_match_the_entry(filled, built):
     out, _ = built
     rater = filled.rater_ids()[2]
     first = page_texts(out / "raters" / rater_file_names([rater])[rater])[0]
-    entry = filled.entries_of(rater)[-1]
+    entry = entries_of(filled.results, rater)[-1]
     for value in (entry["policy"]["r"], entry["retest"]["r"], entry["severity"]["offset"],
                   entry["alignment"]["misallocation"], entry["alignment"]["g_rubric"]):
         assert fmt(value) in first
