@@ -199,7 +199,33 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
                          homogeneity=homogeneity, grouping=grouping, verdicts=verdicts)
 
 
-def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict) -> dict:
+def _unavailable_reasons(entry: dict, rater: str, ph: PhaseData, spec: StudySpec, counts: dict) -> dict:
+    """Why each null section of a rater entry is null, in words a report can print.
+
+    Only facts the audit knows are stated: a study without a criterion or rubric, no
+    repeated case, a rater below the minimum of cases; otherwise the plain fact that the
+    analysis gave no result for this rater (the data-quality notes say more).
+    """
+    generic = "the analysis gave no result for this rater in this phase (see the data-quality notes)"
+    reasons = {}
+    if entry["policy"] is None:
+        reasons["policy"] = ("too few usable cases to fit a policy" if rater in ph.too_few
+                             else "the policy could not be fitted (see the data-quality notes)")
+    if entry["retest"] is None:
+        reasons["retest"] = ("no case was judged twice" if counts["n_repeats"] == 0 else
+                             f"test-retest could not be computed from {counts['n_repeats']} repeated case(s)")
+    if entry["lens"] is None:
+        reasons["lens"] = ("the study names no criterion" if "criterion" not in spec.columns else
+                           "the lens model could not be fitted on this rater's cases with a criterion")
+    if entry["alignment"] is None:
+        reasons["alignment"] = "the study has no rubric" if not spec.rubric else generic
+    for key in ("agreement", "severity", "drift", "cutoff"):
+        if entry[key] is None:
+            reasons[key] = generic
+    return reasons
+
+
+def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict, spec: StudySpec) -> dict:
     flags: list[str] = []
     if rater in ph.too_few:
         flags.append("too_few_cases")
@@ -240,6 +266,9 @@ def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict) -> d
     if counts["cases_per_term"] < 10 and "few_cases" not in flags and rater not in ph.too_few:
         flags.append("few_cases")
     entry["flags"] = list(dict.fromkeys(flags))  # unique, first-seen order
+    reasons = _unavailable_reasons(entry, rater, ph, spec, counts)
+    if reasons:
+        entry["unavailable"] = reasons
     return entry
 
 
@@ -293,7 +322,7 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
         analyses[ph.label] = a
         per_rater = {r["rater"]: r for r in ph_summary.per_rater}
         for rater in ph.raters:
-            raters.append(_rater_entry(rater, ph, a, per_rater[rater]))
+            raters.append(_rater_entry(rater, ph, a, per_rater[rater], spec))
         panels.append(_panel_entry(ph, a, ph_summary.connectedness.connected))
         for name, result in (("policies", a.policies), ("retest", a.retest),
                              ("agreement", a.agreement), ("peer_agreement", a.peer_agreement),

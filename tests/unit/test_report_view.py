@@ -191,4 +191,4 @@ def test_reports_build_for_studies_unlike_the_demo(tmp_path, variant):
         p1 = next(r for r in view.raters if r.rater == "p1")
         assert p1.policy is None
         text = " ".join(" ".join(page_texts(rater_pdf(results, "p1"))).split())
-        assert "Your policy is not available for this study" in text
+        assert "Your policy is not available: too few usable cases to fit a policy." in text
