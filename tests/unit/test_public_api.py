@@ -34,7 +34,7 @@ SUBPACKAGES = {
                "workbook_bytes"],
     "report": ["build_reports", "load_report_input", "panel_pdf", "rater_file_names", "rater_pdf"],
     "training": [],
-    "design": [],
+    "design": ["PANEL", "ScoredFiles", "load_policies", "score_files"],
 }
 
 
