@@ -99,3 +99,15 @@ def test_score_command_writes_scores_and_refuses_to_overwrite(tmp_path):
     assert CliRunner().invoke(main, args).exit_code == 2    # exists, no --overwrite
     bad = CliRunner().invoke(main, args[:3] + ["--rater", "nobody", "--overwrite"])
     assert bad.exit_code == 2 and "nobody" in bad.output
+
+
+def test_prediction_interval_coverage_small_seeded():
+    """Small version of benchmarks/score_interval_coverage.py (figures in DEVELOPERS.md)."""
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "benchmarks"))
+    from score_interval_coverage import coverage
+
+    # 150 raters x 20 new files = 3000 intervals: 95% +- 1.2 points at 3 SE.
+    assert 0.935 <= coverage(150, 15, "1-7", seed=11) <= 0.965
