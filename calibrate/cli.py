@@ -257,3 +257,28 @@ def plan(pool: Path, raters: str, files_per_rater: int, repeat_share: float, rep
     click.echo(f"Largest correlation between cues: {result.max_abs_correlation():.2f} in the chosen files, "
                f"{result.max_abs_correlation(False):.2f} in the pool; {result.files_per_weight:.1f} files per weight.")
     click.echo(result.to_frame().to_string(index=False, float_format=lambda v: f"{v:.2f}"))
+
+
+@main.command()
+@click.argument("plan_folder", type=click.Path(path_type=Path))
+@click.argument("packets", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option("--scale", type=click.Choice(["continuous", "ordinal", "binary"]), default="ordinal",
+              show_default=True, help="The judgment scale.")
+@click.option("--min", "scale_min", type=float, default=1, show_default=True, help="Lowest allowed judgment.")
+@click.option("--max", "scale_max", type=float, default=7, show_default=True, help="Highest allowed judgment.")
+@click.option("--name", default="Collected packets", show_default=True, help="Study name for the spec.")
+@click.option("--out", "out", type=click.Path(path_type=Path), required=True,
+              help="Folder for judgments.csv, files.csv and study.toml.")
+@click.option("--overwrite", is_flag=True, help="Replace files collected earlier into the folder.")
+def collect(plan_folder: Path, packets: tuple[Path, ...], scale: str, scale_min: float, scale_max: float,
+            name: str, out: Path, overwrite: bool) -> None:
+    """Read completed packets (CSV or XLSX) against the plan's key and write a study
+    that 'calibrate audit' runs on directly."""
+    from .design.collect import collect_packets, write_collected
+
+    collected = collect_packets(plan_folder, list(packets), scale=scale, scale_min=scale_min, scale_max=scale_max)
+    spec = write_collected(collected, out, name=name, overwrite=overwrite)
+    for warning in collected.warnings:
+        click.echo(f"Note: {warning}")
+    click.echo(f"Read {len(collected.judgments)} judgments from {len(packets)} packet(s); "
+               f"next: calibrate audit {spec} --out REPORTS")

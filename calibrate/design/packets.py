@@ -9,6 +9,8 @@ Files written into the output folder (each atomically; nothing else there is tou
 ``key.csv``
     rater, position, display code, file, showing (1 = first, 2 = the hidden repeat).
     Keep it away from the raters.
+``files.csv``
+    the chosen files and their cue values (the cases table of the collected study).
 ``plan.json``
     the settings, the seed and the design figures; ``design.csv`` the per-cue table.
 """
@@ -49,7 +51,8 @@ def write_plan(plan: RatingPlan, out: Path | str, *, overwrite: bool = False) ->
         xlsx_path = out / "packets" / f"{stem}.xlsx"
         atomic_write_bytes(xlsx_path, _xlsx(packet, rater))
         written += [csv_path, xlsx_path]
-    for name, text in (("key.csv", _csv(plan.key)), ("design.csv", _csv(plan.to_frame())),
+    for name, text in (("key.csv", _csv(plan.key)), ("files.csv", _csv(plan.file_cues)),
+                       ("design.csv", _csv(plan.to_frame())),
                        ("plan.json", dump_json(plan.to_dict()))):
         atomic_write_text(out / name, text)
         written.append(out / name)

@@ -71,6 +71,7 @@ class RatingPlan(ResultMixin):
     seed: int
     cues: tuple[str, ...]
     files: tuple[str, ...]             # the chosen distinct files
+    file_cues: pd.DataFrame            # the chosen files: "file" + cue columns
     key: pd.DataFrame                  # rater, position, display_code, file, showing (1 or 2)
     packets: dict[str, pd.DataFrame]   # rater -> display_code, cues..., judgment (empty)
     correlations_chosen: pd.DataFrame
@@ -174,6 +175,8 @@ def plan_exercise(pool: pd.DataFrame, raters: list[str], files_per_rater: int, *
         se = np.sqrt((1 - TYPICAL_R_S ** 2) / (n_per - k - 1) * vif_chosen)
     return RatingPlan(
         method=method, seed=seed, cues=tuple(cues), files=tuple(ids[i] for i in np.sort(chosen)),
+        file_cues=pd.DataFrame({"file": [ids[i] for i in np.sort(chosen)],
+                                **{c: X_pool[np.sort(chosen), k_] for k_, c in enumerate(cues)}}),
         key=pd.DataFrame(key_rows), packets=packets,
         correlations_chosen=pd.DataFrame(np.corrcoef(X_pool[chosen], rowvar=False).reshape(k, k), index=cues, columns=cues),
         correlations_pool=pd.DataFrame(np.corrcoef(X_pool, rowvar=False).reshape(k, k), index=cues, columns=cues),

@@ -34,8 +34,8 @@ SUBPACKAGES = {
                "workbook_bytes"],
     "report": ["build_reports", "load_report_input", "panel_pdf", "rater_file_names", "rater_pdf"],
     "training": [],
-    "design": ["PANEL", "RatingPlan", "ScoredFiles", "load_policies", "plan_exercise", "score_files",
-               "write_plan"],
+    "design": ["PANEL", "CollectedPackets", "RatingPlan", "ScoredFiles", "collect_packets", "load_policies",
+               "plan_exercise", "score_files", "write_collected", "write_plan"],
 }
 
 
