@@ -28,11 +28,10 @@ from .lens.model import LensResult, lens_model
 from .lens.rubric import AlignmentResult, ExcludedResult, excluded_check, rubric_alignment
 from .panel.grouping import GroupingResult, group_raters
 from .panel.pairs import ConflictResult, HomogeneityResult, pairwise_conflict, policy_homogeneity
-from .policy.fit import PolicySet, captured_policies, fit_policies
+from .policy.fit import POLICIES_SCHEMA, PolicySet, captured_policies, fit_policies
 from .result_base import jsonable
 
 RESULTS_SCHEMA = "calibrate.results/1"
-POLICIES_SCHEMA = "calibrate.policies/1"
 
 
 @dataclass(frozen=True)

@@ -206,3 +206,113 @@ def compare(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bo
 
 if __name__ == "__main__":  # pragma: no cover
     main()
+
+
+@main.command()
+@click.argument("policies", type=click.Path(path_type=Path))
+@click.argument("files", type=click.Path(path_type=Path))
+@click.option("--rater", "rater", required=True,
+              help="Whose policy to apply: a rater's name, or 'panel' for the mean of the raters' policies.")
+@click.option("--phase", default=None, help="Which phase's policies [default: the first].")
+@click.option("--file-column", default="file", show_default=True,
+              help="The column of FILES that names each file.")
+@click.option("--out", "out", type=click.Path(path_type=Path), default=None,
+              help="Where to write the scores (CSV) [default: scores.csv beside FILES].")
+@click.option("--overwrite", is_flag=True, help="Replace an existing scores file.")
+def score(policies: Path, files: Path, rater: str, phase: str | None, file_column: str,
+          out: Path | None, overwrite: bool) -> None:
+    """Apply a captured policy (from an audit's policies.json) to new files: predicted
+    judgment, 95% prediction interval, each cue's contribution, and cues outside the
+    range the policy was fitted on."""
+    from .data.ingest import read_table
+    from .design.score import load_policies, score_files
+    from .errors import OutputExistsError
+    from .safe_files import atomic_write_text, escape_formula
+
+    if not files.is_file():
+        raise CalibrateError(f"the files table {files} does not exist.")
+    out = out or files.with_name("scores.csv")
+    if out.exists() and not overwrite:
+        raise OutputExistsError(f"{out} already exists; add --overwrite to replace it.")
+    scored = score_files(load_policies(policies), read_table(files), policy=rater, phase=phase,
+                         file_column=file_column, source=files.name)
+    frame = scored.to_frame().map(escape_formula)
+    atomic_write_text(out, frame.to_csv(index=False, lineterminator="\n"))
+    n_out = sum(1 for cues in scored.outside_range if cues)
+    click.echo(f"Scored {len(scored.files)} file(s) with the policy of '{rater}' (phase '{scored.phase}'): {out}")
+    if n_out:
+        click.echo(f"{n_out} file(s) have cues outside the range the policy was fitted on; "
+                   "their predictions extrapolate (see the outside_fitted_range column).")
+
+
+def _rater_names(raters: str) -> list[str]:
+    """'6' gives rater01..rater06; otherwise a comma-separated list of names."""
+    if raters.strip().isdigit():
+        n = int(raters)
+        return [f"rater{i:0{max(2, len(str(n)))}d}" for i in range(1, n + 1)]
+    return [r.strip() for r in raters.split(",") if r.strip()]
+
+
+@main.command()
+@click.argument("pool", type=click.Path(path_type=Path))
+@click.option("--raters", required=True, help="How many raters (e.g. 6), or their names, comma separated.")
+@click.option("--files-per-rater", type=int, required=True, help="Distinct files each rater reads.")
+@click.option("--repeat-share", type=float, default=0.15, show_default=True,
+              help="Share of each rater's files shown a second time, under a new code.")
+@click.option("--repeat-distance", type=int, default=5, show_default=True,
+              help="Least number of positions between a file's two showings.")
+@click.option("--readers-per-file", type=int, default=None,
+              help="Each file read by this many raters (a linked design) [default: every rater reads every file].")
+@click.option("--choose", type=click.Choice(["uncorrelated", "spread", "representative"]), default="uncorrelated",
+              show_default=True, help="How files are chosen from the pool (see README).")
+@click.option("--file-column", default="file", show_default=True, help="The column of POOL naming each file.")
+@click.option("--cues", default=None, help="Cue columns, comma separated [default: every other column].")
+@click.option("--seed", type=int, default=0, show_default=True, help="Seed: the same seed gives the same plan.")
+@click.option("--out", "out", type=click.Path(path_type=Path), required=True, help="Folder for packets and key.")
+@click.option("--overwrite", is_flag=True, help="Replace the files of an earlier plan in the folder.")
+def plan(pool: Path, raters: str, files_per_rater: int, repeat_share: float, repeat_distance: int,
+         readers_per_file: int | None, choose: str, file_column: str, cues: str | None, seed: int,
+         out: Path, overwrite: bool) -> None:
+    """Plan a rating exercise from a pool of files: choose the files, hide repeats,
+    write one packet per rater and the key."""
+    from .data.ingest import read_table
+    from .design.packets import write_plan
+    from .design.plan import plan_exercise
+
+    if not pool.is_file():
+        raise CalibrateError(f"the pool {pool} does not exist.")
+    result = plan_exercise(read_table(pool), _rater_names(raters), files_per_rater, file_column=file_column,
+                           cues=[c.strip() for c in cues.split(",")] if cues else None,
+                           repeat_share=repeat_share, readers_per_file=readers_per_file,
+                           min_gap=repeat_distance, method=choose, seed=seed, source=pool.name)
+    write_plan(result, out, overwrite=overwrite)
+    click.echo(f"Planned {len(result.files)} files for {len(result.packets)} raters ({choose}); "
+               f"packets and key in {out}/ (keep key.csv away from the raters).")
+    click.echo(f"Largest correlation between cues: {result.max_abs_correlation():.2f} in the chosen files, "
+               f"{result.max_abs_correlation(False):.2f} in the pool; {result.files_per_weight:.1f} files per weight.")
+    click.echo(result.to_frame().to_string(index=False, float_format=lambda v: f"{v:.2f}"))
+
+
+@main.command()
+@click.argument("plan_folder", type=click.Path(path_type=Path))
+@click.argument("packets", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option("--scale", type=click.Choice(["continuous", "ordinal", "binary"]), default="ordinal",
+              show_default=True, help="The judgment scale.")
+@click.option("--min", "scale_min", type=float, default=1, show_default=True, help="Lowest allowed judgment.")
+@click.option("--max", "scale_max", type=float, default=7, show_default=True, help="Highest allowed judgment.")
+@click.option("--name", default="Collected packets", show_default=True, help="Study name for the spec.")
+@click.option("--out", "out", type=click.Path(path_type=Path), required=True,
+              help="Folder for judgments.csv, files.csv and study.toml.")
+@click.option("--overwrite", is_flag=True, help="Replace files collected earlier into the folder.")
+def collect(plan_folder: Path, packets: tuple[Path, ...], scale: str, scale_min: float, scale_max: float,
+            name: str, out: Path, overwrite: bool) -> None:
+    """Read completed packets (CSV or XLSX) against the plan's key and write a study
+    that 'calibrate audit' runs on directly."""
+    from .design.collect import collect_packets, write_collected
+
+    collected = collect_packets(plan_folder, list(packets), scale=scale, scale_min=scale_min, scale_max=scale_max)
+    spec = write_collected(collected, out, name=name, overwrite=overwrite)
+    for warning in collected.warnings:
+        click.echo(f"Note: {warning}")
+    click.echo(f"Read {len(collected.judgments)} judgments from {len(packets)} packet(s); "
+               f"next: calibrate audit {spec} --out REPORTS")

@@ -8,11 +8,13 @@ swapped in at the end.
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 import os
 import re
 import tempfile
 import unicodedata
+import zipfile
 from pathlib import Path
 from typing import Any
 
@@ -92,3 +94,31 @@ def escape_formula(value: Any) -> Any:
     if isinstance(value, str) and value.startswith(_FORMULA_START):
         return "'" + value
     return value
+
+
+_FIXED_DATE = (2000, 1, 1, 0, 0, 0)
+
+
+def reproducible_xlsx_bytes(wb) -> bytes:
+    """An openpyxl workbook saved with fixed document and zip member dates so equal tables give equal bytes."""
+    import datetime as dt
+
+    fixed = dt.datetime(2000, 1, 1)
+    wb.properties.created = fixed
+    wb.properties.modified = fixed
+    buf = io.BytesIO()
+    wb.save(buf)
+    src = zipfile.ZipFile(io.BytesIO(buf.getvalue()))
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for info in src.infolist():
+            member = zipfile.ZipInfo(info.filename, date_time=_FIXED_DATE)
+            member.compress_type = zipfile.ZIP_DEFLATED
+            member.external_attr = 0o644 << 16
+            content = src.read(info.filename)
+            if info.filename == "docProps/core.xml":
+                # openpyxl stamps the save time into the document properties
+                content = re.sub(rb"(<dcterms:(?:created|modified)[^>]*>)[^<]*", rb"\g<1>2000-01-01T00:00:00Z",
+                                 content)
+            dst.writestr(member, content)
+    return out.getvalue()

@@ -11,19 +11,18 @@ The same tables always give the same bytes (fixed document and member dates).
 
 from __future__ import annotations
 
-import io
 import json
 import math
 import re
-import zipfile
 from collections.abc import Mapping
 
 import numpy as np
 import pandas as pd
 
+from ..safe_files import reproducible_xlsx_bytes
+
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 _SHEET_FORBIDDEN = re.compile(r"[\[\]:*?/\\]")
-_FIXED_DATE = (2000, 1, 1, 0, 0, 0)
 README_SHEET = "read-me"
 
 # What common columns hold; a caller's own notes take precedence.
@@ -162,7 +161,7 @@ def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str
         _finish_sheet(ws, widths)
         if ws.max_row > 1:
             ws.auto_filter.ref = f"A1:{get_column_letter(max(ws.max_column, 1))}{ws.max_row}"
-    return _reproducible(wb)
+    return reproducible_xlsx_bytes(wb)
 
 
 def _as_text(cell) -> None:
@@ -183,28 +182,3 @@ def _finish_sheet(ws, widths) -> None:
     for j, width in enumerate(widths, start=1):
         ws.column_dimensions[get_column_letter(j)].width = width
     ws.freeze_panes = "A2"
-
-
-def _reproducible(wb) -> bytes:
-    """Save with fixed document and zip member dates so equal tables give equal bytes."""
-    import datetime as dt
-
-    fixed = dt.datetime(2000, 1, 1)
-    wb.properties.created = fixed
-    wb.properties.modified = fixed
-    buf = io.BytesIO()
-    wb.save(buf)
-    src = zipfile.ZipFile(io.BytesIO(buf.getvalue()))
-    out = io.BytesIO()
-    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
-        for info in src.infolist():
-            member = zipfile.ZipInfo(info.filename, date_time=_FIXED_DATE)
-            member.compress_type = zipfile.ZIP_DEFLATED
-            member.external_attr = 0o644 << 16
-            content = src.read(info.filename)
-            if info.filename == "docProps/core.xml":
-                # openpyxl stamps the save time into the document properties
-                content = re.sub(rb"(<dcterms:(?:created|modified)[^>]*>)[^<]*", rb"\g<1>2000-01-01T00:00:00Z",
-                                 content)
-            dst.writestr(member, content)
-    return out.getvalue()

@@ -66,7 +66,7 @@ from .importance import MAX_DOMINANCE_CUES, cue_importance, importance_shares, r
 from .linalg import grouped_sscp, ols_from_sscp
 from .logistic import fit_logistic
 from .resampling import bca_interval, case_bootstrap_intervals
-from .results import CaseToReview, LogisticPolicy, PolicySet, RaterPolicy
+from .results import CaseToReview, LogisticPolicy, PolicySet, PredictionTerms, RaterPolicy
 
 # Mean consistency of expert judges across 249 tasks (Karelaia & Hogarth 2008; from memory).
 TYPICAL_R_S = 0.80
@@ -76,7 +76,7 @@ __all__ = [
     "bca_interval", "captured_policies", "fit_policies",
 ]
 
-POLICIES_SCHEMA = "calibrate.policies/1"
+POLICIES_SCHEMA = "calibrate.policies/2"
 SCALES = ("continuous", "ordinal", "binary")
 N_LOOK_AGAIN = 5
 
@@ -165,6 +165,10 @@ class _Arrays:
         for name in ("imp_r2", "rw_r2", "imp_lo", "imp_hi"):
             setattr(self, name, nan(G, k))
         self.gvif = nan(G, k)
+        # What a prediction interval for a new case needs (see captured_policies).
+        self.sigma2, self.df_resid = nan(G), nan(G)
+        self.x_mean, self.x_min, self.x_max = nan(G, p), nan(G, p), nan(G, p)
+        self.xtx_inv = nan(G, p, p)
         self.lg_converged = np.zeros(G, dtype=bool)
         self.lg_separation = np.zeros(G, dtype=bool)
         self.fitted = np.zeros(G, dtype=bool)
@@ -360,6 +364,13 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
     A.std[np.ix_(rows_g, cols)] = fit.coef * sdx / sdy[:, None]
     A.util[np.ix_(rows_g, cols)] = corr_xy[:, :, 0]
     A.r2[rows_g] = r2
+    A.sigma2[rows_g] = np.where(ok, fit.sigma2, np.nan)
+    A.df_resid[rows_g] = df
+    A.x_mean[np.ix_(rows_g, cols)] = x_mean
+    A.xtx_inv[np.ix_(rows_g, cols, cols)] = fit.xtx_inv
+    starts = np.r_[0, np.flatnonzero(np.diff(groups)) + 1]
+    A.x_min[np.ix_(rows_g, cols)] = np.minimum.reduceat(X, starts, axis=0)
+    A.x_max[np.ix_(rows_g, cols)] = np.maximum.reduceat(X, starts, axis=0)
     A.r2_adj[rows_g] = np.where(ok, fit.r2_adj, np.nan)
 
     safe_xx = np.where(ok[:, None, None], corr_xx, np.eye(n_active))
@@ -519,7 +530,20 @@ def _assemble(design: CueDesign, rows: _Rows, A: _Arrays, *, scale, n_boot, alph
     panel_notes = tuple(f"Rater '{p.rater}': {w}" for p in policies for w in p.warnings)
     return PolicySet(raters=tuple(policies), columns=columns,
                      cue_of_column=design.cue_of_column, cues=cues, scale=scale,
-                     n_boot=n_boot, alpha=alpha, warnings=panel_notes)
+                     n_boot=n_boot, alpha=alpha, warnings=panel_notes,
+                     prediction=tuple(_prediction_terms(rater, g, columns, A)
+                                      for g, rater in enumerate(rows.raters) if A.fitted[g]))
+
+
+def _prediction_terms(rater: str, g: int, columns, A: _Arrays) -> PredictionTerms:
+    used = np.flatnonzero(np.isfinite(A.coef[g]))
+    pick = lambda values: {columns[j]: float(values[j]) for j in used}
+    return PredictionTerms(
+        rater=rater, n_cases=int(A.n[g]), residual_variance=float(A.sigma2[g]),
+        df_resid=float(A.df_resid[g]), columns=tuple(columns[j] for j in used),
+        column_means=pick(A.x_mean[g]), column_min=pick(A.x_min[g]), column_max=pick(A.x_max[g]),
+        centred_inverse=tuple(tuple(float(v) for v in A.xtx_inv[g, j, used]) for j in used),
+    )
 
 
 def _typical_lower_end_of_others(lower: np.ndarray) -> np.ndarray:
@@ -558,6 +582,12 @@ def captured_policies(policy_set: PolicySet, design: CueDesign) -> dict[str, Any
     ``:missing`` indicator column) and, per rater, the intercept and the weight of
     every design column. A new case's predicted judgment is
     ``intercept + sum(weight[c] * x[c])`` over the design columns.
+
+    Schema 2 adds, per fitted rater, ``prediction``: the residual variance and its
+    degrees of freedom, the fitted cases' mean, minimum and maximum of each used
+    column, and the inverse of the centred cross-products of those columns, so a
+    new case's prediction interval is
+    ``t * sqrt(s2 * (1 + 1/n + d' S^-1 d))`` with ``d`` = case minus column means.
     """
     matrix = design.matrix
     cues = []
@@ -579,12 +609,14 @@ def captured_policies(policy_set: PolicySet, design: CueDesign) -> dict[str, Any
                         matrix[:, value_col]).any() else None
         cues.append(entry)
     raters = []
+    terms = {t.rater: t for t in policy_set.prediction}
     for p in policy_set.raters:
         raters.append({
             "rater": p.rater, "n_cases": p.n_cases, "fitted": "not_fitted" not in p.flags,
             "intercept": p.intercept, "weights": dict(p.weights), "r": p.r,
             "logistic": None if p.logistic is None else {
                 "intercept": p.logistic.intercept, "weights": dict(p.logistic.weights)},
+            "prediction": terms[p.rater].to_dict() if p.rater in terms else None,
         })
     return jsonable({
         "schema": POLICIES_SCHEMA,

@@ -127,6 +127,33 @@ class RaterPolicy(ResultMixin):
 
 
 @dataclass(frozen=True)
+class PredictionTerms(ResultMixin):
+    """What a prediction interval for a new case needs, for one fitted rater.
+
+    ``centred_inverse`` is :math:`S^{-1}`, the inverse of the centred
+    cross-products of ``columns`` over the rater's cases, in that order.
+    """
+
+    rater: str
+    n_cases: int
+    residual_variance: float
+    df_resid: float
+    columns: tuple[str, ...]
+    column_means: dict[str, float]
+    column_min: dict[str, float]
+    column_max: dict[str, float]
+    centred_inverse: tuple[tuple[float, ...], ...]
+
+    def to_dict(self) -> dict:
+        return {
+            "n_cases": self.n_cases, "residual_variance": self.residual_variance,
+            "df_resid": self.df_resid, "columns": list(self.columns),
+            "column_means": self.column_means, "column_min": self.column_min,
+            "column_max": self.column_max, "centred_inverse": [list(r) for r in self.centred_inverse],
+        }
+
+
+@dataclass(frozen=True)
 class PolicySet(ResultMixin):
     """The captured policies of every rater in one phase."""
 
@@ -138,6 +165,7 @@ class PolicySet(ResultMixin):
     n_boot: int
     alpha: float
     warnings: tuple[str, ...] = field(default=())
+    prediction: tuple[PredictionTerms, ...] = field(default=())
 
     def __getitem__(self, rater: str) -> RaterPolicy:
         for policy in self.raters:

@@ -37,7 +37,8 @@ SUBPACKAGES = {
     "training": ["COMPARISON_SCHEMA", "Change", "ComparisonResult", "RaterComparison", "ancova_difference",
                  "bootstrap_difference", "compare", "fisher_z_difference", "normal_difference",
                  "paired_tests", "phase_pairs", "welch_difference"],
-    "design": [],
+    "design": ["PANEL", "CollectedPackets", "RatingPlan", "ScoredFiles", "collect_packets", "load_policies",
+               "plan_exercise", "score_files", "write_collected", "write_plan"],
 }
 
 
