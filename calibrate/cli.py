@@ -33,8 +33,45 @@ class Stopped(KeyboardInterrupt):
         self.signum = signum
 
 
+FORCED_EXIT_AFTER_S = 20  # an unwinding that hangs (a library catching the signal) is cut short
+
+
 def _raise_stopped(signum, frame) -> None:
+    import threading
+
+    timer = threading.Timer(FORCED_EXIT_AFTER_S, _forced_exit, args=(signum,))
+    timer.daemon = True
+    timer.start()
     raise Stopped(signum)
+
+
+def _forced_exit(signum: int) -> None:
+    """The orderly unwinding did not finish: remove staging folders, stop children, exit."""
+    import os
+    import signal
+
+    from .output.folder import remove_active_staging
+
+    remove_active_staging()
+    for child in _child_pids():
+        try:
+            os.kill(child, signal.SIGTERM)
+        except OSError:
+            pass
+    os._exit(EXIT_SIGNAL_BASE + int(signum))
+
+
+def _child_pids() -> list[int]:
+    import os
+    from pathlib import Path as _Path
+
+    pids: list[int] = []
+    for task in _Path(f"/proc/{os.getpid()}/task").glob("*"):
+        try:
+            pids += [int(c) for c in (task / "children").read_text().split()]
+        except (OSError, ValueError):
+            pass
+    return pids
 
 
 class _Group(click.Group):

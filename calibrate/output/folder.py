@@ -31,6 +31,14 @@ KIND_RESULTS = "results"
 KIND_STAGING = "staging"
 _STAGING_INFIX = ".staging-"
 _OLD_INFIX = ".old-"
+_ACTIVE_STAGING: set[Path] = set()  # staging folders of this process, for an emergency exit
+
+
+def remove_active_staging() -> None:
+    """Remove this process's staging folders now (the last step before a forced exit)."""
+    for path in list(_ACTIVE_STAGING):
+        shutil.rmtree(path, ignore_errors=True)
+        _ACTIVE_STAGING.discard(path)
 
 
 def _version() -> str:
@@ -246,6 +254,7 @@ class OutputFolder:
                 shutil.rmtree(old, ignore_errors=True)
             self.path = Path(tempfile.mkdtemp(prefix=f".{self.final.name}{_STAGING_INFIX}",
                                               dir=self.final.parent))
+            _ACTIVE_STAGING.add(self.path)
             (self.path / MARKER_FILE).write_bytes(marker_bytes(KIND_STAGING))
         except BaseException as exc:
             self._cleanup()
@@ -258,6 +267,7 @@ class OutputFolder:
         try:
             if self.path is not None:
                 shutil.rmtree(self.path, ignore_errors=True)
+                _ACTIVE_STAGING.discard(self.path)
                 self.path = None
         finally:
             self._lock.release()
@@ -288,6 +298,7 @@ class OutputFolder:
         (self.path / MARKER_FILE).write_bytes(marker_bytes(KIND_RESULTS))
         os.chmod(self.path, 0o777 & ~PROCESS_UMASK)
         staged, self.path = self.path, None
+        _ACTIVE_STAGING.discard(staged)
         if self.final.exists():
             old = Path(tempfile.mkdtemp(prefix=f".{self.final.name}{_OLD_INFIX}",
                                         dir=self.final.parent))
@@ -298,6 +309,7 @@ class OutputFolder:
             except BaseException:
                 os.replace(old, self.final)  # put the old output back
                 self.path = staged
+                _ACTIVE_STAGING.add(staged)
                 raise
             shutil.rmtree(old, ignore_errors=True)  # marked: checked by _refuse_existing
         else:
@@ -305,6 +317,7 @@ class OutputFolder:
                 os.rename(staged, self.final)
             except OSError as exc:
                 self.path = staged
+                _ACTIVE_STAGING.add(staged)
                 if exc.errno in (errno.EEXIST, errno.ENOTEMPTY):
                     raise OutputExistsError(
                         f"the folder {self.shown} appeared while the audit ran; it was left as it "
