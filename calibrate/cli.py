@@ -17,19 +17,107 @@ from .errors import CalibrateError
 EXIT_USER_ERROR = 2
 
 
+EXIT_SIGNAL_BASE = 128  # the shell's convention: killed by signal N exits 128 + N
+
+
 def _fail(exc: CalibrateError) -> None:
     click.echo(f"calibrate: {exc}", err=True)
     sys.exit(EXIT_USER_ERROR)
 
 
+class Stopped(KeyboardInterrupt):
+    """Raised by the SIGTERM handler so that every ``with`` block cleans up on the way out."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+FORCED_EXIT_AFTER_S = 20  # an unwinding that hangs (a library catching the signal) is cut short
+
+
+def _raise_stopped(signum, frame) -> None:
+    import threading
+
+    timer = threading.Timer(FORCED_EXIT_AFTER_S, _forced_exit, args=(signum,))
+    timer.daemon = True
+    timer.start()
+    raise Stopped(signum)
+
+
+def _forced_exit(signum: int) -> None:
+    """The orderly unwinding did not finish: remove staging folders, stop children, exit."""
+    import os
+    import signal
+
+    from .output.folder import remove_active_staging
+
+    remove_active_staging()
+    for child in _child_pids():
+        try:
+            os.kill(child, signal.SIGTERM)
+        except OSError:
+            pass
+    os._exit(EXIT_SIGNAL_BASE + int(signum))
+
+
+def _child_pids() -> list[int]:
+    import os
+    from pathlib import Path as _Path
+
+    pids: list[int] = []
+    for task in _Path(f"/proc/{os.getpid()}/task").glob("*"):
+        try:
+            pids += [int(c) for c in (task / "children").read_text().split()]
+        except (OSError, ValueError):
+            pass
+    return pids
+
+
 class _Group(click.Group):
-    """Turns any CalibrateError into a clear message and exit code 2, never a traceback."""
+    """Turns any CalibrateError into a clear message and exit code 2, never a traceback;
+    SIGTERM and Ctrl-C unwind (removing staging folders) and exit 128 + the signal."""
 
     def invoke(self, ctx):
+        import signal
+
+        try:
+            previous = signal.signal(signal.SIGTERM, _raise_stopped)
+        except ValueError:  # not the main thread (embedded use): leave signals alone
+            previous = None
         try:
             return super().invoke(ctx)
         except CalibrateError as exc:
             _fail(exc)
+        except KeyboardInterrupt as exc:
+            signum = exc.signum if isinstance(exc, Stopped) else signal.SIGINT
+            click.echo("calibrate: stopped before the end; no output was replaced and no partial "
+                       "output was left behind.", err=True)
+            sys.exit(EXIT_SIGNAL_BASE + int(signum))
+        except OSError as exc:  # a last net: a file problem is the user's to fix, not a crash
+            where = f" ({exc.filename})" if exc.filename else ""
+            click.echo(f"calibrate: a file could not be read or written{where}: "
+                       f"{exc.strerror or exc}. Check the path and its permissions.", err=True)
+            sys.exit(EXIT_USER_ERROR)
+        finally:
+            if previous is not None:
+                signal.signal(signal.SIGTERM, previous)
+
+
+def _check_source_date_epoch() -> None:
+    """SOURCE_DATE_EPOCH (reproducible builds) must be a whole number of seconds a date can hold."""
+    import datetime as dt
+    import os
+
+    raw = os.environ.get("SOURCE_DATE_EPOCH")
+    if raw is None or raw.strip() == "":
+        return
+    try:
+        dt.datetime.fromtimestamp(int(raw.strip()), tz=dt.timezone.utc)
+    except (ValueError, OverflowError, OSError):
+        raise CalibrateError(
+            f"SOURCE_DATE_EPOCH={raw!r} is not a usable date: give whole seconds since "
+            "1970-01-01 UTC (for example 1700000000), or unset it.") from None
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
@@ -51,6 +139,9 @@ def demo(out: Path, force: bool) -> None:
     """Write the invented demo study (tables, spec and a README of its planted truths)."""
     from .data.demo import write_demo
 
+    if out.exists() and not out.is_dir():
+        raise CalibrateError(f"--out {out} is a file, not a folder; give a folder name for the demo "
+                             "study, for example --out demo_data.")
     if (out / "study.toml").exists() and not force:
         click.echo(f"{out / 'study.toml'} already exists; leaving it as it is (add --force to rewrite).")
         return
@@ -77,6 +168,12 @@ def init(data: Path, out: Path | None, name: str | None, force: bool) -> None:
     if not data.is_file():
         raise CalibrateError(f"the table {data} does not exist.")
     out = out or data.with_name("study.toml")
+    if out.is_dir():
+        raise CalibrateError(f"--out {out} is a folder; give the spec's file name, for example "
+                             f"--out {out / 'study.toml'}.")
+    if out.exists() and out.resolve() == data.resolve():
+        raise CalibrateError(f"--out {out} is the judgments table itself; give another file name "
+                             "for the spec, for example study.toml.")
     if out.exists() and not force:
         raise OutputExistsError(f"{out} already exists; choose another --out or add --force.")
     table = read_table(data)
@@ -116,8 +213,9 @@ def check(spec: Path) -> None:
 @click.argument("spec", type=click.Path(path_type=Path))
 @click.option("--out", "out", required=True, type=click.Path(path_type=Path),
               help="Folder for the results (created; see --overwrite).")
-@click.option("--overwrite", is_flag=True, help="Replace the output folder if it exists.")
-@click.option("--seed", type=int, default=None, help="Resampling seed [default: the spec's seed].")
+@click.option("--overwrite", is_flag=True, help="Replace the output folder if it exists and holds "
+              "an earlier calibrate output (never any other folder).")
+@click.option("--seed", type=click.IntRange(min=0), default=None, help="Resampling seed [default: the spec's seed].")
 @click.option("--no-pdf", "no_pdf", is_flag=True, help="Skip the PDF reports (results, tables and "
               "workbook only).")
 @click.option("--jobs", type=click.IntRange(min=1), default=1, show_default=True,
@@ -132,31 +230,39 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
 
     from .analyses import audit as run_audit
     from .data.ingest import load_study
+    from .data.spec import read_spec
     from .output.folder import OutputFolder
-    from .writing import write_audit
+    from .writing import write_audit_files
 
-    OutputFolder(out, overwrite=overwrite)  # refuse early, before any work
-    table = load_study(spec)
-    for w in table.warnings:
-        click.echo(f"warning: {w}", err=True)
-    with tqdm(desc="analyses", unit=" step", leave=False, disable=None, file=sys.stderr) as bar:
-        def step(name: str) -> None:
-            bar.set_postfix_str(name)
-            bar.update(1)
+    if not no_pdf:
+        _check_source_date_epoch()
+    study = read_spec(spec)
+    # Inputs the output may not contain or sit above: replacing it would delete them.
+    protect = (spec, spec.resolve().parent, *(d.path for d in study.data),
+               *([study.cases] if study.cases is not None else []))
+    folder = OutputFolder(out, overwrite=overwrite, protect=protect)  # refuse early, before any work
+    with folder as staging:  # holds the lock through the analysis; cleans up on any exit
+        table = load_study(study)
+        for w in table.warnings:
+            click.echo(f"warning: {w}", err=True)
+        with tqdm(desc="analyses", unit=" step", leave=False, disable=None, file=sys.stderr) as bar:
+            def step(name: str) -> None:
+                bar.set_postfix_str(name)
+                bar.update(1)
 
-        result = run_audit(table, seed=seed, progress=step)
-    bar_pdf = tqdm(desc="reports", unit=" pdf", leave=False, disable=None if not no_pdf else True,
-                   file=sys.stderr)
+            result = run_audit(table, seed=seed, progress=step)
+        bar_pdf = tqdm(desc="reports", unit=" pdf", leave=False, disable=None if not no_pdf else True,
+                       file=sys.stderr)
 
-    def wrote(done: int, total: int, name: str) -> None:
-        bar_pdf.total = total
-        bar_pdf.update(done - bar_pdf.n)
+        def wrote(done: int, total: int, name: str) -> None:
+            bar_pdf.total = total
+            bar_pdf.update(done - bar_pdf.n)
 
-    try:
-        write_audit(result, out, overwrite=overwrite, pdf=not no_pdf, jobs=jobs,
-                    include_excluded=include_excluded, progress=wrote)
-    finally:
-        bar_pdf.close()
+        try:
+            write_audit_files(result, staging, pdf=not no_pdf, jobs=jobs,
+                              include_excluded=include_excluded, progress=wrote, shown=out)
+        finally:
+            bar_pdf.close()
     n_raters = len({e["rater"] for e in result.raters})
     click.echo(f"Audited {n_raters} raters over {len(result.phases)} phase(s): "
                f"{', '.join(result.phases)}.")

@@ -92,7 +92,15 @@ class DegenerateFitError(CalibrateError):
 
 
 class OutputExistsError(CalibrateError):
-    """The output folder exists and --overwrite was not given."""
+    """The output folder exists and --overwrite was not given (or it is not ours to replace)."""
+
+
+class OutputLockedError(CalibrateError):
+    """Another live run is writing into the same output folder."""
+
+
+class OutputPlaceError(CalibrateError):
+    """The output place cannot or must not take a results folder (inputs, mount, not writable)."""
 
 
 class CalibrateWarning(UserWarning):

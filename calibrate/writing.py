@@ -9,35 +9,51 @@ from __future__ import annotations
 from pathlib import Path
 
 from .analyses import AuditResult
-from .output.folder import OutputFolder
+from .output.folder import OutputFolder, write_failure
 from .output.tables import TABLE_DESCRIPTIONS, csv_bytes
 from .result_base import jsonable
 from .safe_files import atomic_write_bytes, atomic_write_text, dump_json
 
 
 def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False, pdf: bool = True,
-                jobs: int = 1, include_excluded: bool = False, progress=None) -> Path:
+                jobs: int = 1, include_excluded: bool = False, progress=None,
+                protect: tuple[Path, ...] = ()) -> Path:
     """Write the results folder; returns its path. The folder appears whole or not at all.
 
-    ``progress(done, total, name)`` is called as each PDF is written.
+    ``overwrite`` replaces an earlier results folder only (one carrying the tool's
+    marker); ``protect`` lists inputs the folder must not contain. ``progress(done,
+    total, name)`` is called as each PDF is written.
+    """
+    out = Path(out)
+    with OutputFolder(out, overwrite=overwrite, protect=protect) as staging:
+        write_audit_files(result, staging, pdf=pdf, jobs=jobs, include_excluded=include_excluded,
+                          progress=progress, shown=out)
+    return out
+
+
+def write_audit_files(result: AuditResult, folder: Path, *, pdf: bool = True, jobs: int = 1,
+                      include_excluded: bool = False, progress=None, shown: Path | None = None) -> None:
+    """Write every output file into ``folder`` (a staging folder of :class:`OutputFolder`).
+
+    A failed write (full disk, read-only place) becomes one clear error naming ``shown``.
     """
     from .output.workbook import workbook_bytes
 
-    out = Path(out)
-    with OutputFolder(out, overwrite=overwrite) as tmp:
-        atomic_write_text(tmp / "results.json", dump_json(result.to_dict()))
+    try:
+        atomic_write_text(folder / "results.json", dump_json(result.to_dict()))
         if result.policies:
-            atomic_write_text(tmp / "policies.json", dump_json(jsonable(result.policies)))
-        tables_dir = tmp / "tables"
+            atomic_write_text(folder / "policies.json", dump_json(jsonable(result.policies)))
+        tables_dir = folder / "tables"
         for name, frame in result.tables.items():
             atomic_write_bytes(tables_dir / f"{name}.csv", csv_bytes(frame))
-        atomic_write_bytes(tmp / "audit.xlsx", workbook_bytes(result.tables, TABLE_DESCRIPTIONS))
+        atomic_write_bytes(folder / "audit.xlsx", workbook_bytes(result.tables, TABLE_DESCRIPTIONS))
         if pdf:
             from .report import build_reports
 
-            build_reports(result, tmp, jobs=jobs, include_excluded=include_excluded,
+            build_reports(result, folder, jobs=jobs, include_excluded=include_excluded,
                           progress=progress)
-    return out
+    except OSError as exc:
+        raise write_failure(exc, shown or folder) from None
 
 
 COMPARISON_TABLES = {

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import io
 import json
+import os
+import sys
 from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
@@ -62,6 +64,40 @@ def rater_file_names(raters: list[str]) -> dict[str, str]:
     """Rater id -> sanitised PDF file name, clashes numbered in a fixed (sorted) order."""
     taken: set[str] = set()
     return {r: safe_file_stem(r, taken=taken) + ".pdf" for r in sorted(raters)}
+
+
+def _worker_started(parent_pid: int) -> None:
+    """Runs first in each worker: end with the parent, leave signals to the parent."""
+    import signal
+
+    # The parent handles Ctrl-C and SIGTERM and stops the workers itself.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    if sys.platform.startswith("linux"):
+        try:  # PR_SET_PDEATHSIG: the kernel sends SIGTERM when the parent dies, even by SIGKILL
+            import ctypes
+
+            ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGTERM, 0, 0, 0)
+        except (OSError, AttributeError):
+            pass
+    if os.getppid() != parent_pid:  # the parent died before the line above took effect
+        os._exit(1)
+
+
+def _stop_workers(pool: ProcessPoolExecutor) -> None:
+    """Terminate the pool's workers now rather than waiting for their running tasks."""
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    for process in processes:
+        try:
+            process.terminate()
+        except (OSError, ValueError):
+            pass
+    pool.shutdown(wait=False, cancel_futures=True)
+    for process in processes:
+        try:
+            process.join(timeout=5)
+        except (OSError, ValueError, AssertionError):
+            pass
 
 
 def _build_chunk(data: ReportInput, raters: list[str], include_excluded: bool) -> list[tuple[str, bytes]]:
@@ -118,13 +154,19 @@ def build_reports(result: Any, out_dir: str | Path, *, jobs: int = 1, include_ex
         # few enough that shipping the results to each task stays cheap.
         size = max(1, len(raters) // (jobs * 4))
         chunks = [raters[i:i + size] for i in range(0, len(raters), size)]
-        with ProcessPoolExecutor(max_workers=jobs) as pool:
+        pool = ProcessPoolExecutor(max_workers=jobs, initializer=_worker_started,
+                                   initargs=(os.getpid(),))
+        try:
             futures = [pool.submit(_build_chunk, data, chunk, include_excluded) for chunk in chunks]
             for future in futures:
                 for r, pdf in future.result():
                     path = out_dir / RATERS_FOLDER / names[r]
                     atomic_write_bytes(path, pdf)
                     wrote(path)
+        except BaseException:
+            _stop_workers(pool)  # an error or a signal: the workers must not outlive the run
+            raise
+        pool.shutdown(wait=True)
     rater_paths = sorted(written[1:] if panel else written)
     return ([written[0]] if panel else []) + rater_paths
 
