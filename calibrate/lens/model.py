@@ -55,7 +55,8 @@ SELECTION_CAUTION = (
     "The outcome is known only for cases selected on the judgments themselves (for "
     "example admitted applicants). The lens figures (r_a, G, C, R_e, R_s and the model "
     "validities) describe those selected cases only and are biased by that selection, "
-    "usually towards zero because the range of the outcome is cut."
+    "usually towards zero because the range of the outcome is cut. Selection on the "
+    "judgments alone can also make the model of a rater look better than the rater."
 )
 PARTIAL_CRITERION_WARNING = (
     "The outcome is known for {known} of {total} judged cases; the lens model uses only those."

@@ -417,7 +417,6 @@ class RaterReport:
                                  "available.", BODY)]
         r_a, g, c = num(lens.get("r_a")), num(lens.get("g")), num(lens.get("c"))
         r_e, r_s = num(lens.get("r_e")), num(lens.get("r_s"))
-        mv, mv_cv = num(lens.get("model_validity")), num(lens.get("model_validity_cv"))
         rows = [[text(h, CELL_BOLD) for h in ("Figure", "Value", "Meaning")],
                 [text("r_a", CELL), text(fmt(r_a), CELL), text("how well your judgments tracked the outcome", CELL)],
                 [text("G", CELL), text(fmt(g), CELL), text("how far your policy matches the cues' best rule", CELL)],
@@ -427,7 +426,7 @@ class RaterReport:
         table = Table(rows, colWidths=[60, 60, CONTENT_WIDTH - 120], hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
-        story.append(text(bootstrap_sentence(r_a, mv, mv_cv), BODY))
+        story.append(text(bootstrap_sentence(lens), BODY))
         if self.data.results.get("criterion_selected") or any(
                 "criterion" in str(w.get("message", w) if isinstance(w, dict) else w)
                 and "missing" in str(w.get("message", w) if isinstance(w, dict) else w)
@@ -517,22 +516,13 @@ def cutoff_sentence(cutoff: dict) -> str:
             "would: a cut-off may be at work. Check whether the rubric intends one.")
 
 
-def bootstrap_sentence(r_a, mv, mv_cv) -> str:
-    if r_a is None:
+def bootstrap_sentence(lens: dict) -> str:
+    # The verdict and its sentence are decided once, in the lens model, and stored in
+    # results.json; the report prints them so the two can never disagree.
+    verdict = (lens.get("model_vs_rater") or {}).get("verdict")
+    if not verdict or not lens.get("summary"):
         return "The outcome comparison is not available."
-    model = mv_cv if mv_cv is not None else mv
-    if model is None:
-        return f"Your judgments correlated {fmt(r_a)} with the outcome."
-    kind = "tested on cases it was not fitted to" if mv_cv is not None else "fitted to these cases"
-    if model > r_a + 0.02:
-        return (f"A model of your own policy, applied the same way every time ({kind}), tracked the "
-                f"outcome at {fmt(model)}, better than the judgments themselves ({fmt(r_a)}): applying the "
-                "same weights to every case would have helped here.")
-    if model < r_a - 0.02:
-        return (f"Your judgments ({fmt(r_a)}) tracked the outcome better than a model of your own policy "
-                f"({kind}: {fmt(model)}): they use something the listed cues do not hold.")
-    return (f"Your judgments ({fmt(r_a)}) and a model of your own policy ({kind}: {fmt(model)}) tracked "
-            "the outcome about equally.")
+    return str(lens["summary"])
 
 
 def suggestions(entry: dict, *, include_excluded: bool) -> list[str]:
