@@ -132,8 +132,12 @@ class LensResult(RaterLookup, ResultMixin):
         return float(np.nanmax(errors)) if np.isfinite(errors).any() else float("nan")
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per rater, the lens block as columns."""
-        rows = [{k: v for k, v in r.to_dict().items() if k != "warnings"} for r in self.raters]
+        """One row per rater, the lens block as columns (the verdict flattened to ``model_vs_rater_*``)."""
+        rows = []
+        for r in self.raters:
+            row = {k: v for k, v in r.to_dict().items() if k not in ("warnings", "model_vs_rater")}
+            row.update({f"model_vs_rater_{k}": v for k, v in r.model_vs_rater.to_dict().items()})
+            rows.append(row)
         return pd.DataFrame(rows)
 
 
