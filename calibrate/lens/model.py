@@ -48,6 +48,7 @@ from scipy import stats as st
 from ..data.cues import CueDesign
 from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError
+from ..policy.diagnostics import case_influence
 from ..policy.linalg import grouped_sscp, ols_from_sscp
 from ..result_base import ResultMixin
 
@@ -260,19 +261,16 @@ def leave_one_out_predictions(X: np.ndarray, y: np.ndarray, group: np.ndarray,
                               n_groups: int) -> np.ndarray:
     """Each row's prediction from its group's least-squares fit without that row.
 
-    Exact and deterministic: ``y_i - e_i / (1 - h_ii)`` with the leverage
-    ``h_ii = 1/n + (x_i - xbar)' S_xx^-1 (x_i - xbar)`` from the same batched solve
-    (the deletion identity, e.g. Cook & Weisberg 1982, sec. 2.2). NaN for groups whose
-    fit is rank deficient and for rows with leverage 1.
+    Exact and deterministic: the deletion identity ``y_i - e_i / (1 - h_ii)`` of
+    :func:`calibrate.policy.diagnostics.case_influence` on one batched solve. NaN for
+    groups whose fit is rank deficient and for rows with leverage 1.
     """
-    m, p = X.shape
+    p = X.shape[1]
     stats = grouped_sscp(np.column_stack([X, y]), group, n_groups)
     fit = ols_from_sscp(stats, list(range(p)), p)
-    centred = X - stats.mean[group, :p]
-    with np.errstate(invalid="ignore"):
-        leverage = 1.0 / stats.n[group] + np.einsum("mi,mij,mj->m", centred, fit.xtx_inv[group], centred)
-        residual = y - fit.intercept[group] - np.einsum("mp,mp->m", X, fit.coef[group])
-        out = np.where(leverage < 1.0 - 1e-10, y - residual / (1.0 - leverage), np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        influence = case_influence(X, y, group, stats, fit)
+    out = np.where(influence.leverage < 1.0 - 1e-10, influence.loo_prediction, np.nan)
     out[~fit.rank_ok[group]] = np.nan
     return out
 
