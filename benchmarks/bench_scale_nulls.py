@@ -40,12 +40,14 @@ def one_setting(rng, *, n_raters, n_cases, mean, curve, noise=1.0, n_sim=199, bl
     return hits, classical_hits
 
 
-def main(n_raters: int = 1000, seed: int = 2026):
+def main(n_raters: int = 1000, seed: int = 2026, n_cases: int = 40, noise: float = 1.0):
     rng = np.random.default_rng(seed)
+    print(f"{n_raters} raters x {n_cases} cases, noise SD {noise}")
     for label, mean, curve in (("linear, mean 2.5", 2.5, 0.0), ("linear, mean 4.0", 4.0, 0.0),
                                ("linear, mean 5.5", 5.5, 0.0), ("curve 0.25, mean 4.0", 4.0, 0.25)):
         t0 = time.perf_counter()
-        hits, classical = one_setting(rng, n_raters=n_raters, n_cases=40, mean=mean, curve=curve)
+        hits, classical = one_setting(rng, n_raters=n_raters, n_cases=n_cases, mean=mean, curve=curve,
+                                     noise=noise)
         ci = stats.binomtest(hits, n_raters).proportion_ci(0.999, method="exact")
         print(f"{label:22s}: p < .05 for {hits / n_raters:.3f} (99.9% {ci.low:.3f}-{ci.high:.3f}); "
               f"classical RESET {classical / n_raters:.3f}; {time.perf_counter() - t0:.0f}s", flush=True)
@@ -53,3 +55,4 @@ def main(n_raters: int = 1000, seed: int = 2026):
 
 if __name__ == "__main__":
     main()
+    main(n_cases=100, noise=0.5)

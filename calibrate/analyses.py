@@ -142,7 +142,9 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     step = progress or (lambda name: None)
 
     step("policies")
-    policies = (fit_policies(design, fit_first, scale=kind, n_boot=n_boot,
+    ordinal = kind == "ordinal"  # its ends give the curvature test a scale-aware null
+    policies = (fit_policies(design, fit_first, scale=kind, scale_min=lo if ordinal else None,
+                             scale_max=hi if ordinal else None, n_boot=n_boot,
                              rng=_rng(seed, phase_index, "policy")) if len(fit_first) else None)
     step("test-retest")
     retest_set = retest(ph.repeats, scale=kind, scale_min=lo, scale_max=hi)

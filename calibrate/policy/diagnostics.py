@@ -281,7 +281,7 @@ def reset_statistic(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: 
 def scale_reset_p(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: int, *,
                   scale_min: float, scale_max: float, step: float = 1.0, n_sim: int = 199,
                   rng: np.random.Generator | int | None = None,
-                  chunk: int = 50) -> tuple[np.ndarray, np.ndarray]:
+                  max_rows: int = 2_000_000) -> tuple[np.ndarray, np.ndarray]:
     """RESET p-value whose null respects a rounded, bounded scale; returns ``(F, p)``.
 
     A parametric bootstrap test (Efron & Tibshirani 1993, ch. 16): the null is each
@@ -300,6 +300,7 @@ def scale_reset_p(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: in
     exceed = np.zeros(n_groups)
     usable = np.zeros(n_groups)
     m = y.size
+    chunk = max(1, min(n_sim, max_rows // max(m, 1)))  # bounds the memory of one batch
     for first in range(0, n_sim, chunk):
         b = min(chunk, n_sim - first)
         latent = mu[None, :] + sigma[None, :] * rng.standard_normal((b, m))
