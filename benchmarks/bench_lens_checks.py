@@ -31,7 +31,7 @@ def main():
                                  "region": rng.choice(["a", "b", "c"], len(ids))}, index=ids)
         timings = {}
         for name, call in [
-            ("lens", lambda: lens_model(panel.design, panel.first, criterion, rng=1)),
+            ("lens", lambda: lens_model(panel.design, panel.first, criterion)),
             ("alignment", lambda: rubric_alignment(panel.design, panel.first, {"grades": .5, "essay": .5})),
             ("excluded", lambda: excluded_check(panel.design, panel.first, excluded)),
             ("excluded_binary", lambda: excluded_check(

@@ -141,7 +141,9 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     step = progress or (lambda name: None)
 
     step("policies")
-    policies = (fit_policies(design, fit_first, scale=kind, n_boot=n_boot,
+    ordinal = kind == "ordinal"  # its ends give the curvature test a scale-aware null
+    policies = (fit_policies(design, fit_first, scale=kind, scale_min=lo if ordinal else None,
+                             scale_max=hi if ordinal else None, n_boot=n_boot,
                              rng=_rng(seed, phase_index, "policy")) if len(fit_first) else None)
     step("test-retest")
     retest_set = retest(ph.repeats, scale=kind, scale_min=lo, scale_max=hi)
@@ -159,7 +161,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         step("lens model")
         lens = lens_model(design, fit_first, table.criterion,
                           criterion_selected=spec.criterion_only_for_selected,
-                          rng=_rng(seed, phase_index, "lens"), rubric=spec.rubric)
+                          rubric=spec.rubric)
     if spec.rubric and len(fit_first):
         alignment = rubric_alignment(design, fit_first, spec.rubric, basis=spec.rubric_basis)
     if spec.excluded and len(fit_first):

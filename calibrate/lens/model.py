@@ -18,9 +18,11 @@ own pair of fits; the gap is stored as ``lme_error``.
 The prediction of the model of the rater correlates ``G R_e`` with the criterion
 (its *validity*). When that exceeds ``r_a`` the rater's own rule, applied
 consistently, beats the rater: judgment bootstrapping (Goldberg 1970; Dawes
-1979). The in-sample figure is optimistic, so a k-fold cross-validated validity
-is reported beside it, and a unit-weight composite (Dawes 1979) is the panel's
-no-fitting baseline.
+1979). The in-sample figure is optimistic, so the exact leave-one-out validity
+is reported beside it (deterministic: no random folds), and the verdict compares
+it with ``r_a`` as two dependent correlations sharing the criterion (Williams'
+T2, Steiger 1980; Zou 2007 interval for the gain). A unit-weight composite
+(Dawes 1979) is the panel's no-fitting baseline.
 
 References
 ----------
@@ -29,6 +31,10 @@ Hursch, Hammond and Hursch, and by Hammond, Hursch and Todd. Psychological Revie
 Goldberg, L. R. (1970). Man versus model of man. Psychological Bulletin 73, 422-432.
 Dawes, R. M. (1979). The robust beauty of improper linear models in decision making.
 American Psychologist 34, 571-582.
+Steiger, J. H. (1980). Tests for comparing elements of a correlation matrix.
+Psychological Bulletin 87, 245-251.
+Zou, G. Y. (2007). Toward using confidence intervals to compare correlations.
+Psychological Methods 12, 399-413.
 """
 
 from __future__ import annotations
@@ -37,10 +43,12 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from scipy import stats as st
 
 from ..data.cues import CueDesign
 from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError
+from ..policy.diagnostics import case_influence
 from ..policy.linalg import grouped_sscp, ols_from_sscp
 from ..result_base import ResultMixin
 
@@ -48,7 +56,8 @@ SELECTION_CAUTION = (
     "The outcome is known only for cases selected on the judgments themselves (for "
     "example admitted applicants). The lens figures (r_a, G, C, R_e, R_s and the model "
     "validities) describe those selected cases only and are biased by that selection, "
-    "usually towards zero because the range of the outcome is cut."
+    "usually towards zero because the range of the outcome is cut. Selection on the "
+    "judgments alone can also make the model of a rater look better than the rater."
 )
 PARTIAL_CRITERION_WARNING = (
     "The outcome is known for {known} of {total} judged cases; the lens model uses only those."
@@ -83,8 +92,9 @@ class RaterLens(ResultMixin):
 
     ``to_dict()`` is the ``lens`` block of the rater in results.json.
     ``model_validity`` = corr(prediction of the model of the rater, criterion) = G * R_e;
-    ``model_validity_cv`` the same with predictions from k-fold fits that did not
-    see the case; ``bootstrap_gain`` = model_validity_cv - r_a.
+    ``model_validity_cv`` the same with exact leave-one-out predictions (fits that did
+    not see the case); ``bootstrap_gain`` = model_validity_cv - r_a;
+    ``model_vs_rater`` the tested verdict (:func:`model_versus_rater`).
     """
 
     rater: str
@@ -99,6 +109,7 @@ class RaterLens(ResultMixin):
     bootstrap_gain: float
     unit_weight_validity: float
     lme_error: float
+    model_vs_rater: ModelVersusRater
     summary: str
     warnings: tuple[str, ...] = ()
 
@@ -111,7 +122,6 @@ class LensResult(RaterLookup, ResultMixin):
     raters: tuple[RaterLens, ...]
     unit_weight_validity: float
     unit_weight_signs: dict[str, float]
-    k_folds: int
     criterion_selected: bool
     cautions: tuple[str, ...] = ()
     warnings: tuple[str, ...] = ()
@@ -123,81 +133,150 @@ class LensResult(RaterLookup, ResultMixin):
         return float(np.nanmax(errors)) if np.isfinite(errors).any() else float("nan")
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per rater, the lens block as columns."""
-        rows = [{k: v for k, v in r.to_dict().items() if k != "warnings"} for r in self.raters]
+        """One row per rater, the lens block as columns (the verdict flattened to ``model_vs_rater_*``)."""
+        rows = []
+        for r in self.raters:
+            row = {k: v for k, v in r.to_dict().items() if k not in ("warnings", "model_vs_rater")}
+            row.update({f"model_vs_rater_{k}": v for k, v in r.model_vs_rater.to_dict().items()})
+            rows.append(row)
         return pd.DataFrame(rows)
 
 
-def _bootstrap_sentence(r_a: float, cv: float) -> str:
-    if not (np.isfinite(r_a) and np.isfinite(cv)):
+def _bootstrap_sentence(result: ModelVersusRater, r_a: float, cv: float) -> str:
+    if result.verdict == "not_available":
         return "There were too few cases with a known outcome to compare the judgments with a model of them."
-    if cv > r_a + 0.005:
+    interval = f"gain {result.gain:+.2f}, 95% interval {result.ci_low:+.2f} to {result.ci_high:+.2f}"
+    if result.verdict == "neither_tracks":
+        return (f"Neither your judgments (r = {r_a:.2f}) nor a model of your own policy (r = {cv:.2f} on "
+                "cases it had not seen) tracked the outcome clearly on these cases.")
+    if result.verdict == "model_better":
         return (
             "A model of your own policy would have predicted the outcome better than your "
-            f"judgments did (r = {cv:.2f} on cases it had not seen, against r = {r_a:.2f}): "
+            f"judgments did (r = {cv:.2f} on cases it had not seen, against r = {r_a:.2f}; {interval}): "
             "applying your own weights the same way every time would have helped."
         )
-    if cv < r_a - 0.005:
+    if result.verdict == "rater_better":
         return (
             "Your judgments predicted the outcome better than a model of your own policy did "
-            f"(r = {r_a:.2f}, against r = {cv:.2f} for the model on cases it had not seen): "
+            f"(r = {r_a:.2f}, against r = {cv:.2f} for the model on cases it had not seen; {interval}): "
             "you used something the cues in the model do not capture."
         )
     return (
         f"Your judgments and a model of your own policy predicted the outcome about equally well "
-        f"(r = {r_a:.2f} and {cv:.2f})."
+        f"(r = {r_a:.2f} and {cv:.2f}; {interval}): this many cases cannot tell them apart."
     )
+
+
+MODEL_VS_RATER_METHOD = (
+    "exact leave-one-out validity of the model of the rater; Zou (2007) 95% interval for the "
+    "difference of two dependent correlations sharing the outcome; Williams' T2 p-value (Steiger 1980)"
+)
+VERDICTS = ("model_better", "rater_better", "about_same", "neither_tracks", "not_available")
+
+
+@dataclass(frozen=True)
+class ModelVersusRater(ResultMixin):
+    """Which predicted the outcome better: the rater, or the leave-one-out model of the rater.
+
+    ``gain`` = model validity (leave-one-out) - r_a; ``ci_low``/``ci_high`` its 95%
+    interval (Zou 2007); ``p_value`` the two-sided Williams T2 test of no difference
+    (Steiger 1980, eq. 7). ``verdict`` is one of :data:`VERDICTS` and is decided by
+    :func:`model_versus_rater` only.
+    """
+
+    verdict: str
+    gain: float
+    ci_low: float
+    ci_high: float
+    p_value: float
+    method: str = MODEL_VS_RATER_METHOD
+
+
+def _fisher_interval(r: np.ndarray, n: np.ndarray, z_crit: float) -> tuple[np.ndarray, np.ndarray]:
+    with np.errstate(invalid="ignore", divide="ignore"):
+        z = np.arctanh(np.clip(r, -1 + 1e-15, 1 - 1e-15))
+        half = z_crit / np.sqrt(n - 3.0)
+    return np.tanh(z - half), np.tanh(z + half)
+
+
+def dependent_correlation_test(r_jk, r_jh, r_kh, n, *, level: float = 0.95):
+    """Compare corr(j, k) with corr(j, h) on the same cases (k and h correlate r_kh).
+
+    Returns ``(t, df, p_two_sided, ci_low, ci_high)`` for ``r_jk - r_jh``, vectorised.
+
+    ``t`` is Williams' T2 as given by Steiger (1980, Psychological Bulletin 87, 245-251,
+    eq. 7), on ``n - 3`` degrees of freedom. The interval is Zou's (2007, Psychological
+    Methods 12, 399-413, eq. 15 with the correlation of eq. 16 for overlapping
+    correlations): Fisher-z limits of each correlation, recombined with their
+    correlation so that it needs no normality of the difference itself.
+    """
+    r_jk, r_jh, r_kh, n = (np.asarray(v, dtype=float) for v in (r_jk, r_jh, r_kh, n))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        det = 1.0 - r_jk**2 - r_jh**2 - r_kh**2 + 2.0 * r_jk * r_jh * r_kh
+        mean_r = (r_jk + r_jh) / 2.0
+        t = (r_jk - r_jh) * np.sqrt((n - 1.0) * (1.0 + r_kh) / (
+            2.0 * (n - 1.0) / (n - 3.0) * det + mean_r**2 * (1.0 - r_kh) ** 3))
+        df = n - 3.0
+        p = 2.0 * st.t.sf(np.abs(t), df)
+        z_crit = st.norm.ppf(0.5 + level / 2.0)
+        l1, u1 = _fisher_interval(r_jk, n, z_crit)
+        l2, u2 = _fisher_interval(r_jh, n, z_crit)
+        c12 = ((r_kh - 0.5 * r_jk * r_jh) * (1.0 - r_jk**2 - r_jh**2 - r_kh**2) + r_kh**3) / (
+            (1.0 - r_jk**2) * (1.0 - r_jh**2))
+        d = r_jk - r_jh
+        low = d - np.sqrt(np.maximum((r_jk - l1) ** 2 + (u2 - r_jh) ** 2
+                                     - 2.0 * c12 * (r_jk - l1) * (u2 - r_jh), 0.0))
+        high = d + np.sqrt(np.maximum((u1 - r_jk) ** 2 + (r_jh - l2) ** 2
+                                      - 2.0 * c12 * (u1 - r_jk) * (r_jh - l2), 0.0))
+    return t, df, p, low, high
+
+
+def model_versus_rater(r_a: float, model_cv: float, r_model_judgment: float, n: int,
+                       *, level: float = 0.95) -> ModelVersusRater:
+    """The one verdict on judgment bootstrapping, for results.json and the reports alike.
+
+    ``neither_tracks`` when neither correlation's Fisher-z interval lies above zero
+    (both near zero or negative: no winner is worth naming); otherwise a winner only
+    when the interval of the gain excludes zero, else ``about_same``.
+    """
+    if not all(np.isfinite(v) for v in (r_a, model_cv, r_model_judgment)) or n < 5:
+        nan = float("nan")
+        return ModelVersusRater("not_available", nan, nan, nan, nan)
+    _, _, p, low, high = dependent_correlation_test(model_cv, r_a, r_model_judgment, n, level=level)
+    z_crit = float(st.norm.ppf(0.5 + level / 2.0))
+    low_a, _ = _fisher_interval(np.array(r_a), np.array(float(n)), z_crit)
+    low_m, _ = _fisher_interval(np.array(model_cv), np.array(float(n)), z_crit)
+    if low_a <= 0 and low_m <= 0:
+        verdict = "neither_tracks"
+    elif low > 0:
+        verdict = "model_better"
+    elif high < 0:
+        verdict = "rater_better"
+    else:
+        verdict = "about_same"
+    return ModelVersusRater(verdict, float(model_cv - r_a), float(low), float(high), float(p))
+
+
+def leave_one_out_predictions(X: np.ndarray, y: np.ndarray, group: np.ndarray,
+                              n_groups: int) -> np.ndarray:
+    """Each row's prediction from its group's least-squares fit without that row.
+
+    Exact and deterministic: the deletion identity ``y_i - e_i / (1 - h_ii)`` of
+    :func:`calibrate.policy.diagnostics.case_influence` on one batched solve. NaN for
+    groups whose fit is rank deficient and for rows with leverage 1.
+    """
+    p = X.shape[1]
+    stats = grouped_sscp(np.column_stack([X, y]), group, n_groups)
+    fit = ols_from_sscp(stats, list(range(p)), p)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        influence = case_influence(X, y, group, stats, fit)
+    out = np.where(influence.leverage < 1.0 - 1e-10, influence.loo_prediction, np.nan)
+    out[~fit.rank_ok[group]] = np.nan
+    return out
 
 
 def _quadratic(a: np.ndarray, S: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.einsum("gi,gij,gj->g", a, S, b)
-
-
-def _fold_labels(group: np.ndarray, n_groups: int, k_folds: int,
-                 rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
-    """A random fold per row, balanced within each rater; also each rater's fold count."""
-    counts = np.bincount(group, minlength=n_groups)
-    folds_per_rater = np.minimum(k_folds, counts)
-    keys = rng.random(group.size)
-    order = np.lexsort((keys, group))
-    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
-    rank_sorted = np.arange(group.size) - starts[group[order]]
-    fold = np.empty(group.size, dtype=np.intp)
-    fold[order] = rank_sorted % np.maximum(folds_per_rater[group[order]], 1)
-    return fold, folds_per_rater
-
-
-def cross_validated_validity(X: np.ndarray, y: np.ndarray, criterion: np.ndarray,
-                             group: np.ndarray, n_groups: int, *, k_folds: int,
-                             rng: np.random.Generator) -> np.ndarray:
-    """k-fold validity of each group's linear model of ``y``: corr(out-of-fold prediction, criterion).
-
-    All (group, fold) training fits are solved in one batch: each row is copied into
-    the training set of every fold except its own, so the batched least squares sees
-    ``n_groups * k_folds`` groups.
-    """
-    fold, _ = _fold_labels(group, n_groups, k_folds, rng)
-    m, p = X.shape
-    other = np.arange(k_folds)
-    copy_row = np.repeat(np.arange(m), k_folds)
-    copy_fold = np.tile(other, m)
-    keep = copy_fold != fold[copy_row]
-    copy_row, copy_fold = copy_row[keep], copy_fold[keep]
-    train_group = group[copy_row] * k_folds + copy_fold
-    Z = np.column_stack([X[copy_row], y[copy_row]])
-    stats = grouped_sscp(Z, train_group, n_groups * k_folds)
-    fit = ols_from_sscp(stats, list(range(p)), p)
-    own = group * k_folds + fold
-    with np.errstate(invalid="ignore"):
-        prediction = fit.intercept[own] + np.einsum("mp,mp->m", X, fit.coef[own])
-    usable = np.isfinite(prediction)
-    failed_groups = np.unique(group[~usable])
-    pair = grouped_sscp(np.column_stack([prediction[usable], criterion[usable]]),
-                        group[usable], n_groups)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        r = pair.sscp[:, 0, 1] / np.sqrt(pair.sscp[:, 0, 0] * pair.sscp[:, 1, 1])
-    r[failed_groups] = np.nan
-    return r
 
 
 def unit_weight_signs(design: CueDesign, ecological: np.ndarray,
@@ -223,8 +302,6 @@ def lens_model(
     criterion: pd.Series,
     *,
     criterion_selected: bool = False,
-    rng: np.random.Generator | int | None = None,
-    k_folds: int = 5,
     rubric: dict[str, float] | None = None,
 ) -> LensResult:
     r"""Lens model of every rater against a criterion, with judgment bootstrapping figures.
@@ -236,9 +313,6 @@ def lens_model(
     criterion : float Series indexed by case id; NaN where the outcome is unknown.
     criterion_selected : the outcome is known only for cases selected on the
         judgments (admitted applicants); a caution is attached to the result.
-    rng : seed or generator for the fold assignment (same seed, same folds).
-    k_folds : folds of the cross-validated model validity (fewer for a rater with
-        fewer cases than folds).
     rubric : optional cue -> weight; its signs orient the unit-weight composite.
 
     Returns
@@ -252,12 +326,9 @@ def lens_model(
     Raises
     ------
     DataError
-        When ``k_folds`` is below 2, the criterion has no known value among judged
+        When the criterion has no known value among judged
         cases, or the judgment table is malformed.
     """
-    if k_folds < 2:
-        raise DataError(f"k_folds must be at least 2 for cross-validation; got {k_folds}.")
-    rng = np.random.default_rng(rng)
     rows = line_up(design, first)
     crit_by_row = _criterion_by_design_row(design, criterion)
     p = design.n_columns
@@ -279,13 +350,12 @@ def lens_model(
     composite, panel_unit = _unit_weight_composite(design, crit_by_row, env_rows, signs)
 
     with_crit = rows.subset(np.isfinite(crit_by_row[rows.design_row]))
-    raters = _per_rater(with_crit, crit_by_row, composite, p, k_folds, rng)
+    raters = _per_rater(with_crit, crit_by_row, composite, p)
     return LensResult(
         environment=environment,
         raters=raters,
         unit_weight_validity=panel_unit,
         unit_weight_signs={c: float(s) for c, s in zip(design.columns, signs)},
-        k_folds=k_folds,
         criterion_selected=bool(criterion_selected),
         cautions=tuple(cautions),
         warnings=tuple(warnings),
@@ -337,7 +407,7 @@ def _unit_weight_composite(design: CueDesign, crit_by_row: np.ndarray,
 
 
 def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarray,
-               p: int, k_folds: int, rng: np.random.Generator) -> tuple[RaterLens, ...]:
+               p: int) -> tuple[RaterLens, ...]:
     G = rows.n_raters
     crit = crit_by_row[rows.design_row]
     Z = np.column_stack([rows.X, rows.y, crit, composite[rows.design_row]])
@@ -369,7 +439,18 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
                           c * np.sqrt(1.0 - r_e**2) * np.sqrt(1.0 - r_s**2))
         lme_error = np.abs(r_a - (g * r_e * r_s + c_term))
         unit = S[:, yu, yc] / np.sqrt(S[:, yu, yu] * Scc)
-    cv = cross_validated_validity(rows.X, rows.y, crit, rows.group, G, k_folds=k_folds, rng=rng)
+    loo = leave_one_out_predictions(rows.X, rows.y, rows.group, G)
+    usable = np.isfinite(loo)
+    pair = grouped_sscp(np.column_stack([loo[usable], crit[usable], rows.y[usable]]),
+                        rows.group[usable], G)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        pair_r = pair.correlation()
+    cv = np.full(G, np.nan)
+    model_judgment = np.full(G, np.nan)
+    # A rater with any row of leverage 1 has no honest leave-one-out validity.
+    complete = np.bincount(rows.group[usable], minlength=G) == np.bincount(rows.group, minlength=G)
+    cv[complete] = pair_r[complete, 0, 1]
+    model_judgment[complete] = pair_r[complete, 0, 2]
     results = []
     n = rows.counts()
     for i, name in enumerate(rows.raters):
@@ -380,14 +461,16 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
                 f"Rater '{name}' has {int(n[i])} cases with a known outcome, constant judgments "
                 "or cues that do not vary; the lens model cannot be fitted."
             )
-            vals = dict.fromkeys(("r_a", "g", "c", "r_e", "r_s", "mv", "cv", "lme", "unit"), np.nan)
+            vals = dict.fromkeys(("r_a", "g", "c", "r_e", "r_s", "mv", "cv", "lme", "unit", "mj"), np.nan)
         else:
             if exact_s[i]:
                 notes.append(f"Rater '{name}' follows the cues exactly (R_s = 1); C is undefined.")
             vals = dict(r_a=r_a[i], g=g[i], c=c[i], r_e=r_e[i], r_s=r_s[i], mv=validity[i],
-                        cv=cv[i], lme=lme_error[i], unit=unit[i])
+                        cv=cv[i], lme=lme_error[i], unit=unit[i], mj=model_judgment[i])
             if not np.isfinite(cv[i]):
-                notes.append(f"Rater '{name}': too few cases per fold for the cross-validated validity.")
+                notes.append(f"Rater '{name}': a case's cue values are unique to it, so the "
+                             "leave-one-out validity cannot be computed.")
+        verdict = model_versus_rater(float(vals["r_a"]), float(vals["cv"]), float(vals["mj"]), int(n[i]))
         results.append(RaterLens(
             rater=name,
             n=int(n[i]),
@@ -401,7 +484,8 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
             bootstrap_gain=float(vals["cv"] - vals["r_a"]),
             unit_weight_validity=float(vals["unit"]),
             lme_error=float(vals["lme"]),
-            summary=_bootstrap_sentence(float(vals["r_a"]), float(vals["cv"])),
+            model_vs_rater=verdict,
+            summary=_bootstrap_sentence(verdict, float(vals["r_a"]), float(vals["cv"])),
             warnings=tuple(notes),
         ))
     return tuple(results)

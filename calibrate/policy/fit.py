@@ -242,11 +242,12 @@ def fit_policies(
     method = importance_method
     if method == "auto":
         method = "dominance" if k <= MAX_DOMINANCE_CUES else "relative_weights"
+    bounds = _rounded_scale_bounds(rows.y, scale, scale_min, scale_max)
     patterns = _column_patterns(X_all, rows, G, p)
     seeds = generator.spawn(len(patterns)) if patterns else []
     for (active, members), seed in zip(patterns, seeds):
         _fit_pattern(design, rows, X_all, np.asarray(active), members, arrays,
-                     n_boot=n_boot, rng=seed, alpha=alpha, method=method)
+                     n_boot=n_boot, rng=seed, alpha=alpha, method=method, bounds=bounds)
     if scale == "binary":
         _fit_logistic(rows, X_all, arrays)
     return _assemble(design, rows, arrays, scale=scale, n_boot=n_boot, alpha=alpha,
@@ -287,8 +288,20 @@ def _column_patterns(X_all, rows: _Rows, G: int, p: int) -> list[tuple[tuple[int
     return [(cols, np.array(members)) for cols, members in sorted(patterns.items())]
 
 
+CURVATURE_SIMULATIONS = 199
+
+
+def _rounded_scale_bounds(y, scale, scale_min, scale_max) -> tuple[float, float] | None:
+    """(min, max) of an ordinal scale in whole steps, whose curvature test needs a scale-aware null."""
+    if scale != "ordinal" or scale_min is None or scale_max is None:
+        return None
+    finite = y[np.isfinite(y)]
+    whole = np.allclose(finite - scale_min, np.round(finite - scale_min))
+    return (float(scale_min), float(scale_max)) if whole and scale_max > scale_min else None
+
+
 def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *,
-                 n_boot, rng, alpha, method) -> None:
+                 n_boot, rng, alpha, method, bounds=None) -> None:
     p_all = design.n_columns
     for g in members:
         missing_cols = [design.columns[j] for j in range(p_all) if j not in set(active.tolist())]
@@ -391,6 +404,13 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
     reset = dg.reset_test(X, y, influence.fitted, groups, Gb, fit)
     A.reset_f[rows_g] = np.where(ok, reset.statistic, np.nan)
     A.reset_p[rows_g] = np.where(ok, reset.p_value, np.nan)
+    if bounds is not None:
+        # Rounding and the scale ends bend a straight-line policy; the F table would call
+        # that curvature. Calibrate the same F against the rater's rounded linear policy
+        # instead (own stream, so the bootstrap intervals keep their numbers).
+        _, scale_p = dg.scale_reset_p(X, y, groups, Gb, scale_min=bounds[0], scale_max=bounds[1],
+                                      n_sim=CURVATURE_SIMULATIONS, rng=rng.spawn(1)[0])
+        A.reset_p[rows_g] = np.where(ok, scale_p, np.nan)
     top = dg.top_rows_per_group(groups, np.abs(influence.studentized), N_LOOK_AGAIN)
     case_ids = design.case_ids
     for i in top:

@@ -36,7 +36,7 @@ from .styles import (
     table_style,
     text,
 )
-from .view import CutoffView, GroupView, PolicyView, RaterView
+from .view import CutoffView, GroupView, LensView, PolicyView, RaterView
 from .wording import fmt
 
 
@@ -423,7 +423,6 @@ class RaterReport:
                                  "No outcome (criterion) is recorded for this study, so this section is not "
                                  "available.", BODY)]
         r_a, g, c, r_e, r_s = lens.r_a, lens.g, lens.c, lens.r_e, lens.r_s
-        mv, mv_cv = lens.model_validity, lens.model_validity_cv
         rows = [[text(h, CELL_BOLD) for h in ("Figure", "Value", "Meaning")],
                 [text("r_a", CELL), text(fmt(r_a), CELL), text("how well your judgments tracked the outcome", CELL)],
                 [text("G", CELL), text(fmt(g), CELL), text("how far your policy matches the cues' best rule", CELL)],
@@ -433,7 +432,7 @@ class RaterReport:
         table = Table(rows, colWidths=[60, 60, CONTENT_WIDTH - 120], hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
-        story.append(text(bootstrap_sentence(r_a, mv, mv_cv), BODY))
+        story.append(text(bootstrap_sentence(lens), BODY))
         if self.view.criterion_only_for_selected or any(
                 "criterion" in w.message and "missing" in w.message for w in self.view.warnings):
             story.append(text(wording.LENS_SELECTED_CAUTION, NOTE))
@@ -519,22 +518,10 @@ def cutoff_sentence(cutoff: CutoffView) -> str:
             "would: a cut-off may be at work. Check whether the rubric intends one.")
 
 
-def bootstrap_sentence(r_a, mv, mv_cv) -> str:
-    if r_a is None:
-        return "The outcome comparison is not available."
-    model = mv_cv if mv_cv is not None else mv
-    if model is None:
-        return f"Your judgments correlated {fmt(r_a)} with the outcome."
-    kind = "tested on cases it was not fitted to" if mv_cv is not None else "fitted to these cases"
-    if model > r_a + 0.02:
-        return (f"A model of your own policy, applied the same way every time ({kind}), tracked the "
-                f"outcome at {fmt(model)}, better than the judgments themselves ({fmt(r_a)}): applying the "
-                "same weights to every case would have helped here.")
-    if model < r_a - 0.02:
-        return (f"Your judgments ({fmt(r_a)}) tracked the outcome better than a model of your own policy "
-                f"({kind}: {fmt(model)}): they use something the listed cues do not hold.")
-    return (f"Your judgments ({fmt(r_a)}) and a model of your own policy ({kind}: {fmt(model)}) tracked "
-            "the outcome about equally.")
+def bootstrap_sentence(lens: LensView) -> str:
+    # The verdict and its sentence are decided once, in the lens model, and stored in
+    # results.json; the report prints them so the two can never disagree.
+    return lens.summary if lens.summary else "The outcome comparison is not available."
 
 
 def suggestions(entry: RaterView, *, include_excluded: bool) -> list[str]:

@@ -173,11 +173,15 @@ class LensView:
     r_s: float | None
     model_validity: float | None
     model_validity_cv: float | None
+    verdict: str            # model_vs_rater.verdict, decided once in the lens model
+    summary: str            # the sentence results.json carries for that verdict
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> LensView:
-        return cls(**{k: _num(d, k, path) for k in ("r_a", "g", "c", "r_e", "r_s", "model_validity",
-                                                   "model_validity_cv")})
+        numbers = {k: _num(d, k, path) for k in ("r_a", "g", "c", "r_e", "r_s", "model_validity",
+                                                 "model_validity_cv")}
+        verdict = _get(_block(d, "model_vs_rater", path) or {}, "verdict", f"{path}.model_vs_rater")
+        return cls(**numbers, verdict=str(verdict), summary=str(_get(d, "summary", path)))
 
 
 @dataclass(frozen=True)

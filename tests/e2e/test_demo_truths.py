@@ -89,3 +89,16 @@ def test_training_made_trained_reviewers_more_consistent_and_closer_to_the_rubri
     misallocation = lambda e: e["alignment"]["misallocation"]  # noqa: E731
     assert change(trained, r_s) > 0.02 and abs(change(controls, r_s)) < 0.02
     assert change(trained, misallocation) < -0.1 and abs(change(controls, misallocation)) < 0.05
+
+
+def test_model_versus_rater_verdict_does_not_move_with_the_seed(demo, tmp_path):
+    # Leave-one-out validity and an analytic interval: nothing random decides the verdict.
+    table = load_study(write_demo(tmp_path).spec)
+    other = audit(table, seed=demo["seed"] + 9_999, n_boot=200).to_dict()
+
+    def verdicts(results):
+        return {(e["rater"], e["phase"]): e["lens"]["model_vs_rater"] for e in results["raters"]
+                if e.get("lens")}
+
+    first, second = verdicts(demo), verdicts(other)
+    assert first and first == second

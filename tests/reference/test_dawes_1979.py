@@ -35,7 +35,7 @@ def _direct(design, criterion, signs):
 
 def test_unit_weights_signed_by_ecological_validity():
     design, first, criterion = _setup(3)
-    result = lens_model(design, first, criterion, rng=0)
+    result = lens_model(design, first, criterion)
     assert list(result.unit_weight_signs.values()) == [1.0, -1.0, 1.0]
     assert result.unit_weight_validity == pytest.approx(_direct(design, criterion, np.array([1, -1, 1])),
                                                         abs=1e-12)
@@ -45,6 +45,6 @@ def test_unit_weights_signed_by_ecological_validity():
 
 def test_rubric_signs_override_ecological_validity():
     design, first, criterion = _setup(3)
-    result = lens_model(design, first, criterion, rng=0, rubric={"grades": 0.5, "essay": 0.5})
+    result = lens_model(design, first, criterion, rubric={"grades": 0.5, "essay": 0.5})
     assert list(result.unit_weight_signs.values()) == [1.0, 1.0, 1.0]
     assert result.unit_weight_validity == pytest.approx(_direct(design, criterion, np.ones(3)), abs=1e-12)

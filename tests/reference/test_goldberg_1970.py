@@ -42,7 +42,7 @@ def test_cross_validated_model_beats_noisy_raters_in_most_of_200_panels():
     ahead, total = 0, 0
     for panel in range(200):
         design, first, criterion = _panel(rng)
-        result = lens_model(design, first, criterion, rng=panel)
+        result = lens_model(design, first, criterion)
         gains = np.array([r.bootstrap_gain for r in result.raters])
         ahead += int((gains > 0).sum())
         total += gains.size
@@ -55,7 +55,7 @@ def test_a_noise_free_rater_and_the_model_agree():
     # Identity: a rater with no noise is reproduced exactly by the model on unseen cases.
     rng = np.random.default_rng(4)
     design, first, criterion = _panel(rng, n_raters=3, noise=[0.0, 0.0, 1.0])
-    result = lens_model(design, first, criterion, rng=9)
+    result = lens_model(design, first, criterion)
     for r in result.raters[:2]:
         assert r.r_s == pytest.approx(1.0, abs=1e-12)
         assert r.model_validity == pytest.approx(r.r_a, abs=1e-10)
@@ -69,7 +69,7 @@ def test_leave_one_out_validity_matches_scikit_learn():
     # to the number of cases the fold assignment no longer matters.
     rng = np.random.default_rng(21)
     design, first, criterion = _panel(rng, n_raters=2, n_cases=40)
-    result = lens_model(design, first, criterion, rng=0, k_folds=40)
+    result = lens_model(design, first, criterion)
     for name in ("r0", "r1"):
         y = first.loc[first.rater == name, "judgment"].to_numpy()
         prediction = cross_val_predict(LinearRegression(), design.matrix, y, cv=LeaveOneOut())

@@ -30,7 +30,7 @@ def test_lens_model_equation_holds_on_incomplete_random_panels(categorical):
     weights = np.array([0.1, 0.5, 0.2] + ([0.3, -0.4] if categorical else []))
     panel = linear_panel(rng, n_cases=300, n_raters=25, per_rater=60, weights=weights,
                          noise=rng.uniform(0.2, 2.0, 25), categorical=categorical)
-    result = lens_model(panel.design, panel.first, _criterion(panel, rng, known_share=0.7), rng=1)
+    result = lens_model(panel.design, panel.first, _criterion(panel, rng, known_share=0.7))
     errors = np.array([r.lme_error for r in result.raters])
     assert np.all(np.isfinite(errors))
     assert errors.max() < 1e-9
@@ -47,7 +47,7 @@ def test_lens_parts_match_statsmodels_per_rater():
     panel = linear_panel(rng, n_cases=200, n_raters=6, per_rater=70,
                          weights=np.array([0.1, 0.4, -0.3, 0.5, 0.2]), noise=0.8, categorical=True)
     criterion = _criterion(panel, rng, known_share=0.8)
-    result = lens_model(panel.design, panel.first, criterion, rng=2)
+    result = lens_model(panel.design, panel.first, criterion)
     for name, rows in panel.rater_rows.items():
         c = criterion.to_numpy()[rows]
         keep = np.isfinite(c)
@@ -70,7 +70,7 @@ def test_environment_model_matches_statsmodels():
     panel = linear_panel(rng, n_cases=150, n_raters=3, per_rater=50, weights=np.array([.1, .2, .3]),
                          noise=1.0)
     criterion = _criterion(panel, rng, known_share=0.6)
-    env = lens_model(panel.design, panel.first, criterion, rng=0).environment
+    env = lens_model(panel.design, panel.first, criterion).environment
     known = np.isfinite(criterion.to_numpy())
     X = panel.design.matrix[known]
     fit = sm.OLS(criterion.to_numpy()[known], sm.add_constant(X)).fit()
@@ -84,7 +84,7 @@ def test_environment_model_matches_statsmodels():
 def test_lens_model_equation_holds_on_the_demo():
     # Identity on the invented demo study (Tucker 1964), both phases.
     for _, design, first, pool in demo_phases():
-        result = lens_model(design, first, pool["first_year_result"], criterion_selected=True, rng=3)
+        result = lens_model(design, first, pool["first_year_result"], criterion_selected=True)
         assert result.max_lme_error < 1e-9
         assert len(result.raters) == 14
         assert any("biased" in c for c in result.cautions)

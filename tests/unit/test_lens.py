@@ -26,8 +26,8 @@ def panel_and_criterion():
 
 def test_same_seed_same_numbers_and_json_contract(panel_and_criterion):
     panel, criterion = panel_and_criterion
-    a = lens_model(panel.design, panel.first, criterion, rng=7)
-    b = lens_model(panel.design, panel.first, criterion, rng=7)
+    a = lens_model(panel.design, panel.first, criterion)
+    b = lens_model(panel.design, panel.first, criterion)
     assert json.dumps(a.to_dict(), sort_keys=True) == json.dumps(b.to_dict(), sort_keys=True)
     block = a.raters[0].to_dict()
     assert LENS_KEYS <= set(block)
@@ -37,7 +37,7 @@ def test_same_seed_same_numbers_and_json_contract(panel_and_criterion):
 
 def test_selected_criterion_carries_a_caution(panel_and_criterion):
     panel, criterion = panel_and_criterion
-    result = lens_model(panel.design, panel.first, criterion, criterion_selected=True, rng=1)
+    result = lens_model(panel.design, panel.first, criterion, criterion_selected=True)
     assert len(result.cautions) == 1 and "selection" in result.cautions[0]
 
 
@@ -45,7 +45,7 @@ def test_partly_known_criterion_is_reported(panel_and_criterion):
     panel, criterion = panel_and_criterion
     partial = criterion.copy()
     partial.iloc[::3] = np.nan
-    result = lens_model(panel.design, panel.first, partial, rng=1)
+    result = lens_model(panel.design, panel.first, partial)
     assert any("known for" in w for w in result.warnings)
     assert all(r.n < 60 for r in result.raters)
 
@@ -53,7 +53,7 @@ def test_partly_known_criterion_is_reported(panel_and_criterion):
 def test_rater_with_too_few_criterion_cases_gets_nan_and_a_warning(panel_and_criterion):
     panel, criterion = panel_and_criterion
     few = pd.DataFrame({"rater": "late", "case": list(panel.design.case_ids[:4]), "judgment": [1., 2., 3., 5.]})
-    result = lens_model(panel.design, pd.concat([panel.first, few]), criterion, rng=1)
+    result = lens_model(panel.design, pd.concat([panel.first, few]), criterion)
     late = result.for_rater("late")
     assert np.isnan(late.r_a) and np.isnan(late.model_validity_cv)
     assert late.warnings and "cannot be fitted" in late.warnings[0]
@@ -63,15 +63,20 @@ def test_rater_with_too_few_criterion_cases_gets_nan_and_a_warning(panel_and_cri
 
 def test_bootstrap_sentence_says_which_way(panel_and_criterion):
     panel, criterion = panel_and_criterion
-    for r in lens_model(panel.design, panel.first, criterion, rng=2).raters:
-        if r.bootstrap_gain > 0.01:
-            assert r.summary.startswith("A model of your own policy would have predicted the outcome better")
-        elif r.bootstrap_gain < -0.01:
-            assert r.summary.startswith("Your judgments predicted the outcome better")
+    starts = {"model_better": "A model of your own policy would have predicted the outcome better",
+              "rater_better": "Your judgments predicted the outcome better",
+              "about_same": "Your judgments and a model of your own policy predicted the outcome about",
+              "neither_tracks": "Neither your judgments"}
+    for r in lens_model(panel.design, panel.first, criterion).raters:
+        verdict = r.model_vs_rater
+        assert r.summary.startswith(starts[verdict.verdict])
+        if verdict.verdict == "model_better":
+            assert verdict.ci_low > 0
+        if verdict.verdict == "rater_better":
+            assert verdict.ci_high < 0
 
 
 @pytest.mark.parametrize("change, message", [
-    (dict(k_folds=1), "k_folds"),
     (dict(criterion="none"), "unknown for every judged case"),
     (dict(case="nowhere"), "absent from the cue design"),
     (dict(column="score"), "lacks column"),
@@ -86,4 +91,4 @@ def test_user_errors_are_data_errors(panel_and_criterion, change, message):
     if change.get("criterion") == "none":
         criterion = criterion * np.nan
     with pytest.raises(DataError, match=message):
-        lens_model(panel.design, first, criterion, k_folds=change.get("k_folds", 5))
+        lens_model(panel.design, first, criterion)

@@ -59,7 +59,11 @@ def fill(result, table) -> ReportInput:
         e["retest"] = {"n_pairs": e["n_repeats"], "r": rt, "icc_a1": rt - .03, "mean_abs_diff": 0.6}
         g, c_, re_ = float(rng.uniform(.6, .95)), float(rng.uniform(-.1, .2)), .72
         e["lens"] = {"r_a": g * re_ * r, "g": g, "c": c_, "r_e": re_, "r_s": r, "model_validity": g * re_,
-                     "model_validity_cv": g * re_ - .03}
+                     "model_validity_cv": g * re_ - .03,
+                     "model_vs_rater": {"verdict": "about_same", "gain": .01, "ci_low": -.05, "ci_high": .07,
+                                        "p_value": .6, "method": "test"},
+                     "summary": "A model of your policy and your own judgments tracked the outcome about "
+                                "equally well on these cases."}
         e["severity"] = {"offset": float(rng.normal(0, .4)), "se": .12,
                          "range_use": {"sd_ratio": float(rng.uniform(.6, 1.4))},
                          "central_tendency": {"middle_share": .3, "panel_middle_share": .28}, "flags": []}
