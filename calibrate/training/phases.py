@@ -395,6 +395,13 @@ def change_word(metric: str, ci_low: float, ci_high: float) -> str:
     return "better" if up == (BETTER[metric] > 0) else "worse"
 
 
+def _ancova_interval(effect: dict) -> tuple[float, float]:
+    """The ANCOVA interval of a training effect, or the plain one where there is no ANCOVA."""
+    ancova = effect.get("ancova") or {}
+    low, high = ancova.get("ci_low", effect["ci_low"]), ancova.get("ci_high", effect["ci_high"])
+    return (float("nan") if low is None else low), (float("nan") if high is None else high)
+
+
 def _listing(items: list[str]) -> str:
     return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]
 
@@ -406,9 +413,15 @@ def comparison_summary(phases: tuple[str, ...], panel: dict, has_control: bool) 
     metrics = [m for m in panel["metrics"] if m in BETTER]
     if has_control:
         effects = panel["training_effect"]
-        words = {m: change_word(m, effects[m]["ci_low"], effects[m]["ci_high"]) for m in metrics}
+        welch = {m: change_word(m, effects[m]["ci_low"], effects[m]["ci_high"]) for m in metrics}
+        # A gain is credited only when the ANCOVA (each rater's starting value held
+        # constant) agrees with the difference in changes; otherwise the evidence is mixed.
+        adjusted = {m: change_word(m, *_ancova_interval(effects[m])) for m in metrics}
+        words = {m: welch[m] if welch[m] == adjusted[m] else "mixed" for m in metrics}
         better = [METRIC_WORDS[m] for m in metrics if words[m] == "better"]
         worse = [METRIC_WORDS[m] for m in metrics if words[m] == "worse"]
+        mixed = [METRIC_WORDS[m] for m in metrics
+                 if words[m] == "mixed" and {welch[m], adjusted[m]} & {"better", "worse"}]
         if better:
             lines.append(f"From {first} to {last} the trained raters improved more than the controls "
                          f"on {_listing(better)}.")
@@ -417,6 +430,10 @@ def comparison_summary(phases: tuple[str, ...], panel: dict, has_control: bool) 
                          "the controls on any measure.")
         if worse:
             lines.append(f"They fell behind the controls on {_listing(worse)}.")
+        if mixed:
+            lines.append(f"On {_listing(mixed)} the evidence is mixed: the difference in changes and the "
+                         "estimate that holds each rater's starting value constant disagree, so no gain "
+                         "is credited.")
     else:
         arm = panel["metrics"]
         last_change = len(phase_pairs(phases)) - 1

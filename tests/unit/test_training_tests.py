@@ -169,3 +169,16 @@ def test_change_words():
     assert change_word("r", -0.1, 0.2) == "no clear change"
     assert change_word("r", float("nan"), 0.2) == "no clear change"
     assert change_word("severity", 0.1, 0.3) == "higher"
+
+
+def test_a_gain_is_credited_only_when_the_ancova_agrees():
+    # Welch's interval excludes zero but the ANCOVA's does not: the sentence credits no gain.
+    from calibrate.training.phases import comparison_summary
+
+    effect = {"ci_low": 0.003, "ci_high": 0.09, "ancova": {"ci_low": -0.006, "ci_high": 0.065}}
+    agreed = {"ci_low": 0.01, "ci_high": 0.09, "ancova": {"ci_low": 0.005, "ci_high": 0.07}}
+    for eff, credited in ((effect, False), (agreed, True)):
+        lines = comparison_summary(("before", "after"), {"metrics": {"r": {}}, "training_effect": {"r": eff}},
+                                   True)
+        assert ("improved more than the controls" in lines[0]) is credited
+        assert any("evidence is mixed" in line for line in lines) is (not credited)
