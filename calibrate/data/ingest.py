@@ -13,6 +13,7 @@ row 1 and the first data row is row 2.
 from __future__ import annotations
 
 import csv
+import io
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -27,6 +28,8 @@ from .rules import (
     PHASE,
     ROW,
     Collector,
+    blank_categorical_missing,
+    blank_missing_words,
     case_level_columns,
     case_value_from_rows,
     check_columns_exist,
@@ -46,7 +49,7 @@ from .rules import (
     report_missing_cue,
     too_few_cases,
 )
-from .spec import StudySpec, read_spec
+from .spec import DEFAULT_MISSING_WORDS, StudySpec, read_spec
 
 
 
@@ -106,41 +109,115 @@ class JudgmentTable:
 # ----------------------------------------------------------------------------- reading
 
 
-def read_table(path: Path) -> pd.DataFrame:
+TABLE_KINDS = "CSV (UTF-8), XLSX or Parquet"
+
+
+def _unreadable(path: Path, why: str) -> DataError:
+    return DataError([DataProblem(f"the table cannot be read: {why}", file=path.name)])
+
+
+def _csv_text(path: Path) -> str:
+    """The whole file as text (UTF-8, with or without a byte-order mark), or a DataError
+    naming the line of the first byte that is not UTF-8."""
+    raw = path.read_bytes()
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[:exc.start].count(b"\n") + 1
+        raise _unreadable(path, f"it is not UTF-8 text (byte 0x{raw[exc.start]:02x} on line {line}, "
+                                "perhaps Latin-1 or Windows-1252); save it as CSV UTF-8") from None
+    if "\x00" in text:
+        raise _unreadable(path, f"it holds binary data, not text; give a {TABLE_KINDS} table")
+    return text
+
+
+def _read_csv(path: Path) -> pd.DataFrame:
+    """Every cell as text with the header as the first row; only empty cells are missing."""
+    text = _csv_text(path)
+    if not text.strip():
+        raise _unreadable(path, "the file is empty; it needs a header row and rows of data")
+    try:
+        sep = csv.Sniffer().sniff(text[:64 * 1024], delimiters=",;\t|").delimiter
+    except csv.Error:
+        sep = ","
+    try:
+        return pd.read_csv(io.StringIO(text), sep=sep, dtype=str, header=None, keep_default_na=False,
+                           na_values=[""], skipinitialspace=True, skip_blank_lines=True)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError) as exc:
+        raise _unreadable(path, str(exc).strip()) from None
+
+
+def _read_excel(path: Path) -> pd.DataFrame:
+    try:
+        return pd.read_excel(path, dtype=object, header=None, engine="openpyxl",
+                             keep_default_na=False, na_values=[""])
+    except Exception as exc:  # openpyxl and zipfile raise many kinds for a damaged file
+        raise _unreadable(path, f"it is not a readable XLSX workbook ({type(exc).__name__}: "
+                                f"{str(exc).strip() or 'damaged'}); save it again from the "
+                                "spreadsheet, or as CSV UTF-8") from None
+
+
+def _read_parquet(path: Path) -> pd.DataFrame:
+    try:
+        df = pd.read_parquet(path)
+    except ImportError:
+        raise DataError([DataProblem(
+            "reading Parquet needs pyarrow; install it with pip install 'rater-calibrate[parquet]'",
+            file=path.name)]) from None
+    except Exception as exc:  # pyarrow raises its own kinds for a damaged file
+        raise _unreadable(path, f"it is not a readable Parquet file ({type(exc).__name__}: "
+                                f"{str(exc).strip() or 'damaged'})") from None
+    header = pd.DataFrame([list(df.columns)], columns=range(df.shape[1]))
+    df.columns = range(df.shape[1])
+    return pd.concat([header, df.astype(object)], ignore_index=True)
+
+
+def _with_header(path: Path, grid: pd.DataFrame) -> pd.DataFrame:
+    """The first row as column names; a header cell left empty is named by its place, and a
+    name given twice is an error (pandas would otherwise rename it silently)."""
+    if grid.empty:
+        raise _unreadable(path, "the file is empty; it needs a header row and rows of data")
+    names = []
+    for i, cell in enumerate(grid.iloc[0].tolist()):
+        empty = cell is None or (isinstance(cell, float) and np.isnan(cell)) or not str(cell).strip()
+        names.append(f"(column {i + 1})" if empty else str(cell).strip())
+    seen: dict[str, int] = {}
+    for i, name in enumerate(names):
+        if name in seen:
+            raise DataError([DataProblem(
+                f"the header names column '{name}' twice (columns {seen[name] + 1} and {i + 1}); "
+                "give each column its own name", file=path.name, row=1, column=name)])
+        seen[name] = i
+    df = grid.iloc[1:].reset_index(drop=True)
+    df.columns = names
+    return df
+
+
+def read_table(path: Path, *, missing_words: tuple[str, ...] | None = DEFAULT_MISSING_WORDS) -> pd.DataFrame:
     """Read a CSV (delimiter sniffed, UTF-8 with or without BOM), XLSX or Parquet file.
 
     Values are kept as read (text for CSV) so that conversion problems can be
-    reported row by row. Adds the spreadsheet row number as ``_row``.
+    reported row by row. Only empty cells are missing, plus the cells holding one of
+    ``missing_words`` (ignoring case and spaces; ``()`` keeps every word as written,
+    which is how the study's own rules read tables, applying the words per column).
+    A damaged or unreadable file is a DataError naming it. Adds the spreadsheet row
+    number as ``_row``.
     """
     path = Path(path)
     suffix = path.suffix.lower()
+    if path.is_dir():
+        raise _unreadable(path, f"{path} is a folder; give a {TABLE_KINDS} file")
     if suffix in (".xlsx", ".xlsm"):
-        df = pd.read_excel(path, dtype=object, engine="openpyxl")
+        grid = _read_excel(path)
     elif suffix == ".parquet":
-        try:
-            df = pd.read_parquet(path)
-        except ImportError:
-            raise DataError([DataProblem(
-                "reading Parquet needs pyarrow; install it with pip install 'rater-calibrate[parquet]'",
-                file=path.name)]) from None
+        grid = _read_parquet(path)
+    elif suffix in (".xls", ".ods", ".numbers"):
+        raise _unreadable(path, f"'{suffix}' files are not read; save it as XLSX or CSV UTF-8")
     else:
-        try:
-            with open(path, encoding="utf-8-sig", newline="") as fh:
-                sample = fh.read(64 * 1024)
-        except UnicodeDecodeError:
-            raise DataError([DataProblem("the file is not UTF-8 text; save it as UTF-8 CSV",
-                                         file=path.name)]) from None
-        try:
-            dialect = csv.Sniffer().sniff(sample, delimiters=",;\t|")
-            sep = dialect.delimiter
-        except csv.Error:
-            sep = ","
-        try:
-            df = pd.read_csv(path, sep=sep, dtype=str, encoding="utf-8-sig",
-                             keep_default_na=True, skipinitialspace=True)
-        except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
-            raise DataError([DataProblem(f"the table cannot be read: {exc}", file=path.name)]) from None
-    df.columns = [str(c).strip() for c in df.columns]
+        grid = _read_csv(path)
+    df = _with_header(path, grid)
+    if missing_words:
+        df = df.apply(lambda col: blank_missing_words(col, missing_words))
     df[ROW] = np.arange(len(df)) + 2
     return df
 
@@ -176,29 +253,41 @@ def inspect_study(spec: StudySpec | str | Path) -> tuple[JudgmentTable | None, l
     return table, out.items
 
 
+def _read_one(path: Path, what: str, key: str, out: Collector) -> pd.DataFrame | None:
+    """One input table, or None with its problem recorded (absent, a folder, unreadable)."""
+    if path.is_dir():
+        out.error(f"the {what} {path} is a folder, not a table; fix [study] {key} in the spec",
+                  file=path.name)
+        return None
+    if not path.is_file():
+        out.error(f"the {what} {path} does not exist; fix [study] {key} in the spec", file=path.name)
+        return None
+    try:
+        return read_table(path, missing_words=())
+    except DataError as exc:
+        out.items.extend(exc.problems)
+        return None
+
+
 def _read_sources(spec: StudySpec, out: Collector) -> tuple[list[pd.DataFrame], pd.DataFrame | None,
                                                             list[dict]]:
     """Read every judgments table (tagged with its file and phase) and the cases table."""
     frames = []
     inputs = []
     for source in spec.data:
-        if not source.path.is_file():
-            out.error(f"the judgments table {source.path} does not exist; fix [study] data in the spec",
-                      file=source.path.name)
+        df = _read_one(source.path, "judgments table", "data", out)
+        if df is None:
             continue
-        df = read_table(source.path)
         inputs.append({"path": source.path.name, "sha256": sha256_of(source.path)})
         df[FILE] = source.path.name
+        df.attrs["file"] = source.path.name
         if source.phase is not None:
             df[PHASE] = source.phase
         frames.append(df)
     cases_df = None
     if spec.cases is not None:
-        if not spec.cases.is_file():
-            out.error(f"the cases table {spec.cases} does not exist; fix [study] cases in the spec",
-                      file=spec.cases.name)
-        else:
-            cases_df = read_table(spec.cases)
+        cases_df = _read_one(spec.cases, "cases table", "cases", out)
+        if cases_df is not None:
             inputs.append({"path": spec.cases.name, "sha256": sha256_of(spec.cases)})
     return frames, cases_df, inputs
 
@@ -282,7 +371,7 @@ def _build(spec: StudySpec, out: Collector) -> JudgmentTable | None:
     """
     cols = spec.columns
     frames, cases_df, inputs = _read_sources(spec, out)
-    if not frames:
+    if not frames or out.errors:
         return None
     cases_df = check_columns_exist(spec, frames, cases_df, out)
     if out.errors:
@@ -293,12 +382,16 @@ def _build(spec: StudySpec, out: Collector) -> JudgmentTable | None:
     data = check_phases(data, spec, out)
     data = drop_duplicates(data, out)
     data = check_judgments(data, spec, out)
-    data = check_sequence(data, cols, out)
+    data = check_sequence(data, cols, out, spec.numeric_missing_words)
 
     cases, row_of_case, case_file = _case_table(spec, data, cases_df, out)
-    cases = check_numeric_cues(cases, spec.cues, row_of_case, case_file, out)
+    cases = check_numeric_cues(cases, spec.cues, row_of_case, case_file, out,
+                               spec.numeric_missing_words)
+    cases = blank_categorical_missing(cases, [c.name for c in spec.cues if c.kind == "categorical"],
+                                      spec.categorical_missing_words)
     if "criterion" in cols:
-        cases = check_criterion(cases, cols["criterion"], case_file, out)
+        cases = check_criterion(cases, cols["criterion"], case_file, out,
+                                spec.numeric_missing_words, row_of_case)
     if out.errors:
         return None
     for rule in spec.cues:
@@ -318,7 +411,8 @@ def _build(spec: StudySpec, out: Collector) -> JudgmentTable | None:
     phase_names: list[str | None] = list(spec.phase_order) if spec.phase_order else [None]
     phases = tuple(_phase_data(name, data if name is None else data.loc[data[PHASE] == name],
                                complete, design.n_columns, out) for name in phase_names)
-    cases, types = excluded_types(cases, spec.excluded)
+    cases, types = excluded_types(cases, spec.excluded, spec.numeric_missing_words,
+                                  spec.categorical_missing_words)
     return JudgmentTable(spec=spec, cases=cases, design=design, phases=phases,
                          warnings=tuple(out.warnings), inputs=tuple(inputs),
                          counts={"excluded_types": types})

@@ -50,11 +50,35 @@ def rows_text(rows: list[int]) -> str:
     return shown + (f" and {len(rows) - MAX_LISTED} more" if len(rows) > MAX_LISTED else "")
 
 
-def to_numbers(series: pd.Series) -> tuple[pd.Series, pd.Series]:
-    """Convert to float; return (values, mask of present-but-not-numeric)."""
-    present = series.notna() & (series.astype(str).str.strip() != "")
+def _plain(series: pd.Series) -> pd.Series:
+    return series.map(lambda v: " ".join(str(v).split()).lower() if isinstance(v, str) else v)
+
+
+def blank_missing_words(series: pd.Series, words: tuple[str, ...]) -> pd.Series:
+    """Cells holding one of ``words`` (ignoring case and spaces), or only spaces, become missing."""
+    lowered = {" ".join(w.split()).lower() for w in words} | {""}
+    plain = _plain(series)
+    return series.mask(plain.isin(lowered))
+
+
+def to_numbers(series: pd.Series, missing_words: tuple[str, ...] = ()) -> tuple[pd.Series, pd.Series]:
+    """Convert to float; return (values, mask of present-but-not-numeric). A cell holding one
+    of ``missing_words`` is missing. Infinite and overflowing values (inf, 1e400) come back
+    as +-inf, for :func:`report_non_finite` to refuse."""
+    series = blank_missing_words(series, missing_words)
+    present = series.notna()
     values = pd.to_numeric(series.where(present), errors="coerce")
     return values.astype(float), present & values.isna()
+
+
+def non_finite(values: pd.Series) -> pd.Series:
+    """Mask of values that are infinite (written as inf, or too large for a float)."""
+    return pd.Series(np.isinf(values.to_numpy(dtype=float)), index=values.index)
+
+
+NON_FINITE_FIX = ("is not a finite number (infinite, or too large to hold); give an ordinary "
+                  "number, or leave the cell empty if the value is missing")
+CONTROL_CHARACTERS = re.compile(r"[\x00-\x1f\x7f-\x9f]")
 
 
 class Collector:
@@ -96,7 +120,10 @@ def check_columns_exist(spec: StudySpec, frames: list[pd.DataFrame], cases_df: p
     cols = spec.columns
     cue_names = list(spec.cue_names)
     for df in frames:
-        fname = df[FILE].iat[0] if len(df) else "the judgments table"
+        fname = df.attrs.get("file", "the judgments table")
+        if df.empty:
+            out.error("the table has a header but no rows of judgments; add the data or remove "
+                      "the table from [study] data", file=fname)
         available = [c for c in df.columns if not c.startswith("_")]
         for role in ("rater", "case", "judgment", "sequence", "phase"):
             col = cols.get(role)
@@ -116,7 +143,7 @@ def check_columns_exist(spec: StudySpec, frames: list[pd.DataFrame], cases_df: p
             role = ("cue" if col in cue_names else "excluded attribute" if col in spec.excluded
                     else "criterion")
             out.error(f"column '{col}' ({role}) not found in {where}; add it or fix the spec",
-                      file=frames[0][FILE].iat[0], column=col)
+                      file=frames[0].attrs.get("file"), column=col)
     return cases_df
 
 
@@ -133,6 +160,11 @@ def check_ids(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd
         for fname, rows in data.loc[missing].groupby(FILE)[ROW]:
             out.error(f"the {role} id is empty in rows {rows_text(rows.tolist())}; every judgment "
                       f"needs a {role}", file=fname, column=col)
+        odd = ids.notna() & ids.str.contains(CONTROL_CHARACTERS, na=False)
+        for fname, rows in data.loc[odd].groupby(FILE)[ROW]:
+            out.error(f"the {role} id in rows {rows_text(rows.tolist())} holds a line break, tab or "
+                      "other control character; ids must be printable text on one line",
+                      file=fname, column=col)
         data[col] = ids
     return data
 
@@ -166,17 +198,18 @@ def drop_duplicates(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
     return data.loc[~dup].copy()
 
 
-def judgment_values(raw: pd.Series, labels: dict[str, float]) -> tuple[pd.Series, pd.Series]:
-    """Judgments as numbers; words only through [judgment] labels (case and spaces ignored).
-    Returns (values, mask of present judgments)."""
-    present = raw.notna() & (raw.astype(str).str.strip() != "")
-    if labels:
-        lookup = {k.strip().lower(): v for k, v in labels.items()}
-        words = raw.astype(str).str.strip().str.lower()
-        mapped = words.map(lookup)
-        numeric = pd.to_numeric(raw.where(present & mapped.isna()), errors="coerce")
-        return mapped.astype(float).fillna(numeric), present
-    return pd.to_numeric(raw.where(present), errors="coerce").astype(float), present
+def judgment_values(raw: pd.Series, labels: dict[str, float],
+                    missing_words: tuple[str, ...] = ()) -> tuple[pd.Series, pd.Series]:
+    """Judgments as numbers; words only through [judgment] labels (case and spaces ignored),
+    and a label wins over a missing word of the same spelling. Returns (values, mask of
+    present judgments)."""
+    lookup = {" ".join(k.split()).lower(): v for k, v in labels.items()}
+    words = _plain(raw)
+    mapped = words.map(lookup) if lookup else pd.Series(np.nan, index=raw.index)
+    unlabelled = blank_missing_words(raw.where(mapped.isna()), missing_words)
+    present = mapped.notna() | unlabelled.notna()
+    numeric = pd.to_numeric(unlabelled, errors="coerce")
+    return mapped.astype(float).fillna(numeric.astype(float)), present
 
 
 def _report_words(data: pd.DataFrame, not_numeric: pd.Series, jcol: str, labels: dict[str, float],
@@ -196,22 +229,31 @@ def _report_words(data: pd.DataFrame, not_numeric: pd.Series, jcol: str, labels:
         out.error(f"... and {extra} more rows with a judgment that is not a number", column=jcol)
 
 
+def _scale_text(lo: float | None, hi: float | None) -> str:
+    return f"{'' if lo is None else f'{lo:g}'}..{'' if hi is None else f'{hi:g}'}"
+
+
 def check_judgments(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.DataFrame:
-    """Judgments: numbers within [judgment] min..max; words only through [judgment] labels;
-    a binary scale holds 0 and 1. A row without a judgment is dropped and counted.
-    Adds the numeric judgment as ``_judgment``."""
+    """Judgments: finite numbers within [judgment] min..max; words only through [judgment]
+    labels; a binary scale holds 0 and 1. A row without a judgment (empty, or a missing
+    word) is dropped and counted. Adds the numeric judgment as ``_judgment``."""
     jcol = spec.columns["judgment"]
     scale = spec.judgment
-    values, present = judgment_values(data[jcol], scale.labels)
+    values, present = judgment_values(data[jcol], scale.labels, spec.numeric_missing_words)
     not_numeric = present & values.isna()
     if not_numeric.any():
         _report_words(data, not_numeric, jcol, scale.labels, out)
+    infinite = non_finite(values)
+    for _, r in data.loc[infinite].head(MAX_ROW_MESSAGES).iterrows():
+        out.error(f"judgment '{r[jcol]}' {NON_FINITE_FIX}", file=r[FILE], row=int(r[ROW]),
+                  column=jcol)
     lo = scale.min if scale.min is not None else -np.inf
     hi = scale.max if scale.max is not None else np.inf
-    outside = values.notna() & ((values < lo) | (values > hi))
+    outside = values.notna() & ~infinite & ((values < lo) | (values > hi))
     for _, r in data.loc[outside].head(MAX_ROW_MESSAGES).iterrows():
-        out.error(f"judgment {r[jcol]} lies outside the scale {scale.min:g}..{scale.max:g}; fix the "
-                  "value or the [judgment] min and max", file=r[FILE], row=int(r[ROW]), column=jcol)
+        out.error(f"judgment {r[jcol]} lies outside the scale {_scale_text(scale.min, scale.max)}; "
+                  "fix the value or the [judgment] min and max", file=r[FILE], row=int(r[ROW]),
+                  column=jcol)
     if scale.kind == "binary":
         notbin = values.notna() & ~values.isin([0.0, 1.0])
         for _, r in data.loc[notbin].head(MAX_ROW_MESSAGES).iterrows():
@@ -227,23 +269,25 @@ def check_judgments(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.D
     return data.loc[present].copy()
 
 
-def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd.DataFrame:
-    """A sequence is a number (position in the reading order) or a date-time; anything else
-    is an error naming its row. Adds ``_sequence`` (NaN when there is no sequence column)."""
+def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector,
+                   missing_words: tuple[str, ...] = ()) -> pd.DataFrame:
+    """A sequence is a finite number (position in the reading order) or a date-time; anything
+    else is an error naming its row. Adds ``_sequence`` (NaN when there is no sequence column)."""
     data = data.copy()
     if "sequence" not in columns:
         data["_sequence"] = np.nan
         return data
     scol = columns["sequence"]
-    seq, bad = to_numbers(data[scol])
+    seq, bad = to_numbers(data[scol], missing_words)
+    bad = bad | non_finite(seq)
     if bad.any():
         as_time = pd.to_datetime(data.loc[bad, scol], errors="coerce", format="mixed")
         if as_time.notna().all() and not seq.notna().any():
             all_time = pd.to_datetime(data[scol], errors="coerce", format="mixed")
             seq = (all_time - pd.Timestamp("1970-01-01")).dt.total_seconds()
-            bad = data[scol].notna() & seq.isna()
+            bad = blank_missing_words(data[scol], missing_words).notna() & seq.isna()
     for _, r in data.loc[bad].head(MAX_ROW_MESSAGES).iterrows():
-        out.error(f"sequence '{r[scol]}' is neither a number nor a date-time", file=r[FILE],
+        out.error(f"sequence '{r[scol]}' is neither a finite number nor a date-time", file=r[FILE],
                   row=int(r[ROW]), column=scol)
     data["_sequence"] = seq
     return data
@@ -302,31 +346,56 @@ def case_value_from_rows(data: pd.DataFrame, col: str, case_col: str, out: Colle
     return first_rows[col]
 
 
+def _case_row(row_of_case: pd.Series, case_file: str | None, cid) -> int | None:
+    return int(row_of_case[cid]) if case_file and cid in row_of_case.index else None
+
+
 def check_numeric_cues(cases: pd.DataFrame, cues: tuple[CueRule, ...], row_of_case: pd.Series,
-                       case_file: str | None, out: Collector) -> pd.DataFrame:
-    """A numeric cue holds numbers or nothing; a word is an error (or declare it categorical)."""
+                       case_file: str | None, out: Collector,
+                       missing_words: tuple[str, ...] = ()) -> pd.DataFrame:
+    """A numeric cue holds finite numbers or nothing (an empty cell or one of the missing
+    words); a word is an error (or declare it categorical), and so is inf or a number too
+    large to hold."""
     cases = cases.copy()
     for rule in cues:
         if rule.kind != "numeric":
             continue
-        vals, bad = to_numbers(cases[rule.name])
+        vals, bad = to_numbers(cases[rule.name], missing_words)
         for cid in cases.index[bad][:MAX_ROW_MESSAGES]:
             out.error(f"cue value '{cases.at[cid, rule.name]}' of case '{cid}' is not a number; fix it "
-                      "or declare the cue categorical", file=case_file, row=int(row_of_case[cid])
-                      if case_file else None, column=rule.name)
+                      "or declare the cue categorical", file=case_file,
+                      row=_case_row(row_of_case, case_file, cid), column=rule.name)
+        for cid in cases.index[non_finite(vals)][:MAX_ROW_MESSAGES]:
+            out.error(f"cue value '{cases.at[cid, rule.name]}' of case '{cid}' {NON_FINITE_FIX}",
+                      file=case_file, row=_case_row(row_of_case, case_file, cid), column=rule.name)
         cases[rule.name] = vals
     return cases
 
 
-def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | None,
-                    out: Collector) -> pd.DataFrame:
-    """The criterion holds numbers or nothing. A missing criterion only removes that case
-    from the lens model (a warning). Adds the numeric criterion as ``__criterion__``."""
+def blank_categorical_missing(cases: pd.DataFrame, columns: list[str],
+                              missing_words: tuple[str, ...]) -> pd.DataFrame:
+    """Categorical cues: only an empty cell is missing, unless the spec lists missing_words;
+    so a level written "None" or "NA" stays a level by default."""
     cases = cases.copy()
-    vals, bad = to_numbers(cases[crit])
+    for col in columns:
+        cases[col] = blank_missing_words(cases[col], missing_words)
+    return cases
+
+
+def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | None,
+                    out: Collector, missing_words: tuple[str, ...] = (),
+                    row_of_case: pd.Series | None = None) -> pd.DataFrame:
+    """The criterion holds finite numbers or nothing. A missing criterion only removes that
+    case from the lens model (a warning). Adds the numeric criterion as ``__criterion__``."""
+    cases = cases.copy()
+    rows = pd.Series(dtype=float) if row_of_case is None else row_of_case
+    vals, bad = to_numbers(cases[crit], missing_words)
     for cid in cases.index[bad][:MAX_ROW_MESSAGES]:
         out.error(f"criterion '{cases.at[cid, crit]}' of case '{cid}' is not a number",
-                  file=case_file, column=crit)
+                  file=case_file, row=_case_row(rows, case_file, cid), column=crit)
+    for cid in cases.index[non_finite(vals)][:MAX_ROW_MESSAGES]:
+        out.error(f"criterion '{cases.at[cid, crit]}' of case '{cid}' {NON_FINITE_FIX}",
+                  file=case_file, row=_case_row(rows, case_file, cid), column=crit)
     cases["__criterion__"] = vals
     n_missing = int(vals.isna().sum())
     if n_missing:
@@ -336,8 +405,11 @@ def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | None,
 
 
 def check_constant_cue(values: pd.Series, rule: CueRule, out: Collector) -> None:
-    """Constant cues are an error: their weight cannot be estimated."""
-    if values.dropna().nunique() < 2:
+    """Constant cues are an error: their weight cannot be estimated (an empty cue too)."""
+    if values.notna().sum() == 0:
+        out.error(f"cue '{rule.name}' has no value in any judged case; fill it in or remove it "
+                  "from [cues]", column=rule.name)
+    elif values.dropna().nunique() < 2:
         out.error(f"cue '{rule.name}' is constant over the judged cases; its weight cannot be "
                   "estimated. Remove it from [cues]", column=rule.name)
 
@@ -358,15 +430,19 @@ def report_missing_cue(values: pd.Series, rule: CueRule, out: Collector) -> None
                  column=rule.name)
 
 
-def excluded_types(cases: pd.DataFrame, excluded: tuple[str, ...]) -> tuple[pd.DataFrame, dict[str, str]]:
-    """An excluded attribute is numeric when every present value is a number (and is then
-    converted), else categorical."""
+def excluded_types(cases: pd.DataFrame, excluded: tuple[str, ...],
+                   numeric_words: tuple[str, ...] = (),
+                   categorical_words: tuple[str, ...] = ()) -> tuple[pd.DataFrame, dict[str, str]]:
+    """An excluded attribute is numeric when every present value is a finite number (and is
+    then converted, the numeric missing words read as missing), else categorical (only the
+    spec's own missing words read as missing)."""
     cases = cases.copy()
     types = {}
     for col in excluded:
-        vals, bad = to_numbers(cases[col])
-        if bad.any():
+        vals, bad = to_numbers(cases[col], numeric_words)
+        if bad.any() or non_finite(vals).any():
             types[col] = "categorical"
+            cases[col] = blank_missing_words(cases[col], categorical_words)
         else:
             types[col] = "numeric"
             cases[col] = vals

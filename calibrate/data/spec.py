@@ -9,6 +9,7 @@ the fix (an unknown key comes with the closest valid key).
 from __future__ import annotations
 
 import difflib
+import math
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -24,11 +25,76 @@ MISSING_RULES = ("drop", "indicator")
 CUE_KINDS = ("numeric", "categorical")
 RUBRIC_BASES = ("standardized", "raw")
 DEFAULT_SEED = 20261201
+# The words that mean "no value" in a numeric column (cues, criterion, judgments, sequence)
+# when the spec gives no [study] missing_words; matched ignoring case and surrounding
+# spaces. They never apply to ids (an id "NA" is an id), and categorical cues take only
+# empty cells as missing unless the spec lists its own words (README, "Missing values").
+DEFAULT_MISSING_WORDS = ("NA", "N/A", "#N/A", "NaN", "null", "None", "missing", "-", ".")
+# Generated design-term names use these (cue=level, cue:missing); a cue named with them
+# could collide with a generated term and silently lose a weight.
+TERM_SEPARATORS = ("=", ":")
+
+# Word scales whose order is known (our own list, README "The study spec"): each is a list of
+# ranks from lowest to highest, a rank holding words that mean the same place. `init` numbers
+# words found in one of them in this order, and `check` refuses [judgment] labels that
+# number such words out of order (a consistently reversed numbering is accepted).
+KNOWN_WORD_SCALES: tuple[tuple[tuple[str, ...], ...], ...] = (
+    (("very poor",), ("poor",), ("fair",), ("good",), ("very good",), ("excellent",)),
+    (("poor",), ("average",), ("good",), ("excellent",)),
+    (("unsatisfactory",), ("satisfactory",), ("good",), ("excellent",)),
+    (("very low",), ("low",), ("medium", "moderate"), ("high",), ("very high",)),
+    (("weak",), ("adequate",), ("strong",)),
+    (("strongly disagree",), ("disagree",), ("somewhat disagree",),
+     ("neutral", "neither agree nor disagree"), ("somewhat agree",), ("agree",),
+     ("strongly agree",)),
+    (("never",), ("rarely",), ("sometimes",), ("often",), ("always",)),
+    (("below expectations",), ("meets expectations",), ("exceeds expectations",)),
+    (("not recommended",), ("recommended with reservations",), ("recommended",),
+     ("highly recommended",)),
+    (("no",), ("maybe",), ("yes",)),
+    (("false",), ("true",)),
+    (("fail",), ("pass",)),
+    (("reject",), ("accept",)),
+    (("decline",), ("admit",)),
+)
+
+
+def _plain_word(word: str) -> str:
+    return " ".join(str(word).lower().replace("_", " ").replace("-", " ").split())
+
+
+def known_scale_ranks(words) -> dict[str, int] | None:
+    """The rank of each word in the first known word scale that holds them all, or None."""
+    plain = {w: _plain_word(w) for w in words}
+    for scale in KNOWN_WORD_SCALES:
+        rank = {word: i for i, tier in enumerate(scale) for word in tier}
+        if plain and all(p in rank for p in plain.values()):
+            return {w: rank[p] for w, p in plain.items()}
+    return None
+
+
+def _check_label_order(labels: dict[str, float], problems: list[str]) -> None:
+    """Labels drawn from a known word scale must be numbered along it (either direction)."""
+    ranks = known_scale_ranks(labels)
+    if ranks is None or len(set(ranks.values())) < 2:
+        return
+    ordered = sorted(labels, key=lambda w: (ranks[w], labels[w]))
+    steps = [(a, b) for a, b in zip(ordered, ordered[1:]) if ranks[a] != ranks[b]]
+    signs = [(labels[b] > labels[a]) - (labels[b] < labels[a]) for a, b in steps]
+    if set(signs) in ({1}, {-1}):
+        return
+    a, b = next(step for step, sign in zip(steps, signs) if sign != signs[0] or sign == 0)
+    order = " < ".join(ordered)
+    problems.append(f"[judgment] labels do not follow the order of the words ({order}): "
+                    f"'{a}' = {_plain_number(labels[a])} but '{b}' = {_plain_number(labels[b])}; "
+                    "number the words along the scale's order (or all in reverse), one number "
+                    "per place.")
+
 
 # Every key the spec may hold, per table; used for "did you mean" suggestions.
 VALID_KEYS: dict[str, tuple[str, ...]] = {
     "": ("study", "columns", "judgment", "cues", "rubric", "excluded", "phases"),
-    "study": ("name", "data", "cases", "seed", "criterion_only_for_selected"),
+    "study": ("name", "data", "cases", "seed", "criterion_only_for_selected", "missing_words"),
     "columns": ROLES_REQUIRED + ROLES_OPTIONAL,
     "judgment": ("scale", "min", "max", "labels", "cut_off"),
     "rubric": ("basis",),  # plus one key per cue
@@ -81,6 +147,7 @@ class StudySpec:
     phase_order: tuple[str, ...] | None = None
     trained: tuple[str, ...] | None = None
     criterion_only_for_selected: bool = False
+    missing_words: tuple[str, ...] | None = None  # None: DEFAULT_MISSING_WORDS for numbers only
     source: Path | None = None
 
     @property
@@ -93,6 +160,17 @@ class StudySpec:
 
     def role(self, name: str) -> str | None:
         return self.columns.get(name)
+
+    @property
+    def numeric_missing_words(self) -> tuple[str, ...]:
+        """The words read as "no value" in numeric columns (cues, criterion, judgments)."""
+        return DEFAULT_MISSING_WORDS if self.missing_words is None else self.missing_words
+
+    @property
+    def categorical_missing_words(self) -> tuple[str, ...]:
+        """The words read as "no value" in categorical cues: only the spec's own list, so a
+        level called "None" or "NA" stays a level unless the spec says otherwise."""
+        return () if self.missing_words is None else self.missing_words
 
     def to_toml(self, *, relative_to: Path | None = None) -> str:
         """The spec as TOML text (paths relative to ``relative_to`` when given)."""
@@ -118,6 +196,8 @@ class StudySpec:
         study["seed"] = self.seed
         if self.criterion_only_for_selected:
             study["criterion_only_for_selected"] = True
+        if self.missing_words is not None:
+            study["missing_words"] = list(self.missing_words)
         doc: dict[str, Any] = {"study": study, "columns": dict(self.columns)}
         judgment: dict[str, Any] = {"scale": self.judgment.kind}
         for key in ("min", "max", "cut_off"):
@@ -162,12 +242,47 @@ def _check_keys(table: dict, section: str, problems: list[str], valid: tuple[str
 
 
 def _number(value: Any, what: str, problems: list[str]) -> float | None:
+    """A finite number, or None when absent; anything else (text, true/false, inf, nan, an
+    integer too large for a float) is a problem naming the key."""
     if value is None:
         return None
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         problems.append(f"{what} must be a number, got {value!r}.")
         return None
-    return float(value)
+    try:
+        number = float(value)
+    except OverflowError:
+        number = math.inf
+    if not math.isfinite(number):
+        problems.append(f"{what} must be a finite number, got {value!r}; give an ordinary number.")
+        return None
+    return number
+
+
+def _boolean(value: Any, what: str, problems: list[str]) -> bool:
+    """A TOML true/false; text such as "no" or "false", or 0/1, is refused rather than guessed."""
+    if isinstance(value, bool):
+        return value
+    problems.append(f"{what} must be true or false (without quotes), got {value!r}.")
+    return False
+
+
+def _check_column_name(name: str, what: str, problems: list[str]) -> None:
+    """Names starting with '_' are calibrate's own working columns (_row, _file, ...)."""
+    if name.startswith("_"):
+        problems.append(f"{what} '{name}' starts with '_', which calibrate keeps for its own working "
+                        "columns (such as _row and _file); rename the column in the table and the spec.")
+
+
+def _parse_missing_words(raw: Any, problems: list[str]) -> tuple[str, ...] | None:
+    """[study] missing_words: a list of words (text) meaning "no value"; None when absent."""
+    if raw is None:
+        return None
+    if not isinstance(raw, list) or not all(isinstance(w, str) and w.strip() for w in raw):
+        problems.append("[study] missing_words must be a list of words, e.g. missing_words = "
+                        "[\"NA\", \"n/a\"] (an empty cell is always missing).")
+        return None
+    return tuple(w.strip() for w in raw)
 
 
 def _parse_data_sources(raw_data: Any, base_dir: Path, problems: list[str]) -> list[DataSource]:
@@ -213,16 +328,21 @@ def _parse_study(doc: dict, base_dir: Path, problems: list[str]) -> dict[str, An
         problems.append("[study] name is missing; give the study a short name.")
     data_sources = _parse_data_sources(study.get("data"), base_dir, problems)
     cases_path = study.get("cases")
+    if cases_path is not None and not isinstance(cases_path, str):
+        problems.append(f"[study] cases must be a path (text), got {cases_path!r}.")
+        cases_path = None
     seed_raw = study.get("seed", DEFAULT_SEED)
-    if isinstance(seed_raw, bool) or not isinstance(seed_raw, int) or seed_raw < 0:
-        problems.append(f"[study] seed must be a non-negative whole number, got {seed_raw!r}.")
+    if isinstance(seed_raw, bool) or not isinstance(seed_raw, int) or not 0 <= seed_raw < 2**63:
+        problems.append(f"[study] seed must be a whole number from 0 to 2^63 - 1, got {seed_raw!r}.")
         seed_raw = DEFAULT_SEED
     return {
         "name": name,
         "data": tuple(data_sources),
         "cases": base_dir / str(cases_path) if cases_path else None,
         "seed": int(seed_raw),
-        "criterion_only_for_selected": bool(study.get("criterion_only_for_selected", False)),
+        "criterion_only_for_selected": _boolean(study.get("criterion_only_for_selected", False),
+                                                "[study] criterion_only_for_selected", problems),
+        "missing_words": _parse_missing_words(study.get("missing_words"), problems),
     }
 
 
@@ -241,9 +361,10 @@ def _parse_columns(doc: dict, problems: list[str]) -> dict[str, str]:
             )
     for role, col in columns_raw.items():
         if role in VALID_KEYS["columns"]:
-            if not isinstance(col, str) or not col:
+            if not isinstance(col, str) or not col.strip():
                 problems.append(f"[columns] {role} must be a column name (text).")
             else:
+                _check_column_name(col, f"[columns] {role}", problems)
                 columns[role] = col
     seen_cols: dict[str, str] = {}
     for role, col in columns.items():
@@ -296,6 +417,7 @@ def _parse_judgment(doc: dict, problems: list[str]) -> JudgmentScale:
         problems.append(f"[judgment] min ({_plain_number(jmin)}) must be below max "
                         f"({_plain_number(jmax)}); swap them or fix the scale.")
     labels = _parse_labels(judgment_raw.get("labels", {}), jmin, jmax, problems)
+    _check_label_order(labels, problems)
     cut_off = _number(judgment_raw.get("cut_off"), "[judgment] cut_off", problems)
     return JudgmentScale(kind=kind, min=jmin, max=jmax, labels=labels, cut_off=cut_off)
 
@@ -321,6 +443,13 @@ def _parse_cue(cue: str, rule: Any, columns: dict[str, str], problems: list[str]
         problems.append(f"[cues] {cue}: the indicator rule is for numeric cues; a categorical cue "
                         "can take 'missing' as one of its levels instead.")
         return None
+    _check_column_name(cue, "[cues] cue", problems)
+    separators = [sep for sep in TERM_SEPARATORS if sep in cue]
+    if separators:
+        problems.append(f"[cues] cue '{cue}' holds '{separators[0]}', which calibrate uses in the "
+                        "names of the terms it makes (cue=level for a category, cue:missing for the "
+                        "missing-value term), so its weight could be confused with one of them; "
+                        "rename the column without '=' or ':' (for example with '_').")
     if cue in set(columns.values()):
         # a column given two roles is reported by [columns]; name the last one here
         role = [r for r, c in columns.items() if c == cue][-1]
@@ -395,7 +524,11 @@ def _parse_excluded(doc: dict, cue_names: list[str], role_columns: set[str],
     if not isinstance(cols, list):
         problems.append("[excluded] columns must be a list of column names.")
         cols = []
+    if not all(isinstance(c, str) and c.strip() for c in cols):
+        problems.append("[excluded] columns must be a list of column names (text).")
+        cols = [c for c in cols if isinstance(c, str) and c.strip()]
     for col in cols:
+        _check_column_name(col, "[excluded] column", problems)
         if col in cue_names:
             problems.append(f"[excluded] '{col}' is also a cue; an attribute that must not "
                             "influence judgments cannot be a cue. Remove it from [cues] or [excluded].")
@@ -486,13 +619,17 @@ def parse_spec(doc: dict, *, base_dir: Path, source: Path | None = None) -> Stud
 def read_spec(path: str | Path) -> StudySpec:
     """Read and validate a study spec from a TOML file."""
     path = Path(path)
+    if path.is_dir():
+        raise SpecError(f"{path} is a folder, not a spec file; give the spec's file, for example "
+                        f"{path / 'study.toml'}.")
     if not path.is_file():
         raise SpecError(f"the spec file {path} does not exist. Draft one with "
                         "'calibrate init <judgments table>'.")
     try:
         text = path.read_text(encoding="utf-8-sig")
     except UnicodeDecodeError:
-        raise SpecError("the spec is not UTF-8 text.", path=str(path)) from None
+        raise SpecError("the spec is not UTF-8 text (is it the right file?); save it as UTF-8.",
+                        path=str(path)) from None
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -541,11 +678,13 @@ def _guess_role(columns: list[str], role: str, taken: set[str]) -> str | None:
     return None
 
 
-def _guess_scale(values: "pd.Series", numeric: bool) -> tuple[str, Any, Any, dict]:  # noqa: F821
-    """The judgment scale a column looks like: (kind, min, max, labels).
+def _guess_scale(values: "pd.Series", numeric: bool) -> tuple[str, Any, Any, dict, bool]:  # noqa: F821
+    """The judgment scale a column looks like: (kind, min, max, labels, labels_need_check).
 
-    Numbers: 0/1 is binary, up to 11 whole values ordinal, else continuous. Words: two
-    are binary (a yes-like word is 1), more are ordinal labels in alphabetical order.
+    Numbers: 0/1 is binary, up to 11 whole values ordinal, else continuous. Words from a
+    known word scale (KNOWN_WORD_SCALES) are numbered in its order, lowest 1 (two words:
+    binary, the higher word 1). Other words are numbered alphabetically, which says
+    nothing about their meaning, so the draft marks them for the user to renumber.
     """
     import pandas as pd
 
@@ -553,16 +692,20 @@ def _guess_scale(values: "pd.Series", numeric: bool) -> tuple[str, Any, Any, dic
         nums = pd.to_numeric(values)
         distinct = sorted(nums.unique())
         if set(distinct) <= {0, 1}:
-            return "binary", 0, 1, {}
+            return "binary", 0, 1, {}, False
         if all(float(v).is_integer() for v in distinct) and len(distinct) <= 11:
-            return "ordinal", int(min(distinct)), int(max(distinct)), {}
-        return "continuous", float(nums.min()), float(nums.max()), {}
-    words = sorted(str(v).strip() for v in values.unique())
+            return "ordinal", int(min(distinct)), int(max(distinct)), {}, False
+        return "continuous", float(nums.min()), float(nums.max()), {}, False
+    words = sorted({str(v).strip() for v in values.unique()})
+    ranks = known_scale_ranks(words)
+    if ranks is not None:
+        words = sorted(words, key=lambda w: (ranks[w], w))
     if len(words) == 2:
-        yes = [w for w in words if w.lower() in ("admit", "yes", "accept", "pass", "1", "true")]
-        first = yes[0] if yes else words[0]
-        return "binary", 0, 1, {first: 1, next(w for w in words if w != first): 0}
-    return "ordinal", 1, len(words), {w: i + 1 for i, w in enumerate(words)}
+        if ranks is None:
+            yes = [w for w in words if w.lower() in ("admit", "yes", "accept", "pass", "1", "true")]
+            words = [w for w in words if w not in yes[:1]] + yes[:1]
+        return "binary", 0, 1, {words[1]: 1, words[0]: 0}, ranks is None
+    return "ordinal", 1, len(words), {w: i + 1 for i, w in enumerate(words)}, ranks is None
 
 
 def _guess_cues(table: "pd.DataFrame", columns: list[str],  # noqa: F821
@@ -584,6 +727,20 @@ def _guess_cues(table: "pd.DataFrame", columns: list[str],  # noqa: F821
             continue  # free text or ids: not a cue
         cues.append((c, kind, missing))
     return cues
+
+
+def _judgment_lines(scale: str, jmin, jmax, labels: dict, labels_unsure: bool, q) -> list[str]:
+    """The draft's [judgment] table; words numbered only alphabetically get a CHECK line."""
+    lines = ["", "[judgment]   # CHECK: the scale", f"scale = {q(scale)}"]
+    if jmin is not None:
+        lines += [f"min = {jmin}", f"max = {jmax}"]
+    if labels_unsure:
+        lines.append("# CHECK: these words are numbered in alphabetical order, which says nothing "
+                     "about their meaning;")
+        lines.append("# renumber them so that the numbers follow the scale (a better judgment higher).")
+    if labels:
+        lines.append("labels = { " + ", ".join(f"{q(k)} = {v}" for k, v in labels.items()) + " }")
+    return lines
 
 
 def draft_spec(table: "pd.DataFrame", *, data_name: str, study_name: str) -> str:  # noqa: F821
@@ -613,8 +770,9 @@ def draft_spec(table: "pd.DataFrame", *, data_name: str, study_name: str) -> str
         if roles["judgment"]:
             taken.add(roles["judgment"])
     jcol = roles["judgment"]
-    scale, jmin, jmax, labels = ("continuous", None, None, {}) if jcol is None else _guess_scale(
-        table[jcol].dropna(), numeric[jcol])
+    scale, jmin, jmax, labels, labels_unsure = (
+        ("continuous", None, None, {}, False) if jcol is None
+        else _guess_scale(table[jcol].dropna(), numeric[jcol]))
     cues = _guess_cues(table, [c for c in columns if c not in taken], numeric)
 
     def q(text: str) -> str:
@@ -641,11 +799,7 @@ def draft_spec(table: "pd.DataFrame", *, data_name: str, study_name: str) -> str
                 lines.append(f"# {role} = \"\"   # optional")
         else:
             lines.append(f"{role} = {q(col)}")
-    lines += ["", "[judgment]   # CHECK: the scale", f"scale = {q(scale)}"]
-    if jmin is not None:
-        lines += [f"min = {jmin}", f"max = {jmax}"]
-    if labels:
-        lines.append("labels = { " + ", ".join(f"{q(k)} = {v}" for k, v in labels.items()) + " }")
+    lines += _judgment_lines(scale, jmin, jmax, labels, labels_unsure, q)
     lines += ["", "[cues]   # CHECK: numeric or categorical; remove columns that are not cues"]
     for name, kind, missing in cues:
         if missing:

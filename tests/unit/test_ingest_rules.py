@@ -166,7 +166,7 @@ def test_sequence_is_a_number_or_a_date_time():
     assert kept["_sequence"].diff().iloc[1] == 60.0
     frame = rows(rater=["a", "a"], case=["c1", "c2"], seq=["1", "soon"])
     rules.check_sequence(frame, {"sequence": "seq"}, out)
-    assert messages(out) == ["sequence 'soon' is neither a number nor a date-time"]
+    assert messages(out) == ["sequence 'soon' is neither a finite number nor a date-time"]
 
 
 # ----------------------------------------------------------------------------- cues belong to the case
