@@ -177,6 +177,9 @@ def init(data: Path, out: Path | None, name: str | None, force: bool) -> None:
     if out.exists() and not force:
         raise OutputExistsError(f"{out} already exists; choose another --out or add --force.")
     table = read_table(data)
+    if table.empty:
+        raise CalibrateError(f"the table {data} has a header but no rows; init guesses the scale "
+                             "and the cues from the data, so give it the table with its judgments.")
     rel = os.path.relpath(data.resolve(), out.resolve().parent)
     text = draft_spec(table, data_name=Path(rel).as_posix(), study_name=name or data.stem)
     atomic_write_text(out, text)

@@ -306,8 +306,8 @@ def _case_table(spec: StudySpec, data: pd.DataFrame, cases_df: pd.DataFrame | No
                 out: Collector) -> tuple[pd.DataFrame, pd.Series, str | None]:
     """The per-case values, from the cases table, else from the judgment rows.
 
-    Returns (cases indexed by the judged case ids, spreadsheet row of each case,
-    the cases table's file name or None).
+    Returns (cases indexed by the judged case ids, spreadsheet row of each case, the
+    cases table's file name, or the judgments file of each case's first row).
     """
     ccol = spec.columns["case"]
     cases_index = None if cases_df is None else index_cases_table(cases_df, data, spec, out)
@@ -321,9 +321,10 @@ def _case_table(spec: StudySpec, data: pd.DataFrame, cases_df: pd.DataFrame | No
     cases = pd.DataFrame(index=used_cases)
     for col, series in case_values.items():
         cases[col] = series.reindex(used_cases)
+    first_rows = data.drop_duplicates(ccol).set_index(ccol)
     row_of_case = (cases_index[ROW] if cases_index is not None
-                   else data.drop_duplicates(ccol).set_index(ccol)[ROW]).reindex(used_cases)
-    case_file = spec.cases.name if cases_index is not None else None
+                   else first_rows[ROW]).reindex(used_cases)
+    case_file = spec.cases.name if cases_index is not None else first_rows[FILE]
     return cases, row_of_case, case_file
 
 
@@ -382,6 +383,10 @@ def _build(spec: StudySpec, out: Collector) -> JudgmentTable | None:
     data = check_phases(data, spec, out)
     data = drop_duplicates(data, out)
     data = check_judgments(data, spec, out)
+    if data.empty and not out.errors:
+        out.error("no row has a judgment; fill in the judgment column "
+                  f"'{cols['judgment']}'", column=cols["judgment"])
+        return None
     data = check_sequence(data, cols, out, spec.numeric_missing_words)
 
     cases, row_of_case, case_file = _case_table(spec, data, cases_df, out)

@@ -43,6 +43,15 @@ def as_id(value) -> str | None:
     return text or None
 
 
+MAX_SHOWN_CHARS = 40  # a cell value quoted in a message is cut to this length
+
+
+def shown(value) -> str:
+    """A cell value as quoted in a message: one line, cut short when long."""
+    text = " ".join(str(value).split())
+    return text if len(text) <= MAX_SHOWN_CHARS else text[:MAX_SHOWN_CHARS - 3] + "..."
+
+
 def rows_text(rows: list[int]) -> str:
     """Row numbers for a message, the first few listed and the rest counted."""
     rows = sorted(rows)
@@ -215,14 +224,14 @@ def judgment_values(raw: pd.Series, labels: dict[str, float],
 def _report_words(data: pd.DataFrame, not_numeric: pd.Series, jcol: str, labels: dict[str, float],
                   out: Collector) -> None:
     """An unmapped word is an error naming its row, with the fix."""
-    some_words = data.loc[not_numeric, jcol].astype(str).str.strip().unique()[:3]
+    some_words = [shown(w) for w in data.loc[not_numeric, jcol].astype(str).str.strip().unique()[:3]]
     if labels:
         fix = f"use a number or one of the labels ({', '.join(labels)})"
     else:
         fix = ("use numbers, or map the words to numbers with [judgment] labels, e.g. labels = "
                "{ " + ", ".join(f'{w} = ?' for w in some_words) + " }")
     for _, r in data.loc[not_numeric].head(MAX_ROW_MESSAGES).iterrows():
-        out.error(f"judgment '{r[jcol]}' is not a number; {fix}", file=r[FILE], row=int(r[ROW]),
+        out.error(f"judgment '{shown(r[jcol])}' is not a number; {fix}", file=r[FILE], row=int(r[ROW]),
                   column=jcol)
     extra = int(not_numeric.sum()) - MAX_ROW_MESSAGES
     if extra > 0:
@@ -245,19 +254,19 @@ def check_judgments(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.D
         _report_words(data, not_numeric, jcol, scale.labels, out)
     infinite = non_finite(values)
     for _, r in data.loc[infinite].head(MAX_ROW_MESSAGES).iterrows():
-        out.error(f"judgment '{r[jcol]}' {NON_FINITE_FIX}", file=r[FILE], row=int(r[ROW]),
+        out.error(f"judgment '{shown(r[jcol])}' {NON_FINITE_FIX}", file=r[FILE], row=int(r[ROW]),
                   column=jcol)
     lo = scale.min if scale.min is not None else -np.inf
     hi = scale.max if scale.max is not None else np.inf
     outside = values.notna() & ~infinite & ((values < lo) | (values > hi))
     for _, r in data.loc[outside].head(MAX_ROW_MESSAGES).iterrows():
-        out.error(f"judgment {r[jcol]} lies outside the scale {_scale_text(scale.min, scale.max)}; "
+        out.error(f"judgment {shown(r[jcol])} lies outside the scale {_scale_text(scale.min, scale.max)}; "
                   "fix the value or the [judgment] min and max", file=r[FILE], row=int(r[ROW]),
                   column=jcol)
     if scale.kind == "binary":
         notbin = values.notna() & ~values.isin([0.0, 1.0])
         for _, r in data.loc[notbin].head(MAX_ROW_MESSAGES).iterrows():
-            out.error(f"judgment {r[jcol]} is not 0 or 1 on a binary scale", file=r[FILE],
+            out.error(f"judgment {shown(r[jcol])} is not 0 or 1 on a binary scale", file=r[FILE],
                       row=int(r[ROW]), column=jcol)
     no_judgment = ~present
     if no_judgment.any():
@@ -287,7 +296,7 @@ def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector,
             seq = (all_time - pd.Timestamp("1970-01-01")).dt.total_seconds()
             bad = blank_missing_words(data[scol], missing_words).notna() & seq.isna()
     for _, r in data.loc[bad].head(MAX_ROW_MESSAGES).iterrows():
-        out.error(f"sequence '{r[scol]}' is neither a finite number nor a date-time", file=r[FILE],
+        out.error(f"sequence '{shown(r[scol])}' is neither a finite number nor a date-time", file=r[FILE],
                   row=int(r[ROW]), column=scol)
     data["_sequence"] = seq
     return data
@@ -346,12 +355,20 @@ def case_value_from_rows(data: pd.DataFrame, col: str, case_col: str, out: Colle
     return first_rows[col]
 
 
-def _case_row(row_of_case: pd.Series, case_file: str | None, cid) -> int | None:
-    return int(row_of_case[cid]) if case_file and cid in row_of_case.index else None
+def _case_row(row_of_case: pd.Series, case_file, cid) -> int | None:
+    return int(row_of_case[cid]) if case_file is not None and cid in row_of_case.index else None
+
+
+def _case_file(case_file, cid) -> str | None:
+    """The file a case's values were read from: the cases table, or (a Series of file names
+    per case) the judgments table of the case's first row."""
+    if isinstance(case_file, pd.Series):
+        return case_file.get(cid)
+    return case_file
 
 
 def check_numeric_cues(cases: pd.DataFrame, cues: tuple[CueRule, ...], row_of_case: pd.Series,
-                       case_file: str | None, out: Collector,
+                       case_file: str | pd.Series | None, out: Collector,
                        missing_words: tuple[str, ...] = ()) -> pd.DataFrame:
     """A numeric cue holds finite numbers or nothing (an empty cell or one of the missing
     words); a word is an error (or declare it categorical), and so is inf or a number too
@@ -362,12 +379,13 @@ def check_numeric_cues(cases: pd.DataFrame, cues: tuple[CueRule, ...], row_of_ca
             continue
         vals, bad = to_numbers(cases[rule.name], missing_words)
         for cid in cases.index[bad][:MAX_ROW_MESSAGES]:
-            out.error(f"cue value '{cases.at[cid, rule.name]}' of case '{cid}' is not a number; fix it "
-                      "or declare the cue categorical", file=case_file,
+            out.error(f"cue value '{shown(cases.at[cid, rule.name])}' of case '{cid}' is not a number; fix it "
+                      "or declare the cue categorical", file=_case_file(case_file, cid),
                       row=_case_row(row_of_case, case_file, cid), column=rule.name)
         for cid in cases.index[non_finite(vals)][:MAX_ROW_MESSAGES]:
-            out.error(f"cue value '{cases.at[cid, rule.name]}' of case '{cid}' {NON_FINITE_FIX}",
-                      file=case_file, row=_case_row(row_of_case, case_file, cid), column=rule.name)
+            out.error(f"cue value '{shown(cases.at[cid, rule.name])}' of case '{cid}' {NON_FINITE_FIX}",
+                      file=_case_file(case_file, cid), row=_case_row(row_of_case, case_file, cid),
+                      column=rule.name)
         cases[rule.name] = vals
     return cases
 
@@ -382,7 +400,7 @@ def blank_categorical_missing(cases: pd.DataFrame, columns: list[str],
     return cases
 
 
-def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | None,
+def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | pd.Series | None,
                     out: Collector, missing_words: tuple[str, ...] = (),
                     row_of_case: pd.Series | None = None) -> pd.DataFrame:
     """The criterion holds finite numbers or nothing. A missing criterion only removes that
@@ -391,11 +409,11 @@ def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | None,
     rows = pd.Series(dtype=float) if row_of_case is None else row_of_case
     vals, bad = to_numbers(cases[crit], missing_words)
     for cid in cases.index[bad][:MAX_ROW_MESSAGES]:
-        out.error(f"criterion '{cases.at[cid, crit]}' of case '{cid}' is not a number",
-                  file=case_file, row=_case_row(rows, case_file, cid), column=crit)
+        out.error(f"criterion '{shown(cases.at[cid, crit])}' of case '{cid}' is not a number",
+                  file=_case_file(case_file, cid), row=_case_row(rows, case_file, cid), column=crit)
     for cid in cases.index[non_finite(vals)][:MAX_ROW_MESSAGES]:
-        out.error(f"criterion '{cases.at[cid, crit]}' of case '{cid}' {NON_FINITE_FIX}",
-                  file=case_file, row=_case_row(rows, case_file, cid), column=crit)
+        out.error(f"criterion '{shown(cases.at[cid, crit])}' of case '{cid}' {NON_FINITE_FIX}",
+                  file=_case_file(case_file, cid), row=_case_row(rows, case_file, cid), column=crit)
     cases["__criterion__"] = vals
     n_missing = int(vals.isna().sum())
     if n_missing:

@@ -39,7 +39,7 @@ TERM_SEPARATORS = ("=", ":")
 # words found in one of them in this order, and `check` refuses [judgment] labels that
 # number such words out of order (a consistently reversed numbering is accepted).
 KNOWN_WORD_SCALES: tuple[tuple[tuple[str, ...], ...], ...] = (
-    (("very poor",), ("poor",), ("fair",), ("good",), ("very good",), ("excellent",)),
+    (("very poor",), ("poor",), ("fair",), ("good",), ("very good", "great"), ("excellent",)),
     (("poor",), ("average",), ("good",), ("excellent",)),
     (("unsatisfactory",), ("satisfactory",), ("good",), ("excellent",)),
     (("very low",), ("low",), ("medium", "moderate"), ("high",), ("very high",)),
@@ -323,8 +323,11 @@ def _parse_study(doc: dict, base_dir: Path, problems: list[str]) -> dict[str, An
         problems.append("the [study] table is missing; add [study] with name and data.")
         study = {}
     _check_keys(study, "study", problems, VALID_KEYS["study"])
-    name = str(study.get("name", "")).strip()
-    if not name:
+    name_raw = study.get("name", "")
+    name = name_raw.strip() if isinstance(name_raw, str) else ""
+    if not isinstance(name_raw, str):
+        problems.append(f"[study] name must be text, got {name_raw!r}.")
+    elif not name:
         problems.append("[study] name is missing; give the study a short name.")
     data_sources = _parse_data_sources(study.get("data"), base_dir, problems)
     cases_path = study.get("cases")
