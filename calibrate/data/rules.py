@@ -87,6 +87,8 @@ def non_finite(values: pd.Series) -> pd.Series:
 
 NON_FINITE_FIX = ("is not a finite number (infinite, or too large to hold); give an ordinary "
                   "number, or leave the cell empty if the value is missing")
+# Ids title the reports and their tables; a longer id cannot be laid out on a page.
+MAX_ID_CHARS = 100
 CONTROL_CHARACTERS = re.compile(r"[\x00-\x1f\x7f-\x9f]")
 
 
@@ -160,7 +162,8 @@ def check_columns_exist(spec: StudySpec, frames: list[pd.DataFrame], cases_df: p
 
 
 def check_ids(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd.DataFrame:
-    """Every judgment needs a rater id and a case id; ids are read as text."""
+    """Every judgment needs a rater id and a case id; ids are read as text, one printable
+    line of at most MAX_ID_CHARS characters (an id "NA" or "None" is an id)."""
     data = data.copy()
     for role in ("rater", "case"):
         col = columns[role]
@@ -174,6 +177,11 @@ def check_ids(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd
             out.error(f"the {role} id in rows {rows_text(rows.tolist())} holds a line break, tab or "
                       "other control character; ids must be printable text on one line",
                       file=fname, column=col)
+        too_long = ids.notna() & (ids.str.len() > MAX_ID_CHARS)
+        for fname, rows in data.loc[too_long].groupby(FILE)[ROW]:
+            out.error(f"the {role} id in rows {rows_text(rows.tolist())} is longer than "
+                      f"{MAX_ID_CHARS} characters; ids title the reports, so shorten them (a "
+                      "code, with the long names kept elsewhere)", file=fname, column=col)
         data[col] = ids
     return data
 
