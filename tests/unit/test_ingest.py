@@ -211,3 +211,26 @@ def test_inputs_are_not_modified(tmp_path):
     before = (tmp_path / "judgments.csv").read_bytes()
     load_study(path)
     assert (tmp_path / "judgments.csv").read_bytes() == before
+
+
+def test_read_table_reads_missing_words_only_when_asked(tmp_path):
+    from calibrate.data.ingest import read_table
+
+    path = tmp_path / "t.csv"
+    path.write_text("rater,case,kind\nNA,c1,None\nr2,c2,\n", encoding="utf-8")
+    raw = read_table(path, missing_words=())  # how the door reads: words kept, empty is missing
+    assert raw["rater"].tolist() == ["NA", "r2"] and raw["kind"].isna().tolist() == [False, True]
+    plain = read_table(path)  # other commands: the documented list applies to every column
+    assert plain["rater"].isna().tolist() == [True, False]
+    assert plain["kind"].isna().tolist() == [True, True]
+
+
+def test_na_rater_and_none_level_survive_the_door(tmp_path):
+    df = simple_judgments()
+    df["rater"] = df["rater"].replace("r1", "NA")
+    df["x2"] = np.where(df["case"].isin(["c1", "c2", "c3", "c4"]), "None",
+                        np.where(df["case"].isin(["c5", "c6", "c7", "c8"]), "Some", "Many"))
+    table = load_study(write_study(tmp_path, df, cues='x1 = "numeric"\nx2 = "categorical"'))
+    assert "NA" in table.phases[0].raters
+    assert "x2=None" in table.design.columns or table.design.reference_levels["x2"] == "None"
+    assert table.design.complete_rows().all()  # no case lost to a level read as missing

@@ -325,3 +325,78 @@ def test_every_test_readme_cites_for_an_input_rule_exists():
                                   flags=re.M))
     assert len(cited) >= 9
     assert cited <= defined, cited - defined
+
+
+# ----------------------------------------------------------------------------- hostile values
+
+
+def test_missing_words_blank_cells_ignoring_case_and_spaces():
+    cells = pd.Series(["NA", " n/a ", "None", "none", "", "  ", "NAN", "Nancy", "0"])
+    kept = rules.blank_missing_words(cells, ("NA", "N/A", "None", "NaN"))
+    assert kept.isna().tolist() == [True, True, True, True, True, True, True, False, False]
+
+
+def test_numbers_read_the_missing_words_and_keep_infinities_for_refusal():
+    values, bad = rules.to_numbers(pd.Series(["1.5", "NA", "inf", "1e400", "-Infinity", "x"]),
+                                   ("NA",))
+    assert bad.tolist() == [False, False, False, False, False, True]
+    assert rules.non_finite(values).tolist() == [False, False, True, True, True, False]
+
+
+def test_non_finite_judgment_is_an_error_naming_its_row():
+    out = Collector()
+    spec = make_spec(judgment={"scale": "continuous"})
+    frame = rows(rater=["a", "a"], case=["c1", "c2"], score=["1e400", "3"])
+    rules.check_judgments(frame, spec, out)
+    (problem,) = out.errors
+    assert problem.row == 2 and "judgment '1e400' is not a finite number" in problem.message
+
+
+def test_judgment_label_wins_over_a_missing_word_of_the_same_spelling():
+    values, present = rules.judgment_values(pd.Series(["none", "NA", "some"]),
+                                            {"none": 0, "some": 1}, ("NA", "None"))
+    assert values.tolist()[0] == 0 and present.tolist() == [True, False, True]
+
+
+def test_only_min_scale_message_reads_as_an_open_range():
+    out = Collector()
+    spec = make_spec(judgment={"scale": "continuous", "min": 2})
+    rules.check_judgments(rows(rater=["a"], case=["c1"], score=["1"]), spec, out)
+    assert "lies outside the scale 2..;" in out.errors[0].message
+
+
+def test_non_finite_cue_and_criterion_are_errors_naming_the_case():
+    out = Collector()
+    cases = pd.DataFrame({"gpa": ["3.5", "inf"], "outcome": ["-inf", "2"]}, index=["c1", "c2"])
+    kept = rules.check_numeric_cues(cases, (CueRule("gpa", "numeric"),), pd.Series({"c1": 2, "c2": 3}),
+                                    "cases.csv", out)
+    rules.check_criterion(kept, "outcome", "cases.csv", out, row_of_case=pd.Series({"c1": 2, "c2": 3}))
+    assert [(p.row, p.column) for p in out.errors] == [(3, "gpa"), (2, "outcome")]
+    assert all("is not a finite number" in p.message for p in out.errors)
+
+
+def test_categorical_levels_lose_only_the_specs_own_missing_words():
+    cases = pd.DataFrame({"kind": ["None", "NA", "alpha", None]}, index=list("abcd"))
+    assert rules.blank_categorical_missing(cases, ["kind"], ())["kind"].isna().tolist() == [
+        False, False, False, True]
+    assert rules.blank_categorical_missing(cases, ["kind"], ("NA",))["kind"].isna().tolist() == [
+        False, True, False, True]
+
+
+@pytest.mark.parametrize("rater, says", [("NA", None), ("None", None),
+                                         ("a\nb", "control character"),
+                                         ("x" * 101, "longer than 100 characters")])
+def test_ids_are_text_never_missing_words(rater, says):
+    out = Collector()
+    kept = rules.check_ids(rows(rater=[rater], case=["c1"]), {"rater": "rater", "case": "case"}, out)
+    if says is None:
+        assert not out.items and kept["rater"].tolist() == [rater]
+    else:
+        assert says in out.errors[0].message
+
+
+def test_empty_cue_is_named_as_empty_not_constant():
+    out = Collector()
+    rules.check_constant_cue(pd.Series([np.nan, np.nan]), CueRule("essay", "numeric"), out)
+    assert messages(out) == ["cue 'essay' has no value in any judged case; fill it in or remove "
+                             "it from [cues]"]

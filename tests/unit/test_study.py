@@ -4,7 +4,8 @@ from pathlib import Path
 
 import pytest
 
-from calibrate.data.spec import parse_spec, read_spec
+from calibrate.data.spec import (DEFAULT_MISSING_WORDS, draft_spec, known_scale_ranks, parse_spec,
+                                 read_spec)
 from calibrate.errors import SpecError
 
 BASE = {
@@ -116,3 +117,90 @@ def test_every_problem_is_reported_at_once():
 def test_missing_spec_file_says_how_to_make_one(tmp_path):
     with pytest.raises(SpecError, match="calibrate init"):
         read_spec(tmp_path / "nope.toml")
+
+
+# ----------------------------------------------------------------------------- hostile values
+
+
+@pytest.mark.parametrize("value", ["no", "false", 0, 1])
+def test_string_or_number_booleans_are_refused(value):
+    msg = _problems(_spec(study__criterion_only_for_selected=value))
+    assert "criterion_only_for_selected must be true or false (without quotes)" in msg
+
+
+@pytest.mark.parametrize("key, value", [("judgment__min", float("nan")), ("judgment__max", float("inf")),
+                                        ("judgment__cut_off", float("-inf")),
+                                        ("judgment__max", 10**400)])
+def test_non_finite_spec_numbers_are_refused(key, value):
+    assert "must be a finite number" in _problems(_spec(**{key: value}))
+
+
+@pytest.mark.parametrize("weight", [float("inf"), float("nan")])
+def test_non_finite_rubric_weight_is_refused(weight):
+    msg = _problems(_spec(rubric={"x1": weight, "region": 1}))
+    assert "[rubric] x1 must be a finite number" in msg
+
+
+@pytest.mark.parametrize("cue, sep", [("g:missing", ":"), ("lvl=hi", "=")])
+def test_cue_named_like_a_generated_term_is_refused(cue, sep):
+    msg = _problems(_spec(cues={"x1": "numeric", cue: "numeric"}))
+    assert f"[cues] cue '{cue}' holds '{sep}'" in msg
+
+
+@pytest.mark.parametrize("changes, says", [
+    ({"cues": {"_row": "numeric"}}, "[cues] cue '_row' starts with '_'"),
+    ({"columns__rater": "_file"}, "[columns] rater '_file' starts with '_'"),
+    ({"excluded": {"columns": ["_phase"]}}, "[excluded] column '_phase' starts with '_'"),
+])
+def test_internal_column_names_are_refused(changes, says):
+    assert says in _problems(_spec(**changes))
+
+
+def test_missing_words_are_explicit_and_default_only_for_numbers():
+    spec = parse_spec(_spec(), base_dir=Path("."))
+    assert spec.numeric_missing_words == DEFAULT_MISSING_WORDS
+    assert spec.categorical_missing_words == ()  # a level "None" stays a level
+    own = parse_spec(_spec(study__missing_words=["unknown", " n/a "]), base_dir=Path("."))
+    assert own.numeric_missing_words == own.categorical_missing_words == ("unknown", "n/a")
+    import tomllib
+
+    again = parse_spec(tomllib.loads(own.to_toml()), base_dir=Path("."))
+    assert again.missing_words == ("unknown", "n/a")  # written back as read
+    assert "missing_words must be a list of words" in _problems(_spec(study__missing_words="NA"))
+
+
+def test_labels_out_of_a_known_scale_order_are_refused():
+    """The issue's case: words numbered alphabetically put 'poor' above 'great'."""
+    msg = _problems(_spec(judgment={"scale": "ordinal", "min": 1, "max": 4,
+                                    "labels": {"fair": 1, "good": 2, "great": 3, "poor": 4}}))
+    assert "labels do not follow the order of the words (poor < fair < good < great)" in msg
+    for labels in ({"poor": 1, "fair": 2, "good": 3, "great": 4},     # along the scale
+                   {"poor": 4, "fair": 3, "good": 2, "great": 1},     # consistently reversed
+                   {"brisk": 2, "calm": 1}):                          # not a known scale
+        parse_spec(_spec(judgment={"scale": "ordinal", "min": 1, "max": 4, "labels": labels}),
+                   base_dir=Path("."))
+
+
+def test_known_scale_ranks_ignore_case_spaces_and_underscores():
+    ranks = known_scale_ranks(["Strongly_Agree", "disagree", " neutral "])
+    assert ranks["disagree"] < ranks[" neutral "] < ranks["Strongly_Agree"]
+    assert known_scale_ranks(["poor", "banana"]) is None
+
+
+def test_name_must_be_text_and_spec_folder_is_named(tmp_path):
+    assert "[study] name must be text" in _problems(_spec(study__name={"a": 1}))
+    with pytest.raises(SpecError, match="is a folder, not a spec file"):
+        read_spec(tmp_path)
+
+
+def test_draft_numbers_known_words_in_order_and_marks_unknown_words():
+    import pandas as pd
+
+    table = pd.DataFrame({"rater": ["a"] * 4, "case": ["c1", "c2", "c3", "c4"],
+                          "rating": ["poor", "great", "good", "fair"], "x1": [1, 2, 3, 4]})
+    text = draft_spec(table, data_name="j.csv", study_name="t")
+    assert 'labels = { "poor" = 1, "fair" = 2, "good" = 3, "great" = 4 }' in text
+    assert "alphabetical order" not in text
+    table["rating"] = ["brisk", "keen", "calm", "keen"]
+    text = draft_spec(table, data_name="j.csv", study_name="t")
+    assert "# CHECK: these words are numbered in alphabetical order" in text
