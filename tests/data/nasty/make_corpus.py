@@ -16,9 +16,12 @@ expect.toml of a case:
 
 from __future__ import annotations
 
+import datetime
 import io
 import random
+import re
 import shutil
+import zipfile
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
@@ -100,6 +103,17 @@ def with_value(column: str, cases: set[str], value, table: list[dict] | None = N
     return [{**r, column: value} if r["case"] in cases else r for r in table]
 
 
+def x2_renamed(name: str) -> list[dict]:
+    """The invented rows with cue column x2 renamed."""
+    return [{**{k: v for k, v in r.items() if k != "x2"}, name: r["x2"]} for r in rows()]
+
+
+def spec_with(data: str = "judgments.csv") -> str:
+    """The spec every case starts from, naming ``data``."""
+    return SPEC.format(data=data, study="", columns="", judgment=ORDINAL, cues=CUES, extra="",
+                       rater="rater")
+
+
 def xlsx_bytes(table: list[dict]) -> bytes:
     import openpyxl
 
@@ -108,9 +122,19 @@ def xlsx_bytes(table: list[dict]) -> bytes:
     sheet.append(list(table[0]))
     for row in table:
         sheet.append(list(row.values()))
+    book.properties.created = book.properties.modified = datetime.datetime(2026, 1, 1)
     buffer = io.BytesIO()
     book.save(buffer)
-    return buffer.getvalue()
+    fixed = io.BytesIO()  # the zip entries again with a fixed date, so a rebuild is byte-identical
+    with zipfile.ZipFile(buffer) as src, zipfile.ZipFile(fixed, "w", zipfile.ZIP_DEFLATED) as dst:
+        for info in src.infolist():
+            content = src.read(info.filename)
+            if info.filename == "docProps/core.xml":  # openpyxl stamps the save time here
+                content = re.sub(rb"(<dcterms:modified[^>]*>)[^<]*", rb"\g<1>2026-01-01T00:00:00Z",
+                                 content)
+            dst.writestr(zipfile.ZipInfo(info.filename, date_time=(2026, 1, 1, 0, 0, 0)),
+                         content, compress_type=zipfile.ZIP_DEFLATED)
+    return fixed.getvalue()
 
 
 def main() -> None:
@@ -150,13 +174,13 @@ def main() -> None:
          table=with_value("x1", {"c5"}, "NA"))
     # names that collide with generated terms or internal columns
     case("cue_named_like_missing_term", exit=2, phrase="[cues] cue 'x2:missing' holds ':'",
-         table=[{**{k: v for k, v in r.items() if k != "x2"}, "x2:missing": r["x2"]} for r in rows()],
+         table=x2_renamed("x2:missing"),
          cues='x1 = "numeric"\n"x2:missing" = "numeric"')
     case("cue_named_like_level_term", exit=2, phrase="[cues] cue 'lvl=hi' holds '='",
-         table=[{**{k: v for k, v in r.items() if k != "x2"}, "lvl=hi": r["x2"]} for r in rows()],
+         table=x2_renamed("lvl=hi"),
          cues='x1 = "numeric"\n"lvl=hi" = "numeric"')
     case("cue_named_row", exit=2, phrase="[cues] cue '_row' starts with '_'",
-         table=[{**{k: v for k, v in r.items() if k != "x2"}, "_row": r["x2"]} for r in rows()],
+         table=x2_renamed("_row"),
          cues='x1 = "numeric"\n_row = "numeric"')
     case("rater_column_named_file", exit=2, phrase="[columns] rater '_file' starts with '_'",
          rater="_file")
@@ -172,9 +196,7 @@ def main() -> None:
     case("rubric_weight_nan", exit=2, phrase="[rubric] x2 must be a finite number",
          extra="\n[rubric]\nx1 = 1\nx2 = nan\n")
     case("name_not_text", exit=2, phrase="[study] name must be text",
-         spec_text=SPEC.format(data="judgments.csv", study="", columns="", judgment=ORDINAL,
-                               cues=CUES, extra="", rater="rater").replace('name = "nasty"',
-                                                                           "name = { a = 1 }"))
+         spec_text=spec_with().replace('name = "nasty"', "name = { a = 1 }"))
     case("continuous_only_min", exit=0, phrase="The data can be analysed",
          judgment='scale = "continuous"\nmin = 1')
     case("continuous_only_max", exit=0, phrase="The data can be analysed",
@@ -199,6 +221,11 @@ def main() -> None:
                                  "phrase": "not a readable XLSX workbook"})
     case("xlsx_truncated", exit=2, phrase="not a readable XLSX workbook", data="judgments.xlsx",
          data_bytes=xlsx_bytes(rows())[:1500])
+    hollow = io.BytesIO()  # a zip that opens, without the workbook's parts
+    with zipfile.ZipFile(hollow, "w") as z:
+        z.writestr(zipfile.ZipInfo("[Content_Types].xml", date_time=(2026, 1, 1, 0, 0, 0)), "<x/>")
+    case("xlsx_without_its_sheets", exit=2, phrase="not a readable XLSX workbook",
+         data="judgments.xlsx", data_bytes=hollow.getvalue())
     case("xlsx_empty", exit=2, phrase="not a readable XLSX workbook", data="judgments.xlsx",
          data_bytes=b"")
     case("xls_old_format", exit=2, phrase="'.xls' files are not read", data="judgments.xls",
@@ -241,11 +268,9 @@ def main() -> None:
     case("spec_not_toml", exit=2, phrase="the TOML cannot be read",
          spec_text="This is a note, not a spec.\n")
     case("spec_names_a_missing_table", exit=2, phrase="gone.csv does not exist",
-         spec_text=SPEC.format(data="gone.csv", study="", columns="", judgment=ORDINAL, cues=CUES,
-                               extra="", rater="rater"))
+         spec_text=spec_with("gone.csv"))
     case("spec_names_a_folder", exit=2, phrase="is a folder, not a table",
-         spec_text=SPEC.format(data="tables", study="", columns="", judgment=ORDINAL, cues=CUES,
-                               extra="", rater="rater"), files={"tables/readme.txt": b"empty\n"})
+         spec_text=spec_with("tables"), files={"tables/readme.txt": b"empty\n"})
     case("spec_is_a_folder", exit=2, phrase="is a folder, not a spec file", spec=".")
 
 
