@@ -286,6 +286,25 @@ def check_judgments(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.D
     return data.loc[present].copy()
 
 
+ZONE_SUFFIX = re.compile(r"(?:Z|[+-]\d{2}(?::?\d{2})?|\s*(?:UTC|GMT))$", re.IGNORECASE)
+
+
+def seconds_since_1970(values: pd.Series) -> pd.Series | None:
+    """Date-times as seconds since 1970 (NaN where not a date-time). Zoned times are put on
+    one clock (UTC); None when some carry a zone and others not, which has no one clock."""
+    text = values.dropna().astype(str).str.strip()
+    zoned = text.str.contains(ZONE_SUFFIX) & text.str.contains(r"\d[:T ]\d|\d:\d", regex=True)
+    if zoned.any() and not zoned.all():
+        return None
+    try:
+        times = pd.to_datetime(values, errors="coerce", format="mixed", utc=bool(zoned.any()))
+    except (ValueError, TypeError, OverflowError):
+        return None
+    if getattr(times.dt, "tz", None) is not None:
+        times = times.dt.tz_convert("UTC").dt.tz_localize(None)
+    return (times - pd.Timestamp("1970-01-01")).dt.total_seconds()
+
+
 def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector,
                    missing_words: tuple[str, ...] = ()) -> pd.DataFrame:
     """A sequence is a finite number (position in the reading order) or a date-time; anything
@@ -297,12 +316,17 @@ def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector,
     scol = columns["sequence"]
     seq, bad = to_numbers(data[scol], missing_words)
     bad = bad | non_finite(seq)
-    if bad.any():
-        as_time = pd.to_datetime(data.loc[bad, scol], errors="coerce", format="mixed")
-        if as_time.notna().all() and not seq.notna().any():
-            all_time = pd.to_datetime(data[scol], errors="coerce", format="mixed")
-            seq = (all_time - pd.Timestamp("1970-01-01")).dt.total_seconds()
-            bad = blank_missing_words(data[scol], missing_words).notna() & seq.isna()
+    if bad.any() and not seq.notna().any():
+        present = blank_missing_words(data[scol], missing_words)
+        seconds = seconds_since_1970(present)
+        if seconds is None:
+            out.error("the sequence date-times mix time zones (some carry one, some not, or "
+                      "zones differ); write them all in one zone, or all without a zone",
+                      file=data[FILE].iat[0], column=scol)
+            data["_sequence"] = np.nan
+            return data
+        if seconds.notna().any():  # a column of date-times: name only the cells that are not
+            seq, bad = seconds, present.notna() & seconds.isna()
     for _, r in data.loc[bad].head(MAX_ROW_MESSAGES).iterrows():
         out.error(f"sequence '{shown(r[scol])}' is neither a finite number nor a date-time", file=r[FILE],
                   row=int(r[ROW]), column=scol)

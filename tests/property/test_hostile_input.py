@@ -68,7 +68,8 @@ EXTRA_LINES = ["", 'missing_words = ["alpha"]', "missing_words = []", "missing_w
 
 
 DAMAGE = ("cells", "cells", "name", "drop", "few_rows", "constant", "separator", "encoding",
-          "cut", "spec_value", "spec_line", "cut_spec")
+          "cut", "spec_value", "spec_line", "cut_spec", "dates")
+ZONES = ["", "", "Z", "+02:00", "-05:00", " UTC"]
 
 
 @st.composite
@@ -82,6 +83,9 @@ def damaged_study(draw):
             r = draw(st.integers(0, len(rows) - 1))
             c = draw(st.integers(0, len(header) - 1))
             rows[r][c] = draw(st.sampled_from(HOSTILE_CELLS))
+    if "dates" in damage:  # the reading order as date-times, some perhaps zoned
+        for i, row in enumerate(rows):
+            row[-1] = f"2024-05-01 10:{i % 60:02d}" + draw(st.sampled_from(ZONES))
     if "name" in damage:  # one hostile column name
         header[draw(st.integers(0, len(header) - 1))] = draw(st.sampled_from(HOSTILE_NAMES))
     if "drop" in damage:  # a dropped column
@@ -128,7 +132,7 @@ def _run(args: list[str]):
     return result
 
 
-@settings(max_examples=200, deadline=timedelta(seconds=60),
+@settings(max_examples=150, deadline=timedelta(seconds=60),
           suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
 @given(damaged_study())
 def test_damaged_input_ends_cleanly_and_check_agrees_with_audit(study):

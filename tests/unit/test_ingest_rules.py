@@ -400,3 +400,13 @@ def test_empty_cue_is_named_as_empty_not_constant():
     rules.check_constant_cue(pd.Series([np.nan, np.nan]), CueRule("essay", "numeric"), out)
     assert messages(out) == ["cue 'essay' has no value in any judged case; fill it in or remove "
                              "it from [cues]"]
+
+
+def test_zoned_date_times_are_put_on_one_clock_and_mixed_zones_are_refused():
+    out = Collector()
+    frame = rows(rater=["a", "a"], case=["c1", "c2"], seq=["2024-05-01T10:00Z", "2024-05-01T12:01+02:00"])
+    kept = rules.check_sequence(frame, {"sequence": "seq"}, out)
+    assert kept["_sequence"].diff().iloc[1] == 60.0 and not out.items
+    frame = rows(rater=["a", "a"], case=["c1", "c2"], seq=["2024-05-01 10:00", "2024-05-01 10:01+02:00"])
+    rules.check_sequence(frame, {"sequence": "seq"}, out)
+    assert "the sequence date-times mix time zones" in messages(out)[0]

@@ -159,6 +159,21 @@ def main() -> None:
     case("inf_sequence", exit=2, phrase="sequence 'inf' is neither a finite number nor a date-time",
          table=[{**r, "order": "inf" if i == 0 else i} for i, r in enumerate(rows())],
          columns='sequence = "order"')
+    zoned = [{**r, "read_at": f"2024-05-01 10:{i % 60:02d}" + ("+02:00" if i == 7 else "")}
+             for i, r in enumerate(rows())]
+    case("sequence_mixed_time_zones", exit=2, phrase="the sequence date-times mix time zones",
+         table=zoned, columns='sequence = "read_at"')
+    cases_rows = [{"case": f"c{i}", "x1": x, "x2": 1.5} for i, x in
+                  enumerate(["0.5", "1.5", "inf", "2", "NA", "3", "1", "2", "0", "4", "2", "1"], 1)]
+    cases_rows[0]["x2"] = 0.5
+    judged = [{k: v for k, v in r.items() if k not in ("x1", "x2")} for r in rows()]
+    case("cases_table_with_inf", exit=2,
+         phrase="cases.csv, row 4, column 'x1': cue value 'inf' of case 'c3' is not a finite number",
+         table=judged, study='cases = "cases.csv"',
+         files={"cases.csv": csv_text(cases_rows).encode()})
+    case("cases_table_header_doubled", exit=2, phrase="the header names column 'x1' twice",
+         table=judged, study='cases = "cases.csv"',
+         files={"cases.csv": b"case,x1,x1\nc1,1,2\n"})
     # missing-value words: explicit, never applied to ids nor silently to categorical levels
     case("na_rater_id", exit=0, phrase="The data can be analysed",
          table=[{**r, "rater": "NA" if r["rater"] == "r1" else r["rater"]} for r in rows()])
