@@ -285,6 +285,13 @@ def _parse_missing_words(raw: Any, problems: list[str]) -> tuple[str, ...] | Non
     return tuple(w.strip() for w in raw)
 
 
+def _path_problem(text: str, what: str) -> str | None:
+    """A path the file system can take: no control characters (a NUL cannot be a file name)."""
+    if any(ord(ch) < 32 or ord(ch) == 127 for ch in text):
+        return f"{what} {text!r} holds a control character; give a plain file path."
+    return None
+
+
 def _parse_data_sources(raw_data: Any, base_dir: Path, problems: list[str]) -> list[DataSource]:
     """[study] data: one path, or a list of paths or {path, phase} tables."""
     data_sources: list[DataSource] = []
@@ -313,7 +320,9 @@ def _parse_data_sources(raw_data: Any, base_dir: Path, problems: list[str]) -> l
     with_phase = [d for d in data_sources if d.phase is not None]
     if with_phase and len(with_phase) != len(data_sources):
         problems.append("[study] data: give a phase for every table or for none.")
-    return data_sources
+    bad = [_path_problem(str(d.path), "[study] data path") for d in data_sources]
+    problems.extend(p for p in bad if p)
+    return [d for d, p in zip(data_sources, bad) if not p]
 
 
 def _parse_study(doc: dict, base_dir: Path, problems: list[str]) -> dict[str, Any]:
@@ -333,6 +342,9 @@ def _parse_study(doc: dict, base_dir: Path, problems: list[str]) -> dict[str, An
     cases_path = study.get("cases")
     if cases_path is not None and not isinstance(cases_path, str):
         problems.append(f"[study] cases must be a path (text), got {cases_path!r}.")
+        cases_path = None
+    elif cases_path and _path_problem(cases_path, "[study] cases path"):
+        problems.append(_path_problem(cases_path, "[study] cases path"))
         cases_path = None
     seed_raw = study.get("seed", DEFAULT_SEED)
     if isinstance(seed_raw, bool) or not isinstance(seed_raw, int) or not 0 <= seed_raw < 2**63:

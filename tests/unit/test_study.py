@@ -204,3 +204,14 @@ def test_draft_numbers_known_words_in_order_and_marks_unknown_words():
     table["rating"] = ["brisk", "keen", "calm", "keen"]
     text = draft_spec(table, data_name="j.csv", study_name="t")
     assert "# CHECK: these words are numbered in alphabetical order" in text
+
+
+@pytest.mark.parametrize("key, value", [("study__data", "j\x00.csv"), ("study__cases", "c\x00.csv"),
+                                        ("study__data", [{"path": "a\nb.csv"}])])
+def test_paths_with_control_characters_are_refused(key, value):
+    assert "holds a control character; give a plain file path" in _problems(_spec(**{key: value}))
+
+
+def test_an_absolute_data_path_is_kept(tmp_path):
+    spec = parse_spec(_spec(study__data=str(tmp_path / "j.csv")), base_dir=Path("/elsewhere"))
+    assert spec.data[0].path == tmp_path / "j.csv"

@@ -286,6 +286,8 @@ def main() -> None:
          spec_text=spec_with("gone.csv"))
     case("spec_names_a_folder", exit=2, phrase="is a folder, not a table",
          spec_text=spec_with("tables"), files={"tables/readme.txt": b"empty\n"})
+    case("spec_path_with_a_nul", exit=2, phrase="holds a control character; give a plain file path",
+         spec_text=spec_with().replace('data = "judgments.csv"', 'data = "judgments\\u0000.csv"'))
     case("spec_is_a_folder", exit=2, phrase="is a folder, not a spec file", spec=".")
 
 
