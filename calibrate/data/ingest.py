@@ -52,7 +52,6 @@ from .rules import (
 from .spec import DEFAULT_MISSING_WORDS, StudySpec, read_spec
 
 
-
 @dataclass(frozen=True)
 class PhaseData:
     """The judgments of one phase, split by what feeds which analysis.
@@ -151,7 +150,7 @@ def _read_excel(path: Path) -> pd.DataFrame:
     try:
         return pd.read_excel(path, dtype=object, header=None, engine="openpyxl",
                              keep_default_na=False, na_values=[""])
-    except Exception as exc:  # openpyxl and zipfile raise many kinds for a damaged file
+    except Exception as exc:  # noqa: BLE001 -- openpyxl and zipfile raise many kinds for a damaged file
         raise _unreadable(path, f"it is not a readable XLSX workbook ({type(exc).__name__}: "
                                 f"{str(exc).strip() or 'damaged'}); save it again from the "
                                 "spreadsheet, or as CSV UTF-8") from None
@@ -164,7 +163,7 @@ def _read_parquet(path: Path) -> pd.DataFrame:
         raise DataError([DataProblem(
             "reading Parquet needs pyarrow; install it with pip install 'rater-calibrate[parquet]'",
             file=path.name)]) from None
-    except Exception as exc:  # pyarrow raises its own kinds for a damaged file
+    except Exception as exc:  # noqa: BLE001 -- pyarrow raises its own kinds for a damaged file
         raise _unreadable(path, f"it is not a readable Parquet file ({type(exc).__name__}: "
                                 f"{str(exc).strip() or 'damaged'})") from None
     header = pd.DataFrame([list(df.columns)], columns=range(df.shape[1]))

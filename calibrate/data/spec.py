@@ -9,6 +9,7 @@ the fix (an unknown key comes with the closest valid key).
 from __future__ import annotations
 
 import difflib
+import itertools
 import math
 import tomllib
 from dataclasses import dataclass, field
@@ -79,7 +80,7 @@ def _check_label_order(labels: dict[str, float], problems: list[str]) -> None:
     if ranks is None or len(set(ranks.values())) < 2:
         return
     ordered = sorted(labels, key=lambda w: (ranks[w], labels[w]))
-    steps = [(a, b) for a, b in zip(ordered, ordered[1:]) if ranks[a] != ranks[b]]
+    steps = [(a, b) for a, b in itertools.pairwise(ordered) if ranks[a] != ranks[b]]
     signs = [(labels[b] > labels[a]) - (labels[b] < labels[a]) for a, b in steps]
     if set(signs) in ({1}, {-1}):
         return
