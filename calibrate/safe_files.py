@@ -122,3 +122,36 @@ def reproducible_xlsx_bytes(wb) -> bytes:
                                  content)
             dst.writestr(member, content)
     return out.getvalue()
+
+
+# Characters that change what a terminal shows rather than being shown: C0/C1 controls
+# (ESC starts colour, cursor and title sequences), DEL, and the Unicode format characters
+# that reorder or hide text (bidi embeddings, overrides and isolates, marks, zero-width).
+_FORMAT_CHARS = {0x061C, 0x200B, 0x200C, 0x200D, 0x200E, 0x200F, 0x2028, 0x2029, 0x2060, 0xFEFF,
+                 *range(0x202A, 0x202F), *range(0x2066, 0x206A)}
+
+
+def _shown_char(ch: str, keep: str) -> str:
+    code = ord(ch)
+    if ch in keep:
+        return ch
+    if code < 0x20 or 0x7F <= code < 0xA0:
+        return {"\n": "\\n", "\r": "\\r", "\t": "\\t", "\x1b": "\\e"}.get(ch, f"\\x{code:02x}")
+    if code in _FORMAT_CHARS:
+        return f"\\u{code:04x}"
+    return ch
+
+
+def terminal_text(value: Any, *, keep_lines: bool = True) -> str:
+    """Text safe to print on a terminal: control and bidi/format characters become visible
+    escapes (ESC as ``\\e``, U+202E as ``\\u202e``), so an id or file name can never move the
+    cursor, recolour the screen, fake a line or reverse the text around it.
+
+    ``keep_lines`` keeps the newlines (and tabs) of a message the tool itself composed;
+    pass False for a single value such as a rater id or a path.
+    """
+    keep = "\n\t" if keep_lines else ""
+    text = str(value)
+    if text.isprintable() and not any(ord(c) in _FORMAT_CHARS for c in text):
+        return text
+    return "".join(_shown_char(ch, keep) for ch in text)
