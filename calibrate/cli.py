@@ -238,8 +238,14 @@ def check(spec: Path) -> None:
 @click.option("--show-excluded-to-raters", "include_excluded", is_flag=True,
               help="Also print the excluded-attribute result in each rater's own report "
                    "(by default it stays in the chair's summary).")
+@click.option("--pseudonymise", "--pseudonymize", "pseudonymise", is_flag=True,
+              help="Replace every rater id by a stable code in every output (files, names, "
+                   "terminal) and write the key (code -> id -> report) outside the folder.")
+@click.option("--key-file", "key_file", type=click.Path(path_type=Path), default=None,
+              help="Where the pseudonym key is kept (read again on a rerun, so codes stay) "
+                   "[default: OUT-key.csv beside OUT].")
 def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool, jobs: int,
-          include_excluded: bool) -> None:
+          include_excluded: bool, pseudonymise: bool, key_file: Path | None) -> None:
     """Run the full audit and write results, tables, a workbook and PDF reports into OUT."""
     from tqdm import tqdm
 
@@ -251,13 +257,21 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
 
     if not no_pdf:
         _check_source_date_epoch()
+    if key_file is not None and not pseudonymise:
+        raise CalibrateError("--key-file is the key of a pseudonymised audit; add --pseudonymise "
+                             "(or leave --key-file out).")
     study = read_spec(spec)
     # Inputs the output may not contain or sit above: replacing it would delete them.
     protect = (spec, spec.resolve().parent, *(d.path for d in study.data),
                *([study.cases] if study.cases is not None else []))
     folder = OutputFolder(out, overwrite=overwrite, protect=protect)  # refuse early, before any work
+    key = _open_key(key_file, out, protect) if pseudonymise else None
     with folder as staging:  # holds the lock through the analysis; cleans up on any exit
         table = load_study(study)
+        if key is not None:
+            from .output.pseudonyms import pseudonymise_table
+
+            table, _codes = pseudonymise_table(table, key)
         for w in table.warnings:
             echo(f"warning: {w}", err=True)
         with tqdm(desc="analyses", unit=" step", leave=False, disable=None, file=sys.stderr) as bar:
@@ -275,20 +289,49 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
 
         try:
             write_audit_files(result, staging, pdf=not no_pdf, jobs=jobs,
-                              include_excluded=include_excluded, progress=wrote, shown=out)
+                              include_excluded=include_excluded, progress=wrote, shown=out,
+                              pseudonymise=key)
         finally:
             bar_pdf.close()
+    _print_audit_summary(result, out, no_pdf, key)
+
+
+def _open_key(key_file: Path | None, out: Path, protect: tuple[Path, ...]):
+    """The pseudonym key to use: never inside the results folder, never one of the inputs."""
+    import os
+
+    from .output.pseudonyms import PseudonymKey, default_key_path
+
+    path = Path(os.path.abspath(key_file)) if key_file is not None else default_key_path(out)
+    final = Path(os.path.abspath(out))
+    if path == final or final in path.parents:
+        raise CalibrateError(f"--key-file {shown(key_file)} is inside --out {shown(out)}; the key must "
+                             "be kept apart from the results it unlocks. Give a path outside it, "
+                             f"for example {shown(default_key_path(out))}.")
+    if any(path == Path(os.path.abspath(p)) for p in protect) or path.is_dir():
+        raise CalibrateError(f"--key-file {shown(path)} is a folder or one of the study's inputs; "
+                             "give a new file name for the key.")
+    return PseudonymKey.open(path)
+
+
+def _print_audit_summary(result, out: Path, no_pdf: bool, key) -> None:
     n_raters = len({e["rater"] for e in result.raters})
     echo(f"Audited {n_raters} raters over {len(result.phases)} phase(s): "
-               f"{', '.join(result.phases)}.")
+         f"{', '.join(shown(p) for p in result.phases)}.")
     flagged = [e for e in result.raters if e["flags"]]
     if flagged:
         echo("Flags (see the README for what each means):")
     for e in flagged:
-        echo(f"  {e['rater']} ({e['phase']}): {', '.join(e['flags'])}")
-    echo(f"Results: {out}/results.json; tables in {out}/tables/; workbook {out}/audit.xlsx")
+        echo(f"  {shown(e['rater'])} ({shown(e['phase'])}): {', '.join(e['flags'])}")
+    where = shown(out)
+    echo(f"Results: {where}/results.json; tables in {where}/tables/; workbook {where}/audit.xlsx")
     if not no_pdf:
-        echo(f"Reports: {out}/panel-summary.pdf and one private report per rater in {out}/raters/")
+        echo(f"Reports: {where}/panel-summary.pdf and one private report per rater in {where}/raters/"
+             f" ({where}/index.csv names each rater's file)")
+    if key is not None:
+        echo(f"Pseudonymised: the outputs name raters by code only. The key (code -> rater -> "
+             f"report) is {shown(key.path)}; keep it apart from the results, and reuse it "
+             "(--key-file) on a rerun so that every rater keeps their code.")
 
 
 @main.command()
