@@ -52,11 +52,19 @@ FORCED_EXIT_AFTER_S = 20  # an unwinding that hangs (a library catching the sign
 
 
 def _raise_stopped(signum, frame) -> None:
-    import threading
+    """SIGTERM: unwind through every ``with`` block, with a backstop if the unwinding hangs.
 
-    timer = threading.Timer(FORCED_EXIT_AFTER_S, _forced_exit, args=(signum,))
-    timer.daemon = True
-    timer.start()
+    The backstop is an interval timer (SIGALRM), not a thread: starting a thread inside a
+    signal handler takes threading's internal lock, and if the signal lands while the main
+    thread holds that lock (starting the pool's manager or queue-feeder thread, or tqdm's
+    monitor), the handler deadlocks and the backstop itself never starts -- the likely
+    cause of the one hang seen with the former 20 s timer thread.
+    """
+    import signal
+
+    if hasattr(signal, "setitimer"):
+        signal.signal(signal.SIGALRM, lambda *_: _forced_exit(signum))
+        signal.setitimer(signal.ITIMER_REAL, FORCED_EXIT_AFTER_S)
     raise Stopped(signum)
 
 
@@ -244,8 +252,12 @@ def check(spec: Path) -> None:
 @click.option("--key-file", "key_file", type=click.Path(path_type=Path), default=None,
               help="Where the pseudonym key is kept (read again on a rerun, so codes stay) "
                    "[default: OUT-key.csv beside OUT].")
+@click.option("--memory-limit", "memory_limit", type=click.FloatRange(min=0, min_open=True), default=None,
+              help="GB of memory the audit may use; a panel estimated to need more is refused "
+                   "before the analysis starts [default: this machine's memory].")
 def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool, jobs: int,
-          include_excluded: bool, pseudonymise: bool, key_file: Path | None) -> None:
+          include_excluded: bool, pseudonymise: bool, key_file: Path | None,
+          memory_limit: float | None) -> None:
     """Run the full audit and write results, tables, a workbook and PDF reports into OUT."""
     from tqdm import tqdm
 
@@ -268,6 +280,12 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
     key = _open_key(key_file, out, protect) if pseudonymise else None
     with folder as staging:  # holds the lock through the analysis; cleans up on any exit
         table = load_study(study)
+        from .output.limits import memory_refusal, space_refusal
+
+        refusal = memory_refusal(table, memory_limit) or space_refusal(
+            table, staging.parent, shown(out), pdf=not no_pdf)
+        if refusal is not None:
+            raise CalibrateError(refusal)
         if key is not None:
             from .output.pseudonyms import pseudonymise_table
 
