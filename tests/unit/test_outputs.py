@@ -210,6 +210,8 @@ def test_unwritable_parent_and_odd_places_are_refused_before_any_work(tmp_path):
 
 
 class _NoResult:
+    raters = ()
+
     def to_dict(self):
         return {}
 
