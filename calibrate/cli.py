@@ -348,8 +348,8 @@ def _print_audit_summary(result, out: Path, no_pdf: bool, key) -> None:
              f" ({where}/index.csv names each rater's file)")
     if key is not None:
         echo(f"Pseudonymised: the outputs name raters by code only. The key (code -> rater -> "
-             f"report) is {shown(key.path)}; keep it apart from the results, and reuse it "
-             "(--key-file) on a rerun so that every rater keeps their code.")
+             f"report) is {shown(key.path)}; keep it apart from the results. A rerun reads it "
+             "again (from the same place, or give --key-file), so every rater keeps their code.")
 
 
 @main.command()
