@@ -21,7 +21,7 @@ from .agreement.with_panel import PeerAgreementSet, agreement_with_panel
 from .consistency.reading_order import DriftResult, drift
 from .consistency.repeats import RetestSet, consistency_verdict, retest
 from .data.ingest import JudgmentTable, PhaseData, load_study
-from .data.spec import StudySpec
+from .data.spec import StudySpec, spec_record
 from .data.summary import DataSummary, summarize
 from .lens.cutoffs import CutoffResult, cutoff_check
 from .lens.model import LensResult, lens_model
@@ -75,6 +75,7 @@ class AuditResult:
     judgment: dict = field(default_factory=dict)
     rubric: dict | None = None
     criterion_only_for_selected: bool = False
+    provenance: dict = field(default_factory=dict)
 
     def to_dict(self) -> dict:
         return jsonable({
@@ -86,6 +87,7 @@ class AuditResult:
             "judgment": self.judgment,
             "rubric": self.rubric,
             "inputs": list(self.inputs),
+            "provenance": self.provenance,
             "phases": list(self.phases),
             "warnings": list(self.warnings),
             "data_summary": self.summary.to_dict(),
@@ -353,7 +355,27 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
                   "cut_off": spec.judgment.cut_off, "labels": dict(spec.judgment.labels)},
         rubric=(None if not spec.rubric else {"basis": spec.rubric_basis, "shares": dict(spec.rubric)}),
         criterion_only_for_selected=spec.criterion_only_for_selected,
+        provenance={"spec": spec_record(spec), "libraries": library_versions()},
     )
+
+
+# The libraries whose versions can change a figure or a report; read from the installed
+# distributions (no time, no host name), so a rerun in the same environment gives the same bytes.
+_KEY_LIBRARIES = ("numpy", "scipy", "pandas", "statsmodels", "matplotlib", "reportlab", "openpyxl")
+
+
+def library_versions() -> dict[str, str | None]:
+    """Python's and the key libraries' versions (None for one not installed)."""
+    import platform
+    from importlib import metadata
+
+    versions: dict[str, str | None] = {"python": platform.python_version(), "calibrate": __version__}
+    for name in _KEY_LIBRARIES:
+        try:
+            versions[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            versions[name] = None
+    return versions
 
 
 def _collect_tables(tables: dict[str, pd.DataFrame], ph: PhaseData, a: PhaseAnalyses) -> None:

@@ -20,8 +20,23 @@ EXIT_USER_ERROR = 2
 EXIT_SIGNAL_BASE = 128  # the shell's convention: killed by signal N exits 128 + N
 
 
+def echo(message: object = "", *, err: bool = False) -> None:
+    """Every line the command line prints goes through here: control and bidi characters
+    (from ids, file names or messages) are shown as escapes, never sent raw."""
+    from .safe_files import terminal_text
+
+    click.echo(terminal_text(message), err=err)
+
+
+def shown(value: object) -> str:
+    """One value (a rater id, a path) for a printed line: newlines escaped too."""
+    from .safe_files import terminal_text
+
+    return terminal_text(value, keep_lines=False)
+
+
 def _fail(exc: CalibrateError) -> None:
-    click.echo(f"calibrate: {exc}", err=True)
+    echo(f"calibrate: {exc}", err=True)
     sys.exit(EXIT_USER_ERROR)
 
 
@@ -37,11 +52,19 @@ FORCED_EXIT_AFTER_S = 20  # an unwinding that hangs (a library catching the sign
 
 
 def _raise_stopped(signum, frame) -> None:
-    import threading
+    """SIGTERM: unwind through every ``with`` block, with a backstop if the unwinding hangs.
 
-    timer = threading.Timer(FORCED_EXIT_AFTER_S, _forced_exit, args=(signum,))
-    timer.daemon = True
-    timer.start()
+    The backstop is an interval timer (SIGALRM), not a thread: starting a thread inside a
+    signal handler takes threading's internal lock, and if the signal lands while the main
+    thread holds that lock (starting the pool's manager or queue-feeder thread, or tqdm's
+    monitor), the handler deadlocks and the backstop itself never starts -- the likely
+    cause of the one hang seen with the former 20 s timer thread.
+    """
+    import signal
+
+    if hasattr(signal, "setitimer"):
+        signal.signal(signal.SIGALRM, lambda *_: _forced_exit(signum))
+        signal.setitimer(signal.ITIMER_REAL, FORCED_EXIT_AFTER_S)
     raise Stopped(signum)
 
 
@@ -91,12 +114,12 @@ class _Group(click.Group):
             _fail(exc)
         except KeyboardInterrupt as exc:
             signum = exc.signum if isinstance(exc, Stopped) else signal.SIGINT
-            click.echo("calibrate: stopped before the end; no output was replaced and no partial "
+            echo("calibrate: stopped before the end; no output was replaced and no partial "
                        "output was left behind.", err=True)
             sys.exit(EXIT_SIGNAL_BASE + int(signum))
         except OSError as exc:  # a last net: a file problem is the user's to fix, not a crash
             where = f" ({exc.filename})" if exc.filename else ""
-            click.echo(f"calibrate: a file could not be read or written{where}: "
+            echo(f"calibrate: a file could not be read or written{where}: "
                        f"{exc.strerror or exc}. Check the path and its permissions.", err=True)
             sys.exit(EXIT_USER_ERROR)
         finally:
@@ -143,11 +166,11 @@ def demo(out: Path, force: bool) -> None:
         raise CalibrateError(f"--out {out} is a file, not a folder; give a folder name for the demo "
                              "study, for example --out demo_data.")
     if (out / "study.toml").exists() and not force:
-        click.echo(f"{out / 'study.toml'} already exists; leaving it as it is (add --force to rewrite).")
+        echo(f"{out / 'study.toml'} already exists; leaving it as it is (add --force to rewrite).")
         return
     files = write_demo(out)
-    click.echo(f"Wrote the demo study to {files.folder}/ (spec: {files.spec}).")
-    click.echo(f"Next: calibrate check {files.spec}   then   calibrate audit {files.spec} --out reports/demo")
+    echo(f"Wrote the demo study to {files.folder}/ (spec: {files.spec}).")
+    echo(f"Next: calibrate check {files.spec}   then   calibrate audit {files.spec} --out reports/demo")
 
 
 @main.command()
@@ -183,7 +206,7 @@ def init(data: Path, out: Path | None, name: str | None, force: bool) -> None:
     rel = os.path.relpath(data.resolve(), out.resolve().parent)
     text = draft_spec(table, data_name=Path(rel).as_posix(), study_name=name or data.stem)
     atomic_write_text(out, text)
-    click.echo(f"Wrote a draft spec to {out}. Check the lines marked CHECK, then run: calibrate check {out}")
+    echo(f"Wrote a draft spec to {out}. Check the lines marked CHECK, then run: calibrate check {out}")
 
 
 @main.command()
@@ -197,19 +220,19 @@ def check(spec: Path) -> None:
     errors = [p for p in problems if p.severity == "error"]
     warnings = [p for p in problems if p.severity == "warning"]
     if table is not None:
-        click.echo(f"Study: {table.spec.name}")
-        click.echo(format_summary(summarize(table)))
-        click.echo("")
+        echo(f"Study: {table.spec.name}")
+        echo(format_summary(summarize(table)))
+        echo("")
     if warnings:
-        click.echo(f"{len(warnings)} warning(s):")
+        echo(f"{len(warnings)} warning(s):")
         for w in warnings:
-            click.echo(f"  - {w}")
+            echo(f"  - {w}")
     if errors:
-        click.echo(f"{len(errors)} problem(s) stop the analysis:", err=True)
+        echo(f"{len(errors)} problem(s) stop the analysis:", err=True)
         for e in errors:
-            click.echo(f"  - {e}", err=True)
+            echo(f"  - {e}", err=True)
         sys.exit(EXIT_USER_ERROR)
-    click.echo("The data can be analysed.")
+    echo("The data can be analysed.")
 
 
 @main.command()
@@ -226,8 +249,18 @@ def check(spec: Path) -> None:
 @click.option("--show-excluded-to-raters", "include_excluded", is_flag=True,
               help="Also print the excluded-attribute result in each rater's own report "
                    "(by default it stays in the chair's summary).")
+@click.option("--pseudonymise", "--pseudonymize", "pseudonymise", is_flag=True,
+              help="Replace every rater id by a stable code in every output (files, names, "
+                   "terminal) and write the key (code -> id -> report) outside the folder.")
+@click.option("--key-file", "key_file", type=click.Path(path_type=Path), default=None,
+              help="Where the pseudonym key is kept (read again on a rerun, so codes stay) "
+                   "[default: OUT-key.csv beside OUT].")
+@click.option("--memory-limit", "memory_limit", type=click.FloatRange(min=0, min_open=True), default=None,
+              help="GB of memory the audit may use; a panel estimated to need more is refused "
+                   "before the analysis starts [default: this machine's memory].")
 def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool, jobs: int,
-          include_excluded: bool) -> None:
+          include_excluded: bool, pseudonymise: bool, key_file: Path | None,
+          memory_limit: float | None) -> None:
     """Run the full audit and write results, tables, a workbook and PDF reports into OUT."""
     from tqdm import tqdm
 
@@ -239,15 +272,29 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
 
     if not no_pdf:
         _check_source_date_epoch()
+    if key_file is not None and not pseudonymise:
+        raise CalibrateError("--key-file is the key of a pseudonymised audit; add --pseudonymise "
+                             "(or leave --key-file out).")
     study = read_spec(spec)
     # Inputs the output may not contain or sit above: replacing it would delete them.
     protect = (spec, spec.resolve().parent, *(d.path for d in study.data),
                *([study.cases] if study.cases is not None else []))
     folder = OutputFolder(out, overwrite=overwrite, protect=protect)  # refuse early, before any work
+    key = _open_key(key_file, out, protect) if pseudonymise else None
     with folder as staging:  # holds the lock through the analysis; cleans up on any exit
         table = load_study(study)
+        from .output.limits import memory_refusal, space_refusal
+
+        refusal = memory_refusal(table, memory_limit) or space_refusal(
+            table, staging.parent, shown(out), pdf=not no_pdf)
+        if refusal is not None:
+            raise CalibrateError(refusal)
+        if key is not None:
+            from .output.pseudonyms import pseudonymise_table
+
+            table, _codes = pseudonymise_table(table, key)
         for w in table.warnings:
-            click.echo(f"warning: {w}", err=True)
+            echo(f"warning: {w}", err=True)
         with tqdm(desc="analyses", unit=" step", leave=False, disable=None, file=sys.stderr) as bar:
             def step(name: str) -> None:
                 bar.set_postfix_str(name)
@@ -263,20 +310,49 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
 
         try:
             write_audit_files(result, staging, pdf=not no_pdf, jobs=jobs,
-                              include_excluded=include_excluded, progress=wrote, shown=out)
+                              include_excluded=include_excluded, progress=wrote, shown=out,
+                              pseudonymise=key)
         finally:
             bar_pdf.close()
+    _print_audit_summary(result, out, no_pdf, key)
+
+
+def _open_key(key_file: Path | None, out: Path, protect: tuple[Path, ...]):
+    """The pseudonym key to use: never inside the results folder, never one of the inputs."""
+    import os
+
+    from .output.pseudonyms import PseudonymKey, default_key_path
+
+    path = Path(os.path.abspath(key_file)) if key_file is not None else default_key_path(out)
+    final = Path(os.path.abspath(out))
+    if path == final or final in path.parents:
+        raise CalibrateError(f"--key-file {shown(key_file)} is inside --out {shown(out)}; the key must "
+                             "be kept apart from the results it unlocks. Give a path outside it, "
+                             f"for example {shown(default_key_path(out))}.")
+    if any(path == Path(os.path.abspath(p)) for p in protect) or path.is_dir():
+        raise CalibrateError(f"--key-file {shown(path)} is a folder or one of the study's inputs; "
+                             "give a new file name for the key.")
+    return PseudonymKey.open(path)
+
+
+def _print_audit_summary(result, out: Path, no_pdf: bool, key) -> None:
     n_raters = len({e["rater"] for e in result.raters})
-    click.echo(f"Audited {n_raters} raters over {len(result.phases)} phase(s): "
-               f"{', '.join(result.phases)}.")
+    echo(f"Audited {n_raters} raters over {len(result.phases)} phase(s): "
+         f"{', '.join(shown(p) for p in result.phases)}.")
     flagged = [e for e in result.raters if e["flags"]]
     if flagged:
-        click.echo("Flags (see the README for what each means):")
+        echo("Flags (see the README for what each means):")
     for e in flagged:
-        click.echo(f"  {e['rater']} ({e['phase']}): {', '.join(e['flags'])}")
-    click.echo(f"Results: {out}/results.json; tables in {out}/tables/; workbook {out}/audit.xlsx")
+        echo(f"  {shown(e['rater'])} ({shown(e['phase'])}): {', '.join(e['flags'])}")
+    where = shown(out)
+    echo(f"Results: {where}/results.json; tables in {where}/tables/; workbook {where}/audit.xlsx")
     if not no_pdf:
-        click.echo(f"Reports: {out}/panel-summary.pdf and one private report per rater in {out}/raters/")
+        echo(f"Reports: {where}/panel-summary.pdf and one private report per rater in {where}/raters/"
+             f" ({where}/index.csv names each rater's file)")
+    if key is not None:
+        echo(f"Pseudonymised: the outputs name raters by code only. The key (code -> rater -> "
+             f"report) is {shown(key.path)}; keep it apart from the results. A rerun reads it "
+             "again (from the same place, or give --key-file), so every rater keeps their code.")
 
 
 @main.command()
@@ -296,20 +372,20 @@ def compare(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bo
     OutputFolder(out, overwrite=overwrite)  # refuse early, before any work
     table = load_study(spec)
     for w in table.warnings:
-        click.echo(f"warning: {w}", err=True)
+        echo(f"warning: {w}", err=True)
     result = run_compare(table, seed=seed)
     write_comparison(result, out, overwrite=overwrite, pdf=not no_pdf)
     n_trained = sum(r.trained for r in result.raters)
-    click.echo(f"Compared {len(result.raters)} raters over phases {', '.join(result.phases)} "
+    echo(f"Compared {len(result.raters)} raters over phases {', '.join(result.phases)} "
                f"({n_trained} trained, {len(result.raters) - n_trained} controls).")
     if result.unmatched:
-        click.echo("Not in every phase (left out): "
+        echo("Not in every phase (left out): "
                    + ", ".join(u["rater"] for u in result.unmatched))
     for caution in result.cautions:
-        click.echo(f"  - {caution}")
+        echo(f"  - {caution}")
     for line in result.summary:
-        click.echo(line)
-    click.echo(f"Results: {out}/comparison.json; tables in {out}/tables/"
+        echo(line)
+    echo(f"Results: {out}/comparison.json; tables in {out}/tables/"
                + ("" if no_pdf else f"; report {out}/training-report.pdf"))
 
 
@@ -348,9 +424,9 @@ def score(policies: Path, files: Path, rater: str, phase: str | None, file_colum
     frame = scored.to_frame().map(escape_formula)
     atomic_write_text(out, frame.to_csv(index=False, lineterminator="\n"))
     n_out = sum(1 for cues in scored.outside_range if cues)
-    click.echo(f"Scored {len(scored.files)} file(s) with the policy of '{rater}' (phase '{scored.phase}'): {out}")
+    echo(f"Scored {len(scored.files)} file(s) with the policy of '{rater}' (phase '{scored.phase}'): {out}")
     if n_out:
-        click.echo(f"{n_out} file(s) have cues outside the range the policy was fitted on; "
+        echo(f"{n_out} file(s) have cues outside the range the policy was fitted on; "
                    "their predictions extrapolate (see the outside_fitted_range column).")
 
 
@@ -395,11 +471,11 @@ def plan(pool: Path, raters: str, files_per_rater: int, repeat_share: float, rep
                            repeat_share=repeat_share, readers_per_file=readers_per_file,
                            min_gap=repeat_distance, method=choose, seed=seed, source=pool.name)
     write_plan(result, out, overwrite=overwrite)
-    click.echo(f"Planned {len(result.files)} files for {len(result.packets)} raters ({choose}); "
+    echo(f"Planned {len(result.files)} files for {len(result.packets)} raters ({choose}); "
                f"packets and key in {out}/ (keep key.csv away from the raters).")
-    click.echo(f"Largest correlation between cues: {result.max_abs_correlation():.2f} in the chosen files, "
+    echo(f"Largest correlation between cues: {result.max_abs_correlation():.2f} in the chosen files, "
                f"{result.max_abs_correlation(False):.2f} in the pool; {result.files_per_weight:.1f} files per weight.")
-    click.echo(result.to_frame().to_string(index=False, float_format=lambda v: f"{v:.2f}"))
+    echo(result.to_frame().to_string(index=False, float_format=lambda v: f"{v:.2f}"))
 
 
 @main.command()
@@ -422,6 +498,6 @@ def collect(plan_folder: Path, packets: tuple[Path, ...], scale: str, scale_min:
     collected = collect_packets(plan_folder, list(packets), scale=scale, scale_min=scale_min, scale_max=scale_max)
     spec = write_collected(collected, out, name=name, overwrite=overwrite)
     for warning in collected.warnings:
-        click.echo(f"Note: {warning}")
-    click.echo(f"Read {len(collected.judgments)} judgments from {len(packets)} packet(s); "
+        echo(f"Note: {warning}")
+    echo(f"Read {len(collected.judgments)} judgments from {len(packets)} packet(s); "
                f"next: calibrate audit {spec} --out REPORTS")

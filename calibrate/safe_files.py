@@ -67,24 +67,44 @@ def sha256_of(path: Path) -> str:
     return h.hexdigest()
 
 
-def safe_file_stem(raw: str, *, taken: set[str] | None = None) -> str:
-    """A file-name stem from a rater id: letters, digits, '-', '_' and '.' only.
+_STEM_BYTES = 200  # file systems allow 255 bytes a name; room left for "_12" and ".pdf"
 
-    Path separators, control characters and leading dots are removed; an empty
-    result becomes 'rater'; names are capped at 80 characters. With ``taken``,
-    a clash (two ids that sanitise alike) gets a numbered suffix and the new
-    name is added to ``taken``.
+
+def _stem_char(ch: str, previous: str) -> str:
+    """Letters and digits of any script stay (so 王小明 gives 王小明.pdf), as do '.', '-', '_'
+    and combining marks after a kept letter (Devanagari vowel signs); all else becomes '_'."""
+    if ch.isalnum() or ch in "._-":
+        return ch
+    if unicodedata.category(ch).startswith("M") and previous and previous.isalnum():
+        return ch
+    return "_"
+
+
+def safe_file_stem(raw: str, *, taken: set[str] | None = None) -> str:
+    """A readable, safe file-name stem from a rater id.
+
+    Letters and digits of every script are kept (after NFC normalisation); path
+    separators, spaces, punctuation, control and bidi characters become '_'; leading
+    dots are removed; an empty result becomes 'rater'; names are capped at 200 bytes of
+    UTF-8. With ``taken``, a clash (two ids that sanitise alike, ignoring case) gets a
+    numbered suffix and the new name is added to ``taken``. The index.csv of a results
+    folder maps every id to its file, so a changed name is always found.
     """
-    text = unicodedata.normalize("NFKD", str(raw)).encode("ascii", "ignore").decode("ascii")
-    text = re.sub(r"[^A-Za-z0-9._-]+", "_", text).strip("._-")[:80] or "rater"
+    chars: list[str] = []
+    for ch in unicodedata.normalize("NFC", str(raw)):
+        chars.append(_stem_char(ch, chars[-1] if chars else ""))
+    text = re.sub(r"_+", "_", "".join(chars)).strip("._-")
+    while len(text.encode("utf-8")) > _STEM_BYTES:
+        text = text[:-1]
+    text = text.rstrip("._-") or "rater"
     if text.upper() in {"CON", "PRN", "AUX", "NUL"} or re.fullmatch(r"(?i)(COM|LPT)\d", text):
         text = f"rater_{text}"
     if taken is not None:
         base, i = text, 2
-        while text.lower() in taken:
+        while text.casefold() in taken:
             text = f"{base}_{i}"
             i += 1
-        taken.add(text.lower())
+        taken.add(text.casefold())
     return text
 
 
@@ -122,3 +142,36 @@ def reproducible_xlsx_bytes(wb) -> bytes:
                                  content)
             dst.writestr(member, content)
     return out.getvalue()
+
+
+# Characters that change what a terminal shows rather than being shown: C0/C1 controls
+# (ESC starts colour, cursor and title sequences), DEL, and the Unicode format characters
+# that reorder or hide text (bidi embeddings, overrides and isolates, marks, zero-width).
+_FORMAT_CHARS = {0x061C, 0x200B, 0x200C, 0x200D, 0x200E, 0x200F, 0x2028, 0x2029, 0x2060, 0xFEFF,
+                 *range(0x202A, 0x202F), *range(0x2066, 0x206A)}
+
+
+def _shown_char(ch: str, keep: str) -> str:
+    code = ord(ch)
+    if ch in keep:
+        return ch
+    if code < 0x20 or 0x7F <= code < 0xA0:
+        return {"\n": "\\n", "\r": "\\r", "\t": "\\t", "\x1b": "\\e"}.get(ch, f"\\x{code:02x}")
+    if code in _FORMAT_CHARS:
+        return f"\\u{code:04x}"
+    return ch
+
+
+def terminal_text(value: Any, *, keep_lines: bool = True) -> str:
+    """Text safe to print on a terminal: control and bidi/format characters become visible
+    escapes (ESC as ``\\e``, U+202E as ``\\u202e``), so an id or file name can never move the
+    cursor, recolour the screen, fake a line or reverse the text around it.
+
+    ``keep_lines`` keeps the newlines (and tabs) of a message the tool itself composed;
+    pass False for a single value such as a rater id or a path.
+    """
+    keep = "\n\t" if keep_lines else ""
+    text = str(value)
+    if text.isprintable() and not any(ord(c) in _FORMAT_CHARS for c in text):
+        return text
+    return "".join(_shown_char(ch, keep) for ch in text)

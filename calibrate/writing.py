@@ -8,45 +8,94 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import pandas as pd
+
 from .analyses import AuditResult
+from .errors import CalibrateError
+from .output.pseudonyms import PseudonymKey
 from .output.folder import OutputFolder, write_failure
 from .output.tables import TABLE_DESCRIPTIONS, csv_bytes
 from .result_base import jsonable
 from .safe_files import atomic_write_bytes, atomic_write_text, dump_json
 
 
+INDEX_FILE = "index.csv"
+
+
 def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False, pdf: bool = True,
                 jobs: int = 1, include_excluded: bool = False, progress=None,
-                protect: tuple[Path, ...] = ()) -> Path:
+                protect: tuple[Path, ...] = (), pseudonymise: PseudonymKey | None = None) -> Path:
     """Write the results folder; returns its path. The folder appears whole or not at all.
 
     ``overwrite`` replaces an earlier results folder only (one carrying the tool's
     marker); ``protect`` lists inputs the folder must not contain. ``progress(done,
-    total, name)`` is called as each PDF is written.
+    total, name)`` is called as each PDF is written. ``pseudonymise`` is the
+    :class:`~calibrate.output.pseudonyms.PseudonymKey` the audited table was
+    pseudonymised with (``pseudonymise_table`` before ``audit``): its key file, which maps
+    each code to the rater id and report file, is written outside the folder.
     """
     out = Path(out)
     with OutputFolder(out, overwrite=overwrite, protect=protect) as staging:
         write_audit_files(result, staging, pdf=pdf, jobs=jobs, include_excluded=include_excluded,
-                          progress=progress, shown=out)
+                          progress=progress, shown=out, pseudonymise=pseudonymise)
     return out
 
 
+def _index_frame(result: AuditResult, pdf: bool) -> pd.DataFrame:
+    """One row per rater: the id (a code when pseudonymised) and the report file, relative to
+    the folder (empty without PDFs), in the order the reports are built."""
+    from .report import rater_file_names
+    from .report.builder import RATERS_FOLDER
+
+    ids = sorted({str(e["rater"]) for e in result.raters})
+    names = rater_file_names(ids)
+    return pd.DataFrame({"rater": list(names),
+                         "report": [f"{RATERS_FOLDER}/{names[r]}" if pdf else "" for r in names]})
+
+
+def _results_dict(result: AuditResult, key: PseudonymKey | None) -> dict:
+    data = result.to_dict()
+    provenance = data.setdefault("provenance", {})
+    provenance["pseudonymised"] = key is not None
+    spec = provenance.get("spec") or {}
+    if key is not None and spec.get("text") is None and spec.get("sha256"):
+        spec["text_withheld"] = ("the spec names raters and this audit is pseudonymised; its "
+                                 "sha256 above still identifies the file")
+    return data
+
+
 def write_audit_files(result: AuditResult, folder: Path, *, pdf: bool = True, jobs: int = 1,
-                      include_excluded: bool = False, progress=None, shown: Path | None = None) -> None:
+                      include_excluded: bool = False, progress=None, shown: Path | None = None,
+                      pseudonymise: PseudonymKey | None = None) -> None:
     """Write every output file into ``folder`` (a staging folder of :class:`OutputFolder`).
 
     A failed write (full disk, read-only place) becomes one clear error naming ``shown``.
     """
     from .output.workbook import workbook_bytes
 
+    index = _index_frame(result, pdf)
+    key = pseudonymise
+    if key is not None:
+        unknown = sorted(set(index["rater"]) - set(key.codes.values()))
+        if unknown:
+            raise CalibrateError(
+                f"{len(unknown)} rater(s) of this result have no code in the key {key.path}: the "
+                "audit ran on the real ids. Pseudonymise the table first "
+                "(calibrate.output.pseudonyms.pseudonymise_table), then audit() it.")
     try:
-        atomic_write_text(folder / "results.json", dump_json(result.to_dict()))
+        atomic_write_text(folder / "results.json", dump_json(_results_dict(result, key)))
         if result.policies:
             atomic_write_text(folder / "policies.json", dump_json(jsonable(result.policies)))
         tables_dir = folder / "tables"
         for name, frame in result.tables.items():
             atomic_write_bytes(tables_dir / f"{name}.csv", csv_bytes(frame))
+        atomic_write_bytes(folder / INDEX_FILE, csv_bytes(index))
         atomic_write_bytes(folder / "audit.xlsx", workbook_bytes(result.tables, TABLE_DESCRIPTIONS))
+        if key is not None:
+            # Before the reports: the folder is swapped in only after this, so a results folder
+            # never exists whose codes cannot be turned back.
+            key.reports.update(dict(zip(index["rater"], index["report"])))
+            key.write()
         if pdf:
             from .report import build_reports
 

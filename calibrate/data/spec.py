@@ -9,10 +9,11 @@ the fix (an unknown key comes with the closest valid key).
 from __future__ import annotations
 
 import difflib
+import hashlib
 import itertools
 import math
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -150,6 +151,10 @@ class StudySpec:
     criterion_only_for_selected: bool = False
     missing_words: tuple[str, ...] | None = None  # None: DEFAULT_MISSING_WORDS for numbers only
     source: Path | None = None
+    # The spec file exactly as read (text and the sha256 of its bytes), kept so that
+    # results.json can record what was run; None for a spec built in Python.
+    source_text: str | None = field(default=None, compare=False, repr=False)
+    source_sha256: str | None = field(default=None, compare=False, repr=False)
 
     @property
     def cue_names(self) -> tuple[str, ...]:
@@ -641,8 +646,9 @@ def read_spec(path: str | Path) -> StudySpec:
     if not path.is_file():
         raise SpecError(f"the spec file {path} does not exist. Draft one with "
                         "'calibrate init <judgments table>'.")
+    raw = path.read_bytes()
     try:
-        text = path.read_text(encoding="utf-8-sig")
+        text = raw.decode("utf-8-sig")
     except UnicodeDecodeError:
         raise SpecError("the spec is not UTF-8 text (is it the right file?); save it as UTF-8.",
                         path=str(path)) from None
@@ -653,7 +659,19 @@ def read_spec(path: str | Path) -> StudySpec:
         if "overwrite" in str(exc).lower() or "duplicate" in str(exc).lower():
             hint = " A key is listed twice (for example a cue named twice in [cues]); keep one."
         raise SpecError(f"the TOML cannot be read: {exc}.{hint}", path=str(path)) from None
-    return parse_spec(doc, base_dir=path.resolve().parent, source=path)
+    spec = parse_spec(doc, base_dir=path.resolve().parent, source=path)
+    return replace(spec, source_text=text, source_sha256=hashlib.sha256(raw).hexdigest())
+
+
+def spec_record(spec: StudySpec) -> dict:
+    """What results.json keeps of the spec so a later reader can verify the audit: the file
+    name, the sha256 of its bytes and its text as read, and the spec as parsed (the same
+    TOML ``to_toml`` writes, read back: paths relative to the spec's folder)."""
+    base = spec.source.resolve().parent if spec.source is not None else None
+    return {"path": spec.source.name if spec.source is not None else None,
+            "sha256": spec.source_sha256,
+            "text": spec.source_text,
+            "parsed": tomllib.loads(spec.to_toml(relative_to=base))}
 
 
 def write_spec(spec: StudySpec, path: str | Path) -> None:

@@ -126,13 +126,22 @@ def check_output_place(final: Path, *, protect: tuple[Path, ...] = ()) -> Path:
     return resolved
 
 
+_PROBE_BYTES = 64 * 1024
+
+
 def _check_writable(parent: Path, shown: Path) -> None:
     """Prove the parent folder can take the results: create it if needed and write a probe."""
     try:
         parent.mkdir(parents=True, exist_ok=True)
         fd, probe = tempfile.mkstemp(prefix=".calibrate-probe.", dir=parent)
-        os.close(fd)
-        os.unlink(probe)
+        try:
+            block = memoryview(b"\0" * _PROBE_BYTES)  # a full disk often still takes an empty file
+            while block:  # a nearly full disk takes part of a write and refuses the rest
+                block = block[os.write(fd, block):]
+            os.fsync(fd)
+        finally:
+            os.close(fd)
+            os.unlink(probe)
     except OSError as exc:
         raise OutputPlaceError(
             f"cannot write into {parent} (for --out {shown}): {exc.strerror or exc}. Choose a "

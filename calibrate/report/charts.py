@@ -11,7 +11,7 @@ from collections.abc import Mapping, Sequence
 from reportlab.graphics.shapes import Circle, Drawing, Line, PolyLine, Rect, String
 from reportlab.platypus import Image
 
-from .styles import ACCENT, ACCENT_LIGHT, BASE_FONT, INK, MUTED, PALE, PANEL, RUBRIC, RULE
+from .styles import ACCENT, ACCENT_LIGHT, BASE_FONT, INK, MUTED, PALE, PANEL, RUBRIC, RULE, matplotlib_families
 from .wording import fmt
 
 LABEL_SIZE = 7.5
@@ -182,10 +182,22 @@ def order_chart(positions: Sequence[float], judgments: Sequence[float], *, low: 
 # ---------------------------------------------------------------- matplotlib figures
 
 
+def _with_cjk_fallback(fig) -> None:
+    """Let every text of the figure fall back to the CJK font (rater ids such as 王小明 in
+    tick labels), which matplotlib does per character when given a list of families."""
+    from matplotlib.text import Text
+
+    families = matplotlib_families()
+    if len(families) > 1:
+        for item in fig.findobj(Text):
+            item.set_fontfamily(families)
+
+
 def _png_image(fig, width_pt: float, height_pt: float) -> Image:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
     FigureCanvasAgg(fig)
+    _with_cjk_fallback(fig)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=200, metadata={"Software": None})
     buf.seek(0)

@@ -61,6 +61,99 @@ def _register_fonts() -> tuple[str, str, str]:
 
 BASE_FONT, BOLD_FONT, ITALIC_FONT = _register_fonts()
 
+CJK_FONT = "CalibrateCJK"
+
+
+def _cjk_font_file():
+    """WenQuanYi Micro Hei (TrueType outlines, which reportlab embeds; Apache 2.0 / GPLv3 with
+    the font exception), installed with calibrate as the font-only package
+    ``paperang-p2-fonts-cjk``. None when it is missing."""
+    from pathlib import Path
+
+    try:
+        import paperang_p2_fonts_cjk
+    except ImportError:
+        return None
+    path = Path(paperang_p2_fonts_cjk.__file__).parent / "fonts" / "wqy-microhei.ttc"
+    return path if path.is_file() else None
+
+
+def _register_cjk() -> tuple[frozenset, frozenset]:
+    """Register the CJK font beside the base font; return (base covers, CJK covers) as sets of
+    code points, so that a run of characters the base font lacks is set in the CJK font."""
+    from reportlab.pdfbase import pdfmetrics
+    from reportlab.pdfbase.ttfonts import TTFont
+
+    base = frozenset()
+    if BASE_FONT in pdfmetrics.getRegisteredFontNames():
+        base = frozenset(pdfmetrics.getFont(BASE_FONT).face.charToGlyph)
+    path = _cjk_font_file()
+    if path is None:
+        return base, frozenset()
+    try:
+        if CJK_FONT not in pdfmetrics.getRegisteredFontNames():
+            pdfmetrics.registerFont(TTFont(CJK_FONT, str(path), subfontIndex=0))
+        return base, frozenset(pdfmetrics.getFont(CJK_FONT).face.charToGlyph)
+    except Exception:  # a damaged font file must not stop a report: the ids then show as boxes
+        return base, frozenset()
+
+
+_BASE_COVERS, _CJK_COVERS = _register_cjk()
+
+
+def _needs_cjk(ch: str) -> bool:
+    code = ord(ch)
+    return code > 0x7F and code not in _BASE_COVERS and code in _CJK_COVERS
+
+
+def with_fallback_font(markup_text: str) -> str:
+    """Wrap each run of characters the base font lacks (Chinese, Japanese, Korean) in the
+    CJK font, so that 王小明 prints as written, not as empty boxes. Safe on markup: tags and
+    entities are ASCII and never wrapped."""
+    if not _CJK_COVERS or markup_text.isascii():
+        return markup_text
+    out: list[str] = []
+    run: list[str] = []
+    for ch in markup_text:
+        if _needs_cjk(ch):
+            run.append(ch)
+            continue
+        if run:
+            out.append(f'<font name="{CJK_FONT}">{"".join(run)}</font>')
+            run = []
+        out.append(ch)
+    if run:
+        out.append(f'<font name="{CJK_FONT}">{"".join(run)}</font>')
+    return "".join(out)
+
+
+_MPL_FAMILIES: list[str] = []
+
+
+def matplotlib_families() -> list[str]:
+    """Font families for matplotlib figures: DejaVu Sans, then the CJK font when installed
+    (added to matplotlib's font list once)."""
+    if not _MPL_FAMILIES:
+        _MPL_FAMILIES.append("DejaVu Sans")
+        path = _cjk_font_file()
+        if path is not None:
+            try:
+                from matplotlib import font_manager
+
+                font_manager.fontManager.addfont(str(path))
+                _MPL_FAMILIES.append(font_manager.FontProperties(fname=str(path)).get_name())
+            except (OSError, RuntimeError, ValueError):
+                pass
+    return list(_MPL_FAMILIES)
+
+
+def line_font(value: str, font: str) -> str:
+    """The font for a single drawn line (page header): the CJK font when ``font`` lacks one
+    of its characters and the CJK font has them all."""
+    if _CJK_COVERS and any(_needs_cjk(ch) for ch in value):
+        return CJK_FONT
+    return font
+
 TITLE = ParagraphStyle("title", fontName=BOLD_FONT, fontSize=17, leading=21, textColor=INK,
                        spaceAfter=4)
 HEADING = ParagraphStyle("heading", fontName=BOLD_FONT, fontSize=12, leading=15, textColor=ACCENT,
@@ -95,12 +188,12 @@ def table_style(*extra) -> TableStyle:
 
 def text(value: str, style: ParagraphStyle = BODY) -> Paragraph:
     """A paragraph of plain text (escaped: ids and messages may hold < or &)."""
-    return Paragraph(escape(str(value)), style)
+    return Paragraph(with_fallback_font(escape(str(value))), style)
 
 
 def markup(value: str, style: ParagraphStyle = BODY) -> Paragraph:
     """A paragraph whose text is already reportlab markup (escape the parts you insert)."""
-    return Paragraph(value, style)
+    return Paragraph(with_fallback_font(value), style)
 
 
 def audit_date() -> str:
@@ -125,7 +218,8 @@ class ReportDocument(BaseDocTemplate):
                          topMargin=MARGIN + 6 * mm, bottomMargin=MARGIN + 10 * mm,
                          title=to_latin1(title), author=author, subject=to_latin1(study_name),
                          creator="calibrate", invariant=True)
-        self.study_name = to_latin1(study_name)
+        # Helvetica (the fallback when no font could be embedded) only knows Latin-1
+        self.study_name = to_latin1(study_name) if BASE_FONT == "Helvetica" else str(study_name)
         self.report_title = to_latin1(title)
         self.caution = caution
         self.date = audit_date()
@@ -137,7 +231,7 @@ class ReportDocument(BaseDocTemplate):
         width, height = PAGE_SIZE
         canvas.saveState()
         top = height - MARGIN
-        canvas.setFont(BOLD_FONT, 8)
+        canvas.setFont(line_font(self.study_name, BOLD_FONT), 8)
         canvas.setFillColor(INK)
         canvas.drawString(MARGIN, top, _clip(self.study_name, 80))
         canvas.setFont(BASE_FONT, 8)

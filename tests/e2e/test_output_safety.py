@@ -175,3 +175,68 @@ def test_a_run_stopped_while_writing_pdfs_leaves_old_or_new_and_no_worker(tmp_pa
     nxt = run("audit", spec, "--out", out, "--no-pdf", "--overwrite")
     assert nxt.returncode == 0, nxt.stderr
     assert not list(tmp_path.glob(".results.*"))  # the killed run's staging folder is gone
+
+
+@pytest.fixture()
+def small_disk(tmp_path):
+    """Mount a tmpfs of a given size (and optionally read-only); skipped where mounting is
+    not allowed (not root, or no CAP_SYS_ADMIN in a container)."""
+    mounted: list[Path] = []
+
+    def mount(size: str, *, read_only: bool = False) -> Path:
+        point = tmp_path / f"disk{len(mounted)}"
+        point.mkdir()
+        proc = subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(point)],
+                              capture_output=True, text=True)
+        if proc.returncode != 0:
+            pytest.skip(f"cannot mount a tmpfs here: {proc.stderr.strip()}")
+        mounted.append(point)
+        if read_only:
+            subprocess.run(["mount", "-o", "remount,ro", str(point)], check=True)
+        return point
+
+    yield mount
+    for point in reversed(mounted):
+        subprocess.run(["umount", "-l", str(point)], capture_output=True)
+
+
+def test_a_read_only_target_exits_2_before_the_analysis(study, small_disk):
+    disk = small_disk("4m", read_only=True)
+    proc = run("audit", study, "--out", disk / "audit", "--no-pdf")
+    assert proc.returncode == 2, proc.stderr
+    assert "Read-only" in proc.stderr and "Traceback" not in proc.stderr
+    assert "analyses" not in proc.stderr and "Audited" not in proc.stdout
+    assert list(disk.iterdir()) == []
+
+
+@pytest.mark.parametrize("size, words", [("32k", "No space left"), ("600k", "MB free")])
+def test_a_full_or_too_small_target_exits_2_before_the_analysis(study, small_disk, size, words):
+    disk = small_disk(size)
+    proc = run("audit", study, "--out", disk / "audit", "--no-pdf")
+    assert proc.returncode == 2, proc.stderr
+    assert words in proc.stderr and "Traceback" not in proc.stderr
+    assert "Audited" not in proc.stdout
+    assert [p.name for p in disk.iterdir()] == []  # no staging folder, no lock, no probe
+
+
+def test_a_disk_that_fills_while_writing_keeps_the_old_output(study, small_disk):
+    from calibrate import audit, load_study, write_audit
+    from calibrate.errors import OutputPlaceError
+
+    disk = small_disk("1m")
+    out = disk / "audit"
+    out.mkdir()
+    (out / MARKER_FILE).write_bytes(b'{"tool": "calibrate", "version": "0", "kind": "results"}\n')
+    (out / "results.json").write_text("{}\n")
+    old = tree_hashes(out)
+    free = os.statvfs(disk).f_bavail * os.statvfs(disk).f_frsize
+    (disk / "ballast").write_bytes(b"\0" * (free - 80_000))  # room for the probe, not the results
+    import warnings
+
+    with warnings.catch_warnings():  # the suite turns warnings into errors; the CLI does not
+        warnings.simplefilter("ignore", RuntimeWarning)
+        result = audit(load_study(study), n_boot=50)
+    with pytest.raises(OutputPlaceError, match="disk is full"):
+        write_audit(result, out, overwrite=True, pdf=False)
+    assert tree_hashes(out) == old
+    assert sorted(p.name for p in disk.iterdir()) == ["audit", "ballast"]

@@ -103,8 +103,10 @@ def test_rater_ids_in_other_scripts_print_as_written_and_become_safe_file_names(
     path = write_study(tmp_path / "s", df, scale="continuous", jmin=0, jmax=100, cues=CUES)
     _audit(path, tmp_path / "out")
     files = sorted(p.name for p in (tmp_path / "out" / "raters").glob("*.pdf"))
-    assert files == ["Zoe_degard.pdf", "cmd.pdf", "rater.pdf"]
-    text = "".join(page.extract_text() for page in PdfReader(tmp_path / "out" / "raters" / "Zoe_degard.pdf").pages)
+    assert files == ["Zoë_Ødegård.pdf", "cmd.pdf", "Ярослава.pdf"]  # readable in every script
+    text = "".join(page.extract_text() for page in PdfReader(tmp_path / "out" / "raters" / "Zoë_Ødegård.pdf").pages)
     assert "Zoë Ødegård" in text and "Ярослава" not in text
-    text = "".join(page.extract_text() for page in PdfReader(tmp_path / "out" / "raters" / "rater.pdf").pages)
+    text = "".join(page.extract_text() for page in PdfReader(tmp_path / "out" / "raters" / "Ярослава.pdf").pages)
     assert "Ярослава" in text
+    index = pd.read_csv(tmp_path / "out" / "index.csv", dtype=str, keep_default_na=False)
+    assert dict(zip(index["rater"], index["report"]))["../=cmd"] == "raters/cmd.pdf"

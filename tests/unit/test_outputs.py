@@ -1,5 +1,7 @@
 """Safe writing: sanitised file names, formula escaping, folders that appear whole."""
 
+import unicodedata
+
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st
@@ -12,9 +14,10 @@ from calibrate.safe_files import escape_formula, safe_file_stem
 @given(st.text(max_size=200))
 def test_file_stems_are_always_safe(raw):
     stem = safe_file_stem(raw)
-    assert stem and len(stem) <= 86
+    assert stem and len(stem.encode("utf-8")) <= 200
     assert "/" not in stem and "\\" not in stem and not stem.startswith(".")
-    assert all(ch.isalnum() or ch in "._-" for ch in stem)
+    assert all(ch.isalnum() or ch in "._-" or unicodedata.category(ch).startswith("M") for ch in stem)
+    assert not unicodedata.category(stem[0]).startswith("M")
 
 
 def test_clashing_ids_get_distinct_names():
@@ -23,6 +26,19 @@ def test_clashing_ids_get_distinct_names():
     assert safe_file_stem("a b", taken=taken) == "a_b_2"
     assert safe_file_stem("../etc/passwd") == "etc_passwd"
     assert safe_file_stem("CON") == "rater_CON"
+
+
+@pytest.mark.parametrize("raw, stem", [
+    ("王小明", "王小明"), ("Zoë Brandt", "Zoë_Brandt"), ("Ольга", "Ольга"), ("سارة", "سارة"),
+    ("x\u202etxt.exe", "x_txt.exe"), ("a\x1b[31mred", "a_31mred"), ("\u0301abc", "abc")])
+def test_file_stems_keep_every_script_readable(raw, stem):
+    assert safe_file_stem(raw) == stem
+
+
+def test_file_stems_clash_ignoring_case_in_any_script():
+    taken: set[str] = set()
+    assert [safe_file_stem(r, taken=taken) for r in ("Ärzte", "ärzte", "ÄRZTE")] == [
+        "Ärzte", "ärzte_2", "ÄRZTE_3"]
 
 
 @pytest.mark.parametrize("cell, expected", [
@@ -194,6 +210,8 @@ def test_unwritable_parent_and_odd_places_are_refused_before_any_work(tmp_path):
 
 
 class _NoResult:
+    raters = ()
+
     def to_dict(self):
         return {}
 
