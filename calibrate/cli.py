@@ -264,13 +264,17 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
         finally:
             bar_pdf.close()
     n_raters = len({e["rater"] for e in result.raters})
-    click.echo(f"Audited {n_raters} raters over {len(result.phases)} phase(s): "
-               f"{', '.join(result.phases)}.")
+    from .data.ingest import UNNAMED_PHASE
+
+    named_phases = tuple(result.phases) != (UNNAMED_PHASE,)
+    click.echo(f"Audited {n_raters} raters" + (f" over {len(result.phases)} phase(s): "
+                                               f"{', '.join(result.phases)}." if named_phases else "."))
     flagged = [e for e in result.raters if e["flags"]]
     if flagged:
         click.echo("Flags (see the README for what each means):")
     for e in flagged:
-        click.echo(f"  {e['rater']} ({e['phase']}): {', '.join(e['flags'])}")
+        where = f" ({e['phase']})" if named_phases else ""
+        click.echo(f"  {e['rater']}{where}: {', '.join(e['flags'])}")
     click.echo(f"Results: {out}/results.json; tables in {out}/tables/; workbook {out}/audit.xlsx")
     if not no_pdf:
         click.echo(f"Reports: {out}/panel-summary.pdf and one private report per rater in {out}/raters/")
