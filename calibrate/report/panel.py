@@ -65,6 +65,24 @@ METHODS = (
 )
 
 
+# Tallest image a page's frame holds, with room for a heading above it (points).
+MAX_IMAGE_HEIGHT = 640.0
+
+
+def _fit_on_page(image):
+    """Shrink a chart that is taller than a page, keeping its proportions: a big panel's
+    grouping tree would otherwise stop the whole report."""
+    if image.drawHeight > MAX_IMAGE_HEIGHT:
+        factor = MAX_IMAGE_HEIGHT / image.drawHeight
+        image.drawHeight *= factor
+        image.drawWidth *= factor
+    return image
+
+
+# Raters per heat-map image: 0.17 inch a row keeps 45 rows and the term names inside a page.
+HEAT_MAP_ROWS = 45
+
+
 class PanelReport:
     def __init__(self, data: ReportInput):
         self.data = data
@@ -182,9 +200,12 @@ class PanelReport:
         terms = list(self.view.design_terms) or list(entries[0].policy.std_weights)
         entries.sort(key=lambda e: (e.group or "~", e.rater))
         values = [[e.policy.std_weights.get(t) for t in terms] for e in entries]
-        image = charts.weight_heat_map([e.rater for e in entries], terms, values,
-                                       [e.group for e in entries], width_pt=CONTENT_WIDTH)
-        return [image, text("Rows are raters ordered by group (letter in brackets); green: the judgment rises "
+        # one map holds at most HEAT_MAP_ROWS raters: a taller image cannot fit on a page
+        images = [charts.weight_heat_map([e.rater for e in entries[i:i + HEAT_MAP_ROWS]], terms,
+                                         values[i:i + HEAT_MAP_ROWS],
+                                         [e.group for e in entries[i:i + HEAT_MAP_ROWS]], width_pt=CONTENT_WIDTH)
+                  for i in range(0, len(entries), HEAT_MAP_ROWS)]
+        return images + [text("Rows are raters ordered by group (letter in brackets); green: the judgment rises "
                             "with the cue, brown: it falls. Weights are on z-scored cues and judgments.", SMALL)]
 
     def groups(self, panel: PanelView) -> list:
@@ -203,7 +224,7 @@ class PanelReport:
                 height = (base - m.r2) if (base is not None and m.r2 is not None) else m.step
                 steps.append((list(m.merged_a), list(m.merged_b), height))
             leaf_group = {r: g.group for g in groups for r in g.raters}
-            story.append(charts.grouping_tree(leaves, steps, leaf_group, width_pt=CONTENT_WIDTH * 0.85))
+            story.append(_fit_on_page(charts.grouping_tree(leaves, steps, leaf_group, width_pt=CONTENT_WIDTH * 0.85)))
             if grouping.rule:
                 story.append(text(f"Number of groups: {grouping.rule}", SMALL))
         rows = [[text(h, CELL_BOLD) for h in ("Group", "Raters", "What sets it apart")]]
