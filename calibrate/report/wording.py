@@ -300,15 +300,13 @@ class Context:
 # Hogarth 2008; from memory) are not checked here, so the first row states our own
 # line and the third the identity that explains the finding.
 PUBLISHED_CONTEXT = (
-    Context("consistency R_s", ".80 and above: the judgments follow the cues closely",
-            "our own rule of thumb (the line of the consistency bands in this report)"),
+    Context("consistency R_s", ".80 or more: close", "our own rule of thumb"),
     Context("test-retest of judgments in policy capturing", "about .78 on average",
             "Zhu, Tomassetti, Dalal et al. (2022), Organizational Research Methods "
             "25:541-574 (from the abstract)"),
-    Context("the model of the judge against the judge",
-            "when the judgments catch nothing beyond the cues (C = 0), r_a = G R_e R_s, never further "
-            "from zero than G R_e, the validity of the model of the judge",
-            "the lens model equation (Tucker 1964), an identity the tool's tests check"),
+    Context("the model of the judge against the judge", "as good or better when C = 0",
+            "lens model equation (Tucker 1964): with C = 0, r_a = G R_e R_s, never further from "
+            "zero than G R_e, the model's validity"),
 )
 
 CONTEXT_INTRO = ("Yardsticks for reading your figures: a published average, our own rule of thumb, "
@@ -340,12 +338,10 @@ GLOSSARY = {
     "cue": "A piece of information about a case that a judgment can use (for example a grade).",
     "policy": "The weighted rule of the cues that best reproduces a set of judgments "
               "(a linear regression of the judgments on the cues).",
-    "weight share": "A cue's part of the total weight in the policy; the sizes of the shares add up "
-                    "to 1 (a negative share: the judgment falls as the cue rises).",
+    "weight share": "A cue's part of the policy's total weight; the sizes of the shares add up to 1.",
     "R_s (consistency)": "How closely the judgments follow their own policy: the correlation "
                          "between the judgments and the policy's predictions (0 to 1).",
-    "test-retest r": "The correlation between the first and second judgments of cases shown "
-                     "more than once.",
+    "test-retest r": "The correlation between the first and second judgments of repeated cases.",
     "sqrt(r_tt)": "The square root of test-retest r: in the population, R_s cannot exceed it; "
                   "in a small sample it is a guide, not a hard limit.",
     "severity offset": "How much higher (positive) or lower (negative) judgments run than the "
