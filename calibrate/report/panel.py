@@ -60,8 +60,8 @@ METHODS = (
     ("Excluded attributes", "incremental R² with a nested F test; Holm adjustment", "Holm (1979)"),
     ("Test-retest", "correlation, ICC(A,1), weighted kappa, Bland-Altman limits",
      "Cohen (1968); Bland & Altman (1986)"),
-    ("Wording bands", "every band that turns a figure into words is this tool's own rule of thumb "
-     "(see each)", "our own"),
+    ("Wording bands", "every band that turns a figure into words is this tool's own rule of thumb (see each)",
+     "our own"),
 )
 
 

@@ -309,7 +309,7 @@ def test_every_sentence_matches_its_numbers_for_over_200_raters(studies):
         shapes.add((label, planted["shape"], planted["showings"]))
         entries += 1
     assert entries >= 200
-    assert len(shapes) >= 30
+    assert len(shapes) >= 60
 
 
 def test_the_extreme_shapes_are_really_there(studies):
