@@ -122,9 +122,11 @@ def _lookup(result, rater: str):
         return None
 
 
-def _warn_texts(phase: str, name: str, result) -> list[dict]:
+def _warn_texts(phase: str | None, name: str, result) -> list[dict]:
+    """The analysis' warnings as study warnings; a study without phases names none."""
     texts = getattr(result, "warnings", ()) if result is not None else ()
-    return [{"severity": "warning", "message": f"{name} ({phase}): {t}", "file": None, "row": None,
+    where = f"{name} ({phase})" if phase is not None else name
+    return [{"severity": "warning", "message": f"{where}: {t}", "file": None, "row": None,
              "column": None} for t in texts]
 
 
@@ -246,6 +248,8 @@ def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict, spec
         "phase": ph.label,
         "n_cases": counts["n_cases"],
         "n_repeats": counts["n_repeats"],
+        "n_presentations": counts["n_presentations"],
+        "most_presentations": counts["most_presentations"],
         "policy": policy,
     }
     for key, result in (("retest", a.retest), ("agreement", a.peer_agreement), ("lens", a.lens), ("severity", a.severity),
@@ -334,7 +338,7 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
                              ("alignment", a.alignment), ("excluded", a.excluded),
                              ("cutoffs", a.cutoffs), ("drift", a.drift), ("conflict", a.conflict),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
-            warnings += _warn_texts(ph.label, name, result)
+            warnings += _warn_texts(ph.name, name, result)
         _collect_tables(tables, ph, a)
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.design)

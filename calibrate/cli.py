@@ -337,13 +337,18 @@ def _open_key(key_file: Path | None, out: Path, protect: tuple[Path, ...]):
 
 def _print_audit_summary(result, out: Path, no_pdf: bool, key) -> None:
     n_raters = len({e["rater"] for e in result.raters})
-    echo(f"Audited {n_raters} raters over {len(result.phases)} phase(s): "
-         f"{', '.join(shown(p) for p in result.phases)}.")
+    from .data.ingest import UNNAMED_PHASE
+
+    named_phases = tuple(result.phases) != (UNNAMED_PHASE,)
+    echo(f"Audited {n_raters} raters" + (f" over {len(result.phases)} phase(s): "
+                                         f"{', '.join(shown(p) for p in result.phases)}."
+                                         if named_phases else "."))
     flagged = [e for e in result.raters if e["flags"]]
     if flagged:
         echo("Flags (see the README for what each means):")
     for e in flagged:
-        echo(f"  {shown(e['rater'])} ({shown(e['phase'])}): {', '.join(e['flags'])}")
+        phase_part = f" ({shown(e['phase'])})" if named_phases else ""
+        echo(f"  {shown(e['rater'])}{phase_part}: {', '.join(e['flags'])}")
     where = shown(out)
     echo(f"Results: {where}/results.json; tables in {where}/tables/; workbook {where}/audit.xlsx")
     if not no_pdf:

@@ -52,11 +52,17 @@ from .rules import (
 from .spec import DEFAULT_MISSING_WORDS, StudySpec, read_spec
 
 
+# The results key of the one phase of a study that declares none. Reports print no
+# phase for it; the key itself stays so that every result sits under a phase.
+UNNAMED_PHASE = "all"
+
+
 @dataclass(frozen=True)
 class PhaseData:
     """The judgments of one phase, split by what feeds which analysis.
 
-    first:    one row per (rater, case): rater, case, judgment, sequence, file, row.
+    first:    one row per (rater, case): rater, case, judgment, sequence, file, row, shown
+              (how many times the case was presented to the rater, dropped ones included).
               Feeds policy fits, lens model, agreement, severity and grouping.
     repeats:  test-retest pairs: rater, case, first, second.
     ordered:  every kept judgment in each rater's reading order: rater, case,
@@ -78,7 +84,7 @@ class PhaseData:
 
     @property
     def label(self) -> str:
-        return "null" if self.name is None else self.name
+        return UNNAMED_PHASE if self.name is None else self.name
 
 
 @dataclass(frozen=True)
@@ -340,6 +346,7 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
         "sequence": firsts["_sequence"].to_numpy(dtype=float),
         "file": firsts[FILE].to_numpy(),
         "row": firsts[ROW].to_numpy(dtype=int),
+        "shown": firsts["_shown"].to_numpy(dtype=int),
     })
     seconds = sub.loc[sub["_nth"] == 1, ["_rater", "_case", "_judgment"]]
     pairs = firsts[["_rater", "_case", "_judgment"]].merge(
@@ -357,8 +364,7 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
         "position": sub["_position"].to_numpy(dtype=int),
         "sequence": sub["_sequence"].to_numpy(dtype=float),
     })
-    label = "null" if name is None else name
-    fit_raters, too_few = too_few_cases(first, complete, n_terms, label, out)
+    fit_raters, too_few = too_few_cases(first, complete, n_terms, name, out)
     return PhaseData(name=name, first=first, repeats=repeats, ordered=ordered,
                      fit_raters=fit_raters, too_few=too_few)
 

@@ -506,12 +506,16 @@ def mark_repeats(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
     """Repeats: within one rater and phase, the first judgment of a case (by sequence, else
     by row order) is the judgment (``_nth`` 0); the second is its repeat (``_nth`` 1); a
     third or later is dropped with a warning. Expects ``_rater`` and ``_case`` columns;
-    adds ``_nth`` and ``_position`` (0-based place in the rater's reading order)."""
+    adds ``_nth``, ``_shown`` (presentations of the case to the rater, dropped ones
+    included) and ``_position`` (0-based place in the rater's reading order)."""
     data = data.copy()
     data["_order"] = np.arange(len(data))
     sort_cols = [PHASE, "_rater", "_sequence", "_order"]
     data = data.sort_values(sort_cols, kind="mergesort", na_position="last")
     data["_nth"] = data.groupby([PHASE, "_rater", "_case"], dropna=False).cumcount()
+    # how often the case was put before the rater in all, counted before later ones are
+    # dropped, so that a report can state the true number of presentations
+    data["_shown"] = data.groupby([PHASE, "_rater", "_case"], dropna=False)["_nth"].transform("size")
     third = data["_nth"] >= 2
     for _, grp in data.loc[third].groupby([PHASE, "_rater", "_case"], dropna=False):
         r = grp.iloc[0]
@@ -533,16 +537,18 @@ def check_trained(raters: set[str], trained: tuple[str, ...] | None, out: Collec
             out.error(f"[phases] trained names rater '{rater}', who has no judgments; check the id")
 
 
-def too_few_cases(first: pd.DataFrame, complete: pd.Series, n_terms: int, phase_label: str,
+def too_few_cases(first: pd.DataFrame, complete: pd.Series, n_terms: int, phase_name: str | None,
                   out: Collector) -> tuple[tuple[str, ...], dict[str, int]]:
     """Too few cases: a rater with fewer usable cases (first judgments of cases with complete
     cues) than model terms + 2 is kept out of the policy fits and listed (a warning).
+    ``phase_name`` None (a study without phases) names no phase in the warning.
     Returns (raters fit, {rater kept out: usable cases})."""
     usable = first.loc[first["case"].map(complete).to_numpy(dtype=bool)].groupby("rater").size()
     usable = usable.reindex(sorted(first["rater"].unique(), key=natural_key), fill_value=0)
     too_few = {r: int(n) for r, n in usable.items() if n < n_terms + 2}
     for rater, n in too_few.items():
-        out.warn(f"rater '{rater}' has {n} usable case(s) in phase '{phase_label}', fewer than the "
+        where = f" in phase '{phase_name}'" if phase_name is not None else ""
+        out.warn(f"rater '{rater}' has {n} usable case(s){where}, fewer than the "
                  f"{n_terms + 2} a policy fit needs (cue terms + 2); kept out of policy fits")
     fit_raters = tuple(r for r in usable.index if r not in too_few)
     return fit_raters, too_few

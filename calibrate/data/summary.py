@@ -50,7 +50,8 @@ class PhaseSummary(ResultMixin):
     n_first: int
     n_repeat_pairs: int
     repeat_share: float            # repeat pairs / distinct cases judged, over the panel
-    per_rater: tuple[dict, ...]    # rater, n_cases, n_repeats, n_judgments, usable, cases_per_term
+    per_rater: tuple[dict, ...]    # rater, n_cases, n_repeats, n_judgments, n_presentations,
+                                   # most_presentations, usable, cases_per_term
     min_cases_per_term: float
     connectedness: Connectedness
     raters_without_fit: tuple[str, ...]
@@ -105,6 +106,10 @@ def _phase_summary(ph: PhaseData, complete: pd.Series, p: int) -> PhaseSummary:
     n_cases = first.groupby("rater").size()
     n_rep = ph.repeats.groupby("rater").size()
     n_all = ph.ordered.groupby("rater").size()
+    # presentations count the judgments dropped after the second of a case as well
+    shown = ph.first["shown"] if "shown" in ph.first.columns else pd.Series(1, index=ph.first.index)
+    shown_by_rater = shown.groupby(ph.first["rater"])
+    n_shown, most_shown = shown_by_rater.sum(), shown_by_rater.max()
     usable = first.loc[first["case"].map(complete).to_numpy(dtype=bool)].groupby("rater").size()
     per_rater = []
     for rater in ph.raters:
@@ -114,6 +119,8 @@ def _phase_summary(ph: PhaseData, complete: pd.Series, p: int) -> PhaseSummary:
             "n_cases": int(n_cases.get(rater, 0)),
             "n_repeats": int(n_rep.get(rater, 0)),
             "n_judgments": int(n_all.get(rater, 0)),
+            "n_presentations": int(n_shown.get(rater, 0)),
+            "most_presentations": int(most_shown.get(rater, 0)),
             "usable_cases": u,
             "cases_per_term": u / p if p else float("nan"),
         })

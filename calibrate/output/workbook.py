@@ -28,7 +28,7 @@ README_SHEET = "read-me"
 # What common columns hold; a caller's own notes take precedence.
 COLUMN_NOTES = {
     "rater": "Rater id, as in the judgments table.",
-    "phase": "Phase of the study (for example before / after a training); 'null' without phases.",
+    "phase": "Phase of the study (for example before / after a training); 'all' in a study without phases (the reports print no phase for it).",
     "case": "Case (file) id, as in the judgments table.",
     "cue": "Cue: a piece of case information the judgments can use.",
     "term": "Design column: a numeric cue, or one level of a categorical cue ('cue=level').",

@@ -60,9 +60,27 @@ METHODS = (
     ("Excluded attributes", "incremental R² with a nested F test; Holm adjustment", "Holm (1979)"),
     ("Test-retest", "correlation, ICC(A,1), weighted kappa, Bland-Altman limits",
      "Cohen (1968); Bland & Altman (1986)"),
-    ("Wording bands", "ICC bands; others are this tool's own choice (see each)",
-     "Koo & Li (2016); Krippendorff (2004)"),
+    ("Wording bands", "every band that turns a figure into words is this tool's own rule of thumb (see each)",
+     "our own"),
 )
+
+
+# Tallest image a page's frame holds, with room for a heading above it (points).
+MAX_IMAGE_HEIGHT = 640.0
+
+
+def _fit_on_page(image):
+    """Shrink a chart that is taller than a page, keeping its proportions: a big panel's
+    grouping tree would otherwise stop the whole report."""
+    if image.drawHeight > MAX_IMAGE_HEIGHT:
+        factor = MAX_IMAGE_HEIGHT / image.drawHeight
+        image.drawHeight *= factor
+        image.drawWidth *= factor
+    return image
+
+
+# Raters per heat-map image: 0.17 inch a row keeps 45 rows and the term names inside a page.
+HEAT_MAP_ROWS = 45
 
 
 class PanelReport:
@@ -97,19 +115,21 @@ class PanelReport:
                 f"{summary.n_judgments} judgments, {summary.n_repeat_pairs} repeated pairs.", BODY))
         story.append(text("Flags first", HEADING))
         flagged = [e for e in self.view.raters if e.flags]
+        named = self.view.named_phases
         if flagged:
-            rows = [[text(h, CELL_BOLD) for h in ("Rater", "Phase", "What was flagged")]]
+            rows = [[text(h, CELL_BOLD) for h in ("Rater",) + (("Phase",) if named else ()) + ("What was flagged",)]]
             for e in flagged:
-                rows.append([text(e.rater, CELL), text(e.phase or "", CELL),
-                             text("; ".join(wording.flag_words(f) for f in e.flags), CELL)])
-            table = Table(rows, colWidths=[90, 60, CONTENT_WIDTH - 150], repeatRows=1, hAlign="LEFT")
+                rows.append([text(e.rater, CELL)] + ([text(e.phase or "", CELL)] if named else [])
+                            + [text("; ".join(wording.flag_words(f) for f in e.flags), CELL)])
+            widths = [90, 60] if named else [90]
+            table = Table(rows, colWidths=widths + [CONTENT_WIDTH - sum(widths)], repeatRows=1, hAlign="LEFT")
             table.setStyle(table_style())
             story.append(table)
         else:
             story.append(text("No rater was flagged.", BODY))
         story.append(text("Panel at a glance", HEADING))
-        rows = [[text(h, CELL_BOLD) for h in ("Phase", "ICC(A,1)", "Krippendorff's alpha", "Groups",
-                                             "Policies alike? (p)", "Reading")]]
+        rows = [[text(h, CELL_BOLD) for h in (("Phase",) if named else ()) + (
+            "ICC(A,1)", "Krippendorff's alpha", "Groups", "Policies alike? (p)", "Reading")]]
         for phase in self.view.phases:
             panel = self.view.panel(phase)
             a1 = None if panel is None or panel.icc is None else panel.icc.estimates["a1"]
@@ -121,10 +141,11 @@ class PanelReport:
                 reading.append(f"single-rater agreement {wording.icc_reading(a1)} ({wording.ICC_BANDS.source})")
             if alpha is not None:
                 reading.append(f"alpha {wording.ALPHA_BANDS.words(alpha)}")
-            rows.append([text(phase or "all", CELL), text(fmt(a1), CELL), text(fmt(alpha), CELL),
+            rows.append(([text(phase or "", CELL)] if named else []) + [text(fmt(a1), CELL), text(fmt(alpha), CELL),
                          text(str(len(groups)) if groups else "n/a", CELL), text(wording.fmt_p(hom_p), CELL),
                          text("; ".join(reading) or "not available yet", CELL)])
-        table = Table(rows, colWidths=[55, 55, 80, 45, 80, CONTENT_WIDTH - 315], hAlign="LEFT")
+        widths = ([55] if named else []) + [55, 80, 45, 80]
+        table = Table(rows, colWidths=widths + [CONTENT_WIDTH - sum(widths)], hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
         n_warn = len(self.all_warnings())
@@ -136,16 +157,18 @@ class PanelReport:
 
     def rater_table(self) -> list:
         story = [text("Every rater", HEADING)]
-        head = ("Rater", "Phase", "Cases", "Repeats", "R_s", "Retest r", "Offset", "Misalloc.", "G rubric",
-                "Group", "Flags")
+        named = self.view.named_phases
+        head = ("Rater",) + (("Phase",) if named else ()) + (
+            "Cases", "Repeats", "R_s", "Retest r", "Offset", "Misalloc.", "G rubric", "Group", "Flags")
         rows = [[text(h, CELL_BOLD) for h in head]]
         for e in self.view.raters:
-            rows.append([text(e.rater, CELL), text(e.phase or "", CELL), text(str(e.n_cases), CELL),
+            rows.append([text(e.rater, CELL)] + ([text(e.phase or "", CELL)] if named else []) + [
+                         text(str(e.n_cases), CELL),
                          text(str(e.n_repeats), CELL), text(fmt(_policy_r(e)), CELL),
                          text(fmt(_retest_r(e)), CELL), text(fmt(_offset(e)), CELL),
                          text(fmt(_misallocation(e)), CELL), text(fmt(_g_rubric(e)), CELL),
                          text(e.group or "", CELL), text(", ".join(e.flags), CELL)])
-        widths = [62, 40, 34, 40, 32, 40, 36, 44, 42, 34]
+        widths = [62] + ([40] if named else []) + [34, 40, 32, 40, 36, 44, 42, 34]
         widths.append(CONTENT_WIDTH - sum(widths))
         table = Table(rows, colWidths=widths, repeatRows=1)
         table.setStyle(table_style(("FONT", (0, 1), (-1, -1), BASE_FONT, 7.5)))
@@ -177,9 +200,12 @@ class PanelReport:
         terms = list(self.view.design_terms) or list(entries[0].policy.std_weights)
         entries.sort(key=lambda e: (e.group or "~", e.rater))
         values = [[e.policy.std_weights.get(t) for t in terms] for e in entries]
-        image = charts.weight_heat_map([e.rater for e in entries], terms, values,
-                                       [e.group for e in entries], width_pt=CONTENT_WIDTH)
-        return [image, text("Rows are raters ordered by group (letter in brackets); green: the judgment rises "
+        # one map holds at most HEAT_MAP_ROWS raters: a taller image cannot fit on a page
+        images = [charts.weight_heat_map([e.rater for e in entries[i:i + HEAT_MAP_ROWS]], terms,
+                                         values[i:i + HEAT_MAP_ROWS],
+                                         [e.group for e in entries[i:i + HEAT_MAP_ROWS]], width_pt=CONTENT_WIDTH)
+                  for i in range(0, len(entries), HEAT_MAP_ROWS)]
+        return images + [text("Rows are raters ordered by group (letter in brackets); green: the judgment rises "
                             "with the cue, brown: it falls. Weights are on z-scored cues and judgments.", SMALL)]
 
     def groups(self, panel: PanelView) -> list:
@@ -198,7 +224,7 @@ class PanelReport:
                 height = (base - m.r2) if (base is not None and m.r2 is not None) else m.step
                 steps.append((list(m.merged_a), list(m.merged_b), height))
             leaf_group = {r: g.group for g in groups for r in g.raters}
-            story.append(charts.grouping_tree(leaves, steps, leaf_group, width_pt=CONTENT_WIDTH * 0.85))
+            story.append(_fit_on_page(charts.grouping_tree(leaves, steps, leaf_group, width_pt=CONTENT_WIDTH * 0.85)))
             if grouping.rule:
                 story.append(text(f"Number of groups: {grouping.rule}", SMALL))
         rows = [[text(h, CELL_BOLD) for h in ("Group", "Raters", "What sets it apart")]]
@@ -314,7 +340,7 @@ class PanelReport:
         if chosen.empty:
             return story + [text("No file needs another read.", BODY)]
         chosen = self._most_urgent_first(chosen)
-        cols = [c for c in ("phase", "case", "n_readers", "raw_mean", "adjusted", "spread_sd", "disagreement",
+        cols = [c for c in (("phase",) if self.view.named_phases else ()) + ("case", "n_readers", "raw_mean", "adjusted", "spread_sd", "disagreement",
                             "reasons") if c in chosen.columns]
         rows = [[text(c.replace("_", " "), CELL_BOLD) for c in cols]]
         story.append(text(f"{len(chosen)} file(s) were marked for another read: readers disagreed more than "
@@ -364,11 +390,13 @@ class PanelReport:
         rows.sort(key=lambda r: (not r[6], r[5] if r[5] is not None else 9))
         shown = [r for r in rows if r[6]] or rows[:5]
         shown = shown if len(shown) >= 5 else rows[:5]
-        table_rows = [[text(h, CELL_BOLD) for h in ("Rater", "Phase", "Attribute", "Added R²", "p", "p (Holm)",
-                                                   "Flagged")]]
+        named = self.view.named_phases
+        table_rows = [[text(h, CELL_BOLD) for h in ("Rater",) + (("Phase",) if named else ()) + (
+            "Attribute", "Added R²", "p", "p (Holm)", "Flagged")]]
         for r in shown[:40]:
-            table_rows.append([text(r[0], CELL), text(r[1], CELL), text(r[2], CELL), text(fmt(r[3], 3), CELL),
-                               text(wording.fmt_p(r[4]), CELL), text(wording.fmt_p(r[5]), CELL), text("yes" if r[6] else "", CELL)])
+            table_rows.append([text(r[0], CELL)] + ([text(r[1], CELL)] if named else []) + [
+                text(r[2], CELL), text(fmt(r[3], 3), CELL), text(wording.fmt_p(r[4]), CELL),
+                text(wording.fmt_p(r[5]), CELL), text("yes" if r[6] else "", CELL)])
         table = Table(table_rows, repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story += [text("Each attribute added to each rater's policy; p adjusted across raters and attributes "
@@ -414,7 +442,8 @@ class PanelReport:
         table = Table(rows, colWidths=[100, 230, CONTENT_WIDTH - 330], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         return [CondPageBreak(200), text("Methods and sources", HEADING), table,
-                text("Sources are cited from memory; check the original before quoting them.", SMALL)]
+                text("Sources are named by author and year so that they can be found; check the original "
+                     "before quoting them.", SMALL)]
 
     def cautions(self) -> list:
         return [KeepTogether([text("Cautions", HEADING)] + [text(f"- {c}", BODY) for c in wording.CAUTIONS])]

@@ -179,11 +179,10 @@ class RaterReport:
                         "It describes how your judgments relate to the information in the cases, "
                         "so you can decide which cues and which cases to look at again.", BODY)]
         phases = [x.phase for x in self.entries]
-        counts = ", ".join(
-            f"{x.n_cases} cases" + (f" in phase {x.phase}" if x.phase else "")
-            + (f" ({x.n_repeats} shown twice)" if x.n_repeats else "")
-            for x in self.entries)
-        story.append(text(f"You judged {counts}.", BODY))
+        story.append(text(counts_sentence(self.entries), BODY))
+        only_two = wording.only_first_two_used(max((x.most_presentations or 0) for x in self.entries))
+        if only_two:
+            story.append(text(only_two, SMALL))
         story.append(Spacer(1, 4))
         story.append(self.key_figure_table(phases))
         if self.shows_peers(self.phase):
@@ -194,12 +193,8 @@ class RaterReport:
                               "shown: with so few, a summary could reveal a colleague's figures.", SMALL))
         story += self.group_line()
         story.append(text(wording.drift_reading(e.drift, e.reason("drift")), BODY))
-        flags = [f for f in e.flags if f != "excluded_attribute" or self.include_excluded]
-        if flags:
-            items = "; ".join(escape(wording.flag_words(f)) for f in flags)
-            story.append(markup(f"<b>Worth a look:</b> {items}.", NOTE))
-        else:
-            story.append(markup("<b>Nothing was flagged</b> in this audit.", NOTE))
+        story.append(text(flags_sentence(e, include_excluded=self.include_excluded,
+                                         named_phases=self.view.named_phases), NOTE))
         story += self.next_steps()
         return story
 
@@ -276,8 +271,7 @@ class RaterReport:
         if rubric:
             series.append(("rubric", rubric, RUBRIC))
         story.append(charts.weight_chart(cues, series, width=CONTENT_WIDTH))
-        story.append(text("A share is a cue's part of the whole policy; the shares add up to 1. "
-                          "A cue with a larger share moves your judgments more.", SMALL))
+        story.append(text(wording.shares_caption(shares), SMALL))
         cutoff = self.entry.cutoff
         if cutoff is not None and cutoff.flagged and cutoff.cue is not None:
             story.append(text(cutoff_sentence(cutoff), NOTE))
@@ -334,12 +328,14 @@ class RaterReport:
         bounds = self.scale()
         if pairs and bounds:
             story.append(charts.retest_scatter(pairs, low=bounds[0], high=bounds[1]))
-            story.append(text("Each dot is a case you saw twice; dots on the dashed line got the same "
-                              "judgment both times, and larger dots stand for several cases.", SMALL))
+            story.append(text("Each dot is a case you judged more than once: your first judgment across, "
+                              "your second up; dots on the dashed line got the same judgment both times, "
+                              "and larger dots stand for several cases.", SMALL))
         elif r_tt is None:
             reason = self.entry.reason("retest")
             story.append(text(f"Test-retest is not available: {reason}." if reason else
-                              "No case was shown to you twice, so test-retest is not available.", BODY))
+                              "No case was shown to you more than once, so test-retest is not available.",
+                              BODY))
         if r_tt is not None:
             story.append(text(wording.retest_reading(r_tt, retest.n_pairs), BODY))
             story.append(text(ceiling_sentence(r_s, r_tt, self.entry.ceiling_verdict), BODY))
@@ -397,22 +393,24 @@ class RaterReport:
 
     def cases_to_revisit(self) -> list:
         story = [CondPageBreak(120), text("Cases to look at again", HEADING)]
-        cases = self.entry.policy.look_again if self.entry.policy is not None else ()
+        cases = cases_to_show(self.entry, self.scale())
         if not cases:
             return story + [text("No case stands out from your own policy, or the policy is not available.",
                                  BODY)]
-        story.append(text("These cases received a judgment far from what your own policy predicts for "
-                          "them. Re-reading them may show a cue that was missed or an exception that "
+        story.append(text("These cases received the judgments furthest from what your own policy predicts "
+                          "for them. Re-reading them may show a cue that was missed or an exception that "
                           "deserves a rule.", BODY))
         rows = [[text(h, CELL_BOLD) for h in ("Case", "Your judgment", "Your policy predicts", "Difference")]]
         for c in cases[:12]:
-            j, pred = c.judgment, c.predicted
-            diff = None if j is None or pred is None else j - pred
-            rows.append([text(c.case, CELL), text(fmt(j, 1), CELL), text(fmt(pred, 1), CELL),
-                         text(fmt(diff, 1), CELL)])
+            rows.append([text(c.case, CELL), text(fmt(c.judgment, 1), CELL),
+                         text(fmt(c.predicted, 1) + ("*" if c.clipped else ""), CELL),
+                         text(fmt(c.difference, 1), CELL)])
         table = Table(rows, colWidths=[140, 100, 120, 100], hAlign="LEFT", repeatRows=1)
         table.setStyle(table_style())
-        return story + [table]
+        story.append(table)
+        if any(c.clipped for c in cases[:12]):
+            story.append(text(wording.PREDICTION_CLIPPED_NOTE, SMALL))
+        return story
 
     def lens(self) -> list:
         lens = self.entry.lens
@@ -446,7 +444,7 @@ class RaterReport:
         rows = [[text(h, CELL_BOLD) for h in ("Attribute", "Added R²", "p (adjusted)", "Reading")]]
         for attr, res in block.items():
             rows.append([text(attr, CELL), text(fmt(res.delta_r2, 3), CELL),
-                         text(fmt(res.p_adjusted, 3), CELL),
+                         text(wording.fmt_p(res.p_adjusted), CELL),
                          text("associated with your judgments beyond the cues" if res.flagged
                               else "no clear association beyond the cues", CELL)])
         table = Table(rows, colWidths=[120, 70, 80, CONTENT_WIDTH - 270], hAlign="LEFT")
@@ -455,17 +453,16 @@ class RaterReport:
                                     "to it can carry it.", SMALL)]
 
     def context(self) -> list:
-        rows = [[text(h, CELL_BOLD) for h in ("Figure", "Published value", "Source")]]
+        rows = [[text(h, CELL_BOLD) for h in ("Figure", "Yardstick", "Source")]]
         for item in wording.PUBLISHED_CONTEXT:
             rows.append([text(item.figure, CELL), text(item.value, CELL), text(item.source, CELL)])
         table = Table(rows, colWidths=[140, 110, CONTENT_WIDTH - 250], hAlign="LEFT")
         table.setStyle(table_style())
-        return [CondPageBreak(120), text("Published context", HEADING),
-                text("Figures from studies of expert judges in many fields, as a rough yardstick only.", BODY),
-                table]
+        return [CondPageBreak(120), text("Context for your figures", HEADING),
+                text(wording.CONTEXT_INTRO, BODY), table]
 
     def next_steps(self) -> list:
-        steps = suggestions(self.entry, include_excluded=self.include_excluded)
+        steps = suggestions(self.entry, include_excluded=self.include_excluded, scale=self.scale())
         story = [text("What to try next", HEADING)]
         for s in steps:
             story.append(text(f"- {s}", BODY))
@@ -505,9 +502,7 @@ def ceiling_sentence(r_s: float | None, r_tt: float, verdict: str | None = None)
         return head + ("The policy fits better than the repeats alone would suggest; with few repeated "
                        "cases this happens by chance.")
     if r_s < ceiling - 0.10:
-        return head + ("Your judgments repeat well but a straight-line rule of these cues does not "
-                       "capture all of them: information beyond the listed cues, or cut-offs and "
-                       "combinations of cues, may be shaping them.")
+        return head + wording.CEILING_VERDICTS["model_misses_rule"]
     return head + "The two agree: what a linear rule leaves out is mostly the ordinary noise of repeating."
 
 
@@ -524,7 +519,8 @@ def bootstrap_sentence(lens: LensView) -> str:
     return lens.summary if lens.summary else "The outcome comparison is not available."
 
 
-def suggestions(entry: RaterView, *, include_excluded: bool) -> list[str]:
+def suggestions(entry: RaterView, *, include_excluded: bool,
+                scale: tuple[float, float] | None = None) -> list[str]:
     """Concrete next steps from this rater's own figures (about cues and cases)."""
     out = []
     over, under = (None, None) if entry.alignment is None else (entry.alignment.most_over,
@@ -539,7 +535,7 @@ def suggestions(entry: RaterView, *, include_excluded: bool) -> list[str]:
     if cutoff is not None and cutoff.flagged and cutoff.cue is not None:
         out.append(f"Look at files just either side of your step on {cutoff.cue}: would the rubric "
                    "separate them as sharply?")
-    cases = entry.policy.look_again if entry.policy is not None else ()
+    cases = cases_to_show(entry, scale)
     if cases:
         ids = ", ".join(c.case for c in cases[:3])
         out.append(f"Re-read cases {ids} and note what set them apart from your usual rule.")
@@ -559,4 +555,54 @@ def suggestions(entry: RaterView, *, include_excluded: bool) -> list[str]:
         out.append("Cover the attribute that must not count while reading, and check which cues relate to it.")
     if not out:
         out.append("Keep your current approach and compare with the next audit; nothing here calls for a change.")
+    return out
+
+
+def counts_sentence(entries) -> str:
+    """'You judged 100 cases (15 of them shown twice).' with each phase named when the study
+    has phases, and the true number of presentations of the repeated cases."""
+    parts = [wording.presentations_text(x.n_cases, x.n_repeats, x.n_presentations, x.most_presentations)
+             + (f" in phase {x.phase}" if x.phase else "") for x in entries]
+    return f"You judged {', '.join(parts)}."
+
+
+def hidden_checks(entry: RaterView, *, include_excluded: bool) -> int:
+    """How many of this entry's checks the rater's report leaves to the chair: the
+    excluded-attribute check, when it ran and the chair has not chosen to show it."""
+    return 0 if include_excluded or not entry.excluded else 1
+
+
+def visible_flags(entry: RaterView, *, include_excluded: bool) -> tuple[str, ...]:
+    return tuple(f for f in entry.flags if f != "excluded_attribute" or include_excluded)
+
+
+def flags_sentence(entry: RaterView, *, include_excluded: bool, named_phases: bool = True) -> str:
+    return wording.flags_reading(visible_flags(entry, include_excluded=include_excluded),
+                                 hidden_checks(entry, include_excluded=include_excluded),
+                                 entry.phase if named_phases else None)
+
+
+@dataclass(frozen=True)
+class ShownCase:
+    """A case to look at again as the report shows it (prediction kept on the scale)."""
+
+    case: str
+    judgment: float | None
+    predicted: float | None
+    clipped: bool
+    difference: float | None
+
+
+def cases_to_show(entry: RaterView, scale: tuple[float, float] | None) -> list[ShownCase]:
+    """The policy's cases to look at again, predictions kept on the scale. A case whose
+    judgment sits at the very end its prediction passed is left out: on the scale, the
+    judgment and the prediction then agree."""
+    cases = entry.policy.look_again if entry.policy is not None else ()
+    out = []
+    for c in cases:
+        shown, clipped = wording.predicted_on_scale(c.predicted, scale)
+        diff = None if c.judgment is None or shown is None else c.judgment - shown
+        if clipped and diff is not None and abs(diff) < 0.05:
+            continue
+        out.append(ShownCase(c.case, c.judgment, shown, clipped, diff))
     return out

@@ -21,12 +21,16 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 from ..errors import CalibrateError
 
 _MISSING = object()
+
+# The results key of the one phase of a study that declares none (calibrate.data.ingest
+# writes it; the report layer reads results.json only, so the word is repeated here).
+UNNAMED_PHASE = "all"
 
 
 class ResultsViewError(CalibrateError, KeyError):
@@ -89,6 +93,12 @@ def _numbers(mapping: Any, path: str) -> dict[str, float | None]:
     if not isinstance(mapping, Mapping):
         raise ResultsViewError(path, "should be an object")
     return {str(k): _number(v, f"{path}.{k}") for k, v in mapping.items()}
+
+
+def _count(mapping: Any, key: str, path: str) -> int | None:
+    """A whole number the audit records from this version on (None in older results)."""
+    value = _num(mapping, key, path, default=None)
+    return None if value is None else int(value)
 
 
 def _optional_text(value: Any) -> str | None:
@@ -258,6 +268,8 @@ class RaterView:
     phase: str | None
     n_cases: int
     n_repeats: int
+    n_presentations: int | None      # every presentation, the dropped third and later included
+    most_presentations: int | None   # the most times one case was shown (None: not recorded)
     policy: PolicyView | None
     retest: RetestView | None
     agreement_r: float | None
@@ -294,6 +306,8 @@ class RaterView:
         return cls(
             rater=str(_get(d, "rater", path)), phase=_optional_text(_get(d, "phase", path)),
             n_cases=int(_get(d, "n_cases", path)), n_repeats=int(_get(d, "n_repeats", path)),
+            n_presentations=_count(d, "n_presentations", path),
+            most_presentations=_count(d, "most_presentations", path),
             policy=part("policy", PolicyView.read), retest=part("retest", RetestView.read),
             agreement_r=None if agreement is None else _num(agreement, "r", f"{path}.agreement"),
             lens=part("lens", LensView.read), severity=part("severity", SeverityView.read),
@@ -480,7 +494,7 @@ class ResultsView:
     criterion_only_for_selected: bool
     scale: tuple[float, float] | None          # judgment scale (min, max), when recorded
     cut_off: float | None
-    phases: tuple[str | None, ...]             # (None,) for a single-phase study
+    phases: tuple[str | None, ...]             # (None,) for a study without phases
     phase_order: tuple[str, ...]               # the phases as recorded
     phase_counts: tuple[PhaseCounts, ...]
     cues: tuple[str, ...]
@@ -497,8 +511,16 @@ class ResultsView:
         lo = _num(judgment, "min", "results.judgment", default=None)
         hi = _num(judgment, "max", "results.judgment", default=None)
         recorded = tuple(map(str, _list(results, "phases", "results")))
+        # A study without phases records its one phase as UNNAMED_PHASE; the view reads
+        # it as None so that no report prints a phase name for it.
+        unnamed = recorded == (UNNAMED_PHASE,)
+
+        def phase_of(value: Any) -> str | None:
+            name = _optional_text(value)
+            return None if unnamed and name == UNNAMED_PHASE else name
+
         summary = _get(results, "data_summary", "results")
-        counts = tuple(PhaseCounts(_optional_text(_get(s, "phase", f"results.data_summary.phases[{i}]")),
+        counts = tuple(PhaseCounts(phase_of(_get(s, "phase", f"results.data_summary.phases[{i}]")),
                                    *(int(_get(s, k, f"results.data_summary.phases[{i}]"))
                                      for k in ("n_raters", "n_cases", "n_judgments", "n_repeat_pairs")))
                        for i, s in enumerate(_list(summary, "phases", "results.data_summary", default=None)))
@@ -512,6 +534,7 @@ class ResultsView:
         terms = _list(summary, "design_terms", "results.data_summary", default=None)
         raters = tuple(RaterView.read(e, f"results.raters[{i}]")
                        for i, e in enumerate(_list(results, "raters", "results")))
+        raters = tuple(replace(r, phase=phase_of(r.phase)) for r in raters)
         if not terms:
             terms = next((list(r.policy.std_weights) for r in raters if r.policy and r.policy.std_weights), [])
         cues = list(_get(summary, "missing_per_cue", "results.data_summary", default=None) or [])
@@ -527,13 +550,18 @@ class ResultsView:
             criterion_only_for_selected=bool(study.get("criterion_only_for_selected", False)),
             scale=None if lo is None or hi is None else (lo, hi),
             cut_off=_num(judgment, "cut_off", "results.judgment", default=None),
-            phases=recorded or (None,), phase_order=recorded, phase_counts=counts,
+            phases=(None,) if unnamed or not recorded else recorded, phase_order=recorded, phase_counts=counts,
             cues=tuple(map(str, cues)), design_terms=tuple(map(str, terms)), rubric_shares=rubric_shares,
             warnings=tuple(warnings), raters=raters,
-            panels=tuple(PanelView.read(p, f"results.panels[{i}]")
-                         for i, p in enumerate(_list(results, "panels", "results"))))
+            panels=tuple(replace(p, phase=phase_of(p.phase)) for p in (
+                PanelView.read(p, f"results.panels[{i}]") for i, p in enumerate(_list(results, "panels", "results")))))
 
     # ------------------------------------------------------------ look-ups
+    @property
+    def named_phases(self) -> bool:
+        """Whether the study declares phases (otherwise no report prints a phase)."""
+        return self.phases != (None,)
+
     def rater_ids(self) -> list[str]:
         return list(dict.fromkeys(r.rater for r in self.raters))
 

@@ -43,22 +43,23 @@ class Scale:
 
 INF = float("inf")
 
-# Koo & Li (2016), J. Chiropractic Medicine 15:155-163: ICC below .50 poor, .50-.75
-# moderate, .75-.90 good, above .90 excellent (from memory).
+# The ICC lines follow a guideline we recall from Koo & Li (2016), J. Chiropractic
+# Medicine 15:155-163 (from memory; not checked here, so the reports call the bands our
+# own rule of thumb and print no citation for them).
 ICC_BANDS = Scale("ICC", (
     Band(-INF, 0.50, "poor"),
     Band(0.50, 0.75, "moderate"),
     Band(0.75, 0.90, "good"),
     Band(0.90, INF, "excellent"),
-), "Koo & Li (2016), guideline for ICC (from memory)")
+), "our own rule of thumb for ICC (lines at .50, .75 and .90)")
 
-# Krippendorff (2004), Content Analysis, 2nd ed., p. 241: rely on alpha >= .800; .667
-# to .800 only for tentative conclusions (from memory).
+# The alpha lines follow what we recall of Krippendorff (2004), Content Analysis, 2nd ed.,
+# p. 241 (from memory; not checked here, so the reports call them our own rule of thumb).
 ALPHA_BANDS = Scale("Krippendorff's alpha", (
     Band(-INF, 0.667, "too low to rely on"),
     Band(0.667, 0.800, "enough only for tentative conclusions"),
     Band(0.800, INF, "reliable"),
-), "Krippendorff (2004), p. 241 (from memory)")
+), "our own rule of thumb for alpha (lines at .667 and .800)")
 
 # Consistency R_s and test-retest r: our own choice. The .70 line matches the
 # 'inconsistent' flag of calibrate.policy and calibrate.consistency; .80 is near the
@@ -71,9 +72,9 @@ CONSISTENCY_BANDS = Scale("consistency", (
 ), "our own choice (the .70 line is the tool's flag for low consistency)")
 
 RETEST_BANDS = Scale("test-retest", (
-    Band(-INF, 0.70, "often differed the second time"),
-    Band(0.70, 0.85, "were mostly repeated"),
-    Band(0.85, INF, "were repeated closely"),
+    Band(-INF, 0.70, "often differed"),
+    Band(0.70, 0.85, "mostly agreed"),
+    Band(0.85, INF, "agreed closely"),
 ), "our own choice (the .70 line is the tool's flag for low test-retest)")
 
 # Misallocation = 1/2 sum |share - rubric share|: 0 means the rubric's weights exactly,
@@ -119,7 +120,8 @@ def fmt(value: float | None, digits: int = 2) -> str:
 
 
 def fmt_p(value: float | None) -> str:
-    """A p-value as printed: three decimals, and '<0.001' below that."""
+    """A p-value as printed in every report: three decimals, and '<0.001' below that
+    (never '0.000', which would claim an impossible p of zero)."""
     if value is None:
         return "n/a"
     return "<0.001" if value < 0.001 else fmt(value, 3)
@@ -135,19 +137,96 @@ def consistency_reading(r_s: float | None) -> str:
 def retest_reading(r: float | None, n_pairs: int | None) -> str:
     words = RETEST_BANDS.words(r)
     if words is None:
-        return "No case was shown to you twice, so test-retest is not available."
-    pairs = f" over {n_pairs} repeated cases" if n_pairs else ""
-    return f"Judgments on cases seen twice {words}{pairs}."
+        return "No case was shown to you more than once, so test-retest is not available."
+    cases = f"the {n_pairs} cases" if n_pairs else "the cases"
+    return (f"On {cases} you judged more than once, your first and second judgments {words} "
+            f"(test-retest r = {fmt(r)}).")
+
+
+def presentations_text(n_cases: int, n_repeats: int, n_presentations: int | None,
+                       most_presentations: int | None) -> str:
+    """'100 cases (15 shown twice)': the cases judged and how often repeated ones were shown.
+
+    ``n_presentations`` and ``most_presentations`` count every time a case was put before
+    the rater, including the presentations after the second that the audit drops; None
+    (results written before they were recorded) says only "more than once"."""
+    text = f"{n_cases} case" + ("" if n_cases == 1 else "s")
+    if not n_repeats:
+        return text
+    if most_presentations is None or n_presentations is None or most_presentations < 2:
+        how = "shown more than once"
+    elif most_presentations == 2:
+        how = "shown twice"
+    elif n_presentations == n_cases + n_repeats * (most_presentations - 1):
+        how = f"each shown {most_presentations} times"
+    else:
+        how = f"shown between two and {most_presentations} times"
+    return f"{text} ({n_repeats} of them {how})"
+
+
+def only_first_two_used(most_presentations: int | None) -> str | None:
+    """The sentence saying that test-retest keeps two judgments of a case shown more often."""
+    if most_presentations is None or most_presentations <= 2:
+        return None
+    return ("Test-retest uses your first two judgments of each repeated case; the later "
+            "presentations are left out of every figure.")
+
+
+def flags_reading(visible: tuple[str, ...], hidden_checks: int, phase: str | None = None) -> str:
+    """The first page's flag line. A check kept from the rater (by default the excluded-
+    attribute check, which the chair sees) is described as hidden whatever it found,
+    so the line neither claims that nothing was flagged nor reveals the hidden result."""
+    where = f" in phase {phase}" if phase else ""
+    if visible:
+        line = f"Worth a look{where}: " + "; ".join(flag_words(f) for f in visible) + "."
+    else:
+        line = f"None of the checks in this report flagged anything{where}."
+    if hidden_checks == 1:
+        line += " One further check is shared with the chair only."
+    elif hidden_checks > 1:
+        line += f" {hidden_checks} further checks are shared with the chair only."
+    return line
+
+
+def predicted_on_scale(predicted: float | None,
+                       scale: tuple[float, float] | None) -> tuple[float | None, bool]:
+    """A policy's prediction as a report shows it: a straight-line rule can go past the
+    ends of the scale, so a prediction beyond an end is shown at that end (and marked)."""
+    if predicted is None or scale is None:
+        return predicted, False
+    low, high = scale
+    if predicted > high:
+        return high, True
+    if predicted < low:
+        return low, True
+    return predicted, False
+
+
+PREDICTION_CLIPPED_NOTE = ("* A straight-line rule can predict beyond the ends of the scale; such a "
+                           "prediction is shown at the end it passed, and the difference is taken from there.")
+
+
+def shares_caption(shares) -> str:
+    """The caption under a weight-share chart, true for the shares it describes: R² shares
+    are never negative and add up to 1; signed shares on the rubric's basis can be
+    negative, and then only their sizes add up to 1."""
+    values = [v for v in shares.values() if v is not None]
+    if any(v < 0 for v in values):
+        return ("A share is a cue's part of the whole policy; the sizes of the shares add up to 1, and a "
+                "negative share means your judgments fall as the cue rises, other cues held fixed. "
+                "A cue with a larger share moves your judgments more.")
+    return ("A share is a cue's part of the whole policy; the shares add up to 1. "
+            "A cue with a larger share moves your judgments more.")
 
 
 def severity_reading(offset: float | None, se: float | None, flags=()) -> str:
     if offset is None:
         return "Not available for this study."
-    if "lenient" in flags:
+    if "lenient" in flags and offset > 0:
         return "Your judgments run higher than the panel's on the same cases."
-    if "severe" in flags or "strict" in flags:
+    if ("severe" in flags or "strict" in flags) and offset < 0:
         return "Your judgments run lower than the panel's on the same cases."
-    if se is not None and se > 0 and abs(offset) < 2 * se:
+    if offset == 0 or (se is not None and se > 0 and abs(offset) < 2 * se):
         return "Your judgments sit about at the panel's level on the same cases."
     side = "higher" if offset > 0 else "lower"
     return f"Your judgments run somewhat {side} than the panel's on the same cases."
@@ -196,9 +275,9 @@ def agreement_reading(r: float | None) -> str:
 
 # The identifiers of calibrate.consistency.consistency_verdict, in plain words.
 CEILING_VERDICTS = {
-    "model_misses_rule": "Your judgments repeat well, yet a straight-line rule of these cues misses part of "
-                         "them: information beyond the listed cues, or cut-offs and combinations of cues, "
-                         "may be shaping them.",
+    "model_misses_rule": "Your repeated judgments agree with each other more closely than a straight-line "
+                         "rule of these cues follows your judgments: information beyond the listed cues, "
+                         "or cut-offs and combinations of cues, may be shaping them.",
     "inconsistent": "Both figures are clearly low: the same case can get a different judgment on another "
                     "reading, and that limits how closely any rule can follow the judgments.",
     "cannot_tell": "With this many repeated cases the two figures cannot be told apart; the uncertainty is "
@@ -215,17 +294,23 @@ class Context:
     source: str
 
 
-# From REFERENCE-DATA.md; the first is marked from memory there and stays so here.
+# Yardsticks printed in the rater's report. Each is a figure read from its source, an
+# identity the test suite checks, or our own rule. The meta-analytic averages we recall
+# for R_s (about .80) and for the model of the judge beating the judge (Karelaia &
+# Hogarth 2008; from memory) are not checked here, so the first row states our own
+# line and the third the identity that explains the finding.
 PUBLISHED_CONTEXT = (
-    Context("consistency R_s of judges", "about .80 on average",
-            "Karelaia & Hogarth (2008), Psychological Bulletin 134:404-426, meta-analysis "
-            "of 249 judgment tasks (figures from memory)"),
+    Context("consistency R_s", ".80 or more: close", "our own rule of thumb"),
     Context("test-retest of judgments in policy capturing", "about .78 on average",
             "Zhu, Tomassetti, Dalal et al. (2022), Organizational Research Methods "
             "25:541-574 (from the abstract)"),
-    Context("the model of the judge against the judge", "the model did better in most studies",
-            "Karelaia & Hogarth (2008) (from memory); Goldberg (1970)"),
+    Context("the model of the judge against the judge", "as good or better when C = 0",
+            "lens model equation (Tucker 1964): with C = 0, r_a = G R_e R_s, never further from "
+            "zero than G R_e, the model's validity"),
 )
+
+CONTEXT_INTRO = ("Yardsticks for reading your figures: a published average, our own rule of thumb, "
+                 "and an identity of the lens model.")
 
 # ------------------------------------------------------------------- cautions
 
@@ -253,11 +338,10 @@ GLOSSARY = {
     "cue": "A piece of information about a case that a judgment can use (for example a grade).",
     "policy": "The weighted rule of the cues that best reproduces a set of judgments "
               "(a linear regression of the judgments on the cues).",
-    "weight share": "A cue's part of the total weight in the policy; the shares add up to 1.",
+    "weight share": "A cue's part of the policy's total weight; the sizes of the shares add up to 1.",
     "R_s (consistency)": "How closely the judgments follow their own policy: the correlation "
                          "between the judgments and the policy's predictions (0 to 1).",
-    "test-retest r": "The correlation between the first and second judgments of cases shown "
-                     "twice.",
+    "test-retest r": "The correlation between the first and second judgments of repeated cases.",
     "sqrt(r_tt)": "The square root of test-retest r: in the population, R_s cannot exceed it; "
                   "in a small sample it is a guide, not a hard limit.",
     "severity offset": "How much higher (positive) or lower (negative) judgments run than the "

@@ -131,3 +131,12 @@ def test_workbook_holds_every_audit_table(demo):
     wb = load_workbook(io.BytesIO(data), read_only=True)
     for name, sheet in sheet_names(result.tables).items():
         assert wb[sheet].max_row == len(result.tables[name]) + 1, name
+
+
+def test_no_report_text_says_from_memory_or_null(built):
+    """Sources the tool doubts never reach a reader, and no phase is called "null"."""
+    out, paths, *_ = built
+    for path in paths:
+        text = " ".join(page_texts(path))
+        assert "from memory" not in text, path.name
+        assert "null" not in text, path.name

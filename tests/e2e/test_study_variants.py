@@ -49,7 +49,7 @@ CUES = 'x1 = "numeric"\nx2 = "numeric"\nx3 = "numeric"'
 def test_minimal_continuous_study_with_reports(tmp_path):
     path = write_study(tmp_path / "s", _panel(), scale="continuous", jmin=0, jmax=100, cues=CUES)
     results = _audit(path, tmp_path / "out")
-    assert results["phases"] == ["null"]
+    assert results["phases"] == ["all"]
     entry = results["raters"][0]
     assert entry["policy"]["r"] > 0.8
     assert entry["lens"] is None and entry["alignment"] is None and entry["drift"] is None

@@ -16,7 +16,7 @@ def _messages(problems, severity=None):
 def test_clean_table_loads(tmp_path):
     table = load_study(write_study(tmp_path, simple_judgments()))
     (phase,) = table.phases
-    assert phase.name is None and phase.label == "null"
+    assert phase.name is None and phase.label == "all"
     assert len(phase.first) == 36 and len(phase.repeats) == 0
     assert table.design.columns == ("x1", "x2")
     assert phase.fit_raters == ("r1", "r2", "r3")

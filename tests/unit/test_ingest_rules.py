@@ -302,11 +302,14 @@ def test_rater_with_fewer_usable_cases_than_terms_plus_two_is_kept_out():
     out = Collector()
     first = pd.DataFrame({"rater": ["r10"] * 5 + ["r2"] * 4, "case": list("abcde") + list("abcd")})
     complete = pd.Series({"a": True, "b": True, "c": True, "d": False, "e": True})
-    fit, too_few = rules.too_few_cases(first, complete, 2, "null", out)
+    fit, too_few = rules.too_few_cases(first, complete, 2, None, out)
     assert fit == ("r10",) and too_few == {"r2": 3}
     assert messages(out, "warning") == [
-        "rater 'r2' has 3 usable case(s) in phase 'null', fewer than the 4 a policy fit needs "
+        "rater 'r2' has 3 usable case(s), fewer than the 4 a policy fit needs "
         "(cue terms + 2); kept out of policy fits"]
+    named = Collector()
+    rules.too_few_cases(first, complete, 2, "before", named)
+    assert "in phase 'before'" in messages(named, "warning")[0]
 
 
 # ----------------------------------------------------------------------------- README points here

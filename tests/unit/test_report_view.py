@@ -111,7 +111,7 @@ def test_null_stays_null_and_a_recorded_reason_is_printed(results):
     assert rv.reason("retest") is None
     text = " ".join(" ".join(page_texts(rater_pdf(changed, entry["rater"]))).split())
     assert "The lens model is not available: the outcome is known for too few of these cases." in text
-    assert "No case was shown to you twice, so test-retest is not available." in text
+    assert "No case was shown to you more than once, so test-retest is not available." in text
     assert "Severity is not available: no other reader shared these cases." in text
     assert "Not available: no other reader shared these cases." in text     # first-page reading
 
