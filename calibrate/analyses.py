@@ -130,7 +130,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
                   n_boot: int = 1000, progress=None) -> PhaseAnalyses:
     """Run every analysis of one phase."""
     spec = table.spec
-    design = table.design
+    design = table.phase_design(ph)  # this phase's cases: fill values and lens environment per phase
     scale = spec.judgment
     kind, lo, hi = scale.kind, scale.min, scale.max
     fit_first = ph.first.loc[ph.first["rater"].isin(ph.fit_raters),
@@ -335,7 +335,7 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
             warnings += _warn_texts(ph.label, name, result)
         _collect_tables(tables, ph, a)
         if a.policies is not None:
-            policies_out["phases"][ph.label] = captured_policies(a.policies, table.design)
+            policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))
     tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables}
     return AuditResult(
         study_name=spec.name,

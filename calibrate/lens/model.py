@@ -66,7 +66,8 @@ PARTIAL_CRITERION_WARNING = (
 
 @dataclass(frozen=True)
 class EnvironmentModel(ResultMixin):
-    """Linear model of the criterion on the cues over every case with a criterion.
+    """Linear model of the criterion on the cues over the judged cases with a criterion
+    (in an audit: the cases of one phase).
 
     ``ecological_validities`` are corr(cue column, criterion); ``weights`` the raw
     regression weights, both keyed by design column.
@@ -345,7 +346,7 @@ def lens_model(
         warnings.append(PARTIAL_CRITERION_WARNING.format(known=int(known_judged.sum()),
                                                           total=judged_rows.size))
 
-    environment, ecological, env_rows = _environment(design, crit_by_row)
+    environment, ecological, env_rows = _environment(design, crit_by_row, judged_rows)
     signs = unit_weight_signs(design, ecological, rubric)
     composite, panel_unit = _unit_weight_composite(design, crit_by_row, env_rows, signs)
 
@@ -371,9 +372,13 @@ def _criterion_by_design_row(design: CueDesign, criterion: pd.Series) -> np.ndar
     return values.reindex(list(design.case_ids)).to_numpy(dtype=float)
 
 
-def _environment(design: CueDesign, crit_by_row: np.ndarray):
+def _environment(design: CueDesign, crit_by_row: np.ndarray, judged_rows: np.ndarray):
+    """Criterion on the cues over the judged cases with a known outcome (only the cases of
+    ``first``: a phase's environment is fitted on that phase's cases)."""
     p = design.n_columns
-    env_rows = np.flatnonzero(np.isfinite(crit_by_row) & design.complete_rows())
+    judged = np.zeros(len(design.case_ids), dtype=bool)
+    judged[judged_rows] = True
+    env_rows = np.flatnonzero(np.isfinite(crit_by_row) & design.complete_rows() & judged)
     Z = np.column_stack([design.matrix[env_rows], crit_by_row[env_rows]])
     stats = grouped_sscp(Z, np.zeros(env_rows.size, dtype=np.intp), 1)
     fit = ols_from_sscp(stats, list(range(p)), p)
