@@ -161,7 +161,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         step("lens model")
         lens = lens_model(design, fit_first, table.criterion,
                           criterion_selected=spec.criterion_only_for_selected,
-                          rubric=spec.rubric)
+                          rubric=spec.rubric, n_boot=n_boot, rng=_rng(seed, phase_index, "lens"))
     if spec.rubric and len(fit_first):
         alignment = rubric_alignment(design, fit_first, spec.rubric, basis=spec.rubric_basis)
     if spec.excluded and len(fit_first):
