@@ -177,6 +177,7 @@ class LensView:
     summary: str            # the sentence results.json carries for that verdict
     intervals: dict = field(default_factory=dict)  # "r_a"/"g"/"c"/"r_e" -> (low, high), None ends when absent
     small_sample_note: str | None = None  # the caution results.json carries when under 10 cases per term
+    cases_per_term: float | None = None
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> LensView:
@@ -185,9 +186,11 @@ class LensView:
         verdict = _get(_block(d, "model_vs_rater", path) or {}, "verdict", f"{path}.model_vs_rater")
         intervals = {k: (_num(d, f"{k}_ci_low", path), _num(d, f"{k}_ci_high", path))
                      for k in ("r_a", "g", "c", "r_e")}
-        note = _get(d, "small_sample_note", path, default=None)
+        small = bool(_get(d, "small_sample", path))
+        note = _get(d, "small_sample_note", path, default=None) if small else None
         return cls(**numbers, verdict=str(verdict), summary=str(_get(d, "summary", path)),
-                   intervals=intervals, small_sample_note=None if note is None else str(note))
+                   intervals=intervals, small_sample_note=None if note is None else str(note),
+                   cases_per_term=_num(d, "cases_per_term", path))
 
 
 @dataclass(frozen=True)
