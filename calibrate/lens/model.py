@@ -73,9 +73,8 @@ LENS_INTERVAL_METHOD = (
 
 def small_sample_sentence(n: int, n_terms: int) -> str:
     """The one wording of the small-sample caution (results.json and the reports)."""
-    return (f"The lens figures rest on {n} cases with a known outcome for {n_terms} model terms "
-            f"({n / n_terms:.1f} per term, under {SMALL_SAMPLE_CASES_PER_TERM}): read them as rough, "
-            "and their intervals as wide.")
+    return (f"Few cases: {n} with a known outcome, {n / n_terms:.1f} per term (under "
+            f"{SMALL_SAMPLE_CASES_PER_TERM}); read these figures as rough.")
 
 
 PARTIAL_CRITERION_WARNING = (
