@@ -134,7 +134,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
                   n_boot: int = 1000, progress=None) -> PhaseAnalyses:
     """Run every analysis of one phase."""
     spec = table.spec
-    design = table.design
+    design = table.phase_design(ph)  # this phase's cases: fill values and lens environment per phase
     scale = spec.judgment
     kind, lo, hi = scale.kind, scale.min, scale.max
     fit_first = ph.first.loc[ph.first["rater"].isin(ph.fit_raters),
@@ -165,7 +165,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         step("lens model")
         lens = lens_model(design, fit_first, table.criterion,
                           criterion_selected=spec.criterion_only_for_selected,
-                          rubric=spec.rubric)
+                          rubric=spec.rubric, n_boot=n_boot, rng=_rng(seed, phase_index, "lens"))
     if spec.rubric and len(fit_first):
         alignment = rubric_alignment(design, fit_first, spec.rubric, basis=spec.rubric_basis)
     if spec.excluded and len(fit_first):
@@ -341,7 +341,7 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
             warnings += _warn_texts(ph.name, name, result)
         _collect_tables(tables, ph, a)
         if a.policies is not None:
-            policies_out["phases"][ph.label] = captured_policies(a.policies, table.design)
+            policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))
     tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables}
     return AuditResult(
         study_name=spec.name,

@@ -5,11 +5,17 @@ rater who judged it. Numeric cues enter as they are; a categorical cue becomes
 dummy columns named ``cue=level`` with the most frequent level as reference; a
 numeric cue with ``missing = "indicator"`` is mean-filled and gets a 0/1 column
 ``cue:missing`` that belongs to the same cue.
+
+The coding (which columns exist, each categorical cue's reference level, whether a
+cue has a ``:missing`` column) is fixed once over every case of the study, on
+purpose, so that every phase is fitted on the same terms and phases can be
+compared. The fill value is an estimate and belongs to a phase:
+:meth:`CueDesign.for_cases` recomputes it on the phase's own cases.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -40,7 +46,9 @@ class CueDesign(ResultMixin):
     kinds : cue -> "numeric" | "categorical".
     reference_levels : categorical cue -> its reference level.
     missing_rules : cue -> "drop" | "indicator" (how a missing value is handled).
-    fill_values : numeric cue with the indicator rule -> the mean that fills a missing value.
+    fill_values : numeric cue with the indicator rule -> the mean that fills a missing value,
+        over the cases of ``case_ids`` (the whole study from :func:`build_cue_design`, one
+        phase's cases from :meth:`for_cases`).
     """
 
     case_ids: tuple[str, ...]
@@ -73,6 +81,29 @@ class CueDesign(ResultMixin):
     def complete_rows(self) -> np.ndarray:
         """Boolean per case: True where every design column is present."""
         return ~np.isnan(self.matrix).any(axis=1)
+
+    def for_cases(self, case_ids) -> CueDesign:
+        """The same coding restricted to ``case_ids`` (kept in design order), mean fills redone.
+
+        A mean-filled cue's fill value becomes the mean of its known values among these
+        cases only (0.0 when none is known, as in :func:`build_cue_design`). The known
+        values are read back from the matrix: a row whose ``cue:missing`` column is 0
+        holds the cue's own value. The columns and reference levels do not change.
+        """
+        wanted = set(map(str, case_ids))
+        keep = np.array([c in wanted for c in self.case_ids], dtype=bool)
+        matrix = self.matrix[keep].copy()
+        fills = dict(self.fill_values)
+        for cue in self.fill_values:
+            cols = self.columns_of(cue)
+            value_col = cols[0]
+            flag = [j for j in cols if self.columns[j].endswith(":missing")]
+            missing = matrix[:, flag[0]] == 1.0 if flag else np.zeros(len(matrix), dtype=bool)
+            known = matrix[~missing, value_col]
+            fills[cue] = float(known.mean()) if known.size else 0.0
+            matrix[missing, value_col] = fills[cue]
+        return replace(self, case_ids=tuple(np.asarray(self.case_ids, dtype=object)[keep]),
+                       matrix=matrix, fill_values=fills)
 
     def to_dict(self) -> dict:
         return {

@@ -93,7 +93,7 @@ class JudgmentTable:
 
     spec: StudySpec
     cases: pd.DataFrame  # index: case id; cue columns, criterion, excluded attributes
-    design: CueDesign
+    design: CueDesign  # coding and fill values over every case of the study
     phases: tuple[PhaseData, ...]
     warnings: tuple[DataProblem, ...] = ()
     inputs: tuple[dict, ...] = ()
@@ -104,6 +104,12 @@ class JudgmentTable:
             if p.name == name:
                 return p
         raise KeyError(name)
+
+    def phase_design(self, ph: PhaseData) -> CueDesign:
+        """The design on the cases judged in phase ``ph`` only: the study's coding, the
+        phase's own fill values (:meth:`CueDesign.for_cases`). Every per-phase analysis
+        fits on this, so a phase gives the same numbers as that phase audited alone."""
+        return self.design.for_cases(ph.first["case"].astype(str).unique())
 
     @property
     def criterion(self) -> pd.Series | None:

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -10,6 +10,7 @@ from scipy.sparse import coo_matrix
 from scipy.sparse.csgraph import connected_components
 
 from ..result_base import ResultMixin, jsonable
+from .cues import CueDesign
 from .ingest import JudgmentTable, PhaseData
 
 
@@ -55,10 +56,20 @@ class PhaseSummary(ResultMixin):
     min_cases_per_term: float
     connectedness: Connectedness
     raters_without_fit: tuple[str, ...]
+    cue_correlations: dict = field(default_factory=dict)  # term -> term -> r, this phase's judged cases
 
 
 @dataclass(frozen=True)
 class DataSummary(ResultMixin):
+    """What the data look like before any model.
+
+    Two figures pool the phases on purpose, as a description of the study's cases (the
+    ``pooled_over_phases`` field names them): ``missing_per_cue`` counts over the cases
+    table, and the top-level ``cue_correlations`` are over the cases judged in any
+    phase. Each phase's own cue correlations, on that phase's judged cases, are in
+    ``phases[].cue_correlations``; the analyses only ever use the phase's own cases.
+    """
+
     n_cues: int
     n_design_terms: int
     design_terms: tuple[str, ...]
@@ -67,6 +78,7 @@ class DataSummary(ResultMixin):
     cue_correlations: dict         # term -> term -> r (over judged cases)
     phases: tuple[PhaseSummary, ...]
     n_warnings: int
+    pooled_over_phases: dict = field(default_factory=dict)  # figure -> what it pools
 
     def to_frame(self) -> pd.DataFrame:
         rows = []
@@ -76,18 +88,31 @@ class DataSummary(ResultMixin):
         return pd.DataFrame(rows)
 
 
+POOLED_NOTES = {
+    "missing_per_cue": "counted over every case in the cases table, all phases together",
+    "cue_correlations": "over the cases judged in any phase (each phase's own are in phases[].cue_correlations)",
+}
+
+
+def cue_correlations(design: CueDesign) -> dict:
+    """term -> term -> r over the design's complete rows (None where undefined, as JSON)."""
+    p = design.n_columns
+    with np.errstate(invalid="ignore", divide="ignore"):
+        m = design.matrix[design.complete_rows()]
+        corr = np.corrcoef(m, rowvar=False).reshape(p, p) if len(m) > 2 else np.full((p, p), np.nan)
+    return {a: {b: jsonable(round(float(corr[i, j]), 6)) for j, b in enumerate(design.columns)}
+            for i, a in enumerate(design.columns)}
+
+
 def summarize(table: JudgmentTable) -> DataSummary:
     design = table.design
     complete = pd.Series(design.complete_rows(), index=list(design.case_ids))
     p = design.n_columns
     phases = []
     for ph in table.phases:
-        phases.append(_phase_summary(ph, complete, p))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        m = design.matrix[design.complete_rows()]
-        corr = np.corrcoef(m, rowvar=False) if len(m) > 2 else np.full((p, p), np.nan)
-    corr_dict = {a: {b: jsonable(round(float(corr[i, j]), 6)) for j, b in enumerate(design.columns)}
-                 for i, a in enumerate(design.columns)}
+        phases.append(_phase_summary(ph, complete, p, cue_correlations(table.phase_design(ph))))
+    judged = set().union(*(set(ph.first["case"].astype(str)) for ph in table.phases)) if table.phases else set()
+    corr_dict = cue_correlations(design.for_cases(judged))
     missing = {c.name: int(table.cases[c.name].isna().sum()) for c in table.spec.cues}
     return DataSummary(
         n_cues=len(design.cues),
@@ -98,10 +123,11 @@ def summarize(table: JudgmentTable) -> DataSummary:
         cue_correlations=corr_dict,
         phases=tuple(phases),
         n_warnings=len(table.warnings),
+        pooled_over_phases=dict(POOLED_NOTES),
     )
 
 
-def _phase_summary(ph: PhaseData, complete: pd.Series, p: int) -> PhaseSummary:
+def _phase_summary(ph: PhaseData, complete: pd.Series, p: int, correlations: dict) -> PhaseSummary:
     first = ph.first
     n_cases = first.groupby("rater").size()
     n_rep = ph.repeats.groupby("rater").size()
@@ -137,7 +163,19 @@ def _phase_summary(ph: PhaseData, complete: pd.Series, p: int) -> PhaseSummary:
         min_cases_per_term=min((r["cases_per_term"] for r in per_rater), default=float("nan")),
         connectedness=rater_case_parts(first),
         raters_without_fit=tuple(ph.too_few),
+        cue_correlations=correlations,
     )
+
+
+def _strong_pairs(correlations: dict) -> str:
+    terms = list(correlations)
+    strong = []
+    for i, a in enumerate(terms):
+        for b in terms[i + 1:]:
+            r = correlations[a][b]
+            if r is not None and abs(r) >= 0.5:
+                strong.append(f"{a}~{b} r={r:.2f}")
+    return ", ".join(strong) or "none"
 
 
 def format_summary(summary: DataSummary) -> str:
@@ -151,7 +189,9 @@ def format_summary(summary: DataSummary) -> str:
     lines.append("Missing cue values: " + (", ".join(f"{k} {v}" for k, v in miss.items()) or "none"))
     terms = list(summary.cue_correlations)
     if 1 < len(terms) <= 15:
-        lines.append("Cue intercorrelations (r over the judged cases):")
+        lines.append("Cue intercorrelations (r over the judged cases"
+                     + (", all phases together; each phase's own are in results.json):"
+                        if len(summary.phases) > 1 else "):"))
         width = max(len(t) for t in terms)
         for i, a in enumerate(terms):
             cells = []
@@ -159,18 +199,15 @@ def format_summary(summary: DataSummary) -> str:
                 r = summary.cue_correlations[a][b]
                 cells.append("   . " if r is None else f"{r:+.2f}")
             lines.append(f"  {a:<{width}} " + " ".join(cells))
-    strong = []
-    for i, a in enumerate(terms):
-        for b in terms[i + 1:]:
-            r = summary.cue_correlations[a][b]
-            if r is not None and abs(r) >= 0.5:
-                strong.append(f"{a}~{b} r={r:.2f}")
-    lines.append("Strongly related cues (|r| >= .50): " + (", ".join(strong) or "none"))
+    lines.append("Strongly related cues (|r| >= .50): " + _strong_pairs(summary.cue_correlations))
     for ph in summary.phases:
         lines.append("")
         lines.append(f"Phase {ph.phase}: {ph.n_raters} raters, {ph.n_cases} cases, "
                      f"{ph.n_judgments} judgments, {ph.n_repeat_pairs} repeat pairs "
                      f"({ph.repeat_share:.0%} of first judgments)")
+        if len(summary.phases) > 1:
+            lines.append("  Strongly related cues in this phase (|r| >= .50): "
+                         + _strong_pairs(ph.cue_correlations))
         conn = ph.connectedness
         if conn.connected:
             lines.append("  Rater-case network: connected (every rater can be compared with every other).")

@@ -49,7 +49,8 @@ from ..data.cues import CueDesign
 from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError
 from ..policy.diagnostics import case_influence
-from ..policy.linalg import grouped_sscp, ols_from_sscp
+from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
+from ..policy.resampling import bca_interval
 from ..result_base import ResultMixin
 
 SELECTION_CAUTION = (
@@ -59,6 +60,23 @@ SELECTION_CAUTION = (
     "usually towards zero because the range of the outcome is cut. Selection on the "
     "judgments alone can also make the model of a rater look better than the rater."
 )
+#: A lens fit with fewer cases per design term than this carries a small-sample caution.
+SMALL_SAMPLE_CASES_PER_TERM = 10
+#: The lens figures that get a bootstrap interval, in results.json key order.
+INTERVAL_FIGURES = ("r_a", "g", "c", "r_e")
+LENS_INTERVAL_METHOD = (
+    "case bootstrap of each rater's cases with a known outcome (both models refitted on every "
+    "resample), bias-corrected and accelerated (BCa, Efron 1987) with a leave-one-out jackknife "
+    "for the acceleration"
+)
+
+
+def small_sample_sentence(n: int, n_terms: int) -> str:
+    """The one wording of the small-sample caution (results.json and the reports)."""
+    return (f"Few cases: {n} with a known outcome, {n / n_terms:.1f} per term (under "
+            f"{SMALL_SAMPLE_CASES_PER_TERM}); read these figures as rough.")
+
+
 PARTIAL_CRITERION_WARNING = (
     "The outcome is known for {known} of {total} judged cases; the lens model uses only those."
 )
@@ -66,7 +84,8 @@ PARTIAL_CRITERION_WARNING = (
 
 @dataclass(frozen=True)
 class EnvironmentModel(ResultMixin):
-    """Linear model of the criterion on the cues over every case with a criterion.
+    """Linear model of the criterion on the cues over the judged cases with a criterion
+    (in an audit: the cases of one phase).
 
     ``ecological_validities`` are corr(cue column, criterion); ``weights`` the raw
     regression weights, both keyed by design column.
@@ -95,6 +114,11 @@ class RaterLens(ResultMixin):
     ``model_validity_cv`` the same with exact leave-one-out predictions (fits that did
     not see the case); ``bootstrap_gain`` = model_validity_cv - r_a;
     ``model_vs_rater`` the tested verdict (:func:`model_versus_rater`).
+    ``*_ci_low``/``*_ci_high`` bound r_a, G, C and R_e (:func:`lens_intervals`; NaN when
+    the fit fails or too few resamples can be refitted). ``small_sample`` is True when the
+    fit has fewer than :data:`SMALL_SAMPLE_CASES_PER_TERM` cases per design term
+    (``cases_per_term`` = n / number of design columns), and ``small_sample_note`` then
+    says so in words.
     """
 
     rater: str
@@ -111,6 +135,20 @@ class RaterLens(ResultMixin):
     lme_error: float
     model_vs_rater: ModelVersusRater
     summary: str
+    r_a_ci_low: float = float("nan")
+    r_a_ci_high: float = float("nan")
+    g_ci_low: float = float("nan")
+    g_ci_high: float = float("nan")
+    c_ci_low: float = float("nan")
+    c_ci_high: float = float("nan")
+    r_e_ci_low: float = float("nan")
+    r_e_ci_high: float = float("nan")
+    interval_level: float = 0.95
+    interval_method: str = LENS_INTERVAL_METHOD
+    n_boot: int = 0
+    cases_per_term: float = float("nan")
+    small_sample: bool = False
+    small_sample_note: str | None = None
     warnings: tuple[str, ...] = ()
 
 
@@ -303,6 +341,9 @@ def lens_model(
     *,
     criterion_selected: bool = False,
     rubric: dict[str, float] | None = None,
+    n_boot: int = 1000,
+    rng: np.random.Generator | None = None,
+    level: float = 0.95,
 ) -> LensResult:
     r"""Lens model of every rater against a criterion, with judgment bootstrapping figures.
 
@@ -314,6 +355,9 @@ def lens_model(
     criterion_selected : the outcome is known only for cases selected on the
         judgments (admitted applicants); a caution is attached to the result.
     rubric : optional cue -> weight; its signs orient the unit-weight composite.
+    n_boot : case-bootstrap resamples for the intervals of r_a, G, C and R_e (0: none).
+    rng : random generator of the bootstrap (default: a fixed seed, so repeated calls agree).
+    level : confidence level of those intervals.
 
     Returns
     -------
@@ -345,12 +389,13 @@ def lens_model(
         warnings.append(PARTIAL_CRITERION_WARNING.format(known=int(known_judged.sum()),
                                                           total=judged_rows.size))
 
-    environment, ecological, env_rows = _environment(design, crit_by_row)
+    environment, ecological, env_rows = _environment(design, crit_by_row, judged_rows)
     signs = unit_weight_signs(design, ecological, rubric)
     composite, panel_unit = _unit_weight_composite(design, crit_by_row, env_rows, signs)
 
     with_crit = rows.subset(np.isfinite(crit_by_row[rows.design_row]))
-    raters = _per_rater(with_crit, crit_by_row, composite, p)
+    raters = _per_rater(with_crit, crit_by_row, composite, p, n_boot=n_boot,
+                        rng=np.random.default_rng(0) if rng is None else rng, level=level)
     return LensResult(
         environment=environment,
         raters=raters,
@@ -371,9 +416,13 @@ def _criterion_by_design_row(design: CueDesign, criterion: pd.Series) -> np.ndar
     return values.reindex(list(design.case_ids)).to_numpy(dtype=float)
 
 
-def _environment(design: CueDesign, crit_by_row: np.ndarray):
+def _environment(design: CueDesign, crit_by_row: np.ndarray, judged_rows: np.ndarray):
+    """Criterion on the cues over the judged cases with a known outcome (only the cases of
+    ``first``: a phase's environment is fitted on that phase's cases)."""
     p = design.n_columns
-    env_rows = np.flatnonzero(np.isfinite(crit_by_row) & design.complete_rows())
+    judged = np.zeros(len(design.case_ids), dtype=bool)
+    judged[judged_rows] = True
+    env_rows = np.flatnonzero(np.isfinite(crit_by_row) & design.complete_rows() & judged)
     Z = np.column_stack([design.matrix[env_rows], crit_by_row[env_rows]])
     stats = grouped_sscp(Z, np.zeros(env_rows.size, dtype=np.intp), 1)
     fit = ols_from_sscp(stats, list(range(p)), p)
@@ -406,13 +455,11 @@ def _unit_weight_composite(design: CueDesign, crit_by_row: np.ndarray,
     return composite, panel
 
 
-def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarray,
-               p: int) -> tuple[RaterLens, ...]:
-    G = rows.n_raters
-    crit = crit_by_row[rows.design_row]
-    Z = np.column_stack([rows.X, rows.y, crit, composite[rows.design_row]])
-    ys, yc, yu = p, p + 1, p + 2
-    stats = grouped_sscp(Z, rows.group, G)
+def _lens_parts(stats, p: int) -> dict[str, np.ndarray]:
+    """r_a, R_s, R_e, G, C (and what the equation needs) per group, from the centred SSCP
+    of ``[cues..., judgment, criterion, ...]``: one batched pair of solves, no refit on rows.
+    Used for the estimates and, unchanged, for every bootstrap and jackknife resample."""
+    ys, yc = p, p + 1
     judge = ols_from_sscp(stats, list(range(p)), ys)
     env = ols_from_sscp(stats, list(range(p)), yc)
     S = stats.sscp
@@ -438,7 +485,26 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
         c_term = np.where(exact_s | exact_e, 0.0,
                           c * np.sqrt(1.0 - r_e**2) * np.sqrt(1.0 - r_s**2))
         lme_error = np.abs(r_a - (g * r_e * r_s + c_term))
-        unit = S[:, yu, yc] / np.sqrt(S[:, yu, yu] * Scc)
+    ok = judge.rank_ok & env.rank_ok & (Syy > 0) & (Scc > 0)
+    return {"r_a": r_a, "r_s": r_s, "r_e": r_e, "g": g, "c": c, "validity": validity,
+            "lme_error": lme_error, "exact_s": exact_s, "ok": ok}
+
+
+def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarray,
+               p: int, *, n_boot: int, rng: np.random.Generator,
+               level: float) -> tuple[RaterLens, ...]:
+    G = rows.n_raters
+    crit = crit_by_row[rows.design_row]
+    Z = np.column_stack([rows.X, rows.y, crit, composite[rows.design_row]])
+    yc, yu = p + 1, p + 2
+    stats = grouped_sscp(Z, rows.group, G)
+    parts = _lens_parts(stats, p)
+    r_a, r_s, r_e, g, c = (parts[k] for k in ("r_a", "r_s", "r_e", "g", "c"))
+    validity, lme_error, exact_s = parts["validity"], parts["lme_error"], parts["exact_s"]
+    S = stats.sscp
+    with np.errstate(invalid="ignore", divide="ignore"):
+        unit = S[:, yu, yc] / np.sqrt(S[:, yu, yu] * S[:, yc, yc])
+    intervals = lens_intervals(Z[:, :p + 2], rows.group, G, p, n_boot=n_boot, rng=rng, level=level)
     loo = leave_one_out_predictions(rows.X, rows.y, rows.group, G)
     usable = np.isfinite(loo)
     pair = grouped_sscp(np.column_stack([loo[usable], crit[usable], rows.y[usable]]),
@@ -455,7 +521,7 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
     n = rows.counts()
     for i, name in enumerate(rows.raters):
         notes = []
-        ok = bool(judge.rank_ok[i] and env.rank_ok[i] and Syy[i] > 0 and Scc[i] > 0)
+        ok = bool(parts["ok"][i])
         if not ok:
             notes.append(
                 f"Rater '{name}' has {int(n[i])} cases with a known outcome, constant judgments "
@@ -471,6 +537,12 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
                 notes.append(f"Rater '{name}': a case's cue values are unique to it, so the "
                              "leave-one-out validity cannot be computed.")
         verdict = model_versus_rater(float(vals["r_a"]), float(vals["cv"]), float(vals["mj"]), int(n[i]))
+        bounds = {f"{k}_ci_{end}": float(intervals[k][j][i]) if ok else float("nan")
+                  for k in INTERVAL_FIGURES for j, end in enumerate(("low", "high"))}
+        per_term = float(n[i]) / p if p else float("nan")
+        small = bool(per_term < SMALL_SAMPLE_CASES_PER_TERM)
+        if small:
+            notes.append(small_sample_sentence(int(n[i]), p))
         results.append(RaterLens(
             rater=name,
             n=int(n[i]),
@@ -486,6 +558,106 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
             lme_error=float(vals["lme"]),
             model_vs_rater=verdict,
             summary=_bootstrap_sentence(verdict, float(vals["r_a"]), float(vals["cv"])),
+            **bounds,
+            interval_level=float(level),
+            n_boot=int(n_boot),
+            cases_per_term=per_term,
+            small_sample=small,
+            small_sample_note=small_sample_sentence(int(n[i]), p) if small else None,
             warnings=tuple(notes),
         ))
     return tuple(results)
+
+
+#: Floats of one chunk of bootstrap counts (raters x resamples x cases), to bound memory.
+_CHUNK_FLOATS = 4_000_000
+
+
+def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n_boot: int,
+                   rng: np.random.Generator, level: float = 0.95) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """BCa case-bootstrap intervals of r_a, G, C and R_e for every rater at once.
+
+    ``Z`` holds ``[cues..., judgment, criterion]`` per row, ``group`` the rater of each
+    row. A resample is a vector of counts over a rater's own cases (drawn with
+    replacement); the sums of every (rater, resample) come from one batched matrix
+    product of the counts with a table of per-case terms, and the two models of every
+    (rater, resample) from one batched solve (:func:`_lens_parts`). The jackknife for the
+    BCa acceleration is the same product with count vectors of ones and one zero.
+
+    BCa rather than percentile because G and R_e are bounded by 1 and their sampling
+    distributions are skewed near it; the bias correction and acceleration adjust for
+    that (Efron 1987). Resamples whose refit is degenerate (a cue constant within the
+    resample) are left out; fewer than 10 usable resamples give NaN.
+    Returns figure -> (low, high), each (n_groups,).
+    """
+    nan = np.full(n_groups, np.nan)
+    if n_boot <= 0 or len(Z) == 0:
+        return {k: (nan, nan) for k in INTERVAL_FIGURES}
+    sizes = np.bincount(group, minlength=n_groups)
+    terms, means = _case_terms(Z, group, n_groups, sizes)
+    n_max = terms.shape[1]
+    live = np.arange(n_max)[None, :] < sizes[:, None]
+    estimate = _lens_parts(_sscp_from_counts(live[:, None, :].astype(float), terms, means), p)
+    boot = {k: np.empty((n_boot, n_groups)) for k in INTERVAL_FIGURES}
+    per_chunk = max(1, _CHUNK_FLOATS // max(n_groups * n_max, 1))
+    for b0 in range(0, n_boot, per_chunk):
+        nb = min(per_chunk, n_boot - b0)
+        pick = np.floor(rng.random((n_groups, nb, n_max)) * sizes[:, None, None]).astype(np.intp)
+        where = np.broadcast_to(live[:, None, :], pick.shape)
+        flat = (np.arange(n_groups)[:, None, None] * nb + np.arange(nb)[None, :, None]) * n_max + pick
+        counts = np.bincount(flat[where], minlength=n_groups * nb * n_max).reshape(n_groups, nb, n_max)
+        parts = _lens_parts(_sscp_from_counts(counts.astype(float), terms, means), p)
+        for k in INTERVAL_FIGURES:
+            boot[k][b0:b0 + nb] = parts[k].reshape(n_groups, nb).T
+    # Jackknife: count vectors of ones with the left-out case at zero, padding at zero.
+    jack_counts = np.broadcast_to(live[:, None, :], (n_groups, n_max, n_max)) & ~np.eye(n_max, dtype=bool)
+    jack_parts = _lens_parts(_sscp_from_counts(jack_counts.astype(float), terms, means), p)
+    out = {}
+    for k in INTERVAL_FIGURES:
+        est = np.where(estimate["ok"], estimate[k], np.nan)
+        jack = np.where(live, jack_parts[k].reshape(n_groups, n_max), np.nan).T
+        # A rater with no finite leave-one-out value gets no acceleration (and, having no
+        # estimate either in practice, no interval).
+        jack = np.where(np.isfinite(jack).any(axis=0), jack, 0.0)
+        out[k] = bca_interval(est, boot[k], jack, alpha=1.0 - level)
+    return out
+
+
+def _case_terms(Z: np.ndarray, group: np.ndarray, n_groups: int, sizes: np.ndarray):
+    """Per rater, padded to the largest rater: the terms ``[1, z, z_i z_j (i <= j)]`` of each
+    case with ``z`` centred at the rater's mean (so the sums lose no digits), and those means."""
+    k = Z.shape[1]
+    order = np.argsort(group, kind="stable")
+    slot_group = group[order]
+    position = np.arange(len(order)) - np.concatenate([[0], np.cumsum(sizes)[:-1]])[slot_group]
+    n_max = int(sizes.max())
+    with np.errstate(invalid="ignore", divide="ignore"):
+        means = np.stack([np.bincount(group, weights=Z[:, j], minlength=n_groups) for j in range(k)],
+                         axis=1) / sizes[:, None]
+    centred = Z[order] - means[slot_group]
+    iu, ju = np.triu_indices(k)
+    per_case = np.column_stack([np.ones(len(order)), centred, centred[:, iu] * centred[:, ju]])
+    terms = np.zeros((n_groups, n_max, per_case.shape[1]))
+    terms[slot_group, position] = per_case
+    return terms, means
+
+
+def _sscp_from_counts(counts: np.ndarray, terms: np.ndarray, means: np.ndarray) -> GroupedSSCP:
+    """Weighted SSCP of every (rater, count vector): counts (G, N, n_max) -> N*G groups in
+    rater-major order (group g * N + j)."""
+    G, N, _ = counts.shape
+    k = means.shape[1]
+    sums = np.matmul(counts, terms).reshape(G * N, -1)
+    n = sums[:, 0]
+    first = sums[:, 1:1 + k]
+    iu, ju = np.triu_indices(k)
+    raw = np.empty((G * N, k, k))
+    raw[:, iu, ju] = sums[:, 1 + k:]
+    raw[:, ju, iu] = sums[:, 1 + k:]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = first / n[:, None]
+        sscp = raw - n[:, None, None] * shift[:, :, None] * shift[:, None, :]
+    # A column constant in a resample can come out a rounding error below zero.
+    diag = np.arange(k)
+    sscp[:, diag, diag] = np.maximum(sscp[:, diag, diag], 0.0)
+    return GroupedSSCP(n=n, mean=np.repeat(means, N, axis=0) + shift, sscp=sscp)

@@ -53,8 +53,9 @@ TABLE_DESCRIPTIONS = {
              "needs another read.",
     "readers_per_file": "D-study: reliability (relative and absolute) for 1 to 10 readers per file.",
     "agreement": "The six ICC forms with intervals and the method used.",
-    "lens": "One row per rater and phase: lens model (r_a, G, C, R_e, R_s) and judgment "
-            "bootstrapping figures.",
+    "lens": "One row per rater and phase: lens model (r_a, G, C, R_e, R_s) with BCa case-bootstrap "
+            "intervals for r_a, G, C and R_e (*_ci_low, *_ci_high), cases per term and the "
+            "small-sample caution, and judgment bootstrapping figures.",
     "alignment": "One row per rater and phase: alignment with the rubric.",
     "excluded": "One row per rater, phase and excluded attribute: incremental R^2, test, p-values.",
     "cutoffs": "One row per rater and phase: the best threshold rule on one cue and its test.",

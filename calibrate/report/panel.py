@@ -46,6 +46,7 @@ METHODS = (
      "Budescu (1993); Azen & Budescu (2003); Johnson (2000)"),
     ("Interval for R_s", "bias-corrected and accelerated bootstrap", "Efron (1987)"),
     ("Lens model", "Lens Model Equation r_a = G R_e R_s + C sqrt(1-R_e²) sqrt(1-R_s²)", "Tucker (1964)"),
+    ("Intervals for r_a, G, C, R_e", "case bootstrap, bias-corrected and accelerated", "Efron (1987)"),
     ("Judgment bootstrapping", "model of the judge against the judge; unit weights",
      "Goldberg (1970); Dawes (1979)"),
     ("Agreement", "the six ICC forms; incomplete designs from variance components",
@@ -175,6 +176,10 @@ class PanelReport:
         story.append(table)
         story.append(text("Offset: positive means judgments run higher than the panel's on the same cases. "
                           "Misalloc.: misallocation against the rubric (0 = the rubric's weights).", SMALL))
+        few = [f"{e.rater} ({e.phase})" if e.phase else e.rater for e in self.view.raters
+               if e.lens is not None and e.lens.small_sample_note]
+        if few:
+            story.append(text(wording.LENS_SMALL_SAMPLE_PANEL.format(raters=", ".join(few)), SMALL))
         return story
 
     # ------------------------------------------------------------------ per phase

@@ -421,16 +421,22 @@ class RaterReport:
                                  "No outcome (criterion) is recorded for this study, so this section is not "
                                  "available.", BODY)]
         r_a, g, c, r_e, r_s = lens.r_a, lens.g, lens.c, lens.r_e, lens.r_s
-        rows = [[text(h, CELL_BOLD) for h in ("Figure", "Value", "Meaning")],
-                [text("r_a", CELL), text(fmt(r_a), CELL), text("how well your judgments tracked the outcome", CELL)],
-                [text("G", CELL), text(fmt(g), CELL), text("how far your policy matches the cues' best rule", CELL)],
-                [text("C", CELL), text(fmt(c), CELL), text("what your judgments caught beyond the cues", CELL)],
-                [text("R_e", CELL), text(fmt(r_e), CELL), text("how predictable the outcome is from the cues", CELL)],
+
+        def value(key, figure):
+            low, high = lens.intervals.get(key, (None, None))
+            return fmt(figure) if low is None or high is None else f"{fmt(figure)} ({fmt(low)} to {fmt(high)})"
+
+        rows = [[text(h, CELL_BOLD) for h in ("Figure", "Value (95% interval)", "Meaning")],
+                [text("r_a", CELL), text(value("r_a", r_a), CELL), text("how well your judgments tracked the outcome", CELL)],
+                [text("G", CELL), text(value("g", g), CELL), text("how far your policy matches the cues' best rule", CELL)],
+                [text("C", CELL), text(value("c", c), CELL), text("what your judgments caught beyond the cues", CELL)],
+                [text("R_e", CELL), text(value("r_e", r_e), CELL), text("how predictable the outcome is from the cues", CELL)],
                 [text("R_s", CELL), text(fmt(r_s), CELL), text("your consistency on these cases", CELL)]]
-        table = Table(rows, colWidths=[60, 60, CONTENT_WIDTH - 120], hAlign="LEFT")
+        table = Table(rows, colWidths=[40, 130, CONTENT_WIDTH - 170], hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
-        story.append(text(bootstrap_sentence(lens), BODY))
+        # The small-sample caution rides in the same paragraph to keep the report's length.
+        story.append(text(" ".join(filter(None, (bootstrap_sentence(lens), lens.small_sample_note))), BODY))
         if self.view.criterion_only_for_selected or any(
                 "criterion" in w.message and "missing" in w.message for w in self.view.warnings):
             story.append(text(wording.LENS_SELECTED_CAUTION, NOTE))

@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 from ..errors import CalibrateError
@@ -185,13 +185,22 @@ class LensView:
     model_validity_cv: float | None
     verdict: str            # model_vs_rater.verdict, decided once in the lens model
     summary: str            # the sentence results.json carries for that verdict
+    intervals: dict = field(default_factory=dict)  # "r_a"/"g"/"c"/"r_e" -> (low, high), None ends when absent
+    small_sample_note: str | None = None  # the caution results.json carries when under 10 cases per term
+    cases_per_term: float | None = None
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> LensView:
         numbers = {k: _num(d, k, path) for k in ("r_a", "g", "c", "r_e", "r_s", "model_validity",
                                                  "model_validity_cv")}
         verdict = _get(_block(d, "model_vs_rater", path) or {}, "verdict", f"{path}.model_vs_rater")
-        return cls(**numbers, verdict=str(verdict), summary=str(_get(d, "summary", path)))
+        intervals = {k: (_num(d, f"{k}_ci_low", path), _num(d, f"{k}_ci_high", path))
+                     for k in ("r_a", "g", "c", "r_e")}
+        small = bool(_get(d, "small_sample", path))
+        note = _get(d, "small_sample_note", path, default=None) if small else None
+        return cls(**numbers, verdict=str(verdict), summary=str(_get(d, "summary", path)),
+                   intervals=intervals, small_sample_note=None if note is None else str(note),
+                   cases_per_term=_num(d, "cases_per_term", path))
 
 
 @dataclass(frozen=True)

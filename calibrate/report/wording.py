@@ -395,3 +395,9 @@ def to_text(value) -> str:
     """A value as text for the reports (the embedded font covers Latin, Greek and Cyrillic;
     control characters are dropped)."""
     return "".join(ch for ch in str(value) if ch.isprintable())
+
+
+#: The chair's summary line naming the raters whose lens fit has under 10 cases per model
+#: term (the per-rater ``lens.small_sample`` of results.json decides who is named).
+LENS_SMALL_SAMPLE_PANEL = ("Lens figures of {raters} rest on fewer than 10 cases with a known outcome "
+                           "per model term: read them as rough, and their intervals as wide.")

@@ -244,7 +244,7 @@ def _correlation_by_rater(frame: pd.DataFrame, raters: tuple[str, ...], a: str,
 
 def _phase_figures(table: JudgmentTable, ph: PhaseData, raters: tuple[str, ...], *,
                    rubric_share, n_boot: int, rng: np.random.Generator) -> _PhaseFigures:
-    spec, design = table.spec, table.design
+    spec, design = table.spec, table.phase_design(ph)  # the phase's own fill values, as in the audit
     scale = spec.judgment
     first = _fit_first(table, ph)
     values: dict = {}

@@ -60,7 +60,7 @@ def test_values_equal_the_audit_functions(result, tmp_path):
     files = write_demo(tmp_path / "d")
     table = load_study(files.spec)
     for ph in table.phases:
-        align = rubric_alignment(table.design, _fit_first(table, ph), table.spec.rubric,
+        align = rubric_alignment(table.phase_design(ph), _fit_first(table, ph), table.spec.rubric,
                                  basis=table.spec.rubric_basis)
         for r in result.raters:
             assert r.metrics["misallocation"]["values"][ph.name] == pytest.approx(

@@ -59,7 +59,9 @@ def test_rater_reports_name_their_rater_and_nobody_else(demo, built):
     ids = sorted({e["rater"] for e in result.to_dict()["raters"]})
     for rater, name in rater_file_names(ids).items():
         pages = page_texts(out / "raters" / name)
-        assert 2 <= len(pages) <= 4
+        # Five pages at most: the demo's lens fits have under 10 cases per term, and the
+        # small-sample caution they carry can push the glossary onto a fifth page.
+        assert 2 <= len(pages) <= 5
         text = "\n".join(pages)
         assert id_pattern([rater]).search(text)
         assert not id_pattern([r for r in ids if r != rater]).findall(text), rater

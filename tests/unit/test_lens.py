@@ -92,3 +92,52 @@ def test_user_errors_are_data_errors(panel_and_criterion, change, message):
         criterion = criterion * np.nan
     with pytest.raises(DataError, match=message):
         lens_model(panel.design, first, criterion)
+
+
+def _band_reached(hit: int, n: int, low=0.93, high=0.97) -> bool:
+    # 99.9% Clopper-Pearson interval of the coverage must reach into the target band.
+    from scipy import stats
+    lo = stats.beta.ppf(0.0005, hit, n - hit + 1) if hit else 0.0
+    hi = stats.beta.ppf(0.9995, hit + 1, n - hit) if hit < n else 1.0
+    return hi >= low and lo <= high
+
+
+def test_lens_intervals_cover_small_seeded():
+    # Small seeded version of benchmarks/bench_lens_intervals.py (figures in DEVELOPERS.md).
+    # r_a and C reach the 93-97% band; G and R_e run a few points short (about 90-92% at
+    # 20 cases per term), stated in DEVELOPERS.md, so they are held to a floor here.
+    from tests.lens_panels import coverage
+    result = coverage(np.random.default_rng(5), 150, 60, n_boot=300, ordinal=True, centre=4.5)
+    for figure in ("r_a", "c"):
+        assert _band_reached(*result[figure]), (figure, result[figure])
+    for figure in ("g", "r_e"):
+        hit, n = result[figure]
+        assert n >= 145 and hit / n >= 0.84, (figure, result[figure])
+
+
+def test_interval_brackets_the_estimate_and_the_equation_still_holds(panel_and_criterion):
+    panel, criterion = panel_and_criterion
+    result = lens_model(panel.design, panel.first, criterion, n_boot=200, rng=np.random.default_rng(3))
+    for r in result.raters:
+        for k in ("r_a", "g", "c", "r_e"):
+            low, high, value = getattr(r, f"{k}_ci_low"), getattr(r, f"{k}_ci_high"), getattr(r, k)
+            assert low <= value <= high, (k, low, value, high)
+        # Tucker (1964): the point estimates still satisfy the Lens Model Equation exactly.
+        rebuilt = r.g * r.r_e * r.r_s + r.c * np.sqrt(1 - r.r_e**2) * np.sqrt(1 - r.r_s**2)
+        assert rebuilt == pytest.approx(r.r_a, abs=1e-9)
+        assert r.n_boot == 200 and "BCa" in r.interval_method
+    none = lens_model(panel.design, panel.first, criterion, n_boot=0).raters[0]
+    assert np.isnan(none.g_ci_low) and none.n_boot == 0
+
+
+def test_small_sample_caution_under_ten_cases_per_term(panel_and_criterion):
+    panel, criterion = panel_and_criterion
+    # 60 cases on 3 terms: 20 per term, no caution; 25 cases: 8.3 per term, a caution.
+    full = lens_model(panel.design, panel.first, criterion, n_boot=0)
+    assert not any(r.small_sample for r in full.raters)
+    few = panel.first.groupby("rater").head(25)
+    result = lens_model(panel.design, few, criterion, n_boot=0)
+    for r in result.raters:
+        assert r.small_sample and r.cases_per_term == pytest.approx(25 / 3)
+        assert r.small_sample_note and "8.3 per term" in r.small_sample_note
+        assert r.to_dict()["small_sample"] is True

@@ -63,7 +63,12 @@ def fill(result, table) -> ReportInput:
                      "model_vs_rater": {"verdict": "about_same", "gain": .01, "ci_low": -.05, "ci_high": .07,
                                         "p_value": .6, "method": "test"},
                      "summary": "A model of your policy and your own judgments tracked the outcome about "
-                                "equally well on these cases."}
+                                "equally well on these cases.",
+                     "r_a_ci_low": g * re_ * r - .1, "r_a_ci_high": g * re_ * r + .1,
+                     "g_ci_low": g - .1, "g_ci_high": min(g + .1, 1.0), "c_ci_low": c_ - .2,
+                     "c_ci_high": c_ + .2, "r_e_ci_low": re_ - .1, "r_e_ci_high": re_ + .1,
+                     "cases_per_term": 8.0, "small_sample": True,
+                     "small_sample_note": "The lens figures rest on few cases per model term."}
         e["severity"] = {"offset": float(rng.normal(0, .4)), "se": .12,
                          "range_use": {"sd_ratio": float(rng.uniform(.6, 1.4))},
                          "central_tendency": {"middle_share": .3, "panel_middle_share": .28}, "flags": []}
