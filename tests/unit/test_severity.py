@@ -22,12 +22,37 @@ def test_offsets_and_se_equal_statsmodels_sum_coded_fit():
     ref_offsets = expand @ coef
     ref_se = np.sqrt(np.diag(expand @ cov @ expand.T))
     ours = np.array([r.estimate for r in result.raters])
-    ours_se = np.array([r.se for r in result.raters])
+    ours_se = np.array([r.se_pooled for r in result.raters])
     np.testing.assert_allclose(ours, ref_offsets, atol=1e-10)
     np.testing.assert_allclose(ours_se, ref_se, rtol=1e-9)
     assert result.residual_sd == pytest.approx(np.sqrt(fit.scale), rel=1e-10)
     assert abs(ours.mean()) < 1e-12
     assert result.connected and len(result.parts) == 1
+
+
+def _statsmodels_offset_se(frame, cov_type):
+    fit = smf.ols("judgment ~ C(case) + C(rater, Sum)", data=frame).fit(cov_type=cov_type)
+    names = [k for k in fit.params.index if k.startswith("C(rater")]
+    cov = fit.cov_params().loc[names, names].to_numpy()
+    expand = np.vstack([np.eye(len(names)), -np.ones(len(names))])  # last rater = minus the sum
+    return np.sqrt(np.diag(expand @ cov @ expand.T))
+
+
+def test_hc3_se_equal_statsmodels_with_unequal_rater_noise():
+    # reference: statsmodels OLS(...).fit(cov_type="HC3") on the same additive model
+    # (HC3: MacKinnon & White 1985, as statsmodels implements it); raters differ in noise
+    first, _, _ = simulate_panel(n_raters=8, n_cases=60, readers=3, noise_sd=0.3, seed=21)
+    rng = np.random.default_rng(4)
+    noise_sd = dict(zip(sorted(first["rater"].unique()), np.linspace(0.2, 1.2, 8)))
+    first["judgment"] += rng.normal(0, 1, len(first)) * first["rater"].map(noise_sd)
+    # cases read by one rater only: zero residual, leverage 1, no weight (statsmodels gives NaN)
+    lone = pd.DataFrame({"rater": ["r000", "r003"], "case": ["z1", "z2"], "judgment": [0.4, -1.0]})
+    result = severity(pd.concat([first, lone], ignore_index=True), scale="continuous",
+                      scale_min=-5, scale_max=5)
+    ours = np.array([r.se for r in result.raters])
+    np.testing.assert_allclose(ours, _statsmodels_offset_se(first, "HC3"), rtol=1e-10)
+    assert ours[-1] > 1.3 * result.raters[-1].se_pooled   # the noisiest rater's interval widens
+    assert "HC3" in result.method and result.raters[0].to_dict()["se_method"] == "HC3"
 
 
 def test_planted_offsets_are_recovered():
