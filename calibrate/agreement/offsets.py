@@ -382,18 +382,22 @@ def fit_additive_many(layout: CrossedLayout, ys: np.ndarray) -> AdditiveFit:
     )
 
 
-def hc3_offset_variance(layout: CrossedLayout, fit: AdditiveFit) -> np.ndarray:
-    """Heteroscedasticity-robust (HC3) variances of the rater offsets, shape (R,).
+def robust_offset_variance(layout: CrossedLayout, fit: AdditiveFit, form: str = "HC2") -> np.ndarray:
+    """Heteroscedasticity-robust (HC2 or HC3) variances of the rater offsets, shape (R,).
 
-    The offsets are linear in the judgments, :math:`b = A^+ Z^\top y` with ``Z``
-    the rater indicators centred within each case, so their HC3 covariance is
-    :math:`A^+ Z^\top \Omega Z A^+` with :math:`\Omega = diag(e_i^2 / (1 - h_i)^2)`
-    (MacKinnon & White 1985; Long & Ervin 2000 recommend HC3 for small samples).
-    The leverage of the full rater + case model splits into the case part and the
-    rater part, :math:`h_i = 1/n_c + z_i^\top A^+ z_i`. A judgment with
-    :math:`h_i = 1` (its case read by one rater) has a zero residual and a zero
-    row of ``Z``: it carries no weight. Needs ``fit`` from ``with_variance=True``.
+    The offsets are linear in the judgments, :math:`b = A^+ Z^\\top y` with ``Z``
+    the rater indicators centred within each case, so their robust covariance is
+    :math:`A^+ Z^\\top \\Omega Z A^+` with :math:`\\Omega = diag(e_i^2 / (1 - h_i)^p)`,
+    ``p = 1`` for HC2 and ``p = 2`` for HC3 (MacKinnon & White 1985; Long & Ervin
+    2000). The leverage of the full rater + case model splits into the case part and
+    the rater part, :math:`h_i = 1/n_c + z_i^\\top A^+ z_i`; with few readers per case
+    the case part alone is large (1/4 with four readers), and HC3's second power of
+    :math:`1 - h_i` then over-corrects. A judgment with :math:`h_i = 1` (its case read
+    by one rater) has a zero residual and a zero row of ``Z``: it carries no weight.
+    Needs ``fit`` from ``with_variance=True``.
     """
+    if form not in ROBUST_FORMS:
+        raise DataError(f"The robust form must be one of {', '.join(ROBUST_FORMS)}; got {form!r}.")
     pinv = np.nan_to_num(fit.offset_cov_unit)
     R = layout.n_raters
     ri, ci, y = layout.rater_index, layout.case_index, layout.y
@@ -407,7 +411,8 @@ def hc3_offset_variance(layout: CrossedLayout, fit: AdditiveFit) -> np.ndarray:
     mean_offset = np.bincount(ci, weights=offsets[ri], minlength=layout.n_cases) / n_c
     resid = y - case_mean[ci] - (offsets[ri] - mean_offset[ci])
     free = 1.0 - leverage
-    omega = np.where(free > 1e-9, resid**2 / np.where(free > 1e-9, free, 1.0) ** 2, 0.0)
+    power = {"HC2": 1.0, "HC3": 2.0}[form]
+    omega = np.where(free > 1e-9, resid**2 / np.where(free > 1e-9, free, 1.0) ** power, 0.0)
     variance = np.zeros(R)
     step = max(1, 2_000_000 // max(R, 1))                      # rows of Z A^+ held at once
     for start in range(0, y.size, step):
@@ -455,7 +460,7 @@ class RaterSeverity(ResultMixin):
     n: int
     part: int
     estimate: float
-    se: float           # HC3 (heteroscedasticity-robust)
+    se: float           # heteroscedasticity-robust (se_method: HC2 or HC3)
     se_pooled: float    # from the one pooled residual variance, for comparison
     ci_low: float
     ci_high: float
@@ -465,6 +470,7 @@ class RaterSeverity(ResultMixin):
     middle_share: float
     panel_middle_share: float
     flags: tuple[str, ...] = ()
+    se_method: str = "HC2"
 
     def to_dict(self) -> dict:
         from ..result_base import jsonable
@@ -472,7 +478,7 @@ class RaterSeverity(ResultMixin):
         return jsonable({
             "offset": self.estimate,
             "se": self.se,
-            "se_method": "HC3",
+            "se_method": self.se_method,
             "se_pooled": self.se_pooled,
             "ci_low": self.ci_low,
             "ci_high": self.ci_high,
@@ -532,8 +538,9 @@ class SeverityResult(ResultMixin):
 _MIN_CASES_FOR_FLAGS = 10
 SEVERITY_METHOD = (
     "least-squares additive rater + case model, offsets centred within each connected part; "
-    "standard errors heteroscedasticity-robust HC3 (MacKinnon & White 1985), normal intervals"
+    "standard errors heteroscedasticity-robust {form} (MacKinnon & White 1985), normal intervals"
 )
+ROBUST_FORMS = ("HC2", "HC3")
 
 
 def severity(
@@ -544,6 +551,7 @@ def severity(
     scale_max: float | None = None,
     offset_margin: float | None = None,
     confidence: float = 0.95,
+    robust_form: str = "HC2",
 ) -> SeverityResult:
     """Rater offsets, range use and central tendency on an incomplete design.
 
@@ -556,6 +564,7 @@ def severity(
     offset_margin : smallest offset worth a flag, in judgment units. Default
         5% of the scale range (our own rule of thumb, no published source).
     confidence : level of the offset intervals.
+    robust_form : "HC2" (default) or "HC3", the heteroscedasticity-robust SE.
 
     Returns
     -------
@@ -566,14 +575,16 @@ def severity(
     Offsets are the rater effects :math:`b_r` of the additive fixed-effects model
     :math:`y_{rc} = \\mu + a_c + b_r + e_{rc}` (least squares, sum of :math:`b_r`
     zero within each connected part), with
-    with the heteroscedasticity-robust HC3 standard error of
-    :func:`hc3_offset_variance` (MacKinnon & White 1985; Long & Ervin 2000): raters
-    differ in how noisy they are, and one pooled residual variance gave the noisiest
-    rater too short an interval. ``se_pooled`` keeps the classical
-    :math:`\\hat\\sigma \\sqrt{[A^+]_{rr}}` (``A`` the reduced normal-equation matrix
-    after absorbing the case effects, :math:`\\hat\\sigma^2 = SSE / (N - C - R + K)`,
-    ``K`` parts; Searle 1971, Linear Models, ch. 7; from memory) beside it. Intervals
-    are estimate +- z SE.
+    with the heteroscedasticity-robust standard error of :func:`robust_offset_variance`,
+    HC2 by default (MacKinnon & White 1985): raters differ in how noisy they are, and
+    one pooled residual variance gave the noisiest rater too short an interval
+    (85% coverage). HC2 rather than HC3 because HC3 over-covered in every design
+    measured (about 98% for 95% intervals) while HC2 stayed within 93-97%
+    (``benchmarks/bench_severity_coverage.py``; DEVELOPERS.md). ``se_pooled`` keeps the
+    classical :math:`\\hat\\sigma \\sqrt{[A^+]_{rr}}` (``A`` the reduced
+    normal-equation matrix after absorbing the case effects,
+    :math:`\\hat\\sigma^2 = SSE / (N - C - R + K)`, ``K`` parts; Searle 1971, Linear
+    Models, ch. 7; from memory) beside it. Intervals are estimate +- z SE.
 
     Flags (fixed identifiers; only for raters with at least 10 files):
 
@@ -586,6 +597,8 @@ def severity(
     The thresholds are our own rules of thumb (no published source).
     """
     check_scale(scale, scale_min, scale_max)
+    if robust_form not in ROBUST_FORMS:
+        raise DataError(f"The robust form must be one of {', '.join(ROBUST_FORMS)}; got {robust_form!r}.")
     data = check_first(first)
     layout = crossed_layout(data)
     warnings: list[str] = []
@@ -605,7 +618,7 @@ def severity(
     with np.errstate(invalid="ignore", divide="ignore"):
         sigma2 = fit.ss_residual / df if df > 0 else np.nan
         se_pooled = np.sqrt(sigma2 * fit.offset_var_unit)
-        se = np.sqrt(hc3_offset_variance(layout, fit)) if df > 0 else np.full(layout.n_raters, np.nan)
+        se = np.sqrt(robust_offset_variance(layout, fit, robust_form)) if df > 0 else np.full(layout.n_raters, np.nan)
     if not df > 0:
         warnings.append(
             "No residual degrees of freedom in the rater + case model (too few shared files): "
@@ -667,7 +680,7 @@ def severity(
             ci_low=float(lo_ci), ci_high=float(hi_ci),
             own_sd=float(own_sd[r]), panel_sd=float(panel_sd[r]), sd_ratio=float(sd_ratio[r]),
             middle_share=float(middle_share[r]), panel_middle_share=float(panel_middle[r]),
-            flags=tuple(flags),
+            flags=tuple(flags), se_method=robust_form,
         ))
     parts = []
     for k in range(fit.n_parts):
@@ -686,7 +699,7 @@ def severity(
         df_residual=float(df),
         n_judgments=int(fit.n),
         offset_margin=float(offset_margin),
-        method=SEVERITY_METHOD,
+        method=SEVERITY_METHOD.format(form=robust_form),
         warnings=tuple(warnings),
     )
 
