@@ -20,7 +20,6 @@ import numpy as np
 import pandas as pd
 from scipy import sparse
 from scipy.stats import f as f_dist
-from scipy.stats import norm
 
 from ..errors import DataError
 from ..result_base import ResultMixin, jsonable
@@ -552,8 +551,7 @@ class AgreementResult(ResultMixin):
 
 
 ALPHA_PARAMETRIC_CI = ("parametric bootstrap of the crossed random-effects model (new cases, "
-                       "raters and residuals on the same design{rounding}), bias-corrected "
-                       "percentile interval")
+                       "raters and residuals on the same design{rounding}), percentile interval")
 
 
 def _alpha_with_parametric_interval(alpha: AlphaEstimate, layout: CrossedLayout, scale: str,
@@ -577,25 +575,11 @@ def _alpha_with_parametric_interval(alpha: AlphaEstimate, layout: CrossedLayout,
         step = float(np.min(np.diff(categories)))
         comps = replace(comps, residual=max(float(comps.residual) - step**2 / 12.0, 0.0))
     draws = alpha_parametric_draws(layout, comps, alpha.level, categories, n_boot, gen)
-    low, high = _bias_corrected_interval(draws, alpha.estimate, confidence)
+    low, high = (float(v[0]) for v in _percentile_interval(draws[:, None], confidence))
     rounding = "" if categories is None else (", moved to the nearest scale value, rounding "
                                               "variance taken out of the residual first")
     return replace(alpha, ci_low=low, ci_high=high, n_boot=int(n_boot),
                    method=f"{ALPHA_PARAMETRIC_CI.format(rounding=rounding)} ({n_boot} simulated panels)")
-
-
-def _bias_corrected_interval(draws: np.ndarray, estimate: float, confidence: float) -> tuple[float, float]:
-    """Bias-corrected percentile interval (Efron & Tibshirani 1993, sec. 14.3, with no
-    acceleration): the percentiles move by :math:`z_0 = \\Phi^{-1}(\\#\\{\\theta^* < \\hat\\theta\\}/B)`,
-    so a simulation whose centre sits off the estimate (as rounding makes it) is re-centred."""
-    finite = draws[np.isfinite(draws)]
-    if finite.size == 0:
-        return np.nan, np.nan
-    below = (np.sum(finite < estimate) + 0.5 * np.sum(finite == estimate)) / finite.size
-    z0 = norm.ppf(np.clip(below, 0.5 / finite.size, 1.0 - 0.5 / finite.size))
-    z = norm.ppf(0.5 + confidence / 2.0)
-    low, high = np.quantile(finite, norm.cdf([2.0 * z0 - z, 2.0 * z0 + z]))
-    return float(low), float(high)
 
 
 def panel_agreement(
@@ -635,8 +619,8 @@ def panel_agreement(
     cases. Alpha's interval always comes from that parametric bootstrap, with the
     simulated judgments moved to the nearest scale category on ordinal and binary
     scales after the rounding variance is taken out of the residual component, and a
-    bias-corrected percentile interval (a normal model of a 0/1 scale is rough; its
-    coverage was not measured).
+    percentile interval (a normal model of a 0/1 scale is rough; its coverage was not
+    measured).
     """
     check_scale(scale, scale_min, scale_max)
     if method not in ("auto", "anova", "components"):
