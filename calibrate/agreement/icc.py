@@ -217,7 +217,7 @@ def parametric_panels(layout: CrossedLayout, comps: ComponentEstimates, n_draws:
     component counts as zero): :math:`y^*_{rc} = \\mu + a^*_c + b^*_r + e^*_{rc}`
     (Searle, Casella & McCulloch 1992, Variance Components, ch. 1 and 5, for the
     model; Efron & Tibshirani 1993, An Introduction to the Bootstrap, sec. 6.5, for
-    the parametric bootstrap). Drawing new raters is what carries rater sampling
+    the parametric bootstrap; chapters from memory). Drawing new raters is what carries rater sampling
     into the interval: resampling cases keeps the same few raters, and resampling
     raters puts one rater in a panel twice. Yields ``(rows, ys)`` with ``ys`` of shape
     (N, b) for draws ``rows``, at most ``max_values`` simulated judgments at a time.

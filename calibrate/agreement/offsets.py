@@ -389,7 +389,7 @@ def robust_offset_variance(layout: CrossedLayout, fit: AdditiveFit, form: str = 
     the rater indicators centred within each case, so their robust covariance is
     :math:`A^+ Z^\\top \\Omega Z A^+` with :math:`\\Omega = diag(e_i^2 / (1 - h_i)^p)`,
     ``p = 1`` for HC2 and ``p = 2`` for HC3 (MacKinnon & White 1985; Long & Ervin
-    2000). The leverage of the full rater + case model splits into the case part and
+    2000; both as statsmodels implements them, which the tests compare against). The leverage of the full rater + case model splits into the case part and
     the rater part, :math:`h_i = 1/n_c + z_i^\\top A^+ z_i`; with few readers per case
     the case part alone is large (1/4 with four readers), and HC3's second power of
     :math:`1 - h_i` then over-corrects. A judgment with :math:`h_i = 1` (its case read
