@@ -6,22 +6,32 @@ consistency (C,· = Shrout & Fleiss 3,·); ``1`` is one rater, ``k`` the mean of
 raters a file had. On a complete design they come from the two-way ANOVA mean
 squares with the F-based intervals of McGraw & Wong (1996, Table 7). On an
 incomplete design they come from variance components (Henderson's method III,
-see :mod:`calibrate.agreement.readers`), with intervals from a bootstrap over
-cases; the two routes give the same estimates on complete data.
-"""
+see :mod:`calibrate.agreement.readers`), with intervals from a parametric
+bootstrap of the crossed random-effects model on the same design (new cases, new
+raters, new residuals; :func:`parametric_panels`), which carries the sampling of
+raters as well as of cases; the two routes give the same estimates on complete
+data. Alpha's interval comes from the same parametric bootstrap."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
+from scipy import sparse
 from scipy.stats import f as f_dist
 
 from ..errors import DataError
 from ..result_base import ResultMixin, jsonable
 from .readers import ComponentEstimates, henderson_components
-from .offsets import check_first, check_scale, crossed_layout, fit_additive
+from .offsets import (
+    CrossedLayout,
+    check_first,
+    check_scale,
+    crossed_layout,
+    fit_additive,
+    fit_additive_many,
+)
 
 ICC_FORMS = (
     ("i1", "ICC(1,1)"), ("a1", "ICC(A,1)"), ("c1", "ICC(C,1)"),
@@ -49,6 +59,13 @@ class IccEstimate(ResultMixin):
     estimate: float
     ci_low: float
     ci_high: float
+    method: str = ""  # how the interval was made (F_CI or PARAMETRIC_CI)
+
+
+CASE_BOOTSTRAP_CI = "percentile bootstrap over cases (the same raters kept)"
+F_CI = "F distribution (McGraw & Wong 1996, Table 7; Satterthwaite df for the A forms)"
+PARAMETRIC_CI = ("parametric bootstrap of the crossed random-effects model (new cases, raters "
+                 "and residuals on the same design), percentile interval")
 
 
 def icc_anova(ratings: np.ndarray, *, confidence: float = 0.95) -> tuple[IccEstimate, ...]:
@@ -119,7 +136,8 @@ def icc_anova(ratings: np.ndarray, *, confidence: float = 0.95) -> tuple[IccEsti
         )
     return tuple(
         IccEstimate(form=form, label=label, k=float(k if form.endswith("k") else 1),
-                    estimate=float(est[form]), ci_low=float(ci[form][0]), ci_high=float(ci[form][1]))
+                    estimate=float(est[form]), ci_low=float(ci[form][0]), ci_high=float(ci[form][1]),
+                    method=F_CI)
         for form, label in ICC_FORMS
     )
 
@@ -156,30 +174,65 @@ def icc_incomplete(
     confidence: float = 0.95,
     rng: np.random.Generator | int | None = None,
 ) -> tuple[tuple[IccEstimate, ...], float]:
-    """Six ICC forms from Henderson's method III components, percentile bootstrap over cases.
+    """Six ICC forms from Henderson's method III components, parametric-bootstrap intervals.
 
     ``k`` for the average-measure forms is the harmonic mean number of readers
     per case (the number a file's mean rests on). Returns the estimates and ``k``.
+    The intervals are percentile intervals over the panels of :func:`parametric_panels`
+    (the basic interval, which reflects the draws about the estimate, covered ICC(A,1)
+    less often: the rater component of 14 raters is skewed; ``benchmarks/bench_icc_coverage.py``).
     """
     data = check_first(first)
     layout = crossed_layout(data)
     readers = layout.readers_per_case()
     k = float(readers.size / np.sum(1.0 / readers))
-    point = icc_from_components(henderson_components(fit_additive(layout)), k)
-    gen = np.random.default_rng(rng)  # passes a Generator through
-    draws = np.full((n_boot, len(ICC_FORMS)), np.nan)
-    counts = gen.multinomial(layout.n_cases, np.full(layout.n_cases, 1.0 / layout.n_cases), size=n_boot)
-    for b in range(n_boot):
-        fit = fit_additive(layout, case_weights=counts[b].astype(float), iterative=True)
-        comps = henderson_components(fit)
-        values = icc_from_components(comps, k)
-        draws[b] = [values[form] for form, _ in ICC_FORMS]
+    comps = henderson_components(fit_additive(layout))
+    point = icc_from_components(comps, k)
+    draws = icc_parametric_draws(layout, comps, k, n_boot, np.random.default_rng(rng))
     low, high = _percentile_interval(draws, confidence)
     return tuple(
         IccEstimate(form=form, label=label, k=k if form.endswith("k") else 1.0,
-                    estimate=float(point[form]), ci_low=float(low[i]), ci_high=float(high[i]))
+                    estimate=float(point[form]), ci_low=float(low[i]), ci_high=float(high[i]),
+                    method=PARAMETRIC_CI)
         for i, (form, label) in enumerate(ICC_FORMS)
     ), k
+
+
+def icc_parametric_draws(layout: CrossedLayout, comps: ComponentEstimates, k: float, n_boot: int,
+                         gen: np.random.Generator) -> np.ndarray:
+    """(n_boot, 6) ICC forms (ICC_FORMS order) refitted on each panel of :func:`parametric_panels`."""
+    draws = np.full((n_boot, len(ICC_FORMS)), np.nan)
+    for rows, ys in parametric_panels(layout, comps, n_boot, gen):
+        values = icc_from_components(henderson_components(fit_additive_many(layout, ys)), k)
+        draws[rows] = np.column_stack([values[form] for form, _ in ICC_FORMS])
+    return draws
+
+
+def parametric_panels(layout: CrossedLayout, comps: ComponentEstimates, n_draws: int,
+                      gen: np.random.Generator, *, max_values: int = 2_000_000):
+    """Simulated panels on the observed design from the fitted crossed random-effects model.
+
+    Each panel keeps who read what and draws new case effects, new rater effects
+    and new residuals, independent normals with the fitted variances (a negative
+    component counts as zero): :math:`y^*_{rc} = \\mu + a^*_c + b^*_r + e^*_{rc}`
+    (Searle, Casella & McCulloch 1992, Variance Components, ch. 1 and 5, for the
+    model; Efron & Tibshirani 1993, An Introduction to the Bootstrap, sec. 6.5, for
+    the parametric bootstrap; chapters from memory). Drawing new raters is what carries rater sampling
+    into the interval: resampling cases keeps the same few raters, and resampling
+    raters puts one rater in a panel twice. Yields ``(rows, ys)`` with ``ys`` of shape
+    (N, b) for draws ``rows``, at most ``max_values`` simulated judgments at a time.
+    """
+    sd = [np.sqrt(max(float(v), 0.0)) if np.isfinite(v) else 0.0
+          for v in (comps.case, comps.rater, comps.residual)]
+    n = layout.y.size
+    mean = float(layout.y.mean())
+    step = max(1, max_values // max(n, 1))
+    for start in range(0, n_draws, step):
+        b = min(step, n_draws - start)
+        case = gen.normal(0.0, sd[0], size=(layout.n_cases, b))
+        rater = gen.normal(0.0, sd[1], size=(layout.n_raters, b))
+        noise = gen.normal(0.0, sd[2], size=(n, b))
+        yield slice(start, start + b), mean + case[layout.case_index] + rater[layout.rater_index] + noise
 
 
 def _percentile_interval(draws: np.ndarray, confidence: float) -> tuple[np.ndarray, np.ndarray]:
@@ -279,12 +332,64 @@ def _alpha_from_weights(units: _Units, level: str, weights: np.ndarray) -> np.nd
         per_unit = (units.counts[:, :, None] * units.counts[:, None, :]
                     - units.counts[:, :, None] * np.eye(V)[None]) / (units.m - 1)[:, None, None]
         coincidence = (weights @ per_unit.reshape(per_unit.shape[0], -1)).reshape(-1, V, V)
+    return _alpha_from_coincidence(coincidence, units.categories, level)
+
+
+def _alpha_from_coincidence(coincidence: np.ndarray, categories: np.ndarray, level: str) -> np.ndarray:
+    """Alpha for each (V, V) coincidence matrix in ``coincidence`` (B, V, V)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
         marg = coincidence.sum(axis=2)
         n = marg.sum(axis=1)
-        delta = _metric(level, units.categories, marg)
+        delta = _metric(level, categories, marg)
         observed = np.einsum("bck,bck->b", coincidence, delta)
         expected = np.einsum("bc,bk,bck->b", marg, marg, delta)
         return 1.0 - (n - 1) * observed / expected
+
+
+def _interval_alpha_from_moments(m: np.ndarray, sum1: np.ndarray, sum2: np.ndarray) -> np.ndarray:
+    """Interval alpha from per-unit counts ``m`` (U,) and sums of values and squares (U, B)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        observed = ((2 * m[:, None] * sum2 - 2 * sum1**2) / (m - 1)[:, None]).sum(axis=0)
+        n = m.sum()
+        expected = 2 * n * sum2.sum(axis=0) - 2 * sum1.sum(axis=0) ** 2
+        return 1.0 - (n - 1) * observed / expected
+
+
+def alpha_parametric_draws(layout: CrossedLayout, comps: ComponentEstimates, level: str,
+                           categories: np.ndarray | None, n_boot: int,
+                           gen: np.random.Generator) -> np.ndarray:
+    """Krippendorff's alpha on each panel of :func:`parametric_panels`, shape (n_boot,).
+
+    With ``categories`` (sorted scale values) every simulated judgment is moved to
+    the nearest category, so an ordinal or binary panel is simulated with the
+    rounding and the scale ends of the real one; without, the values stay continuous.
+    Cases read by one rater are not pairable and are left out, as in the estimate.
+    """
+    readers = layout.readers_per_case()
+    keep = readers[layout.case_index] >= 2
+    _, unit = np.unique(layout.case_index[keep], return_inverse=True)
+    m = np.bincount(unit).astype(float)
+    by_unit = sparse.csr_matrix((np.ones(unit.size), (unit, np.arange(unit.size))),
+                                shape=(m.size, unit.size))
+    draws = np.full(n_boot, np.nan)
+    if m.size == 0:
+        return draws
+    for rows, ys in parametric_panels(layout, comps, n_boot, gen):
+        ys = ys[keep]
+        if categories is None:
+            draws[rows] = _interval_alpha_from_moments(m, by_unit @ ys, by_unit @ ys**2)
+            continue
+        nearest = np.searchsorted((categories[1:] + categories[:-1]) / 2.0, ys)
+        if level == "interval":
+            values = categories[nearest]
+            draws[rows] = _interval_alpha_from_moments(m, by_unit @ values, by_unit @ values**2)
+            continue
+        counts = np.stack([by_unit @ (nearest == v).astype(float) for v in range(categories.size)],
+                          axis=2)                                    # (U, b, V)
+        pairs = np.einsum("ubc,ubk,u->bck", counts, counts, 1.0 / (m - 1))
+        pairs -= np.einsum("ubc,u->bc", counts, 1.0 / (m - 1))[:, :, None] * np.eye(categories.size)
+        draws[rows] = _alpha_from_coincidence(pairs, categories, level)
+    return draws
 
 
 @dataclass(frozen=True)
@@ -298,6 +403,7 @@ class AlphaEstimate(ResultMixin):
     n: int              # pairable values
     n_cases: int        # pairable cases (two or more readers)
     n_boot: int
+    method: str = ""    # how the interval was made
 
 
 def krippendorff_alpha(
@@ -326,7 +432,7 @@ def krippendorff_alpha(
     units = _pairable_units(np.asarray(cases), np.asarray(values, float), with_counts=level != "interval")
     U = units.m.size
     if U == 0:
-        return AlphaEstimate(level, np.nan, np.nan, np.nan, 0, 0, n_boot)
+        return AlphaEstimate(level, np.nan, np.nan, np.nan, 0, 0, n_boot, "none")
     estimate = float(_alpha_from_weights(units, level, np.ones((1, U)))[0])
     low = high = np.nan
     if n_boot > 0:
@@ -335,7 +441,8 @@ def krippendorff_alpha(
         draws = _alpha_from_weights(units, level, w)
         lo, hi = _percentile_interval(draws[:, None], confidence)
         low, high = float(lo[0]), float(hi[0])
-    return AlphaEstimate(level, estimate, low, high, int(units.m.sum()), U, int(n_boot))
+    return AlphaEstimate(level, estimate, low, high, int(units.m.sum()), U, int(n_boot),
+                         CASE_BOOTSTRAP_CI if n_boot > 0 else "none")
 
 
 def pairwise_agreement(cases, values) -> tuple[float, float]:
@@ -435,11 +542,44 @@ class AgreementResult(ResultMixin):
     def to_frame(self) -> pd.DataFrame:
         """One row per coefficient (six ICC forms and alpha)."""
         rows = [{"coefficient": e.label, "form": e.form, "k": e.k, "estimate": e.estimate,
-                 "ci_low": e.ci_low, "ci_high": e.ci_high} for e in self.icc]
+                 "ci_low": e.ci_low, "ci_high": e.ci_high, "method": e.method} for e in self.icc]
         a = self.alpha
         rows.append({"coefficient": f"Krippendorff's alpha ({a.level})", "form": "alpha", "k": np.nan,
-                     "estimate": a.estimate, "ci_low": a.ci_low, "ci_high": a.ci_high})
+                     "estimate": a.estimate, "ci_low": a.ci_low, "ci_high": a.ci_high,
+                     "method": a.method})
         return pd.DataFrame(rows)
+
+
+ALPHA_PARAMETRIC_CI = ("parametric bootstrap of the crossed random-effects model (new cases, "
+                       "raters and residuals on the same design{rounding}), percentile interval")
+
+
+def _alpha_with_parametric_interval(alpha: AlphaEstimate, layout: CrossedLayout, scale: str,
+                                    scale_min: float | None, scale_max: float | None,
+                                    n_boot: int, confidence: float,
+                                    gen: np.random.Generator) -> AlphaEstimate:
+    """``alpha`` with the interval of :func:`alpha_parametric_draws` (none when n_boot is 0)."""
+    if n_boot <= 0 or not np.isfinite(alpha.estimate):
+        return alpha
+    categories = None
+    if scale != "continuous":
+        categories = np.unique(layout.y)
+        whole = np.all(categories == np.round(categories))
+        if scale_min is not None and scale_max is not None and whole:
+            categories = np.arange(np.ceil(scale_min), np.floor(scale_max) + 1.0)
+    comps = henderson_components(fit_additive(layout))
+    if categories is not None and categories.size > 1:
+        # the residual component of rounded judgments holds the rounding error too
+        # (Sheppard's correction, step^2 / 12; Sheppard 1898, from memory): the
+        # simulated latent judgments are rounded again, so take it out once
+        step = float(np.min(np.diff(categories)))
+        comps = replace(comps, residual=max(float(comps.residual) - step**2 / 12.0, 0.0))
+    draws = alpha_parametric_draws(layout, comps, alpha.level, categories, n_boot, gen)
+    low, high = (float(v[0]) for v in _percentile_interval(draws[:, None], confidence))
+    rounding = "" if categories is None else (", moved to the nearest scale value, rounding "
+                                              "variance taken out of the residual first")
+    return replace(alpha, ci_low=low, ci_high=high, n_boot=int(n_boot),
+                   method=f"{ALPHA_PARAMETRIC_CI.format(rounding=rounding)} ({n_boot} simulated panels)")
 
 
 def panel_agreement(
@@ -463,10 +603,24 @@ def panel_agreement(
     scale_min, scale_max : accepted for a uniform call; the coefficients do not need them.
     method : "auto" (ANOVA when every rater judged every case, else components),
         "anova" (complete designs only) or "components".
-    n_boot : bootstrap resamples of cases for alpha's interval and, on an
-        incomplete design, for the ICC intervals.
+    n_boot : simulated panels of the parametric bootstrap behind alpha's interval
+        and, on an incomplete design, the ICC intervals.
     confidence : level of every interval.
     rng : seed or Generator (the same seed gives the same intervals).
+
+    Notes
+    -----
+    Which interval runs when: on a complete design (every rater read every case)
+    the ICC forms get McGraw & Wong's (1996) F-based intervals, which are exact for
+    the one-way and consistency forms under normality and covered 93-97% in
+    ``benchmarks/bench_icc_coverage.py``; on an incomplete design (or with
+    ``method="components"``) they get the parametric bootstrap of
+    :func:`parametric_panels`, whose simulated panels draw new raters as well as new
+    cases. Alpha's interval always comes from that parametric bootstrap, with the
+    simulated judgments moved to the nearest scale category on ordinal and binary
+    scales after the rounding variance is taken out of the residual component, and a
+    percentile interval (a normal model of a 0/1 scale is rough; its coverage was not
+    measured).
     """
     check_scale(scale, scale_min, scale_max)
     if method not in ("auto", "anova", "components"):
@@ -484,25 +638,27 @@ def panel_agreement(
         )
     nan_icc = tuple(IccEstimate(f, lab, np.nan, np.nan, np.nan, np.nan) for f, lab in ICC_FORMS)
     readers = layout.readers_per_case()
+    level = LEVEL_OF_SCALE[scale]
+    alpha = krippendorff_alpha(layout.case_index, layout.y, level=level)
     if R < 2 or not (readers >= 2).any():
         icc, k = nan_icc, np.nan
         ci_method = "none"
         route = "none"
         warnings.append("No case was read by two or more raters: agreement cannot be measured.")
-    elif complete and method != "components":
-        ratings = np.full((C, R), np.nan)
-        ratings[layout.case_index, layout.rater_index] = layout.y
-        icc, k = icc_anova(ratings, confidence=confidence), float(R)
-        route = "two-way ANOVA mean squares (Shrout & Fleiss 1979; McGraw & Wong 1996)"
-        ci_method = "F distribution (McGraw & Wong 1996, Table 7; Satterthwaite df for A forms)"
     else:
-        icc, k = icc_incomplete(data, n_boot=n_boot, confidence=confidence, rng=gen)
-        route = ("variance components of the crossed random-effects model, Henderson's "
-                 "method III; k = harmonic mean readers per case")
-        ci_method = f"percentile bootstrap over cases ({n_boot} resamples)"
-    level = LEVEL_OF_SCALE[scale]
-    alpha = krippendorff_alpha(layout.case_index, layout.y, level=level, n_boot=n_boot,
-                               confidence=confidence, rng=gen)
+        if complete and method != "components":
+            ratings = np.full((C, R), np.nan)
+            ratings[layout.case_index, layout.rater_index] = layout.y
+            icc, k = icc_anova(ratings, confidence=confidence), float(R)
+            route = "two-way ANOVA mean squares (Shrout & Fleiss 1979; McGraw & Wong 1996)"
+            ci_method = F_CI
+        else:
+            icc, k = icc_incomplete(data, n_boot=n_boot, confidence=confidence, rng=gen)
+            route = ("variance components of the crossed random-effects model, Henderson's "
+                     "method III; k = harmonic mean readers per case")
+            ci_method = f"{PARAMETRIC_CI} ({n_boot} simulated panels)"
+        alpha = _alpha_with_parametric_interval(alpha, layout, scale, scale_min, scale_max,
+                                                n_boot, confidence, gen)
     exact = adjacent = dom_value = dom_share = np.nan
     if scale != "continuous":
         exact, adjacent = pairwise_agreement(layout.case_index, layout.y)

@@ -28,7 +28,8 @@ ESTIMATOR = (
 
 @dataclass(frozen=True)
 class ComponentEstimates:
-    """Raw (possibly negative) variance components from one fit."""
+    """Raw (possibly negative) variance components from one fit (floats), or from
+    :func:`~calibrate.agreement.offsets.fit_additive_many` (one array entry per fit)."""
 
     case: float
     rater: float
@@ -55,15 +56,20 @@ def henderson_components(fit: AdditiveFit) -> ComponentEstimates:
     :math:`n_0 = (N - \\sum_c n_c^2 / N) / (C - 1)`.
     """
     N, C, R, K = fit.n, fit.n_cases, float(fit.n_raters), float(fit.n_parts)
+    ss_residual = np.asarray(fit.ss_residual, dtype=float)
+    nan = np.full(ss_residual.shape, np.nan)
     with np.errstate(invalid="ignore", divide="ignore"):
         df_e = N - C - R + K
-        residual = fit.ss_residual / df_e if df_e > 0 else np.nan
-        rater = (fit.ss_rater_given_case - (R - K) * residual) / (N - C) if N > C else np.nan
-        case = (fit.ss_case_given_rater - (C - K) * residual) / (N - R) if N > R else np.nan
-        within = fit.ss_within_cases / (N - C) if N > C else np.nan
-        between = fit.ss_cases / (C - 1.0) if C > 1 else np.nan
+        residual = ss_residual / df_e if df_e > 0 else nan
+        rater = (fit.ss_rater_given_case - (R - K) * residual) / (N - C) if N > C else nan
+        case = (fit.ss_case_given_rater - (C - K) * residual) / (N - R) if N > R else nan
+        within = fit.ss_within_cases / (N - C) if N > C else nan
+        between = fit.ss_cases / (C - 1.0) if C > 1 else nan
         n0 = (N - fit.sum_readers_sq_over_n) / (C - 1.0) if C > 1 else np.nan
         case_oneway = (between - within) / n0
+    if ss_residual.ndim:   # many fits at once (fit_additive_many): arrays
+        return ComponentEstimates(*(np.asarray(v, dtype=float) for v in
+                                    (case, rater, residual, case_oneway, within)))
     return ComponentEstimates(float(case), float(rater), float(residual),
                               float(case_oneway), float(within))
 

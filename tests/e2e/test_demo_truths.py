@@ -71,8 +71,17 @@ def test_the_lens_model_equation_holds_on_the_demo(demo):
 def test_nobody_else_carries_a_flag(demo):
     planted = {INCONSISTENT: {"inconsistent", "low_retest", "wide_range"},
                LEANS_ON_EXCLUDED: {"excluded_attribute"}, DRIFTER: {"drift"}}
+    # a planted leniency beyond the flag margin (5% of the 1-7 range = 0.3 points) may be
+    # found, in its own direction: Willow's -0.4 is, once training has made her less noisy
+    margin = 0.3
     for e in demo["raters"]:
-        assert set(e["flags"]) <= planted.get(e["rater"], set()), (e["rater"], e["phase"], e["flags"])
+        allowed = set(planted.get(e["rater"], set()))
+        leniency = REVIEWERS[e["rater"]][2]
+        if leniency < -margin:
+            allowed.add("severe")
+        if leniency > margin:
+            allowed.add("lenient")
+        assert set(e["flags"]) <= allowed, (e["rater"], e["phase"], e["flags"])
 
 
 def test_training_made_trained_reviewers_more_consistent_and_closer_to_the_rubric(demo):

@@ -4,6 +4,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import statsmodels.formula.api as smf
+from scipy import stats
 from panel_simulation import simulate_panel
 
 from calibrate.agreement.offsets import severity
@@ -22,12 +23,76 @@ def test_offsets_and_se_equal_statsmodels_sum_coded_fit():
     ref_offsets = expand @ coef
     ref_se = np.sqrt(np.diag(expand @ cov @ expand.T))
     ours = np.array([r.estimate for r in result.raters])
-    ours_se = np.array([r.se for r in result.raters])
+    ours_se = np.array([r.se_pooled for r in result.raters])
     np.testing.assert_allclose(ours, ref_offsets, atol=1e-10)
     np.testing.assert_allclose(ours_se, ref_se, rtol=1e-9)
     assert result.residual_sd == pytest.approx(np.sqrt(fit.scale), rel=1e-10)
     assert abs(ours.mean()) < 1e-12
     assert result.connected and len(result.parts) == 1
+
+
+def _statsmodels_offset_se(frame, cov_type):
+    fit = smf.ols("judgment ~ C(case) + C(rater, Sum)", data=frame).fit(cov_type=cov_type)
+    names = [k for k in fit.params.index if k.startswith("C(rater")]
+    cov = fit.cov_params().loc[names, names].to_numpy()
+    expand = np.vstack([np.eye(len(names)), -np.ones(len(names))])  # last rater = minus the sum
+    return np.sqrt(np.diag(expand @ cov @ expand.T))
+
+
+@pytest.mark.parametrize("form", ["HC2", "HC3"])
+def test_robust_se_equal_statsmodels_with_unequal_rater_noise(form):
+    # reference: statsmodels OLS(...).fit(cov_type="HC2"/"HC3") on the same additive model
+    # (MacKinnon & White 1985, as statsmodels implements them); raters differ in noise
+    first, _, _ = simulate_panel(n_raters=8, n_cases=60, readers=3, noise_sd=0.3, seed=21)
+    rng = np.random.default_rng(4)
+    noise_sd = dict(zip(sorted(first["rater"].unique()), np.linspace(0.2, 1.2, 8)))
+    first["judgment"] += rng.normal(0, 1, len(first)) * first["rater"].map(noise_sd)
+    # cases read by one rater only: zero residual, leverage 1, no weight (statsmodels gives NaN)
+    lone = pd.DataFrame({"rater": ["r000", "r003"], "case": ["z1", "z2"], "judgment": [0.4, -1.0]})
+    result = severity(pd.concat([first, lone], ignore_index=True), scale="continuous",
+                      scale_min=-5, scale_max=5, robust_form=form)
+    ours = np.array([r.se for r in result.raters])
+    np.testing.assert_allclose(ours, _statsmodels_offset_se(first, form), rtol=1e-10)
+    assert ours[-1] > 1.15 * result.raters[-1].se_pooled   # the noisiest rater's interval widens
+    assert form in result.method and result.raters[0].to_dict()["se_method"] == form
+    assert result.to_frame()["se_method"].eq(form).all()
+
+
+def test_robust_intervals_cover_with_unequal_rater_noise():
+    # a seeded, smaller version of benchmarks/bench_severity_coverage.py: 14 raters with
+    # residual SDs 0.3 to 1.2, 350 cases x 4 readers, 120 panels. The HC2 interval must
+    # cover 93-97% over all raters (99.9% binomial interval overlapping the band) and the
+    # noisiest rater at least reach 93%; the pooled-variance one misses that rater.
+    rng = np.random.default_rng(77)
+    offsets = rng.normal(0.0, 0.5, 14)
+    offsets -= offsets.mean()
+    noise = np.linspace(0.3, 1.2, 14)
+    n_panels = 120
+    hits = np.zeros(14)
+    pooled_hits = np.zeros(14)
+    for _ in range(n_panels):
+        chosen = np.argsort(rng.random((350, 14)), axis=1)[:, :4]
+        ci, ri = np.repeat(np.arange(350), 4), chosen.ravel()
+        y = rng.normal(0, 1, 350)[ci] + offsets[ri] + rng.normal(0, 1, ci.size) * noise[ri]
+        first = pd.DataFrame({"rater": [f"r{i:02d}" for i in ri], "case": ci.astype(str), "judgment": y})
+        result = severity(first, scale="continuous", scale_min=-5, scale_max=5)
+        est = np.array([r.estimate for r in result.raters])
+        hits += np.abs(est - offsets) <= 1.959964 * np.array([r.se for r in result.raters])
+        pooled_hits += np.abs(est - offsets) <= 1.959964 * np.array([r.se_pooled for r in result.raters])
+
+    def band(h, n):
+        return stats.beta.ppf(0.0005, h, n - h + 1), stats.beta.ppf(0.9995, h + 1, n - h)
+
+    low, high = band(hits.sum(), hits.size * n_panels)
+    assert low <= 0.97 and high >= 0.93
+    assert band(hits[-1], n_panels)[1] >= 0.93
+    assert pooled_hits[-1] < hits[-1]
+
+
+def test_unknown_robust_form_raises():
+    first, _, _ = simulate_panel(n_raters=3, n_cases=10, readers=2, seed=0)
+    with pytest.raises(DataError, match="robust form"):
+        severity(first, scale="continuous", robust_form="HC9")
 
 
 def test_planted_offsets_are_recovered():
