@@ -50,9 +50,9 @@ def curvature_p(kind, X, y, groups, G, rng):
     return p, classical
 
 
-def rate(p):
+def rate(p, judged=True):
     hits, low, high = overlaps_band(p)
-    verdict = "ok" if low <= 0.06 and high >= 0.04 else "OUT"
+    verdict = ("ok" if low <= 0.06 and high >= 0.04 else "OUT") if judged else ""
     return f"{hits / p.size:6.1%} ({low:.1%}-{high:.1%}) {verdict}"
 
 
@@ -72,14 +72,14 @@ def one_setting(label, n_cases, n_raters, plant, seed, block=250):
     curv, classical, cut = map(np.concatenate, (curv, classical, cut))
     extra = f", {np.mean(sevens):.1%} at 7" if kind == "ordinal" else ""
     untested = f", untested {np.mean(np.isnan(curv)):.1%} / {np.mean(np.isnan(cut)):.1%}"
-    print(f"{label:15s} {n_cases:3d} cases {plant:6s}{extra}: curvature {rate(curv)}; "
-          f"F table {np.mean(classical < 0.05):6.1%}; cut-off {rate(cut)}{untested}; "
+    print(f"{label:15s} {n_cases:3d} cases {plant:6s}{extra}: curvature {rate(curv, plant == 'none')}; "
+          f"F table {np.mean(classical < 0.05):6.1%}; cut-off {rate(cut, plant == 'none')}{untested}; "
           f"{time.perf_counter() - t0:.0f}s", flush=True)
 
 
 def main(n_raters: int = 1000, seed: int = 2026, only: str | None = None):
     print(f"{n_raters} raters per setting; p < .05 share (99.9% Clopper-Pearson interval), "
-          "ok = overlaps 4-6%")
+          "ok = overlaps 4-6% (size lines only)")
     for n_cases in (40, 100):
         for number, label in enumerate(SCALES):
             if only and only != label:

@@ -103,13 +103,16 @@ def test_draws_follow_the_scale():
     assert np.isnan(p).all()
 
 
-def test_size_on_binary_decisions():
-    # probit raters (the logistic null is not the generating model), 300 raters x 40 cases
+def test_size_on_binary_decisions_is_at_most_nominal():
+    # Probit raters (the logistic null is not the generating model), 300 raters x 40 cases.
+    # The logistic bootstrap of the least-squares RESET F is conservative on 0/1: the
+    # benchmark measured 1.6% (99.9% interval 0.6-3.4%) at 40 cases and 2.2% (1.0-4.2%)
+    # at 100, so only "not above the band" is asserted here.
     rng = np.random.default_rng(13)
     X, y, groups = scale_raters(rng, "binary", 0.3, 300, 40)
     _, p = dg.scale_reset_p(X, y, groups, 300, kind="binary", n_sim=99, rng=rng)
-    _, low, high = overlaps_band(p)
-    assert low <= 0.06 and high >= 0.04
+    _, low, _ = overlaps_band(p)
+    assert low <= 0.06
 
 
 def test_size_of_the_f_table_on_continuous_judgments():
