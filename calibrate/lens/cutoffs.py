@@ -29,7 +29,7 @@ The null is the rater's straight-line policy seen through the judgment scale
   *latent* policy fitted by maximum likelihood as an interval-censored normal regression
   (ordered probit with thresholds fixed at the half-steps, Aitchison & Silvey 1957;
   censored ends, Tobin 1958), drawn, rounded and clipped exactly as the scale does.
-  Rounding and the ends bend a straight line; an OLS null would call that a cut-off.
+  Rounding and the ends bend a straight line, which a least-squares null can mistake for a cut-off.
 * binary: a logistic policy (``policy/logistic.py``) passed through Bernoulli draws.
 
 The last two are parametric bootstraps (Efron & Tibshirani 1993, ch. 16), approximate
