@@ -172,8 +172,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         step("excluded attributes")
         excluded = excluded_check(design, fit_first, table.cases[list(spec.excluded)], scale=kind)
     step("cut-off rules")
-    cutoffs = (cutoff_check(design, fit_first, rng=_rng(seed, phase_index, "cutoffs"), scale=kind)
-               if len(fit_first) else None)
+    cutoffs = (cutoff_check(design, fit_first, rng=_rng(seed, phase_index, "cutoffs"), scale=kind,
+                            scale_min=lo, scale_max=hi) if len(fit_first) else None)
     drift_result = None
     if spec.role("sequence") is not None and len(fit_first):
         step("drift")

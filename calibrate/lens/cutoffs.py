@@ -18,14 +18,28 @@ design), and for the step terms of one cue, in that cue's order, both ``e'd`` an
 ``d'Md`` are running sums. So every threshold of every simulation is one cumulative
 sum over a (simulations x cases) array; nothing is refitted.
 
-With normal errors the statistic's null distribution does not depend on the
-rater's weights or error variance, so the bootstrap p-value
-``(1 + #{simulated >= observed}) / (1 + n_sim)`` is an exact Monte Carlo test
-(Dwass 1957; Davison & Hinkley 1997, sec. 4.2.5): a linear rater is flagged at
-the nominal rate. Simulation stops early for a rater once enough simulated values
-have reached the observed one (Besag & Clifford 1991), so ordinary raters cost a
-few dozen draws and only raters near or past the cut-off get all ``n_sim``. Binary judgments are simulated as Bernoulli draws from the
-fitted linear probabilities (clipped to [0.01, 0.99]), which is approximate.
+The null is the rater's straight-line policy seen through the judgment scale
+(``policy/linear_nulls.py``, shared with the curvature test):
+
+* continuous: least squares with normal errors. The statistic's null distribution then
+  does not depend on the rater's weights or error variance, so the bootstrap p-value
+  ``(1 + #{simulated >= observed}) / (1 + n_sim)`` is an exact Monte Carlo test
+  (Dwass 1957; Davison & Hinkley 1997, sec. 4.2.5).
+* ordinal in whole steps with ends (``scale_min``/``scale_max``): a straight-line
+  *latent* policy fitted by maximum likelihood as an interval-censored normal regression
+  (ordered probit with thresholds fixed at the half-steps, Aitchison & Silvey 1957;
+  censored ends, Tobin 1958), drawn, rounded and clipped exactly as the scale does.
+  Rounding and the ends bend a straight line, which a least-squares null can mistake for a cut-off.
+* binary: a logistic policy (``policy/logistic.py``) passed through Bernoulli draws.
+
+The last two are parametric bootstraps (Efron & Tibshirani 1993, ch. 16), approximate
+because the null's parameters are estimated; their size is measured in
+``benchmarks/bench_scale_nulls.py``. Simulated sets whose statistic is undefined (every
+judgment equal) are left out of the share. The null is fitted for all raters at once;
+the threshold search then runs per rater, batched over simulations. Simulation stops
+early for a rater once enough simulated values have reached the observed one (Besag &
+Clifford 1991), so ordinary raters cost a few dozen draws and only raters near or past
+the cut-off get all ``n_sim``.
 """
 
 from __future__ import annotations
@@ -38,6 +52,7 @@ import pandas as pd
 from ..data.cues import CueDesign
 from ..data.rows import RaterLookup, line_up
 from ..errors import DataError
+from ..policy.linear_nulls import LinearNull, fit_linear_null, whole_step_bounds
 from ..pvalues import holm_adjust
 from ..result_base import ResultMixin
 
@@ -187,22 +202,25 @@ def sequential_p_value(plan: _StepPlan, observed: float, simulate, n_sim: int,
     Simulated statistics are drawn in chunks. With ``enough_hits = h``, simulation
     stops at the ``l``-th draw when ``h`` draws have reached the observed value and
     the p-value is ``h / l``; otherwise it is ``(1 + g) / (1 + n_sim)`` with ``g`` hits
-    in all ``n_sim`` draws. Both are valid p-values (Besag & Clifford 1991,
+    in all ``n_sim`` draws (draws whose statistic is undefined not counted). Both are
+    valid p-values (Besag & Clifford 1991,
     Biometrika 78:301-304, from memory); a rater whose pattern is ordinary costs a
     few dozen draws instead of ``n_sim``.
     """
-    hits, drawn = 0, 0
+    hits, drawn, usable = 0, 0, 0
     margin = observed - 1e-12 * abs(observed)
     while drawn < n_sim:
         size = min(chunk, n_sim - drawn)
         stat, _ = _best_steps(plan, simulate(size))
+        stat = stat[np.isfinite(stat)]    # an undefined statistic is no draw of the null
         reached = np.flatnonzero(stat >= margin)
         if enough_hits and hits + reached.size >= enough_hits:
             last = reached[enough_hits - hits - 1]
-            return enough_hits / (drawn + last + 1)
+            return enough_hits / (usable + last + 1)
         hits += reached.size
+        usable += stat.size
         drawn += size
-    return (1.0 + hits) / (1.0 + n_sim)
+    return (1.0 + hits) / (1.0 + usable)
 
 
 def step_coefficient(X: np.ndarray, y: np.ndarray, below: np.ndarray) -> float:
@@ -219,6 +237,8 @@ def cutoff_check(
     rng: np.random.Generator | int | None = None,
     n_sim: int = 999,
     scale: str = "continuous",
+    scale_min: float | None = None,
+    scale_max: float | None = None,
     alpha: float = 0.05,
     min_side: int | None = None,
     enough_hits: int | None = 20,
@@ -230,7 +250,11 @@ def cutoff_check(
     design, first : the phase's cue design and first judgments.
     rng : seed or generator of the parametric bootstrap.
     n_sim : simulated judgment sets per rater (999 gives p-values in steps of 0.001).
-    scale : "continuous" / "ordinal" (normal errors) or "binary" (Bernoulli draws).
+    scale : "continuous", "ordinal" or "binary": picks the null (module docstring).
+    scale_min, scale_max : ends of the scale. On an ordinal scale whose judgments all sit
+        on whole steps from ``scale_min`` the null is rounded and clipped to them; without
+        them an ordinal scale is treated as continuous. On a binary scale ``scale_max`` is
+        the "yes" value (default: the larger value seen).
     alpha : level of the per-rater flag ``cutoff_rule`` (on the unadjusted p-value).
     min_side : fewest cases on either side of a threshold; default
         ``max(5, ceil(0.05 n))`` per rater (common practice, so that a step does not
@@ -258,27 +282,44 @@ def cutoff_check(
     warnings: list[str] = []
     if not search:
         warnings.append("No numeric cue to search for a threshold; the cutoff check was not run.")
-    results = []
     per_rater = rows.rows_of_each_rater()
+    sides = {}
+    for g, idx in enumerate(per_rater):
+        n = idx.size
+        side = min_side if min_side is not None else max(5, int(np.ceil(0.05 * n)))
+        if search and n >= design.n_columns + 2 + 2 * side and np.ptp(rows.y[idx]) > 0:
+            sides[g] = side
+    nulls = _fit_nulls(rows.X, rows.y, per_rater, list(sides), scale, scale_min, scale_max)
+    results = []
     for g, name in enumerate(rows.raters):
         idx = per_rater[g]
         X, y = rows.X[idx], rows.y[idx]
         n = y.size
-        side = min_side if min_side is not None else max(5, int(np.ceil(0.05 * n)))
         empty = RaterCutoff(name, n, None, float("nan"), 0, float("nan"), float("nan"),
                             float("nan"), float("nan"), float("nan"), False)
-        if not search or n < design.n_columns + 2 + 2 * side or np.ptp(y) == 0:
+        if g not in sides:
             results.append(replace(empty, warnings=(
                 f"Rater '{name}': {n} cases (or constant judgments) are too few for the cutoff check.",)))
             continue
-        plan = _plan_steps(X, search, side)
+        plan = _plan_steps(X, search, sides[g])
         stat, where = _best_steps(plan, y[None, :], locate=True)
         observed = stat[0]
         if not np.isfinite(observed):
             results.append(replace(empty, warnings=(
                 f"Rater '{name}': no admissible threshold on any numeric cue.",)))
             continue
-        p_value = sequential_p_value(plan, observed, _simulator(X, y, scale, rng), n_sim, enough_hits)
+        null, null_rows = nulls[g]
+        if not null.usable[null_rows].all():
+            results.append(replace(empty, warnings=(
+                f"Rater '{name}': the cues all but fix every decision (the logistic weights run "
+                "off to infinity), so no straight-line policy can be simulated; the cutoff "
+                "check was not run.",)
+                if null.kind == "binary" else (
+                f"Rater '{name}': the straight-line policy could not be fitted; the cutoff "
+                "check was not run.",)))
+            continue
+        p_value = sequential_p_value(plan, observed, lambda size: null.draw(rng, size, null_rows),
+                                     n_sim, enough_hits)
         column = search[where[0, 0]]
         order = np.argsort(X[:, column], kind="stable")
         below_count = int(where[0, 1])
@@ -301,14 +342,33 @@ def cutoff_check(
                         search_names, tuple(warnings))
 
 
-def _simulator(X: np.ndarray, y: np.ndarray, scale: str, rng: np.random.Generator):
-    """A function size -> (size, n) judgment sets drawn from the rater's fitted linear policy."""
-    n = y.size
+def _fit_nulls(X_all: np.ndarray, y_all: np.ndarray, per_rater: list[np.ndarray],
+               raters: list[int], scale: str, scale_min: float | None,
+               scale_max: float | None) -> dict[int, tuple[LinearNull, np.ndarray]]:
+    """Each listed rater's straight-line null under the scale: ``{rater: (null, its rows)}``.
+
+    Raters are fitted together, one batch per set of design columns that vary in their
+    cases (a column constant for a rater has no weight to fit).
+    """
+    if not raters:
+        return {}
+    y_seen = np.concatenate([y_all[per_rater[g]] for g in raters])
     if scale == "binary":
-        linear = np.column_stack([np.ones(n), X])
-        coef, *_ = np.linalg.lstsq(linear, y, rcond=None)
-        prob = np.clip(linear @ coef, 0.01, 0.99)
-        return lambda size: (rng.random((size, n)) < prob).astype(float)
-    # The statistic is invariant to the fitted mean and to the error scale, so standard
-    # normal errors stand for the whole family of normal linear policies.
-    return lambda size: rng.standard_normal((size, n))
+        yes = float(np.max(y_seen)) if scale_max is None else float(scale_max)
+        kind, y_all = "binary", (y_all == yes).astype(float)
+    else:
+        bounds = whole_step_bounds(y_seen, scale, scale_min, scale_max)
+        kind = "continuous" if bounds is None else "rounded"
+    batches: dict[tuple[int, ...], list[int]] = {}
+    for g in raters:
+        batches.setdefault(tuple(np.flatnonzero(np.ptp(X_all[per_rater[g]], axis=0) > 0)), []).append(g)
+    nulls = {}
+    for columns, members in batches.items():
+        idx = np.concatenate([per_rater[g] for g in members])
+        groups = np.repeat(np.arange(len(members)), [per_rater[g].size for g in members])
+        null = fit_linear_null(X_all[np.ix_(idx, columns)], y_all[idx], groups, len(members),
+                               kind=kind, scale_min=scale_min, scale_max=scale_max)
+        starts = np.r_[0, np.cumsum([per_rater[g].size for g in members])]
+        for i, g in enumerate(members):
+            nulls[g] = (null, slice(starts[i], starts[i + 1]))
+    return nulls

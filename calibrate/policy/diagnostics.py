@@ -31,6 +31,7 @@ import numpy as np
 from scipy import stats as sps
 
 from .linalg import BatchedOLS, GroupedSSCP, grouped_sscp, ols_from_sscp
+from .linear_nulls import fit_linear_null
 
 FEW_CASES_PER_WEIGHT = 10.0
 COLLINEAR_VIF = 10.0
@@ -189,85 +190,6 @@ def reset_test(
     return ResetTest(statistic=statistic, df_num=2, df_den=df_den, p_value=p_value)
 
 
-@dataclass(frozen=True)
-class RoundedNormalPolicy:
-    """Per group: a straight-line latent policy seen through rounding and the scale ends.
-
-    The judgment is ``clip(round(b0 + x'b + sigma * z), scale_min, scale_max)`` in steps of
-    ``step``: an interval-censored normal regression (the ordered-probit model with its
-    thresholds fixed at the half-steps of the scale; Aitchison & Silvey 1957 for ordered
-    probit; Tobin 1958 for the censored ends), fitted by maximum likelihood.
-    """
-
-    intercept: np.ndarray   # (G,)
-    coef: np.ndarray        # (G, p)
-    sigma: np.ndarray       # (G,)
-    converged: np.ndarray   # (G,) bool
-
-
-def fit_rounded_normal(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: int, *,
-                       scale_min: float, scale_max: float, step: float = 1.0,
-                       iterations: int = 60) -> RoundedNormalPolicy:
-    """Maximum-likelihood interval-censored normal policy for every group at once.
-
-    Newton steps with the outer product of the row scores as the curvature (Berndt, Hall,
-    Hall & Hausman 1974), halved when they would lower a group's likelihood; started from
-    least squares. Batched: no loop over groups.
-    """
-    m, p = X.shape
-    W = np.column_stack([np.ones(m), X])
-    q = p + 1
-    lower = np.where(y <= scale_min + 1e-9, -np.inf, y - step / 2.0)
-    upper = np.where(y >= scale_max - 1e-9, np.inf, y + step / 2.0)
-    start = ols_from_sscp(grouped_sscp(np.column_stack([X, y]), groups, n_groups), np.arange(p), p)
-    theta = np.column_stack([start.intercept, start.coef,
-                             np.log(np.sqrt(np.maximum(start.rss / start.n, 1e-4)))])
-    theta = np.where(np.isfinite(theta), theta, 0.0)
-
-    def loglik_and_scores(th):
-        mu = np.einsum("mq,mq->m", W, th[groups, :q])
-        sigma = np.exp(th[groups, q])
-        a, b = (lower - mu) / sigma, (upper - mu) / sigma
-        prob = np.maximum(sps.norm.cdf(b) - sps.norm.cdf(a), 1e-300)
-        pdf_a, pdf_b = sps.norm.pdf(a), sps.norm.pdf(b)
-        with np.errstate(invalid="ignore"):  # inf * 0 at the open ends, set to 0 below
-            a_pdf, b_pdf = a * pdf_a, b * pdf_b
-        a_pdf[~np.isfinite(a)] = 0.0
-        b_pdf[~np.isfinite(b)] = 0.0
-        d_mu = (pdf_a - pdf_b) / (sigma * prob)
-        d_log_sigma = (a_pdf - b_pdf) / prob
-        scores = np.column_stack([d_mu[:, None] * W, d_log_sigma])
-        ll = np.bincount(groups, weights=np.log(prob), minlength=n_groups)
-        return ll, scores
-
-    ll, scores = loglik_and_scores(theta)
-    converged = np.zeros(n_groups, dtype=bool)
-    eye = np.eye(q + 1)
-    for _ in range(iterations):
-        grad = np.zeros((n_groups, q + 1))
-        np.add.at(grad, groups, scores)
-        outer = np.zeros((n_groups, q + 1, q + 1))
-        np.add.at(outer, groups, scores[:, :, None] * scores[:, None, :])
-        outer += 1e-9 * eye
-        direction = np.linalg.solve(outer, grad[..., None])[..., 0]
-        converged = np.einsum("gi,gi->g", grad, direction) < 1e-10
-        shrink = np.ones(n_groups)
-        for _halving in range(8):
-            trial = theta + shrink[:, None] * direction
-            trial_ll, trial_scores = loglik_and_scores(trial)
-            better = (trial_ll >= ll - 1e-12) | converged
-            if better.all():
-                break
-            shrink = np.where(better, shrink, shrink / 2.0)
-        accept = trial_ll >= ll - 1e-12
-        theta = np.where(accept[:, None], trial, theta)
-        ll, scores = loglik_and_scores(theta)
-        if converged.all():
-            break
-    return RoundedNormalPolicy(intercept=theta[:, 0], coef=theta[:, 1:q],
-                               sigma=np.exp(theta[:, q]), converged=converged)
-
-
 def reset_statistic(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: int) -> np.ndarray:
     """The RESET F statistic of every group (least-squares fits; NaN where undefined)."""
     p = X.shape[1]
@@ -279,39 +201,40 @@ def reset_statistic(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: 
 
 
 def scale_reset_p(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: int, *,
-                  scale_min: float, scale_max: float, step: float = 1.0, n_sim: int = 199,
+                  kind: str = "rounded", scale_min: float | None = None,
+                  scale_max: float | None = None, step: float = 1.0, n_sim: int = 199,
                   rng: np.random.Generator | int | None = None,
                   max_rows: int = 2_000_000) -> tuple[np.ndarray, np.ndarray]:
-    """RESET p-value whose null respects a rounded, bounded scale; returns ``(F, p)``.
+    """RESET p-value whose null respects the judgment scale; returns ``(F, p)``.
 
     A parametric bootstrap test (Efron & Tibshirani 1993, ch. 16): the null is each
-    rater's straight-line latent policy fitted by :func:`fit_rounded_normal`; ``n_sim``
-    judgment sets are drawn from it, rounded and clipped exactly as the scale does, and
-    the same RESET F is recomputed on each. ``p = (1 + #{F* >= F}) / (n_sim + 1)``.
-    Simulated sets whose statistic is undefined (for example every judgment at one end)
-    are left out of that share.
+    rater's straight-line policy under the scale (:func:`.linear_nulls.fit_linear_null`:
+    ``kind`` "rounded" for whole steps with ends, "binary" for 0/1 decisions, which
+    need ``y`` in 0/1); ``n_sim`` judgment sets are drawn from it exactly as the scale
+    produces judgments, and the same RESET F is recomputed on each.
+    ``p = (1 + #{F* >= F}) / (n_sim + 1)``. Simulated sets whose statistic is undefined
+    (for example every judgment at one end) are left out of that share; a group whose
+    null cannot be drawn (``LinearNull.usable``) gets NaN. Rows sorted by group.
     """
     rng = np.random.default_rng(rng)
     observed = reset_statistic(X, y, groups, n_groups)
-    null = fit_rounded_normal(X, y, groups, n_groups, scale_min=scale_min,
-                              scale_max=scale_max, step=step)
-    mu = null.intercept[groups] + np.einsum("mi,mi->m", X, null.coef[groups])
-    sigma = null.sigma[groups]
+    null = fit_linear_null(X, y, groups, n_groups, kind=kind, scale_min=scale_min,
+                           scale_max=scale_max, step=step)
     exceed = np.zeros(n_groups)
     usable = np.zeros(n_groups)
     m = y.size
     chunk = max(1, min(n_sim, max_rows // max(m, 1)))  # bounds the memory of one batch
     for first in range(0, n_sim, chunk):
         b = min(chunk, n_sim - first)
-        latent = mu[None, :] + sigma[None, :] * rng.standard_normal((b, m))
-        simulated = np.clip(scale_min + step * np.round((latent - scale_min) / step),
-                            scale_min, scale_max)
+        simulated = null.draw(rng, b)
         sim_groups = (np.arange(b)[:, None] * n_groups + groups[None, :]).ravel()
         stat = reset_statistic(np.tile(X, (b, 1)), simulated.ravel(), sim_groups,
                                b * n_groups).reshape(b, n_groups)
         finite = np.isfinite(stat)
         exceed += (finite & (stat >= observed[None, :])).sum(axis=0)
         usable += finite.sum(axis=0)
+    # a group with no null to draw from (0/1 decisions the cues separate) is not tested
+    testable = np.bincount(groups, weights=~null.usable, minlength=n_groups) == 0
     with np.errstate(invalid="ignore", divide="ignore"):
-        p = np.where(np.isfinite(observed), (1.0 + exceed) / (1.0 + usable), np.nan)
+        p = np.where(np.isfinite(observed) & testable, (1.0 + exceed) / (1.0 + usable), np.nan)
     return observed, p

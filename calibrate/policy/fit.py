@@ -64,6 +64,7 @@ from ..result_base import jsonable
 from . import diagnostics as dg
 from .importance import MAX_DOMINANCE_CUES, cue_importance, importance_shares, relative_weights
 from .linalg import grouped_sscp, ols_from_sscp
+from .linear_nulls import whole_step_bounds
 from .logistic import fit_logistic
 from .resampling import bca_interval, case_bootstrap_intervals
 from .results import CaseToReview, LogisticPolicy, PolicySet, PredictionTerms, RaterPolicy
@@ -242,12 +243,12 @@ def fit_policies(
     method = importance_method
     if method == "auto":
         method = "dominance" if k <= MAX_DOMINANCE_CUES else "relative_weights"
-    bounds = _rounded_scale_bounds(rows.y, scale, scale_min, scale_max)
+    curvature_null = _curvature_null(rows.y, scale, scale_min, scale_max)
     patterns = _column_patterns(X_all, rows, G, p)
     seeds = generator.spawn(len(patterns)) if patterns else []
     for (active, members), seed in zip(patterns, seeds):
         _fit_pattern(design, rows, X_all, np.asarray(active), members, arrays,
-                     n_boot=n_boot, rng=seed, alpha=alpha, method=method, bounds=bounds)
+                     n_boot=n_boot, rng=seed, alpha=alpha, method=method, curvature_null=curvature_null)
     if scale == "binary":
         _fit_logistic(rows, X_all, arrays)
     return _assemble(design, rows, arrays, scale=scale, n_boot=n_boot, alpha=alpha,
@@ -291,17 +292,19 @@ def _column_patterns(X_all, rows: _Rows, G: int, p: int) -> list[tuple[tuple[int
 CURVATURE_SIMULATIONS = 199
 
 
-def _rounded_scale_bounds(y, scale, scale_min, scale_max) -> tuple[float, float] | None:
-    """(min, max) of an ordinal scale in whole steps, whose curvature test needs a scale-aware null."""
-    if scale != "ordinal" or scale_min is None or scale_max is None:
-        return None
-    finite = y[np.isfinite(y)]
-    whole = np.allclose(finite - scale_min, np.round(finite - scale_min))
-    return (float(scale_min), float(scale_max)) if whole and scale_max > scale_min else None
+def _curvature_null(y, scale, scale_min, scale_max) -> tuple[str, float | None, float | None] | None:
+    """The scale-aware null of the curvature test: (kind, min, max), or None for the F table.
+
+    On a continuous scale the RESET F table is exact for a linear rater with normal errors.
+    """
+    if scale == "binary":
+        return ("binary", None, None)
+    bounds = whole_step_bounds(y, scale, scale_min, scale_max)
+    return None if bounds is None else ("rounded", *bounds)
 
 
 def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *,
-                 n_boot, rng, alpha, method, bounds=None) -> None:
+                 n_boot, rng, alpha, method, curvature_null=None) -> None:
     p_all = design.n_columns
     for g in members:
         missing_cols = [design.columns[j] for j in range(p_all) if j not in set(active.tolist())]
@@ -404,11 +407,13 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
     reset = dg.reset_test(X, y, influence.fitted, groups, Gb, fit)
     A.reset_f[rows_g] = np.where(ok, reset.statistic, np.nan)
     A.reset_p[rows_g] = np.where(ok, reset.p_value, np.nan)
-    if bounds is not None:
-        # Rounding and the scale ends bend a straight-line policy; the F table would call
-        # that curvature. Calibrate the same F against the rater's rounded linear policy
-        # instead (own stream, so the bootstrap intervals keep their numbers).
-        _, scale_p = dg.scale_reset_p(X, y, groups, Gb, scale_min=bounds[0], scale_max=bounds[1],
+    if curvature_null is not None:
+        # Rounding, the scale ends and 0/1 decisions bend a straight-line policy; the F
+        # table would call that curvature. Calibrate the same F against the rater's
+        # straight-line policy seen through the scale instead (own stream, so the
+        # bootstrap intervals keep their numbers).
+        kind, low, high = curvature_null
+        _, scale_p = dg.scale_reset_p(X, y, groups, Gb, kind=kind, scale_min=low, scale_max=high,
                                       n_sim=CURVATURE_SIMULATIONS, rng=rng.spawn(1)[0])
         A.reset_p[rows_g] = np.where(ok, scale_p, np.nan)
     top = dg.top_rows_per_group(groups, np.abs(influence.studentized), N_LOOK_AGAIN)

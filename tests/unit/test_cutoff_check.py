@@ -10,6 +10,7 @@ import statsmodels.api as sm
 from calibrate.data.cues import CueRule, build_cue_design
 from calibrate.errors import DataError
 from calibrate.lens.cutoffs import CUTOFF_FLAG, cutoff_check, step_search
+from tests.scale_raters import cutoff_p_values, overlaps_band, scale_raters
 from tests.simulated_panels import linear_panel
 
 WEIGHTS = np.array([0.08, 0.4, 0.3])
@@ -91,16 +92,51 @@ def test_planted_threshold_raters_are_found():
     assert others <= 18, others
 
 
-def test_binary_decisions_use_bernoulli_draws_and_find_a_plant():
-    probe = linear_panel(np.random.default_rng(5), n_cases=200, n_raters=1, per_rater=1,
+def _flat_above_plant(probe, cut=68.0):
+    """Rater 0 declines every file below `cut` on grades and, above it, ignores grades."""
+    grades = probe.cases["grades"].to_numpy()
+
+    def extra(r, rows):
+        if r != 0:
+            return 0.0
+        return np.where(grades[rows] < cut, -10.0, -WEIGHTS[0] * (grades[rows] - 70.0))
+    return extra
+
+
+def test_binary_decisions_use_a_logistic_null_and_find_a_plant():
+    # Under the logistic null a decline-below-a-cut rule whose other decisions still rise
+    # with grades looks much like a steep logistic slope (low power, benchmarks); a rule
+    # that ignores grades above the cut is found. Measured p = .015, 2 of 19 others flagged.
+    probe = linear_panel(np.random.default_rng(5), n_cases=300, n_raters=1, per_rater=1,
                          weights=WEIGHTS, noise=0)
-    panel = linear_panel(np.random.default_rng(5), n_cases=200, n_raters=40, per_rater=120,
-                         weights=WEIGHTS, noise=1.0, extra=_threshold_plant(probe, drop=3.0))
-    first = panel.first.assign(judgment=(panel.first.judgment > 7.4).astype(float))
+    panel = linear_panel(np.random.default_rng(5), n_cases=300, n_raters=20, per_rater=120,
+                         weights=WEIGHTS, noise=1.0, extra=_flat_above_plant(probe))
+    first = panel.first.assign(judgment=(panel.first.judgment > 6.8).astype(float))
     result = cutoff_check(panel.design, first, rng=2, n_sim=199, scale="binary")
-    assert result.raters[0].flagged and result.raters[0].cue == "grades"
-    # approximate for binary (Bernoulli draws from the linear probabilities); measured 1 of 39
-    assert np.mean([r.flagged for r in result.raters[1:]]) <= 0.15
+    planted = result.raters[0]
+    assert planted.flagged and planted.cue == "grades" and 66 < planted.threshold < 70
+    assert np.mean([r.flagged for r in result.raters[1:]]) <= 0.2
+
+
+def test_binary_decisions_the_cues_separate_are_not_tested():
+    rng = np.random.default_rng(9)
+    panel = linear_panel(rng, n_cases=100, n_raters=2, per_rater=60, weights=WEIGHTS, noise=1.0)
+    grades = panel.cases["grades"].reindex(panel.first["case"]).to_numpy()
+    first = panel.first.assign(judgment=(grades > 70).astype(float))
+    result = cutoff_check(panel.design, first, rng=1, n_sim=49, scale="binary")
+    for r in result.raters:
+        assert np.isnan(r.p_value) and not r.flagged and "logistic weights" in r.warnings[0]
+
+
+@pytest.mark.parametrize(("kind", "mean"), [("ordinal", 2.5), ("ordinal", 5.5), ("binary", 0.3)])
+def test_size_respects_the_scale(kind, mean):
+    # Small seeded version of benchmarks/bench_scale_nulls.py: 300 linear raters x 40
+    # cases; the 99.9% Clopper-Pearson interval of the p < .05 rate must overlap 4-6%.
+    rng = np.random.default_rng(int(10 * mean))
+    X, y, groups = scale_raters(rng, kind, mean, 300, 40)
+    p = cutoff_p_values(kind, X, y, groups, rng, n_sim=199)
+    _, low, high = overlaps_band(p)
+    assert low <= 0.06 and high >= 0.04
 
 
 def test_same_seed_same_numbers_json_and_flags():
