@@ -558,7 +558,10 @@ def control_chance_flags(policies, cutoffs, drift_result, excluded, retest_set, 
             reasons = tuple(label for label, q in (("leniency", q_len), ("consistency", q_con)) if q < alpha)
             updated.append(replace(r, p_adjusted=q_len, consistency_p_adjusted=q_con,
                                    flagged=bool(reasons), reasons=reasons))
-        drift_result = replace(drift_result, raters=tuple(updated))
+        drift_result = replace(drift_result, raters=tuple(updated),
+                               method=drift_result.method.replace(
+                                   "Holm across raters and both tests",
+                                   "Holm across every tested flag of the phase, both drift tests included"))
     if excluded is not None:
         updated = []
         for r in excluded.raters:

@@ -393,8 +393,8 @@ class PanelReport:
                                text(wording.fmt_p(r[4]), CELL), text(wording.fmt_p(r[5]), CELL), text("yes" if r[6] else "", CELL)])
         table = Table(table_rows, repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
-        story += [text("Each attribute added to each rater's policy; p adjusted across raters and attributes "
-                       "(Holm). An association can run through a cue related to the attribute. Flagged "
+        story += [text("Each attribute added to each rater's policy; p adjusted (Holm) across every "
+                       "tested flag of the phase, all raters and attributes included. An association can run through a cue related to the attribute. Flagged "
                        "results first.", BODY), table]
         proxies = [(p.attribute, p.cue, p.association) for panel in self.view.panels for p in panel.proxies
                    if p.strong]
