@@ -6,7 +6,8 @@ reports or the CLI is imported.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from functools import cached_property
 from pathlib import Path
 
 import numpy as np
@@ -19,7 +20,7 @@ from .agreement.readers import GStudyResult, generalizability
 from .agreement.offsets import SeverityResult, severity
 from .agreement.with_panel import PeerAgreementSet, agreement_with_panel
 from .consistency.reading_order import DriftResult, drift
-from .consistency.repeats import RetestSet, consistency_verdict, retest
+from .consistency.repeats import RetestSet, consistency_verdict, low_retest_reach, retest
 from .data.ingest import JudgmentTable, PhaseData, load_study
 from .data.spec import StudySpec, spec_record
 from .data.summary import DataSummary, summarize
@@ -28,7 +29,8 @@ from .lens.model import LensResult, lens_model
 from .lens.rubric import AlignmentResult, ExcludedResult, excluded_check, rubric_alignment
 from .panel.grouping import GroupingResult, group_raters
 from .panel.pairs import ConflictResult, HomogeneityResult, pairwise_conflict, policy_homogeneity
-from .policy.fit import POLICIES_SCHEMA, PolicySet, captured_policies, fit_policies
+from .policy.fit import CURVATURE_NOTE, POLICIES_SCHEMA, PolicySet, captured_policies, fit_policies
+from .pvalues import holm_adjust
 from .result_base import jsonable
 
 RESULTS_SCHEMA = "calibrate.results/1"
@@ -55,6 +57,7 @@ class PhaseAnalyses:
     homogeneity: HomogeneityResult | None
     grouping: GroupingResult | None
     verdicts: dict = field(default_factory=dict)
+    chance_flags: "ChanceFlags | None" = None
 
 
 @dataclass(frozen=True)
@@ -144,11 +147,17 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     first = ph.first[["rater", "case", "judgment"]]
     step = progress or (lambda name: None)
 
+    # Every tested flag of the phase is decided in one Holm family (control_chance_flags);
+    # the Monte Carlo tests must reach p-values below alpha / m to be able to flag at all.
+    n_tests = planned_tests(fit_first["rater"].nunique(), sequence=spec.role("sequence") is not None,
+                            n_excluded=len(spec.excluded), repeats=len(ph.repeats) > 0)
+    resolution = CHANCE_ALPHA / max(n_tests, 1)
     step("policies")
     ordinal = kind == "ordinal"  # its ends give the curvature test a scale-aware null
     policies = (fit_policies(design, fit_first, scale=kind, scale_min=lo if ordinal else None,
                              scale_max=hi if ordinal else None, n_boot=n_boot,
-                             rng=_rng(seed, phase_index, "policy")) if len(fit_first) else None)
+                             rng=_rng(seed, phase_index, "policy"),
+                             curvature_resolution=resolution) if len(fit_first) else None)
     step("test-retest")
     retest_set = retest(ph.repeats, scale=kind, scale_min=lo, scale_max=hi)
     step("agreement")
@@ -172,8 +181,9 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         step("excluded attributes")
         excluded = excluded_check(design, fit_first, table.cases[list(spec.excluded)], scale=kind)
     step("cut-off rules")
+    cutoff_draws = int(min(max(999, np.ceil(10.0 / resolution) - 1), CUTOFF_MAX_DRAWS))
     cutoffs = (cutoff_check(design, fit_first, rng=_rng(seed, phase_index, "cutoffs"), scale=kind,
-                            scale_min=lo, scale_max=hi) if len(fit_first) else None)
+                            scale_min=lo, scale_max=hi, n_sim=cutoff_draws) if len(fit_first) else None)
     drift_result = None
     if spec.role("sequence") is not None and len(fit_first):
         step("drift")
@@ -189,6 +199,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         homogeneity = policy_homogeneity(design, fit_first, rng=_rng(seed, phase_index, "homogeneity"))
         step("groups")
         grouping = group_raters(design, fit_first, rng=_rng(seed, phase_index, "grouping"))
+    policies, cutoffs, drift_result, excluded, retest_set, chance = control_chance_flags(
+        policies, cutoffs, drift_result, excluded, retest_set)
     verdicts = {}
     if policies is not None:
         for pol in policies.raters:
@@ -201,7 +213,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
                          peer_agreement=peers,
                          severity=sev, gstudy=gstudy, files=files, lens=lens, alignment=alignment,
                          excluded=excluded, cutoffs=cutoffs, drift=drift_result, conflict=conflict,
-                         homogeneity=homogeneity, grouping=grouping, verdicts=verdicts)
+                         homogeneity=homogeneity, grouping=grouping, verdicts=verdicts,
+                         chance_flags=chance)
 
 
 def _unavailable_reasons(entry: dict, rater: str, ph: PhaseData, spec: StudySpec, counts: dict) -> dict:
@@ -298,6 +311,7 @@ def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool) -> dict:
     entry["lens_environment"] = (a.lens.to_dict().get("environment") if a.lens is not None else None)
     entry["excluded_proxies"] = (a.excluded.to_dict().get("proxies") if a.excluded is not None
                                  else None)
+    entry["chance_flags"] = a.chance_flags.to_dict() if a.chance_flags is not None else None
     entry["files_needing_another_read"] = (list(a.files.needs_another_read())
                                            if a.files is not None else [])
     return entry
@@ -401,6 +415,8 @@ def _collect_tables(tables: dict[str, pd.DataFrame], ph: PhaseData, a: PhaseAnal
     if a.agreement is not None:
         detail = a.agreement.to_dict().get("icc_detail") or {}
         frames["agreement"] = pd.DataFrame(detail.get("forms", []))
+    if a.chance_flags is not None:
+        frames["chance_flags"] = a.chance_flags.to_frame()
     if a.grouping is not None:
         frames["group_merges"] = a.grouping.merge_frame()
         frames["groups"] = a.grouping.groups_frame()
@@ -424,3 +440,170 @@ def _rater_table(raters: list[dict]) -> pd.DataFrame:
                      "retest_r": rt.get("r"), "severity_offset": sev.get("offset"),
                      "group": e["group"], "flags": " ".join(e["flags"])})
     return pd.DataFrame(rows)
+
+
+# --------------------------------------------------------------------------- chance flags
+
+#: Flags that come from a test of every rater; one Holm family per phase controls them.
+TESTED_FLAGS = ("curvature", "cutoff_rule", "drift", "excluded_attribute", "low_retest")
+#: Flags from a fixed rule (thresholds of our own, see README "Flags"); not in the family.
+RULE_FLAGS = ("inconsistent", "lenient", "severe", "narrow_range", "wide_range", "central_tendency")
+#: Flags that state a condition of the data, not the outcome of a test.
+DATA_CONDITIONS = ("too_few_cases", "not_fitted", "few_cases", "collinear_cues", "separation")
+CHANCE_ALPHA = 0.05
+CHANCE_SCHEME = ("Holm (1979) step-down at 5% across every tested flag of the phase together: "
+                 "all raters x (curvature, cutoff_rule, drift on leniency and on consistency, "
+                 "excluded_attribute per attribute, low_retest)")
+CUTOFF_MAX_DRAWS = 99_999
+_POLICY_FLAG_ORDER = ["not_fitted", "few_cases", "collinear_cues", "curvature", "inconsistent", "separation"]
+
+
+@dataclass(frozen=True)
+class ChanceFlags:
+    """Every tested flag of one phase, decided together (Holm 1979 across all of them).
+
+    Under Holm at ``alpha`` the chance that a panel of raters none of whom has the
+    tested property shows at least one tested flag is at most ``alpha``, whatever the
+    dependence between the tests (Holm 1979, Scand. J. Statist. 6:65-70); the expected
+    number of such flags is about ``alpha`` as well (Bonferroni's first step gives
+    exactly ``m * alpha / m``; Holm's later steps add terms of order ``alpha^2``).
+    """
+
+    alpha: float
+    tests: pd.DataFrame   # rater, flag, test, p_value, p_panel, flagged
+
+    @property
+    def n_tests(self) -> int:
+        return int(len(self.tests))
+
+    def flagged(self, rater: str, flag: str, test: str | None = None) -> bool:
+        if test is not None:
+            return (rater, flag, test) in self._flagged_tests
+        return (rater, flag) in self._flagged_pairs
+
+    @cached_property
+    def _flagged_tests(self) -> frozenset:
+        shown = self.tests[self.tests["flagged"]]
+        return frozenset(shown[["rater", "flag", "test"]].itertuples(index=False, name=None))
+
+    @cached_property
+    def _flagged_pairs(self) -> frozenset:
+        return frozenset((r, f) for r, f, _ in self._flagged_tests)
+
+    def level_for(self, rater: str, flag: str) -> float:
+        """The p-value at or below which this rater's ``flag`` test would have been flagged.
+
+        With ``k`` other tests of the phase flagged, Holm flags this one exactly when
+        its p-value is at most ``alpha / (m - k)`` (the others held as they are).
+        """
+        others = sum(1 for r, f, _ in self._flagged_tests if (r, f) != (rater, flag))
+        return self.alpha / max(self.n_tests - others, 1)
+
+    def to_dict(self) -> dict:
+        shown = self.tests[self.tests["flagged"]]
+        per_flag = {f: int((self.tests["flag"] == f).sum()) for f in TESTED_FLAGS}
+        return jsonable({
+            "scheme": "holm",
+            "method": CHANCE_SCHEME,
+            "alpha": self.alpha,
+            "n_tests": self.n_tests,
+            "tests_per_flag": per_flag,
+            "n_raters_tested": int(self.tests["rater"].nunique()),
+            "panelwise_rate": self.alpha if self.n_tests else 0.0,
+            "expected_chance_flags": self.alpha if self.n_tests else 0.0,
+            "flags_shown": int(len(shown[["rater", "flag"]].drop_duplicates())),
+            "raters_flagged": int(shown["rater"].nunique()),
+            "tested_flags": list(TESTED_FLAGS),
+            "rule_flags": list(RULE_FLAGS),
+            "data_conditions": list(DATA_CONDITIONS),
+        })
+
+    def to_frame(self) -> pd.DataFrame:
+        return self.tests.copy()
+
+
+def _tested_p_values(policies, cutoffs, drift_result, excluded, retest_set) -> list[tuple]:
+    """(rater, flag, test, p-value) of every test behind a tested flag in one phase."""
+    rows = []
+    if policies is not None:
+        rows += [(p.rater, "curvature", "reset", p.reset["p_value"]) for p in policies.raters
+                 if "not_fitted" not in p.flags]
+    if cutoffs is not None:
+        rows += [(r.rater, "cutoff_rule", "step", r.p_value) for r in cutoffs.raters]
+    if drift_result is not None:
+        for r in drift_result.raters:
+            rows += [(r.rater, "drift", "leniency", r.p_value),
+                     (r.rater, "drift", "consistency", r.consistency_p_value)]
+    if excluded is not None:
+        rows += [(r.rater, "excluded_attribute", t.attribute, t.p_value)
+                 for r in excluded.raters for t in r.tests]
+    rows += [(r.rater, "low_retest", "fisher_z", r.low_p) for r in retest_set.raters]
+    return rows
+
+
+def control_chance_flags(policies, cutoffs, drift_result, excluded, retest_set, *,
+                         alpha: float = CHANCE_ALPHA):
+    """Decide every tested flag of a phase together; return the updated results and the record.
+
+    Each result object keeps its own per-family ``p_adjusted`` computation for
+    stand-alone use; here ``p_adjusted`` and ``flagged`` are replaced by the
+    phase-wide Holm values, so results.json, the tables and the reports all read one
+    decision.
+    """
+    rows = [r for r in _tested_p_values(policies, cutoffs, drift_result, excluded, retest_set)
+            if np.isfinite(r[3])]
+    tests = pd.DataFrame(rows, columns=["rater", "flag", "test", "p_value"])
+    tests["p_panel"] = holm_adjust(tests["p_value"].to_numpy(float)) if rows else []
+    tests["flagged"] = tests["p_panel"] < alpha
+    record = ChanceFlags(alpha=alpha, tests=tests)
+    panel_p = {(r, f, t): q for r, f, t, q in tests[["rater", "flag", "test", "p_panel"]].itertuples(index=False)}
+    nan = float("nan")
+
+    if policies is not None:
+        updated = []
+        for p in policies.raters:
+            q = panel_p.get((p.rater, "curvature", "reset"), nan)
+            flags = [f for f in p.flags if f != "curvature"]
+            notes = [w for w in p.warnings if not w.startswith(CURVATURE_NOTE.split("{")[0])]
+            if q < alpha:
+                flags = sorted(flags + ["curvature"], key=_POLICY_FLAG_ORDER.index)
+                notes.append(CURVATURE_NOTE.format(p=q, scope="across every tested flag of the phase"))
+            updated.append(replace(p, flags=tuple(flags), warnings=tuple(notes),
+                                   reset={**p.reset, "p_adjusted": q}))
+        policies = replace(policies, raters=tuple(updated),
+                           warnings=tuple(f"Rater '{p.rater}': {w}" for p in updated for w in p.warnings))
+    if cutoffs is not None:
+        cutoffs = replace(cutoffs, raters=tuple(
+            replace(r, p_adjusted=panel_p.get((r.rater, "cutoff_rule", "step"), nan),
+                    flagged=record.flagged(r.rater, "cutoff_rule")) for r in cutoffs.raters))
+    if drift_result is not None:
+        updated = []
+        for r in drift_result.raters:
+            q_len = panel_p.get((r.rater, "drift", "leniency"), nan)
+            q_con = panel_p.get((r.rater, "drift", "consistency"), nan)
+            reasons = tuple(label for label, q in (("leniency", q_len), ("consistency", q_con)) if q < alpha)
+            updated.append(replace(r, p_adjusted=q_len, consistency_p_adjusted=q_con,
+                                   flagged=bool(reasons), reasons=reasons))
+        drift_result = replace(drift_result, raters=tuple(updated),
+                               method=drift_result.method.replace(
+                                   "Holm across raters and both tests",
+                                   "Holm across every tested flag of the phase, both drift tests included"))
+    if excluded is not None:
+        updated = []
+        for r in excluded.raters:
+            tests_r = tuple(replace(t, p_adjusted=panel_p.get((r.rater, "excluded_attribute", t.attribute), nan),
+                                    flagged=record.flagged(r.rater, "excluded_attribute", t.attribute))
+                            for t in r.tests)
+            flags = ("excluded_attribute",) if any(t.flagged for t in tests_r) else ()
+            updated.append(replace(r, tests=tests_r, flags=flags))
+        excluded = replace(excluded, raters=tuple(updated))
+    retest_set = replace(retest_set, raters=tuple(
+        replace(r, flags=("low_retest",) if record.flagged(r.rater, "low_retest") else (),
+                flag_detectable_below=low_retest_reach(r.n_pairs, level=record.level_for(r.rater, "low_retest")))
+        for r in retest_set.raters))
+    return policies, cutoffs, drift_result, excluded, retest_set, record
+
+
+def planned_tests(n_raters: int, *, sequence: bool, n_excluded: int, repeats: bool) -> int:
+    """How many tests the phase's Holm family will hold (before the tests are run)."""
+    return n_raters * (2 + 2 * sequence + n_excluded + repeats)

@@ -47,6 +47,8 @@ class RaterRetest(ResultMixin):
     bias: float
     limit_low: float
     limit_high: float
+    low_p: float = float("nan")
+    flag_detectable_below: float = float("nan")
     flags: tuple[str, ...] = ()
     warnings: tuple[str, ...] = ()
 
@@ -61,6 +63,8 @@ class RaterRetest(ResultMixin):
             "within_one": self.within_one,
             "kappa_quadratic": self.kappa_quadratic,
             "bland_altman": {"bias": self.bias, "low": self.limit_low, "high": self.limit_high},
+            "low_p": self.low_p,
+            "flag_detectable_below": self.flag_detectable_below,
             "flags": list(self.flags),
             "warnings": list(self.warnings),
         })
@@ -106,7 +110,11 @@ def retest(
         judgment values themselves, so it needs no range).
     confidence : level of the interval for r.
     low_retest : the ``low_retest`` flag is set when r's whole interval lies
-        below this value (0.70: common practice, no published source).
+        below this value (0.70: common practice, no published source). That is the
+        one-sided Fisher-z test of ``rho >= low_retest`` at ``(1 - confidence) / 2``;
+        its p-value is ``low_p`` (:func:`low_retest_p`), and ``flag_detectable_below``
+        the largest r that can be flagged with the rater's number of repeats
+        (:func:`low_retest_reach`). An audit re-decides the flag across the panel.
 
     Notes
     -----
@@ -185,6 +193,7 @@ def retest(
         if not np.isfinite(r[g]):
             warn.append("The judgments on the repeated cases do not vary, so r is undefined.")
         flags = ("low_retest",) if r_high[g] < low_retest else ()
+        level = (1.0 - confidence) / 2.0
         raters.append(RaterRetest(
             rater=str(names[g]), n_pairs=int(n[g]),
             r=float(r[g]), r_ci_low=float(r_low[g]), r_ci_high=float(r_high[g]),
@@ -192,9 +201,37 @@ def retest(
             exact=float(exact[g]), within_one=float(within[g]), kappa_quadratic=float(kappa[g]),
             bias=float(bias[g]),
             limit_low=float(bias[g] - 1.96 * sd_diff[g]), limit_high=float(bias[g] + 1.96 * sd_diff[g]),
+            low_p=low_retest_p(r[g], n[g], threshold=low_retest),
+            flag_detectable_below=low_retest_reach(n[g], level=level, threshold=low_retest),
             flags=flags, warnings=tuple(warn),
         ))
     return RetestSet(raters=tuple(raters), scale=scale, confidence=confidence)
+
+
+def low_retest_p(r: float, n_pairs: float, *, threshold: float = 0.70) -> float:
+    """One-sided p-value of ``rho >= threshold`` against ``rho < threshold`` (Fisher 1921 z).
+
+    ``Phi((atanh r - atanh threshold) sqrt(n - 3))``; NaN with 3 pairs or fewer or an
+    undefined r. Below ``(1 - confidence) / 2`` exactly when the Fisher interval of r
+    lies wholly below ``threshold``.
+    """
+    if not (np.isfinite(r) and n_pairs > 3):
+        return float("nan")
+    z = np.arctanh(np.clip(r, -1 + 1e-15, 1 - 1e-15))
+    return float(norm.cdf((z - np.arctanh(threshold)) * np.sqrt(n_pairs - 3.0)))
+
+
+def low_retest_reach(n_pairs: float, *, level: float, threshold: float = 0.70) -> float:
+    """The largest test-retest r that :func:`low_retest_p` puts below ``level``.
+
+    ``tanh(atanh threshold - z_(1-level) / sqrt(n - 3))``: with 12 pairs and the
+    per-rater level 0.025 this is 0.21, so a rater with a retest of .50 cannot be
+    flagged from 12 repeats. -1 when no r can reach the level; NaN with 3 pairs or fewer.
+    """
+    if not n_pairs > 3 or not 0 < level < 1:
+        return float("nan")
+    reach = np.tanh(np.arctanh(threshold) - norm.ppf(1.0 - level) / np.sqrt(n_pairs - 3.0))
+    return float(max(reach, -1.0))
 
 
 @dataclass(frozen=True)

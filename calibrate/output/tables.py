@@ -44,6 +44,9 @@ TABLE_DESCRIPTIONS = {
                          "with its bootstrap interval.",
     "retest": "One row per rater and phase: test-retest on the hidden repeated cases.",
     "repeat_pairs": "One row per repeated case: the first and the second judgment.",
+    "chance_flags": "One row per test behind a tested flag (curvature, cutoff_rule, drift, "
+                    "excluded_attribute, low_retest): rater, flag, test, p-value, Holm-adjusted "
+                    "p-value across every such test of the phase, flagged.",
     "reading_order": "Every judgment in each rater's reading order (position from 0).",
     "peer_agreement": "One row per rater and phase: correlation with the other readers' mean on "
                       "shared cases, and the mean gap.",

@@ -80,6 +80,7 @@ __all__ = [
 POLICIES_SCHEMA = "calibrate.policies/2"
 SCALES = ("continuous", "ordinal", "binary")
 N_LOOK_AGAIN = 5
+CURVATURE_NOTE = "The judgments bend away from a straight-line policy (RESET p = {p:.3g} after Holm adjustment {scope})."
 
 
 # --------------------------------------------------------------------------- preparation
@@ -189,6 +190,7 @@ def fit_policies(
     alpha: float = 0.05,
     importance_method: str = "auto",
     inconsistent_below: float = 0.70,
+    curvature_resolution: float | None = None,
 ) -> PolicySet:
     """Fit every rater's policy in one phase, with intervals and diagnostics.
 
@@ -206,6 +208,9 @@ def fit_policies(
     importance_method : ``"auto"`` (dominance weights up to 12 cues, Johnson's
         relative weights beyond), ``"dominance"`` or ``"relative_weights"``.
     inconsistent_below : R_s bound for the ``inconsistent`` flag (see module doc).
+    curvature_resolution : on an ordinal scale, the smallest p-value the curvature test
+        must be able to tell apart (an audit passes ``alpha / m`` for ``m`` tests in the
+        panel); raters with a first p-value at most ``alpha`` get more draws.
 
     Returns
     -------
@@ -248,7 +253,8 @@ def fit_policies(
     seeds = generator.spawn(len(patterns)) if patterns else []
     for (active, members), seed in zip(patterns, seeds):
         _fit_pattern(design, rows, X_all, np.asarray(active), members, arrays,
-                     n_boot=n_boot, rng=seed, alpha=alpha, method=method, curvature_null=curvature_null)
+                     n_boot=n_boot, rng=seed, alpha=alpha, method=method, curvature_null=curvature_null,
+                     curvature_resolution=curvature_resolution)
     if scale == "binary":
         _fit_logistic(rows, X_all, arrays)
     return _assemble(design, rows, arrays, scale=scale, n_boot=n_boot, alpha=alpha,
@@ -290,6 +296,8 @@ def _column_patterns(X_all, rows: _Rows, G: int, p: int) -> list[tuple[tuple[int
 
 
 CURVATURE_SIMULATIONS = 199
+CURVATURE_MAX_DRAWS = 20_000   # bounds the cost of the refinement for very large panels
+CURVATURE_ENOUGH_HITS = 10
 
 
 def _curvature_null(y, scale, scale_min, scale_max) -> tuple[str, float | None, float | None] | None:
@@ -303,8 +311,47 @@ def _curvature_null(y, scale, scale_min, scale_max) -> tuple[str, float | None, 
     return None if bounds is None else ("rounded", *bounds)
 
 
+def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution, rng) -> np.ndarray:
+    """More draws for the raters whose curvature p-value is at most ``alpha`` after the first 199.
+
+    A panel-wide adjustment compares the smallest p-value with ``alpha / m``; 199 draws
+    cannot go below 0.005. The raters in question get further draws in doubling rounds
+    until ``1 / (1 + draws)`` is at most a fifth of ``resolution`` (capped at
+    ``CURVATURE_MAX_DRAWS``); a rater leaves once ``CURVATURE_ENOUGH_HITS`` simulated
+    statistics have reached the observed one, so ordinary raters cost a few hundred
+    draws (sequential Monte Carlo test, Besag & Clifford 1991, from memory). The p-value
+    pools all draws, ``(1 + hits) / (1 + draws)``. Hits are recovered from each round's
+    p-value as ``p (1 + draws) - 1``, exact when every simulated set gives a defined
+    statistic (sets with every judgment at one end are the exception).
+    """
+    hits = np.round(p_first * (1 + CURVATURE_SIMULATIONS) - 1)
+    draws = np.full(p_first.size, float(CURVATURE_SIMULATIONS))
+    active = np.isfinite(p_first) & (p_first <= alpha)
+    target = min(int(np.ceil(5.0 / resolution)) - 1, CURVATURE_MAX_DRAWS)
+    size = 400
+    while active.any() and draws[active].max() < target:
+        candidates = np.flatnonzero(active)
+        more = int(min(size, target - draws[candidates].max()))
+        local = np.full(p_first.size, -1)
+        local[candidates] = np.arange(candidates.size)
+        rows = local[groups] >= 0
+        _, p_more = dg.scale_reset_p(X[rows], y[rows], local[groups[rows]], candidates.size,
+                                     kind=curvature_null[0], scale_min=curvature_null[1],
+                                     scale_max=curvature_null[2], n_sim=more, rng=rng)
+        good = np.isfinite(p_more)
+        hits[candidates[good]] += np.round(p_more[good] * (1 + more) - 1)
+        draws[candidates[good]] += more
+        active[candidates[~good]] = False
+        active &= hits < CURVATURE_ENOUGH_HITS
+        size *= 2
+    refined = np.isfinite(p_first) & (draws > CURVATURE_SIMULATIONS)
+    out = p_first.copy()
+    out[refined] = (1.0 + hits[refined]) / (1.0 + draws[refined])
+    return out
+
+
 def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *,
-                 n_boot, rng, alpha, method, curvature_null=None) -> None:
+                 n_boot, rng, alpha, method, curvature_null=None, curvature_resolution=None) -> None:
     p_all = design.n_columns
     for g in members:
         missing_cols = [design.columns[j] for j in range(p_all) if j not in set(active.tolist())]
@@ -415,6 +462,9 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
         kind, low, high = curvature_null
         _, scale_p = dg.scale_reset_p(X, y, groups, Gb, kind=kind, scale_min=low, scale_max=high,
                                       n_sim=CURVATURE_SIMULATIONS, rng=rng.spawn(1)[0])
+        if curvature_resolution is not None:
+            scale_p = _refine_scale_p(X, y, groups, scale_p, curvature_null, alpha=alpha,
+                                      resolution=curvature_resolution, rng=rng.spawn(1)[0])
         A.reset_p[rows_g] = np.where(ok, scale_p, np.nan)
     top = dg.top_rows_per_group(groups, np.abs(influence.studentized), N_LOOK_AGAIN)
     case_ids = design.case_ids
@@ -506,10 +556,7 @@ def _assemble(design: CueDesign, rows: _Rows, A: _Arrays, *, scale, n_boot, alph
                 )
             if reset_adj[g] < alpha:
                 flags.append("curvature")
-                notes.append(
-                    "The judgments bend away from a straight-line policy (RESET "
-                    f"p = {reset_adj[g]:.3g} after Holm adjustment across raters)."
-                )
+                notes.append(CURVATURE_NOTE.format(p=reset_adj[g], scope="across raters"))
             upper = A.r_hi[g]
             if upper < inconsistent_below or (upper < typical_low[g] and r[g] < TYPICAL_R_S):
                 flags.append("inconsistent")

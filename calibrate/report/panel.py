@@ -102,6 +102,27 @@ class PanelReport:
         story += self.cautions()
         return story
 
+    def _chance_lines(self) -> list:
+        """Per phase: the tested flags chance alone would show, and the reach of the retest check."""
+        lines = []
+        several = len(self.view.phases) > 1
+        for phase in self.view.phases:
+            panel = self.view.panel(phase)
+            chance = None if panel is None else panel.chance_flags
+            if chance is not None:
+                lines.append(text(wording.chance_flags_sentence(
+                    chance.n_tests, chance.panelwise_rate, chance.expected_chance_flags, chance.flags_shown,
+                    phase if several else None), BODY))
+            reach = [(e.retest.n_pairs, e.retest.flag_detectable_below) for e in self.view.raters
+                     if e.phase == phase and e.retest is not None and e.retest.n_pairs
+                     and "low_retest" not in e.flags]
+            if reach:
+                highest = max((v if v is not None else -1.0) for _, v in reach)
+                lines.append(text(wording.retest_reach_panel_sentence(
+                    min(n for n, _ in reach), max(n for n, _ in reach), highest,
+                    phase if several else None), BODY))
+        return lines
+
     # ------------------------------------------------------------------ overview
     def overview(self) -> list:
         story = [text("Panel summary", TITLE),
@@ -128,6 +149,7 @@ class PanelReport:
             story.append(table)
         else:
             story.append(text("No rater was flagged.", BODY))
+        story += self._chance_lines()
         story.append(text("Panel at a glance", HEADING))
         rows = [[text(h, CELL_BOLD) for h in (("Phase",) if named else ()) + (
             "ICC(A,1)", "Krippendorff's alpha", "Groups", "Policies alike? (p)", "Reading")]]
@@ -404,8 +426,8 @@ class PanelReport:
                 text(wording.fmt_p(r[5]), CELL), text("yes" if r[6] else "", CELL)])
         table = Table(table_rows, repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
-        story += [text("Each attribute added to each rater's policy; p adjusted across raters and attributes "
-                       "(Holm). An association can run through a cue related to the attribute. Flagged "
+        story += [text("Each attribute added to each rater's policy; p adjusted (Holm) across every "
+                       "tested flag of the phase, all raters and attributes included. An association can run through a cue related to the attribute. Flagged "
                        "results first.", BODY), table]
         proxies = [(p.attribute, p.cue, p.association) for panel in self.view.panels for p in panel.proxies
                    if p.strong]

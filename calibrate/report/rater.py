@@ -338,6 +338,9 @@ class RaterReport:
                               BODY))
         if r_tt is not None:
             story.append(text(wording.retest_reading(r_tt, retest.n_pairs), BODY))
+            reach = wording.retest_reach_sentence(retest.n_pairs, retest.flag_detectable_below)
+            if reach and "low_retest" not in self.entry.flags:
+                story.append(text(reach, BODY))
             story.append(text(ceiling_sentence(r_s, r_tt, self.entry.ceiling_verdict), BODY))
         return story
 

@@ -167,11 +167,29 @@ class RetestView:
     r: float | None
     icc_a1: float | None
     mean_abs_diff: float | None
+    flag_detectable_below: float | None
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> RetestView:
         return cls(n_pairs=int(_get(d, "n_pairs", path)), r=_num(d, "r", path), icc_a1=_num(d, "icc_a1", path),
-                   mean_abs_diff=_num(d, "mean_abs_diff", path))
+                   mean_abs_diff=_num(d, "mean_abs_diff", path),
+                   flag_detectable_below=_num(d, "flag_detectable_below", path))
+
+
+@dataclass(frozen=True)
+class ChanceFlagsView:
+    """``panels[].chance_flags``: the tested flags chance alone would give, and those shown."""
+
+    n_tests: int
+    panelwise_rate: float | None
+    expected_chance_flags: float | None
+    flags_shown: int
+
+    @classmethod
+    def read(cls, d: Mapping, path: str) -> ChanceFlagsView:
+        return cls(n_tests=int(_get(d, "n_tests", path)), panelwise_rate=_num(d, "panelwise_rate", path),
+                   expected_chance_flags=_num(d, "expected_chance_flags", path),
+                   flags_shown=int(_get(d, "flags_shown", path)))
 
 
 @dataclass(frozen=True)
@@ -407,6 +425,7 @@ class PanelView:
     proxies: tuple[ProxyView, ...]
     files_needing_another_read: tuple[str, ...]
     warnings: tuple[str, ...]
+    chance_flags: ChanceFlagsView | None = None
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> PanelView:
@@ -476,7 +495,9 @@ class PanelView:
                                                   _num(hom, "p_value", f"{path}.homogeneity")),
             pairs=tuple(pairs), proxies=proxies,
             files_needing_another_read=tuple(map(str, _list(d, "files_needing_another_read", path))),
-            warnings=collect_warnings(d))
+            warnings=collect_warnings(d),
+            chance_flags=(None if (chance := _block(d, "chance_flags", path)) is None
+                          else ChanceFlagsView.read(chance, f"{path}.chance_flags")))
 
 
 # ---------------------------------------------------------------- the whole result

@@ -387,6 +387,41 @@ FLAG_WORDS = {
 }
 
 
+def chance_flags_sentence(n_tests: int, panelwise_rate: float | None, expected: float | None,
+                          shown: int, phase: str | None = None) -> str:
+    """How many tested flags chance alone would show, next to how many are shown (results.json
+    ``panels[].chance_flags``; Holm across every tested flag of the phase)."""
+    lead = f"Phase {phase}: b" if phase else "B"
+    if not n_tests or panelwise_rate is None or expected is None:
+        return (f"{lead}y chance alone no tested flag can appear: no rater could be tested for curvature, "
+                "cut-offs, drift, excluded attributes or test-retest.")
+    shows = "none" if shown == 0 else ("1" if shown == 1 else f"{shown}")
+    return (f"{lead}y chance alone, raters with none of the tested patterns would get about "
+            f"{fmt(expected)} tested flags here (at most a {100 * panelwise_rate:.0f}% chance of any, "
+            f"over {n_tests} tests); this panel shows {shows}.")
+
+
+def retest_reach_sentence(n_pairs: int | None, detectable_below: float | None) -> str | None:
+    """What the low test-retest check can catch (results.json ``retest.flag_detectable_below``)."""
+    if not n_pairs:
+        return None
+    cases = f"{n_pairs} repeated case" + ("s" if n_pairs != 1 else "")
+    if detectable_below is None or detectable_below <= -1:
+        return f"With {cases} the low test-retest check cannot flag anyone."
+    return f"With {cases} the low test-retest check can only flag a correlation below {fmt(detectable_below)}."
+
+
+def retest_reach_panel_sentence(fewest: int, most: int, highest: float | None,
+                                phase: str | None = None) -> str:
+    """The same for a phase's raters who were not flagged: the most the check could catch."""
+    cases = f"{fewest}" if fewest == most else f"{fewest} to {most}"
+    lead = f"Phase {phase}: w" if phase else "W"
+    if highest is None or highest <= -1:
+        return f"{lead}ith {cases} repeated cases per rater the low test-retest check could not flag anyone."
+    return (f"{lead}ith {cases} repeated cases per rater the low test-retest check could flag only a "
+            f"correlation below {fmt(highest)} (at best).")
+
+
 def flag_words(flag: str) -> str:
     return FLAG_WORDS.get(flag, flag.replace("_", " "))
 

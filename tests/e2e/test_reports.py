@@ -76,6 +76,28 @@ def test_panel_summary_names_every_rater(demo, built):
     assert "Audit date 2026-05-28" in text
 
 
+def test_panel_summary_states_the_chance_flags_and_the_retest_reach(demo, built):
+    # the sentences print the figures of results.json panels[].chance_flags and
+    # raters[].retest.flag_detectable_below, through the wording functions
+    from calibrate.report import wording
+
+    _, result = demo
+    out, *_ = built
+    text = " ".join(" ".join(page_texts(out / "panel-summary.pdf")).split())
+    d = result.to_dict()
+    for panel in d["panels"]:
+        c = panel["chance_flags"]
+        assert wording.chance_flags_sentence(c["n_tests"], c["panelwise_rate"], c["expected_chance_flags"],
+                                             c["flags_shown"], panel["phase"]) in text
+        entries = [e for e in d["raters"] if e["phase"] == panel["phase"] and "low_retest" not in e["flags"]]
+        highest = max(e["retest"]["flag_detectable_below"] for e in entries)
+        pairs = [e["retest"]["n_pairs"] for e in entries]
+        assert wording.retest_reach_panel_sentence(min(pairs), max(pairs), highest, panel["phase"]) in text
+    sorrel = " ".join(" ".join(page_texts(out / "raters" / "Sorrel.pdf")).split())
+    entry = d["raters"][[e["rater"] for e in d["raters"]].index("Sorrel")]
+    assert wording.retest_reach_sentence(entry["retest"]["n_pairs"], entry["retest"]["flag_detectable_below"]) in sorrel
+
+
 def test_first_page_numbers_equal_results_json(demo, built):
     _, result = demo
     out, *_ = built

@@ -56,7 +56,8 @@ def fill(result, table) -> ReportInput:
             "warnings": ["a test warning that names Birch and should not reach other raters"] if k == 0 else [],
         }
         rt = float(rng.uniform(0.55, 0.95))
-        e["retest"] = {"n_pairs": e["n_repeats"], "r": rt, "icc_a1": rt - .03, "mean_abs_diff": 0.6}
+        e["retest"] = {"n_pairs": e["n_repeats"], "r": rt, "icc_a1": rt - .03, "mean_abs_diff": 0.6,
+                       "low_p": 0.5, "flag_detectable_below": 0.21}
         g, c_, re_ = float(rng.uniform(.6, .95)), float(rng.uniform(-.1, .2)), .72
         e["lens"] = {"r_a": g * re_ * r, "g": g, "c": c_, "r_e": re_, "r_s": r, "model_validity": g * re_,
                      "model_validity_cv": g * re_ - .03,

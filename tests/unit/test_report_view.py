@@ -120,7 +120,7 @@ def test_null_stays_null_and_a_recorded_reason_is_printed(results):
 #: against the schema); every other required key must be read, and so required, by the view.
 NOT_READ_BY_REPORTS = {
     "raters": set(), "policy": {"intercept", "importance_r2", "r_ci", "r2_adj", "r_cv"},
-    "retest": set(), "lens": set(), "severity": set(), "alignment": set(),
+    "retest": {"low_p"}, "lens": set(), "severity": set(), "alignment": set(),
     "drift": {"p_value", "p_adjusted"}, "panels": set(), "icc": set(), "variance_components": set(),
     "homogeneity": set(), "d_study": set(), "groups": {"std_weights"},
 }
