@@ -208,7 +208,9 @@ def test_co_assignment_is_a_symmetric_share():
     np.testing.assert_allclose(np.diag(co), 1.0)
     assert ((co >= 0) & (co <= 1)).all()
     same = np.array([[truth[a] == truth[b] for b in result.raters] for a in result.raters])
-    assert co[same].min() > 0.9 and co[~same].max() < 0.1
+    # Each resample decides its own number of groups by the rule, and a resample (with
+    # repeated cases) sometimes splits a planted group: measured min 0.88 within, 0 across.
+    assert co[same].min() > 0.85 and co[~same].max() < 0.1
 
 
 def test_identity_resample_reproduces_the_full_data_grouping():
@@ -411,7 +413,8 @@ def test_stacked_sscp_equals_grouped_sscp_per_variant():
 def test_demo_planted_groups_are_recovered_exactly_and_stable():
     # Planted truth: calibrate.data.demo plants three policy groups (records, voice, field)
     # in the 'before' round, with an inconsistent, a drifting and an excluded-attribute
-    # reviewer inside them. Measured: exact recovery, ARI 0.998, Jaccard >= 0.998.
+    # reviewer inside them. Measured: exact recovery; each resample choosing its own
+    # number of groups by the rule, ARI 97.5% interval from 0.887.
     from calibrate.data.demo import REVIEWERS, build_demo
 
     cases, judgments = build_demo()
@@ -426,5 +429,5 @@ def test_demo_planted_groups_are_recovered_exactly_and_stable():
     planted = [REVIEWERS[r][0] for r in result.raters]
     assert result.n_groups == 3
     assert adjusted_rand_score(planted, [result.rater_group[r] for r in result.raters]) == 1.0
-    assert all(g.survives for g in result.groups) and result.ari_ci_low > 0.9
+    assert all(g.survives for g in result.groups) and result.ari_ci_low > 0.85
     assert result.warnings == ()
