@@ -126,7 +126,7 @@ def rule_settings():
     ]
 
 
-def measure_rule(n_panels: int) -> None:
+def measure_rule(n_panels: int, *, parts: bool = True, jitter: bool = True) -> None:
     """Share of panels the rule gets right, per setting, with the parts of the rule apart.
 
     Also reported: the share right with the simulated test alone (threshold 0), and
@@ -136,23 +136,27 @@ def measure_rule(n_panels: int) -> None:
     """
     print(f"{'setting':<30} {'rule right':>22} {'test alone right':>22} "
           f"{'old threshold absorbs':>22} {'s/panel':>8}")
-    for name, sizes, jitter, right in rule_settings():
+    for name, sizes, weight_sd, right in rule_settings():
+        if weight_sd and not jitter:
+            continue
         hits = alone_hits = old_absorbs = 0
         t0 = time.perf_counter()
         for seed in range(n_panels):
-            design, first, truth = scale_panel(20261202 + seed, sizes, jitter=jitter)
+            design, first, truth = scale_panel(20261202 + seed, sizes, jitter=weight_sd)
             result = group_raters(design, first, rng=seed, n_resamples=0)
             hits += right(result, truth)
-            alone = group_raters(design, first, rng=seed, n_resamples=0, threshold=0.0)
-            alone_hits += right(alone, truth)
+            if parts:
+                alone = group_raters(design, first, rng=seed, n_resamples=0, threshold=0.0)
+                alone_hits += right(alone, truth)
             if sizes[-1] == 1:
                 lone = next(r for r, g in truth.items() if g == 1)
                 step = next(m for m in result.merges if lone in m.merged_a + m.merged_b)
                 old_absorbs += step.r2_drop <= OLD_PANEL_R2_THRESHOLD
         took = (time.perf_counter() - t0) / n_panels
         old = share_with_interval(old_absorbs, n_panels) if sizes[-1] == 1 else "-"
+        alone = share_with_interval(alone_hits, n_panels) if parts else "-"
         print(f"{name:<30} {share_with_interval(hits, n_panels):>22} "
-              f"{share_with_interval(alone_hits, n_panels):>22} {old:>22} {took:>8.2f}",
+              f"{alone:>22} {old:>22} {took:>8.2f}",
               flush=True)
 
 
@@ -161,12 +165,14 @@ def main():
     parser.add_argument("--full", action="store_true")
     parser.add_argument("--audit-panels", action="store_true")
     parser.add_argument("--rule", type=int, nargs="?", const=200, default=None)
+    parser.add_argument("--rule-only", action="store_true",
+                        help="with --rule: skip the test-alone rerun and the +-0.1 settings")
     args = parser.parse_args()
     if args.audit_panels:
         audit_panels()
         return
     if args.rule:
-        measure_rule(args.rule)
+        measure_rule(args.rule, parts=not args.rule_only, jitter=not args.rule_only)
         return
     sizes = [(10, 60, 4), (30, 150, 6), (60, 300, 6)]
     if args.full:
