@@ -79,8 +79,8 @@ class MergeStep(ResultMixin):
     before the merge). It is descriptive only: the groups were formed from the same
     judgments to differ, so the F distribution would give p-values far too small for
     the late merges (measured: half of simulated one-policy panels had some merge at
-    p < .01). ``p_value`` is instead a parametric-bootstrap p-value, given for the
-    merges the number-of-groups rule tested (None for the others).
+    p < .01). ``p_value`` is instead the parametric-bootstrap p-value of the merge's
+    side loss, adjusted over the whole tree (None when the chair chose the number).
     """
 
     step: int
@@ -254,10 +254,10 @@ def group_raters(
     threshold : R^2 that the side of a merge that suffers most must lose (as a share
         of its own spread of judgments) for the merge to count as joining different
         policies. Default 0.02.
-    alpha : level of the simulated test that must also reject for a merge to count as
-        joining different policies.
+    alpha : level of the simulated test (adjusted over the whole merge tree) that must
+        also reject for a merge to count as joining different policies.
     n_groups : force this many groups (the chair overrules the rule); None: the rule.
-    n_null : simulated panels per tested merge for the number-of-groups test.
+    n_null : simulated one-policy panels for the number-of-groups test.
 
     Returns
     -------
@@ -272,26 +272,31 @@ def group_raters(
     Statistical Association 58:236-244, error sum of squares criterion; applied to
     rater policies by Christal 1968). Overall R^2 is ``1 - sum_g RSS_g / sum_r S_yy,r``.
 
-    Number of groups (our own rule built on common practice; the defaults are
-    ours). Reading the merge table from the end, as a chair reads for a marked drop
-    in R^2 (Christal 1968), for k = 1, 2, ... the merge from k + 1 groups into k is
-    taken to join different policies when the side of it that suffers most would
-    lose more than ``threshold`` of its own R^2 by adopting the merged weights
-    (``side_r2_loss``, measured within the two merged groups only, so it does not
-    shrink as the panel grows) *and* that loss exceeds what the same merge loses
-    when the k-group model is true: ``n_null`` panels are simulated from the fitted
-    k-group model (parametric bootstrap; McLachlan 1987), regrouped, and the Monte
-    Carlo p-value ``(1 + #{simulated loss >= observed}) / (n_null + 1)`` must be
-    below ``alpha``. The first k whose merge fails either test is chosen. The
-    simulation keeps noisy panels from splitting; the threshold keeps well-measured
-    panels from splitting over differences too small to matter. An earlier rule
-    read the drop of the whole panel's R^2 instead: a lone rater with a different
-    policy moves that drop by about 1/R of their own loss, so big panels absorbed
-    them (measured in DEVELOPERS.md). The whole merge table is returned so a chair
-    can choose another number (``n_groups``).
+    Number of groups (our own rule; the defaults are ours). Each merge of the tree
+    is scored by its side loss (``side_r2_loss``): the R^2 that the side which
+    suffers most gives up, as a share of its own spread of judgments, by adopting
+    the merged weights (:func:`calibrate.panel.stability.merge_side_loss`). It is
+    measured within the two merged groups only, so it does not shrink as the panel
+    grows. A merge keeps its sides apart when its side loss exceeds ``threshold``
+    *and* is larger than one-policy panels produce: ``n_null`` panels are simulated
+    from the fitted one-group model (parametric bootstrap; McLachlan 1987) and
+    grouped; each merge's loss is divided by the typical largest loss of merges with
+    a smaller side of that size class (1, 2-3, 4-7, ... raters: a lone rater's loss
+    is noisier than a group's), and its p-value is taken against the largest scaled
+    loss of each simulated panel's whole tree (single-step max-T, Westfall & Young
+    1993), which must be below ``alpha``. The groups are then the pieces of the tree
+    between the merges kept apart, with pieces the rule would not keep apart joined
+    again, cheapest first (see :func:`calibrate.panel.stability.groups_by_rule`).
+    An earlier rule required a merge to cost more than 0.01 of the *whole panel's*
+    R^2 and read only the top of the tree: a lone rater with a different policy
+    moves the whole panel's R^2 by about 1/R of their own loss and in a large panel
+    joins one half of a split lower down, so panels of 60 or 100 absorbed them
+    (figures in DEVELOPERS.md). Each merge's p-value is in ``p_value``; the whole
+    merge table is returned so a chair can choose another number (``n_groups``).
 
     Stability. Cases are resampled with replacement (counts as weights); each
-    resample is grouped by the same merges and cut at the chosen number of groups
+    resample is grouped by the same merges and the same rule (with the full data's
+    simulated yardsticks), or cut at ``n_groups`` when the chair chose the number
     (as in Hennig 2007). Reported: how often each pair shares a group, the adjusted
     Rand index against the full-data grouping, and per group the mean best-match
     Jaccard similarity; below 0.5 the group does not survive resampling.

@@ -384,8 +384,8 @@ def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
     """Group ``n_resamples`` case resamples in lockstep and compare with ``slots``.
 
     Cases are drawn with replacement (multinomial counts used as weights), every
-    resample is grouped by the same merges and cut at ``chosen`` groups (as in
-    Hennig 2007).
+    resample is grouped by the same merges and then by ``rule`` (or, without one,
+    cut at ``chosen`` groups), as in Hennig 2007.
     """
     R = eligible.size
     if not n_resamples:
