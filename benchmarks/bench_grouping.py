@@ -28,6 +28,13 @@ panel below (the one-policy ones checked on every 7th) and on the demo.
     audit panel, 300 raters         33.4      5.78     5.8
     audit panel, 1,000 raters      459       32.0     14.3
 
+After the keep-apart rule (side loss, whole-tree simulated test; stability resamples
+apply the same rule, so each builds its whole tree): 10 raters 0.17 s, 30 raters
+0.62 s, 60 raters 1.51 s (was 0.90 s); the large sizes are not re-measured yet.
+``--rule 100 --rule-only`` (seed 20261202; figures in DEVELOPERS.md): lone rater kept
+apart 96% among 24 and 95% among 99; one policy, one group 95% at 25 and 97% at 100;
+10 + 10 found exactly 98%.
+
 In the whole audit (benchmarks/bench_audit.py --full) the grouping step went from
 6.8 s to 2.3 s (100 raters), 30 s to 6.4 s (300) and 454 s to 32 s (1,000).
 At 1,000 raters most of what is left is the number-of-groups test (4 levels x 50
