@@ -55,10 +55,10 @@ from scipy import stats
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "unit"))
 
-from grouping_panels import lone_rater_kept_apart, scale_panel  # noqa: E402
+from grouping_panels import lone_rater_kept_apart, scale_panel
 
-from calibrate.data.cues import CueRule, build_cue_design  # noqa: E402
-from calibrate.panel.grouping import group_raters  # noqa: E402
+from calibrate.data.cues import CueRule, build_cue_design
+from calibrate.panel.grouping import group_raters
 
 #: The earlier rule also required a merge to cost more than this of the whole panel's R^2.
 OLD_PANEL_R2_THRESHOLD = 0.01

@@ -42,7 +42,6 @@ from ..result_base import ResultMixin, jsonable
 from .merges import agglomerate, labels_at, name_groups, release_work_memory, standardized_weights
 from .stability import (
     SURVIVAL_JACCARD,
-    KeepApartRule,
     adjusted_rand_index,
     groups_by_rule,
     keep_apart_rule,

@@ -24,7 +24,6 @@ from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
 from .merges import (
     agglomerate,
     batched_rss,
-    labels_at,
     merged_rss,
     name_groups,
     stacked_sscp,
@@ -33,18 +32,18 @@ from .merges import (
 
 __all__ = [
     "SURVIVAL_JACCARD",
+    "KeepApartRule",
+    "ResamplingStability",
     "adjusted_rand_index",
     "group_jaccard",
     "groups_by_rule",
-    "KeepApartRule",
+    "keep_apart_rule",
     "matched_share",
     "merge_side_loss",
-    "keep_apart_rule",
     "resample_budget",
     "resampled_labels",
     "resampling_stability",
     "size_class",
-    "ResamplingStability",
     "tree_side_losses",
     "ward_cross_check",
 ]
