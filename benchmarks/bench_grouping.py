@@ -1,6 +1,10 @@
-"""Time group_raters at several panel sizes (not a test).
+"""Time group_raters at several panel sizes, and measure the number-of-groups rule (not a test).
 
-Run: python benchmarks/bench_grouping.py [--full] [--audit-panels]
+Run: python benchmarks/bench_grouping.py [--full] [--audit-panels] [--rule [N]]
+``--rule`` measures the number-of-groups rule on N invented 1-7 panels per setting
+(default 200; tests/unit/grouping_panels.py builds them): a lone rater with the
+reversed policy among 24 and 99, one-policy panels of 25 and 100 (also with each
+rater's weights off by SD 0.1), and two groups of 10 + 10. Figures in DEVELOPERS.md.
 Invented panels: three planted policies, each rater sees 70% of the cases.
 ``--full`` adds the large sizes and the full-size one-policy check (1,000 panels).
 ``--audit-panels`` times the panels of benchmarks/bench_audit.py as the audit hands
@@ -24,6 +28,13 @@ panel below (the one-policy ones checked on every 7th) and on the demo.
     audit panel, 300 raters         33.4      5.78     5.8
     audit panel, 1,000 raters      459       32.0     14.3
 
+After the keep-apart rule (side loss, whole-tree simulated test; stability resamples
+apply the same rule, so each builds its whole tree): 10 raters 0.17 s, 30 raters
+0.62 s, 60 raters 1.51 s (was 0.90 s); the large sizes are not re-measured yet.
+``--rule 100 --rule-only`` (seed 20261202; figures in DEVELOPERS.md): lone rater kept
+apart 96% among 24 and 95% among 99; one policy, one group 95% at 25 and 97% at 100;
+10 + 10 found exactly 98%.
+
 In the whole audit (benchmarks/bench_audit.py --full) the grouping step went from
 6.8 s to 2.3 s (100 raters), 30 s to 6.4 s (300) and 454 s to 32 s (1,000).
 At 1,000 raters most of what is left is the number-of-groups test (4 levels x 50
@@ -33,13 +44,24 @@ simulated panels, each grouped from 1,000 raters down), then 20 case resamples.
 from __future__ import annotations
 
 import argparse
+import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from scipy import stats
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "unit"))
+
+from grouping_panels import lone_rater_kept_apart, scale_panel
 
 from calibrate.data.cues import CueRule, build_cue_design
 from calibrate.panel.grouping import group_raters
+
+#: The earlier rule also required a merge to cost more than this of the whole panel's R^2.
+OLD_PANEL_R2_THRESHOLD = 0.01
 
 
 def panel(seed, n_raters, n_cases, n_cues, n_policies=3, noise=0.7, share_seen=0.7):
@@ -83,13 +105,81 @@ def audit_panels(sizes=(100, 300, 1000)):
               f"{res.n_resamples} resamples")
 
 
+def share_with_interval(hits: int, n: int) -> str:
+    """'93.5% (88.9-96.6%)': the share and its 99.9% Clopper-Pearson interval."""
+    low = stats.beta.ppf(0.0005, hits, n - hits + 1) if hits else 0.0
+    high = stats.beta.ppf(0.9995, hits + 1, n - hits) if hits < n else 1.0
+    return f"{hits / n:.1%} ({low:.1%}-{high:.1%})"
+
+
+def rule_settings():
+    """(name, sizes, jitter, what counts as right) of every measured setting."""
+    def one_group(result, truth):
+        return result.n_groups == 1
+
+    def two_found(result, truth):
+        planted = [truth[r] for r in result.raters]
+        found = [result.rater_group[r] for r in result.raters]
+        return result.n_groups == 2 and stats.contingency.crosstab(planted, found)[1].min() == 0
+
+    return [
+        ("lone rater among 24", [24, 1], 0.0, lone_rater_kept_apart),
+        ("lone rater among 99", [99, 1], 0.0, lone_rater_kept_apart),
+        ("one policy, 25 raters", [25], 0.0, one_group),
+        ("one policy, 100 raters", [100], 0.0, one_group),
+        ("one policy +-0.1, 25 raters", [25], 0.1, one_group),
+        ("one policy +-0.1, 100 raters", [100], 0.1, one_group),
+        ("two groups, 10 + 10", [10, 10], 0.0, two_found),
+    ]
+
+
+def measure_rule(n_panels: int, *, parts: bool = True, jitter: bool = True) -> None:
+    """Share of panels the rule gets right, per setting, with the parts of the rule apart.
+
+    Also reported: the share right with the simulated test alone (threshold 0), and
+    for the lone rater the share of panels where the merge that absorbs them costs
+    no more than 0.01 of the whole panel's R^2 (the earlier rule's threshold, which
+    then absorbed them whatever the simulated test said).
+    """
+    print(f"{'setting':<30} {'rule right':>22} {'test alone right':>22} "
+          f"{'old threshold absorbs':>22} {'s/panel':>8}")
+    for name, sizes, weight_sd, right in rule_settings():
+        if weight_sd and not jitter:
+            continue
+        hits = alone_hits = old_absorbs = 0
+        t0 = time.perf_counter()
+        for seed in range(n_panels):
+            design, first, truth = scale_panel(20261202 + seed, sizes, jitter=weight_sd)
+            result = group_raters(design, first, rng=seed, n_resamples=0)
+            hits += right(result, truth)
+            if parts:
+                alone = group_raters(design, first, rng=seed, n_resamples=0, threshold=0.0)
+                alone_hits += right(alone, truth)
+            if sizes[-1] == 1:
+                lone = next(r for r, g in truth.items() if g == 1)
+                step = next(m for m in result.merges if lone in m.merged_a + m.merged_b)
+                old_absorbs += step.r2_drop <= OLD_PANEL_R2_THRESHOLD
+        took = (time.perf_counter() - t0) / n_panels
+        old = share_with_interval(old_absorbs, n_panels) if sizes[-1] == 1 else "-"
+        alone = share_with_interval(alone_hits, n_panels) if parts else "-"
+        print(f"{name:<30} {share_with_interval(hits, n_panels):>22} "
+              f"{alone:>22} {old:>22} {took:>8.2f}",
+              flush=True)
+
+
 def main():
     parser = argparse.ArgumentParser()
     parser.add_argument("--full", action="store_true")
     parser.add_argument("--audit-panels", action="store_true")
+    parser.add_argument("--rule", type=int, nargs="?", const=200, default=None)
+    parser.add_argument("--rule-only", action="store_true",
+                        help="with --rule: skip the test-alone rerun and the +-0.1 settings")
     args = parser.parse_args()
     if args.audit_panels:
         audit_panels()
+        return
+    if args.rule:
+        measure_rule(args.rule, parts=not args.rule_only, jitter=not args.rule_only)
         return
     sizes = [(10, 60, 4), (30, 150, 6), (60, 300, 6)]
     if args.full:

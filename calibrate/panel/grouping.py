@@ -43,9 +43,12 @@ from .merges import agglomerate, labels_at, name_groups, release_work_memory, st
 from .stability import (
     SURVIVAL_JACCARD,
     adjusted_rand_index,
-    number_of_groups,
+    groups_by_rule,
+    keep_apart_rule,
+    merge_side_loss,
     resample_budget,
     resampling_stability,
+    tree_side_losses,
     ward_cross_check,
 )
 
@@ -64,14 +67,19 @@ __all__ = [
 class MergeStep(ResultMixin):
     """One merge of the grouping sequence.
 
-    ``r2`` is the overall R^2 after the merge and ``r2_drop`` what the merge cost.
+    ``r2`` is the overall R^2 after the merge and ``r2_drop`` what the merge cost the
+    whole panel's R^2 (descriptive: it shrinks as the panel grows). ``side_r2_loss``
+    is what the merge costs the side that suffers most, as a share of that side's
+    own spread of judgments (the R^2 it gives up by adopting the merged weights;
+    :func:`calibrate.panel.stability.merge_side_loss`); the number-of-groups rule
+    reads this one, which does not depend on panel size.
     ``f_statistic`` compares the two groups' weights (the F of equal slopes across
     two sets of raters, Chow 1960, with the residual variance of the model just
     before the merge). It is descriptive only: the groups were formed from the same
     judgments to differ, so the F distribution would give p-values far too small for
     the late merges (measured: half of simulated one-policy panels had some merge at
-    p < .01). ``p_value`` is instead a parametric-bootstrap p-value, given for the
-    merges the number-of-groups rule tested (None for the others).
+    p < .01). ``p_value`` is instead the parametric-bootstrap p-value of the merge's
+    side loss, adjusted over the whole tree (None when the chair chose the number).
     """
 
     step: int
@@ -80,6 +88,7 @@ class MergeStep(ResultMixin):
     n_groups: int
     r2: float
     r2_drop: float
+    side_r2_loss: float
     f_statistic: float
     df_num: float
     df_den: float
@@ -227,7 +236,7 @@ def group_raters(
     *,
     rng: np.random.Generator | int | None = None,
     n_resamples: int = 200,
-    threshold: float = 0.01,
+    threshold: float = 0.02,
     alpha: float = 0.05,
     n_groups: int | None = None,
     n_null: int = 100,
@@ -241,12 +250,13 @@ def group_raters(
     rng : seed or Generator for the case resamples (same seed, same result).
     n_resamples : case resamples for stability (0 skips it). Large panels use fewer
         (resamples x raters^2 is capped; the number used is reported and warned).
-    threshold : drop of overall R^2 that one merge must exceed to count as joining
-        different policies.
-    alpha : level of the simulated test that must also reject for a merge to count as
-        joining different policies.
+    threshold : R^2 that the side of a merge that suffers most must lose (as a share
+        of its own spread of judgments) for the merge to count as joining different
+        policies. Default 0.02.
+    alpha : level of the simulated test (adjusted over the whole merge tree) that must
+        also reject for a merge to count as joining different policies.
     n_groups : force this many groups (the chair overrules the rule); None: the rule.
-    n_null : simulated panels per tested merge for the number-of-groups test.
+    n_null : simulated one-policy panels for the number-of-groups test.
 
     Returns
     -------
@@ -261,21 +271,31 @@ def group_raters(
     Statistical Association 58:236-244, error sum of squares criterion; applied to
     rater policies by Christal 1968). Overall R^2 is ``1 - sum_g RSS_g / sum_r S_yy,r``.
 
-    Number of groups (our own rule built on common practice; the defaults are
-    ours). Reading the merge table from the end, as a chair reads for a marked drop
-    in R^2 (Christal 1968), for k = 1, 2, ... the merge from k + 1 groups into k is
-    taken to join different policies when it both costs more than ``threshold`` of
-    overall R^2 *and* its cost exceeds what the same merge costs when the k-group
-    model is true: ``n_null`` panels are simulated from the fitted k-group model
-    (parametric bootstrap; McLachlan 1987) and regrouped, and the Monte Carlo
-    p-value ``(1 + #{simulated drop >= observed}) / (n_null + 1)`` must be below
-    ``alpha``. The first k whose merge fails either test is chosen. The simulation
-    keeps noisy panels from splitting; the R^2 threshold keeps large panels from
-    splitting over differences too small to matter. The whole merge table is returned
-    so a chair can choose another number (``n_groups``).
+    Number of groups (our own rule; the defaults are ours). Each merge of the tree
+    is scored by its side loss (``side_r2_loss``): the R^2 that the side which
+    suffers most gives up, as a share of its own spread of judgments, by adopting
+    the merged weights (:func:`calibrate.panel.stability.merge_side_loss`). It is
+    measured within the two merged groups only, so it does not shrink as the panel
+    grows. A merge keeps its sides apart when its side loss exceeds ``threshold``
+    *and* is larger than one-policy panels produce: ``n_null`` panels are simulated
+    from the fitted one-group model (parametric bootstrap; McLachlan 1987) and
+    grouped; each merge's loss is divided by the typical largest loss of merges with
+    a smaller side of that size class (1, 2-3, 4-7, ... raters: a lone rater's loss
+    is noisier than a group's), and its p-value is taken against the largest scaled
+    loss of each simulated panel's whole tree (single-step max-T, Westfall & Young
+    1993), which must be below ``alpha``. The groups are then the pieces of the tree
+    between the merges kept apart, with pieces the rule would not keep apart joined
+    again, cheapest first (see :func:`calibrate.panel.stability.groups_by_rule`).
+    An earlier rule required a merge to cost more than 0.01 of the *whole panel's*
+    R^2 and read only the top of the tree: a lone rater with a different policy
+    moves the whole panel's R^2 by about 1/R of their own loss and in a large panel
+    joins one half of a split lower down, so panels of 60 or 100 absorbed them
+    (figures in DEVELOPERS.md). Each merge's p-value is in ``p_value``; the whole
+    merge table is returned so a chair can choose another number (``n_groups``).
 
     Stability. Cases are resampled with replacement (counts as weights); each
-    resample is grouped by the same merges and cut at the chosen number of groups
+    resample is grouped by the same merges and the same rule (with the full data's
+    simulated yardsticks), or cut at ``n_groups`` when the chair chose the number
     (as in Hennig 2007). Reported: how often each pair shares a group, the adjusted
     Rand index against the full-data grouping, and per group the mean best-match
     Jaccard similarity; below 0.5 the group does not survive resampling.
@@ -360,9 +380,10 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         r2_individual = 1.0 - float(own.rss[eligible].sum()) / tss if n_eligible else np.nan
 
     start_labels = np.where(eligible, np.arange(R), -1)
-    merges = _merge_steps(agg.history, start_labels, raters, tss=tss,
+    merges = _merge_steps(agg.history, start_labels, raters, full.sscp, tss=tss,
                           n_residual=n_total - n_eligible, p=p)
 
+    keep_apart = None
     if n_groups is not None:
         if not 1 <= n_groups <= max(n_eligible, 1):
             raise DataError(f"n_groups must be between 1 and {max(n_eligible, 1)} "
@@ -374,19 +395,26 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         if n_null < asked_null:
             warnings.append(f"The number-of-groups test simulated {n_null} panels instead of "
                             f"{asked_null} to keep the run short for {n_eligible} raters.")
-        chosen, p_values = number_of_groups(
-            {m.n_groups: m.r2_drop for m in merges}, Z, who, start_labels, agg.history,
-            eligible, own.rss, own.df_resid, p, threshold=threshold, alpha=alpha,
-            n_sims=n_null, generator=generator)
-        merges = [dataclasses.replace(m, p_value=p_values[m.n_groups])
-                  if m.n_groups in p_values else m for m in merges]
-        rule = (f"Keep two groups apart when merging them loses more than {threshold:g} "
-                f"of overall R^2 and more than in panels simulated with one shared policy "
-                f"for them (p < {alpha:g}, {n_null} simulations).")
+        chosen = min(n_eligible, 1)  # the rule below decides when two or more can be fitted
+        if n_eligible >= 2:
+            keep_apart = keep_apart_rule(Z, who, eligible, own.rss, own.df_resid, p, n_null,
+                                         generator, threshold=threshold, alpha=alpha)
+            losses, smaller = tree_side_losses(full.sscp[None], eligible[None], agg.history, p)
+            p_values = keep_apart.p_value(losses[0], smaller[0])
+            merges = [dataclasses.replace(m, p_value=float(pv)) for m, pv in zip(merges, p_values)]
+        rule = (f"Keep two groups apart when sharing one equation would cost either of "
+                f"them more than {threshold:g} of its own R^2, and more than merges of "
+                f"groups that size cost in panels simulated with one shared policy "
+                f"(p < {alpha:g} over the whole merge tree, {n_null} simulations).")
     if n_eligible == 0:
         chosen = 0
         warnings.append("No rater's policy could be fitted; no groups formed.")
-    slots = labels_at(start_labels, agg.history, max(n_eligible - chosen, 0))
+    if keep_apart is not None and n_eligible >= 2:
+        slots = groups_by_rule(full.sscp[None], full.n[None], eligible[None], agg.history,
+                               losses, smaller, keep_apart, p)[0]
+        chosen = int(np.unique(slots[slots >= 0]).size)
+    else:
+        slots = labels_at(start_labels, agg.history, max(n_eligible - chosen, 0))
     names = name_groups(slots, raters)
     rater_group = dict(zip(raters, names))
 
@@ -395,7 +423,7 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         warnings.append(f"Stability used {used_resamples} case resamples instead of "
                         f"{n_resamples} to keep the run short for {n_eligible} raters.")
     stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots, eligible,
-                                     p, chosen, used_resamples, generator)
+                                     p, chosen, used_resamples, generator, keep_apart)
     if stability.n_sat_out:
         warnings.append(f"In {stability.n_sat_out} of {used_resamples} resamples some rater "
                         "had too few distinct cases for an equation and sat that resample out.")
@@ -434,13 +462,21 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     )
 
 
-def _merge_steps(history, start_labels, raters, *, tss, n_residual, p) -> list[MergeStep]:
+def _merge_steps(history, start_labels, raters, sscp, *, tss, n_residual, p) -> list[MergeStep]:
     """The merge table of one grouping, from the recorded history of :func:`agglomerate`.
 
-    ``n_residual`` is the judgments pooled less one intercept per rater; the F of
-    equal slopes (Chow 1960) has ``p`` and ``n_residual - p * groups_before``
-    degrees of freedom.
+    ``sscp`` is each rater's centred SSCP (for the side losses). ``n_residual`` is
+    the judgments pooled less one intercept per rater; the F of equal slopes (Chow
+    1960) has ``p`` and ``n_residual - p * groups_before`` degrees of freedom.
     """
+    group_sscp = np.where((start_labels >= 0)[:, None, None], sscp, 0.0)
+    sides = []
+    for _, i, j, *_ in history:  # one step per merge; the batched work is below
+        i, j = int(i[0]), int(j[0])
+        sides.append((group_sscp[i].copy(), group_sscp[j].copy()))
+        group_sscp[i] += group_sscp[j]
+    side_loss = (merge_side_loss(np.array([a for a, _ in sides]), np.array([b for _, b in sides]), p)
+                 if sides else np.array([]))
     merges: list[MergeStep] = []
     labels = start_labels.copy()
     for step, (_, i, j, cost, rss_before, groups_before) in enumerate(history, start=1):
@@ -457,6 +493,7 @@ def _merge_steps(history, start_labels, raters, *, tss, n_residual, p) -> list[M
             n_groups=groups_before - 1,
             r2=1.0 - rss_after / tss,
             r2_drop=cost / tss,
+            side_r2_loss=float(side_loss[step - 1]),
             f_statistic=f_stat,
             df_num=float(p),
             df_den=float(df_den),

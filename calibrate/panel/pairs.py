@@ -74,6 +74,9 @@ class PairConflict(ResultMixin):
         judgment outside the linear policies.
         ``1 - r = loss_inconsistency + loss_weighting - unmodelled`` exactly.
     main_source : "weighting" or "inconsistency", the larger of the two losses.
+    dropped_terms : design columns left out of both policies for this pair because
+        they are constant on the shared cases (say a category neither rater met
+        together); the figures are those of the model without them.
     """
 
     rater_a: str
@@ -89,6 +92,7 @@ class PairConflict(ResultMixin):
     loss_weighting: float
     unmodelled: float
     main_source: str | None
+    dropped_terms: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -217,15 +221,22 @@ def pairwise_conflict(
              for s in _chunks(a_idx.size, max(1, _CELLS_PER_CHUNK // max(1, X.shape[0])))]
     fields = {k: np.concatenate([part[k] for part in parts]) if parts else np.zeros(0)
               for k in ("n", "r", "g", "c", "r_s_a", "r_s_b", "mean_gap", "unmodelled",
-                        "rank_ok")}
+                        "rank_ok", "dropped")}
+    if not parts:
+        fields["dropped"] = np.zeros((0, p), dtype=bool)
     bad = ~fields["rank_ok"].astype(bool)
     if bad.any():
         names = [f"{rows.raters[a]}-{rows.raters[b]}" for a, b in zip(a_idx[bad], b_idx[bad])]
         warnings.append(
-            f"{int(bad.sum())} pair(s) have constant judgments or cues on their shared cases, "
-            f"so their policies cannot be separated ({', '.join(names[:5])}"
+            f"{int(bad.sum())} pair(s) have constant judgments or collinear cues on their "
+            f"shared cases, so their policies cannot be separated ({', '.join(names[:5])}"
             f"{' ...' if len(names) > 5 else ''}); their figures are empty."
         )
+    n_dropped = int((fields["dropped"].any(axis=1) & ~bad).sum())
+    if n_dropped:
+        warnings.append(f"{n_dropped} pair(s) share only cases on which some design column is "
+                        "constant; that column is left out of both policies for the pair "
+                        "(listed in its dropped_terms).")
     with np.errstate(invalid="ignore"):
         loss_incons = 1.0 - fields["r_s_a"] * fields["r_s_b"]
         loss_weight = fields["r_s_a"] * fields["r_s_b"] * (1.0 - fields["g"])
@@ -243,6 +254,7 @@ def pairwise_conflict(
             r_s_b=float(fields["r_s_b"][k]), mean_gap=float(fields["mean_gap"][k]),
             loss_inconsistency=li, loss_weighting=lw,
             unmodelled=float(fields["unmodelled"][k]), main_source=source,
+            dropped_terms=tuple(design.columns[j] for j in np.flatnonzero(fields["dropped"][k])),
         ))
     return ConflictResult(
         pairs=tuple(pairs), n_pairs_eligible=n_eligible, n_pairs_kept=len(pairs),
@@ -255,13 +267,43 @@ def _chunks(total: int, size: int):
         yield slice(start, min(total, start + size))
 
 
+#: A design column whose centred sum of squares on a pair's shared cases is below this
+#: share of its sum of squares over all the design's cases is taken as constant there
+#: (rounding in a two-pass centred sum is about 1e-16 of it; our choice, generous).
+_CONSTANT_SHARE = 1e-10
+
+
+def _drop_constant_columns(st, column_ss: np.ndarray, p: int) -> np.ndarray:
+    """Neutralise, in place, the design columns constant on each pair's cases.
+
+    Such a column's row and column of the SSCP are zeroed and its diagonal set to 1,
+    so OLS gives it a weight of exactly 0 and every other figure is that of the
+    model without it (the column is then orthogonal to everything). Returns the
+    (pairs, p) mask of dropped columns.
+    """
+    diag = np.einsum("gii->gi", st.sscp[:, :p, :p])
+    dropped = diag <= _CONSTANT_SHARE * np.maximum(column_ss, np.finfo(float).tiny)[None, :]
+    g, j = np.nonzero(dropped)
+    st.sscp[g, j, :] = 0.0
+    st.sscp[g, :, j] = 0.0
+    st.sscp[g, j, j] = 1.0
+    return dropped
+
+
 def _pair_lens(X: np.ndarray, Y: np.ndarray, a: np.ndarray, b: np.ndarray) -> dict:
-    """Exact lens-model components for pairs (a[k], b[k]) on their shared cases."""
+    """Exact lens-model components for pairs (a[k], b[k]) on their shared cases.
+
+    Design columns constant on a pair's shared cases are dropped for that pair
+    (:func:`_drop_constant_columns`) rather than leaving the pair without figures.
+    """
     p = X.shape[1]
     shared = np.isfinite(Y[a]) & np.isfinite(Y[b])
     pair, case = np.nonzero(shared)
     Z = np.column_stack([X[case], Y[a[pair], case], Y[b[pair], case]])
     st = grouped_sscp(Z, pair, a.size)
+    complete = np.isfinite(X).all(axis=1)
+    column_ss = ((X[complete] - X[complete].mean(axis=0)) ** 2).sum(axis=0)
+    dropped = _drop_constant_columns(st, column_ss, p)
     cues = np.arange(p)
     fit_a = ols_from_sscp(st, cues, p)
     fit_b = ols_from_sscp(st, cues, p + 1)
@@ -294,6 +336,7 @@ def _pair_lens(X: np.ndarray, Y: np.ndarray, a: np.ndarray, b: np.ndarray) -> di
     for key in ("r", "g", "c", "r_s_a", "r_s_b", "unmodelled"):
         out[key] = np.where(rank_ok, out[key], np.nan)
     out["rank_ok"] = rank_ok
+    out["dropped"] = dropped
     return out
 
 # ---------------------------------------------------------------------------

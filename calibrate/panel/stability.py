@@ -4,8 +4,9 @@ Three checks on the grouping made by :func:`calibrate.panel.grouping.group_rater
 run on the merge engine of :mod:`calibrate.panel.merges` so that every simulated
 panel and every case resample is grouped in lockstep with numpy:
 
-* the simulated test behind the number of groups (a parametric bootstrap of the
-  drop in overall R^2 at a merge; McLachlan 1987);
+* the simulated test behind the number of groups (a parametric bootstrap of what a
+  merge costs the side that fits worse for it, relative to that side's own fit;
+  McLachlan 1987 for the bootstrap, the statistic is our own);
 * stability under resampling of cases (pair co-assignment, adjusted Rand index,
   each group's best-match Jaccard similarity; Hennig 2007);
 * Ward clustering of the raters' standardized weights, compared with the grouping.
@@ -20,19 +21,30 @@ from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.optimize import linear_sum_assignment
 
 from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
-from .merges import agglomerate, batched_rss, labels_at, name_groups, stacked_sscp, standardized_weights
+from .merges import (
+    agglomerate,
+    batched_rss,
+    merged_rss,
+    name_groups,
+    stacked_sscp,
+    standardized_weights,
+)
 
 __all__ = [
     "SURVIVAL_JACCARD",
+    "KeepApartRule",
     "ResamplingStability",
     "adjusted_rand_index",
     "group_jaccard",
+    "groups_by_rule",
+    "keep_apart_rule",
     "matched_share",
-    "number_of_groups",
+    "merge_side_loss",
     "resample_budget",
     "resampled_labels",
     "resampling_stability",
-    "simulated_drops",
+    "size_class",
+    "tree_side_losses",
     "ward_cross_check",
 ]
 
@@ -87,47 +99,225 @@ def resample_budget(n_resamples: int, n_raters: int, *, floor: int = 20) -> int:
     return min(n_resamples, max(floor, _RESAMPLE_WORK_BUDGET // (n_raters * n_raters)))
 
 
-def simulated_drops(Z, who, slots, eligible, own_rss, own_df, p, n_groups, n_sims, generator):
-    """Overall-R^2 drop of the merge into ``n_groups`` groups when ``n_groups`` is true.
+def merge_side_loss(sscp_a: np.ndarray, sscp_b: np.ndarray, p: int) -> np.ndarray:
+    """What a merge costs the side that suffers most, as a share of its own spread.
 
-    Parametric bootstrap: judgments are simulated from the ``n_groups``-group model
-    (each group's common weights; each rater's own residual spread, normal errors),
-    regrouped from scratch, and the drop of the merge that reaches ``n_groups``
-    groups is recorded (McLachlan 1987, Applied Statistics 36:318-324, bootstraps the
+    ``sscp_a`` and ``sscp_b`` (M, k, k) are the pooled-within SSCPs of the two groups
+    of M merges. Side ``a`` loses ``d' S_xx,a d`` with ``d = b_{a+b} - b_a`` (the
+    rise of its residual sum of squares when it trades its own common weights for
+    the merged ones: an exact identity, as ``b_a`` minimises its own quadratic),
+    divided by its within-rater sum of squares of judgments ``S_yy,a``: the R^2 that
+    side gives up. The larger of the two sides is returned.
+
+    Why not the drop of the whole panel's R^2: a lone rater merged into a panel of
+    ``R - 1`` loses as much as ever, but the whole panel's R^2 hardly moves when R
+    is large, so a threshold on it absorbed different raters in big panels. The
+    loss of the side itself does not depend on how many other raters there are.
+    Our own statistic.
+    """
+    def weights(sscp):
+        try:
+            return np.linalg.solve(sscp[:, :p, :p], sscp[:, :p, p:])[..., 0]
+        except np.linalg.LinAlgError:  # a singular side somewhere in the stack
+            return (np.linalg.pinv(sscp[:, :p, :p]) @ sscp[:, :p, p:])[..., 0]
+
+    merged = weights(sscp_a + sscp_b)
+
+    def loss(sscp):
+        gap = merged - weights(sscp)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.einsum("mi,mij,mj->m", gap, sscp[:, :p, :p], gap) / sscp[:, p, p]
+
+    return np.maximum(loss(sscp_a), loss(sscp_b))
+
+
+def tree_side_losses(sscp: np.ndarray, active: np.ndarray, history: list,
+                     p: int) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`merge_side_loss` of every merge of every batch, and its smaller side's size.
+
+    ``sscp`` (B, R, k, k) per rater, ``active`` (B, R) and the ``history`` recorded by
+    :func:`calibrate.panel.merges.agglomerate` (``record=True``). Returns two (B, R - 1)
+    arrays in merge order: the side loss (NaN pads batches with fewer merges) and the
+    number of raters on the smaller side (0 there). One batched solve per step.
+    """
+    B, R = active.shape
+    group = np.where(active[:, :, None, None], sscp, 0.0)
+    size = active.astype(int)
+    out = np.full((B, max(R - 1, 0)), np.nan)
+    smaller = np.zeros((B, max(R - 1, 0)), dtype=int)
+    done = np.zeros(B, dtype=int)
+    for todo, i, j, *_ in history:
+        a, b = group[todo, i], group[todo, j]
+        out[todo, done[todo]] = merge_side_loss(a, b, p)
+        smaller[todo, done[todo]] = np.minimum(size[todo, i], size[todo, j])
+        group[todo, i] = a + b
+        size[todo, i] += size[todo, j]
+        done[todo] += 1
+    return out, smaller
+
+
+def size_class(smaller_side) -> np.ndarray:
+    """0 for a lone rater, 1 for 2-3 raters, 2 for 4-7, ... (log2 classes)."""
+    return np.floor(np.log2(np.maximum(np.asarray(smaller_side), 1))).astype(int)
+
+
+@dataclass(frozen=True)
+class KeepApartRule:
+    """When two groups are kept apart (the number-of-groups rule; our own rule).
+
+    A merge keeps its two sides apart when its side loss (:func:`merge_side_loss`)
+    exceeds ``threshold`` *and* its scaled loss has a Monte Carlo p-value below
+    ``alpha`` against ``null_max``.
+
+    The scaled loss is the side loss divided by ``scale[c]``, where c is the size
+    class of the merge's smaller side (:func:`size_class`): a lone rater's loss is
+    noisier than a group of ten's, so each class is measured against its own yard.
+    ``scale[c]`` is the median, over panels simulated with one shared policy, of the
+    largest side loss among that class's merges. ``null_max`` holds, per simulated
+    panel, the largest scaled loss of any merge of its whole tree, so the p-value
+    ``(1 + #{null_max >= scaled}) / (n + 1)`` is adjusted for every merge of the
+    tree at once (single-step max-T; Westfall & Young 1993, Resampling-Based
+    Multiple Testing, ch. 2; from memory). The scales come from the same simulated
+    panels as ``null_max``.
+    """
+
+    threshold: float
+    alpha: float
+    scale: np.ndarray       # per size class; classes beyond the last use the last
+    null_max: np.ndarray    # sorted
+
+    def scaled(self, loss, smaller_side) -> np.ndarray:
+        if self.scale.size == 0:
+            return np.full(np.shape(loss), np.nan)
+        c = np.minimum(size_class(smaller_side), self.scale.size - 1)
+        return np.asarray(loss, dtype=float) / self.scale[c]
+
+    def p_value(self, loss, smaller_side) -> np.ndarray:
+        scaled = self.scaled(loss, smaller_side)
+        above = self.null_max.size - np.searchsorted(self.null_max, scaled, side="left")
+        return np.where(np.isfinite(scaled), (1.0 + above) / (self.null_max.size + 1.0), np.nan)
+
+    def apart(self, loss, smaller_side) -> np.ndarray:
+        loss = np.asarray(loss, dtype=float)
+        with np.errstate(invalid="ignore"):
+            return (loss > self.threshold) & (self.p_value(loss, smaller_side) < self.alpha)
+
+
+def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
+                    threshold: float, alpha: float) -> KeepApartRule:
+    """The :class:`KeepApartRule` of a panel, from panels simulated with one shared policy.
+
+    Parametric bootstrap: judgments are simulated from the one-group model (the
+    pooled-within weights of every eligible rater; each rater's own residual spread,
+    normal errors) and grouped from scratch; every merge's side loss and smaller
+    side are kept (McLachlan 1987, Applied Statistics 36:318-324, bootstraps the
     test for the number of mixture components this way; from memory).
     """
     R = eligible.size
-    present = np.unique(slots[slots >= 0])
-    member = (slots[None, :] == present[:, None]).astype(float)
     base = grouped_sscp(Z, who, R)
-    pooled = np.einsum("gr,rij->gij", member, base.sscp)
-    fit = ols_from_sscp(GroupedSSCP(n=member @ base.n, mean=np.zeros((present.size, p + 1)),
-                                    sscp=pooled), np.arange(p), p)
-    coef_of_rater = np.zeros((R, p))
-    rows_of_slot = np.searchsorted(present, slots[eligible])
-    coef_of_rater[eligible] = fit.coef[rows_of_slot]
+    pooled = base.sscp[eligible].sum(axis=0)[None]
+    fit = ols_from_sscp(GroupedSSCP(n=np.array([base.n[eligible].sum()]),
+                                    mean=np.zeros((1, p + 1)), sscp=pooled), np.arange(p), p)
     with np.errstate(invalid="ignore", divide="ignore"):
         sigma = np.where(eligible, np.sqrt(own_rss / own_df), 0.0)
     # The intercepts are left out: centring within rater removes them anyway.
-    signal = np.einsum("mp,mp->m", Z[:, :p], coef_of_rater[who])
+    signal = Z[:, :p] @ fit.coef[0]
     noise = generator.standard_normal((n_sims, Z.shape[0])) * sigma[who]
     sscp, n = stacked_sscp(Z, who, R, judgments=signal[None, :] + noise)
     active = np.broadcast_to(eligible, (n_sims, R))
-    agg = agglomerate(sscp, n, active, p, stop_at=n_groups, record=False)
-    return agg.last_cost / agg.tss
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True)
+    losses, smaller = tree_side_losses(sscp, active, agg.history, p)
+    finite = np.isfinite(losses)
+    if not finite.any():
+        return KeepApartRule(threshold, alpha, np.zeros(0), np.zeros(0))
+    classes = size_class(smaller)
+    scale: list[float] = []
+    for c in range(int(classes[finite].max()) + 1):
+        in_class = np.where((classes == c) & finite, losses, -np.inf).max(axis=1)
+        found = in_class[np.isfinite(in_class)]
+        scale.append(float(np.median(found)) if found.size else (scale[-1] if scale else 1.0))
+    rule = KeepApartRule(threshold, alpha, np.array(scale), np.zeros(0))
+    scaled = np.where(finite, rule.scaled(np.where(finite, losses, 0.0), smaller), -np.inf)
+    return KeepApartRule(threshold, alpha, np.array(scale), np.sort(scaled.max(axis=1)))
 
 
-def resampled_labels(Z, who, case_row, counts, eligible, p, chosen) -> np.ndarray:
-    """Group every resample (rows of ``counts``) and cut at ``chosen`` groups.
+def groups_by_rule(sscp, n, active, history, losses, smaller, rule: KeepApartRule,
+                   p) -> np.ndarray:
+    """(B, R) slot labels: the groups the rule keeps apart, in every batch.
 
-    Returns (B, R) slot labels; -1 for a rater left out of that resample.
+    First the tree is cut at every merge the rule keeps apart: the pieces are the
+    largest subtrees with no such merge inside. Pieces that the rule would not keep
+    apart are then joined again, cheapest merge first (Ward's order), until every
+    remaining pair is kept apart. This second step matters: in a large panel the top
+    merges of the tree can split raters who share a policy while the different rater
+    joins one half lower down; cutting only the tree would then give three groups
+    (and reading the tree from the top would absorb the different rater).
+    """
+    B, R = active.shape
+    piece = np.where(active, np.arange(R)[None, :], -1)
+    tainted = np.zeros((B, R), dtype=bool)
+    apart = rule.apart(losses, smaller)
+    done = np.zeros(B, dtype=int)
+    for todo, i, j, *_ in history:
+        bad = apart[todo, done[todo]] | tainted[todo, i] | tainted[todo, j]
+        tainted[todo, i] = bad
+        join, ji, jj = todo[~bad], i[~bad], j[~bad]
+        if join.size:
+            moved = piece[join] == jj[:, None]
+            piece[join] = np.where(moved, ji[:, None], piece[join])
+        done[todo] += 1
+    for b in np.flatnonzero(tainted.any(axis=1)):
+        piece[b] = _join_pieces(sscp[b], n[b], piece[b], rule, p)
+    return piece
+
+
+def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
+    """Join pieces of one batch, cheapest merge first, while the rule allows it."""
+    piece = piece.copy()
+    ids = [int(g) for g in np.unique(piece[piece >= 0])]
+    group = {g: sscp[piece == g].sum(axis=0) for g in ids}
+    count = {g: float(n[piece == g].sum()) for g in ids}
+    while len(ids) > 1:
+        first, second = np.triu_indices(len(ids), k=1)
+        a = np.array([group[ids[k]] for k in first])
+        b = np.array([group[ids[k]] for k in second])
+        n_a = np.array([count[ids[k]] for k in first])
+        n_b = np.array([count[ids[k]] for k in second])
+        cost = merged_rss(a + b, n_a + n_b, p) - merged_rss(a, n_a, p) - merged_rss(b, n_b, p)
+        size = np.array([np.sum(piece == g) for g in ids])
+        allowed = ~rule.apart(merge_side_loss(a, b, p),
+                              np.minimum(size[first], size[second]))
+        if not allowed.any():
+            break
+        pick = int(np.flatnonzero(allowed)[np.argmin(cost[allowed])])
+        keep, gone = ids[first[pick]], ids[second[pick]]
+        piece[piece == gone] = keep
+        group[keep] = group[keep] + group.pop(gone)
+        count[keep] += count.pop(gone)
+        ids.remove(gone)
+    return piece
+
+
+def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
+                     rule: KeepApartRule | None = None) -> np.ndarray:
+    """Group every resample (rows of ``counts``): by ``rule``, or cut at ``chosen`` groups.
+
+    With a rule, each resample's whole tree is built and :func:`groups_by_rule`
+    decides its groups, as on the full data (the number may differ between
+    resamples); without one (the chair chose the number) each tree is cut at
+    ``chosen`` groups. Returns (B, R) slot labels; -1 for a rater left out of that
+    resample.
     """
     R = eligible.size
     sscp, n = stacked_sscp(Z, who, R, weights=counts[:, case_row])
     own_rss = batched_rss(sscp, n, p)
     active = eligible[None, :] & np.isfinite(own_rss) & (sscp[:, :, p, p] > 0)
-    agg = agglomerate(sscp, n, active, p, stop_at=max(chosen, 1), record=False)
-    return agg.labels
+    if rule is None:
+        agg = agglomerate(sscp, n, active, p, stop_at=max(chosen, 1), record=False)
+        return agg.labels
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True)
+    losses, smaller = tree_side_losses(sscp, active, agg.history, p)
+    return groups_by_rule(sscp, n, active, agg.history, losses, smaller, rule, p)
 
 
 def group_jaccard(slots: np.ndarray, boot_slots: np.ndarray, eligible: np.ndarray) -> dict:
@@ -177,35 +367,6 @@ def matched_share(a: np.ndarray, b: np.ndarray) -> float:
 
 
 
-def number_of_groups(drop_into: dict[int, float], Z, who, start_labels, history, eligible,
-                     own_rss, own_df, p, *, threshold: float, alpha: float, n_sims: int,
-                     generator: np.random.Generator) -> tuple[int, dict[int, float]]:
-    """The number of groups by the rule of :func:`calibrate.panel.grouping.group_raters`.
-
-    ``drop_into[k]`` is the drop of overall R^2 of the merge into ``k`` groups. For
-    k = 1, 2, ... that merge counts as joining different policies when its drop
-    exceeds ``threshold`` and its Monte Carlo p-value
-    ``(1 + #{simulated drop >= observed}) / (n_sims + 1)`` from
-    :func:`simulated_drops` is below ``alpha``; the first k whose merge fails either
-    is chosen. Returns the chosen k and the p-value of every merge tested, by k.
-    """
-    n_eligible = int(eligible.sum())
-    chosen = 1
-    p_values: dict[int, float] = {}
-    while chosen in drop_into:
-        observed = drop_into[chosen]
-        if not observed > threshold:
-            break
-        level_slots = labels_at(start_labels, history, n_eligible - chosen)
-        drops = simulated_drops(Z, who, level_slots, eligible, own_rss, own_df, p,
-                                chosen, n_sims, generator)
-        p_values[chosen] = float((1.0 + np.sum(drops >= observed)) / (n_sims + 1.0))
-        if not p_values[chosen] < alpha:
-            break
-        chosen += 1
-    return chosen, p_values
-
-
 @dataclass(frozen=True)
 class ResamplingStability:
     """What resampling cases did to a grouping (internal to the grouping)."""
@@ -217,12 +378,13 @@ class ResamplingStability:
 
 
 def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
-                         n_resamples, generator) -> ResamplingStability:
+                         n_resamples, generator,
+                         rule: KeepApartRule | None = None) -> ResamplingStability:
     """Group ``n_resamples`` case resamples in lockstep and compare with ``slots``.
 
     Cases are drawn with replacement (multinomial counts used as weights), every
-    resample is grouped by the same merges and cut at ``chosen`` groups (as in
-    Hennig 2007).
+    resample is grouped by the same merges and then by ``rule`` (or, without one,
+    cut at ``chosen`` groups), as in Hennig 2007.
     """
     R = eligible.size
     if not n_resamples:
@@ -230,7 +392,7 @@ def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
                                    jaccard={}, n_sat_out=0)
     counts = generator.multinomial(n_cases, np.full(n_cases, 1.0 / n_cases),
                                    size=n_resamples).astype(float)
-    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen)
+    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule)
     present = boot_slots >= 0
     same = (boot_slots[:, :, None] == boot_slots[:, None, :]) & present[:, :, None] \
         & present[:, None, :]

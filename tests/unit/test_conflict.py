@@ -171,3 +171,39 @@ def test_same_input_same_output():
     a = pairwise_conflict(design, first).to_dict()
     b = pairwise_conflict(design, shuffled).to_dict()
     assert json.dumps(a) == json.dumps(b)
+
+
+def test_a_dummy_constant_on_the_shared_cases_is_dropped_not_nan():
+    # Two raters share only files whose letter is never 'weak': that dummy is constant
+    # on their cases. Reference: statsmodels OLS of each rater on the shared cases with
+    # that column left out; r, G, C, R as plain Pearson correlations of the pieces.
+    rng = np.random.default_rng(21)
+    design = case_pool(rng, 150)
+    weak = design.columns.index("letter=weak")
+    ids = np.asarray(design.case_ids)
+    not_weak = ids[design.matrix[:, weak] == 0]
+    shared = list(not_weak[:50])
+    y = design.matrix @ np.array([0.08, 0.6, 0.4, -0.5])
+    row = {c: k for k, c in enumerate(ids)}
+    first = pd.concat([
+        pd.DataFrame({"rater": who, "case": shared,
+                      "judgment": [y[row[c]] for c in shared] + rng.normal(0, sd, 50)})
+        for who, sd in (("a", 0.5), ("b", 0.9))])
+    result = pairwise_conflict(design, first)
+    (pair,) = result.pairs
+    assert pair.dropped_terms == ("letter=weak",)
+    assert any("dropped_terms" in w for w in result.warnings)
+    X = sm.add_constant(np.delete(design.matrix[design.row_of(shared)], weak, axis=1))
+    a = first[first.rater == "a"].judgment.to_numpy()
+    b = first[first.rater == "b"].judgment.to_numpy()
+    fit_a, fit_b = sm.OLS(a, X).fit(), sm.OLS(b, X).fit()
+    expected = {
+        "r": np.corrcoef(a, b)[0, 1],
+        "g": np.corrcoef(fit_a.fittedvalues, fit_b.fittedvalues)[0, 1],
+        "c": np.corrcoef(fit_a.resid, fit_b.resid)[0, 1],
+        "r_s_a": np.sqrt(fit_a.rsquared),
+        "r_s_b": np.sqrt(fit_b.rsquared),
+    }
+    for key, value in expected.items():
+        assert getattr(pair, key) == pytest.approx(value, abs=1e-10), key
+    assert json.loads(json.dumps(pair.to_dict()))["dropped_terms"] == ["letter=weak"]

@@ -208,7 +208,9 @@ def test_co_assignment_is_a_symmetric_share():
     np.testing.assert_allclose(np.diag(co), 1.0)
     assert ((co >= 0) & (co <= 1)).all()
     same = np.array([[truth[a] == truth[b] for b in result.raters] for a in result.raters])
-    assert co[same].min() > 0.9 and co[~same].max() < 0.1
+    # Each resample decides its own number of groups by the rule, and a resample (with
+    # repeated cases) sometimes splits a planted group: measured min 0.88 within, 0 across.
+    assert co[same].min() > 0.85 and co[~same].max() < 0.1
 
 
 def test_identity_resample_reproduces_the_full_data_grouping():
@@ -411,7 +413,8 @@ def test_stacked_sscp_equals_grouped_sscp_per_variant():
 def test_demo_planted_groups_are_recovered_exactly_and_stable():
     # Planted truth: calibrate.data.demo plants three policy groups (records, voice, field)
     # in the 'before' round, with an inconsistent, a drifting and an excluded-attribute
-    # reviewer inside them. Measured: exact recovery, ARI 0.998, Jaccard >= 0.998.
+    # reviewer inside them. Measured: exact recovery; each resample choosing its own
+    # number of groups by the rule, ARI 97.5% interval from 0.887.
     from calibrate.data.demo import REVIEWERS, build_demo
 
     cases, judgments = build_demo()
@@ -426,5 +429,70 @@ def test_demo_planted_groups_are_recovered_exactly_and_stable():
     planted = [REVIEWERS[r][0] for r in result.raters]
     assert result.n_groups == 3
     assert adjusted_rand_score(planted, [result.rater_group[r] for r in result.raters]) == 1.0
-    assert all(g.survives for g in result.groups) and result.ari_ci_low > 0.9
+    assert all(g.survives for g in result.groups) and result.ari_ci_low > 0.85
     assert result.warnings == ()
+
+
+def test_side_loss_equals_refitting_each_side_with_the_merged_weights():
+    # Exact identity, statsmodels reference: fit the merged common equation on the rows
+    # of both sides (a dummy per rater), then refit side a alone with its slopes fixed
+    # at the merged ones (only its raters' intercepts free); what that adds to side a's
+    # own residual sum of squares, over its within-rater sum of squares, is its loss.
+    from calibrate.panel.stability import merge_side_loss
+
+    design, first, _ = make_panel(4, THREE_POLICIES[:2], [3, 2], share_seen=0.8)
+    sides = (("rev00", "rev01", "rev02"), ("rev03", "rev04"))
+    Z_rows = {r: (design.matrix[design.row_of(part["case"])], part["judgment"].to_numpy())
+              for r, part in first.groupby("rater")}
+    both = sides[0] + sides[1]
+    X = np.vstack([Z_rows[r][0] for r in both])
+    y = np.concatenate([Z_rows[r][1] for r in both])
+    dummies = np.vstack([np.tile(np.eye(len(both))[k], (len(Z_rows[r][1]), 1))
+                         for k, r in enumerate(both)])
+    slopes = sm.OLS(y, np.column_stack([dummies, X])).fit().params[len(both):]
+    expected = []
+    for side in sides:
+        fixed = sum(float((((Z_rows[r][1] - Z_rows[r][0] @ slopes)
+                            - (Z_rows[r][1] - Z_rows[r][0] @ slopes).mean()) ** 2).sum())
+                    for r in side)
+        own = rss_pooled_statsmodels(design, first, side)
+        expected.append((fixed - own) / within_tss(first, list(side)))
+    stats_ = grouped_sscp(np.column_stack([design.matrix[design.row_of(first["case"])],
+                                           first["judgment"].to_numpy()]),
+                          first["rater"].map({r: k for k, r in enumerate(sorted(Z_rows))})
+                          .to_numpy(), len(Z_rows))
+    p = design.n_columns
+    a = stats_.sscp[:3].sum(axis=0)[None]
+    b = stats_.sscp[3:].sum(axis=0)[None]
+    assert merge_side_loss(a, b, p)[0] == pytest.approx(max(expected), rel=1e-9)
+
+
+def test_keep_apart_rule_does_not_depend_on_panel_size():
+    # Seeded small version of benchmarks/bench_grouping.py --rule (1-7 scales, 60-80
+    # cases, 4-6 correlated cues, each rater sees 80%; tests/unit/grouping_panels.py).
+    # The full runs and their figures are in DEVELOPERS.md.
+    from grouping_panels import lone_rater_kept_apart, scale_panel
+
+    def run(sizes, n_panels, first_seed):
+        out = []
+        for seed in range(first_seed, first_seed + n_panels):
+            design, first, truth = scale_panel(seed, sizes)
+            out.append((group_raters(design, first, rng=seed, n_resamples=0), truth))
+        return out
+
+    small = run([24, 1], 8, 20261202)
+    large = run([99, 1], 2, 20261202)
+    assert sum(lone_rater_kept_apart(g, t) for g, t in small) >= 7
+    assert all(lone_rater_kept_apart(g, t) for g, t in large)
+    # The earlier rule's threshold (0.01 of the whole panel's R^2) would have absorbed
+    # the lone rater of every large panel: their merge moves the panel's R^2 by less.
+    for g, t in large:
+        lone = next(r for r, k in t.items() if k == 1)
+        step = next(m for m in g.merges if lone in m.merged_a + m.merged_b)
+        assert step.r2_drop < 0.01 and step.side_r2_loss > 0.1
+    assert sum(g.n_groups == 1 for g, _ in run([25], 8, 20261302)) >= 7
+    assert all(g.n_groups == 1 for g, _ in run([100], 1, 20261302))
+    two = run([10, 10], 6, 20261402)
+    assert sum(g.n_groups == 2 and adjusted_rand_score(
+        [t[r] for r in g.raters], [g.rater_group[r] for r in g.raters]) == 1.0
+        for g, t in two) >= 5
