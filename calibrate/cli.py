@@ -424,7 +424,8 @@ def score(policies: Path, files: Path, rater: str, phase: str | None, file_colum
     out = out or files.with_name("scores.csv")
     if out.exists() and not overwrite:
         raise OutputExistsError(f"{out} already exists; add --overwrite to replace it.")
-    scored = score_files(load_policies(policies), read_table(files), policy=rater, phase=phase,
+    new_files = read_table(files, id_columns=(file_column,))  # a file id "NA" is an id
+    scored = score_files(load_policies(policies), new_files, policy=rater, phase=phase,
                          file_column=file_column, source=files.name)
     frame = scored.to_frame().map(escape_formula)
     atomic_write_text(out, frame.to_csv(index=False, lineterminator="\n"))
@@ -471,7 +472,8 @@ def plan(pool: Path, raters: str, files_per_rater: int, repeat_share: float, rep
 
     if not pool.is_file():
         raise CalibrateError(f"the pool {pool} does not exist.")
-    result = plan_exercise(read_table(pool), _rater_names(raters), files_per_rater, file_column=file_column,
+    pool_table = read_table(pool, id_columns=(file_column,))  # a file id "NA" is an id
+    result = plan_exercise(pool_table, _rater_names(raters), files_per_rater, file_column=file_column,
                            cues=[c.strip() for c in cues.split(",")] if cues else None,
                            repeat_share=repeat_share, readers_per_file=readers_per_file,
                            min_gap=repeat_distance, method=choose, seed=seed, source=pool.name)

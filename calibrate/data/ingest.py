@@ -204,13 +204,15 @@ def _with_header(path: Path, grid: pd.DataFrame) -> pd.DataFrame:
     return df
 
 
-def read_table(path: Path, *, missing_words: tuple[str, ...] | None = DEFAULT_MISSING_WORDS) -> pd.DataFrame:
+def read_table(path: Path, *, missing_words: tuple[str, ...] | None = DEFAULT_MISSING_WORDS,
+               id_columns: tuple[str, ...] = ()) -> pd.DataFrame:
     """Read a CSV (delimiter sniffed, UTF-8 with or without BOM), XLSX or Parquet file.
 
     Values are kept as read (text for CSV) so that conversion problems can be
     reported row by row. Only empty cells are missing, plus the cells holding one of
     ``missing_words`` (ignoring case and spaces; ``()`` keeps every word as written,
     which is how the study's own rules read tables, applying the words per column).
+    ``id_columns`` are never touched by the missing words: an id "NA" is an id.
     A damaged or unreadable file is a DataError naming it. Adds the spreadsheet row
     number as ``_row``.
     """
@@ -228,7 +230,8 @@ def read_table(path: Path, *, missing_words: tuple[str, ...] | None = DEFAULT_MI
         grid = _read_csv(path)
     df = _with_header(path, grid)
     if missing_words:
-        df = df.apply(lambda col: blank_missing_words(col, missing_words))
+        df = df.apply(lambda col: col if col.name in id_columns
+                      else blank_missing_words(col, missing_words))
     df[ROW] = np.arange(len(df)) + 2
     return df
 

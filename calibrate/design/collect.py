@@ -57,7 +57,10 @@ def collect_packets(plan_folder: Path | str, packets: list[Path], *, scale: str 
     if not scale_min < scale_max:
         raise CalibrateError(f"The scale minimum ({scale_min:g}) must be below its maximum ({scale_max:g}).")
     key = pd.read_csv(plan_folder / "key.csv", dtype=str, keep_default_na=False)
-    files = pd.read_csv(plan_folder / "files.csv", dtype={"file": str})
+    # files.csv is the plan's own: a missing cue was written as an empty cell, and a
+    # file id "NA" is an id, so only empty cells are missing.
+    files = pd.read_csv(plan_folder / "files.csv", dtype={"file": str}, keep_default_na=False,
+                        na_values=[""])
     cues = tuple(json.loads((plan_folder / "plan.json").read_text(encoding="utf-8"))["cues"])
     owner = dict(zip(key["display_code"], key["rater"]))
     stems = {stem.lower(): rater for rater, stem in packet_stems(key["rater"].drop_duplicates()).items()}
@@ -69,7 +72,7 @@ def collect_packets(plan_folder: Path | str, packets: list[Path], *, scale: str 
         if not path.is_file():
             problems.append(DataProblem("The packet does not exist.", file=str(path)))
             continue
-        table = read_table(path)
+        table = read_table(path, id_columns=("display_code",))
         missing_cols = [c for c in ("display_code", "judgment") if c not in table.columns]
         if missing_cols:
             problems.append(DataProblem(f"The packet lacks column(s) {', '.join(missing_cols)}.", file=path.name))

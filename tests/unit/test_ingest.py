@@ -234,3 +234,15 @@ def test_na_rater_and_none_level_survive_the_door(tmp_path):
     assert "NA" in table.phases[0].raters
     assert "x2=None" in table.design.columns or table.design.reference_levels["x2"] == "None"
     assert table.design.complete_rows().all()  # no case lost to a level read as missing
+
+
+def test_read_table_never_blanks_an_id_column(tmp_path):
+    # plan, score and collect read their tables with the documented missing words; the
+    # file or display-code column they name is an id, so "NA" or "None" stays as written.
+    from calibrate.data.ingest import read_table
+
+    path = tmp_path / "pool.csv"
+    path.write_text("file,grade\nNA,3\nNone,NA\nf3,4\n", encoding="utf-8")
+    table = read_table(path, id_columns=("file",))
+    assert table["file"].tolist() == ["NA", "None", "f3"]
+    assert table["grade"].isna().tolist() == [False, True, False]

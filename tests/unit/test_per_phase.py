@@ -9,6 +9,7 @@ import pandas as pd
 import pytest
 
 from calibrate.analyses import audit
+from calibrate.data.ingest import UNNAMED_PHASE
 
 CUES = 'x1 = "numeric"\nx2 = { type = "numeric", missing = "indicator" }\nkind = "categorical"'
 
@@ -71,13 +72,13 @@ def test_each_phase_equals_that_phase_audited_alone(audits, phase):
     assert env_both["weights"] == pytest.approx(env_alone["weights"], abs=1e-12)
     # Per rater: lens point estimates and the policy weights.
     for entry in (e for e in paired["raters"] if e["phase"] == phase):
-        other = alone.rater_entry(entry["rater"], "null")
+        other = alone.rater_entry(entry["rater"], UNNAMED_PHASE)
         for key in ("r_a", "g", "c", "r_e", "r_s", "model_validity", "model_validity_cv"):
             assert entry["lens"][key] == pytest.approx(other["lens"][key], abs=1e-12)
         assert entry["policy"]["weights"] == pytest.approx(other["policy"]["weights"], abs=1e-12)
     # Fill value of the mean-filled cue, as policies.json records it for scoring.
     fill = {name: _fill(audits[name].policies["phases"][label]) for name, label in
-            (("both", phase), (phase, "null"))}
+            (("both", phase), (phase, UNNAMED_PHASE))}
     assert fill["both"] == pytest.approx(fill[phase], abs=1e-12)
     # Cue correlations of the phase.
     ph_both = next(p for p in paired["data_summary"]["phases"] if p["phase"] == phase)
