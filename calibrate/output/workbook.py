@@ -24,6 +24,9 @@ from ..safe_files import reproducible_xlsx_bytes
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 _SHEET_FORBIDDEN = re.compile(r"[\[\]:*?/\\]")
 README_SHEET = "read-me"
+# A worksheet holds at most 1,048,576 rows (the header takes one): the limit of the
+# Office Open XML spreadsheet format. A longer table continues on further sheets.
+SHEET_DATA_ROWS = 1_048_575
 
 # What common columns hold; a caller's own notes take precedence.
 COLUMN_NOTES = {
@@ -109,8 +112,34 @@ def _number_format(column: str, values: pd.Series) -> str | None:
     return None
 
 
+def split_long_tables(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str, str], *,
+                      max_rows: int = SHEET_DATA_ROWS) -> tuple[dict, dict]:
+    """Tables longer than a sheet holds, cut into parts ``name``, ``name (part 2)``, ...
+
+    Each part keeps the header; its description says which rows it holds, so no row
+    is lost silently (the CSV table stays whole).
+    """
+    parts: dict[str, pd.DataFrame] = {}
+    notes: dict[str, str] = {}
+    for name, frame in tables.items():
+        if len(frame) <= max_rows:
+            parts[name], notes[name] = frame, descriptions.get(name, "")
+            continue
+        n_parts = -(-len(frame) // max_rows)
+        for k in range(n_parts):
+            part = name if k == 0 else f"{name} (part {k + 1})"
+            start, stop = k * max_rows, min((k + 1) * max_rows, len(frame))
+            parts[part] = frame.iloc[start:stop]
+            notes[part] = (f"{descriptions.get(name, '')} Rows {start + 1:,}-{stop:,} of "
+                           f"{len(frame):,}: a sheet holds at most {max_rows:,} rows, so this "
+                           f"table continues over {n_parts} sheets (tables/{name}.csv holds "
+                           "it whole).").strip()
+    return parts, notes
+
+
 def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str, str], *,
-                   column_notes: Mapping[str, str] | None = None) -> bytes:
+                   column_notes: Mapping[str, str] | None = None,
+                   max_rows: int = SHEET_DATA_ROWS) -> bytes:
     """The tables as an .xlsx file (bytes).
 
     Parameters
@@ -118,12 +147,14 @@ def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str
     tables : table name -> tidy DataFrame; one sheet each, in this order.
     descriptions : table name -> one sentence on what the table holds (read-me sheet).
     column_notes : column name -> what it holds, for columns the built-in notes miss.
+    max_rows : data rows per sheet; a longer table continues on further sheets.
     """
     from openpyxl import Workbook
     from openpyxl.styles import Alignment, Font
     from openpyxl.utils import get_column_letter
 
     notes = dict(column_notes or {})
+    tables, descriptions = split_long_tables(tables, descriptions, max_rows=max_rows)
     names = sheet_names(tables)
     wb = Workbook()
     readme = wb.active

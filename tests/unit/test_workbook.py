@@ -92,3 +92,17 @@ def test_cells_hold_what_the_table_holds():
 
 def test_same_tables_same_bytes():
     assert workbook_bytes(tables(), {"raters": "x"}) == workbook_bytes(tables(), {"raters": "x"})
+
+
+def test_a_table_longer_than_a_sheet_continues_on_further_sheets():
+    # A worksheet holds 1,048,576 rows (ECMA-376 spreadsheet limit); the workbook cuts a
+    # longer table into parts, each with its header, and the read-me says which rows.
+    frame = pd.DataFrame({"rater": [f"r{i}" for i in range(7)], "x": np.arange(7.0)})
+    wb = load_workbook(io.BytesIO(workbook_bytes({"pairs": frame}, {"pairs": "Pairs."}, max_rows=3)))
+    assert wb.sheetnames == [README_SHEET, "pairs", "pairs (part 2)", "pairs (part 3)"]
+    rows = [r for name in wb.sheetnames[1:] for r in wb[name].iter_rows(min_row=2, values_only=True)]
+    assert [r[0] for r in rows] == frame["rater"].tolist()
+    assert all(next(wb[n].iter_rows(max_row=1, values_only=True)) == ("rater", "x")
+               for n in wb.sheetnames[1:])
+    readme = [r[2] for r in wb[README_SHEET].iter_rows(min_row=2, values_only=True) if r[1] in ("", None)]
+    assert any("Rows 4-6 of 7" in (t or "") and "tables/pairs.csv" in (t or "") for t in readme)
