@@ -217,7 +217,9 @@ def scale_reset_p(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: in
     A parametric bootstrap test (Efron & Tibshirani 1993, ch. 16): the null is each
     rater's straight-line policy under the scale (:func:`.linear_nulls.fit_linear_null`:
     ``kind`` "rounded" for whole steps with ends, "binary" for 0/1 decisions, which
-    need ``y`` in 0/1); ``n_sim`` judgment sets are drawn from it exactly as the scale
+    need ``y`` in 0/1; the audit tests 0/1 decisions with :func:`logistic_reset_test`
+    instead, as this bootstrap of the least-squares F is conservative there, 1.6% at 5%
+    with 40 cases); ``n_sim`` judgment sets are drawn from it exactly as the scale
     produces judgments, and the same RESET F is recomputed on each.
     ``p = (1 + #{F* >= F}) / (n_sim + 1)``. Simulated sets whose statistic is undefined
     (for example every judgment at one end) are left out of that share; a group whose
