@@ -157,3 +157,28 @@ def test_size_of_the_f_table_on_continuous_judgments():
     p = dg.reset_test(X, y, fitted, groups, 2000, fit).p_value
     _, low, high = overlaps_band(p)
     assert low <= 0.06 and high >= 0.04
+
+
+def test_the_policy_fit_uses_the_score_test_on_binary_decisions():
+    # fit_policies on 0/1 reports the score statistic and its chi-square p-value (no draws,
+    # so no refinement), and leaves a rater whose decisions one cue separates untested.
+    import pandas as pd
+
+    from calibrate.data.cues import CueRule, build_cue_design
+    from calibrate.policy.fit import fit_policies
+
+    rng = np.random.default_rng(22)
+    X, y, groups = scale_raters(rng, "binary", 0.3, 3, 50)
+    ids = [f"c{i}" for i in range(50)]
+    cases = pd.DataFrame(X[:50], columns=["cue1", "cue2", "cue3"], index=ids)
+    design = build_cue_design(cases, [CueRule("cue1"), CueRule("cue2"), CueRule("cue3")])
+    shared_X = np.tile(X[:50], (3, 1))
+    y[100:] = (X[:50, 0] > 0).astype(float)   # the third rater: separated by cue 1
+    first = pd.DataFrame({"rater": [f"r{g}" for g in groups], "case": ids * 3, "judgment": y})
+    policies = fit_policies(design, first, scale="binary", n_boot=0, rng=0)
+    expected = dg.logistic_reset_test(shared_X, y, groups, 3)
+    for g in range(2):
+        reset = policies[f"r{g}"].reset
+        assert reset["statistic"] == pytest.approx(expected.statistic[g], rel=1e-9)
+        assert reset["p_value"] == pytest.approx(expected.p_value[g], rel=1e-9)
+    assert np.isnan(policies["r2"].reset["p_value"])
