@@ -8,7 +8,8 @@ Size: share of linear raters with p < .05 (unadjusted, per rater), judged by whe
 99.9% Clopper-Pearson interval (scipy ``binomtest(...).proportion_ci``) overlaps 4-6%.
 Power: the same raters with a planted curve or a planted cut-off rule on cue 1 (see
 ``tests/scale_raters.py``). The curvature test uses the tool's p-value
-(bootstrap on 1-7 and 0/1, F table on continuous); the classical F table is printed beside.
+(bootstrap on 1-7, the score test inside the logistic model on 0/1, F table on
+continuous); the classical F table is printed beside.
 The cut-off check runs exactly as the audit calls it (999 draws, early stopping after 20).
 
     PYTHONPATH=. python benchmarks/bench_scale_nulls.py [n_raters] [setting, e.g. 0/1]
@@ -44,9 +45,10 @@ def curvature_p(kind, X, y, groups, G, rng):
     classical = dg.reset_test(X, y, fitted, groups, G, fit).p_value
     if kind == "continuous":
         return classical, classical
-    null = "rounded" if kind == "ordinal" else "binary"
-    _, p = dg.scale_reset_p(X, y, groups, G, kind=null, scale_min=1 if null == "rounded" else None,
-                            scale_max=7 if null == "rounded" else None, n_sim=199, rng=rng)
+    if kind == "binary":
+        return dg.logistic_reset_test(X, y, groups, G).p_value, classical
+    _, p = dg.scale_reset_p(X, y, groups, G, kind="rounded", scale_min=1, scale_max=7,
+                            n_sim=199, rng=rng)
     return p, classical
 
 

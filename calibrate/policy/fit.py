@@ -454,11 +454,18 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
     reset = dg.reset_test(X, y, influence.fitted, groups, Gb, fit)
     A.reset_f[rows_g] = np.where(ok, reset.statistic, np.nan)
     A.reset_p[rows_g] = np.where(ok, reset.p_value, np.nan)
-    if curvature_null is not None:
-        # Rounding, the scale ends and 0/1 decisions bend a straight-line policy; the F
-        # table would call that curvature. Calibrate the same F against the rater's
-        # straight-line policy seen through the scale instead (own stream, so the
-        # bootstrap intervals keep their numbers).
+    if curvature_null is not None and curvature_null[0] == "binary":
+        # On 0/1 decisions test the bend inside the logistic policy itself (score test,
+        # chi-square table): the logistic bootstrap of the least-squares F was conservative,
+        # and a table p-value needs no refinement draws for the panel-wide adjustment.
+        binary_reset = dg.logistic_reset_test(X, y, groups, Gb)
+        A.reset_f[rows_g] = np.where(ok, binary_reset.statistic, np.nan)
+        A.reset_p[rows_g] = np.where(ok, binary_reset.p_value, np.nan)
+    elif curvature_null is not None:
+        # Rounding and the scale ends bend a straight-line policy; the F table would call
+        # that curvature. Calibrate the same F against the rater's straight-line policy
+        # seen through the scale instead (own stream, so the bootstrap intervals keep
+        # their numbers).
         kind, low, high = curvature_null
         _, scale_p = dg.scale_reset_p(X, y, groups, Gb, kind=kind, scale_min=low, scale_max=high,
                                       n_sim=CURVATURE_SIMULATIONS, rng=rng.spawn(1)[0])
