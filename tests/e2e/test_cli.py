@@ -72,7 +72,9 @@ def test_misspelt_key_names_it_and_suggests_the_right_one(tmp_path):
 
 def test_audit_writes_valid_results_and_refuses_to_overwrite(demo_folder, tmp_path):
     out = tmp_path / "out"
-    proc = run("audit", demo_folder / "study.toml", "--out", out)
+    # --no-pdf: this test is about results.json and the overwrite rule; the PDFs have
+    # their own tests (tests/e2e/test_reports.py), and each build of them costs ~15 s.
+    proc = run("audit", demo_folder / "study.toml", "--out", out, "--no-pdf")
     assert proc.returncode == 0, proc.stderr
     results = json.loads((out / "results.json").read_text())
     jsonschema.validate(results, results_schema())
@@ -82,10 +84,10 @@ def test_audit_writes_valid_results_and_refuses_to_overwrite(demo_folder, tmp_pa
     assert results["seed"] == 20261201
     assert (out / "audit.xlsx").is_file() and (out / "tables" / "raters.csv").is_file()
 
-    again = run("audit", demo_folder / "study.toml", "--out", out)
+    again = run("audit", demo_folder / "study.toml", "--out", out, "--no-pdf")
     assert again.returncode == 2 and "--overwrite" in again.stderr
     assert "Traceback" not in again.stderr
-    third = run("audit", demo_folder / "study.toml", "--out", out, "--overwrite")
+    third = run("audit", demo_folder / "study.toml", "--out", out, "--overwrite", "--no-pdf")
     assert third.returncode == 0, third.stderr
     assert json.loads((out / "results.json").read_text()) == results
 
@@ -93,7 +95,9 @@ def test_audit_writes_valid_results_and_refuses_to_overwrite(demo_folder, tmp_pa
 def test_same_input_and_seed_give_identical_files(demo_folder, tmp_path):
     outs = []
     for name in ("a", "b"):
-        proc = run("audit", demo_folder / "study.toml", "--out", tmp_path / name)
+        # the files compared are written before the PDFs, which have their own
+        # byte-identity test; --no-pdf keeps this test to the analysis
+        proc = run("audit", demo_folder / "study.toml", "--out", tmp_path / name, "--no-pdf")
         assert proc.returncode == 0, proc.stderr
         outs.append(tmp_path / name)
     for rel in ("results.json", "audit.xlsx", "tables/raters.csv"):
