@@ -61,8 +61,14 @@ def fit_rounded_normal(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_group
     Newton steps with the outer product of the row scores as the curvature (Berndt, Hall,
     Hall & Hausman 1974), halved when they would lower a group's likelihood; started from
     least squares. Batched: no loop over groups.
+
+    A rater whose straight line runs inside every judgment's rounding interval has no
+    finite maximum (the likelihood rises as sigma falls to 0), so sigma is held at or
+    above a thousandth of a step: the null then draws that rater's judgments exactly as
+    given, and nothing divides by zero.
     """
     m, p = X.shape
+    log_sigma_floor = np.log(1e-3 * step)
     W = np.column_stack([np.ones(m), X])
     q = p + 1
     lower = np.where(y <= scale_min + 1e-9, -np.inf, y - step / 2.0)
@@ -102,6 +108,7 @@ def fit_rounded_normal(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_group
         shrink = np.ones(n_groups)
         for _halving in range(8):
             trial = theta + shrink[:, None] * direction
+            trial[:, q] = np.maximum(trial[:, q], log_sigma_floor)
             trial_ll, trial_scores = loglik_and_scores(trial)
             better = (trial_ll >= ll - 1e-12) | converged
             if better.all():

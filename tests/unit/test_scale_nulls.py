@@ -182,3 +182,17 @@ def test_the_policy_fit_uses_the_score_test_on_binary_decisions():
         assert reset["statistic"] == pytest.approx(expected.statistic[g], rel=1e-9)
         assert reset["p_value"] == pytest.approx(expected.p_value[g], rel=1e-9)
     assert np.isnan(policies["r2"].reset["p_value"])
+
+
+def test_a_noiseless_rater_on_a_rounded_scale_gets_a_p_value_and_no_warning():
+    # A straight line that runs inside every rounding interval has no finite maximum of
+    # the interval-censored likelihood (sigma -> 0); the fit holds sigma at a thousandth
+    # of a step, so the test gives a p-value instead of dividing by zero (the suite turns
+    # warnings into errors).
+    rng = np.random.default_rng(1)
+    n, groups_n = 40, 3
+    X = rng.normal(size=(n * groups_n, 3))
+    groups = np.repeat(np.arange(groups_n), n)
+    y = np.clip(np.round(4 + X @ [0.5, 0.4, 0.3]), 1, 7)
+    _, p = dg.scale_reset_p(X, y, groups, groups_n, scale_min=1, scale_max=7, n_sim=19, rng=1)
+    assert np.all(np.isfinite(p)) and np.all((p > 0) & (p <= 1))
