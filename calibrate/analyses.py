@@ -28,7 +28,7 @@ from .lens.cutoffs import CutoffResult, cutoff_check
 from .lens.model import LensResult, lens_model
 from .lens.rubric import AlignmentResult, ExcludedResult, excluded_check, rubric_alignment
 from .panel.grouping import GroupingResult, group_raters
-from .panel.pairs import ConflictResult, HomogeneityResult, pairwise_conflict, policy_homogeneity
+from .panel.pairs import RaterPairsResult, HomogeneityResult, compare_rater_pairs, policy_homogeneity
 from .policy.fit import CURVATURE_NOTE, POLICIES_SCHEMA, PolicySet, captured_policies, fit_policies
 from .pvalues import holm_adjust
 from .result_base import jsonable
@@ -53,7 +53,7 @@ class PhaseAnalyses:
     excluded: ExcludedResult | None
     cutoffs: CutoffResult | None
     drift: DriftResult | None
-    conflict: ConflictResult | None
+    rater_pairs: RaterPairsResult | None
     homogeneity: HomogeneityResult | None
     grouping: GroupingResult | None
     verdicts: dict = field(default_factory=dict)
@@ -192,10 +192,10 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         drift_result = drift(design, ordered[["rater", "case", "judgment", "position"]],
                              rng=_rng(seed, phase_index, "drift"))
     n_fit = fit_first["rater"].nunique()
-    conflict = homogeneity = grouping = None
+    rater_pairs = homogeneity = grouping = None
     if n_fit >= 2:
-        step("conflict and homogeneity")
-        conflict = pairwise_conflict(design, fit_first)
+        step("rater pairs and homogeneity")
+        rater_pairs = compare_rater_pairs(design, fit_first)
         homogeneity = policy_homogeneity(design, fit_first, rng=_rng(seed, phase_index, "homogeneity"))
         step("groups")
         grouping = group_raters(design, fit_first, rng=_rng(seed, phase_index, "grouping"))
@@ -212,7 +212,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     return PhaseAnalyses(phase=ph.label, policies=policies, retest=retest_set, agreement=agreement,
                          peer_agreement=peers,
                          severity=sev, gstudy=gstudy, files=files, lens=lens, alignment=alignment,
-                         excluded=excluded, cutoffs=cutoffs, drift=drift_result, conflict=conflict,
+                         excluded=excluded, cutoffs=cutoffs, drift=drift_result, rater_pairs=rater_pairs,
                          homogeneity=homogeneity, grouping=grouping, verdicts=verdicts,
                          chance_flags=chance)
 
@@ -307,7 +307,7 @@ def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool) -> dict:
     entry["groups"] = grouping.get("groups", [])
     entry["grouping"] = grouping or None
     entry["homogeneity"] = a.homogeneity.to_dict() if a.homogeneity is not None else None
-    entry["conflict"] = a.conflict.to_dict() if a.conflict is not None else None
+    entry["rater_pairs"] = a.rater_pairs.to_dict() if a.rater_pairs is not None else None
     entry["lens_environment"] = (a.lens.to_dict().get("environment") if a.lens is not None else None)
     entry["excluded_proxies"] = (a.excluded.to_dict().get("proxies") if a.excluded is not None
                                  else None)
@@ -350,7 +350,7 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
                              ("severity", a.severity),
                              ("gstudy", a.gstudy), ("files", a.files), ("lens", a.lens),
                              ("alignment", a.alignment), ("excluded", a.excluded),
-                             ("cutoffs", a.cutoffs), ("drift", a.drift), ("conflict", a.conflict),
+                             ("cutoffs", a.cutoffs), ("drift", a.drift), ("rater_pairs", a.rater_pairs),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
         _collect_tables(tables, ph, a)
@@ -407,7 +407,7 @@ def _collect_tables(tables: dict[str, pd.DataFrame], ph: PhaseData, a: PhaseAnal
     frames["repeat_pairs"] = ph.repeats.copy()
     frames["reading_order"] = ph.ordered[["rater", "case", "position", "judgment"]].copy()
     for name in ("peer_agreement", "severity", "files", "lens", "alignment", "excluded", "cutoffs", "drift",
-                 "conflict", "grouping"):
+                 "rater_pairs", "grouping"):
         result = getattr(a, name)
         frames[name] = None if result is None else result.to_frame()
     if a.gstudy is not None:

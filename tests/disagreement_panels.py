@@ -1,4 +1,4 @@
-"""Invented panels for the conflict, homogeneity and drift tests (planted truths).
+"""Invented panels for the rater_pairs, homogeneity and drift tests (planted truths).
 
 Each rater judges a random subset of a shared pool of cases (an incomplete
 design) with a linear policy plus normal noise; a test plants what it checks

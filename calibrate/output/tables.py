@@ -63,7 +63,7 @@ TABLE_DESCRIPTIONS = {
     "excluded": "One row per rater, phase and excluded attribute: incremental R^2, test, p-values.",
     "cutoffs": "One row per rater and phase: the best threshold rule on one cue and its test.",
     "drift": "One row per rater and phase: leniency and consistency drift over the reading order.",
-    "conflict": "One row per rater pair and phase: interpersonal lens model (r, G, C, R_i, R_j).",
+    "rater_pairs": "One row per rater pair and phase: interpersonal lens model (r, G, C, R_i, R_j).",
     "grouping": "One row per rater and phase: policy group and the cross-check grouping.",
     "group_merges": "The merge sequence of the policy grouping with the R^2 lost at each step.",
     "groups": "One row per group and phase: pooled policy and stability.",

@@ -3,17 +3,17 @@ model on shared cases), whether policies are alike (homogeneity), and groups of
 raters who weigh cues alike (merge engine and stability)."""
 
 from .grouping import GroupingResult, GroupPolicy, MergeStep, adjusted_rand_index, group_raters
-from .pairs import ConflictResult, HomogeneityResult, PairConflict, pairwise_conflict, policy_homogeneity
+from .pairs import RaterPairsResult, HomogeneityResult, RaterPair, compare_rater_pairs, policy_homogeneity
 
 __all__ = [
-    "ConflictResult",
+    "RaterPairsResult",
     "GroupPolicy",
     "GroupingResult",
     "HomogeneityResult",
     "MergeStep",
-    "PairConflict",
+    "RaterPair",
     "adjusted_rand_index",
     "group_raters",
-    "pairwise_conflict",
+    "compare_rater_pairs",
     "policy_homogeneity",
 ]

@@ -1,6 +1,6 @@
-"""Why raters disagree: pairwise conflict and policy homogeneity, for one phase.
+"""Why raters disagree: the rater-pairs view and policy homogeneity, for one phase.
 
-Pairwise conflict follows Hammond's interpersonal lens model: for two raters
+Where two readers part ways follows Hammond's interpersonal lens model: for two raters
 ``a`` and ``b`` who judged the same cases, fit each rater's policy (OLS of the
 judgment on the cues) on exactly those shared cases. Then
 
@@ -41,7 +41,7 @@ from ..errors import DataError
 from ..policy.linalg import grouped_sscp, ols_from_sscp
 from ..result_base import ResultMixin, jsonable
 
-#: Default limit on the number of rater pairs kept in full (the most conflicting).
+#: Default limit on the number of rater pairs kept in full (the furthest apart).
 #: 2,016 pairs is every pair of a 64-rater panel.
 DEFAULT_MAX_PAIRS = 2016
 
@@ -51,12 +51,12 @@ _CELLS_PER_CHUNK = 4_000_000
 
 
 # ---------------------------------------------------------------------------
-# Pairwise conflict
+# Where two readers part ways
 # ---------------------------------------------------------------------------
 
 
 @dataclass(frozen=True)
-class PairConflict(ResultMixin):
+class RaterPair(ResultMixin):
     """Interpersonal lens model for one pair of raters on their shared cases.
 
     Attributes
@@ -96,15 +96,15 @@ class PairConflict(ResultMixin):
 
 
 @dataclass(frozen=True)
-class ConflictResult(ResultMixin):
-    """Pairwise conflict for one phase.
+class RaterPairsResult(ResultMixin):
+    """Where two readers part ways for one phase.
 
-    pairs : the kept pairs, most conflicting (lowest r) first.
+    pairs : the kept pairs, furthest apart (lowest r) first.
     n_pairs_eligible : pairs with at least ``min_shared`` shared cases.
     n_pairs_kept : ``len(pairs)``; fewer than eligible when ``max_pairs`` cut the list.
     """
 
-    pairs: tuple[PairConflict, ...]
+    pairs: tuple[RaterPair, ...]
     n_pairs_eligible: int
     n_pairs_kept: int
     min_shared: int
@@ -112,7 +112,7 @@ class ConflictResult(ResultMixin):
     warnings: tuple[str, ...] = ()
 
     def to_frame(self) -> pd.DataFrame:
-        columns = [f for f in PairConflict.__dataclass_fields__]
+        columns = [f for f in RaterPair.__dataclass_fields__]
         return pd.DataFrame([p.to_dict() for p in self.pairs], columns=columns)
 
 
@@ -149,13 +149,13 @@ def _screen_pairs(Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return n, r
 
 
-def pairwise_conflict(
+def compare_rater_pairs(
     design: CueDesign,
     first: pd.DataFrame,
     *,
     min_shared: int = 20,
     max_pairs: int = DEFAULT_MAX_PAIRS,
-) -> ConflictResult:
+) -> RaterPairsResult:
     """Interpersonal lens model for every pair of raters with enough shared cases.
 
     For raters a and b and the cases S both judged (first judgments, complete
@@ -177,12 +177,12 @@ def pairwise_conflict(
         rater and case).
     min_shared : a pair needs at least this many shared cases (and more than the
         number of design columns + 2, so both policies can be fitted).
-    max_pairs : keep at most this many pairs, the most conflicting first (lowest
+    max_pairs : keep at most this many pairs, the furthest apart first (lowest
         r on shared cases); the default keeps every pair of a 64-rater panel.
 
     Returns
     -------
-    ConflictResult
+    RaterPairsResult
 
     Raises
     ------
@@ -196,7 +196,7 @@ def pairwise_conflict(
     rows = line_up(design, first)
     warnings: list[str] = []
     if rows.n_dropped:
-        warnings.append(f"{rows.n_dropped} judgment(s) left out of pairwise conflict because "
+        warnings.append(f"{rows.n_dropped} judgment(s) left out of the rater-pairs view because "
                         "the judgment or a cue of the case is missing.")
     X = design.matrix
     p = X.shape[1]
@@ -208,7 +208,7 @@ def pairwise_conflict(
     a_idx, b_idx = a_idx[eligible], b_idx[eligible]
     n_eligible = int(a_idx.size)
     if n_eligible == 0:
-        warnings.append(f"No pair of raters shares {need} or more cases; pairwise conflict "
+        warnings.append(f"No pair of raters shares {need} or more cases; the rater-pairs view "
                         "needs overlapping cases.")
     if n_eligible > max_pairs:
         screen = r_screen[a_idx, b_idx]
@@ -216,7 +216,7 @@ def pairwise_conflict(
         keep = np.sort(order[:max_pairs])
         a_idx, b_idx = a_idx[keep], b_idx[keep]
         warnings.append(f"{n_eligible} rater pairs share enough cases; only the "
-                        f"{max_pairs} most conflicting are kept.")
+                        f"{max_pairs} furthest apart are kept.")
     parts = [_pair_lens(X, Y, a_idx[s], b_idx[s])
              for s in _chunks(a_idx.size, max(1, _CELLS_PER_CHUNK // max(1, X.shape[0])))]
     fields = {k: np.concatenate([part[k] for part in parts]) if parts else np.zeros(0)
@@ -247,7 +247,7 @@ def pairwise_conflict(
         source = None
         if np.isfinite(li) and np.isfinite(lw):
             source = "weighting" if lw > li else "inconsistency"
-        pairs.append(PairConflict(
+        pairs.append(RaterPair(
             rater_a=rows.raters[a_idx[k]], rater_b=rows.raters[b_idx[k]],
             n=int(fields["n"][k]), r=float(fields["r"][k]), g=float(fields["g"][k]),
             c=float(fields["c"][k]), r_s_a=float(fields["r_s_a"][k]),
@@ -256,7 +256,7 @@ def pairwise_conflict(
             unmodelled=float(fields["unmodelled"][k]), main_source=source,
             dropped_terms=tuple(design.columns[j] for j in np.flatnonzero(fields["dropped"][k])),
         ))
-    return ConflictResult(
+    return RaterPairsResult(
         pairs=tuple(pairs), n_pairs_eligible=n_eligible, n_pairs_kept=len(pairs),
         min_shared=int(min_shared), max_pairs=int(max_pairs), warnings=tuple(warnings),
     )

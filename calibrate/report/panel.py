@@ -1,5 +1,5 @@
 """The chair's panel summary: flags first, every rater, weights, groups, agreement,
-conflict, files to read again, excluded attributes, data quality, methods, cautions."""
+where two readers part ways, files to read again, excluded attributes, data quality, methods, cautions."""
 
 from __future__ import annotations
 
@@ -54,7 +54,7 @@ METHODS = (
     ("Krippendorff's alpha", "agreement beyond chance at the scale's level", "Krippendorff (2011)"),
     ("Readers per file", "generalizability variance components and a D-study",
      "Cronbach et al. (1972); Brennan (2001)"),
-    ("Pairwise conflict", "interpersonal lens: agreement split into matching G and consistency",
+    ("Where two readers part ways", "interpersonal lens: agreement split into matching G and consistency",
      "Hammond (1965)"),
     ("Groups of raters", "hierarchical grouping losing the least overall R² at each merge",
      "Ward (1963); Christal (1968)"),
@@ -217,7 +217,7 @@ class PanelReport:
         story += [CondPageBreak(200), text(f"Agreement and readers per file{label}", HEADING)]
         story += self.agreement(panel)
         story += [CondPageBreak(200), text(f"Where pairs of raters disagree{label}", HEADING)]
-        story += self.conflict(panel)
+        story += self.rater_pairs(panel)
         return story
 
     def heat_map(self, phase) -> list:
@@ -327,7 +327,7 @@ class PanelReport:
             story.append(text("The readers-per-file table is not available for this study yet.", BODY))
         return story
 
-    def conflict(self, panel: PanelView) -> list:
+    def rater_pairs(self, panel: PanelView) -> list:
         pairs = panel.pairs
         if not pairs:
             return [text("The pairwise view is not available for this study yet.", BODY)]

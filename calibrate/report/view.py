@@ -459,10 +459,10 @@ class PanelView:
                                                          for i, r in enumerate(_list(grouping_block, "raters", gp))
                                                          if r.get("group")))
         hom = _block(d, "homogeneity", path)
-        conflict = _block(d, "conflict", path)
+        rater_pairs = _block(d, "rater_pairs", path)
         pairs = []
-        for i, p in enumerate(_list(conflict, "pairs", f"{path}.conflict") if conflict is not None else []):
-            where = f"{path}.conflict.pairs[{i}]"
+        for i, p in enumerate(_list(rater_pairs, "pairs", f"{path}.rater_pairs") if rater_pairs is not None else []):
+            where = f"{path}.rater_pairs.pairs[{i}]"
             n = _get(p, "n", where)
             pairs.append(PairView(str(_get(p, "rater_a", where)), str(_get(p, "rater_b", where)),
                                   None if n is None else int(n), _num(p, "r", where), _num(p, "g", where),

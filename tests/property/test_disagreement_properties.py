@@ -1,4 +1,4 @@
-"""Invariances of pairwise conflict, policy homogeneity and drift (hypothesis)."""
+"""Invariances of the rater-pairs view, policy homogeneity and drift (hypothesis)."""
 
 from __future__ import annotations
 
@@ -8,7 +8,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from calibrate.consistency.reading_order import drift
-from calibrate.panel.pairs import pairwise_conflict, policy_homogeneity
+from calibrate.panel.pairs import compare_rater_pairs, policy_homogeneity
 from tests.disagreement_panels import case_pool, first_judgments
 
 WEIGHTS = np.array([[0.10, 0.5, 0.8, -0.6], [0.02, 1.0, 0.1, -0.1],
@@ -34,22 +34,22 @@ def _affine_per_rater(first, scale, shift):
 
 @settings(max_examples=15, deadline=None)
 @given(seed=seeds, scale=scales, shift=shifts)
-def test_conflict_ignores_positive_affine_changes_of_each_rater(seed, scale, shift):
+def test_rater_pairs_ignores_positive_affine_changes_of_each_rater(seed, scale, shift):
     # Correlations, R_s, G and C are invariant to a positive affine change of a variable.
     design, first = _panel(seed)
-    before = pairwise_conflict(design, first).to_frame()
-    after = pairwise_conflict(design, _affine_per_rater(first, scale, shift)).to_frame()
+    before = compare_rater_pairs(design, first).to_frame()
+    after = compare_rater_pairs(design, _affine_per_rater(first, scale, shift)).to_frame()
     for column in ("r", "g", "c", "r_s_a", "r_s_b"):
         np.testing.assert_allclose(after[column], before[column], rtol=0, atol=1e-8)
 
 
 @settings(max_examples=15, deadline=None)
 @given(seed=seeds)
-def test_conflict_follows_rater_renaming(seed):
+def test_rater_pairs_follows_rater_renaming(seed):
     design, first = _panel(seed)
     mapping = {f"reader{r:03d}": f"z{9 - r}" for r in range(4)}
-    renamed = pairwise_conflict(design, first.assign(rater=first.rater.map(mapping)))
-    original = {frozenset((p.rater_a, p.rater_b)): p for p in pairwise_conflict(design, first).pairs}
+    renamed = compare_rater_pairs(design, first.assign(rater=first.rater.map(mapping)))
+    original = {frozenset((p.rater_a, p.rater_b)): p for p in compare_rater_pairs(design, first).pairs}
     for pair in renamed.pairs:
         back = {v: k for k, v in mapping.items()}
         twin = original[frozenset((back[pair.rater_a], back[pair.rater_b]))]

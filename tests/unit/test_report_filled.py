@@ -108,7 +108,7 @@ def fill(result, table) -> ReportInput:
         p["grouping"] = {"r2_individual": .7, "merges": merges, "rule": "invented for the test",
                          "raters": [{"rater": n, "group": "A"} for n in names]}
         p["homogeneity"] = {"statistic": 40.2, "p_value": .002}
-        p["conflict"] = {"pairs": [{"rater_a": a, "rater_b": b, "n": 30, "r": .3 + .01 * i, "g": .6, "c": .1,
+        p["rater_pairs"] = {"pairs": [{"rater_a": a, "rater_b": b, "n": 30, "r": .3 + .01 * i, "g": .6, "c": .1,
                                     "main_source": "weighting"}
                                    for i, (a, b) in enumerate(zip(names, names[1:]))]}
     tables = dict(result.tables)

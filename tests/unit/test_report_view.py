@@ -49,7 +49,7 @@ def test_view_of_the_demo_holds_the_results(results):
         forms = panel["agreement"]["icc_detail"]["forms"]
         assert pv.icc.intervals == {f["form"]: (f["ci_low"], f["ci_high"]) for f in forms}
         assert [g.raters for g in pv.groups] == [tuple(g["raters"]) for g in panel["groups"]]
-        assert len(pv.pairs) == len(panel["conflict"]["pairs"])
+        assert len(pv.pairs) == len(panel["rater_pairs"]["pairs"])
 
 
 def test_the_view_is_frozen(results):
@@ -63,8 +63,8 @@ def test_the_view_is_frozen(results):
     (lambda r: r["raters"][0]["policy"].pop("r"), "results.raters[0].policy.r"),
     (lambda r: r["raters"][1]["severity"].pop("range_use"), "results.raters[1].severity.range_use"),
     (lambda r: r["panels"][1].pop("icc"), "results.panels[1].icc"),
-    (lambda r: r["panels"][0]["conflict"]["pairs"][0].pop("main_source"),
-     "results.panels[0].conflict.pairs[0].main_source"),
+    (lambda r: r["panels"][0]["rater_pairs"]["pairs"][0].pop("main_source"),
+     "results.panels[0].rater_pairs.pairs[0].main_source"),
     (lambda r: r["study"].pop("name"), "results.study.name"),
 ])
 def test_a_missing_required_key_is_named(results, where, path):

@@ -1,4 +1,4 @@
-"""Pairwise conflict (interpersonal lens model) on shared cases."""
+"""Where two readers part ways (interpersonal lens model) on shared cases."""
 
 from __future__ import annotations
 
@@ -9,9 +9,9 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-import calibrate.panel.pairs as conflict
+import calibrate.panel.pairs as rater_pairs_module
 from calibrate.errors import DataError
-from calibrate.panel.pairs import pairwise_conflict
+from calibrate.panel.pairs import compare_rater_pairs
 from tests.disagreement_panels import case_pool, first_judgments
 
 WEIGHTS = np.array([[0.10, 0.5, 0.8, -0.6],
@@ -40,7 +40,7 @@ def test_identity_is_exact_on_complete_and_incomplete_designs(per_rater, missing
     # Exact identity r = G R_a R_b + C sqrt(1-R_a^2) sqrt(1-R_b^2) when both policies are
     # refitted on the same cases (Tucker 1964, Psychological Review 71:528-530, from memory).
     design, first = _panel(11, per_rater=per_rater, missing_share=missing_share)
-    frame = pairwise_conflict(design, first).to_frame()
+    frame = compare_rater_pairs(design, first).to_frame()
     assert len(frame) > 0
     assert np.nanmax(_identity_gap(frame)) < 1e-9
     decomposed = frame.loss_inconsistency + frame.loss_weighting - frame.unmodelled
@@ -51,7 +51,7 @@ def test_components_match_statsmodels_fits_on_the_shared_cases():
     # Reference: each rater's policy refitted with statsmodels OLS on exactly the shared
     # cases; R, G, C and r as plain Pearson correlations (np.corrcoef) of the pieces.
     design, first = _panel(5, per_rater=70, missing_share=0.1)
-    result = pairwise_conflict(design, first)
+    result = compare_rater_pairs(design, first)
     complete = pd.Series(design.complete_rows(), index=list(design.case_ids))
     worst = 0.0
     for pair in result.pairs:
@@ -88,29 +88,29 @@ def test_pairs_below_min_shared_are_left_out():
         pd.DataFrame({"rater": "c", "case": ids[45:] , "judgment": y[45:]}),
         pd.DataFrame({"rater": "c", "case": ids[:15], "judgment": y[:15]}),
     ])
-    result = pairwise_conflict(design, first, min_shared=20)
+    result = compare_rater_pairs(design, first, min_shared=20)
     assert [(p.rater_a, p.rater_b, p.n) for p in result.pairs] == [("a", "b", 30)]
     assert result.n_pairs_eligible == 1
-    assert len(pairwise_conflict(design, first, min_shared=15).pairs) == 2
+    assert len(compare_rater_pairs(design, first, min_shared=15).pairs) == 2
 
 
-def test_max_pairs_keeps_the_most_conflicting():
+def test_max_pairs_keeps_the_furthest_apart():
     design, first = _panel(8, per_rater=90)
-    everything = pairwise_conflict(design, first)
-    kept = pairwise_conflict(design, first, max_pairs=5)
+    everything = compare_rater_pairs(design, first)
+    kept = compare_rater_pairs(design, first, max_pairs=5)
     assert everything.n_pairs_eligible == kept.n_pairs_eligible == 15
     lowest = everything.to_frame().nsmallest(5, "r")
     assert [(p.rater_a, p.rater_b) for p in kept.pairs] == list(zip(lowest.rater_a, lowest.rater_b))
-    assert kept.n_pairs_kept == 5 and any("most conflicting" in w for w in kept.warnings)
+    assert kept.n_pairs_kept == 5 and any("furthest apart" in w for w in kept.warnings)
     # pairs are ordered from the lowest agreement up
     assert np.all(np.diff(everything.to_frame().r) >= 0)
 
 
 def test_chunking_does_not_change_the_numbers(monkeypatch):
     design, first = _panel(9)
-    whole = pairwise_conflict(design, first).to_frame()
-    monkeypatch.setattr(conflict, "_CELLS_PER_CHUNK", 250)  # about two pairs per chunk
-    pieces = pairwise_conflict(design, first).to_frame()
+    whole = compare_rater_pairs(design, first).to_frame()
+    monkeypatch.setattr(rater_pairs_module, "_CELLS_PER_CHUNK", 250)  # about two pairs per chunk
+    pieces = compare_rater_pairs(design, first).to_frame()
     pd.testing.assert_frame_equal(whole, pieces, rtol=0, atol=1e-13)
 
 
@@ -122,7 +122,7 @@ def test_planted_sources_of_disagreement():
     w = np.array([[0.1, 0.5], [0.1, 0.5], [0.1, -0.5], [-0.1, 0.5]])
     first = first_judgments(rng, design, per_rater=200, weights=w,
                             noise=np.array([1.5, 1.5, 0.05, 0.05]))
-    by_pair = {(p.rater_a, p.rater_b): p for p in pairwise_conflict(design, first).pairs}
+    by_pair = {(p.rater_a, p.rater_b): p for p in compare_rater_pairs(design, first).pairs}
     noisy = by_pair[("reader000", "reader001")]
     opposed = by_pair[("reader002", "reader003")]
     assert noisy.main_source == "inconsistency" and noisy.g > 0.95
@@ -133,7 +133,7 @@ def test_constant_rater_gives_empty_figures_and_a_warning():
     design, first = _panel(4)
     first = first.copy()
     first.loc[first.rater == "reader001", "judgment"] = 4.0
-    result = pairwise_conflict(design, first)
+    result = compare_rater_pairs(design, first)
     with_constant = [p for p in result.pairs if "reader001" in (p.rater_a, p.rater_b)]
     assert with_constant and all(np.isnan(p.r) and p.main_source is None for p in with_constant)
     assert any("constant judgments" in w for w in result.warnings)
@@ -148,7 +148,7 @@ def test_no_overlap_gives_an_empty_result_with_a_warning():
     ids = np.asarray(design.case_ids)
     first = pd.DataFrame({"rater": ["a"] * 40 + ["b"] * 40, "case": ids,
                           "judgment": rng.normal(size=80)})
-    result = pairwise_conflict(design, first)
+    result = compare_rater_pairs(design, first)
     assert result.pairs == () and result.n_pairs_eligible == 0
     assert result.warnings and result.to_frame().empty
 
@@ -162,14 +162,14 @@ def test_no_overlap_gives_an_empty_result_with_a_warning():
 def test_bad_input_raises_a_data_error(change, message):
     design, first = _panel(1)
     with pytest.raises(DataError, match=message):
-        pairwise_conflict(design, change(first))
+        compare_rater_pairs(design, change(first))
 
 
 def test_same_input_same_output():
     design, first = _panel(13)
     shuffled = first.sample(frac=1.0, random_state=3)
-    a = pairwise_conflict(design, first).to_dict()
-    b = pairwise_conflict(design, shuffled).to_dict()
+    a = compare_rater_pairs(design, first).to_dict()
+    b = compare_rater_pairs(design, shuffled).to_dict()
     assert json.dumps(a) == json.dumps(b)
 
 
@@ -189,7 +189,7 @@ def test_a_dummy_constant_on_the_shared_cases_is_dropped_not_nan():
         pd.DataFrame({"rater": who, "case": shared,
                       "judgment": [y[row[c]] for c in shared] + rng.normal(0, sd, 50)})
         for who, sd in (("a", 0.5), ("b", 0.9))])
-    result = pairwise_conflict(design, first)
+    result = compare_rater_pairs(design, first)
     (pair,) = result.pairs
     assert pair.dropped_terms == ("letter=weak",)
     assert any("dropped_terms" in w for w in result.warnings)

@@ -1,13 +1,13 @@
-"""Time pairwise conflict, policy homogeneity and drift on invented panels.
+"""Time the rater-pairs view, policy homogeneity and drift on invented panels.
 
 Panels of 10 / 50 / 200 / 500 raters; each rater reads 150 of 600 cases
 (an incomplete design, 6 numeric cues), so a pair shares about 37 cases.
-Pairwise conflict keeps at most ``DEFAULT_MAX_PAIRS`` pairs (the most
-conflicting); the screen over all pairs is timed with it. For the 10-rater
+Where two readers part ways keeps at most ``DEFAULT_MAX_PAIRS`` pairs (the most
+furthest apart); the screen over all pairs is timed with it. For the 10-rater
 panel the exact refits are compared with a loop of statsmodels OLS over pairs
 (the reference used in the tests), to show the speed-up and the agreement.
 
-Run: .venv/bin/python benchmarks/bench_conflict.py [--quick]
+Run: .venv/bin/python benchmarks/bench_rater_pairs.py [--quick]
 """
 
 from __future__ import annotations
@@ -21,7 +21,7 @@ import statsmodels.api as sm
 
 from calibrate.consistency.reading_order import drift
 from calibrate.data.cues import CueRule, build_cue_design
-from calibrate.panel.pairs import DEFAULT_MAX_PAIRS, pairwise_conflict, policy_homogeneity
+from calibrate.panel.pairs import DEFAULT_MAX_PAIRS, compare_rater_pairs, policy_homogeneity
 
 N_POOL, PER_RATER, N_CUES = 600, 150, 6
 
@@ -67,18 +67,18 @@ def statsmodels_loop(design, first, result):
 
 def main(quick: bool) -> None:
     sizes = [10, 50, 200] if quick else [10, 50, 200, 500]
-    print(f"{'raters':>7} {'pairs kept':>10} {'eligible':>9} {'conflict s':>10} "
+    print(f"{'raters':>7} {'pairs kept':>10} {'eligible':>9} {'rater_pairs s':>10} "
           f"{'homogeneity s':>13} {'drift s':>8}")
     for n_raters in sizes:
         design, first, ordered = panel(n_raters)
-        conflict, t_conflict = timed(lambda: pairwise_conflict(design, first))
+        rater_pairs, t_pairs = timed(lambda: compare_rater_pairs(design, first))
         _, t_homog = timed(lambda: policy_homogeneity(design, first, rng=1))
         _, t_drift = timed(lambda: drift(design, ordered, rng=1))
-        print(f"{n_raters:>7} {conflict.n_pairs_kept:>10} {conflict.n_pairs_eligible:>9} "
-              f"{t_conflict:>10.3f} {t_homog:>13.3f} {t_drift:>8.3f}")
+        print(f"{n_raters:>7} {rater_pairs.n_pairs_kept:>10} {rater_pairs.n_pairs_eligible:>9} "
+              f"{t_pairs:>10.3f} {t_homog:>13.3f} {t_drift:>8.3f}")
         if n_raters == 10:
-            worst, t_loop = timed(lambda: statsmodels_loop(design, first, conflict))
-            print(f"        statsmodels loop over the {conflict.n_pairs_kept} pairs: "
+            worst, t_loop = timed(lambda: statsmodels_loop(design, first, rater_pairs))
+            print(f"        statsmodels loop over the {rater_pairs.n_pairs_kept} pairs: "
                   f"{t_loop:.3f} s, max |G difference| {worst:.1e}")
     print(f"(pairs kept at most {DEFAULT_MAX_PAIRS}; {PER_RATER} of {N_POOL} cases per rater, "
           f"{N_CUES} cues)")
