@@ -177,14 +177,16 @@ def demo(out: Path, force: bool) -> None:
 @click.argument("data", type=click.Path(path_type=Path))
 @click.option("--out", "out", type=click.Path(path_type=Path), default=None,
               help="Where to write the draft spec [default: study.toml beside DATA].")
+@click.option("--cases", "cases", type=click.Path(path_type=Path), default=None,
+              help="A table of cues per case (one row per case), joined on the case id.")
 @click.option("--name", default=None, help="Study name [default: from the file name].")
 @click.option("--force", is_flag=True, help="Replace an existing spec file.")
-def init(data: Path, out: Path | None, name: str | None, force: bool) -> None:
-    """Draft a study spec from a judgments table, with comments to check."""
+def init(data: Path, out: Path | None, cases: Path | None, name: str | None, force: bool) -> None:
+    """Draft a study spec from a judgments table (and a cases table), with comments to check."""
     import os
 
     from .data.ingest import read_table
-    from .data.spec import draft_spec
+    from .data.drafting import draft_spec
     from .errors import OutputExistsError
     from .safe_files import atomic_write_text
 
@@ -199,12 +201,19 @@ def init(data: Path, out: Path | None, name: str | None, force: bool) -> None:
                              "for the spec, for example study.toml.")
     if out.exists() and not force:
         raise OutputExistsError(f"{out} already exists; choose another --out or add --force.")
+    if cases is not None and not cases.is_file():
+        raise CalibrateError(f"the cases table {cases} does not exist.")
     table = read_table(data)
     if table.empty:
         raise CalibrateError(f"the table {data} has a header but no rows; init guesses the scale "
                              "and the cues from the data, so give it the table with its judgments.")
     rel = os.path.relpath(data.resolve(), out.resolve().parent)
-    text = draft_spec(table, data_name=Path(rel).as_posix(), study_name=name or data.stem)
+    cases_table = cases_name = None
+    if cases is not None:
+        cases_table = read_table(cases)
+        cases_name = Path(os.path.relpath(cases.resolve(), out.resolve().parent)).as_posix()
+    text = draft_spec(table, data_name=Path(rel).as_posix(), study_name=name or data.stem,
+                      cases=cases_table, cases_name=cases_name)
     atomic_write_text(out, text)
     echo(f"Wrote a draft spec to {out}. Check the lines marked CHECK, then run: calibrate check {out}")
 

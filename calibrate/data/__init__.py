@@ -5,7 +5,8 @@ from .cues import CueDesign, CueRule, build_cue_design
 from .demo import build_demo, write_demo
 from .ingest import JudgmentTable, PhaseData, inspect_study, load_study, read_table
 from .rows import JudgmentRows, RaterLookup, line_up
-from .spec import DataSource, JudgmentScale, StudySpec, draft_spec, parse_spec, read_spec, write_spec
+from .drafting import draft_spec
+from .spec import DataSource, JudgmentScale, StudySpec, parse_spec, read_spec, write_spec
 from .summary import DataSummary, PhaseSummary, format_summary, summarize
 
 __all__ = [

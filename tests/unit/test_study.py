@@ -6,11 +6,11 @@ import pytest
 
 from calibrate.data.spec import (
     DEFAULT_MISSING_WORDS,
-    draft_spec,
     known_scale_ranks,
     parse_spec,
     read_spec,
 )
+from calibrate.data.drafting import draft_spec
 from calibrate.errors import SpecError
 
 BASE = {
