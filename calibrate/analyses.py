@@ -356,6 +356,10 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
         _collect_tables(tables, ph, a)
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))
+            if a.grouping is not None:  # each group's common equation, for `calibrate score --group`
+                policies_out["phases"][ph.label]["groups"] = [
+                    {"group": g.group, "raters": list(g.raters), "weights": dict(g.weights)}
+                    for g in a.grouping.groups]
     tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables}
     return AuditResult(
         study_name=spec.name,

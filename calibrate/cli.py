@@ -410,36 +410,41 @@ if __name__ == "__main__":  # pragma: no cover
 @main.command()
 @click.argument("policies", type=click.Path(path_type=Path))
 @click.argument("files", type=click.Path(path_type=Path))
-@click.option("--rater", "rater", required=True,
+@click.option("--rater", "rater", default=None,
               help="Whose policy to apply: a rater's name, or 'panel' for the mean of the raters' policies.")
+@click.option("--group", "group", default=None,
+              help="Apply a group's common policy instead (its label, e.g. A, from the audit's grouping).")
 @click.option("--phase", default=None, help="Which phase's policies [default: the first].")
 @click.option("--file-column", default="file", show_default=True,
               help="The column of FILES that names each file.")
 @click.option("--out", "out", type=click.Path(path_type=Path), default=None,
               help="Where to write the scores (CSV) [default: scores.csv beside FILES].")
 @click.option("--overwrite", is_flag=True, help="Replace an existing scores file.")
-def score(policies: Path, files: Path, rater: str, phase: str | None, file_column: str,
-          out: Path | None, overwrite: bool) -> None:
+def score(policies: Path, files: Path, rater: str | None, group: str | None, phase: str | None,
+          file_column: str, out: Path | None, overwrite: bool) -> None:
     """Apply a captured policy (from an audit's policies.json) to new files: predicted
     judgment, 95% prediction interval, each cue's contribution, and cues outside the
     range the policy was fitted on."""
     from .data.ingest import read_table
-    from .design.score import load_policies, score_files
+    from .design.score import GROUP_PREFIX, load_policies, score_files
     from .errors import OutputExistsError
     from .safe_files import atomic_write_text, escape_formula
 
+    if (rater is None) == (group is None):
+        raise CalibrateError("say whose policy to apply: --rater NAME (or --rater panel), or --group LABEL.")
     if not files.is_file():
         raise CalibrateError(f"the files table {files} does not exist.")
     out = out or files.with_name("scores.csv")
     if out.exists() and not overwrite:
         raise OutputExistsError(f"{out} already exists; add --overwrite to replace it.")
     new_files = read_table(files, id_columns=(file_column,))  # a file id "NA" is an id
-    scored = score_files(load_policies(policies), new_files, policy=rater, phase=phase,
+    scored = score_files(load_policies(policies), new_files, policy=rater or GROUP_PREFIX + group, phase=phase,
                          file_column=file_column, source=files.name)
     frame = scored.to_frame().map(escape_formula)
     atomic_write_text(out, frame.to_csv(index=False, lineterminator="\n"))
     n_out = sum(1 for cues in scored.outside_range if cues)
-    echo(f"Scored {len(scored.files)} file(s) with the policy of '{rater}' (phase '{scored.phase}'): {out}")
+    whose = f"the policy of '{rater}'" if rater else f"the common policy of group '{group}'"
+    echo(f"Scored {len(scored.files)} file(s) with {whose} (phase '{scored.phase}'): {out}")
     if n_out:
         echo(f"{n_out} file(s) have cues outside the range the policy was fitted on; "
                    "their predictions extrapolate (see the outside_fitted_range column).")

@@ -12,7 +12,13 @@ and :math:`S` their centred cross-products (e.g. Weisberg 2005, *Applied Linear
 Regression*, 3rd ed., section 3.7; checked against statsmodels'
 ``get_prediction``). The panel's policy is the plain mean of the fitted raters'
 intercepts and weights: a typical reader, for which no prediction interval is
-given (it is not one person's regression).
+given (it is not one person's regression). A group's policy (``group:LABEL``) is the
+group's common equation from the audit's grouping: the pooled-within-rater weights
+(one set of weights, each member's own level removed), with the intercept that puts
+the line through the members' mean judgment at their mean case,
+:math:`b_0 = \overline{\bar y_j} - w^\top \overline{\bar x_j}`, which equals the mean of
+the members' fixed effects in a regression with one intercept per rater (checked
+against statsmodels OLS with rater dummies). No prediction interval either.
 
 Each cue's contribution is its weight times how far the file sits from the
 average of the rater's cases, so the baseline (the rater's prediction for their
@@ -33,9 +39,10 @@ from scipy import stats as sps
 from ..errors import CalibrateError, DataError, DataProblem
 from ..result_base import ResultMixin
 
-__all__ = ["PANEL", "ScoredFiles", "load_policies", "score_files"]
+__all__ = ["GROUP_PREFIX", "PANEL", "ScoredFiles", "load_policies", "score_files"]
 
 PANEL = "panel"
+GROUP_PREFIX = "group:"
 SCORABLE_SCHEMAS = ("calibrate.policies/2",)
 
 
@@ -97,7 +104,9 @@ def score_files(policies: dict[str, Any], files: pd.DataFrame, *, policy: str, p
     ----------
     policies : the parsed policies.json (:func:`load_policies`).
     files : one row per new file: ``file_column`` plus one column per cue.
-    policy : a rater's name, or ``"panel"`` for the mean policy of the fitted raters.
+    policy : a rater's name, ``"panel"`` for the mean policy of the fitted raters, or
+        ``"group:LABEL"`` for a group's common equation (policies.json from an audit that
+        grouped the raters).
     phase : which phase's policies (default: the only one, or the first).
     source : how error messages name the files table.
 
@@ -124,6 +133,8 @@ def score_files(policies: dict[str, Any], files: pd.DataFrame, *, policy: str, p
         weights = {c: float(np.mean([p["weights"].get(c, 0.0) or 0.0 for p in fitted.values()])) for c in columns}
         intercept = float(np.mean([p["intercept"] for p in fitted.values()]))
         terms = _panel_terms(fitted.values(), columns)
+    elif policy.startswith(GROUP_PREFIX):
+        columns, weights, intercept, terms = _group_policy(captured, fitted, policy[len(GROUP_PREFIX):], label)
     else:
         if policy not in fitted:
             known = [p["rater"] for p in captured["policies"]]
@@ -150,7 +161,7 @@ def score_files(policies: dict[str, Any], files: pd.DataFrame, *, policy: str, p
     high = np.array([terms["column_max"][c] for c in columns])
     outside = (X < low) | (X > high)
     outside_range = tuple(tuple(dict.fromkeys(owner[columns[j]] for j in np.flatnonzero(row))) for row in outside)
-    if policy == PANEL:
+    if policy == PANEL or policy.startswith(GROUP_PREFIX):
         lower = upper = np.full(len(ids), np.nan)
     else:
         S_inv = np.array(terms["centred_inverse"], dtype=float).reshape(len(columns), len(columns))
@@ -160,6 +171,27 @@ def score_files(policies: dict[str, Any], files: pd.DataFrame, *, policy: str, p
     return ScoredFiles(policy=policy, phase=label, files=tuple(ids), predicted=predicted, lower=lower,
                        upper=upper, baseline=baseline, contributions=contributions,
                        outside_range=outside_range, level=level)
+
+
+def _group_policy(captured: dict[str, Any], fitted: dict[str, Any], group: str, label: str):
+    """(columns, weights, intercept, terms) of a group's common equation (module doc)."""
+    groups = {g["group"]: g for g in captured.get("groups") or []}
+    if group not in groups:
+        if not groups:
+            raise CalibrateError(f"The policies hold no groups for phase '{label}' (the audit did not group "
+                                 "the raters); score with a rater's policy or 'panel'.")
+        raise CalibrateError(f"No group '{group}' in phase '{label}'; groups: {', '.join(groups)}.")
+    members = [fitted[r] for r in groups[group]["raters"] if r in fitted]
+    if not members:
+        raise CalibrateError(f"No member of group '{group}' has a fitted policy in phase '{label}'.")
+    columns = list(captured["design"]["columns"])
+    weights = {c: float(groups[group]["weights"].get(c, 0.0) or 0.0) for c in columns}
+    terms = _panel_terms(members, columns)
+    mean_judgment = np.mean([p["intercept"] + sum((p["weights"].get(c) or 0.0) * p["prediction"]["column_means"][c]
+                                                  for c in p["prediction"]["columns"]) for p in members])
+    intercept = float(mean_judgment - sum(weights[c] * terms["column_means"][c] for c in columns
+                                          if np.isfinite(terms["column_means"][c])))
+    return columns, weights, intercept, terms
 
 
 def _panel_terms(fitted, columns) -> dict[str, Any]:

@@ -111,3 +111,36 @@ def test_prediction_interval_coverage_small_seeded():
 
     # 150 raters x 20 new files = 3000 intervals: 95% +- 1.2 points at 3 SE.
     assert 0.935 <= coverage(150, 15, "1-7", seed=11) <= 0.965
+
+
+def test_group_policy_is_the_fixed_effects_regression_of_its_members():
+    # External check: statsmodels OLS with one intercept per rater (rater dummies, no common
+    # constant) gives the pooled-within weights; the group's prediction for a new file is the
+    # mean of the members' fixed effects plus those weights times the file's cues.
+    cases, design, first, policies = _study()
+    X = pd.DataFrame(design.matrix[design.row_of(first.case)], columns=design.columns)
+    dummies = pd.get_dummies(first.rater).astype(float).reset_index(drop=True)
+    model = sm.OLS(first.judgment.to_numpy(), pd.concat([X.reset_index(drop=True), dummies], axis=1)).fit()
+    captured = policies["phases"]["all"]
+    captured["groups"] = [{"group": "A", "raters": ["ana", "ben"],
+                           "weights": {c: float(model.params[c]) for c in design.columns}}]
+    new = pd.DataFrame({"file": ["n1", "n2"], "grades": [2.0, 6.0], "essay": [4.0, 6.5], "track": ["science", "trade"]})
+    Xnew = pd.DataFrame({c: (new.track == c.split("=")[1]).astype(float) if "=" in c else new[c]
+                         for c in design.columns})
+    expected = Xnew.to_numpy() @ model.params[list(design.columns)].to_numpy() + model.params[["ana", "ben"]].mean()
+    scored = score_files(policies, new, policy="group:A")
+    np.testing.assert_allclose(scored.predicted, expected, atol=1e-8)
+    np.testing.assert_allclose(scored.baseline + scored.contributions.sum(axis=1), scored.predicted, atol=1e-10)
+    assert np.isnan(scored.lower).all()
+
+
+def test_unknown_group_and_policies_without_groups_say_what_exists():
+    from calibrate.errors import CalibrateError
+
+    _, _, _, policies = _study()
+    new = pd.DataFrame({"file": ["n1"], "grades": [4.0], "essay": [5.0], "track": ["arts"]})
+    with pytest.raises(CalibrateError, match="hold no groups"):
+        score_files(policies, new, policy="group:A")
+    policies["phases"]["all"]["groups"] = [{"group": "A", "raters": ["ana"], "weights": {}}]
+    with pytest.raises(CalibrateError, match="groups: A"):
+        score_files(policies, new, policy="group:B")
