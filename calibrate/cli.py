@@ -496,6 +496,9 @@ def plan(pool: Path, raters: str, files_per_rater: int, repeat_share: float, rep
                f"packets and key in {out}/ (keep key.csv away from the raters).")
     echo(f"Largest correlation between cues: {result.max_abs_correlation():.2f} in the chosen files, "
                f"{result.max_abs_correlation(False):.2f} in the pool; {result.files_per_weight:.1f} files per weight.")
+    echo(f"For a typical rater (R_s 0.80) the 95% interval of R_s will be about {result.rs_interval_width:.2f} "
+         f"wide; a before/after change in R_s smaller than {result.rs_detectable_change:.2f} could go unseen "
+         "(80% power, 5% two-sided).")
     echo(result.to_frame().to_string(index=False, float_format=lambda v: f"{v:.2f}"))
 
 

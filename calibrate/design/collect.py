@@ -9,7 +9,7 @@ holding another's codes is reported. Every problem names the file, row and colum
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -35,13 +35,14 @@ class CollectedPackets(ResultMixin):
     scale_min: float
     scale_max: float
     warnings: tuple[str, ...] = ()
+    cue_kinds: dict[str, str] = field(default_factory=dict)   # cue -> numeric | categorical (plan.json)
 
     def to_frame(self) -> pd.DataFrame:
         return self.judgments
 
     def to_dict(self) -> dict:
         return {"n_judgments": len(self.judgments), "raters": sorted(self.judgments["rater"].unique().tolist()),
-                "cues": list(self.cues), "scale": self.scale, "min": self.scale_min, "max": self.scale_max,
+                "cues": list(self.cues), "cue_kinds": dict(self.cue_kinds), "scale": self.scale, "min": self.scale_min, "max": self.scale_max,
                 "warnings": list(self.warnings)}
 
 
@@ -61,7 +62,9 @@ def collect_packets(plan_folder: Path | str, packets: list[Path], *, scale: str 
     # file id "NA" is an id, so only empty cells are missing.
     files = pd.read_csv(plan_folder / "files.csv", dtype={"file": str}, keep_default_na=False,
                         na_values=[""])
-    cues = tuple(json.loads((plan_folder / "plan.json").read_text(encoding="utf-8"))["cues"])
+    plan = json.loads((plan_folder / "plan.json").read_text(encoding="utf-8"))
+    cues = tuple(plan["cues"])
+    kinds = {c: plan.get("cue_kinds", {}).get(c, "numeric") for c in cues}
     owner = dict(zip(key["display_code"], key["rater"]))
     stems = {stem.lower(): rater for rater, stem in packet_stems(key["rater"].drop_duplicates()).items()}
     problems: list[DataProblem] = []
@@ -132,7 +135,7 @@ def collect_packets(plan_folder: Path | str, packets: list[Path], *, scale: str 
     long["position"] = long["position"].astype(int)
     judgments = long[["rater", "file", "judgment", "position"]].sort_values(["rater", "position"],
                                                                           ignore_index=True)
-    return CollectedPackets(judgments=judgments, files=files, cues=cues, scale=scale,
+    return CollectedPackets(judgments=judgments, files=files, cues=cues, cue_kinds=kinds, scale=scale,
                             scale_min=float(scale_min), scale_max=float(scale_max), warnings=not_given)
 
 
@@ -156,7 +159,7 @@ def write_collected(collected: CollectedPackets, out: Path | str, *, name: str =
         "[columns]", 'rater = "rater"', 'case = "file"', 'judgment = "judgment"', 'sequence = "position"', "",
         "[judgment]", f'scale = "{collected.scale}"', f"min = {collected.scale_min:g}",
         f"max = {collected.scale_max:g}", "", "[cues]",
-        *[f'{_toml_string(c)} = "numeric"' for c in collected.cues], "",
+        *[f'{_toml_string(c)} = "{collected.cue_kinds.get(c, "numeric")}"' for c in collected.cues], "",
     ]
     atomic_write_text(spec, "\n".join(lines))
     return spec

@@ -42,6 +42,19 @@ For standardized cues and judgments, :math:`SE(\\beta_j) =
 \\sqrt{(1 - R^2)/(n - k - 1)}\\,\\sqrt{VIF_j}` (Cohen, Cohen, West & Aiken 2003,
 *Applied Multiple Regression/Correlation Analysis*, 3rd ed., eq. 3.6.1), shown for a
 typical rater with R_s = 0.80 (TYPICAL_R_S).
+
+Expected precision of R_s, and the smallest change it could show
+-----------------------------------------------------------------
+R_s has no simple exact sampling distribution on a fixed design, so the plan simulates
+it: for up to ``PRECISION_RATERS`` raters' planned files, judgments ``y = X b + e`` with
+equal standardized weights scaled so that the rater's R_s on these files is 0.80, and
+normal errors (continuous judgments: rounding to a short scale lowers R_s a little
+more), ``PRECISION_DRAWS`` times, each fitted by least squares (one QR of the design,
+all draws at once). The expected width of a 95% interval is the median over raters of
+the 2.5%-97.5% range of the simulated R_s; the smallest before/after change in R_s this
+design could detect for one rater (80% power, 5% two-sided, two phases of this size on
+different files) is :math:`(z_{0.975} + z_{0.80})\sqrt{2}\,SD(R_s)`. The simulation is
+checked against statsmodels OLS fitted draw by draw (``tests/unit/test_design_plan_precision.py``).
 """
 
 from __future__ import annotations
@@ -50,6 +63,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from scipy import stats as sps
 
 from ..errors import CalibrateError, DataError, DataProblem
 from ..policy.fit import TYPICAL_R_S
@@ -61,6 +75,8 @@ METHODS = ("uncorrelated", "spread", "representative")
 # Letters and digits that cannot be mistaken for one another when copied by hand.
 CODE_ALPHABET = "ACDEFGHJKMNPQRTUVWXY3479"
 CODE_LENGTH = 6
+PRECISION_RATERS = 25      # planned packets simulated for the expected precision of R_s
+PRECISION_DRAWS = 2000     # simulated judgment sets per packet
 
 
 @dataclass(frozen=True)
@@ -70,6 +86,8 @@ class RatingPlan(ResultMixin):
     method: str
     seed: int
     cues: tuple[str, ...]
+    design_columns: tuple[str, ...]    # numeric cues as they are, categorical ones as cue=level
+    cue_kinds: dict[str, str]          # cue -> "numeric" | "categorical"
     files: tuple[str, ...]             # the chosen distinct files
     file_cues: pd.DataFrame            # the chosen files: "file" + cue columns
     key: pd.DataFrame                  # rater, position, display_code, file, showing (1 or 2)
@@ -80,6 +98,9 @@ class RatingPlan(ResultMixin):
     vif_pool: dict[str, float]
     expected_se: dict[str, float]      # standardized weight, typical rater
     files_per_weight: float
+    rs_interval_width: float           # expected width of a 95% interval of R_s, typical rater
+    rs_sd: float                       # its expected sampling SD
+    rs_detectable_change: float        # smallest before/after change of R_s detectable (80%, 5%)
     min_gap: int
     repeat_share: float
     readers_per_file: int | None
@@ -90,15 +111,18 @@ class RatingPlan(ResultMixin):
         return float(np.max(np.abs(off))) if off.size else 0.0
 
     def to_frame(self) -> pd.DataFrame:
-        """One row per cue: VIF chosen vs pool, expected SE of its standardized weight."""
-        return pd.DataFrame({"cue": list(self.cues),
-                             "vif_chosen": [self.vif_chosen[c] for c in self.cues],
-                             "vif_pool": [self.vif_pool[c] for c in self.cues],
-                             "expected_se_std_weight": [self.expected_se[c] for c in self.cues]})
+        """One row per design column (a numeric cue, or a level of a categorical one): VIF
+        chosen vs pool, expected SE of its standardized weight."""
+        cols = self.design_columns
+        return pd.DataFrame({"cue": list(cols),
+                             "vif_chosen": [self.vif_chosen[c] for c in cols],
+                             "vif_pool": [self.vif_pool[c] for c in cols],
+                             "expected_se_std_weight": [self.expected_se[c] for c in cols]})
 
     def to_dict(self) -> dict:
         return {
-            "method": self.method, "seed": self.seed, "cues": list(self.cues), "files": list(self.files),
+            "method": self.method, "seed": self.seed, "cues": list(self.cues), "cue_kinds": dict(self.cue_kinds),
+            "design_columns": list(self.design_columns), "files": list(self.files),
             "raters": list(self.packets), "repeat_share": self.repeat_share, "min_gap": self.min_gap,
             "readers_per_file": self.readers_per_file, "files_per_weight": self.files_per_weight,
             "max_abs_correlation": {"chosen": self.max_abs_correlation(True),
@@ -107,6 +131,9 @@ class RatingPlan(ResultMixin):
             "correlations_pool": self.correlations_pool.to_dict(),
             "vif_chosen": self.vif_chosen, "vif_pool": self.vif_pool, "expected_se": self.expected_se,
             "typical_r_s": TYPICAL_R_S,
+            "expected_r_s_precision": {"interval_width_95": self.rs_interval_width, "sd": self.rs_sd,
+                                       "detectable_change": self.rs_detectable_change,
+                                       "draws": PRECISION_DRAWS},
         }
 
 
@@ -129,9 +156,9 @@ def plan_exercise(pool: pd.DataFrame, raters: list[str], files_per_rater: int, *
     method : ``"uncorrelated"`` (largest det of the cue correlations), ``"spread"``
         (D-optimal exchange) or ``"representative"`` (random sample).
     """
-    X_pool, ids, cues = _pool_matrix(pool, file_column, cues, source)
+    X_pool, ids, cues, columns, kinds, raw = _pool_matrix(pool, file_column, cues, source)
     raters = [str(r) for r in raters]
-    _check_plan(raters, files_per_rater, repeat_share, readers_per_file, min_gap, method, len(ids), len(cues))
+    _check_plan(raters, files_per_rater, repeat_share, readers_per_file, min_gap, method, len(ids), len(columns))
     rng = np.random.default_rng(seed)
     R = len(raters)
     n_files = files_per_rater if readers_per_file is None else int(np.ceil(R * files_per_rater / readers_per_file))
@@ -165,42 +192,68 @@ def plan_exercise(pool: pd.DataFrame, raters: list[str], files_per_rater: int, *
             code = next(codes)
             key_rows.append({"rater": rater, "position": position, "display_code": code,
                              "file": ids[f], "showing": showing})
-            rows.append({"display_code": code, **{c: X_pool[f, k] for k, c in enumerate(cues)}, "judgment": None})
+            rows.append({"display_code": code, **{c: raw[c][f] for c in cues}, "judgment": None})
         packets[rater] = pd.DataFrame(rows, columns=["display_code", *cues, "judgment"])
     per_rater_X = [X_pool[reads[r]] for r in raters]
     vif_chosen = np.median([_vif(X) for X in per_rater_X], axis=0)
     n_per = np.median([len(v) for v in reads.values()])
-    k = len(cues)
+    k = len(columns)
     with np.errstate(invalid="ignore", divide="ignore"):
         se = np.sqrt((1 - TYPICAL_R_S ** 2) / (n_per - k - 1) * vif_chosen)
+    width, sd = expected_rs_precision(per_rater_X[:PRECISION_RATERS], np.random.default_rng([seed, 1]))
     return RatingPlan(
-        method=method, seed=seed, cues=tuple(cues), files=tuple(ids[i] for i in np.sort(chosen)),
+        method=method, seed=seed, cues=tuple(cues), design_columns=tuple(columns), cue_kinds=kinds,
+        files=tuple(ids[i] for i in np.sort(chosen)),
         file_cues=pd.DataFrame({"file": [ids[i] for i in np.sort(chosen)],
-                                **{c: X_pool[np.sort(chosen), k_] for k_, c in enumerate(cues)}}),
+                                **{c: raw[c][np.sort(chosen)] for c in cues}}),
         key=pd.DataFrame(key_rows), packets=packets,
-        correlations_chosen=pd.DataFrame(np.corrcoef(X_pool[chosen], rowvar=False).reshape(k, k), index=cues, columns=cues),
-        correlations_pool=pd.DataFrame(np.corrcoef(X_pool, rowvar=False).reshape(k, k), index=cues, columns=cues),
-        vif_chosen=dict(zip(cues, map(float, vif_chosen))), vif_pool=dict(zip(cues, map(float, _vif(X_pool)))),
-        expected_se=dict(zip(cues, map(float, se))), files_per_weight=float(n_per / k),
+        correlations_chosen=pd.DataFrame(np.corrcoef(X_pool[chosen], rowvar=False).reshape(k, k),
+                                         index=columns, columns=columns),
+        correlations_pool=pd.DataFrame(np.corrcoef(X_pool, rowvar=False).reshape(k, k), index=columns, columns=columns),
+        vif_chosen=dict(zip(columns, map(float, vif_chosen))), vif_pool=dict(zip(columns, map(float, _vif(X_pool)))),
+        expected_se=dict(zip(columns, map(float, se))), files_per_weight=float(n_per / k),
+        rs_interval_width=width, rs_sd=sd,
+        rs_detectable_change=float((sps.norm.ppf(0.975) + sps.norm.ppf(0.80)) * np.sqrt(2) * sd),
         min_gap=min_gap, repeat_share=repeat_share, readers_per_file=readers_per_file,
     )
 
 
 def _pool_matrix(pool: pd.DataFrame, file_column: str, cues, source: str):
+    """(design matrix, file ids, cue names, design columns, cue kinds, raw cue values).
+
+    A cue whose values are all numbers is numeric; any other cue is categorical and
+    enters the design as one 0/1 column per level but the most frequent (ties:
+    alphabetical), named ``cue=level`` as in the audit; the packets show its words.
+    """
     if file_column not in pool.columns:
         raise DataError([DataProblem(f"No '{file_column}' column naming each file.", file=source, column=file_column)])
     cues = list(cues) if cues else [c for c in pool.columns if c not in (file_column, "_row")]
-    problems = []
+    problems, blocks, names, kinds, raw = [], [], [], {}, {}
     for c in cues:
         if c not in pool.columns:
             problems.append(DataProblem(f"Cue '{c}' is not a column of the pool.", file=source, column=c))
             continue
         x = pd.to_numeric(pool[c], errors="coerce")
-        for i in np.flatnonzero(x.isna().to_numpy()):
+        present = pool[c].notna().to_numpy()
+        numeric = bool(present.any()) and bool(x[present].notna().all())
+        for i in np.flatnonzero(~present):
             row = int(pool["_row"].iloc[i]) if "_row" in pool.columns else int(i) + 2
-            what = ("is empty; every file of the pool needs every cue (leave the file out, or the cue via cues)"
-                    if pd.isna(pool[c].iloc[i]) else "needs a number here (code categories as 0/1 columns)")
-            problems.append(DataProblem(f"Cue '{c}' {what}.", file=source, row=row, column=c))
+            problems.append(DataProblem(f"Cue '{c}' is empty; every file of the pool needs every cue "
+                                        "(leave the file out, or the cue via cues).", file=source, row=row, column=c))
+        if numeric:
+            kinds[c], raw[c] = "numeric", x.to_numpy(dtype=float)
+            blocks.append(raw[c][:, None])
+            names.append(c)
+            continue
+        words = pool[c].astype("string").str.strip()
+        counts = words.value_counts()
+        levels = sorted(counts.index, key=lambda v: (-counts[v], str(v)))
+        if len(levels) < 2:
+            problems.append(DataProblem(f"Cue '{c}' has one value only; it cannot be a cue.", file=source, column=c))
+            continue
+        kinds[c], raw[c] = "categorical", words.to_numpy(dtype=object)
+        blocks.append(np.column_stack([(words == lvl).fillna(False).to_numpy(dtype=float) for lvl in levels[1:]]))
+        names += [f"{c}={lvl}" for lvl in levels[1:]]
     ids = pool[file_column].astype(str).tolist()
     if len(set(ids)) < len(ids):
         problems.append(DataProblem("File ids repeat; each file must appear once in the pool.",
@@ -209,7 +262,7 @@ def _pool_matrix(pool: pd.DataFrame, file_column: str, cues, source: str):
         if len(problems) > 20:
             problems = problems[:20] + [DataProblem(f"... and {len(problems) - 20} more like these.", file=source)]
         raise DataError(problems)
-    return pool[cues].apply(pd.to_numeric).to_numpy(dtype=float), ids, cues
+    return np.column_stack(blocks), ids, cues, names, kinds, raw
 
 
 def _check_plan(raters, files_per_rater, repeat_share, readers, min_gap, method, n_pool, k) -> None:
@@ -290,6 +343,38 @@ def uncorrelated_subset(X: np.ndarray, n: int, rng: np.random.Generator, max_swa
         current = score[best]
         inside[A[best[0]]], inside[B[best[1]]] = False, True
     return np.flatnonzero(inside)
+
+
+def simulated_rs(X: np.ndarray, rng: np.random.Generator, *, r_s: float = TYPICAL_R_S,
+                 draws: int = PRECISION_DRAWS) -> np.ndarray:
+    """R_s of ``draws`` simulated raters on the files ``X`` (module doc): equal standardized
+    weights scaled so that R_s = ``r_s`` on these files, normal errors, least squares."""
+    n, k = X.shape
+    sd = X.std(axis=0)
+    Z = (X - X.mean(axis=0)) / np.where(sd > 0, sd, 1.0)
+    signal = Z.sum(axis=1)
+    signal = signal / signal.std() * r_s if signal.std() > 0 else signal
+    Y = signal[:, None] + rng.standard_normal((n, draws)) * np.sqrt(1 - r_s ** 2)
+    Q, _ = np.linalg.qr(np.column_stack([np.ones(n), Z]))
+    fitted = Q @ (Q.T @ Y)
+    centred = Y - Y.mean(axis=0)
+    rss = ((Y - fitted) ** 2).sum(axis=0)
+    return np.sqrt(np.clip(1 - rss / (centred ** 2).sum(axis=0), 0, 1))
+
+
+def expected_rs_precision(designs: list[np.ndarray], rng: np.random.Generator) -> tuple[float, float]:
+    """(median 95% range width, median SD) of R_s over the planned packets (module doc)."""
+    widths, sds = [], []
+    for X in designs:
+        if len(X) <= X.shape[1] + 1:
+            continue
+        r = simulated_rs(X, rng)
+        low, high = np.quantile(r, [0.025, 0.975])
+        widths.append(high - low)
+        sds.append(r.std(ddof=1))
+    if not widths:
+        return float("nan"), float("nan")
+    return float(np.median(widths)), float(np.median(sds))
 
 
 def _vif(X: np.ndarray) -> np.ndarray:

@@ -98,3 +98,35 @@ def test_weight_intervals_cover_on_a_planned_design():
     from plan_weight_coverage import weight_coverage
 
     assert 0.93 <= weight_coverage(200, 40, rounded=True, seed=0) <= 0.97
+
+
+def test_a_categorical_cue_is_planned_shown_in_words_and_collected_as_categorical(tmp_path):
+    rng = np.random.default_rng(8)
+    n = 150
+    pool = pd.DataFrame({"file": [f"f{i:03d}" for i in range(n)],
+                         "grades": np.clip(np.round(rng.normal(4, 1.5, n)), 1, 7),
+                         "essay": np.clip(np.round(rng.normal(4, 1.5, n)), 1, 7),
+                         "track": rng.choice(["arts", "science", "trade"], n, p=[.5, .3, .2])})
+    pool.to_csv(tmp_path / "pool.csv", index=False)
+    run = CliRunner().invoke(main, ["plan", str(tmp_path / "pool.csv"), "--raters", "3", "--files-per-rater", "40",
+                                    "--out", str(tmp_path / "plan")])
+    assert run.exit_code == 0, run.output
+    plan = json.loads((tmp_path / "plan" / "plan.json").read_text())
+    assert plan["cue_kinds"] == {"grades": "numeric", "essay": "numeric", "track": "categorical"}
+    assert plan["design_columns"] == ["grades", "essay", "track=science", "track=trade"]  # arts: most frequent
+    packet = pd.read_csv(next((tmp_path / "plan" / "packets").glob("*.csv")))
+    assert set(packet["track"]) <= {"arts", "science", "trade"}
+    filled = []
+    for path in sorted((tmp_path / "plan" / "packets").glob("*.csv")):
+        packet = pd.read_csv(path)
+        y = 1 + 0.5 * packet["grades"] + 0.3 * packet["essay"] + (packet["track"] == "trade") + rng.normal(0, .5, len(packet))
+        packet["judgment"] = np.clip(np.round(y), 1, 7)
+        target = tmp_path / "done" / path.name
+        target.parent.mkdir(exist_ok=True)
+        packet.to_csv(target, index=False)
+        filled.append(str(target))
+    collected = CliRunner().invoke(main, ["collect", str(tmp_path / "plan"), *filled, "--out", str(tmp_path / "study")])
+    assert collected.exit_code == 0, collected.output
+    assert '"track" = "categorical"' in (tmp_path / "study" / "study.toml").read_text()
+    checked = CliRunner().invoke(main, ["check", str(tmp_path / "study" / "study.toml")])
+    assert checked.exit_code == 0, checked.output
