@@ -253,8 +253,8 @@ def check(spec: Path) -> None:
 @click.option("--seed", type=click.IntRange(min=0), default=None, help="Resampling seed [default: the spec's seed].")
 @click.option("--no-pdf", "no_pdf", is_flag=True, help="Skip the PDF reports (results, tables and "
               "workbook only).")
-@click.option("--jobs", type=click.IntRange(min=1), default=1, show_default=True,
-              help="Worker processes for building the rater PDFs.")
+@click.option("--jobs", type=click.IntRange(min=1), default=None,
+              help="Worker processes for building the PDFs [default: the cores available].")
 @click.option("--show-excluded-to-raters", "include_excluded", is_flag=True,
               help="Also print the excluded-attribute result in each rater's own report "
                    "(by default it stays in the chair's summary).")
@@ -267,7 +267,7 @@ def check(spec: Path) -> None:
 @click.option("--memory-limit", "memory_limit", type=click.FloatRange(min=0, min_open=True), default=None,
               help="GB of memory the audit may use; a panel estimated to need more is refused "
                    "before the analysis starts [default: this machine's memory].")
-def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool, jobs: int,
+def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool, jobs: int | None,
           include_excluded: bool, pseudonymise: bool, key_file: Path | None,
           memory_limit: float | None) -> None:
     """Run the full audit and write results, tables, a workbook and PDF reports into OUT."""
@@ -317,6 +317,10 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
             bar_pdf.total = total
             bar_pdf.update(done - bar_pdf.n)
 
+        if jobs is None:
+            from .output.limits import available_cores
+
+            jobs = available_cores()
         try:
             write_audit_files(result, staging, pdf=not no_pdf, jobs=jobs,
                               include_excluded=include_excluded, progress=wrote, shown=out,

@@ -112,7 +112,8 @@ def build_reports(result: Any, out_dir: str | Path, *, jobs: int = 1, include_ex
     ----------
     result : an AuditResult, the results.json dictionary, or a ReportInput.
     out_dir : the folder to write into (created if needed); each file is written atomically.
-    jobs : worker processes for the rater reports (1: build in this process).
+    jobs : worker processes for the reports (1: build in this process; see
+        :func:`calibrate.output.limits.available_cores` for the command line's default).
     include_excluded : show the excluded-attribute check in each rater's own report.
     progress : called as ``progress(done, total, file_name)`` after each file is written.
     panel : also write the panel summary.
@@ -139,25 +140,31 @@ def build_reports(result: Any, out_dir: str | Path, *, jobs: int = 1, include_ex
         if progress is not None:
             progress(done, total, path.name)
 
-    if panel:
-        path = out_dir / PANEL_FILE
-        atomic_write_bytes(path, panel_pdf(data))
-        wrote(path)
     raters = list(names)
     if jobs == 1 or len(raters) < 2:
+        if panel:
+            path = out_dir / PANEL_FILE
+            atomic_write_bytes(path, panel_pdf(data))
+            wrote(path)
         for r in raters:
             path = out_dir / RATERS_FOLDER / names[r]
             atomic_write_bytes(path, rater_pdf(data, r, include_excluded=include_excluded))
             wrote(path)
     else:
-        # A few raters per task: enough tasks to balance the workers and update progress,
-        # few enough that shipping the results to each task stays cheap.
+        # The panel summary is one task of its own, so it builds while the workers make the
+        # rater reports. A few raters per task: enough tasks to balance the workers and
+        # update progress, few enough that shipping the results to each task stays cheap.
         size = max(1, len(raters) // (jobs * 4))
         chunks = [raters[i:i + size] for i in range(0, len(raters), size)]
         pool = ProcessPoolExecutor(max_workers=jobs, initializer=_worker_started,
                                    initargs=(os.getpid(),))
         try:
+            summary = pool.submit(panel_pdf, data) if panel else None
             futures = [pool.submit(_build_chunk, data, chunk, include_excluded) for chunk in chunks]
+            if summary is not None:
+                path = out_dir / PANEL_FILE
+                atomic_write_bytes(path, summary.result())
+                wrote(path)
             for future in futures:
                 for r, pdf in future.result():
                     path = out_dir / RATERS_FOLDER / names[r]
