@@ -52,7 +52,8 @@ def test_init_with_a_cases_table_then_check_then_audit(demo, tmp_path):
 def test_init_on_a_merged_table_leaves_out_constant_id_and_sensitive_columns(demo, tmp_path):
     judgments = pd.read_csv(demo / "judgments_autumn.csv")
     cases = pd.read_csv(demo / "applicants.csv").drop(columns=["first_year_result"])
-    merged = judgments.merge(cases, on="applicant")
+    keep = sorted(judgments["reviewer"].unique())[:5]  # five reviewers keep the audit quick
+    merged = judgments[judgments["reviewer"].isin(keep)].merge(cases, on="applicant")
     ids = {a: i + 1000 for i, a in enumerate(sorted(merged["applicant"].unique()))}
     merged["record_id"] = merged["applicant"].map(ids)
     merged["Gender"] = merged["applicant"].map(lambda a: "female" if int(a[1:]) % 2 else "male")
