@@ -38,6 +38,7 @@ class ResultsViewError(CalibrateError, KeyError):
 
     def __init__(self, path: str, problem: str = "is missing"):
         self.path = path
+        self.problem = problem  # comparison_view re-raises it under comparison.json's name
         super().__init__(f"results.json: {path} {problem}; the reports cannot be built from it. "
                          "Re-run the audit with this version of calibrate.")
 
