@@ -1,6 +1,6 @@
 """Hand-made comparison.json dictionaries holding every key of the agreed contract.
 
-``full_comparison`` builds one with a chosen number of phases, with or without a control
+``full_comparison`` builds one (with the words ``compare`` adds: verdicts.annotate) with a chosen number of phases, with or without a control
 group, and a planted training effect (positive, negative or none) whose intervals are
 drawn around it; the report and verdict tests render and read these. The numbers are
 invented: they only need the shapes and the interval logic of a real comparison.
@@ -9,6 +9,8 @@ invented: they only need the shapes and the interval logic of a real comparison.
 from __future__ import annotations
 
 import numpy as np
+
+from calibrate.training.verdicts import annotate
 
 CUES = ("grades", "essay", "interview", "field_years")
 RUBRIC = {"grades": 0.4, "essay": 0.3, "interview": 0.2, "field_years": 0.1}
@@ -134,8 +136,8 @@ def full_comparison(seed: int = 0, *, n_phases: int = 2, has_control: bool = Tru
         panel["follow_up_effect"] = effect_block(n_phases - 2, n_phases - 1)
     elif n_phases >= 3:
         panel["follow_up_effect"] = None
-    return {"schema": "calibrate.comparison/1", "seed": seed, "n_boot": 100, "phases": phases,
+    return annotate({"schema": "calibrate.comparison/1", "seed": seed, "n_boot": 100, "phases": phases,
             "has_control": has_control, "study": {"name": "Invented panel"},
             "summary": ["An invented summary line."], "raters": raters,
             "unmatched": [{"rater": "P99", "phases": [phases[0]]}], "panel": panel,
-            "cautions": ["An invented caution from compare."]}
+            "cautions": ["An invented caution from compare."]})

@@ -69,6 +69,7 @@ class ChangeView:
     detectable: float | None = None
     comparable: bool | None = None     # None: comparison.json does not say
     note: str | None = None
+    verdict: str | None = None         # the word compare wrote (None: an older comparison.json)
 
     @classmethod
     def read(cls, d: Mapping, path: str, *, estimate_key: str = "delta") -> ChangeView:
@@ -80,13 +81,8 @@ class ChangeView:
                    method=None if d.get("method") is None else str(d["method"]),
                    detectable=_num(d, "detectable", path, default=None),
                    comparable=None if comparable is None else bool(comparable),
-                   note=None if note is None else str(note))
-
-    def as_dict(self) -> dict:
-        """The plain mapping the verdict functions read (the comparison.json keys)."""
-        return {"from": self.from_phase, "to": self.to_phase, "delta": self.delta,
-                "ci_low": self.ci_low, "ci_high": self.ci_high, "p_value": self.p_value,
-                "detectable": self.detectable, "comparable": self.comparable, "note": self.note}
+                   note=None if note is None else str(note),
+                   verdict=None if d.get("verdict") is None else str(d["verdict"]))
 
 
 @dataclass(frozen=True)
@@ -243,6 +239,8 @@ class ComparisonView:
     panel: PanelChangeView
     summary: tuple[str, ...]
     cautions: tuple[str, ...]
+    answers: dict[str, str | None] | None = None   # worked, for_whom, lasts, regression_to_mean
+    better: dict[str, str | None] | None = None    # figure -> "higher" / "lower" / None
 
     @classmethod
     def read(cls, comparison: Mapping) -> ComparisonView:
@@ -258,7 +256,11 @@ class ComparisonView:
                    unmatched=tuple(str(u.get("rater")) for u in comparison.get("unmatched") or []),
                    panel=_read_panel(_get(comparison, "panel", "comparison"), "comparison.panel"),
                    summary=tuple(map(str, _get(comparison, "summary", "comparison"))),
-                   cautions=tuple(map(str, _get(comparison, "cautions", "comparison"))))
+                   cautions=tuple(map(str, _get(comparison, "cautions", "comparison"))),
+                   answers=None if comparison.get("answers") is None else {
+                       str(k): None if v is None else str(v) for k, v in comparison["answers"].items()},
+                   better=None if comparison.get("better") is None else {
+                       str(k): None if v is None else str(v) for k, v in comparison["better"].items()})
 
     @property
     def metrics(self) -> tuple[str, ...]:

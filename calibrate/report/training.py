@@ -1,8 +1,9 @@
 """The training coordinator's report: training-report.pdf, read from comparison.json only.
 
-The first page answers "did it work, for whom, and does it last" in a sentence each; the
-words come from :mod:`calibrate.training.verdicts`, which read the intervals, so nothing
-here decides a word. Sections whose figures a comparison.json does not hold are left out
+The first page answers "did it work, for whom, and does it last" in a sentence each. Every
+word (the answers, each change's verdict, which way is better) is read from comparison.json,
+where :mod:`calibrate.training.verdicts` wrote it from the intervals: nothing here decides a
+word, and a comparison.json without them shows the numbers alone. Sections whose figures a comparison.json does not hold are left out
 with one line saying so (:data:`calibrate.report.comparison_view.ABSENT_REASON`).
 """
 
@@ -14,14 +15,17 @@ from xml.sax.saxutils import escape
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.platypus import CondPageBreak, PageBreak, Spacer, Table, TableStyle
 
-from ..training import verdicts
 from . import training_charts, wording
 from .comparison_view import ABSENT, ABSENT_REASON, ComparisonView, SeriesView
 from .styles import (BODY, CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, SMALL, TITLE, ReportDocument,
                      markup, table_style, text)
 
 TRAINING_FILE = "training-report.pdf"
-LABELS = verdicts.METRIC_LABELS
+LABELS = {"r": "R_s", "retest_r": "retest r", "misallocation": "misallocation", "g_rubric": "G rubric",
+          "severity": "severity", "r_a": "r_a", "g": "G"}
+MEANINGS = {"r": "consistency", "retest_r": "test-retest agreement", "misallocation": "distance from the rubric",
+            "g_rubric": "match with the rubric", "severity": "offset from the panel", "r_a": "accuracy against the outcome",
+            "g": "match with the outcome's model"}
 # The report's own cautions, printed after the comparison's: always true of a before/after study.
 STANDING_CAUTIONS = (
     "Practice: raters get used to the task and the scale between rounds, trained or not; only the "
@@ -34,71 +38,36 @@ STANDING_CAUTIONS = (
     "person; small samples give unstable weights. Decisions about careers or admissions follow the "
     "institution's policies and applicable law.",
 )
-_BETTER_WORDS = {1: "up", -1: "down"}
 # Charts laid out side by side: no rules, no row bands.
 _TIGHT = ParagraphStyle("tight_cell", parent=CELL, fontSize=7.5, leading=9)
 _CHART_GRID = TableStyle([("VALIGN", (0, 0), (-1, -1), "TOP"), ("LEFTPADDING", (0, 0), (-1, -1), 0),
                           ("RIGHTPADDING", (0, 0), (-1, -1), 6), ("BOTTOMPADDING", (0, 0), (-1, -1), 6)])
 
 
-def _interval(lo, hi) -> str:
-    return f"[{verdicts.signed(lo)}, {verdicts.signed(hi)}]"
-
-
 def _absent(section: str) -> list:
     return [text(f"{section}: left out; {ABSENT_REASON}.", SMALL)]
 
 
-# ----------------------------------------------------------------------------- verdict inputs
+# ----------------------------------------------------------------------------- words
 
 
-class _Inputs:
-    """The plain mappings the verdict functions read, gathered once from the view."""
+def signed(value: float | None, digits: int = 2) -> str:
+    """A change as printed: '+0.12', '-0.05', '0.00'; 'n/a' when missing."""
+    if value is None:
+        return "n/a"
+    out = f"{value:+.{digits}f}"
+    return out[1:] if float(out) == 0 else out
 
-    def __init__(self, view: ComparisonView):
-        self.view = view
-        first, last = view.phases[0], view.phases[-1]
-        self.metrics = view.metrics
-        panel = view.panel
-        self.effects = None if panel.training_effect is None else {
-            m: {**e.change.as_dict(), "ancova": None if e.ancova is None else e.ancova.as_dict(),
-                "arms_differ_at_baseline": e.arms_differ_at_baseline,
-                "baseline_difference": e.baseline_difference}
-            for m, e in panel.training_effect.items()}
-        self.trained_changes = {}
-        for m, arms in panel.metrics.items():
-            ch = arms.get("trained").change(first, last) if "trained" in arms else None
-            if ch is not None:
-                self.trained_changes[m] = ch.as_dict()
-        self.raters = [(r.trained, {m: s.change(first, last).as_dict() for m, s in r.metrics.items()
-                                    if s.change(first, last) is not None}) for r in view.raters]
-        self.follow_up = None
-        if len(view.phases) >= 3:
-            end = view.phases[-2]
-            follow = panel.follow_up_effect
-            if view.has_control and follow not in (ABSENT, None):
-                self.follow_up = {m: {**e.change.as_dict(),
-                                      "ancova": None if e.ancova is None else e.ancova.as_dict()}
-                                  for m, e in follow.items()}
-            else:
-                self.follow_up = {m: arms["trained"].change(end, last).as_dict()
-                                  for m, arms in panel.metrics.items()
-                                  if "trained" in arms and arms["trained"].change(end, last) is not None}
-        self.overall = self.effects if view.has_control and self.effects else self.trained_changes
 
-    def answers(self) -> tuple[str, str, str]:
-        v = self.view
-        worked = verdicts.worked_sentence(v.phases, has_control=v.has_control, metrics=self.metrics,
-                                          effects=self.effects, trained_changes=self.trained_changes)
-        whom = verdicts.for_whom_sentence(v.phases, has_control=v.has_control, metrics=self.metrics,
-                                          raters=self.raters)
-        lasts = verdicts.lasts_sentence(v.phases, has_control=v.has_control, metrics=self.metrics,
-                                        follow_up=self.follow_up, overall=self.overall)
-        return worked, whom, lasts
+def _interval(lo, hi) -> str:
+    if lo is None and hi is None:
+        return "(no interval)"
+    return f"[{signed(lo)}, {signed(hi)}]"
 
-    def regression_caution(self) -> str | None:
-        return verdicts.regression_to_mean_sentence(has_control=self.view.has_control, metrics=self.metrics,
-                                                    effects=self.effects)
+
+def _word(verdict: str | None) -> str:
+    """The verdict compare wrote beside a change; nothing when comparison.json has none."""
+    return "" if verdict is None else f" {verdict}"
 
 
 def _answer(sentence: str) -> object:
@@ -111,19 +80,21 @@ def _answer(sentence: str) -> object:
 # ----------------------------------------------------------------------------- sections
 
 
-def first_page(view: ComparisonView, inputs: _Inputs) -> list:
-    first, last = view.phases[0], view.phases[-1]
+def first_page(view: ComparisonView) -> list:
     n_t, n_c = len(view.arm(True)), len(view.arm(False))
     who = (f"{n_t} trained raters and {n_c} controls" if view.has_control else
            f"{n_t} raters, all counted as trained (no control group)")
     story = [text("Did the training work?", TITLE),
              text(f"Phases {', '.join(view.phases)}; {who}. Each answer below reads the 95% intervals: "
                   "a change is claimed only where its interval excludes zero.", SMALL), Spacer(1, 4)]
-    story += [_answer(s) for s in inputs.answers()]
-    rtm = inputs.regression_caution()
-    if rtm:
-        story.append(text(rtm, NOTE))
-    story += effect_table(view, inputs)
+    if view.answers is not None:
+        story += [_answer(view.answers[k]) for k in ("worked", "for_whom", "lasts") if view.answers.get(k)]
+        if view.answers.get("regression_to_mean"):
+            story.append(text(view.answers["regression_to_mean"], NOTE))
+    else:
+        story += [text(line, BODY) for line in view.summary]
+        story.append(text(f"The answers for whom and whether it lasts: left out; {ABSENT_REASON}.", SMALL))
+    story += effect_table(view)
     if view.cautions:
         story.append(text("Read these first", HEADING))
         story += [text(f"- {c}", BODY) for c in view.cautions]
@@ -132,7 +103,7 @@ def first_page(view: ComparisonView, inputs: _Inputs) -> list:
     return story
 
 
-def effect_table(view: ComparisonView, inputs: _Inputs) -> list:
+def effect_table(view: ComparisonView) -> list:
     """The headline numbers: each arm's mean change and the difference in differences."""
     first, last = view.phases[0], view.phases[-1]
     panel = view.panel
@@ -143,23 +114,22 @@ def effect_table(view: ComparisonView, inputs: _Inputs) -> list:
     for m in view.metrics:
         arms = panel.metrics.get(m, {})
         t = arms.get("trained").change(first, last) if "trained" in arms else None
-        row = [text(LABELS.get(m, m), CELL), text("n/a" if t is None else verdicts.signed(t.delta), CELL)]
+        row = [text(LABELS.get(m, m), CELL), text("n/a" if t is None else signed(t.delta), CELL)]
         if view.has_control:
             c = arms.get("control").change(first, last) if "control" in arms else None
             e = (panel.training_effect or {}).get(m)
-            row.append(text("n/a" if c is None else verdicts.signed(c.delta), CELL))
+            row.append(text("n/a" if c is None else signed(c.delta), CELL))
             if e is None:
                 row += [text("n/a", CELL), text("n/a", CELL)]
             else:
-                word = verdicts.effect_word(m, inputs.effects[m])
-                row.append(text(f"{verdicts.signed(e.change.delta)} {_interval(e.change.ci_low, e.change.ci_high)}"
-                                f" {word}", CELL))
+                row.append(text(f"{signed(e.change.delta)} {_interval(e.change.ci_low, e.change.ci_high)}"
+                                f"{_word(e.change.verdict)}", CELL))
                 row.append(text("n/a" if e.ancova is None else
-                                f"{verdicts.signed(e.ancova.delta)} {_interval(e.ancova.ci_low, e.ancova.ci_high)}",
+                                f"{signed(e.ancova.delta)} {_interval(e.ancova.ci_low, e.ancova.ci_high)}",
                                 CELL))
         else:
             row.append(text("n/a" if t is None else
-                            f"{_interval(t.ci_low, t.ci_high)} {verdicts.change_word(m, t.ci_low, t.ci_high)}", CELL))
+                            f"{_interval(t.ci_low, t.ci_high)}{_word(t.verdict)}", CELL))
         panel_detect = detect.get(m, (None, None))[1]
         row.append(text("n/a" if panel_detect is None else f"{wording.fmt(panel_detect)} or larger", CELL))
         rows.append(row)
@@ -197,11 +167,12 @@ def slope_charts(view: ComparisonView) -> list:
     w = CONTENT_WIDTH / cols
     cells = []
     for m in view.metrics:
-        direction = _BETTER_WORDS.get(verdicts.BETTER.get(m))
+        direction = (view.better or {}).get(m)
+        meaning = MEANINGS.get(m, m)
         cells.append(training_charts.slope_panel(
             LABELS.get(m, m), view.phases, _rater_lines(view, m), means=_arm_means(view, m), width=w - 8,
-            subtitle=(f"{verdicts.METRIC_WORDS.get(m, m)}; better: {direction}" if direction else
-                      "relative to the panel; no better direction")))
+            subtitle=(f"{meaning}; {direction} is better" if direction else
+                      f"{meaning}; no better direction" if view.better is not None else meaning)))
     grid = [cells[i:i + cols] + [""] * (cols - len(cells[i:i + cols])) for i in range(0, len(cells), cols)]
     if grid:
         story.append(Table(grid, colWidths=[w] * cols, style=_CHART_GRID))
@@ -232,9 +203,9 @@ def rater_table(view: ComparisonView) -> list:
                 if note not in notes:
                     notes.append(note)
                 mark = "*" * (notes.index(note) + 1)
-            word = verdicts.change_word(m, ch.ci_low, ch.ci_high)
-            shown = f"<b>{word}</b><br/>" if word != "no clear change" else ""
-            cells.append(markup(f"{shown}{verdicts.signed(ch.delta)}{mark}<br/>{_interval(ch.ci_low, ch.ci_high)}",
+            word = ch.verdict
+            shown = f"<b>{escape(word)}</b><br/>" if word and word != "no clear change" else ""
+            cells.append(markup(f"{shown}{signed(ch.delta)}{mark}<br/>{_interval(ch.ci_low, ch.ci_high)}",
                                 _TIGHT))
         rows.append(cells)
     first_w, arm_w = 0.12 * CONTENT_WIDTH, 0.08 * CONTENT_WIDTH
@@ -250,9 +221,9 @@ def _series_rows(name: str, arms: dict[str, SeriesView], phases) -> list:
     """Table rows: one per arm, its value per phase and each change with its interval."""
     rows = []
     for arm, s in arms.items():
-        changes = "; ".join(f"{ch.from_phase} to {ch.to_phase}: {verdicts.signed(ch.delta)} "
-                            f"{_interval(ch.ci_low, ch.ci_high)}" + (f" ({ch.note})" if ch.note else "")
-                            for ch in s.changes) or "not computed"
+        changes = "; ".join(f"{ch.from_phase} to {ch.to_phase}: {signed(ch.delta)} "
+                            f"{_interval(ch.ci_low, ch.ci_high)}{_word(ch.verdict)}"
+                            + (f" ({ch.note})" if ch.note else "") for ch in s.changes) or "not computed"
         label = {"all": "all raters", "control": "controls"}.get(arm, arm)
         rows.append([text(name, CELL), text(label, CELL)]
                     + [text(wording.fmt(s.values.get(ph)), CELL) for ph in phases] + [text(changes, CELL)])
@@ -303,8 +274,8 @@ def agreement_and_groups(view: ComparisonView) -> list:
             s = ag.get(key)
             if s is None:
                 continue
-            changes = "; ".join(f"{c.from_phase} to {c.to_phase}: {verdicts.signed(c.delta)} "
-                                f"{_interval(c.ci_low, c.ci_high)}" for c in s.changes) or "n/a"
+            changes = "; ".join(f"{c.from_phase} to {c.to_phase}: {signed(c.delta)} "
+                                f"{_interval(c.ci_low, c.ci_high)}{_word(c.verdict)}" for c in s.changes) or "n/a"
             rows.append([text(label, CELL)] + [text(wording.fmt(s.values.get(ph)), CELL) for ph in view.phases]
                         + [text(changes, CELL)])
         n = len(view.phases)
@@ -350,7 +321,7 @@ def cue_shift(view: ComparisonView) -> list:
     return story
 
 
-def detectable_table(view: ComparisonView, inputs: _Inputs) -> list:
+def detectable_table(view: ComparisonView) -> list:
     story = [CondPageBreak(160), text("What this design could have seen", HEADING)]
     detect = view.panel.detectable
     if detect is None:
@@ -363,10 +334,12 @@ def detectable_table(view: ComparisonView, inputs: _Inputs) -> list:
         e = (view.panel.training_effect or {}).get(m) if view.has_control else None
         ch = e.change if e is not None else (view.panel.metrics.get(m, {}).get("trained").change(first, last)
                                              if "trained" in view.panel.metrics.get(m, {}) else None)
-        est = "n/a" if ch is None else f"{verdicts.signed(ch.delta)} {_interval(ch.ci_low, ch.ci_high)}"
-        word = "n/a" if ch is None else verdicts.change_word(m, ch.ci_low, ch.ci_high)
+        est = "n/a" if ch is None else f"{signed(ch.delta)} {_interval(ch.ci_low, ch.ci_high)}"
+        word = None if ch is None else ch.verdict
         if panel is None:
             reading = "not computed"
+        elif word is None:
+            reading = f"could see a change of {wording.fmt(panel)} or larger"
         elif word == "no clear change":
             reading = (f"this design could only have seen a change of {wording.fmt(panel)} or larger; "
                        "a smaller one may be hidden")
@@ -397,10 +370,10 @@ def follow_up(view: ComparisonView) -> list:
         cells = [text(LABELS.get(m, m), CELL)]
         for arm in ("trained", "control"):
             ch = arms[arm].change(end, later) if arm in arms else None
-            cells.append(text("" if ch is None else f"{verdicts.signed(ch.delta)} {_interval(ch.ci_low, ch.ci_high)}",
+            cells.append(text("" if ch is None else f"{signed(ch.delta)} {_interval(ch.ci_low, ch.ci_high)}",
                               CELL))
         e = None if effects in (ABSENT, None) else effects.get(m)
-        cells.append(text("" if e is None else f"{verdicts.signed(e.change.delta)} "
+        cells.append(text("" if e is None else f"{signed(e.change.delta)} "
                           f"{_interval(e.change.ci_low, e.change.ci_high)}", CELL))
         rows.append(cells)
     story.append(Table(rows, style=table_style(), repeatRows=1))
@@ -417,14 +390,13 @@ def cautions(view: ComparisonView) -> list:
 
 def training_flowables(comparison: dict) -> list:
     view = ComparisonView.read(comparison)
-    inputs = _Inputs(view)
-    story = first_page(view, inputs)
+    story = first_page(view)
     story += slope_charts(view)
     story += follow_up(view)
     story += convergence(view)
     story += agreement_and_groups(view)
     story += cue_shift(view)
-    story += detectable_table(view, inputs)
+    story += detectable_table(view)
     story += cautions(view)
     return story
 

@@ -19,8 +19,12 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 
-# Which way is better for each metric; severity has none (it is relative to the panel).
+# Which way is better for each metric; severity has none (it is relative to the panel), nor
+# has a cue's share (closer to the rubric may be up or down).
 BETTER = {"r": 1, "retest_r": 1, "r_a": 1, "g": 1, "g_rubric": 1, "misallocation": -1}
+# The panel's figures: agreement up is better; the spread of weight profiles and the
+# distance to the rubric down is better (the raters converge).
+PANEL_BETTER = {"icc": 1, "alpha": 1, "pairwise_distance": -1, "distance_to_rubric": -1}
 METRIC_WORDS = {"r": "consistency (R_s)", "retest_r": "test-retest agreement",
                 "misallocation": "closeness to the rubric's weights", "g_rubric": "match with the rubric (G)",
                 "severity": "severity offset", "r_a": "accuracy against the outcome (r_a)",
@@ -39,9 +43,10 @@ def change_word(metric: str, ci_low: float | None, ci_high: float | None) -> str
     if not (_finite(ci_low) and _finite(ci_high)) or ci_low <= 0 <= ci_high:
         return "no clear change"
     up = ci_low > 0
-    if metric not in BETTER:
+    direction = BETTER.get(metric, PANEL_BETTER.get(metric))
+    if direction is None:
         return "higher" if up else "lower"
-    return "better" if up == (BETTER[metric] > 0) else "worse"
+    return "better" if up == (direction > 0) else "worse"
 
 
 def signed(value: float | None, digits: int = 2) -> str:
@@ -161,7 +166,7 @@ def lasts_sentence(phases: Sequence[str], *, has_control: bool, metrics: Sequenc
     whose = "the trained raters' lead over the controls" if has_control else "the raters' gain"
     if held:
         bits.append(f"Does it last? On {listing(held)}, yes: {whose} is still clear from {first} to "
-                    f"{later} and shows no clear slip from {end} to {later}.")
+                    f"{later}, and the interval from {end} to {later} shows no clear slip back.")
     if faded:
         lead = "Does it last? " if not held else ""
         bits.append(f"{lead}On {listing(faded)} it slipped back from {end} to {later} (the interval "
@@ -241,6 +246,85 @@ def rater_change_sentence(metric: str, change: Mapping) -> str:
     return out
 
 
-__all__ = ["BETTER", "METRIC_LABELS", "METRIC_WORDS", "change_word", "effect_word", "for_whom_sentence",
+# ------------------------------------------------------------- comparison.json
+
+def _change_between(block: Mapping | None, first: str, last: str) -> Mapping | None:
+    for ch in (block or {}).get("changes") or []:
+        if ch.get("from") == first and ch.get("to") == last:
+            return ch
+    return None
+
+
+def _as_change(effect: Mapping) -> dict:
+    """A training effect read as a change (``estimate`` as ``delta``)."""
+    return {**effect, "delta": effect.get("estimate", effect.get("delta"))}
+
+
+def answers(comparison: Mapping) -> dict:
+    """The first page's answers, from a comparison.json mapping: ``worked``, ``for_whom``,
+    ``lasts`` and ``regression_to_mean`` (None when there is nothing to say)."""
+    phases = list(comparison["phases"])
+    first, last = phases[0], phases[-1]
+    panel = comparison["panel"]
+    raters = comparison.get("raters") or []
+    has_control = bool(comparison.get("has_control"))
+    metrics = list(raters[0]["metrics"]) if raters else list(panel["metrics"])
+    effects = panel.get("training_effect") or None
+    trained = {m: ch for m, arms in panel["metrics"].items()
+               if (ch := _change_between(arms.get("trained"), first, last)) is not None}
+    per_rater = [(bool(r["trained"]), {m: ch for m, block in r["metrics"].items()
+                                       if (ch := _change_between(block, first, last)) is not None})
+                 for r in raters]
+    follow = None
+    if len(phases) >= 3:
+        end = phases[-2]
+        if has_control and panel.get("follow_up_effect"):
+            follow = dict(panel["follow_up_effect"])
+        else:
+            follow = {m: ch for m, arms in panel["metrics"].items()
+                      if (ch := _change_between(arms.get("trained"), end, last)) is not None}
+    overall = effects if has_control and effects else trained
+    return {"worked": worked_sentence(phases, has_control=has_control, metrics=metrics, effects=effects,
+                                      trained_changes=trained),
+            "for_whom": for_whom_sentence(phases, has_control=has_control, metrics=metrics, raters=per_rater),
+            "lasts": lasts_sentence(phases, has_control=has_control, metrics=metrics, follow_up=follow,
+                                    overall=overall),
+            "regression_to_mean": regression_to_mean_sentence(has_control=has_control, metrics=metrics,
+                                                              effects=effects)}
+
+
+def annotate(comparison: dict) -> dict:
+    """comparison.json with its words: ``verdict`` on every change and training effect (from
+    :func:`change_word` / :func:`effect_word`), the first page's ``answers`` and ``better``
+    (which way is better for each figure: "higher", "lower" or null). Returns the same
+    mapping, changed in place."""
+    def mark(name: str, block: Mapping | None) -> None:
+        for ch in (block or {}).get("changes") or []:
+            ch["verdict"] = change_word(name, ch.get("ci_low"), ch.get("ci_high"))
+
+    for r in comparison.get("raters") or []:
+        for name, block in r["metrics"].items():
+            mark(name, block)
+        for cue, block in (r.get("shares") or {}).items():
+            mark(f"share of {cue}", block)
+    panel = comparison["panel"]
+    for name, arms in panel["metrics"].items():
+        for block in arms.values():
+            mark(name, block)
+    for key in ("training_effect", "follow_up_effect"):
+        for name, effect in (panel.get(key) or {}).items():
+            effect["verdict"] = effect_word(name, effect)
+    for name in ("icc", "alpha"):
+        mark(name, (panel.get("agreement") or {}).get(name))
+    for name, arms in (panel.get("convergence") or {}).items():
+        for block in (arms or {}).values():
+            mark(name, block)
+    comparison["answers"] = answers(comparison)
+    comparison["better"] = {name: {1: "higher", -1: "lower"}.get(BETTER.get(name, PANEL_BETTER.get(name)))
+                            for name in [*panel["metrics"], *PANEL_BETTER]}
+    return comparison
+
+
+__all__ = ["BETTER", "METRIC_LABELS", "METRIC_WORDS", "PANEL_BETTER", "annotate", "answers", "change_word", "effect_word", "for_whom_sentence",
            "lasts_sentence", "listing", "rater_change_sentence", "regression_to_mean_sentence", "signed",
            "worked_sentence"]

@@ -10,8 +10,8 @@ import itertools
 import pytest
 
 from calibrate.report.comparison_view import ABSENT_REASON, ComparisonView, ComparisonViewError
-from calibrate.report.training import _Inputs, training_pdf
-from calibrate.training.verdicts import METRIC_WORDS, rater_change_sentence
+from calibrate.report.training import training_pdf
+from calibrate.training.verdicts import METRIC_WORDS, answers, rater_change_sentence
 from tests.comparison_fixtures import METRICS, full_comparison
 from tests.pdf_text import page_texts
 
@@ -52,18 +52,28 @@ def test_a_comparison_without_the_new_keys_leaves_each_section_out_with_a_reason
     doc = full_comparison(4, n_phases=3)
     for key in CONTRACT_PANEL_KEYS:
         doc["panel"].pop(key)
+    for key in ("answers", "better"):
+        doc.pop(key)
     for r in doc["raters"]:
         r.pop("shares")
         for block in r["metrics"].values():
             for ch in block["changes"]:
-                for key in ("detectable", "comparable", "note"):
+                for key in ("detectable", "comparable", "note", "verdict"):
                     ch.pop(key)
     everything = " ".join(_flat(training_pdf(doc)))
     for section in ("The spread of the raters' weight profiles", "The change in ICC and Krippendorff's alpha",
                     "Groups of raters who weigh the cues alike", "The shift of each cue's share",
                     "The smallest detectable change", "The difference in differences over the follow-up"):
         assert f"{section}: left out; {ABSENT_REASON}" in everything, section
-    assert "Did it work?" in everything
+    assert "An invented summary line." in everything   # compare's summary stands in for the answers
+    assert "The answers for whom and whether it lasts: left out" in everything
+
+
+def test_the_first_page_prints_the_answers_compare_wrote():
+    doc = full_comparison(7, n_phases=3, trained_start_worse=True)
+    first = _flat(training_pdf(doc))[0]
+    for key in ("worked", "for_whom", "lasts", "regression_to_mean"):
+        assert " ".join(doc["answers"][key].split()) in first, key
 
 
 def test_a_missing_required_key_is_named():
@@ -89,8 +99,8 @@ def test_no_sentence_contradicts_its_interval(effect, control, n_phases, fade):
     for seed in range(4):
         doc = full_comparison(seed, n_phases=n_phases, has_control=control, effect=effect, fade=fade,
                               trained_start_worse=bool(seed % 2))
-        inputs = _Inputs(ComparisonView.read(doc))
-        worked, whom, lasts = inputs.answers()
+        said = answers(doc)
+        worked, whom, lasts = said["worked"], said["for_whom"], said["lasts"]
         first, last = doc["phases"][0], doc["phases"][-1]
         panel = doc["panel"]
         # Did it work: a metric is credited only when the difference in differences (and the
@@ -149,7 +159,7 @@ def test_no_sentence_contradicts_its_interval(effect, control, n_phases, fade):
                 assert not (gain and not slip), (m, lasts)
             assert (METRIC_WORDS[m] in slipped) == slip, (m, lasts)
         # Regression to the mean: said when the trained started worse on a metric where the arms differed.
-        rtm = inputs.regression_caution()
+        rtm = said["regression_to_mean"]
         if control:
             expected = any(panel["training_effect"][m]["arms_differ_at_baseline"]
                            and panel["training_effect"][m]["baseline_difference"] * GOOD[m] < 0 for m in GOOD)
