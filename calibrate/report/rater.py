@@ -515,6 +515,8 @@ def before_after_section(report: RaterReport) -> list:
         return story + [text(f"Not available: {why}.", BODY)]
     story.append(text(BEFORE_AFTER_INTRO, SMALL))
     story += [text(f"- {line}", BODY) for line in lines]
+    if report.view.criterion_only_for_selected and any(e.changes and e.changes.get("r_a") for e in report.entries):
+        story.append(text(f"r_a: {wording.LENS_SELECTED_CAUTION}", SMALL))
     return story
 
 
