@@ -32,6 +32,8 @@ from .panel.pairs import RaterPairsResult, HomogeneityResult, compare_rater_pair
 from .policy.fit import CURVATURE_NOTE, POLICIES_SCHEMA, PolicySet, captured_policies, fit_policies
 from .pvalues import holm_adjust
 from .result_base import jsonable
+from .training import compare
+from .training.verdicts import rater_change_sentence
 
 RESULTS_SCHEMA = "calibrate.results/1"
 
@@ -360,6 +362,7 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
                 policies_out["phases"][ph.label]["groups"] = [
                     {"group": g.group, "raters": list(g.raters), "weights": dict(g.weights)}
                     for g in a.grouping.groups]
+    _add_rater_changes(raters, table, seed)
     tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables}
     return AuditResult(
         study_name=spec.name,
@@ -379,6 +382,49 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
         criterion_only_for_selected=spec.criterion_only_for_selected,
         provenance={"spec": spec_record(spec), "libraries": library_versions()},
     )
+
+
+# Each rater's before/after figures in the audit: the comparison's per-rater changes with
+# fewer case resamples than ``calibrate compare`` (1,000) to keep the audit quick (measured
+# on the demo: about 0.5 s more); training-report.pdf remains the place for the full figures.
+CHANGE_RESAMPLES = 400
+CHANGE_METRICS = ("r", "retest_r", "misallocation", "g_rubric", "r_a", "g")
+
+
+def _add_rater_changes(raters: list[dict], table: JudgmentTable, seed: int) -> None:
+    """Give every rater entry ``changes``: with two phases or more, this rater's change into
+    this phase from each earlier one (metric -> list), with its interval, verdict and sentence;
+    null otherwise (the reason in ``unavailable``)."""
+    named = [p.name for p in table.phases if p.name is not None]
+    if len(named) < 2:
+        for entry in raters:
+            entry["changes"] = None
+        return
+    comparison = compare(table, seed=seed, n_boot=CHANGE_RESAMPLES).to_dict()
+    by_rater = {r["rater"]: r for r in comparison["raters"]}
+    for entry in raters:
+        found = by_rater.get(entry["rater"])
+        if found is None or entry["phase"] == named[0]:
+            entry["changes"] = None
+            entry.setdefault("unavailable", {})["changes"] = (
+                "the first phase has no earlier one to compare with" if found is not None
+                else "this rater is not in every phase")
+            continue
+        changes = {}
+        for metric in CHANGE_METRICS:
+            block = found["metrics"].get(metric)
+            if block is None:
+                continue
+            into = []
+            for ch in block["changes"]:
+                if ch["to"] != entry["phase"]:
+                    continue
+                item = {**ch, "value_from": block["values"].get(ch["from"]),
+                        "value_to": block["values"].get(ch["to"])}
+                item["sentence"] = rater_change_sentence(metric, item)
+                into.append(item)
+            changes[metric] = into
+        entry["changes"] = changes
 
 
 # The libraries whose versions can change a figure or a report; read from the installed

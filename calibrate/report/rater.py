@@ -161,6 +161,7 @@ class RaterReport:
         story = []
         story += self.first_page()
         story.append(PageBreak())
+        story += before_after_section(self)
         story += self.cue_weights()
         story += self.consistency()
         story += self.severity_and_range()
@@ -491,6 +492,32 @@ class RaterReport:
         table.setStyle(table_style(("LINEBELOW", (0, 0), (-1, 0), 0.3, ACCENT_LIGHT)))
         story.append(table)
         return story
+
+
+BEFORE_AFTER_INTRO = ("Each line compares your own figures in two phases, with the 95% interval of the change; "
+                      "a change is named only where its interval excludes zero. The cases and your practice "
+                      "with the task changed between phases too, so a change is not by itself the effect of "
+                      "a training.")
+
+
+def before_after_section(report: RaterReport) -> list:
+    """With two phases or more: this rater's change in each figure, in the words results.json
+    carries (nothing in a study without phases)."""
+    if len(report.view.phase_order) < 2 or not report.view.named_phases:
+        return []
+    story = [text("Your change between phases", HEADING)]
+    lines = [report.private(ch.sentence) for e in report.entries for items in (e.changes or {}).values()
+             for ch in items]
+    lines = [line for line in lines if line]
+    if not lines:
+        reasons = [e.reason("changes") for e in report.entries if e.changes is None]
+        why = next((r for r in reversed(reasons) if r), "results.json holds no change figures")
+        return story + [text(f"Not available: {why}.", BODY)]
+    story.append(text(BEFORE_AFTER_INTRO, SMALL))
+    story += [text(f"- {line}", BODY) for line in lines]
+    if report.view.criterion_only_for_selected and any(e.changes and e.changes.get("r_a") for e in report.entries):
+        story.append(text(f"r_a: {wording.LENS_SELECTED_CAUTION}", SMALL))
+    return story
 
 
 def ceiling_sentence(r_s: float | None, r_tt: float, verdict: str | None = None) -> str:

@@ -38,6 +38,7 @@ class ResultsViewError(CalibrateError, KeyError):
 
     def __init__(self, path: str, problem: str = "is missing"):
         self.path = path
+        self.problem = problem  # comparison_view re-raises it under comparison.json's name
         super().__init__(f"results.json: {path} {problem}; the reports cannot be built from it. "
                          "Re-run the audit with this version of calibrate.")
 
@@ -288,6 +289,37 @@ class ExcludedView:
 
 
 @dataclass(frozen=True)
+class ChangeIntoPhase:
+    """``raters[].changes[METRIC][k]``: the rater's change into this phase from an earlier one."""
+
+    from_phase: str
+    to_phase: str
+    value_from: float | None
+    value_to: float | None
+    delta: float | None
+    ci_low: float | None
+    ci_high: float | None
+    verdict: str
+    sentence: str       # the words results.json carries for this change
+
+    @classmethod
+    def read(cls, d: Mapping, path: str) -> ChangeIntoPhase:
+        return cls(from_phase=str(_get(d, "from", path)), to_phase=str(_get(d, "to", path)),
+                   value_from=_num(d, "value_from", path), value_to=_num(d, "value_to", path),
+                   delta=_num(d, "delta", path), ci_low=_num(d, "ci_low", path), ci_high=_num(d, "ci_high", path),
+                   verdict=str(_get(d, "verdict", path)), sentence=str(_get(d, "sentence", path)))
+
+
+def _changes(d: Mapping, path: str) -> dict[str, tuple[ChangeIntoPhase, ...]] | None:
+    """The entry's ``changes`` (absent in results from before they were recorded: None)."""
+    block = d.get("changes")
+    if block is None:
+        return None
+    return {str(m): tuple(ChangeIntoPhase.read(c, f"{path}.changes.{m}[{i}]") for i, c in enumerate(items))
+            for m, items in block.items()}
+
+
+@dataclass(frozen=True)
 class RaterView:
     """One rater in one phase, as the reports read it."""
 
@@ -311,6 +343,7 @@ class RaterView:
     excluded: dict[str, ExcludedView]
     warnings: tuple[str, ...]
     unavailable: dict[str, str]
+    changes: dict[str, tuple[ChangeIntoPhase, ...]] | None = None   # with 2+ phases, into this phase
 
     def reason(self, section: str) -> str | None:
         """Why the audit left ``section`` empty, when it recorded a reason."""
@@ -344,7 +377,8 @@ class RaterView:
                 _get(consistency, "verdict", f"{path}.consistency")),
             group=_optional_text(_get(d, "group", path)),
             flags=tuple(map(str, _list(d, "flags", path))), excluded=excluded,
-            warnings=collect_warnings(d), unavailable={str(k): str(v) for k, v in unavailable.items()})
+            warnings=collect_warnings(d), unavailable={str(k): str(v) for k, v in unavailable.items()},
+            changes=_changes(d, path))
 
 
 # ---------------------------------------------------------------- panels
@@ -608,6 +642,6 @@ class ResultsView:
         return next((p for p in self.panels if p.phase == phase), None)
 
 
-__all__ = ["AlignmentView", "CaseToRevisit", "CutoffView", "DriftView", "ExcludedView", "GroupView", "GroupingView",
+__all__ = ["AlignmentView", "CaseToRevisit", "ChangeIntoPhase", "CutoffView", "DriftView", "ExcludedView", "GroupView", "GroupingView",
            "IccView", "LensView", "PanelView", "PolicyView", "RaterView", "ResultsView", "ResultsViewError",
            "RetestView", "SeverityView", "collect_warnings"]

@@ -33,6 +33,7 @@ from ..lens.rubric import _cue_shares, _validate_rubric
 from ..result_base import ResultMixin, jsonable
 from .tests_of_change import (ancova_difference, bootstrap_difference, fisher_z_difference,
                               normal_difference, paired_tests, welch_difference)
+from .verdicts import annotate
 
 COMPARISON_SCHEMA = "calibrate.comparison/1"
 BOOTSTRAP_METRICS = ("r", "misallocation")
@@ -88,12 +89,13 @@ class ComparisonResult(ResultMixin):
     study_name: str = ""
 
     def to_dict(self) -> dict:
-        return jsonable({"schema": COMPARISON_SCHEMA, "seed": self.seed, "n_boot": self.n_boot,
+        # annotate: the verdict words of every change and the first page's answers (verdicts.py)
+        return annotate(jsonable({"schema": COMPARISON_SCHEMA, "seed": self.seed, "n_boot": self.n_boot,
                          "phases": list(self.phases), "has_control": self.has_control,
                          "study": {"name": self.study_name}, "summary": list(self.summary),
                          "raters": [r.to_dict() for r in self.raters],
                          "unmatched": list(self.unmatched), "panel": self.panel,
-                         "cautions": list(self.cautions)})
+                         "cautions": list(self.cautions)}))
 
     def to_frame(self) -> pd.DataFrame:
         """Tidy: one row per rater x metric x change."""

@@ -99,10 +99,15 @@ def test_training_report_first_page_answers_in_words(result):
 
     doc = result.to_dict()
     doc["study"]["name"] = "Invented panel"
-    first = " ".join(page_texts(training_pdf(doc))[0].split())
+    pages = [" ".join(t.split()) for t in page_texts(training_pdf(doc))]
+    first = pages[0]
     assert "Did the training work?" in first
-    assert " ".join(result.summary[0].split()) in first
-    assert "different case sets" in first and "institution's policies" in first
+    # A sentence each: it worked on the rubric (the planted effect), for the trained raters
+    # and not the controls, and whether it lasts cannot be told without a follow-up.
+    assert "Did it work? Yes, on closeness to the rubric's weights" in first
+    assert "closeness to the rubric's weights 7 of 7 trained and" in first
+    assert "Does it last? Cannot be told: the study has no follow-up phase" in first
+    assert "different case sets" in first and "institution's policies" in " ".join(pages)
 
 
 def test_a_follow_up_phase_gives_every_change_and_whether_it_lasted(tmp_path):

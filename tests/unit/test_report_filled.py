@@ -205,3 +205,27 @@ def test_no_peer_figures_below_five_raters(filled):
     text = "\n".join(page_texts(rater_pdf(data, keep[0])))
     assert "fewer than five raters" in text
     assert "panel median" not in text and "Among colleagues" not in text
+
+
+# Good direction of each before/after figure, written out here apart from the verdict code.
+_GOOD = {"r": 1, "retest_r": 1, "misallocation": -1, "g_rubric": 1, "r_a": 1, "g": 1}
+
+
+def test_before_after_section_prints_each_change_and_follows_its_interval(filled, built):
+    out, _ = built
+    for rater, name in rater_file_names(filled.rater_ids()).items():
+        entries = entries_of(filled.results, rater)
+        assert entries[0]["changes"] is None  # the first phase has nothing before it
+        text = " ".join(" ".join(page_texts(out / "raters" / name)).split())
+        assert "Your change between phases" in text
+        for entry in entries[1:]:
+            for metric, items in entry["changes"].items():
+                for ch in items:
+                    assert (ch["from"], ch["to"]) == ("before", "after")
+                    assert " ".join(ch["sentence"].split()) in text, (rater, metric)
+                    low, high = ch["ci_low"], ch["ci_high"]
+                    clear_up = low is not None and low > 0
+                    clear_down = high is not None and high < 0
+                    expected = ("no clear change" if not (clear_up or clear_down) else
+                                "better" if clear_up == (_GOOD[metric] > 0) else "worse")
+                    assert ch["verdict"] == expected, (rater, metric, ch)
