@@ -156,8 +156,9 @@ def line_font(value: str, font: str) -> str:
 
 TITLE = ParagraphStyle("title", fontName=BOLD_FONT, fontSize=17, leading=21, textColor=INK,
                        spaceAfter=4)
+# keepWithNext: a heading never ends a page without the first lines of its section.
 HEADING = ParagraphStyle("heading", fontName=BOLD_FONT, fontSize=12, leading=15, textColor=ACCENT,
-                         spaceBefore=10, spaceAfter=4)
+                         spaceBefore=10, spaceAfter=4, keepWithNext=1)
 BODY = ParagraphStyle("body", fontName=BASE_FONT, fontSize=9.5, leading=12.5, textColor=INK,
                       alignment=TA_LEFT, spaceAfter=4)
 SMALL = ParagraphStyle("small", parent=BODY, fontSize=8, leading=10, textColor=MUTED, spaceAfter=2)

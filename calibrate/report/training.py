@@ -8,9 +8,10 @@ from __future__ import annotations
 
 import io
 
-from reportlab.platypus import Spacer, Table
+from reportlab.platypus import Spacer
 
 from . import wording
+from .layout import fitted_table
 from .styles import (CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, SMALL, TITLE, ReportDocument,
                      table_style, text)
 
@@ -50,7 +51,7 @@ def training_pdf(comparison: dict) -> bytes:
     first_width = 0.14 * CONTENT_WIDTH
     arm_width = 0.10 * CONTENT_WIDTH
     rest = (CONTENT_WIDTH - first_width - arm_width) / max(len(metrics), 1)
-    story.append(Table(rows, colWidths=[first_width, arm_width] + [rest] * len(metrics),
+    story.append(fitted_table(rows, [first_width, arm_width] + [rest] * len(metrics),
                        style=table_style(), repeatRows=1))
 
     effects = comparison["panel"]["training_effect"]
@@ -66,7 +67,7 @@ def training_pdf(comparison: dict) -> bytes:
                          text(wording.fmt_p(e["p_value"]), CELL),
                          text(f"{wording.fmt(a['estimate'])} [{wording.fmt(a['ci_low'])}, "
                               f"{wording.fmt(a['ci_high'])}]", CELL)])
-        story.append(Table(rows, style=table_style(), repeatRows=1))
+        story.append(fitted_table(rows, style=table_style(), repeatRows=1))
         story.append(text("Welch's t on the per-rater changes; ANCOVA holds each rater's starting "
                           "value constant.", SMALL))
     if comparison["unmatched"]:
