@@ -445,12 +445,17 @@ class PanelReport:
         out: list[tuple[str, str]] = []
         for w in self.view.warnings:
             out.append((f"reading the data ({w.where})" if w.where else "analysis", w.message))
+        # The study's list already carries each analysis' notes as "analysis (phase): note";
+        # the same note read again from a rater's or the panel's block is not printed twice.
+        carried = {w.message.split(": ", k)[-1] for w in self.view.warnings for k in (1, 2)}
         for e in self.view.raters:
             for msg in e.warnings:
-                out.append((f"fitting {e.rater}" + (f", {e.phase}" if e.phase else ""), msg))
+                if msg not in carried:
+                    out.append((f"fitting {e.rater}" + (f", {e.phase}" if e.phase else ""), msg))
         for p in self.view.panels:
             for msg in p.warnings:
-                out.append(("panel" + (f", {p.phase}" if p.phase else ""), msg))
+                if msg not in carried:
+                    out.append(("panel" + (f", {p.phase}" if p.phase else ""), msg))
         return out
 
     def data_quality(self) -> list:

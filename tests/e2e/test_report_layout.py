@@ -128,3 +128,20 @@ def test_no_page_but_the_last_is_nearly_empty(demo, simulated):
     builds.append(("training report", lambda: training_pdf(comparison)))
     problems = [p for name, build in builds for p in _thin_pages(name, build)]
     assert not problems, "\n".join(problems)
+
+
+def test_a_data_quality_note_is_printed_once(demo):
+    """The pairs' note on constant design columns reached the panel summary twice: once from the
+    study's list of notes and once from the panel's own block."""
+    from calibrate.report._read import as_report_input
+    from calibrate.report.panel import PanelReport
+    from tests.pdf_text import page_texts
+
+    _, result = demo
+    notes = PanelReport(as_report_input(result)).all_warnings()
+    study_level = [msg for where, msg in notes if where == "analysis"]
+    repeated = [(where, msg) for where, msg in notes if where != "analysis"
+                and any(other.endswith(": " + msg) for other in study_level)]
+    assert not repeated
+    printed = " ".join(" ".join(page_texts(panel_pdf(result))).split())
+    assert printed.count("share only cases on which some design column is constant") == 1
