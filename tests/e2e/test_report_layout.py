@@ -6,8 +6,6 @@ panels unlike it: long rater names with many cues, and binary decisions.
 
 from __future__ import annotations
 
-import numpy as np
-import pandas as pd
 import pytest
 
 from calibrate.analyses import audit
@@ -15,8 +13,8 @@ from calibrate.data import load_study, write_demo
 from calibrate.report import panel_pdf, rater_pdf
 from calibrate.report.training import training_pdf
 from calibrate.training import compare
-from tests.helpers import write_study
 from tests.report_layout import split_words, watch_build
+from tests.varied_studies import binary_study, long_names_many_cues_study
 
 # A page other than the last must be at least this full (share of the text frame's height):
 # a heading or one caution box alone fills about a tenth.
@@ -29,49 +27,11 @@ def demo(tmp_path_factory):
     return files, audit(files.spec, n_boot=200)
 
 
-def _long_names_many_cues(folder):
-    """Eight raters with long hyphenated names, ten cues, hidden repeats, on a 1-7 scale."""
-    rng = np.random.default_rng(5)
-    n_cases, n_cues = 70, 10
-    cues = rng.normal(size=(n_cases, n_cues)).round(2)
-    names = ["Maximiliana-Featherstonehaugh", "Bartholomew-Oyelaran-Smythe", "Wilhelmina-Kowalczykowska",
-             "Theodosia-Papadimitriou", "Rr", "Anastasios-Vanderhoeven", "Guinevere-Abernathy-Ito",
-             "Quentin-Montgomery-Achterberg"]
-    weights = rng.uniform(-0.4, 1.0, size=(len(names), n_cues))
-    rows = []
-    for r, name in enumerate(names):
-        order = list(rng.permutation(n_cases)) + list(rng.choice(n_cases, size=12, replace=False))
-        for seq, c in enumerate(order):
-            latent = 4 + 0.5 * cues[c] @ weights[r] + rng.normal(0, 0.7)
-            rows.append({"rater": name, "case": f"case-{c + 1:03d}", "score": int(np.clip(round(latent), 1, 7)),
-                         "seq": seq, **{f"cue_number_{k + 1}": cues[c, k] for k in range(n_cues)}})
-    cue_lines = "\n".join(f'cue_number_{k + 1} = "numeric"' for k in range(n_cues))
-    return write_study(folder, pd.DataFrame(rows), cues=cue_lines, extra_columns='sequence = "seq"')
-
-
-def _binary(folder):
-    """Six raters deciding admit / decline on three cues, with an outcome for every case."""
-    rng = np.random.default_rng(9)
-    n_cases = 60
-    x = rng.normal(size=(n_cases, 3)).round(3)
-    outcome = (x @ [1.0, 0.5, 0.2] + rng.normal(0, 0.8, n_cases)).round(3)
-    rows = []
-    for r in range(6):
-        for c in rng.choice(n_cases, size=48, replace=False):
-            latent = x[c] @ [1.0, 0.6 - 0.2 * r, 0.3] + rng.normal(0, 0.6)
-            rows.append({"rater": f"reader{r + 1}", "case": f"f{c + 1}", "score": "admit" if latent > 0 else "decline",
-                         "x1": x[c, 0], "x2": x[c, 1], "x3": x[c, 2], "outcome": outcome[c]})
-    return write_study(folder, pd.DataFrame(rows), scale="binary", jmin=0, jmax=1,
-                       cues='x1 = "numeric"\nx2 = "numeric"\nx3 = "numeric"',
-                       extra_columns='criterion = "outcome"',
-                       extra_judgment='labels = { admit = 1, decline = 0 }')
-
-
 @pytest.fixture(scope="module")
 def simulated(tmp_path_factory):
     base = tmp_path_factory.mktemp("layout-sim")
-    return {"long names, many cues": audit(_long_names_many_cues(base / "long"), n_boot=100),
-            "binary decisions": audit(_binary(base / "binary"), n_boot=100)}
+    return {"long names, many cues": audit(long_names_many_cues_study(base / "long"), n_boot=100),
+            "binary decisions": audit(binary_study(base / "binary"), n_boot=100)}
 
 
 def _raters_of(result):
