@@ -226,15 +226,29 @@ class PanelReport:
         if not entries:
             return [text("Standardized weights are not available yet for this phase.", BODY)]
         terms = list(self.view.design_terms) or list(entries[0].policy.std_weights)
-        entries.sort(key=lambda e: (e.group or "~", e.rater))
+        entries = self._in_tree_order(entries, self.view.panel(phase))
         values = [[e.policy.std_weights.get(t) for t in terms] for e in entries]
         # one map holds at most HEAT_MAP_ROWS raters: a taller image cannot fit on a page
         images = [charts.weight_heat_map([e.rater for e in entries[i:i + HEAT_MAP_ROWS]], terms,
                                          values[i:i + HEAT_MAP_ROWS],
                                          [e.group for e in entries[i:i + HEAT_MAP_ROWS]], width_pt=CONTENT_WIDTH)
                   for i in range(0, len(entries), HEAT_MAP_ROWS)]
-        return images + [text("Rows are raters ordered by group (letter in brackets); green: the judgment rises "
-                            "with the cue, brown: it falls. Weights are on z-scored cues and judgments.", SMALL)]
+        return images + [text("Rows are raters in the order of the grouping tree below (group letter in "
+                              "brackets); each cell shows the standardized weight; green: the judgment rises "
+                              "with the cue, brown: it falls. Weights are on z-scored cues and judgments.",
+                              SMALL)]
+
+    @staticmethod
+    def _in_tree_order(entries, panel: PanelView | None):
+        """Raters in the grouping tree's top-to-bottom order, so that the heat map's rows and the
+        tree's leaves line up; raters outside the tree follow by group and id."""
+        grouping = None if panel is None else panel.grouping
+        order: list[str] = []
+        if grouping is not None and grouping.merges:
+            order = charts.tree_leaf_order(list(grouping.grouped_raters),
+                                           [(m.merged_a, m.merged_b) for m in grouping.merges])
+        place = {r: i for i, r in enumerate(order)}
+        return sorted(entries, key=lambda e: (place.get(e.rater, len(place)), e.group or "~", e.rater))
 
     def groups(self, panel: PanelView) -> list:
         groups = panel.groups

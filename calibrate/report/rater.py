@@ -142,6 +142,13 @@ class RaterReport:
             return None
         return str(sentence)
 
+    def chart_caption(self, sentence: str) -> str:
+        """A chart's caption that names the phase the chart shows ("Phase after: each dot ...");
+        the sentence as it is in a study with one unnamed phase."""
+        if not self.view.named_phases or self.phase is None or not sentence:
+            return sentence
+        return f"Phase {self.phase}: {sentence[0].lower()}{sentence[1:]}"
+
     def peers(self, phase) -> list[RaterView]:
         return [e for e in self.view.entries_in(phase) if e.rater != self.rater]
 
@@ -272,7 +279,7 @@ class RaterReport:
         if rubric:
             series.append(("rubric", rubric, RUBRIC))
         story.append(charts.weight_chart(cues, series, width=CONTENT_WIDTH))
-        story.append(text(wording.shares_caption(shares), SMALL))
+        story.append(text(self.chart_caption(wording.shares_caption(shares)), SMALL))
         cutoff = self.entry.cutoff
         if cutoff is not None and cutoff.flagged and cutoff.cue is not None:
             story.append(text(cutoff_sentence(cutoff), NOTE))
@@ -329,9 +336,10 @@ class RaterReport:
         bounds = self.scale()
         if pairs and bounds:
             story.append(charts.retest_scatter(pairs, low=bounds[0], high=bounds[1]))
-            story.append(text("Each dot is a case you judged more than once: your first judgment across, "
-                              "your second up; dots on the dashed line got the same judgment both times, "
-                              "and larger dots stand for several cases.", SMALL))
+            story.append(text(self.chart_caption(
+                "Each dot is a case you judged more than once: your first judgment across, your second "
+                "up; dots on the dashed line got the same judgment both times, and larger dots stand for "
+                "several cases."), SMALL))
         elif r_tt is None:
             reason = self.entry.reason("retest")
             story.append(text(f"Test-retest is not available: {reason}." if reason else
@@ -388,8 +396,8 @@ class RaterReport:
         if order and bounds:
             story.append(charts.order_chart([p for p, _ in order], [j for _, j in order], low=bounds[0],
                                             high=bounds[1], width=CONTENT_WIDTH * 0.8))
-            story.append(text("Grey dots: your judgments in reading order; line: their running average.",
-                              SMALL))
+            story.append(text(self.chart_caption("Grey dots: your judgments in reading order; line: their "
+                                                 "running average."), SMALL))
         return story
 
     def reading_order(self) -> list[tuple[float, float]]:

@@ -44,49 +44,34 @@ def _all_builds(result):
         yield f"report of {r}", lambda r=r: rater_pdf(result, r, include_excluded=True)
 
 
-def _check_words(builds) -> list[str]:
+@pytest.fixture(scope="module")
+def laid_out(demo, simulated):
+    """Every PDF built once and watched: study shape -> [(file, Layout)]."""
+    files, result = demo
+    builds = {"demo": list(_all_builds(result))}
+    comparison = compare(load_study(files.spec), n_boot=100).to_dict()
+    builds["demo"].append(("training report", lambda: training_pdf(comparison)))
+    for shape, sim in simulated.items():
+        builds[shape] = list(_all_builds(sim))
+    return {shape: [(name, watch_build(build)[1]) for name, build in items] for shape, items in builds.items()}
+
+
+@pytest.mark.parametrize("shape", ["demo", "long names, many cues", "binary decisions"])
+def test_no_word_is_cut_by_its_column(laid_out, shape):
     problems = []
-    for name, build in builds:
-        _, layout = watch_build(build)
+    for name, layout in laid_out[shape]:
         assert layout.tables, f"{name}: no table was set"
         problems += [f"{name}: {p}" for p in (q for t in layout.tables for q in split_words(t))]
-    return problems
-
-
-def test_no_word_is_cut_by_its_column_in_the_demo_reports(demo):
-    _, result = demo
-    problems = _check_words(_all_builds(result))
     assert not problems, "\n".join(problems[:20])
 
 
-@pytest.mark.parametrize("shape", ["long names, many cues", "binary decisions"])
-def test_no_word_is_cut_by_its_column_in_simulated_panels(simulated, shape):
-    result = simulated[shape]
-    problems = _check_words(_all_builds(result))
-    assert not problems, "\n".join(problems[:20])
-
-
-def test_no_word_is_cut_in_the_training_report(demo):
-    files, _ = demo
-    comparison = compare(load_study(files.spec), n_boot=100).to_dict()
-    problems = _check_words([("training report", lambda: training_pdf(comparison))])
-    assert not problems, "\n".join(problems[:20])
-
-
-def _thin_pages(name, build) -> list[str]:
-    _, layout = watch_build(build)
-    thin = [(k + 1, round(fill, 2)) for k, fill in enumerate(layout.page_fill[:-1]) if fill < LEAST_PAGE_FILL]
-    return [f"{name}: page(s) with very little on them (page, share of the page filled): {thin}"] if thin else []
-
-
-def test_no_page_but_the_last_is_nearly_empty(demo, simulated):
-    files, result = demo
-    builds = list(_all_builds(result))
-    for shape, sim in simulated.items():
-        builds += [(f"{shape}, {name}", build) for name, build in _all_builds(sim)]
-    comparison = compare(load_study(files.spec), n_boot=100).to_dict()
-    builds.append(("training report", lambda: training_pdf(comparison)))
-    problems = [p for name, build in builds for p in _thin_pages(name, build)]
+@pytest.mark.parametrize("shape", ["demo", "long names, many cues", "binary decisions"])
+def test_no_page_but_the_last_is_nearly_empty(laid_out, shape):
+    problems = []
+    for name, layout in laid_out[shape]:
+        thin = [(k + 1, round(fill, 2)) for k, fill in enumerate(layout.page_fill[:-1]) if fill < LEAST_PAGE_FILL]
+        if thin:
+            problems.append(f"{name}: page(s) with very little on them (page, share of the page filled): {thin}")
     assert not problems, "\n".join(problems)
 
 
@@ -105,3 +90,32 @@ def test_a_data_quality_note_is_printed_once(demo):
     assert not repeated
     printed = " ".join(" ".join(page_texts(panel_pdf(result))).split())
     assert printed.count("share only cases on which some design column is constant") == 1
+
+
+def test_heat_map_rows_follow_the_grouping_tree(demo):
+    from calibrate.report import charts
+    from calibrate.report._read import as_report_input
+    from calibrate.report.panel import PanelReport
+
+    _, result = demo
+    report = PanelReport(as_report_input(result))
+    for phase in report.view.phases:
+        panel = report.view.panel(phase)
+        grouping = panel.grouping
+        tree = charts.tree_leaf_order(list(grouping.grouped_raters),
+                                      [(m.merged_a, m.merged_b) for m in grouping.merges])
+        rows = [e.rater for e in report._in_tree_order(list(report.view.entries_in(phase)), panel)]
+        assert rows == tree, phase
+
+
+def test_each_rater_chart_names_its_phase_unless_the_study_has_none(demo, simulated):
+    from tests.pdf_text import page_texts
+
+    _, result = demo
+    with_phases = " ".join(" ".join(page_texts(rater_pdf(result, "Alder"))).split())
+    for caption in ("Phase after: a share is", "Phase after: each dot is a case",
+                    "Phase after: grey dots: your judgments in reading order"):
+        assert caption in with_phases
+    sim = simulated["long names, many cues"]
+    without = " ".join(" ".join(page_texts(rater_pdf(sim, _raters_of(sim)[0]))).split())
+    assert "Phase" not in without and "Each dot is a case" in without

@@ -53,3 +53,12 @@ def test_a_caution_box_that_runs_over_is_not_left_alone_on_a_page():
              fresh_page(), text("The next part", HEADING)] + [text("Body text of the next part.", BODY)] * 50
     _, layout = watch_build(lambda: _build(story))
     assert layout.page_fill[1] > 0.5  # the next part continued below the box
+
+
+def test_a_heading_over_a_long_table_stays_where_there_is_room():
+    """Keeping a heading with the whole of a long table would send both to the next page and
+    leave most of this one empty."""
+    body = [[text("a", CELL_BOLD), text("b", CELL_BOLD)]] + [[text("1", CELL), text("2", CELL)]] * 120
+    story = [Spacer(1, FRAME_HEIGHT * 0.4), text("A section", HEADING), fitted_table(body, style=table_style())]
+    _, layout = watch_build(lambda: _build(story))
+    assert layout.page_fill[0] > 0.9
