@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 
 from ..safe_files import reproducible_xlsx_bytes
+from .columns import column_description
 
 _FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 _SHEET_FORBIDDEN = re.compile(r"[\[\]:*?/\\]")
@@ -28,40 +29,18 @@ README_SHEET = "read-me"
 # Office Open XML spreadsheet format. A longer table continues on further sheets.
 SHEET_DATA_ROWS = 1_048_575
 
-# What common columns hold; a caller's own notes take precedence.
-COLUMN_NOTES = {
-    "rater": "Rater id, as in the judgments table.",
-    "phase": "Phase of the study (for example before / after a training); 'all' in a study without phases (the reports print no phase for it).",
-    "case": "Case (file) id, as in the judgments table.",
-    "cue": "Cue: a piece of case information the judgments can use.",
-    "term": "Design column: a numeric cue, or one level of a categorical cue ('cue=level').",
-    "measure": "Which quantity the row holds.",
-    "estimate": "The estimate.",
-    "se": "Standard error of the estimate.",
-    "ci_low": "Lower end of the 95% confidence interval.",
-    "ci_high": "Upper end of the 95% confidence interval.",
-    "p_value": "p-value of the test.",
-    "p_adjusted": "p-value adjusted for the number of tests (Holm).",
-    "n": "Number of observations behind the figure.",
-    "n_cases": "Cases the rater judged (first judgments).",
-    "n_repeats": "Cases the rater judged twice (test-retest pairs).",
-    "n_judgments": "All judgments kept, repeats included.",
-    "usable_cases": "Cases usable in the policy fit (no dropped cue).",
-    "cases_per_term": "Usable cases per model term (a rough guide: fewer than 10 gives unstable weights).",
-    "group": "Group of raters with similar policies.",
-    "flags": "Flags raised for the rater (identifiers listed in the README), separated by spaces.",
-    "judgment": "The judgment given.",
-    "r": "Correlation.",
-    "r_s": "Consistency R_s: correlation between judgments and the rater's own policy.",
-}
+# A sheet holding rows of a long table beyond the first sheet: "name (part 2)".
+_PART_SUFFIX = re.compile(r" \(part \d+\)$")
+# Printed for a column that has no sentence in calibrate.output.columns (a test keeps the
+# audit's own tables free of it).
+NO_DESCRIPTION = "No description of this column yet."
 
 
-def _column_note(column: str, notes: Mapping[str, str]) -> str:
+def _column_note(table: str, column: str, notes: Mapping[str, str]) -> str:
+    """The read-me sentence of a column: the caller's note, else the one of calibrate.output.columns."""
     if column in notes:
         return notes[column]
-    if column in COLUMN_NOTES:
-        return COLUMN_NOTES[column]
-    return column.replace("_", " ").capitalize() + " (see the README's table list)."
+    return column_description(_PART_SUFFIX.sub("", table), column) or NO_DESCRIPTION
 
 
 def sheet_names(names) -> dict[str, str]:
@@ -146,7 +125,8 @@ def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str
     ----------
     tables : table name -> tidy DataFrame; one sheet each, in this order.
     descriptions : table name -> one sentence on what the table holds (read-me sheet).
-    column_notes : column name -> what it holds, for columns the built-in notes miss.
+    column_notes : column name -> what it holds; takes precedence over the sentences of
+        :mod:`calibrate.output.columns` (the audit's own tables need none).
     max_rows : data rows per sheet; a longer table continues on further sheets.
     """
     from openpyxl import Workbook
@@ -164,7 +144,7 @@ def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str
         readme.append([names[name], "", _cell_value(descriptions.get(name, ""))])
         readme.cell(row=readme.max_row, column=1).font = Font(bold=True)
         for col in frame.columns:
-            readme.append([names[name], _cell_value(str(col)), _column_note(str(col), notes)])
+            readme.append([names[name], _cell_value(str(col)), _column_note(name, str(col), notes)])
     _finish_sheet(readme, [12, 24, 90])
     for cell in readme["C"]:
         cell.alignment = Alignment(wrap_text=True, vertical="top")

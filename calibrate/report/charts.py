@@ -15,6 +15,15 @@ from .styles import ACCENT, ACCENT_LIGHT, BASE_FONT, INK, MUTED, PALE, PANEL, RU
 from .wording import fmt
 
 LABEL_SIZE = 7.5
+# Room beyond each end of the judgment scale, as a share of its length: a dot at 1 or at 7
+# (and the larger dot of several equal pairs) sits wholly inside the frame, off the edge.
+SCALE_PAD = 0.07
+
+
+def _padded(low: float, high: float) -> tuple[float, float]:
+    """The plotted range of a scale from ``low`` to ``high``: the scale plus SCALE_PAD each side."""
+    pad = SCALE_PAD * (high - low)
+    return low - pad, high + pad
 
 
 def _nice_ticks(low: float, high: float, count: int = 5) -> list[float]:
@@ -111,9 +120,9 @@ def retest_scatter(pairs: Sequence[tuple[float, float]], *, low: float, high: fl
     """First against second judgment of each repeated case; dot area grows with the count."""
     d = Drawing(size + 30, size + 26)
     x0, y0 = 26.0, 20.0
-    lo, hi = low, high
-    if hi <= lo:
-        hi = lo + 1
+    if high <= low:
+        high = low + 1
+    lo, hi = _padded(low, high)
 
     def sx(v):
         return x0 + (v - lo) / (hi - lo) * size
@@ -122,9 +131,9 @@ def retest_scatter(pairs: Sequence[tuple[float, float]], *, low: float, high: fl
         return y0 + (v - lo) / (hi - lo) * size
 
     d.add(Rect(x0, y0, size, size, fillColor=None, strokeColor=RULE, strokeWidth=0.6))
-    d.add(Line(sx(lo), sy(lo), sx(hi), sy(hi), strokeColor=RUBRIC, strokeWidth=0.8,
+    d.add(Line(sx(low), sy(low), sx(high), sy(high), strokeColor=RUBRIC, strokeWidth=0.8,
                strokeDashArray=[3, 2]))
-    for t in _nice_ticks(lo, hi, 6):
+    for t in _nice_ticks(low, high, 6):
         d.add(String(sx(t), y0 - 9, fmt(t, 0 if float(t).is_integer() else 1), fontName=BASE_FONT,
                      fontSize=6.5, fillColor=MUTED, textAnchor="middle"))
         d.add(String(x0 - 3, sy(t) - 2, fmt(t, 0 if float(t).is_integer() else 1), fontName=BASE_FONT,
@@ -148,14 +157,17 @@ def order_chart(positions: Sequence[float], judgments: Sequence[float], *, low: 
     pmin, pmax = (min(positions), max(positions)) if n else (0, 1)
     if pmax <= pmin:
         pmax = pmin + 1
+    # the first and last judgments sit off the frame's sides as well
+    pmin, pmax = pmin - 0.015 * (pmax - pmin), pmax + 0.015 * (pmax - pmin)
     if high <= low:
         high = low + 1
+    shown_low, shown_high = _padded(low, high)
 
     def sx(v):
         return x0 + (v - pmin) / (pmax - pmin) * (x1 - x0)
 
     def sy(v):
-        return y0 + (v - low) / (high - low) * (y1 - y0)
+        return y0 + (v - shown_low) / (shown_high - shown_low) * (y1 - y0)
 
     d.add(Rect(x0, y0, x1 - x0, y1 - y0, fillColor=None, strokeColor=RULE, strokeWidth=0.6))
     for t in _nice_ticks(low, high, 4):
@@ -193,6 +205,15 @@ def _with_cjk_fallback(fig) -> None:
             item.set_fontfamily(families)
 
 
+def _label_room(labels: Sequence[str], width_pt: float, *, least: float = 0.2, most: float = 0.45) -> float:
+    """The share of a figure's width its row labels need on the left (6.5 pt DejaVu Sans, as
+    drawn), so that a long rater name is shown whole rather than cut at the figure's edge."""
+    from reportlab.pdfbase.pdfmetrics import stringWidth
+
+    widest = max((stringWidth(str(label), BASE_FONT, 6.5) for label in labels), default=0.0)
+    return min(most, max(least, (widest + 18.0) / width_pt))  # 18 pt: tick padding and a margin
+
+
 def _png_image(fig, width_pt: float, height_pt: float) -> Image:
     from matplotlib.backends.backend_agg import FigureCanvasAgg
 
@@ -206,7 +227,15 @@ def _png_image(fig, width_pt: float, height_pt: float) -> Image:
 
 def weight_heat_map(raters: Sequence[str], terms: Sequence[str], values: Sequence[Sequence[float | None]],
                     groups: Sequence[str | None], *, width_pt: float) -> Image:
-    """Standardized weights, raters (rows, ordered by group) by design terms (columns)."""
+    """Standardized weights, raters (rows, in the order given: the grouping tree's) by design
+    terms (columns), each cell with its value."""
+    fig = heat_map_figure(raters, terms, values, groups, width_pt=width_pt)
+    return _png_image(fig, width_pt, fig.get_figheight() * 72)
+
+
+def heat_map_figure(raters: Sequence[str], terms: Sequence[str], values: Sequence[Sequence[float | None]],
+                    groups: Sequence[str | None], *, width_pt: float):
+    """The matplotlib Figure behind :func:`weight_heat_map`."""
     import numpy as np
     from matplotlib.colors import LinearSegmentedColormap
     from matplotlib.figure import Figure
@@ -219,13 +248,22 @@ def weight_heat_map(raters: Sequence[str], terms: Sequence[str], values: Sequenc
     fig = Figure(figsize=(width_in, height_in))
     bottom = bottom_in / height_in
     top = 1 - 0.15 / height_in
-    ax = fig.add_axes((0.2, bottom, 0.66, top - bottom))
+    labels = [f"{r}  ({g})" if g else str(r) for r, g in zip(raters, groups)]
+    left = _label_room(labels, width_pt)
+    ax = fig.add_axes((left, bottom, 0.86 - left, top - bottom))
     cmap = LinearSegmentedColormap.from_list("calm", ["#b5651d", "#f7f4ee", "#2f7d74"])
     finite = data[np.isfinite(data)]
     bound = max(float(np.max(np.abs(finite))) if finite.size else 1.0, 0.05)
     im = ax.imshow(np.ma.masked_invalid(data), cmap=cmap, vmin=-bound, vmax=bound, aspect="auto")
+    # Each cell carries its value: light text on the dark ends of the palette, ink on the pale
+    # middle; the size follows the cell's width so that many cues still fit.
+    cell_width_pt = (0.86 - left) * width_pt / max(len(terms), 1)
+    value_size = max(3.5, min(6.0, cell_width_pt / 3.4))
+    for (i, j), v in np.ndenumerate(data):
+        if np.isfinite(v):
+            ax.text(j, i, fmt(float(v), 2), ha="center", va="center", fontsize=value_size,
+                    color="#ffffff" if abs(v) > 0.62 * bound else "#27323a")
     ax.set_xticks(range(len(terms)), labels=list(terms), rotation=40, ha="right", fontsize=6.5)
-    labels = [f"{r}  ({g})" if g else str(r) for r, g in zip(raters, groups)]
     ax.set_yticks(range(len(raters)), labels=labels, fontsize=6.5)
     for k in range(1, len(groups)):
         if groups[k] != groups[k - 1]:
@@ -237,16 +275,14 @@ def weight_heat_map(raters: Sequence[str], terms: Sequence[str], values: Sequenc
     bar = fig.colorbar(im, cax=cax)
     bar.ax.tick_params(labelsize=6)
     bar.set_label("standardized weight", fontsize=6.5)
-    return _png_image(fig, width_pt, height_in * 72)
+    return fig
 
 
-def grouping_tree(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str], Sequence[str], float]],
-                  leaf_groups: Mapping[str, str | None], *, width_pt: float) -> Image:
-    """A tree drawn from the merge sequence: each merge joins two sets of raters at the
-    overall R^2 lost so far (the height), leaves ordered so that no branches cross."""
-    from matplotlib.figure import Figure
+def _replay_merges(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str], Sequence[str], float]]):
+    """Replay the merge sequence: each cluster is a list of leaves and merged lists concatenate,
+    so that the leaves come out in an order in which no branches cross.
 
-    # order leaves by replaying merges: each cluster is a list, merged lists concatenate
+    Returns (leaf order, links (cluster a, cluster b, height), height of every cluster)."""
     clusters = {frozenset([leaf]): [leaf] for leaf in leaves}
     pos_height: dict[frozenset, float] = {frozenset([leaf]): 0.0 for leaf in leaves}
     links = []
@@ -258,17 +294,34 @@ def grouping_tree(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str], S
         clusters[ka | kb] = clusters.pop(ka) + clusters.pop(kb)
         pos_height[ka | kb] = h
     order = [leaf for members in clusters.values() for leaf in members]
+    return order, links, pos_height
+
+
+def tree_leaf_order(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str], Sequence[str]]]) -> list[str]:
+    """The top-to-bottom order of the leaves in the grouping tree (:func:`grouping_tree`), for
+    the figures that list raters beside it (the heat map)."""
+    return _replay_merges(leaves, [(a, b, 0.0) for a, b in merges])[0]
+
+
+def grouping_tree(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str], Sequence[str], float]],
+                  leaf_groups: Mapping[str, str | None], *, width_pt: float) -> Image:
+    """A tree drawn from the merge sequence: each merge joins two sets of raters at the
+    overall R^2 lost so far (the height), leaves ordered so that no branches cross."""
+    from matplotlib.figure import Figure
+
+    order, links, pos_height = _replay_merges(leaves, merges)
     x_of_leaf = {leaf: i for i, leaf in enumerate(order)}
     height_in = max(2.0, 0.22 * len(order) + 0.6)
     fig = Figure(figsize=(width_pt / 72, height_in))
-    ax = fig.add_axes((0.2, 0.1, 0.72, 0.85))
+    labels = [f"{leaf}  ({leaf_groups.get(leaf)})" if leaf_groups.get(leaf) else str(leaf) for leaf in order]
+    left = _label_room(labels, width_pt)
+    ax = fig.add_axes((left, 0.1, 0.92 - left, 0.85))
     centre: dict[frozenset, float] = {frozenset([leaf]): x_of_leaf[leaf] for leaf in leaves}
     for ka, kb, h in links:
         ca, cb = centre[ka], centre[kb]
         ha, hb = pos_height[ka], pos_height[kb]
         ax.plot([ha, h, h, hb], [ca, ca, cb, cb], color="#2f7d74", linewidth=1.0)
         centre[ka | kb] = (ca + cb) / 2
-    labels = [f"{leaf}  ({leaf_groups.get(leaf)})" if leaf_groups.get(leaf) else str(leaf) for leaf in order]
     ax.set_yticks(range(len(order)), labels=labels, fontsize=6.5)
     ax.set_ylim(-0.6, len(order) - 0.4)
     ax.invert_yaxis()

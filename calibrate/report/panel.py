@@ -5,10 +5,11 @@ from __future__ import annotations
 
 import math
 
-from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, Table
+from reportlab.platypus import CondPageBreak, KeepTogether, Spacer
 
 from . import charts, wording
 from ._read import ReportInput
+from .layout import fitted_table, fresh_page
 from .rater import _g_rubric, _misallocation, _offset, _policy_r, _retest_r
 from .styles import (
     BASE_FONT,
@@ -91,7 +92,7 @@ class PanelReport:
 
     def flowables(self) -> list:
         story = self.overview()
-        story.append(PageBreak())
+        story.append(fresh_page())
         story += self.rater_table()
         for phase in self.view.phases:
             story += self.phase_sections(phase)
@@ -144,7 +145,7 @@ class PanelReport:
                 rows.append([text(e.rater, CELL)] + ([text(e.phase or "", CELL)] if named else [])
                             + [text("; ".join(wording.flag_words(f) for f in e.flags), CELL)])
             widths = [90, 60] if named else [90]
-            table = Table(rows, colWidths=widths + [CONTENT_WIDTH - sum(widths)], repeatRows=1, hAlign="LEFT")
+            table = fitted_table(rows, widths + [CONTENT_WIDTH - sum(widths)], repeatRows=1, hAlign="LEFT")
             table.setStyle(table_style())
             story.append(table)
         else:
@@ -168,7 +169,7 @@ class PanelReport:
                          text(str(len(groups)) if groups else "n/a", CELL), text(wording.fmt_p(hom_p), CELL),
                          text("; ".join(reading) or "not available yet", CELL)])
         widths = ([55] if named else []) + [55, 80, 45, 80]
-        table = Table(rows, colWidths=widths + [CONTENT_WIDTH - sum(widths)], hAlign="LEFT")
+        table = fitted_table(rows, widths + [CONTENT_WIDTH - sum(widths)], hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
         n_warn = len(self.all_warnings())
@@ -193,7 +194,7 @@ class PanelReport:
                          text(e.group or "", CELL), text(", ".join(e.flags), CELL)])
         widths = [62] + ([40] if named else []) + [34, 40, 32, 40, 36, 44, 42, 34]
         widths.append(CONTENT_WIDTH - sum(widths))
-        table = Table(rows, colWidths=widths, repeatRows=1)
+        table = fitted_table(rows, widths, repeatRows=1)
         table.setStyle(table_style(("FONT", (0, 1), (-1, -1), BASE_FONT, 7.5)))
         story.append(table)
         story.append(text("Offset: positive means judgments run higher than the panel's on the same cases. "
@@ -225,15 +226,29 @@ class PanelReport:
         if not entries:
             return [text("Standardized weights are not available yet for this phase.", BODY)]
         terms = list(self.view.design_terms) or list(entries[0].policy.std_weights)
-        entries.sort(key=lambda e: (e.group or "~", e.rater))
+        entries = self._in_tree_order(entries, self.view.panel(phase))
         values = [[e.policy.std_weights.get(t) for t in terms] for e in entries]
         # one map holds at most HEAT_MAP_ROWS raters: a taller image cannot fit on a page
         images = [charts.weight_heat_map([e.rater for e in entries[i:i + HEAT_MAP_ROWS]], terms,
                                          values[i:i + HEAT_MAP_ROWS],
                                          [e.group for e in entries[i:i + HEAT_MAP_ROWS]], width_pt=CONTENT_WIDTH)
                   for i in range(0, len(entries), HEAT_MAP_ROWS)]
-        return images + [text("Rows are raters ordered by group (letter in brackets); green: the judgment rises "
-                            "with the cue, brown: it falls. Weights are on z-scored cues and judgments.", SMALL)]
+        return images + [text("Rows are raters in the order of the grouping tree below (group letter in "
+                              "brackets); each cell shows the standardized weight; green: the judgment rises "
+                              "with the cue, brown: it falls. Weights are on z-scored cues and judgments.",
+                              SMALL)]
+
+    @staticmethod
+    def _in_tree_order(entries, panel: PanelView | None):
+        """Raters in the grouping tree's top-to-bottom order, so that the heat map's rows and the
+        tree's leaves line up; raters outside the tree follow by group and id."""
+        grouping = None if panel is None else panel.grouping
+        order: list[str] = []
+        if grouping is not None and grouping.merges:
+            order = charts.tree_leaf_order(list(grouping.grouped_raters),
+                                           [(m.merged_a, m.merged_b) for m in grouping.merges])
+        place = {r: i for i, r in enumerate(order)}
+        return sorted(entries, key=lambda e: (place.get(e.rater, len(place)), e.group or "~", e.rater))
 
     def groups(self, panel: PanelView) -> list:
         groups = panel.groups
@@ -258,7 +273,7 @@ class PanelReport:
         for g in groups:
             rows.append([text(g.group, CELL), text(", ".join(g.raters), CELL),
                          text(g.sets_apart or "", CELL)])
-        table = Table(rows, colWidths=[45, 170, CONTENT_WIDTH - 215], repeatRows=1, hAlign="LEFT")
+        table = fitted_table(rows, [45, 170, CONTENT_WIDTH - 215], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
         if panel.homogeneity is not None:
@@ -278,7 +293,7 @@ class PanelReport:
                 rows.append([text(label, CELL), text(fmt(est), CELL),
                              text(f"{fmt(ci[0])} to {fmt(ci[1])}" if ci else "", CELL), text(meaning, CELL),
                              text(wording.icc_reading(est), CELL)])
-            table = Table(rows, colWidths=[60, 50, 80, 200, CONTENT_WIDTH - 390], hAlign="LEFT")
+            table = fitted_table(rows, [60, 50, 80, 200, CONTENT_WIDTH - 390], hAlign="LEFT")
             table.setStyle(table_style())
             story.append(table)
             if icc.method:
@@ -302,7 +317,7 @@ class PanelReport:
                                                  "Phi (absolute level)")]]
             for row in d_study:
                 rows.append([text(str(row.raters), CELL), text(fmt(row.g_rel), CELL), text(fmt(row.phi), CELL)])
-            table = Table(rows, colWidths=[100, 120, 120], hAlign="LEFT")
+            table = fitted_table(rows, [100, 120, 120], hAlign="LEFT")
             table.setStyle(table_style())
             story += [Spacer(1, 4), table,
                       text("How dependable a file's mean score would be with this many readers "
@@ -340,7 +355,7 @@ class PanelReport:
                          text(fmt(p.r), CELL), text(fmt(p.g), CELL), text(fmt(p.c), CELL),
                          text({"weighting": "different weighting (G)", "inconsistency": "inconsistency (R_s)"}
                               .get(source, str(source or "")), CELL)])
-        table = Table(rows, colWidths=[70, 70, 60, 40, 40, 40, CONTENT_WIDTH - 320], repeatRows=1, hAlign="LEFT")
+        table = fitted_table(rows, [70, 70, 60, 40, 40, 40, CONTENT_WIDTH - 320], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         return [text("The pairs that agree least, with where their disagreement comes from: weighting the "
                      "cues differently (low G) or applying a policy inconsistently (low R_s).", BODY), table]
@@ -380,7 +395,7 @@ class PanelReport:
                  else chosen.head(per_phase))
         for _, r in shown.iterrows():
             rows.append([text(fmt(_finite(r[c])) if isinstance(r[c], float) else str(r[c]), CELL) for c in cols])
-        table = Table(rows, repeatRows=1, hAlign="LEFT")
+        table = fitted_table(rows, repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
         if len(chosen) > len(shown):
@@ -424,7 +439,7 @@ class PanelReport:
             table_rows.append([text(r[0], CELL)] + ([text(r[1], CELL)] if named else []) + [
                 text(r[2], CELL), text(fmt(r[3], 3), CELL), text(wording.fmt_p(r[4]), CELL),
                 text(wording.fmt_p(r[5]), CELL), text("yes" if r[6] else "", CELL)])
-        table = Table(table_rows, repeatRows=1, hAlign="LEFT")
+        table = fitted_table(table_rows, repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story += [text("Each attribute added to each rater's policy; p adjusted (Holm) across every "
                        "tested flag of the phase, all raters and attributes included. An association can run through a cue related to the attribute. Flagged "
@@ -444,12 +459,17 @@ class PanelReport:
         out: list[tuple[str, str]] = []
         for w in self.view.warnings:
             out.append((f"reading the data ({w.where})" if w.where else "analysis", w.message))
+        # The study's list already carries each analysis' notes as "analysis (phase): note";
+        # the same note read again from a rater's or the panel's block is not printed twice.
+        carried = {w.message.split(": ", k)[-1] for w in self.view.warnings for k in (1, 2)}
         for e in self.view.raters:
             for msg in e.warnings:
-                out.append((f"fitting {e.rater}" + (f", {e.phase}" if e.phase else ""), msg))
+                if msg not in carried:
+                    out.append((f"fitting {e.rater}" + (f", {e.phase}" if e.phase else ""), msg))
         for p in self.view.panels:
             for msg in p.warnings:
-                out.append(("panel" + (f", {p.phase}" if p.phase else ""), msg))
+                if msg not in carried:
+                    out.append(("panel" + (f", {p.phase}" if p.phase else ""), msg))
         return out
 
     def data_quality(self) -> list:
@@ -459,14 +479,14 @@ class PanelReport:
             return story + [text("No warning was raised while reading or fitting the data.", BODY)]
         rows = [[text("Where", CELL_BOLD), text("Note", CELL_BOLD)]]
         rows += [[text(where, CELL), text(msg, CELL)] for where, msg in warnings]
-        table = Table(rows, colWidths=[130, CONTENT_WIDTH - 130], repeatRows=1, hAlign="LEFT")
+        table = fitted_table(rows, [130, CONTENT_WIDTH - 130], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         return story + [table]
 
     def methods(self) -> list:
         rows = [[text(h, CELL_BOLD) for h in ("Analysis", "Method", "Published source")]]
         rows += [[text(a, CELL), text(m, CELL), text(s, CELL)] for a, m, s in METHODS]
-        table = Table(rows, colWidths=[100, 230, CONTENT_WIDTH - 330], repeatRows=1, hAlign="LEFT")
+        table = fitted_table(rows, [100, 230, CONTENT_WIDTH - 330], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         return [CondPageBreak(200), text("Methods and sources", HEADING), table,
                 text("Sources are named by author and year so that they can be found; check the original "

@@ -15,10 +15,11 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from xml.sax.saxutils import escape
 
-from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, Table
+from reportlab.platypus import CondPageBreak, KeepTogether, Spacer, Table
 
 from . import charts, wording
 from ._read import ReportInput, id_pattern
+from .layout import fitted_table, fresh_page
 from .styles import (
     ACCENT,
     ACCENT_LIGHT,
@@ -141,6 +142,13 @@ class RaterReport:
             return None
         return str(sentence)
 
+    def chart_caption(self, sentence: str) -> str:
+        """A chart's caption that names the phase the chart shows ("Phase after: each dot ...");
+        the sentence as it is in a study with one unnamed phase."""
+        if not self.view.named_phases or self.phase is None or not sentence:
+            return sentence
+        return f"Phase {self.phase}: {sentence[0].lower()}{sentence[1:]}"
+
     def peers(self, phase) -> list[RaterView]:
         return [e for e in self.view.entries_in(phase) if e.rater != self.rater]
 
@@ -160,7 +168,7 @@ class RaterReport:
     def flowables(self) -> list:
         story = []
         story += self.first_page()
-        story.append(PageBreak())
+        story.append(fresh_page())
         story += before_after_section(self)
         story += self.cue_weights()
         story += self.consistency()
@@ -222,7 +230,7 @@ class RaterReport:
             rows.append(row)
         widths = [label_w] + [value_w] * len(self.entries) + [strip_w]
         widths.append(CONTENT_WIDTH - sum(widths))
-        table = Table(rows, colWidths=widths, repeatRows=1)
+        table = fitted_table(rows, widths, repeatRows=1)
         table.setStyle(table_style(("VALIGN", (0, 1), (-1, -1), "MIDDLE")))
         return table
 
@@ -272,7 +280,7 @@ class RaterReport:
         if rubric:
             series.append(("rubric", rubric, RUBRIC))
         story.append(charts.weight_chart(cues, series, width=CONTENT_WIDTH))
-        story.append(text(wording.shares_caption(shares), SMALL))
+        story.append(text(self.chart_caption(wording.shares_caption(shares)), SMALL))
         cutoff = self.entry.cutoff
         if cutoff is not None and cutoff.flagged and cutoff.cue is not None:
             story.append(text(cutoff_sentence(cutoff), NOTE))
@@ -315,7 +323,7 @@ class RaterReport:
             ci_text = "n/a" if ci is None else f"{fmt(ci[0])} to {fmt(ci[1])}"
             rows.append([text(term, CELL), text(fmt(w), CELL), text(ci_text, CELL),
                          text(fmt(policy.std_weights.get(term)), CELL)])
-        table = Table(rows, colWidths=[150, 120, 110, CONTENT_WIDTH - 380], repeatRows=1)
+        table = fitted_table(rows, [150, 120, 110, CONTENT_WIDTH - 380], repeatRows=1)
         table.setStyle(table_style())
         return KeepTogether([Spacer(1, 4), table])
 
@@ -329,9 +337,10 @@ class RaterReport:
         bounds = self.scale()
         if pairs and bounds:
             story.append(charts.retest_scatter(pairs, low=bounds[0], high=bounds[1]))
-            story.append(text("Each dot is a case you judged more than once: your first judgment across, "
-                              "your second up; dots on the dashed line got the same judgment both times, "
-                              "and larger dots stand for several cases.", SMALL))
+            story.append(text(self.chart_caption(
+                "Each dot is a case you judged more than once: your first judgment across, your second "
+                "up; dots on the dashed line got the same judgment both times, and larger dots stand for "
+                "several cases."), SMALL))
         elif r_tt is None:
             reason = self.entry.reason("retest")
             story.append(text(f"Test-retest is not available: {reason}." if reason else
@@ -388,8 +397,8 @@ class RaterReport:
         if order and bounds:
             story.append(charts.order_chart([p for p, _ in order], [j for _, j in order], low=bounds[0],
                                             high=bounds[1], width=CONTENT_WIDTH * 0.8))
-            story.append(text("Grey dots: your judgments in reading order; line: their running average.",
-                              SMALL))
+            story.append(text(self.chart_caption("Grey dots: your judgments in reading order; line: their "
+                                                 "running average."), SMALL))
         return story
 
     def reading_order(self) -> list[tuple[float, float]]:
@@ -409,7 +418,7 @@ class RaterReport:
             rows.append([text(c.case, CELL), text(fmt(c.judgment, 1), CELL),
                          text(fmt(c.predicted, 1) + ("*" if c.clipped else ""), CELL),
                          text(fmt(c.difference, 1), CELL)])
-        table = Table(rows, colWidths=[140, 100, 120, 100], hAlign="LEFT", repeatRows=1)
+        table = fitted_table(rows, [140, 100, 120, 100], hAlign="LEFT", repeatRows=1)
         table.setStyle(table_style())
         story.append(table)
         if any(c.clipped for c in cases[:12]):
@@ -436,7 +445,7 @@ class RaterReport:
                 [text("C", CELL), text(value("c", c), CELL), text("what your judgments caught beyond the cues", CELL)],
                 [text("R_e", CELL), text(value("r_e", r_e), CELL), text("how predictable the outcome is from the cues", CELL)],
                 [text("R_s", CELL), text(fmt(r_s), CELL), text("your consistency on these cases", CELL)]]
-        table = Table(rows, colWidths=[40, 130, CONTENT_WIDTH - 170], hAlign="LEFT")
+        table = fitted_table(rows, [40, 130, CONTENT_WIDTH - 170], hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
         # The small-sample caution rides in the same paragraph to keep the report's length.
@@ -457,7 +466,7 @@ class RaterReport:
                          text(wording.fmt_p(res.p_adjusted), CELL),
                          text("associated with your judgments beyond the cues" if res.flagged
                               else "no clear association beyond the cues", CELL)])
-        table = Table(rows, colWidths=[120, 70, 80, CONTENT_WIDTH - 270], hAlign="LEFT")
+        table = fitted_table(rows, [120, 70, 80, CONTENT_WIDTH - 270], hAlign="LEFT")
         table.setStyle(table_style())
         return story + [table, text("An association is not proof that the attribute was used: a cue related "
                                     "to it can carry it.", SMALL)]
@@ -466,7 +475,7 @@ class RaterReport:
         rows = [[text(h, CELL_BOLD) for h in ("Figure", "Yardstick", "Source")]]
         for item in wording.PUBLISHED_CONTEXT:
             rows.append([text(item.figure, CELL), text(item.value, CELL), text(item.source, CELL)])
-        table = Table(rows, colWidths=[140, 110, CONTENT_WIDTH - 250], hAlign="LEFT")
+        table = fitted_table(rows, [140, 110, CONTENT_WIDTH - 250], hAlign="LEFT")
         table.setStyle(table_style())
         return [CondPageBreak(120), text("Context for your figures", HEADING),
                 text(wording.CONTEXT_INTRO, BODY), table]
@@ -488,7 +497,7 @@ class RaterReport:
             story += [text(f"- {n}", SMALL) for n in notes]
         story.append(text("Terms used", HEADING))
         rows = [[text(term, CELL_BOLD), text(meaning, CELL)] for term, meaning in wording.GLOSSARY.items()]
-        table = Table(rows, colWidths=[120, CONTENT_WIDTH - 120], hAlign="LEFT")
+        table = fitted_table(rows, [120, CONTENT_WIDTH - 120], hAlign="LEFT")
         table.setStyle(table_style(("LINEBELOW", (0, 0), (-1, 0), 0.3, ACCENT_LIGHT)))
         story.append(table)
         return story

@@ -12,7 +12,7 @@ from reportlab.lib.enums import TA_LEFT
 from reportlab.lib.pagesizes import A4
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.lib.units import mm
-from reportlab.platypus import BaseDocTemplate, Frame, PageTemplate, Paragraph, TableStyle
+from reportlab.platypus import BaseDocTemplate, CondPageBreak, Frame, PageTemplate, Paragraph, TableStyle
 
 # Palette: slate ink on white, a sea-green accent, a warm sand for "look here".
 INK = colors.HexColor("#27323a")
@@ -156,8 +156,11 @@ def line_font(value: str, font: str) -> str:
 
 TITLE = ParagraphStyle("title", fontName=BOLD_FONT, fontSize=17, leading=21, textColor=INK,
                        spaceAfter=4)
+# keepWithNext: a heading never ends a page without the first lines of its section
+# (KEEP_WITH_HEADING points of it, about four lines; ReportDocument.handle_keepWithNext).
+KEEP_WITH_HEADING = 50.0
 HEADING = ParagraphStyle("heading", fontName=BOLD_FONT, fontSize=12, leading=15, textColor=ACCENT,
-                         spaceBefore=10, spaceAfter=4)
+                         spaceBefore=10, spaceAfter=4, keepWithNext=1)
 BODY = ParagraphStyle("body", fontName=BASE_FONT, fontSize=9.5, leading=12.5, textColor=INK,
                       alignment=TA_LEFT, spaceAfter=4)
 SMALL = ParagraphStyle("small", parent=BODY, fontSize=8, leading=10, textColor=MUTED, spaceAfter=2)
@@ -226,6 +229,24 @@ class ReportDocument(BaseDocTemplate):
         frame = Frame(self.leftMargin, self.bottomMargin, self.width, self.height, id="body",
                       leftPadding=0, rightPadding=0, topPadding=0, bottomPadding=0)
         self.addPageTemplates([PageTemplate(id="page", frames=[frame], onPage=self._frame)])
+
+    def handle_keepWithNext(self, flowables) -> None:
+        """A heading (keepWithNext) starts a new page only when it and the first lines of its
+        section do not fit on this one. reportlab's own rule keeps the heading with the whole
+        next flowable, which sends a heading over a long table to a new page and leaves the
+        rest of this one empty."""
+        count = 0
+        while count < len(flowables) and flowables[count].getKeepWithNext():
+            flowables[count].__dict__["keepWithNext"] = 0
+            count += 1
+        if not count:
+            return
+        need = 0.0
+        for f in flowables[:count]:
+            need += f.wrap(self.width, self.height)[1] + f.getSpaceBefore() + f.getSpaceAfter()
+        if count < len(flowables):
+            need += min(flowables[count].wrap(self.width, self.height)[1], KEEP_WITH_HEADING)
+        flowables.insert(0, CondPageBreak(need))
 
     def _frame(self, canvas, doc) -> None:
         width, height = PAGE_SIZE

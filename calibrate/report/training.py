@@ -17,6 +17,7 @@ from reportlab.platypus import CondPageBreak, PageBreak, Spacer, Table, TableSty
 
 from . import training_charts, wording
 from .comparison_view import ABSENT, ABSENT_REASON, ComparisonView, SeriesView
+from .layout import fitted_table
 from .styles import (BODY, CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, SMALL, TITLE, ReportDocument,
                      markup, table_style, text)
 
@@ -135,7 +136,7 @@ def effect_table(view: ComparisonView) -> list:
         rows.append(row)
     widths = ([0.14, 0.13, 0.13, 0.26, 0.2, 0.14] if view.has_control else [0.2, 0.2, 0.4, 0.2])
     story = [text(f"From {first} to {last}", HEADING),
-             Table(rows, colWidths=[w * CONTENT_WIDTH for w in widths], style=table_style(), repeatRows=1)]
+             fitted_table(rows, [w * CONTENT_WIDTH for w in widths], style=table_style(), repeatRows=1)]
     method = ("Trained minus controls: the trained raters' mean change minus the controls' (difference in "
               "differences, Welch's t on the per-rater changes); ANCOVA holds each rater's starting value "
               "constant. " if view.has_control else
@@ -210,7 +211,7 @@ def rater_table(view: ComparisonView) -> list:
         rows.append(cells)
     first_w, arm_w = 0.12 * CONTENT_WIDTH, 0.08 * CONTENT_WIDTH
     rest = (CONTENT_WIDTH - first_w - arm_w) / max(len(metrics), 1)
-    story.append(Table(rows, colWidths=[first_w, arm_w] + [rest] * len(metrics), style=table_style(),
+    story.append(fitted_table(rows, [first_w, arm_w] + [rest] * len(metrics), style=table_style(),
                        repeatRows=1))
     for k, note in enumerate(notes):
         story.append(text(f"{'*' * (k + 1)} Not comparable as it stands: {note}.", SMALL))
@@ -257,7 +258,7 @@ def convergence(view: ComparisonView) -> list:
                            style=_CHART_GRID))
     if len(rows) > 1:
         n = len(view.phases)
-        story.append(Table(rows, colWidths=[w * CONTENT_WIDTH for w in (0.18, 0.1)] + [0.08 * CONTENT_WIDTH] * n
+        story.append(fitted_table(rows, [w * CONTENT_WIDTH for w in (0.18, 0.1)] + [0.08 * CONTENT_WIDTH] * n
                            + [(0.72 - 0.08 * n) * CONTENT_WIDTH], style=table_style(), repeatRows=1))
     story += [text(line, SMALL) for line in lines]
     return story
@@ -279,7 +280,7 @@ def agreement_and_groups(view: ComparisonView) -> list:
             rows.append([text(label, CELL)] + [text(wording.fmt(s.values.get(ph)), CELL) for ph in view.phases]
                         + [text(changes, CELL)])
         n = len(view.phases)
-        story.append(Table(rows, colWidths=[0.2 * CONTENT_WIDTH] + [0.09 * CONTENT_WIDTH] * n
+        story.append(fitted_table(rows, [0.2 * CONTENT_WIDTH] + [0.09 * CONTENT_WIDTH] * n
                            + [(0.8 - 0.09 * n) * CONTENT_WIDTH], style=table_style(), repeatRows=1))
         if view.panel.same_cases is False:
             story.append(text("Different cases in each phase: these panel figures compare different case sets, "
@@ -348,7 +349,7 @@ def detectable_table(view: ComparisonView) -> list:
         rows.append([text(LABELS.get(m, m), CELL), text(est, CELL),
                      text("n/a" if per_rater is None else wording.fmt(per_rater), CELL),
                      text("n/a" if panel is None else wording.fmt(panel), CELL), text(reading, CELL)])
-    story.append(Table(rows, colWidths=[w * CONTENT_WIDTH for w in (0.15, 0.23, 0.13, 0.13, 0.36)],
+    story.append(fitted_table(rows, [w * CONTENT_WIDTH for w in (0.15, 0.23, 0.13, 0.13, 0.36)],
                        style=table_style(), repeatRows=1))
     story.append(text("Smallest change seen 80% of the time at the 5% level (two-sided), given the cases and "
                       "repeats per phase: 'one rater' is the change of a typical rater, 'the panel' the "
@@ -376,7 +377,7 @@ def follow_up(view: ComparisonView) -> list:
         cells.append(text("" if e is None else f"{signed(e.change.delta)} "
                           f"{_interval(e.change.ci_low, e.change.ci_high)}", CELL))
         rows.append(cells)
-    story.append(Table(rows, style=table_style(), repeatRows=1))
+    story.append(fitted_table(rows, style=table_style(), repeatRows=1))
     if view.has_control and effects is ABSENT:
         story += _absent("The difference in differences over the follow-up")
     return story
