@@ -205,8 +205,9 @@ def rater_table(view: ComparisonView) -> list:
                     notes.append(note)
                 mark = "*" * (notes.index(note) + 1)
             word = ch.verdict
-            shown = f"<b>{escape(word)}</b><br/>" if word and word != "no clear change" else ""
-            cells.append(markup(f"{shown}{signed(ch.delta)}{mark}<br/>{_interval(ch.ci_low, ch.ci_high)}",
+            # a space before each break: the words stay words for the width check and for copy-paste
+            shown = f"<b>{escape(word)}</b> <br/>" if word and word != "no clear change" else ""
+            cells.append(markup(f"{shown}{signed(ch.delta)}{mark} <br/>{_interval(ch.ci_low, ch.ci_high)}",
                                 _TIGHT))
         rows.append(cells)
     first_w, arm_w = 0.12 * CONTENT_WIDTH, 0.08 * CONTENT_WIDTH
