@@ -22,6 +22,7 @@ from .agreement.with_panel import PeerAgreementSet, agreement_with_panel
 from .consistency.reading_order import DriftResult, drift
 from .consistency.repeats import RetestSet, consistency_verdict, low_retest_reach, retest
 from .data.ingest import JudgmentTable, PhaseData, load_study
+from .notes import analysis_note, notes_frame
 from .data.spec import StudySpec, spec_record
 from .data.summary import DataSummary, summarize
 from .lens.cutoffs import CutoffResult, cutoff_check
@@ -126,11 +127,24 @@ def _lookup(result, rater: str):
 
 
 def _warn_texts(phase: str | None, name: str, result) -> list[dict]:
-    """The analysis' warnings as study warnings; a study without phases names none."""
-    texts = getattr(result, "warnings", ()) if result is not None else ()
-    where = f"{name} ({phase})" if phase is not None else name
-    return [{"severity": "warning", "message": f"{where}: {t}", "file": None, "row": None,
-             "column": None} for t in texts]
+    """The analysis' notes as study warnings, each with its kind: first the notes about one
+    rater (from the per-rater results, with the rater named), then the panel's own notes
+    (a panel note that only repeats a rater's is not written twice). A study without phases
+    names none."""
+    if result is None:
+        return []
+    out, per_rater = [], set()
+    for item in getattr(result, "raters", ()) or ():
+        rater = getattr(item, "rater", None)
+        for text in getattr(item, "warnings", ()) or ():
+            if rater is None:
+                continue
+            per_rater.add(f"Rater '{rater}': {text}")
+            out.append(analysis_note(name, text, phase=phase, rater=str(rater)))
+    for text in getattr(result, "warnings", ()) or ():
+        if text not in per_rater:
+            out.append(analysis_note(name, text, phase=phase))
+    return out
 
 
 def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed: int,
@@ -356,7 +370,8 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
         _collect_tables(tables, ph, a)
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))
-    tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables}
+    tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables,
+              "notes": notes_frame(warnings)}
     return AuditResult(
         study_name=spec.name,
         seed=seed,

@@ -67,4 +67,7 @@ TABLE_DESCRIPTIONS = {
     "grouping": "One row per rater and phase: policy group and the cross-check grouping.",
     "group_merges": "The merge sequence of the policy grouping with the R^2 lost at each step.",
     "groups": "One row per group and phase: pooled policy and stability.",
+    "notes": "Every note (warning) from reading and fitting the data, one row each: its kind (a "
+             "stable code; the reports print one line per kind), phase, rater and case it concerns, "
+             "file, row and column where known, and the text.",
 }

@@ -53,6 +53,10 @@ COLUMN_NOTES = {
     "judgment": "The judgment given.",
     "r": "Correlation.",
     "r_s": "Consistency R_s: correlation between judgments and the rater's own policy.",
+    # the notes table (calibrate.notes)
+    "kind": "Stable code of the note's kind (a data rule such as later_presentations_dropped, or "
+            "'analysis:first-words' for a note of an analysis); the reports group notes by it.",
+    "message": "The note in full, as results.json holds it.",
 }
 
 

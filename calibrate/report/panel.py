@@ -7,6 +7,7 @@ import math
 
 from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, Table
 
+from ..notes import group_notes
 from . import charts, wording
 from ._read import ReportInput
 from .rater import _g_rubric, _misallocation, _offset, _policy_r, _retest_r
@@ -441,27 +442,29 @@ class PanelReport:
         return story
 
     def all_warnings(self) -> list[tuple[str, str]]:
-        out: list[tuple[str, str]] = []
-        for w in self.view.warnings:
-            out.append((f"reading the data ({w.where})" if w.where else "analysis", w.message))
-        for e in self.view.raters:
-            for msg in e.warnings:
-                out.append((f"fitting {e.rater}" + (f", {e.phase}" if e.phase else ""), msg))
-        for p in self.view.panels:
-            for msg in p.warnings:
-                out.append(("panel" + (f", {p.phase}" if p.phase else ""), msg))
-        return out
+        """Every note once, as (where, text): results.json's warnings hold the data notes and
+        every analysis note, per-rater ones included (the rater entries repeat those)."""
+        return [(f"reading the data ({w.where})" if w.where else "analysis", w.message)
+                for w in self.view.warnings]
 
     def data_quality(self) -> list:
+        """One line per kind of note, with its count and a few examples; the full list is
+        the notes table."""
         story = [CondPageBreak(150), text("Data quality", HEADING)]
-        warnings = self.all_warnings()
-        if not warnings:
+        notes = [w.as_note() for w in self.view.warnings]
+        if not notes:
             return story + [text("No warning was raised while reading or fitting the data.", BODY)]
-        rows = [[text("Where", CELL_BOLD), text("Note", CELL_BOLD)]]
-        rows += [[text(where, CELL), text(msg, CELL)] for where, msg in warnings]
-        table = Table(rows, colWidths=[130, CONTENT_WIDTH - 130], repeatRows=1, hAlign="LEFT")
+        groups = group_notes(notes)
+        story.append(text(f"{len(notes)} note(s) of {len(groups)} kind(s) were recorded while reading and "
+                          "fitting the data; each kind is one line below, with how often it arose and a "
+                          "few of the raters or files it concerns.", BODY))
+        rows = [[text("Notes", CELL_BOLD), text("What was noted", CELL_BOLD)]]
+        rows += [[text(str(g.count), CELL), text(g.line(), CELL)] for g in groups]
+        table = Table(rows, colWidths=[40, CONTENT_WIDTH - 40], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
-        return story + [table]
+        return story + [table, text("Every note, one row each with its kind, rater and case, is in the notes "
+                                    "table (tables/notes.csv and the workbook's notes sheet) and in "
+                                    "results.json.", SMALL)]
 
     def methods(self) -> list:
         rows = [[text(h, CELL_BOLD) for h in ("Analysis", "Method", "Published source")]]
