@@ -327,7 +327,9 @@ def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool) -> dict:
                                  else None)
     entry["chance_flags"] = a.chance_flags.to_dict() if a.chance_flags is not None else None
     entry["files_needing_another_read"] = (list(a.files.needs_another_read())
-                                           if a.files is not None else [])
+                                           if a.files is not None else [])  # most likely to change first
+    entry["files_change_level"] = a.files.change_level if a.files is not None else None
+    entry["files_may_change"] = a.files.n_may_change() if a.files is not None else None
     return entry
 
 

@@ -430,6 +430,9 @@ class PanelView:
     files_needing_another_read: tuple[str, ...]
     warnings: tuple[str, ...]
     chance_flags: ChanceFlagsView | None = None
+    # the chance of changing side with one more reading that lists a file (optional: older
+    # results folders lack it)
+    files_change_level: float | None = None
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> PanelView:
@@ -499,6 +502,7 @@ class PanelView:
                                                   _num(hom, "p_value", f"{path}.homogeneity")),
             pairs=tuple(pairs), proxies=proxies,
             files_needing_another_read=tuple(map(str, _list(d, "files_needing_another_read", path))),
+            files_change_level=_num(d, "files_change_level", path, default=None),
             warnings=collect_warnings(d),
             chance_flags=(None if (chance := _block(d, "chance_flags", path)) is None
                           else ChanceFlagsView.read(chance, f"{path}.chance_flags")))
