@@ -127,6 +127,11 @@ class NoteGroup:
         """One line: the whole note when it is alone; else its title, the count, a few of
         the raters or cases it concerns and the first note in full."""
         first = f"{self.first_where}: {self.first_message}" if self.first_where else self.first_message
+        analysis = self.kind.split(":", 1)[0]
+        if analysis in ANALYSIS_WORDS and first.startswith(analysis):
+            # the prefix analysis_note wrote ("gstudy (before): ") in plain words
+            head, _, rest = first.partition(": ")
+            first = f"{ANALYSIS_WORDS[analysis]}{head[len(analysis):]}: {rest}"
         if self.count == 1:
             return first
         about = ""

@@ -21,9 +21,14 @@ from calibrate.agreement.offsets import severity
 
 def one_panel(rng: np.random.Generator, *, n_raters: int = 20, n_cases: int = 300, readers: int = 3,
               case_sd: float = 1.0, rater_sd: float = 0.4, noise_sd: float = 0.7, scale: str = "continuous",
-              cut_off: float = 0.3) -> tuple[np.ndarray, np.ndarray]:
-    """(estimated change probabilities, whether each file changed with one fresh reading)."""
+              cut_off: float = 0.3, contentious: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+    """(estimated change probabilities, whether each file changed with one fresh reading).
+    ``contentious``: the share of files whose readers' noise SD is doubled (the model's one
+    pooled spread does not hold then)."""
     theta = rng.normal(0.0, case_sd, n_cases)
+    file_sd = np.full(n_cases, noise_sd)
+    if contentious:  # drawn only then, so the other settings keep their random streams
+        file_sd = noise_sd * np.where(rng.random(n_cases) < contentious, 2.0, 1.0)
     offsets = rng.normal(0.0, rater_sd, n_raters)
     chosen = np.argsort(rng.random((n_cases, n_raters)), axis=1)[:, :readers]
     case_idx = np.repeat(np.arange(n_cases), readers)
@@ -34,7 +39,7 @@ def one_panel(rng: np.random.Generator, *, n_raters: int = 20, n_cases: int = 30
         value = centre + value
         return np.clip(np.round(value), 1, 7) if scale == "ordinal" else value
 
-    y = judge(theta[case_idx] + offsets[rater_idx] + rng.normal(0.0, noise_sd, case_idx.size))
+    y = judge(theta[case_idx] + offsets[rater_idx] + rng.normal(0.0, 1.0, case_idx.size) * file_sd[case_idx])
     first = pd.DataFrame({"rater": [f"r{i:03d}" for i in rater_idx],
                           "case": [f"c{i:05d}" for i in case_idx], "judgment": y})
     lo, hi = (1, 7) if scale == "ordinal" else (-50, 50)
@@ -45,7 +50,7 @@ def one_panel(rng: np.random.Generator, *, n_raters: int = 20, n_cases: int = 30
     cases = [f"c{i:05d}" for i in range(n_cases)]
     frame = frame.loc[cases]
     new_offset = rng.normal(0.0, rater_sd, n_cases)
-    fresh = judge(theta + new_offset + rng.normal(0.0, noise_sd, n_cases)) - new_offset
+    fresh = judge(theta + new_offset + rng.normal(0.0, 1.0, n_cases) * file_sd) - new_offset
     n = frame["n_readers"].to_numpy(float)
     m = frame["adjusted"].to_numpy(float)
     after = (n * m + fresh) / (n + 1.0)

@@ -63,9 +63,9 @@ def test_group_line_counts_and_shows_a_few_examples():
     assert first.kind == "policies:cases-per-weight-under-a-rule"
     line = first.line()
     assert "40 notes" in line and "and 37 more" in line and line.count("rater 'r") == 3
-    assert "The first: policies (before): Rater 'r00': 4.0 cases per weight" in line
+    assert "The first: Fitting the policies (before): Rater 'r00': 4.0 cases per weight" in line
     assert "phase 'before'" not in line                   # one phase: not repeated per example
-    assert second.line() == notes[-1]["message"]                                          # alone: in full
+    assert second.line() == "Readers per file (before): The rater variance component came out negative."
     assert first.phases == ("before",)
 
 
