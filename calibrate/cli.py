@@ -403,6 +403,13 @@ def _print_audit_summary(result, out: Path, no_pdf: bool, key) -> None:
                                          if named_phases else "."))
     for line in _flag_lines(result.raters, named_phases):
         echo(line)
+    if result.warnings:
+        from .notes import group_notes
+
+        kinds = len(group_notes(result.warnings))
+        summary = "" if no_pdf else "one line per kind in the panel summary's data-quality section, "
+        echo(f"Notes: {len(result.warnings)} from reading and fitting the data, of {kinds} kind(s); "
+             f"{summary}every note in tables/notes.csv.")
     where = shown(out)
     echo(f"Results: {where}/results.json; tables in {where}/tables/; workbook {where}/audit.xlsx")
     if not no_pdf:
