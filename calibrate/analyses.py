@@ -373,7 +373,8 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))
     tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables,
-              "notes": notes_frame(warnings)}
+              "notes": notes_frame(warnings, unnamed_phase=(table.phases[0].label if len(table.phases) == 1
+                                                            and table.phases[0].name is None else None))}
     return AuditResult(
         study_name=spec.name,
         seed=seed,

@@ -161,12 +161,16 @@ def group_notes(notes: Iterable[Mapping]) -> tuple[NoteGroup, ...]:
     return tuple(groups)
 
 
-NOTES_COLUMNS = ("kind", "phase", "rater", "case", "file", "row", "column", "message")
+NOTES_COLUMNS = ("phase", "kind", "rater", "case", "file", "row", "column", "message")
 
 
-def notes_frame(notes: Iterable[Mapping]) -> pd.DataFrame:
-    """Every note, one row each, with its kind: the ``notes`` table."""
-    rows = [{"kind": _kind_of(n), **{c: n.get(c) for c in NOTES_COLUMNS[1:]}} for n in notes]
+def notes_frame(notes: Iterable[Mapping], *, unnamed_phase: str | None = None) -> pd.DataFrame:
+    """Every note, one row each, with its kind: the ``notes`` table. ``unnamed_phase``: the
+    label of the one phase of a study without phases, given to every note (as in the other
+    tables); in a study with phases a note about no one phase keeps an empty phase."""
+    rows = [{**{c: n.get(c) for c in NOTES_COLUMNS}, "kind": _kind_of(n)} for n in notes]
     frame = pd.DataFrame(rows, columns=list(NOTES_COLUMNS))
+    if unnamed_phase is not None:
+        frame["phase"] = unnamed_phase
     frame["row"] = frame["row"].astype("Int64")
     return frame

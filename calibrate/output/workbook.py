@@ -57,11 +57,17 @@ COLUMN_NOTES = {
     "kind": "Stable code of the note's kind (a data rule such as later_presentations_dropped, or "
             "'analysis:first-words' for a note of an analysis); the reports group notes by it.",
     "message": "The note in full, as results.json holds it.",
+    "file": "The input file the note concerns, where it concerns one (empty otherwise).",
+    "row": "The row of that file, as a spreadsheet numbers it (the header is row 1), where known.",
     # the files table (calibrate.agreement.files)
     "change_rank": "The file's place when ranked by the chance of changing side with one more "
                    "reading (1 = the most likely), per phase.",
     "change_probability": "Chance (0 to 1) that one more reader's severity-adjusted judgment moves the "
                           "file's adjusted mean across the cut-off; empty without a cut-off.",
+    # (the columns 'reasons' and 'column' also name columns of other tables, drift and
+    # policy_weights, so they are left to a per-table description)
+    "needs_another_read": "Whether the file is listed to be read again: reasons holds why (may_change, "
+                          "high_disagreement).",
     "near_cut_off": "Whether the cut-off lies inside the file's 95% interval (kept for reference; the "
                     "list of files to read again uses change_probability).",
 }

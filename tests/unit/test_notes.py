@@ -92,7 +92,7 @@ def test_notes_without_a_kind_group_by_their_wording():
     (group,) = group_notes(old)
     assert group.count == 3
     frame = notes_frame(old)
-    assert list(frame.columns) == ["kind", "phase", "rater", "case", "file", "row", "column", "message"]
+    assert list(frame.columns) == ["phase", "kind", "rater", "case", "file", "row", "column", "message"]
     assert frame["kind"].nunique() == 1 and len(frame) == 3
 
 
@@ -107,6 +107,7 @@ def test_fifteen_showings_give_a_data_quality_section_on_one_page(tmp_path):
     result = audit(spec, n_boot=200)
     assert sum(w["kind"] == "later_presentations_dropped" for w in result.warnings) == 29 * 14
     assert len(result.tables["notes"]) == len(result.warnings)
+    assert set(result.tables["notes"]["phase"]) == {"all"}          # as in every other table
     pages = page_texts(panel_pdf(result))
     start = [i for i, p in enumerate(pages) if "Data quality" in p and "What was noted" in p]
     end = [i for i, p in enumerate(pages) if "Every note, one row each" in p]
