@@ -108,6 +108,16 @@ def test_fifteen_showings_give_a_data_quality_section_on_one_page(tmp_path):
     assert sum(w["kind"] == "later_presentations_dropped" for w in result.warnings) == 29 * 14
     assert len(result.tables["notes"]) == len(result.warnings)
     assert set(result.tables["notes"]["phase"]) == {"all"}          # as in every other table
+    # every note once: the rater and panel entries' own notes are all in results.json's list,
+    # and the list repeats none (the data-quality section reads it alone)
+    from calibrate.report.view import collect_warnings
+
+    data = result.to_dict()
+    messages = [w["message"] for w in data["warnings"]]
+    assert len(messages) == len(set(messages))
+    for entry in data["raters"] + data["panels"]:
+        for note in collect_warnings(entry):
+            assert sum(m.endswith(note) for m in messages) == 1, note
     pages = page_texts(panel_pdf(result))
     start = [i for i, p in enumerate(pages) if "Data quality" in p and "What was noted" in p]
     end = [i for i, p in enumerate(pages) if "Every note, one row each" in p]
