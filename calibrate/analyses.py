@@ -22,6 +22,7 @@ from .agreement.with_panel import PeerAgreementSet, agreement_with_panel
 from .consistency.reading_order import DriftResult, drift
 from .consistency.repeats import RetestSet, consistency_verdict, low_retest_reach, retest
 from .data.ingest import JudgmentTable, PhaseData, load_study
+from .notes import analysis_note, notes_frame
 from .data.spec import StudySpec, spec_record
 from .data.summary import DataSummary, summarize
 from .lens.cutoffs import CutoffResult, cutoff_check
@@ -128,11 +129,24 @@ def _lookup(result, rater: str):
 
 
 def _warn_texts(phase: str | None, name: str, result) -> list[dict]:
-    """The analysis' warnings as study warnings; a study without phases names none."""
-    texts = getattr(result, "warnings", ()) if result is not None else ()
-    where = f"{name} ({phase})" if phase is not None else name
-    return [{"severity": "warning", "message": f"{where}: {t}", "file": None, "row": None,
-             "column": None} for t in texts]
+    """The analysis' notes as study warnings, each with its kind: first the notes about one
+    rater (from the per-rater results, with the rater named), then the panel's own notes
+    (a panel note that only repeats a rater's is not written twice). A study without phases
+    names none."""
+    if result is None:
+        return []
+    out, per_rater = [], set()
+    for item in getattr(result, "raters", ()) or ():
+        rater = getattr(item, "rater", None)
+        for text in getattr(item, "warnings", ()) or ():
+            if rater is None:
+                continue
+            per_rater.add(f"Rater '{rater}': {text}")
+            out.append(analysis_note(name, text, phase=phase, rater=str(rater)))
+    for text in getattr(result, "warnings", ()) or ():
+        if text not in per_rater:
+            out.append(analysis_note(name, text, phase=phase))
+    return out
 
 
 def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed: int,
@@ -315,7 +329,9 @@ def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool) -> dict:
                                  else None)
     entry["chance_flags"] = a.chance_flags.to_dict() if a.chance_flags is not None else None
     entry["files_needing_another_read"] = (list(a.files.needs_another_read())
-                                           if a.files is not None else [])
+                                           if a.files is not None else [])  # most likely to change first
+    entry["files_change_level"] = a.files.change_level if a.files is not None else None
+    entry["files_may_change"] = a.files.n_may_change() if a.files is not None else None
     return entry
 
 
@@ -363,7 +379,9 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
                     {"group": g.group, "raters": list(g.raters), "weights": dict(g.weights)}
                     for g in a.grouping.groups]
     _add_rater_changes(raters, table, seed)
-    tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables}
+    tables = {"raters": _rater_table(raters), "data_summary": summary.to_frame(), **tables,
+              "notes": notes_frame(warnings, unnamed_phase=(table.phases[0].label if len(table.phases) == 1
+                                                            and table.phases[0].name is None else None))}
     return AuditResult(
         study_name=spec.name,
         seed=seed,

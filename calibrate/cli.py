@@ -234,8 +234,8 @@ def check(spec: Path) -> None:
         echo("")
     if warnings:
         echo(f"{len(warnings)} warning(s):")
-        for w in warnings:
-            echo(f"  - {w}")
+        for line in _warning_lines(warnings):
+            echo(f"  - {line}")
     if errors:
         echo(f"{len(errors)} problem(s) stop the analysis:", err=True)
         for e in errors:
@@ -302,8 +302,8 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
             from .output.pseudonyms import pseudonymise_table
 
             table, _codes = pseudonymise_table(table, key)
-        for w in table.warnings:
-            echo(f"warning: {w}", err=True)
+        for line in _warning_lines(table.warnings):
+            echo(f"warning: {line}", err=True)
         with tqdm(desc="analyses", unit=" step", leave=False, disable=None, file=sys.stderr) as bar:
             def step(name: str) -> None:
                 bar.set_postfix_str(name)
@@ -348,6 +348,64 @@ def _open_key(key_file: Path | None, out: Path, protect: tuple[Path, ...]):
     return PseudonymKey.open(path)
 
 
+def _warning_lines(problems) -> list[str]:
+    """Data warnings, one line per kind with its count and a few examples (never one line
+    per rater and case); every warning stays in results.json and the notes table."""
+    from .notes import group_notes
+
+    return [group.line() for group in group_notes(p.to_dict() for p in problems)]
+
+
+#: Flags from the most serious to the least, for the few raters the command line names: the
+#: tested flags and rules first, then the data conditions (what the data allow, not a
+#: pattern of the rater). Our own order.
+FLAG_ORDER = ("excluded_attribute", "inconsistent", "low_retest", "drift", "cutoff_rule", "curvature",
+              "lenient", "severe", "narrow_range", "wide_range", "central_tendency",
+              "not_fitted", "too_few_cases", "separation", "collinear_cues", "few_cases")
+DATA_CONDITIONS = frozenset({"not_fitted", "too_few_cases", "separation", "collinear_cues", "few_cases"})
+MOST_RATERS_NAMED = 5
+
+
+def _flag_rank(flag: str) -> int:
+    return FLAG_ORDER.index(flag) if flag in FLAG_ORDER else len(FLAG_ORDER)
+
+
+def _flag_lines(raters, named_phases: bool) -> list[str]:
+    """One line per flag with how many raters carry it, then at most five raters with the most
+    serious flags, then where the full list is."""
+    from .report.wording import flag_words
+
+    counts: dict[str, int] = {}
+    for e in raters:
+        for flag in e["flags"]:
+            counts[flag] = counts.get(flag, 0) + 1
+    if not counts:
+        return ["No rater was flagged."]
+    what = "raters carrying each, counted once per phase" if named_phases else "raters carrying each"
+    lines = [f"Flags ({what}; see the README for what each means):"]
+    for flag in sorted(counts, key=lambda f: (_flag_rank(f), f)):
+        lines.append(f"  {counts[flag]:>5}  {flag_words(flag)} [{flag}]")
+    by_rater: dict[str, tuple[set, list]] = {}  # rater -> (flags beyond data conditions, phases)
+    for e in raters:
+        beyond = {f for f in e["flags"] if f not in DATA_CONDITIONS}
+        if beyond:
+            flags, phases = by_rater.setdefault(e["rater"], (set(), []))
+            flags |= beyond
+            phases.append(e["phase"])
+    serious = sorted(by_rater.items(), key=lambda item: (min(map(_flag_rank, item[1][0])), -len(item[1][0])))
+    if serious:
+        lines.append("Raters with the most serious flags" + (f" ({MOST_RATERS_NAMED} of {len(serious)} shown)"
+                                                           if len(serious) > MOST_RATERS_NAMED else "") + ":")
+        for rater, (flags, phases) in serious[:MOST_RATERS_NAMED]:
+            phase_part = f" ({', '.join(map(shown, phases))})" if named_phases else ""
+            lines.append(f"  {shown(rater)}{phase_part}: " + "; ".join(flag_words(f) for f in
+                                                                      sorted(flags, key=_flag_rank)))
+    else:
+        lines.append("Only data conditions were flagged (what the data allow, not a pattern of any rater).")
+    lines.append("Every rater's flags: the flags column of tables/raters.csv (and the workbook's raters sheet).")
+    return lines
+
+
 def _print_audit_summary(result, out: Path, no_pdf: bool, key) -> None:
     n_raters = len({e["rater"] for e in result.raters})
     from .data.ingest import UNNAMED_PHASE
@@ -356,12 +414,15 @@ def _print_audit_summary(result, out: Path, no_pdf: bool, key) -> None:
     echo(f"Audited {n_raters} raters" + (f" over {len(result.phases)} phase(s): "
                                          f"{', '.join(shown(p) for p in result.phases)}."
                                          if named_phases else "."))
-    flagged = [e for e in result.raters if e["flags"]]
-    if flagged:
-        echo("Flags (see the README for what each means):")
-    for e in flagged:
-        phase_part = f" ({shown(e['phase'])})" if named_phases else ""
-        echo(f"  {shown(e['rater'])}{phase_part}: {', '.join(e['flags'])}")
+    for line in _flag_lines(result.raters, named_phases):
+        echo(line)
+    if result.warnings:
+        from .notes import group_notes
+
+        kinds = len(group_notes(result.warnings))
+        summary = "" if no_pdf else "one line per kind in the panel summary's data-quality section, "
+        echo(f"Notes: {len(result.warnings)} from reading and fitting the data, of {kinds} kind(s); "
+             f"{summary}every note in tables/notes.csv.")
     where = shown(out)
     echo(f"Results: {where}/results.json; tables in {where}/tables/; workbook {where}/audit.xlsx")
     if not no_pdf:
@@ -389,8 +450,8 @@ def compare(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bo
 
     OutputFolder(out, overwrite=overwrite)  # refuse early, before any work
     table = load_study(spec)
-    for w in table.warnings:
-        echo(f"warning: {w}", err=True)
+    for line in _warning_lines(table.warnings):
+        echo(f"warning: {line}", err=True)
     result = run_compare(table, seed=seed)
     write_comparison(result, out, overwrite=overwrite, pdf=not no_pdf)
     n_trained = sum(r.trained for r in result.raters)

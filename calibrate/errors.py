@@ -44,6 +44,12 @@ class DataProblem:
     row: int | None = None
     column: str | None = None
     severity: str = "error"  # "error" stops the run; "warning" is carried into the results
+    # A warning's stable code (see calibrate.notes.NOTE_TITLES) and what it is about, so
+    # that notes of one kind are grouped by their code, never by their wording.
+    kind: str | None = None
+    rater: str | None = None
+    case: str | None = None
+    phase: str | None = None
 
     def location(self) -> str:
         parts = []
@@ -66,6 +72,10 @@ class DataProblem:
             "file": self.file,
             "row": self.row,
             "column": self.column,
+            "kind": self.kind,
+            "rater": self.rater,
+            "case": self.case,
+            "phase": self.phase,
         }
 
 

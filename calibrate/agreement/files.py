@@ -2,13 +2,17 @@
 
 A file's raw mean depends on who happened to read it. Removing each reader's
 offset (from :func:`calibrate.agreement.offsets.severity`) gives the adjusted score, which
-is the file's estimated value in the additive rater + case model. Two reasons put
-a file on the "needs another read" list:
+is the file's estimated value in the additive rater + case model. With a cut-off, each file
+gets ``change_probability``: the chance that one more reading moves its adjusted score to
+the other side of the cut-off (:func:`change_probability`). Two reasons put a file on the
+"needs another read" list, which is ranked by that chance:
 
+- ``may_change``: that chance is at least ``change_level`` (20%, our own choice);
 - ``high_disagreement``: its readers disagree more than the panel's residual
-  spread explains (a chi-square screen on the severity-adjusted judgments);
-- ``near_cut_off``: the cut-off lies inside the file's interval, so with few
-  readers its side of the cut-off is not settled.
+  spread explains (a chi-square screen on the severity-adjusted judgments).
+
+``near_cut_off`` (the cut-off inside the file's 95% interval) is kept as a column: on the
+demo it held 306 of 700 files, most of them with little chance of changing side.
 """
 
 from __future__ import annotations
@@ -39,6 +43,8 @@ class FileRow(ResultMixin):
     part: int
     needs_another_read: bool
     reasons: tuple[str, ...]
+    change_probability: float = float("nan")   # one more reading moves it across the cut-off
+    near_cut_off: bool = False                 # the cut-off lies inside its interval
 
 
 @dataclass(frozen=True)
@@ -50,22 +56,78 @@ class FileView(ResultMixin):
     confidence: float
     disagreement_level: float
     warnings: tuple[str, ...] = ()
+    change_level: float = 0.20
+    case_variance: float = float("nan")   # spread of the files' true values (for the change chance)
+
+    def ranked(self) -> tuple[FileRow, ...]:
+        """Every file, the most likely to change side with one more reading first; files
+        without a chance (no cut-off) by their disagreement p-value; ties keep file order."""
+        def key(f: FileRow):
+            p = f.change_probability
+            return (-(p if np.isfinite(p) else -1.0),
+                    f.disagreement_p if np.isfinite(f.disagreement_p) else 2.0)
+        return tuple(sorted(self.files, key=key))
 
     def needs_another_read(self) -> tuple[str, ...]:
-        return tuple(f.case for f in self.files if f.needs_another_read)
+        """The files to read again, the most likely to change first."""
+        return tuple(f.case for f in self.ranked() if f.needs_another_read)
+
+    def n_may_change(self) -> int:
+        return sum("may_change" in f.reasons for f in self.files)
 
     def to_dict(self) -> dict:
         return jsonable({
             "cut_off": self.cut_off,
             "confidence": self.confidence,
             "disagreement_level": self.disagreement_level,
+            "change_level": self.change_level,
+            "case_variance": self.case_variance,
+            "n_may_change": self.n_may_change(),
             "needs_another_read": list(self.needs_another_read()),
             "files": [f.to_dict() for f in self.files],
             "warnings": list(self.warnings),
         })
 
     def to_frame(self) -> pd.DataFrame:
-        return tidy_rows(self.files, join=("reasons",))
+        """One row per file, ranked (``change_rank`` 1 = the most likely to change side)."""
+        frame = tidy_rows(self.ranked(), join=("reasons",))
+        frame.insert(1, "change_rank", np.arange(1, len(frame) + 1))
+        return frame
+
+
+def change_probability(adjusted, n_readers, *, cut_off: float, residual_sd: float, mean: float,
+                       case_variance: float) -> np.ndarray:
+    """The chance that one more reading moves each file's adjusted score across ``cut_off``.
+
+    Model (the additive rater + case model behind the adjusted scores, normal errors): a
+    reader's severity-adjusted judgment of file c is :math:`z = \\theta_c + e`, with
+    :math:`e \\sim N(0, \\sigma^2)` (``residual_sd``); the files' true values spread as
+    :math:`\\theta_c \\sim N(\\mu, \\tau^2)` (``mean``, ``case_variance``). The file's
+    decision is its adjusted mean :math:`m_c` of :math:`n_c` readings against the cut-off
+    :math:`k` (at or above: yes). Given :math:`m_c`, the true value is
+    :math:`N(\\mu + w(m_c - \\mu),\\ w\\sigma^2/n_c)` with
+    :math:`w = \\tau^2 / (\\tau^2 + \\sigma^2/n_c)`, so a fresh reading is
+    :math:`z \\sim N(\\mu + w(m_c - \\mu),\\ \\sigma^2 (1 + w/n_c))`. With it the mean becomes
+    :math:`(n_c m_c + z)/(n_c + 1)`, which crosses :math:`k` exactly when :math:`z` passes
+    :math:`t = (n_c + 1)k - n_c m_c`; the probability is that normal's mass beyond
+    :math:`t` on the far side. So a file's mean, its readers (their number and the panel's
+    residual spread of the adjusted judgments) and the cut-off decide it; the shrinkage
+    toward :math:`\\mu` keeps a file with few readers from looking settled by luck.
+    Left out: the uncertainty of the readers' offsets and of the variance estimates, and
+    rounding to a scale's steps (measured in ``benchmarks/bench_change_probability.py``).
+    """
+    m = np.asarray(adjusted, dtype=float)
+    n = np.asarray(n_readers, dtype=float)
+    sigma2 = float(residual_sd) ** 2
+    tau2 = max(float(case_variance), 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = tau2 / (tau2 + sigma2 / n)
+        centre = mean + w * (m - mean)
+        sd = np.sqrt(sigma2 * (1.0 + w / n))
+        gap = ((n + 1.0) * cut_off - n * m - centre) / sd
+        above = m >= cut_off
+        p = np.where(above, norm.cdf(gap), norm.sf(gap))
+    return np.where(np.isfinite(m) & (n > 0) & np.isfinite(sd) & (sd > 0), p, np.nan)
 
 
 def file_view(
@@ -75,6 +137,7 @@ def file_view(
     cut_off: float | None = None,
     confidence: float = 0.95,
     disagreement_level: float = 0.01,
+    change_level: float = 0.20,
 ) -> FileView:
     """Per-file raw and severity-adjusted scores, spread, and the files to read again.
 
@@ -87,6 +150,8 @@ def file_view(
     disagreement_level : a file is flagged ``high_disagreement`` when its
         chi-square p-value falls below this (0.01: our own choice, to keep the
         list short on large panels; no correction across files).
+    change_level : a file is flagged ``may_change`` when one more reading moves it
+        across the cut-off with at least this chance (0.20: our own choice).
 
     Notes
     -----
@@ -98,7 +163,9 @@ def file_view(
     :math:`n_c - 1` df, which is approximate: the residual df of a file are
     slightly fewer, so the screen errs towards flagging too few.
     A file is ``near_cut_off`` when the cut-off lies inside
-    :math:`\\bar z_c \\pm z_{1-\\alpha/2}\\, SE`.
+    :math:`\\bar z_c \\pm z_{1-\\alpha/2}\\, SE`. The spread of the files' true values
+    for :func:`change_probability` is estimated by moments from the adjusted scores:
+    :math:`\\hat\\tau^2 = \\max(0, \\mathrm{var}(\\bar z_c) - \\mathrm{mean}(SE_c^2))`.
     """
     data = check_first(first)
     layout = crossed_layout(data)
@@ -138,22 +205,32 @@ def file_view(
     part_of_rater = {r.rater: r.part for r in severity_result.raters}
     part = np.full(C, -1, dtype=int)
     part[ci] = np.array([part_of_rater[r] for r in layout.raters])[layout.rater_index]
+    finite = np.isfinite(adjusted) & np.isfinite(se)
+    case_variance = (float(max(np.var(adjusted[finite], ddof=1) - np.mean(se[finite] ** 2), 0.0))
+                     if finite.sum() > 1 else float("nan"))
+    if cut_off is not None and np.isfinite(sigma) and np.isfinite(case_variance):
+        change = change_probability(adjusted, n, cut_off=float(cut_off), residual_sd=sigma,
+                                    mean=float(np.mean(adjusted[finite])), case_variance=case_variance)
+    else:
+        change = np.full(C, np.nan)
     rows = []
     for c in range(C):
         reasons = []
+        if change[c] >= change_level:
+            reasons.append("may_change")
         if p_dis[c] < disagreement_level:
             reasons.append("high_disagreement")
-        if cut_off is not None and abs(adjusted[c] - cut_off) < zcrit * se[c]:
-            reasons.append("near_cut_off")
+        near = cut_off is not None and bool(abs(adjusted[c] - cut_off) < zcrit * se[c])
         rows.append(FileRow(
             case=layout.cases[c], n_readers=int(n[c]), raw_mean=float(raw_mean[c]),
             adjusted=float(adjusted[c]), se=float(se[c]),
             spread_sd=float(spread_sd[c]), spread_range=float(highest[c] - lowest[c]),
             disagreement_p=float(p_dis[c]), part=int(part[c]),
             needs_another_read=bool(reasons), reasons=tuple(reasons),
+            change_probability=float(change[c]), near_cut_off=near,
         ))
     return FileView(
         files=tuple(rows), cut_off=None if cut_off is None else float(cut_off),
         confidence=float(confidence), disagreement_level=float(disagreement_level),
-        warnings=tuple(warnings),
+        warnings=tuple(warnings), change_level=float(change_level), case_variance=case_variance,
     )

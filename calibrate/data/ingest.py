@@ -346,7 +346,7 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
                 out: Collector) -> PhaseData:
     """Split one phase's judgments into first judgments, repeat pairs and reading order."""
     if sub.empty:
-        out.warn(f"phase '{name}' has no judgments")
+        out.warn(f"phase '{name}' has no judgments", kind="empty_phase", phase=name)
     firsts = sub.loc[sub["_nth"] == 0]
     first = pd.DataFrame({
         "rater": firsts["_rater"].to_numpy(),

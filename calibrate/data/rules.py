@@ -101,8 +101,11 @@ class Collector:
     def error(self, message: str, *, file=None, row=None, column=None) -> None:
         self.items.append(DataProblem(message, file=file, row=row, column=column))
 
-    def warn(self, message: str, *, file=None, row=None, column=None) -> None:
-        self.items.append(DataProblem(message, file=file, row=row, column=column, severity="warning"))
+    def warn(self, message: str, *, kind: str, file=None, row=None, column=None, rater=None,
+             case=None, phase=None) -> None:
+        """A warning with its stable ``kind`` (a code of ``calibrate.notes.NOTE_TITLES``)."""
+        self.items.append(DataProblem(message, file=file, row=row, column=column, severity="warning",
+                                      kind=kind, rater=rater, case=case, phase=phase))
 
     @property
     def errors(self) -> list[DataProblem]:
@@ -211,7 +214,7 @@ def drop_duplicates(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
         return data
     for fname, rows in data.loc[dup].groupby(FILE)[ROW]:
         out.warn(f"{len(rows)} row(s) identical in every column to an earlier row were dropped as "
-                 f"duplicates (rows {rows_text(rows.tolist())})", file=fname)
+                 f"duplicates (rows {rows_text(rows.tolist())})", file=fname, kind="duplicate_rows")
     return data.loc[~dup].copy()
 
 
@@ -280,7 +283,7 @@ def check_judgments(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.D
     if no_judgment.any():
         for fname, rows in data.loc[no_judgment].groupby(FILE)[ROW]:
             out.warn(f"{len(rows)} row(s) without a judgment were dropped (rows "
-                     f"{rows_text(rows.tolist())})", file=fname, column=jcol)
+                     f"{rows_text(rows.tolist())})", file=fname, column=jcol, kind="no_judgment")
     data = data.copy()
     data["_judgment"] = values
     return data.loc[present].copy()
@@ -450,7 +453,7 @@ def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | pd.Series |
     n_missing = int(vals.isna().sum())
     if n_missing:
         out.warn(f"the criterion is missing for {n_missing} of {len(vals)} cases; those cases "
-                 "leave the lens model only", column=crit)
+                 "leave the lens model only", column=crit, kind="criterion_missing")
     return cases
 
 
@@ -473,11 +476,12 @@ def report_missing_cue(values: pd.Series, rule: CueRule, out: Collector) -> None
         return
     if rule.missing == "indicator":
         out.warn(f"cue '{rule.name}' is missing for {n_missing} case(s); filled with the mean "
-                 "and a 0/1 'missing' term is fitted with it (indicator rule)", column=rule.name)
+                 "and a 0/1 'missing' term is fitted with it (indicator rule)", column=rule.name,
+                 kind="cue_missing")
     else:
         out.warn(f"cue '{rule.name}' is missing for {n_missing} case(s); those cases leave the "
                  "policy fits (drop rule; use missing = \"indicator\" to keep them)",
-                 column=rule.name)
+                 column=rule.name, kind="cue_missing")
 
 
 def excluded_types(cases: pd.DataFrame, excluded: tuple[str, ...],
@@ -522,7 +526,9 @@ def mark_repeats(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
         phase_txt = f" in phase '{r[PHASE]}'" if r[PHASE] is not None else ""
         out.warn(f"rater '{r['_rater']}' judged case '{r['_case']}' more than twice{phase_txt}; "
                  f"the judgments in rows {rows_text(grp[ROW].tolist())} were dropped (only the first "
-                 "and its repeat are used)", file=r[FILE])
+                 "and its repeat are used)", file=r[FILE], kind="later_presentations_dropped",
+                 rater=str(r["_rater"]), case=str(r["_case"]),
+                 phase=None if r[PHASE] is None else str(r[PHASE]))
     data = data.loc[~third].copy()
     data["_position"] = data.groupby([PHASE, "_rater"], dropna=False).cumcount()
     return data
@@ -549,6 +555,7 @@ def too_few_cases(first: pd.DataFrame, complete: pd.Series, n_terms: int, phase_
     for rater, n in too_few.items():
         where = f" in phase '{phase_name}'" if phase_name is not None else ""
         out.warn(f"rater '{rater}' has {n} usable case(s){where}, fewer than the "
-                 f"{n_terms + 2} a policy fit needs (cue terms + 2); kept out of policy fits")
+                 f"{n_terms + 2} a policy fit needs (cue terms + 2); kept out of policy fits",
+                 kind="too_few_cases", rater=str(rater), phase=phase_name)
     fit_raters = tuple(r for r in usable.index if r not in too_few)
     return fit_raters, too_few

@@ -193,10 +193,24 @@ TABLE_COLUMN_NOTES: dict[str, dict[str, str]] = {
                           "panel's residual spread explains? Below 0.05 gives high_disagreement.",
         "part": "Number (from 0) of the connected part of the rater-case network the file belongs to; "
                 "adjusted scores are comparable only within a part (-1: no reader).",
-        "needs_another_read": "True when the file should be read again: its readers disagree, or the "
-                              "cut-off lies inside the file's 95% interval.",
-        "reasons": "Why the file needs another read, separated by ';': high_disagreement, near_cut_off; "
+        "needs_another_read": "True when the file should be read again: one more reading has at least a "
+                              "20% chance of changing its side of the cut-off, or its readers disagree "
+                              "more than usual (reasons says which).",
+        "reasons": "Why the file needs another read, separated by ';': may_change, high_disagreement; "
                    "empty when it does not.",
+        "change_rank": "The file's place when the phase's files are ranked by the chance of changing side "
+                       "with one more reading (1 = the most likely).",
+        "change_probability": "Chance (0 to 1) that one more reader's severity-adjusted judgment moves the "
+                              "file's adjusted mean across the cut-off; empty without a cut-off.",
+        "near_cut_off": "True when the cut-off lies inside the file's 95% interval (kept for reference; "
+                        "the list of files to read again uses change_probability).",
+    },
+    "notes": {
+        "kind": "Stable code of the note's kind (a data rule such as later_presentations_dropped, or "
+                "'analysis:first-words' for a note of an analysis); the reports group notes by it.",
+        "message": "The note in full, as results.json holds it.",
+        "file": "The input file the note concerns, where it concerns one (empty otherwise).",
+        "row": "The row of that file, as a spreadsheet numbers it (the header is row 1), where known.",
     },
     "readers_per_file": {
         "raters": "Number of readers per file in the D-study scenario (1 to 10).",

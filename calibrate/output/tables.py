@@ -52,8 +52,9 @@ TABLE_DESCRIPTIONS = {
                       "shared cases, and the mean gap.",
     "severity": "One row per rater and phase: severity offset (positive = more lenient) with SE, "
                 "range use and central tendency.",
-    "files": "One row per file and phase: raw mean, severity-adjusted score, spread, and whether it "
-             "needs another read.",
+    "files": "One row per file and phase, ranked by the chance that one more reading changes its side "
+             "of the cut-off: raw mean, severity-adjusted score, spread, that chance, and whether it "
+             "needs another read (and why).",
     "readers_per_file": "D-study: reliability (relative and absolute) for 1 to 10 readers per file.",
     "agreement": "The six ICC forms with intervals and the method used.",
     "lens": "One row per rater and phase: lens model (r_a, G, C, R_e, R_s) with BCa case-bootstrap "
@@ -67,4 +68,7 @@ TABLE_DESCRIPTIONS = {
     "grouping": "One row per rater and phase: policy group and the cross-check grouping.",
     "group_merges": "The merge sequence of the policy grouping with the R^2 lost at each step.",
     "groups": "One row per group and phase: pooled policy and stability.",
+    "notes": "Every note (warning) from reading and fitting the data, one row each: its kind (a "
+             "stable code; the reports print one line per kind), phase, rater and case it concerns, "
+             "file, row and column where known, and the text.",
 }

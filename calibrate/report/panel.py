@@ -7,6 +7,7 @@ import math
 
 from reportlab.platypus import CondPageBreak, KeepTogether, Spacer
 
+from ..notes import group_notes
 from . import charts, wording
 from ._read import ReportInput
 from .layout import fitted_table, fresh_page
@@ -26,6 +27,23 @@ from .styles import (
 )
 from .view import PanelView
 from .wording import fmt
+
+
+#: How many files the summary shows (split over the phases); the files table holds all.
+TOP_FILES = 25
+REASON_WORDS = {"may_change": "may change side", "high_disagreement": "readers disagree",
+                "near_cut_off": "near the cut-off"}
+
+
+def _percent(value) -> str:
+    """A chance as a whole percentage ("<1%" below one half of a percent)."""
+    try:
+        value = float(value)
+    except (TypeError, ValueError):
+        return "n/a"
+    if not math.isfinite(value):
+        return "n/a"
+    return "<1%" if value < 0.005 else f"{100 * value:.0f}%"
 
 
 def _finite(value: float) -> float | None:
@@ -362,6 +380,8 @@ class PanelReport:
 
     # ------------------------------------------------------------------ files, excluded, quality
     def files_to_reread(self) -> list:
+        """The files most likely to change side with one more reading, a few per phase, with
+        how many there are; the full ranked list is the files table."""
         story = [CondPageBreak(150), text("Files that need another read", HEADING)]
         frame = self.data.table("files", "case_scores", "cases")
         flag_col = None
@@ -373,53 +393,97 @@ class PanelReport:
             if not listed:
                 return story + [text("The per-file results are not available for this study yet.", BODY)]
             for phase, ids in listed:
-                shown = ", ".join(map(str, ids[:60])) + (f" and {len(ids) - 60} more" if len(ids) > 60 else "")
+                shown = ", ".join(map(str, ids[:TOP_FILES])) + (
+                    f" and {len(ids) - TOP_FILES} more" if len(ids) > TOP_FILES else "")
                 story.append(text((f"Phase {phase}, {len(ids)} file(s): " if phase else f"{len(ids)} file(s): ")
                                   + shown + ".", BODY))
             story.append(text("The full list, with the reason for each file, is in the files table.", SMALL))
             return story
-        chosen = frame[frame[flag_col].astype(bool)]
-        if chosen.empty:
-            return story + [text("No file needs another read.", BODY)]
-        chosen = self._most_urgent_first(chosen)
-        cols = [c for c in (("phase",) if self.view.named_phases else ()) + ("case", "n_readers", "raw_mean", "adjusted", "spread_sd", "disagreement",
-                            "reasons") if c in chosen.columns]
-        rows = [[text(c.replace("_", " "), CELL_BOLD) for c in cols]]
-        story.append(text(f"{len(chosen)} file(s) were marked for another read: readers disagreed more than "
-                          "usual, or the cut-off lies within the file's uncertainty, so its side of the cut-off "
-                          "depends on who read it. Most urgent first: disagreement, then the files closest to "
-                          "the cut-off. Raw mean: average judgment; adjusted: after removing each reader's "
-                          "severity offset.", BODY))
-        per_phase = 40 // max(1, chosen["phase"].nunique()) if "phase" in chosen.columns else 40
-        shown = (chosen.groupby("phase", sort=False).head(per_phase) if "phase" in chosen.columns
-                 else chosen.head(per_phase))
-        for _, r in shown.iterrows():
-            rows.append([text(fmt(_finite(r[c])) if isinstance(r[c], float) else str(r[c]), CELL) for c in cols])
-        table = fitted_table(rows, repeatRows=1, hAlign="LEFT")
-        table.setStyle(table_style())
-        story.append(table)
-        if len(chosen) > len(shown):
-            story.append(text(f"{len(chosen) - len(shown)} more in the files table of the workbook.", SMALL))
+        cut = self.view.cut_off
+        has_chance = cut is not None and "change_probability" in frame.columns
+        named = self.view.named_phases and "phase" in frame.columns
+        parts = ([(phase, frame[frame["phase"] == phase]) for phase in frame["phase"].drop_duplicates()]
+                 if named else [(None, frame)])
+        if has_chance:
+            story.append(text(
+                "How likely one more reading is to put each file on the other side of the cut-off "
+                f"({fmt(cut)}): one more reader's judgment, with their severity removed, joins the file's "
+                "adjusted mean. The chance comes from the file's adjusted mean, its number of readers, "
+                "the panel's spread between readers and the spread of the files' values; files whose "
+                "readers disagree more than usual are listed too. Adjusted: the mean after removing "
+                "each reader's severity offset.", BODY))
+        else:
+            story.append(text("Without a cut-off ([judgment] cut_off) no file can be said to change side; "
+                              "the files whose readers disagree more than usual are listed, the strongest "
+                              "disagreement first.", BODY))
+        per_phase = max(10, TOP_FILES // max(1, len(parts)))
+        for phase, part in parts:
+            chosen = self._most_urgent_first(part[part[flag_col].astype(bool)])
+            level = next((p.files_change_level for p in self.view.panels if p.phase == phase), None)
+            story += self._files_part(phase, part, chosen, per_phase, has_chance, level)
+        story.append(text("Every file, ranked the same way (change_rank, change_probability, reasons), is in "
+                          "the files table (tables/files.csv and the workbook's files sheet).", SMALL))
         return story
 
+    def _files_part(self, phase, part, chosen, per_phase: int, has_chance: bool, level: float | None) -> list:
+        lead = f"Phase {phase}: " if phase else ""
+        n_files = len(part)
+        reasons = chosen["reasons"].fillna("").astype(str) if "reasons" in chosen.columns else None
+        n_change = int(reasons.str.contains("may_change").sum()) if reasons is not None else 0
+        n_disagree_only = (int((reasons.str.contains("high_disagreement")
+                                & ~reasons.str.contains("may_change")).sum()) if reasons is not None else 0)
+        if chosen.empty:
+            return [text(f"{lead}no file of {n_files} needs another read.", BODY)]
+        if has_chance:
+            level = "a" if level is None else f"at least a {100 * level:.0f}%"
+            said = (f"{lead}{n_change} of {n_files} files have {level} chance that one more "
+                    "reading changes their side of the cut-off"
+                    + (f"; {n_disagree_only} more are listed because their readers disagree more than usual"
+                       if n_disagree_only else "")
+                    + f". {len(chosen)} listed in all")
+        else:
+            said = f"{lead}{len(chosen)} of {n_files} files are listed"
+        shown = chosen.head(per_phase)
+        said += (f"; the {len(shown)} most likely to change are shown." if has_chance and len(chosen) > len(shown)
+                 else "; all are shown." if len(chosen) == len(shown) else f"; the first {len(shown)} are shown.")
+        heads = [("case", "File", 70), ("n_readers", "Readers", 50), ("adjusted", "Adjusted", 55)]
+        if has_chance:
+            heads.append(("change_probability", "Chance of a change", 85))
+        heads += [("spread_sd", "Spread (SD)", 60), ("reasons", "Why", None)]
+        heads = [h for h in heads if h[0] in shown.columns]
+        rows = [[text(title, CELL_BOLD) for _, title, _ in heads]]
+        for _, r in shown.iterrows():
+            cells = []
+            for col, _, _ in heads:
+                value = r[col]
+                if col == "change_probability":
+                    cells.append(text(_percent(value), CELL))
+                elif col == "reasons":
+                    cells.append(text("; ".join(REASON_WORDS.get(w, w.replace("_", " "))
+                                                for w in str(value or "").split(";") if w), CELL))
+                elif isinstance(value, float):
+                    cells.append(text(fmt(_finite(value)), CELL))
+                else:
+                    cells.append(text(str(value), CELL))
+            rows.append(cells)
+        fixed = sum(w for _, _, w in heads if w)
+        widths = [w if w else CONTENT_WIDTH - fixed for _, _, w in heads]
+        table = fitted_table(rows, widths, repeatRows=1, hAlign="LEFT")
+        table.setStyle(table_style())
+        out = [KeepTogether([text(said, BODY), table])]
+        if len(chosen) > len(shown):
+            out.append(text(f"{len(chosen) - len(shown)} more listed files are in the files table.", SMALL))
+        return out
+
     def _most_urgent_first(self, chosen):
-        """Files whose readers disagree come first, then files whose adjusted score sits closest
-        to the cut-off for its uncertainty; phases keep their order."""
-        cut = self.view.cut_off
+        """The files most likely to change side first (the table's ``change_rank``); without a
+        cut-off, the strongest disagreement first. Phases keep their order."""
         chosen = chosen.copy()
-        reasons = chosen["reasons"].astype(str) if "reasons" in chosen.columns else ""
-        chosen["_disagree"] = ~reasons.str.contains("high_disagreement") if "reasons" in chosen.columns else True
-        if cut is not None and {"adjusted", "se"} <= set(chosen.columns):
-            chosen["_closeness"] = (chosen["adjusted"] - cut).abs() / chosen["se"].where(chosen["se"] > 0)
-        else:
-            chosen["_closeness"] = 0.0
-        phases = list(self.view.phase_order)
-        if "phase" in chosen.columns:
-            chosen["_phase"] = chosen["phase"].map({p: i for i, p in enumerate(phases)})
-        else:
-            chosen["_phase"] = 0
-        chosen = chosen.sort_values(["_phase", "_disagree", "_closeness"], kind="mergesort")
-        return chosen.drop(columns=["_disagree", "_closeness", "_phase"])
+        if "change_rank" in chosen.columns:
+            return chosen.sort_values("change_rank", kind="mergesort")
+        if "disagreement_p" in chosen.columns:
+            return chosen.sort_values("disagreement_p", kind="mergesort")
+        return chosen
 
     def excluded(self) -> list:
         story = [CondPageBreak(150), text("Attributes that must not count", HEADING)]
@@ -456,32 +520,29 @@ class PanelReport:
         return story
 
     def all_warnings(self) -> list[tuple[str, str]]:
-        out: list[tuple[str, str]] = []
-        for w in self.view.warnings:
-            out.append((f"reading the data ({w.where})" if w.where else "analysis", w.message))
-        # The study's list already carries each analysis' notes as "analysis (phase): note";
-        # the same note read again from a rater's or the panel's block is not printed twice.
-        carried = {w.message.split(": ", k)[-1] for w in self.view.warnings for k in (1, 2)}
-        for e in self.view.raters:
-            for msg in e.warnings:
-                if msg not in carried:
-                    out.append((f"fitting {e.rater}" + (f", {e.phase}" if e.phase else ""), msg))
-        for p in self.view.panels:
-            for msg in p.warnings:
-                if msg not in carried:
-                    out.append(("panel" + (f", {p.phase}" if p.phase else ""), msg))
-        return out
+        """Every note once, as (where, text): results.json's warnings hold the data notes and
+        every analysis note, per-rater ones included (the rater entries repeat those)."""
+        return [(f"reading the data ({w.where})" if w.where else "analysis", w.message)
+                for w in self.view.warnings]
 
     def data_quality(self) -> list:
+        """One line per kind of note, with its count and a few examples; the full list is
+        the notes table."""
         story = [CondPageBreak(150), text("Data quality", HEADING)]
-        warnings = self.all_warnings()
-        if not warnings:
+        notes = [w.as_note() for w in self.view.warnings]
+        if not notes:
             return story + [text("No warning was raised while reading or fitting the data.", BODY)]
-        rows = [[text("Where", CELL_BOLD), text("Note", CELL_BOLD)]]
-        rows += [[text(where, CELL), text(msg, CELL)] for where, msg in warnings]
-        table = fitted_table(rows, [130, CONTENT_WIDTH - 130], repeatRows=1, hAlign="LEFT")
+        groups = group_notes(notes)
+        story.append(text(f"{len(notes)} note(s) of {len(groups)} kind(s) were recorded while reading and "
+                          "fitting the data; each kind is one line below, with how often it arose and a "
+                          "few of the raters or files it concerns.", BODY))
+        rows = [[text("Notes", CELL_BOLD), text("What was noted", CELL_BOLD)]]
+        rows += [[text(str(g.count), CELL), text(g.line(), CELL)] for g in groups]
+        table = fitted_table(rows, [40, CONTENT_WIDTH - 40], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
-        return story + [table]
+        return story + [table, text("Every note, one row each with its kind, rater and case, is in the notes "
+                                    "table (tables/notes.csv and the workbook's notes sheet) and in "
+                                    "results.json.", SMALL)]
 
     def methods(self) -> list:
         rows = [[text(h, CELL_BOLD) for h in ("Analysis", "Method", "Published source")]]

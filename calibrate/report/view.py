@@ -106,6 +106,10 @@ def _optional_text(value: Any) -> str | None:
     return None if value is None else str(value)
 
 
+def _optional_int(value: Any) -> int | None:
+    return None if value is None else int(value)
+
+
 def collect_warnings(node: Any) -> tuple[str, ...]:
     """Every plain-English warning string found anywhere in an entry (de-duplicated)."""
     found: list[str] = []
@@ -460,6 +464,9 @@ class PanelView:
     files_needing_another_read: tuple[str, ...]
     warnings: tuple[str, ...]
     chance_flags: ChanceFlagsView | None = None
+    # the chance of changing side with one more reading that lists a file (optional: older
+    # results folders lack it)
+    files_change_level: float | None = None
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> PanelView:
@@ -529,6 +536,7 @@ class PanelView:
                                                   _num(hom, "p_value", f"{path}.homogeneity")),
             pairs=tuple(pairs), proxies=proxies,
             files_needing_another_read=tuple(map(str, _list(d, "files_needing_another_read", path))),
+            files_change_level=_num(d, "files_change_level", path, default=None),
             warnings=collect_warnings(d),
             chance_flags=(None if (chance := _block(d, "chance_flags", path)) is None
                           else ChanceFlagsView.read(chance, f"{path}.chance_flags")))
@@ -548,6 +556,20 @@ class PhaseCounts:
 class StudyWarning:
     message: str
     where: str          # "file f, row r, column c" (the parts recorded), or ""
+    # optional (results folders of earlier versions lack them): the note's stable kind and
+    # what it is about; calibrate.notes groups the notes by kind
+    kind: str | None = None
+    rater: str | None = None
+    case: str | None = None
+    phase: str | None = None
+    file: str | None = None
+    row: int | None = None
+    column: str | None = None
+
+    def as_note(self) -> dict:
+        return {"message": self.message, "kind": self.kind, "rater": self.rater,
+                "case": self.case, "phase": self.phase, "file": self.file, "row": self.row,
+                "column": self.column}
 
 
 @dataclass(frozen=True)
@@ -592,7 +614,10 @@ class ResultsView:
         for i, w in enumerate(_list(results, "warnings", "results")):
             if isinstance(w, Mapping):
                 bits = [f"{k} {w[k]}" for k in ("file", "row", "column") if w.get(k) is not None]
-                warnings.append(StudyWarning(str(_get(w, "message", f"results.warnings[{i}]")), ", ".join(bits)))
+                warnings.append(StudyWarning(str(_get(w, "message", f"results.warnings[{i}]")), ", ".join(bits),
+                                             *(_optional_text(w.get(k)) for k in ("kind", "rater", "case")),
+                                             phase_of(w.get("phase")), _optional_text(w.get("file")),
+                                             _optional_int(w.get("row")), _optional_text(w.get("column"))))
             else:
                 warnings.append(StudyWarning(str(w), ""))
         terms = _list(summary, "design_terms", "results.data_summary", default=None)

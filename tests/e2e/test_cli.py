@@ -83,6 +83,15 @@ def test_audit_writes_valid_results_and_refuses_to_overwrite(demo_folder, tmp_pa
                                                       "applicants.csv"}
     assert results["seed"] == 20261201
     assert (out / "audit.xlsx").is_file() and (out / "tables" / "raters.csv").is_file()
+    # What it prints: a count per flag, at most five raters, a pointer; never a line per rater-flag
+    lines = proc.stdout.splitlines()
+    flag_lines = [ln for ln in lines if ln.strip().endswith("]") and ln.strip()[0].isdigit()]
+    flags = {f for e in results["raters"] for f in e["flags"]}
+    assert len(flag_lines) == len(flags) and len(lines) <= 5 + len(flags) + 5 + 1, proc.stdout
+    assert any(ln.startswith(f"Notes: {len(results['warnings'])} from reading") for ln in lines)
+    assert "Juniper (before, after): judgments are associated with an attribute that must not count" in map(str.strip, lines)
+    assert any("tables/raters.csv" in ln for ln in lines)
+    assert "(tables/notes.csv" not in proc.stderr and (out / "tables" / "notes.csv").is_file()
 
     again = run("audit", demo_folder / "study.toml", "--out", out, "--no-pdf")
     assert again.returncode == 2 and "--overwrite" in again.stderr
