@@ -49,7 +49,7 @@ def test_cautions_say_the_cases_differ(result):
     assert any("different cases" in c for c in result.cautions)
     assert not any("no control group" in c for c in result.cautions)
     frame = result.to_frame()
-    assert set(frame["metric"]) == {"r", "retest_r", "misallocation", "severity", "r_a"}
+    assert set(frame["metric"]) == {"r", "retest_r", "misallocation", "g_rubric", "severity", "r_a", "g"}
     assert np.isfinite(frame["delta"]).all()
 
 
