@@ -50,6 +50,17 @@ def detectable_change(se, df: float | None = None) -> float:
     return float(stats.t.ppf(0.975, df) + stats.t.ppf(0.80, df)) * se
 
 
+def detectable_correlation_change(r0: float, se_z: float) -> float:
+    """Smallest rise of a correlation from ``r0`` that a two-sided 5% test on Fisher's z
+    scale with SE ``se_z`` detects with 80% power: tanh(atanh r0 + 2.80 se_z) - r0 (the
+    power identity on the z scale, moved back to the r scale; a rise because every
+    correlation here is better higher)."""
+    if not (math.isfinite(r0) and math.isfinite(se_z)) or se_z <= 0:
+        return math.nan
+    z0 = math.atanh(min(max(r0, -0.999999), 0.999999))
+    return math.tanh(z0 + DETECTABLE_Z * se_z) - r0
+
+
 def agreement_draws(first: pd.DataFrame, *, scale: str, scale_min, scale_max, n_boot: int,
                     rng: np.random.Generator) -> dict:
     """ICC(A,1) and alpha of one phase with their parametric-bootstrap draws.

@@ -32,7 +32,7 @@ from ..data.rules import natural_key
 from ..data.rows import JudgmentRows, line_up, standard_deviations
 from ..lens.rubric import _cue_shares, _validate_rubric
 from ..result_base import ResultMixin, jsonable
-from .panel_change import detectable_change
+from .panel_change import detectable_change, detectable_correlation_change
 from .tests_of_change import (ancova_difference, bootstrap_difference, fisher_z_difference,
                               normal_difference, paired_tests, welch_difference)
 
@@ -532,9 +532,7 @@ def _rater_changes(figs: list[_PhaseFigures], phases: tuple[str, ...], name: str
                     _, pv, lo, hi = fisher_z_difference(va[i], n1, vb[i], n2, confidence)
                     se_z = math.sqrt(1.0 / (n1 - 3) + 1.0 / (n2 - 3)) if min(n1, n2) > 3 else math.nan
                     methods.append("Fisher z (different cases), Zou interval")
-                # on the r scale near the starting value: dr = (1 - r^2) dz
-                r0 = va[i] if np.isfinite(va[i]) else 0.0
-                rows.append((lo, hi, pv, detectable_change((1.0 - r0 ** 2) * se_z)))
+                rows.append((lo, hi, pv, detectable_correlation_change(va[i], se_z)))
             method = None
         for i in range(G):
             lo, hi, pv, det = rows[i]

@@ -127,3 +127,43 @@ def test_a_follow_up_phase_gives_every_change_and_whether_it_lasted(tmp_path):
                                "on any measure.")
     effect = out.panel["training_effect"]["misallocation"]
     assert (effect["from"], effect["to"]) == ("before", "followup") and effect["ci_high"] < 0
+    # Does it last: the follow-up effect, end of training to follow-up, in the same form.
+    follow = out.panel["follow_up_effect"]["misallocation"]
+    assert (follow["from"], follow["to"]) == ("after", "followup")
+    assert follow["estimate"] == pytest.approx(0, abs=1e-12)
+    # The follow-up judged the same cases against the same outcome: the dependent test.
+    assert out.raters[0].metrics["r_a"]["changes"][1].method.startswith("Williams' T2")
+    assert out.raters[0].metrics["misallocation"]["changes"][1].comparable is True
+
+
+def test_every_change_says_what_it_could_detect_and_whether_it_is_comparable(result):
+    # The demo's two rounds read different applicants: R_s (adjusted) and severity are
+    # comparable, the weight figures are not and say so; every change names its detectable size.
+    for r in result.raters:
+        for name, block in r.metrics.items():
+            for ch in block["changes"]:
+                assert ch.detectable > 0, (r.rater, name)
+                assert ch.comparable is (name in ("r", "severity")), name
+                assert (ch.note is None) is ch.comparable
+        assert set(r.shares) == set(result.to_dict()["raters"][0]["shares"])
+        assert r.metrics["r"]["changes"][0].method.startswith("change in Wherry-adjusted R_s")
+        assert "Fisher z" in r.metrics["r_a"]["changes"][0].method  # different cases: independent
+    panel = result.panel
+    assert panel["agreement"]["same_cases"] is False
+    assert panel["agreement"]["icc"]["changes"][0]["comparable"] is False
+    assert set(panel["convergence"]["pairwise_distance"]) == {"trained", "control"}
+    rubric = panel["convergence"]["distance_to_rubric"]
+    # The planted effect: the trained raters' profiles moved toward the rubric, the controls' did not.
+    assert rubric["trained"]["changes"][0]["ci_high"] < 0
+    assert rubric["control"]["changes"][0]["ci_low"] < 0 < rubric["control"]["changes"][0]["ci_high"]
+    assert set(panel["groups"]["values"]) == {"before", "after"}
+    assert set(panel["cue_shift"]) == set(r.shares)
+    assert panel["detectable"]["misallocation"]["panel"] > 0
+    assert "follow_up_effect" not in panel  # two phases: nothing to say about lasting
+
+
+def test_jobs_do_not_change_the_result(tmp_path):
+    files = write_demo(tmp_path / "d")
+    one = compare(load_study(files.spec), n_boot=60, jobs=1)
+    two = compare(load_study(files.spec), n_boot=60, jobs=2)
+    assert json.dumps(one.to_dict(), sort_keys=True) == json.dumps(two.to_dict(), sort_keys=True)
