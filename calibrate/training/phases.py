@@ -44,6 +44,11 @@ BASELINE_P = 0.10
 # Case counts of a rater further apart than this between the first and the last phase bias
 # the change in R_s (measured: 85% coverage with 40 against 120 cases; our own cut).
 UNEQUAL_CASES_RATIO = 1.5
+# The training effect is comparable across phases with different cases when, in each
+# phase, the two arms judged largely the same cases (this share in common, Jaccard; our own
+# cut): what the cases do to the figures then falls on both arms alike and the difference
+# in differences takes it out.
+ARMS_SHARED_CASES = 0.8
 # Simulated panels behind the panel figures' intervals (agreement) and the grouping's
 # number-of-groups test: the audit's own default for agreement.
 PANEL_BOOT = 500
@@ -573,12 +578,14 @@ def _arm_effect(arms: dict, name: str, phases: tuple[str, ...], k: int, a: int, 
 
 
 def _panel(raters: list[RaterComparison], phases: tuple[str, ...], metrics: tuple[str, ...],
-           has_control: bool, confidence: float, case_sets: list | None = None) -> dict:
+           has_control: bool, confidence: float, case_sets: list | None = None,
+           arms_alike: list[bool] | None = None) -> dict:
     arms = {"trained": [r for r in raters if r.trained]}
     if has_control:
         arms["control"] = [r for r in raters if not r.trained]
     pairs = phase_pairs(phases)
     same = [case_sets is None or case_sets[a] == case_sets[b] for a, b in pairs]
+    arms_alike = arms_alike or [False] * len(phases)
     panel_metrics: dict = {}
     effects: dict | None = {} if has_control else None
     follow: dict | None = {} if has_control and len(phases) > 2 else None
@@ -604,14 +611,16 @@ def _panel(raters: list[RaterComparison], phases: tuple[str, ...], metrics: tupl
                                 **{key: test[key] for key in
                                    ("n", "t", "df", "effect_size_dz", "wilcoxon_statistic", "wilcoxon_p")}})
             panel_metrics[name][arm] = {"values": vals, "changes": changes}
+        # The difference in differences takes out what a phase's cases do to both arms alike,
+        # so it is comparable when, in each phase, the two arms judged the same cases.
         if effects is not None:
             last = len(pairs) - 1
             effects[name] = _arm_effect(arms, name, phases, last, 0, len(phases) - 1, confidence,
-                                        *comparability(name, same[last]))
+                                        *comparability(name, same[last] or arms_alike[0] and arms_alike[-1]))
         if follow is not None:
             k = len(phases) - 2  # the last consecutive pair: end of training to follow-up
             follow[name] = _arm_effect(arms, name, phases, k, k, k + 1, confidence,
-                                       *comparability(name, same[k]))
+                                       *comparability(name, same[k] or arms_alike[k] and arms_alike[k + 1]))
     out = {"metrics": panel_metrics, "training_effect": effects}
     if len(phases) > 2:
         out["follow_up_effect"] = follow
@@ -822,11 +831,21 @@ def comparison_summary(phases: tuple[str, ...], panel: dict, has_control: bool) 
         last_change = len(phase_pairs(phases)) - 1
         words = {m: change_word(m, arm[m]["trained"]["changes"][last_change]["ci_low"],
                                 arm[m]["trained"]["changes"][last_change]["ci_high"]) for m in metrics}
-        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better"]
+        # A figure not corrected for different cases in the two phases is named apart: its
+        # change may be the cases' (there is no control group to take that out).
+        uncorrected = {m for m in metrics
+                       if not arm[m]["trained"]["changes"][last_change].get("comparable", True)}
+        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better" and m not in uncorrected]
+        unsure = [METRIC_WORDS[m] for m in metrics if words[m] == "better" and m in uncorrected]
         lines.append(f"From {first} to {last} the raters improved on {_listing(better)}, but with no "
                      "control group this cannot be credited to the training alone."
                      if better else f"From {first} to {last} the raters did not improve clearly on any "
-                     "measure.")
+                     "measure that is comparable across the phases." if unsure else
+                     f"From {first} to {last} the raters did not improve clearly on any measure.")
+        if unsure:
+            lines.append(f"They also read better on {_listing(unsure)}, but the phases judged "
+                         "different cases and these figures are not corrected for that, so the "
+                         "change may be the cases'.")
     if len(phases) > 2:
         k = len(phases) - 2  # the last consecutive change: end of training to follow-up
         faded = [METRIC_WORDS[m] for m in metrics
@@ -875,6 +894,16 @@ def comparison_cautions(*, has_control: bool, same_cases: bool, apart_metrics: l
 
 
 # ----------------------------------------------------------------------------- entry point
+
+
+def _jaccard(a: frozenset, b: frozenset) -> float:
+    return len(a & b) / len(a | b) if a | b else 0.0
+
+
+def _cases_of(table: JudgmentTable, phase: str, raters: list[str]) -> frozenset:
+    """The cases that these raters judged first in a phase."""
+    first = table.phase(phase).first
+    return frozenset(first.loc[first["rater"].isin(raters), "case"])
 
 
 def available_cores() -> int:
@@ -951,7 +980,12 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
                                       verdicts=verdicts,
                                       shares=_share_blocks(figs, phases, cues, i, confidence)))
     case_sets = [f.cases for f in figs]
-    panel = _panel(raters, phases, metrics, has_control, confidence, case_sets)
+    trained_names = [r.rater for r in raters if r.trained]
+    control_names = [r.rater for r in raters if not r.trained]
+    arms_alike = [bool(has_control) and _jaccard(_cases_of(table, ph, trained_names),
+                                                 _cases_of(table, ph, control_names)) >= ARMS_SHARED_CASES
+                  for ph in phases]
+    panel = _panel(raters, phases, metrics, has_control, confidence, case_sets, arms_alike)
     trained_mask = np.array([r.trained for r in raters], dtype=bool)
     panel.update(_panel_extras(figs, phases, trained_mask, has_control, rubric_share, cues, raters,
                                confidence))

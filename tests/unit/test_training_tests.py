@@ -182,3 +182,26 @@ def test_a_gain_is_credited_only_when_the_ancova_agrees():
                                    True)
         assert ("improved more than the controls" in lines[0]) is credited
         assert any("evidence is mixed" in line for line in lines) is (not credited)
+
+
+def test_without_controls_a_gain_on_an_uncorrected_figure_is_named_apart():
+    from calibrate.training.phases import comparison_summary
+
+    change = {"ci_low": -0.3, "ci_high": -0.1, "comparable": False}
+    panel = {"metrics": {"misallocation": {"trained": {"changes": [change]}},
+                         "r": {"trained": {"changes": [{"ci_low": -0.1, "ci_high": 0.1, "comparable": True}]}}},
+             "training_effect": None}
+    lines = comparison_summary(("before", "after"), panel, False)
+    assert lines[0] == ("From before to after the raters did not improve clearly on any measure that is "
+                        "comparable across the phases.")
+    assert "closeness to the rubric's weights" in lines[1] and "different cases" in lines[1]
+
+
+def test_regression_to_the_mean_caution_when_the_trained_started_worse():
+    from calibrate.training.phases import comparison_cautions
+
+    notes = comparison_cautions(has_control=True, same_cases=True, apart_metrics=["misallocation"],
+                                n_trained=8, n_control=8,
+                                started_worse=["closeness to the rubric's weights"])
+    assert any(n.startswith("The trained raters started worse than the controls on closeness")
+               and "regression to the mean" in n for n in notes)
