@@ -11,6 +11,14 @@ from calibrate.data.demo import REVIEWERS
 from calibrate.training import compare
 
 
+def _valid(out):
+    import jsonschema
+
+    from calibrate.output.tables import comparison_schema
+
+    jsonschema.validate(json.loads(json.dumps(out.to_dict())), comparison_schema())
+
+
 @pytest.fixture(scope="module")
 def result(tmp_path_factory):
     files = write_demo(tmp_path_factory.mktemp("demo"))
@@ -79,6 +87,9 @@ def test_without_a_trained_list_all_count_as_trained_and_the_caution_says_so(tmp
     assert set(out.panel["metrics"]["r"]) == {"trained"}
     assert any("no control group" in c and "cannot be credited to the training alone" in c
                for c in out.cautions)
+    _valid(out)
+    assert set(out.panel["convergence"]["pairwise_distance"]) == {"all"}
+    assert all(v["control"] is None for v in out.panel["cue_shift"].values())
 
 
 def test_summary_and_verdicts_say_what_the_intervals_say(result):
@@ -134,6 +145,7 @@ def test_a_follow_up_phase_gives_every_change_and_whether_it_lasted(tmp_path):
     # The follow-up judged the same cases against the same outcome: the dependent test.
     assert out.raters[0].metrics["r_a"]["changes"][1].method.startswith("Williams' T2")
     assert out.raters[0].metrics["misallocation"]["changes"][1].comparable is True
+    _valid(out)
 
 
 def test_every_change_says_what_it_could_detect_and_whether_it_is_comparable(result):

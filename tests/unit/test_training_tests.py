@@ -149,12 +149,15 @@ def test_difference_in_differences_with_a_shared_practice_effect_includes_zero()
     sys.path.insert(0, str(Path(__file__).parent))
     from training_simulation import rs_draws
 
+    from calibrate.training.phases import wherry_adjusted_r
+
     rng = np.random.default_rng(11)
     inside = 0
     for _ in range(30):
         noise = rng.uniform(0.4, 1.2, 14)
-        before = rs_draws(rng, noise, 60, 1)[:, 0]
-        after = rs_draws(rng, noise * 0.85, 60, 1)[:, 0]
+        # the change in adjusted R_s, as compare reads it
+        before = wherry_adjusted_r(rs_draws(rng, noise, 60, 1)[:, 0], 60, 4)
+        after = wherry_adjusted_r(rs_draws(rng, noise * 0.85, 60, 1)[:, 0], 60, 4)
         w = welch_difference((after - before)[:7], (after - before)[7:])
         inside += w["ci_low"] <= 0 <= w["ci_high"]
     assert inside >= 26  # binomial(30, .95): P(X < 26) < 2%
