@@ -37,7 +37,7 @@ from .tests_of_change import (ancova_difference, bootstrap_difference, fisher_z_
                               normal_difference, paired_tests, welch_difference)
 
 COMPARISON_SCHEMA = "calibrate.comparison/1"
-BOOTSTRAP_METRICS = ("r", "misallocation")
+BOOTSTRAP_METRICS = ("r", "misallocation", "g_rubric")
 # The arms differ at baseline when Welch's t on the first-phase values gives p below this
 # (our own screening level; the ANCOVA estimate is shown beside the Welch one then).
 BASELINE_P = 0.10

@@ -62,6 +62,7 @@ def test_cautions_say_the_cases_differ(result):
 
 
 def test_values_equal_the_audit_functions(result, tmp_path):
+    from calibrate.lens.model import lens_model
     from calibrate.lens.rubric import rubric_alignment
     from calibrate.training.phases import _fit_first
 
@@ -70,9 +71,16 @@ def test_values_equal_the_audit_functions(result, tmp_path):
     for ph in table.phases:
         align = rubric_alignment(table.phase_design(ph), _fit_first(table, ph), table.spec.rubric,
                                  basis=table.spec.rubric_basis)
+        lens = lens_model(table.phase_design(ph), _fit_first(table, ph), table.criterion,
+                          rubric=table.spec.rubric, n_boot=0)
         for r in result.raters:
-            assert r.metrics["misallocation"]["values"][ph.name] == pytest.approx(
-                align.for_rater(r.rater).misallocation, abs=1e-9)
+            mine = align.for_rater(r.rater)
+            assert r.metrics["misallocation"]["values"][ph.name] == pytest.approx(mine.misallocation, abs=1e-9)
+            assert r.metrics["g_rubric"]["values"][ph.name] == pytest.approx(mine.g_rubric, abs=1e-9)
+            assert r.metrics["g"]["values"][ph.name] == pytest.approx(lens.for_rater(r.rater).g, abs=1e-9)
+            for cue, share in mine.shares.items():
+                assert r.shares[cue]["values"][ph.name] == pytest.approx(share, abs=1e-9)
+            assert r.metrics["g_rubric"]["changes"][0].method.startswith("case bootstrap")
 
 
 def test_without_a_trained_list_all_count_as_trained_and_the_caution_says_so(tmp_path):
