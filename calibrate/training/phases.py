@@ -1,20 +1,30 @@
 """Before and after a training: each rater's figures per phase and every change.
 
 ``compare(table)`` matches raters by id across the phases of a study, computes per
-phase R_s, test-retest r, severity, rubric misallocation (with a rubric) and r_a (with a
-criterion), and tests each change (every consecutive pair of phases, and first to last):
+phase R_s, test-retest r, severity, the cue shares, rubric misallocation and G with the
+rubric composite (with a rubric), r_a and G (with a criterion), and tests each change
+(every consecutive pair of phases, and first to last):
 
-- R_s and misallocation: independent case bootstraps of each phase (cases resampled
-  within the rater, all raters and resamples solved at once), percentile interval of
-  the difference and the bootstrap test of no change;
+- R_s, misallocation, G with the rubric and the cue shares: independent case bootstraps
+  of each phase (cases resampled within the rater, all raters and resamples solved at
+  once), percentile interval of the difference and the bootstrap test of no change; the
+  change in R_s is read on Wherry's adjusted R_s, which removes R_s's upward bias with few
+  cases, so that phases of unequal size compare;
 - test-retest r and r_a: correlations on different cases, Fisher's z test with Zou's
-  (2007) interval of the difference;
+  (2007) interval of the difference; r_a on the same cases and outcome in both phases,
+  Williams' T2 for dependent correlations (Steiger 1980) with Zou's interval;
 - severity: the difference of two independent normal estimates (the offset is relative
-  to the panel of its phase, so the change is relative to the panel's change).
+  to the panel of its phase, so the change is relative to the panel's change); G with
+  the outcome likewise, with SEs from each phase's BCa interval.
 
+Every change carries the smallest change the design could detect (80% power, 5%
+two-sided) and whether it is comparable when the phases judged different cases.
 Across raters, each arm's changes get a paired t and Wilcoxon's signed-rank test; with a
 control group the training effect is the difference in differences by Welch's t on the
-per-rater changes, with an ANCOVA estimate beside it when the arms started apart.
+per-rater changes, with an ANCOVA estimate beside it, and with three phases or more the
+follow-up effect is the same from the second-to-last to the last phase. The panel's
+agreement, convergence, groups and cue shift between phases are in :mod:`.panel_change`
+and :func:`_panel_extras`.
 """
 
 from __future__ import annotations
