@@ -187,3 +187,20 @@ def test_jobs_do_not_change_the_result(tmp_path):
     one = compare(load_study(files.spec), n_boot=60, jobs=1)
     two = compare(load_study(files.spec), n_boot=60, jobs=2)
     assert json.dumps(one.to_dict(), sort_keys=True) == json.dumps(two.to_dict(), sort_keys=True)
+
+
+def test_without_rubric_or_criterion_the_figures_that_need_them_are_left_out(tmp_path):
+    import re
+
+    files = write_demo(tmp_path / "d")
+    text = re.sub(r"\[rubric\][^\[]*", "", files.spec.read_text())
+    text = text.replace('criterion = "first_year_result"\n', "").replace(
+        "criterion_only_for_selected = true\n", "")
+    files.spec.write_text(text)
+    out = compare(load_study(files.spec), n_boot=50)
+    _valid(out)
+    assert set(out.raters[0].metrics) == {"r", "retest_r", "severity"}
+    assert out.panel["convergence"]["distance_to_rubric"] is None
+    assert all(v["rubric_share"] is None and v["toward_rubric"] is None
+               for v in out.panel["cue_shift"].values())
+    assert out.raters[0].shares  # the shares need no rubric
