@@ -441,7 +441,10 @@ def _print_audit_summary(result, out: Path, no_pdf: bool, key) -> None:
 @click.option("--overwrite", is_flag=True, help="Replace the output folder if it exists.")
 @click.option("--seed", type=int, default=None, help="Resampling seed [default: the spec's seed].")
 @click.option("--no-pdf", "no_pdf", is_flag=True, help="Skip training-report.pdf.")
-def compare(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool) -> None:
+@click.option("--jobs", type=click.IntRange(min=1), default=None,
+              help="Phases resampled at once [default: the cores available]; the result is the same.")
+def compare(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool,
+            jobs: int | None) -> None:
     """Compare phases (before and after a training): each rater's change, and trained against controls."""
     from .data.ingest import load_study
     from .output.folder import OutputFolder
@@ -452,7 +455,7 @@ def compare(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bo
     table = load_study(spec)
     for line in _warning_lines(table.warnings):
         echo(f"warning: {line}", err=True)
-    result = run_compare(table, seed=seed)
+    result = run_compare(table, seed=seed, jobs=jobs)
     write_comparison(result, out, overwrite=overwrite, pdf=not no_pdf)
     n_trained = sum(r.trained for r in result.raters)
     echo(f"Compared {len(result.raters)} raters over phases {', '.join(result.phases)} "
@@ -464,7 +467,7 @@ def compare(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bo
         echo(f"  - {caution}")
     for line in result.summary:
         echo(line)
-    echo(f"Results: {out}/comparison.json; tables in {out}/tables/"
+    echo(f"Results: {out}/comparison.json; tables in {out}/tables/; workbook {out}/comparison.xlsx"
                + ("" if no_pdf else f"; report {out}/training-report.pdf"))
 
 

@@ -105,12 +105,25 @@ def write_audit_files(result: AuditResult, folder: Path, *, pdf: bool = True, jo
         raise write_failure(exc, shown or folder) from None
 
 
+COMPARISON_WORKBOOK = "comparison.xlsx"
 COMPARISON_TABLES = {
     "comparison_changes": "One row per rater, metric and change between phases: values, change, "
                           "interval, p-value and the method behind them.",
     "comparison_values": "One row per rater, metric and phase: the value.",
     "comparison_panel": "One row per metric, arm and change: mean change across raters with the "
                         "paired t (interval, p, d_z) and Wilcoxon's signed-rank test.",
+    "comparison_shares": "One row per rater, cue and change: the cue's share of the rater's "
+                         "weights in each phase and its change with interval.",
+    "comparison_panel_figures": "One row per panel figure (ICC, alpha, spread of weight profiles, "
+                                "distance to the rubric), arm and change.",
+    "comparison_effects": "Trained against controls (difference in differences, ANCOVA), the "
+                          "follow-up effect, and the smallest change the design could detect.",
+}
+COMPARISON_COLUMN_NOTES = {
+    "detectable": "Smallest change this design could detect (80% power, 5% two-sided).",
+    "detectable_per_rater": "Smallest change of one typical rater the design could detect.",
+    "comparable": "False when the phases used different cases and the figure is not corrected for it.",
+    "note": "Why a figure is not comparable, in plain words.",
 }
 
 
@@ -118,12 +131,18 @@ def write_comparison(result, out: str | Path, *, overwrite: bool = False, pdf: b
     """Write comparison.json, its tidy tables and (``pdf``) training-report.pdf; the folder
     appears whole or not at all."""
     out = Path(out)
+    from .output.workbook import workbook_bytes
+
     frames = {"comparison_changes": result.to_frame(), "comparison_values": result.values_frame(),
-              "comparison_panel": result.panel_frame()}
+              "comparison_panel": result.panel_frame(), "comparison_shares": result.shares_frame(),
+              "comparison_panel_figures": result.panel_figures_frame(),
+              "comparison_effects": result.effects_frame()}
     with OutputFolder(out, overwrite=overwrite) as tmp:
         atomic_write_text(tmp / "comparison.json", dump_json(result.to_dict()))
         for name, frame in frames.items():
             atomic_write_bytes(tmp / "tables" / f"{name}.csv", csv_bytes(frame))
+        atomic_write_bytes(tmp / COMPARISON_WORKBOOK,
+                           workbook_bytes(frames, COMPARISON_TABLES, column_notes=COMPARISON_COLUMN_NOTES))
         if pdf:
             from .report.training import TRAINING_FILE, training_pdf
 

@@ -1,20 +1,30 @@
 """Before and after a training: each rater's figures per phase and every change.
 
 ``compare(table)`` matches raters by id across the phases of a study, computes per
-phase R_s, test-retest r, severity, rubric misallocation (with a rubric) and r_a (with a
-criterion), and tests each change (every consecutive pair of phases, and first to last):
+phase R_s, test-retest r, severity, the cue shares, rubric misallocation and G with the
+rubric composite (with a rubric), r_a and G (with a criterion), and tests each change
+(every consecutive pair of phases, and first to last):
 
-- R_s and misallocation: independent case bootstraps of each phase (cases resampled
-  within the rater, all raters and resamples solved at once), percentile interval of
-  the difference and the bootstrap test of no change;
+- R_s, misallocation, G with the rubric and the cue shares: independent case bootstraps
+  of each phase (cases resampled within the rater, all raters and resamples solved at
+  once), percentile interval of the difference and the bootstrap test of no change; the
+  change in R_s is read on Wherry's adjusted R_s, which removes R_s's upward bias with few
+  cases, so that phases of unequal size compare;
 - test-retest r and r_a: correlations on different cases, Fisher's z test with Zou's
-  (2007) interval of the difference;
+  (2007) interval of the difference; r_a on the same cases and outcome in both phases,
+  Williams' T2 for dependent correlations (Steiger 1980) with Zou's interval;
 - severity: the difference of two independent normal estimates (the offset is relative
-  to the panel of its phase, so the change is relative to the panel's change).
+  to the panel of its phase, so the change is relative to the panel's change); G with
+  the outcome likewise, with SEs from each phase's BCa interval.
 
+Every change carries the smallest change the design could detect (80% power, 5%
+two-sided) and whether it is comparable when the phases judged different cases.
 Across raters, each arm's changes get a paired t and Wilcoxon's signed-rank test; with a
 control group the training effect is the difference in differences by Welch's t on the
-per-rater changes, with an ANCOVA estimate beside it when the arms started apart.
+per-rater changes, with an ANCOVA estimate beside it, and with three phases or more the
+follow-up effect is the same from the second-to-last to the last phase. The panel's
+agreement, convergence, groups and cue shift between phases are in :mod:`.panel_change`
+and :func:`_panel_extras`.
 """
 
 from __future__ import annotations
@@ -24,6 +34,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 from ..agreement.offsets import severity
 from ..data.ingest import JudgmentTable, PhaseData
@@ -31,18 +42,27 @@ from ..data.rules import natural_key
 from ..data.rows import JudgmentRows, line_up, standard_deviations
 from ..lens.rubric import _cue_shares, _validate_rubric
 from ..result_base import ResultMixin, jsonable
+from .panel_change import detectable_change, detectable_correlation_change
 from .tests_of_change import (ancova_difference, bootstrap_difference, fisher_z_difference,
                               normal_difference, paired_tests, welch_difference)
 from .verdicts import annotate
 
 COMPARISON_SCHEMA = "calibrate.comparison/1"
-BOOTSTRAP_METRICS = ("r", "misallocation")
+BOOTSTRAP_METRICS = ("r", "misallocation", "g_rubric")
 # The arms differ at baseline when Welch's t on the first-phase values gives p below this
 # (our own screening level; the ANCOVA estimate is shown beside the Welch one then).
 BASELINE_P = 0.10
 # Case counts of a rater further apart than this between the first and the last phase bias
 # the change in R_s (measured: 85% coverage with 40 against 120 cases; our own cut).
 UNEQUAL_CASES_RATIO = 1.5
+# The training effect is comparable across phases with different cases when, in each
+# phase, the two arms judged largely the same cases (this share in common, Jaccard; our own
+# cut): what the cases do to the figures then falls on both arms alike and the difference
+# in differences takes it out.
+ARMS_SHARED_CASES = 0.8
+# Simulated panels behind the panel figures' intervals (agreement) and the grouping's
+# number-of-groups test: the audit's own default for agreement.
+PANEL_BOOT = 500
 
 
 @dataclass(frozen=True)
@@ -56,11 +76,15 @@ class Change(ResultMixin):
     ci_high: float
     p_value: float
     method: str
+    detectable: float = math.nan  # smallest change this design detects (80% power, 5% two-sided)
+    comparable: bool = True  # False: different cases in each phase, figure not corrected
+    note: str | None = None  # the plain-words reason when not comparable
 
     def to_dict(self) -> dict:
         return jsonable({"from": self.from_phase, "to": self.to_phase, "delta": self.delta,
                          "ci_low": self.ci_low, "ci_high": self.ci_high, "p_value": self.p_value,
-                         "method": self.method})
+                         "method": self.method, "detectable": self.detectable,
+                         "comparable": self.comparable, "note": self.note})
 
 
 @dataclass(frozen=True)
@@ -71,6 +95,7 @@ class RaterComparison(ResultMixin):
     trained: bool
     metrics: dict
     verdicts: dict = field(default_factory=dict)  # metric -> change_word of first to last
+    shares: dict = field(default_factory=dict)  # cue -> {"values": {phase: share}, "changes": [...]}
 
 
 @dataclass(frozen=True)
@@ -122,6 +147,47 @@ class ComparisonResult(ResultMixin):
                              for name, arms in self.panel["metrics"].items()
                              for arm, block in arms.items() for ch in block["changes"]])
 
+    def shares_frame(self) -> pd.DataFrame:
+        """Tidy: one row per rater x cue x change of the cue shares."""
+        return pd.DataFrame([{"rater": r.rater, "trained": r.trained, "cue": cue,
+                              "value_from": block["values"].get(ch.from_phase),
+                              "value_to": block["values"].get(ch.to_phase), **ch.to_dict()}
+                             for r in self.raters for cue, block in r.shares.items()
+                             for ch in block["changes"]])
+
+    def panel_figures_frame(self) -> pd.DataFrame:
+        """Tidy: one row per panel figure (ICC, alpha, spread of weight profiles, distance
+        to the rubric) x arm x change."""
+        records = []
+        agreement = self.panel.get("agreement") or {}
+        for name in ("icc", "alpha"):
+            block = agreement.get(name)
+            for ch in (block or {}).get("changes", []):
+                records.append({"figure": name, "arm": "all",
+                                "value_from": block["values"].get(ch["from"]),
+                                "value_to": block["values"].get(ch["to"]), **ch})
+        for name, arms in (self.panel.get("convergence") or {}).items():
+            for arm, block in (arms or {}).items():
+                for ch in block["changes"]:
+                    records.append({"figure": name, "arm": arm,
+                                    "value_from": block["values"].get(ch["from"]),
+                                    "value_to": block["values"].get(ch["to"]), **ch})
+        return pd.DataFrame(records)
+
+    def effects_frame(self) -> pd.DataFrame:
+        """Tidy: one row per metric of the training effect (and the follow-up effect),
+        with the detectable change beside it."""
+        records = []
+        for which in ("training_effect", "follow_up_effect"):
+            for name, e in (self.panel.get(which) or {}).items():
+                flat = {k: v for k, v in e.items() if k != "ancova"}
+                records.append({"effect": which, "metric": name, **flat,
+                                **{f"ancova_{k}": v for k, v in (e.get("ancova") or {}).items()}})
+        for name, d in (self.panel.get("detectable") or {}).items():
+            records.append({"effect": "detectable", "metric": name,
+                            "detectable_per_rater": d["per_rater"], "detectable": d["panel"]})
+        return pd.DataFrame(records)
+
     def for_rater(self, rater: str) -> RaterComparison:
         for item in self.raters:
             if item.rater == rater:
@@ -140,6 +206,12 @@ class _PhaseFigures:
     counts: dict  # metric -> (G,) sample sizes behind the figure
     draws: dict = field(default_factory=dict)  # metric -> (G, B) bootstrap draws
     se: dict = field(default_factory=dict)  # metric -> (G,) standard errors
+    shares: np.ndarray | None = None  # (G, n_cues) cue shares
+    share_draws: np.ndarray | None = None  # (G, B, n_cues)
+    agreement: dict = field(default_factory=dict)  # "icc"/"alpha" -> (estimate, draws)
+    groups: dict | None = None  # rater -> group label (None: no grouping)
+    criterion_rows: dict | None = None  # rater index -> frame (judgment, criterion) by case
+    cases: frozenset = frozenset()  # the cases judged first in this phase
 
 
 def _fit_first(table: JudgmentTable, ph: PhaseData) -> pd.DataFrame:
@@ -164,14 +236,28 @@ def _resample_counts(sizes: np.ndarray, n_max: int, n_boot: int,
     return np.concatenate([first, counts], axis=1)
 
 
+def wherry_adjusted_r(r: np.ndarray, n: np.ndarray, p: int) -> np.ndarray:
+    """Wherry's (1931) adjusted multiple correlation, sqrt(1 - (1 - R^2)(n - 1)/(n - p - 1)),
+    clipped at zero: R_s read on n cases with p predictors is biased upward, more so with
+    few cases, so a change between phases of unequal size is read on this scale."""
+    r = np.asarray(r, dtype=float)
+    n = np.asarray(n, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        factor = np.where(n > p + 1, (n - 1) / (n - p - 1), np.nan)
+        return np.sqrt(np.clip(1.0 - (1.0 - r ** 2) * factor, 0.0, 1.0))
+
+
 def _policy_draws(rows: JudgmentRows, order: np.ndarray, design, sd: np.ndarray,
                   rubric_share: np.ndarray | None, n_boot: int,
-                  rng: np.random.Generator) -> tuple[dict, np.ndarray]:
-    """R_s (and misallocation) of every rater in ``order`` for the estimate and each resample.
+                  rng: np.random.Generator, *,
+                  column_weight: np.ndarray | None = None) -> tuple[dict, np.ndarray]:
+    """R_s (raw and Wherry-adjusted), cue shares, misallocation and G with the rubric
+    composite of every rater in ``order`` for the estimate (index 0) and each resample.
 
     Weighted least squares with the resample counts as weights, batched over raters and
     resamples through SSCP matrices (never an (rater, resample, case, cue) array): one
-    small solve per (rater, resample).
+    small solve per (rater, resample). ``design`` None skips the shares; ``column_weight``
+    (the rubric composite per design column on the raw scale) gives ``g_rubric``.
     """
     per = rows.rows_of_each_rater()
     sizes = np.array([per[g].size if g >= 0 else 0 for g in order])
@@ -208,11 +294,20 @@ def _policy_draws(rows: JudgmentRows, order: np.ndarray, design, sd: np.ndarray,
     with np.errstate(invalid="ignore", divide="ignore"):
         r2 = np.einsum("gbp,gbp->gb", coef, Sxy) / Syy
     out = {"r": np.sqrt(np.clip(r2, 0.0, 1.0))}
-    if rubric_share is not None:
+    out["r_adjusted"] = wherry_adjusted_r(out["r"], sizes[:, None], p)
+    if design is not None:
         shares = _cue_shares((coef * sd).reshape(-1, p), design)
-        with np.errstate(invalid="ignore"):
-            mis = 0.5 * np.abs(shares - rubric_share).sum(axis=1)
-        out["misallocation"] = mis.reshape(G, n_boot + 1)
+        out["shares"] = shares.reshape(G, n_boot + 1, -1)
+        if rubric_share is not None:
+            with np.errstate(invalid="ignore"):
+                mis = 0.5 * np.abs(shares - rubric_share).sum(axis=1)
+            out["misallocation"] = mis.reshape(G, n_boot + 1)
+    if column_weight is not None:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            cross = np.einsum("gbi,gbij,j->gb", coef, Sxx, column_weight)
+            out["g_rubric"] = cross / np.sqrt(np.einsum("gbi,gbij,gbj->gb", coef, Sxx, coef)
+                                              * np.einsum("i,gbij,j->gb", column_weight, Sxx,
+                                                          column_weight))
     return out, sizes
 
 
@@ -244,28 +339,54 @@ def _correlation_by_rater(frame: pd.DataFrame, raters: tuple[str, ...], a: str,
     return r, n
 
 
+def _rubric_columns(design, rubric_share: np.ndarray, sd: np.ndarray) -> np.ndarray:
+    """The rubric composite per design column on the raw scale, as the audit's g_rubric
+    (categorical cues have no direction and leave the composite)."""
+    column_weight = np.zeros(design.n_columns)
+    for cue, share, cols in zip(design.cues, rubric_share, design.cue_groups()):
+        if share == 0 or not cols or design.kinds.get(cue) == "categorical":
+            continue
+        with np.errstate(invalid="ignore", divide="ignore"):
+            column_weight[cols[0]] = share / sd[cols[0]]
+    return column_weight
+
+
 def _phase_figures(table: JudgmentTable, ph: PhaseData, raters: tuple[str, ...], *,
-                   rubric_share, n_boot: int, rng: np.random.Generator) -> _PhaseFigures:
+                   rubric_share, n_boot: int, rng: np.random.Generator,
+                   panel_boot: int = 0) -> _PhaseFigures:
+    from ..lens.model import lens_model
+    from ..panel import group_raters
+    from .panel_change import agreement_draws
+
     spec, design = table.spec, table.phase_design(ph)  # the phase's own fill values, as in the audit
     scale = spec.judgment
+    streams = rng.spawn(4)  # cases, lens, agreement, grouping: each its own stream
     first = _fit_first(table, ph)
     values: dict = {}
     counts: dict = {}
     draws: dict = {}
     se: dict = {}
     G = len(raters)
+    shares = share_draws = None
+    names = ("r", "r_adjusted") + (("misallocation", "g_rubric") if rubric_share is not None else ())
     if len(first):
         rows = line_up(design, first)
         index = {name: i for i, name in enumerate(rows.raters)}
         order = np.array([index.get(name, -1) for name in raters], dtype=np.intp)
         sd = standard_deviations(design, rows.design_row)
-        boot, sizes = _policy_draws(rows, order, design, sd, rubric_share, n_boot, rng)
+        basis_sd = sd if spec.rubric_basis == "standardized" else np.ones_like(sd)
+        column_weight = (_rubric_columns(design, rubric_share, sd) if rubric_share is not None
+                         else None)
+        boot, sizes = _policy_draws(rows, order, design, basis_sd, rubric_share, n_boot, streams[0],
+                                    column_weight=column_weight)
+        all_shares = boot.pop("shares")
+        shares, share_draws = all_shares[:, 0], all_shares[:, 1:]
         for name, arr in boot.items():
             values[name] = arr[:, 0]
             draws[name] = arr[:, 1:]
             counts[name] = sizes
     else:
-        for name in ("r",) + (("misallocation",) if rubric_share is not None else ()):
+        for name in names:
             values[name] = np.full(G, np.nan)
             draws[name] = np.full((G, n_boot), np.nan)
             counts[name] = np.zeros(G, dtype=int)
@@ -286,7 +407,42 @@ def _phase_figures(table: JudgmentTable, ph: PhaseData, raters: tuple[str, ...],
         crit = table.criterion
         with_crit = first.assign(criterion=first["case"].map(crit))
         values["r_a"], counts["r_a"] = _correlation_by_rater(with_crit, raters, "judgment", "criterion")
-    return _PhaseFigures(values=values, counts=counts, draws=draws, se=se)
+        known = with_crit.dropna(subset=["criterion"])
+        position = {name: i for i, name in enumerate(raters)}
+        criterion_rows = {position[name]: part.set_index("case")[["judgment", "criterion"]]
+                          for name, part in known.groupby("rater") if name in position}
+        values["g"] = np.full(G, np.nan)
+        se["g"] = np.full(G, np.nan)
+        counts["g"] = np.zeros(G, dtype=int)
+        if len(first) and with_crit["criterion"].notna().any():
+            lens = lens_model(design, first, crit, criterion_selected=spec.criterion_only_for_selected,
+                              rubric=spec.rubric, n_boot=max(panel_boot, 0), rng=streams[1])
+            by_name = {item.rater: item for item in lens.raters}
+            # The SE of G from the width of its BCa case-bootstrap interval (width / 3.92).
+            q2 = 2 * float(stats.norm.ppf(0.975))
+            for i, name in enumerate(raters):
+                if name in by_name:
+                    item = by_name[name]
+                    values["g"][i] = item.g
+                    se["g"][i] = (item.g_ci_high - item.g_ci_low) / q2
+                    counts["g"][i] = item.n
+    matched_first = all_first.loc[all_first["rater"].isin(raters)]
+    agreement = {}
+    if panel_boot > 0 and matched_first["rater"].nunique() >= 2:
+        agreement = agreement_draws(matched_first, scale=scale.kind, scale_min=scale.min,
+                                    scale_max=scale.max, n_boot=panel_boot, rng=streams[2])
+    groups = None
+    if table.criterion is None:
+        criterion_rows = None
+    fit_matched = first.loc[first["rater"].isin(raters)]
+    if panel_boot > 0 and fit_matched["rater"].nunique() >= 3:
+        grouping = group_raters(design, fit_matched, rng=streams[3], n_resamples=0,
+                                n_null=min(panel_boot, 100))
+        groups = {name: grouping.rater_group.get(name) for name in raters}
+    return _PhaseFigures(values=values, counts=counts, draws=draws, se=se, shares=shares,
+                         share_draws=share_draws, agreement=agreement, groups=groups,
+                         criterion_rows=criterion_rows,
+                         cases=frozenset(ph.first["case"]))
 
 
 # ----------------------------------------------------------------------------- changes
@@ -300,44 +456,151 @@ def phase_pairs(phases: tuple[str, ...]) -> list[tuple[int, int]]:
     return pairs
 
 
+# Figures whose change is comparable when the phases judged different cases: R_s is read
+# on Wherry's adjusted scale (its upward bias with few cases removed) and severity is an
+# offset from the panel of its own phase, on that phase's cases.
+CORRECTED_FOR_CASES = ("r", "severity")
+DIFFERENT_CASES_NOTE = {
+    "weights": "different cases in each phase: noise in the weights, larger with fewer cases, "
+               "moves this figure; not corrected",
+    "correlation": "different cases in each phase: a correlation depends on how spread out the "
+                   "cases are; not corrected",
+}
+WEIGHT_FIGURES = ("misallocation", "g_rubric", "shares", "pairwise_distance", "distance_to_rubric",
+                  "icc", "alpha")
+
+
+def comparability(metric: str, same_cases: bool) -> tuple[bool, str | None]:
+    """(comparable, note) of a change of ``metric`` between two phases."""
+    if same_cases or metric in CORRECTED_FOR_CASES:
+        return True, None
+    if metric in ("icc", "alpha"):
+        return False, "different cases in each phase: panel agreement on different case sets"
+    kind = "weights" if metric in WEIGHT_FIGURES else "correlation"
+    return False, DIFFERENT_CASES_NOTE[kind]
+
+
+def _same_criterion_cases(fa: _PhaseFigures, fb: _PhaseFigures, i: int):
+    """(y_a, y_b, criterion) of rater i on the cases both phases judged with a known
+    outcome, when the rater judged the same such cases in both; else None."""
+    if fa.criterion_rows is None or fb.criterion_rows is None:
+        return None
+    a, b = fa.criterion_rows.get(i), fb.criterion_rows.get(i)
+    if a is None or b is None or len(a) < 4 or set(a.index) != set(b.index):
+        return None
+    b = b.reindex(a.index)
+    return a["judgment"].to_numpy(float), b["judgment"].to_numpy(float), a["criterion"].to_numpy(float)
+
+
 def _rater_changes(figs: list[_PhaseFigures], phases: tuple[str, ...], name: str,
                    confidence: float) -> list[list[Change]]:
     """Per rater (outer list), the changes of one metric over every phase pair."""
+    from ..lens.model import dependent_correlation_test
+
     G = figs[0].values[name].size
     out: list[list[Change]] = [[] for _ in range(G)]
     for a, b in phase_pairs(phases):
         fa, fb = figs[a], figs[b]
         va, vb = fa.values[name], fb.values[name]
+        delta = vb - va
+        methods = None
+        comparable, note = comparability(name, fa.cases == fb.cases)
         if name in BOOTSTRAP_METRICS:
-            low, high, p = bootstrap_difference(fa.draws[name], fb.draws[name], confidence)
-            rows = [(low[i], high[i], p[i]) for i in range(G)]
-            method = "case bootstrap of each phase, percentile interval"
-        elif name == "severity":
-            rows = [normal_difference(va[i], fa.se[name][i], vb[i], fb.se[name][i], confidence)
-                    for i in range(G)]
-            rows = [(lo, hi, pv) for pv, lo, hi in rows]
-            method = "difference of independent normal estimates"
-        else:
+            # R_s: the change is read on Wherry's adjusted scale (estimates and draws), whose
+            # percentile interval covered the true change where the raw one did not with
+            # unequal case counts (DEVELOPERS.md).
+            key = "r_adjusted" if name == "r" else name
+            low, high, p = bootstrap_difference(fa.draws[key], fb.draws[key], confidence)
+            diff = fb.draws[key] - fa.draws[key]
+            with np.errstate(invalid="ignore"):
+                spread = np.array([np.nanstd(d, ddof=1) if np.isfinite(d).sum() > 2 else np.nan
+                                   for d in diff])
+            rows = [(low[i], high[i], p[i], detectable_change(spread[i])) for i in range(G)]
+            if name == "r":
+                delta = fb.values["r_adjusted"] - fa.values["r_adjusted"]
+                method = ("change in Wherry-adjusted R_s (corrects R_s's upward bias with few cases), "
+                          "case bootstrap of each phase, percentile interval")
+            else:
+                method = "case bootstrap of each phase, percentile interval"
+        elif name in ("severity", "g"):
             rows = []
             for i in range(G):
-                _, pv, lo, hi = fisher_z_difference(va[i], int(fa.counts[name][i]), vb[i],
-                                                    int(fb.counts[name][i]), confidence)
-                rows.append((lo, hi, pv))
-            method = "Fisher z (different cases), Zou interval"
+                pv, lo, hi = normal_difference(va[i], fa.se[name][i], vb[i], fb.se[name][i], confidence)
+                rows.append((lo, hi, pv, detectable_change(math.hypot(fa.se[name][i], fb.se[name][i]))))
+            method = ("difference of independent normal estimates" if name == "severity" else
+                      "difference of independent estimates, SEs from each phase's BCa case "
+                      "bootstrap of G (interval width / 3.92)")
+        else:
+            rows = []
+            methods = []
+            for i in range(G):
+                n1, n2 = int(fa.counts[name][i]), int(fb.counts[name][i])
+                same = _same_criterion_cases(fa, fb, i) if name == "r_a" else None
+                if same is not None:
+                    y_a, y_b, crit = same
+                    r_kh = float(np.corrcoef(y_a, y_b)[0, 1]) if np.ptp(y_a) > 0 and np.ptp(y_b) > 0 \
+                        else math.nan
+                    _, _, pv, lo, hi = dependent_correlation_test(vb[i], va[i], r_kh, y_a.size,
+                                                                  level=confidence)
+                    se_z = math.sqrt(max(2.0 * (1.0 - r_kh), 0.0) / (y_a.size - 3)) \
+                        if math.isfinite(r_kh) else math.nan
+                    methods.append("Williams' T2 for dependent correlations (Steiger 1980), Zou interval")
+                else:
+                    _, pv, lo, hi = fisher_z_difference(va[i], n1, vb[i], n2, confidence)
+                    se_z = math.sqrt(1.0 / (n1 - 3) + 1.0 / (n2 - 3)) if min(n1, n2) > 3 else math.nan
+                    methods.append("Fisher z (different cases), Zou interval")
+                rows.append((lo, hi, pv, detectable_correlation_change(va[i], se_z)))
+            method = None
         for i in range(G):
-            lo, hi, pv = rows[i]
-            out[i].append(Change(phases[a], phases[b], float(vb[i] - va[i]), float(lo), float(hi),
-                                 float(pv), method))
+            lo, hi, pv, det = rows[i]
+            out[i].append(Change(phases[a], phases[b], float(delta[i]), float(lo), float(hi),
+                                 float(pv), methods[i] if methods is not None else method,
+                                 detectable=float(det), comparable=comparable, note=note))
     return out
 
 
+def _arm_effect(arms: dict, name: str, phases: tuple[str, ...], k: int, a: int, b: int,
+                confidence: float, comparable: bool, note: str | None) -> dict:
+    """Trained minus controls on the changes of pair k (phases a -> b): Welch's t on the
+    per-rater changes, and the ANCOVA of the value at b on the value at a and the arm."""
+    def column(members, getter):
+        return np.array([getter(m.metrics[name]) for m in members], dtype=float)
+    d_t = column(arms["trained"], lambda blk: blk["changes"][k].delta)
+    d_c = column(arms["control"], lambda blk: blk["changes"][k].delta)
+    welch = welch_difference(d_t, d_c, confidence)
+    base_t = column(arms["trained"], lambda blk: blk["values"][phases[a]])
+    base_c = column(arms["control"], lambda blk: blk["values"][phases[a]])
+    baseline = welch_difference(base_t, base_c, confidence)
+    apart = bool(np.isfinite(baseline["p_value"]) and baseline["p_value"] < BASELINE_P)
+    direction = BETTER.get(name)
+    started_worse = bool(apart and direction is not None
+                         and np.sign(baseline["estimate"]) == -direction)
+    final = np.concatenate([column(arms["trained"], lambda blk: blk["values"][phases[b]]),
+                            column(arms["control"], lambda blk: blk["values"][phases[b]])])
+    ancova = ancova_difference(np.concatenate([base_t, base_c]), final,
+                               np.r_[np.ones(d_t.size), np.zeros(d_c.size)], confidence)
+    se = ((welch["ci_high"] - welch["ci_low"]) / (2 * stats.t.ppf(0.5 + confidence / 2, welch["df"]))
+          if np.isfinite(welch["df"]) else math.nan)
+    return {"from": phases[a], "to": phases[b], **welch,
+            "method": "Welch t on the per-rater changes",
+            "baseline_difference": baseline["estimate"], "baseline_p": baseline["p_value"],
+            "arms_differ_at_baseline": apart, "trained_started_worse": started_worse,
+            "ancova": ancova, "detectable": detectable_change(se, welch["df"]),
+            "comparable": comparable, "note": note}
+
+
 def _panel(raters: list[RaterComparison], phases: tuple[str, ...], metrics: tuple[str, ...],
-           has_control: bool, confidence: float) -> dict:
+           has_control: bool, confidence: float, case_sets: list | None = None,
+           arms_alike: list[bool] | None = None) -> dict:
     arms = {"trained": [r for r in raters if r.trained]}
     if has_control:
         arms["control"] = [r for r in raters if not r.trained]
+    pairs = phase_pairs(phases)
+    same = [case_sets is None or case_sets[a] == case_sets[b] for a, b in pairs]
+    arms_alike = arms_alike or [False] * len(phases)
     panel_metrics: dict = {}
     effects: dict | None = {} if has_control else None
+    follow: dict | None = {} if has_control and len(phases) > 2 else None
     for name in metrics:
         panel_metrics[name] = {}
         for arm, members in arms.items():
@@ -345,45 +608,187 @@ def _panel(raters: list[RaterComparison], phases: tuple[str, ...], metrics: tupl
                     if any(np.isfinite(m.metrics[name]["values"][ph]) for m in members) else math.nan
                     for ph in phases}
             changes = []
-            for k, (a, b) in enumerate(phase_pairs(phases)):
+            for k, (a, b) in enumerate(pairs):
                 deltas = np.array([m.metrics[name]["changes"][k].delta for m in members])
                 test = paired_tests(deltas, confidence)
+                comparable, note = comparability(name, same[k])
+                se = (test["ci_high"] - test["ci_low"]) / (2 * stats.t.ppf(0.5 + confidence / 2, test["df"])) \
+                    if np.isfinite(test["df"]) and np.isfinite(test["ci_low"]) else math.nan
                 changes.append({"from": phases[a], "to": phases[b], "delta": test["mean_delta"],
                                 "ci_low": test["ci_low"], "ci_high": test["ci_high"],
-                                "p_value": test["p_value"], **{key: test[key] for key in
-                                ("n", "t", "df", "effect_size_dz", "wilcoxon_statistic", "wilcoxon_p")}})
+                                "p_value": test["p_value"],
+                                "method": "paired t on the per-rater changes; Wilcoxon signed-rank beside",
+                                "detectable": detectable_change(se, test["df"]),
+                                "comparable": comparable, "note": note,
+                                **{key: test[key] for key in
+                                   ("n", "t", "df", "effect_size_dz", "wilcoxon_statistic", "wilcoxon_p")}})
             panel_metrics[name][arm] = {"values": vals, "changes": changes}
+        # The difference in differences takes out what a phase's cases do to both arms alike,
+        # so it is comparable when, in each phase, the two arms judged the same cases.
         if effects is not None:
-            last = len(phase_pairs(phases)) - 1
-            def column(members, getter):
-                return np.array([getter(m.metrics[name]) for m in members], dtype=float)
-            d_t = column(arms["trained"], lambda b: b["changes"][last].delta)
-            d_c = column(arms["control"], lambda b: b["changes"][last].delta)
-            welch = welch_difference(d_t, d_c, confidence)
-            base_t = column(arms["trained"], lambda b: b["values"][phases[0]])
-            base_c = column(arms["control"], lambda b: b["values"][phases[0]])
-            baseline = welch_difference(base_t, base_c, confidence)
-            apart = bool(np.isfinite(baseline["p_value"]) and baseline["p_value"] < BASELINE_P)
-            final = np.concatenate([column(arms["trained"], lambda b: b["values"][phases[-1]]),
-                                    column(arms["control"], lambda b: b["values"][phases[-1]])])
-            ancova = ancova_difference(np.concatenate([base_t, base_c]), final,
-                                       np.r_[np.ones(d_t.size), np.zeros(d_c.size)], confidence)
-            effects[name] = {"from": phases[0], "to": phases[-1], **welch,
-                             "method": "Welch t on the per-rater changes",
-                             "baseline_difference": baseline["estimate"],
-                             "baseline_p": baseline["p_value"], "arms_differ_at_baseline": apart,
-                             "ancova": ancova}
-    return {"metrics": panel_metrics, "training_effect": effects}
+            last = len(pairs) - 1
+            effects[name] = _arm_effect(arms, name, phases, last, 0, len(phases) - 1, confidence,
+                                        *comparability(name, same[last] or arms_alike[0] and arms_alike[-1]))
+        if follow is not None:
+            k = len(phases) - 2  # the last consecutive pair: end of training to follow-up
+            follow[name] = _arm_effect(arms, name, phases, k, k, k + 1, confidence,
+                                       *comparability(name, same[k] or arms_alike[k] and arms_alike[k + 1]))
+    out = {"metrics": panel_metrics, "training_effect": effects}
+    if len(phases) > 2:
+        out["follow_up_effect"] = follow
+    return out
+
+
+def _figure_block(points: list[float], draws: list[np.ndarray], phases: tuple[str, ...], metric: str,
+                  same_cases: list[bool], confidence: float, method: str) -> dict:
+    """{values{PHASE}, changes[...]} of a panel figure with independent draws per phase."""
+    from .panel_change import draw_change
+
+    changes = []
+    for k, (a, b) in enumerate(phase_pairs(phases)):
+        comparable, note = comparability(metric, same_cases[k])
+        changes.append({"from": phases[a], "to": phases[b],
+                        **draw_change(points[a], draws[a], points[b], draws[b], confidence),
+                        "method": method, "comparable": comparable, "note": note})
+    return {"values": {ph: points[i] for i, ph in enumerate(phases)}, "changes": changes}
+
+
+def _panel_extras(figs: list[_PhaseFigures], phases: tuple[str, ...], trained: np.ndarray,
+                  has_control: bool, rubric_share, cues: tuple[str, ...], raters: list,
+                  confidence: float) -> dict:
+    """panel.agreement, convergence, groups, cue_shift and detectable."""
+    from ..panel import adjusted_rand_index
+    from .panel_change import distance_to_rubric, pairwise_distance
+
+    pairs = phase_pairs(phases)
+    same = [figs[a].cases == figs[b].cases for a, b in pairs]
+    out: dict = {}
+    # Agreement across the matched raters, each phase on its own cases.
+    if all(f.agreement for f in figs):
+        out["agreement"] = {
+            key: _figure_block([f.agreement[key][0] for f in figs], [f.agreement[key][1] for f in figs],
+                               phases, key, same, confidence,
+                               ("ICC(A,1)" if key == "icc" else "Krippendorff's alpha")
+                               + ": parametric bootstrap of the crossed random-effects model in each "
+                               "phase, percentile interval of the difference")
+            for key in ("icc", "alpha")}
+        out["agreement"]["same_cases"] = bool(all(same))
+    else:
+        out["agreement"] = None
+    # Convergence of the weight profiles, per arm.
+    arms = {"trained": trained, "control": ~trained} if has_control else {"all": np.ones_like(trained)}
+    have_shares = all(f.shares is not None for f in figs)
+    convergence: dict = {"pairwise_distance": None, "distance_to_rubric": None}
+    if have_shares:
+        # Measured: these intervals held the true change in 89-91% of simulated pairs of
+        # phases (noise in the weights inflates both figures; benchmarks/bench_training_panel.py).
+        method = ("cue shares of each rater, cases resampled within each rater, percentile interval "
+                  "of the difference (rough: in simulations it held the true change about 9 times "
+                  "in 10, not 19 in 20)")
+        convergence["pairwise_distance"] = {
+            arm: _figure_block([float(pairwise_distance(f.shares[mask])) for f in figs],
+                               [pairwise_distance(f.share_draws[mask]) for f in figs],
+                               phases, "pairwise_distance", same, confidence,
+                               "mean over pairs of raters of half the summed share differences; " + method)
+            for arm, mask in arms.items()}
+        if rubric_share is not None:
+            convergence["distance_to_rubric"] = {
+                arm: _figure_block([float(distance_to_rubric(f.shares[mask], rubric_share)) for f in figs],
+                                   [distance_to_rubric(f.share_draws[mask], rubric_share) for f in figs],
+                                   phases, "distance_to_rubric", same, confidence,
+                                   "mean misallocation of the arm's raters; " + method)
+                for arm, mask in arms.items()}
+    out["convergence"] = convergence
+    # Groups of shared policy in each phase (the audit's grouping), and whether they merged.
+    if all(f.groups is not None for f in figs):
+        names = [r.rater for r in raters]
+        counts = {ph: len({g for g in f.groups.values() if g is not None}) for ph, f in zip(phases, figs)}
+        merged = []
+        for a, b in pairs:
+            both = [n for n in names if figs[a].groups.get(n) is not None and figs[b].groups.get(n) is not None]
+            ari = (adjusted_rand_index([figs[a].groups[n] for n in both], [figs[b].groups[n] for n in both])
+                   if len(both) >= 2 else math.nan)
+            merged.append({"from": phases[a], "to": phases[b],
+                           "merged": bool(counts[phases[b]] < counts[phases[a]]),
+                           "adjusted_rand": ari})
+        out["groups"] = {"values": counts, "merged": merged}
+    else:
+        out["groups"] = None
+    # Mean share per cue, arm and phase; toward the rubric only when the trained arm's
+    # paired interval of the change in |share - rubric share| (first to last) excludes zero.
+    cue_shift: dict = {}
+    if have_shares:
+        for c, cue in enumerate(cues):
+            entry: dict = {"rubric_share": float(rubric_share[c]) if rubric_share is not None else None}
+            for arm, mask in (("trained", trained), ("control", ~trained)):
+                if arm == "control" and not has_control:
+                    entry[arm] = None
+                    continue
+                entry[arm] = {"values": {ph: float(np.nanmean(f.shares[mask, c])) if mask.any() else math.nan
+                                         for ph, f in zip(phases, figs)}}
+            toward = None
+            if rubric_share is not None:
+                gap = [np.abs(f.shares[trained, c] - rubric_share[c]) for f in (figs[0], figs[-1])]
+                test = paired_tests(gap[1] - gap[0], confidence)
+                if np.isfinite(test["ci_high"]) and test["ci_high"] < 0:
+                    toward = True
+                elif np.isfinite(test["ci_low"]) and test["ci_low"] > 0:
+                    toward = False
+            entry["toward_rubric"] = toward
+            cue_shift[cue] = entry
+    out["cue_shift"] = cue_shift
+    return out
+
+
+def _panel_detectable(raters: list, panel: dict, metrics: tuple[str, ...], has_control: bool) -> dict:
+    """Per metric: the median detectable first-to-last change over raters, and the
+    detectable training effect (or, without controls, the detectable mean change)."""
+    out = {}
+    for name in metrics:
+        per = np.array([r.metrics[name]["changes"][-1].detectable for r in raters], dtype=float)
+        per_rater = float(np.nanmedian(per)) if np.isfinite(per).any() else math.nan
+        if has_control:
+            whole = panel["training_effect"][name]["detectable"]
+        else:
+            whole = panel["metrics"][name]["trained"]["changes"][-1]["detectable"]
+        out[name] = {"per_rater": per_rater, "panel": whole}
+    return out
+
+
+def _share_blocks(figs: list[_PhaseFigures], phases: tuple[str, ...], cues: tuple[str, ...],
+                  i: int, confidence: float) -> dict:
+    """One rater's {CUE: {values{PHASE}, changes[...]}} of cue shares."""
+    if any(f.shares is None for f in figs):
+        return {}
+    blocks = {}
+    for c, cue in enumerate(cues):
+        changes = []
+        for a, b in phase_pairs(phases):
+            da, db = figs[a].share_draws[i:i + 1, :, c], figs[b].share_draws[i:i + 1, :, c]
+            low, high, p = bootstrap_difference(da, db, confidence)
+            diff = (db - da)[0]
+            se = float(np.nanstd(diff, ddof=1)) if np.isfinite(diff).sum() > 2 else math.nan
+            comparable, note = comparability("shares", figs[a].cases == figs[b].cases)
+            changes.append(Change(phases[a], phases[b],
+                                  float(figs[b].shares[i, c] - figs[a].shares[i, c]),
+                                  float(low[0]), float(high[0]), float(p[0]),
+                                  "case bootstrap of each phase, percentile interval",
+                                  detectable=detectable_change(se), comparable=comparable, note=note))
+        blocks[cue] = {"values": {ph: float(f.shares[i, c]) for ph, f in zip(phases, figs)},
+                       "changes": changes}
+    return blocks
 
 
 # ----------------------------------------------------------------------------- words
 
 # Which way is better for each metric (severity has no better direction: it is relative
 # to the panel).
-BETTER = {"r": 1, "retest_r": 1, "r_a": 1, "misallocation": -1}
+BETTER = {"r": 1, "retest_r": 1, "r_a": 1, "misallocation": -1, "g_rubric": 1, "g": 1}
 METRIC_WORDS = {"r": "consistency (R_s)", "retest_r": "test-retest agreement",
                 "misallocation": "closeness to the rubric's weights",
-                "severity": "severity offset", "r_a": "accuracy against the outcome (r_a)"}
+                "severity": "severity offset", "r_a": "accuracy against the outcome (r_a)",
+                "g_rubric": "how well their policy matches the rubric's ordering (G with the rubric)",
+                "g": "how well their policy matches the outcome's (G)"}
 
 
 def change_word(metric: str, ci_low: float, ci_high: float) -> str:
@@ -441,11 +846,21 @@ def comparison_summary(phases: tuple[str, ...], panel: dict, has_control: bool) 
         last_change = len(phase_pairs(phases)) - 1
         words = {m: change_word(m, arm[m]["trained"]["changes"][last_change]["ci_low"],
                                 arm[m]["trained"]["changes"][last_change]["ci_high"]) for m in metrics}
-        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better"]
+        # A figure not corrected for different cases in the two phases is named apart: its
+        # change may be the cases' (there is no control group to take that out).
+        uncorrected = {m for m in metrics
+                       if not arm[m]["trained"]["changes"][last_change].get("comparable", True)}
+        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better" and m not in uncorrected]
+        unsure = [METRIC_WORDS[m] for m in metrics if words[m] == "better" and m in uncorrected]
         lines.append(f"From {first} to {last} the raters improved on {_listing(better)}, but with no "
                      "control group this cannot be credited to the training alone."
                      if better else f"From {first} to {last} the raters did not improve clearly on any "
-                     "measure.")
+                     "measure that is comparable across the phases." if unsure else
+                     f"From {first} to {last} the raters did not improve clearly on any measure.")
+        if unsure:
+            lines.append(f"They also read better on {_listing(unsure)}, but the phases judged "
+                         "different cases and these figures are not corrected for that, so the "
+                         "change may be the cases'.")
     if len(phases) > 2:
         k = len(phases) - 2  # the last consecutive change: end of training to follow-up
         faded = [METRIC_WORDS[m] for m in metrics
@@ -459,21 +874,28 @@ def comparison_summary(phases: tuple[str, ...], panel: dict, has_control: bool) 
 
 
 def comparison_cautions(*, has_control: bool, same_cases: bool, apart_metrics: list[str],
-                        n_trained: int, n_control: int, unequal_cases: int = 0) -> tuple[str, ...]:
+                        n_trained: int, n_control: int, unequal_cases: int = 0,
+                        started_worse: list[str] | None = None) -> tuple[str, ...]:
     """The plain-words cautions of a comparison (reports print these, never their own)."""
     notes = []
     if unequal_cases:
         notes.append(f"For {unequal_cases} rater(s) the number of cases differs by more than half "
-                     "between phases: R_s and misallocation read higher with fewer cases, so their "
-                     "change is partly the change in the number of cases (in simulations the interval "
-                     "of a change in R_s held the true change about 85% of the time instead of 95% with "
-                     "40 against 120 cases).")
+                     "between phases: R_s reads higher with fewer cases, so its change is read on "
+                     "the adjusted R_s, which removes that bias; misallocation and the cue shares "
+                     "are not corrected, and part of their change may be the change in the number "
+                     "of cases.")
     if not has_control:
         notes.append("There is no control group: a change cannot be credited to the training alone; "
                      "practice, different cases and regression to the mean can move the figures too.")
     if not same_cases:
-        notes.append("The phases judged different cases: panel figures compare different case sets, "
-                     "so the verdict rests on each rater's own figures, which are comparable.")
+        notes.append("The phases judged different cases: panel figures (agreement, the spread of "
+                     "weight profiles) compare different case sets, so the verdict rests on each "
+                     "rater's own changes; a figure not corrected for the different cases is marked "
+                     "so beside it.")
+    if started_worse:
+        notes.append("The trained raters started worse than the controls on "
+                     f"{_listing(started_worse)}: part of their gain there may be regression to the "
+                     "mean (a rater who started low tends to read higher the next time by chance).")
     if apart_metrics:
         notes.append("The trained raters started apart from the controls on "
                      f"{', '.join(apart_metrics)}: part of their change may be regression to the mean; "
@@ -489,8 +911,29 @@ def comparison_cautions(*, has_control: bool, same_cases: bool, apart_metrics: l
 # ----------------------------------------------------------------------------- entry point
 
 
+def _jaccard(a: frozenset, b: frozenset) -> float:
+    return len(a & b) / len(a | b) if a | b else 0.0
+
+
+def _cases_of(table: JudgmentTable, phase: str, raters: list[str]) -> frozenset:
+    """The cases that these raters judged first in a phase."""
+    first = table.phase(phase).first
+    return frozenset(first.loc[first["rater"].isin(raters), "case"])
+
+
+def available_cores() -> int:
+    """Cores this process may use (the affinity mask where the system has one)."""
+    import os
+
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not every system has affinity masks
+        return max(1, os.cpu_count() or 1)
+
+
 def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000,
-            confidence: float = 0.95, rng: np.random.Generator | None = None) -> ComparisonResult:
+            confidence: float = 0.95, rng: np.random.Generator | None = None,
+            jobs: int | None = None) -> ComparisonResult:
     """Compare each rater, and the panel, across the phases of a study.
 
     Parameters
@@ -499,6 +942,8 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
     seed : seed of the case bootstraps (default: the spec's seed); ``rng`` overrides it.
     n_boot : case resamples per phase.
     confidence : level of every interval.
+    jobs : phases computed at once (threads; default: the cores available). The result
+        does not depend on it.
     """
     from ..errors import SpecError
 
@@ -520,11 +965,26 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
     rubric_share = (_validate_rubric(table.design, spec.rubric, spec.rubric_basis)
                     if spec.rubric else None)
     streams = generator.spawn(len(phases))
-    figs = [_phase_figures(table, table.phase(ph), matched, rubric_share=rubric_share,
-                           n_boot=n_boot, rng=streams[k]) for k, ph in enumerate(phases)]
-    metrics = tuple(m for m in ("r", "retest_r", "misallocation", "severity", "r_a")
+    panel_boot = min(n_boot, PANEL_BOOT)
+
+    def figures(k: int) -> _PhaseFigures:
+        return _phase_figures(table, table.phase(phases[k]), matched, rubric_share=rubric_share,
+                              n_boot=n_boot, rng=streams[k], panel_boot=panel_boot)
+
+    workers = max(1, min(int(jobs) if jobs else available_cores(), len(phases)))
+    if workers > 1:
+        # Each phase has its own random stream, so the result does not depend on the order
+        # in which the phases finish; numpy's solves release the GIL.
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            figs = list(pool.map(figures, range(len(phases))))
+    else:
+        figs = [figures(k) for k in range(len(phases))]
+    metrics = tuple(m for m in ("r", "retest_r", "misallocation", "g_rubric", "severity", "r_a", "g")
                     if m in figs[0].values)
     per_metric = {m: _rater_changes(figs, phases, m, confidence) for m in metrics}
+    cues = tuple(table.design.cues)
     raters = []
     for i, name in enumerate(matched):
         blocks = {m: {"values": {ph: float(figs[k].values[m][i]) for k, ph in enumerate(phases)},
@@ -532,12 +992,23 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
         verdicts = {m: change_word(m, blocks[m]["changes"][-1].ci_low, blocks[m]["changes"][-1].ci_high)
                     for m in metrics}
         raters.append(RaterComparison(rater=name, trained=name in trained, metrics=blocks,
-                                      verdicts=verdicts))
-    panel = _panel(raters, phases, metrics, has_control, confidence)
-    case_sets = [set(table.phase(ph).first["case"]) for ph in phases]
+                                      verdicts=verdicts,
+                                      shares=_share_blocks(figs, phases, cues, i, confidence)))
+    case_sets = [f.cases for f in figs]
+    trained_names = [r.rater for r in raters if r.trained]
+    control_names = [r.rater for r in raters if not r.trained]
+    arms_alike = [bool(has_control) and _jaccard(_cases_of(table, ph, trained_names),
+                                                 _cases_of(table, ph, control_names)) >= ARMS_SHARED_CASES
+                  for ph in phases]
+    panel = _panel(raters, phases, metrics, has_control, confidence, case_sets, arms_alike)
+    trained_mask = np.array([r.trained for r in raters], dtype=bool)
+    panel.update(_panel_extras(figs, phases, trained_mask, has_control, rubric_share, cues, raters,
+                               confidence))
+    panel["detectable"] = _panel_detectable(raters, panel, metrics, has_control)
     same_cases = all(s == case_sets[0] for s in case_sets[1:])
     effects = panel["training_effect"] or {}
     apart = [m for m, e in effects.items() if e["arms_differ_at_baseline"]]
+    started_worse = [METRIC_WORDS[m] for m, e in effects.items() if e.get("trained_started_worse")]
     n_tr = sum(r.trained for r in raters)
     n_first, n_last = figs[0].counts["r"], figs[-1].counts["r"]
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -545,7 +1016,7 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
     unequal = int(np.sum(np.isfinite(ratio) & (ratio > UNEQUAL_CASES_RATIO)))
     cautions = comparison_cautions(has_control=has_control, same_cases=same_cases,
                                    apart_metrics=apart, n_trained=n_tr, n_control=len(raters) - n_tr,
-                                   unequal_cases=unequal)
+                                   unequal_cases=unequal, started_worse=started_worse)
     return ComparisonResult(phases=phases, seed=seed, has_control=has_control, raters=tuple(raters),
                             unmatched=unmatched, panel=panel, cautions=cautions, n_boot=n_boot,
                             summary=comparison_summary(phases, panel, has_control),

@@ -32,9 +32,10 @@ def test_compare_writes_valid_json_and_tables_and_same_bytes(demo_folder, tmp_pa
     assert again.returncode == 0, again.stderr
     assert json.loads((tmp_path / "a" / "comparison.json").read_text()) == doc
     assert not (tmp_path / "a" / "training-report.pdf").exists()  # --no-pdf
-    again = run("compare", spec, "--out", tmp_path / "a", "--seed", 7, "--overwrite")
-    run("compare", spec, "--out", tmp_path / "b", "--seed", 7)
-    for name in ("comparison.json", "tables/comparison_changes.csv", "tables/comparison_panel.csv"):
+    # Same seed, same bytes, whatever --jobs (compare runs the two phases in threads).
+    run("compare", spec, "--out", tmp_path / "b", "--seed", 7, "--no-pdf", "--jobs", 1)
+    for name in ("comparison.json", "comparison.xlsx", "tables/comparison_changes.csv",
+                 "tables/comparison_panel.csv", "tables/comparison_effects.csv"):
         assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes()
 
 

@@ -11,6 +11,14 @@ from calibrate.data.demo import REVIEWERS
 from calibrate.training import compare
 
 
+def _valid(out):
+    import jsonschema
+
+    from calibrate.output.tables import comparison_schema
+
+    jsonschema.validate(json.loads(json.dumps(out.to_dict())), comparison_schema())
+
+
 @pytest.fixture(scope="module")
 def result(tmp_path_factory):
     files = write_demo(tmp_path_factory.mktemp("demo"))
@@ -49,11 +57,12 @@ def test_cautions_say_the_cases_differ(result):
     assert any("different cases" in c for c in result.cautions)
     assert not any("no control group" in c for c in result.cautions)
     frame = result.to_frame()
-    assert set(frame["metric"]) == {"r", "retest_r", "misallocation", "severity", "r_a"}
+    assert set(frame["metric"]) == {"r", "retest_r", "misallocation", "g_rubric", "severity", "r_a", "g"}
     assert np.isfinite(frame["delta"]).all()
 
 
 def test_values_equal_the_audit_functions(result, tmp_path):
+    from calibrate.lens.model import lens_model
     from calibrate.lens.rubric import rubric_alignment
     from calibrate.training.phases import _fit_first
 
@@ -62,9 +71,16 @@ def test_values_equal_the_audit_functions(result, tmp_path):
     for ph in table.phases:
         align = rubric_alignment(table.phase_design(ph), _fit_first(table, ph), table.spec.rubric,
                                  basis=table.spec.rubric_basis)
+        lens = lens_model(table.phase_design(ph), _fit_first(table, ph), table.criterion,
+                          rubric=table.spec.rubric, n_boot=0)
         for r in result.raters:
-            assert r.metrics["misallocation"]["values"][ph.name] == pytest.approx(
-                align.for_rater(r.rater).misallocation, abs=1e-9)
+            mine = align.for_rater(r.rater)
+            assert r.metrics["misallocation"]["values"][ph.name] == pytest.approx(mine.misallocation, abs=1e-9)
+            assert r.metrics["g_rubric"]["values"][ph.name] == pytest.approx(mine.g_rubric, abs=1e-9)
+            assert r.metrics["g"]["values"][ph.name] == pytest.approx(lens.for_rater(r.rater).g, abs=1e-9)
+            for cue, share in mine.shares.items():
+                assert r.shares[cue]["values"][ph.name] == pytest.approx(share, abs=1e-9)
+            assert r.metrics["g_rubric"]["changes"][0].method.startswith("case bootstrap")
 
 
 def test_without_a_trained_list_all_count_as_trained_and_the_caution_says_so(tmp_path):
@@ -79,6 +95,9 @@ def test_without_a_trained_list_all_count_as_trained_and_the_caution_says_so(tmp
     assert set(out.panel["metrics"]["r"]) == {"trained"}
     assert any("no control group" in c and "cannot be credited to the training alone" in c
                for c in out.cautions)
+    _valid(out)
+    assert set(out.panel["convergence"]["pairwise_distance"]) == {"all"}
+    assert all(v["control"] is None for v in out.panel["cue_shift"].values())
 
 
 def test_summary_and_verdicts_say_what_the_intervals_say(result):
@@ -132,3 +151,61 @@ def test_a_follow_up_phase_gives_every_change_and_whether_it_lasted(tmp_path):
                                "on any measure.")
     effect = out.panel["training_effect"]["misallocation"]
     assert (effect["from"], effect["to"]) == ("before", "followup") and effect["ci_high"] < 0
+    # Does it last: the follow-up effect, end of training to follow-up, in the same form.
+    follow = out.panel["follow_up_effect"]["misallocation"]
+    assert (follow["from"], follow["to"]) == ("after", "followup")
+    assert follow["estimate"] == pytest.approx(0, abs=1e-12)
+    # The follow-up judged the same cases against the same outcome: the dependent test.
+    assert out.raters[0].metrics["r_a"]["changes"][1].method.startswith("Williams' T2")
+    assert out.raters[0].metrics["misallocation"]["changes"][1].comparable is True
+    _valid(out)
+
+
+def test_every_change_says_what_it_could_detect_and_whether_it_is_comparable(result):
+    # The demo's two rounds read different applicants: R_s (adjusted) and severity are
+    # comparable, the weight figures are not and say so; every change names its detectable size.
+    for r in result.raters:
+        for name, block in r.metrics.items():
+            for ch in block["changes"]:
+                assert ch.detectable > 0, (r.rater, name)
+                assert ch.comparable is (name in ("r", "severity")), name
+                assert (ch.note is None) is ch.comparable
+        assert set(r.shares) == set(result.to_dict()["raters"][0]["shares"])
+        assert r.metrics["r"]["changes"][0].method.startswith("change in Wherry-adjusted R_s")
+        assert "Fisher z" in r.metrics["r_a"]["changes"][0].method  # different cases: independent
+    panel = result.panel
+    assert panel["agreement"]["same_cases"] is False
+    assert panel["agreement"]["icc"]["changes"][0]["comparable"] is False
+    assert set(panel["convergence"]["pairwise_distance"]) == {"trained", "control"}
+    rubric = panel["convergence"]["distance_to_rubric"]
+    # The planted effect: the trained raters' profiles moved toward the rubric, the controls' did not.
+    assert rubric["trained"]["changes"][0]["ci_high"] < 0
+    assert rubric["control"]["changes"][0]["ci_low"] < 0 < rubric["control"]["changes"][0]["ci_high"]
+    assert set(panel["groups"]["values"]) == {"before", "after"}
+    assert set(panel["cue_shift"]) == set(r.shares)
+    assert panel["detectable"]["misallocation"]["panel"] > 0
+    assert "follow_up_effect" not in panel  # two phases: nothing to say about lasting
+
+
+def test_jobs_do_not_change_the_result(tmp_path):
+    files = write_demo(tmp_path / "d")
+    one = compare(load_study(files.spec), n_boot=60, jobs=1)
+    two = compare(load_study(files.spec), n_boot=60, jobs=2)
+    assert json.dumps(one.to_dict(), sort_keys=True) == json.dumps(two.to_dict(), sort_keys=True)
+
+
+def test_without_rubric_or_criterion_the_figures_that_need_them_are_left_out(tmp_path):
+    import re
+
+    files = write_demo(tmp_path / "d")
+    text = re.sub(r"\[rubric\][^\[]*", "", files.spec.read_text())
+    text = text.replace('criterion = "first_year_result"\n', "").replace(
+        "criterion_only_for_selected = true\n", "")
+    files.spec.write_text(text)
+    out = compare(load_study(files.spec), n_boot=50)
+    _valid(out)
+    assert set(out.raters[0].metrics) == {"r", "retest_r", "severity"}
+    assert out.panel["convergence"]["distance_to_rubric"] is None
+    assert all(v["rubric_share"] is None and v["toward_rubric"] is None
+               for v in out.panel["cue_shift"].values())
+    assert out.raters[0].shares  # the shares need no rubric

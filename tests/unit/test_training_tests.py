@@ -149,12 +149,15 @@ def test_difference_in_differences_with_a_shared_practice_effect_includes_zero()
     sys.path.insert(0, str(Path(__file__).parent))
     from training_simulation import rs_draws
 
+    from calibrate.training.phases import wherry_adjusted_r
+
     rng = np.random.default_rng(11)
     inside = 0
     for _ in range(30):
         noise = rng.uniform(0.4, 1.2, 14)
-        before = rs_draws(rng, noise, 60, 1)[:, 0]
-        after = rs_draws(rng, noise * 0.85, 60, 1)[:, 0]
+        # the change in adjusted R_s, as compare reads it
+        before = wherry_adjusted_r(rs_draws(rng, noise, 60, 1)[:, 0], 60, 4)
+        after = wherry_adjusted_r(rs_draws(rng, noise * 0.85, 60, 1)[:, 0], 60, 4)
         w = welch_difference((after - before)[:7], (after - before)[7:])
         inside += w["ci_low"] <= 0 <= w["ci_high"]
     assert inside >= 26  # binomial(30, .95): P(X < 26) < 2%
@@ -182,3 +185,26 @@ def test_a_gain_is_credited_only_when_the_ancova_agrees():
                                    True)
         assert ("improved more than the controls" in lines[0]) is credited
         assert any("evidence is mixed" in line for line in lines) is (not credited)
+
+
+def test_without_controls_a_gain_on_an_uncorrected_figure_is_named_apart():
+    from calibrate.training.phases import comparison_summary
+
+    change = {"ci_low": -0.3, "ci_high": -0.1, "comparable": False}
+    panel = {"metrics": {"misallocation": {"trained": {"changes": [change]}},
+                         "r": {"trained": {"changes": [{"ci_low": -0.1, "ci_high": 0.1, "comparable": True}]}}},
+             "training_effect": None}
+    lines = comparison_summary(("before", "after"), panel, False)
+    assert lines[0] == ("From before to after the raters did not improve clearly on any measure that is "
+                        "comparable across the phases.")
+    assert "closeness to the rubric's weights" in lines[1] and "different cases" in lines[1]
+
+
+def test_regression_to_the_mean_caution_when_the_trained_started_worse():
+    from calibrate.training.phases import comparison_cautions
+
+    notes = comparison_cautions(has_control=True, same_cases=True, apart_metrics=["misallocation"],
+                                n_trained=8, n_control=8,
+                                started_worse=["closeness to the rubric's weights"])
+    assert any(n.startswith("The trained raters started worse than the controls on closeness")
+               and "regression to the mean" in n for n in notes)
