@@ -182,7 +182,8 @@ class PanelReport:
         if talk:
             first, own = talk[0]
             step1 = wording.step_conversation(first.rater, own[0], first.evidence.get(own[0]),
-                                              others=len(talk) - 1)
+                                              others=list(dict.fromkeys(e.rater for e, _ in talk[1:]
+                                                                        if e.rater != first.rater)))
         else:
             step1 = wording.step_conversation(None, None)
         cue, p_adj = wording.cue_to_discuss(panel.homogeneity_per_cue if panel is not None else {})
@@ -199,7 +200,8 @@ class PanelReport:
         target, needed = wording.readers_target(panel.readers_needed.get("phi") or {}, reached_now)
         at_needed = next((row.phi for row in panel.d_study if row.raters == needed), None)
         return wording.step_readers(k_now, reached_now, target, needed, at_needed,
-                                    max(row.raters for row in panel.d_study))
+                                    max(row.raters for row in panel.d_study),
+                                    panel.icc.intervals.get("ak") if panel.icc is not None else None)
 
     def overview(self) -> list:
         story = [text("Panel summary", TITLE),

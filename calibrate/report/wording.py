@@ -579,13 +579,14 @@ def icc_verdict(estimate: float | None, interval=None) -> str:
 
 
 def readers_text(k: float | None) -> str:
-    """'4 readers' or '3.6 readers (harmonic mean)'."""
+    """'4 readers per file', or '3.6 readers per file on average' (the harmonic mean the
+    k-reader ICC forms use when files got different numbers of readers)."""
     if k is None:
-        return "the readers it had"
+        return "the readers each file had"
     if abs(k - round(k)) < 0.05:
         n = int(round(k))
-        return f"{n} reader" + ("" if n == 1 else "s")
-    return f"{fmt(k, 1)} readers (harmonic mean)"
+        return f"{n} reader" + ("" if n == 1 else "s") + " per file"
+    return f"{fmt(k, 1)} readers per file on average"
 
 
 def decision_reliability_text(estimate: float | None, interval, k: float | None) -> str:
@@ -594,7 +595,7 @@ def decision_reliability_text(estimate: float | None, interval, k: float | None)
     if estimate is None:
         return "not available"
     return (f"{icc_verdict(estimate, interval)}: {fmt(estimate)}{_interval(interval)}, "
-            f"with {readers_text(k)} per file")
+            f"with {readers_text(k)}")
 
 
 def single_reader_text(estimate: float | None, interval) -> str:
@@ -670,18 +671,22 @@ def lens_panel_sentence(verdicts, gains=()) -> str:
 # --------------------------------------------------------------- next steps
 
 
-def step_conversation(rater: str | None, flag: str | None, figure=None, others: int = 0,
+def step_conversation(rater: str | None, flag: str | None, figure=None, others=(),
                       phase: str | None = None) -> str:
-    """Next step 1: the reader to talk with first, and why."""
+    """Next step 1: the reader to talk with first, and why; ``others`` the further
+    readers flagged for how they judged (not for the data they had), in order."""
     if rater is None or flag is None:
         return ("No reader needs a conversation on these checks: no rater-specific flag was set "
                 "beyond what chance alone would give.")
     where = f" (phase {phase})" if phase else ""
+    others = list(others)
     more = ""
-    if others == 1:
-        more = " Then the one other reader listed above."
-    elif others > 1:
-        more = f" Then the {others} other readers listed above, in the order shown."
+    if len(others) == 1:
+        more = f" Then {others[0]}."
+    elif 1 < len(others) <= 3:
+        more = f" Then {', '.join(others[:-1])} and {others[-1]}."
+    elif len(others) > 3:
+        more = f" Then {', '.join(others[:3])} and {len(others) - 3} more, in the order listed above."
     return f"Talk first with {rater}{where}: {flag_reason(flag, figure)}.{more}"
 
 
@@ -726,26 +731,36 @@ def readers_target(needed: dict, reached_now: float | None) -> tuple[float | Non
 
 
 def step_readers(k_now: float | None, reached_now: float | None, target: float | None,
-                 needed: int | None, reached_at_needed: float | None, most_studied: int | None) -> str:
+                 needed: int | None, reached_at_needed: float | None, most_studied: int | None,
+                 interval_now=None) -> str:
     """Next step 3: how many readers per file would reach the target reliability
     (D-study of the variance components; phi, the absolute form, as decisions at a
-    cut-off use the level of the mean)."""
+    cut-off use the level of the mean). ``reached_now`` is ICC(A,k) of the files as
+    read, ``interval_now`` its 95% interval: the target counts as reached for sure
+    only when the whole interval lies above it."""
     if target is None:
         return "The readers-per-file study is not available for this study."
     now = readers_text(k_now)
     if reached_now is not None and reached_now >= target:
-        return (f"Keep {now} per file: the decisions already reach a reliability of {fmt(reached_now)}, "
-                f"above the target of {fmt(target)}.")
+        if interval_now and interval_now[0] < target:
+            return (f"Keep at least {now}: the decisions reach a reliability of {fmt(reached_now)}"
+                    f"{_interval(interval_now)}; the target of {fmt(target)} lies inside the interval, so it "
+                    "is likely but not yet sure.")
+        return (f"Keep {now}: the decisions already reach a reliability of {fmt(reached_now)}"
+                f"{_interval(interval_now)}, above the target of {fmt(target)}.")
     if needed is None:
         limit = f"{most_studied} readers" if most_studied else "the most readers studied"
         return (f"Even {limit} per file would not bring the reliability of the decisions to {fmt(target)}; "
                 "agreeing on the cues' weights (step 2) would do more than adding readers.")
     if k_now is not None and needed <= k_now:
-        return (f"Give every file at least {needed} readers: with {needed} the reliability of the decisions "
-                f"reaches {fmt(reached_at_needed)} (target {fmt(target)}); some files now have fewer.")
-    more = "" if k_now is None else (f", {fmt(needed - k_now, 1 if abs(needed - k_now - round(needed - k_now)) >= 0.05 else 0)}"
-                                     " more than now")
-    return (f"Give each file {needed} readers instead of {now}{more}: the reliability of the decisions would "
+        return (f"Give every file at least {needed} readers: the readers-per-file table puts the reliability "
+                f"of the decisions with {needed} at {fmt(reached_at_needed)} (target {fmt(target)}).")
+    if k_now is not None and abs(k_now - round(k_now)) < 0.05:
+        extra = needed - int(round(k_now))
+        now = f"{int(round(k_now))}, " + ("one more" if extra == 1 else f"{extra} more")
+    else:
+        now = f"now {now}"
+    return (f"Give each file {needed} readers ({now}): the reliability of the decisions would "
             f"rise from {fmt(reached_now)} to {fmt(reached_at_needed)} (target {fmt(target)}).")
 
 
