@@ -291,10 +291,9 @@ class PanelReport:
         table = Table(rows, colWidths=widths, hAlign="LEFT")
         table.setStyle(table_style())
         story = [text("How far the decisions can be trusted", HEADING), table,
-                 text(f"Words: {wording.ICC_BANDS.source}; {wording.ALPHA_BANDS.source}. Two words "
-                      "('moderate to good'): the 95% interval spans a line.", SMALL)]
+                 text(wording.bands_note(), SMALL)]
         if has_lens and self.view.criterion_only_for_selected:
-            story.append(text(wording.LENS_SELECTED_CAUTION, SMALL))
+            story.append(text(wording.LENS_SELECTED_SHORT, SMALL))
         return story
 
     @staticmethod

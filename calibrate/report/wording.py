@@ -792,3 +792,16 @@ def flag_reason_by_phase(flag: str, figures) -> str:
     if not any(t for _, t in shown):
         return flag_words(flag) + " (" + ", ".join(p for p, _ in shown if p) + ")"
     return flag_words(flag) + " (" + "; ".join(f"{p}: {t}" if t else f"{p}" for p, t in shown) + ")"
+
+
+LENS_SELECTED_SHORT = ("The outcome is known only for selected cases, so the lens figures are biased: "
+                       "a rough guide (see the lens section).")
+
+
+def bands_note() -> str:
+    """Page 1's one-line key to the words put on ICC and alpha (the bands above)."""
+    def lines(scale):
+        return ", ".join((f"{b.low:.2f}" if round(b.low, 2) == b.low else f"{b.low:.3f}").lstrip("0")
+                         for b in scale.bands[1:])
+    return (f"Words: our own rules of thumb (ICC lines at {lines(ICC_BANDS)}; alpha at {lines(ALPHA_BANDS)}); "
+            "two words ('moderate to good'): the 95% interval spans a line.")
