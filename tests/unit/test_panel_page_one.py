@@ -26,6 +26,7 @@ from calibrate.report._read import ReportInput
 from calibrate.report.builder import panel_pdf
 from calibrate.report.panel import PanelReport
 from calibrate.report.view import FlagFigure
+from tests.cue_step_panels import claim_rate
 from tests.helpers import write_study
 from tests.pdf_text import page_texts
 
@@ -301,3 +302,11 @@ def test_step_one_names_the_others_in_order():
     assert wording.step_conversation("A", "inconsistent", fig, ["B", "C"]).endswith(" Then B and C.")
     assert wording.step_conversation("A", "inconsistent", fig, list("BCDEF")).endswith(
         " Then B, C, D and 2 more, in the order listed above.")
+
+
+def test_step_two_rarely_names_a_cue_when_raters_share_one_policy():
+    """Seeded small version of benchmarks/bench_next_step_cue.py (400 panels: 2.8-4.5%)."""
+    size, _ = claim_rate(30, n_raters=5, n_cases=20, n_cues=3, spread=0.0, seed=7, n_resamples=199)
+    assert size <= 4 / 30
+    _, power = claim_rate(10, n_raters=8, n_cases=30, n_cues=3, spread=0.45, seed=8, n_resamples=199)
+    assert power >= 0.5
