@@ -194,13 +194,13 @@ class PanelReport:
     @staticmethod
     def _readers_step(panel) -> str:
         if panel is None or not panel.d_study:
-            return wording.step_readers(None, None, None, None, None, None)
+            return wording.step_readers(None, None, None, None, None)
         k_now = panel.icc.readers_per_case if panel.icc is not None else None
         reached_now = panel.icc.estimates.get("ak") if panel.icc is not None else None
-        target, needed = wording.readers_target(panel.readers_needed.get("phi") or {}, reached_now)
+        needed_phi = panel.readers_needed.get("phi")
+        target, needed = wording.readers_target(needed_phi if isinstance(needed_phi, dict) else {}, reached_now)
         at_needed = next((row.phi for row in panel.d_study if row.raters == needed), None)
         return wording.step_readers(k_now, reached_now, target, needed, at_needed,
-                                    max(row.raters for row in panel.d_study),
                                     panel.icc.intervals.get("ak") if panel.icc is not None else None)
 
     def overview(self) -> list:
@@ -359,20 +359,24 @@ class PanelReport:
         head = ("Rater",) + (("Phase",) if named else ()) + (
             "Cases", "Repeats", "R_s", "Retest r", "Offset", "Misalloc.", "G rubric", "Group", "Flags")
         rows = [[text(h, CELL_BOLD) for h in head]]
+        shared = {phase: set(self.panel_wide(phase)) for phase in self.view.phases}
         for e in self.view.raters:
+            own = ", ".join(wording.flag_short(f) for f in e.flags if f not in shared.get(e.phase, ()))
             rows.append([text(e.rater, CELL)] + ([text(e.phase or "", CELL)] if named else []) + [
                          text(str(e.n_cases), CELL),
                          text(str(e.n_repeats), CELL), text(fmt(_policy_r(e)), CELL),
                          text(fmt(_retest_r(e)), CELL), text(fmt(_offset(e)), CELL),
                          text(fmt(_misallocation(e)), CELL), text(fmt(_g_rubric(e)), CELL),
-                         text(e.group or "", CELL), text(", ".join(e.flags), CELL)])
+                         text(e.group or "", CELL), text(own, CELL)])
         widths = [62] + ([40] if named else []) + [34, 40, 32, 40, 36, 44, 42, 34]
         widths.append(CONTENT_WIDTH - sum(widths))
         table = Table(rows, colWidths=widths, repeatRows=1)
         table.setStyle(table_style(("FONT", (0, 1), (-1, -1), BASE_FONT, 7.5)))
         story.append(table)
         story.append(text("Offset: positive means judgments run higher than the panel's on the same cases. "
-                          "Misalloc.: misallocation against the rubric (0 = the rubric's weights).", SMALL))
+                          "Misalloc.: misallocation against the rubric (0 = the rubric's weights). Flags: in "
+                          "short words (page 1 gives each in full with its figure); a flag every rater of a phase "
+                          "carries is stated once on page 1 and left out here.", SMALL))
         few = [f"{e.rater} ({e.phase})" if e.phase else e.rater for e in self.view.raters
                if e.lens is not None and e.lens.small_sample_note]
         if few:

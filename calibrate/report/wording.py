@@ -731,8 +731,7 @@ def readers_target(needed: dict, reached_now: float | None) -> tuple[float | Non
 
 
 def step_readers(k_now: float | None, reached_now: float | None, target: float | None,
-                 needed: int | None, reached_at_needed: float | None, most_studied: int | None,
-                 interval_now=None) -> str:
+                 needed: int | None, reached_at_needed: float | None, interval_now=None) -> str:
     """Next step 3: how many readers per file would reach the target reliability
     (D-study of the variance components; phi, the absolute form, as decisions at a
     cut-off use the level of the mean). ``reached_now`` is ICC(A,k) of the files as
@@ -749,10 +748,10 @@ def step_readers(k_now: float | None, reached_now: float | None, target: float |
         return (f"Keep {now}: the decisions already reach a reliability of {fmt(reached_now)}"
                 f"{_interval(interval_now)}, above the target of {fmt(target)}.")
     if needed is None:
-        limit = f"{most_studied} readers" if most_studied else "the most readers studied"
-        return (f"Even {limit} per file would not bring the reliability of the decisions to {fmt(target)}; "
-                "agreeing on the cues' weights (step 2) would do more than adding readers.")
-    if k_now is not None and needed <= k_now:
+        return (f"No number of readers per file that the readers-per-file study tried brings the reliability "
+                f"of the decisions to {fmt(target)}; agreeing on the cues' weights (step 2) would do more "
+                "than adding readers.")
+    if k_now is not None and needed <= k_now and reached_at_needed is not None:
         return (f"Give every file at least {needed} readers: the readers-per-file table puts the reliability "
                 f"of the decisions with {needed} at {fmt(reached_at_needed)} (target {fmt(target)}).")
     if k_now is not None and abs(k_now - round(k_now)) < 0.05:
@@ -760,6 +759,9 @@ def step_readers(k_now: float | None, reached_now: float | None, target: float |
         now = f"{int(round(k_now))}, " + ("one more" if extra == 1 else f"{extra} more")
     else:
         now = f"now {now}"
+    if reached_at_needed is None:   # beyond the rows of the printed table
+        return (f"Give each file {needed} readers ({now}): the readers-per-file study puts the reliability of "
+                f"the decisions at the target of {fmt(target)} from {needed} readers (now {fmt(reached_now)}).")
     return (f"Give each file {needed} readers ({now}): the reliability of the decisions would "
             f"rise from {fmt(reached_now)} to {fmt(reached_at_needed)} (target {fmt(target)}).")
 
@@ -805,3 +807,29 @@ def bands_note() -> str:
                          for b in scale.bands[1:])
     return (f"Words: our own rules of thumb (ICC lines at {lines(ICC_BANDS)}; alpha at {lines(ALPHA_BANDS)}); "
             "two words ('moderate to good'): the 95% interval spans a line.")
+
+
+#: The flags in two or three words, for the every-rater table's narrow column (page 1
+#: gives each in full, :data:`FLAG_WORDS`, with its figure).
+FLAG_SHORT_WORDS = {
+    "too_few_cases": "too few cases",
+    "few_cases": "few cases",
+    "not_fitted": "no policy fitted",
+    "collinear_cues": "cues move together",
+    "curvature": "bent rule",
+    "inconsistent": "low consistency",
+    "separation": "perfect split",
+    "low_retest": "low test-retest",
+    "lenient": "runs high",
+    "severe": "runs low",
+    "narrow_range": "narrow range",
+    "wide_range": "wide range",
+    "central_tendency": "middle of scale",
+    "drift": "drift",
+    "cutoff_rule": "cut-off",
+    "excluded_attribute": "excluded attribute",
+}
+
+
+def flag_short(flag: str) -> str:
+    return FLAG_SHORT_WORDS.get(flag, flag.replace("_", " "))

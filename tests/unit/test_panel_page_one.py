@@ -213,7 +213,10 @@ def _check_readers_step(step: str, panel) -> None:
     target = unmet[0]
     needed = panel.readers_needed["phi"][f"{target:.2f}"]
     if needed is None:
-        assert step.startswith("Even") and max(phi.values()) < target
+        assert step.startswith("No number of readers") and max(phi.values()) < target
+        return
+    if needed not in phi:
+        assert f"Give each file {needed} readers (" in step and max(phi.values()) < target
         return
     assert phi[needed] >= target and all(phi[n] < target for n in phi if n < needed)
     assert f"Give each file {needed} readers (" in step or f"at least {needed} readers" in step
@@ -268,17 +271,19 @@ def test_readers_step_in_each_case():
     assert wording.readers_target({"0.70": 3, "0.80": 5}, 0.79) == (0.80, 5)
     assert wording.readers_target({"0.70": 3, "0.80": 5}, 0.65) == (0.70, 3)
     assert wording.readers_target({"0.70": 3, "0.80": 5}, 0.84) == (0.80, 5)
-    step = wording.step_readers(4.0, 0.79, 0.80, 5, 0.82, 10)
+    step = wording.step_readers(4.0, 0.79, 0.80, 5, 0.82)
     assert step == ("Give each file 5 readers (4, one more): the reliability of the "
                     "decisions would rise from 0.79 to 0.82 (target 0.80).")
-    assert wording.step_readers(4.0, 0.84, 0.80, 5, 0.86, 10, (0.81, 0.87)).startswith(
+    assert wording.step_readers(4.0, 0.84, 0.80, 5, 0.86, (0.81, 0.87)).startswith(
         "Keep 4 readers per file: the decisions already reach a reliability of 0.84, 95% interval 0.81 to 0.87")
-    assert "not yet sure" in wording.step_readers(4.0, 0.84, 0.80, 5, 0.86, 10, (0.78, 0.87))
+    assert "not yet sure" in wording.step_readers(4.0, 0.84, 0.80, 5, 0.86, (0.78, 0.87))
     # 4 > 3.6 readers on average: more readers, not 'at least'
-    assert wording.step_readers(3.6, 0.72, 0.80, 4, 0.81, 10).startswith(
+    assert wording.step_readers(3.6, 0.72, 0.80, 4, 0.81).startswith(
         "Give each file 4 readers (now 3.6 readers per file on average):")
-    assert wording.step_readers(4.3, 0.78, 0.80, 4, 0.80, 10).startswith("Give every file at least 4 readers")
-    assert wording.step_readers(2.0, 0.40, 0.80, None, None, 10).startswith("Even 10 readers per file")
+    assert wording.step_readers(4.3, 0.78, 0.80, 4, 0.80).startswith("Give every file at least 4 readers")
+    assert wording.step_readers(2.0, 0.40, 0.80, None, None).startswith("No number of readers per file")
+    beyond = wording.step_readers(4.0, 0.40, 0.80, 24, None)   # 24 readers: past the printed table
+    assert beyond.startswith("Give each file 24 readers (4, 20 more)") and "from 24 readers" in beyond
 
 
 def test_flag_reasons_carry_their_figure_and_interval():
@@ -310,3 +315,10 @@ def test_step_two_rarely_names_a_cue_when_raters_share_one_policy():
     assert size <= 4 / 30
     _, power = claim_rate(10, n_raters=8, n_cases=30, n_cues=3, spread=0.45, seed=8, n_resamples=199)
     assert power >= 0.5
+
+
+def test_every_flag_has_short_and_full_words():
+    assert set(wording.FLAG_SHORT_WORDS) == set(wording.FLAG_WORDS)
+    assert set(wording.CONVERSATION_ORDER) | set(wording.DATA_CONDITIONS) == set(wording.FLAG_WORDS)
+    for flag in wording.FLAG_WORDS:
+        assert "_" not in wording.flag_short(flag)
