@@ -563,7 +563,9 @@ def panel_wide_flag_sentence(flag: str, values, n_raters: int, phase: str | None
         span = (f"{fmt(low, digits)}{unit} for each" if fmt(low, digits) == fmt(high, digits)
                 else f"{lead}{fmt(low, digits)} to {fmt(high, digits)}{unit}")
         line += f" ({lead if fmt(low, digits) == fmt(high, digits) else ''}{span})"
-    return line + ". This is a feature of the study, so no rater is named for it."
+    if flag in DATA_CONDITIONS:
+        return line + ". This is a feature of the study, so no rater is named for it."
+    return line + ". A pattern of the whole panel: it is stated once here rather than for each rater."
 
 
 def icc_verdict(estimate: float | None, interval=None) -> str:

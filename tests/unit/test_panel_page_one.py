@@ -322,3 +322,34 @@ def test_every_flag_has_short_and_full_words():
     assert set(wording.CONVERSATION_ORDER) | set(wording.DATA_CONDITIONS) == set(wording.FLAG_WORDS)
     for flag in wording.FLAG_WORDS:
         assert "_" not in wording.flag_short(flag)
+
+
+def test_a_shared_flag_about_judging_is_not_called_a_feature_of_the_study():
+    drift = [FlagFigure("drift_level", 1.2, (0.5, 1.9), 0.001), FlagFigure("drift_level", 0.9, (0.2, 1.6), 0.01)]
+    sentence = wording.panel_wide_flag_sentence("drift", drift, 2, "after")
+    assert sentence.startswith("All 2 raters in phase after: judgments changed over the reading order.")
+    assert "feature of the study" not in sentence and "stated once" in sentence
+
+
+def test_flag_figures_read_the_figure_that_set_each_flag():
+    from calibrate.report.view import flag_figures
+
+    entry = {
+        "n_cases": 18,
+        "flags": ["drift", "excluded_attribute", "collinear_cues", "too_few_cases", "central_tendency"],
+        "policy": {"gvif": {"a": 2.0, "b": 7.5}},
+        "severity": {"central_tendency": {"middle_share": 0.52, "panel_middle_share": 0.31}},
+        "drift": {"reasons": ["consistency"], "r_s_change": -0.2, "r_s_change_ci_low": -0.35,
+                  "r_s_change_ci_high": -0.05, "consistency_p_adjusted": 0.01, "slope_per_session": 0.1},
+        "excluded": {"x": {"flagged": True, "delta_r2": 0.02, "p_adjusted": 0.04},
+                     "y": {"flagged": True, "delta_r2": 0.05, "p_adjusted": 0.001},
+                     "z": {"flagged": False, "delta_r2": 0.09, "p_adjusted": 0.0001}},
+    }
+    found = flag_figures(entry, "results.raters[0]")
+    assert found["drift"] == FlagFigure("drift_consistency", -0.2, (-0.35, -0.05), 0.01)
+    assert found["excluded_attribute"] == FlagFigure("added_r2", 0.05, p_adjusted=0.001, about="y")
+    assert found["collinear_cues"] == FlagFigure("vif", 7.5, about="b")
+    assert found["too_few_cases"].value == 18
+    assert wording.flag_figure_text(found["central_tendency"]) == (
+        "52% of judgments in the middle of the scale, against 31% for the panel")
+    assert flag_figures({"flags": []}, "r") == {}
