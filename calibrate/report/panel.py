@@ -4,8 +4,10 @@ part ways, files to read again, excluded attributes, data quality, methods, caut
 
 from __future__ import annotations
 
+import io
 import math
 
+from reportlab.lib.units import mm
 from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, Table
 
 from . import charts, wording
@@ -18,7 +20,10 @@ from .styles import (
     CELL_BOLD,
     CONTENT_WIDTH,
     HEADING,
+    MARGIN,
     NOTE,
+    PAGE_SIZE,
+    ReportDocument,
     SMALL,
     TITLE,
     markup,
@@ -82,6 +87,26 @@ def _fit_on_page(image):
     return image
 
 
+# The height of a page's frame (points): the page less its margins (styles.ReportDocument).
+FIRST_PAGE_HEIGHT = PAGE_SIZE[1] - 2 * MARGIN - 16 * mm
+
+
+def _one_page(story) -> bool:
+    """Whether ``story`` lays out on a single page of the reports' frame."""
+    doc = ReportDocument(io.BytesIO(), study_name="", title="", caution="")
+    doc.build(story)
+    return doc.page == 1
+
+
+def _height(flowables) -> float:
+    """The height a list of flowables takes in the frame's width, spacing included."""
+    total = 0.0
+    for f in flowables:
+        _, h = f.wrap(CONTENT_WIDTH, 10 * PAGE_SIZE[1])
+        total += h + f.getSpaceBefore() + f.getSpaceAfter()
+    return total
+
+
 # Raters per heat-map image: 0.17 inch a row keeps 45 rows and the term names inside a page.
 HEAT_MAP_ROWS = 45
 
@@ -108,7 +133,7 @@ class PanelReport:
         return story
 
     def _chance_lines(self) -> list[str]:
-        """Per phase: the tested flags chance alone would show, and the reach of the retest check."""
+        """Per phase: the tested flags chance alone would show."""
         lines = []
         several = len(self.view.phases) > 1
         for phase in self.view.phases:
@@ -118,6 +143,14 @@ class PanelReport:
                 lines.append(wording.chance_flags_sentence(
                     chance.n_tests, chance.panelwise_rate, chance.expected_chance_flags, chance.flags_shown,
                     phase if several else None))
+        return lines
+
+    def _reach_lines(self) -> list[str]:
+        """Per phase: what the low test-retest check can catch with the repeats at hand
+        (under the every-rater table, beside the retest figures)."""
+        lines = []
+        several = len(self.view.phases) > 1
+        for phase in self.view.phases:
             reach = [(e.retest.n_pairs, e.retest.flag_detectable_below) for e in self.view.raters
                      if e.phase == phase and e.retest is not None and e.retest.n_pairs
                      and "low_retest" not in e.flags]
@@ -213,47 +246,95 @@ class PanelReport:
         if counts:
             line = "; ".join(counts) + "."
             story.append(text(line[0].upper() + line[1:], SMALL))
-        story += self.flags_first()
-        story += self.at_a_glance()
-        story += self.steps()
-        return story
+        return self._first_page(story)
 
-    #: Rows of the flags-first table on page 1; the rest are counted and found in the
-    #: every-rater table and results.json.
+    def _first_page(self, head: list) -> list:
+        """Page 1 with as many flagged raters as leave it one page: a first guess from the
+        flowables' heights, then checked by laying page 1 out alone (a page or two of
+        layout, a few hundredths of a second each)."""
+        n_flagged = len(self.reasons_by_rater(self.conversation_rows()))
+        budget = FIRST_PAGE_HEIGHT - _height(head) - _height(self.at_a_glance() + self.steps())
+        rows = self._rows_within(budget)
+
+        def page(n):
+            return head + self.flags_first(rows=n) + self.at_a_glance() + self.steps()
+
+        if n_flagged <= self.MIN_FIRST_PAGE_ROWS:
+            return page(rows)
+        if _one_page(page(rows)):
+            while rows < min(n_flagged, self.FIRST_PAGE_ROWS) and _one_page(page(rows + 1)):
+                rows += 1
+        else:
+            while rows > self.MIN_FIRST_PAGE_ROWS and not _one_page(page(rows - 1)):
+                rows -= 1
+            rows = max(self.MIN_FIRST_PAGE_ROWS, rows - 1)
+        return page(rows)
+
+    def _rows_within(self, budget: float) -> int:
+        """How many flagged raters the flags-first section can show in ``budget`` points."""
+        n = self.FIRST_PAGE_ROWS
+        while n > self.MIN_FIRST_PAGE_ROWS and _height(self.flags_first(rows=n)) > budget:
+            n -= 1
+        return n
+
+    #: Raters in the flags-first table on page 1, and reasons shown per rater (the most
+    #: serious); the rest are counted and found in the every-rater table and results.json.
     FIRST_PAGE_ROWS = 12
+    MIN_FIRST_PAGE_ROWS = 3
+    FIRST_PAGE_REASONS = 2
 
-    def flags_first(self) -> list:
+    def flags_first(self, rows: int | None = None) -> list:
+        """Flags every rater shares (once), then the first ``rows`` flagged raters (all
+        up to FIRST_PAGE_ROWS when None), most serious first; the rest counted."""
         story = [text("Flags first: who needs a conversation, and why", HEADING)]
         named = self.view.named_phases
+        shared_in: dict[str, list] = {}
         for phase in self.view.phases:
-            entries = self.view.entries_in(phase)
             for flag in self.panel_wide(phase):
+                shared_in.setdefault(flag, []).append(phase)
+        for flag, phases in shared_in.items():
+            every = named and len(phases) == len(self.view.phases) > 1
+            for phase in ([None] if every else phases):
+                entries = [e for e in self.view.raters if e.phase in phases] if every else self.view.entries_in(phase)
                 story.append(text(wording.panel_wide_flag_sentence(
-                    flag, [e.evidence.get(flag) for e in entries], len(entries), phase if named else None), BODY))
+                    flag, [e.evidence.get(flag) for e in entries], len({e.rater for e in entries}),
+                    phase if named else None, every_phase=every), BODY))
         rows_in = self.conversation_rows()
-        if rows_in:
-            by_rater = self.reasons_by_rater(rows_in)
-            rows = [[text(h, CELL_BOLD) for h in ("Rater",) + (("Phase",) if named else ()) + ("Why",)]]
-            for rater, phases, reasons in by_rater[:self.FIRST_PAGE_ROWS]:
-                rows.append([text(rater, CELL)] + ([text(", ".join(phases), CELL)] if named else [])
-                            + [text("; ".join(reasons), CELL)])
-            widths = [80, 72] if named else [80]
-            table = Table(rows, colWidths=widths + [CONTENT_WIDTH - sum(widths)], repeatRows=1, hAlign="LEFT")
-            table.setStyle(table_style())
-            story.append(table)
-            if len(by_rater) > self.FIRST_PAGE_ROWS:
-                story.append(text(f"{len(by_rater) - self.FIRST_PAGE_ROWS} more flagged raters are in the "
-                                  "every-rater table on the next pages and in results.json.", SMALL))
-        elif not any(self.panel_wide(p) for p in self.view.phases):
-            story.append(text("No rater was flagged.", BODY))
-        else:
-            story.append(text("No rater was flagged for anything beyond what all of them share.", BODY))
         # one small paragraph for every phase's chance and reach lines: page 1 stays one page
         lines = self._chance_lines()
         lines.append(f"The data-quality section lists {len(self.all_warnings())} note(s) from reading and "
                      "fitting the data.")
-        story.append(text(" ".join(lines), SMALL))
-        return story
+        chance = [text(" ".join(lines), SMALL)]
+        if rows_in:
+            by_rater = self.reasons_by_rater(rows_in)
+            table, more = self._reasons_table(by_rater, min(len(by_rater), rows or self.FIRST_PAGE_ROWS))
+            story += [table] + more
+        elif not any(self.panel_wide(p) for p in self.view.phases):
+            story.append(text("No rater was flagged.", BODY))
+        else:
+            story.append(text("No rater was flagged for anything beyond what all of them share.", BODY))
+        return story + chance
+
+    def _reasons_table(self, by_rater, n: int) -> tuple[Table, list]:
+        """The first ``n`` flagged raters with their most serious reasons, and the line
+        counting the rest."""
+        named = self.view.named_phases
+        rows = [[text(h, CELL_BOLD) for h in ("Rater",) + (("Phase",) if named else ()) + ("Why",)]]
+        for rater, phases, reasons in by_rater[:n]:
+            shown = "; ".join(reasons[:self.FIRST_PAGE_REASONS])
+            if len(reasons) > self.FIRST_PAGE_REASONS:
+                shown += f"; and {len(reasons) - self.FIRST_PAGE_REASONS} more (every-rater table)"
+            rows.append([text(rater, CELL)] + ([text(", ".join(phases), CELL)] if named else [])
+                        + [text(shown, CELL)])
+        widths = [80, 72] if named else [80]
+        table = Table(rows, colWidths=widths + [CONTENT_WIDTH - sum(widths)], repeatRows=1, hAlign="LEFT")
+        table.setStyle(table_style())
+        more = []
+        if len(by_rater) > n:
+            rest = len(by_rater) - n
+            more.append(text(f"{rest} more flagged rater{'s are' if rest != 1 else ' is'} in the every-rater "
+                             "table on the next pages and in results.json.", SMALL))
+        return table, more
 
     def at_a_glance(self) -> list:
         """The decisions' reliability beside single-rater agreement, 'policies alike?' in
@@ -375,8 +456,10 @@ class PanelReport:
         story.append(table)
         story.append(text("Offset: positive means judgments run higher than the panel's on the same cases. "
                           "Misalloc.: misallocation against the rubric (0 = the rubric's weights). Flags: in "
-                          "short words (page 1 gives each in full with its figure); a flag every rater of a phase "
-                          "carries is stated once on page 1 and left out here.", SMALL))
+                          "short words (page 1 gives each in full with its figure); a flag that every rater "
+                          + ("of a phase " if named else "") + "carries is stated once on page 1 and left out "
+                          "here.", SMALL))
+        story += [text(line, SMALL) for line in self._reach_lines()]
         few = [f"{e.rater} ({e.phase})" if e.phase else e.rater for e in self.view.raters
                if e.lens is not None and e.lens.small_sample_note]
         if few:

@@ -547,10 +547,12 @@ def panel_wide_flags(flag_sets) -> tuple[str, ...]:
     return tuple(sorted(common, key=lambda f: (flag_rank(f), f)))
 
 
-def panel_wide_flag_sentence(flag: str, values, n_raters: int, phase: str | None = None) -> str:
+def panel_wide_flag_sentence(flag: str, values, n_raters: int, phase: str | None = None,
+                             every_phase: bool = False) -> str:
     """'All 29 raters: few cases per cue, so the weights are rough (4.7 cases per weight
-    for each).' ``values`` are the figures behind the flag, one per rater (None where absent)."""
-    where = f" in phase {phase}" if phase else ""
+    for each).' ``values`` are the figures behind the flag, one per rater entry (None where
+    absent); ``every_phase`` when it is shared by every rater in every phase."""
+    where = " in every phase" if every_phase else (f" in phase {phase}" if phase else "")
     line = f"All {n_raters} raters{where}: {flag_words(flag)}"
     figures = [f for f in values if f is not None and f.value is not None]
     if figures and len(figures) == len(values) and len({f.measure for f in figures}) == 1 and \
@@ -663,9 +665,9 @@ def lens_panel_sentence(verdicts, gains=()) -> str:
     if missing:
         parts.append(f"{missing} had too few cases with a known outcome")
     line = "; ".join(parts) + "."
-    named = list(gains)[:3]
+    named = list(gains)[:2]
     if named:
-        line += " Largest gains: " + ", ".join(
+        line += (" Largest gain: " if len(named) == 1 else " Largest gains: ") + ", ".join(
             f"{r} {_signed(g)} ({fmt(lo)} to {fmt(hi)})" for r, g, lo, hi in named) + "."
     return line
 
@@ -688,7 +690,7 @@ def step_conversation(rater: str | None, flag: str | None, figure=None, others=(
     elif 1 < len(others) <= 3:
         more = f" Then {', '.join(others[:-1])} and {others[-1]}."
     elif len(others) > 3:
-        more = f" Then {', '.join(others[:3])} and {len(others) - 3} more, in the order listed above."
+        more = f" Then {', '.join(others[:3])} and {len(others) - 3} more (the every-rater table lists them all)."
     return f"Talk first with {rater}{where}: {flag_reason(flag, figure)}.{more}"
 
 

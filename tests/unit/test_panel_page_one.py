@@ -138,6 +138,7 @@ def test_page_one_states_what_its_numbers_say(panels, label, pattern):
             assert not (set(e.flags) - set(shared))
     for code in ("cutoff_rule", "few_cases", "low_retest", "excluded_attribute", "central_tendency"):
         assert code not in page
+    assert "phase" not in page.lower()     # a study without phases prints none
 
     # the decisions as the files were read, beside one reader alone
     panel = view.panel(None)
@@ -306,7 +307,7 @@ def test_step_one_names_the_others_in_order():
     assert wording.step_conversation("A", "inconsistent", fig, ["B"]).endswith(" Then B.")
     assert wording.step_conversation("A", "inconsistent", fig, ["B", "C"]).endswith(" Then B and C.")
     assert wording.step_conversation("A", "inconsistent", fig, list("BCDEF")).endswith(
-        " Then B, C, D and 2 more, in the order listed above.")
+        " Then B, C, D and 2 more (the every-rater table lists them all).")
 
 
 def test_step_two_rarely_names_a_cue_when_raters_share_one_policy():
@@ -353,3 +354,9 @@ def test_flag_figures_read_the_figure_that_set_each_flag():
     assert wording.flag_figure_text(found["central_tendency"]) == (
         "52% of judgments in the middle of the scale, against 31% for the panel")
     assert flag_figures({"flags": []}, "r") == {}
+
+
+def test_a_flag_shared_in_every_phase_is_said_once():
+    figures = [FlagFigure("cases_per_term", 4.7)] * 4
+    sentence = wording.panel_wide_flag_sentence("few_cases", figures, 2, every_phase=True)
+    assert sentence.startswith("All 2 raters in every phase: few cases per cue")
