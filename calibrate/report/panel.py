@@ -197,7 +197,8 @@ class PanelReport:
             reasons = []
             for flag in sorted(flags, key=lambda f: (wording.flag_rank(f), f)):
                 entries = flags[flag]
-                if several and len(entries) > 1:
+                # a rater listed for several phases: every reason says which phase it is from
+                if several and (len(entries) > 1 or len(phases[rater]) > 1):
                     reasons.append(wording.flag_reason_by_phase(
                         flag, [(e.phase, e.evidence.get(flag)) for e in entries]))
                 else:
@@ -407,7 +408,7 @@ class PanelReport:
             if not entries:
                 continue
             if named:
-                story.append(text(f"Phase {phase}", CELL_BOLD))
+                story += [CondPageBreak(90), text(f"Phase {phase}", CELL_BOLD)]
             order = {v: i for i, v in enumerate(wording.MODEL_VS_RATER_WORDS)}
             entries.sort(key=lambda e: (order.get(e.lens.verdict, 9), -(e.lens.gain or 0), e.rater))
             head = ("Rater", "r_a", "G", "C", "R_s", "R_e", "Model's gain", "In words")

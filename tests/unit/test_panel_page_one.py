@@ -114,6 +114,12 @@ def test_page_one_states_what_its_numbers_say(panels, label, pattern):
         assert "few_cases" not in shared
         assert "All 8 raters" not in page
 
+    # every flag that has a figure in results.json carries it into the view
+    for e in entries:
+        for flag in e.flags:
+            if flag not in ("not_fitted", "separation"):
+                assert e.evidence[flag].value is not None or e.evidence[flag].p_adjusted is not None, flag
+
     # who needs a conversation: each flagged rater with each reason and its figure
     rows = report.conversation_rows()
     flagged = {e.rater for e, _ in rows}
