@@ -1,11 +1,14 @@
-"""The chair's panel summary: flags first, every rater, weights, groups, agreement,
-where two readers part ways, files to read again, excluded attributes, data quality, methods, cautions."""
+"""The chair's panel summary: page 1 (flags first, how far the decisions can be trusted,
+next steps), the lens model, every rater, weights, groups, agreement, where two readers
+part ways, files to read again, excluded attributes, data quality, methods, cautions."""
 
 from __future__ import annotations
 
+import io
 import math
 
-from reportlab.platypus import CondPageBreak, KeepTogether, Spacer
+from reportlab.lib.units import mm
+from reportlab.platypus import CondPageBreak, KeepTogether, PageBreak, Spacer, Table
 
 from ..notes import group_notes
 from . import charts, wording
@@ -19,9 +22,13 @@ from .styles import (
     CELL_BOLD,
     CONTENT_WIDTH,
     HEADING,
+    MARGIN,
     NOTE,
+    PAGE_SIZE,
+    ReportDocument,
     SMALL,
     TITLE,
+    markup,
     table_style,
     text,
 )
@@ -99,6 +106,26 @@ def _fit_on_page(image):
     return image
 
 
+# The height of a page's frame (points): the page less its margins (styles.ReportDocument).
+FIRST_PAGE_HEIGHT = PAGE_SIZE[1] - 2 * MARGIN - 16 * mm
+
+
+def _one_page(story) -> bool:
+    """Whether ``story`` lays out on a single page of the reports' frame."""
+    doc = ReportDocument(io.BytesIO(), study_name="", title="", caution="")
+    doc.build(story)
+    return doc.page == 1
+
+
+def _height(flowables) -> float:
+    """The height a list of flowables takes in the frame's width, spacing included."""
+    total = 0.0
+    for f in flowables:
+        _, h = f.wrap(CONTENT_WIDTH, 10 * PAGE_SIZE[1])
+        total += h + f.getSpaceBefore() + f.getSpaceAfter()
+    return total
+
+
 # Raters per heat-map image: 0.17 inch a row keeps 45 rows and the term names inside a page.
 HEAT_MAP_ROWS = 45
 
@@ -110,7 +137,10 @@ class PanelReport:
 
     def flowables(self) -> list:
         story = self.overview()
-        story.append(fresh_page())
+        story.append(PageBreak())
+        lens = self.lens_section()
+        if lens:
+            story += lens + [CondPageBreak(300)]
         story += self.rater_table()
         for phase in self.view.phases:
             story += self.phase_sections(phase)
@@ -121,80 +151,307 @@ class PanelReport:
         story += self.cautions()
         return story
 
-    def _chance_lines(self) -> list:
-        """Per phase: the tested flags chance alone would show, and the reach of the retest check."""
+    def _chance_lines(self) -> list[str]:
+        """Per phase: the tested flags chance alone would show."""
         lines = []
         several = len(self.view.phases) > 1
         for phase in self.view.phases:
             panel = self.view.panel(phase)
             chance = None if panel is None else panel.chance_flags
             if chance is not None:
-                lines.append(text(wording.chance_flags_sentence(
+                lines.append(wording.chance_flags_sentence(
                     chance.n_tests, chance.panelwise_rate, chance.expected_chance_flags, chance.flags_shown,
-                    phase if several else None), BODY))
+                    phase if several else None))
+        return lines
+
+    def _reach_lines(self) -> list[str]:
+        """Per phase: what the low test-retest check can catch with the repeats at hand
+        (under the every-rater table, beside the retest figures)."""
+        lines = []
+        several = len(self.view.phases) > 1
+        for phase in self.view.phases:
             reach = [(e.retest.n_pairs, e.retest.flag_detectable_below) for e in self.view.raters
                      if e.phase == phase and e.retest is not None and e.retest.n_pairs
                      and "low_retest" not in e.flags]
             if reach:
                 highest = max((v if v is not None else -1.0) for _, v in reach)
-                lines.append(text(wording.retest_reach_panel_sentence(
+                lines.append(wording.retest_reach_panel_sentence(
                     min(n for n, _ in reach), max(n for n, _ in reach), highest,
-                    phase if several else None), BODY))
+                    phase if several else None))
         return lines
 
     # ------------------------------------------------------------------ overview
+    def panel_wide(self, phase) -> tuple[str, ...]:
+        """Flags every rater of the phase carries: stated once for the panel."""
+        return wording.panel_wide_flags([e.flags for e in self.view.entries_in(phase)])
+
+    def conversation_rows(self) -> list[tuple]:
+        """(rater entry, its own flags) for every flagged rater, the flags every rater of
+        the phase shares left out; most serious first (by :func:`wording.flag_rank`)."""
+        shared = {phase: set(self.panel_wide(phase)) for phase in self.view.phases}
+        rows = []
+        for e in self.view.raters:
+            own = sorted((f for f in e.flags if f not in shared.get(e.phase, ())),
+                         key=lambda f: (wording.flag_rank(f), f))
+            if own:
+                rows.append((e, tuple(own)))
+        phase_order = {p: i for i, p in enumerate(self.view.phases)}
+        rows.sort(key=lambda r: (wording.flag_rank(r[1][0]), phase_order.get(r[0].phase, 0), r[0].rater))
+        return rows
+
+    def reasons_by_rater(self, rows_in) -> list[tuple[str, list[str], list[str]]]:
+        """One line per rater (most serious first): a flag raised in several phases is
+        named once, with each phase's figure."""
+        several = self.view.named_phases
+        grouped: dict[str, dict[str, list]] = {}
+        phases: dict[str, list[str]] = {}
+        for e, own in rows_in:
+            phases.setdefault(e.rater, [])
+            if e.phase and e.phase not in phases[e.rater]:
+                phases[e.rater].append(e.phase)
+            for flag in own:
+                grouped.setdefault(e.rater, {}).setdefault(flag, []).append(e)
+        out = []
+        for rater, flags in grouped.items():
+            reasons = []
+            for flag in sorted(flags, key=lambda f: (wording.flag_rank(f), f)):
+                entries = flags[flag]
+                # a rater listed for several phases: every reason says which phase it is from
+                if several and (len(entries) > 1 or len(phases[rater]) > 1):
+                    reasons.append(wording.flag_reason_by_phase(
+                        flag, [(e.phase, e.evidence.get(flag)) for e in entries]))
+                else:
+                    reasons.append(wording.flag_reason(flag, entries[0].evidence.get(flag)))
+            out.append((rater, phases[rater], reasons))
+        return out
+
+    def next_steps(self) -> tuple[str | None, list[str]]:
+        """Three steps drawn from the latest phase's numbers (the panel as it reads now)."""
+        phase = self.view.phases[-1]
+        panel = self.view.panel(phase)
+        named = phase if self.view.named_phases else None
+        talk = [(e, own) for e, own in self.conversation_rows()
+                if e.phase == phase and wording.flag_rank(own[0]) < len(wording.CONVERSATION_ORDER)]
+        if talk:
+            first, own = talk[0]
+            step1 = wording.step_conversation(first.rater, own[0], first.evidence.get(own[0]),
+                                              others=list(dict.fromkeys(e.rater for e, _ in talk[1:]
+                                                                        if e.rater != first.rater)))
+        else:
+            step1 = wording.step_conversation(None, None)
+        cue, p_adj = wording.cue_to_discuss(panel.homogeneity_per_cue if panel is not None else {})
+        step2 = wording.step_cue(cue, p_adj)
+        step3 = self._readers_step(panel)
+        return named, [step1, step2, step3]
+
+    @staticmethod
+    def _readers_step(panel) -> str:
+        if panel is None or not panel.d_study:
+            return wording.step_readers(None, None, None, None, None)
+        k_now = panel.icc.readers_per_case if panel.icc is not None else None
+        reached_now = panel.icc.estimates.get("ak") if panel.icc is not None else None
+        needed_phi = panel.readers_needed.get("phi")
+        target, needed = wording.readers_target(needed_phi if isinstance(needed_phi, dict) else {}, reached_now)
+        at_needed = next((row.phi for row in panel.d_study if row.raters == needed), None)
+        return wording.step_readers(k_now, reached_now, target, needed, at_needed,
+                                    panel.icc.intervals.get("ak") if panel.icc is not None else None)
+
     def overview(self) -> list:
         story = [text("Panel summary", TITLE),
-                 text("For the chair of the panel. It names every rater; please keep it within the "
-                      "committee. Each rater receives a separate private report about their own judgments.",
-                      BODY)]
-        for summary in self.view.phase_counts:
-            phase = summary.phase
-            story.append(text(
-                (f"Phase {phase}: " if phase else "")
-                + f"{summary.n_raters} raters, {summary.n_cases} cases, "
-                f"{summary.n_judgments} judgments, {summary.n_repeat_pairs} repeated pairs.", BODY))
-        story.append(text("Flags first", HEADING))
-        flagged = [e for e in self.view.raters if e.flags]
+                 text("For the chair: it names every rater, so please keep it within the committee (each "
+                      "rater receives a private report on their own judgments). "
+                      + wording.CAUTIONS[0] + " " + wording.CAUTIONS[3], NOTE), Spacer(1, 4)]
+        counts = [(f"phase {c.phase}: " if c.phase else "") + f"{c.n_raters} raters, {c.n_cases} cases, "
+                  f"{c.n_judgments} judgments, {c.n_repeat_pairs} repeated pairs" for c in self.view.phase_counts]
+        if counts:
+            line = "; ".join(counts) + "."
+            story.append(text(line[0].upper() + line[1:], SMALL))
+        return self._first_page(story)
+
+    def _first_page(self, head: list) -> list:
+        """Page 1 with as many flagged raters as leave it one page: a first guess from the
+        flowables' heights, then checked by laying page 1 out alone (a page or two of
+        layout, a few hundredths of a second each)."""
+        n_flagged = len(self.reasons_by_rater(self.conversation_rows()))
+        budget = FIRST_PAGE_HEIGHT - _height(head) - _height(self.at_a_glance() + self.steps())
+        rows = self._rows_within(budget)
+
+        def page(n):
+            return head + self.flags_first(rows=n) + self.at_a_glance() + self.steps()
+
+        if n_flagged <= self.MIN_FIRST_PAGE_ROWS:
+            return page(rows)
+        if _one_page(page(rows)):
+            while rows < min(n_flagged, self.FIRST_PAGE_ROWS) and _one_page(page(rows + 1)):
+                rows += 1
+        else:
+            while rows > self.MIN_FIRST_PAGE_ROWS and not _one_page(page(rows - 1)):
+                rows -= 1
+            rows = max(self.MIN_FIRST_PAGE_ROWS, rows - 1)
+        return page(rows)
+
+    def _rows_within(self, budget: float) -> int:
+        """How many flagged raters the flags-first section can show in ``budget`` points."""
+        n = self.FIRST_PAGE_ROWS
+        while n > self.MIN_FIRST_PAGE_ROWS and _height(self.flags_first(rows=n)) > budget:
+            n -= 1
+        return n
+
+    #: Raters in the flags-first table on page 1, and reasons shown per rater (the most
+    #: serious); the rest are counted and found in the every-rater table and results.json.
+    FIRST_PAGE_ROWS = 12
+    MIN_FIRST_PAGE_ROWS = 3
+    FIRST_PAGE_REASONS = 2
+
+    def flags_first(self, rows: int | None = None) -> list:
+        """Flags every rater shares (once), then the first ``rows`` flagged raters (all
+        up to FIRST_PAGE_ROWS when None), most serious first; the rest counted."""
+        story = [text("Flags first: who needs a conversation, and why", HEADING)]
         named = self.view.named_phases
-        if flagged:
-            rows = [[text(h, CELL_BOLD) for h in ("Rater",) + (("Phase",) if named else ()) + ("What was flagged",)]]
-            for e in flagged:
-                rows.append([text(e.rater, CELL)] + ([text(e.phase or "", CELL)] if named else [])
-                            + [text("; ".join(wording.flag_words(f) for f in e.flags), CELL)])
-            widths = [90, 60] if named else [90]
+        shared_in: dict[str, list] = {}
+        for phase in self.view.phases:
+            for flag in self.panel_wide(phase):
+                shared_in.setdefault(flag, []).append(phase)
+        for flag, phases in shared_in.items():
+            every = named and len(phases) == len(self.view.phases) > 1
+            for phase in ([None] if every else phases):
+                entries = [e for e in self.view.raters if e.phase in phases] if every else self.view.entries_in(phase)
+                story.append(text(wording.panel_wide_flag_sentence(
+                    flag, [e.evidence.get(flag) for e in entries], len({e.rater for e in entries}),
+                    phase if named else None, every_phase=every), BODY))
+        rows_in = self.conversation_rows()
+        # one small paragraph for every phase's chance and reach lines: page 1 stays one page
+        lines = self._chance_lines()
+        lines.append(f"The data-quality section lists {len(self.all_warnings())} note(s) from reading and "
+                     "fitting the data.")
+        chance = [text(" ".join(lines), SMALL)]
+        if rows_in:
+            by_rater = self.reasons_by_rater(rows_in)
+            table, more = self._reasons_table(by_rater, min(len(by_rater), rows or self.FIRST_PAGE_ROWS))
+            story += [table] + more
+        elif not any(self.panel_wide(p) for p in self.view.phases):
+            story.append(text("No rater was flagged.", BODY))
+        else:
+            story.append(text("No rater was flagged for anything beyond what all of them share.", BODY))
+        return story + chance
+
+    def _reasons_table(self, by_rater, n: int) -> tuple[Table, list]:
+        """The first ``n`` flagged raters with their most serious reasons, and the line
+        counting the rest."""
+        named = self.view.named_phases
+        rows = [[text(h, CELL_BOLD) for h in ("Rater",) + (("Phase",) if named else ()) + ("Why",)]]
+        for rater, phases, reasons in by_rater[:n]:
+            shown = "; ".join(reasons[:self.FIRST_PAGE_REASONS])
+            if len(reasons) > self.FIRST_PAGE_REASONS:
+                shown += f"; and {len(reasons) - self.FIRST_PAGE_REASONS} more (every-rater table)"
+            rows.append([text(rater, CELL)] + ([text(", ".join(phases), CELL)] if named else [])
+                        + [text(shown, CELL)])
+        widths = [80, 72] if named else [80]
+        table = fitted_table(rows, widths + [CONTENT_WIDTH - sum(widths)], repeatRows=1, hAlign="LEFT")
+        table.setStyle(table_style())
+        more = []
+        if len(by_rater) > n:
+            rest = len(by_rater) - n
+            more.append(text(f"{rest} more flagged rater{'s are' if rest != 1 else ' is'} in the every-rater "
+                             "table on the next pages and in results.json.", SMALL))
+        return table, more
+
+    def at_a_glance(self) -> list:
+        """The decisions' reliability beside single-rater agreement, 'policies alike?' in
+        words, and the lens result: one column per phase."""
+        phases = self.view.phases
+        named = self.view.named_phases
+        panels = [self.view.panel(p) for p in phases]
+        lens_entries = [[e for e in self.view.entries_in(p) if e.lens is not None] for p in phases]
+        has_lens = any(lens_entries)
+
+        def icc(panel, form):
+            if panel is None or panel.icc is None:
+                return None, None
+            return panel.icc.estimates.get(form), panel.icc.intervals.get(form)
+
+        label_rows = [
+            ("Decisions as the files were read (ICC(A,k))",
+             [wording.decision_reliability_text(*icc(pn, "ak"), pn.icc.readers_per_case if pn and pn.icc else None)
+              for pn in panels]),
+            ("One reader alone (ICC(A,1))",
+             [wording.single_reader_text(*icc(pn, "a1")) for pn in panels]),
+            ("Krippendorff's alpha (one reader)",
+             [wording.alpha_text(pn.alpha if pn else None, pn.alpha_interval if pn else None) for pn in panels]),
+            ("Policies alike?",
+             [wording.policies_alike_answer(pn.homogeneity[1] if pn and pn.homogeneity else None)
+              for pn in panels]),
+        ]
+        if has_lens:
+            label_rows.append(("Lens model: each rater against their own model",
+                               [self._lens_line(entries) for entries in lens_entries]))
+        head = [text("", CELL_BOLD)] + [text(f"Phase {p}" if named else "This panel", CELL_BOLD) for p in phases]
+        rows = [head] + [[text(label, CELL_BOLD)] + [text(v, CELL) for v in values] for label, values in label_rows]
+        first = 120
+        widths = [first] + [(CONTENT_WIDTH - first) / len(phases)] * len(phases)
+        table = fitted_table(rows, widths, hAlign="LEFT")
+        table.setStyle(table_style())
+        story = [text("How far the decisions can be trusted", HEADING), table,
+                 text(wording.bands_note(), SMALL)]
+        if has_lens and self.view.criterion_only_for_selected:
+            story.append(text(wording.LENS_SELECTED_SHORT, SMALL))
+        return story
+
+    @staticmethod
+    def _lens_line(entries) -> str:
+        if not entries:
+            return "No criterion in this phase."
+        gains = sorted(((e.rater, e.lens.gain, *e.lens.gain_interval) for e in entries
+                        if e.lens.verdict == "model_better" and e.lens.gain is not None
+                        and None not in e.lens.gain_interval), key=lambda t: (-t[1], t[0]))
+        return wording.lens_panel_sentence([e.lens.verdict for e in entries], gains)
+
+    def steps(self) -> list:
+        phase, steps = self.next_steps()
+        story = [text("Next steps" + (f" (from phase {phase}, the latest)" if phase else ""), HEADING)]
+        story += [text(f"{i}. {step}", BODY) for i, step in enumerate(steps, 1)]
+        return story
+
+    # ------------------------------------------------------------------ lens model
+    def lens_section(self) -> list:
+        """Per rater r_a, G, C, R_s, R_e with intervals and the model against the rater."""
+        if not any(e.lens is not None for e in self.view.raters):
+            return []
+        story = [text("Lens model: judgments against the outcome", HEADING),
+                 text(wording.LENS_SECTION_INTRO, BODY)]
+        if self.view.criterion_only_for_selected:
+            story.append(text(wording.LENS_SELECTED_CAUTION, NOTE))
+        named = self.view.named_phases
+        for phase in self.view.phases:
+            entries = [e for e in self.view.entries_in(phase) if e.lens is not None]
+            if not entries:
+                continue
+            if named:
+                story += [CondPageBreak(90), text(f"Phase {phase}", CELL_BOLD)]
+            order = {v: i for i, v in enumerate(wording.MODEL_VS_RATER_WORDS)}
+            entries.sort(key=lambda e: (order.get(e.lens.verdict, 9), -(e.lens.gain or 0), e.rater))
+            head = ("Rater", "r_a", "G", "C", "R_s", "R_e", "Model's gain", "In words")
+            rows = [[text(h, CELL_BOLD) for h in head]]
+            for e in entries:
+                lens = e.lens
+
+                def cell(value, key=None, signed=False, lens=lens):
+                    shown = wording.lens_number(value, signed)
+                    ends = lens.intervals.get(key) if key else None
+                    if key == "gain":
+                        ends = lens.gain_interval
+                    if ends and None not in ends:
+                        shown += f"<br/><font size=7>{fmt(ends[0])}, {fmt(ends[1])}</font>"
+                    return markup(shown, CELL)   # figures only: nothing to escape
+
+                rows.append([text(e.rater, CELL), cell(lens.r_a, "r_a"), cell(lens.g, "g"), cell(lens.c, "c"),
+                             cell(lens.r_s), cell(lens.r_e, "r_e"), cell(lens.gain, "gain", signed=True),
+                             text(wording.MODEL_VS_RATER_WORDS.get(lens.verdict, lens.verdict), CELL)])
+            widths = [66, 56, 56, 56, 34, 56, 62]
             table = fitted_table(rows, widths + [CONTENT_WIDTH - sum(widths)], repeatRows=1, hAlign="LEFT")
             table.setStyle(table_style())
             story.append(table)
-        else:
-            story.append(text("No rater was flagged.", BODY))
-        story += self._chance_lines()
-        story.append(text("Panel at a glance", HEADING))
-        rows = [[text(h, CELL_BOLD) for h in (("Phase",) if named else ()) + (
-            "ICC(A,1)", "Krippendorff's alpha", "Groups", "Policies alike? (p)", "Reading")]]
-        for phase in self.view.phases:
-            panel = self.view.panel(phase)
-            a1 = None if panel is None or panel.icc is None else panel.icc.estimates["a1"]
-            alpha = None if panel is None else panel.alpha
-            groups = () if panel is None else panel.groups
-            hom_p = None if panel is None or panel.homogeneity is None else panel.homogeneity[1]
-            reading = []
-            if a1 is not None:
-                reading.append(f"single-rater agreement {wording.icc_reading(a1)} ({wording.ICC_BANDS.source})")
-            if alpha is not None:
-                reading.append(f"alpha {wording.ALPHA_BANDS.words(alpha)}")
-            rows.append(([text(phase or "", CELL)] if named else []) + [text(fmt(a1), CELL), text(fmt(alpha), CELL),
-                         text(str(len(groups)) if groups else "n/a", CELL), text(wording.fmt_p(hom_p), CELL),
-                         text("; ".join(reading) or "not available yet", CELL)])
-        widths = ([55] if named else []) + [55, 80, 45, 80]
-        table = fitted_table(rows, widths + [CONTENT_WIDTH - sum(widths)], hAlign="LEFT")
-        table.setStyle(table_style())
-        story.append(table)
-        n_warn = len(self.all_warnings())
-        story.append(text(f"The data-quality section lists {n_warn} note(s) from reading and fitting the data.",
-                          SMALL))
-        story.append(Spacer(1, 6))
-        story.append(text(wording.CAUTIONS[0], NOTE))
+        story.append(text(wording.LENS_SECTION_LEGEND, SMALL))
         return story
 
     def rater_table(self) -> list:
@@ -203,20 +460,26 @@ class PanelReport:
         head = ("Rater",) + (("Phase",) if named else ()) + (
             "Cases", "Repeats", "R_s", "Retest r", "Offset", "Misalloc.", "G rubric", "Group", "Flags")
         rows = [[text(h, CELL_BOLD) for h in head]]
+        shared = {phase: set(self.panel_wide(phase)) for phase in self.view.phases}
         for e in self.view.raters:
+            own = ", ".join(wording.flag_short(f) for f in e.flags if f not in shared.get(e.phase, ()))
             rows.append([text(e.rater, CELL)] + ([text(e.phase or "", CELL)] if named else []) + [
                          text(str(e.n_cases), CELL),
                          text(str(e.n_repeats), CELL), text(fmt(_policy_r(e)), CELL),
                          text(fmt(_retest_r(e)), CELL), text(fmt(_offset(e)), CELL),
                          text(fmt(_misallocation(e)), CELL), text(fmt(_g_rubric(e)), CELL),
-                         text(e.group or "", CELL), text(", ".join(e.flags), CELL)])
+                         text(e.group or "", CELL), text(own, CELL)])
         widths = [62] + ([40] if named else []) + [34, 40, 32, 40, 36, 44, 42, 34]
         widths.append(CONTENT_WIDTH - sum(widths))
         table = fitted_table(rows, widths, repeatRows=1)
         table.setStyle(table_style(("FONT", (0, 1), (-1, -1), BASE_FONT, 7.5)))
         story.append(table)
         story.append(text("Offset: positive means judgments run higher than the panel's on the same cases. "
-                          "Misalloc.: misallocation against the rubric (0 = the rubric's weights).", SMALL))
+                          "Misalloc.: misallocation against the rubric (0 = the rubric's weights). Flags: in "
+                          "short words (page 1 gives each in full with its figure); a flag that every rater "
+                          + ("of a phase " if named else "") + "carries is stated once on page 1 and left out "
+                          "here.", SMALL))
+        story += [text(line, SMALL) for line in self._reach_lines()]
         few = [f"{e.rater} ({e.phase})" if e.phase else e.rater for e in self.view.raters
                if e.lens is not None and e.lens.small_sample_note]
         if few:

@@ -211,19 +211,26 @@ class LensView:
     intervals: dict = field(default_factory=dict)  # "r_a"/"g"/"c"/"r_e" -> (low, high), None ends when absent
     small_sample_note: str | None = None  # the caution results.json carries when under 10 cases per term
     cases_per_term: float | None = None
+    gain: float | None = None              # model_vs_rater.gain: leave-one-out model validity - r_a
+    gain_interval: tuple[float | None, float | None] = (None, None)   # its 95% interval (Zou 2007)
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> LensView:
         numbers = {k: _num(d, k, path) for k in ("r_a", "g", "c", "r_e", "r_s", "model_validity",
                                                  "model_validity_cv")}
-        verdict = _get(_block(d, "model_vs_rater", path) or {}, "verdict", f"{path}.model_vs_rater")
+        versus = _block(d, "model_vs_rater", path) or {}
+        verdict = _get(versus, "verdict", f"{path}.model_vs_rater")
+        vpath = f"{path}.model_vs_rater"
         intervals = {k: (_num(d, f"{k}_ci_low", path), _num(d, f"{k}_ci_high", path))
                      for k in ("r_a", "g", "c", "r_e")}
         small = bool(_get(d, "small_sample", path))
         note = _get(d, "small_sample_note", path, default=None) if small else None
         return cls(**numbers, verdict=str(verdict), summary=str(_get(d, "summary", path)),
                    intervals=intervals, small_sample_note=None if note is None else str(note),
-                   cases_per_term=_num(d, "cases_per_term", path))
+                   cases_per_term=_num(d, "cases_per_term", path),
+                   gain=_num(versus, "gain", vpath, default=None),
+                   gain_interval=(_num(versus, "ci_low", vpath, default=None),
+                                  _num(versus, "ci_high", vpath, default=None)))
 
 
 @dataclass(frozen=True)
@@ -324,6 +331,113 @@ def _changes(d: Mapping, path: str) -> dict[str, tuple[ChangeIntoPhase, ...]] | 
 
 
 @dataclass(frozen=True)
+class FlagFigure:
+    """The figure behind one flag, as the chair's first page states it (numbers only;
+    :func:`calibrate.report.wording.flag_reason` puts the words on them).
+
+    ``measure`` names the figure (one of :data:`FLAG_MEASURES`), ``about`` the cue or
+    attribute it concerns, ``interval`` its 95% interval where the audit computed one,
+    ``p_adjusted`` the Holm-adjusted p of a tested flag, ``reference`` a figure it is set
+    against (the panel's share of middle judgments)."""
+
+    measure: str
+    value: float | None
+    interval: tuple[float, float] | None = None
+    p_adjusted: float | None = None
+    about: str | None = None
+    reference: float | None = None
+
+
+FLAG_MEASURES = ("r_s", "retest_r", "offset", "drift_level", "drift_consistency", "cutoff", "added_r2",
+                 "bend_test", "cases_per_term", "n_cases", "sd_ratio", "middle_share", "vif")
+
+
+def _pair(value: Any, path: str) -> tuple[float, float] | None:
+    """A [low, high] list as an interval, or None when absent or open."""
+    if not isinstance(value, (list, tuple)) or len(value) != 2:
+        return None
+    low, high = (_number(v, path) for v in value)
+    return None if low is None or high is None else (low, high)
+
+
+def _ends(block: Mapping, low: str, high: str, path: str) -> tuple[float, float] | None:
+    a, b = _num(block, low, path, default=None), _num(block, high, path, default=None)
+    return None if a is None or b is None else (a, b)
+
+
+def flag_figures(d: Mapping, path: str) -> dict[str, FlagFigure]:
+    """Per flag of a rater entry, the figure that set it. Best effort: a figure an older
+    results.json lacks is None, and the sentence then names the flag without a number."""
+    flags = set(map(str, _list(d, "flags", path)))
+    policy = d.get("policy") or {}
+    retest = d.get("retest") or {}
+    severity = d.get("severity") or {}
+    drift = d.get("drift") or {}
+    cutoff = d.get("cutoff") or {}
+    found: dict[str, FlagFigure] = {}
+    pp, sp = f"{path}.policy", f"{path}.severity"
+    if "inconsistent" in flags:
+        found["inconsistent"] = FlagFigure("r_s", _num(policy, "r", pp, default=None),
+                                           _pair(policy.get("r_ci"), f"{pp}.r_ci"))
+    if "low_retest" in flags:
+        n_pairs = retest.get("n_pairs")
+        found["low_retest"] = FlagFigure("retest_r", _num(retest, "r", f"{path}.retest", default=None),
+                                         _pair(retest.get("r_ci"), f"{path}.retest.r_ci"),
+                                         about=None if n_pairs is None else str(int(n_pairs)))
+    for flag in ("lenient", "severe"):
+        if flag in flags:
+            found[flag] = FlagFigure("offset", _num(severity, "offset", sp, default=None),
+                                     _ends(severity, "ci_low", "ci_high", sp))
+    for flag in ("narrow_range", "wide_range"):
+        if flag in flags:
+            found[flag] = FlagFigure("sd_ratio", _num(severity.get("range_use") or {}, "sd_ratio",
+                                                      f"{sp}.range_use", default=None))
+    if "central_tendency" in flags:
+        middle = severity.get("central_tendency") or {}
+        found["central_tendency"] = FlagFigure(
+            "middle_share", _num(middle, "middle_share", f"{sp}.central_tendency", default=None),
+            reference=_num(middle, "panel_middle_share", f"{sp}.central_tendency", default=None))
+    if "drift" in flags:
+        dp = f"{path}.drift"
+        if "consistency" in (drift.get("reasons") or ()) and "leniency" not in (drift.get("reasons") or ()):
+            found["drift"] = FlagFigure("drift_consistency", _num(drift, "r_s_change", dp, default=None),
+                                        _ends(drift, "r_s_change_ci_low", "r_s_change_ci_high", dp),
+                                        _num(drift, "consistency_p_adjusted", dp, default=None))
+        else:
+            found["drift"] = FlagFigure("drift_level", _num(drift, "slope_per_session", dp, default=None),
+                                        _ends(drift, "ci_low", "ci_high", dp),
+                                        _num(drift, "p_adjusted", dp, default=None))
+    if "cutoff_rule" in flags:
+        found["cutoff_rule"] = FlagFigure("cutoff", _num(cutoff, "threshold", f"{path}.cutoff", default=None),
+                                          p_adjusted=_num(cutoff, "p_adjusted", f"{path}.cutoff", default=None),
+                                          about=_optional_text(cutoff.get("cue")))
+    if "excluded_attribute" in flags:
+        tested = [(str(a), r) for a, r in (d.get("excluded") or {}).items() if isinstance(r, Mapping)
+                  and r.get("flagged")]
+        if tested:
+            attr, res = min(tested, key=lambda t: (t[1].get("p_adjusted") is None, t[1].get("p_adjusted") or 0))
+            where = f"{path}.excluded.{attr}"
+            found["excluded_attribute"] = FlagFigure("added_r2", _num(res, "delta_r2", where, default=None),
+                                                     p_adjusted=_num(res, "p_adjusted", where, default=None),
+                                                     about=attr)
+    if "curvature" in flags:
+        reset = policy.get("reset") or {}
+        found["curvature"] = FlagFigure("bend_test", _num(reset, "statistic", f"{pp}.reset", default=None),
+                                        p_adjusted=_num(reset, "p_adjusted", f"{pp}.reset", default=None))
+    if "few_cases" in flags:
+        found["few_cases"] = FlagFigure("cases_per_term", _num(policy, "cases_per_weight", pp, default=None))
+    if "too_few_cases" in flags:
+        found["too_few_cases"] = FlagFigure("n_cases", _num(d, "n_cases", path, default=None))
+    if "collinear_cues" in flags:
+        vif = {str(k): v for k, v in (policy.get("gvif") or policy.get("vif") or {}).items()
+               if isinstance(v, (int, float)) and math.isfinite(v)}
+        if vif:
+            cue = max(vif, key=vif.get)
+            found["collinear_cues"] = FlagFigure("vif", float(vif[cue]), about=cue)
+    return found
+
+
+@dataclass(frozen=True)
 class RaterView:
     """One rater in one phase, as the reports read it."""
 
@@ -348,6 +462,7 @@ class RaterView:
     warnings: tuple[str, ...]
     unavailable: dict[str, str]
     changes: dict[str, tuple[ChangeIntoPhase, ...]] | None = None   # with 2+ phases, into this phase
+    evidence: dict[str, FlagFigure] = field(default_factory=dict)   # flag -> the figure that set it
 
     def reason(self, section: str) -> str | None:
         """Why the audit left ``section`` empty, when it recorded a reason."""
@@ -382,7 +497,8 @@ class RaterView:
             group=_optional_text(_get(d, "group", path)),
             flags=tuple(map(str, _list(d, "flags", path))), excluded=excluded,
             warnings=collect_warnings(d), unavailable={str(k): str(v) for k, v in unavailable.items()},
-            changes=_changes(d, path))
+            changes=_changes(d, path),
+            evidence=flag_figures(d, path))
 
 
 # ---------------------------------------------------------------- panels
@@ -392,6 +508,7 @@ class IccView:
     intervals: dict[str, tuple[float, float]]       # form -> (low, high), where computed
     method: str | None
     ci_method: str | None
+    readers_per_case: float | None = None   # k of the k-reader forms: harmonic mean readers per file
 
 
 @dataclass(frozen=True)
@@ -467,6 +584,8 @@ class PanelView:
     # the chance of changing side with one more reading that lists a file (optional: older
     # results folders lack it)
     files_change_level: float | None = None
+    homogeneity_per_cue: dict[str, tuple[float | None, float | None]] = field(default_factory=dict)
+    alpha_interval: tuple[float, float] | None = None
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> PanelView:
@@ -484,7 +603,9 @@ class PanelView:
             forms = ("i1", "a1", "c1", "ik", "ak", "ck")
             icc = IccView(estimates={k: _num(icc_block, k, f"{path}.icc") for k in forms},
                           intervals=intervals, method=_optional_text(icc_block.get("method") or detail.get("method")),
-                          ci_method=_optional_text(detail.get("ci_method")))
+                          ci_method=_optional_text(detail.get("ci_method")),
+                          readers_per_case=_num(detail, "readers_per_case", f"{path}.agreement.icc_detail",
+                                                default=None))
         vc = _block(d, "variance_components", path)
         grouping_block = _block(d, "grouping", path)
         grouping = None
@@ -538,6 +659,12 @@ class PanelView:
             files_needing_another_read=tuple(map(str, _list(d, "files_needing_another_read", path))),
             files_change_level=_num(d, "files_change_level", path, default=None),
             warnings=collect_warnings(d),
+            alpha_interval=_ends((agreement or {}).get("alpha_detail") or {}, "ci_low", "ci_high",
+                                 f"{path}.agreement.alpha_detail"),
+            homogeneity_per_cue={} if hom is None else {
+                str(cue): (_num(t, "statistic", f"{path}.homogeneity.per_cue.{cue}", default=None),
+                           _num(t, "p_value", f"{path}.homogeneity.per_cue.{cue}", default=None))
+                for cue, t in (hom.get("per_cue") or {}).items() if isinstance(t, Mapping)},
             chance_flags=(None if (chance := _block(d, "chance_flags", path)) is None
                           else ChanceFlagsView.read(chance, f"{path}.chance_flags")))
 
@@ -667,6 +794,6 @@ class ResultsView:
         return next((p for p in self.panels if p.phase == phase), None)
 
 
-__all__ = ["AlignmentView", "CaseToRevisit", "ChangeIntoPhase", "CutoffView", "DriftView", "ExcludedView", "GroupView", "GroupingView",
+__all__ = ["AlignmentView", "CaseToRevisit", "ChangeIntoPhase", "CutoffView", "DriftView", "ExcludedView", "FlagFigure", "GroupView", "GroupingView",
            "IccView", "LensView", "PanelView", "PolicyView", "RaterView", "ResultsView", "ResultsViewError",
            "RetestView", "SeverityView", "collect_warnings"]

@@ -436,3 +436,404 @@ def to_text(value) -> str:
 #: term (the per-rater ``lens.small_sample`` of results.json decides who is named).
 LENS_SMALL_SAMPLE_PANEL = ("Lens figures of {raters} rest on fewer than 10 cases with a known outcome "
                            "per model term: read them as rough, and their intervals as wide.")
+
+
+# ------------------------------------------------------------ the chair's first page
+# Every sentence of page 1 of the panel summary comes from a function below, given the
+# figures it prints; tests/unit/test_panel_page_one.py checks each against its numbers.
+
+#: Flags in the order page 1 raises them: what concerns fairness first, then what a
+#: conversation can change (consistency, level, drift, rules), then the shape of the
+#: judgments. Our own order.
+CONVERSATION_ORDER = ("excluded_attribute", "inconsistent", "low_retest", "severe", "lenient", "drift",
+                      "cutoff_rule", "curvature", "narrow_range", "wide_range", "central_tendency")
+
+#: Flags about the data a rater was given (too few cases, cues that move together), not
+#: about how the rater judged: page 1 lists them after the others and never names a
+#: rater for a conversation because of them. The same set as results.json
+#: ``panels[].chance_flags.data_conditions``.
+DATA_CONDITIONS = ("too_few_cases", "not_fitted", "few_cases", "collinear_cues", "separation")
+
+#: The significance level of page 1's claims on tested figures (two-sided, after Holm).
+CLAIM_ALPHA = 0.05
+
+
+def flag_rank(flag: str) -> int:
+    """Where a flag stands in :data:`CONVERSATION_ORDER` (unknown flags after known
+    ones, data conditions last)."""
+    if flag in CONVERSATION_ORDER:
+        return CONVERSATION_ORDER.index(flag)
+    if flag in DATA_CONDITIONS:
+        return len(CONVERSATION_ORDER) + 1 + DATA_CONDITIONS.index(flag)
+    return len(CONVERSATION_ORDER)
+
+
+def _signed(value: float | None, digits: int = 2) -> str:
+    """A difference with its sign ('+0.12', '-0.05'); one that rounds to zero has none."""
+    if value is None:
+        return "n/a"
+    shown = fmt(value, digits)
+    return ("+" + shown) if value > 0 and float(shown) != 0 else shown
+
+
+def _interval(interval, digits: int = 2) -> str:
+    if not interval:
+        return ""
+    return f", 95% interval {fmt(interval[0], digits)} to {fmt(interval[1], digits)}"
+
+
+def _p_holm(p: float | None) -> str:
+    if p is None:
+        return ""
+    shown = fmt_p(p)
+    return f"p (Holm) {shown}" if shown.startswith("<") else f"p (Holm) = {shown}"
+
+
+def flag_figure_text(figure) -> str:
+    """The number behind a flag, with its interval or adjusted p, from a
+    :class:`~calibrate.report.view.FlagFigure` (empty when the audit recorded none)."""
+    if figure is None or (figure.value is None and figure.p_adjusted is None):
+        return ""
+    m, v = figure.measure, figure.value
+    p = _p_holm(figure.p_adjusted)
+    if m == "r_s":
+        return f"R_s = {fmt(v)}{_interval(figure.interval)}"
+    if m == "retest_r":
+        on = f" on {figure.about} repeated cases" if figure.about else ""
+        return f"test-retest r = {fmt(v)}{_interval(figure.interval)}{on}"
+    if m == "offset":
+        return f"offset {_signed(v)} scale points{_interval(figure.interval)}"
+    if m == "drift_level":
+        return (f"{_signed(v)} scale points from first to last file{_interval(figure.interval)}"
+                + (f", {p}" if p else ""))
+    if m == "drift_consistency":
+        return (f"R_s from the first half to the second {_signed(v)}{_interval(figure.interval)}"
+                + (f", {p}" if p else ""))
+    if m == "cutoff":
+        at = f"{figure.about} = {fmt(v)}" if figure.about else f"{fmt(v)}"
+        return f"a step at {at}" + (f", {p}" if p else "")
+    if m == "added_r2":
+        who = figure.about or "the attribute"
+        return f"{who} adds R² {fmt(v, 3)}" + (f", {p}" if p else "")
+    if m == "bend_test":
+        return f"test of a bend: {p}" if p else ""
+    if m == "cases_per_term":
+        return f"{fmt(v, 1)} cases per weight"
+    if m == "n_cases":
+        return f"{fmt(v, 0)} cases"
+    if m == "sd_ratio":
+        return f"spread of judgments {fmt(v)} times the panel's"
+    if m == "middle_share":
+        panel = f", against {fmt(100 * figure.reference, 0)}% for the panel" if figure.reference is not None else ""
+        return f"{fmt(100 * v, 0)}% of judgments in the middle of the scale{panel}"
+    if m == "vif":
+        return f"variance inflation {fmt(v, 1)} for {figure.about}"
+    return fmt(v)
+
+
+def flag_reason(flag: str, figure=None) -> str:
+    """One reason on page 1: the flag in plain words, then its number and interval."""
+    figure_text = flag_figure_text(figure)
+    return flag_words(flag) + (f" ({figure_text})" if figure_text else "")
+
+
+def panel_wide_flags(flag_sets) -> tuple[str, ...]:
+    """Flags that every rater of a phase carries (with at least two raters): page 1 and
+    the flags-first list state them once for the panel instead of once per rater."""
+    flag_sets = [set(f) for f in flag_sets]
+    if len(flag_sets) < 2:
+        return ()
+    common = set.intersection(*flag_sets)
+    return tuple(sorted(common, key=lambda f: (flag_rank(f), f)))
+
+
+def panel_wide_flag_sentence(flag: str, values, n_raters: int, phase: str | None = None,
+                             every_phase: bool = False) -> str:
+    """'All 29 raters: few cases per cue, so the weights are rough (4.7 cases per weight
+    for each).' ``values`` are the figures behind the flag, one per rater entry (None where
+    absent); ``every_phase`` when it is shared by every rater in every phase."""
+    where = " in every phase" if every_phase else (f" in phase {phase}" if phase else "")
+    line = f"All {n_raters} raters{where}: {flag_words(flag)}"
+    figures = [f for f in values if f is not None and f.value is not None]
+    if figures and len(figures) == len(values) and len({f.measure for f in figures}) == 1 and \
+            figures[0].measure in ("cases_per_term", "n_cases", "r_s", "sd_ratio"):
+        digits = 1 if figures[0].measure == "cases_per_term" else (0 if figures[0].measure == "n_cases" else 2)
+        low, high = min(f.value for f in figures), max(f.value for f in figures)
+        unit = {"cases_per_term": " cases per weight", "n_cases": " cases", "r_s": "", "sd_ratio": ""}[
+            figures[0].measure]
+        lead = {"r_s": "R_s ", "sd_ratio": "spread ratio "}.get(figures[0].measure, "")
+        span = (f"{fmt(low, digits)}{unit} for each" if fmt(low, digits) == fmt(high, digits)
+                else f"{lead}{fmt(low, digits)} to {fmt(high, digits)}{unit}")
+        line += f" ({lead if fmt(low, digits) == fmt(high, digits) else ''}{span})"
+    if flag in DATA_CONDITIONS:
+        return line + ". This is a feature of the study, so no rater is named for it."
+    return line + ". A pattern of the whole panel: it is stated once here rather than for each rater."
+
+
+def icc_verdict(estimate: float | None, interval=None) -> str:
+    """An ICC in words, as far as its interval allows: one band word when the whole
+    interval lies in that band, otherwise the bands of its two ends ('poor to moderate')."""
+    words = ICC_BANDS.words(estimate)
+    if words is None:
+        return "not available"
+    if not interval:
+        return words
+    low, high = ICC_BANDS.words(interval[0]), ICC_BANDS.words(interval[1])
+    return low if low == high else f"{low} to {high}"
+
+
+def readers_text(k: float | None) -> str:
+    """'4 readers per file', or '3.6 readers per file on average' (the harmonic mean the
+    k-reader ICC forms use when files got different numbers of readers)."""
+    if k is None:
+        return "the readers each file had"
+    if abs(k - round(k)) < 0.05:
+        n = int(round(k))
+        return f"{n} reader" + ("" if n == 1 else "s") + " per file"
+    return f"{fmt(k, 1)} readers per file on average"
+
+
+def decision_reliability_text(estimate: float | None, interval, k: float | None) -> str:
+    """The reliability of the decisions as the files were actually read: ICC(A,k) for
+    the mean of the k readers each file got (k = the harmonic mean readers per file)."""
+    if estimate is None:
+        return "not available"
+    return (f"{icc_verdict(estimate, interval)}: {fmt(estimate)}{_interval(interval)}, "
+            f"with {readers_text(k)}")
+
+
+def single_reader_text(estimate: float | None, interval) -> str:
+    """Single-rater agreement ICC(A,1), with its verdict."""
+    if estimate is None:
+        return "not available"
+    return f"{icc_verdict(estimate, interval)}: {fmt(estimate)}{_interval(interval)}"
+
+
+def alpha_text(value: float | None, interval=None) -> str:
+    if value is None:
+        return "not available"
+    low, high = (ALPHA_BANDS.words(interval[0]), ALPHA_BANDS.words(interval[1])) if interval else (None, None)
+    words = ALPHA_BANDS.words(value) if not interval or low == high else f"between {low} and {high}"
+    return f"{words}: {fmt(value)}{_interval(interval)}"
+
+
+def policies_alike_answer(p_value: float | None) -> str:
+    """'Policies alike?' answered in words from the homogeneity test's p."""
+    if p_value is None:
+        return "Not tested in this study."
+    shown = fmt_p(p_value)
+    p = f"p {shown[0]} {shown[1:]}" if shown.startswith("<") else f"p = {shown}"
+    if p_value < CLAIM_ALPHA:
+        return f"No: the raters weigh the cues differently ({p})."
+    return (f"Not shown to differ: the test finds no clear difference in how the raters weigh the "
+            f"cues ({p}); that is not proof that they weigh them alike.")
+
+
+#: model_vs_rater verdicts (calibrate.lens.model.VERDICTS) in the words of the lens section.
+MODEL_VS_RATER_WORDS = {
+    "model_better": "the model of the rater predicted the outcome better",
+    "rater_better": "the rater predicted the outcome better than the model",
+    "about_same": "cannot be told apart on these cases",
+    "neither_tracks": "neither tracked the outcome clearly",
+    "not_available": "too few cases with a known outcome",
+}
+
+
+def lens_panel_sentence(verdicts, gains=()) -> str:
+    """Page 1's lens result: how many raters' own models out-predicted them.
+
+    ``verdicts`` are the raters' model_vs_rater verdicts; ``gains`` the (rater, gain,
+    low, high) of those the model beat, largest first, of which three are named."""
+    verdicts = list(verdicts)
+    n = len(verdicts)
+    tested = [v for v in verdicts if v != "not_available"]
+    if not tested:
+        return "Too few cases with a known outcome to compare any rater with a model of their own policy."
+    better = verdicts.count("model_better")
+    worse = verdicts.count("rater_better")
+    same = verdicts.count("about_same")
+    neither = verdicts.count("neither_tracks")
+    missing = n - len(tested)
+    parts = [f"{better} of {n} raters were out-predicted by a model of their own policy (the gain's "
+             "interval above zero)"]
+    if worse:
+        parts.append(f"{worse} out-predicted their model")
+    if same:
+        parts.append(f"{same} cannot be told apart from it")
+    if neither:
+        parts.append(f"for {neither} neither tracked the outcome clearly")
+    if missing:
+        parts.append(f"{missing} had too few cases with a known outcome")
+    line = "; ".join(parts) + "."
+    named = list(gains)[:2]
+    if named:
+        line += (" Largest gain: " if len(named) == 1 else " Largest gains: ") + ", ".join(
+            f"{r} {_signed(g)} ({fmt(lo)} to {fmt(hi)})" for r, g, lo, hi in named) + "."
+    return line
+
+
+# --------------------------------------------------------------- next steps
+
+
+def step_conversation(rater: str | None, flag: str | None, figure=None, others=(),
+                      phase: str | None = None) -> str:
+    """Next step 1: the reader to talk with first, and why; ``others`` the further
+    readers flagged for how they judged (not for the data they had), in order."""
+    if rater is None or flag is None:
+        return ("No reader needs a conversation on these checks: no rater-specific flag was set "
+                "beyond what chance alone would give.")
+    where = f" (phase {phase})" if phase else ""
+    others = list(others)
+    more = ""
+    if len(others) == 1:
+        more = f" Then {others[0]}."
+    elif 1 < len(others) <= 3:
+        more = f" Then {', '.join(others[:-1])} and {others[-1]}."
+    elif len(others) > 3:
+        more = f" Then {', '.join(others[:3])} and {len(others) - 3} more (the every-rater table lists them all)."
+    return f"Talk first with {rater}{where}: {flag_reason(flag, figure)}.{more}"
+
+
+def cue_to_discuss(per_cue: dict) -> tuple[str | None, float | None]:
+    """The cue on which the raters' weights differ most clearly: the smallest p of the
+    per-cue tests of equal weights (largest statistic on ties), with its Holm-adjusted p
+    (for the smallest p, Holm's first step: p times the number of cues)."""
+    tested = [(c, s, p) for c, (s, p) in per_cue.items() if p is not None]
+    if not tested:
+        return None, None
+    cue, _, p = min(tested, key=lambda t: (t[2], -(t[1] or 0.0)))
+    return cue, min(1.0, p * len(tested))
+
+
+def step_cue(cue: str | None, p_adjusted: float | None) -> str:
+    """Next step 2: the cue to agree on as a panel."""
+    if cue is None or p_adjusted is None:
+        return "Compare the cue weights by rater (the heat map below) before the next round of reading."
+    if p_adjusted < CLAIM_ALPHA:
+        return (f"Agree as a panel how much {cue} should count: it is the cue whose weight differs most "
+                f"clearly between raters ({_p_holm(p_adjusted)}, across the cues).")
+    return (f"No single cue's weight differs clearly between raters (the clearest, {cue}: "
+            f"{_p_holm(p_adjusted)}, across the cues); the weights are worth a look, not a ruling.")
+
+
+def readers_target(needed: dict, reached_now: float | None) -> tuple[float | None, int | None]:
+    """The target reliability to plan for: the lowest target of ``readers_needed.phi``
+    ({"0.70": 3, "0.80": 5}) that the decisions do not reach now (else the highest)."""
+    targets = []
+    for key, n in (needed or {}).items():
+        try:
+            targets.append((float(key), None if n is None else int(n)))
+        except (TypeError, ValueError):
+            continue
+    if not targets:
+        return None, None
+    targets.sort()
+    for target, n in targets:
+        if reached_now is None or reached_now < target:
+            return target, n
+    return targets[-1]
+
+
+def step_readers(k_now: float | None, reached_now: float | None, target: float | None,
+                 needed: int | None, reached_at_needed: float | None, interval_now=None) -> str:
+    """Next step 3: how many readers per file would reach the target reliability
+    (D-study of the variance components; phi, the absolute form, as decisions at a
+    cut-off use the level of the mean). ``reached_now`` is ICC(A,k) of the files as
+    read, ``interval_now`` its 95% interval: the target counts as reached for sure
+    only when the whole interval lies above it."""
+    if target is None:
+        return "The readers-per-file study is not available for this study."
+    now = readers_text(k_now)
+    if reached_now is not None and reached_now >= target:
+        if interval_now and interval_now[0] < target:
+            return (f"Keep at least {now}: the decisions reach a reliability of {fmt(reached_now)}"
+                    f"{_interval(interval_now)}; the target of {fmt(target)} lies inside the interval, so it "
+                    "is likely but not yet sure.")
+        return (f"Keep {now}: the decisions already reach a reliability of {fmt(reached_now)}"
+                f"{_interval(interval_now)}, above the target of {fmt(target)}.")
+    if needed is None:
+        return (f"No number of readers per file that the readers-per-file study tried brings the reliability "
+                f"of the decisions to {fmt(target)}; agreeing on the cues' weights (step 2) would do more "
+                "than adding readers.")
+    if k_now is not None and needed <= k_now and reached_at_needed is not None:
+        return (f"Give every file at least {needed} readers: the readers-per-file table puts the reliability "
+                f"of the decisions with {needed} at {fmt(reached_at_needed)} (target {fmt(target)}).")
+    if k_now is not None and abs(k_now - round(k_now)) < 0.05:
+        extra = needed - int(round(k_now))
+        now = f"{int(round(k_now))}, " + ("one more" if extra == 1 else f"{extra} more")
+    else:
+        now = f"now {now}"
+    if reached_at_needed is None:   # beyond the rows of the printed table
+        return (f"Give each file {needed} readers ({now}): the readers-per-file study puts the reliability of "
+                f"the decisions at the target of {fmt(target)} from {needed} readers (now {fmt(reached_now)}).")
+    return (f"Give each file {needed} readers ({now}): the reliability of the decisions would "
+            f"rise from {fmt(reached_now)} to {fmt(reached_at_needed)} (target {fmt(target)}).")
+
+
+def lens_number(value: float | None, signed: bool = False) -> str:
+    return _signed(value) if signed else fmt(value)
+
+
+LENS_SECTION_INTRO = (
+    "How well each rater's judgments tracked the recorded outcome, and why. r_a (achievement): the "
+    "correlation of the judgments with the outcome. G (matching): how closely the rater's policy "
+    "agrees with the rule that best predicts the outcome from the same cues. C: what the judgments "
+    "and the outcome share beyond the cues. R_s: how closely the judgments follow the rater's own "
+    "policy. R_e: how well the cues predict the outcome at all. The last columns set a model of the "
+    "rater's own policy, applied the same way every time and tested on cases it had not seen, against "
+    "the rater: a positive gain means the model predicted the outcome better.")
+
+LENS_SECTION_LEGEND = (
+    "Smaller figures under each number: its 95% interval, low and high end (case bootstrap, BCa; for "
+    "the model's gain, Zou 2007). "
+    "R_s here is on the cases with a known outcome; its interval on all cases is in the rater's own "
+    "report. The lens model equation ties them together: r_a = G R_e R_s + C sqrt(1-R_e²) sqrt(1-R_s²) "
+    "(Tucker 1964). A winner is named only when the gain's interval excludes zero.")
+
+
+def flag_reason_by_phase(flag: str, figures) -> str:
+    """A flag raised in several phases, named once: 'words (before: figure; after: figure)'.
+    ``figures`` are (phase, FlagFigure or None) pairs."""
+    shown = [(phase, flag_figure_text(fig)) for phase, fig in figures]
+    if not any(t for _, t in shown):
+        return flag_words(flag) + " (" + ", ".join(p for p, _ in shown if p) + ")"
+    return flag_words(flag) + " (" + "; ".join(f"{p}: {t}" if t else f"{p}" for p, t in shown) + ")"
+
+
+LENS_SELECTED_SHORT = ("The outcome is known only for selected cases, so the lens figures are biased: "
+                       "a rough guide (see the lens section).")
+
+
+def bands_note() -> str:
+    """Page 1's one-line key to the words put on ICC and alpha (the bands above)."""
+    def lines(scale):
+        return ", ".join((f"{b.low:.2f}" if round(b.low, 2) == b.low else f"{b.low:.3f}").lstrip("0")
+                         for b in scale.bands[1:])
+    return (f"Words: our own rules of thumb (ICC lines at {lines(ICC_BANDS)}; alpha at {lines(ALPHA_BANDS)}); "
+            "two words ('moderate to good'): the 95% interval spans a line.")
+
+
+#: The flags in two or three words, for the every-rater table's narrow column (page 1
+#: gives each in full, :data:`FLAG_WORDS`, with its figure).
+FLAG_SHORT_WORDS = {
+    "too_few_cases": "too few cases",
+    "few_cases": "few cases",
+    "not_fitted": "no policy fitted",
+    "collinear_cues": "cues move together",
+    "curvature": "bent rule",
+    "inconsistent": "low consistency",
+    "separation": "perfect split",
+    "low_retest": "low test-retest",
+    "lenient": "runs high",
+    "severe": "runs low",
+    "narrow_range": "narrow range",
+    "wide_range": "wide range",
+    "central_tendency": "middle of scale",
+    "drift": "drift",
+    "cutoff_rule": "cut-off",
+    "excluded_attribute": "excluded attribute",
+}
+
+
+def flag_short(flag: str) -> str:
+    return FLAG_SHORT_WORDS.get(flag, flag.replace("_", " "))

@@ -165,3 +165,16 @@ def test_no_report_text_says_from_memory_or_null(built):
         text = " ".join(page_texts(path))
         assert "from memory" not in text, path.name
         assert "null" not in text, path.name
+
+
+def test_the_chairs_first_page_fits_on_one_page(built):
+    # page 1 of the demo's panel summary holds the flags, the decisions' reliability,
+    # the lens result and all three next steps; the lens section starts page 2
+    out, *_ = built
+    pages = [" ".join(p.split()) for p in page_texts(out / "panel-summary.pdf")]
+    first = pages[0]
+    for part in ("Flags first", "Decisions as the files were read", "Policies alike?", "Lens model:",
+                 "Next steps", "1. Talk first with", "2. ", "3. "):
+        assert part in first, part
+    assert "cutoff_rule" not in first and "excluded_attribute" not in first
+    assert "Lens model: judgments against the outcome" in pages[1]
