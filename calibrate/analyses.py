@@ -144,6 +144,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
                              ["rater", "case", "judgment"]].reset_index(drop=True)
     complete = set(np.asarray(design.case_ids)[design.complete_rows()])
     fit_first = fit_first.loc[fit_first["case"].isin(complete)].reset_index(drop=True)
+    if not spec.cues:  # agreement-only study: every analysis that models judgments on cues is left out
+        fit_first = fit_first.iloc[:0]
     first = ph.first[["rater", "case", "judgment"]]
     step = progress or (lambda name: None)
 
@@ -217,6 +219,11 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
                          chance_flags=chance)
 
 
+#: The sections of a rater entry that model judgments on the cues (null in a study without cues).
+CUE_SECTIONS = ("policy", "lens", "alignment", "drift", "cutoff")
+NO_CUES_REASON = "the study lists no cues; this analysis models the judgments on the cues in [cues]"
+
+
 def _unavailable_reasons(entry: dict, rater: str, ph: PhaseData, spec: StudySpec, counts: dict) -> dict:
     """Why each null section of a rater entry is null, in words a report can print.
 
@@ -240,6 +247,8 @@ def _unavailable_reasons(entry: dict, rater: str, ph: PhaseData, spec: StudySpec
     for key in ("agreement", "severity", "drift", "cutoff"):
         if entry[key] is None:
             reasons[key] = generic
+    if not spec.cues:  # an agreement-only study: the cue analyses were never run
+        reasons.update({key: NO_CUES_REASON for key in CUE_SECTIONS if entry[key] is None})
     return reasons
 
 
@@ -297,6 +306,8 @@ def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool) -> dict:
     ag = a.agreement.to_dict() if a.agreement is not None else {}
     entry["icc"] = ag.get("icc")
     entry["alpha"] = ag.get("alpha")
+    entry["fleiss_kappa"] = ag.get("fleiss_kappa")
+    entry["gwet_ac1"] = ag.get("gwet_ac1")
     entry["agreement"] = ag or None
     g = a.gstudy.to_dict() if a.gstudy is not None else {}
     entry["variance_components"] = g.get("variance_components")
@@ -414,7 +425,10 @@ def _collect_tables(tables: dict[str, pd.DataFrame], ph: PhaseData, a: PhaseAnal
         frames["readers_per_file"] = pd.DataFrame(a.gstudy.to_dict()["d_study"])
     if a.agreement is not None:
         detail = a.agreement.to_dict().get("icc_detail") or {}
-        frames["agreement"] = pd.DataFrame(detail.get("forms", []))
+        categories = [{"form": c["coefficient"], "label": c["label"], "estimate": c["estimate"],
+                       "ci_low": c["ci_low"], "ci_high": c["ci_high"], "method": c["method"]}
+                      for c in a.agreement.to_dict().get("category_detail", [])]
+        frames["agreement"] = pd.DataFrame(detail.get("forms", []) + categories)
     if a.chance_flags is not None:
         frames["chance_flags"] = a.chance_flags.to_frame()
     if a.grouping is not None:

@@ -123,6 +123,12 @@ class JudgmentTable:
 TABLE_KINDS = "CSV (UTF-8), XLSX or Parquet"
 
 
+#: The study-level note of an agreement-only study (no [cues]); the audit's reasons quote it.
+NO_CUES_NOTE = ("the study lists no cues: test-retest, agreement, severity, readers per file and "
+                "the files view run; the policy fits, lens model, rubric alignment, cut-off rules, "
+                "drift, rater pairs, homogeneity and groups need cues in [cues] and are left out")
+
+
 def _unreadable(path: Path, why: str) -> DataError:
     return DataError([DataProblem(f"the table cannot be read: {why}", file=path.name)])
 
@@ -403,6 +409,8 @@ def _build(spec: StudySpec, out: Collector) -> JudgmentTable | None:
         return None
     data = check_sequence(data, cols, out, spec.numeric_missing_words)
 
+    if not spec.cues:
+        out.warn(NO_CUES_NOTE)
     cases, row_of_case, case_file = _case_table(spec, data, cases_df, out)
     cases = check_numeric_cues(cases, spec.cues, row_of_case, case_file, out,
                                spec.numeric_missing_words)
