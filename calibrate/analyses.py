@@ -13,7 +13,11 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+import difflib
+
 from . import __version__
+from .at_a_glance import glance_html, glance_text
+from .errors import CalibrateError, check_seed
 from .agreement.files import FileView, file_view
 from .agreement.icc import AgreementResult, panel_agreement
 from .agreement.readers import GStudyResult, generalizability
@@ -97,6 +101,22 @@ class AuditResult:
             "raters": list(self.raters),
             "panels": list(self.panels),
         })
+
+    def __repr__(self) -> str:
+        return glance_text(self)
+
+    def _repr_html_(self) -> str:
+        return glance_html(self)
+
+    def table(self, name: str) -> pd.DataFrame:
+        """One tidy table (a copy) by name: ``result.table("policies")``; names in ``result.tables``."""
+        if not isinstance(name, str) or name not in self.tables:
+            names = sorted(self.tables)
+            close = difflib.get_close_matches(str(name), names, n=1)
+            hint = f" Did you mean {close[0]!r}?" if close else ""
+            raise CalibrateError(f"This audit has no table {name!r}.{hint} Its tables: {', '.join(names)} "
+                                 "(a table is absent when its analysis did not run on this study).")
+        return self.tables[name].copy()
 
     def rater_entry(self, rater: str, phase: str) -> dict:
         for entry in self.raters:
@@ -339,6 +359,7 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
     n_boot : bootstrap resamples for the policy intervals.
     progress : optional callable taking a short step name (for a progress display).
     """
+    _check_options(seed, n_boot)
     table = study if isinstance(study, JudgmentTable) else load_study(study)
     spec = table.spec
     seed = spec.seed if seed is None else int(seed)
@@ -386,6 +407,14 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
         criterion_only_for_selected=spec.criterion_only_for_selected,
         provenance={"spec": spec_record(spec), "libraries": library_versions()},
     )
+
+
+def _check_options(seed, n_boot) -> None:
+    """The audit's own options, checked before any work (a user error, not a traceback)."""
+    check_seed(seed)
+    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or int(n_boot) < 20:
+        raise CalibrateError(f"n_boot (bootstrap resamples for the policy intervals) must be a whole "
+                             f"number of 20 or more (1000 by default); got {n_boot!r}.")
 
 
 # The libraries whose versions can change a figure or a report; read from the installed
