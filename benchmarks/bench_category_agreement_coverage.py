@@ -1,4 +1,4 @@
-"""Coverage of the case-bootstrap intervals of Fleiss' kappa and Gwet's AC1.
+"""Coverage of the case-bootstrap (BCa) intervals of Fleiss' kappa and Gwet's AC1.
 
 The data users have: a 1-7 scale with a ceiling (latent case level + a fixed offset per
 rater + noise, shifted up so that many judgments pile up at 7, rounded and clipped), or

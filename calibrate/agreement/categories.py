@@ -28,7 +28,8 @@ ordinal scale, 0 and 1 on a binary one), so a category nobody used still counts 
 ``q`` for AC1. Both coefficients treat the categories as unordered (exact
 agreement only); Krippendorff's alpha at the ordinal level is the ordered companion.
 
-The interval is a percentile bootstrap over cases (readers held as they are), whose
+The interval is a bias-corrected and accelerated bootstrap over cases (Efron 1987; the
+acceleration from the leave-one-case-out values; readers held as they are), whose
 coverage ``benchmarks/bench_category_agreement_coverage.py`` measures.
 """
 
@@ -40,9 +41,11 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError
+from ..policy.resampling import bca_interval
 from ..result_base import ResultMixin
 
-CATEGORY_CI = "percentile bootstrap over cases ({n_boot} resamples; readers of each case kept)"
+CATEGORY_CI = ("bias-corrected and accelerated bootstrap over cases ({n_boot} resamples; readers of "
+               "each case kept)")
 COEFFICIENTS = (("fleiss_kappa", "Fleiss' kappa"), ("gwet_ac1", "Gwet's AC1"))
 
 
@@ -91,21 +94,31 @@ def _case_terms(counts: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]
     return agree, shares, r >= 1
 
 
+def _from_sums(sum_agree, n_pairable, sum_shares, n_rated) -> tuple[np.ndarray, np.ndarray]:
+    """Fleiss' kappa and AC1 from the summed case terms (any leading shape; categories last)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        p_a = sum_agree / n_pairable
+        pi = sum_shares / n_rated[..., None]
+        q = sum_shares.shape[-1]
+        pe_fleiss = (pi**2).sum(axis=-1)
+        pe_gwet = (pi * (1.0 - pi)).sum(axis=-1) / (q - 1.0)
+        return (p_a - pe_fleiss) / (1.0 - pe_fleiss), (p_a - pe_gwet) / (1.0 - pe_gwet)
+
+
 def _coefficients(agree: np.ndarray, shares: np.ndarray, rated: np.ndarray,
                   weights: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Fleiss' kappa and AC1 for each row of case ``weights`` (resamples x cases)."""
     pairable = np.isfinite(agree)
-    w_pair = weights * pairable
-    with np.errstate(invalid="ignore", divide="ignore"):
-        p_a = (w_pair @ np.where(pairable, agree, 0.0)) / w_pair.sum(axis=1)
-        w_rated = weights * rated
-        pi = (w_rated @ shares) / w_rated.sum(axis=1)[:, None]
-        q = shares.shape[1]
-        pe_fleiss = (pi**2).sum(axis=1)
-        pe_gwet = (pi * (1.0 - pi)).sum(axis=1) / (q - 1.0)
-        kappa = (p_a - pe_fleiss) / (1.0 - pe_fleiss)
-        ac1 = (p_a - pe_gwet) / (1.0 - pe_gwet)
-    return kappa, ac1
+    return _from_sums(weights @ np.where(pairable, agree, 0.0), weights @ pairable.astype(float),
+                      weights @ shares, weights @ rated.astype(float))
+
+
+def _leave_one_out(agree: np.ndarray, shares: np.ndarray, rated: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Both coefficients with each case left out in turn (the jackknife), in O(cases x categories)."""
+    pairable = np.isfinite(agree)
+    terms = np.where(pairable, agree, 0.0)
+    return _from_sums(terms.sum() - terms, pairable.sum() - pairable, shares.sum(axis=0) - shares,
+                      rated.sum() - rated.astype(float))
 
 
 def fleiss_kappa(counts) -> float:
@@ -168,16 +181,14 @@ def category_agreement(first: pd.DataFrame, *, categories, n_boot: int = 500,
     readers = counts.sum(axis=1)
     lows, highs = [np.nan, np.nan], [np.nan, np.nan]
     method = "no interval"
-    if n_boot > 0 and counts.shape[0] >= 2:
+    n = counts.shape[0]
+    if n_boot > 0 and n >= 2:
         gen = np.random.default_rng(rng)
-        n = counts.shape[0]
         weights = gen.multinomial(n, np.full(n, 1.0 / n), size=n_boot).astype(float)
-        tail = (1.0 - confidence) / 2.0
-        for j, draws in enumerate(_coefficients(agree, shares, rated, weights)):
-            finite = draws[np.isfinite(draws)]
-            if finite.size:
-                low, high = np.quantile(finite, [tail, 1.0 - tail])
-                lows[j], highs[j] = float(low), float(high)
+        boot = np.column_stack(_coefficients(agree, shares, rated, weights))
+        jack = np.column_stack(_leave_one_out(agree, shares, rated))
+        low, high = bca_interval(np.array([e[0] for e in estimates]), boot, jack, alpha=1.0 - confidence)
+        lows, highs = [float(v) for v in low], [float(v) for v in high]
         method = CATEGORY_CI.format(n_boot=n_boot)
     return tuple(
         CategoryAgreement(coefficient=name, label=label, estimate=float(estimates[j][0]),

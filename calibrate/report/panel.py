@@ -212,6 +212,9 @@ class PanelReport:
         panel = self.view.panel(phase)
         if panel is None:
             return [CondPageBreak(100), text(f"Panel results{label} are not in the results.", BODY)]
+        if not self.view.cues:   # agreement-only data: the sections on cue weights have nothing to show
+            return [CondPageBreak(200), text(f"Agreement and readers per file{label}", HEADING),
+                    text(wording.NO_CUES_PANEL, BODY)] + self.agreement(panel)
         story = [CondPageBreak(250), text(f"Cue weights by rater{label}", HEADING)]
         story += self.heat_map(phase)
         story += [CondPageBreak(200), text(f"Groups of raters{label}", HEADING)]

@@ -89,3 +89,14 @@ def test_panel_agreement_carries_both_on_ordinal_and_binary_not_on_continuous():
     continuous = panel_agreement(data, scale="continuous", rng=1)
     assert continuous.category_values() == {"fleiss_kappa": None, "gwet_ac1": None}
     assert continuous.to_dict()["category_detail"] == []
+
+
+def test_leave_one_out_shortcut_equals_refitting_without_each_case():
+    from calibrate.agreement.categories import _case_terms, _coefficients, _leave_one_out
+
+    data = _panel("varying")
+    counts, _ = category_counts(data["case"], data["judgment"], categories=range(1, 8))
+    terms = _case_terms(counts)
+    n = counts.shape[0]
+    refit = np.column_stack(_coefficients(*terms, 1.0 - np.eye(n)))
+    assert np.allclose(np.column_stack(_leave_one_out(*terms)), refit, rtol=0, atol=1e-12, equal_nan=True)
