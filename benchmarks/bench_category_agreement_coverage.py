@@ -17,36 +17,21 @@ from __future__ import annotations
 import argparse
 import time
 
+import sys
+from pathlib import Path
+
 import numpy as np
-import pandas as pd
 from scipy import stats
 
-from calibrate.agreement.categories import category_agreement, category_counts, fleiss_kappa, gwet_ac1
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "unit"))
 
-N_RATERS = 6
-OFFSETS = np.array([-0.6, -0.3, 0.0, 0.1, 0.4, 0.7])
+from category_simulation import simulate, truth  # noqa: E402
 
-
-def simulate(rng, n_cases, readers, binary):
-    """One panel's first judgments (rater, case, judgment)."""
-    level = rng.normal(size=n_cases)
-    who = np.array([rng.choice(N_RATERS, size=readers, replace=False) for _ in range(n_cases)])
-    cases = np.repeat(np.arange(n_cases), readers)
-    raters = who.ravel()
-    latent = 5.6 + 1.2 * level[cases] + OFFSETS[raters] + rng.normal(0, 0.8, size=cases.size)
-    judgment = (latent > 6.0).astype(float) if binary else np.clip(np.round(latent), 1, 7)
-    return pd.DataFrame({"rater": raters, "case": cases, "judgment": judgment})
-
-
-def truth(n_cases, readers, binary, seed=99):
-    data = simulate(np.random.default_rng(seed), 400_000, readers, binary)
-    counts, _ = category_counts(data["case"].to_numpy(), data["judgment"].to_numpy(),
-                                categories=[0, 1] if binary else range(1, 8))
-    return fleiss_kappa(counts), gwet_ac1(counts)
+from calibrate.agreement.categories import category_agreement  # noqa: E402
 
 
 def run(n_cases, readers, binary, panels, n_boot, rng):
-    true_values = truth(n_cases, readers, binary)
+    true_values = truth(readers, binary)
     hits = np.zeros(2)
     for _ in range(panels):
         data = simulate(rng, n_cases, readers, binary)

@@ -100,3 +100,21 @@ def test_leave_one_out_shortcut_equals_refitting_without_each_case():
     n = counts.shape[0]
     refit = np.column_stack(_coefficients(*terms, 1.0 - np.eye(n)))
     assert np.allclose(np.column_stack(_leave_one_out(*terms)), refit, rtol=0, atol=1e-12, equal_nan=True)
+
+
+def test_bca_interval_covers_on_few_cases_seeded_small_version():
+    # the small seeded version of benchmarks/bench_category_agreement_coverage.py (400 panels
+    # there): 1-7 with a ceiling, 30 cases each read by 3 of 6 raters, 80 panels here
+    from scipy import stats
+
+    from tests.unit.category_simulation import simulate, truth
+
+    true_values = truth(3, False, n_truth=60_000)
+    rng = np.random.default_rng(20261203)
+    hits = np.zeros(2)
+    for _ in range(80):
+        found = category_agreement(simulate(rng, 30, 3, False), categories=range(1, 8), n_boot=300, rng=rng)
+        hits += [c.ci_low <= t <= c.ci_high for c, t in zip(found, true_values)]
+    upper = stats.beta.ppf(0.9995, hits + 1, 80 - hits)   # 99.9% Clopper-Pearson upper bound
+    assert (upper >= 0.93).all(), hits / 80
+    assert (hits / 80 <= 0.995).all(), hits / 80          # not trivially wide

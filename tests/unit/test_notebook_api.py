@@ -130,3 +130,9 @@ def test_bad_options_are_user_errors(options, message):
     data, cases = _judgments()
     with pytest.raises(CalibrateError, match=message):
         calibrate.audit(calibrate.load_study(SPEC, data=data, cases=cases), **options)
+
+
+def test_compare_checks_its_seed_too():
+    data, cases = _judgments()
+    with pytest.raises(CalibrateError, match="seed must be a whole number"):
+        calibrate.compare(calibrate.load_study(SPEC, data=data, cases=cases), seed=-3)
