@@ -6,14 +6,13 @@ reports or the CLI is imported.
 
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass, field, replace
 from functools import cached_property
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
-
-import difflib
 
 from . import __version__
 from .at_a_glance import glance_html, glance_text
@@ -354,7 +353,8 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
 
     Parameters
     ----------
-    study : a JudgmentTable (from :func:`calibrate.data.ingest.load_study`), a StudySpec or a spec path.
+    study : a JudgmentTable (from :func:`calibrate.data.ingest.load_study`), a StudySpec, a spec
+        dict or a spec path.
     seed : resampling seed; defaults to the spec's ``[study] seed``.
     n_boot : bootstrap resamples for the policy intervals.
     progress : optional callable taking a short step name (for a progress display).

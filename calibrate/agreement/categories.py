@@ -187,8 +187,12 @@ def category_agreement(first: pd.DataFrame, *, categories, n_boot: int = 500,
         weights = gen.multinomial(n, np.full(n, 1.0 / n), size=n_boot).astype(float)
         boot = np.column_stack(_coefficients(agree, shares, rated, weights))
         jack = np.column_stack(_leave_one_out(agree, shares, rated))
-        low, high = bca_interval(np.array([e[0] for e in estimates]), boot, jack, alpha=1.0 - confidence)
-        lows, highs = [float(v) for v in low], [float(v) for v in high]
+        for j, estimate in enumerate(e[0] for e in estimates):
+            # undefined (one category only, say): no interval, rather than one from NaN resamples
+            if np.isfinite(estimate) and np.isfinite(jack[:, j]).any():
+                low, high = bca_interval(np.array([estimate]), boot[:, [j]], jack[:, [j]],
+                                         alpha=1.0 - confidence)
+                lows[j], highs[j] = float(low[0]), float(high[0])
         method = CATEGORY_CI.format(n_boot=n_boot)
     return tuple(
         CategoryAgreement(coefficient=name, label=label, estimate=float(estimates[j][0]),

@@ -125,7 +125,7 @@ class JudgmentTable:
 TABLE_KINDS = "CSV (UTF-8), XLSX or Parquet"
 
 
-#: The study-level note of an agreement-only study (no [cues]); the audit's reasons quote it.
+#: The one warning of an agreement-only study (no [cues]), shown by check and kept in results.json.
 NO_CUES_NOTE = ("the study lists no cues: test-retest, agreement, severity, readers per file and "
                 "the files view run; the policy fits, lens model, rubric alignment, cut-off rules, "
                 "drift, rater pairs, homogeneity and groups need cues in [cues] and are left out")
@@ -315,7 +315,7 @@ def _read_sources(spec: StudySpec, out: Collector, given: GivenTables | None = N
     inputs = []
     grids = {name: grid for name, _, grid in given.data}
     for source in spec.data:
-        grid = grids.get(str(source.path)) if given.data else None
+        grid = grids.get(str(source.path))   # None: a file named in the spec
         df = (_given_table(str(source.path), grid, out) if grid is not None
               else _read_one(source.path, "judgments table", "data", out))
         if df is None:

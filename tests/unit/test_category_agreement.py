@@ -118,3 +118,11 @@ def test_bca_interval_covers_on_few_cases_seeded_small_version():
     upper = stats.beta.ppf(0.9995, hits + 1, 80 - hits)   # 99.9% Clopper-Pearson upper bound
     assert (upper >= 0.93).all(), hits / 80
     assert (hits / 80 <= 0.995).all(), hits / 80          # not trivially wide
+
+
+def test_one_category_only_gives_no_interval_and_no_warning():
+    # every reader chose 7: kappa is 0/0 (undefined); AC1's chance term is 0, so AC1 = 1
+    data = pd.DataFrame({"rater": ["a", "b", "a", "b"], "case": ["x", "x", "y", "y"], "judgment": [7.0] * 4})
+    kappa, ac1 = category_agreement(data, categories=range(1, 8), n_boot=50, rng=1)
+    assert np.isnan(kappa.estimate) and np.isnan(kappa.ci_low) and np.isnan(kappa.ci_high)
+    assert ac1.estimate == pytest.approx(1.0)
