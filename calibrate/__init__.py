@@ -9,7 +9,9 @@ The names a notebook user needs, in the order of the work::
     comparison = calibrate.compare(table)        # phases of a study: did the training work?
     calibrate.write_comparison(comparison, "reports/training", overwrite=True)
 
-They load on first use, so ``import calibrate`` (and ``calibrate --help``) stays quick.
+``load_study`` also takes a spec as a dict and the tables as DataFrames
+(``load_study(spec, data=df, cases=cases_df)``); ``result.table("policies")`` gives one
+tidy table, ``result.tables`` all of them. They load on first use, so ``import calibrate`` (and ``calibrate --help``) stays quick.
 """
 
 from __future__ import annotations

@@ -6,6 +6,7 @@ reports or the CLI is imported.
 
 from __future__ import annotations
 
+import difflib
 from dataclasses import dataclass, field, replace
 from functools import cached_property
 from pathlib import Path
@@ -14,6 +15,8 @@ import numpy as np
 import pandas as pd
 
 from . import __version__
+from .at_a_glance import glance_html, glance_text
+from .errors import CalibrateError, check_seed
 from .agreement.files import FileView, file_view
 from .agreement.icc import AgreementResult, panel_agreement
 from .agreement.readers import GStudyResult, generalizability
@@ -101,6 +104,22 @@ class AuditResult:
             "panels": list(self.panels),
         })
 
+    def __repr__(self) -> str:
+        return glance_text(self)
+
+    def _repr_html_(self) -> str:
+        return glance_html(self)
+
+    def table(self, name: str) -> pd.DataFrame:
+        """One tidy table (a copy) by name: ``result.table("policies")``; names in ``result.tables``."""
+        if not isinstance(name, str) or name not in self.tables:
+            names = sorted(self.tables)
+            close = difflib.get_close_matches(str(name), names, n=1)
+            hint = f" Did you mean {close[0]!r}?" if close else ""
+            raise CalibrateError(f"This audit has no table {name!r}.{hint} Its tables: {', '.join(names)} "
+                                 "(a table is absent when its analysis did not run on this study).")
+        return self.tables[name].copy()
+
     def rater_entry(self, rater: str, phase: str) -> dict:
         for entry in self.raters:
             if entry["rater"] == rater and entry["phase"] == phase:
@@ -160,6 +179,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
                              ["rater", "case", "judgment"]].reset_index(drop=True)
     complete = set(np.asarray(design.case_ids)[design.complete_rows()])
     fit_first = fit_first.loc[fit_first["case"].isin(complete)].reset_index(drop=True)
+    if not spec.cues:  # agreement-only study: every analysis that models judgments on cues is left out
+        fit_first = fit_first.iloc[:0]
     first = ph.first[["rater", "case", "judgment"]]
     step = progress or (lambda name: None)
 
@@ -233,6 +254,11 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
                          chance_flags=chance)
 
 
+#: The sections of a rater entry that model judgments on the cues (null in a study without cues).
+CUE_SECTIONS = ("policy", "lens", "alignment", "drift", "cutoff")
+NO_CUES_REASON = "the study lists no cues; this analysis models the judgments on the cues in [cues]"
+
+
 def _unavailable_reasons(entry: dict, rater: str, ph: PhaseData, spec: StudySpec, counts: dict) -> dict:
     """Why each null section of a rater entry is null, in words a report can print.
 
@@ -256,6 +282,8 @@ def _unavailable_reasons(entry: dict, rater: str, ph: PhaseData, spec: StudySpec
     for key in ("agreement", "severity", "drift", "cutoff"):
         if entry[key] is None:
             reasons[key] = generic
+    if not spec.cues:  # an agreement-only study: the cue analyses were never run
+        reasons.update({key: NO_CUES_REASON for key in CUE_SECTIONS if entry[key] is None})
     return reasons
 
 
@@ -313,6 +341,8 @@ def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool) -> dict:
     ag = a.agreement.to_dict() if a.agreement is not None else {}
     entry["icc"] = ag.get("icc")
     entry["alpha"] = ag.get("alpha")
+    entry["fleiss_kappa"] = ag.get("fleiss_kappa")
+    entry["gwet_ac1"] = ag.get("gwet_ac1")
     entry["agreement"] = ag or None
     g = a.gstudy.to_dict() if a.gstudy is not None else {}
     entry["variance_components"] = g.get("variance_components")
@@ -341,11 +371,13 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
 
     Parameters
     ----------
-    study : a JudgmentTable (from :func:`calibrate.data.ingest.load_study`), a StudySpec or a spec path.
+    study : a JudgmentTable (from :func:`calibrate.data.ingest.load_study`), a StudySpec, a spec
+        dict or a spec path.
     seed : resampling seed; defaults to the spec's ``[study] seed``.
     n_boot : bootstrap resamples for the policy intervals.
     progress : optional callable taking a short step name (for a progress display).
     """
+    _check_options(seed, n_boot)
     table = study if isinstance(study, JudgmentTable) else load_study(study)
     spec = table.spec
     seed = spec.seed if seed is None else int(seed)
@@ -445,6 +477,14 @@ def _add_rater_changes(raters: list[dict], table: JudgmentTable, seed: int) -> N
         entry["changes"] = changes
 
 
+def _check_options(seed, n_boot) -> None:
+    """The audit's own options, checked before any work (a user error, not a traceback)."""
+    check_seed(seed)
+    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or int(n_boot) < 20:
+        raise CalibrateError(f"n_boot (bootstrap resamples for the policy intervals) must be a whole "
+                             f"number of 20 or more (1000 by default); got {n_boot!r}.")
+
+
 # The libraries whose versions can change a figure or a report; read from the installed
 # distributions (no time, no host name), so a rerun in the same environment gives the same bytes.
 _KEY_LIBRARIES = ("numpy", "scipy", "pandas", "statsmodels", "matplotlib", "reportlab", "openpyxl")
@@ -482,7 +522,10 @@ def _collect_tables(tables: dict[str, pd.DataFrame], ph: PhaseData, a: PhaseAnal
         frames["readers_per_file"] = pd.DataFrame(a.gstudy.to_dict()["d_study"])
     if a.agreement is not None:
         detail = a.agreement.to_dict().get("icc_detail") or {}
-        frames["agreement"] = pd.DataFrame(detail.get("forms", []))
+        categories = [{"form": c["coefficient"], "label": c["label"], "estimate": c["estimate"],
+                       "ci_low": c["ci_low"], "ci_high": c["ci_high"], "method": c["method"]}
+                      for c in a.agreement.to_dict().get("category_detail", [])]
+        frames["agreement"] = pd.DataFrame(detail.get("forms", []) + categories)
     if a.chance_flags is not None:
         frames["chance_flags"] = a.chance_flags.to_frame()
     if a.grouping is not None:

@@ -8,6 +8,7 @@ traceback for them.
 
 from __future__ import annotations
 
+import numbers
 from dataclasses import dataclass
 
 
@@ -111,6 +112,14 @@ class OutputLockedError(CalibrateError):
 
 class OutputPlaceError(CalibrateError):
     """The output place cannot or must not take a results folder (inputs, mount, not writable)."""
+
+
+def check_seed(seed, *, what: str = "the spec's [study] seed") -> None:
+    """A resampling seed a caller passed: None, or a whole number from 0 to 2^63 - 1 (as the spec's)."""
+    whole = isinstance(seed, numbers.Integral) and not isinstance(seed, bool)   # numpy integers too
+    if seed is not None and not (whole and 0 <= int(seed) < 2**63):
+        raise CalibrateError(f"The seed must be a whole number from 0 to 2^63 - 1 (or None for {what}); "
+                             f"got {seed!r}.")
 
 
 class CalibrateWarning(UserWarning):

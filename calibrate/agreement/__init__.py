@@ -1,7 +1,9 @@
-"""How far the readers of the same files agree: ICC forms and Krippendorff's alpha,
+"""How far the readers of the same files agree: ICC forms, Krippendorff's alpha, Fleiss' kappa
+and Gwet's AC1,
 each rater's agreement with the rest of the panel, severity, readers per file
 (G- and D-study) and the per-file view."""
 
+from .categories import CategoryAgreement, category_agreement, fleiss_kappa, gwet_ac1
 from .files import FileRow, FileView, file_view
 from .icc import (
     AgreementResult,
@@ -19,6 +21,7 @@ from .with_panel import PeerAgreementSet, RaterPeerAgreement, agreement_with_pan
 __all__ = [
     "AgreementResult",
     "AlphaEstimate",
+    "CategoryAgreement",
     "FileRow",
     "FileView",
     "GStudyResult",
@@ -29,8 +32,11 @@ __all__ = [
     "SeverityResult",
     "VarianceComponents",
     "agreement_with_panel",
+    "category_agreement",
     "file_view",
+    "fleiss_kappa",
     "generalizability",
+    "gwet_ac1",
     "icc_anova",
     "krippendorff_alpha",
     "panel_agreement",

@@ -1,4 +1,5 @@
-"""Agreement across raters on first judgments: ICC forms, Krippendorff's alpha, kappa.
+"""Agreement across raters on first judgments: ICC forms, Krippendorff's alpha, kappa
+(Fleiss' kappa and Gwet's AC1 on categories come from :mod:`calibrate.agreement.categories`).
 
 ICC forms follow Shrout & Fleiss (1979) and McGraw & Wong (1996): ``i`` is the
 one-way form (1,·), ``a`` absolute agreement (A,· = Shrout & Fleiss 2,·), ``c``
@@ -23,6 +24,8 @@ from scipy.stats import f as f_dist
 
 from ..errors import DataError
 from ..result_base import ResultMixin, jsonable
+from .categories import COEFFICIENTS as CATEGORY_COEFFICIENTS
+from .categories import CategoryAgreement, category_agreement
 from .readers import ComponentEstimates, henderson_components
 from .offsets import (
     CrossedLayout,
@@ -513,6 +516,12 @@ class AgreementResult(ResultMixin):
     n_cases: int
     n_judgments: int
     warnings: tuple[str, ...] = ()
+    categories: tuple[CategoryAgreement, ...] = ()   # Fleiss' kappa, Gwet's AC1 (ordinal, binary)
+
+    def category_values(self) -> dict[str, float | None]:
+        """{'fleiss_kappa': ..., 'gwet_ac1': ...}; None on a continuous scale (no categories)."""
+        found = {c.coefficient: c.estimate for c in self.categories}
+        return {name: found.get(name) for name, _ in CATEGORY_COEFFICIENTS}
 
     def icc_values(self) -> dict[str, float]:
         return {e.form: e.estimate for e in self.icc}
@@ -530,6 +539,8 @@ class AgreementResult(ResultMixin):
             },
             "alpha": self.alpha.estimate,
             "alpha_detail": self.alpha.to_dict(),
+            **self.category_values(),
+            "category_detail": [c.to_dict() for c in self.categories],
             "exact_agreement": self.exact_agreement,
             "adjacent_agreement": self.adjacent_agreement,
             "dominant_category": {"value": self.dominant_value, "share": self.dominant_share},
@@ -547,6 +558,8 @@ class AgreementResult(ResultMixin):
         rows.append({"coefficient": f"Krippendorff's alpha ({a.level})", "form": "alpha", "k": np.nan,
                      "estimate": a.estimate, "ci_low": a.ci_low, "ci_high": a.ci_high,
                      "method": a.method})
+        rows += [{"coefficient": c.label, "form": c.coefficient, "k": np.nan, "estimate": c.estimate,
+                  "ci_low": c.ci_low, "ci_high": c.ci_high, "method": c.method} for c in self.categories]
         return pd.DataFrame(rows)
 
 
@@ -660,10 +673,14 @@ def panel_agreement(
         alpha = _alpha_with_parametric_interval(alpha, layout, scale, scale_min, scale_max,
                                                 n_boot, confidence, gen)
     exact = adjacent = dom_value = dom_share = np.nan
+    categories = ()
     if scale != "continuous":
         exact, adjacent = pairwise_agreement(layout.case_index, layout.y)
         if scale == "binary":
             adjacent = np.nan
+        categories = category_agreement(data, categories=_scale_categories(layout.y, scale, scale_min,
+                                                                          scale_max),
+                                        n_boot=n_boot, confidence=confidence, rng=gen)
         values, counts = np.unique(layout.y, return_counts=True)
         top = int(np.argmax(counts))
         dom_value, dom_share = float(values[top]), float(counts[top] / counts.sum())
@@ -686,4 +703,17 @@ def panel_agreement(
         dominant_share=float(dom_share),
         n_raters=R, n_cases=C, n_judgments=N,
         warnings=tuple(warnings),
+        categories=categories,
     )
+
+
+def _scale_categories(y: np.ndarray, scale: str, scale_min: float | None,
+                      scale_max: float | None) -> np.ndarray:
+    """The categories Fleiss' kappa and AC1 count: 0 and 1 on a binary scale, every whole
+    value between the ends of an ordinal one (with any other value seen)."""
+    seen = np.unique(y)
+    if scale == "binary":
+        return np.union1d(seen, [0.0, 1.0])
+    if scale_min is not None and scale_max is not None:
+        return np.union1d(seen, np.arange(np.ceil(scale_min), np.floor(scale_max) + 1.0))
+    return seen

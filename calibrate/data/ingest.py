@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import csv
 import io
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -23,6 +24,7 @@ import pandas as pd
 from ..errors import DataError, DataProblem
 from ..safe_files import sha256_of
 from .cues import CueDesign, build_cue_design
+from .frames import GivenTables, given_tables, grid_sha256, study_spec
 from .rules import (
     FILE,
     PHASE,
@@ -49,7 +51,7 @@ from .rules import (
     report_missing_cue,
     too_few_cases,
 )
-from .spec import DEFAULT_MISSING_WORDS, StudySpec, read_spec
+from .spec import DEFAULT_MISSING_WORDS, StudySpec
 
 
 # The results key of the one phase of a study that declares none. Reports print no
@@ -121,6 +123,12 @@ class JudgmentTable:
 
 
 TABLE_KINDS = "CSV (UTF-8), XLSX or Parquet"
+
+
+#: The one warning of an agreement-only study (no [cues]), shown by check and kept in results.json.
+NO_CUES_NOTE = ("the study lists no cues: test-retest, agreement, severity, readers per file and "
+                "the files view run; the policy fits, lens model, rubric alignment, cut-off rules, "
+                "drift, rater pairs, homogeneity and groups need cues in [cues] and are left out")
 
 
 def _unreadable(path: Path, why: str) -> DataError:
@@ -239,8 +247,11 @@ def read_table(path: Path, *, missing_words: tuple[str, ...] | None = DEFAULT_MI
 # ----------------------------------------------------------------------------- main
 
 
-def load_study(spec: StudySpec | str | Path) -> JudgmentTable:
-    """Read and validate a study: the spec (a path or a StudySpec) and its tables.
+def load_study(spec: StudySpec | str | Path | Mapping, *, data=None, cases=None) -> JudgmentTable:
+    """Read and validate a study: the spec (a path, a dict of its tables or a StudySpec) and its tables.
+
+    ``data`` (a DataFrame, or {phase: DataFrame}) and ``cases`` (a DataFrame) take the place
+    of the spec's files and pass the same rules; the caller's DataFrames are not changed.
 
     Raises
     ------
@@ -250,18 +261,19 @@ def load_study(spec: StudySpec | str | Path) -> JudgmentTable:
         listing every data problem (file, row, column); warnings are not raised
         but kept in ``JudgmentTable.warnings``.
     """
-    table, problems = inspect_study(spec)
+    table, problems = inspect_study(spec, data=data, cases=cases)
     if table is None:
         raise DataError([p for p in problems if p.severity == "error"])
     return table
 
 
-def inspect_study(spec: StudySpec | str | Path) -> tuple[JudgmentTable | None, list[DataProblem]]:
+def inspect_study(spec: StudySpec | str | Path | Mapping, *, data=None,
+                  cases=None) -> tuple[JudgmentTable | None, list[DataProblem]]:
     """Like :func:`load_study` but returns ``(table or None, every problem)`` for ``check``."""
-    if not isinstance(spec, StudySpec):
-        spec = read_spec(spec)
+    given = given_tables(data, cases)
+    spec = study_spec(spec, given)
     out = Collector()
-    table = _build(spec, out)
+    table = _build(spec, out, given)
     if out.errors:
         return None, out.items
     return table, out.items
@@ -283,23 +295,44 @@ def _read_one(path: Path, what: str, key: str, out: Collector) -> pd.DataFrame |
         return None
 
 
-def _read_sources(spec: StudySpec, out: Collector) -> tuple[list[pd.DataFrame], pd.DataFrame | None,
-                                                            list[dict]]:
-    """Read every judgments table (tagged with its file and phase) and the cases table."""
+def _given_table(name: str, grid: pd.DataFrame, out: Collector) -> pd.DataFrame | None:
+    """A caller's DataFrame (as a grid) read like a file: header checked, row numbers added."""
+    try:
+        df = _with_header(Path(name), grid)
+    except DataError as exc:
+        out.items.extend(exc.problems)
+        return None
+    df[ROW] = np.arange(len(df)) + 2
+    return df
+
+
+def _read_sources(spec: StudySpec, out: Collector, given: GivenTables | None = None,
+                  ) -> tuple[list[pd.DataFrame], pd.DataFrame | None, list[dict]]:
+    """Read every judgments table (tagged with its file and phase) and the cases table; tables
+    the caller passed (``given``) stand in for the spec's files."""
+    given = given or GivenTables()
     frames = []
     inputs = []
+    grids = {name: grid for name, _, grid in given.data}
     for source in spec.data:
-        df = _read_one(source.path, "judgments table", "data", out)
+        grid = grids.get(str(source.path))   # None: a file named in the spec
+        df = (_given_table(str(source.path), grid, out) if grid is not None
+              else _read_one(source.path, "judgments table", "data", out))
         if df is None:
             continue
-        inputs.append({"path": source.path.name, "sha256": sha256_of(source.path)})
+        inputs.append({"path": source.path.name,
+                       "sha256": grid_sha256(grid) if grid is not None else sha256_of(source.path)})
         df[FILE] = source.path.name
         df.attrs["file"] = source.path.name
         if source.phase is not None:
             df[PHASE] = source.phase
         frames.append(df)
     cases_df = None
-    if spec.cases is not None:
+    if given.cases is not None:
+        cases_df = _given_table(spec.cases.name, given.cases, out)
+        if cases_df is not None:
+            inputs.append({"path": spec.cases.name, "sha256": grid_sha256(given.cases)})
+    elif spec.cases is not None:
         cases_df = _read_one(spec.cases, "cases table", "cases", out)
         if cases_df is not None:
             inputs.append({"path": spec.cases.name, "sha256": sha256_of(spec.cases)})
@@ -378,14 +411,14 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
                      fit_raters=fit_raters, too_few=too_few)
 
 
-def _build(spec: StudySpec, out: Collector) -> JudgmentTable | None:
+def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None) -> JudgmentTable | None:
     """The door: read, apply the input rules in order, split by phase.
 
     Returns None as soon as a step has found an error (every error of that step
     is collected first).
     """
     cols = spec.columns
-    frames, cases_df, inputs = _read_sources(spec, out)
+    frames, cases_df, inputs = _read_sources(spec, out, given)
     if not frames or out.errors:
         return None
     cases_df = check_columns_exist(spec, frames, cases_df, out)
@@ -403,6 +436,8 @@ def _build(spec: StudySpec, out: Collector) -> JudgmentTable | None:
         return None
     data = check_sequence(data, cols, out, spec.numeric_missing_words)
 
+    if not spec.cues:
+        out.warn(NO_CUES_NOTE)
     cases, row_of_case, case_file = _case_table(spec, data, cases_df, out)
     cases = check_numeric_cues(cases, spec.cues, row_of_case, case_file, out,
                                spec.numeric_missing_words)

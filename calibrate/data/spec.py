@@ -480,11 +480,16 @@ def _parse_cue(cue: str, rule: Any, columns: dict[str, str], problems: list[str]
 
 
 def _parse_cues(doc: dict, columns: dict[str, str], problems: list[str]) -> tuple[CueRule, ...]:
-    """[cues]: at least one cue; none may also be a role column."""
-    cues_raw = doc.get("cues")
-    if not isinstance(cues_raw, dict) or not cues_raw:
-        problems.append("the [cues] table is missing or empty; list each cue as column = \"numeric\" "
-                        "or \"categorical\".")
+    """[cues]: none may also be a role column; absent or empty for agreement-only data.
+
+    A study without cues (raters x cases, nothing known about the cases) still has
+    test-retest, agreement, severity, readers per file and the files view; the
+    analyses that model judgments on cues are left out and say so (see ingest).
+    """
+    cues_raw = doc.get("cues", {})
+    if not isinstance(cues_raw, dict):
+        problems.append("[cues] must be a table of column = \"numeric\" or \"categorical\"; "
+                        "leave it out for agreement-only data (raters x cases, no cues).")
         cues_raw = {}
     cues = (_parse_cue(cue, rule, columns, problems) for cue, rule in cues_raw.items())
     return tuple(c for c in cues if c is not None)
@@ -556,6 +561,10 @@ def _parse_excluded(doc: dict, cue_names: list[str], role_columns: set[str],
         if col in role_columns:
             problems.append(f"[excluded] '{col}' is also named in [columns].")
     excluded = tuple(str(c) for c in cols)
+    if excluded and not cue_names:
+        problems.append("[excluded] needs at least one cue in [cues]: the check asks whether an "
+                        "attribute adds to the rater's policy on the cues. List the cues, or "
+                        "remove [excluded] for agreement-only data.")
     if len(set(excluded)) != len(excluded):
         problems.append("[excluded] lists a column twice.")
     return excluded

@@ -178,10 +178,16 @@ def _strong_pairs(correlations: dict) -> str:
     return ", ".join(strong) or "none"
 
 
+def _per_term(value: float) -> str:
+    """Cases per model term, or a dash in a study without cues (no terms to count)."""
+    return f"{value:.1f}" if np.isfinite(value) else "-"
+
+
 def format_summary(summary: DataSummary) -> str:
     """The data summary as text for the terminal."""
     lines = [f"Cues: {summary.n_cues} ({summary.n_design_terms} model terms: "
-             f"{', '.join(summary.design_terms)})"]
+             f"{', '.join(summary.design_terms)})" if summary.n_cues else
+             "Cues: none (agreement-only study: the analyses that model judgments on cues are left out)"]
     if summary.reference_levels:
         lines.append("Reference levels: " + ", ".join(f"{k} = {v}" for k, v in
                                                       summary.reference_levels.items()))
@@ -217,7 +223,7 @@ def format_summary(summary: DataSummary) -> str:
         lines.append(f"  {'rater':<20} {'cases':>6} {'repeats':>8} {'all':>6} {'cases/term':>11}")
         for r in ph.per_rater:
             lines.append(f"  {r['rater'][:20]:<20} {r['n_cases']:>6} {r['n_repeats']:>8} "
-                         f"{r['n_judgments']:>6} {r['cases_per_term']:>11.1f}")
+                         f"{r['n_judgments']:>6} {_per_term(r['cases_per_term']):>11}")
         if ph.raters_without_fit:
             lines.append("  Too few usable cases for a policy fit: " + ", ".join(ph.raters_without_fit))
     return "\n".join(lines)

@@ -43,6 +43,9 @@ from ..result_base import ResultMixin, jsonable
 
 #: Default limit on the number of rater pairs kept in full (the furthest apart).
 #: 2,016 pairs is every pair of a 64-rater panel.
+#: Shared cases a pair needs per cue term (with terms + 3 the least): a rule of our own,
+#: loose because the view describes a pair, it does not test one.
+CASES_PER_TERM = 4.0
 DEFAULT_MAX_PAIRS = 2016
 
 # Pair rows are materialised in chunks of at most this many (pair x case) cells,
@@ -107,9 +110,15 @@ class RaterPairsResult(ResultMixin):
     pairs: tuple[RaterPair, ...]
     n_pairs_eligible: int
     n_pairs_kept: int
-    min_shared: int
+    min_shared: int           # the threshold applied: shared cases a pair needs
     max_pairs: int
     warnings: tuple[str, ...] = ()
+    cases_per_term: float | None = None   # the rule behind min_shared (None: min_shared given)
+    n_terms: int = 0
+    n_pairs_total: int = 0    # every pair of raters in the phase
+    most_shared: int = 0      # the most cases any pair shares
+    threshold: str = ""       # the rule in words, for results.json and the report
+    left_out: str | None = None   # why pairs are left out, in words (None: every pair is in)
 
     def to_frame(self) -> pd.DataFrame:
         columns = [f for f in RaterPair.__dataclass_fields__]
@@ -153,7 +162,8 @@ def compare_rater_pairs(
     design: CueDesign,
     first: pd.DataFrame,
     *,
-    min_shared: int = 20,
+    cases_per_term: float = CASES_PER_TERM,
+    min_shared: int | None = None,
     max_pairs: int = DEFAULT_MAX_PAIRS,
 ) -> RaterPairsResult:
     """Interpersonal lens model for every pair of raters with enough shared cases.
@@ -175,8 +185,10 @@ def compare_rater_pairs(
     design : the phase's cue design.
     first : long table with columns ``rater``, ``case``, ``judgment`` (one row per
         rater and case).
-    min_shared : a pair needs at least this many shared cases (and more than the
-        number of design columns + 2, so both policies can be fitted).
+    cases_per_term : a pair needs this many shared cases per model term (cue column),
+        and never fewer than terms + 3, so both policies can be fitted with a residual.
+    min_shared : a fixed number of shared cases instead of the per-term rule (terms + 3
+        still the least).
     max_pairs : keep at most this many pairs, the furthest apart first (lowest
         r on shared cases); the default keeps every pair of a 64-rater panel.
 
@@ -191,8 +203,9 @@ def compare_rater_pairs(
         Judgments that are missing or whose case lacks a cue under a ``drop``
         rule are left out and counted in a warning.
     """
-    if min_shared < 1 or max_pairs < 1:
-        raise DataError("min_shared and max_pairs must be positive integers.")
+    if (min_shared is not None and min_shared < 1) or max_pairs < 1 or not cases_per_term > 0:
+        raise DataError("min_shared and max_pairs must be positive integers and cases_per_term "
+                        "a positive number.")
     rows = line_up(design, first)
     warnings: list[str] = []
     if rows.n_dropped:
@@ -202,14 +215,16 @@ def compare_rater_pairs(
     p = X.shape[1]
     Y = _rater_case_matrix(rows, X.shape[0])
     n_shared, r_screen = _screen_pairs(Y)
-    need = max(min_shared, p + 3)
+    need, threshold = _pair_threshold(p, cases_per_term, min_shared)
     a_idx, b_idx = np.triu_indices(rows.n_raters, k=1)
-    eligible = n_shared[a_idx, b_idx] >= need
+    shared = n_shared[a_idx, b_idx]
+    eligible = shared >= need
     a_idx, b_idx = a_idx[eligible], b_idx[eligible]
     n_eligible = int(a_idx.size)
-    if n_eligible == 0:
-        warnings.append(f"No pair of raters shares {need} or more cases; the rater-pairs view "
-                        "needs overlapping cases.")
+    most = int(shared.max()) if shared.size else 0
+    left_out = _left_out_reason(shared, need, threshold, most)
+    if n_eligible == 0 and shared.size:
+        warnings.append(f"The rater-pairs view is empty: {left_out}.")
     if n_eligible > max_pairs:
         screen = r_screen[a_idx, b_idx]
         order = np.lexsort((b_idx, a_idx, np.where(np.isnan(screen), np.inf, screen)))
@@ -258,8 +273,37 @@ def compare_rater_pairs(
         ))
     return RaterPairsResult(
         pairs=tuple(pairs), n_pairs_eligible=n_eligible, n_pairs_kept=len(pairs),
-        min_shared=int(min_shared), max_pairs=int(max_pairs), warnings=tuple(warnings),
+        min_shared=int(need), max_pairs=int(max_pairs), warnings=tuple(warnings),
+        cases_per_term=None if min_shared is not None else float(cases_per_term), n_terms=int(p),
+        n_pairs_total=int(shared.size), most_shared=most, threshold=threshold, left_out=left_out,
     )
+
+
+def _pair_threshold(n_terms: int, cases_per_term: float, min_shared: int | None) -> tuple[int, str]:
+    """Shared cases a pair needs, and the rule in words ("12 cases (4 per cue term x 3 terms)")."""
+    floor = n_terms + 3   # both refits keep a residual degree of freedom beyond intercept and terms
+    if min_shared is not None:
+        need = max(int(min_shared), floor)
+        return need, f"{need} cases (a fixed number; at least terms + 3 = {floor})"
+    per_term = int(np.ceil(cases_per_term * n_terms))
+    need = max(per_term, floor)
+    rule = f"{cases_per_term:g} per cue term x {n_terms} term{'s' if n_terms != 1 else ''}"
+    if need > per_term:
+        rule += f" = {per_term}, raised to terms + 3 = {floor} so both policies keep a residual"
+    return need, f"{need} cases ({rule})"
+
+
+def _left_out_reason(shared: np.ndarray, need: int, threshold: str, most: int) -> str | None:
+    """Why pairs are left out, in words; None when every pair shares enough cases."""
+    short = shared < need
+    if not short.any():
+        return None
+    if short.all():
+        return f"no pair shares the {threshold} needed; the most any pair shares is {most}"
+    share_none = int((shared == 0).sum())
+    none_part = f" ({share_none} of them share no case)" if share_none else ""
+    return (f"{int(short.sum())} of {shared.size} pairs share fewer than the {threshold} needed{none_part}; "
+            f"the most such a pair shares is {int(shared[short].max())}")
 
 
 def _chunks(total: int, size: int):

@@ -78,6 +78,8 @@ METHODS = (
     ("Agreement", "the six ICC forms; incomplete designs from variance components",
      "Shrout & Fleiss (1979); McGraw & Wong (1996)"),
     ("Krippendorff's alpha", "agreement beyond chance at the scale's level", "Krippendorff (2011)"),
+    ("Fleiss' kappa, Gwet's AC1", "agreement on the exact category beyond chance (ordinal and binary "
+     "scales); interval by case bootstrap", "Fleiss (1971); Gwet (2008)"),
     ("Readers per file", "generalizability variance components and a D-study",
      "Cronbach et al. (1972); Brennan (2001)"),
     ("Where two readers part ways", "interpersonal lens: agreement split into matching G and consistency",
@@ -492,6 +494,9 @@ class PanelReport:
         panel = self.view.panel(phase)
         if panel is None:
             return [CondPageBreak(100), text(f"Panel results{label} are not in the results.", BODY)]
+        if not self.view.cues:   # agreement-only data: the sections on cue weights have nothing to show
+            return [CondPageBreak(200), text(f"Agreement and readers per file{label}", HEADING),
+                    text(wording.NO_CUES_PANEL, BODY)] + self.agreement(panel)
         story = [CondPageBreak(250), text(f"Cue weights by rater{label}", HEADING)]
         story += self.heat_map(phase)
         story += [CondPageBreak(200), text(f"Groups of raters{label}", HEADING)]
@@ -587,6 +592,13 @@ class PanelReport:
         if alpha is not None:
             story.append(text(f"Krippendorff's alpha = {fmt(alpha)}: {wording.ALPHA_BANDS.words(alpha)} "
                               f"({wording.ALPHA_BANDS.source}).", BODY))
+        if panel.categories:
+            shown = " and ".join(f"{label} = {fmt(est)}" + (f" (95% interval {fmt(lo)} to {fmt(hi)})"
+                                                             if lo is not None and hi is not None else "")
+                                 for label, est, lo, hi in panel.categories)
+            story.append(text(f"{shown}: agreement on the exact scale value beyond chance (1 = every reader "
+                              "chose the same value, 0 = no more than chance). AC1 stays steadier than "
+                              "kappa when most judgments fall on one value.", BODY))
         vc = panel.variance_components
         if vc is not None:
             parts = ", ".join(f"{k} {fmt(v, 3)}" for k, v in vc.items() if v is not None)
@@ -625,8 +637,15 @@ class PanelReport:
 
     def rater_pairs(self, panel: PanelView) -> list:
         pairs = panel.pairs
+        rule = ([text(f"A pair is shown when the two raters share at least {panel.pairs_threshold}, "
+                      "so that both policies can be refitted on their shared cases.", SMALL)]
+                if panel.pairs_threshold else [])
         if not pairs:
+            if panel.pairs_left_out:
+                return [text(f"The pairwise view is empty: {panel.pairs_left_out}.", BODY)] + rule
             return [text("The pairwise view is not available for this study yet.", BODY)]
+        if panel.pairs_left_out:
+            rule.append(text(f"Left out: {panel.pairs_left_out}.", SMALL))
         pairs = sorted(pairs, key=lambda p: p.r if p.r is not None else 9)[:15]
         rows = [[text(h, CELL_BOLD) for h in ("Rater", "Rater", "Shared cases", "r", "G", "C",
                                              "Mainly from")]]
@@ -639,7 +658,7 @@ class PanelReport:
         table = fitted_table(rows, [70, 70, 60, 40, 40, 40, CONTENT_WIDTH - 320], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         return [text("The pairs that agree least, with where their disagreement comes from: weighting the "
-                     "cues differently (low G) or applying a policy inconsistently (low R_s).", BODY), table]
+                     "cues differently (low G) or applying a policy inconsistently (low R_s).", BODY), table] + rule
 
     # ------------------------------------------------------------------ files, excluded, quality
     def files_to_reread(self) -> list:

@@ -185,8 +185,9 @@ class RaterReport:
         e = self.entry
         story = [text("Feedback on your judgments", TITLE),
                  markup(f"Prepared for <b>{escape(wording.to_text(self.rater))}</b> alone. "
-                        "It describes how your judgments relate to the information in the cases, "
-                        "so you can decide which cues and which cases to look at again.", BODY)]
+                        + ("It describes how your judgments relate to the information in the cases, "
+                           "so you can decide which cues and which cases to look at again."
+                           if self.view.cues else wording.NO_CUES_RATER), BODY)]
         phases = [x.phase for x in self.entries]
         story.append(text(counts_sentence(self.entries), BODY))
         only_two = wording.only_first_two_used(max((x.most_presentations or 0) for x in self.entries))

@@ -561,6 +561,17 @@ class ProxyView:
     strong: bool
 
 
+def _category_rows(agreement: Mapping | None, path: str) -> tuple:
+    """(label, estimate, ci_low, ci_high) of Fleiss' kappa and Gwet's AC1, where the scale has categories."""
+    rows = []
+    for i, c in enumerate(_list(agreement or {}, "category_detail", path)):
+        where = f"{path}.category_detail[{i}]"
+        estimate = _num(c, "estimate", where)
+        if estimate is not None:
+            rows.append((str(_get(c, "label", where)), estimate, _num(c, "ci_low", where), _num(c, "ci_high", where)))
+    return tuple(rows)
+
+
 @dataclass(frozen=True)
 class PanelView:
     """One phase's panel-level results."""
@@ -586,6 +597,9 @@ class PanelView:
     files_change_level: float | None = None
     homogeneity_per_cue: dict[str, tuple[float | None, float | None]] = field(default_factory=dict)
     alpha_interval: tuple[float, float] | None = None
+    categories: tuple[tuple[str, float, float | None, float | None], ...] = ()  # (label, est, lo, hi)
+    pairs_threshold: str | None = None    # shared cases a pair needs, in words
+    pairs_left_out: str | None = None     # why pairs are left out, in words
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> PanelView:
@@ -666,7 +680,10 @@ class PanelView:
                            _num(t, "p_value", f"{path}.homogeneity.per_cue.{cue}", default=None))
                 for cue, t in (hom.get("per_cue") or {}).items() if isinstance(t, Mapping)},
             chance_flags=(None if (chance := _block(d, "chance_flags", path)) is None
-                          else ChanceFlagsView.read(chance, f"{path}.chance_flags")))
+                          else ChanceFlagsView.read(chance, f"{path}.chance_flags")),
+            categories=_category_rows(agreement, f"{path}.agreement"),
+            pairs_threshold=None if rater_pairs is None else _optional_text(rater_pairs.get("threshold")),
+            pairs_left_out=None if rater_pairs is None else _optional_text(rater_pairs.get("left_out")))
 
 
 # ---------------------------------------------------------------- the whole result

@@ -127,6 +127,15 @@ def fmt_p(value: float | None) -> str:
     return "<0.001" if value < 0.001 else fmt(value, 3)
 
 
+# A study without cues (agreement-only data): what the reports can and cannot say.
+NO_CUES_PANEL = ("The study lists no cues, so cue weights, groups of raters with similar policies and "
+                 "the pairwise view are left out; agreement, severity, readers per file and the files "
+                 "view use the judgments alone.")
+NO_CUES_RATER = ("It compares your judgments with your colleagues' on the same cases: how high you "
+                 "score, how much of the scale you use and how closely you agree. The study lists no "
+                 "cues, so it cannot say how you weigh them.")
+
+
 def consistency_reading(r_s: float | None) -> str:
     words = CONSISTENCY_BANDS.words(r_s)
     if words is None:

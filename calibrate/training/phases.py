@@ -945,8 +945,9 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
     jobs : phases computed at once (threads; default: the cores available). The result
         does not depend on it.
     """
-    from ..errors import SpecError
+    from ..errors import SpecError, check_seed
 
+    check_seed(seed)
     spec = table.spec
     phases = tuple(p.name for p in table.phases if p.name is not None)
     if len(phases) < 2:

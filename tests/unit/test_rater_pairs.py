@@ -207,3 +207,53 @@ def test_a_dummy_constant_on_the_shared_cases_is_dropped_not_nan():
     for key, value in expected.items():
         assert getattr(pair, key) == pytest.approx(value, abs=1e-10), key
     assert json.loads(json.dumps(pair.to_dict()))["dropped_terms"] == ["letter=weak"]
+
+
+def test_threshold_counts_cases_per_term_and_says_why_pairs_are_left_out():
+    rng = np.random.default_rng(3)
+    design = case_pool(rng, 60, categorical=False)
+    terms = design.matrix.shape[1]
+    ids = np.asarray(design.case_ids)
+    y = rng.normal(size=60)
+    need = max(int(np.ceil(4 * terms)), terms + 3)
+    # a and b share need + 2 cases, a and c share need - 1, b and c none
+    first = pd.concat([
+        pd.DataFrame({"rater": "a", "case": ids[:2 * need + 1], "judgment": y[:2 * need + 1] + rng.normal(size=2 * need + 1)}),
+        pd.DataFrame({"rater": "b", "case": ids[need - 1:2 * need + 1], "judgment": y[need - 1:2 * need + 1]}),
+        pd.DataFrame({"rater": "c", "case": ids[:need - 1], "judgment": y[:need - 1]}),
+    ])
+    result = compare_rater_pairs(design, first)
+    assert result.min_shared == need and result.cases_per_term == 4.0 and result.n_terms == terms
+    assert [(p.rater_a, p.rater_b, p.n) for p in result.pairs] == [("a", "b", need + 2)]
+    assert result.threshold == f"{need} cases (4 per cue term x {terms} terms)"
+    assert result.left_out == (f"2 of 3 pairs share fewer than the {result.threshold} needed "
+                               f"(1 of them share no case); the most such a pair shares is {need - 1}")
+    assert result.to_dict()["threshold"] == result.threshold
+
+
+def test_no_pair_with_enough_cases_names_the_need_and_the_most_shared():
+    rng = np.random.default_rng(4)
+    design = case_pool(rng, 30, categorical=False)
+    terms = design.matrix.shape[1]
+    ids = np.asarray(design.case_ids)
+    first = pd.DataFrame({"rater": np.repeat(["a", "b"], 10), "case": np.tile(ids[:10], 2),
+                          "judgment": rng.normal(size=20)})
+    result = compare_rater_pairs(design, first, cases_per_term=6)
+    need = max(6 * terms, terms + 3)
+    assert result.pairs == () and result.most_shared == 10
+    assert result.left_out == (f"no pair shares the {need} cases (6 per cue term x {terms} terms) "
+                               "needed; the most any pair shares is 10")
+    assert any(w.startswith("The rater-pairs view is empty: no pair shares") for w in result.warnings)
+
+
+def test_a_fixed_number_still_keeps_terms_plus_three():
+    rng = np.random.default_rng(3)
+    design = case_pool(rng, 40, categorical=False)
+    terms = design.matrix.shape[1]
+    ids = np.asarray(design.case_ids)
+    first = pd.DataFrame({"rater": np.repeat(["a", "b"], 40), "case": np.tile(ids, 2),
+                          "judgment": rng.normal(size=80)})
+    result = compare_rater_pairs(design, first, min_shared=1)
+    assert result.min_shared == terms + 3 and result.cases_per_term is None
+    assert result.threshold == f"{terms + 3} cases (a fixed number; at least terms + 3 = {terms + 3})"
+    assert result.left_out is None

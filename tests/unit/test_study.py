@@ -220,3 +220,19 @@ def test_paths_with_control_characters_are_refused(key, value):
 def test_an_absolute_data_path_is_kept(tmp_path):
     spec = parse_spec(_spec(study__data=str(tmp_path / "j.csv")), base_dir=Path("/elsewhere"))
     assert spec.data[0].path == tmp_path / "j.csv"
+
+
+@pytest.mark.parametrize("cues", [None, {}])
+def test_agreement_only_study_needs_no_cues(cues):
+    doc = _spec()
+    if cues is None:
+        del doc["cues"]
+    else:
+        doc["cues"] = cues
+    assert parse_spec(doc, base_dir=Path(".")).cues == ()
+
+
+def test_cues_that_are_not_a_table_and_excluded_without_cues():
+    assert "leave it out for agreement-only data" in _problems(_spec(cues="x1"))
+    msg = _problems(_spec(cues={}, excluded={"columns": ["gender"]}))
+    assert "[excluded] needs at least one cue" in msg
