@@ -31,6 +31,7 @@ NOTE_TITLES = {
                                    "(only the first showing and its repeat are used)",
     "too_few_cases": "Raters with too few usable cases for a policy fit",
     "empty_phase": "Phases without judgments",
+    "no_cues": "The study lists no cues (agreement-only: the analyses that fit judgments on cues are skipped)",
 }
 
 #: Plain names of the analyses whose notes are coded ``<analysis>:<words>``.

@@ -437,7 +437,7 @@ def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None) ->
     data = check_sequence(data, cols, out, spec.numeric_missing_words)
 
     if not spec.cues:
-        out.warn(NO_CUES_NOTE)
+        out.warn(NO_CUES_NOTE, kind="no_cues")
     cases, row_of_case, case_file = _case_table(spec, data, cases_df, out)
     cases = check_numeric_cues(cases, spec.cues, row_of_case, case_file, out,
                                spec.numeric_missing_words)
