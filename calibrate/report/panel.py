@@ -61,6 +61,9 @@ METHODS = (
     ("Excluded attributes", "incremental R² with a nested F test; Holm adjustment", "Holm (1979)"),
     ("Test-retest", "correlation, ICC(A,1), weighted kappa, Bland-Altman limits",
      "Cohen (1968); Bland & Altman (1986)"),
+    ("Every showing used", "([judgment] repeats = \"all\") policies on case means; test-retest as the "
+     "mean r over pairs of showings (BCa interval over cases) and ICC(A,1), ICC(C,1) over showings "
+     "(F intervals)", "McGraw & Wong (1996); Efron (1987)"),
     ("Wording bands", "every band that turns a figure into words is this tool's own rule of thumb (see each)",
      "our own"),
 )
@@ -113,14 +116,15 @@ class PanelReport:
                 lines.append(text(wording.chance_flags_sentence(
                     chance.n_tests, chance.panelwise_rate, chance.expected_chance_flags, chance.flags_shown,
                     phase if several else None), BODY))
-            reach = [(e.retest.n_pairs, e.retest.flag_detectable_below) for e in self.view.raters
-                     if e.phase == phase and e.retest is not None and e.retest.n_pairs
-                     and "low_retest" not in e.flags]
+            checked = [e for e in self.view.raters if e.phase == phase and e.retest is not None
+                       and e.retest.n_pairs and "low_retest" not in e.flags]
+            reach = [(e.retest.n_pairs, e.retest.flag_detectable_below) for e in checked]
             if reach:
                 highest = max((v if v is not None else -1.0) for _, v in reach)
                 lines.append(text(wording.retest_reach_panel_sentence(
                     min(n for n, _ in reach), max(n for n, _ in reach), highest,
-                    phase if several else None), BODY))
+                    phase if several else None,
+                    over_showings=any(e.retest.measure == "mean_pairwise_r" for e in checked)), BODY))
         return lines
 
     # ------------------------------------------------------------------ overview
@@ -198,6 +202,9 @@ class PanelReport:
         story.append(table)
         story.append(text("Offset: positive means judgments run higher than the panel's on the same cases. "
                           "Misalloc.: misallocation against the rubric (0 = the rubric's weights).", SMALL))
+        repeats = wording.panel_repeats_note(self.view.raters)
+        if repeats:
+            story.append(text(repeats, SMALL))
         few = [f"{e.rater} ({e.phase})" if e.phase else e.rater for e in self.view.raters
                if e.lens is not None and e.lens.small_sample_note]
         if few:
@@ -465,7 +472,9 @@ class PanelReport:
 
     def methods(self) -> list:
         rows = [[text(h, CELL_BOLD) for h in ("Analysis", "Method", "Published source")]]
-        rows += [[text(a, CELL), text(m, CELL), text(s, CELL)] for a, m, s in METHODS]
+        every_showing = any(e.repeats_mode == "all" for e in self.view.raters)
+        rows += [[text(a, CELL), text(m, CELL), text(s, CELL)] for a, m, s in METHODS
+                 if every_showing or a != "Every showing used"]
         table = Table(rows, colWidths=[100, 230, CONTENT_WIDTH - 330], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         return [CondPageBreak(200), text("Methods and sources", HEADING), table,

@@ -168,12 +168,21 @@ class RetestView:
     icc_a1: float | None
     mean_abs_diff: float | None
     flag_detectable_below: float | None
+    # which figure r is (results written before the key existed: the first against its repeat)
+    measure: str = "first_repeat_r"
+    presentations: int = 2           # showings per case behind r
+    presentation_pairs: int = 1
+    icc_c1: float | None = None
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> RetestView:
         return cls(n_pairs=int(_get(d, "n_pairs", path)), r=_num(d, "r", path), icc_a1=_num(d, "icc_a1", path),
                    mean_abs_diff=_num(d, "mean_abs_diff", path),
-                   flag_detectable_below=_num(d, "flag_detectable_below", path))
+                   flag_detectable_below=_num(d, "flag_detectable_below", path),
+                   measure=str(_get(d, "measure", path, "first_repeat_r")),
+                   presentations=_count(d, "presentations", path) or 2,
+                   presentation_pairs=_count(d, "presentation_pairs", path) or 1,
+                   icc_c1=_num(d, "icc_c1", path, default=None))
 
 
 @dataclass(frozen=True)
@@ -311,6 +320,11 @@ class RaterView:
     excluded: dict[str, ExcludedView]
     warnings: tuple[str, ...]
     unavailable: dict[str, str]
+    # [judgment] repeats as used ("first-two" in results written before the key existed);
+    # with the policy fitted to case means, the R_s ceiling the audit computed (Spearman-Brown)
+    repeats_mode: str = "first-two"
+    policy_on_means: bool = False
+    ceiling: float | None = None
 
     def reason(self, section: str) -> str | None:
         """Why the audit left ``section`` empty, when it recorded a reason."""
@@ -344,7 +358,11 @@ class RaterView:
                 _get(consistency, "verdict", f"{path}.consistency")),
             group=_optional_text(_get(d, "group", path)),
             flags=tuple(map(str, _list(d, "flags", path))), excluded=excluded,
-            warnings=collect_warnings(d), unavailable={str(k): str(v) for k, v in unavailable.items()})
+            warnings=collect_warnings(d), unavailable={str(k): str(v) for k, v in unavailable.items()},
+            repeats_mode=str(_get(d, "repeats_mode", path, "first-two")),
+            policy_on_means=bool(consistency is not None and consistency.get("policy_on_means", False)),
+            ceiling=None if consistency is None else _num(consistency, "ceiling", f"{path}.consistency",
+                                                          default=None))
 
 
 # ---------------------------------------------------------------- panels
