@@ -44,7 +44,7 @@ COLUMN_NOTES = {
     "p_adjusted": "p-value adjusted for the number of tests (Holm).",
     "n": "Number of observations behind the figure.",
     "n_cases": "Cases the rater judged (first judgments).",
-    "n_repeats": "Cases the rater judged twice (test-retest pairs).",
+    "n_repeats": "Cases the rater judged more than once (test-retest pairs: a case shown several times counts once).",
     "n_judgments": "All judgments kept, repeats included.",
     "usable_cases": "Cases usable in the policy fit (no dropped cue).",
     "cases_per_term": "Usable cases per model term (a rough guide: fewer than 10 gives unstable weights).",
