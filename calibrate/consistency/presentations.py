@@ -77,21 +77,32 @@ def choose_block(counts: np.ndarray) -> int:
 
 
 def presentation_blocks(presentations: pd.DataFrame) -> dict[str, np.ndarray]:
-    """Each rater's (cases x k) block of judgments, cases in natural order of their ids."""
+    """Each rater's (cases x k) block of judgments, cases in the order of their ids.
+
+    One sort of the whole table, then a reshape per block shape: the rows of a kept
+    (rater, case) are its presentations 0..k-1, so sorted they fill the block in order.
+    """
     blocks: dict[str, np.ndarray] = {}
     if presentations.empty:
         return blocks
-    for rater, sub in presentations.groupby("rater", sort=True):
-        counts = sub.groupby("case").size()
-        k = choose_block(counts.to_numpy())
-        if k == 0:
-            continue
-        keep = counts.index[counts.to_numpy() >= k]
-        if len(keep) < MIN_BLOCK_CASES:
-            continue
-        cell = sub.loc[sub["case"].isin(keep) & (sub["nth"] < k)]
-        wide = cell.pivot(index="case", columns="nth", values="judgment").sort_index()
-        blocks[str(rater)] = wide.to_numpy(dtype=float)
+    data = presentations[["rater", "case", "nth", "judgment"]].astype({"rater": str, "case": str})
+    shown = data.groupby(["rater", "case"], sort=True).size()
+    k_of: dict[str, int] = {}
+    for rater, counts in shown.groupby(level="rater", sort=True):
+        k_of[str(rater)] = choose_block(counts.to_numpy())
+    k = data["rater"].map(k_of).to_numpy()
+    case_shown = pd.Series(shown.to_numpy(), index=shown.index)
+    per_row = case_shown.reindex(pd.MultiIndex.from_frame(data[["rater", "case"]])).to_numpy()
+    kept = data.loc[(k >= 2) & (per_row >= k) & (data["nth"].to_numpy() < k)]
+    kept = kept.sort_values(["rater", "case", "nth"], kind="mergesort")
+    n_cases = kept.groupby("rater", sort=True)["case"].nunique()
+    values = kept["judgment"].to_numpy(dtype=float)
+    start = 0
+    for rater, n in n_cases.items():
+        size = int(n) * k_of[rater]
+        if n >= MIN_BLOCK_CASES:
+            blocks[rater] = values[start:start + size].reshape(int(n), k_of[rater])
+        start += size
     return blocks
 
 
