@@ -10,7 +10,9 @@ Simulated experiments (tests/unit/presentation_simulation.py): panels of 29 rate
   covariance by case (``cov_type="cluster"``, CR1 with its small-sample factor and
   t(G - 1) reference), and with the plain OLS covariance that counts presentations;
 - the consistency intervals (``presentation_consistency``): ICC(C,1) and ICC(A,1)
-  F-based, the mean pairwise r's bootstrap over cases, against the population value.
+  F-based, the mean pairwise r's bootstrap over cases, against the population value;
+- the size of the ``low_retest`` test over showings (one-sided F test of ICC(C,1) >= .70
+  at the per-rater 2.5%) on raters whose population consistency is exactly .70.
 
 Each hit rate has its 99.9% Clopper-Pearson interval. ~1 minute on 2 cores.
 
@@ -29,9 +31,10 @@ import pandas as pd
 from scipy.stats import beta
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "unit"))
-from presentation_simulation import CUES, TRUE_WEIGHTS, experiment, population_consistency  # noqa: E402
+from presentation_simulation import (CUES, TRUE_WEIGHTS, experiment, noise_for,  # noqa: E402
+                                     population_consistency)
 
-from calibrate.consistency.presentations import presentation_consistency  # noqa: E402
+from calibrate.consistency.presentations import low_consistency_p, presentation_consistency  # noqa: E402
 from calibrate.data.cues import CueRule, build_cue_design  # noqa: E402
 from calibrate.policy.fit import fit_policies  # noqa: E402
 
@@ -86,6 +89,13 @@ def run(n_panels: int, rounded: bool, seed: int = 16) -> dict:
                                  ("icc_a1", "icc_a1_ci_low", "icc_a1_ci_high"),
                                  ("mean_r", "mean_r_ci_low", "mean_r_ci_high")):
                 hits[name].append(np.array([getattr(r, lo) <= rho <= getattr(r, hi) for r in res.values()]))
+    if not rounded:
+        hits["low_retest_size"] = []
+        for _ in range(n_panels):
+            judgments, _cases = experiment(rng, noise_sd=noise_for(0.70))
+            res = presentation_consistency(judgments, rng=rng, n_boot=0)
+            hits["low_retest_size"].append(np.array([
+                low_consistency_p(r.f_c1, r.n_cases, r.n_presentations) < 0.025 for r in res.values()]))
     out = {"seconds": time.perf_counter() - t0}
     for name, parts in hits.items():
         if parts:

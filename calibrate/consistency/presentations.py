@@ -256,7 +256,7 @@ def _bca_interval(x: np.ndarray, estimate: np.ndarray, boot: np.ndarray, level: 
     high = np.full(G, np.nan)
     for g in range(G):
         finite = boot[g][np.isfinite(boot[g])]
-        if len(finite) < boot.shape[1] / 2 or not np.isfinite(estimate[g]) or not np.isfinite(jack[g]).all():
+        if not len(finite) or len(finite) < boot.shape[1] / 2 or not np.isfinite(estimate[g]) or not np.isfinite(jack[g]).all():
             continue
         below = np.clip((finite < estimate[g]).mean(), 1.0 / len(finite), 1.0 - 1.0 / len(finite))
         z0 = norm.ppf(below)
@@ -281,7 +281,7 @@ def presentation_consistency(presentations: pd.DataFrame, *, rng: np.random.Gene
     presentations : DataFrame with ``rater``, ``case``, ``nth`` (0-based presentation)
         and ``judgment``; cases shown once may be left out.
     rng : seed or generator for the bootstrap over cases.
-    n_boot : bootstrap resamples for the interval of the mean pairwise r.
+    n_boot : bootstrap resamples for the interval of the mean pairwise r (0: no interval).
     """
     rng = np.random.default_rng(rng)
     blocks = presentation_blocks(presentations)

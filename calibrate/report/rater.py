@@ -333,8 +333,11 @@ class RaterReport:
         bounds = self.scale()
         if pairs and bounds:
             story.append(charts.retest_scatter(pairs, low=bounds[0], high=bounds[1]))
+            every = retest is not None and retest.measure == "mean_pairwise_r" and retest.presentations > 2
             story.append(text("Each dot is a case you judged more than once: your first judgment across, "
-                              "your second up; dots on the dashed line got the same judgment both times, "
+                              "your second up" + (" (the first two of its showings; the figures below use "
+                                                  "every showing)" if every else "")
+                              + "; dots on the dashed line got the same judgment both times, "
                               "and larger dots stand for several cases.", SMALL))
         elif r_tt is None:
             reason = self.entry.reason("retest")

@@ -23,20 +23,30 @@ CASE_SD = 0.4
 NOISE_SD = 0.6
 
 
-def population_consistency() -> float:
+def signal_variance() -> float:
+    """Variance of a case's judgment that every showing shares (cues and the rater's reading)."""
+    return float(TRUE_WEIGHTS @ TRUE_WEIGHTS) * CUE_SD**2 + CASE_SD**2
+
+
+def population_consistency(noise_sd: float = NOISE_SD) -> float:
     """The correlation of two presentations of a random case (= ICC(C,1) = ICC(A,1) here)."""
-    signal = float(TRUE_WEIGHTS @ TRUE_WEIGHTS) * CUE_SD**2 + CASE_SD**2
-    return signal / (signal + NOISE_SD**2)
+    return signal_variance() / (signal_variance() + noise_sd**2)
+
+
+def noise_for(consistency: float) -> float:
+    """The showing noise SD that gives this population consistency."""
+    return float(np.sqrt(signal_variance() * (1.0 - consistency) / consistency))
 
 
 def experiment(rng: np.random.Generator, *, n_raters: int = 29, n_cases: int = 14,
-               n_presentations: int = 10, rounded: bool = False) -> tuple[pd.DataFrame, pd.DataFrame]:
+               n_presentations: int = 10, rounded: bool = False,
+               noise_sd: float = NOISE_SD) -> tuple[pd.DataFrame, pd.DataFrame]:
     """(judgments: rater, case, nth, sequence, judgment; cases: case index, cue columns)."""
     cues = rng.normal(0.0, CUE_SD, size=(n_cases, len(CUES)))
     case_ids = [f"s{c + 1:02d}" for c in range(n_cases)]
     cases = pd.DataFrame(cues, columns=list(CUES), index=pd.Index(case_ids, name="case"))
     u = rng.normal(0.0, CASE_SD, size=(n_raters, n_cases, 1))
-    e = rng.normal(0.0, NOISE_SD, size=(n_raters, n_cases, n_presentations))
+    e = rng.normal(0.0, noise_sd, size=(n_raters, n_cases, n_presentations))
     y = 4.0 + (cues @ TRUE_WEIGHTS)[None, :, None] + u + e
     if rounded:
         y = np.clip(np.round(y), 1, 7)
