@@ -10,11 +10,18 @@ Simulated experiments (tests/unit/presentation_simulation.py): panels of 29 rate
   covariance by case (``cov_type="cluster"``, CR1 with its small-sample factor and
   t(G - 1) reference), and with the plain OLS covariance that counts presentations;
 - the consistency intervals (``presentation_consistency``): ICC(C,1) and ICC(A,1)
-  F-based, the mean pairwise r's bootstrap over cases, against the population value;
+  F-based (the ICC(C,1) one is the interval the audit shows beside the mean pairwise r),
+  and a BCa bootstrap over cases of the mean pairwise r itself, against the population
+  correlation of two showings;
 - the size of the ``low_retest`` test over showings (one-sided F test of ICC(C,1) >= .70
-  at the per-rater 2.5%) on raters whose population consistency is exactly .70.
+  at the per-rater 2.5%) on raters whose population consistency is exactly .70;
+- the size of the two drift tests at 5% (unadjusted) on every judgment in reading order
+  (each round of showings in a fresh random order; no drift planted).
 
-Each hit rate has its 99.9% Clopper-Pearson interval. ~1 minute on 2 cores.
+The weights are judged on the panel's 14 cases (fixed cues, as regression conditions on
+them); the consistency figures on raters with cases of their own (independent trials).
+Each hit rate has its 99.9% Clopper-Pearson interval. ~10 s on 2 cores (``--panels 40``
+about a minute).
 
     PYTHONPATH=. python benchmarks/bench_presentations.py [--panels 7] [--rounded]
 """
@@ -35,6 +42,7 @@ from presentation_simulation import (CUES, TRUE_WEIGHTS, experiment, noise_for, 
                                      population_consistency)
 
 from calibrate.consistency.presentations import low_consistency_p, presentation_consistency  # noqa: E402
+from calibrate.consistency.reading_order import drift  # noqa: E402
 from calibrate.data.cues import CueRule, build_cue_design  # noqa: E402
 from calibrate.policy.fit import fit_policies  # noqa: E402
 
@@ -74,7 +82,8 @@ def policy_hits_statsmodels(judgments: pd.DataFrame, cases: pd.DataFrame) -> tup
 
 def run(n_panels: int, rounded: bool, seed: int = 16) -> dict:
     rng = np.random.default_rng(seed)
-    hits: dict[str, list] = {k: [] for k in ("means", "cluster_cr1", "plain_ols", "icc_c1", "icc_a1", "mean_r")}
+    hits: dict[str, list] = {k: [] for k in ("means", "cluster_cr1", "plain_ols", "icc_c1", "icc_a1",
+                                              "mean_r_bca")}
     rho = population_consistency()
     t0 = time.perf_counter()
     for _ in range(n_panels):
@@ -84,18 +93,27 @@ def run(n_panels: int, rounded: bool, seed: int = 16) -> dict:
         hits["cluster_cr1"].append(cl)
         hits["plain_ols"].append(pl)
         if not rounded:
-            res = presentation_consistency(judgments, rng=rng)
+            # consistency is defined over random cases: each rater gets cases of their own
+            res = presentation_consistency(experiment(rng, own_cases=True)[0], rng=rng, n_boot=1999)
             for name, lo, hi in (("icc_c1", "icc_c1_ci_low", "icc_c1_ci_high"),
                                  ("icc_a1", "icc_a1_ci_low", "icc_a1_ci_high"),
-                                 ("mean_r", "mean_r_ci_low", "mean_r_ci_high")):
+                                 ("mean_r_bca", "mean_r_ci_low", "mean_r_ci_high")):
                 hits[name].append(np.array([getattr(r, lo) <= rho <= getattr(r, hi) for r in res.values()]))
     if not rounded:
         hits["low_retest_size"] = []
         for _ in range(n_panels):
-            judgments, _cases = experiment(rng, noise_sd=noise_for(0.70))
+            judgments, _cases = experiment(rng, noise_sd=noise_for(0.70), own_cases=True)
             res = presentation_consistency(judgments, rng=rng, n_boot=0)
             hits["low_retest_size"].append(np.array([
                 low_consistency_p(r.f_c1, r.n_cases, r.n_presentations) < 0.025 for r in res.values()]))
+    hits["drift_leniency_size"], hits["drift_consistency_size"] = [], []
+    for _ in range(n_panels):
+        judgments, cases = experiment(rng, rounded=rounded)
+        design = build_cue_design(cases, [CueRule(c) for c in CUES])
+        ordered = judgments.sort_values(["rater", "sequence"]).assign(position=lambda d: d["sequence"] - 1)
+        res = drift(design, ordered[["rater", "case", "judgment", "position"]], rng=rng)
+        hits["drift_leniency_size"].append(np.array([r.p_value < 0.05 for r in res.raters]))
+        hits["drift_consistency_size"].append(np.array([r.consistency_p_value < 0.05 for r in res.raters]))
     out = {"seconds": time.perf_counter() - t0}
     for name, parts in hits.items():
         if parts:
@@ -113,7 +131,7 @@ def main() -> None:
         print(f"{'1-7 rounded and clipped' if rounded else 'continuous'}: {args.panels} panels x 29 raters "
               f"({res.pop('seconds'):.1f} s)")
         for name, (rate, hit, n, lo, hi) in res.items():
-            print(f"  {name:12s} {rate:.3f}  ({hit}/{n}; 99.9% CP {lo:.3f}-{hi:.3f})")
+            print(f"  {name:24s} {rate:.3f}  ({hit}/{n}; 99.9% CP {lo:.3f}-{hi:.3f})")
 
 
 if __name__ == "__main__":

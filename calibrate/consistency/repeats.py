@@ -18,7 +18,7 @@ from scipy.stats import norm
 from ..agreement.offsets import check_scale, check_table, tidy_rows
 from ..result_base import ResultMixin, jsonable
 from .presentations import (
-    BOOT_CI,
+    R_CI,
     MEASURE_FIRST_REPEAT,
     MEASURE_MEAN_PAIRWISE,
     PresentationConsistency,
@@ -146,7 +146,7 @@ def over_presentations(first_two: RetestSet, every_pair: RetestSet,
                        low_retest: float = 0.70) -> RetestSet:
     """Test-retest with [judgment] repeats = "all": for each rater with a block of cases x
     presentations (:func:`calibrate.consistency.presentations.presentation_consistency`),
-    ``r`` becomes the mean r over presentation pairs (BCa interval), the ICCs those over
+    ``r`` becomes the mean r over presentation pairs (with the F interval of ICC(C,1)), the ICCs those over
     presentations, ``low_retest`` the F test of ICC(C,1), and the differences, agreement
     shares, kappa and Bland-Altman limits are over every pair of presentations
     (``every_pair``). Other raters keep their first judgment against its repeat."""
@@ -165,8 +165,8 @@ def over_presentations(first_two: RetestSet, every_pair: RetestSet,
         flags = ("low_retest",) if c.icc_c1_ci_high < low_retest else ()
         out.append(replace(
             pairs, n_pairs=c.n_cases, measure=MEASURE_MEAN_PAIRWISE, presentations=c.n_presentations,
-            presentation_pairs=c.n_presentation_pairs, r=c.mean_r, r_ci_low=c.mean_r_ci_low,
-            r_ci_high=c.mean_r_ci_high, r_ci_method=BOOT_CI, icc_a1=c.icc_a1,
+            presentation_pairs=c.n_presentation_pairs, r=c.mean_r, r_ci_low=c.icc_c1_ci_low,
+            r_ci_high=c.icc_c1_ci_high, r_ci_method=R_CI, icc_a1=c.icc_a1,
             icc_a1_ci_low=c.icc_a1_ci_low, icc_a1_ci_high=c.icc_a1_ci_high, icc_c1=c.icc_c1,
             icc_c1_ci_low=c.icc_c1_ci_low, icc_c1_ci_high=c.icc_c1_ci_high, low_test=LOW_TEST_F,
             low_p=low_consistency_p(c.f_c1, c.n_cases, c.n_presentations, threshold=low_retest),

@@ -62,8 +62,8 @@ METHODS = (
     ("Test-retest", "correlation, ICC(A,1), weighted kappa, Bland-Altman limits",
      "Cohen (1968); Bland & Altman (1986)"),
     ("Every showing used", "([judgment] repeats = \"all\") policies on case means; test-retest as the "
-     "mean r over pairs of showings (BCa interval over cases) and ICC(A,1), ICC(C,1) over showings "
-     "(F intervals)", "McGraw & Wong (1996); Efron (1987)"),
+     "mean r over pairs of showings and ICC(A,1), ICC(C,1) over showings (F intervals; r takes that of "
+     "ICC(C,1)); Spearman-Brown for the R_s ceiling", "McGraw & Wong (1996); Spearman (1910); Brown (1910)"),
     ("Wording bands", "every band that turns a figure into words is this tool's own rule of thumb (see each)",
      "our own"),
 )

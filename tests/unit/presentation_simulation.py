@@ -40,14 +40,19 @@ def noise_for(consistency: float) -> float:
 
 def experiment(rng: np.random.Generator, *, n_raters: int = 29, n_cases: int = 14,
                n_presentations: int = 10, rounded: bool = False,
-               noise_sd: float = NOISE_SD) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """(judgments: rater, case, nth, sequence, judgment; cases: case index, cue columns)."""
-    cues = rng.normal(0.0, CUE_SD, size=(n_cases, len(CUES)))
+               noise_sd: float = NOISE_SD, own_cases: bool = False) -> tuple[pd.DataFrame, pd.DataFrame | None]:
+    """(judgments: rater, case, nth, sequence, judgment; cases: case index, cue columns).
+
+    ``own_cases``: every rater gets cases of their own (new cue values), so that raters are
+    independent trials of the consistency figures, which are defined over random cases;
+    no cases table is returned then (the same case ids hold different cues)."""
+    shape = (n_raters, n_cases, len(CUES)) if own_cases else (1, n_cases, len(CUES))
+    cues = rng.normal(0.0, CUE_SD, size=shape)
     case_ids = [f"s{c + 1:02d}" for c in range(n_cases)]
-    cases = pd.DataFrame(cues, columns=list(CUES), index=pd.Index(case_ids, name="case"))
+    cases = None if own_cases else pd.DataFrame(cues[0], columns=list(CUES), index=pd.Index(case_ids, name="case"))
     u = rng.normal(0.0, CASE_SD, size=(n_raters, n_cases, 1))
     e = rng.normal(0.0, noise_sd, size=(n_raters, n_cases, n_presentations))
-    y = 4.0 + (cues @ TRUE_WEIGHTS)[None, :, None] + u + e
+    y = 4.0 + (cues @ TRUE_WEIGHTS)[:, :, None] + u + e
     if rounded:
         y = np.clip(np.round(y), 1, 7)
     r_idx, c_idx, j_idx = np.meshgrid(np.arange(n_raters), np.arange(n_cases), np.arange(n_presentations),

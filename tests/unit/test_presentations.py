@@ -57,7 +57,21 @@ def test_consistency_over_presentations_matches_pingouin_and_numpy(trial):
         wide = sub.pivot(index="case", columns="nth", values="judgment").to_numpy()
         corr = np.corrcoef(wide, rowvar=False)
         assert mine.mean_r == pytest.approx(corr[np.triu_indices(10, 1)].mean(), abs=1e-10)
-        assert mine.mean_r_ci_low < mine.mean_r < mine.mean_r_ci_high
+        # the interval the audit shows beside the mean r is ICC(C,1)'s; the BCa is off by default
+        assert mine.icc_c1_ci_low < mine.mean_r < mine.icc_c1_ci_high
+        assert np.isnan(mine.mean_r_ci_low) and np.isnan(mine.mean_r_ci_high)
+
+
+def test_optional_bca_interval_of_the_mean_r_brackets_it(trial):
+    # the bootstrap from case-count weights equals resampling the rows (checked to 1e-12)
+    from calibrate.consistency.presentations import _boot_mean_r, mean_pairwise_r, presentation_blocks
+
+    judgments, _ = trial
+    x = np.stack(list(presentation_blocks(judgments).values()))
+    draws = np.random.default_rng(3).integers(0, 14, size=(40, 14))
+    assert np.allclose(_boot_mean_r(x, draws), mean_pairwise_r(x[:, draws, :]), atol=1e-12, rtol=0)
+    for c in presentation_consistency(judgments.query("rater in ['p01', 'p02']"), rng=5, n_boot=499).values():
+        assert c.mean_r_ci_low < c.mean_r < c.mean_r_ci_high
 
 
 def test_low_consistency_test_agrees_with_its_interval(trial):
@@ -158,6 +172,7 @@ def test_audit_uses_every_presentation_and_says_which_measure(tmp_path, trial):
         assert rt["icc_a1"] == pytest.approx(c.icc_a1, abs=1e-10)
         assert rt["icc_c1"] == pytest.approx(c.icc_c1, abs=1e-10)
         assert rt["icc_c1_ci"] == pytest.approx([c.icc_c1_ci_low, c.icc_c1_ci_high], abs=1e-10)
+        assert rt["r_ci"] == rt["icc_c1_ci"] and "ICC(C,1)" in rt["r_ci_method"]
         assert e["consistency"]["policy_on_means"] is True
         assert e["consistency"]["ceiling"] == pytest.approx(np.sqrt(spearman_brown(c.icc_c1, 10)), abs=1e-10)
     # drift reads every judgment in order
