@@ -191,3 +191,32 @@ def test_an_unknown_repeats_value_is_refused(tmp_path, trial):
     path = _experiment_study(tmp_path, trial, extra_judgment='repeats = "every"')
     with pytest.raises(SpecError, match=r"\[judgment\] repeats must be one of 'all', 'first-two'; got 'every'"):
         load_study(path)
+
+
+def test_row_order_does_not_change_the_figures_over_showings(tmp_path, trial):
+    # the reading order comes from the sequence column, so shuffled rows give the same audit
+    path = _experiment_study(tmp_path / "sorted", trial)
+    table = pd.read_csv(path.parent / "judgments.csv")
+    shuffled = write_study(tmp_path / "shuffled", table.sample(frac=1.0, random_state=4),
+                           cases=trial[1].reset_index(), cues="\n".join(f'{c} = "numeric"' for c in CUES),
+                           extra_columns='sequence = "seq"')
+    a, b = (audit(load_study(p), n_boot=0) for p in (path, shuffled))
+    for x, y in zip(a.to_dict()["raters"], b.to_dict()["raters"]):
+        assert x["retest"] == y["retest"] and x["policy"]["weights"] == y["policy"]["weights"]
+
+
+def test_the_chair_is_told_which_showings_were_used():
+    from types import SimpleNamespace
+
+    from calibrate.report import wording
+
+    def entry(mode, most, measure):
+        retest = SimpleNamespace(measure=measure)
+        return SimpleNamespace(repeats_mode=mode, most_presentations=most, n_repeats=3, retest=retest)
+
+    assert wording.panel_repeats_note([entry("first-two", 2, "first_repeat_r")]) is None
+    dropped = wording.panel_repeats_note([entry("first-two", 4, "first_repeat_r")])
+    assert "up to 4 times" in dropped and "left out of every figure" in dropped
+    every = wording.panel_repeats_note([entry("all", 10, "mean_pairwise_r"), entry("all", 10, "first_repeat_r")])
+    assert "up to 10 times and every showing is used" in every
+    assert "for 1 of the 2 raters with repeats" in every and "for the other 1, the first judgment" in every
