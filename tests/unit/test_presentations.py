@@ -159,6 +159,10 @@ def test_audit_uses_every_presentation_and_says_which_measure(tmp_path, trial):
     assert ph.repeat_mode == "all" and len(ph.ordered) == 29 * 140
     result = audit(table, n_boot=0)
     data = json.loads(json.dumps(result.to_dict()))
+    jsonschema = pytest.importorskip("jsonschema")
+    from calibrate.output.tables import results_schema
+
+    jsonschema.validate(data, results_schema())
     assert data["judgment"]["repeats"] == "all"
     grouped = [w for w in data["warnings"] if "shown more than twice" in w["message"]]
     assert len(grouped) == 1 and "406 rater-case pair(s) (29 rater(s))" in grouped[0]["message"]
@@ -220,3 +224,16 @@ def test_the_chair_is_told_which_showings_were_used():
     every = wording.panel_repeats_note([entry("all", 10, "mean_pairwise_r"), entry("all", 10, "first_repeat_r")])
     assert "up to 10 times and every showing is used" in every
     assert "for 1 of the 2 raters with repeats" in every and "for the other 1, the first judgment" in every
+
+
+def test_the_repeats_setting_survives_a_round_trip_through_toml(tmp_path, trial):
+    import tomllib
+
+    from calibrate.data.spec import parse_spec
+
+    path = _experiment_study(tmp_path, trial, extra_judgment='repeats = "first-two"')
+    spec = load_study(path).spec
+    assert spec.judgment.repeats == "first-two"
+    text = spec.to_toml(relative_to=tmp_path)
+    assert 'repeats = "first-two"' in text
+    assert parse_spec(tomllib.loads(text), base_dir=tmp_path).judgment.repeats == "first-two"
