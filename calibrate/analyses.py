@@ -144,7 +144,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     scale = spec.judgment
     kind, lo, hi = scale.kind, scale.min, scale.max
     # With [judgment] repeats = "all" every policy-based analysis reads each case's mean
-    # judgment over its presentations (DEVELOPERS.md, "Many presentations": the mean's OLS
+    # judgment over its presentations (DEVELOPERS.md, "Cases shown many times": the mean's OLS
     # standard errors count cases, and covered 95% where cluster-robust ones did not);
     # agreement, severity and the per-file view keep each rater's first reading.
     fit_first = ph.first.loc[ph.first["rater"].isin(ph.fit_raters), ["rater", "case", "case_mean"]]
