@@ -23,7 +23,9 @@ from .agreement.readers import GStudyResult, generalizability
 from .agreement.offsets import SeverityResult, severity
 from .agreement.with_panel import PeerAgreementSet, agreement_with_panel
 from .consistency.reading_order import DriftResult, drift
-from .consistency.repeats import RetestSet, consistency_verdict, low_retest_reach, retest
+from .consistency.presentations import harmonic_presentations, presentation_consistency, spearman_brown
+from .consistency.repeats import (RetestSet, consistency_verdict, over_presentations, presentation_pairs,
+                                  retest)
 from .data.ingest import JudgmentTable, PhaseData, load_study
 from .notes import analysis_note, notes_frame
 from .data.spec import StudySpec, spec_record
@@ -129,7 +131,8 @@ class AuditResult:
 
 # One stream of random numbers per analysis and phase, all derived from the study seed, so
 # adding an analysis never changes the numbers of another.
-_STREAMS = ("policy", "agreement", "gstudy", "lens", "cutoffs", "drift", "homogeneity", "grouping")
+_STREAMS = ("policy", "agreement", "gstudy", "lens", "cutoffs", "drift", "homogeneity", "grouping",
+            "presentations")
 
 
 def _rng(seed: int, phase_index: int, name: str) -> np.random.Generator:
@@ -175,8 +178,12 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     design = table.phase_design(ph)  # this phase's cases: fill values and lens environment per phase
     scale = spec.judgment
     kind, lo, hi = scale.kind, scale.min, scale.max
-    fit_first = ph.first.loc[ph.first["rater"].isin(ph.fit_raters),
-                             ["rater", "case", "judgment"]].reset_index(drop=True)
+    # With [judgment] repeats = "all" every policy-based analysis reads each case's mean
+    # judgment over its presentations (DEVELOPERS.md, "Cases shown many times": the mean's OLS
+    # standard errors count cases, and covered 95% where cluster-robust ones did not);
+    # agreement, severity and the per-file view keep each rater's first reading.
+    fit_first = ph.first.loc[ph.first["rater"].isin(ph.fit_raters), ["rater", "case", "case_mean"]]
+    fit_first = fit_first.rename(columns={"case_mean": "judgment"}).reset_index(drop=True)
     complete = set(np.asarray(design.case_ids)[design.complete_rows()])
     fit_first = fit_first.loc[fit_first["case"].isin(complete)].reset_index(drop=True)
     if not spec.cues:  # agreement-only study: every analysis that models judgments on cues is left out
@@ -190,13 +197,21 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
                             n_excluded=len(spec.excluded), repeats=len(ph.repeats) > 0)
     resolution = CHANCE_ALPHA / max(n_tests, 1)
     step("policies")
-    ordinal = kind == "ordinal"  # its ends give the curvature test a scale-aware null
-    policies = (fit_policies(design, fit_first, scale=kind, scale_min=lo if ordinal else None,
+    means = ph.repeat_mode == "all" and bool((ph.first["shown"] > 1).any())
+    # means of whole steps (or shares of 0/1 decisions) are fitted as continuous judgments
+    fit_kind = "continuous" if means else kind
+    ordinal = fit_kind == "ordinal"  # its ends give the curvature test a scale-aware null
+    policies = (fit_policies(design, fit_first, scale=fit_kind, scale_min=lo if ordinal else None,
                              scale_max=hi if ordinal else None, n_boot=n_boot,
                              rng=_rng(seed, phase_index, "policy"),
                              curvature_resolution=resolution) if len(fit_first) else None)
     step("test-retest")
     retest_set = retest(ph.repeats, scale=kind, scale_min=lo, scale_max=hi)
+    if ph.repeat_mode == "all" and len(ph.presentations):
+        over = presentation_consistency(ph.presentations, rng=_rng(seed, phase_index, "presentations"))
+        if over:
+            every_pair = retest(presentation_pairs(ph.presentations), scale=kind, scale_min=lo, scale_max=hi)
+            retest_set = over_presentations(retest_set, every_pair, over)
     step("agreement")
     several = first["rater"].nunique() >= 2
     agreement = (panel_agreement(first, scale=kind, scale_min=lo, scale_max=hi,
@@ -216,10 +231,10 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         alignment = rubric_alignment(design, fit_first, spec.rubric, basis=spec.rubric_basis)
     if spec.excluded and len(fit_first):
         step("excluded attributes")
-        excluded = excluded_check(design, fit_first, table.cases[list(spec.excluded)], scale=kind)
+        excluded = excluded_check(design, fit_first, table.cases[list(spec.excluded)], scale=fit_kind)
     step("cut-off rules")
     cutoff_draws = int(min(max(999, np.ceil(10.0 / resolution) - 1), CUTOFF_MAX_DRAWS))
-    cutoffs = (cutoff_check(design, fit_first, rng=_rng(seed, phase_index, "cutoffs"), scale=kind,
+    cutoffs = (cutoff_check(design, fit_first, rng=_rng(seed, phase_index, "cutoffs"), scale=fit_kind,
                             scale_min=lo, scale_max=hi, n_sim=cutoff_draws) if len(fit_first) else None)
     drift_result = None
     if spec.role("sequence") is not None and len(fit_first):
@@ -244,8 +259,20 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
             rt = _lookup(retest_set, pol.rater)
             if rt is None or not np.isfinite(rt.r):
                 continue
-            verdicts[pol.rater] = consistency_verdict(pol.r, rt.r, r_tt_ci=(rt.r_ci_low, rt.r_ci_high),
-                                                      r_s_ci=tuple(pol.r_ci))
+            r_tt, r_tt_ci = rt.r, (rt.r_ci_low, rt.r_ci_high)
+            if rt.measure != "first_repeat_r":
+                # over presentations the bound is read from ICC(C,1), whose F interval covers
+                r_tt, r_tt_ci = rt.icc_c1, (rt.icc_c1_ci_low, rt.icc_c1_ci_high)
+            m = 1.0
+            if means:
+                # R_s is fitted to case means, so its ceiling is the reliability of a mean of
+                # the presentations (Spearman-Brown at the harmonic mean of showings per case)
+                shown = ph.first.loc[(ph.first["rater"] == pol.rater) & ph.first["case"].isin(complete), "shown"]
+                m = harmonic_presentations(shown.to_numpy(float))
+                r_tt, r_tt_ci = spearman_brown(r_tt, m), tuple(spearman_brown(v, m) for v in r_tt_ci)
+            verdicts[pol.rater] = replace(
+                consistency_verdict(pol.r, r_tt, r_tt_ci=r_tt_ci, r_s_ci=tuple(pol.r_ci)),
+                policy_on_means=means, presentations_per_case=m)
     return PhaseAnalyses(phase=ph.label, policies=policies, retest=retest_set, agreement=agreement,
                          peer_agreement=peers,
                          severity=sev, gstudy=gstudy, files=files, lens=lens, alignment=alignment,
@@ -307,6 +334,7 @@ def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict, spec
         "n_repeats": counts["n_repeats"],
         "n_presentations": counts["n_presentations"],
         "most_presentations": counts["most_presentations"],
+        "repeats_mode": ph.repeat_mode,
         "policy": policy,
     }
     for key, result in (("retest", a.retest), ("agreement", a.peer_agreement), ("lens", a.lens), ("severity", a.severity),
@@ -427,7 +455,8 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
         policies=policies_out,
         analyses=analyses,
         judgment={"scale": spec.judgment.kind, "min": spec.judgment.min, "max": spec.judgment.max,
-                  "cut_off": spec.judgment.cut_off, "labels": dict(spec.judgment.labels)},
+                  "cut_off": spec.judgment.cut_off, "labels": dict(spec.judgment.labels),
+                  "repeats": table.phases[0].repeat_mode if table.phases else "first-two"},
         rubric=(None if not spec.rubric else {"basis": spec.rubric_basis, "shares": dict(spec.rubric)}),
         criterion_only_for_selected=spec.criterion_only_for_selected,
         provenance={"spec": spec_record(spec), "libraries": library_versions()},
@@ -648,7 +677,8 @@ def _tested_p_values(policies, cutoffs, drift_result, excluded, retest_set) -> l
     if excluded is not None:
         rows += [(r.rater, "excluded_attribute", t.attribute, t.p_value)
                  for r in excluded.raters for t in r.tests]
-    rows += [(r.rater, "low_retest", "fisher_z", r.low_p) for r in retest_set.raters]
+    rows += [(r.rater, "low_retest", "fisher_z" if r.measure == "first_repeat_r" else "f_icc_c1", r.low_p)
+             for r in retest_set.raters]
     return rows
 
 
@@ -710,7 +740,7 @@ def control_chance_flags(policies, cutoffs, drift_result, excluded, retest_set, 
         excluded = replace(excluded, raters=tuple(updated))
     retest_set = replace(retest_set, raters=tuple(
         replace(r, flags=("low_retest",) if record.flagged(r.rater, "low_retest") else (),
-                flag_detectable_below=low_retest_reach(r.n_pairs, level=record.level_for(r.rater, "low_retest")))
+                flag_detectable_below=r.reach(record.level_for(r.rater, "low_retest")))
         for r in retest_set.raters))
     return policies, cutoffs, drift_result, excluded, retest_set, record
 

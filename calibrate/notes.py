@@ -31,6 +31,8 @@ NOTE_TITLES = {
                                    "(only the first showing and its repeat are used)",
     "too_few_cases": "Raters with too few usable cases for a policy fit",
     "empty_phase": "Phases without judgments",
+    "every_presentation_used": "Cases shown more than twice: every showing is used "
+                               "(policy on each case's mean judgment, consistency over all showings)",
     "no_cues": "The study lists no cues (agreement-only: the analyses that fit judgments on cues are skipped)",
 }
 

@@ -9,7 +9,7 @@ Drift over the reading order is in :mod:`calibrate.consistency.reading_order`.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 import pandas as pd
@@ -17,8 +17,19 @@ from scipy.stats import norm
 
 from ..agreement.offsets import check_scale, check_table, tidy_rows
 from ..result_base import ResultMixin, jsonable
+from .presentations import (
+    R_CI,
+    MEASURE_FIRST_REPEAT,
+    MEASURE_MEAN_PAIRWISE,
+    PresentationConsistency,
+    low_consistency_p,
+    low_consistency_reach,
+)
 
 VERDICTS = ("model_misses_rule", "inconsistent", "cannot_tell")
+FISHER_CI = "Fisher z (Fisher 1921)"
+LOW_TEST_FISHER = "one-sided Fisher z test of rho >= threshold"
+LOW_TEST_F = "one-sided F test of ICC(C,1) >= threshold (McGraw & Wong 1996)"
 FEW_PAIRS = 10   # below this a warning says the test-retest figures are rough (common practice)
 
 
@@ -51,13 +62,41 @@ class RaterRetest(ResultMixin):
     flag_detectable_below: float = float("nan")
     flags: tuple[str, ...] = ()
     warnings: tuple[str, ...] = ()
+    # Which figure ``r`` is: the first judgment against its repeat (``first_repeat_r``,
+    # ``n_pairs`` pairs), or with [judgment] repeats = "all" the mean r over every pair of
+    # ``presentations`` showings of ``n_pairs`` cases (``mean_pairwise_r``; see
+    # :mod:`calibrate.consistency.presentations`). The ICCs treat the showings as occasions.
+    measure: str = MEASURE_FIRST_REPEAT
+    presentations: int = 2
+    presentation_pairs: int = 1
+    r_ci_method: str = FISHER_CI
+    icc_a1_ci_low: float = float("nan")
+    icc_a1_ci_high: float = float("nan")
+    icc_c1: float = float("nan")
+    icc_c1_ci_low: float = float("nan")
+    icc_c1_ci_high: float = float("nan")
+    low_test: str = LOW_TEST_FISHER
+
+    def reach(self, level: float, *, threshold: float = 0.70) -> float:
+        """The largest consistency the ``low_retest`` test can flag at ``level``."""
+        if self.measure == MEASURE_MEAN_PAIRWISE:
+            return low_consistency_reach(self.n_pairs, self.presentations, level=level, threshold=threshold)
+        return low_retest_reach(self.n_pairs, level=level, threshold=threshold)
 
     def to_dict(self) -> dict:
         return jsonable({
             "n_pairs": self.n_pairs,
+            "measure": self.measure,
+            "presentations": self.presentations,
+            "presentation_pairs": self.presentation_pairs,
             "r": self.r,
             "r_ci": [self.r_ci_low, self.r_ci_high],
+            "r_ci_method": self.r_ci_method,
             "icc_a1": self.icc_a1,
+            "icc_a1_ci": [self.icc_a1_ci_low, self.icc_a1_ci_high],
+            "icc_c1": self.icc_c1,
+            "icc_c1_ci": [self.icc_c1_ci_low, self.icc_c1_ci_high],
+            "low_test": self.low_test,
             "mean_abs_diff": self.mean_abs_diff,
             "exact": self.exact,
             "within_one": self.within_one,
@@ -89,6 +128,52 @@ class RetestSet(ResultMixin):
 
     def to_frame(self) -> pd.DataFrame:
         return tidy_rows(self.raters, drop=("warnings",))
+
+
+def presentation_pairs(presentations: pd.DataFrame) -> pd.DataFrame:
+    """Every pair of presentations (earlier, later) of each case and rater, as the
+    ``first``/``second`` table :func:`retest` takes."""
+    if presentations.empty:
+        return pd.DataFrame({"rater": [], "case": [], "first": [], "second": []})
+    both = presentations.merge(presentations, on=["rater", "case"], suffixes=("_a", "_b"))
+    both = both.loc[both["nth_a"] < both["nth_b"]].sort_values(["rater", "case", "nth_a", "nth_b"])
+    return pd.DataFrame({"rater": both["rater"].to_numpy(), "case": both["case"].to_numpy(),
+                         "first": both["judgment_a"].to_numpy(float), "second": both["judgment_b"].to_numpy(float)})
+
+
+def over_presentations(first_two: RetestSet, every_pair: RetestSet,
+                       consistency: dict[str, PresentationConsistency], *,
+                       low_retest: float = 0.70) -> RetestSet:
+    """Test-retest with [judgment] repeats = "all": for each rater with a block of cases x
+    presentations (:func:`calibrate.consistency.presentations.presentation_consistency`),
+    ``r`` becomes the mean r over presentation pairs (with the F interval of ICC(C,1)), the ICCs those over
+    presentations, ``low_retest`` the F test of ICC(C,1), and the differences, agreement
+    shares, kappa and Bland-Altman limits are over every pair of presentations
+    (``every_pair``). Other raters keep their first judgment against its repeat."""
+    level = (1.0 - first_two.confidence) / 2.0
+    out = []
+    for rt in first_two.raters:
+        c = consistency.get(rt.rater)
+        pairs = every_pair.for_rater(rt.rater)
+        if c is None or pairs is None:
+            out.append(rt)
+            continue
+        warn = [w for w in rt.warnings if not w.startswith("Only ")]
+        if c.n_cases < FEW_PAIRS:
+            warn.append(f"Only {c.n_cases} cases shown {c.n_presentations} times: the consistency figures "
+                        "are rough.")
+        flags = ("low_retest",) if c.icc_c1_ci_high < low_retest else ()
+        out.append(replace(
+            pairs, n_pairs=c.n_cases, measure=MEASURE_MEAN_PAIRWISE, presentations=c.n_presentations,
+            presentation_pairs=c.n_presentation_pairs, r=c.mean_r, r_ci_low=c.icc_c1_ci_low,
+            r_ci_high=c.icc_c1_ci_high, r_ci_method=R_CI, icc_a1=c.icc_a1,
+            icc_a1_ci_low=c.icc_a1_ci_low, icc_a1_ci_high=c.icc_a1_ci_high, icc_c1=c.icc_c1,
+            icc_c1_ci_low=c.icc_c1_ci_low, icc_c1_ci_high=c.icc_c1_ci_high, low_test=LOW_TEST_F,
+            low_p=low_consistency_p(c.f_c1, c.n_cases, c.n_presentations, threshold=low_retest),
+            flag_detectable_below=low_consistency_reach(c.n_cases, c.n_presentations, level=level,
+                                                        threshold=low_retest),
+            flags=flags, warnings=tuple(warn)))
+    return replace(first_two, raters=tuple(out))
 
 
 def retest(
@@ -254,6 +339,10 @@ class ConsistencyVerdict(ResultMixin):
     ceiling_ci_low: float
     ceiling_ci_high: float
     verdict: str
+    # with [judgment] repeats = "all" R_s is fitted to case means and the ceiling is the
+    # square root of the reliability of such a mean (Spearman-Brown at this many showings)
+    policy_on_means: bool = False
+    presentations_per_case: float = 1.0
 
 
 def consistency_verdict(

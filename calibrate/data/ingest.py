@@ -69,6 +69,12 @@ class PhaseData:
     repeats:  test-retest pairs: rater, case, first, second.
     ordered:  every kept judgment in each rater's reading order: rater, case,
               judgment, position (0-based), sequence. Feeds drift.
+    presentations: with ``repeat_mode`` "all", every presentation of every case shown
+              more than once: rater, case, nth (0-based), judgment. Feeds the consistency
+              over presentations. Empty with "first-two".
+    repeat_mode: "first-two" or "all" ([judgment] repeats, or decided by the data). With
+              "all", ``first`` also holds ``case_mean``, the mean over every presentation,
+              which the policy fits use; with "first-two" ``case_mean`` is the first judgment.
     fit_raters: raters with enough usable cases for a policy fit (cues + 2 or more).
     too_few:  raters kept out of policy fits, with their usable case counts.
     """
@@ -79,6 +85,9 @@ class PhaseData:
     ordered: pd.DataFrame
     fit_raters: tuple[str, ...]
     too_few: dict[str, int]
+    presentations: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(
+        {"rater": [], "case": [], "nth": [], "judgment": []}))
+    repeat_mode: str = "first-two"
 
     @property
     def raters(self) -> tuple[str, ...]:
@@ -376,11 +385,25 @@ def _case_table(spec: StudySpec, data: pd.DataFrame, cases_df: pd.DataFrame | No
 
 
 def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_terms: int,
-                out: Collector) -> PhaseData:
-    """Split one phase's judgments into first judgments, repeat pairs and reading order."""
+                out: Collector, mode: str = "first-two") -> PhaseData:
+    """Split one phase's judgments into first judgments, repeat pairs and reading order
+    (and, with ``mode`` "all", every presentation of the repeated cases)."""
     if sub.empty:
         out.warn(f"phase '{name}' has no judgments", kind="empty_phase", phase=name)
     firsts = sub.loc[sub["_nth"] == 0]
+    case_mean = firsts["_judgment"].to_numpy(dtype=float)
+    presentations = PhaseData.__dataclass_fields__["presentations"].default_factory()
+    if mode == "all":
+        keys = ["_rater", "_case"]
+        means = sub.groupby(keys, sort=False)["_judgment"].mean()
+        case_mean = means.reindex(pd.MultiIndex.from_frame(firsts[keys])).to_numpy(dtype=float)
+        many = sub.loc[sub["_shown"] >= 2]
+        presentations = pd.DataFrame({
+            "rater": many["_rater"].to_numpy(),
+            "case": many["_case"].to_numpy(),
+            "nth": many["_nth"].to_numpy(dtype=int),
+            "judgment": many["_judgment"].to_numpy(dtype=float),
+        })
     first = pd.DataFrame({
         "rater": firsts["_rater"].to_numpy(),
         "case": firsts["_case"].to_numpy(),
@@ -389,6 +412,7 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
         "file": firsts[FILE].to_numpy(),
         "row": firsts[ROW].to_numpy(dtype=int),
         "shown": firsts["_shown"].to_numpy(dtype=int),
+        "case_mean": case_mean,
     })
     seconds = sub.loc[sub["_nth"] == 1, ["_rater", "_case", "_judgment"]]
     pairs = firsts[["_rater", "_case", "_judgment"]].merge(
@@ -408,7 +432,8 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
     })
     fit_raters, too_few = too_few_cases(first, complete, n_terms, name, out)
     return PhaseData(name=name, first=first, repeats=repeats, ordered=ordered,
-                     fit_raters=fit_raters, too_few=too_few)
+                     fit_raters=fit_raters, too_few=too_few, presentations=presentations,
+                     repeat_mode=mode)
 
 
 def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None) -> JudgmentTable | None:
@@ -457,14 +482,15 @@ def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None) ->
     complete = pd.Series(design.complete_rows(), index=list(design.case_ids))
 
     data = data.rename(columns={cols["rater"]: "_rater", cols["case"]: "_case"})
-    data = mark_repeats(data, out)
+    data = mark_repeats(data, out, spec.judgment.repeats)
+    mode = data.attrs.get("repeats", "first-two")
     check_trained(set(data["_rater"]), spec.trained, out)
     if out.errors:
         return None
 
     phase_names: list[str | None] = list(spec.phase_order) if spec.phase_order else [None]
     phases = tuple(_phase_data(name, data if name is None else data.loc[data[PHASE] == name],
-                               complete, design.n_columns, out) for name in phase_names)
+                               complete, design.n_columns, out, mode) for name in phase_names)
     cases, types = excluded_types(cases, spec.excluded, spec.numeric_missing_words,
                                   spec.categorical_missing_words)
     return JudgmentTable(spec=spec, cases=cases, design=design, phases=phases,

@@ -506,12 +506,24 @@ def excluded_types(cases: pd.DataFrame, excluded: tuple[str, ...],
 # ----------------------------------------------------------------------------- raters
 
 
-def mark_repeats(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
+def repeat_mode(shown_most: int, asked: str | None) -> str:
+    """Which presentations are used: ``asked`` ([judgment] repeats) when the spec gives it,
+    else "all" when some case is shown more than twice and "first-two" otherwise (so a study
+    with hidden repeats shown twice reads exactly as before the option existed)."""
+    if asked is not None:
+        return asked
+    return "all" if shown_most > 2 else "first-two"
+
+
+def mark_repeats(data: pd.DataFrame, out: Collector, mode: str | None = "first-two") -> pd.DataFrame:
     """Repeats: within one rater and phase, the first judgment of a case (by sequence, else
-    by row order) is the judgment (``_nth`` 0); the second is its repeat (``_nth`` 1); a
-    third or later is dropped with a warning. Expects ``_rater`` and ``_case`` columns;
+    by row order) is the judgment (``_nth`` 0); the second is its repeat (``_nth`` 1). A
+    third or later presentation is kept when ``[judgment] repeats`` is "all" (the default
+    when some case is shown more than twice) and dropped with "first-two"; either way one
+    grouped warning says so, never one per case. Expects ``_rater`` and ``_case`` columns;
     adds ``_nth``, ``_shown`` (presentations of the case to the rater, dropped ones
-    included) and ``_position`` (0-based place in the rater's reading order)."""
+    included) and ``_position`` (0-based place in the rater's reading order). ``mode``
+    None decides by :func:`repeat_mode`; the mode used is in ``data.attrs["repeats"]``."""
     data = data.copy()
     data["_order"] = np.arange(len(data))
     sort_cols = [PHASE, "_rater", "_sequence", "_order"]
@@ -520,18 +532,36 @@ def mark_repeats(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
     # how often the case was put before the rater in all, counted before later ones are
     # dropped, so that a report can state the true number of presentations
     data["_shown"] = data.groupby([PHASE, "_rater", "_case"], dropna=False)["_nth"].transform("size")
+    mode = repeat_mode(int(data["_shown"].max()) if len(data) else 0, mode)
     third = data["_nth"] >= 2
-    for _, grp in data.loc[third].groupby([PHASE, "_rater", "_case"], dropna=False):
-        r = grp.iloc[0]
-        phase_txt = f" in phase '{r[PHASE]}'" if r[PHASE] is not None else ""
-        out.warn(f"rater '{r['_rater']}' judged case '{r['_case']}' more than twice{phase_txt}; "
-                 f"the judgments in rows {rows_text(grp[ROW].tolist())} were dropped (only the first "
-                 "and its repeat are used)", file=r[FILE], kind="later_presentations_dropped",
-                 rater=str(r["_rater"]), case=str(r["_case"]),
-                 phase=None if r[PHASE] is None else str(r[PHASE]))
-    data = data.loc[~third].copy()
+    if third.any():
+        _warn_many_presentations(data, third, mode, out)
+    if mode == "first-two":
+        data = data.loc[~third].copy()
     data["_position"] = data.groupby([PHASE, "_rater"], dropna=False).cumcount()
+    data.attrs["repeats"] = mode
     return data
+
+
+def _warn_many_presentations(data: pd.DataFrame, third: pd.Series, mode: str, out: Collector) -> None:
+    """One warning for every case shown more than twice: how many raters and cases, the
+    most presentations, and what was done with the third and later ones."""
+    later = data.loc[third]
+    pairs = later[[PHASE, "_rater", "_case"]].drop_duplicates()
+    n_raters = later["_rater"].nunique()
+    most = int(data["_shown"].max())
+    where = f"{len(pairs)} rater-case pair(s) ({n_raters} rater(s))"
+    if mode == "all":
+        out.warn(f"{where} were shown more than twice, up to {most} times; every presentation is "
+                 "used ([judgment] repeats = \"all\": the policy on each case's mean judgment, "
+                 "consistency over all presentations)", file=later[FILE].iloc[0],
+                 kind="every_presentation_used")
+    else:
+        out.warn(f"{where} were shown more than twice, up to {most} times; the {len(later)} "
+                 f"judgment(s) after the second of a case (rows {rows_text(later[ROW].tolist())}) "
+                 "were dropped, as "
+                 "[judgment] repeats = \"first-two\" asks (only the first and its repeat are used)",
+                 file=later[FILE].iloc[0], kind="later_presentations_dropped")
 
 
 def check_trained(raters: set[str], trained: tuple[str, ...] | None, out: Collector) -> None:

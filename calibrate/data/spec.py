@@ -93,12 +93,15 @@ def _check_label_order(labels: dict[str, float], problems: list[str]) -> None:
                     "per place.")
 
 
+# [judgment] repeats: every presentation of a case, or only the first and one repeat.
+REPEAT_MODES = ("all", "first-two")
+
 # Every key the spec may hold, per table; used for "did you mean" suggestions.
 VALID_KEYS: dict[str, tuple[str, ...]] = {
     "": ("study", "columns", "judgment", "cues", "rubric", "excluded", "phases"),
     "study": ("name", "data", "cases", "seed", "criterion_only_for_selected", "missing_words"),
     "columns": ROLES_REQUIRED + ROLES_OPTIONAL,
-    "judgment": ("scale", "min", "max", "labels", "cut_off"),
+    "judgment": ("scale", "min", "max", "labels", "cut_off", "repeats"),
     "rubric": ("basis",),  # plus one key per cue
     "excluded": ("columns",),
     "phases": ("order", "trained"),
@@ -116,6 +119,10 @@ class JudgmentScale:
     max: float | None = None
     labels: dict[str, float] = field(default_factory=dict)
     cut_off: float | None = None
+    # How cases shown more than once are used: "first-two" (the first judgment and one
+    # repeat), "all" (every presentation), or None: "all" when some case is shown more
+    # than twice, else "first-two" (see calibrate.data.rules.mark_repeats).
+    repeats: str | None = None
 
     @property
     def midpoint(self) -> float | None:
@@ -210,6 +217,8 @@ class StudySpec:
             value = getattr(self.judgment, key)
             if value is not None:
                 judgment[key] = _plain_number(value)
+        if self.judgment.repeats is not None:
+            judgment["repeats"] = self.judgment.repeats
         if self.judgment.labels:
             judgment["labels"] = {k: _plain_number(v) for k, v in self.judgment.labels.items()}
         doc["judgment"] = judgment
@@ -440,7 +449,13 @@ def _parse_judgment(doc: dict, problems: list[str]) -> JudgmentScale:
     labels = _parse_labels(judgment_raw.get("labels", {}), jmin, jmax, problems)
     _check_label_order(labels, problems)
     cut_off = _number(judgment_raw.get("cut_off"), "[judgment] cut_off", problems)
-    return JudgmentScale(kind=kind, min=jmin, max=jmax, labels=labels, cut_off=cut_off)
+    repeats = judgment_raw.get("repeats")
+    if repeats is not None and repeats not in REPEAT_MODES:
+        problems.append(f"[judgment] repeats must be one of {', '.join(repr(m) for m in REPEAT_MODES)}; "
+                        f"got {repeats!r}.")
+        repeats = None
+    return JudgmentScale(kind=kind, min=jmin, max=jmax, labels=labels, cut_off=cut_off,
+                         repeats=repeats)
 
 
 def _parse_cue(cue: str, rule: Any, columns: dict[str, str], problems: list[str]) -> CueRule | None:

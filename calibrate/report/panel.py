@@ -89,6 +89,9 @@ METHODS = (
     ("Excluded attributes", "incremental R² with a nested F test; Holm adjustment", "Holm (1979)"),
     ("Test-retest", "correlation, ICC(A,1), weighted kappa, Bland-Altman limits",
      "Cohen (1968); Bland & Altman (1986)"),
+    ("Every showing used", "([judgment] repeats = \"all\") policies on case means; test-retest as the "
+     "mean r over pairs of showings and ICC(A,1), ICC(C,1) over showings (F intervals; r takes that of "
+     "ICC(C,1)); Spearman-Brown for the R_s ceiling", "McGraw & Wong (1996); Spearman (1910); Brown (1910)"),
     ("Wording bands", "every band that turns a figure into words is this tool's own rule of thumb (see each)",
      "our own"),
 )
@@ -172,14 +175,15 @@ class PanelReport:
         lines = []
         several = len(self.view.phases) > 1
         for phase in self.view.phases:
-            reach = [(e.retest.n_pairs, e.retest.flag_detectable_below) for e in self.view.raters
-                     if e.phase == phase and e.retest is not None and e.retest.n_pairs
-                     and "low_retest" not in e.flags]
+            checked = [e for e in self.view.raters if e.phase == phase and e.retest is not None
+                       and e.retest.n_pairs and "low_retest" not in e.flags]
+            reach = [(e.retest.n_pairs, e.retest.flag_detectable_below) for e in checked]
             if reach:
                 highest = max((v if v is not None else -1.0) for _, v in reach)
                 lines.append(wording.retest_reach_panel_sentence(
                     min(n for n, _ in reach), max(n for n, _ in reach), highest,
-                    phase if several else None))
+                    phase if several else None,
+                    over_showings=any(e.retest.measure == "mean_pairwise_r" for e in checked)))
         return lines
 
     # ------------------------------------------------------------------ overview
@@ -482,6 +486,9 @@ class PanelReport:
                           + ("of a phase " if named else "") + "carries is stated once on page 1 and left out "
                           "here.", SMALL))
         story += [text(line, SMALL) for line in self._reach_lines()]
+        repeats = wording.panel_repeats_note(self.view.raters)
+        if repeats:
+            story.append(text(repeats, SMALL))
         few = [f"{e.rater} ({e.phase})" if e.phase else e.rater for e in self.view.raters
                if e.lens is not None and e.lens.small_sample_note]
         if few:
@@ -828,7 +835,9 @@ class PanelReport:
 
     def methods(self) -> list:
         rows = [[text(h, CELL_BOLD) for h in ("Analysis", "Method", "Published source")]]
-        rows += [[text(a, CELL), text(m, CELL), text(s, CELL)] for a, m, s in METHODS]
+        every_showing = any(e.repeats_mode == "all" for e in self.view.raters)
+        rows += [[text(a, CELL), text(m, CELL), text(s, CELL)] for a, m, s in METHODS
+                 if every_showing or a != "Every showing used"]
         table = fitted_table(rows, [100, 230, CONTENT_WIDTH - 330], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         return [CondPageBreak(200), text("Methods and sources", HEADING), table,

@@ -84,7 +84,7 @@ def _not_available(e: RaterView, section: str) -> str | None:
 def _retest_reading(e: RaterView) -> str:
     if e.retest is None and _not_available(e, "retest"):
         return _not_available(e, "retest")
-    return wording.retest_reading(_retest_r(e), None if e.retest is None else e.retest.n_pairs)
+    return retest_sentence(e)
 
 
 def _severity_reading(e: RaterView) -> str:
@@ -190,9 +190,14 @@ class RaterReport:
                            if self.view.cues else wording.NO_CUES_RATER), BODY)]
         phases = [x.phase for x in self.entries]
         story.append(text(counts_sentence(self.entries), BODY))
-        only_two = wording.only_first_two_used(max((x.most_presentations or 0) for x in self.entries))
-        if only_two:
-            story.append(text(only_two, SMALL))
+        for x in self.entries:
+            note = wording.repeats_note(x.repeats_mode, x.n_repeats, x.most_presentations,
+                                        None if x.retest is None else x.retest.measure)
+            if note:
+                where = f"In phase {x.phase}: " if x.phase and len(self.entries) > 1 else ""
+                story.append(text(where + note, SMALL))
+                if x.repeats_mode != "all":
+                    break  # the first-two sentence is the same for every phase
         story.append(Spacer(1, 4))
         story.append(self.key_figure_table(phases))
         if self.shows_peers(self.phase):
@@ -338,21 +343,26 @@ class RaterReport:
         bounds = self.scale()
         if pairs and bounds:
             story.append(charts.retest_scatter(pairs, low=bounds[0], high=bounds[1]))
-            story.append(text(self.chart_caption(
-                "Each dot is a case you judged more than once: your first judgment across, your second "
-                "up; dots on the dashed line got the same judgment both times, and larger dots stand for "
-                "several cases."), SMALL))
+            every = retest is not None and retest.measure == "mean_pairwise_r" and retest.presentations > 2
+            story.append(text(self.chart_caption("Each dot is a case you judged more than once: your first judgment across, "
+                              "your second up" + (" (the first two of its showings; the figures below use "
+                                                  "every showing)" if every else "")
+                              + "; dots on the dashed line got the same judgment both times, "
+                              "and larger dots stand for several cases."), SMALL))
         elif r_tt is None:
             reason = self.entry.reason("retest")
             story.append(text(f"Test-retest is not available: {reason}." if reason else
                               "No case was shown to you more than once, so test-retest is not available.",
                               BODY))
         if r_tt is not None:
-            story.append(text(wording.retest_reading(r_tt, retest.n_pairs), BODY))
-            reach = wording.retest_reach_sentence(retest.n_pairs, retest.flag_detectable_below)
+            story.append(text(retest_sentence(self.entry), BODY))
+            reach = wording.retest_reach_sentence(retest.n_pairs, retest.flag_detectable_below,
+                                                  retest.measure, retest.presentations)
             if reach and "low_retest" not in self.entry.flags:
                 story.append(text(reach, BODY))
-            story.append(text(ceiling_sentence(r_s, r_tt, self.entry.ceiling_verdict), BODY))
+            story.append(text(ceiling_sentence(r_s, r_tt, self.entry.ceiling_verdict,
+                                               ceiling=self.entry.ceiling if self.entry.policy_on_means else None),
+                              BODY))
         return story
 
     def my_rows(self, names: tuple[str, ...], x: str, y: str) -> list[tuple[float, float]]:
@@ -414,7 +424,8 @@ class RaterReport:
         story.append(text("These cases received the judgments furthest from what your own policy predicts "
                           "for them. Re-reading them may show a cue that was missed or an exception that "
                           "deserves a rule.", BODY))
-        rows = [[text(h, CELL_BOLD) for h in ("Case", "Your judgment", "Your policy predicts", "Difference")]]
+        judged = "Your mean judgment" if self.entry.policy_on_means else "Your judgment"
+        rows = [[text(h, CELL_BOLD) for h in ("Case", judged, "Your policy predicts", "Difference")]]
         for c in cases[:12]:
             rows.append([text(c.case, CELL), text(fmt(c.judgment, 1), CELL),
                          text(fmt(c.predicted, 1) + ("*" if c.clipped else ""), CELL),
@@ -530,18 +541,33 @@ def before_after_section(report: RaterReport) -> list:
     return story
 
 
-def ceiling_sentence(r_s: float | None, r_tt: float, verdict: str | None = None) -> str:
+def retest_sentence(e: RaterView) -> str:
+    """The test-retest sentence for this entry, naming the figure shown (``retest.measure``)."""
+    rt = e.retest
+    if rt is None:
+        return wording.retest_reading(None, None)
+    return wording.retest_reading(rt.r, rt.n_pairs, rt.measure, rt.presentations, rt.presentation_pairs)
+
+
+def ceiling_sentence(r_s: float | None, r_tt: float, verdict: str | None = None, *,
+                     ceiling: float | None = None) -> str:
     """R_s set against sqrt(r_tt): in the population R_s <= sqrt(r_tt) when the cues
     stay fixed and only the unreliable part of the judgment differs between readings
     (a standard reliability bound: a correlation cannot exceed the square root of the
-    reliability; common practice, no single source)."""
+    reliability; common practice, no single source). ``ceiling`` given: R_s was fitted
+    to case means ([judgment] repeats = "all") and the bound is the square root of the
+    reliability of those means, as the audit computed it (results.json ``consistency.ceiling``)."""
     if r_s is None:
         return "Without a fitted policy, consistency cannot be set against test-retest."
-    if r_tt <= 0:
+    if r_tt <= 0 or (ceiling is not None and not ceiling > 0):
         return ("Repeated cases were judged so differently that the test-retest bound says nothing about "
                 "the policy.")
-    ceiling = math.sqrt(r_tt)
-    head = f"Consistency R_s = {fmt(r_s)} against the square root of test-retest, {fmt(ceiling)}. "
+    if ceiling is None:
+        ceiling = math.sqrt(r_tt)
+        head = f"Consistency R_s = {fmt(r_s)} against the square root of test-retest, {fmt(ceiling)}. "
+    else:
+        head = (f"Consistency R_s = {fmt(r_s)}, on your mean judgment of each case, against the square root "
+                f"of how reliable those means are, {fmt(ceiling)}. ")
     if isinstance(verdict, str) and verdict:
         return head + wording.CEILING_VERDICTS.get(verdict, verdict.replace("_", " ") + ".")
     if r_s > ceiling + 0.05:

@@ -173,12 +173,21 @@ class RetestView:
     icc_a1: float | None
     mean_abs_diff: float | None
     flag_detectable_below: float | None
+    # which figure r is (results written before the key existed: the first against its repeat)
+    measure: str = "first_repeat_r"
+    presentations: int = 2           # showings per case behind r
+    presentation_pairs: int = 1
+    icc_c1: float | None = None
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> RetestView:
         return cls(n_pairs=int(_get(d, "n_pairs", path)), r=_num(d, "r", path), icc_a1=_num(d, "icc_a1", path),
                    mean_abs_diff=_num(d, "mean_abs_diff", path),
-                   flag_detectable_below=_num(d, "flag_detectable_below", path))
+                   flag_detectable_below=_num(d, "flag_detectable_below", path),
+                   measure=str(_get(d, "measure", path, "first_repeat_r")),
+                   presentations=_count(d, "presentations", path) or 2,
+                   presentation_pairs=_count(d, "presentation_pairs", path) or 1,
+                   icc_c1=_num(d, "icc_c1", path, default=None))
 
 
 @dataclass(frozen=True)
@@ -463,6 +472,11 @@ class RaterView:
     unavailable: dict[str, str]
     changes: dict[str, tuple[ChangeIntoPhase, ...]] | None = None   # with 2+ phases, into this phase
     evidence: dict[str, FlagFigure] = field(default_factory=dict)   # flag -> the figure that set it
+    # [judgment] repeats as used ("first-two" in results written before the key existed);
+    # with the policy fitted to case means, the R_s ceiling the audit computed (Spearman-Brown)
+    repeats_mode: str = "first-two"
+    policy_on_means: bool = False
+    ceiling: float | None = None
 
     def reason(self, section: str) -> str | None:
         """Why the audit left ``section`` empty, when it recorded a reason."""
@@ -498,7 +512,12 @@ class RaterView:
             flags=tuple(map(str, _list(d, "flags", path))), excluded=excluded,
             warnings=collect_warnings(d), unavailable={str(k): str(v) for k, v in unavailable.items()},
             changes=_changes(d, path),
-            evidence=flag_figures(d, path))
+            evidence=flag_figures(d, path),
+
+            repeats_mode=str(_get(d, "repeats_mode", path, "first-two")),
+            policy_on_means=bool(consistency is not None and consistency.get("policy_on_means", False)),
+            ceiling=None if consistency is None else _num(consistency, "ceiling", f"{path}.consistency",
+                                                          default=None))
 
 
 # ---------------------------------------------------------------- panels

@@ -143,11 +143,18 @@ def consistency_reading(r_s: float | None) -> str:
     return f"Your judgments {words}: a single weighted rule of the cues reproduces them to R_s = {fmt(r_s)}."
 
 
-def retest_reading(r: float | None, n_pairs: int | None) -> str:
+def retest_reading(r: float | None, n_pairs: int | None, measure: str = "first_repeat_r",
+                   presentations: int = 2, pairs: int = 1) -> str:
+    """The test-retest sentence. ``measure`` (results.json ``retest.measure``) says which
+    figure ``r`` is: the first judgment against its repeat, or the mean r over the ``pairs``
+    pairs of ``presentations`` showings of ``n_pairs`` cases ([judgment] repeats = "all")."""
     words = RETEST_BANDS.words(r)
     if words is None:
         return "No case was shown to you more than once, so test-retest is not available."
     cases = f"the {n_pairs} cases" if n_pairs else "the cases"
+    if measure == "mean_pairwise_r" and presentations > 2:
+        return (f"On {cases} shown to you {presentations} times, your judgments of the same case {words} "
+                f"(test-retest r = {fmt(r)}, the mean over the {pairs} pairs of showings).")
     return (f"On {cases} you judged more than once, your first and second judgments {words} "
             f"(test-retest r = {fmt(r)}).")
 
@@ -179,6 +186,51 @@ def only_first_two_used(most_presentations: int | None) -> str | None:
         return None
     return ("Test-retest uses your first two judgments of each repeated case; the later "
             "presentations are left out of every figure.")
+
+
+def repeats_note(mode: str, n_repeats: int, most_presentations: int | None,
+                 measure: str | None) -> str | None:
+    """Which presentations the figures use ([judgment] repeats, results.json
+    ``repeats_mode``), and which test-retest figure is shown (``retest.measure``)."""
+    if mode != "all":
+        return only_first_two_used(most_presentations)
+    if not n_repeats:
+        return None
+    if measure == "mean_pairwise_r":
+        retest = ("test-retest is the mean correlation over every pair of showings of the cases "
+                  "shown equally often")
+    elif measure is None:
+        retest = "test-retest could not be computed"
+    else:
+        retest = ("test-retest compares your first two judgments of each repeated case (too few cases "
+                  "were shown equally often to compare every showing)")
+    return ("Every showing of a case is used: your policy, the lens model and the other figures "
+            "about your weights use your mean judgment of each case; agreement and severity use your "
+            f"first judgment of each case; {retest}.")
+
+
+def panel_repeats_note(entries) -> str | None:
+    """The panel summary's line on cases shown more than twice: which showings were used
+    and which test-retest figure the "Retest r" column shows (``repeats_mode`` and
+    ``retest.measure`` of each rater entry)."""
+    most = max((e.most_presentations or 0) for e in entries) if entries else 0
+    if most <= 2 and not any(e.repeats_mode == "all" and e.n_repeats for e in entries):
+        return None
+    if not any(e.repeats_mode == "all" for e in entries):
+        return (f"Some cases were shown up to {most} times; as [judgment] repeats = \"first-two\" asks, only "
+                "the first judgment of a case and its first repeat are used, and the later showings are "
+                "left out of every figure.")
+    over = sum(1 for e in entries if e.retest is not None and e.retest.measure == "mean_pairwise_r")
+    with_retest = sum(1 for e in entries if e.retest is not None)
+    others = with_retest - over
+    which = (f"for {over} of the {with_retest} raters with repeats, Retest r is the mean correlation over "
+             "every pair of showings of the cases a rater saw equally often (ICC(A,1) and ICC(C,1) over "
+             "those showings are in the retest table)")
+    if others:
+        which += f"; for the other {others}, the first judgment against its repeat"
+    return (f"Cases were shown up to {most} times and every showing is used ([judgment] repeats = \"all\"): "
+            "R_s and the other figures about weights are fitted to each rater's mean judgment of a case; "
+            f"agreement, severity and the files use the first judgment; {which}.")
 
 
 def flags_reading(visible: tuple[str, ...], hidden_checks: int, phase: str | None = None) -> str:
@@ -410,25 +462,34 @@ def chance_flags_sentence(n_tests: int, panelwise_rate: float | None, expected: 
             f"over {n_tests} tests); this panel shows {shows}.")
 
 
-def retest_reach_sentence(n_pairs: int | None, detectable_below: float | None) -> str | None:
-    """What the low test-retest check can catch (results.json ``retest.flag_detectable_below``)."""
+def retest_reach_sentence(n_pairs: int | None, detectable_below: float | None,
+                          measure: str = "first_repeat_r", presentations: int = 2) -> str | None:
+    """What the low test-retest check can catch (results.json ``retest.flag_detectable_below``);
+    over every showing (``measure`` mean_pairwise_r) the check tests ICC(C,1), so it says so."""
     if not n_pairs:
         return None
     cases = f"{n_pairs} repeated case" + ("s" if n_pairs != 1 else "")
+    if measure == "mean_pairwise_r":
+        cases += f" shown {presentations} times" if presentations > 2 else " shown twice"
     if detectable_below is None or detectable_below <= -1:
         return f"With {cases} the low test-retest check cannot flag anyone."
+    if measure == "mean_pairwise_r":
+        return (f"With {cases} the low test-retest check, made on ICC(C,1) over the showings, can only flag "
+                f"a value below {fmt(detectable_below)}.")
     return f"With {cases} the low test-retest check can only flag a correlation below {fmt(detectable_below)}."
 
 
 def retest_reach_panel_sentence(fewest: int, most: int, highest: float | None,
-                                phase: str | None = None) -> str:
-    """The same for a phase's raters who were not flagged: the most the check could catch."""
+                                phase: str | None = None, *, over_showings: bool = False) -> str:
+    """The same for a phase's raters who were not flagged: the most the check could catch.
+    ``over_showings``: some of them were checked on ICC(C,1) over every showing."""
     cases = f"{fewest}" if fewest == most else f"{fewest} to {most}"
     lead = f"Phase {phase}: w" if phase else "W"
     if highest is None or highest <= -1:
         return f"{lead}ith {cases} repeated cases per rater the low test-retest check could not flag anyone."
+    what = "correlation (or ICC(C,1) over the showings)" if over_showings else "correlation"
     return (f"{lead}ith {cases} repeated cases per rater the low test-retest check could flag only a "
-            f"correlation below {fmt(highest)} (at best).")
+            f"{what} below {fmt(highest)} (at best).")
 
 
 def flag_words(flag: str) -> str:

@@ -215,11 +215,12 @@ class _PhaseFigures:
 
 
 def _fit_first(table: JudgmentTable, ph: PhaseData) -> pd.DataFrame:
-    """First judgments of the raters with a policy fit, on cases with a complete design row."""
+    """First judgments of the raters with a policy fit, on cases with a complete design row;
+    with [judgment] repeats = "all" each case's mean judgment, as the audit's policies use."""
     complete = set(np.asarray(table.design.case_ids)[table.design.complete_rows()])
     first = ph.first.loc[ph.first["rater"].isin(ph.fit_raters) & ph.first["case"].isin(complete),
-                         ["rater", "case", "judgment"]]
-    return first.reset_index(drop=True)
+                         ["rater", "case", "case_mean"]]
+    return first.rename(columns={"case_mean": "judgment"}).reset_index(drop=True)
 
 
 def _resample_counts(sizes: np.ndarray, n_max: int, n_boot: int,

@@ -4,7 +4,10 @@ Four invented studies of varied shapes go through the real audit: a 1-7 panel wi
 ceilings, cases shown up to five times, lenient, severe, narrow, inverted (negative
 achievement), random and perfectly consistent raters and one rater led by an excluded
 attribute; a binary panel in two phases; a continuous panel with exact rules; a panel of
-four. Together they give well over 200 rater entries. For each entry the report's
+four; a small binary panel with cases shown four times (every showing used: policies on
+case means, test-retest over every pair of showings). The 1-7 and continuous panels use
+every showing too, since some of their cases are shown more than twice. Together they
+give well over 200 rater entries. For each entry the report's
 sentence functions are called with the entry's figures and each sentence is checked
 against the numbers it states and against what the simulation planted (how often each
 case was shown). A subset is rendered to PDF and the text scanned for words that must
@@ -30,6 +33,7 @@ from calibrate.report.rater import (
     ceiling_sentence,
     counts_sentence,
     flags_sentence,
+    retest_sentence,
     visible_flags,
 )
 from tests.helpers import write_study
@@ -131,6 +135,8 @@ def studies(tmp_path_factory):
         "continuous": _study(tmp, "continuous", "continuous", 0, 100, 60, showings=(3, 2, 1), seed=13,
                              n_cases=36, cases_per_rater=30),
         "four": _study(tmp, "four", "ordinal", 1, 7, 4, showings=(2,), seed=14),
+        "binary_every_showing": _study(tmp, "binary_every_showing", "binary", 0, 1, 16, showings=(4, 1),
+                                       seed=15, n_cases=40),
     }
 
 
@@ -160,8 +166,17 @@ def check_counts(e, planted, view):
         else:
             assert int(m[4]) == planted["showings"], sentence
     assert (m[6] is not None) == view.named_phases, sentence
-    note = wording.only_first_two_used(e.most_presentations)
-    assert (note is not None) == (planted["n_repeated"] > 0 and planted["showings"] > 2)
+    measure = None if e.retest is None else e.retest.measure
+    note = wording.repeats_note(e.repeats_mode, e.n_repeats, e.most_presentations, measure)
+    if e.repeats_mode == "all":
+        assert (note is not None) == (planted["n_repeated"] > 0), note
+        if note:
+            assert note.startswith("Every showing of a case is used") and e.policy_on_means == (e.policy is not None
+                                                                                              and e.retest is not None)
+            assert ("mean correlation over every pair of showings" in note) == (measure == "mean_pairwise_r"), note
+    else:
+        assert (note is not None) == (planted["n_repeated"] > 0 and planted["showings"] > 2)
+        assert (e.most_presentations or 0) <= 2 or note is not None
 
 
 def check_flags(e, include_excluded):
@@ -190,18 +205,29 @@ def check_consistency(e):
     assert ("less closely than is usual" in sentence) == low, sentence
 
 
-def check_retest(e):
+def check_retest(e, planted):
     r = None if e.retest is None else e.retest.r
-    sentence = wording.retest_reading(r, None if e.retest is None else e.retest.n_pairs)
+    sentence = retest_sentence(e)
     if r is None:
         assert "not available" in sentence
         return
-    m = re.search(r"On the (\d+) cases .* judgments (often differed|mostly agreed|agreed closely) "
-                  r"\(test-retest r = (" + NUMBER + r")\)\.", sentence)
+    m = re.search(r"On the (\d+) cases (?:shown to you (\d+) times|you judged more than once), .* judgments "
+                  r"(?:of the same case )?(often differed|mostly agreed|agreed closely) "
+                  r"\(test-retest r = (" + NUMBER + r")(?:, the mean over the (\d+) pairs of showings)?\)\.",
+                  sentence)
     assert m, sentence
-    assert int(m[1]) == e.retest.n_pairs and _close(m[3], r), sentence
-    assert (m[2] == "often differed") == (r < 0.70), sentence
+    assert int(m[1]) == e.retest.n_pairs and _close(m[4], r), sentence
+    assert (m[3] == "often differed") == (r < 0.70), sentence
+    over_showings = e.retest.measure == "mean_pairwise_r" and e.retest.presentations > 2
+    assert (m[2] is not None) == over_showings == (m[5] is not None), sentence
+    if over_showings:
+        # every showing the simulation planted is compared, over every pair of showings
+        assert int(m[2]) == planted["showings"] and int(m[1]) == planted["n_repeated"], sentence
+        assert int(m[5]) == planted["showings"] * (planted["showings"] - 1) // 2, sentence
     r_s = None if e.policy is None else e.policy.r
+    if e.policy_on_means:
+        check_ceiling_on_means(e, r_s, r)
+        return
     ceiling = ceiling_sentence(r_s, r, e.ceiling_verdict)
     # the contradiction of issue 14: "often differed", then "your judgments repeat well"
     assert "repeat well" not in ceiling
@@ -215,6 +241,24 @@ def check_retest(e):
             assert r < 0.70 and r_s < 0.70, ceiling        # "both figures are clearly low"
         if "The two agree" in ceiling:
             assert abs(r_s - math.sqrt(r)) <= 0.10 + 1e-9, ceiling
+
+
+def check_ceiling_on_means(e, r_s, r):
+    """R_s fitted to case means is set against the reliability of those means (Spearman-Brown),
+    the ceiling results.json records; the sentence says so and its verdict holds."""
+    ceiling = ceiling_sentence(r_s, r, e.ceiling_verdict, ceiling=e.ceiling)
+    assert "repeat well" not in ceiling
+    if r_s is None or e.ceiling is None or r <= 0 or e.ceiling <= 0:
+        return
+    m = re.match(r"Consistency R_s = (" + NUMBER + r"), on your mean judgment of each case, against the square "
+                 r"root of how reliable those means are, (" + NUMBER + r")\. ", ceiling)
+    assert m and _close(m[1], r_s) and _close(m[2], e.ceiling), ceiling
+    if e.ceiling_verdict == "model_misses_rule":
+        assert r_s < e.ceiling, ceiling
+    if e.ceiling_verdict == "inconsistent":
+        assert e.ceiling ** 2 < 0.70 and r_s < 0.70, ceiling
+    if "The two agree" in ceiling:
+        assert abs(r_s - e.ceiling) <= 0.10 + 1e-9, ceiling
 
 
 def check_severity(e):
@@ -300,7 +344,7 @@ def test_every_sentence_matches_its_numbers_for_over_200_raters(studies):
         check_flags(e, include_excluded=False)
         check_flags(e, include_excluded=True)
         check_consistency(e)
-        check_retest(e)
+        check_retest(e, planted)
         check_severity(e)
         check_shares(e)
         check_cases(e, scale)
@@ -315,12 +359,16 @@ def test_every_sentence_matches_its_numbers_for_over_200_raters(studies):
 def test_the_extreme_shapes_are_really_there(studies):
     """The simulation reaches the corners the sentences must survive."""
     found = {"negative_r_a": False, "perfect": False, "no_repeats": False, "five_showings": False,
-             "binary": False, "lenient": False, "severe": False, "hidden_flag": False, "clipped": False}
+             "binary": False, "every_showing": False, "binary_every_showing": False, "lenient": False, "severe": False, "hidden_flag": False, "clipped": False}
     for label, data, e, raw, planted in _entries(studies):
         found["negative_r_a"] |= raw["lens"] is not None and raw["lens"]["r_a"] < -0.3
         found["perfect"] |= e.policy is not None and e.policy.r is not None and e.policy.r > 0.999
         found["no_repeats"] |= e.n_repeats == 0 and e.retest is None
         found["five_showings"] |= e.most_presentations == 5
+        found["every_showing"] |= (e.retest is not None and e.retest.measure == "mean_pairwise_r"
+                                   and e.retest.presentations == 5 and e.policy_on_means)
+        found["binary_every_showing"] |= (label == "binary_every_showing" and e.retest is not None
+                                          and e.retest.presentations == 4)
         found["binary"] |= label == "binary"
         found["lenient"] |= "lenient" in e.flags
         found["severe"] |= "severe" in e.flags
@@ -332,7 +380,7 @@ def test_the_extreme_shapes_are_really_there(studies):
 NEVER = ("from memory", "null", "Nothing was flagged", "repeat well")
 
 
-@pytest.mark.parametrize("label", ["ordinal", "binary", "continuous", "four"])
+@pytest.mark.parametrize("label", ["ordinal", "binary", "continuous", "four", "binary_every_showing"])
 def test_rendered_reports_hold_no_false_or_forbidden_words(studies, label):
     data, planted = studies[label]
     ids = data.view.rater_ids()
@@ -346,6 +394,8 @@ def test_rendered_reports_hold_no_false_or_forbidden_words(studies, label):
         most = max(v["showings"] for k, v in planted.items() if k[0] == rater)
         if most > 2:
             assert "shown twice" not in text and f"each shown {most} times" in text
+            assert "Every showing of a case is used" in text and f"shown to you {most} times" in text
+            assert "first two judgments" not in text
         if not data.view.named_phases:
             assert "phase" not in text.lower().replace("phase of", "")
         if rater in flagged:
@@ -353,5 +403,7 @@ def test_rendered_reports_hold_no_false_or_forbidden_words(studies, label):
     panel = " ".join(" ".join(page_texts(panel_pdf(data))).split())
     for word in ("from memory", "null"):
         assert word not in panel
+    most = max(v["showings"] for v in planted.values())
+    assert ("every showing is used" in panel) == (most > 2), label
     if not data.view.named_phases:
         assert "Phase" not in panel and " phase " not in panel

@@ -63,13 +63,32 @@ def test_repeat_second_judgment_is_a_retest_pair_and_third_is_dropped(tmp_path):
     second = extra.assign(seq=100, score=1)
     third = extra.assign(seq=101, score=7)
     df = pd.concat([df, second, third], ignore_index=True)
-    path = write_study(tmp_path, df, extra_columns='sequence = "seq"')
+    path = write_study(tmp_path, df, extra_columns='sequence = "seq"', extra_judgment='repeats = "first-two"')
     table, problems = inspect_study(path)
     phase = table.phases[0]
     (pair,) = phase.repeats.itertuples()
     assert (pair.rater, pair.case, pair.second) == ("r1", "c2", 1.0)
     assert any("more than twice" in m for m in _messages(problems, "warning"))
     assert len(phase.ordered.query("rater == 'r1'")) == 13  # 12 firsts + 1 repeat, third dropped
+    assert phase.repeat_mode == "first-two" and phase.presentations.empty
+    assert (phase.first["case_mean"] == phase.first["judgment"]).all()
+
+
+def test_every_presentation_is_used_by_default_when_a_case_is_shown_three_times(tmp_path):
+    df = simple_judgments()
+    df["seq"] = df.groupby("rater").cumcount() + 1
+    extra = df.loc[(df["rater"] == "r1") & (df["case"] == "c2")].copy()
+    first_score = float(extra["score"].iloc[0])
+    df = pd.concat([df, extra.assign(seq=100, score=1), extra.assign(seq=101, score=7)], ignore_index=True)
+    table, problems = inspect_study(write_study(tmp_path, df, extra_columns='sequence = "seq"'))
+    phase = table.phases[0]
+    assert phase.repeat_mode == "all"
+    assert len(phase.ordered.query("rater == 'r1'")) == 14  # every judgment in reading order
+    shown = phase.presentations.query("rater == 'r1' and case == 'c2'")
+    assert shown["nth"].tolist() == [0, 1, 2] and shown["judgment"].tolist() == [first_score, 1.0, 7.0]
+    row = phase.first.query("rater == 'r1' and case == 'c2'").iloc[0]
+    assert row["judgment"] == first_score and row["case_mean"] == pytest.approx((first_score + 8.0) / 3)
+    assert sum("more than twice" in m for m in _messages(problems, "warning")) == 1
 
 
 def test_first_judgment_is_decided_by_sequence_not_row_order(tmp_path):

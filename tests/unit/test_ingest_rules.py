@@ -273,12 +273,36 @@ def test_second_judgment_is_the_repeat_and_a_third_is_dropped():
     out = Collector()
     frame = rows(_rater=["a"] * 4 + ["b"], _case=["c1", "c2", "c1", "c1", "c1"])
     frame["_sequence"] = [3.0, 1.0, 5.0, 7.0, np.nan]
-    kept = rules.mark_repeats(frame, out)
+    kept = rules.mark_repeats(frame, out, "first-two")
     assert kept[["_rater", "_case", "_nth", "_position"]].values.tolist() == [
         ["a", "c2", 0, 0], ["a", "c1", 0, 1], ["a", "c1", 1, 2], ["b", "c1", 0, 0]]
+    assert kept.attrs["repeats"] == "first-two"
     assert messages(out, "warning") == [
-        "rater 'a' judged case 'c1' more than twice; the judgments in rows 5 were dropped (only the "
-        "first and its repeat are used)"]
+        "1 rater-case pair(s) (1 rater(s)) were shown more than twice, up to 3 times; the 1 judgment(s) "
+        "after the second of a case (rows 5) were dropped, as [judgment] repeats = \"first-two\" asks "
+        "(only the first and its repeat are used)"]
+
+
+def test_every_presentation_is_kept_by_default_when_a_case_is_shown_more_than_twice():
+    out = Collector()
+    frame = rows(_rater=["a"] * 6 + ["b"] * 3, _case=["c1", "c2", "c1", "c1", "c2", "c2", "c1", "c1", "c1"])
+    frame["_sequence"] = np.arange(9, dtype=float)
+    kept = rules.mark_repeats(frame, out, None)
+    assert kept.attrs["repeats"] == "all"
+    assert len(kept) == 9 and kept["_nth"].tolist() == [0, 0, 1, 2, 1, 2, 0, 1, 2]
+    assert kept.loc[kept["_rater"] == "a", "_position"].tolist() == [0, 1, 2, 3, 4, 5]
+    # one grouped warning for the three rater-case pairs, never one per case
+    assert messages(out, "warning") == [
+        "3 rater-case pair(s) (2 rater(s)) were shown more than twice, up to 3 times; every presentation "
+        "is used ([judgment] repeats = \"all\": the policy on each case's mean judgment, consistency over "
+        "all presentations)"]
+
+
+def test_repeat_mode_follows_the_spec_else_the_most_presentations():
+    assert rules.repeat_mode(2, None) == "first-two"
+    assert rules.repeat_mode(3, None) == "all"
+    assert rules.repeat_mode(10, "first-two") == "first-two"
+    assert rules.repeat_mode(2, "all") == "all"
 
 
 def test_without_a_sequence_row_order_decides_the_first():
