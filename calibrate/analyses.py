@@ -509,9 +509,10 @@ def _add_rater_changes(raters: list[dict], table: JudgmentTable, seed: int) -> N
 def _check_options(seed, n_boot) -> None:
     """The audit's own options, checked before any work (a user error, not a traceback)."""
     check_seed(seed)
-    if isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer)) or int(n_boot) < 20:
+    if (isinstance(n_boot, bool) or not isinstance(n_boot, (int, np.integer))
+            or not (int(n_boot) == 0 or int(n_boot) >= 20)):
         raise CalibrateError(f"n_boot (bootstrap resamples for the policy intervals) must be a whole "
-                             f"number of 20 or more (1000 by default); got {n_boot!r}.")
+                             f"number of 20 or more (1000 by default), or 0 for no intervals; got {n_boot!r}.")
 
 
 # The libraries whose versions can change a figure or a report; read from the installed

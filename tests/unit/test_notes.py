@@ -38,20 +38,20 @@ def test_wording_code_ignores_names_and_numbers():
     assert wording_code("R_s = 0.51, interval up to 0.70") != a
 
 
-def test_later_showings_are_one_kind_with_rater_and_case():
+def test_later_showings_are_one_grouped_note_of_their_kind():
+    # a case shown more than twice gives one note for the whole table (issue 16: one grouped
+    # warning, not one per case), whichever [judgment] repeats mode is used
     data = pd.DataFrame({"_rater": ["a"] * 4 + ["b"] * 3, "_case": ["c1"] * 4 + ["c2"] * 3,
                          "_sequence": [1, 2, 3, 4, 1, 2, 3], "_phase": [None] * 7, "_row": range(2, 9),
                          "_file": ["j.csv"] * 7})
-    out = Collector()
-    mark_repeats(data, out)
-    notes = [w.to_dict() for w in out.warnings]
-    assert [(n["kind"], n["rater"], n["case"]) for n in notes] == [
-        ("later_presentations_dropped", "a", "c1"), ("later_presentations_dropped", "b", "c2")]
-    (group,) = group_notes(notes)
-    assert group.count == 2 and group.subjects == ("rater 'a', case 'c1'", "rater 'b', case 'c2'")
-    line = group.line()
-    assert line.startswith("Third and later showings of a case were dropped") and "2 notes" in line
-    assert "j.csv: rater 'a' judged case 'c1'" in line     # the first in full, with its file
+    for mode, kind in (("first-two", "later_presentations_dropped"), ("all", "every_presentation_used")):
+        out = Collector()
+        mark_repeats(data.copy(), out, mode=mode)
+        notes = [w.to_dict() for w in out.warnings]
+        assert [n["kind"] for n in notes] == [kind]
+        assert "2 rater-case pair(s) (2 rater(s))" in notes[0]["message"]
+        (group,) = group_notes(notes)
+        assert group.count == 1 and notes[0]["message"] in group.line()  # one note: in full
 
 
 def test_group_line_counts_and_shows_a_few_examples():
@@ -105,7 +105,8 @@ def test_fifteen_showings_give_a_data_quality_section_on_one_page(tmp_path):
     spec = write_study(tmp_path / "study", many_showings_judgments(),
                        cues='x1 = "numeric"\nx2 = "numeric"\nx3 = "numeric"', extra_columns='sequence = "seq"')
     result = audit(spec, n_boot=200)
-    assert sum(w["kind"] == "later_presentations_dropped" for w in result.warnings) == 29 * 14
+    # every showing is used by default ([judgment] repeats = "all"), said in one grouped note
+    assert sum(w["kind"] == "every_presentation_used" for w in result.warnings) == 1
     assert len(result.tables["notes"]) == len(result.warnings)
     assert set(result.tables["notes"]["phase"]) == {"all"}          # as in every other table
     # every note once: the rater and panel entries' own notes are all in results.json's list,
@@ -123,7 +124,7 @@ def test_fifteen_showings_give_a_data_quality_section_on_one_page(tmp_path):
     end = [i for i, p in enumerate(pages) if "Every note, one row each" in p]
     assert len(start) == 1 and end == start, (start, end)
     section = " ".join(pages[start[0]].split())
-    assert "406 notes" in section and "more than twice" in section
+    assert "406 rater-case pair(s)" in section and "more than twice" in section
 
 
 def test_command_line_flags_stay_short_on_two_thousand_raters():
