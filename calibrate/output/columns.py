@@ -131,6 +131,22 @@ TABLE_COLUMN_NOTES: dict[str, dict[str, str]] = {
         "flag_detectable_below": "With this many repeated pairs, the largest observed retest r that "
                                  "could raise the low_retest flag (a small number of repeats can flag "
                                  "only very low correlations).",
+        "measure": "Which figure r is: first_repeat_r (the first judgment of each repeated case against its "
+                   "repeat) or mean_pairwise_r (with [judgment] repeats = \"all\": the mean r over every "
+                   "pair of showings of each case).",
+        "presentations": "Showings per case behind the figures (2 for a first judgment and its repeat; more "
+                         "when every showing is used).",
+        "presentation_pairs": "Pairs of showings per case averaged in mean_pairwise_r: k(k-1)/2 for k showings.",
+        "r_ci_method": "How the interval of r was computed: Fisher z for one pair of showings, the F-based "
+                       "interval of ICC(C,1) over every showing otherwise.",
+        "icc_a1_ci_low": "Lower end of the 95% F-based interval of ICC(A,1) over the showings (McGraw & Wong 1996).",
+        "icc_a1_ci_high": "Upper end of the 95% F-based interval of ICC(A,1) over the showings.",
+        "icc_c1": "ICC(C,1) (up to 1) over the showings: consistency of the showings, shifts in level "
+                  "between showings not counted as disagreement.",
+        "icc_c1_ci_low": "Lower end of the 95% F-based interval of ICC(C,1) over the showings.",
+        "icc_c1_ci_high": "Upper end of the 95% F-based interval of ICC(C,1) over the showings.",
+        "low_test": "Which one-sided test gives low_p: Fisher z of r for one pair of showings, or the F test "
+                    "of ICC(C,1) against 0.70 when every showing is used.",
     },
     "repeat_pairs": {
         "first": "The rater's first judgment of the repeated case (earliest by sequence, else by row order).",
