@@ -200,6 +200,31 @@ def _criterion_lines(table, cases, case_col, criterion) -> list[str]:
             "# criterion_only_for_selected = true"]
 
 
+def _cue_lines(cues, left_out, sensitive) -> list[str]:
+    """The draft's [cues] (with the columns left out and why), rubric hint and [excluded]."""
+    lines: list[str] = []
+    lines += ["", "[cues]   # CHECK: numeric or categorical; remove columns that are not cues"]
+    for name, kind, missing in cues:
+        if missing:
+            lines.append(f"{_q(name)} = {{ type = \"numeric\", missing = \"indicator\" }}  "
+                         "# has missing values: 'indicator' keeps those cases, 'drop' removes them")
+        else:
+            lines.append(f"{_q(name)} = {_q(kind)}")
+    for name, reason in left_out:
+        lines.append(f"# {_q(name)} left out: {reason}")
+    lines += ["", "# [rubric]              # optional: the weights the panel is meant to use",
+              "# basis = \"standardized\""]
+    if sensitive:
+        lines += ["", "[excluded]   # CHECK: these columns look like protected or sensitive attributes, so they",
+                  "# are not cues; listed here, the audit tests that they do not sway the judgments.",
+                  "# Keep them here, or remove them, as the institution's policies and the law allow.",
+                  "columns = [" + ", ".join(_q(c) for c in sensitive) + "]"]
+    else:
+        lines += ["# [excluded]            # optional: attributes that must not influence judgments",
+                  "# columns = []"]
+    return lines
+
+
 def draft_spec(table: pd.DataFrame, *, data_name: str, study_name: str,
                cases: pd.DataFrame | None = None, cases_name: str | None = None) -> str:
     """Draft a spec (TOML text with comments) from a judgments table and, optionally, a
@@ -260,25 +285,7 @@ def draft_spec(table: pd.DataFrame, *, data_name: str, study_name: str,
         else:
             lines.append(f"{role} = {_q(col)}")
     lines += _judgment_lines(scale, jmin, jmax, labels, labels_unsure, _q)
-    lines += ["", "[cues]   # CHECK: numeric or categorical; remove columns that are not cues"]
-    for name, kind, missing in cues:
-        if missing:
-            lines.append(f"{_q(name)} = {{ type = \"numeric\", missing = \"indicator\" }}  "
-                         "# has missing values: 'indicator' keeps those cases, 'drop' removes them")
-        else:
-            lines.append(f"{_q(name)} = {_q(kind)}")
-    for name, reason in left_out:
-        lines.append(f"# {_q(name)} left out: {reason}")
-    lines += ["", "# [rubric]              # optional: the weights the panel is meant to use",
-              "# basis = \"standardized\""]
-    if sensitive:
-        lines += ["", "[excluded]   # CHECK: these columns look like protected or sensitive attributes, so they",
-                  "# are not cues; listed here, the audit tests that they do not sway the judgments.",
-                  "# Keep them here, or remove them, as the institution's policies and the law allow.",
-                  "columns = [" + ", ".join(_q(c) for c in sensitive) + "]"]
-    else:
-        lines += ["# [excluded]            # optional: attributes that must not influence judgments",
-                  "# columns = []"]
+    lines += _cue_lines(cues, left_out, sensitive)
     if roles["phase"]:
         phases = [str(v) for v in pd.unique(table[roles["phase"]].dropna())]
         lines += ["", "[phases]   # CHECK: the order of the phases",

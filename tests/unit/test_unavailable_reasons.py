@@ -12,7 +12,7 @@ def entry(**present):
 
 
 def test_study_level_facts_are_named():
-    spec = SimpleNamespace(columns={"rater": "r", "case": "c", "judgment": "j"}, rubric=None)
+    spec = SimpleNamespace(columns={"rater": "r", "case": "c", "judgment": "j"}, rubric=None, cues=("x",))
     ph = SimpleNamespace(too_few=set())
     got = _unavailable_reasons(entry(policy={}, agreement={}, severity={}, drift={}, cutoff={}),
                                "r1", ph, spec, {"n_repeats": 0})
@@ -21,7 +21,7 @@ def test_study_level_facts_are_named():
 
 
 def test_rater_level_facts_are_named():
-    spec = SimpleNamespace(columns={"criterion": "outcome"}, rubric={"a": 1.0})
+    spec = SimpleNamespace(columns={"criterion": "outcome"}, rubric={"a": 1.0}, cues=("a",))
     ph = SimpleNamespace(too_few={"r1"})
     got = _unavailable_reasons(entry(), "r1", ph, spec, {"n_repeats": 2})
     assert got["policy"] == "too few usable cases to fit a policy"
@@ -31,6 +31,6 @@ def test_rater_level_facts_are_named():
 
 
 def test_nothing_recorded_when_every_section_is_there():
-    spec = SimpleNamespace(columns={}, rubric=None)
+    spec = SimpleNamespace(columns={}, rubric=None, cues=("x",))
     full = {key: {} for key in SECTIONS}
     assert _unavailable_reasons(full, "r1", SimpleNamespace(too_few=set()), spec, {"n_repeats": 3}) == {}
