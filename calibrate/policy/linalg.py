@@ -80,6 +80,10 @@ def grouped_sscp(
     )
     with np.errstate(invalid="ignore", divide="ignore"):
         mean = sums / n[:, None]
+    sizes = np.bincount(groups, minlength=n_groups)
+    longest = int(sizes.max()) if m else 0
+    if k > 1 and m and n_groups * longest <= _PADDING_ALLOWANCE * m:
+        return _sscp_by_blocks(Z, groups, n_groups, w, n, mean, sizes, longest)
     centred = Z - mean[groups]
     sscp = np.empty((n_groups, k, k))
     for i in range(k):
@@ -89,6 +93,56 @@ def grouped_sscp(
             sscp[:, i, j] = s
             sscp[:, j, i] = s
     return GroupedSSCP(n=n, mean=mean, sscp=sscp)
+
+
+#: Padded blocks may hold at most this many slots per row of Z (groups of unequal
+#: size are padded to the longest); beyond it the column-by-column sums are used.
+_PADDING_ALLOWANCE = 3
+
+
+def _sscp_by_blocks(Z, groups, n_groups, w, n, mean, sizes, longest) -> GroupedSSCP:
+    """The same sums as the column-by-column path, as one batched matrix product.
+
+    Rows are laid out as a (groups, longest, k) block, padded with zero-weight rows,
+    so that the k*(k+1)/2 passes over the table become one ``matmul`` per group: about
+    ten times fewer passes over memory with ten or so columns.
+    """
+    m, k = Z.shape
+    order = np.argsort(groups, kind="stable")
+    sorted_groups = groups[order]
+    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    slot = np.arange(m) - starts[sorted_groups]
+    weight = np.zeros((n_groups, longest))
+    weight[sorted_groups, slot] = w[order]
+    centred = np.zeros((n_groups, longest, k))   # padding slots stay exactly zero
+    centred[sorted_groups, slot] = Z[order] - mean[sorted_groups]
+    sscp = np.matmul(np.swapaxes(centred * weight[:, :, None], 1, 2), centred)
+    sscp = (sscp + np.swapaxes(sscp, 1, 2)) / 2.0   # exactly symmetric, as the other path
+    return GroupedSSCP(n=n, mean=mean, sscp=sscp)
+
+
+def grouped_products(A: np.ndarray, groups: np.ndarray, n_groups: int) -> tuple[np.ndarray, np.ndarray]:
+    """Per group, the column sums of ``A`` and the uncentred cross-products ``A'A``.
+
+    Returns ``(sums (G, k), products (G, k, k))``: the same numbers as
+    ``np.add.at(out, groups, A[:, :, None] * A[:, None, :])`` without the (rows, k, k)
+    array, by one batched matrix product on rows laid out per group.
+    """
+    A = np.asarray(A, dtype=float)
+    groups = np.asarray(groups, dtype=np.intp)
+    m, k = A.shape
+    sums = np.stack([np.bincount(groups, weights=A[:, j], minlength=n_groups)
+                     for j in range(k)], axis=1)
+    sizes = np.bincount(groups, minlength=n_groups)
+    longest = int(sizes.max()) if m else 0
+    order = np.argsort(groups, kind="stable")
+    sorted_groups = groups[order]
+    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    slot = np.arange(m) - starts[sorted_groups]
+    block = np.zeros((n_groups, longest, k))
+    block[sorted_groups, slot] = A[order]
+    products = np.matmul(np.swapaxes(block, 1, 2), block)
+    return sums, (products + np.swapaxes(products, 1, 2)) / 2.0
 
 
 @dataclass(frozen=True)

@@ -31,7 +31,7 @@ import numpy as np
 from scipy import special
 from scipy import stats as sps
 
-from .linalg import grouped_sscp, ols_from_sscp
+from .linalg import grouped_products, grouped_sscp, ols_from_sscp
 from .logistic import fit_logistic
 
 NULL_KINDS = ("continuous", "rounded", "binary")
@@ -98,10 +98,7 @@ def fit_rounded_normal(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_group
     converged = np.zeros(n_groups, dtype=bool)
     eye = np.eye(q + 1)
     for _ in range(iterations):
-        grad = np.zeros((n_groups, q + 1))
-        np.add.at(grad, groups, scores)
-        outer = np.zeros((n_groups, q + 1, q + 1))
-        np.add.at(outer, groups, scores[:, :, None] * scores[:, None, :])
+        grad, outer = grouped_products(scores, groups, n_groups)
         outer += 1e-9 * eye
         direction = np.linalg.solve(outer, grad[..., None])[..., 0]
         converged = np.einsum("gi,gi->g", grad, direction) < 1e-10
