@@ -67,4 +67,7 @@ TABLE_DESCRIPTIONS = {
     "grouping": "One row per rater and phase: policy group and the cross-check grouping.",
     "group_merges": "The merge sequence of the policy grouping with the R^2 lost at each step.",
     "groups": "One row per group and phase: pooled policy and stability.",
+    "group_pairs": "One row per pair of grouped raters and phase: the share of case resamples in "
+                   "which the two shared a group (panels of up to 200 grouped raters, or with "
+                   "--full-extras).",
 }
