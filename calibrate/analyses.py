@@ -127,7 +127,10 @@ def _lookup(result, rater: str):
 
 def _warn_texts(phase: str | None, name: str, result) -> list[dict]:
     """The analysis' warnings as study warnings; a study without phases names none."""
-    texts = getattr(result, "warnings", ()) if result is not None else ()
+    return _study_warnings(phase, name, getattr(result, "warnings", ()) if result is not None else ())
+
+
+def _study_warnings(phase: str | None, name: str, texts) -> list[dict]:
     where = f"{name} ({phase})" if phase is not None else name
     return [{"severity": "warning", "message": f"{where}: {t}", "file": None, "row": None,
              "column": None} for t in texts]
@@ -382,6 +385,10 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
                              ("cutoffs", a.cutoffs), ("drift", a.drift), ("rater_pairs", a.rater_pairs),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
+        # The grouping warns of its own reductions; the left-out pair table is the audit's.
+        left_out = [t for t in panels[-1]["reduced_forms"]
+                    if a.grouping is None or t not in a.grouping.reduced_forms]
+        warnings += _study_warnings(ph.name, "grouping", left_out)
         _collect_tables(tables, ph, a, full_extras)
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))

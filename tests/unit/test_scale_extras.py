@@ -35,3 +35,9 @@ def test_above_the_limit_the_pair_table_is_left_out_and_said_so_unless_asked(tmp
     full = audit(table, n_boot=50, full_extras=True)
     assert full.to_dict()["panels"][0]["group_pairs_table"] == "group_pairs"
     assert "group_pairs" in full.tables
+
+
+def test_the_left_out_pair_table_is_also_a_study_warning(tmp_path, monkeypatch):
+    monkeypatch.setattr(analyses, "GROUP_PAIRS_MAX_RATERS", 3)
+    result = audit(_table(tmp_path), n_boot=50)
+    assert sum("pairs) is left out of the tables" in w["message"] for w in result.warnings) == 1
