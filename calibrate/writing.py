@@ -44,8 +44,7 @@ def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False
 def _index_frame(result: AuditResult, pdf: bool) -> pd.DataFrame:
     """One row per rater: the id (a code when pseudonymised) and the report file, relative to
     the folder (empty without PDFs), in the order the reports are built."""
-    from .report import rater_file_names
-    from .report.builder import RATERS_FOLDER
+    from .report.names import RATERS_FOLDER, rater_file_names
 
     ids = sorted({str(e["rater"]) for e in result.raters})
     names = rater_file_names(ids)
