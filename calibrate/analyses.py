@@ -32,6 +32,7 @@ from .panel.pairs import RaterPairsResult, HomogeneityResult, compare_rater_pair
 from .policy.fit import CURVATURE_NOTE, POLICIES_SCHEMA, PolicySet, captured_policies, fit_policies
 from .pvalues import holm_adjust
 from .result_base import jsonable
+from .threads import one_blas_thread
 
 RESULTS_SCHEMA = "calibrate.results/1"
 
@@ -360,6 +361,11 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
         ``reduced_forms``.
     """
     table = study if isinstance(study, JudgmentTable) else load_study(study)
+    with one_blas_thread():
+        return _audit(table, seed=seed, n_boot=n_boot, progress=progress, full_extras=full_extras)
+
+
+def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> AuditResult:
     spec = table.spec
     seed = spec.seed if seed is None else int(seed)
     summary = summarize(table)
