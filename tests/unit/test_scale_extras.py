@@ -41,3 +41,18 @@ def test_the_left_out_pair_table_is_also_a_study_warning(tmp_path, monkeypatch):
     monkeypatch.setattr(analyses, "GROUP_PAIRS_MAX_RATERS", 3)
     result = audit(_table(tmp_path), n_boot=50)
     assert sum("pairs) is left out of the tables" in w["message"] for w in result.warnings) == 1
+
+
+def test_results_of_a_large_panel_are_written_compact_with_the_same_content(tmp_path, monkeypatch):
+    import json
+
+    import calibrate.writing as writing
+
+    result = audit(_table(tmp_path / "study"), n_boot=50)
+    writing.write_audit(result, tmp_path / "indented", pdf=False)
+    monkeypatch.setattr(writing, "COMPACT_RESULTS_RATERS", 2)
+    writing.write_audit(result, tmp_path / "compact", pdf=False)
+    indented = (tmp_path / "indented" / "results.json").read_text("utf-8")
+    compact = (tmp_path / "compact" / "results.json").read_text("utf-8")
+    assert compact.count("\n") == 1 and len(compact) < 0.8 * len(indented)
+    assert json.loads(compact) == json.loads(indented)
