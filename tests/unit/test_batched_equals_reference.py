@@ -178,3 +178,23 @@ def test_joining_pieces_keeps_the_cheapest_allowed_pick_of_a_full_scan():
 
     start = np.arange(R)
     np.testing.assert_array_equal(stability._join_pieces(sscp, n, start, rule, p), full_scan(start))
+
+
+def test_lens_parts_sharing_one_inverse_equal_statsmodels_per_rater():
+    # The environment model reuses the judge model's inverse (same cues): R_e and G must
+    # still be what two separate regressions per rater give.
+    from calibrate.lens.model import _lens_parts
+
+    X, y, groups, G = _panel()
+    criterion = X @ np.array([0.5, 0.1, -0.3, 0.2]) + np.random.default_rng(9).normal(0, 1, y.size)
+    parts = _lens_parts(grouped_sscp(np.column_stack([X, y, criterion]), groups, G), X.shape[1])
+    for g in range(G):
+        if g in (3, 5):   # a constant cue; constant judgments
+            assert not parts["ok"][g]
+            continue
+        rows = groups == g
+        judge = sm.OLS(y[rows], sm.add_constant(X[rows])).fit()
+        env = sm.OLS(criterion[rows], sm.add_constant(X[rows])).fit()
+        assert parts["r_e"][g] == pytest.approx(np.sqrt(env.rsquared), rel=1e-9)
+        assert parts["r_s"][g] == pytest.approx(np.sqrt(judge.rsquared), rel=1e-9)
+        assert parts["g"][g] == pytest.approx(np.corrcoef(judge.fittedvalues, env.fittedvalues)[0, 1], rel=1e-9)
