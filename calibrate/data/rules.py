@@ -66,7 +66,10 @@ def map_distinct(series: pd.Series, func) -> pd.Series:
     Python call per distinct value instead of one per cell. Missing cells (NaN, None)
     are passed to ``func`` one by one, as ``map`` does.
     """
-    codes, uniques = pd.factorize(series, use_na_sentinel=True)
+    try:
+        codes, uniques = pd.factorize(series, use_na_sentinel=True)
+    except TypeError:  # unhashable cells (lists in a result table): cell by cell
+        return series.map(func)
     mapped = np.empty(len(uniques), dtype=object)
     mapped[:] = [func(u) for u in uniques]
     out = np.empty(len(series), dtype=object)
