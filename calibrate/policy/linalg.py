@@ -223,6 +223,29 @@ def _checked_inverse(R: np.ndarray, candidate: np.ndarray,
     return rank_ok, R_inv
 
 
+def r_squared_from_sscp(stats: GroupedSSCP, x_cols, y_col: int, *,
+                        rcond: float = 1e-12) -> tuple[np.ndarray, np.ndarray]:
+    """``(R^2, rank_ok)`` of column ``y_col`` on ``x_cols`` in every group, and nothing else.
+
+    The same R^2 and rank rule as :func:`ols_from_sscp` (``R^2 = r' R^-1 r`` on the
+    correlation scale, with the inverse its rank check computes anyway), without the
+    coefficients, standard errors and intercepts that a resampled R_s does not need.
+    NaN where not full rank or the response is constant.
+    """
+    x_cols = np.asarray(x_cols, dtype=np.intp)
+    Sxx = stats.sscp[:, x_cols[:, None], x_cols[None, :]]
+    Syy = stats.sscp[:, y_col, y_col]
+    scale = np.sqrt(np.einsum("gii->gi", Sxx))
+    ok_scale = np.all(scale > 0, axis=1) & np.all(np.isfinite(scale), axis=1)
+    safe = np.where(ok_scale[:, None], scale, 1.0)
+    R = np.where(ok_scale[:, None, None], Sxx / (safe[:, :, None] * safe[:, None, :]), 0.0)
+    rank_ok, R_inv = _checked_inverse(R, ok_scale & (stats.n > x_cols.size + 1), rcond)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = stats.sscp[:, x_cols, y_col] / (safe * np.sqrt(Syy)[:, None])
+        r2 = np.einsum("gi,gij,gj->g", r, R_inv, r)
+    return np.where(rank_ok & (Syy > 0), r2, np.nan), rank_ok
+
+
 def ols_from_sscp(
     stats: GroupedSSCP,
     x_cols: list[int] | np.ndarray,

@@ -198,3 +198,18 @@ def test_lens_parts_sharing_one_inverse_equal_statsmodels_per_rater():
         assert parts["r_e"][g] == pytest.approx(np.sqrt(env.rsquared), rel=1e-9)
         assert parts["r_s"][g] == pytest.approx(np.sqrt(judge.rsquared), rel=1e-9)
         assert parts["g"][g] == pytest.approx(np.corrcoef(judge.fittedvalues, env.fittedvalues)[0, 1], rel=1e-9)
+
+
+def test_r_squared_alone_equals_the_full_fit_and_statsmodels():
+    from calibrate.policy.linalg import r_squared_from_sscp
+
+    X, y, groups, G = _panel()
+    p = X.shape[1]
+    stats = grouped_sscp(np.column_stack([X, y]), groups, G)
+    r2, rank_ok = r_squared_from_sscp(stats, np.arange(p), p)
+    full = ols_from_sscp(stats, np.arange(p), p)
+    np.testing.assert_array_equal(rank_ok, full.rank_ok)
+    assert np.isnan(r2[3]) and np.isnan(r2[5])    # a constant cue; constant judgments
+    for g in set(range(G)) - {3, 5}:
+        assert r2[g] == pytest.approx(_per_rater_ols(X, y, groups, g).rsquared, rel=1e-9)
+        assert r2[g] == pytest.approx(full.r2[g], rel=1e-12)
