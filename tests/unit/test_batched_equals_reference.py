@@ -213,3 +213,31 @@ def test_r_squared_alone_equals_the_full_fit_and_statsmodels():
     for g in set(range(G)) - {3, 5}:
         assert r2[g] == pytest.approx(_per_rater_ols(X, y, groups, g).rsquared, rel=1e-9)
         assert r2[g] == pytest.approx(full.r2[g], rel=1e-12)
+
+
+def test_rater_pairs_from_sparse_judgments_equal_the_dense_table(monkeypatch):
+    # Large incomplete designs keep the judgments sparse; the screen and every pair's
+    # figures must be those of the dense table.
+    import sys
+    from pathlib import Path
+
+    import calibrate.panel.pairs as pairs
+    from calibrate.data.rows import line_up
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent))
+    from grouping_panels import scale_panel
+
+    design, first, _ = scale_panel(6, [7, 2], share_seen=0.6, n_cases=70, n_cues=4)
+    dense = pairs.compare_rater_pairs(design, first, min_shared=10).to_frame()
+    rows = line_up(design, first)
+    n_dense, r_dense = pairs._RaterCaseTable(rows, design.matrix.shape[0]).screen()
+    monkeypatch.setattr(pairs, "_DENSE_CELLS", 0)
+    n_sparse, r_sparse = pairs._RaterCaseTable(rows, design.matrix.shape[0]).screen()
+    sparse = pairs.compare_rater_pairs(design, first, min_shared=10).to_frame()
+    np.testing.assert_array_equal(n_dense, n_sparse)
+    np.testing.assert_allclose(r_sparse, r_dense, equal_nan=True, **TOL)
+    assert len(dense) == len(sparse) > 20
+    numeric = dense.select_dtypes("number").columns
+    np.testing.assert_allclose(sparse[numeric].to_numpy(float), dense[numeric].to_numpy(float),
+                               equal_nan=True, **TOL)
+    assert (sparse.drop(columns=numeric).astype(str) == dense.drop(columns=numeric).astype(str)).all().all()
