@@ -40,6 +40,7 @@ from .pvalues import holm_adjust
 from .result_base import jsonable
 from .training import compare
 from .training.verdicts import rater_change_sentence
+from .threads import one_blas_thread
 
 RESULTS_SCHEMA = "calibrate.results/1"
 
@@ -171,8 +172,13 @@ def _warn_texts(phase: str | None, name: str, result) -> list[dict]:
     return out
 
 
+def _study_warnings(phase: str | None, name: str, texts) -> list[dict]:
+    """Notes of the audit itself (e.g. a reduced form on a large panel) as study warnings."""
+    return [analysis_note(name, t, phase=phase) for t in texts]
+
+
 def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed: int,
-                  n_boot: int = 1000, progress=None) -> PhaseAnalyses:
+                  n_boot: int = 1000, progress=None, full_extras: bool = False) -> PhaseAnalyses:
     """Run every analysis of one phase."""
     spec = table.spec
     design = table.phase_design(ph)  # this phase's cases: fill values and lens environment per phase
@@ -250,7 +256,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         rater_pairs = compare_rater_pairs(design, fit_first)
         homogeneity = policy_homogeneity(design, fit_first, rng=_rng(seed, phase_index, "homogeneity"))
         step("groups")
-        grouping = group_raters(design, fit_first, rng=_rng(seed, phase_index, "grouping"))
+        grouping = group_raters(design, fit_first, rng=_rng(seed, phase_index, "grouping"),
+                                scale_down=not full_extras)
     policies, cutoffs, drift_result, excluded, retest_set, chance = control_chance_flags(
         policies, cutoffs, drift_result, excluded, retest_set)
     verdicts = {}
@@ -364,7 +371,28 @@ def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict, spec
     return entry
 
 
-def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool) -> dict:
+#: The pair-level grouping table (how often two raters shared a group) is written for
+#: panels up to this many grouped raters (19,900 pairs), on larger ones on request
+#: (``full_extras``): it grows with raters squared (about 2 million rows at 2,000 raters).
+GROUP_PAIRS_MAX_RATERS = 200
+
+
+def _group_pairs_written(a: PhaseAnalyses, full_extras: bool) -> bool:
+    n = a.grouping.n_pairs if a.grouping is not None else 0
+    return n > 0 and (full_extras or n <= GROUP_PAIRS_MAX_RATERS * (GROUP_PAIRS_MAX_RATERS - 1) // 2)
+
+
+def _reduced_forms(a: PhaseAnalyses, full_extras: bool) -> list[str]:
+    """Plain statements of every extra that ran in a reduced form on this panel size."""
+    out = list(a.grouping.reduced_forms) if a.grouping is not None else []
+    if a.grouping is not None and a.grouping.n_pairs and not _group_pairs_written(a, full_extras):
+        out.append(f"How often each pair of raters shared a group ({a.grouping.n_pairs:,} pairs) "
+                   f"is left out of the tables on panels of more than {GROUP_PAIRS_MAX_RATERS} "
+                   "grouped raters; each group's stability is in results.json.")
+    return out
+
+
+def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool, full_extras: bool = False) -> dict:
     entry = {"phase": ph.label, "n_raters": len(ph.raters), "connected": connected}
     ag = a.agreement.to_dict() if a.agreement is not None else {}
     entry["icc"] = ag.get("icc")
@@ -390,11 +418,13 @@ def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool) -> dict:
                                            if a.files is not None else [])  # most likely to change first
     entry["files_change_level"] = a.files.change_level if a.files is not None else None
     entry["files_may_change"] = a.files.n_may_change() if a.files is not None else None
+    entry["group_pairs_table"] = "group_pairs" if _group_pairs_written(a, full_extras) else None
+    entry["reduced_forms"] = _reduced_forms(a, full_extras)
     return entry
 
 
 def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = None,
-          n_boot: int = 1000, progress=None) -> AuditResult:
+          n_boot: int = 1000, progress=None, full_extras: bool = False) -> AuditResult:
     """Audit a study: every analysis, for every phase.
 
     Parameters
@@ -404,9 +434,18 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
     seed : resampling seed; defaults to the spec's ``[study] seed``.
     n_boot : bootstrap resamples for the policy intervals.
     progress : optional callable taking a short step name (for a progress display).
+    full_extras : run the heavy extras in full on any panel size (grouping stability and
+        its simulated test with every resample asked, the pair-level grouping table on
+        any panel). By default large panels get a reduced form, stated in each panel's
+        ``reduced_forms``.
     """
     _check_options(seed, n_boot)
     table = study if isinstance(study, JudgmentTable) else load_study(study)
+    with one_blas_thread():
+        return _audit(table, seed=seed, n_boot=n_boot, progress=progress, full_extras=full_extras)
+
+
+def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> AuditResult:
     spec = table.spec
     seed = spec.seed if seed is None else int(seed)
     summary = summarize(table)
@@ -417,12 +456,13 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
     tables: dict[str, pd.DataFrame] = {}
     policies_out: dict = {"schema": POLICIES_SCHEMA, "study": spec.name, "phases": {}}
     for index, (ph, ph_summary) in enumerate(zip(table.phases, summary.phases)):
-        a = analyse_phase(table, ph, index, seed=seed, n_boot=n_boot, progress=progress)
+        a = analyse_phase(table, ph, index, seed=seed, n_boot=n_boot, progress=progress,
+                          full_extras=full_extras)
         analyses[ph.label] = a
         per_rater = {r["rater"]: r for r in ph_summary.per_rater}
         for rater in ph.raters:
             raters.append(_rater_entry(rater, ph, a, per_rater[rater], spec))
-        panels.append(_panel_entry(ph, a, ph_summary.connectedness.connected))
+        panels.append(_panel_entry(ph, a, ph_summary.connectedness.connected, full_extras))
         for name, result in (("policies", a.policies), ("retest", a.retest),
                              ("agreement", a.agreement), ("peer_agreement", a.peer_agreement),
                              ("severity", a.severity),
@@ -431,7 +471,11 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
                              ("cutoffs", a.cutoffs), ("drift", a.drift), ("rater_pairs", a.rater_pairs),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
-        _collect_tables(tables, ph, a)
+        # The grouping warns of its own reductions; the left-out pair table is the audit's.
+        left_out = [t for t in panels[-1]["reduced_forms"]
+                    if a.grouping is None or t not in a.grouping.reduced_forms]
+        warnings += _study_warnings(ph.name, "grouping", left_out)
+        _collect_tables(tables, ph, a, full_extras)
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))
             if a.grouping is not None:  # each group's common equation, for `calibrate score --group`
@@ -534,7 +578,8 @@ def library_versions() -> dict[str, str | None]:
     return versions
 
 
-def _collect_tables(tables: dict[str, pd.DataFrame], ph: PhaseData, a: PhaseAnalyses) -> None:
+def _collect_tables(tables: dict[str, pd.DataFrame], ph: PhaseData, a: PhaseAnalyses,
+                    full_extras: bool = False) -> None:
     """Append this phase's tidy tables (a ``phase`` column first) to the study's tables."""
     frames: dict[str, pd.DataFrame | None] = {}
     if a.policies is not None:
@@ -561,6 +606,8 @@ def _collect_tables(tables: dict[str, pd.DataFrame], ph: PhaseData, a: PhaseAnal
     if a.grouping is not None:
         frames["group_merges"] = a.grouping.merge_frame()
         frames["groups"] = a.grouping.groups_frame()
+        if _group_pairs_written(a, full_extras):
+            frames["group_pairs"] = a.grouping.pairs_frame()
     for name, frame in frames.items():
         if frame is None or frame.empty:
             continue

@@ -267,9 +267,13 @@ def check(spec: Path) -> None:
 @click.option("--memory-limit", "memory_limit", type=click.FloatRange(min=0, min_open=True), default=None,
               help="GB of memory the audit may use; a panel estimated to need more is refused "
                    "before the analysis starts [default: this machine's memory].")
+@click.option("--full-extras", "full_extras", is_flag=True,
+              help="Run the heavy extras in full on any panel size (large panels otherwise get "
+                   "fewer resamples for grouping stability and no pair-level grouping table; "
+                   "results.json states each reduction).")
 def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool, jobs: int | None,
           include_excluded: bool, pseudonymise: bool, key_file: Path | None,
-          memory_limit: float | None) -> None:
+          memory_limit: float | None, full_extras: bool) -> None:
     """Run the full audit and write results, tables, a workbook and PDF reports into OUT."""
     from tqdm import tqdm
 
@@ -309,7 +313,7 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
                 bar.set_postfix_str(name)
                 bar.update(1)
 
-            result = run_audit(table, seed=seed, progress=step)
+            result = run_audit(table, seed=seed, progress=step, full_extras=full_extras)
         bar_pdf = tqdm(desc="reports", unit=" pdf", leave=False, disable=None if not no_pdf else True,
                        file=sys.stderr)
 

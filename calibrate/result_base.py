@@ -16,7 +16,21 @@ import numpy as np
 
 
 def jsonable(value: Any) -> Any:
-    """Convert numpy scalars/arrays, tuples, dataclasses and NaN into plain JSON values."""
+    """Convert numpy scalars/arrays, tuples, dataclasses and NaN into plain JSON values.
+
+    Plain Python scalars are tested first (they are most of a result), and a numeric
+    numpy array is converted in bulk (``tolist`` once, non-finite values found with
+    one vectorized test), not one call per number.
+    """
+    kind = type(value)
+    if kind is float:
+        return value if math.isfinite(value) else None
+    if kind is str or kind is int or kind is bool or value is None:
+        return value
+    if kind is list or kind is tuple:
+        return [jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _array_jsonable(value)
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
         if hasattr(value, "to_dict"):
             return value.to_dict()
@@ -25,8 +39,6 @@ def jsonable(value: Any) -> Any:
         return {str(k): jsonable(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
         return [jsonable(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return [jsonable(v) for v in value.tolist()]
     if isinstance(value, (np.bool_, bool)):
         return bool(value)
     if isinstance(value, (np.integer,)):
@@ -35,6 +47,18 @@ def jsonable(value: Any) -> Any:
         f = float(value)
         return None if not math.isfinite(f) else f
     return value
+
+
+def _array_jsonable(array: np.ndarray) -> Any:
+    """A numpy array as nested lists of JSON values, in bulk where the dtype allows."""
+    if array.dtype.kind in "biu":
+        return array.tolist()
+    if array.dtype.kind == "f":
+        finite = np.isfinite(array)
+        if finite.all():
+            return array.astype(float).tolist()
+        return np.where(finite, array.astype(float), None).tolist()
+    return [jsonable(v) for v in array.tolist()]
 
 
 class ResultMixin:

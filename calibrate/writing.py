@@ -22,6 +22,12 @@ from .safe_files import atomic_write_bytes, atomic_write_text, dump_json
 INDEX_FILE = "index.csv"
 
 
+#: results.json is written without indentation above this many raters: it grows by about
+#: 12 KB a rater indented and 8 KB compact (measured at 400 raters), so 2,000 raters stay
+#: under 25 MB. Smaller panels keep the indented form for reading.
+COMPACT_RESULTS_RATERS = 500
+
+
 def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False, pdf: bool = True,
                 jobs: int = 1, include_excluded: bool = False, progress=None,
                 protect: tuple[Path, ...] = (), pseudonymise: PseudonymKey | None = None) -> Path:
@@ -44,8 +50,7 @@ def write_audit(result: AuditResult, out: str | Path, *, overwrite: bool = False
 def _index_frame(result: AuditResult, pdf: bool) -> pd.DataFrame:
     """One row per rater: the id (a code when pseudonymised) and the report file, relative to
     the folder (empty without PDFs), in the order the reports are built."""
-    from .report import rater_file_names
-    from .report.builder import RATERS_FOLDER
+    from .report.names import RATERS_FOLDER, rater_file_names
 
     ids = sorted({str(e["rater"]) for e in result.raters})
     names = rater_file_names(ids)
@@ -83,7 +88,8 @@ def write_audit_files(result: AuditResult, folder: Path, *, pdf: bool = True, jo
                 "audit ran on the real ids. Pseudonymise the table first "
                 "(calibrate.output.pseudonyms.pseudonymise_table), then audit() it.")
     try:
-        atomic_write_text(folder / "results.json", dump_json(_results_dict(result, key)))
+        compact = len(index) > COMPACT_RESULTS_RATERS
+        atomic_write_text(folder / "results.json", dump_json(_results_dict(result, key), compact=compact))
         if result.policies:
             atomic_write_text(folder / "policies.json", dump_json(jsonable(result.policies)))
         tables_dir = folder / "tables"

@@ -33,7 +33,7 @@ from scipy import stats as sps
 from ..data.cues import CueDesign
 from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError, DataProblem
-from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
+from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp, r_squared_from_sscp
 from ..pvalues import holm_adjust
 from ..result_base import ResultMixin
 
@@ -145,10 +145,9 @@ def _half_of_each_row(rater: np.ndarray, position: np.ndarray, n_raters: int) ->
 
 def _r_s_from(stats: GroupedSSCP, p: int) -> np.ndarray:
     """R_s of the judgment (column p) on the p cues, per group."""
-    fit = ols_from_sscp(stats, np.arange(p), p)
+    r2, _ = r_squared_from_sscp(stats, np.arange(p), p)
     with np.errstate(invalid="ignore"):
-        return np.where(fit.rank_ok & (fit.tss > 0), np.sqrt(np.clip(fit.r2, 0.0, 1.0)),
-                        np.nan)
+        return np.sqrt(np.clip(r2, 0.0, 1.0))
 
 
 def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk=50):

@@ -59,8 +59,29 @@ def rows_text(rows: list[int]) -> str:
     return shown + (f" and {len(rows) - MAX_LISTED} more" if len(rows) > MAX_LISTED else "")
 
 
+def map_distinct(series: pd.Series, func) -> pd.Series:
+    """``series.map(func)``, with ``func`` called once per distinct value.
+
+    A long table repeats its ids, scores and positions many times over, so this is one
+    Python call per distinct value instead of one per cell. Missing cells (NaN, None)
+    are passed to ``func`` one by one, as ``map`` does.
+    """
+    try:
+        codes, uniques = pd.factorize(series, use_na_sentinel=True)
+    except TypeError:  # unhashable cells (lists in a result table): cell by cell
+        return series.map(func)
+    mapped = np.empty(len(uniques), dtype=object)
+    mapped[:] = [func(u) for u in uniques]
+    out = np.empty(len(series), dtype=object)
+    found = codes >= 0
+    out[found] = mapped[codes[found]]
+    if not found.all():
+        out[~found] = [func(v) for v in series.to_numpy(dtype=object)[~found]]
+    return pd.Series(out, index=series.index, name=series.name)
+
+
 def _plain(series: pd.Series) -> pd.Series:
-    return series.map(lambda v: " ".join(str(v).split()).lower() if isinstance(v, str) else v)
+    return map_distinct(series, lambda v: " ".join(str(v).split()).lower() if isinstance(v, str) else v)
 
 
 def blank_missing_words(series: pd.Series, words: tuple[str, ...]) -> pd.Series:
@@ -170,7 +191,7 @@ def check_ids(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd
     data = data.copy()
     for role in ("rater", "case"):
         col = columns[role]
-        ids = data[col].map(as_id)
+        ids = map_distinct(data[col], as_id)
         missing = ids.isna()
         for fname, rows in data.loc[missing].groupby(FILE)[ROW]:
             out.error(f"the {role} id is empty in rows {rows_text(rows.tolist())}; every judgment "
@@ -194,7 +215,7 @@ def check_phases(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.Data
     if spec.phase_order is None:
         return data
     data = data.copy()
-    ph = data[PHASE].map(as_id)
+    ph = map_distinct(data[PHASE], as_id)
     bad = ph.isna() | ~ph.isin(spec.phase_order)
     for (fname, value), rows in data.loc[bad].assign(_v=ph[bad].fillna("(empty)")).groupby(
             [FILE, "_v"])[ROW]:
@@ -348,7 +369,7 @@ def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpe
     ccol = spec.columns["case"]
     case_level = case_level_columns(spec)
     cases_df = cases_df.copy()
-    cases_df[ccol] = cases_df[ccol].map(as_id)
+    cases_df[ccol] = map_distinct(cases_df[ccol], as_id)
     empty = cases_df[ccol].isna()
     if empty.any():
         out.error(f"the case id is empty in rows {rows_text(cases_df.loc[empty, ROW].tolist())}",

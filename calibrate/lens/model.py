@@ -455,17 +455,31 @@ def _unit_weight_composite(design: CueDesign, crit_by_row: np.ndarray,
     return composite, panel
 
 
+@dataclass(frozen=True)
+class _EnvironmentFit:
+    """The criterion regressed on the cues, from the judge fit's inverse (see _lens_parts)."""
+
+    coef: np.ndarray
+    rss: np.ndarray
+    rank_ok: np.ndarray
+
+
 def _lens_parts(stats, p: int) -> dict[str, np.ndarray]:
     """r_a, R_s, R_e, G, C (and what the equation needs) per group, from the centred SSCP
     of ``[cues..., judgment, criterion, ...]``: one batched pair of solves, no refit on rows.
     Used for the estimates and, unchanged, for every bootstrap and jackknife resample."""
     ys, yc = p, p + 1
     judge = ols_from_sscp(stats, list(range(p)), ys)
-    env = ols_from_sscp(stats, list(range(p)), yc)
     S = stats.sscp
     Sxx = S[:, :p, :p]
     Syy, Scc, Syc = S[:, ys, ys], S[:, yc, yc], S[:, ys, yc]
-    b_s, b_e = judge.coef, env.coef
+    # The environment model shares the judge's cues, hence its inverse and its rank: one
+    # decomposition serves both (half the work on a million resampled systems).
+    b_s, b_e = judge.coef, np.einsum("gij,gj->gi", judge.xtx_inv, S[:, :p, yc])
+    with np.errstate(invalid="ignore"):
+        env_rss = np.where(judge.rank_ok, np.maximum(Scc - np.einsum("gp,gp->g", b_e, S[:, :p, yc]), 0.0),
+                           np.nan)
+    env = _EnvironmentFit(coef=b_e, rss=env_rss, rank_ok=judge.rank_ok)
     with np.errstate(invalid="ignore", divide="ignore"):
         explained_s = _quadratic(b_s, Sxx, b_s)
         explained_e = _quadratic(b_e, Sxx, b_e)

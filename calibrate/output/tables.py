@@ -8,6 +8,7 @@ from importlib import resources
 
 import pandas as pd
 
+from ..data.rules import map_distinct
 from ..safe_files import escape_formula
 
 
@@ -28,7 +29,9 @@ def csv_bytes(frame: pd.DataFrame) -> bytes:
     safe = frame.copy()
     for col in safe.columns:
         if pd.api.types.is_object_dtype(safe[col]) or pd.api.types.is_string_dtype(safe[col]):
-            safe[col] = safe[col].map(escape_formula, na_action="ignore")
+            # once per distinct value: a long table repeats its ids (460,000 rows at 2,000 raters)
+            present = safe[col].notna()
+            safe[col] = map_distinct(safe[col], escape_formula).where(present, safe[col])
     return safe.to_csv(index=False, lineterminator="\n", float_format="%.10g").encode("utf-8")
 
 
@@ -71,4 +74,7 @@ TABLE_DESCRIPTIONS = {
     "notes": "Every note (warning) from reading and fitting the data, one row each: its kind (a "
              "stable code; the reports print one line per kind), phase, rater and case it concerns, "
              "file, row and column where known, and the text.",
+    "group_pairs": "One row per pair of grouped raters and phase: the share of case resamples in "
+                   "which the two shared a group (panels of up to 200 grouped raters, or with "
+                   "--full-extras).",
 }

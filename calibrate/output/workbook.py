@@ -28,6 +28,10 @@ README_SHEET = "read-me"
 # A worksheet holds at most 1,048,576 rows (the header takes one): the limit of the
 # Office Open XML spreadsheet format. A longer table continues on further sheets.
 SHEET_DATA_ROWS = 1_048_575
+# A table longer than this is left out of the workbook (the read-me sheet says so and
+# points to its CSV): a spreadsheet of hundreds of thousands of rows is slow to write
+# (openpyxl: about 40 s a million cells here) and slower to open, and the CSV holds it.
+WORKBOOK_TABLE_ROWS = 50_000
 
 # A sheet holding rows of a long table beyond the first sheet: "name (part 2)".
 _PART_SUFFIX = re.compile(r" \(part \d+\)$")
@@ -116,9 +120,20 @@ def split_long_tables(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[
     return parts, notes
 
 
+def leave_out_long_tables(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str, str], *,
+                          row_limit: int | None) -> tuple[dict, dict, dict]:
+    """Tables of at most ``row_limit`` rows, their descriptions, and a note for each left out."""
+    kept = {n: f for n, f in tables.items() if row_limit is None or len(f) <= row_limit}
+    left_out = {n: (f"{descriptions.get(n, '')} Left out of this workbook: {len(f):,} rows, more "
+                    f"than the {row_limit:,} a sheet here holds; tables/{n}.csv holds it whole.").strip()
+                for n, f in tables.items() if n not in kept}
+    return kept, {n: descriptions.get(n, "") for n in kept}, left_out
+
+
 def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str, str], *,
                    column_notes: Mapping[str, str] | None = None,
-                   max_rows: int = SHEET_DATA_ROWS) -> bytes:
+                   max_rows: int = SHEET_DATA_ROWS,
+                   row_limit: int | None = WORKBOOK_TABLE_ROWS) -> bytes:
     """The tables as an .xlsx file (bytes).
 
     Parameters
@@ -128,12 +143,15 @@ def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str
     column_notes : column name -> what it holds; takes precedence over the sentences of
         :mod:`calibrate.output.columns` (the audit's own tables need none).
     max_rows : data rows per sheet; a longer table continues on further sheets.
+    row_limit : a table with more rows is left out (listed on the read-me sheet with a
+        pointer to its CSV); None keeps every table.
     """
     from openpyxl import Workbook
     from openpyxl.styles import Alignment, Font
     from openpyxl.utils import get_column_letter
 
     notes = dict(column_notes or {})
+    tables, descriptions, left_out = leave_out_long_tables(tables, descriptions, row_limit=row_limit)
     tables, descriptions = split_long_tables(tables, descriptions, max_rows=max_rows)
     names = sheet_names(tables)
     wb = Workbook()
@@ -145,6 +163,9 @@ def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str
         readme.cell(row=readme.max_row, column=1).font = Font(bold=True)
         for col in frame.columns:
             readme.append([names[name], _cell_value(str(col)), _column_note(name, str(col), notes)])
+    for name, note in left_out.items():
+        readme.append([_cell_value(name), "", _cell_value(note)])
+        readme.cell(row=readme.max_row, column=1).font = Font(bold=True)
     _finish_sheet(readme, [12, 24, 90])
     for cell in readme["C"]:
         cell.alignment = Alignment(wrap_text=True, vertical="top")

@@ -28,7 +28,6 @@ merge engine is in :mod:`calibrate.panel.merges` and the checks on a grouping
 from __future__ import annotations
 
 import dataclasses
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -155,6 +154,7 @@ class GroupingResult(ResultMixin):
     ward_ari: float
     ward_matched: float
     warnings: tuple[str, ...]
+    reduced_forms: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
         out = jsonable({
@@ -171,26 +171,21 @@ class GroupingResult(ResultMixin):
                 "n_resamples": self.n_resamples,
                 "ari": {"estimate": self.ari_estimate, "ci_low": self.ari_ci_low,
                         "ci_high": self.ari_ci_high},
-                "pairs": [],
+                # Pair-level shares grow with raters squared: they are a table of their
+                # own (group_pairs), not part of results.json.
+                "n_pairs": self.n_pairs,
             },
             "ward": {"ari": self.ward_ari, "matched": self.ward_matched},
             "warnings": list(self.warnings),
+            "reduced_forms": list(self.reduced_forms),
         })
-        out["stability"]["pairs"] = self._pairs()
         return out
 
-    def _pairs(self) -> list[dict]:
-        """Every pair of grouped raters with the share of resamples they shared a group.
-
-        Built directly as JSON values: a panel of 1,000 raters has about 500,000 pairs.
-        """
-        grouped = np.flatnonzero([self.rater_group[r] is not None for r in self.raters])
-        first, second = np.triu_indices(grouped.size, k=1)
-        together = self.co_assignment[grouped[first], grouped[second]]
-        names = [self.raters[k] for k in grouped]
-        return [{"rater_a": names[a], "rater_b": names[b],
-                 "together": v if math.isfinite(v) else None}
-                for a, b, v in zip(first.tolist(), second.tolist(), together.tolist())]
+    @property
+    def n_pairs(self) -> int:
+        """Pairs of grouped raters (the rows of :meth:`pairs_frame`)."""
+        k = sum(self.rater_group[r] is not None for r in self.raters)
+        return k * (k - 1) // 2
 
     def to_frame(self) -> pd.DataFrame:
         """One row per rater: group, Ward group."""
@@ -222,9 +217,16 @@ class GroupingResult(ResultMixin):
         return pd.DataFrame(rows, columns=["group", "term", "measure", "estimate"])
 
     def pairs_frame(self) -> pd.DataFrame:
-        """How often each pair of raters shared a group over the resamples."""
-        pairs = self.to_dict()["stability"]["pairs"]
-        return pd.DataFrame(pairs, columns=["rater_a", "rater_b", "together"])
+        """How often each pair of grouped raters shared a group over the resamples.
+
+        One row per pair (about 500,000 for 1,000 raters), built column-wise from the
+        co-assignment matrix; NaN where the two never sat in the same resample.
+        """
+        grouped = np.flatnonzero([self.rater_group[r] is not None for r in self.raters])
+        first, second = np.triu_indices(grouped.size, k=1)
+        names = np.array(self.raters, dtype=object)[grouped]
+        return pd.DataFrame({"rater_a": names[first], "rater_b": names[second],
+                             "together": self.co_assignment[grouped[first], grouped[second]]})
 
 
 # --------------------------------------------------------------------------- main
@@ -240,6 +242,7 @@ def group_raters(
     alpha: float = 0.05,
     n_groups: int | None = None,
     n_null: int = 100,
+    scale_down: bool = True,
 ) -> GroupingResult:
     """Group raters whose judgments follow a common policy.
 
@@ -257,6 +260,9 @@ def group_raters(
         also reject for a merge to count as joining different policies.
     n_groups : force this many groups (the chair overrules the rule); None: the rule.
     n_null : simulated one-policy panels for the number-of-groups test.
+    scale_down : on large panels, fewer resamples and simulated panels than asked
+        (resamples x raters^2 is capped; each reduction is stated in ``reduced_forms``
+        and warned). False runs the full numbers on any panel size.
 
     Returns
     -------
@@ -311,13 +317,14 @@ def group_raters(
     """
     try:
         return _group_raters(design, first, rng=rng, n_resamples=n_resamples,
-                             threshold=threshold, alpha=alpha, n_groups=n_groups, n_null=n_null)
+                             threshold=threshold, alpha=alpha, n_groups=n_groups, n_null=n_null,
+                             scale_down=scale_down)
     finally:
         release_work_memory()  # the pair-cost matrices kept between the groupings
 
 
 def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups,
-                  n_null) -> GroupingResult:
+                  n_null, scale_down=True) -> GroupingResult:
     if threshold < 0 or not np.isfinite(threshold):
         raise DataError(f"threshold must be a non-negative number of R^2; got {threshold!r}.")
     if not 0 < alpha <= 1:
@@ -332,6 +339,7 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
                         "it needs rater, case and judgment.")
     generator = np.random.default_rng(rng)  # a Generator passes through unchanged
     warnings: list[str] = []
+    reduced: list[str] = []   # the plain statements of what ran in a reduced form
 
     raters = sorted(str(r) for r in pd.unique(first["rater"]))
     known = set(design.case_ids)
@@ -391,10 +399,14 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         chosen = int(n_groups)
         rule = f"{chosen} group(s), as asked."
     else:
-        asked_null, n_null = n_null, resample_budget(n_null, n_eligible, floor=50)
+        asked_null = n_null
+        if scale_down:
+            n_null = resample_budget(n_null, n_eligible, floor=50)
         if n_null < asked_null:
             warnings.append(f"The number-of-groups test simulated {n_null} panels instead of "
                             f"{asked_null} to keep the run short for {n_eligible} raters.")
+            reduced.append(f"The number-of-groups test from {n_null} simulated panels instead "
+                           f"of {asked_null} on this panel size ({n_eligible} raters).")
         chosen = min(n_eligible, 1)  # the rule below decides when two or more can be fitted
         if n_eligible >= 2:
             keep_apart = keep_apart_rule(Z, who, eligible, own.rss, own.df_resid, p, n_null,
@@ -418,10 +430,14 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     names = name_groups(slots, raters)
     rater_group = dict(zip(raters, names))
 
-    used_resamples = resample_budget(n_resamples, n_eligible) if n_eligible >= 2 else 0
+    used_resamples = 0
+    if n_eligible >= 2:
+        used_resamples = resample_budget(n_resamples, n_eligible) if scale_down else n_resamples
     if used_resamples < n_resamples and n_eligible >= 2:
         warnings.append(f"Stability used {used_resamples} case resamples instead of "
                         f"{n_resamples} to keep the run short for {n_eligible} raters.")
+        reduced.append(f"Grouping stability from {used_resamples} case resamples instead of "
+                       f"{n_resamples} on this panel size ({n_eligible} raters).")
     stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots, eligible,
                                      p, chosen, used_resamples, generator, keep_apart)
     if stability.n_sat_out:
@@ -459,6 +475,7 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         ward_ari=float(ward_ari),
         ward_matched=float(ward_matched),
         warnings=tuple(warnings),
+        reduced_forms=tuple(reduced),
     )
 
 

@@ -125,23 +125,69 @@ class RaterPairsResult(ResultMixin):
         return pd.DataFrame([p.to_dict() for p in self.pairs], columns=columns)
 
 
-def _rater_case_matrix(rows: JudgmentRows, n_cases: int) -> np.ndarray:
-    """(raters x design rows) judgments with NaN where a rater did not judge a case."""
-    Y = np.full((rows.n_raters, n_cases), np.nan)
-    flat = rows.group * n_cases + rows.design_row
-    if np.unique(flat).size != flat.size:
-        raise DataError("The first-judgment table has more than one row for some "
-                        "(rater, case); keep only each rater's first judgment of a case.")
-    Y[rows.group, rows.design_row] = rows.y
-    return Y
+#: Above this many rater x case cells the judgments are kept as sparse matrices (a linked
+#: design of 2,000 raters and 100,000 cases would take 1.6 GB a dense copy, and its
+#: pair products would run over every empty cell).
+_DENSE_CELLS = 20_000_000
+
+
+class _RaterCaseTable:
+    """The judgments by rater and design row, dense (NaN where not judged) or sparse.
+
+    ``screen()`` gives every pair's shared-case count and judgment correlation by
+    matrix products; ``rows_for(a, b)`` the dense rows that a chunk of pairs needs, with
+    the pairs' indices into them.
+    """
+
+    def __init__(self, rows: JudgmentRows, n_cases: int, *, dense_cells: int | None = None):
+        flat = rows.group * n_cases + rows.design_row
+        if np.unique(flat).size != flat.size:
+            raise DataError("The first-judgment table has more than one row for some "
+                            "(rater, case); keep only each rater's first judgment of a case.")
+        self.shape = (rows.n_raters, n_cases)
+        self.group, self.case, self.y = rows.group, rows.design_row, rows.y
+        limit = _DENSE_CELLS if dense_cells is None else dense_cells
+        self.dense = None
+        if rows.n_raters * n_cases <= limit:
+            self.dense = np.full(self.shape, np.nan)
+            self.dense[self.group, self.case] = self.y
+
+    def screen(self) -> tuple[np.ndarray, np.ndarray]:
+        """Shared-case counts and judgment correlations for every pair, by matrix products.
+
+        Used only to choose which pairs to analyse in full; the reported figures
+        come from the exact refits.
+        """
+        if self.dense is not None:
+            return _screen_pairs(self.dense)
+        from scipy import sparse
+
+        R = self.shape[0]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            centre = (np.bincount(self.group, weights=self.y, minlength=R)
+                      / np.bincount(self.group, minlength=R))
+        M = sparse.csr_matrix((np.ones(self.y.size), (self.group, self.case)), shape=self.shape)
+        Y0 = sparse.csr_matrix((self.y - centre[self.group], (self.group, self.case)), shape=self.shape)
+        n = (M @ M.T).toarray()
+        sum_a = (Y0 @ M.T).toarray()
+        sq_a = (Y0.multiply(Y0) @ M.T).toarray()
+        cross = (Y0 @ Y0.T).toarray()
+        return n, _screen_correlations(n, sum_a, sq_a, cross)
+
+    def rows_for(self, a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        if self.dense is not None:
+            return self.dense, a, b
+        needed = np.unique(np.concatenate([a, b]))
+        local = np.full(self.shape[0], -1)
+        local[needed] = np.arange(needed.size)
+        block = np.full((needed.size, self.shape[1]), np.nan)
+        mine = local[self.group] >= 0
+        block[local[self.group[mine]], self.case[mine]] = self.y[mine]
+        return block, local[a], local[b]
 
 
 def _screen_pairs(Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Shared-case counts and judgment correlations for every pair, by matrix products.
-
-    Used only to choose which pairs to analyse in full; the reported figures
-    come from the exact refits.
-    """
+    """Shared-case counts and judgment correlations for every pair of rows of a dense table."""
     seen = np.isfinite(Y)
     M = seen.astype(float)
     with np.errstate(invalid="ignore"):
@@ -151,11 +197,14 @@ def _screen_pairs(Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     sum_a = Y0 @ M.T                       # [a, b]: sum of a's judgments on shared cases
     sq_a = (Y0 * Y0) @ M.T
     cross = Y0 @ Y0.T
+    return n, _screen_correlations(n, sum_a, sq_a, cross)
+
+
+def _screen_correlations(n, sum_a, sq_a, cross) -> np.ndarray:
     with np.errstate(invalid="ignore", divide="ignore"):
         cov = cross - sum_a * sum_a.T / n
         var_a = sq_a - sum_a ** 2 / n
-        r = cov / np.sqrt(var_a * var_a.T)
-    return n, r
+        return cov / np.sqrt(var_a * var_a.T)
 
 
 def compare_rater_pairs(
@@ -213,8 +262,8 @@ def compare_rater_pairs(
                         "the judgment or a cue of the case is missing.")
     X = design.matrix
     p = X.shape[1]
-    Y = _rater_case_matrix(rows, X.shape[0])
-    n_shared, r_screen = _screen_pairs(Y)
+    table = _RaterCaseTable(rows, X.shape[0])
+    n_shared, r_screen = table.screen()
     need, threshold = _pair_threshold(p, cases_per_term, min_shared)
     a_idx, b_idx = np.triu_indices(rows.n_raters, k=1)
     shared = n_shared[a_idx, b_idx]
@@ -232,7 +281,7 @@ def compare_rater_pairs(
         a_idx, b_idx = a_idx[keep], b_idx[keep]
         warnings.append(f"{n_eligible} rater pairs share enough cases; only the "
                         f"{max_pairs} furthest apart are kept.")
-    parts = [_pair_lens(X, Y, a_idx[s], b_idx[s])
+    parts = [_pair_lens(X, *table.rows_for(a_idx[s], b_idx[s]))
              for s in _chunks(a_idx.size, max(1, _CELLS_PER_CHUNK // max(1, X.shape[0])))]
     fields = {k: np.concatenate([part[k] for part in parts]) if parts else np.zeros(0)
               for k in ("n", "r", "g", "c", "r_s_a", "r_s_b", "mean_gap", "unmodelled",

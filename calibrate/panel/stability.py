@@ -272,29 +272,50 @@ def groups_by_rule(sscp, n, active, history, losses, smaller, rule: KeepApartRul
 
 
 def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
-    """Join pieces of one batch, cheapest merge first, while the rule allows it."""
+    """Join pieces of one batch, cheapest merge first, while the rule allows it.
+
+    Every pair's cost and verdict is computed once and only the merged piece's pairs
+    again after a merge (the others' sums have not changed), so joining P pieces costs
+    O(P^2) fits instead of O(P^3). The pick is the same as scanning every pair in
+    (first, second) order: the cheapest allowed pair, the first one on a tie.
+    """
     piece = piece.copy()
     ids = [int(g) for g in np.unique(piece[piece >= 0])]
-    group = {g: sscp[piece == g].sum(axis=0) for g in ids}
-    count = {g: float(n[piece == g].sum()) for g in ids}
-    while len(ids) > 1:
-        first, second = np.triu_indices(len(ids), k=1)
-        a = np.array([group[ids[k]] for k in first])
-        b = np.array([group[ids[k]] for k in second])
-        n_a = np.array([count[ids[k]] for k in first])
-        n_b = np.array([count[ids[k]] for k in second])
-        cost = merged_rss(a + b, n_a + n_b, p) - merged_rss(a, n_a, p) - merged_rss(b, n_b, p)
-        size = np.array([np.sum(piece == g) for g in ids])
-        allowed = ~rule.apart(merge_side_loss(a, b, p),
-                              np.minimum(size[first], size[second]))
-        if not allowed.any():
+    P = len(ids)
+    if P < 2:
+        return piece
+    group = np.array([sscp[piece == g].sum(axis=0) for g in ids])
+    count = np.array([float(n[piece == g].sum()) for g in ids])
+    size = np.array([np.sum(piece == g) for g in ids])
+    cost = np.full((P, P), np.nan)
+    allowed = np.zeros((P, P), dtype=bool)
+    alive = np.ones(P, dtype=bool)
+
+    def score(first, second):
+        a, b = group[first], group[second]
+        cost[first, second] = (merged_rss(a + b, count[first] + count[second], p)
+                               - merged_rss(a, count[first], p) - merged_rss(b, count[second], p))
+        allowed[first, second] = ~rule.apart(merge_side_loss(a, b, p),
+                                             np.minimum(size[first], size[second]))
+
+    score(*np.triu_indices(P, k=1))
+    while alive.sum() > 1:
+        live = np.flatnonzero(alive)
+        first, second = np.triu_indices(live.size, k=1)
+        first, second = live[first], live[second]
+        ok = allowed[first, second]
+        if not ok.any():
             break
-        pick = int(np.flatnonzero(allowed)[np.argmin(cost[allowed])])
-        keep, gone = ids[first[pick]], ids[second[pick]]
-        piece[piece == gone] = keep
-        group[keep] = group[keep] + group.pop(gone)
-        count[keep] += count.pop(gone)
-        ids.remove(gone)
+        pick = int(np.flatnonzero(ok)[np.argmin(cost[first, second][ok])])
+        keep, gone = int(first[pick]), int(second[pick])
+        piece[piece == ids[gone]] = ids[keep]
+        group[keep] = group[keep] + group[gone]
+        count[keep] += count[gone]
+        size[keep] += size[gone]
+        alive[gone] = False
+        others = np.flatnonzero(alive & (np.arange(P) != keep))
+        if others.size:
+            score(np.minimum(others, keep), np.maximum(others, keep))
     return piece
 
 

@@ -36,7 +36,7 @@ import numpy as np
 from scipy import special
 from scipy import stats as sps
 
-from .linalg import BatchedOLS, GroupedSSCP, grouped_sscp, ols_from_sscp
+from .linalg import BatchedOLS, GroupedSSCP, grouped_products, grouped_sscp, ols_from_sscp
 from .linear_nulls import fit_linear_null
 from .logistic import fit_logistic
 
@@ -207,6 +207,91 @@ def reset_statistic(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: 
         return reset_test(X, y, fitted, groups, n_groups, fit).statistic
 
 
+class _SharedCueBlocks:
+    """Each group's centred cues, orthonormalised once, for many judgment sets on the same cues.
+
+    A parametric bootstrap redraws only the judgments, so the cue part of every RESET fit
+    is the same in every simulated set. Rows are laid out as a (groups, longest) block
+    (padding slots zero); ``basis`` holds an orthonormal basis of each group's centred
+    cues (QR), so a fit of any judgment set is two matrix products, not a new solve.
+    """
+
+    def __init__(self, X: np.ndarray, groups: np.ndarray, n_groups: int):
+        m, p = X.shape
+        sizes = np.bincount(groups, minlength=n_groups)
+        order = np.argsort(groups, kind="stable")
+        self.rows = order
+        self.group = groups[order]
+        starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+        self.slot = np.arange(m) - starts[self.group]
+        longest = max(int(sizes.max()), 1) if m else 1
+        self.shape = (n_groups, longest)
+        self.n = sizes.astype(float)
+        self.mask = np.zeros(self.shape)
+        self.mask[self.group, self.slot] = 1.0
+        mean = grouped_sscp(X, groups, n_groups).mean
+        centred = np.zeros(self.shape + (p,))
+        centred[self.group, self.slot] = X[order] - mean[self.group]
+        # Full rank of the cues as the least-squares fit decides it (the same rule on the
+        # same sums; the response column, here a copy of a cue, does not enter it).
+        self.rank_ok = ols_from_sscp(grouped_sscp(np.column_stack([X, X[:, :1]]), groups, n_groups),
+                                     np.arange(p), p).rank_ok
+        safe = np.where(self.rank_ok[:, None, None], centred, 0.0)
+        self.basis = np.linalg.qr(safe)[0]
+        self.p = p
+
+    def block(self, values: np.ndarray) -> np.ndarray:
+        """(groups, longest, sets) block of ``values`` given as (sets, rows)."""
+        out = np.zeros(self.shape + (values.shape[0],))
+        out[self.group, self.slot] = values[:, self.rows].T
+        return out
+
+    def centred(self, block: np.ndarray) -> np.ndarray:
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean = block.sum(axis=1) / self.n[:, None]
+        return (block - mean[:, None, :]) * self.mask[:, :, None]
+
+    def project(self, block: np.ndarray) -> np.ndarray:
+        """The part of each (centred) column that the group's cues explain."""
+        return np.matmul(self.basis, np.matmul(np.swapaxes(self.basis, 1, 2), block))
+
+
+def reset_statistics_shared_cues(cues: _SharedCueBlocks, Y: np.ndarray,
+                                 rcond: float = 1e-12) -> np.ndarray:
+    """RESET F of every group for each judgment set in ``Y`` (sets, rows): (sets, groups).
+
+    The same statistic as :func:`reset_statistic` (restricted fit on the cues, the squared
+    and cubed standardized fitted values added; Ramsey 1969), computed by projections on
+    the group's orthonormalised cues: ``RSS_0 = |y_c|^2 - |Q'y_c|^2`` and
+    ``RSS_1 = RSS_0 - b' A^{-1} b`` with the powers' parts outside the cues ``W``,
+    ``A = W'W`` and ``b = W'y_c``. A power that the cues and the other power explain to
+    within ``rcond`` of its own spread counts as collinear (NaN, as the direct fit).
+    """
+    y = cues.centred(cues.block(Y))
+    fitted = cues.project(y)
+    rss0 = np.maximum((y * y).sum(axis=1) - (fitted * fitted).sum(axis=1), 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sd = np.sqrt((fitted * fitted).sum(axis=1) / cues.n[:, None])
+        z = fitted / sd[:, None, :]
+    square = cues.centred(np.where(cues.mask[:, :, None] > 0, z * z, 0.0))
+    cube = cues.centred(np.where(cues.mask[:, :, None] > 0, z * z * z, 0.0))
+    own = ((square * square).sum(axis=1), (cube * cube).sum(axis=1))
+    square = square - cues.project(square)
+    cube = cube - cues.project(cube)
+    a11, a22, a12 = ((square * square).sum(axis=1), (cube * cube).sum(axis=1),
+                     (square * cube).sum(axis=1))
+    b1, b2 = (square * y).sum(axis=1), (cube * y).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        det = a11 * a22 - a12 * a12
+        explained = (a22 * b1 * b1 - 2.0 * a12 * b1 * b2 + a11 * b2 * b2) / det
+        rss1 = np.maximum(rss0 - explained, 0.0)
+        ok = (a11 > rcond * own[0]) & (det > rcond * own[1] * a11)
+        df_den = cues.n - cues.p - 3.0
+        statistic = ((rss0 - rss1) / 2.0) / (rss1 / df_den[:, None])
+    ok &= cues.rank_ok[:, None] & (df_den[:, None] > 0) & np.isfinite(statistic)
+    return np.where(ok, np.maximum(statistic, 0.0), np.nan).T
+
+
 def scale_reset_p(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: int, *,
                   kind: str = "rounded", scale_min: float | None = None,
                   scale_max: float | None = None, step: float = 1.0, n_sim: int = 199,
@@ -226,7 +311,8 @@ def scale_reset_p(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: in
     null cannot be drawn (``LinearNull.usable``) gets NaN. Rows sorted by group.
     """
     rng = np.random.default_rng(rng)
-    observed = reset_statistic(X, y, groups, n_groups)
+    cues = _SharedCueBlocks(X, groups, n_groups)
+    observed = reset_statistics_shared_cues(cues, y[None, :])[0]
     null = fit_linear_null(X, y, groups, n_groups, kind=kind, scale_min=scale_min,
                            scale_max=scale_max, step=step)
     exceed = np.zeros(n_groups)
@@ -236,9 +322,7 @@ def scale_reset_p(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: in
     for first in range(0, n_sim, chunk):
         b = min(chunk, n_sim - first)
         simulated = null.draw(rng, b)
-        sim_groups = (np.arange(b)[:, None] * n_groups + groups[None, :]).ravel()
-        stat = reset_statistic(np.tile(X, (b, 1)), simulated.ravel(), sim_groups,
-                               b * n_groups).reshape(b, n_groups)
+        stat = reset_statistics_shared_cues(cues, simulated)
         finite = np.isfinite(stat)
         exceed += (finite & (stat >= observed[None, :])).sum(axis=0)
         usable += finite.sum(axis=0)
@@ -290,10 +374,8 @@ def logistic_reset_test(X: np.ndarray, y: np.ndarray, groups: np.ndarray,
     full = np.column_stack([np.ones(m), X, z**2, z**3])
     q = p + 1
     weight = prob * (1.0 - prob)
-    info = np.zeros((n_groups, q + 2, q + 2))
-    np.add.at(info, groups, weight[:, None, None] * full[:, :, None] * full[:, None, :])
-    score = np.zeros((n_groups, 2))
-    np.add.at(score, groups, (y - prob)[:, None] * full[:, q:])
+    _, info = grouped_products(np.sqrt(weight)[:, None] * full, groups, n_groups)
+    score, _ = grouped_products((y - prob)[:, None] * full[:, q:], groups, n_groups)
     testable = ~null.separation & np.isfinite(info).all(axis=(1, 2)) & np.isfinite(score).all(axis=1)
     safe = np.where(testable[:, None, None], info, np.eye(q + 2))
     testable &= np.linalg.cond(safe) < 1e12   # powers (nearly) collinear with the cues

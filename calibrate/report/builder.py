@@ -18,15 +18,14 @@ from typing import Any
 
 import pandas as pd
 
-from ..safe_files import atomic_write_bytes, safe_file_stem
+from ..safe_files import atomic_write_bytes
 from . import wording
 from ._read import ReportInput, as_report_input
+from .names import PANEL_FILE, RATERS_FOLDER, rater_file_names
 from .panel import PanelReport
 from .rater import RaterReport
 from .styles import ReportDocument
 
-PANEL_FILE = "panel-summary.pdf"
-RATERS_FOLDER = "raters"
 
 Progress = Callable[[int, int, str], None]
 
@@ -58,12 +57,6 @@ def panel_pdf(result: Any) -> bytes:
                          caution=wording.CAUTION_LINE)
     doc.build(PanelReport(data).flowables())
     return buf.getvalue()
-
-
-def rater_file_names(raters: list[str]) -> dict[str, str]:
-    """Rater id -> sanitised PDF file name, clashes numbered in a fixed (sorted) order."""
-    taken: set[str] = set()
-    return {r: safe_file_stem(r, taken=taken) + ".pdf" for r in sorted(raters)}
 
 
 def _worker_started(parent_pid: int) -> None:

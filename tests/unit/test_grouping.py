@@ -197,7 +197,9 @@ def test_to_dict_follows_the_results_contract():
         assert set(g["std_weights"]) == set(design.columns)
     assert all({"rater", "group"} <= set(r) for r in out["raters"])
     n = len(out["raters"])
-    assert len(out["stability"]["pairs"]) == n * (n - 1) // 2
+    # Pair-level shares grow with raters squared: a table of their own, only counted here.
+    assert "pairs" not in out["stability"]
+    assert out["stability"]["n_pairs"] == n * (n - 1) // 2
 
 
 def test_co_assignment_is_a_symmetric_share():
@@ -496,3 +498,21 @@ def test_keep_apart_rule_does_not_depend_on_panel_size():
     assert sum(g.n_groups == 2 and adjusted_rand_score(
         [t[r] for r in g.raters], [g.rater_group[r] for r in g.raters]) == 1.0
         for g, t in two) >= 5
+
+
+def test_large_panel_reductions_are_stated_and_can_be_turned_off(monkeypatch):
+    # The budget shrunk so that a panel of six raters counts as large: fewer resamples and
+    # simulated panels, each stated in reduced_forms; scale_down=False runs the numbers asked.
+    import calibrate.panel.stability as stability
+
+    monkeypatch.setattr(stability, "_RESAMPLE_WORK_BUDGET", 30 * 36)
+    design, first, _ = make_panel(4, THREE_POLICIES, [2, 2, 2])
+    reduced = group_raters(design, first, rng=2, n_resamples=40, n_null=60)
+    assert reduced.n_resamples == 30
+    assert reduced.reduced_forms == (
+        "The number-of-groups test from 50 simulated panels instead of 60 on this panel size "
+        "(6 raters).",
+        "Grouping stability from 30 case resamples instead of 40 on this panel size (6 raters).")
+    assert reduced.to_dict()["reduced_forms"] == list(reduced.reduced_forms)
+    full = group_raters(design, first, rng=2, n_resamples=40, n_null=60, scale_down=False)
+    assert full.n_resamples == 40 and full.reduced_forms == ()

@@ -106,3 +106,16 @@ def test_a_table_longer_than_a_sheet_continues_on_further_sheets():
                for n in wb.sheetnames[1:])
     readme = [r[2] for r in wb[README_SHEET].iter_rows(min_row=2, values_only=True) if r[1] in ("", None)]
     assert any("Rows 4-6 of 7" in (t or "") and "tables/pairs.csv" in (t or "") for t in readme)
+
+
+def test_a_table_over_the_row_limit_is_left_out_with_a_pointer_to_its_csv():
+    small = pd.DataFrame({"rater": ["r1", "r2"], "x": [1.0, 2.0]})
+    long = pd.DataFrame({"rater": [f"r{i}" for i in range(6)], "x": np.arange(6.0)})
+    wb = load_workbook(io.BytesIO(workbook_bytes({"raters": small, "reading_order": long},
+                                                 {"raters": "Raters.", "reading_order": "Order."},
+                                                 row_limit=5)))
+    assert wb.sheetnames == [README_SHEET, "raters"]
+    notes = {r[0]: r[2] for r in wb[README_SHEET].iter_rows(min_row=2, values_only=True)
+             if r[1] in ("", None)}
+    assert notes["reading_order"] == ("Order. Left out of this workbook: 6 rows, more than the 5 "
+                                      "a sheet here holds; tables/reading_order.csv holds it whole.")
