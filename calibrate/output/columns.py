@@ -221,6 +221,12 @@ TABLE_COLUMN_NOTES: dict[str, dict[str, str]] = {
         "near_cut_off": "True when the cut-off lies inside the file's 95% interval (kept for reference; "
                         "the list of files to read again uses change_probability).",
     },
+    "group_pairs": {
+        "rater_a": "The first rater of the pair (ids in sorted order, so each pair appears once).",
+        "rater_b": "The other rater of the pair, after rater_a in sorted order.",
+        "together": "Share (0 to 1) of the grouping's case resamples in which the two raters fell in "
+                    "the same group: near 1, the pair is grouped together whatever the cases drawn.",
+    },
     "notes": {
         "kind": "Stable code of the note's kind (a data rule such as later_presentations_dropped, or "
                 "'analysis:first-words' for a note of an analysis); the reports group notes by it.",
