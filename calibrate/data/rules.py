@@ -97,8 +97,20 @@ def to_numbers(series: pd.Series, missing_words: tuple[str, ...] = ()) -> tuple[
     as +-inf, for :func:`report_non_finite` to refuse."""
     series = blank_missing_words(series, missing_words)
     present = series.notna()
-    values = pd.to_numeric(series.where(present), errors="coerce")
-    return values.astype(float), present & values.isna()
+    values = pd.to_numeric(series.where(present), errors="coerce").astype(float)
+    # pandas before 3 reads an overflowing number ("1e400") as not a number; Python's float
+    # reads it as inf, which is then refused as non-finite, as pandas 3 does
+    retry = present & values.isna()
+    if retry.any():
+        values.loc[retry] = series.loc[retry].map(_float_or_nan)
+    return values, present & values.isna()
+
+
+def _float_or_nan(cell) -> float:
+    try:
+        return float(str(cell).strip())
+    except (TypeError, ValueError):
+        return float("nan")
 
 
 def non_finite(values: pd.Series) -> pd.Series:
