@@ -39,8 +39,9 @@ the construction never fails when the packet is long enough.
 Expected SE of a weight
 -----------------------
 For standardized cues and judgments, :math:`SE(\\beta_j) =
-\\sqrt{(1 - R^2)/(n - k - 1)}\\,\\sqrt{VIF_j}` (Cohen, Cohen, West & Aiken 2003,
-*Applied Multiple Regression/Correlation Analysis*, 3rd ed., eq. 3.6.1), shown for a
+\\sqrt{(1 - R^2)/(n - k - 1)}\\,\\sqrt{VIF_j}`, the ordinary least-squares standard error of a
+standardized weight (an exact identity, checked against statsmodels in
+``tests/unit/test_design_plan_precision.py``), shown for a
 typical rater with R_s = 0.80 (TYPICAL_R_S).
 
 Expected precision of R_s, and the smallest change it could show

@@ -39,3 +39,19 @@ def test_many_files_centre_on_the_planned_rs_and_few_files_widen_the_interval():
     # the detectable change is 2.80 * sqrt(2) * SD (80% power, 5% two-sided)
     assert np.isclose(small.rs_detectable_change, 2.8016 * np.sqrt(2) * small.rs_sd, rtol=1e-3)
     assert small.to_dict()["expected_r_s_precision"]["interval_width_95"] == small.rs_interval_width
+
+
+def test_expected_se_formula_is_the_ols_standard_error_of_a_standardized_weight():
+    # Exact identity, checked with statsmodels: with cues and judgments z-scored, OLS gives
+    # SE(beta_j) = sqrt((1 - R^2) / (n - k - 1)) * sqrt(VIF_j), the formula the plan uses with
+    # R^2 = 0.80^2 (from s^2 = SS_y (1 - R^2) / (n - k - 1) and SS_j (1 - R_j^2) = (n - 1) / VIF_j).
+    from calibrate.design.plan import _vif
+
+    rng = np.random.default_rng(11)
+    n, k = 60, 3
+    X = rng.normal(size=(n, k)) @ np.array([[1, .6, .2], [0, 1, .4], [0, 0, 1.0]])
+    y = X @ np.array([.5, .3, .2]) + rng.normal(0, 1, n)
+    z = lambda a: (a - a.mean(axis=0)) / a.std(axis=0, ddof=1)
+    fit = sm.OLS(z(y), sm.add_constant(z(X))).fit()
+    formula = np.sqrt((1 - fit.rsquared) / (n - k - 1) * _vif(X))
+    np.testing.assert_allclose(fit.bse[1:], formula, rtol=1e-10)
