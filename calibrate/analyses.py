@@ -507,10 +507,11 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
     )
 
 
-# Each rater's before/after figures in the audit: the comparison's per-rater changes with
-# fewer case resamples than ``calibrate compare`` (1,000) to keep the audit quick (measured
-# on the demo: about 0.5 s more); training-report.pdf remains the place for the full figures.
-CHANGE_RESAMPLES = 400
+# Each rater's before/after figures in the audit: the comparison's per-rater changes with the
+# same case resamples and seed as ``calibrate compare``, so a rater's own report and the
+# training report give the same interval and the same word for the same change (with 400
+# resamples they differed in the second decimal, and a word could flip at an interval's edge).
+CHANGE_RESAMPLES = 1000
 CHANGE_METRICS = ("r", "retest_r", "misallocation", "g_rubric", "r_a", "g")
 
 

@@ -22,6 +22,11 @@ from .styles import (BODY, CELL, CELL_BOLD, CONTENT_WIDTH, HEADING, NOTE, SMALL,
                      markup, table_style, text)
 
 TRAINING_FILE = "training-report.pdf"
+# The report names every rater with their own changes, as the chair's summary does.
+PRIVACY_NOTE = ("For the training coordinator: it names every rater with their own changes, so please keep it "
+                "within those responsible for the training (each rater sees only their own change, in their "
+                "private report). Decisions about people follow the institution's own policies and the "
+                "applicable law, not these figures alone.")
 LABELS = {"r": "R_s", "retest_r": "retest r", "misallocation": "misallocation", "g_rubric": "G rubric",
           "severity": "severity", "r_a": "r_a", "g": "G"}
 MEANINGS = {"r": "consistency", "retest_r": "test-retest agreement", "misallocation": "distance from the rubric",
@@ -86,6 +91,7 @@ def first_page(view: ComparisonView) -> list:
     who = (f"{n_t} trained raters and {n_c} controls" if view.has_control else
            f"{n_t} raters, all counted as trained (no control group)")
     story = [text("Did the training work?", TITLE),
+             text(PRIVACY_NOTE, NOTE),
              text(f"Phases {', '.join(view.phases)}; {who}. Each answer below reads the 95% intervals: "
                   "a change is claimed only where its interval excludes zero.", SMALL), Spacer(1, 4)]
     if view.answers is not None:
@@ -345,8 +351,14 @@ def detectable_table(view: ComparisonView) -> list:
         elif word == "no clear change":
             reading = (f"this design could only have seen a change of {wording.fmt(panel)} or larger; "
                        "a smaller one may be hidden")
+        elif word == "mixed":
+            reading = (f"mixed: the difference in changes and the ANCOVA estimate disagree, so no change is "
+                       f"credited; this design could see a change of {wording.fmt(panel)} or larger")
+        elif ch.delta is not None and abs(ch.delta) < panel:
+            reading = (f"the change is clear ({word}), though smaller than the {wording.fmt(panel)} this "
+                       "design would see 80% of the time")
         else:
-            reading = f"large enough to see: the change is clear ({word})"
+            reading = f"the change is clear ({word}) and as large as this design could see"
         rows.append([text(LABELS.get(m, m), CELL), text(est, CELL),
                      text("n/a" if per_rater is None else wording.fmt(per_rater), CELL),
                      text("n/a" if panel is None else wording.fmt(panel), CELL), text(reading, CELL)])

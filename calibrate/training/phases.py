@@ -876,9 +876,14 @@ def comparison_summary(phases: tuple[str, ...], panel: dict, has_control: bool) 
 
 def comparison_cautions(*, has_control: bool, same_cases: bool, apart_metrics: list[str],
                         n_trained: int, n_control: int, unequal_cases: int = 0,
-                        started_worse: list[str] | None = None) -> tuple[str, ...]:
+                        started_worse: list[str] | None = None,
+                        outcome_selected: bool = False) -> tuple[str, ...]:
     """The plain-words cautions of a comparison (reports print these, never their own)."""
     notes = []
+    if outcome_selected:
+        notes.append("The outcome is known only for the cases that were selected (admitted), so r_a "
+                     "and G with the outcome are biased and rest on few cases per rater: read their "
+                     "changes, and any gain credited on them, as a rough guide only.")
     if unequal_cases:
         notes.append(f"For {unequal_cases} rater(s) the number of cases differs by more than half "
                      "between phases: R_s reads higher with fewer cases, so its change is read on "
@@ -1018,7 +1023,9 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
     unequal = int(np.sum(np.isfinite(ratio) & (ratio > UNEQUAL_CASES_RATIO)))
     cautions = comparison_cautions(has_control=has_control, same_cases=same_cases,
                                    apart_metrics=apart, n_trained=n_tr, n_control=len(raters) - n_tr,
-                                   unequal_cases=unequal, started_worse=started_worse)
+                                   unequal_cases=unequal, started_worse=started_worse,
+                                   outcome_selected=bool(spec.criterion_only_for_selected
+                                                         and spec.columns.get("criterion")))
     return ComparisonResult(phases=phases, seed=seed, has_control=has_control, raters=tuple(raters),
                             unmatched=unmatched, panel=panel, cautions=cautions, n_boot=n_boot,
                             summary=comparison_summary(phases, panel, has_control),

@@ -144,7 +144,8 @@ def lasts_sentence(phases: Sequence[str], *, has_control: bool, metrics: Sequenc
     change); ``overall``: metric -> the gain first to last in the same form (a training
     effect with a control group, else the arm's change)."""
     if len(phases) < 3:
-        return (f"Does it last? Cannot be told: the study has no follow-up phase after {phases[-1]}; "
+        return (f"Does it last? Cannot be told: the study ends with phase '{phases[-1]}' and has no later "
+                "follow-up round; "
                 "add a later round of the same kind to see whether the change holds.")
     end, later, first = phases[-2], phases[-1], phases[0]
     if not follow_up:

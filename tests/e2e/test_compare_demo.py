@@ -125,7 +125,7 @@ def test_training_report_first_page_answers_in_words(result):
     # and not the controls, and whether it lasts cannot be told without a follow-up.
     assert "Did it work? Yes, on closeness to the rubric's weights" in first
     assert "closeness to the rubric's weights 7 of 7 trained and" in first
-    assert "Does it last? Cannot be told: the study has no follow-up phase" in first
+    assert "Does it last? Cannot be told: the study ends with phase" in first
     assert "different case sets" in first and "institution's policies" in " ".join(pages)
 
 
@@ -209,3 +209,24 @@ def test_without_rubric_or_criterion_the_figures_that_need_them_are_left_out(tmp
     assert all(v["rubric_share"] is None and v["toward_rubric"] is None
                for v in out.panel["cue_shift"].values())
     assert out.raters[0].shares  # the shares need no rubric
+
+
+def test_a_raters_own_report_and_the_training_report_give_the_same_change(tmp_path):
+    # the audit's per-rater changes (each rater's before/after section) use the same resamples
+    # and seed as compare, so the interval and the word agree to the last digit
+    from calibrate.analyses import _add_rater_changes
+
+    table = load_study(write_demo(tmp_path / "d").spec)
+    entries = [{"rater": r, "phase": ph.label} for ph in table.phases for r in ph.raters]
+    _add_rater_changes(entries, table, table.spec.seed)
+    full = {r["rater"]: r for r in compare(table, seed=table.spec.seed).to_dict()["raters"]}
+    checked = 0
+    for e in entries:
+        for metric, items in (e["changes"] or {}).items():
+            for ch in items:
+                same = next(c for c in full[e["rater"]]["metrics"][metric]["changes"]
+                            if (c["from"], c["to"]) == (ch["from"], ch["to"]))
+                assert (ch["ci_low"], ch["ci_high"], ch["verdict"]) == (same["ci_low"], same["ci_high"],
+                                                                        same["verdict"])
+                checked += 1
+    assert checked >= 14 * 3
