@@ -208,8 +208,12 @@ class RaterReport:
                               "shown: with so few, a summary could reveal a colleague's figures.", SMALL))
         story += self.group_line()
         story.append(text(wording.drift_reading(e.drift, e.reason("drift")), BODY))
-        story.append(text(flags_sentence(e, include_excluded=self.include_excluded,
-                                         named_phases=self.view.named_phases), NOTE))
+        line = flags_sentence(e, include_excluded=self.include_excluded, named_phases=self.view.named_phases)
+        for other in self.entries:  # an earlier phase's flags are said too, never left unsaid
+            visible = visible_flags(other, include_excluded=self.include_excluded)
+            if other is not e and visible and self.view.named_phases:
+                line += (f" In phase {other.phase}: " + "; ".join(wording.flag_words(f) for f in visible) + ".")
+        story.append(text(line, NOTE))
         story += self.next_steps()
         return story
 
