@@ -585,7 +585,7 @@ class PanelReport:
                 ci = icc.intervals.get(key)
                 rows.append([text(label, CELL), text(fmt(est), CELL),
                              text(f"{fmt(ci[0])} to {fmt(ci[1])}" if ci else "", CELL), text(meaning, CELL),
-                             text(wording.icc_reading(est), CELL)])
+                             text(wording.icc_verdict(est, ci), CELL)])
             table = fitted_table(rows, [60, 50, 80, 200, CONTENT_WIDTH - 390], hAlign="LEFT")
             table.setStyle(table_style())
             story.append(table)
