@@ -425,9 +425,11 @@ class RaterReport:
         if not cases:
             return story + [text("No case stands out from your own policy, or the policy is not available.",
                                  BODY)]
-        story.append(text("These cases received the judgments furthest from what your own policy predicts "
-                          "for them. Re-reading them may show a cue that was missed or an exception that "
-                          "deserves a rule.", BODY))
+        story.append(text("These cases received the judgments that stand out most from what your own policy "
+                          "predicts for them, most unusual first: each difference is weighed by how surely "
+                          "the policy predicts that case, so a case with unusual cues can come before a "
+                          "larger plain difference. Re-reading them may show a cue that was missed or an "
+                          "exception that deserves a rule.", BODY))
         judged = "Your mean judgment" if self.entry.policy_on_means else "Your judgment"
         rows = [[text(h, CELL_BOLD) for h in ("Case", judged, "Your policy predicts", "Difference")]]
         for c in cases[:12]:
@@ -439,6 +441,12 @@ class RaterReport:
         story.append(table)
         if any(c.clipped for c in cases[:12]):
             story.append(text(wording.PREDICTION_CLIPPED_NOTE, SMALL))
+        listed = len(self.entry.policy.look_again) if self.entry.policy is not None else 0
+        if listed > len(cases):
+            n = listed - len(cases)
+            story.append(text(f"{n} more case{'s' if n > 1 else ''} stood out but {'are' if n > 1 else 'is'} "
+                              "not shown: your judgment sat at the end of the scale and your policy's "
+                              "prediction lay beyond it, so on the scale the two agree.", SMALL))
         return story
 
     def lens(self) -> list:
