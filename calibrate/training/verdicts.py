@@ -226,6 +226,11 @@ _RATER_WORDS = {
 }
 
 
+# R_s reads higher with fewer cases, so its change is the change in the adjusted R_s (Wherry),
+# which need not equal the difference of the two printed values.
+ADJUSTED_NOTE = " (of R_s adjusted for the number of cases)"
+
+
 def rater_change_sentence(metric: str, change: Mapping) -> str:
     """One rater's change in words about the task, with the figures and the interval:
     "From before to after, your judgments followed your own rule more closely: R_s 0.71 ->
@@ -240,7 +245,8 @@ def rater_change_sentence(metric: str, change: Mapping) -> str:
         return f"{v:.2f}" if _finite(v) else "n/a"
 
     out = (f"From {change.get('from')} to {change.get('to')}, {words}: {label} {plain(change.get('value_from'))} "
-           f"-> {plain(change.get('value_to'))}, change {signed(change.get('delta'))}, 95% interval "
+           f"-> {plain(change.get('value_to'))}, change{ADJUSTED_NOTE if metric == 'r' else ''} "
+           f"{signed(change.get('delta'))}, 95% interval "
            f"{signed(change.get('ci_low'))} to {signed(change.get('ci_high'))}.")
     if change.get("note"):
         out += f" Note: {change['note']}."

@@ -172,7 +172,7 @@ def test_the_rater_sentence_follows_its_interval():
     base = {"from": "before", "to": "after", "value_from": 0.71, "value_to": 0.83, "delta": 0.12}
     up = rater_change_sentence("r", {**base, "ci_low": 0.04, "ci_high": 0.20})
     assert up == ("From before to after, your judgments followed your own rule more closely: R_s 0.71 -> 0.83, "
-                  "change +0.12, 95% interval +0.04 to +0.20.")
+                  "change (of R_s adjusted for the number of cases) +0.12, 95% interval +0.04 to +0.20.")
     assert "no clear change" in rater_change_sentence("r", {**base, "ci_low": -0.01, "ci_high": 0.20})
     # misallocation: lower is closer to the rubric
     closer = rater_change_sentence("misallocation", {**base, "value_from": 0.4, "value_to": 0.2, "delta": -0.2,
