@@ -571,8 +571,11 @@ class PanelReport:
         story.append(table)
         if panel.homogeneity is not None:
             statistic, p_value = panel.homogeneity
-            story.append(text(f"Test that all raters share one set of weights: statistic "
-                              f"{fmt(statistic)}, p = {wording.fmt_p(p_value)}.", BODY))
+            shown_p = wording.fmt_p(p_value)
+            story.append(text("Test that all raters share one set of weights (a Wald test with each rater's "
+                              "own error variance, p from a parametric bootstrap): "
+                              f"statistic {fmt(statistic)}, p {shown_p if shown_p.startswith('<') else '= ' + shown_p}.",
+                              BODY))
         return story
 
     def agreement(self, panel: PanelView) -> list:
@@ -664,7 +667,10 @@ class PanelReport:
                               .get(source, str(source or "")), CELL)])
         table = fitted_table(rows, [70, 70, 60, 40, 40, 40, CONTENT_WIDTH - 320], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
-        return [text("The pairs that agree least, with where their disagreement comes from: weighting the "
+        lead = ("The pairs that agree least" if len(panel.pairs) > len(pairs) or panel.pairs_left_out is None
+                else f"The {len(pairs)} pair{'s' if len(pairs) > 1 else ''} that share enough cases to be "
+                     "compared (not necessarily the pairs that agree least)")
+        return [text(f"{lead}, with where their disagreement comes from: weighting the "
                      "cues differently (low G) or applying a policy inconsistently (low R_s).", BODY), table] + rule
 
     # ------------------------------------------------------------------ files, excluded, quality
