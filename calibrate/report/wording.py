@@ -459,7 +459,9 @@ def chance_flags_sentence(n_tests: int, panelwise_rate: float | None, expected: 
     shows = "none" if shown == 0 else ("1" if shown == 1 else f"{shown}")
     return (f"{lead}y chance alone, raters with none of the tested patterns would get about "
             f"{fmt(expected)} tested flags here (at most a {100 * panelwise_rate:.0f}% chance of any, "
-            f"over {n_tests} tests); this panel shows {shows}.")
+            f"over {n_tests} tests); this panel shows {shows} tested flag{'' if shown == 1 else 's'} "
+            "(the other flags are rules on the figures or on the data, not tests, so chance is not counted "
+            "for them).")
 
 
 def retest_reach_sentence(n_pairs: int | None, detectable_below: float | None,
