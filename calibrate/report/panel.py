@@ -480,8 +480,12 @@ class PanelReport:
         table = fitted_table(rows, widths, repeatRows=1)
         table.setStyle(table_style(("FONT", (0, 1), (-1, -1), BASE_FONT, 7.5)))
         story.append(table)
-        story.append(text("Offset: positive means judgments run higher than the panel's on the same cases. "
-                          "Misalloc.: misallocation against the rubric (0 = the rubric's weights). Flags: in "
+        margin = ("" if self.view.scale is None else
+                  f" A rater is flagged as running high or low only when the offset's 95% interval lies wholly "
+                  f"beyond {fmt(0.05 * (self.view.scale[1] - self.view.scale[0]))} scale points either way "
+                  "(5% of the scale's range; our own rule of thumb).")
+        story.append(text("Offset: positive means judgments run higher than the panel's on the same cases."
+                          + margin + " Misalloc.: misallocation against the rubric (0 = the rubric's weights). Flags: in "
                           "short words (page 1 gives each in full with its figure); a flag that every rater "
                           + ("of a phase " if named else "") + "carries is stated once on page 1 and left out "
                           "here.", SMALL))
