@@ -22,7 +22,8 @@ def page_texts(pdf: bytes | str | Path) -> list[str]:
 
 def numbers_in(text: str) -> list[str]:
     """The numbers printed in ``text``, as written."""
-    return _PRINTED_NUMBER.findall(text)
+    # "95% interval" names the interval's level, not a figure of the results
+    return _PRINTED_NUMBER.findall(re.sub(r"95%\s+interval", "interval", text))
 
 
 def entries_of(results: dict, rater: str) -> list[dict]:
@@ -41,5 +42,5 @@ def numbers_of(entries) -> set[str]:
         elif isinstance(node, list):
             pending.extend(node)
         elif isinstance(node, (int, float)) and not isinstance(node, bool):
-            found.update({fmt(float(node)), str(node)})
+            found.update({fmt(float(node)), fmt(float(node), 3), str(node)})  # 3 decimals: a p-value
     return found

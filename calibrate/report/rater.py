@@ -207,7 +207,7 @@ class RaterReport:
             story.append(text("The panel has fewer than five raters, so no comparison with colleagues is "
                               "shown: with so few, a summary could reveal a colleague's figures.", SMALL))
         story += self.group_line()
-        story.append(text(wording.drift_reading(e.drift, e.reason("drift")), BODY))
+        story.append(text(drift_sentence(e), BODY))
         line = flags_sentence(e, include_excluded=self.include_excluded, named_phases=self.view.named_phases)
         for other in self.entries:  # an earlier phase's flags are said too, never left unsaid
             visible = visible_flags(other, include_excluded=self.include_excluded)
@@ -406,7 +406,7 @@ class RaterReport:
             if panel_middle is not None and self.shows_peers(self.phase):
                 line += f" (panel: {fmt(100 * panel_middle, 0)}%)"
             story.append(text(line + ".", BODY))
-        story.append(text(wording.drift_reading(self.entry.drift, self.entry.reason("drift")), BODY))
+        story.append(text(drift_sentence(self.entry), BODY))
         order = self.reading_order()
         bounds = self.scale()
         if order and bounds:
@@ -658,6 +658,14 @@ def hidden_checks(entry: RaterView, *, include_excluded: bool) -> int:
 
 def visible_flags(entry: RaterView, *, include_excluded: bool) -> tuple[str, ...]:
     return tuple(f for f in entry.flags if f != "excluded_attribute" or include_excluded)
+
+
+def drift_sentence(entry: RaterView) -> str:
+    """The drift sentence, with the size and interval of a flagged drift (as the chair sees it)."""
+    line = wording.drift_reading(entry.drift, entry.reason("drift"))
+    flagged = entry.drift is not None and entry.drift.flagged
+    figure = wording.flag_figure_text(entry.evidence.get("drift")) if flagged else ""
+    return line[:-1] + f" ({figure})." if figure else line
 
 
 def flags_sentence(entry: RaterView, *, include_excluded: bool, named_phases: bool = True) -> str:
