@@ -82,7 +82,7 @@ RETEST_BANDS = Scale("test-retest", (
 MISALLOCATION_BANDS = Scale("misallocation", (
     Band(-INF, 0.10, "sits close to the rubric"),
     Band(0.10, 0.25, "differs from the rubric on some cues"),
-    Band(0.25, INF, "differs clearly from the rubric"),
+    Band(0.25, INF, "differs widely from the rubric (0.25 or more; a size, not a test)"),
 ), "our own choice")
 
 # Matching G (correlation between two linear models' predictions): our own choice.
