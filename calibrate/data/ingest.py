@@ -484,7 +484,7 @@ def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None) ->
     data = data.rename(columns={cols["rater"]: "_rater", cols["case"]: "_case"})
     data = mark_repeats(data, out, spec.judgment.repeats)
     mode = data.attrs.get("repeats", "first-two")
-    check_trained(set(data["_rater"]), spec.trained, out)
+    check_trained(set(data["_rater"].unique()), spec.trained, out)
     if out.errors:
         return None
 
