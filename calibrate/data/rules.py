@@ -74,7 +74,7 @@ def map_distinct(series: pd.Series, func) -> pd.Series:
     except TypeError:  # unhashable cells (lists in a result table): cell by cell
         return series.map(func)
     mapped = np.empty(len(uniques), dtype=object)
-    mapped[:] = [func(u) for u in uniques]
+    mapped[:] = [func(u) for u in uniques.tolist()]   # one bulk conversion, not one per value
     out = np.empty(len(series), dtype=object)
     found = codes >= 0
     out[found] = mapped[codes[found]]
