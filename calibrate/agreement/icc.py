@@ -34,6 +34,7 @@ from .offsets import (
     crossed_layout,
     fit_additive,
     fit_additive_many,
+    fixed_design,
 )
 
 ICC_FORMS = (
@@ -205,8 +206,9 @@ def icc_parametric_draws(layout: CrossedLayout, comps: ComponentEstimates, k: fl
                          gen: np.random.Generator) -> np.ndarray:
     """(n_boot, 6) ICC forms (ICC_FORMS order) refitted on each panel of :func:`parametric_panels`."""
     draws = np.full((n_boot, len(ICC_FORMS)), np.nan)
+    design = fixed_design(layout)   # who read what stays fixed: one factor for every batch
     for rows, ys in parametric_panels(layout, comps, n_boot, gen):
-        values = icc_from_components(henderson_components(fit_additive_many(layout, ys)), k)
+        values = icc_from_components(henderson_components(fit_additive_many(layout, ys, design)), k)
         draws[rows] = np.column_stack([values[form] for form, _ in ICC_FORMS])
     return draws
 
@@ -358,6 +360,17 @@ def _interval_alpha_from_moments(m: np.ndarray, sum1: np.ndarray, sum2: np.ndarr
         return 1.0 - (n - 1) * observed / expected
 
 
+def _bounds_below(bounds: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """How many of the sorted ``bounds`` lie strictly below each value: the index of the
+    nearest category, the same as ``np.searchsorted(bounds, values)`` for finite values,
+    by one comparison per bound (a handful of scale steps) instead of a binary search
+    per value."""
+    below = np.zeros(values.shape, dtype=np.intp)
+    for bound in bounds:
+        below += values > bound
+    return below
+
+
 def alpha_parametric_draws(layout: CrossedLayout, comps: ComponentEstimates, level: str,
                            categories: np.ndarray | None, n_boot: int,
                            gen: np.random.Generator) -> np.ndarray:
@@ -377,18 +390,22 @@ def alpha_parametric_draws(layout: CrossedLayout, comps: ComponentEstimates, lev
     draws = np.full(n_boot, np.nan)
     if m.size == 0:
         return draws
+    V = 0 if categories is None else categories.size
+    bounds = None if categories is None else (categories[1:] + categories[:-1]) / 2.0
     for rows, ys in parametric_panels(layout, comps, n_boot, gen):
         ys = ys[keep]
         if categories is None:
             draws[rows] = _interval_alpha_from_moments(m, by_unit @ ys, by_unit @ ys**2)
             continue
-        nearest = np.searchsorted((categories[1:] + categories[:-1]) / 2.0, ys)
+        nearest = _bounds_below(bounds, ys)
         if level == "interval":
             values = categories[nearest]
             draws[rows] = _interval_alpha_from_moments(m, by_unit @ values, by_unit @ values**2)
             continue
-        counts = np.stack([by_unit @ (nearest == v).astype(float) for v in range(categories.size)],
-                          axis=2)                                    # (U, b, V)
+        # category counts per (unit, panel) by one bincount over the long form
+        b = ys.shape[1]
+        cell = (unit[:, None] * b + np.arange(b)[None, :]) * V + nearest
+        counts = np.bincount(cell.ravel(), minlength=m.size * b * V).astype(float).reshape(m.size, b, V)
         pairs = np.einsum("ubc,ubk,u->bck", counts, counts, 1.0 / (m - 1))
         pairs -= np.einsum("ubc,u->bc", counts, 1.0 / (m - 1))[:, :, None] * np.eye(categories.size)
         draws[rows] = _alpha_from_coincidence(pairs, categories, level)

@@ -31,6 +31,9 @@ from ..errors import DataError, DataProblem, DegenerateFitError
 from ..result_base import ResultMixin
 
 SCALES = ("continuous", "ordinal", "binary")
+# values of the (judgments x raters) and (raters x cases) blocks the robust offset
+# variances hold at once (16 MB each)
+ROBUST_BLOCK_VALUES = 2_000_000
 
 
 # ---------------------------------------------------------------------------
@@ -343,38 +346,69 @@ def _reduced_system(layout: CrossedLayout, w: np.ndarray, n_r: np.ndarray, n_c: 
     return reduced, indicator, pin
 
 
-def fit_additive_many(layout: CrossedLayout, ys: np.ndarray) -> AdditiveFit:
+@dataclass(frozen=True)
+class FixedDesign:
+    """What :func:`fit_additive_many` needs of a design that stays fixed between fits:
+    the case and rater summing matrices over judgments, the counts, the connected
+    parts and the Cholesky factor of the reduced system. Built once by
+    :func:`fixed_design` and shared by every batch of a parametric bootstrap (the
+    factor is the expensive part: an ``R x R`` Cholesky per batch before)."""
+
+    by_case: sparse.csr_matrix      # (C, N) sums judgments per case
+    by_rater: sparse.csr_matrix     # (R, N) sums judgments per rater
+    readers_per_case: np.ndarray    # (C,)
+    judgments_per_rater: np.ndarray  # (R,)
+    n_parts: int
+    part_of_rater: np.ndarray
+    part_of_case: np.ndarray
+    factor: tuple                   # scipy.linalg.cho_factor of the constrained reduced system
+
+
+def fixed_design(layout: CrossedLayout) -> FixedDesign:
+    """The fixed part of :func:`fit_additive_many` on ``layout`` (see :class:`FixedDesign`)."""
+    R, C = layout.n_raters, layout.n_cases
+    ci, ri = layout.case_index, layout.rater_index
+    n_c = layout.readers_per_case()
+    n_r = np.bincount(ri, minlength=R).astype(float)
+    by_case = sparse.csr_matrix((np.ones(ci.size), (ci, np.arange(ci.size))), shape=(C, ci.size))
+    by_rater = sparse.csr_matrix((np.ones(ri.size), (ri, np.arange(ri.size))), shape=(R, ri.size))
+    n_parts, part_r, part_c = connected_parts(layout)
+    reduced, indicator, pin = _reduced_system(layout, np.ones(ci.size), n_r, n_c, n_parts, part_r)
+    system = reduced.toarray() + indicator @ indicator.T + np.diag(pin)
+    factor = sla.cho_factor(system, lower=True, check_finite=False)
+    return FixedDesign(by_case=by_case, by_rater=by_rater, readers_per_case=n_c,
+                       judgments_per_rater=n_r, n_parts=n_parts, part_of_rater=part_r,
+                       part_of_case=part_c, factor=factor)
+
+
+def fit_additive_many(layout: CrossedLayout, ys: np.ndarray,
+                      design: FixedDesign | None = None) -> AdditiveFit:
     """:func:`fit_additive` for many judgment vectors on one design at once.
 
     ``ys`` is (N, B): column ``b`` holds judgments in the layout's row order (who read
     what stays fixed). The design matrix does not change between columns, so the
     reduced system is factored once and every sum of squares is a column
     operation; the returned fit's sums of squares are (B,) arrays and its offsets
-    (R, B). Used by the parametric bootstrap of :mod:`calibrate.agreement.icc`.
+    (R, B). Used by the parametric bootstrap of :mod:`calibrate.agreement.icc`, which
+    passes ``design`` (from :func:`fixed_design`) so that batches share one factor.
     """
     ys = np.asarray(ys, dtype=float)
+    d = fixed_design(layout) if design is None else design
     R, C = layout.n_raters, layout.n_cases
-    ci, ri = layout.case_index, layout.rater_index
+    ci = layout.case_index
     N = float(ys.shape[0])
-    n_c = layout.readers_per_case()
-    n_r = np.bincount(ri, minlength=R).astype(float)
-    by_case = sparse.csr_matrix((np.ones(ci.size), (ci, np.arange(ci.size))), shape=(C, ci.size))
-    by_rater = sparse.csr_matrix((np.ones(ri.size), (ri, np.arange(ri.size))), shape=(R, ri.size))
+    n_c, n_r = d.readers_per_case, d.judgments_per_rater
     grand = ys.mean(axis=0)
-    dev_case = ys - (by_case @ ys / n_c[:, None])[ci]
+    dev_case = ys - (d.by_case @ ys / n_c[:, None])[ci]
     ss_total = ((ys - grand) ** 2).sum(axis=0)
     ss_within = (dev_case**2).sum(axis=0)
-    ss_raters = (n_r[:, None] * (by_rater @ ys / n_r[:, None] - grand) ** 2).sum(axis=0)
-    n_parts, part_r, part_c = connected_parts(layout)
-    reduced, indicator, pin = _reduced_system(layout, np.ones(ci.size), n_r, n_c, n_parts, part_r)
-    system = reduced.toarray() + indicator @ indicator.T + np.diag(pin)
-    rhs = by_rater @ dev_case
-    offsets = sla.cho_solve(sla.cho_factor(system, lower=True, check_finite=False), rhs,
-                            check_finite=False)
+    ss_raters = (n_r[:, None] * (d.by_rater @ ys / n_r[:, None] - grand) ** 2).sum(axis=0)
+    rhs = d.by_rater @ dev_case
+    offsets = sla.cho_solve(d.factor, rhs, check_finite=False)
     reduction = (offsets * rhs).sum(axis=0)
     return AdditiveFit(
-        offsets=offsets, offset_var_unit=np.full(R, np.nan), part_of_rater=part_r,
-        part_of_case=part_c, n_parts=n_parts, grand_mean=grand, n=N, n_cases=float(C),
+        offsets=offsets, offset_var_unit=np.full(R, np.nan), part_of_rater=d.part_of_rater,
+        part_of_case=d.part_of_case, n_parts=d.n_parts, grand_mean=grand, n=N, n_cases=float(C),
         n_raters=R, sum_readers_sq_over_n=float((n_c**2).sum() / N),
         ss_total=ss_total, ss_cases=ss_total - ss_within, ss_raters=ss_raters,
         ss_within_cases=ss_within, ss_rater_given_case=reduction,
@@ -403,22 +437,30 @@ def robust_offset_variance(layout: CrossedLayout, fit: AdditiveFit, form: str = 
     ri, ci, y = layout.rater_index, layout.case_index, layout.y
     n_c = layout.readers_per_case()
     offsets = np.nan_to_num(fit.offsets)
-    share = layout.incidence(1.0 / n_c[ci])                  # (R, C): m_c, the case's mean indicator
-    pinv_m = np.asarray((share.T @ pinv).T)                  # (R, C): A^+ m_c
-    quad_case = np.asarray(share.multiply(pinv_m).sum(axis=0)).ravel()   # m_c' A^+ m_c
-    leverage = 1.0 / n_c[ci] + np.diag(pinv)[ri] - 2.0 * pinv_m[ri, ci] + quad_case[ci]
+    share = layout.incidence(1.0 / n_c[ci]).tocsc()          # (R, C): m_c, the case's mean indicator
     case_mean = np.bincount(ci, weights=y, minlength=layout.n_cases) / n_c
     mean_offset = np.bincount(ci, weights=offsets[ri], minlength=layout.n_cases) / n_c
     resid = y - case_mean[ci] - (offsets[ri] - mean_offset[ci])
-    free = 1.0 - leverage
     power = {"HC2": 1.0, "HC3": 2.0}[form]
-    omega = np.where(free > 1e-9, resid**2 / np.where(free > 1e-9, free, 1.0) ** power, 0.0)
+    pinv_diag = np.diag(pinv)
     variance = np.zeros(R)
-    step = max(1, 2_000_000 // max(R, 1))                      # rows of Z A^+ held at once
+    # A^+ m_c is an R-vector per case: on a linked design with many cases an (R, C) table
+    # of them does not fit in memory, so it is made only for the cases of each block of
+    # judgments (same arithmetic per case, so the same numbers as the whole table)
+    step = max(1, ROBUST_BLOCK_VALUES // max(R, 1))            # rows of Z A^+ held at once
     for start in range(0, y.size, step):
         rows = slice(start, start + step)
-        gain = pinv[ri[rows], :] - pinv_m[:, ci[rows]].T     # rows of Z A^+
-        variance += omega[rows] @ gain**2
+        cases, local = np.unique(ci[rows], return_inverse=True)
+        share_block = share[:, cases]
+        pinv_m = np.asarray((share_block.T @ pinv).T)            # (R, cases): A^+ m_c
+        quad_case = np.asarray(share_block.multiply(pinv_m).sum(axis=0)).ravel()   # m_c' A^+ m_c
+        r = ri[rows]
+        leverage = (1.0 / n_c[ci[rows]] + pinv_diag[r] - 2.0 * pinv_m[r, local]
+                    + quad_case[local])
+        free = 1.0 - leverage
+        omega = np.where(free > 1e-9, resid[rows]**2 / np.where(free > 1e-9, free, 1.0) ** power, 0.0)
+        gain = pinv[r, :] - pinv_m[:, local].T                # rows of Z A^+
+        variance += omega @ gain**2
     variance[fit.part_of_rater < 0] = np.nan
     return variance
 

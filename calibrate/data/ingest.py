@@ -390,6 +390,9 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
     (and, with ``mode`` "all", every presentation of the repeated cases)."""
     if sub.empty:
         out.warn(f"phase '{name}' has no judgments", kind="empty_phase", phase=name)
+    # ids as text once: the frames below share these arrays instead of each converting
+    # the same object arrays again
+    sub = sub.astype({"_rater": "str", "_case": "str"})
     firsts = sub.loc[sub["_nth"] == 0]
     case_mean = firsts["_judgment"].to_numpy(dtype=float)
     presentations = PhaseData.__dataclass_fields__["presentations"].default_factory()
@@ -399,14 +402,14 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
         case_mean = means.reindex(pd.MultiIndex.from_frame(firsts[keys])).to_numpy(dtype=float)
         many = sub.loc[sub["_shown"] >= 2]
         presentations = pd.DataFrame({
-            "rater": many["_rater"].to_numpy(),
-            "case": many["_case"].to_numpy(),
+            "rater": many["_rater"].array,
+            "case": many["_case"].array,
             "nth": many["_nth"].to_numpy(dtype=int),
             "judgment": many["_judgment"].to_numpy(dtype=float),
         })
     first = pd.DataFrame({
-        "rater": firsts["_rater"].to_numpy(),
-        "case": firsts["_case"].to_numpy(),
+        "rater": firsts["_rater"].array,
+        "case": firsts["_case"].array,
         "judgment": firsts["_judgment"].to_numpy(dtype=float),
         "sequence": firsts["_sequence"].to_numpy(dtype=float),
         "file": firsts[FILE].to_numpy(),
@@ -418,14 +421,14 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
     pairs = firsts[["_rater", "_case", "_judgment"]].merge(
         seconds, on=["_rater", "_case"], suffixes=("_first", "_second"))
     repeats = pd.DataFrame({
-        "rater": pairs["_rater"].to_numpy(),
-        "case": pairs["_case"].to_numpy(),
+        "rater": pairs["_rater"].array,
+        "case": pairs["_case"].array,
         "first": pairs["_judgment_first"].to_numpy(dtype=float),
         "second": pairs["_judgment_second"].to_numpy(dtype=float),
     })
     ordered = pd.DataFrame({
-        "rater": sub["_rater"].to_numpy(),
-        "case": sub["_case"].to_numpy(),
+        "rater": sub["_rater"].array,
+        "case": sub["_case"].array,
         "judgment": sub["_judgment"].to_numpy(dtype=float),
         "position": sub["_position"].to_numpy(dtype=int),
         "sequence": sub["_sequence"].to_numpy(dtype=float),
@@ -484,7 +487,7 @@ def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None) ->
     data = data.rename(columns={cols["rater"]: "_rater", cols["case"]: "_case"})
     data = mark_repeats(data, out, spec.judgment.repeats)
     mode = data.attrs.get("repeats", "first-two")
-    check_trained(set(data["_rater"]), spec.trained, out)
+    check_trained(set(data["_rater"].unique()), spec.trained, out)
     if out.errors:
         return None
 

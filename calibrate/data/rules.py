@@ -28,9 +28,12 @@ MAX_LISTED = 8  # rows listed in one message before "and N more"
 MAX_ROW_MESSAGES = 50  # one message per row up to this many, then a count
 
 
+_DIGIT_RUNS = re.compile(r"(\d+)")
+
+
 def natural_key(text: str):
-    """Sort 'r2' before 'r10'."""
-    return [int(t) if t.isdigit() else t.lower() for t in re.split(r"(\d+)", str(text))]
+    """Sort 'r2' before 'r10' (called once per id: the pattern is compiled once)."""
+    return [int(t) if t.isdigit() else t.lower() for t in _DIGIT_RUNS.split(str(text))]
 
 
 def as_id(value) -> str | None:
@@ -71,7 +74,7 @@ def map_distinct(series: pd.Series, func) -> pd.Series:
     except TypeError:  # unhashable cells (lists in a result table): cell by cell
         return series.map(func)
     mapped = np.empty(len(uniques), dtype=object)
-    mapped[:] = [func(u) for u in uniques]
+    mapped[:] = [func(u) for u in uniques.tolist()]   # one bulk conversion, not one per value
     out = np.empty(len(series), dtype=object)
     found = codes >= 0
     out[found] = mapped[codes[found]]
@@ -91,10 +94,37 @@ def blank_missing_words(series: pd.Series, words: tuple[str, ...]) -> pd.Series:
     return series.mask(plain.isin(lowered))
 
 
+def _distinct_cells(series: pd.Series) -> tuple[np.ndarray, pd.Series] | None:
+    """``(codes, distinct)``: the series' distinct present values (same dtype) and each
+    cell's place among them (-1 for a missing cell); None for unhashable cells."""
+    try:
+        codes, uniques = pd.factorize(series, use_na_sentinel=True)
+    except TypeError:
+        return None
+    return codes, pd.Series(uniques, name=series.name)
+
+
+def _spread(per_distinct: pd.Series, codes: np.ndarray, like: pd.Series, missing) -> pd.Series:
+    """Values of the distinct cells put back on every cell; ``missing`` where a cell is empty."""
+    values = per_distinct.to_numpy()
+    out = np.where(codes >= 0, values[np.maximum(codes, 0)] if values.size else missing, missing)
+    return pd.Series(out.astype(values.dtype, copy=False), index=like.index, name=per_distinct.name)
+
+
 def to_numbers(series: pd.Series, missing_words: tuple[str, ...] = ()) -> tuple[pd.Series, pd.Series]:
     """Convert to float; return (values, mask of present-but-not-numeric). A cell holding one
     of ``missing_words`` is missing. Infinite and overflowing values (inf, 1e400) come back
-    as +-inf, for :func:`report_non_finite` to refuse."""
+    as +-inf, for :func:`report_non_finite` to refuse. A long table repeats its scores and
+    positions, so each distinct cell is converted once."""
+    split = _distinct_cells(series)
+    if split is None:
+        return _cells_to_numbers(series, missing_words)
+    codes, distinct = split
+    values, bad = _cells_to_numbers(distinct, missing_words)
+    return _spread(values, codes, series, np.nan), _spread(bad, codes, series, False)
+
+
+def _cells_to_numbers(series: pd.Series, missing_words: tuple[str, ...]) -> tuple[pd.Series, pd.Series]:
     series = blank_missing_words(series, missing_words)
     present = series.notna()
     values = pd.to_numeric(series.where(present), errors="coerce").astype(float)
@@ -256,6 +286,16 @@ def judgment_values(raw: pd.Series, labels: dict[str, float],
     """Judgments as numbers; words only through [judgment] labels (case and spaces ignored),
     and a label wins over a missing word of the same spelling. Returns (values, mask of
     present judgments)."""
+    split = _distinct_cells(raw)
+    if split is None:
+        return _cells_judgment_values(raw, labels, missing_words)
+    codes, distinct = split
+    values, present = _cells_judgment_values(distinct, labels, missing_words)
+    return _spread(values, codes, raw, np.nan), _spread(present, codes, raw, False)
+
+
+def _cells_judgment_values(raw: pd.Series, labels: dict[str, float],
+                           missing_words: tuple[str, ...]) -> tuple[pd.Series, pd.Series]:
     lookup = {" ".join(k.split()).lower(): v for k, v in labels.items()}
     words = _plain(raw)
     mapped = words.map(lookup) if lookup else pd.Series(np.nan, index=raw.index)
@@ -561,10 +601,12 @@ def mark_repeats(data: pd.DataFrame, out: Collector, mode: str | None = "first-t
     data["_order"] = np.arange(len(data))
     sort_cols = [PHASE, "_rater", "_sequence", "_order"]
     data = data.sort_values(sort_cols, kind="mergesort", na_position="last")
-    data["_nth"] = data.groupby([PHASE, "_rater", "_case"], dropna=False).cumcount()
+    showings = data.groupby([PHASE, "_rater", "_case"], dropna=False, sort=False)  # keyed once
+    data["_nth"] = showings.cumcount()
     # how often the case was put before the rater in all, counted before later ones are
     # dropped, so that a report can state the true number of presentations
-    data["_shown"] = data.groupby([PHASE, "_rater", "_case"], dropna=False)["_nth"].transform("size")
+    group = showings.ngroup().to_numpy()
+    data["_shown"] = np.bincount(group)[group] if group.size else np.zeros(0, dtype=np.intp)
     mode = repeat_mode(int(data["_shown"].max()) if len(data) else 0, mode)
     third = data["_nth"] >= 2
     if third.any():
