@@ -331,11 +331,18 @@ class RaterReport:
         for term, w in policy.weights.items():
             ci = policy.weight_intervals.get(term)
             ci_text = "n/a" if ci is None else f"{fmt(ci[0])} to {fmt(ci[1])}"
-            rows.append([text(term, CELL), text(fmt(w), CELL), text(ci_text, CELL),
+            rows.append([text(wording.term_words(term), CELL), text(fmt(w), CELL), text(ci_text, CELL),
                          text(fmt(policy.std_weights.get(term)), CELL)])
         table = fitted_table(rows, [150, 120, 110, CONTENT_WIDTH - 380], repeatRows=1)
         table.setStyle(table_style())
-        return KeepTogether([Spacer(1, 4), table])
+        notes = []
+        if any("=" in t for t in policy.weights):
+            notes.append("A category's weight ('cue: category') is measured against the cue's most common "
+                         "category.")
+        if any(t.endswith(":missing") for t in policy.weights):
+            notes.append("'(value missing)': the extra weight of a case whose value was missing (filled "
+                         "with the mean of the other cases).")
+        return KeepTogether([Spacer(1, 4), table] + ([text(" ".join(notes), SMALL)] if notes else []))
 
     def consistency(self) -> list:
         story = [CondPageBreak(200), text("How consistently the cues are used", HEADING)]
@@ -614,7 +621,7 @@ def suggestions(entry: RaterView, *, include_excluded: bool,
         if over:
             out.append(f"Read the rubric's guidance on {over}: your judgments lean on it more than intended.")
         if under:
-            out.append(f"Check how {under} is used: it carries less weight in your judgments than the rubric asks.")
+            out.append(f"Check how you use the cue {under}: it carries less weight in your judgments than the rubric asks.")
     cutoff = entry.cutoff
     if cutoff is not None and cutoff.flagged and cutoff.cue is not None:
         out.append(f"Look at files just either side of your step on {cutoff.cue}: would the rubric "

@@ -119,6 +119,17 @@ def fmt(value: float | None, digits: int = 2) -> str:
     return text
 
 
+def term_words(term: str) -> str:
+    """A model term as a reader reads it: 'test_score:missing' is 'test_score (value missing)',
+    'recommendation=mixed' is 'recommendation: mixed' (against the most common level)."""
+    if term.endswith(":missing"):
+        return f"{term[:-len(':missing')]} (value missing)"
+    if "=" in term:
+        cue, level = term.split("=", 1)
+        return f"{cue}: {level}"
+    return term
+
+
 def fmt_p(value: float | None) -> str:
     """A p-value as printed in every report: three decimals, and '<0.001' below that
     (never '0.000', which would claim an impossible p of zero)."""
