@@ -64,6 +64,10 @@ def slope_panel(title: str, phases: Sequence[str], lines: Sequence[tuple[Sequenc
     if hi - lo < 1e-9:
         lo, hi = lo - 0.05, hi + 0.05
     ticks = _nice_ticks(lo, hi, 3)
+    while len(ticks) < 2:  # a narrow range: widen it until at least two labelled lines show the scale
+        span = hi - lo
+        lo, hi = lo - span / 4, hi + span / 4
+        ticks = _nice_ticks(lo, hi, 3)
     lo, hi = min(lo, ticks[0]), max(hi, ticks[-1])
     top_pad = 24.0
     x0, x1 = 30.0, width - 10.0

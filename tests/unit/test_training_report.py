@@ -190,3 +190,15 @@ def test_every_directed_metric_has_task_words(metric):
     sentence = rater_change_sentence(metric, {"from": "a", "to": "b", "value_from": 0.5, "value_to": 0.6,
                                               "delta": 0.1, "ci_low": 0.05, "ci_high": 0.15})
     assert sentence.startswith("From a to b, your ") or sentence.startswith("From a to b, the weight")
+
+
+def test_a_slope_panel_over_a_narrow_range_still_labels_two_lines():
+    # a range such as R_s 0.71 to 0.89 once gave a single labelled line, so the slopes could
+    # not be read against the scale
+    from reportlab.graphics.shapes import String
+
+    from calibrate.report.training_charts import slope_panel
+
+    d = slope_panel("R_s", ("before", "after"), [((0.71, 0.89), True), ((0.75, 0.85), False)], width=160)
+    labels = [s.text for s in d.contents if isinstance(s, String) and s.text.replace(".", "").replace("-", "").isdigit()]
+    assert len(labels) >= 2, labels
