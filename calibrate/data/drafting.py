@@ -178,9 +178,10 @@ def _per_case_values(table: pd.DataFrame, cases: pd.DataFrame | None, case_col: 
     """One row per judged case: the judgments table's leftover columns (first value per case)
     or the cases table restricted to the judged cases."""
     if cases is not None:
-        judged = set(table[case_col].dropna().astype(str)) if case_col else set()
-        keys = cases[case_col].astype(str) if case_col in cases.columns else pd.Series([], dtype=str)
-        return cases.loc[keys.isin(judged).to_numpy(), columns] if judged else cases[columns]
+        if case_col is None:
+            return cases[columns]
+        judged = set(table[case_col].dropna().astype(str))
+        return cases.loc[cases[case_col].astype(str).isin(judged).to_numpy(), columns]
     if case_col is None:
         return table[columns]
     return table.drop_duplicates(subset=[case_col])[columns]
@@ -202,8 +203,7 @@ def _criterion_lines(table, cases, case_col, criterion) -> list[str]:
 
 def _cue_lines(cues, left_out, sensitive) -> list[str]:
     """The draft's [cues] (with the columns left out and why), rubric hint and [excluded]."""
-    lines: list[str] = []
-    lines += ["", "[cues]   # CHECK: numeric or categorical; remove columns that are not cues"]
+    lines = ["", "[cues]   # CHECK: numeric or categorical; remove columns that are not cues"]
     for name, kind, missing in cues:
         if missing:
             lines.append(f"{_q(name)} = {{ type = \"numeric\", missing = \"indicator\" }}  "
