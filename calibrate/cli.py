@@ -322,7 +322,7 @@ def audit(spec: Path, out: Path, overwrite: bool, seed: int | None, no_pdf: bool
             bar_pdf.update(done - bar_pdf.n)
 
         if jobs is None:
-            from .output.limits import available_cores
+            from .threads import available_cores
 
             jobs = available_cores()
         try:

@@ -1,4 +1,5 @@
-"""Run the batched linear algebra on one BLAS thread.
+"""Threads and cores: the batched linear algebra on one BLAS thread, and the cores the
+process may use for its worker processes (``--jobs``).
 
 The analyses make many small matrix products and solves, batched over raters and
 resamples (an 8 x 8 system, a 500 x 200 by 200 x 66 product). For these, the BLAS
@@ -11,6 +12,7 @@ The process stays free to run the rater PDFs in parallel (``--jobs``).
 from __future__ import annotations
 
 import contextlib
+import os
 
 
 def one_blas_thread():
@@ -20,3 +22,11 @@ def one_blas_thread():
     except ImportError:  # the limit only saves time; the numbers are the same without it
         return contextlib.nullcontext()
     return threadpool_limits(limits=1, user_api="blas")
+
+
+def available_cores() -> int:
+    """The cores this process may run on (its CPU affinity, not the machine's count)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # pragma: no cover - platforms without affinity masks
+        return max(1, os.cpu_count() or 1)

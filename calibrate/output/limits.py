@@ -106,11 +106,3 @@ def space_refusal(table, folder, shown, *, pdf: bool) -> str | None:
     return (f"the disk holding {shown} has {free / 1e6:.1f} MB free, and the results of this study "
             f"need about {need / 1e6:.1f} MB; the audit was not started. Free some space, or "
             "choose another --out" + (" (or add --no-pdf, which needs less)." if pdf else "."))
-
-
-def available_cores() -> int:
-    """The cores this process may run on (its CPU affinity, not the machine's count)."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # pragma: no cover - platforms without affinity
-        return max(1, os.cpu_count() or 1)

@@ -106,7 +106,7 @@ def build_reports(result: Any, out_dir: str | Path, *, jobs: int = 1, include_ex
     result : an AuditResult, the results.json dictionary, or a ReportInput.
     out_dir : the folder to write into (created if needed); each file is written atomically.
     jobs : worker processes for the reports (1: build in this process; see
-        :func:`calibrate.output.limits.available_cores` for the command line's default).
+        :func:`calibrate.threads.available_cores` for the command line's default).
     include_excluded : show the excluded-attribute check in each rater's own report.
     progress : called as ``progress(done, total, file_name)`` after each file is written.
     panel : also write the panel summary.

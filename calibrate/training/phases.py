@@ -42,6 +42,7 @@ from ..data.rules import natural_key
 from ..data.rows import JudgmentRows, line_up, standard_deviations
 from ..lens.rubric import _cue_shares, _validate_rubric
 from ..result_base import ResultMixin, jsonable
+from ..threads import available_cores
 from .panel_change import detectable_change, detectable_correlation_change
 from .tests_of_change import (ancova_difference, bootstrap_difference, fisher_z_difference,
                               normal_difference, paired_tests, welch_difference)
@@ -925,16 +926,6 @@ def _cases_of(table: JudgmentTable, phase: str, raters: list[str]) -> frozenset:
     """The cases that these raters judged first in a phase."""
     first = table.phase(phase).first
     return frozenset(first.loc[first["rater"].isin(raters), "case"])
-
-
-def available_cores() -> int:
-    """Cores this process may use (the affinity mask where the system has one)."""
-    import os
-
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # not every system has affinity masks
-        return max(1, os.cpu_count() or 1)
 
 
 def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000,
