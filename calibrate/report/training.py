@@ -57,10 +57,14 @@ def _absent(section: str) -> list:
 # ----------------------------------------------------------------------------- words
 
 
-def signed(value: float | None, digits: int = 2) -> str:
-    """A change as printed: '+0.12', '-0.05', '0.00'; 'n/a' when missing."""
+def signed(value: float | None, digits: int = 2, *, end: bool = False) -> str:
+    """A change as printed: '+0.12', '-0.05', '0.00'; 'n/a' when missing. An interval's
+    ``end`` that is not zero takes up to two more decimals rather than print as '0.00', so an
+    interval that excludes zero (and carries a verdict) never looks as if it touched it."""
     if value is None:
         return "n/a"
+    while end and value != 0 and digits < 4 and float(f"{value:.{digits}f}") == 0:
+        digits += 1
     out = f"{value:+.{digits}f}"
     return out[1:] if float(out) == 0 else out
 
@@ -68,7 +72,7 @@ def signed(value: float | None, digits: int = 2) -> str:
 def _interval(lo, hi) -> str:
     if lo is None and hi is None:
         return "(no interval)"
-    return f"[{signed(lo)}, {signed(hi)}]"
+    return f"[{signed(lo, end=True)}, {signed(hi, end=True)}]"
 
 
 def _word(verdict: str | None) -> str:
@@ -115,8 +119,9 @@ def effect_table(view: ComparisonView) -> list:
     first, last = view.phases[0], view.phases[-1]
     panel = view.panel
     detect = panel.detectable or {}
-    head = ["measure", "trained change"] + (["control change", "trained minus controls", "ANCOVA"]
-                                            if view.has_control else ["95% interval"]) + ["could detect"]
+    head = ["measure", "trained change"] + (
+        ["control change", "trained minus controls", "same, allowing for the start"]
+        if view.has_control else ["95% interval"]) + ["could detect"]
     rows = [[text(h, CELL_BOLD) for h in head]]
     for m in view.metrics:
         arms = panel.metrics.get(m, {})
@@ -144,8 +149,8 @@ def effect_table(view: ComparisonView) -> list:
     story = [text(f"From {first} to {last}", HEADING),
              fitted_table(rows, [w * CONTENT_WIDTH for w in widths], style=table_style(), repeatRows=1)]
     method = ("Trained minus controls: the trained raters' mean change minus the controls' (difference in "
-              "differences, Welch's t on the per-rater changes); ANCOVA holds each rater's starting value "
-              "constant. " if view.has_control else
+              "differences, Welch's t on the per-rater changes). 'Same, allowing for the start' compares "
+              "the arms as if every rater had started at the same value (an analysis of covariance, ANCOVA). " if view.has_control else
               "Mean change across raters, paired t interval. ")
     method += ("'Could detect': the smallest effect this design would see 80% of the time (5% two-sided); "
                "a 'no clear change' is no evidence of no effect when the figure there is large."
@@ -301,7 +306,9 @@ def agreement_and_groups(view: ComparisonView) -> list:
         line = "Groups of raters who weigh the cues alike: " + ", ".join(
             f"{ph} {'n/a' if counts.get(ph) is None else counts[ph]}" for ph in view.phases) + "."
         for s in steps:
-            rand = "" if s.adjusted_rand is None else f" (adjusted Rand index {wording.fmt(s.adjusted_rand)})"
+            rand = ("" if s.adjusted_rand is None else
+                    f" (overlap of the two groupings {wording.fmt(s.adjusted_rand)}, where 1 means the same "
+                    "groups and 0 what chance gives: the adjusted Rand index)")
             line += (f" From {s.from_phase} to {s.to_phase} groups {'merged' if s.merged else 'did not merge'}"
                      f"{rand}.")
         story.append(text(line, BODY))
@@ -352,8 +359,8 @@ def detectable_table(view: ComparisonView) -> list:
             reading = (f"this design could only have seen a change of {wording.fmt(panel)} or larger; "
                        "a smaller one may be hidden")
         elif word == "mixed":
-            reading = (f"mixed: the difference in changes and the ANCOVA estimate disagree, so no change is "
-                       f"credited; this design could see a change of {wording.fmt(panel)} or larger")
+            reading = (f"mixed: the difference in changes and the estimate allowing for the start disagree, "
+                       f"so no change is credited; this design could see a change of {wording.fmt(panel)} or larger")
         elif ch.delta is not None and abs(ch.delta) < panel:
             reading = (f"the change is clear ({word}), though smaller than the {wording.fmt(panel)} this "
                        "design would see 80% of the time")

@@ -49,10 +49,14 @@ def change_word(metric: str, ci_low: float | None, ci_high: float | None) -> str
     return "better" if up == (direction > 0) else "worse"
 
 
-def signed(value: float | None, digits: int = 2) -> str:
-    """A change as printed: '+0.12', '-0.05', '0.00'; 'n/a' when missing."""
+def signed(value: float | None, digits: int = 2, *, end: bool = False) -> str:
+    """A change as printed: '+0.12', '-0.05', '0.00'; 'n/a' when missing. An interval's
+    ``end`` that is not zero takes up to two more decimals rather than print as '0.00', so an
+    interval that excludes zero (and carries a verdict) never looks as if it touched it."""
     if not _finite(value):
         return "n/a"
+    while end and value != 0 and digits < 4 and float(f"{value:.{digits}f}") == 0:
+        digits += 1
     out = f"{value:+.{digits}f}"
     return out[1:] if float(out) == 0 else out
 
@@ -247,7 +251,7 @@ def rater_change_sentence(metric: str, change: Mapping) -> str:
     out = (f"From {change.get('from')} to {change.get('to')}, {words}: {label} {plain(change.get('value_from'))} "
            f"-> {plain(change.get('value_to'))}, change{ADJUSTED_NOTE if metric == 'r' else ''} "
            f"{signed(change.get('delta'))}, 95% interval "
-           f"{signed(change.get('ci_low'))} to {signed(change.get('ci_high'))}.")
+           f"{signed(change.get('ci_low'), end=True)} to {signed(change.get('ci_high'), end=True)}.")
     if change.get("note"):
         out += f" Note: {change['note']}."
     return out

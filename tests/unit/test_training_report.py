@@ -202,3 +202,16 @@ def test_a_slope_panel_over_a_narrow_range_still_labels_two_lines():
     d = slope_panel("R_s", ("before", "after"), [((0.71, 0.89), True), ((0.75, 0.85), False)], width=160)
     labels = [s.text for s in d.contents if isinstance(s, String) and s.text.replace(".", "").replace("-", "").isdigit()]
     assert len(labels) >= 2, labels
+
+
+def test_an_interval_end_that_is_not_zero_never_prints_as_zero():
+    # A "better" change whose interval is [0.004, 0.09] must not read "[0.00, +0.09]".
+    from calibrate.report.training import _interval
+    from calibrate.training.verdicts import rater_change_sentence, signed
+    assert _interval(0.004, 0.09) == "[+0.004, +0.09]"
+    assert signed(-0.0003, end=True) == "-0.0003"
+    assert signed(0.0, end=True) == "0.00"
+    sentence = rater_change_sentence("r", {"from": "before", "to": "after", "value_from": 0.6,
+                                           "value_to": 0.7, "delta": 0.05, "ci_low": 0.002,
+                                           "ci_high": 0.09, "verdict": "better"})
+    assert "+0.002 to +0.09" in sentence
