@@ -29,8 +29,10 @@ What is checked, and against what:
   (2011) units read by all four coders and on simulated panels. Verified: ``p_a``,
   ``\\sum_k \\pi_k^2`` (all that AC1's chance term needs) and the algebra. Resting on
   the written definition: AC1's form and its chance term ``p_e`` as Gwet (2008), Br. J.
-  Math. Stat. Psychol. 61:29-48, gives them (his two-rater definition, ``\\pi_k`` the
-  mean of the two raters' margins).
+  Math. Stat. Psychol. 61:29-48, gives them for two raters (``\\pi_k`` the mean of the
+  two raters' margins, next item). That the same form with Fleiss' ``p_a`` and
+  ``\\pi_k`` is his AC1 for more than two raters is as we recall the paper (from
+  memory, not checked here).
 - *Two readers on every case* (any two, a different pair from case to case): a case's
   agreement share is 1 if its two readers agree and 0 if not, and its category share the
   mean of the two readers' choices, so the form above equals Gwet's (2008) two-rater AC1

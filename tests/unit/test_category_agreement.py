@@ -134,7 +134,7 @@ def test_leave_one_out_shortcut_equals_refitting_without_each_case():
 
 
 def test_bca_interval_covers_on_few_cases_seeded_small_version():
-    # the small seeded version of benchmarks/bench_category_agreement_coverage.py (400 panels
+    # the small seeded version of benchmarks/bench_category_agreement_coverage.py (1,000 panels
     # there): 1-7 with a ceiling, 30 cases each read by 3 of 6 raters, 80 panels here
     from scipy import stats
 
