@@ -13,15 +13,40 @@ and ``r_ik`` of them choosing category ``k`` (``q`` categories):
     AC_1 = \\frac{p_a - p_e}{1 - p_e}, \\quad p_e = \\frac{1}{q - 1} \\sum_k \\pi_k (1 - \\pi_k)
 
 ``n'`` counts the cases with two or more readers (the only ones with a pair to
-agree), ``n`` every case with a reader. With the same number of readers on every
-case (whoever they are, as Fleiss 1971 allows) this is Fleiss' kappa exactly; with
-a varying number it is the generalisation in Gwet's *Handbook of Inter-Rater
-Reliability* (multiple raters, missing ratings), which we apply from memory of the
-handbook: the unit test checks it against a plain loop over cases written from the
-formula above and against Fleiss' own figure on complete data, not against the book.
-AC1 is Gwet (2008), Br. J. Math. Stat. Psychol. 61:29-48; its chance term is the
-share of disagreement expected if a rater chose at random among the ``q``
-categories for the cases that are hard to classify.
+agree), ``n`` every case with a reader. ``r_{ik}(r_{ik} - 1) / (r_i (r_i - 1))`` is the
+share of the case's reader pairs that chose the same category, so ``p_a`` is the mean,
+over cases, of each case's share of agreeing pairs, and ``\\pi_k`` the mean, over cases,
+of each case's share of readers choosing ``k``.
+
+What is checked, and against what:
+
+- *The same number of readers on every case* (whoever they are, as Fleiss 1971 allows):
+  this is Fleiss' formula exactly, and kappa equals statsmodels' ``fleiss_kappa``. For
+  AC1, statsmodels' Randolph kappa ``(p_a - 1/q)/(1 - 1/q)`` gives ``p_a`` and its Fleiss
+  kappa then gives ``\\sum_k \\pi_k^2``; since the ``\\pi_k`` sum to one,
+  ``\\sum_k \\pi_k (1 - \\pi_k) = 1 - \\sum_k \\pi_k^2``, so AC1 follows from those two
+  numbers alone and matches ours to 1e-12 on Fleiss' (1971) table, on Krippendorff's
+  (2011) units read by all four coders and on simulated panels. Verified: ``p_a``,
+  ``\\sum_k \\pi_k^2`` (all that AC1's chance term needs) and the algebra. Resting on
+  the written definition: AC1's form and its chance term ``p_e`` as Gwet (2008), Br. J.
+  Math. Stat. Psychol. 61:29-48, gives them for two raters (``\\pi_k`` the mean of the
+  two raters' margins, next item). That the same form with Fleiss' ``p_a`` and
+  ``\\pi_k`` is his AC1 for more than two raters is as we recall the paper (from
+  memory, not checked here).
+- *Two readers on every case* (any two, a different pair from case to case): a case's
+  agreement share is 1 if its two readers agree and 0 if not, and its category share the
+  mean of the two readers' choices, so the form above equals Gwet's (2008) two-rater AC1
+  on the pooled (q x q) table of the pairs, exactly; the tests check it to 1e-12 on Cohen's
+  (1968) table and on simulated pairs.
+- *A varying number of readers* (one case read by two, another by five): cases weigh
+  the same in ``p_a`` and in ``\\pi_k`` however many read them. This is **our own rule**:
+  it reduces to the two verified forms above, and we believe it is the generalisation
+  in Gwet's *Handbook of Inter-Rater Reliability* (multiple raters, missing ratings), but
+  that is from memory and was not checked against the book. Pooling reader pairs
+  instead (weighting a case by its number of pairs) is the obvious alternative; it gives
+  a different value in general. The unit tests check the code against this rule written
+  out a second way (a loop over cases; agreeing pairs counted one by one on
+  Krippendorff's data), which tests the code, not the rule. Fleiss' kappa uses the same rule.
 
 The categories are those of the scale (every whole value between its ends on an
 ordinal scale, 0 and 1 on a binary one), so a category nobody used still counts in
@@ -122,15 +147,16 @@ def _leave_one_out(agree: np.ndarray, shares: np.ndarray, rated: np.ndarray) -> 
 
 
 def fleiss_kappa(counts) -> float:
-    """Fleiss' (1971) kappa from a (cases x categories) table of reader counts (varying readers
-    per case allowed, see the module notes)."""
+    """Fleiss' (1971) kappa from a (cases x categories) table of reader counts (a varying number of
+    readers per case follows our own rule, see the module notes)."""
     counts = _check_counts(counts)
     agree, shares, rated = _case_terms(counts)
     return float(_coefficients(agree, shares, rated, np.ones((1, counts.shape[0])))[0][0])
 
 
 def gwet_ac1(counts) -> float:
-    """Gwet's (2008) AC1 from a (cases x categories) table of reader counts."""
+    """Gwet's (2008) AC1 from a (cases x categories) table of reader counts (a varying number of
+    readers per case follows our own rule, see the module notes)."""
     counts = _check_counts(counts)
     agree, shares, rated = _case_terms(counts)
     return float(_coefficients(agree, shares, rated, np.ones((1, counts.shape[0])))[1][0])

@@ -79,7 +79,8 @@ METHODS = (
      "Shrout & Fleiss (1979); McGraw & Wong (1996)"),
     ("Krippendorff's alpha", "agreement beyond chance at the scale's level", "Krippendorff (2011)"),
     ("Fleiss' kappa, Gwet's AC1", "agreement on the exact category beyond chance (ordinal and binary "
-     "scales); interval by case bootstrap", "Fleiss (1971); Gwet (2008)"),
+     "scales); interval by case bootstrap; with a varying number of readers per file, every file "
+     "weighs the same (our own rule)", "Fleiss (1971); Gwet (2008)"),
     ("Readers per file", "generalizability variance components and a D-study",
      "Cronbach et al. (1972); Brennan (2001)"),
     ("Where two readers part ways", "interpersonal lens: agreement split into matching G and consistency",

@@ -31,3 +31,21 @@ def test_bad_weights_raise():
         weighted_kappa(TABLE, weights="cubic")
     with pytest.raises(DataError, match="square"):
         weighted_kappa(TABLE[:2])
+
+
+def test_two_rater_ac1_on_the_same_table_equals_the_multi_reader_form():
+    # Cohen prints no AC1: Gwet's (2008) two-rater AC1 computed from the 3 x 3 table directly
+    # (tests/category_identities.py) against calibrate's multi-reader form on the 100 cases
+    # the table describes (two readers each), which must reduce to it exactly
+    from calibrate.agreement.categories import gwet_ac1
+    from tests.category_identities import two_rater_ac1
+
+    cells = np.rint(TABLE * 100).astype(int)
+    rows = []
+    for (first, second), n in np.ndenumerate(cells):
+        row = np.zeros(3)
+        row[first] += 1
+        row[second] += 1
+        rows += [row] * n
+    assert len(rows) == 100
+    assert gwet_ac1(np.array(rows)) == pytest.approx(two_rater_ac1(TABLE), rel=0, abs=1e-12)

@@ -5,6 +5,9 @@ each diagnosis (depression, personality disorder, schizophrenia, neurosis, other
 the 30 x 6 diagnoses table of statsmodels' test suite (statsmodels/stats/tests/
 test_inter_rater.py, marked "Fleiss 1971"), counted per diagnosis. Fleiss prints kappa = .430;
 statsmodels.stats.inter_rater.fleiss_kappa gives 0.43024 on the same counts.
+Fleiss prints no AC1; it is checked against statsmodels' Fleiss and Randolph kappas by
+exact identities (tests/category_identities.py says which steps are algebra and which
+rest on Gwet's 2008 definition).
 """
 
 import numpy as np
@@ -13,6 +16,7 @@ import pytest
 from statsmodels.stats.inter_rater import fleiss_kappa as statsmodels_fleiss_kappa
 
 from calibrate.agreement.categories import category_agreement, fleiss_kappa, gwet_ac1
+from tests.category_identities import ac1_from_statsmodels
 
 COUNTS = np.array([
     [0, 0, 0, 6, 0], [0, 3, 0, 0, 3], [0, 1, 4, 0, 1], [0, 0, 0, 0, 6], [0, 3, 0, 3, 0],
@@ -52,6 +56,11 @@ def test_ac1_matches_a_computation_from_gwet_2008_formula():
     pi = [sum(row[k] / 6 for row in COUNTS) / n for k in range(q)]
     p_e = sum(p * (1 - p) for p in pi) / (q - 1)
     assert gwet_ac1(COUNTS) == pytest.approx((p_a - p_e) / (1 - p_e), rel=1e-12)
+
+
+def test_ac1_matches_statsmodels_by_identity():
+    # p_a from statsmodels' Randolph kappa, sum pi_k^2 from its Fleiss kappa (Fleiss 1971's table)
+    assert gwet_ac1(COUNTS) == pytest.approx(ac1_from_statsmodels(COUNTS), rel=0, abs=1e-12)
 
 
 def test_panel_coefficients_from_the_long_table():

@@ -1,9 +1,11 @@
 """Fleiss' kappa and Gwet's AC1 on incomplete designs and at their edges.
 
-Independent checks: statsmodels' fleiss_kappa where every case has the same number of
-readers (different readers per case, as Fleiss 1971 allows), and a plain loop over cases
-written from the generalised formulas (module notes of calibrate.agreement.categories)
-where the number of readers varies.
+Independent checks: statsmodels' fleiss_kappa (and, for AC1, its Fleiss and Randolph
+kappas by identity, tests/category_identities.py) where every case has the same number of
+readers (different readers per case, as Fleiss 1971 allows); Gwet's (2008) two-rater AC1
+on the pooled table where every case has two readers, whoever they are; and a plain loop
+over cases written from the varying-readers rule (module notes of
+calibrate.agreement.categories) where the number of readers varies.
 """
 
 import numpy as np
@@ -14,6 +16,7 @@ from statsmodels.stats.inter_rater import fleiss_kappa as statsmodels_fleiss_kap
 from calibrate.agreement.categories import category_agreement, category_counts, fleiss_kappa, gwet_ac1
 from calibrate.agreement.icc import panel_agreement
 from calibrate.errors import CalibrateError
+from tests.category_identities import ac1_from_statsmodels, two_rater_ac1
 
 
 def _panel(readers_per_case, n_cases=40, n_raters=6, seed=5):
@@ -46,6 +49,34 @@ def _loop(counts, q):
 def test_same_number_of_readers_matches_statsmodels():
     counts, _ = category_counts(*_panel(3)[["case", "judgment"]].to_numpy().T, categories=range(1, 8))
     assert fleiss_kappa(counts) == pytest.approx(statsmodels_fleiss_kappa(counts), rel=1e-12)
+
+
+def test_same_number_of_readers_ac1_matches_statsmodels_by_identity():
+    for readers in (2, 3, 6):
+        data = _panel(readers)
+        counts, _ = category_counts(data["case"], data["judgment"], categories=range(1, 8))
+        assert gwet_ac1(counts) == pytest.approx(ac1_from_statsmodels(counts), rel=0, abs=1e-12)
+
+
+def test_two_readers_per_case_is_gwet_2008_two_rater_ac1_on_the_pooled_table():
+    # every case read by two of six raters, a different pair from case to case; the pairs
+    # pooled into one 7 x 7 table (first-listed reader in the rows; the order does not matter)
+    data = _panel(2, n_cases=60)
+    pairs = data.groupby("case")["judgment"].agg(list)
+    pooled = pd.crosstab(pairs.str[0], pairs.str[1]).reindex(index=range(1, 8), columns=range(1, 8),
+                                                               fill_value=0)
+    counts, _ = category_counts(data["case"], data["judgment"], categories=range(1, 8))
+    assert data.groupby("case")["rater"].agg(frozenset).nunique() > 5
+    assert gwet_ac1(counts) == pytest.approx(two_rater_ac1(pooled.to_numpy()), rel=0, abs=1e-12)
+    assert gwet_ac1(counts) == pytest.approx(two_rater_ac1(pooled.to_numpy().T), rel=0, abs=1e-12)
+
+
+def test_equal_category_shares_make_ac1_kappa_and_randolph_one_number():
+    # pi_k = 1/q for every k: all three chance terms are 1/q
+    counts = np.array([[2, 1, 0], [0, 2, 1], [1, 0, 2], [3, 0, 0], [0, 3, 0], [0, 0, 3]])
+    randolph = statsmodels_fleiss_kappa(counts, method="randolph")
+    assert gwet_ac1(counts) == pytest.approx(randolph, rel=0, abs=1e-12)
+    assert fleiss_kappa(counts) == pytest.approx(randolph, rel=0, abs=1e-12)
 
 
 def test_varying_readers_match_the_loop():
@@ -103,7 +134,7 @@ def test_leave_one_out_shortcut_equals_refitting_without_each_case():
 
 
 def test_bca_interval_covers_on_few_cases_seeded_small_version():
-    # the small seeded version of benchmarks/bench_category_agreement_coverage.py (400 panels
+    # the small seeded version of benchmarks/bench_category_agreement_coverage.py (1,000 panels
     # there): 1-7 with a ceiling, 30 cases each read by 3 of 6 raters, 80 panels here
     from scipy import stats
 
