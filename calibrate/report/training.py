@@ -324,7 +324,10 @@ def cue_shift(view: ComparisonView) -> list:
     cues = list(shift)
     has_control = any(s.control is not None for s in shift.values())
     story.append(text(f"Each cue's share of the weight (shares sum to 1): the arrow runs from the mean share in "
-                      f"{first} to the mean share in {last}; the diamond marks the rubric's share.", SMALL))
+                      f"{first} to the mean share in {last}; the diamond marks the rubric's share. On the right, "
+                      "whether each trained rater's own share came closer to the rubric's or went further "
+                      "from it (a paired 95% interval of the change in distance that excludes zero); the "
+                      "mean arrow can move little while the raters close in from both sides.", SMALL))
     story.append(training_charts.cue_shift_chart(
         cues, rubric={c: shift[c].rubric_share for c in cues},
         trained={c: (shift[c].trained.get(first), shift[c].trained.get(last)) for c in cues},

@@ -157,7 +157,7 @@ def cue_shift_chart(cues: Sequence[str], *, rubric: Mapping[str, float | None],
         d.add(Line(x_of(t), axis_h, x_of(t), top, strokeColor=RULE, strokeWidth=0.4))
         d.add(String(x_of(t), axis_h - 9, fmt(t, 2), fontName=BASE_FONT, fontSize=LABEL_SIZE - 0.5,
                      fillColor=MUTED, textAnchor="middle"))
-    d.add(String(x1 + (right_w - 6) / 2 + 6, axis_h - 9, "trained moved", fontName=BASE_FONT,
+    d.add(String(x1 + (right_w - 6) / 2 + 6, axis_h - 9, "each trained rater", fontName=BASE_FONT,
                  fontSize=LABEL_SIZE - 0.5, fillColor=MUTED, textAnchor="middle"))
     for i, cue in enumerate(cues):
         y_mid = top - (i + 0.5) * row_h
@@ -181,10 +181,12 @@ def cue_shift_chart(cues: Sequence[str], *, rubric: Mapping[str, float | None],
             a, b = control.get(cue, (None, None))
             if _ok(a) and _ok(b):
                 _arrow(d, x_of(a), x_of(b), y_c, False)
-        word = {True: "toward the rubric", False: "away from it"}.get(toward.get(cue), "")
-        if word:
+        # The words test each trained rater's own distance to the rubric's share (paired), which
+        # can shrink while the mean arrow barely moves (raters closing in from both sides).
+        if _ok(r):
+            word = {True: "closer to it", False: "further from it"}.get(toward.get(cue), "no clear change")
             d.add(String(x1 + 8, y_t - 2.5, word, fontName=BASE_FONT, fontSize=LABEL_SIZE - 0.5,
-                         fillColor=INK if toward.get(cue) else MUTED))
+                         fillColor=INK if toward.get(cue) is not None else MUTED))
     return d
 
 
