@@ -1,6 +1,8 @@
 """Size and coverage of the tests behind `calibrate compare` (figures in DEVELOPERS.md).
 
-Run: PYTHONPATH=. python benchmarks/bench_training.py [--quick]
+Run: PYTHONPATH=. python benchmarks/bench_training.py [--quick] [--rs-only] [--size-pairs N]
+(--rs-only: part 2 alone; --size-pairs: rater pairs of phases for the size under no change
+in part 2, 500 by default)
 
 1. Fisher z on two retest correlations with no true change: share of p < .05 over 2,000
    comparisons (1-7 ratings with a ceiling; 25 vs 40 pairs, and 12 vs 12).
@@ -9,7 +11,9 @@ Run: PYTHONPATH=. python benchmarks/bench_training.py [--quick]
 2. The case-bootstrap interval of a change in R_s: coverage of the true change and size
    under no change over 500 simulated rater pairs of phases (1-7 with ceiling 60 vs 60
    cases, few cases 25 vs 25, unequal 40 vs 120 and 120 vs 40, binary 80 vs 80), on
-   Wherry's adjusted R_s as `compare` reads it, with the raw R_s beside for 40 vs 120.
+   Wherry's adjusted R_s as `compare` reads it (each phase's interval on Fisher's z scale,
+   combined by Zou's method), with the percentile interval of the difference of draws
+   (the method before) and the raw R_s beside for 40 vs 120.
 3. Difference in differences (Welch t on per-rater changes in adjusted R_s): coverage of
    the true effect over 200 simulated panels of 7 trained + 7 controls, and how often it
    includes zero when there is only a practice effect shared by both arms (100 panels).
@@ -35,7 +39,8 @@ from training_simulation import NOISE_GRID, judgments, population_rs, rows_for, 
 from calibrate.lens.model import dependent_correlation_test  # noqa: E402
 from calibrate.training.panel_change import detectable_change, detectable_correlation_change  # noqa: E402
 from calibrate.training.phases import _policy_draws, wherry_adjusted_r  # noqa: E402
-from calibrate.training.tests_of_change import (bootstrap_difference, fisher_z_difference,  # noqa: E402
+from calibrate.training.tests_of_change import (bootstrap_difference,  # noqa: E402
+                                                correlation_bootstrap_difference, fisher_z_difference,
                                                 welch_difference)
 
 P = 4  # cues of the simulated raters (training_simulation.WEIGHTS)
@@ -76,11 +81,15 @@ def fisher_size(rng, runs, n1, n2, noise=0.7):
 
 
 def rs_change(rng, pairs, n_a, n_b, noise_a, noise_b, n_boot, binary=False, chunk=50, adjusted=True,
-              truth=None):
-    """(true change, coverage, share p < .05, median detectable) of the R_s change interval."""
+              truth=None, methods=("fisher_z",)):
+    """(true change, coverage, share p < .05, median detectable) of the R_s change interval;
+    with several methods (``fisher_z`` as compare reads it, ``percentile`` as before), one
+    (coverage, share p < .05) per method, each on the same simulated raters."""
     if truth is None:
         truth = population_rs(noise_b, binary=binary) - population_rs(noise_a, binary=binary)
-    covered = rejected = total = 0
+    covered = dict.fromkeys(methods, 0)
+    rejected = dict.fromkeys(methods, 0)
+    total = dict.fromkeys(methods, 0)
     detectable = []
     for start in range(0, pairs, chunk):
         g = min(chunk, pairs - start)
@@ -88,13 +97,20 @@ def rs_change(rng, pairs, n_a, n_b, noise_a, noise_b, n_boot, binary=False, chun
         db = rs_draws(rng, [noise_b] * g, n_b, n_boot, binary=binary)
         if adjusted:
             da, db = wherry_adjusted_r(da, n_a, P), wherry_adjusted_r(db, n_b, P)
-        low, high, p = bootstrap_difference(da[:, 1:], db[:, 1:])
         detectable += [detectable_change(np.nanstd(d, ddof=1)) for d in db[:, 1:] - da[:, 1:]]
-        ok = np.isfinite(low)
-        covered += int(((low <= truth) & (truth <= high))[ok].sum())
-        rejected += int((p < 0.05)[ok].sum())
-        total += int(ok.sum())
-    return truth, covered / total, rejected / total, float(np.nanmedian(detectable))
+        for method in methods:
+            if method == "fisher_z":
+                low, high, p = correlation_bootstrap_difference(da[:, 0], da[:, 1:], db[:, 0], db[:, 1:])
+            else:
+                low, high, p = bootstrap_difference(da[:, 1:], db[:, 1:])
+            ok = np.isfinite(low)
+            covered[method] += int(((low <= truth) & (truth <= high))[ok].sum())
+            rejected[method] += int((p < 0.05)[ok].sum())
+            total[method] += int(ok.sum())
+    if len(methods) > 1:
+        return truth, {m: (covered[m] / total[m], rejected[m] / total[m]) for m in methods}
+    m = methods[0]
+    return truth, covered[m] / total[m], rejected[m] / total[m], float(np.nanmedian(detectable))
 
 
 def noise_for_rs(target, binary=False):
@@ -155,27 +171,44 @@ def did(rng, panels, *, practice=0.85, training=0.7, n=60, per_arm=7):
     return effect, covered / panels, zero_in / panels
 
 
+def rs_part(rng, scale, size_pairs):
+    """Part 2: size and coverage of the change in R_s, the method compare uses (Fisher z
+    within each phase, Zou's combination) beside the percentile interval of the difference
+    of draws (the method before), both on the same simulated raters."""
+    boot = 1000 // scale
+    both = ("fisher_z", "percentile")
+    for label, n_a, n_b, binary in (("1-7 ceiling", 60, 60, False), ("few cases", 25, 25, False),
+                                    ("unequal cases", 40, 120, False), ("unequal cases", 120, 40, False),
+                                    ("binary", 80, 80, True)):
+        _, null = rs_change(rng, size_pairs, n_a, n_b, 0.8, 0.8, boot, binary, methods=both)
+        truth, alt = rs_change(rng, 500 // scale, n_a, n_b, 0.9, 0.6, boot, binary, methods=both)
+        line = [f"{m}: size {null[m][1]:.3f} (no change covered {null[m][0]:.3f}); "
+                f"true change {truth:+.3f} covered {alt[m][0]:.3f}" for m in both]
+        print(f"R_s change (adjusted), {label} ({n_a} vs {n_b}): " + " | ".join(line), flush=True)
+    truth, cover, _, _ = rs_change(rng, 500 // scale, 40, 120, 0.9, 0.6, boot, adjusted=False,
+                                   methods=("percentile",))
+    print(f"R_s change (raw, percentile), 40 vs 120: true change {truth:+.3f} covered {cover:.3f}", flush=True)
+
+
 def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--quick", action="store_true")
+    parser.add_argument("--rs-only", action="store_true")
+    parser.add_argument("--size-pairs", type=int, default=500)
     args = parser.parse_args()
     rng = np.random.default_rng(20261202)
     scale = 5 if args.quick else 1
     t0 = time.perf_counter()
+    if args.rs_only:
+        rs_part(rng, scale, args.size_pairs // scale)
+        print(f"({time.perf_counter() - t0:.0f} s)")
+        return
     for n1, n2 in ((25, 40), (12, 12)):
         print(f"Fisher z size, retest pairs {n1} vs {n2}: {fisher_size(rng, 2000 // scale, n1, n2):.3f}")
     for n in (40, 120):
         print(f"Williams' T2 size, same {n} cases and outcome: {dependent_size(rng, 2000 // scale, n):.3f}")
+    rs_part(rng, scale, args.size_pairs // scale)
     boot = 1000 // scale
-    for label, n_a, n_b, binary in (("1-7 ceiling", 60, 60, False), ("few cases", 25, 25, False),
-                                    ("unequal cases", 40, 120, False), ("unequal cases", 120, 40, False),
-                                    ("binary", 80, 80, True)):
-        _, cover0, size, _ = rs_change(rng, 500 // scale, n_a, n_b, 0.8, 0.8, boot, binary)
-        truth, cover, _, _ = rs_change(rng, 500 // scale, n_a, n_b, 0.9, 0.6, boot, binary)
-        print(f"R_s change (adjusted) bootstrap, {label} ({n_a} vs {n_b}): size {size:.3f} "
-              f"(no change covered {cover0:.3f}); true change {truth:+.3f} covered {cover:.3f}")
-    truth, cover, _, _ = rs_change(rng, 500 // scale, 40, 120, 0.9, 0.6, boot, adjusted=False)
-    print(f"R_s change (raw, as before), 40 vs 120: true change {truth:+.3f} covered {cover:.3f}")
     print(detectable_power(rng, 500 // scale, boot))
     effect, cover, _ = did(rng, 200 // scale)
     print(f"Difference in differences (Welch), true effect {effect:+.3f}: covered {cover:.3f}")

@@ -12,9 +12,12 @@ variance components) and on a 1-7 scale with rounding and a ceiling (truth from 
 panel of 400 raters x 4,000 cases per phase).
 
 Convergence: 7 raters whose weights differ from a shared profile by N(0, 0.3) per cue,
-halved by the training; 60 cases of their own per phase, 1-7 with a ceiling. Coverage of
-the true change in the spread of share profiles and in the distance to the rubric (both
-from the true weights) over 200 pairs of phases, 400 resamples per phase.
+halved by the training; 60 cases of their own per phase, and 30 (fewer cases), 1-7 with a
+ceiling. Coverage of the true change in the spread of share profiles and in the distance
+to the rubric (both from the true weights) over 200 pairs of phases, 400 resamples per
+phase: the noise-corrected root-mean-square distances that compare reports, and
+beside them the uncorrected half-summed absolute differences with the percentile interval
+(the figures before).
 """
 
 from __future__ import annotations
@@ -34,7 +37,9 @@ from calibrate.agreement.offsets import crossed_layout, fit_additive  # noqa: E4
 from calibrate.agreement.readers import henderson_components  # noqa: E402
 from calibrate.data.rows import JudgmentRows  # noqa: E402
 from calibrate.training.panel_change import (agreement_draws, distance_to_rubric, draw_change,  # noqa: E402
-                                             pairwise_distance)
+                                             noise_corrected_distance_to_rubric, noise_corrected_spread,
+                                             pairwise_distance, root_distance_change,
+                                             pairwise_squared_distance, squared_distance_to_rubric)
 from calibrate.training.phases import _policy_draws  # noqa: E402
 
 PROFILE = np.array([0.8, 0.5, 0.3, 0.2])  # the shared weights, and the rubric's
@@ -61,18 +66,26 @@ def share_draws(rng, weights, n, noise=0.8, n_boot=400):
     return out["shares"]
 
 
-def convergence_coverage(rng, pairs, n=60):
+def convergence_coverage(rng, pairs, n=60, n_boot=400):
     rubric = PROFILE / PROFILE.sum()
-    figures = {"spread": pairwise_distance, "to rubric": lambda s: distance_to_rubric(s, rubric)}
-    hits = dict.fromkeys(figures, 0)
+    before = {"spread": pairwise_distance, "to rubric": lambda s: distance_to_rubric(s, rubric)}
+    now = {"spread": (noise_corrected_spread, pairwise_squared_distance),
+           "to rubric": (lambda s, d: noise_corrected_distance_to_rubric(s, d, rubric),
+                         lambda s: squared_distance_to_rubric(s, rubric))}
+    hits = {f"{k} {m}": 0 for k in before for m in ("now", "before")}
     for _ in range(pairs):
         deviation = rng.normal(0, 0.3, (7, 4))
         w_a, w_b = PROFILE + deviation, PROFILE + 0.5 * deviation
         true_a, true_b = (w / np.abs(w).sum(1, keepdims=True) for w in (w_a, w_b))
-        s_a, s_b = share_draws(rng, w_a, n), share_draws(rng, w_b, n)
-        for name, f in figures.items():
+        s_a, s_b = share_draws(rng, w_a, n, n_boot=n_boot), share_draws(rng, w_b, n, n_boot=n_boot)
+        for name, f in before.items():
             ch = draw_change(float(f(s_a[:, 0])), f(s_a[:, 1:]), float(f(s_b[:, 0])), f(s_b[:, 1:]), 0.95)
-            hits[name] += ch["ci_low"] <= float(f(true_b) - f(true_a)) <= ch["ci_high"]
+            hits[f"{name} before"] += ch["ci_low"] <= float(f(true_b) - f(true_a)) <= ch["ci_high"]
+        for name, (corrected, exact) in now.items():
+            (ea, da), (eb, db) = corrected(s_a[:, 0], s_a[:, 1:]), corrected(s_b[:, 0], s_b[:, 1:])
+            ch = root_distance_change(ea, da, eb, db, 0.95)
+            truth = float(np.sqrt(exact(true_b)) - np.sqrt(exact(true_a)))
+            hits[f"{name} now"] += ch["ci_low"] <= truth <= ch["ci_high"]
     return {k: v / pairs for k, v in hits.items()}
 
 CASE_SD, RATER_SD = 1.0, 0.4
@@ -127,9 +140,12 @@ def main() -> None:
         label = "1-7 with rounding" if ordinal else "continuous"
         print(f"{label}: ICC(A,1) change {d_icc:+.3f} covered {c_icc:.3f}; "
               f"alpha change {d_alpha:+.3f} covered {c_alpha:.3f} ({pairs} pairs)", flush=True)
-    cover = convergence_coverage(rng, pairs)
-    print(f"Convergence, 7 raters x 60 cases: spread of profiles covered {cover['spread']:.3f}; "
-          f"distance to the rubric covered {cover['to rubric']:.3f} ({pairs} pairs)")
+    for n in (60, 30):
+        cover = convergence_coverage(rng, pairs, n)
+        print(f"Convergence, 7 raters x {n} cases ({pairs} pairs), noise-corrected squared distances "
+              f"then rooted (as compare reports): spread of profiles covered {cover['spread now']:.3f}, distance to "
+              f"the rubric {cover['to rubric now']:.3f}; uncorrected (before): {cover['spread before']:.3f}, "
+              f"{cover['to rubric before']:.3f}", flush=True)
     print(f"({time.perf_counter() - t0:.0f} s)")
 
 

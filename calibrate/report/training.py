@@ -248,9 +248,10 @@ def convergence(view: ComparisonView) -> list:
     conv = view.panel.convergence
     if conv is None:
         return story + _absent("The spread of the raters' weight profiles")
-    story.append(text("Lower is closer: the spread is the mean distance between the raters' standardized "
-                      "weight profiles; the distance to the rubric is the raters' mean distance from the "
-                      "rubric's weights. Lines: the arm's figure in each phase.", SMALL))
+    story.append(text("Lower is closer: the spread is a typical distance between two raters' profiles of "
+                      "cue shares; the distance to the rubric is a typical distance of the raters' profiles "
+                      "from the rubric's shares; both with the part that each rater's own noise adds taken "
+                      "off. Lines: the arm's figure in each phase.", SMALL))
     has_control = any("control" in (arms or {}) for arms in conv.values())
     story.append(training_charts.arm_legend(CONTENT_WIDTH, has_control=has_control, with_means=False))
     titles = {"pairwise_distance": "spread between raters", "distance_to_rubric": "distance to the rubric"}

@@ -9,7 +9,8 @@ rubric composite (with a rubric), r_a and G (with a criterion), and tests each c
   of each phase (cases resampled within the rater, all raters and resamples solved at
   once), percentile interval of the difference and the bootstrap test of no change; the
   change in R_s is read on Wherry's adjusted R_s, which removes R_s's upward bias with few
-  cases, so that phases of unequal size compare;
+  cases, so that phases of unequal size compare, each phase's interval taken on Fisher's
+  z scale and the two combined by Zou's (2007) method;
 - test-retest r and r_a: correlations on different cases, Fisher's z test with Zou's
   (2007) interval of the difference; r_a on the same cases and outcome in both phases,
   Williams' T2 for dependent correlations (Steiger 1980) with Zou's interval;
@@ -44,8 +45,8 @@ from ..lens.rubric import _cue_shares, _validate_rubric
 from ..result_base import ResultMixin, jsonable
 from ..threads import available_cores
 from .panel_change import detectable_change, detectable_correlation_change
-from .tests_of_change import (ancova_difference, bootstrap_difference, fisher_z_difference,
-                              normal_difference, paired_tests, welch_difference)
+from .tests_of_change import (ancova_difference, bootstrap_difference, correlation_bootstrap_difference,
+                              fisher_z_difference, normal_difference, paired_tests, welch_difference)
 from .verdicts import annotate
 
 COMPARISON_SCHEMA = "calibrate.comparison/1"
@@ -467,7 +468,12 @@ DIFFERENT_CASES_NOTE = {
                "moves this figure; not corrected",
     "correlation": "different cases in each phase: a correlation depends on how spread out the "
                    "cases are; not corrected",
+    # the convergence figures take the noise in the weights off (panel_change.py), not the
+    # different case sets the standardized weights rest on
+    "noise corrected": "different cases in each phase: the noise in the weights is taken off, but "
+                       "the weights rest on different cases",
 }
+NOISE_CORRECTED = ("pairwise_distance", "distance_to_rubric")
 WEIGHT_FIGURES = ("misallocation", "g_rubric", "shares", "pairwise_distance", "distance_to_rubric",
                   "icc", "alpha")
 
@@ -478,7 +484,8 @@ def comparability(metric: str, same_cases: bool) -> tuple[bool, str | None]:
         return True, None
     if metric in ("icc", "alpha"):
         return False, "different cases in each phase: panel agreement on different case sets"
-    kind = "weights" if metric in WEIGHT_FIGURES else "correlation"
+    kind = ("noise corrected" if metric in NOISE_CORRECTED else
+            "weights" if metric in WEIGHT_FIGURES else "correlation")
     return False, DIFFERENT_CASES_NOTE[kind]
 
 
@@ -509,10 +516,15 @@ def _rater_changes(figs: list[_PhaseFigures], phases: tuple[str, ...], name: str
         comparable, note = comparability(name, fa.cases == fb.cases)
         if name in BOOTSTRAP_METRICS:
             # R_s: the change is read on Wherry's adjusted scale (estimates and draws), whose
-            # percentile interval covered the true change where the raw one did not with
-            # unequal case counts (DEVELOPERS.md).
+            # interval covered the true change where the raw one did not with unequal case
+            # counts, and on Fisher's z scale within each phase, where the adjusted R_s of
+            # 25-40 cases is neither biased nor skewed as on its own scale (DEVELOPERS.md).
             key = "r_adjusted" if name == "r" else name
-            low, high, p = bootstrap_difference(fa.draws[key], fb.draws[key], confidence)
+            if name == "r":
+                low, high, p = correlation_bootstrap_difference(
+                    fa.values[key], fa.draws[key], fb.values[key], fb.draws[key], confidence)
+            else:
+                low, high, p = bootstrap_difference(fa.draws[key], fb.draws[key], confidence)
             diff = fb.draws[key] - fa.draws[key]
             with np.errstate(invalid="ignore"):
                 spread = np.array([np.nanstd(d, ddof=1) if np.isfinite(d).sum() > 2 else np.nan
@@ -521,7 +533,8 @@ def _rater_changes(figs: list[_PhaseFigures], phases: tuple[str, ...], name: str
             if name == "r":
                 delta = fb.values["r_adjusted"] - fa.values["r_adjusted"]
                 method = ("change in Wherry-adjusted R_s (corrects R_s's upward bias with few cases), "
-                          "case bootstrap of each phase, percentile interval")
+                          "case bootstrap of each phase, Fisher-z interval of each phase combined "
+                          "(Zou 2007)")
             else:
                 method = "case bootstrap of each phase, percentile interval"
         elif name in ("severity", "g"):
@@ -642,17 +655,22 @@ def _panel(raters: list[RaterComparison], phases: tuple[str, ...], metrics: tupl
 
 
 def _figure_block(points: list[float], draws: list[np.ndarray], phases: tuple[str, ...], metric: str,
-                  same_cases: list[bool], confidence: float, method: str) -> dict:
-    """{values{PHASE}, changes[...]} of a panel figure with independent draws per phase."""
+                  same_cases: list[bool], confidence: float, method: str, change=None,
+                  shown=None) -> dict:
+    """{values{PHASE}, changes[...]} of a panel figure with independent draws per phase;
+    ``change`` the interval of the change (default: percentile of the draws' difference),
+    ``shown`` the value printed for each phase's point (default: the point itself)."""
     from .panel_change import draw_change
 
+    change = change or draw_change
     changes = []
     for k, (a, b) in enumerate(phase_pairs(phases)):
         comparable, note = comparability(metric, same_cases[k])
         changes.append({"from": phases[a], "to": phases[b],
-                        **draw_change(points[a], draws[a], points[b], draws[b], confidence),
+                        **change(points[a], draws[a], points[b], draws[b], confidence),
                         "method": method, "comparable": comparable, "note": note})
-    return {"values": {ph: points[i] for i, ph in enumerate(phases)}, "changes": changes}
+    shown = shown or (lambda v: v)
+    return {"values": {ph: shown(points[i]) for i, ph in enumerate(phases)}, "changes": changes}
 
 
 def _panel_extras(figs: list[_PhaseFigures], phases: tuple[str, ...], trained: np.ndarray,
@@ -660,7 +678,8 @@ def _panel_extras(figs: list[_PhaseFigures], phases: tuple[str, ...], trained: n
                   confidence: float) -> dict:
     """panel.agreement, convergence, groups, cue_shift and detectable."""
     from ..panel import adjusted_rand_index
-    from .panel_change import distance_to_rubric, pairwise_distance
+    from .panel_change import (noise_corrected_distance_to_rubric, noise_corrected_spread,
+                               root_distance, root_distance_change)
 
     pairs = phase_pairs(phases)
     same = [figs[a].cases == figs[b].cases for a, b in pairs]
@@ -682,24 +701,31 @@ def _panel_extras(figs: list[_PhaseFigures], phases: tuple[str, ...], trained: n
     have_shares = all(f.shares is not None for f in figs)
     convergence: dict = {"pairwise_distance": None, "distance_to_rubric": None}
     if have_shares:
-        # Measured: these intervals held the true change in 89-91% of simulated pairs of
-        # phases (noise in the weights inflates both figures; benchmarks/bench_training_panel.py).
-        method = ("cue shares of each rater, cases resampled within each rater, percentile interval "
-                  "of the difference (rough: in simulations it held the true change about 9 times "
-                  "in 10, not 19 in 20)")
+        # Noise-corrected distances: they held the true change in 93-97% of simulated pairs
+        # of phases, where the uncorrected distances held it in 89-91%
+        # (benchmarks/bench_training_panel.py, DEVELOPERS.md).
+        method = ("the noise in each rater's fitted shares taken off (the trace of the rater's share "
+                  "covariance over their case resamples), then the root; cases resampled within each "
+                  "rater, each phase's normal interval on the squared scale, rooted and combined "
+                  "(Zou 2007)")
+        spread = {arm: [noise_corrected_spread(f.shares[mask], f.share_draws[mask]) for f in figs]
+                  for arm, mask in arms.items()}
         convergence["pairwise_distance"] = {
-            arm: _figure_block([float(pairwise_distance(f.shares[mask])) for f in figs],
-                               [pairwise_distance(f.share_draws[mask]) for f in figs],
-                               phases, "pairwise_distance", same, confidence,
-                               "mean over pairs of raters of half the summed share differences; " + method)
-            for arm, mask in arms.items()}
+            arm: _figure_block([e for e, _ in figures], [d for _, d in figures], phases, "pairwise_distance",
+                               same, confidence, "root of the mean over pairs of raters of the squared "
+                               "distance between their cue-share profiles; " + method,
+                               change=root_distance_change, shown=root_distance)
+            for arm, figures in spread.items()}
         if rubric_share is not None:
+            to_rubric = {arm: [noise_corrected_distance_to_rubric(f.shares[mask], f.share_draws[mask], rubric_share)
+                               for f in figs] for arm, mask in arms.items()}
             convergence["distance_to_rubric"] = {
-                arm: _figure_block([float(distance_to_rubric(f.shares[mask], rubric_share)) for f in figs],
-                                   [distance_to_rubric(f.share_draws[mask], rubric_share) for f in figs],
-                                   phases, "distance_to_rubric", same, confidence,
-                                   "mean misallocation of the arm's raters; " + method)
-                for arm, mask in arms.items()}
+                arm: _figure_block([e for e, _ in figures], [d for _, d in figures], phases,
+                                   "distance_to_rubric", same, confidence,
+                                   "root of the mean over the arm's raters of the squared distance "
+                                   "between their cue shares and the rubric's; " + method,
+                                   change=root_distance_change, shown=root_distance)
+                for arm, figures in to_rubric.items()}
     out["convergence"] = convergence
     # Groups of shared policy in each phase (the audit's grouping), and whether they merged.
     if all(f.groups is not None for f in figs):

@@ -1,8 +1,9 @@
 """The change in r_a when a rater judged the same cases against the same outcome in both
 phases: Williams' T2 (Steiger 1980, eq. 7), as compare uses it.
 
-No printed worked example of this test is in REFERENCE-DATA.md, so none is asserted.
-The checks are a second derivation of the same test and its size on the data users have:
+No printed worked example of this test is in REFERENCE-DATA.md; the figures R's psych
+package prints for the same test are checked in `test_psych_r_test.py`. The checks here are
+a second derivation of the same test and its size on the data users have:
 
 - Meng, Rosenthal & Rubin (1992, Psychological Bulletin 111, 172-175) give a z test of
   two correlated correlations on Fisher's z scale; the formula below is written from
