@@ -131,6 +131,10 @@ def _height(flowables) -> float:
     return total
 
 
+# Rater names in one row of the groups table: about 15 lines of the 170-point column, so that a
+# row always fits on a page however long the ids.
+GROUP_NAMES_PER_ROW = 60
+
 # Raters per heat-map image: 0.17 inch a row keeps 45 rows and the term names inside a page.
 HEAT_MAP_ROWS = 45
 
@@ -568,8 +572,14 @@ class PanelReport:
                 story.append(text(f"Number of groups: {grouping.rule}", SMALL))
         rows = [[text(h, CELL_BOLD) for h in ("Group", "Raters", "What sets it apart")]]
         for g in groups:
-            rows.append([text(g.group, CELL), text(", ".join(g.raters), CELL),
-                         text(g.sets_apart or "", CELL)])
+            # A table row cannot break across pages: a group of hundreds of raters is listed
+            # over several rows ("continued") rather than in one cell taller than a page.
+            members = list(g.raters)
+            for start in range(0, max(len(members), 1), GROUP_NAMES_PER_ROW):
+                first = start == 0
+                rows.append([text(g.group if first else f"{g.group} (continued)", CELL),
+                             text(", ".join(members[start:start + GROUP_NAMES_PER_ROW]), CELL),
+                             text((g.sets_apart or "") if first else "", CELL)])
         table = fitted_table(rows, [45, 170, CONTENT_WIDTH - 215], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)
