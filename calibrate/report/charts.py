@@ -370,26 +370,53 @@ def tree_leaf_order(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str],
     return _replay_merges(leaves, [(a, b, 0.0) for a, b in merges])[0]
 
 
+# Largest tree drawn with every rater's name beside its leaf: 0.22 inch a leaf, the tree then
+# fits a page at two thirds of its size or more, and the names stay legible. A bigger tree is
+# drawn at the page's height without names (a name would be under 3 points tall); the groups
+# table lists every group's raters.
+TREE_NAMED_LEAVES = 60
+# Height of an unnamed tree (points): the tallest image a page holds (panel.MAX_IMAGE_HEIGHT).
+UNNAMED_TREE_HEIGHT = 640.0
+
+
 def grouping_tree(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str], Sequence[str], float]],
                   leaf_groups: Mapping[str, str | None], *, width_pt: float) -> Image:
     """A tree drawn from the merge sequence: each merge joins two sets of raters at the
-    overall R^2 lost so far (the height), leaves ordered so that no branches cross."""
+    overall R^2 lost so far (the height), leaves ordered so that no branches cross.
+
+    Up to TREE_NAMED_LEAVES leaves each carries its rater's name (and group); a larger tree is
+    drawn at a page's height, its leaves unnamed, its links as one line collection."""
     from matplotlib.figure import Figure
 
     order, links, pos_height = _replay_merges(leaves, merges)
     x_of_leaf = {leaf: i for i, leaf in enumerate(order)}
-    height_in = max(2.0, 0.22 * len(order) + 0.6)
+    named = len(order) <= TREE_NAMED_LEAVES
+    height_in = max(2.0, 0.22 * len(order) + 0.6) if named else UNNAMED_TREE_HEIGHT / 72
     fig = Figure(figsize=(width_pt / 72, height_in))
-    labels = [f"{leaf}  ({leaf_groups.get(leaf)})" if leaf_groups.get(leaf) else str(leaf) for leaf in order]
-    left = _label_room(labels, width_pt)
-    ax = fig.add_axes((left, 0.1, 0.92 - left, 0.85))
+    if named:
+        labels = [f"{leaf}  ({leaf_groups.get(leaf)})" if leaf_groups.get(leaf) else str(leaf) for leaf in order]
+        left = _label_room(labels, width_pt)
+        ax = fig.add_axes((left, 0.1, 0.92 - left, 0.85))
+    else:
+        ax = fig.add_axes((0.08, 0.06, 0.84, 0.92))
     centre: dict[frozenset, float] = {frozenset([leaf]): x_of_leaf[leaf] for leaf in leaves}
+    paths = []
     for ka, kb, h in links:
         ca, cb = centre[ka], centre[kb]
         ha, hb = pos_height[ka], pos_height[kb]
-        ax.plot([ha, h, h, hb], [ca, ca, cb, cb], color="#2f7d74", linewidth=1.0)
+        paths.append([(ha, ca), (h, ca), (h, cb), (hb, cb)])
         centre[ka | kb] = (ca + cb) / 2
-    ax.set_yticks(range(len(order)), labels=labels, fontsize=6.5)
+    if named:
+        for path in paths:
+            ax.plot([p[0] for p in path], [p[1] for p in path], color="#2f7d74", linewidth=1.0)
+        ax.set_yticks(range(len(order)), labels=labels, fontsize=6.5)
+    else:
+        from matplotlib.collections import LineCollection
+
+        ax.add_collection(LineCollection(paths, colors="#2f7d74", linewidths=0.5))
+        ax.set_xlim(0, max((h for _, _, h in links), default=1.0) * 1.02 or 1.0)
+        ax.set_yticks([])
+        ax.set_ylabel(f"{len(order)} raters in the order of the tree", fontsize=7)
     ax.set_ylim(-0.6, len(order) - 0.4)
     ax.invert_yaxis()
     ax.set_xlabel("overall R² lost by merging", fontsize=7)

@@ -568,6 +568,10 @@ class PanelReport:
                 steps.append((list(m.merged_a), list(m.merged_b), height))
             leaf_group = {r: g.group for g in groups for r in g.raters}
             story.append(_fit_on_page(charts.grouping_tree(leaves, steps, leaf_group, width_pt=CONTENT_WIDTH * 0.85)))
+            if len(leaves) > charts.TREE_NAMED_LEAVES:
+                story.append(text(f"The tree of {len(leaves)} raters is drawn without their names, which "
+                                  "would be too small to read at this size; the table below lists the "
+                                  "raters of each group.", SMALL))
             if grouping.rule:
                 story.append(text(f"Number of groups: {grouping.rule}", SMALL))
         rows = [[text(h, CELL_BOLD) for h in ("Group", "Raters", "What sets it apart")]]
