@@ -269,7 +269,12 @@ def _with_cjk_fallback(fig) -> None:
     families = matplotlib_families()
     if len(families) > 1:
         for item in fig.findobj(Text):
-            item.set_fontfamily(families)
+            # Only texts the first family may lack: a list of families sends a text through
+            # matplotlib's font look-up for each family (about a twentieth of a 2,000-rater
+            # panel summary), and an ASCII text is drawn the same (DejaVu Sans has every
+            # ASCII glyph; the heat map's PNG is byte-identical).
+            if not item.get_text().isascii():
+                item.set_fontfamily(families)
 
 
 def _label_room(labels: Sequence[str], width_pt: float, *, least: float = 0.2, most: float = 0.45) -> float:

@@ -137,3 +137,29 @@ def test_a_large_group_is_listed_over_several_rows(monkeypatch):
     assert cells[1][2] == "leans on grades" and cells[2][2] == ""
     listed = [name for row in cells[1:4] for name in row[1].split(", ")]
     assert listed == Panel.groups[0].raters and len(cells[1][1].split(", ")) == per_row
+
+
+def test_font_fallback_only_on_non_ascii_texts_draws_the_same_png():
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.text import Text
+
+    from calibrate.report.styles import matplotlib_families
+
+    families = matplotlib_families()
+    if len(families) < 2:
+        pytest.skip("no CJK font installed: no fallback to compare")
+
+    def png(every_text: bool) -> bytes:
+        fig = charts.heat_map_figure(["王小明", "Birch"], ["grades", "essay"], [[0.61, -0.2], [0.05, 0.33]],
+                                     ["A", "B"], width_pt=300)
+        FigureCanvasAgg(fig)
+        if every_text:  # the reference: every text of the figure given the list of families
+            for item in fig.findobj(Text):
+                item.set_fontfamily(families)
+        else:
+            charts._with_cjk_fallback(fig)
+        buf = io.BytesIO()
+        fig.savefig(buf, format="png", dpi=100, metadata={"Software": None})
+        return buf.getvalue()
+
+    assert png(every_text=False) == png(every_text=True)
