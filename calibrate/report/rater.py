@@ -298,7 +298,14 @@ class RaterReport:
         return story
 
     def panel_median_shares(self, cues, on_rubric_basis: bool) -> dict:
-        """Median share per cue over the phase's raters: rubric-basis shares or R² shares."""
+        """Median share per cue over the phase's raters: rubric-basis shares or R² shares (the
+        same for every rater of the phase: computed once per report input)."""
+        key = ("panel_median_shares", self.phase, tuple(cues), on_rubric_basis)
+        if key not in self.data.shared_figures:
+            self.data.shared_figures[key] = self._panel_median_shares(cues, on_rubric_basis)
+        return dict(self.data.shared_figures[key])
+
+    def _panel_median_shares(self, cues, on_rubric_basis: bool) -> dict:
         out = {}
         for c in cues:
             vals = []
@@ -381,7 +388,13 @@ class RaterReport:
         frame = self.data.table(*names)
         if frame is None or not {"rater", x, y} <= set(frame.columns):
             return []
-        mine = frame[frame["rater"].astype(str) == self.rater]
+        # the table's rows grouped by rater once per report input, not scanned whole per rater
+        key = ("rows_by_rater", id(frame))
+        if key not in self.data.shared_figures:
+            groups = frame.groupby(frame["rater"].astype(str), sort=False).indices
+            self.data.shared_figures[key] = (frame, groups)
+        groups = self.data.shared_figures[key][1]
+        mine = frame.iloc[groups.get(self.rater, [])]
         if "phase" in mine.columns and self.phase is not None:
             mine = mine[mine["phase"].astype(str) == str(self.phase)]
         pairs = zip(mine[x].astype(float), mine[y].astype(float))
