@@ -131,13 +131,29 @@ class RaterReport:
             raise KeyError(f"rater {rater!r} is not in the results")
         self.entry = self.entries[-1]        # detailed sections: the latest phase
         self.phase = self.entry.phase
-        self.others = id_pattern(r for r in self.view.rater_ids() if r != rater)
+        # Every id, compiled once per report input: a sentence in which no id stands cannot
+        # name another rater, so the pattern of the other ids (a regex of thousands of
+        # alternatives, compiled per rater) is built only for a sentence where one does.
+        key = ("id_pattern", "all raters")
+        if key not in data.shared_figures:
+            data.shared_figures[key] = id_pattern(self.view.rater_ids())
+        self._any_id = data.shared_figures[key]
+        self._others: re.Pattern | None | bool = False  # False: not built yet
+
+    @property
+    def others(self) -> re.Pattern | None:
+        """The regex that finds any other rater's id as a whole word (None: there is none)."""
+        if self._others is False:
+            self._others = id_pattern(r for r in self.view.rater_ids() if r != self.rater)
+        return self._others
 
     # ------------------------------------------------------------ helpers
     def private(self, sentence: str | None) -> str | None:
         """The sentence, or None when it names another rater."""
         if not sentence:
             return None
+        if self._any_id is None or not self._any_id.search(str(sentence)):
+            return str(sentence)
         if self.others is not None and self.others.search(str(sentence)):
             return None
         return str(sentence)

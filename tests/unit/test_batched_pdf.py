@@ -163,3 +163,26 @@ def test_font_fallback_only_on_non_ascii_texts_draws_the_same_png():
         return buf.getvalue()
 
     assert png(every_text=False) == png(every_text=True)
+
+
+@pytest.mark.parametrize("rater", ["Ann Lee", "Ann", "r10", "王小明"])
+def test_a_sentence_is_kept_private_as_by_the_per_rater_pattern(rater):
+    from calibrate.report._read import id_pattern
+    from calibrate.report.rater import RaterReport
+
+    ids = ["Ann Lee", "Ann", "r1", "r10", "王小明", "Birch"]
+
+    class View:
+        @staticmethod
+        def rater_ids():
+            return list(ids)
+
+    report = RaterReport.__new__(RaterReport)
+    report.view, report.rater = View(), rater
+    report._any_id, report._others = id_pattern(ids), False
+    reference = id_pattern(r for r in ids if r != rater)  # the pattern each report compiled before
+    sentences = ["Your policy leans on grades.", f"Prepared for {rater}.", "Ann Lee and you agree.",
+                 "Ann agrees.", "r1 and r10.", "r100 is not an id.", "王小明 too.", "Birch", "", None]
+    for sentence in sentences:
+        expected = None if not sentence or reference.search(sentence) else sentence
+        assert report.private(sentence) == expected, sentence
