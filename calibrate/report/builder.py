@@ -12,7 +12,7 @@ import json
 import os
 import sys
 from collections.abc import Callable
-from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures import ProcessPoolExecutor, as_completed
 from pathlib import Path
 from typing import Any
 
@@ -59,10 +59,19 @@ def panel_pdf(result: Any) -> bytes:
     return buf.getvalue()
 
 
-def _worker_started(parent_pid: int) -> None:
-    """Runs first in each worker: end with the parent, leave signals to the parent."""
+# What each worker process builds from: handed over once when the worker starts (inherited
+# without copying where workers are forked, pickled once per worker elsewhere), not with every
+# task, so that a task is only a list of rater ids and its answer the PDF bytes.
+_WORKER_INPUT: ReportInput | None = None
+
+
+def _worker_started(parent_pid: int, data: ReportInput | None = None) -> None:
+    """Runs first in each worker: end with the parent, leave signals to the parent, and keep
+    the report input for the tasks to come."""
     import signal
 
+    global _WORKER_INPUT
+    _WORKER_INPUT = data
     # The parent handles Ctrl-C and SIGTERM and stops the workers itself.
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     signal.signal(signal.SIGTERM, signal.SIG_DFL)
@@ -93,8 +102,20 @@ def _stop_workers(pool: ProcessPoolExecutor) -> None:
             pass
 
 
-def _build_chunk(data: ReportInput, raters: list[str], include_excluded: bool) -> list[tuple[str, bytes]]:
-    return [(r, rater_pdf(data, r, include_excluded=include_excluded)) for r in raters]
+def _build_chunk(raters: list[str], include_excluded: bool) -> list[tuple[str, bytes]]:
+    """A worker's task: the reports of a few raters, from the input the worker started with."""
+    return [(r, rater_pdf(_WORKER_INPUT, r, include_excluded=include_excluded)) for r in raters]
+
+
+def _build_panel() -> bytes:
+    """A worker's task: the panel summary."""
+    return panel_pdf(_WORKER_INPUT)
+
+
+# Raters per worker task: enough tasks to keep both workers busy to the end and the progress
+# bar moving (one task is about a second of work), few enough that handing out tasks costs
+# nothing next to building the reports.
+CHUNK_RATERS = 16
 
 
 def build_reports(result: Any, out_dir: str | Path, *, jobs: int = 1, include_excluded: bool = False,
@@ -144,21 +165,21 @@ def build_reports(result: Any, out_dir: str | Path, *, jobs: int = 1, include_ex
             atomic_write_bytes(path, rater_pdf(data, r, include_excluded=include_excluded))
             wrote(path)
     else:
-        # The panel summary is one task of its own, so it builds while the workers make the
-        # rater reports. A few raters per task: enough tasks to balance the workers and
-        # update progress, few enough that shipping the results to each task stays cheap.
-        size = max(1, len(raters) // (jobs * 4))
+        # The panel summary is one task of its own, submitted first, so it builds in one worker
+        # while the others start on the rater reports; files are written as tasks finish.
+        size = max(1, min(CHUNK_RATERS, -(-len(raters) // (jobs * 4))))
         chunks = [raters[i:i + size] for i in range(0, len(raters), size)]
         pool = ProcessPoolExecutor(max_workers=jobs, initializer=_worker_started,
-                                   initargs=(os.getpid(),))
+                                   initargs=(os.getpid(), data))
         try:
-            summary = pool.submit(panel_pdf, data) if panel else None
-            futures = [pool.submit(_build_chunk, data, chunk, include_excluded) for chunk in chunks]
-            if summary is not None:
-                path = out_dir / PANEL_FILE
-                atomic_write_bytes(path, summary.result())
-                wrote(path)
-            for future in futures:
+            summary = pool.submit(_build_panel) if panel else None
+            futures = [pool.submit(_build_chunk, chunk, include_excluded) for chunk in chunks]
+            for future in as_completed([*([summary] if summary is not None else []), *futures]):
+                if future is summary:
+                    path = out_dir / PANEL_FILE
+                    atomic_write_bytes(path, future.result())
+                    wrote(path)
+                    continue
                 for r, pdf in future.result():
                     path = out_dir / RATERS_FOLDER / names[r]
                     atomic_write_bytes(path, pdf)
@@ -167,8 +188,9 @@ def build_reports(result: Any, out_dir: str | Path, *, jobs: int = 1, include_ex
             _stop_workers(pool)  # an error or a signal: the workers must not outlive the run
             raise
         pool.shutdown(wait=True)
-    rater_paths = sorted(written[1:] if panel else written)
-    return ([written[0]] if panel else []) + rater_paths
+    panel_path = out_dir / PANEL_FILE
+    rater_paths = sorted(p for p in written if not (panel and p == panel_path))
+    return ([panel_path] if panel else []) + rater_paths
 
 
 def load_report_input(folder: str | Path) -> ReportInput:

@@ -8,7 +8,7 @@ import io
 from collections import Counter
 from collections.abc import Mapping, Sequence
 
-from reportlab.graphics.shapes import Circle, Drawing, Line, PolyLine, Rect, String
+from reportlab.graphics.shapes import Circle, DirectDraw, Drawing, Line, PolyLine, Rect, String
 from reportlab.platypus import Image
 
 from .styles import ACCENT, ACCENT_LIGHT, BASE_FONT, INK, MUTED, PALE, PANEL, RUBRIC, RULE, matplotlib_families
@@ -18,6 +18,74 @@ LABEL_SIZE = 7.5
 # Room beyond each end of the judgment scale, as a share of its length: a dot at 1 or at 7
 # (and the larger dot of several equal pairs) sits wholly inside the frame, off the edge.
 SCALE_PAD = 0.07
+
+
+# A circle of radius 1 about the origin as four Bezier quarter arcs (the usual 0.5523 handle).
+_ARC = 0.5522847498
+
+
+def _pdf_number(v: float) -> str:
+    text = f"{v:.3f}".rstrip("0").rstrip(".")
+    return "0" if text in ("", "-0") else text
+
+
+def _pdf_rgb(colour) -> str:
+    return " ".join(_pdf_number(c) for c in colour.rgb())
+
+
+class DotLayer(DirectDraw):
+    """Many dots of one look (radius, fill, outline), drawn as one run of PDF operators.
+
+    A strip chart of 2,000 raters has 2,000 dots; as reportlab ``Circle`` shapes each one costs
+    a shape object, a graphics-state push and a Bezier arc computed and formatted anew (about
+    0.1 ms a dot, most of a large panel's report). Here the circle's path is formatted once and
+    each dot adds only its translation; what is drawn is the same, dot by dot in the order
+    given (a later dot covers an earlier one, as before). The dots sit in the drawing's
+    ``contents`` beside the other shapes, so they are drawn in their place among them.
+    """
+
+    def __init__(self, xs: Sequence[float], ys: Sequence[float], radius: float, *, fill,
+                 stroke=None, stroke_width: float = 0.0) -> None:
+        # plain attributes, outside reportlab's attribute checks (this shape has no style of
+        # its own for a renderer to apply)
+        self.__dict__.update(xs=[float(x) for x in xs], ys=[float(y) for y in ys], radius=float(radius),
+                             fill=fill, stroke=stroke, stroke_width=float(stroke_width))
+
+    def dots(self) -> list[tuple[float, float, float]]:
+        """(centre x, centre y, radius) of every dot, in drawing order."""
+        return [(x, y, self.radius) for x, y in zip(self.xs, self.ys)]
+
+    def getBounds(self):
+        r = self.radius
+        if not self.xs:
+            return (0, 0, 0, 0)
+        return (min(self.xs) - r, min(self.ys) - r, max(self.xs) + r, max(self.ys) + r)
+
+    def copy(self):
+        return DotLayer(self.xs, self.ys, self.radius, fill=self.fill, stroke=self.stroke,
+                        stroke_width=self.stroke_width)
+
+    def operators(self) -> str:
+        """The PDF content-stream operators that draw the dots."""
+        if not self.xs:
+            return ""
+        r, k = self.radius, self.radius * _ARC
+        n = _pdf_number
+        path = (f"{n(r)} 0 m {n(r)} {n(k)} {n(k)} {n(r)} 0 {n(r)} c "
+                f"{n(-k)} {n(r)} {n(-r)} {n(k)} {n(-r)} 0 c "
+                f"{n(-r)} {n(-k)} {n(-k)} {n(-r)} 0 {n(-r)} c "
+                f"{n(k)} {n(-r)} {n(r)} {n(-k)} {n(r)} 0 c h")
+        paint = "B" if self.stroke is not None else "f"
+        head = [f"q {_pdf_rgb(self.fill)} rg"]
+        if self.stroke is not None:
+            head.append(f"{_pdf_rgb(self.stroke)} RG {n(self.stroke_width)} w")
+        tail = f" cm {path} {paint} Q"
+        # fixed 3 decimals (a thousandth of a point): formatted by one f-string per dot
+        body = [f"q 1 0 0 1 {x:.3f} {y:.3f}{tail}" for x, y in zip(self.xs, self.ys)]
+        return "\n".join([*head, *body, "Q"])
+
+    def drawDirectly(self, renderer) -> None:
+        renderer._canvas.addLiteral(self.operators())
 
 
 def _padded(low: float, high: float) -> tuple[float, float]:
@@ -108,9 +176,10 @@ def strip_chart(values: Sequence[float], mine: float, *, low: float, high: float
     d.add(String(x0 - 6, y - 2.5, low_words, fontName=BASE_FONT, fontSize=6.5, fillColor=MUTED,
                  textAnchor="end"))
     d.add(String(x1 + 6, y - 2.5, high_words, fontName=BASE_FONT, fontSize=6.5, fillColor=MUTED))
-    for k, v in enumerate(sorted(values)):
-        offset = (k % 3 - 1) * 2.5   # a little vertical spread so close values stay visible
-        d.add(Circle(x_of(v), y + offset, 2.2, fillColor=PALE, strokeColor=PANEL, strokeWidth=0.6))
+    ordered = sorted(values)
+    # a little vertical spread (-2.5, 0, +2.5 in turn) so close values stay visible
+    d.add(DotLayer([x_of(v) for v in ordered], [y + (k % 3 - 1) * 2.5 for k in range(len(ordered))], 2.2,
+                   fill=PALE, stroke=PANEL, stroke_width=0.6))
     d.add(Circle(x_of(mine), y, 4.2, fillColor=ACCENT, strokeColor=INK, strokeWidth=0.6))
     return d
 
@@ -176,8 +245,7 @@ def order_chart(positions: Sequence[float], judgments: Sequence[float], *, low: 
     d.add(String((x0 + x1) / 2, 3, "reading order (first case left)", fontName=BASE_FONT, fontSize=7,
                  fillColor=INK, textAnchor="middle"))
     order = sorted(zip(positions, judgments))
-    for p, j in order:
-        d.add(Circle(sx(p), sy(j), 1.3, fillColor=PANEL, strokeColor=None))
+    d.add(DotLayer([sx(p) for p, _ in order], [sy(j) for _, j in order], 1.3, fill=PANEL))
     window = max(3, n // 10)
     if n >= window:
         points = []
@@ -202,7 +270,12 @@ def _with_cjk_fallback(fig) -> None:
     families = matplotlib_families()
     if len(families) > 1:
         for item in fig.findobj(Text):
-            item.set_fontfamily(families)
+            # Only texts the first family may lack: a list of families sends a text through
+            # matplotlib's font look-up for each family (about a twentieth of a 2,000-rater
+            # panel summary), and an ASCII text is drawn the same (DejaVu Sans has every
+            # ASCII glyph; the heat map's PNG is byte-identical).
+            if not item.get_text().isascii():
+                item.set_fontfamily(families)
 
 
 def _label_room(labels: Sequence[str], width_pt: float, *, least: float = 0.2, most: float = 0.45) -> float:
@@ -303,26 +376,53 @@ def tree_leaf_order(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str],
     return _replay_merges(leaves, [(a, b, 0.0) for a, b in merges])[0]
 
 
+# Largest tree drawn with every rater's name beside its leaf: 0.22 inch a leaf, the tree then
+# fits a page at two thirds of its size or more, and the names stay legible. A bigger tree is
+# drawn at the page's height without names (a name would be under 3 points tall); the groups
+# table lists every group's raters.
+TREE_NAMED_LEAVES = 60
+# Height of an unnamed tree (points): the tallest image a page holds (panel.MAX_IMAGE_HEIGHT).
+UNNAMED_TREE_HEIGHT = 640.0
+
+
 def grouping_tree(leaves: Sequence[str], merges: Sequence[tuple[Sequence[str], Sequence[str], float]],
                   leaf_groups: Mapping[str, str | None], *, width_pt: float) -> Image:
     """A tree drawn from the merge sequence: each merge joins two sets of raters at the
-    overall R^2 lost so far (the height), leaves ordered so that no branches cross."""
+    overall R^2 lost so far (the height), leaves ordered so that no branches cross.
+
+    Up to TREE_NAMED_LEAVES leaves each carries its rater's name (and group); a larger tree is
+    drawn at a page's height, its leaves unnamed, its links as one line collection."""
     from matplotlib.figure import Figure
 
     order, links, pos_height = _replay_merges(leaves, merges)
     x_of_leaf = {leaf: i for i, leaf in enumerate(order)}
-    height_in = max(2.0, 0.22 * len(order) + 0.6)
+    named = len(order) <= TREE_NAMED_LEAVES
+    height_in = max(2.0, 0.22 * len(order) + 0.6) if named else UNNAMED_TREE_HEIGHT / 72
     fig = Figure(figsize=(width_pt / 72, height_in))
-    labels = [f"{leaf}  ({leaf_groups.get(leaf)})" if leaf_groups.get(leaf) else str(leaf) for leaf in order]
-    left = _label_room(labels, width_pt)
-    ax = fig.add_axes((left, 0.1, 0.92 - left, 0.85))
+    if named:
+        labels = [f"{leaf}  ({leaf_groups.get(leaf)})" if leaf_groups.get(leaf) else str(leaf) for leaf in order]
+        left = _label_room(labels, width_pt)
+        ax = fig.add_axes((left, 0.1, 0.92 - left, 0.85))
+    else:
+        ax = fig.add_axes((0.08, 0.06, 0.84, 0.92))
     centre: dict[frozenset, float] = {frozenset([leaf]): x_of_leaf[leaf] for leaf in leaves}
+    paths = []
     for ka, kb, h in links:
         ca, cb = centre[ka], centre[kb]
         ha, hb = pos_height[ka], pos_height[kb]
-        ax.plot([ha, h, h, hb], [ca, ca, cb, cb], color="#2f7d74", linewidth=1.0)
+        paths.append([(ha, ca), (h, ca), (h, cb), (hb, cb)])
         centre[ka | kb] = (ca + cb) / 2
-    ax.set_yticks(range(len(order)), labels=labels, fontsize=6.5)
+    if named:
+        for path in paths:
+            ax.plot([p[0] for p in path], [p[1] for p in path], color="#2f7d74", linewidth=1.0)
+        ax.set_yticks(range(len(order)), labels=labels, fontsize=6.5)
+    else:
+        from matplotlib.collections import LineCollection
+
+        ax.add_collection(LineCollection(paths, colors="#2f7d74", linewidths=0.5))
+        ax.set_xlim(0, max((h for _, _, h in links), default=1.0) * 1.02 or 1.0)
+        ax.set_yticks([])
+        ax.set_ylabel(f"{len(order)} raters in the order of the tree", fontsize=7)
     ax.set_ylim(-0.6, len(order) - 0.4)
     ax.invert_yaxis()
     ax.set_xlabel("overall R² lost by merging", fontsize=7)

@@ -132,6 +132,10 @@ def _height(flowables) -> float:
     return total
 
 
+# Rater names in one row of the groups table: about 15 lines of the 170-point column, so that a
+# row always fits on a page however long the ids.
+GROUP_NAMES_PER_ROW = 60
+
 # Raters per heat-map image: 0.17 inch a row keeps 45 rows and the term names inside a page.
 HEAT_MAP_ROWS = 45
 
@@ -565,12 +569,22 @@ class PanelReport:
                 steps.append((list(m.merged_a), list(m.merged_b), height))
             leaf_group = {r: g.group for g in groups for r in g.raters}
             story.append(_fit_on_page(charts.grouping_tree(leaves, steps, leaf_group, width_pt=CONTENT_WIDTH * 0.85)))
+            if len(leaves) > charts.TREE_NAMED_LEAVES:
+                story.append(text(f"The tree of {len(leaves)} raters is drawn without their names, which "
+                                  "would be too small to read at this size; the table below lists the "
+                                  "raters of each group.", SMALL))
             if grouping.rule:
                 story.append(text(f"Number of groups: {grouping.rule}", SMALL))
         rows = [[text(h, CELL_BOLD) for h in ("Group", "Raters", "What sets it apart")]]
         for g in groups:
-            rows.append([text(g.group, CELL), text(", ".join(g.raters), CELL),
-                         text(g.sets_apart or "", CELL)])
+            # A table row cannot break across pages: a group of hundreds of raters is listed
+            # over several rows ("continued") rather than in one cell taller than a page.
+            members = list(g.raters)
+            for start in range(0, max(len(members), 1), GROUP_NAMES_PER_ROW):
+                first = start == 0
+                rows.append([text(g.group if first else f"{g.group} (continued)", CELL),
+                             text(", ".join(members[start:start + GROUP_NAMES_PER_ROW]), CELL),
+                             text((g.sets_apart or "") if first else "", CELL)])
         table = fitted_table(rows, [45, 170, CONTENT_WIDTH - 215], repeatRows=1, hAlign="LEFT")
         table.setStyle(table_style())
         story.append(table)

@@ -131,13 +131,29 @@ class RaterReport:
             raise KeyError(f"rater {rater!r} is not in the results")
         self.entry = self.entries[-1]        # detailed sections: the latest phase
         self.phase = self.entry.phase
-        self.others = id_pattern(r for r in self.view.rater_ids() if r != rater)
+        # Every id, compiled once per report input: a sentence in which no id stands cannot
+        # name another rater, so the pattern of the other ids (a regex of thousands of
+        # alternatives, compiled per rater) is built only for a sentence where one does.
+        key = ("id_pattern", "all raters")
+        if key not in data.shared_figures:
+            data.shared_figures[key] = id_pattern(self.view.rater_ids())
+        self._any_id = data.shared_figures[key]
+        self._others: re.Pattern | None | bool = False  # False: not built yet
+
+    @property
+    def others(self) -> re.Pattern | None:
+        """The regex that finds any other rater's id as a whole word (None: there is none)."""
+        if self._others is False:
+            self._others = id_pattern(r for r in self.view.rater_ids() if r != self.rater)
+        return self._others
 
     # ------------------------------------------------------------ helpers
     def private(self, sentence: str | None) -> str | None:
         """The sentence, or None when it names another rater."""
         if not sentence:
             return None
+        if self._any_id is None or not self._any_id.search(str(sentence)):
+            return str(sentence)
         if self.others is not None and self.others.search(str(sentence)):
             return None
         return str(sentence)
@@ -298,7 +314,14 @@ class RaterReport:
         return story
 
     def panel_median_shares(self, cues, on_rubric_basis: bool) -> dict:
-        """Median share per cue over the phase's raters: rubric-basis shares or R² shares."""
+        """Median share per cue over the phase's raters: rubric-basis shares or R² shares (the
+        same for every rater of the phase: computed once per report input)."""
+        key = ("panel_median_shares", self.phase, tuple(cues), on_rubric_basis)
+        if key not in self.data.shared_figures:
+            self.data.shared_figures[key] = self._panel_median_shares(cues, on_rubric_basis)
+        return dict(self.data.shared_figures[key])
+
+    def _panel_median_shares(self, cues, on_rubric_basis: bool) -> dict:
         out = {}
         for c in cues:
             vals = []
@@ -381,7 +404,13 @@ class RaterReport:
         frame = self.data.table(*names)
         if frame is None or not {"rater", x, y} <= set(frame.columns):
             return []
-        mine = frame[frame["rater"].astype(str) == self.rater]
+        # the table's rows grouped by rater once per report input, not scanned whole per rater
+        key = ("rows_by_rater", id(frame))
+        if key not in self.data.shared_figures:
+            groups = frame.groupby(frame["rater"].astype(str), sort=False).indices
+            self.data.shared_figures[key] = (frame, groups)
+        groups = self.data.shared_figures[key][1]
+        mine = frame.iloc[groups.get(self.rater, [])]
         if "phase" in mine.columns and self.phase is not None:
             mine = mine[mine["phase"].astype(str) == str(self.phase)]
         pairs = zip(mine[x].astype(float), mine[y].astype(float))

@@ -9,21 +9,28 @@ from calibrate.report import charts
 
 
 def _frame_and_dots(drawing):
+    """The chart's frame and every dot as (x, y, radius), whether a Circle or in a DotLayer."""
     frame = next(s for s in drawing.contents if isinstance(s, Rect))
-    dots = [s for s in drawing.contents if isinstance(s, Circle)]
+    dots = []
+    for shape in drawing.contents:
+        if isinstance(shape, Circle):
+            dots.append((shape.cx, shape.cy, shape.r))
+        elif isinstance(shape, charts.DotLayer):
+            dots += shape.dots()
     return frame, dots
 
 
 def _inside(frame, dot) -> bool:
-    return (frame.x <= dot.cx - dot.r and dot.cx + dot.r <= frame.x + frame.width
-            and frame.y <= dot.cy - dot.r and dot.cy + dot.r <= frame.y + frame.height)
+    x, y, r = dot
+    return (frame.x <= x - r and x + r <= frame.x + frame.width
+            and frame.y <= y - r and y + r <= frame.y + frame.height)
 
 
 def test_retest_dots_at_both_ends_of_the_scale_sit_inside_the_frame():
     pairs = [(1, 1)] * 4 + [(7, 7)] * 3 + [(1, 7), (7, 1), (4, 4)]
     frame, dots = _frame_and_dots(charts.retest_scatter(pairs, low=1, high=7))
     assert len(dots) == 5
-    assert all(_inside(frame, d) for d in dots), [(d.cx, d.cy, d.r) for d in dots]
+    assert all(_inside(frame, d) for d in dots), dots
 
 
 def test_reading_order_dots_at_both_ends_sit_inside_the_frame():
