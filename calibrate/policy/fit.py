@@ -64,7 +64,7 @@ from ..result_base import jsonable
 from . import diagnostics as dg
 from .importance import MAX_DOMINANCE_CUES, cue_importance, importance_shares, relative_weights
 from .linalg import grouped_sscp, ols_from_sscp
-from .linear_nulls import whole_step_bounds
+from .linear_nulls import fit_linear_null, whole_step_bounds
 from .logistic import fit_logistic
 from .resampling import bca_interval, case_bootstrap_intervals
 from .results import CaseToReview, LogisticPolicy, PolicySet, PredictionTerms, RaterPolicy
@@ -311,7 +311,8 @@ def _curvature_null(y, scale, scale_min, scale_max) -> tuple[str, float | None, 
     return None if bounds is None else ("rounded", *bounds)
 
 
-def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution, rng) -> np.ndarray:
+def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution, rng,
+                    null=None) -> np.ndarray:
     """More draws for the raters whose curvature p-value is at most ``alpha`` after the first 199.
 
     A panel-wide adjustment compares the smallest p-value with ``alpha / m``; 199 draws
@@ -337,7 +338,8 @@ def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution,
         rows = local[groups] >= 0
         _, p_more = dg.scale_reset_p(X[rows], y[rows], local[groups[rows]], candidates.size,
                                      kind=curvature_null[0], scale_min=curvature_null[1],
-                                     scale_max=curvature_null[2], n_sim=more, rng=rng)
+                                     scale_max=curvature_null[2], n_sim=more, rng=rng,
+                                     null=None if null is None else null.of_rows(rows))
         good = np.isfinite(p_more)
         hits[candidates[good]] += np.round(p_more[good] * (1 + more) - 1)
         draws[candidates[good]] += more
@@ -467,11 +469,13 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
         # seen through the scale instead (own stream, so the bootstrap intervals keep
         # their numbers).
         kind, low, high = curvature_null
+        null = fit_linear_null(X, y, groups, Gb, kind=kind, scale_min=low, scale_max=high)
         _, scale_p = dg.scale_reset_p(X, y, groups, Gb, kind=kind, scale_min=low, scale_max=high,
-                                      n_sim=CURVATURE_SIMULATIONS, rng=rng.spawn(1)[0])
+                                      n_sim=CURVATURE_SIMULATIONS, rng=rng.spawn(1)[0], null=null)
         if curvature_resolution is not None:
             scale_p = _refine_scale_p(X, y, groups, scale_p, curvature_null, alpha=alpha,
-                                      resolution=curvature_resolution, rng=rng.spawn(1)[0])
+                                      resolution=curvature_resolution, rng=rng.spawn(1)[0],
+                                      null=null)
         A.reset_p[rows_g] = np.where(ok, scale_p, np.nan)
     top = dg.top_rows_per_group(groups, np.abs(influence.studentized), N_LOOK_AGAIN)
     case_ids = design.case_ids

@@ -25,7 +25,7 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import special
@@ -223,6 +223,11 @@ class LinearNull:
     scale_min: float = float("nan")
     scale_max: float = float("nan")
     step: float = 1.0
+
+    def of_rows(self, rows: np.ndarray) -> "LinearNull":
+        """The same null for the selected rows only (a mask or indices)."""
+        return replace(self, mean=self.mean[rows], sigma=self.sigma[rows], prob=self.prob[rows],
+                       usable=self.usable[rows])
 
     def draw(self, rng: np.random.Generator, size: int, rows=slice(None)) -> np.ndarray:
         """``(size, n_rows)`` simulated judgments of the selected rows."""

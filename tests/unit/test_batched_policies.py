@@ -64,3 +64,48 @@ def test_rounded_normal_fit_is_the_maximum_a_general_optimizer_finds():
                                  method="BFGS", options={"gtol": 1e-10})
         assert _interval_loglik(ours, X[rows], y[rows]) >= -best.fun - 1e-9
         np.testing.assert_allclose(ours, best.x, atol=1e-4)
+
+
+def _reset_by_projections_on_rows(cues, Y, rcond=1e-12):
+    """The curvature F as the code computed it before issue 17: every projection back on the rows."""
+    def project(block):
+        return np.matmul(cues.basis, np.matmul(np.swapaxes(cues.basis, 1, 2), block))
+
+    def centred(block):
+        mean = block.sum(axis=1) / cues.n[:, None]
+        return (block - mean[:, None, :]) * cues.mask[:, :, None]
+
+    y = centred(cues.block(Y))
+    fitted = project(y)
+    rss0 = np.maximum((y * y).sum(axis=1) - (fitted * fitted).sum(axis=1), 0.0)
+    z = fitted / np.sqrt((fitted * fitted).sum(axis=1) / cues.n[:, None])[:, None, :]
+    square = centred(np.where(cues.mask[:, :, None] > 0, z * z, 0.0))
+    cube = centred(np.where(cues.mask[:, :, None] > 0, z * z * z, 0.0))
+    own = ((square * square).sum(axis=1), (cube * cube).sum(axis=1))
+    square, cube = square - project(square), cube - project(cube)
+    a11, a22, a12 = ((square * square).sum(axis=1), (cube * cube).sum(axis=1),
+                     (square * cube).sum(axis=1))
+    b1, b2 = (square * y).sum(axis=1), (cube * y).sum(axis=1)
+    det = a11 * a22 - a12 * a12
+    rss1 = np.maximum(rss0 - (a22 * b1 * b1 - 2.0 * a12 * b1 * b2 + a11 * b2 * b2) / det, 0.0)
+    ok = (a11 > rcond * own[0]) & (det > rcond * own[1] * a11)
+    df_den = cues.n - cues.p - 3.0
+    statistic = ((rss0 - rss1) / 2.0) / (rss1 / df_den[:, None])
+    ok &= cues.rank_ok[:, None] & (df_den[:, None] > 0) & np.isfinite(statistic)
+    return np.where(ok, np.maximum(statistic, 0.0), np.nan).T
+
+
+@pytest.mark.parametrize("shared", [True, False])
+def test_curvature_statistics_from_power_sums_equal_the_projections_on_rows(shared):
+    from calibrate.policy import diagnostics as dg
+
+    X, y, groups, G = _panel(shared)
+    rng = np.random.default_rng(9)
+    sets = np.vstack([y, np.clip(y + rng.integers(-1, 2, (30, y.size)), 1, 7)])
+    sets[1, groups == 2] = 4.0   # one rater's judgments constant in one set: NaN in both
+    cues = dg._SharedCueBlocks(X, groups, G)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        expected = _reset_by_projections_on_rows(cues, sets)
+    ours = dg.reset_statistics_shared_cues(cues, sets)
+    np.testing.assert_allclose(ours, expected, equal_nan=True, **TOL)
+    assert np.isnan(ours[1, 2]) and np.isfinite(ours[0]).all()
