@@ -109,3 +109,85 @@ def test_curvature_statistics_from_power_sums_equal_the_projections_on_rows(shar
     ours = dg.reset_statistics_shared_cues(cues, sets)
     np.testing.assert_allclose(ours, expected, equal_nan=True, **TOL)
     assert np.isnan(ours[1, 2]) and np.isfinite(ours[0]).all()
+
+
+def _sequential_p_value_one_rater(plan, observed, sets, enough_hits, chunk=100):
+    """The cut-off check's stopping rule as it ran rater by rater before issue 17."""
+    from calibrate.lens.cutoffs import _best_steps
+
+    hits, drawn, usable = 0, 0, 0
+    margin = observed - 1e-12 * abs(observed)
+    while drawn < len(sets):
+        size = min(chunk, len(sets) - drawn)
+        stat, _ = _best_steps(plan, sets[drawn:drawn + size])
+        stat = stat[np.isfinite(stat)]
+        reached = np.flatnonzero(stat >= margin)
+        if enough_hits and hits + reached.size >= enough_hits:
+            return enough_hits / (usable + reached[enough_hits - hits - 1] + 1)
+        hits += reached.size
+        usable += stat.size
+        drawn += size
+    return (1.0 + hits) / (1.0 + usable)
+
+
+@pytest.mark.parametrize("enough_hits", [20, None])
+def test_cutoff_p_values_of_raters_together_equal_each_rater_alone(enough_hits):
+    # The same simulated sets per rater, drawn in rounds for all raters at once or one
+    # rater at a time: the same p-values.
+    from calibrate.lens.cutoffs import _best_steps, _plan_steps, sequential_p_values
+
+    rng = np.random.default_rng(4)
+    n, R, n_sim = 40, 6, 300
+    X = rng.normal(size=(n, 3))
+    plan = _plan_steps(X, [0, 1, 2], 5)
+    Y = X @ np.array([0.5, 0.3, 0.2]) + rng.normal(size=(R, n))
+    Y[0] += 1.5 * (X[:, 0] < -0.3)        # one rater with a planted cut
+    observed = _best_steps(plan, Y)[0]
+    sets = rng.normal(size=(R, n_sim, n)) + (Y - rng.normal(size=(R, n)))[:, None, :] * 0.1
+    taken = np.zeros(R, dtype=int)
+
+    def simulate(size, which):
+        out = np.stack([sets[i, taken[i]:taken[i] + size] for i in which], axis=1)
+        taken[which] += size
+        return out
+
+    together = sequential_p_values(plan, observed, simulate, n_sim, enough_hits)
+    alone = [_sequential_p_value_one_rater(plan, observed[i], sets[i], enough_hits) for i in range(R)]
+    np.testing.assert_allclose(together, alone, **TOL)
+
+
+@pytest.mark.parametrize("shared", [True, False])
+def test_cutoff_check_by_design_blocks_equals_the_step_search_of_each_rater(shared):
+    import pandas as pd
+
+    from calibrate.data.cues import CueRule, build_cue_design
+    from calibrate.lens.cutoffs import cutoff_check, step_search
+
+    rng = np.random.default_rng(21)
+    n_cases, R = 60, 8
+    cases = pd.DataFrame(rng.normal(size=(n_cases, 3)), columns=["a", "b", "c"],
+                         index=pd.Index([f"k{i:03d}" for i in range(n_cases)], name="case"))
+    design = build_cue_design(cases, [CueRule("a"), CueRule("b"), CueRule("c")])
+    lines = []
+    for r in range(R):
+        seen = (rng.permutation(n_cases) if shared
+                else rng.choice(n_cases, int(rng.integers(30, 61)), replace=False))
+        latent = 4 + cases.to_numpy()[seen] @ np.array([0.8, 0.5, 0.3]) + rng.normal(0, 0.8, seen.size)
+        lines += [(f"r{r}", cases.index[i], float(v)) for i, v in zip(seen, np.clip(np.round(latent), 1, 7))]
+    first = pd.DataFrame(lines, columns=["rater", "case", "judgment"])
+    result = cutoff_check(design, first, rng=3, scale="ordinal", scale_min=1, scale_max=7, n_sim=99)
+    for rater in result.raters:
+        mine = first[first["rater"] == rater.rater]
+        X = cases.loc[mine["case"]].to_numpy()
+        y = mine["judgment"].to_numpy()
+        side = max(5, int(np.ceil(0.05 * y.size)))
+        stat, where = step_search(X, y[None, :], [0, 1, 2], side)
+        assert rater.statistic == pytest.approx(stat[0], rel=1e-9)
+        column = int(where[0, 0])
+        xs = np.sort(X[:, column])
+        assert rater.threshold == pytest.approx(0.5 * (xs[where[0, 1] - 1] + xs[where[0, 1]]), rel=1e-12)
+        assert rater.cue == "abc"[column]
+        below = (X[:, column] < rater.threshold).astype(float)
+        full = np.linalg.lstsq(np.column_stack([np.ones(y.size), X, below]), y, rcond=None)[0]
+        assert rater.step == pytest.approx(full[-1], rel=1e-9)
+        assert 0 < rater.p_value <= 1
