@@ -235,11 +235,21 @@ class LinearNull:
             prob = self.prob[rows]
             return (rng.random((size, prob.size)) < prob).astype(float)
         mean, sigma = self.mean[rows], self.sigma[rows]
-        latent = mean + sigma * rng.standard_normal((size, mean.size))
+        # in place, in the order of mean + sigma * z and lo + step * round((latent - lo) / step)
+        latent = rng.standard_normal((size, mean.size))
+        latent *= sigma
+        latent += mean
         if self.kind == "continuous":
             return latent
         lo = self.scale_min
-        return np.clip(lo + self.step * np.round((latent - lo) / self.step), lo, self.scale_max)
+        latent -= lo
+        if self.step != 1.0:
+            latent /= self.step
+        np.round(latent, out=latent)
+        if self.step != 1.0:
+            latent *= self.step
+        latent += lo
+        return np.clip(latent, lo, self.scale_max, out=latent)
 
 
 def fit_linear_null(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: int, *,

@@ -191,3 +191,16 @@ def test_cutoff_check_by_design_blocks_equals_the_step_search_of_each_rater(shar
         full = np.linalg.lstsq(np.column_stack([np.ones(y.size), X, below]), y, rcond=None)[0]
         assert rater.step == pytest.approx(full[-1], rel=1e-9)
         assert 0 < rater.p_value <= 1
+
+
+@pytest.mark.parametrize("step", [1.0, 0.5])
+def test_null_draws_in_place_equal_the_plain_formula(step):
+    from calibrate.policy.linear_nulls import LinearNull
+
+    rng = np.random.default_rng(2)
+    mean, sigma = rng.normal(4, 2, 50), rng.uniform(0.2, 2, 50)
+    null = LinearNull("rounded", mean, sigma, np.full(50, np.nan), np.ones(50, bool), 1.0, 7.0, step)
+    draws = null.draw(np.random.default_rng(8), 30)
+    latent = mean + sigma * np.random.default_rng(8).standard_normal((30, 50))
+    expected = np.clip(1.0 + step * np.round((latent - 1.0) / step), 1.0, 7.0)
+    assert np.array_equal(draws, expected)
