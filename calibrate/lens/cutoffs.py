@@ -60,6 +60,10 @@ from ..pvalues import holm_adjust
 from ..result_base import ResultMixin
 
 CUTOFF_FLAG = "cutoff_rule"
+#: Panels up to this many tested raters stop each rater's simulation at ``enough_hits``;
+#: larger ones at REDUCED_ENOUGH_HITS (size measured in benchmarks/bench_scale_nulls.py).
+FULL_HITS_UP_TO = 1000
+REDUCED_ENOUGH_HITS = 10
 
 
 @dataclass(frozen=True)
@@ -100,6 +104,7 @@ class CutoffResult(RaterLookup, ResultMixin):
     min_side: int | None   # None: max(5, ceil(0.05 n)) per rater
     cues_searched: tuple[str, ...]
     warnings: tuple[str, ...] = ()
+    reduced_forms: tuple[str, ...] = ()   # plain sentences, one per reduced extra
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([{k: v for k, v in r.to_dict().items() if k != "warnings"}
@@ -264,6 +269,7 @@ def cutoff_check(
     alpha: float = 0.05,
     min_side: int | None = None,
     enough_hits: int | None = 20,
+    scale_down: bool = True,
 ) -> CutoffResult:
     r"""Test each rater for a threshold rule on one cue that a linear policy misses.
 
@@ -284,6 +290,9 @@ def cutoff_check(
     enough_hits : stop simulating for a rater once this many simulated statistics
         reach the observed one (sequential p-value, Besag & Clifford 1991); None runs
         all ``n_sim`` draws.
+    scale_down : on panels of more than :data:`FULL_HITS_UP_TO` raters, stop at
+        :data:`REDUCED_ENOUGH_HITS` instead (still a valid p-value; only ordinary raters'
+        p-values get coarser), as ``reduced_forms`` says; False keeps ``enough_hits``.
 
     Returns
     -------
@@ -314,6 +323,12 @@ def cutoff_check(
         if search and n >= design.n_columns + 2 + 2 * side and np.ptp(rows.y[idx]) > 0:
             sides[g] = side
     nulls = _fit_nulls(rows.X, rows.y, per_rater, list(sides), scale, scale_min, scale_max)
+    reduced: tuple[str, ...] = ()
+    if scale_down and enough_hits and enough_hits > REDUCED_ENOUGH_HITS and len(sides) > FULL_HITS_UP_TO:
+        reduced = (f"Cut-off check: simulation for a rater stops once {REDUCED_ENOUGH_HITS} simulated "
+                   f"values reach its own instead of {enough_hits}, on panels of more than "
+                   f"{FULL_HITS_UP_TO:,} raters.",)
+        enough_hits = REDUCED_ENOUGH_HITS
     results: list[RaterCutoff | None] = [None] * len(rows.raters)
     for g, name in enumerate(rows.raters):
         if g not in sides:
@@ -366,7 +381,7 @@ def cutoff_check(
     adjusted = holm_adjust(np.array([r.p_value for r in results]))
     results = [replace(r, p_adjusted=float(a)) for r, a in zip(results, adjusted)]
     return CutoffResult(tuple(results), alpha, n_sim, min_side,
-                        search_names, tuple(warnings))
+                        search_names, tuple(warnings), reduced)
 
 
 def _untested(name: str, n: int) -> RaterCutoff:

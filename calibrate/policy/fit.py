@@ -50,7 +50,7 @@ public names are importable from here too.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -191,6 +191,7 @@ def fit_policies(
     importance_method: str = "auto",
     inconsistent_below: float = 0.70,
     curvature_resolution: float | None = None,
+    scale_down: bool = True,
 ) -> PolicySet:
     """Fit every rater's policy in one phase, with intervals and diagnostics.
 
@@ -211,6 +212,10 @@ def fit_policies(
     curvature_resolution : on an ordinal scale, the smallest p-value the curvature test
         must be able to tell apart (an audit passes ``alpha / m`` for ``m`` tests in the
         panel); raters with a first p-value at most ``alpha`` get more draws.
+    scale_down : on panels of more than :data:`IMPORTANCE_FULL_UP_TO` raters, the
+        importance intervals come from the first :data:`IMPORTANCE_REDUCED_RESAMPLES`
+        resamples (R_s keeps all ``n_boot``), as ``PolicySet.reduced_forms`` says; False
+        keeps the full form at every size.
 
     Returns
     -------
@@ -251,14 +256,37 @@ def fit_policies(
     curvature_null = _curvature_null(rows.y, scale, scale_min, scale_max)
     patterns = _column_patterns(X_all, rows, G, p)
     seeds = generator.spawn(len(patterns)) if patterns else []
+    n_imp, reduced = _importance_resamples(n_boot, G, scale_down)
     for (active, members), seed in zip(patterns, seeds):
         _fit_pattern(design, rows, X_all, np.asarray(active), members, arrays,
                      n_boot=n_boot, rng=seed, alpha=alpha, method=method, curvature_null=curvature_null,
-                     curvature_resolution=curvature_resolution)
+                     curvature_resolution=curvature_resolution, n_boot_importance=n_imp)
     if scale == "binary":
         _fit_logistic(rows, X_all, arrays)
-    return _assemble(design, rows, arrays, scale=scale, n_boot=n_boot, alpha=alpha,
-                     method=method, inconsistent_below=inconsistent_below)
+    policy_set = _assemble(design, rows, arrays, scale=scale, n_boot=n_boot, alpha=alpha,
+                           method=method, inconsistent_below=inconsistent_below)
+    return replace(policy_set, reduced_forms=reduced)
+
+
+#: Panels up to this many raters get importance intervals from every resample.
+IMPORTANCE_FULL_UP_TO = 1000
+#: Above it, the importance intervals use this many resamples (R_s keeps them all).
+IMPORTANCE_REDUCED_RESAMPLES = 250
+
+
+def _importance_resamples(n_boot: int, n_raters: int, scale_down: bool) -> tuple[int, tuple[str, ...]]:
+    """Resamples behind the importance intervals, and the sentence saying so when fewer.
+
+    The dominance weights of every resample are the largest part of the policy stage on
+    a large panel (2**k subsets per rater and resample); their BCa intervals from 250
+    resamples covered as those from 1,000 in ``benchmarks/bench_importance_resamples.py``.
+    """
+    if not scale_down or n_raters <= IMPORTANCE_FULL_UP_TO or n_boot <= IMPORTANCE_REDUCED_RESAMPLES:
+        return n_boot, ()
+    return IMPORTANCE_REDUCED_RESAMPLES, (
+        f"Cue importance intervals from {IMPORTANCE_REDUCED_RESAMPLES} resamples instead of "
+        f"{n_boot:,} on panels of more than {IMPORTANCE_FULL_UP_TO:,} raters (the R_s intervals "
+        f"keep all {n_boot:,}).",)
 
 
 def _check_options(scale, n_boot, alpha, importance_method) -> None:
@@ -353,7 +381,8 @@ def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution,
 
 
 def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *,
-                 n_boot, rng, alpha, method, curvature_null=None, curvature_resolution=None) -> None:
+                 n_boot, rng, alpha, method, curvature_null=None, curvature_resolution=None,
+                 n_boot_importance=None) -> None:
     p_all = design.n_columns
     for g in members:
         missing_cols = [design.columns[j] for j in range(p_all) if j not in set(active.tolist())]
@@ -492,7 +521,8 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
     if n_boot > 0 and ok.any():
         intervals = case_bootstrap_intervals(
             X, y, groups, ok, rows.case_row[sel], cue_groups, n_boot=n_boot, rng=rng,
-            alpha=alpha, method=method, r2=r2, importance_r2=imp[:, 0, :])
+            alpha=alpha, method=method, r2=r2, importance_r2=imp[:, 0, :],
+            n_boot_importance=n_boot_importance)
         A.r_lo[rows_g], A.r_hi[rows_g] = intervals.r_low, intervals.r_high
         A.imp_lo[np.ix_(rows_g, cue_cols)] = intervals.share_low
         A.imp_hi[np.ix_(rows_g, cue_cols)] = intervals.share_high

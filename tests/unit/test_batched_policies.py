@@ -204,3 +204,54 @@ def test_null_draws_in_place_equal_the_plain_formula(step):
     latent = mean + sigma * np.random.default_rng(8).standard_normal((30, 50))
     expected = np.clip(1.0 + step * np.round((latent - 1.0) / step), 1.0, 7.0)
     assert np.array_equal(draws, expected)
+
+
+def test_importance_intervals_from_fewer_resamples_only_above_the_panel_size(monkeypatch):
+    # The reduced form takes the first resamples of the same draws: R_s intervals unchanged,
+    # the importance intervals equal to those of a full run with that many resamples.
+    import pandas as pd
+
+    from calibrate.data.cues import CueRule, build_cue_design
+    from calibrate.policy import fit as policy_fit
+
+    rng = np.random.default_rng(13)
+    cases = pd.DataFrame(rng.normal(size=(50, 3)), columns=["a", "b", "c"],
+                         index=pd.Index([f"k{i:03d}" for i in range(50)], name="case"))
+    design = build_cue_design(cases, [CueRule("a"), CueRule("b"), CueRule("c")])
+    first = pd.DataFrame([(f"r{r}", c, float(4 + cases.loc[c] @ np.array([0.8, 0.4, 0.2])
+                                           + rng.normal()))
+                          for r in range(6) for c in cases.index], columns=["rater", "case", "judgment"])
+    full = policy_fit.fit_policies(design, first, scale="continuous", n_boot=200, rng=2)
+    assert full.reduced_forms == ()
+    monkeypatch.setattr(policy_fit, "IMPORTANCE_FULL_UP_TO", 5)
+    monkeypatch.setattr(policy_fit, "IMPORTANCE_REDUCED_RESAMPLES", 60)
+    reduced = policy_fit.fit_policies(design, first, scale="continuous", n_boot=200, rng=2)
+    kept = policy_fit.fit_policies(design, first, scale="continuous", n_boot=200, rng=2, scale_down=False)
+    assert "60 resamples instead of 200" in reduced.reduced_forms[0] and kept.reduced_forms == ()
+    short = policy_fit.fit_policies(design, first, scale="continuous", n_boot=60, rng=2)
+    for a, b, c, d in zip(full.raters, reduced.raters, kept.raters, short.raters):
+        assert a.r_ci == b.r_ci == c.r_ci and a.importance_ci == c.importance_ci
+        assert b.importance_ci.keys() == d.importance_ci.keys()
+        np.testing.assert_allclose([b.importance_ci[k] for k in b.importance_ci],
+                                   [d.importance_ci[k] for k in d.importance_ci], **TOL)
+
+
+def test_cutoff_check_stops_sooner_only_above_the_panel_size(monkeypatch):
+    import pandas as pd
+
+    from calibrate.data.cues import CueRule, build_cue_design
+    from calibrate.lens import cutoffs
+
+    rng = np.random.default_rng(5)
+    cases = pd.DataFrame(rng.normal(size=(40, 2)), columns=["a", "b"],
+                         index=pd.Index([f"k{i:03d}" for i in range(40)], name="case"))
+    design = build_cue_design(cases, [CueRule("a"), CueRule("b")])
+    first = pd.DataFrame([(f"r{r}", c, float(np.round(4 + cases.loc[c].sum() + rng.normal())))
+                          for r in range(5) for c in cases.index], columns=["rater", "case", "judgment"])
+    run = lambda **kw: cutoffs.cutoff_check(design, first, rng=1, scale="continuous", n_sim=199, **kw)
+    assert run().reduced_forms == ()
+    monkeypatch.setattr(cutoffs, "FULL_HITS_UP_TO", 3)
+    reduced, full = run(), run(scale_down=False)
+    assert "stops once 10 simulated values" in reduced.reduced_forms[0] and full.reduced_forms == ()
+    assert [r.p_value for r in full.raters] == [r.p_value for r in run(enough_hits=20, scale_down=False).raters]
+    assert [r.p_value for r in reduced.raters] == [r.p_value for r in run(enough_hits=10).raters]
