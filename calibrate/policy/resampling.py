@@ -120,9 +120,10 @@ def weighted_correlations(
         (Xc[..., :, None] * Xc[..., None, :]).reshape(*lead, n, p * p),
         (Xc[..., :, None] * Yc[..., None, :]).reshape(*lead, n, p * R),
     ], axis=-1)
-    # Stacked blocks are small products: numpy's own loop beats many tiny threaded
-    # BLAS calls (measured on 2 cores); one block is one BLAS product.
-    sums = np.einsum("uij,ujk->uik", counts, terms) if lead else counts @ terms
+    # One BLAS product per block, stacked blocks included: with BLAS on one thread (as the
+    # audit runs it, calibrate/threads.py) 20 blocks of 1,200 x 200 by 200 x 82 took 0.026 s
+    # against 0.097 s for numpy's own einsum loop (the same sums to 3e-14).
+    sums = counts @ terms
     total = counts.sum(axis=-1)[..., None]
     x_mean = sums[..., :p] / total
     y_mean = sums[..., p:p + R] / total
