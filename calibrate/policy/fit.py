@@ -214,8 +214,9 @@ def fit_policies(
         panel); raters with a first p-value at most ``alpha`` get more draws.
     scale_down : on panels of more than :data:`IMPORTANCE_FULL_UP_TO` raters, the
         importance intervals come from the first :data:`IMPORTANCE_REDUCED_RESAMPLES`
-        resamples (R_s keeps all ``n_boot``), as ``PolicySet.reduced_forms`` says; False
-        keeps the full form at every size.
+        resamples (R_s keeps all ``n_boot``) and the curvature test's first pass from
+        :data:`CURVATURE_REDUCED_SIMULATIONS` draws, as ``PolicySet.reduced_forms`` says;
+        False keeps the full forms at every size.
 
     Returns
     -------
@@ -257,10 +258,17 @@ def fit_policies(
     patterns = _column_patterns(X_all, rows, G, p)
     seeds = generator.spawn(len(patterns)) if patterns else []
     n_imp, reduced = _importance_resamples(n_boot, G, scale_down)
+    curvature_draws = CURVATURE_SIMULATIONS
+    if scale_down and G > IMPORTANCE_FULL_UP_TO and curvature_null is not None and curvature_null[0] == "rounded":
+        curvature_draws = CURVATURE_REDUCED_SIMULATIONS
+        reduced += (f"Curvature test: {CURVATURE_REDUCED_SIMULATIONS} simulated judgment sets per "
+                    f"rater instead of {CURVATURE_SIMULATIONS} before the extra draws for small "
+                    f"p-values, on panels of more than {IMPORTANCE_FULL_UP_TO:,} raters.",)
     for (active, members), seed in zip(patterns, seeds):
         _fit_pattern(design, rows, X_all, np.asarray(active), members, arrays,
                      n_boot=n_boot, rng=seed, alpha=alpha, method=method, curvature_null=curvature_null,
-                     curvature_resolution=curvature_resolution, n_boot_importance=n_imp)
+                     curvature_resolution=curvature_resolution, n_boot_importance=n_imp,
+                     curvature_draws=curvature_draws)
     if scale == "binary":
         _fit_logistic(rows, X_all, arrays)
     policy_set = _assemble(design, rows, arrays, scale=scale, n_boot=n_boot, alpha=alpha,
@@ -324,6 +332,9 @@ def _column_patterns(X_all, rows: _Rows, G: int, p: int) -> list[tuple[tuple[int
 
 
 CURVATURE_SIMULATIONS = 199
+#: Above IMPORTANCE_FULL_UP_TO raters (an exact Monte Carlo test at any count; its size with
+#: 99 draws is checked in tests/unit/test_scale_nulls.py).
+CURVATURE_REDUCED_SIMULATIONS = 99
 CURVATURE_MAX_DRAWS = 20_000   # bounds the cost of the refinement for very large panels
 CURVATURE_ENOUGH_HITS = 10
 
@@ -340,10 +351,11 @@ def _curvature_null(y, scale, scale_min, scale_max) -> tuple[str, float | None, 
 
 
 def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution, rng,
-                    null=None) -> np.ndarray:
-    """More draws for the raters whose curvature p-value is at most ``alpha`` after the first 199.
+                    null=None, first_draws=CURVATURE_SIMULATIONS) -> np.ndarray:
+    """More draws for the raters whose curvature p-value is at most ``alpha`` after the first ones.
 
-    A panel-wide adjustment compares the smallest p-value with ``alpha / m``; 199 draws
+    ``first_draws`` (199, or 99 in the reduced form) gave ``p_first``. A panel-wide
+    adjustment compares the smallest p-value with ``alpha / m``; 199 draws
     cannot go below 0.005. The raters in question get further draws in doubling rounds
     until ``1 / (1 + draws)`` is at most a fifth of ``resolution`` (capped at
     ``CURVATURE_MAX_DRAWS``); a rater leaves once ``CURVATURE_ENOUGH_HITS`` simulated
@@ -353,8 +365,8 @@ def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution,
     p-value as ``p (1 + draws) - 1``, exact when every simulated set gives a defined
     statistic (sets with every judgment at one end are the exception).
     """
-    hits = np.round(p_first * (1 + CURVATURE_SIMULATIONS) - 1)
-    draws = np.full(p_first.size, float(CURVATURE_SIMULATIONS))
+    hits = np.round(p_first * (1 + first_draws) - 1)
+    draws = np.full(p_first.size, float(first_draws))
     active = np.isfinite(p_first) & (p_first <= alpha)
     target = min(int(np.ceil(5.0 / resolution)) - 1, CURVATURE_MAX_DRAWS)
     size = 400
@@ -374,7 +386,7 @@ def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution,
         active[candidates[~good]] = False
         active &= hits < CURVATURE_ENOUGH_HITS
         size *= 2
-    refined = np.isfinite(p_first) & (draws > CURVATURE_SIMULATIONS)
+    refined = np.isfinite(p_first) & (draws > first_draws)
     out = p_first.copy()
     out[refined] = (1.0 + hits[refined]) / (1.0 + draws[refined])
     return out
@@ -382,7 +394,7 @@ def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution,
 
 def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *,
                  n_boot, rng, alpha, method, curvature_null=None, curvature_resolution=None,
-                 n_boot_importance=None) -> None:
+                 n_boot_importance=None, curvature_draws=CURVATURE_SIMULATIONS) -> None:
     p_all = design.n_columns
     for g in members:
         missing_cols = [design.columns[j] for j in range(p_all) if j not in set(active.tolist())]
@@ -500,11 +512,11 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
         kind, low, high = curvature_null
         null = fit_linear_null(X, y, groups, Gb, kind=kind, scale_min=low, scale_max=high)
         _, scale_p = dg.scale_reset_p(X, y, groups, Gb, kind=kind, scale_min=low, scale_max=high,
-                                      n_sim=CURVATURE_SIMULATIONS, rng=rng.spawn(1)[0], null=null)
+                                      n_sim=curvature_draws, rng=rng.spawn(1)[0], null=null)
         if curvature_resolution is not None:
             scale_p = _refine_scale_p(X, y, groups, scale_p, curvature_null, alpha=alpha,
                                       resolution=curvature_resolution, rng=rng.spawn(1)[0],
-                                      null=null)
+                                      null=null, first_draws=curvature_draws)
         A.reset_p[rows_g] = np.where(ok, scale_p, np.nan)
     top = dg.top_rows_per_group(groups, np.abs(influence.studentized), N_LOOK_AGAIN)
     case_ids = design.case_ids

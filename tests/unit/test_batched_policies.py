@@ -255,3 +255,27 @@ def test_cutoff_check_stops_sooner_only_above_the_panel_size(monkeypatch):
     assert "stops once 10 simulated values" in reduced.reduced_forms[0] and full.reduced_forms == ()
     assert [r.p_value for r in full.raters] == [r.p_value for r in run(enough_hits=20, scale_down=False).raters]
     assert [r.p_value for r in reduced.raters] == [r.p_value for r in run(enough_hits=10).raters]
+
+
+def test_curvature_first_pass_uses_fewer_draws_only_above_the_panel_size(monkeypatch):
+    import pandas as pd
+
+    from calibrate.data.cues import CueRule, build_cue_design
+    from calibrate.policy import fit as policy_fit
+
+    rng = np.random.default_rng(19)
+    cases = pd.DataFrame(rng.normal(size=(40, 2)), columns=["a", "b"],
+                         index=pd.Index([f"k{i:03d}" for i in range(40)], name="case"))
+    design = build_cue_design(cases, [CueRule("a"), CueRule("b")])
+    first = pd.DataFrame([(f"r{r}", c, float(np.clip(np.round(4 + cases.loc[c].sum() + rng.normal()), 1, 7)))
+                          for r in range(4) for c in cases.index], columns=["rater", "case", "judgment"])
+    run = lambda **kw: policy_fit.fit_policies(design, first, scale="ordinal", scale_min=1, scale_max=7,
+                                               n_boot=0, rng=4, **kw)
+    monkeypatch.setattr(policy_fit, "IMPORTANCE_FULL_UP_TO", 3)
+    reduced, full = run(), run(scale_down=False)
+    assert any("99 simulated judgment sets" in t for t in reduced.reduced_forms)
+    assert full.reduced_forms == ()
+    p_reduced = np.array([r.reset["p_value"] for r in reduced.raters])
+    p_full = np.array([r.reset["p_value"] for r in full.raters])
+    assert np.allclose(p_reduced * 100, np.round(p_reduced * 100))   # steps of 1/100: 99 draws
+    assert not np.array_equal(p_reduced, p_full) and np.all((0 < p_full) & (p_full <= 1))
