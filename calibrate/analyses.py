@@ -210,7 +210,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     policies = (fit_policies(design, fit_first, scale=fit_kind, scale_min=lo if ordinal else None,
                              scale_max=hi if ordinal else None, n_boot=n_boot,
                              rng=_rng(seed, phase_index, "policy"),
-                             curvature_resolution=resolution) if len(fit_first) else None)
+                             curvature_resolution=resolution, scale_down=not full_extras)
+                if len(fit_first) else None)
     step("test-retest")
     retest_set = retest(ph.repeats, scale=kind, scale_min=lo, scale_max=hi)
     if ph.repeat_mode == "all" and len(ph.presentations):
@@ -241,7 +242,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     step("cut-off rules")
     cutoff_draws = int(min(max(999, np.ceil(10.0 / resolution) - 1), CUTOFF_MAX_DRAWS))
     cutoffs = (cutoff_check(design, fit_first, rng=_rng(seed, phase_index, "cutoffs"), scale=fit_kind,
-                            scale_min=lo, scale_max=hi, n_sim=cutoff_draws) if len(fit_first) else None)
+                            scale_min=lo, scale_max=hi, n_sim=cutoff_draws, scale_down=not full_extras)
+               if len(fit_first) else None)
     drift_result = None
     if spec.role("sequence") is not None and len(fit_first):
         step("drift")
@@ -384,7 +386,9 @@ def _group_pairs_written(a: PhaseAnalyses, full_extras: bool) -> bool:
 
 def _reduced_forms(a: PhaseAnalyses, full_extras: bool) -> list[str]:
     """Plain statements of every extra that ran in a reduced form on this panel size."""
-    out = list(a.grouping.reduced_forms) if a.grouping is not None else []
+    out = list(a.policies.reduced_forms) if a.policies is not None else []
+    out += list(a.cutoffs.reduced_forms) if a.cutoffs is not None else []
+    out += list(a.grouping.reduced_forms) if a.grouping is not None else []
     if a.grouping is not None and a.grouping.n_pairs and not _group_pairs_written(a, full_extras):
         out.append(f"How often each pair of raters shared a group ({a.grouping.n_pairs:,} pairs) "
                    f"is left out of the tables on panels of more than {GROUP_PAIRS_MAX_RATERS} "
@@ -472,9 +476,13 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
         # The grouping warns of its own reductions; the left-out pair table is the audit's.
-        left_out = [t for t in panels[-1]["reduced_forms"]
-                    if a.grouping is None or t not in a.grouping.reduced_forms]
+        own = {"policies": list(a.policies.reduced_forms) if a.policies is not None else [],
+               "cutoffs": list(a.cutoffs.reduced_forms) if a.cutoffs is not None else []}
+        left_out = [t for t in panels[-1]["reduced_forms"] if t not in own["policies"] + own["cutoffs"]
+                    and (a.grouping is None or t not in a.grouping.reduced_forms)]
         warnings += _study_warnings(ph.name, "grouping", left_out)
+        for name, texts in own.items():
+            warnings += _study_warnings(ph.name, name, texts)
         _collect_tables(tables, ph, a, full_extras)
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))

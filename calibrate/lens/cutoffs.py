@@ -36,7 +36,10 @@ The last two are parametric bootstraps (Efron & Tibshirani 1993, ch. 16), approx
 because the null's parameters are estimated; their size is measured in
 ``benchmarks/bench_scale_nulls.py``. Simulated sets whose statistic is undefined (every
 judgment equal) are left out of the share. The null is fitted for all raters at once;
-the threshold search then runs per rater, batched over simulations. Simulation stops
+raters who read the same cases share one plan of thresholds, and the search runs on the
+simulated sets of many raters at once, in rounds (40 sets, then twice as many each round;
+one generator draws every round's sets, so a rater's draws depend on the panel, as they did
+when raters drew one after another). Simulation stops
 early for a rater once enough simulated values have reached the observed one (Besag &
 Clifford 1991), so ordinary raters cost a few dozen draws and only raters near or past
 the cut-off get all ``n_sim``.
@@ -57,6 +60,10 @@ from ..pvalues import holm_adjust
 from ..result_base import ResultMixin
 
 CUTOFF_FLAG = "cutoff_rule"
+#: Panels up to this many tested raters stop each rater's simulation at ``enough_hits``;
+#: larger ones at REDUCED_ENOUGH_HITS (size measured in benchmarks/bench_scale_nulls.py).
+FULL_HITS_UP_TO = 1000
+REDUCED_ENOUGH_HITS = 10
 
 
 @dataclass(frozen=True)
@@ -97,6 +104,7 @@ class CutoffResult(RaterLookup, ResultMixin):
     min_side: int | None   # None: max(5, ceil(0.05 n)) per rater
     cues_searched: tuple[str, ...]
     warnings: tuple[str, ...] = ()
+    reduced_forms: tuple[str, ...] = ()   # plain sentences, one per reduced extra
 
     def to_frame(self) -> pd.DataFrame:
         return pd.DataFrame([{k: v for k, v in r.to_dict().items() if k != "warnings"}
@@ -195,32 +203,51 @@ def step_search(X: np.ndarray, responses: np.ndarray, search_columns: list[int],
     return _best_steps(_plan_steps(X, search_columns, min_side), responses, locate=True)
 
 
-def sequential_p_value(plan: _StepPlan, observed: float, simulate, n_sim: int,
-                       enough_hits: int | None, chunk: int = 100) -> float:
-    """Monte Carlo p-value that stops early once the observed value is clearly ordinary.
+def sequential_p_values(plan: _StepPlan, observed: np.ndarray, simulate, n_sim: int,
+                        enough_hits: int | None, first_chunk: int = 40,
+                        max_floats: int = 250_000) -> np.ndarray:
+    """Monte Carlo p-values of raters who share one design, stopping early per rater.
 
-    Simulated statistics are drawn in chunks. With ``enough_hits = h``, simulation
-    stops at the ``l``-th draw when ``h`` draws have reached the observed value and
-    the p-value is ``h / l``; otherwise it is ``(1 + g) / (1 + n_sim)`` with ``g`` hits
-    in all ``n_sim`` draws (draws whose statistic is undefined not counted). Both are
-    valid p-values (Besag & Clifford 1991,
-    Biometrika 78:301-304, from memory); a rater whose pattern is ordinary costs a
-    few dozen draws instead of ``n_sim``.
+    ``simulate(size, raters)`` returns ``(size, len(raters), n)`` simulated judgment sets
+    of the listed raters (positions in ``observed``). Rounds draw for every rater still
+    running at once (the first ``first_chunk`` sets, then twice as many each round), so
+    one threshold search serves many raters. With ``enough_hits = h``, a rater stops at
+    its ``l``-th usable draw once ``h`` draws have reached its observed value, with
+    p-value ``h / l``; otherwise ``(1 + g) / (1 + usable)`` with ``g`` hits in all
+    ``n_sim`` draws (draws whose statistic is undefined not counted). Both are valid
+    p-values (Besag & Clifford 1991, Biometrika 78:301-304, from memory); a rater whose
+    pattern is ordinary costs a few dozen draws instead of ``n_sim``.
     """
-    hits, drawn, usable = 0, 0, 0
-    margin = observed - 1e-12 * abs(observed)
-    while drawn < n_sim:
-        size = min(chunk, n_sim - drawn)
-        stat, _ = _best_steps(plan, simulate(size))
-        stat = stat[np.isfinite(stat)]    # an undefined statistic is no draw of the null
-        reached = np.flatnonzero(stat >= margin)
-        if enough_hits and hits + reached.size >= enough_hits:
-            last = reached[enough_hits - hits - 1]
-            return enough_hits / (usable + last + 1)
-        hits += reached.size
-        usable += stat.size
+    n = plan.Q.shape[0]
+    p_value = np.full(observed.size, np.nan)
+    hits, usable = np.zeros(observed.size), np.zeros(observed.size)
+    margin = observed - 1e-12 * np.abs(observed)
+    running = np.arange(observed.size)
+    drawn, size = 0, first_chunk
+    while running.size and drawn < n_sim:
+        size = min(size, n_sim - drawn)
+        stat = np.empty((running.size, size))
+        per_call = max(1, max_floats // (size * n))   # bounds the memory of one search
+        for start in range(0, running.size, per_call):
+            some = running[start:start + per_call]
+            sets = simulate(size, some)
+            found, _ = _best_steps(plan, np.swapaxes(sets, 0, 1).reshape(-1, n))
+            stat[start:start + some.size] = found.reshape(some.size, size)
+        finite = np.isfinite(stat)   # an undefined statistic is no draw of the null
+        so_far = hits[running, None] + np.cumsum(finite & (stat >= margin[running, None]), axis=1)
+        seen = usable[running, None] + np.cumsum(finite, axis=1)
+        stopped = np.zeros(running.size, dtype=bool)
+        if enough_hits:
+            enough = so_far >= enough_hits
+            stopped = enough.any(axis=1)
+            at = np.argmax(enough, axis=1)
+            p_value[running[stopped]] = enough_hits / seen[stopped, at[stopped]]
+        hits[running], usable[running] = so_far[:, -1], seen[:, -1]
+        running = running[~stopped]
         drawn += size
-    return (1.0 + hits) / (1.0 + usable)
+        size *= 2
+    p_value[running] = (1.0 + hits[running]) / (1.0 + usable[running])
+    return p_value
 
 
 def step_coefficient(X: np.ndarray, y: np.ndarray, below: np.ndarray) -> float:
@@ -242,6 +269,7 @@ def cutoff_check(
     alpha: float = 0.05,
     min_side: int | None = None,
     enough_hits: int | None = 20,
+    scale_down: bool = True,
 ) -> CutoffResult:
     r"""Test each rater for a threshold rule on one cue that a linear policy misses.
 
@@ -262,6 +290,9 @@ def cutoff_check(
     enough_hits : stop simulating for a rater once this many simulated statistics
         reach the observed one (sequential p-value, Besag & Clifford 1991); None runs
         all ``n_sim`` draws.
+    scale_down : on panels of more than :data:`FULL_HITS_UP_TO` raters, stop at
+        :data:`REDUCED_ENOUGH_HITS` instead (still a valid p-value; only ordinary raters'
+        p-values get coarser), as ``reduced_forms`` says; False keeps ``enough_hits``.
 
     Returns
     -------
@@ -282,7 +313,9 @@ def cutoff_check(
     warnings: list[str] = []
     if not search:
         warnings.append("No numeric cue to search for a threshold; the cutoff check was not run.")
-    per_rater = rows.rows_of_each_rater()
+    # each rater's rows in design order, so that raters who read the same cases line up
+    order = np.lexsort((rows.design_row, rows.group))
+    per_rater = np.split(order, np.cumsum(rows.counts())[:-1])
     sides = {}
     for g, idx in enumerate(per_rater):
         n = idx.size
@@ -290,56 +323,91 @@ def cutoff_check(
         if search and n >= design.n_columns + 2 + 2 * side and np.ptp(rows.y[idx]) > 0:
             sides[g] = side
     nulls = _fit_nulls(rows.X, rows.y, per_rater, list(sides), scale, scale_min, scale_max)
-    results = []
+    reduced: tuple[str, ...] = ()
+    if scale_down and enough_hits and enough_hits > REDUCED_ENOUGH_HITS and len(sides) > FULL_HITS_UP_TO:
+        reduced = (f"Cut-off check: simulation for a rater stops once {REDUCED_ENOUGH_HITS} simulated "
+                   f"values reach its own instead of {enough_hits}, on panels of more than "
+                   f"{FULL_HITS_UP_TO:,} raters.",)
+        enough_hits = REDUCED_ENOUGH_HITS
+    results: list[RaterCutoff | None] = [None] * len(rows.raters)
     for g, name in enumerate(rows.raters):
-        idx = per_rater[g]
-        X, y = rows.X[idx], rows.y[idx]
-        n = y.size
-        empty = RaterCutoff(name, n, None, float("nan"), 0, float("nan"), float("nan"),
-                            float("nan"), float("nan"), float("nan"), False)
         if g not in sides:
-            results.append(replace(empty, warnings=(
-                f"Rater '{name}': {n} cases (or constant judgments) are too few for the cutoff check.",)))
+            n = per_rater[g].size
+            results[g] = replace(_untested(name, n), warnings=(
+                f"Rater '{name}': {n} cases (or constant judgments) are too few for the cutoff check.",))
+    # Raters who read the same cases share one plan of thresholds and one search per draw.
+    blocks: dict[tuple[bytes, int], list[int]] = {}
+    for g, side in sides.items():
+        blocks.setdefault((rows.design_row[per_rater[g]].tobytes(), side), []).append(g)
+    for (_, side), members in blocks.items():
+        X = rows.X[per_rater[members[0]]]
+        plan = _plan_steps(X, search, side)
+        Y = np.stack([rows.y[per_rater[g]] for g in members])
+        stat, where = _best_steps(plan, Y, locate=True)
+        tested = []
+        for i, g in enumerate(members):
+            name, n = rows.raters[g], Y.shape[1]
+            null, null_rows = nulls[g]
+            if not np.isfinite(stat[i]):
+                results[g] = replace(_untested(name, n), warnings=(
+                    f"Rater '{name}': no admissible threshold on any numeric cue.",))
+            elif not null.usable[null_rows].all():
+                results[g] = replace(_untested(name, n), warnings=(
+                    f"Rater '{name}': the cues all but fix every decision (the logistic weights run "
+                    "off to infinity), so no straight-line policy can be simulated; the cutoff "
+                    "check was not run.",)
+                    if null.kind == "binary" else (
+                    f"Rater '{name}': the straight-line policy could not be fitted; the cutoff "
+                    "check was not run.",))
+            else:
+                tested.append(i)
+        if not tested:
             continue
-        plan = _plan_steps(X, search, sides[g])
-        stat, where = _best_steps(plan, y[None, :], locate=True)
-        observed = stat[0]
-        if not np.isfinite(observed):
-            results.append(replace(empty, warnings=(
-                f"Rater '{name}': no admissible threshold on any numeric cue.",)))
-            continue
-        null, null_rows = nulls[g]
-        if not null.usable[null_rows].all():
-            results.append(replace(empty, warnings=(
-                f"Rater '{name}': the cues all but fix every decision (the logistic weights run "
-                "off to infinity), so no straight-line policy can be simulated; the cutoff "
-                "check was not run.",)
-                if null.kind == "binary" else (
-                f"Rater '{name}': the straight-line policy could not be fitted; the cutoff "
-                "check was not run.",)))
-            continue
-        p_value = sequential_p_value(plan, observed, lambda size: null.draw(rng, size, null_rows),
-                                     n_sim, enough_hits)
-        column = search[where[0, 0]]
-        order = np.argsort(X[:, column], kind="stable")
-        below_count = int(where[0, 1])
-        xs = X[order, column]
-        threshold = 0.5 * (xs[below_count - 1] + xs[below_count])
-        below = X[:, column] < threshold
-        tss = float(((y - y.mean()) ** 2).sum())
-        linear = np.column_stack([np.ones(n), X])
-        coef, *_ = np.linalg.lstsq(linear, y, rcond=None)
-        rss0 = float(((y - linear @ coef) ** 2).sum())
-        results.append(RaterCutoff(
-            rater=name, n=n, cue=design.cue_of_column[column], threshold=float(threshold),
-            n_below=int(below.sum()), step=step_coefficient(X, y, below),
-            delta_r2=float(observed * rss0 / tss), statistic=float(observed),
-            p_value=float(p_value), p_adjusted=float("nan"), flagged=bool(p_value < alpha),
-        ))
+        tested = np.array(tested)
+
+        # the same cases vary the same columns, so the block's raters share one fitted null
+        null = nulls[members[0]][0]
+        null_rows = [np.arange(nulls[members[i]][1].start, nulls[members[i]][1].stop) for i in tested]
+
+        def simulate(size, which, null=null, null_rows=null_rows):
+            picked = np.concatenate([null_rows[i] for i in which])
+            return null.draw(rng, size, picked).reshape(size, which.size, -1)
+
+        p_values = sequential_p_values(plan, stat[tested], simulate, n_sim, enough_hits)
+        for i, p_value in zip(tested, p_values):
+            g = members[i]
+            results[g] = _rater_result(rows.raters[g], X, Y[i], search, where[i], stat[i],
+                                       p_value, design, alpha)
     adjusted = holm_adjust(np.array([r.p_value for r in results]))
     results = [replace(r, p_adjusted=float(a)) for r, a in zip(results, adjusted)]
     return CutoffResult(tuple(results), alpha, n_sim, min_side,
-                        search_names, tuple(warnings))
+                        search_names, tuple(warnings), reduced)
+
+
+def _untested(name: str, n: int) -> RaterCutoff:
+    return RaterCutoff(name, n, None, float("nan"), 0, float("nan"), float("nan"),
+                       float("nan"), float("nan"), float("nan"), False)
+
+
+def _rater_result(name, X, y, search, where, observed, p_value, design, alpha) -> RaterCutoff:
+    """One tested rater's best threshold, its step and gain, and the p-value."""
+    n = y.size
+    column = search[where[0]]
+    order = np.argsort(X[:, column], kind="stable")
+    below_count = int(where[1])
+    xs = X[order, column]
+    threshold = 0.5 * (xs[below_count - 1] + xs[below_count])
+    below = X[:, column] < threshold
+    tss = float(((y - y.mean()) ** 2).sum())
+    linear = np.column_stack([np.ones(n), X])
+    coef, *_ = np.linalg.lstsq(linear, y, rcond=None)
+    rss0 = float(((y - linear @ coef) ** 2).sum())
+    return RaterCutoff(
+        rater=name, n=n, cue=design.cue_of_column[column], threshold=float(threshold),
+        n_below=int(below.sum()), step=step_coefficient(X, y, below),
+        delta_r2=float(observed * rss0 / tss), statistic=float(observed),
+        p_value=float(p_value), p_adjusted=float("nan"), flagged=bool(p_value < alpha),
+    )
 
 
 def _fit_nulls(X_all: np.ndarray, y_all: np.ndarray, per_rater: list[np.ndarray],

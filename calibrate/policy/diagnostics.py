@@ -37,7 +37,7 @@ from scipy import special
 from scipy import stats as sps
 
 from .linalg import BatchedOLS, GroupedSSCP, grouped_products, grouped_sscp, ols_from_sscp
-from .linear_nulls import fit_linear_null
+from .linear_nulls import LinearNull, fit_linear_null
 from .logistic import fit_logistic
 
 FEW_CASES_PER_WEIGHT = 10.0
@@ -238,6 +238,8 @@ class _SharedCueBlocks:
                                      np.arange(p), p).rank_ok
         safe = np.where(self.rank_ok[:, None, None], centred, 0.0)
         self.basis = np.linalg.qr(safe)[0]
+        self.basis_t = np.ascontiguousarray(np.swapaxes(self.basis, 1, 2))
+        self.padded = bool((self.mask == 0).any())
         self.p = p
 
     def block(self, values: np.ndarray) -> np.ndarray:
@@ -249,11 +251,8 @@ class _SharedCueBlocks:
     def centred(self, block: np.ndarray) -> np.ndarray:
         with np.errstate(invalid="ignore", divide="ignore"):
             mean = block.sum(axis=1) / self.n[:, None]
-        return (block - mean[:, None, :]) * self.mask[:, :, None]
-
-    def project(self, block: np.ndarray) -> np.ndarray:
-        """The part of each (centred) column that the group's cues explain."""
-        return np.matmul(self.basis, np.matmul(np.swapaxes(self.basis, 1, 2), block))
+        centred = block - mean[:, None, :]
+        return centred * self.mask[:, :, None] if self.padded else centred
 
 
 def reset_statistics_shared_cues(cues: _SharedCueBlocks, Y: np.ndarray,
@@ -262,26 +261,34 @@ def reset_statistics_shared_cues(cues: _SharedCueBlocks, Y: np.ndarray,
 
     The same statistic as :func:`reset_statistic` (restricted fit on the cues, the squared
     and cubed standardized fitted values added; Ramsey 1969), computed by projections on
-    the group's orthonormalised cues: ``RSS_0 = |y_c|^2 - |Q'y_c|^2`` and
+    the group's orthonormalised cues ``Q``: ``RSS_0 = |y_c|^2 - |Q'y_c|^2`` and
     ``RSS_1 = RSS_0 - b' A^{-1} b`` with the powers' parts outside the cues ``W``,
-    ``A = W'W`` and ``b = W'y_c``. A power that the cues and the other power explain to
-    within ``rcond`` of its own spread counts as collinear (NaN, as the direct fit).
+    ``A = W'W`` and ``b = W'y_c``. Only the fitted values go back to the rows; every other
+    inner product follows from the power sums and the coefficients on ``Q``
+    (``W_1'W_2 = v_1'v_2 - n mean(v_1) mean(v_2) - (Q'v_1)'(Q'v_2)``, ``Q`` being centred).
+    A power that the cues and the other power explain to within ``rcond`` of its own
+    spread counts as collinear (NaN, as the direct fit).
     """
     y = cues.centred(cues.block(Y))
-    fitted = cues.project(y)
-    rss0 = np.maximum((y * y).sum(axis=1) - (fitted * fitted).sum(axis=1), 0.0)
+    on_y = np.matmul(cues.basis_t, y)                 # Q'y, (groups, p, sets)
+    fitted = np.matmul(cues.basis, on_y)             # zero on padding slots
+    explained0 = np.einsum("gps,gps->gs", on_y, on_y)
+    rss0 = np.maximum(np.einsum("gls,gls->gs", y, y) - explained0, 0.0)
+    n = cues.n[:, None]
     with np.errstate(invalid="ignore", divide="ignore"):
-        sd = np.sqrt((fitted * fitted).sum(axis=1) / cues.n[:, None])
-        z = fitted / sd[:, None, :]
-    square = cues.centred(np.where(cues.mask[:, :, None] > 0, z * z, 0.0))
-    cube = cues.centred(np.where(cues.mask[:, :, None] > 0, z * z * z, 0.0))
-    own = ((square * square).sum(axis=1), (cube * cube).sum(axis=1))
-    square = square - cues.project(square)
-    cube = cube - cues.project(cube)
-    a11, a22, a12 = ((square * square).sum(axis=1), (cube * cube).sum(axis=1),
-                     (square * cube).sum(axis=1))
-    b1, b2 = (square * y).sum(axis=1), (cube * y).sum(axis=1)
+        z = fitted / np.sqrt(explained0 / n)[:, None, :]
+    square = z * z
+    cube = square * z
+    on_square, on_cube = np.matmul(cues.basis_t, square), np.matmul(cues.basis_t, cube)
+    dot = lambda u, v: np.einsum("gls,gls->gs", u, v)
+    s2, s3 = square.sum(axis=1), cube.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
+        own = (dot(square, square) - s2 * s2 / n, dot(cube, cube) - s3 * s3 / n)
+        a11 = own[0] - np.einsum("gps,gps->gs", on_square, on_square)
+        a22 = own[1] - np.einsum("gps,gps->gs", on_cube, on_cube)
+        a12 = dot(square, cube) - s2 * s3 / n - np.einsum("gps,gps->gs", on_square, on_cube)
+        b1 = dot(square, y) - np.einsum("gps,gps->gs", on_square, on_y)
+        b2 = dot(cube, y) - np.einsum("gps,gps->gs", on_cube, on_y)
         det = a11 * a22 - a12 * a12
         explained = (a22 * b1 * b1 - 2.0 * a12 * b1 * b2 + a11 * b2 * b2) / det
         rss1 = np.maximum(rss0 - explained, 0.0)
@@ -296,7 +303,8 @@ def scale_reset_p(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: in
                   kind: str = "rounded", scale_min: float | None = None,
                   scale_max: float | None = None, step: float = 1.0, n_sim: int = 199,
                   rng: np.random.Generator | int | None = None,
-                  max_rows: int = 2_000_000) -> tuple[np.ndarray, np.ndarray]:
+                  max_rows: int = 2_000_000, null: LinearNull | None = None
+                  ) -> tuple[np.ndarray, np.ndarray]:
     """RESET p-value whose null respects the judgment scale; returns ``(F, p)``.
 
     A parametric bootstrap test (Efron & Tibshirani 1993, ch. 16): the null is each
@@ -308,13 +316,15 @@ def scale_reset_p(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: in
     produces judgments, and the same RESET F is recomputed on each.
     ``p = (1 + #{F* >= F}) / (n_sim + 1)``. Simulated sets whose statistic is undefined
     (for example every judgment at one end) are left out of that share; a group whose
-    null cannot be drawn (``LinearNull.usable``) gets NaN. Rows sorted by group.
+    null cannot be drawn (``LinearNull.usable``) gets NaN. Rows sorted by group. ``null``,
+    when given, is that fit already made (of ``kind``, for these rows).
     """
     rng = np.random.default_rng(rng)
     cues = _SharedCueBlocks(X, groups, n_groups)
     observed = reset_statistics_shared_cues(cues, y[None, :])[0]
-    null = fit_linear_null(X, y, groups, n_groups, kind=kind, scale_min=scale_min,
-                           scale_max=scale_max, step=step)
+    if null is None:
+        null = fit_linear_null(X, y, groups, n_groups, kind=kind, scale_min=scale_min,
+                               scale_max=scale_max, step=step)
     exceed = np.zeros(n_groups)
     usable = np.zeros(n_groups)
     m = y.size

@@ -50,7 +50,7 @@ public names are importable from here too.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -64,7 +64,7 @@ from ..result_base import jsonable
 from . import diagnostics as dg
 from .importance import MAX_DOMINANCE_CUES, cue_importance, importance_shares, relative_weights
 from .linalg import grouped_sscp, ols_from_sscp
-from .linear_nulls import whole_step_bounds
+from .linear_nulls import fit_linear_null, whole_step_bounds
 from .logistic import fit_logistic
 from .resampling import bca_interval, case_bootstrap_intervals
 from .results import CaseToReview, LogisticPolicy, PolicySet, PredictionTerms, RaterPolicy
@@ -191,6 +191,7 @@ def fit_policies(
     importance_method: str = "auto",
     inconsistent_below: float = 0.70,
     curvature_resolution: float | None = None,
+    scale_down: bool = True,
 ) -> PolicySet:
     """Fit every rater's policy in one phase, with intervals and diagnostics.
 
@@ -211,6 +212,11 @@ def fit_policies(
     curvature_resolution : on an ordinal scale, the smallest p-value the curvature test
         must be able to tell apart (an audit passes ``alpha / m`` for ``m`` tests in the
         panel); raters with a first p-value at most ``alpha`` get more draws.
+    scale_down : on panels of more than :data:`IMPORTANCE_FULL_UP_TO` raters, the
+        importance intervals come from the first :data:`IMPORTANCE_REDUCED_RESAMPLES`
+        resamples (R_s keeps all ``n_boot``) and the curvature test's first pass from
+        :data:`CURVATURE_REDUCED_SIMULATIONS` draws, as ``PolicySet.reduced_forms`` says;
+        False keeps the full forms at every size.
 
     Returns
     -------
@@ -251,14 +257,44 @@ def fit_policies(
     curvature_null = _curvature_null(rows.y, scale, scale_min, scale_max)
     patterns = _column_patterns(X_all, rows, G, p)
     seeds = generator.spawn(len(patterns)) if patterns else []
+    n_imp, reduced = _importance_resamples(n_boot, G, scale_down)
+    curvature_draws = CURVATURE_SIMULATIONS
+    if scale_down and G > IMPORTANCE_FULL_UP_TO and curvature_null is not None and curvature_null[0] == "rounded":
+        curvature_draws = CURVATURE_REDUCED_SIMULATIONS
+        reduced += (f"Curvature test: {CURVATURE_REDUCED_SIMULATIONS} simulated judgment sets per "
+                    f"rater instead of {CURVATURE_SIMULATIONS} before the extra draws for small "
+                    f"p-values, on panels of more than {IMPORTANCE_FULL_UP_TO:,} raters.",)
     for (active, members), seed in zip(patterns, seeds):
         _fit_pattern(design, rows, X_all, np.asarray(active), members, arrays,
                      n_boot=n_boot, rng=seed, alpha=alpha, method=method, curvature_null=curvature_null,
-                     curvature_resolution=curvature_resolution)
+                     curvature_resolution=curvature_resolution, n_boot_importance=n_imp,
+                     curvature_draws=curvature_draws)
     if scale == "binary":
         _fit_logistic(rows, X_all, arrays)
-    return _assemble(design, rows, arrays, scale=scale, n_boot=n_boot, alpha=alpha,
-                     method=method, inconsistent_below=inconsistent_below)
+    policy_set = _assemble(design, rows, arrays, scale=scale, n_boot=n_boot, alpha=alpha,
+                           method=method, inconsistent_below=inconsistent_below)
+    return replace(policy_set, reduced_forms=reduced)
+
+
+#: Panels up to this many raters get importance intervals from every resample.
+IMPORTANCE_FULL_UP_TO = 1000
+#: Above it, the importance intervals use this many resamples (R_s keeps them all).
+IMPORTANCE_REDUCED_RESAMPLES = 250
+
+
+def _importance_resamples(n_boot: int, n_raters: int, scale_down: bool) -> tuple[int, tuple[str, ...]]:
+    """Resamples behind the importance intervals, and the sentence saying so when fewer.
+
+    The dominance weights of every resample are the largest part of the policy stage on
+    a large panel (2**k subsets per rater and resample); their BCa intervals from 250
+    resamples covered as those from 1,000 in ``benchmarks/bench_importance_resamples.py``.
+    """
+    if not scale_down or n_raters <= IMPORTANCE_FULL_UP_TO or n_boot <= IMPORTANCE_REDUCED_RESAMPLES:
+        return n_boot, ()
+    return IMPORTANCE_REDUCED_RESAMPLES, (
+        f"Cue importance intervals from {IMPORTANCE_REDUCED_RESAMPLES} resamples instead of "
+        f"{n_boot:,} on panels of more than {IMPORTANCE_FULL_UP_TO:,} raters (the R_s intervals "
+        f"keep all {n_boot:,}).",)
 
 
 def _check_options(scale, n_boot, alpha, importance_method) -> None:
@@ -296,6 +332,9 @@ def _column_patterns(X_all, rows: _Rows, G: int, p: int) -> list[tuple[tuple[int
 
 
 CURVATURE_SIMULATIONS = 199
+#: Above IMPORTANCE_FULL_UP_TO raters (an exact Monte Carlo test at any count; its size with
+#: 99 draws is checked in tests/unit/test_scale_nulls.py).
+CURVATURE_REDUCED_SIMULATIONS = 99
 CURVATURE_MAX_DRAWS = 20_000   # bounds the cost of the refinement for very large panels
 CURVATURE_ENOUGH_HITS = 10
 
@@ -311,10 +350,12 @@ def _curvature_null(y, scale, scale_min, scale_max) -> tuple[str, float | None, 
     return None if bounds is None else ("rounded", *bounds)
 
 
-def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution, rng) -> np.ndarray:
-    """More draws for the raters whose curvature p-value is at most ``alpha`` after the first 199.
+def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution, rng,
+                    null=None, first_draws=CURVATURE_SIMULATIONS) -> np.ndarray:
+    """More draws for the raters whose curvature p-value is at most ``alpha`` after the first ones.
 
-    A panel-wide adjustment compares the smallest p-value with ``alpha / m``; 199 draws
+    ``first_draws`` (199, or 99 in the reduced form) gave ``p_first``. A panel-wide
+    adjustment compares the smallest p-value with ``alpha / m``; 199 draws
     cannot go below 0.005. The raters in question get further draws in doubling rounds
     until ``1 / (1 + draws)`` is at most a fifth of ``resolution`` (capped at
     ``CURVATURE_MAX_DRAWS``); a rater leaves once ``CURVATURE_ENOUGH_HITS`` simulated
@@ -324,8 +365,8 @@ def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution,
     p-value as ``p (1 + draws) - 1``, exact when every simulated set gives a defined
     statistic (sets with every judgment at one end are the exception).
     """
-    hits = np.round(p_first * (1 + CURVATURE_SIMULATIONS) - 1)
-    draws = np.full(p_first.size, float(CURVATURE_SIMULATIONS))
+    hits = np.round(p_first * (1 + first_draws) - 1)
+    draws = np.full(p_first.size, float(first_draws))
     active = np.isfinite(p_first) & (p_first <= alpha)
     target = min(int(np.ceil(5.0 / resolution)) - 1, CURVATURE_MAX_DRAWS)
     size = 400
@@ -337,21 +378,23 @@ def _refine_scale_p(X, y, groups, p_first, curvature_null, *, alpha, resolution,
         rows = local[groups] >= 0
         _, p_more = dg.scale_reset_p(X[rows], y[rows], local[groups[rows]], candidates.size,
                                      kind=curvature_null[0], scale_min=curvature_null[1],
-                                     scale_max=curvature_null[2], n_sim=more, rng=rng)
+                                     scale_max=curvature_null[2], n_sim=more, rng=rng,
+                                     null=None if null is None else null.of_rows(rows))
         good = np.isfinite(p_more)
         hits[candidates[good]] += np.round(p_more[good] * (1 + more) - 1)
         draws[candidates[good]] += more
         active[candidates[~good]] = False
         active &= hits < CURVATURE_ENOUGH_HITS
         size *= 2
-    refined = np.isfinite(p_first) & (draws > CURVATURE_SIMULATIONS)
+    refined = np.isfinite(p_first) & (draws > first_draws)
     out = p_first.copy()
     out[refined] = (1.0 + hits[refined]) / (1.0 + draws[refined])
     return out
 
 
 def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *,
-                 n_boot, rng, alpha, method, curvature_null=None, curvature_resolution=None) -> None:
+                 n_boot, rng, alpha, method, curvature_null=None, curvature_resolution=None,
+                 n_boot_importance=None, curvature_draws=CURVATURE_SIMULATIONS) -> None:
     p_all = design.n_columns
     for g in members:
         missing_cols = [design.columns[j] for j in range(p_all) if j not in set(active.tolist())]
@@ -467,11 +510,13 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
         # seen through the scale instead (own stream, so the bootstrap intervals keep
         # their numbers).
         kind, low, high = curvature_null
+        null = fit_linear_null(X, y, groups, Gb, kind=kind, scale_min=low, scale_max=high)
         _, scale_p = dg.scale_reset_p(X, y, groups, Gb, kind=kind, scale_min=low, scale_max=high,
-                                      n_sim=CURVATURE_SIMULATIONS, rng=rng.spawn(1)[0])
+                                      n_sim=curvature_draws, rng=rng.spawn(1)[0], null=null)
         if curvature_resolution is not None:
             scale_p = _refine_scale_p(X, y, groups, scale_p, curvature_null, alpha=alpha,
-                                      resolution=curvature_resolution, rng=rng.spawn(1)[0])
+                                      resolution=curvature_resolution, rng=rng.spawn(1)[0],
+                                      null=null, first_draws=curvature_draws)
         A.reset_p[rows_g] = np.where(ok, scale_p, np.nan)
     top = dg.top_rows_per_group(groups, np.abs(influence.studentized), N_LOOK_AGAIN)
     case_ids = design.case_ids
@@ -488,7 +533,8 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
     if n_boot > 0 and ok.any():
         intervals = case_bootstrap_intervals(
             X, y, groups, ok, rows.case_row[sel], cue_groups, n_boot=n_boot, rng=rng,
-            alpha=alpha, method=method, r2=r2, importance_r2=imp[:, 0, :])
+            alpha=alpha, method=method, r2=r2, importance_r2=imp[:, 0, :],
+            n_boot_importance=n_boot_importance)
         A.r_lo[rows_g], A.r_hi[rows_g] = intervals.r_low, intervals.r_high
         A.imp_lo[np.ix_(rows_g, cue_cols)] = intervals.share_low
         A.imp_hi[np.ix_(rows_g, cue_cols)] = intervals.share_high

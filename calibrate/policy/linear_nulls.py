@@ -25,12 +25,12 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import special
 
-from .linalg import grouped_products, grouped_sscp, ols_from_sscp
+from .linalg import grouped_sscp, ols_from_sscp
 from .logistic import fit_logistic
 
 NULL_KINDS = ("continuous", "rounded", "binary")
@@ -62,12 +62,16 @@ def _normal_pdf(x: np.ndarray) -> np.ndarray:
 
 def fit_rounded_normal(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: int, *,
                        scale_min: float, scale_max: float, step: float = 1.0,
-                       iterations: int = 60) -> RoundedNormalPolicy:
+                       iterations: int = 60, tol: float = 1e-10) -> RoundedNormalPolicy:
     """Maximum-likelihood interval-censored normal policy for every group at once.
 
-    Newton steps with the outer product of the row scores as the curvature (Berndt, Hall,
-    Hall & Hausman 1974), halved when they would lower a group's likelihood; started from
-    least squares. Batched: no loop over groups.
+    Newton steps on the exact second derivatives of the log-likelihood, in ``(b0, b,
+    log sigma)``; where that matrix is not negative definite (far from the maximum), the
+    outer product of the row scores serves instead (Berndt, Hall, Hall & Hausman 1974).
+    A step is halved while it would lower a group's likelihood; started from least
+    squares. A group stops once its Newton decrement ``g' H^-1 g`` is under ``tol``, and
+    later iterations touch only the groups still moving (the rows sit in a padded
+    (groups, longest) block, laid out once). Batched: no loop over groups.
 
     A rater whose straight line runs inside every judgment's rounding interval has no
     finite maximum (the likelihood rises as sigma falls to 0), so sigma is held at or
@@ -75,58 +79,115 @@ def fit_rounded_normal(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_group
     given, and nothing divides by zero.
     """
     m, p = X.shape
-    log_sigma_floor = np.log(1e-3 * step)
-    W = np.column_stack([np.ones(m), X])
     q = p + 1
-    lower = np.where(y <= scale_min + 1e-9, -np.inf, y - step / 2.0)
-    upper = np.where(y >= scale_max - 1e-9, np.inf, y + step / 2.0)
+    log_sigma_floor = np.log(1e-3 * step)
     start = ols_from_sscp(grouped_sscp(np.column_stack([X, y]), groups, n_groups), np.arange(p), p)
     theta = np.column_stack([start.intercept, start.coef,
                              np.log(np.sqrt(np.maximum(start.rss / start.n, 1e-4)))])
     theta = np.where(np.isfinite(theta), theta, 0.0)
+    rows = _RowBlocks(np.column_stack([np.ones(m), X]), y, groups, n_groups,
+                      scale_min=scale_min, scale_max=scale_max, step=step)
+    converged = np.zeros(n_groups, dtype=bool)
+    active = np.arange(n_groups)
+    ll, grad, hess = rows.loglik(theta, active, derivatives=True)
+    eye = np.eye(q + 1)
+    for _ in range(iterations):
+        direction, decrement = _ascent_direction(grad, hess, eye)
+        done = decrement < tol
+        shrink = np.ones(active.size)
+        pending = np.arange(active.size)
+        trial = theta[active] + direction
+        trial[:, q] = np.maximum(trial[:, q], log_sigma_floor)
+        trial_ll = rows.loglik(trial, active)[0]
+        for _halving in range(8):
+            worse = pending[(trial_ll[pending] < ll[pending] - 1e-12) & ~done[pending]]
+            if worse.size == 0:
+                break
+            shrink[worse] /= 2.0
+            trial[worse] = theta[active[worse]] + shrink[worse, None] * direction[worse]
+            trial[worse, q] = np.maximum(trial[worse, q], log_sigma_floor)
+            trial_ll[worse] = rows.loglik(trial[worse], active[worse])[0]
+            pending = worse
+        accept = trial_ll >= ll - 1e-12
+        theta[active[accept]] = trial[accept]
+        converged[active[done]] = True
+        moving = ~done & accept
+        active = active[moving]
+        if active.size == 0:
+            break
+        ll, grad, hess = rows.loglik(theta[active], active, derivatives=True)
+    return RoundedNormalPolicy(intercept=theta[:, 0], coef=theta[:, 1:q],
+                               sigma=np.exp(theta[:, q]), converged=converged)
 
-    def loglik_and_scores(th):
-        mu = np.einsum("mq,mq->m", W, th[groups, :q])
-        sigma = np.exp(th[groups, q])
-        a, b = (lower - mu) / sigma, (upper - mu) / sigma
+
+def _ascent_direction(grad, hess, eye):
+    """Newton direction ``-H^-1 g`` where ``-H`` is positive definite, else the BHHH one."""
+    info = -hess[0]
+    definite = np.linalg.eigvalsh(info)[:, 0] > 1e-10 * np.maximum(np.abs(np.einsum("gii->g", info)), 1e-300)
+    curvature = np.where(definite[:, None, None], info, hess[1] + 1e-9 * eye)
+    direction = np.linalg.solve(curvature, grad[..., None])[..., 0]
+    return direction, np.einsum("gi,gi->g", grad, direction)
+
+
+class _RowBlocks:
+    """Rows of every group as a padded (groups, longest) block, for the likelihood sums.
+
+    Padding slots get the interval (-inf, inf): probability 1, every derivative 0, so they
+    add exact zeros to the sums.
+    """
+
+    def __init__(self, W, y, groups, n_groups, *, scale_min, scale_max, step):
+        m, q = W.shape
+        sizes = np.bincount(groups, minlength=n_groups)
+        order = np.argsort(groups, kind="stable")
+        g_sorted = groups[order]
+        starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+        slot = np.arange(m) - starts[g_sorted]
+        longest = max(int(sizes.max()) if m else 1, 1)
+        self.W = np.zeros((n_groups, longest, q))
+        self.W[g_sorted, slot] = W[order]
+        self.lower = np.full((n_groups, longest), -np.inf)
+        self.upper = np.full((n_groups, longest), np.inf)
+        ys = y[order]
+        self.lower[g_sorted, slot] = np.where(ys <= scale_min + 1e-9, -np.inf, ys - step / 2.0)
+        self.upper[g_sorted, slot] = np.where(ys >= scale_max - 1e-9, np.inf, ys + step / 2.0)
+
+    def loglik(self, theta, which, derivatives=False):
+        """Log-likelihood of groups ``which`` at ``theta`` (len(which), q + 1); with
+        ``derivatives`` also the gradient and ``(hessian, outer product of row scores)``."""
+        W = self.W[which]
+        q = W.shape[2]
+        mu = np.matmul(W, theta[:, :q, None])[..., 0]
+        sigma = np.exp(theta[:, q])[:, None]
+        a, b = (self.lower[which] - mu) / sigma, (self.upper[which] - mu) / sigma
         # The normal cdf and pdf as scipy.stats computes them (ndtr; exp(-x^2/2)/sqrt(2 pi)),
         # without its argument checks, which cost more than the values here.
         prob = np.maximum(special.ndtr(b) - special.ndtr(a), 1e-300)
+        ll = np.log(prob).sum(axis=1)
+        if not derivatives:
+            return ll, None, None
         pdf_a, pdf_b = _normal_pdf(a), _normal_pdf(b)
-        with np.errstate(invalid="ignore"):  # inf * 0 at the open ends, set to 0 below
-            a_pdf, b_pdf = a * pdf_a, b * pdf_b
-        a_pdf[~np.isfinite(a)] = 0.0
-        b_pdf[~np.isfinite(b)] = 0.0
+        a, b = np.where(np.isfinite(a), a, 0.0), np.where(np.isfinite(b), b, 0.0)  # a^k pdf(a) -> 0
+        a_pdf, b_pdf = a * pdf_a, b * pdf_b
         d_mu = (pdf_a - pdf_b) / (sigma * prob)
         d_log_sigma = (a_pdf - b_pdf) / prob
-        scores = np.column_stack([d_mu[:, None] * W, d_log_sigma])
-        ll = np.bincount(groups, weights=np.log(prob), minlength=n_groups)
-        return ll, scores
-
-    ll, scores = loglik_and_scores(theta)
-    converged = np.zeros(n_groups, dtype=bool)
-    eye = np.eye(q + 1)
-    for _ in range(iterations):
-        grad, outer = grouped_products(scores, groups, n_groups)
-        outer += 1e-9 * eye
-        direction = np.linalg.solve(outer, grad[..., None])[..., 0]
-        converged = np.einsum("gi,gi->g", grad, direction) < 1e-10
-        shrink = np.ones(n_groups)
-        for _halving in range(8):
-            trial = theta + shrink[:, None] * direction
-            trial[:, q] = np.maximum(trial[:, q], log_sigma_floor)
-            trial_ll, trial_scores = loglik_and_scores(trial)
-            better = (trial_ll >= ll - 1e-12) | converged
-            if better.all():
-                break
-            shrink = np.where(better, shrink, shrink / 2.0)
-        accept = trial_ll >= ll - 1e-12
-        theta = np.where(accept[:, None], trial, theta)
-        ll, scores = loglik_and_scores(theta)
-        if converged.all():
-            break
-    return RoundedNormalPolicy(intercept=theta[:, 0], coef=theta[:, 1:q],
-                               sigma=np.exp(theta[:, q]), converged=converged)
+        # second derivatives of the probability, divided by it
+        p_mumu = (a_pdf - b_pdf) / (sigma * sigma * prob)
+        p_mus = (-(pdf_a - pdf_b) + a * a_pdf - b * b_pdf) / (sigma * prob)
+        p_ss = (-(a_pdf - b_pdf) + a * a * a_pdf - b * b * b_pdf) / prob
+        h_mumu = p_mumu - d_mu * d_mu
+        h_mus = p_mus - d_mu * d_log_sigma
+        h_ss = p_ss - d_log_sigma * d_log_sigma
+        Wt = np.swapaxes(W, 1, 2)
+        scores = np.concatenate([d_mu[..., None] * W, d_log_sigma[..., None]], axis=2)
+        grad = scores.sum(axis=1)
+        outer = np.matmul(np.swapaxes(scores, 1, 2), scores)
+        G = W.shape[0]
+        hess = np.empty((G, q + 1, q + 1))
+        hess[:, :q, :q] = np.matmul(Wt * h_mumu[:, None, :], W)
+        hess[:, :q, q] = hess[:, q, :q] = np.matmul(Wt, h_mus[..., None])[..., 0]
+        hess[:, q, q] = h_ss.sum(axis=1)
+        return ll, grad, (hess, outer)
 
 
 def whole_step_bounds(y: np.ndarray, scale: str, scale_min: float | None,
@@ -163,17 +224,32 @@ class LinearNull:
     scale_max: float = float("nan")
     step: float = 1.0
 
+    def of_rows(self, rows: np.ndarray) -> "LinearNull":
+        """The same null for the selected rows only (a mask or indices)."""
+        return replace(self, mean=self.mean[rows], sigma=self.sigma[rows], prob=self.prob[rows],
+                       usable=self.usable[rows])
+
     def draw(self, rng: np.random.Generator, size: int, rows=slice(None)) -> np.ndarray:
         """``(size, n_rows)`` simulated judgments of the selected rows."""
         if self.kind == "binary":
             prob = self.prob[rows]
             return (rng.random((size, prob.size)) < prob).astype(float)
         mean, sigma = self.mean[rows], self.sigma[rows]
-        latent = mean + sigma * rng.standard_normal((size, mean.size))
+        # in place, in the order of mean + sigma * z and lo + step * round((latent - lo) / step)
+        latent = rng.standard_normal((size, mean.size))
+        latent *= sigma
+        latent += mean
         if self.kind == "continuous":
             return latent
         lo = self.scale_min
-        return np.clip(lo + self.step * np.round((latent - lo) / self.step), lo, self.scale_max)
+        latent -= lo
+        if self.step != 1.0:
+            latent /= self.step
+        np.round(latent, out=latent)
+        if self.step != 1.0:
+            latent *= self.step
+        latent += lo
+        return np.clip(latent, lo, self.scale_max, out=latent)
 
 
 def fit_linear_null(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_groups: int, *,

@@ -166,6 +166,7 @@ class PolicySet(ResultMixin):
     alpha: float
     warnings: tuple[str, ...] = field(default=())
     prediction: tuple[PredictionTerms, ...] = field(default=())
+    reduced_forms: tuple[str, ...] = field(default=())   # plain sentences, one per reduced extra
 
     def __getitem__(self, rater: str) -> RaterPolicy:
         for policy in self.raters:

@@ -13,7 +13,6 @@ import statsmodels.api as sm
 
 from calibrate.policy import diagnostics as dg
 from calibrate.policy.linalg import grouped_products, grouped_sscp, ols_from_sscp
-from calibrate.policy.linear_nulls import fit_rounded_normal
 
 TOL = {"rtol": 1e-9, "atol": 1e-9}
 
@@ -106,23 +105,6 @@ def _products_row_by_row(A, groups, n_groups):
     np.add.at(sums, groups, A)
     np.add.at(products, groups, A[:, :, None] * A[:, None, :])
     return sums, products
-
-
-def test_rounded_normal_fit_equals_the_fit_with_row_by_row_sums(monkeypatch):
-    # The Newton steps need per-rater sums of scores and of their outer products; the
-    # batched product must give the same fit as adding row by row.
-    import calibrate.policy.linear_nulls as linear_nulls
-
-    X, y, groups, G = _panel()
-    keep = ~np.isin(groups, [3, 5])
-    X, y, groups = X[keep], y[keep], np.unique(groups[keep], return_inverse=True)[1]
-    G = int(groups.max()) + 1
-    batched = fit_rounded_normal(X, y, groups, G, scale_min=1, scale_max=7)
-    monkeypatch.setattr(linear_nulls, "grouped_products", _products_row_by_row)
-    plain = linear_nulls.fit_rounded_normal(X, y, groups, G, scale_min=1, scale_max=7)
-    np.testing.assert_allclose(batched.coef, plain.coef, **TOL)
-    np.testing.assert_allclose(batched.intercept, plain.intercept, **TOL)
-    np.testing.assert_allclose(batched.sigma, plain.sigma, **TOL)
 
 
 def test_logistic_curvature_score_test_equals_the_test_with_row_by_row_sums(monkeypatch):
