@@ -504,7 +504,8 @@ class _AllCosts:
 
 
 def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
-                stop_at: int, record: bool, *, prune: bool = True) -> Agglomeration:
+                stop_at: int, record: bool, *, prune: bool = True,
+                compact: bool | None = None) -> Agglomeration:
     """Merge groups bottom-up, the cheapest merge first, in every batch at once.
 
     sscp : (B, R, k, k) centred SSCP per rater; n : (B, R) judgments per rater;
@@ -515,8 +516,11 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
     R^2 pairs, and only the costs that involve the new group change. A cost is
     computed exactly only when its lower bound (see :class:`_PairCosts`) does not
     rule it out; ``prune=False`` computes every cost: same merges, same digits.
-    Without ``record``, the slots of dead groups are dropped as merging goes on
-    (:meth:`_PairCosts.compact`). Panels under ``_SMALL_PANEL`` raters use the
+    Without ``record``, or with ``compact=True``, the slots of dead groups are dropped
+    as merging goes on (:meth:`_PairCosts.compact`); the merges are the same, only the
+    recorded RSS totals then sum over fewer slots (a last-digit change: the number-of-
+    groups test and the resamples, which read only the merged pairs, compact).
+    Panels under ``_SMALL_PANEL`` raters use the
     plain :class:`_AllCosts` instead (again the same merges and digits).
     """
     R = active.shape[1]
@@ -530,7 +534,8 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
     else:
         costs = _PairCosts(group_sscp, group_n, group_rss, active, p, prune)
         try:
-            history, last_cost = _merge_until(costs, labels, active, stop_at, record)
+            history, last_cost = _merge_until(costs, labels, active, stop_at, record,
+                                              compact=(not record) if compact is None else compact)
         finally:
             _give_back("cost", costs.cost_memory)
             _give_back("exact", costs.exact_memory)
@@ -539,7 +544,7 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
                          n_exact=costs.n_exact)
 
 
-def _merge_until(costs, labels, active, stop_at, record):
+def _merge_until(costs, labels, active, stop_at, record, compact=None):
     """The merge loop of :func:`agglomerate`; updates ``labels`` in place."""
     B = active.shape[0]
     history = []
@@ -566,8 +571,9 @@ def _merge_until(costs, labels, active, stop_at, record):
         labels[todo] = np.where(moved, slot_i[:, None], labels[todo])
         n_groups[todo] -= 1
         # The recorded totals sum over every rater slot, dead ones included, as they
-        # always have (the order of a sum sets its last digit): no compacting there.
-        if not record:
+        # always have (the order of a sum sets its last digit): no compacting there
+        # unless the caller reads only the merged pairs.
+        if (not record) if compact is None else compact:
             costs.compact()
         step += 1
     return history, last_cost

@@ -35,6 +35,7 @@ __all__ = [
     "KeepApartRule",
     "ResamplingStability",
     "adjusted_rand_index",
+    "common_weights",
     "group_jaccard",
     "groups_by_rule",
     "keep_apart_rule",
@@ -99,7 +100,8 @@ def resample_budget(n_resamples: int, n_raters: int, *, floor: int = 20) -> int:
     return min(n_resamples, max(floor, _RESAMPLE_WORK_BUDGET // (n_raters * n_raters)))
 
 
-def merge_side_loss(sscp_a: np.ndarray, sscp_b: np.ndarray, p: int) -> np.ndarray:
+def merge_side_loss(sscp_a: np.ndarray, sscp_b: np.ndarray, p: int, *,
+                    weights: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
     """What a merge costs the side that suffers most, as a share of its own spread.
 
     ``sscp_a`` and ``sscp_b`` (M, k, k) are the pooled-within SSCPs of the two groups
@@ -113,22 +115,27 @@ def merge_side_loss(sscp_a: np.ndarray, sscp_b: np.ndarray, p: int) -> np.ndarra
     ``R - 1`` loses as much as ever, but the whole panel's R^2 hardly moves when R
     is large, so a threshold on it absorbed different raters in big panels. The
     loss of the side itself does not depend on how many other raters there are.
-    Our own statistic.
+    Our own statistic. ``weights``: the two sides' own common weights
+    (:func:`common_weights`), when the caller keeps them.
     """
-    def weights(sscp):
-        try:
-            return np.linalg.solve(sscp[:, :p, :p], sscp[:, :p, p:])[..., 0]
-        except np.linalg.LinAlgError:  # a singular side somewhere in the stack
-            return (np.linalg.pinv(sscp[:, :p, :p]) @ sscp[:, :p, p:])[..., 0]
+    merged = common_weights(sscp_a + sscp_b, p)
+    own_a, own_b = weights if weights is not None else (common_weights(sscp_a, p),
+                                                         common_weights(sscp_b, p))
 
-    merged = weights(sscp_a + sscp_b)
-
-    def loss(sscp):
-        gap = merged - weights(sscp)
+    def loss(sscp, own):
+        gap = merged - own
         with np.errstate(invalid="ignore", divide="ignore"):
             return np.einsum("mi,mij,mj->m", gap, sscp[:, :p, :p], gap) / sscp[:, p, p]
 
-    return np.maximum(loss(sscp_a), loss(sscp_b))
+    return np.maximum(loss(sscp_a, own_a), loss(sscp_b, own_b))
+
+
+def common_weights(sscp: np.ndarray, p: int) -> np.ndarray:
+    """(M, p) common weights of a stack of pooled-within SSCPs (M, k, k)."""
+    try:
+        return np.linalg.solve(sscp[:, :p, :p], sscp[:, :p, p:])[..., 0]
+    except np.linalg.LinAlgError:  # a singular side somewhere in the stack
+        return (np.linalg.pinv(sscp[:, :p, :p]) @ sscp[:, :p, p:])[..., 0]
 
 
 def tree_side_losses(sscp: np.ndarray, active: np.ndarray, history: list,
@@ -225,7 +232,7 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     noise = generator.standard_normal((n_sims, Z.shape[0])) * sigma[who]
     sscp, n = stacked_sscp(Z, who, R, judgments=signal[None, :] + noise)
     active = np.broadcast_to(eligible, (n_sims, R))
-    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True)
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
     losses, smaller = tree_side_losses(sscp, active, agg.history, p)
     finite = np.isfinite(losses)
     if not finite.any():
@@ -276,8 +283,12 @@ def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
 
     Every pair's cost and verdict is computed once and only the merged piece's pairs
     again after a merge (the others' sums have not changed), so joining P pieces costs
-    O(P^2) fits instead of O(P^3). The pick is the same as scanning every pair in
-    (first, second) order: the cheapest allowed pair, the first one on a tie.
+    O(P^2) fits instead of O(P^3). Each piece's own RSS and common weights are kept
+    between merges, so scoring a pair solves only the merged system (the same solves,
+    matrix by matrix, as :func:`merged_rss` and :func:`merge_side_loss`: the same
+    digits). The pick is the same as scanning every pair in (first, second) order: the
+    cheapest allowed pair, the first one on a tie (row-major order of the upper
+    triangle).
     """
     piece = piece.copy()
     ids = [int(g) for g in np.unique(piece[piece >= 0])]
@@ -287,32 +298,34 @@ def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
     group = np.array([sscp[piece == g].sum(axis=0) for g in ids])
     count = np.array([float(n[piece == g].sum()) for g in ids])
     size = np.array([np.sum(piece == g) for g in ids])
+    own_rss = merged_rss(group, count, p)
+    own_weights = common_weights(group, p)
     cost = np.full((P, P), np.nan)
-    allowed = np.zeros((P, P), dtype=bool)
+    allowed = np.zeros((P, P), dtype=bool)   # upper triangle only, live pieces only
     alive = np.ones(P, dtype=bool)
 
     def score(first, second):
         a, b = group[first], group[second]
         cost[first, second] = (merged_rss(a + b, count[first] + count[second], p)
-                               - merged_rss(a, count[first], p) - merged_rss(b, count[second], p))
-        allowed[first, second] = ~rule.apart(merge_side_loss(a, b, p),
-                                             np.minimum(size[first], size[second]))
+                               - own_rss[first] - own_rss[second])
+        loss = merge_side_loss(a, b, p, weights=(own_weights[first], own_weights[second]))
+        allowed[first, second] = ~rule.apart(loss, np.minimum(size[first], size[second]))
 
     score(*np.triu_indices(P, k=1))
     while alive.sum() > 1:
-        live = np.flatnonzero(alive)
-        first, second = np.triu_indices(live.size, k=1)
-        first, second = live[first], live[second]
-        ok = allowed[first, second]
-        if not ok.any():
+        candidates = np.flatnonzero(allowed)
+        if candidates.size == 0:
             break
-        pick = int(np.flatnonzero(ok)[np.argmin(cost[first, second][ok])])
-        keep, gone = int(first[pick]), int(second[pick])
+        keep, gone = divmod(int(candidates[np.argmin(cost.reshape(-1)[candidates])]), P)
         piece[piece == ids[gone]] = ids[keep]
         group[keep] = group[keep] + group[gone]
         count[keep] += count[gone]
         size[keep] += size[gone]
         alive[gone] = False
+        allowed[gone, :] = allowed[:, gone] = False
+        allowed[keep, :] = allowed[:, keep] = False
+        own_rss[keep] = merged_rss(group[keep:keep + 1], count[keep:keep + 1], p)[0]
+        own_weights[keep] = common_weights(group[keep:keep + 1], p)[0]
         others = np.flatnonzero(alive & (np.arange(P) != keep))
         if others.size:
             score(np.minimum(others, keep), np.maximum(others, keep))
@@ -336,7 +349,7 @@ def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
     if rule is None:
         agg = agglomerate(sscp, n, active, p, stop_at=max(chosen, 1), record=False)
         return agg.labels
-    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True)
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
     losses, smaller = tree_side_losses(sscp, active, agg.history, p)
     return groups_by_rule(sscp, n, active, agg.history, losses, smaller, rule, p)
 
