@@ -381,12 +381,16 @@ class _PairCosts:
     def merge(self, todo, i, j, step, step_cost):
         """Merge slot j into slot i in batches ``todo``, then bring the costs up to date."""
         at = np.arange(todo.size)
+        # Every batch still merging (the usual case): whole arrays, not gathered copies.
+        # ``arg`` and ``current`` are read after settling only where rows are fresh,
+        # which settling leaves alone, so views serve.
+        whole = todo.size == self.alive.shape[0]
         _pool(self, todo, i, j, step_cost)
         self.last_merge[todo, i] = step
         self.alive[todo, j] = False
         self.row_min[todo, j] = np.inf
         self.refresh_profiles(todo, i)
-        others = self.alive[todo]
+        others = self.alive.copy() if whole else self.alive[todo]
         others[at, i] = False
         bound = np.where(others, self.row_bounds(todo, i), np.inf)
         # Row and column i (the matrix stays symmetric); j's are masked by ``alive``.
@@ -394,10 +398,10 @@ class _PairCosts:
         self.cost[todo, :, i] = bound
         self.exact[todo, i, :] = False
         self.exact[todo, :, i] = False
-        arg = self.row_arg[todo]
+        arg = self.row_arg if whole else self.row_arg[todo]
         stale = others & ((arg == i[:, None]) | (arg == j[:, None]))
         fresh = others & ~stale
-        current = self.row_min[todo]
+        current = self.row_min if whole else self.row_min[todo]
         # Row i and the rows whose minimum was i or j are settled together. A row whose
         # minimum lies elsewhere needs the new cost only if it could undercut it.
         m, other = np.nonzero(stale)
@@ -548,6 +552,7 @@ def _merge_until(costs, labels, active, stop_at, record, compact=None):
     """The merge loop of :func:`agglomerate`; updates ``labels`` in place."""
     B = active.shape[0]
     history = []
+    joins = []   # (batches, slot kept, slot absorbed) per step, for the labels at the end
     last_cost = np.full(B, np.nan)
     n_groups = active.sum(axis=1)
     batch = np.arange(B)
@@ -567,8 +572,7 @@ def _merge_until(costs, labels, active, stop_at, record, compact=None):
             history.append((todo.copy(), slot_i, slot_j, step_cost.copy(),
                             costs.rss[todo].sum(axis=1), n_groups[todo].copy()))
         costs.merge(todo, i, j, step, step_cost)
-        moved = labels[todo] == slot_j[:, None]
-        labels[todo] = np.where(moved, slot_i[:, None], labels[todo])
+        joins.append((todo, slot_i, slot_j))
         n_groups[todo] -= 1
         # The recorded totals sum over every rater slot, dead ones included, as they
         # always have (the order of a sum sets its last digit): no compacting there
@@ -576,6 +580,13 @@ def _merge_until(costs, labels, active, stop_at, record, compact=None):
         if (not record) if compact is None else compact:
             costs.compact()
         step += 1
+    # Each slot's final group, from the last merge back: an absorbed slot ends where the
+    # slot that absorbed it ends (O(batches) a step instead of relabelling every rater).
+    final = np.broadcast_to(np.arange(labels.shape[1]), labels.shape).copy()
+    for todo, kept, absorbed in reversed(joins):
+        final[todo, absorbed] = final[todo, kept]
+    np.copyto(labels, np.take_along_axis(final, np.maximum(labels, 0), axis=1),
+              where=labels >= 0)
     return history, last_cost
 
 
@@ -618,12 +629,15 @@ def stacked_sscp(Z, who, R, *, weights=None, judgments=None):
     p = k - 1
     base = grouped_sscp(Z, who, R)
     centred = Z - base.mean[who]
-    rows = np.arange(m)
 
     def scatter(values):  # (m, w) -> sparse (m, R * w), rater blocks side by side
+        # Built in CSR form directly: row t holds w entries in columns who[t] * w + 0..w-1,
+        # already in order, so no (row, column) pairs need sorting (the same matrix as
+        # the coordinate form gave).
         w = values.shape[1]
         cols = (who[:, None] * w + np.arange(w)[None, :]).ravel()
-        return sparse.csr_array((values.ravel(), (np.repeat(rows, w), cols)), shape=(m, R * w))
+        return sparse.csr_array((np.ascontiguousarray(values).ravel(), cols,
+                                 np.arange(0, m * w + 1, w)), shape=(m, R * w))
 
     def times(dense, matrix):  # dense (B, m) @ sparse (m, c) -> dense (B, c)
         return np.asarray((matrix.T @ dense.T).T)

@@ -17,6 +17,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import sparse
 from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.optimize import linear_sum_assignment
 
@@ -35,6 +36,7 @@ __all__ = [
     "KeepApartRule",
     "ResamplingStability",
     "adjusted_rand_index",
+    "co_assignment",
     "common_weights",
     "group_jaccard",
     "groups_by_rule",
@@ -355,21 +357,38 @@ def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
 
 
 def group_jaccard(slots: np.ndarray, boot_slots: np.ndarray, eligible: np.ndarray) -> dict:
-    """Per full-data group slot: mean over resamples of the best Jaccard match."""
+    """Per full-data group slot: mean over resamples of the best Jaccard match.
+
+    All groups and resamples at once from one contingency count of (resample, group,
+    resample label); a resample in which none of the group's raters took part is
+    skipped for that group.
+    """
+    groups = sorted({int(x) for x in slots[eligible]})
+    if not groups or boot_slots.shape[0] == 0:
+        return {s: np.nan for s in groups}
+    B, R = boot_slots.shape
+    index = np.full(R, -1)
+    index[np.isin(slots, groups)] = np.searchsorted(groups, slots[np.isin(slots, groups)])
+    S = len(groups)
+    present = boot_slots >= 0
+    label_size = np.zeros((B, R), dtype=np.int64)          # raters with each label
+    b_all, r_all = np.nonzero(present)
+    np.add.at(label_size, (b_all, boot_slots[b_all, r_all]), 1)
+    counted = present & (index >= 0)[None, :]
+    b, r = np.nonzero(counted)
+    target = np.zeros((B, S), dtype=np.int64)               # the group's raters present
+    np.add.at(target, (b, index[r]), 1)
+    flat = (b * S + index[r]) * R + boot_slots[b, r]
+    cell, inter = np.unique(flat, return_counts=True)       # the non-empty cells only
+    cb, rest = np.divmod(cell, S * R)
+    cs, cu = np.divmod(rest, R)
+    ratio = inter / (label_size[cb, cu] + target[cb, cs] - inter)
+    best = np.zeros((B, S))
+    np.maximum.at(best, (cb, cs), ratio)
     out = {}
-    for s in sorted({int(x) for x in slots[eligible]}):
-        member = slots == s
-        scores = []
-        for labels in boot_slots:
-            here = labels >= 0
-            target = member & here
-            if not target.any():
-                continue
-            found = labels[:, None] == np.unique(labels[here])[None, :]
-            inter = (found & target[:, None]).sum(axis=0)
-            union = (found | target[:, None]).sum(axis=0)
-            scores.append((inter / union).max())
-        out[s] = float(np.mean(scores)) if scores else np.nan
+    for k, s in enumerate(groups):
+        seen = target[:, k] > 0
+        out[s] = float(np.mean(best[seen, k])) if seen.any() else np.nan
     return out
 
 
@@ -411,6 +430,32 @@ class ResamplingStability:
     n_sat_out: int              # resamples in which some grouped rater had to sit out
 
 
+def co_assignment(boot_slots: np.ndarray) -> np.ndarray:
+    """(R, R) share of resamples in which two raters share a group (NaN: never both in).
+
+    Counted by products of 0/1 matrices: ``H H'`` with one column per (resample,
+    group) counts the resamples two raters shared a group in, ``P' P`` (P: who took
+    part in each resample) those they both took part in. Whole counts, exact in
+    floating point; no (resamples, R, R) array.
+    """
+    B, R = boot_slots.shape
+    present = boot_slots >= 0
+    b, r = np.nonzero(present)
+    column = np.unique(b * R + boot_slots[b, r], return_inverse=True)[1].reshape(-1)
+    n_columns = int(column.max()) + 1 if column.size else 0
+    if n_columns <= 512:
+        member = np.zeros((R, max(n_columns, 1)))
+        member[r, column] = 1.0
+        together = member @ member.T
+    else:  # many groups per resample: the same counts from a sparse product
+        member = sparse.csr_array((np.ones(r.size), (r, column)), shape=(R, n_columns))
+        together = (member @ member.T).toarray()
+    took_part = present.astype(float)
+    both = took_part.T @ took_part
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(both > 0, together / both, np.nan)
+
+
 def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
                          n_resamples, generator,
                          rule: KeepApartRule | None = None) -> ResamplingStability:
@@ -428,11 +473,7 @@ def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
                                    size=n_resamples).astype(float)
     boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule)
     present = boot_slots >= 0
-    same = (boot_slots[:, :, None] == boot_slots[:, None, :]) & present[:, :, None] \
-        & present[:, None, :]
-    both = (present[:, :, None] & present[:, None, :]).sum(axis=0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        co = np.where(both > 0, same.sum(axis=0) / both, np.nan)
+    co = co_assignment(boot_slots)
     ari = np.array([adjusted_rand_index(slots[present[b] & eligible],
                                         boot_slots[b][present[b] & eligible])
                     for b in range(n_resamples)])

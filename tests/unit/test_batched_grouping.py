@@ -154,3 +154,52 @@ def test_joining_pieces_equals_the_pairwise_scan(which, threshold):
                              np.sort(rng.uniform(0.0, 3.0, 40)))
         np.testing.assert_array_equal(_join_pieces(full.sscp, full.n, start, rule, p),
                                       _reference_join_pieces(full.sscp, full.n, start, rule, p))
+
+
+# --------------------------------------------------------------------------- stability counts
+
+
+def _reference_jaccard(slots, boot_slots, eligible):
+    out = {}
+    for s in sorted({int(x) for x in slots[eligible]}):
+        member = slots == s
+        scores = []
+        for labels in boot_slots:
+            here = labels >= 0
+            target = member & here
+            if not target.any():
+                continue
+            found = labels[:, None] == np.unique(labels[here])[None, :]
+            inter = (found & target[:, None]).sum(axis=0)
+            union = (found | target[:, None]).sum(axis=0)
+            scores.append((inter / union).max())
+        out[s] = float(np.mean(scores)) if scores else np.nan
+    return out
+
+
+def _reference_co_assignment(boot_slots):
+    present = boot_slots >= 0
+    same = (boot_slots[:, :, None] == boot_slots[:, None, :]) & present[:, :, None] \
+        & present[:, None, :]
+    both = (present[:, :, None] & present[:, None, :]).sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(both > 0, same.sum(axis=0) / both, np.nan)
+
+
+@pytest.mark.parametrize("n_labels", [2, 5, 40])
+def test_jaccard_and_co_assignment_equal_the_resample_by_resample_counts(n_labels):
+    from calibrate.panel.stability import co_assignment, group_jaccard
+
+    rng = np.random.default_rng(n_labels)
+    R, B = 30, 25
+    slots = rng.integers(0, 4, R) * 3
+    slots[[2, 7]] = -1
+    eligible = slots >= 0
+    boot = rng.integers(0, min(n_labels, R), (B, R))
+    boot[rng.random((B, R)) < 0.1] = -1
+    boot[:, 2] = boot[:, 7] = -1
+    boot[3, slots == 3] = -1                      # a group absent from one resample
+    assert group_jaccard(slots, boot, eligible) == _reference_jaccard(slots, boot, eligible)
+    np.testing.assert_array_equal(co_assignment(boot), _reference_co_assignment(boot))
+    many = np.tile(np.arange(R), (30, 1))         # every rater alone: the sparse count
+    np.testing.assert_array_equal(co_assignment(many), _reference_co_assignment(many))
