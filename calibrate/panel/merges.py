@@ -140,6 +140,9 @@ def merged_rss(sscp: np.ndarray, n: np.ndarray, p: int) -> np.ndarray:
 _BOUND_RELATIVE_SLACK = 1e-6
 _BOUND_ABSOLUTE_SLACK = 1e-8
 
+#: Pair bounds computed per block of about this many entries (1 MB: in cache).
+_BOUND_BLOCK = 131_072
+
 #: Panels smaller than this use the plain engine (:class:`_AllCosts`): measured with
 #: 100 resamples and 100 simulated panels, 16 raters took 0.132 s with it against
 #: 0.145 s with :class:`_PairCosts`, 24 raters 0.256 s against 0.237 s.
@@ -287,9 +290,16 @@ class _PairCosts:
             return out
         u = self.u[part]
         each = [q[part] for q in (self.norm, self.inv_a, self.slack)]
-        # einsum: three times faster than matmul on a transposed (b, p, R) view here.
-        return self._bound(np.einsum("brp,bsp->brs", u, u, out=out),
-                           [q[:, :, None] for q in each], [q[:, None, :] for q in each])
+        # A block of rows at a time: the bound's nine passes then run over a block that
+        # stays in cache instead of the whole (b, R, R) matrix (the same arithmetic
+        # element by element). einsum: three times faster than matmul on a transposed
+        # (b, p, R) view here.
+        rows = max(1, _BOUND_BLOCK // max(out.shape[0] * out.shape[2], 1))
+        for start in range(0, out.shape[1], rows):
+            block = slice(start, start + rows)
+            self._bound(np.einsum("brp,bsp->brs", u[:, block], u, out=out[:, block]),
+                        [q[:, block, None] for q in each], [q[:, None, :] for q in each])
+        return out
 
     def row_bounds(self, bb, gg):
         """(M, R) bounds between groups (bb, gg) and every slot of their batch."""

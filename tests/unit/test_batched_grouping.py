@@ -6,6 +6,8 @@ small panels: shared and incomplete designs, 1-7 and 0/1 judgments.
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -203,3 +205,55 @@ def test_jaccard_and_co_assignment_equal_the_resample_by_resample_counts(n_label
     np.testing.assert_array_equal(co_assignment(boot), _reference_co_assignment(boot))
     many = np.tile(np.arange(R), (30, 1))         # every rater alone: the sparse count
     np.testing.assert_array_equal(co_assignment(many), _reference_co_assignment(many))
+
+
+# --------------------------------------------------------------------------- merging
+
+
+def test_recorded_runs_that_drop_dead_slots_make_the_same_merges():
+    # The number-of-groups test and the resamples record their merges and drop dead
+    # slots (compact=True); the merged pairs and their costs must be those of the run
+    # that keeps every slot, the recorded RSS totals equal but for summation order.
+    from calibrate.panel.merges import agglomerate, batched_rss, stacked_sscp
+    from tests.unit.test_grouping_merges import random_panel
+
+    n_raters, p = 45, 4
+    Z, who, case = random_panel(31, n_raters, 150, p, share_seen=0.5)
+    rng = np.random.default_rng(9)
+    counts = rng.multinomial(150, np.full(150, 1.0 / 150), size=6).astype(float)
+    sscp, n = stacked_sscp(Z, who, n_raters, weights=counts[:, case])
+    active = np.isfinite(batched_rss(sscp, n, p)) & (n > p + 1)
+    active[2, ::4] = False
+    kept = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=False)
+    dropped = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
+    assert len(kept.history) == len(dropped.history)
+    for a, b in zip(kept.history, dropped.history):
+        for x, y in zip(a[:4], b[:4]):          # batches, slots merged, cost
+            np.testing.assert_array_equal(x, y)
+        np.testing.assert_allclose(a[4], b[4], rtol=1e-12)   # RSS totals
+        np.testing.assert_array_equal(a[5], b[5])
+    np.testing.assert_array_equal(kept.labels, dropped.labels)
+
+
+@pytest.mark.parametrize("which", ["shared 1-7", "incomplete 1-7", "incomplete 0/1"])
+def test_grouping_of_a_panel_equals_the_grouping_without_dropped_slots(which, monkeypatch):
+    # The whole grouping (its number-of-groups test and resamples included) with the
+    # slot dropping of recorded runs switched off gives the same result, digit for digit
+    # (36 raters: the pair-cost engine, its slots dropped more than once).
+    import calibrate.panel.merges as merges
+    from calibrate.panel.grouping import group_raters
+
+    design, first, _ = scale_panel(6, [30, 6], share_seen=1.0 if which == "shared 1-7" else 0.7)
+    if which.endswith("0/1"):
+        first = _binary(first)
+    fast = group_raters(design, first, rng=3, n_resamples=8, n_null=10)
+    original = merges.agglomerate
+
+    def keep_every_slot(*args, **kwargs):
+        kwargs["compact"] = None
+        return original(*args, **kwargs)
+
+    monkeypatch.setattr("calibrate.panel.stability.agglomerate", keep_every_slot)
+    plain = group_raters(design, first, rng=3, n_resamples=8, n_null=10)
+    assert json.dumps(fast.to_dict()) == json.dumps(plain.to_dict())
+    np.testing.assert_array_equal(fast.co_assignment, plain.co_assignment)
