@@ -418,11 +418,14 @@ class _PairCosts:
         wanted = fresh & (bound <= current) if self.prune else others
         self.settle_rows(np.concatenate([todo, todo[m]]), np.concatenate([i, other]),
                          extra=np.nonzero(wanted))
-        row = self.cost[todo, i, :]
-        better = fresh & self.exact[todo, i, :] & (
-            (row < current) | ((row == current) & (i[:, None] < arg)))
-        m, other = np.nonzero(better)
-        self.row_min[todo[m], other] = row[m, other]
+        # A fresh row's minimum moves to i only where its cost to i was made exact above
+        # (few entries): compare those alone.
+        m, other = np.nonzero(fresh & self.exact[todo, i, :])
+        value = self.cost[todo[m], i[m], other]
+        was = current[m, other]
+        better = (value < was) | ((value == was) & (i[m] < arg[m, other]))
+        m, other = m[better], other[better]
+        self.row_min[todo[m], other] = value[better]
         self.row_arg[todo[m], other] = i[m]
 
     def compact(self):
