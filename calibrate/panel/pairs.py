@@ -140,8 +140,8 @@ class _RaterCaseTable:
     """
 
     def __init__(self, rows: JudgmentRows, n_cases: int, *, dense_cells: int | None = None):
-        flat = rows.group * n_cases + rows.design_row
-        if np.unique(flat).size != flat.size:
+        flat = np.sort(rows.group * n_cases + rows.design_row)  # a sort: faster than unique here
+        if (flat[1:] == flat[:-1]).any():
             raise DataError("The first-judgment table has more than one row for some "
                             "(rater, case); keep only each rater's first judgment of a case.")
         self.shape = (rows.n_raters, n_cases)
