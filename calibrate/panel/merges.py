@@ -627,7 +627,7 @@ def standardized_weights(coef: np.ndarray, sscp: np.ndarray, p: int) -> np.ndarr
         return coef * d[..., :p] / d[..., p:p + 1]
 
 
-def stacked_sscp(Z, who, R, *, weights=None, judgments=None):
+def stacked_sscp(Z, who, R, *, weights=None, judgments=None, base=None):
     """Per-rater centred SSCPs for B variants of the data, without copying rows.
 
     Variant ``b`` either weights the rows by ``weights[b]`` (case resamples as count
@@ -640,7 +640,7 @@ def stacked_sscp(Z, who, R, *, weights=None, judgments=None):
     """
     m, k = Z.shape
     p = k - 1
-    base = grouped_sscp(Z, who, R)
+    base = grouped_sscp(Z, who, R) if base is None else base  # the caller may have it
     centred = Z - base.mean[who]
 
     def scatter(values):  # (m, w) -> sparse (m, R * w), rater blocks side by side

@@ -213,7 +213,7 @@ class KeepApartRule:
 
 
 def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
-                    threshold: float, alpha: float) -> KeepApartRule:
+                    threshold: float, alpha: float, base=None) -> KeepApartRule:
     """The :class:`KeepApartRule` of a panel, from panels simulated with one shared policy.
 
     Parametric bootstrap: judgments are simulated from the one-group model (the
@@ -223,7 +223,7 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     test for the number of mixture components this way; from memory).
     """
     R = eligible.size
-    base = grouped_sscp(Z, who, R)
+    base = grouped_sscp(Z, who, R) if base is None else base  # ``base``: the caller's
     pooled = base.sscp[eligible].sum(axis=0)[None]
     fit = ols_from_sscp(GroupedSSCP(n=np.array([base.n[eligible].sum()]),
                                     mean=np.zeros((1, p + 1)), sscp=pooled), np.arange(p), p)
@@ -232,7 +232,7 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     # The intercepts are left out: centring within rater removes them anyway.
     signal = Z[:, :p] @ fit.coef[0]
     noise = generator.standard_normal((n_sims, Z.shape[0])) * sigma[who]
-    sscp, n = stacked_sscp(Z, who, R, judgments=signal[None, :] + noise)
+    sscp, n = stacked_sscp(Z, who, R, judgments=signal[None, :] + noise, base=base)
     active = np.broadcast_to(eligible, (n_sims, R))
     agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
     losses, smaller = tree_side_losses(sscp, active, agg.history, p)
@@ -335,7 +335,7 @@ def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
 
 
 def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
-                     rule: KeepApartRule | None = None) -> np.ndarray:
+                     rule: KeepApartRule | None = None, base=None) -> np.ndarray:
     """Group every resample (rows of ``counts``): by ``rule``, or cut at ``chosen`` groups.
 
     With a rule, each resample's whole tree is built and :func:`groups_by_rule`
@@ -345,7 +345,7 @@ def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
     resample.
     """
     R = eligible.size
-    sscp, n = stacked_sscp(Z, who, R, weights=counts[:, case_row])
+    sscp, n = stacked_sscp(Z, who, R, weights=counts[:, case_row], base=base)
     own_rss = batched_rss(sscp, n, p)
     active = eligible[None, :] & np.isfinite(own_rss) & (sscp[:, :, p, p] > 0)
     if rule is None:
@@ -458,7 +458,7 @@ def co_assignment(boot_slots: np.ndarray) -> np.ndarray:
 
 def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
                          n_resamples, generator,
-                         rule: KeepApartRule | None = None) -> ResamplingStability:
+                         rule: KeepApartRule | None = None, base=None) -> ResamplingStability:
     """Group ``n_resamples`` case resamples in lockstep and compare with ``slots``.
 
     Cases are drawn with replacement (multinomial counts used as weights), every
@@ -471,7 +471,7 @@ def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
                                    jaccard={}, n_sat_out=0)
     counts = generator.multinomial(n_cases, np.full(n_cases, 1.0 / n_cases),
                                    size=n_resamples).astype(float)
-    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule)
+    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule, base=base)
     present = boot_slots >= 0
     co = co_assignment(boot_slots)
     ari = np.array([adjusted_rand_index(slots[present[b] & eligible],
