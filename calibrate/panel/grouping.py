@@ -410,7 +410,7 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         chosen = min(n_eligible, 1)  # the rule below decides when two or more can be fitted
         if n_eligible >= 2:
             keep_apart = keep_apart_rule(Z, who, eligible, own.rss, own.df_resid, p, n_null,
-                                         generator, threshold=threshold, alpha=alpha)
+                                         generator, threshold=threshold, alpha=alpha, base=full)
             losses, smaller = tree_side_losses(full.sscp[None], eligible[None], agg.history, p)
             p_values = keep_apart.p_value(losses[0], smaller[0])
             merges = [dataclasses.replace(m, p_value=float(pv)) for m, pv in zip(merges, p_values)]
@@ -439,7 +439,7 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         reduced.append(f"Grouping stability from {used_resamples} case resamples instead of "
                        f"{n_resamples} on this panel size ({n_eligible} raters).")
     stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots, eligible,
-                                     p, chosen, used_resamples, generator, keep_apart)
+                                     p, chosen, used_resamples, generator, keep_apart, base=full)
     if stability.n_sat_out:
         warnings.append(f"In {stability.n_sat_out} of {used_resamples} resamples some rater "
                         "had too few distinct cases for an equation and sat that resample out.")

@@ -17,6 +17,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from scipy import sparse
 from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.optimize import linear_sum_assignment
 
@@ -35,6 +36,8 @@ __all__ = [
     "KeepApartRule",
     "ResamplingStability",
     "adjusted_rand_index",
+    "co_assignment",
+    "common_weights",
     "group_jaccard",
     "groups_by_rule",
     "keep_apart_rule",
@@ -99,7 +102,8 @@ def resample_budget(n_resamples: int, n_raters: int, *, floor: int = 20) -> int:
     return min(n_resamples, max(floor, _RESAMPLE_WORK_BUDGET // (n_raters * n_raters)))
 
 
-def merge_side_loss(sscp_a: np.ndarray, sscp_b: np.ndarray, p: int) -> np.ndarray:
+def merge_side_loss(sscp_a: np.ndarray, sscp_b: np.ndarray, p: int, *,
+                    weights: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
     """What a merge costs the side that suffers most, as a share of its own spread.
 
     ``sscp_a`` and ``sscp_b`` (M, k, k) are the pooled-within SSCPs of the two groups
@@ -113,22 +117,27 @@ def merge_side_loss(sscp_a: np.ndarray, sscp_b: np.ndarray, p: int) -> np.ndarra
     ``R - 1`` loses as much as ever, but the whole panel's R^2 hardly moves when R
     is large, so a threshold on it absorbed different raters in big panels. The
     loss of the side itself does not depend on how many other raters there are.
-    Our own statistic.
+    Our own statistic. ``weights``: the two sides' own common weights
+    (:func:`common_weights`), when the caller keeps them.
     """
-    def weights(sscp):
-        try:
-            return np.linalg.solve(sscp[:, :p, :p], sscp[:, :p, p:])[..., 0]
-        except np.linalg.LinAlgError:  # a singular side somewhere in the stack
-            return (np.linalg.pinv(sscp[:, :p, :p]) @ sscp[:, :p, p:])[..., 0]
+    merged = common_weights(sscp_a + sscp_b, p)
+    own_a, own_b = weights if weights is not None else (common_weights(sscp_a, p),
+                                                         common_weights(sscp_b, p))
 
-    merged = weights(sscp_a + sscp_b)
-
-    def loss(sscp):
-        gap = merged - weights(sscp)
+    def loss(sscp, own):
+        gap = merged - own
         with np.errstate(invalid="ignore", divide="ignore"):
             return np.einsum("mi,mij,mj->m", gap, sscp[:, :p, :p], gap) / sscp[:, p, p]
 
-    return np.maximum(loss(sscp_a), loss(sscp_b))
+    return np.maximum(loss(sscp_a, own_a), loss(sscp_b, own_b))
+
+
+def common_weights(sscp: np.ndarray, p: int) -> np.ndarray:
+    """(M, p) common weights of a stack of pooled-within SSCPs (M, k, k)."""
+    try:
+        return np.linalg.solve(sscp[:, :p, :p], sscp[:, :p, p:])[..., 0]
+    except np.linalg.LinAlgError:  # a singular side somewhere in the stack
+        return (np.linalg.pinv(sscp[:, :p, :p]) @ sscp[:, :p, p:])[..., 0]
 
 
 def tree_side_losses(sscp: np.ndarray, active: np.ndarray, history: list,
@@ -204,7 +213,7 @@ class KeepApartRule:
 
 
 def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
-                    threshold: float, alpha: float) -> KeepApartRule:
+                    threshold: float, alpha: float, base=None) -> KeepApartRule:
     """The :class:`KeepApartRule` of a panel, from panels simulated with one shared policy.
 
     Parametric bootstrap: judgments are simulated from the one-group model (the
@@ -214,7 +223,7 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     test for the number of mixture components this way; from memory).
     """
     R = eligible.size
-    base = grouped_sscp(Z, who, R)
+    base = grouped_sscp(Z, who, R) if base is None else base  # ``base``: the caller's
     pooled = base.sscp[eligible].sum(axis=0)[None]
     fit = ols_from_sscp(GroupedSSCP(n=np.array([base.n[eligible].sum()]),
                                     mean=np.zeros((1, p + 1)), sscp=pooled), np.arange(p), p)
@@ -223,9 +232,9 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     # The intercepts are left out: centring within rater removes them anyway.
     signal = Z[:, :p] @ fit.coef[0]
     noise = generator.standard_normal((n_sims, Z.shape[0])) * sigma[who]
-    sscp, n = stacked_sscp(Z, who, R, judgments=signal[None, :] + noise)
+    sscp, n = stacked_sscp(Z, who, R, judgments=signal[None, :] + noise, base=base)
     active = np.broadcast_to(eligible, (n_sims, R))
-    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True)
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
     losses, smaller = tree_side_losses(sscp, active, agg.history, p)
     finite = np.isfinite(losses)
     if not finite.any():
@@ -276,8 +285,12 @@ def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
 
     Every pair's cost and verdict is computed once and only the merged piece's pairs
     again after a merge (the others' sums have not changed), so joining P pieces costs
-    O(P^2) fits instead of O(P^3). The pick is the same as scanning every pair in
-    (first, second) order: the cheapest allowed pair, the first one on a tie.
+    O(P^2) fits instead of O(P^3). Each piece's own RSS and common weights are kept
+    between merges, so scoring a pair solves only the merged system (the same solves,
+    matrix by matrix, as :func:`merged_rss` and :func:`merge_side_loss`: the same
+    digits). The pick is the same as scanning every pair in (first, second) order: the
+    cheapest allowed pair, the first one on a tie (row-major order of the upper
+    triangle).
     """
     piece = piece.copy()
     ids = [int(g) for g in np.unique(piece[piece >= 0])]
@@ -287,32 +300,34 @@ def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
     group = np.array([sscp[piece == g].sum(axis=0) for g in ids])
     count = np.array([float(n[piece == g].sum()) for g in ids])
     size = np.array([np.sum(piece == g) for g in ids])
+    own_rss = merged_rss(group, count, p)
+    own_weights = common_weights(group, p)
     cost = np.full((P, P), np.nan)
-    allowed = np.zeros((P, P), dtype=bool)
+    allowed = np.zeros((P, P), dtype=bool)   # upper triangle only, live pieces only
     alive = np.ones(P, dtype=bool)
 
     def score(first, second):
         a, b = group[first], group[second]
         cost[first, second] = (merged_rss(a + b, count[first] + count[second], p)
-                               - merged_rss(a, count[first], p) - merged_rss(b, count[second], p))
-        allowed[first, second] = ~rule.apart(merge_side_loss(a, b, p),
-                                             np.minimum(size[first], size[second]))
+                               - own_rss[first] - own_rss[second])
+        loss = merge_side_loss(a, b, p, weights=(own_weights[first], own_weights[second]))
+        allowed[first, second] = ~rule.apart(loss, np.minimum(size[first], size[second]))
 
     score(*np.triu_indices(P, k=1))
     while alive.sum() > 1:
-        live = np.flatnonzero(alive)
-        first, second = np.triu_indices(live.size, k=1)
-        first, second = live[first], live[second]
-        ok = allowed[first, second]
-        if not ok.any():
+        candidates = np.flatnonzero(allowed)
+        if candidates.size == 0:
             break
-        pick = int(np.flatnonzero(ok)[np.argmin(cost[first, second][ok])])
-        keep, gone = int(first[pick]), int(second[pick])
+        keep, gone = divmod(int(candidates[np.argmin(cost.reshape(-1)[candidates])]), P)
         piece[piece == ids[gone]] = ids[keep]
         group[keep] = group[keep] + group[gone]
         count[keep] += count[gone]
         size[keep] += size[gone]
         alive[gone] = False
+        allowed[gone, :] = allowed[:, gone] = False
+        allowed[keep, :] = allowed[:, keep] = False
+        own_rss[keep] = merged_rss(group[keep:keep + 1], count[keep:keep + 1], p)[0]
+        own_weights[keep] = common_weights(group[keep:keep + 1], p)[0]
         others = np.flatnonzero(alive & (np.arange(P) != keep))
         if others.size:
             score(np.minimum(others, keep), np.maximum(others, keep))
@@ -320,7 +335,7 @@ def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
 
 
 def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
-                     rule: KeepApartRule | None = None) -> np.ndarray:
+                     rule: KeepApartRule | None = None, base=None) -> np.ndarray:
     """Group every resample (rows of ``counts``): by ``rule``, or cut at ``chosen`` groups.
 
     With a rule, each resample's whole tree is built and :func:`groups_by_rule`
@@ -330,33 +345,50 @@ def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
     resample.
     """
     R = eligible.size
-    sscp, n = stacked_sscp(Z, who, R, weights=counts[:, case_row])
+    sscp, n = stacked_sscp(Z, who, R, weights=counts[:, case_row], base=base)
     own_rss = batched_rss(sscp, n, p)
     active = eligible[None, :] & np.isfinite(own_rss) & (sscp[:, :, p, p] > 0)
     if rule is None:
         agg = agglomerate(sscp, n, active, p, stop_at=max(chosen, 1), record=False)
         return agg.labels
-    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True)
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
     losses, smaller = tree_side_losses(sscp, active, agg.history, p)
     return groups_by_rule(sscp, n, active, agg.history, losses, smaller, rule, p)
 
 
 def group_jaccard(slots: np.ndarray, boot_slots: np.ndarray, eligible: np.ndarray) -> dict:
-    """Per full-data group slot: mean over resamples of the best Jaccard match."""
+    """Per full-data group slot: mean over resamples of the best Jaccard match.
+
+    All groups and resamples at once from one contingency count of (resample, group,
+    resample label); a resample in which none of the group's raters took part is
+    skipped for that group.
+    """
+    groups = sorted({int(x) for x in slots[eligible]})
+    if not groups or boot_slots.shape[0] == 0:
+        return {s: np.nan for s in groups}
+    B, R = boot_slots.shape
+    index = np.full(R, -1)
+    index[np.isin(slots, groups)] = np.searchsorted(groups, slots[np.isin(slots, groups)])
+    S = len(groups)
+    present = boot_slots >= 0
+    label_size = np.zeros((B, R), dtype=np.int64)          # raters with each label
+    b_all, r_all = np.nonzero(present)
+    np.add.at(label_size, (b_all, boot_slots[b_all, r_all]), 1)
+    counted = present & (index >= 0)[None, :]
+    b, r = np.nonzero(counted)
+    target = np.zeros((B, S), dtype=np.int64)               # the group's raters present
+    np.add.at(target, (b, index[r]), 1)
+    flat = (b * S + index[r]) * R + boot_slots[b, r]
+    cell, inter = np.unique(flat, return_counts=True)       # the non-empty cells only
+    cb, rest = np.divmod(cell, S * R)
+    cs, cu = np.divmod(rest, R)
+    ratio = inter / (label_size[cb, cu] + target[cb, cs] - inter)
+    best = np.zeros((B, S))
+    np.maximum.at(best, (cb, cs), ratio)
     out = {}
-    for s in sorted({int(x) for x in slots[eligible]}):
-        member = slots == s
-        scores = []
-        for labels in boot_slots:
-            here = labels >= 0
-            target = member & here
-            if not target.any():
-                continue
-            found = labels[:, None] == np.unique(labels[here])[None, :]
-            inter = (found & target[:, None]).sum(axis=0)
-            union = (found | target[:, None]).sum(axis=0)
-            scores.append((inter / union).max())
-        out[s] = float(np.mean(scores)) if scores else np.nan
+    for k, s in enumerate(groups):
+        seen = target[:, k] > 0
+        out[s] = float(np.mean(best[seen, k])) if seen.any() else np.nan
     return out
 
 
@@ -398,9 +430,35 @@ class ResamplingStability:
     n_sat_out: int              # resamples in which some grouped rater had to sit out
 
 
+def co_assignment(boot_slots: np.ndarray) -> np.ndarray:
+    """(R, R) share of resamples in which two raters share a group (NaN: never both in).
+
+    Counted by products of 0/1 matrices: ``H H'`` with one column per (resample,
+    group) counts the resamples two raters shared a group in, ``P' P`` (P: who took
+    part in each resample) those they both took part in. Whole counts, exact in
+    floating point; no (resamples, R, R) array.
+    """
+    B, R = boot_slots.shape
+    present = boot_slots >= 0
+    b, r = np.nonzero(present)
+    column = np.unique(b * R + boot_slots[b, r], return_inverse=True)[1].reshape(-1)
+    n_columns = int(column.max()) + 1 if column.size else 0
+    if n_columns <= 512:
+        member = np.zeros((R, max(n_columns, 1)))
+        member[r, column] = 1.0
+        together = member @ member.T
+    else:  # many groups per resample: the same counts from a sparse product
+        member = sparse.csr_array((np.ones(r.size), (r, column)), shape=(R, n_columns))
+        together = (member @ member.T).toarray()
+    took_part = present.astype(float)
+    both = took_part.T @ took_part
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(both > 0, together / both, np.nan)
+
+
 def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
                          n_resamples, generator,
-                         rule: KeepApartRule | None = None) -> ResamplingStability:
+                         rule: KeepApartRule | None = None, base=None) -> ResamplingStability:
     """Group ``n_resamples`` case resamples in lockstep and compare with ``slots``.
 
     Cases are drawn with replacement (multinomial counts used as weights), every
@@ -413,13 +471,9 @@ def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
                                    jaccard={}, n_sat_out=0)
     counts = generator.multinomial(n_cases, np.full(n_cases, 1.0 / n_cases),
                                    size=n_resamples).astype(float)
-    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule)
+    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule, base=base)
     present = boot_slots >= 0
-    same = (boot_slots[:, :, None] == boot_slots[:, None, :]) & present[:, :, None] \
-        & present[:, None, :]
-    both = (present[:, :, None] & present[:, None, :]).sum(axis=0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        co = np.where(both > 0, same.sum(axis=0) / both, np.nan)
+    co = co_assignment(boot_slots)
     ari = np.array([adjusted_rand_index(slots[present[b] & eligible],
                                         boot_slots[b][present[b] & eligible])
                     for b in range(n_resamples)])
