@@ -9,7 +9,7 @@ from importlib import resources
 import pandas as pd
 
 from ..data.rules import map_distinct
-from ..safe_files import escape_formula
+from ..safe_files import FORMULA_START, escape_formula
 
 
 def results_schema() -> dict:
@@ -26,13 +26,27 @@ def comparison_schema() -> dict:
 
 def csv_bytes(frame: pd.DataFrame) -> bytes:
     """A table as UTF-8 CSV; text a spreadsheet would run as a formula is escaped."""
-    safe = frame.copy()
-    for col in safe.columns:
-        if pd.api.types.is_object_dtype(safe[col]) or pd.api.types.is_string_dtype(safe[col]):
-            # once per distinct value: a long table repeats its ids (460,000 rows at 2,000 raters)
-            present = safe[col].notna()
-            safe[col] = map_distinct(safe[col], escape_formula).where(present, safe[col])
+    safe = frame
+    for col in frame.columns:
+        values = frame[col]
+        if not (pd.api.types.is_object_dtype(values) or pd.api.types.is_string_dtype(values)):
+            continue
+        if not _may_hold_formula_text(values):
+            continue
+        if safe is frame:
+            safe = frame.copy()
+        # once per distinct value: a long table repeats its ids (460,000 rows at 2,000 raters)
+        present = values.notna()
+        safe[col] = map_distinct(values, escape_formula).where(present, values)
     return safe.to_csv(index=False, lineterminator="\n", float_format="%.10g").encode("utf-8")
+
+
+def _may_hold_formula_text(values: pd.Series) -> bool:
+    """False when no cell of a text column starts like a formula (one vectorised test); True
+    for a column of mixed objects, which is escaped cell by cell."""
+    if pd.api.types.is_object_dtype(values.dtype):
+        return True
+    return bool(values.str.startswith(FORMULA_START).fillna(False).any())
 
 
 TABLE_DESCRIPTIONS = {

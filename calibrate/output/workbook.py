@@ -21,9 +21,9 @@ from collections.abc import Mapping
 import numpy as np
 import pandas as pd
 
+from ..safe_files import FORMULA_START
 from .columns import column_description
 
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 _SHEET_FORBIDDEN = re.compile(r"[\[\]:*?/\\]")
 README_SHEET = "read-me"
 # A worksheet holds at most 1,048,576 rows (the header takes one): the limit of the
@@ -280,7 +280,7 @@ def _readme_sheet_xml(tables, descriptions, notes, left_out, names, styles: _Sty
             text = _cell_value(value)
             if text is None or text == "":
                 continue
-            quote = text.startswith(_FORMULA_START)
+            quote = text.startswith(FORMULA_START)
             if letter == "C":
                 style = bold_wrap if r == 1 else styles.of(wrap=True, quote=quote) if quote else wrap
             elif is_title and (letter == "A" or r == 1):
@@ -299,7 +299,7 @@ def _table_sheet_xml(frame: pd.DataFrame, styles: _Styles) -> str:
     for j, col in enumerate(frame.columns, start=1):
         letter = _column_letter(j)
         title = _cell_value(str(col))
-        quote = title.startswith(_FORMULA_START)
+        quote = title.startswith(FORMULA_START)
         header.append(_text_cell(f"{letter}1", title, styles.of(bold=True, quote=quote)) if title else "")
         cells, longest = _column_cells(letter, frame[col], _number_format(str(col), frame[col]), styles)
         columns.append(cells)
@@ -373,7 +373,7 @@ def _text_end(text: str, styles: _Styles) -> str:
     a quote prefix."""
     if text == "":
         return ""
-    return _text_tail(text, styles.of(quote=True) if text.startswith(_FORMULA_START) else 0)
+    return _text_tail(text, styles.of(quote=True) if text.startswith(FORMULA_START) else 0)
 
 
 def _filter_range(sheet: str, n_rows: int, n_cols: int) -> str:

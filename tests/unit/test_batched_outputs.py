@@ -17,15 +17,15 @@ import pytest
 from openpyxl import load_workbook
 
 # the value of a cell is decided as before (one function); what the reference re-does is the writing
-from calibrate.output.workbook import (README_SHEET, _FORMULA_START, _cell_value, _column_note,
+from calibrate.output.workbook import (README_SHEET, _cell_value, _column_note,
                                        _number_format, leave_out_long_tables, sheet_names,
                                        split_long_tables, workbook_bytes)
-from calibrate.safe_files import reproducible_xlsx_bytes
+from calibrate.safe_files import FORMULA_START, reproducible_xlsx_bytes
 
 
 def _reference_as_text(cell) -> None:
     cell.data_type = "s"
-    if cell.value.startswith(_FORMULA_START):
+    if cell.value.startswith(FORMULA_START):
         cell.quotePrefix = True
 
 
@@ -149,7 +149,7 @@ def test_workbook_equals_the_general_purpose_writers(options):
     # (a column named "=...") as a formula; it is text with a quote prefix now
     readme = expected[README_SHEET][1]
     for ref, (value, *look) in readme.items():
-        if isinstance(value, str) and value.startswith(_FORMULA_START):
+        if isinstance(value, str) and value.startswith(FORMULA_START):
             readme[ref] = (value, look[0], look[1], True, *look[3:])
     assert _cells(new) == expected
     for sheet in load_workbook(io.BytesIO(old)).sheetnames[1:]:   # the read-me: its formula read as empty
@@ -188,3 +188,20 @@ def test_a_table_without_columns_gets_an_empty_sheet():
     # the general-purpose path failed on it (no column to measure)
     back = load_workbook(io.BytesIO(workbook_bytes({"t": pd.DataFrame(index=range(3))}, {})))["t"]
     assert back.freeze_panes == "A2" and back["A1"].value is None
+
+
+def test_csv_bytes_equal_escaping_every_text_cell():
+    # text columns without formula-like cells are written as they are (one vectorised test);
+    # the bytes equal escaping every text cell, as before
+    from calibrate.data.rules import map_distinct
+    from calibrate.output.tables import csv_bytes
+    from calibrate.safe_files import escape_formula
+
+    for frame in hostile_tables().values():
+        every = frame.copy()
+        for col in every.columns:
+            if pd.api.types.is_object_dtype(every[col]) or pd.api.types.is_string_dtype(every[col]):
+                present = every[col].notna()
+                every[col] = map_distinct(every[col], escape_formula).where(present, every[col])
+        assert csv_bytes(frame) == every.to_csv(index=False, lineterminator="\n",
+                                                float_format="%.10g").encode("utf-8")
