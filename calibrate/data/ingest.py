@@ -376,7 +376,7 @@ def _case_table(spec: StudySpec, data: pd.DataFrame, cases_df: pd.DataFrame | No
             case_values[col] = cases_index[col]
         else:
             case_values[col] = case_value_from_rows(data, col, ccol, out)
-    used_cases = pd.Index(sorted(data[ccol].dropna().unique(), key=natural_key), name="case")
+    used_cases = pd.Index(sorted(data[ccol].dropna().unique().tolist(), key=natural_key), name="case")
     cases = pd.DataFrame(index=used_cases)
     for col, series in case_values.items():
         cases[col] = series.reindex(used_cases)

@@ -462,7 +462,9 @@ def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpe
                           file=spec.cases.name, column=ccol)
         cases_df = cases_df.drop_duplicates(subset=[ccol], keep="first")
     cases_index = cases_df.set_index(ccol)
-    unknown = ~data[ccol].isin(cases_index.index)
+    # looked up in the (unique) index's hash table: isin on a text column builds an object
+    # per value of the cases table (100,000 on a linked panel)
+    unknown = cases_index.index.get_indexer(data[ccol]) < 0
     if unknown.any():
         ids = data.loc[unknown, ccol].unique()
         out.error(f"{len(ids)} case id(s) in the judgments are missing from the cases table: "
