@@ -175,8 +175,8 @@ _XML_HEAD = '<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\n'
 # Zip members carry this date, the document its created/modified stamps: same tables, same bytes.
 _FIXED_DATE = (2000, 1, 1, 0, 0, 0)
 _FIXED_STAMP = "2000-01-01T00:00:00Z"
-# zlib level 1: the sheets are repetitive XML, so level 6 makes the file about a fifth
-# smaller at three times the time (measured on a 2,000-rater audit's tables).
+# zlib level 1: on a 2,000-rater audit's tables level 6 made the file 18% smaller (5.6 MB
+# against 6.9 MB) for 0.37 s more CPU, half again the whole workbook's time.
 _COMPRESS_LEVEL = 1
 _ALIGN_WRAP = '<alignment vertical="top" wrapText="1"/>'
 # Number formats beyond the built-in ones (id 1 is "0"); custom ids start at 164.
