@@ -183,6 +183,22 @@ def test_workbook_sheets_read_back_as_the_csv_tables(demo):
                 assert b[a.notna()].astype(str).tolist() == want.tolist(), (name, column)
 
 
+def test_large_panels_get_compact_json_with_the_same_content(demo, tmp_path, monkeypatch):
+    import json
+
+    import calibrate.writing as writing
+
+    _, result = demo
+    writing.write_audit_files(result, tmp_path / "indented", pdf=False)
+    monkeypatch.setattr(writing, "COMPACT_RESULTS_RATERS", 0)
+    writing.write_audit_files(result, tmp_path / "compact", pdf=False)
+    for name in ("results.json", "policies.json"):
+        compact = (tmp_path / "compact" / name).read_text("utf-8")
+        indented = (tmp_path / "indented" / name).read_text("utf-8")
+        assert compact.count("\n") == 1 and len(compact) < len(indented), name
+        assert json.loads(compact) == json.loads(indented), name
+
+
 def test_no_report_text_says_from_memory_or_null(built):
     """Sources the tool doubts never reach a reader, and no phase is called "null"."""
     out, paths, *_ = built
