@@ -197,7 +197,14 @@ def test_csv_bytes_equal_escaping_every_text_cell():
     from calibrate.output.tables import csv_bytes
     from calibrate.safe_files import escape_formula
 
-    for frame in hostile_tables().values():
+    rng = np.random.default_rng(3)
+    n = 5000
+    scale = rng.integers(1, 8, n).astype(float)
+    scale[:6] = [-0.0, 0.0, np.nan, np.inf, -np.inf, 0.1 + 0.2]
+    long = pd.DataFrame({"rater": [f"r{i % 7}" for i in range(n)], "judgment": scale,
+                         "tiny": np.where(rng.random(n) < 0.5, 1e-20, 123456789.123456789),
+                         "spread": rng.normal(size=n), "position": np.arange(n)})
+    for frame in [*hostile_tables().values(), long, long.iloc[::2]]:
         every = frame.copy()
         for col in every.columns:
             if pd.api.types.is_object_dtype(every[col]) or pd.api.types.is_string_dtype(every[col]):
