@@ -48,7 +48,6 @@ from .rules import (
     index_cases_table,
     mark_repeats,
     natural_key,
-    natural_sorted,
     report_missing_cue,
     too_few_cases,
 )
@@ -377,7 +376,7 @@ def _case_table(spec: StudySpec, data: pd.DataFrame, cases_df: pd.DataFrame | No
             case_values[col] = cases_index[col]
         else:
             case_values[col] = case_value_from_rows(data, col, ccol, out)
-    used_cases = pd.Index(natural_sorted(data[ccol].dropna().unique().tolist()), name="case")
+    used_cases = pd.Index(sorted(data[ccol].dropna().unique().tolist(), key=natural_key), name="case")
     cases = pd.DataFrame(index=used_cases)
     for col, series in case_values.items():
         cases[col] = series.reindex(used_cases)

@@ -36,25 +36,6 @@ def natural_key(text: str):
     return [int(t) if t.isdigit() else t.lower() for t in _DIGIT_RUNS.split(str(text))]
 
 
-# Ids that are letters then a number ('f000123', 'reader42'): their natural key is
-# [letters in lower case, the number, ""], so a long list of them sorts on two arrays.
-_LETTERS_THEN_NUMBER = r"\A(\D*)(\d{1,18})\Z"
-
-
-def natural_sorted(ids: list[str]) -> list[str]:
-    """``sorted(ids, key=natural_key)``; a long list of letters-then-number ids (100,000
-    case ids of a linked design) by one stable sort of codes instead of a key per id."""
-    if len(ids) < 1000:
-        return sorted(ids, key=natural_key)
-    parts = pd.Series(ids, dtype=object).str.extract(_LETTERS_THEN_NUMBER)
-    if parts.isna().to_numpy().any():
-        return sorted(ids, key=natural_key)
-    letters = pd.factorize(parts[0].str.lower().to_numpy(dtype=object), sort=True)[0]
-    numbers = np.array([int(n) for n in parts[1].tolist()], dtype=np.int64)
-    order = np.lexsort((numbers, letters))   # stable, as sorted() is
-    return [ids[i] for i in order.tolist()]
-
-
 def as_id(value) -> str | None:
     """Ids as text; a float that is a whole number (from a spreadsheet) loses its '.0'."""
     if value is None or (isinstance(value, float) and np.isnan(value)) or value is pd.NA:

@@ -171,19 +171,3 @@ def test_repeat_pairs_equal_the_merge(seed):
     pd.testing.assert_frame_equal(_repeat_pairs(marked, firsts), expected)
     none = marked.loc[marked["_nth"] == 0]
     assert _repeat_pairs(none, none).empty
-
-
-@pytest.mark.parametrize("seed", range(4))
-def test_natural_sorted_equals_sorting_by_the_natural_key(seed):
-    from calibrate.data.rules import natural_sorted
-
-    rng = np.random.default_rng(seed)
-    n = 3000
-    prefixes = np.array(["f", "F", "case", "", "Ä", "x_"], dtype=object)
-    ids = [f"{prefixes[p]}{'0' * z}{k}" for p, z, k in zip(rng.integers(0, len(prefixes), n),
-                                                          rng.integers(0, 3, n), rng.integers(0, 500, n))]
-    ids += ["f٣", "f" + "9" * 18]
-    ids = list(dict.fromkeys(ids))               # distinct, in a random order
-    assert natural_sorted(ids) == sorted(ids, key=natural_key)
-    mixed = ids + ["a1b2", "nodigits", "f" + "9" * 19]   # not letters-then-number: the general key
-    assert natural_sorted(mixed) == sorted(mixed, key=natural_key)
