@@ -18,7 +18,8 @@ import zipfile
 from pathlib import Path
 from typing import Any
 
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+# What a spreadsheet would run as a formula at the start of a cell.
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
 
 
 def _current_umask() -> int:
@@ -114,7 +115,7 @@ def safe_file_stem(raw: str, *, taken: set[str] | None = None) -> str:
 def escape_formula(value: Any) -> Any:
     """Make a text cell safe for spreadsheets: text starting with = + - @ (or a tab/CR)
     gets a leading apostrophe so it is shown, not run. Numbers stay numbers."""
-    if isinstance(value, str) and value.startswith(_FORMULA_START):
+    if isinstance(value, str) and value.startswith(FORMULA_START):
         return "'" + value
     return value
 

@@ -144,9 +144,9 @@ def _unreadable(path: Path, why: str) -> DataError:
     return DataError([DataProblem(f"the table cannot be read: {why}", file=path.name)])
 
 
-def _csv_text(path: Path) -> str:
-    """The whole file as text (UTF-8, with or without a byte-order mark), or a DataError
-    naming the line of the first byte that is not UTF-8."""
+def _csv_text(path: Path) -> tuple[bytes, str]:
+    """The whole file as bytes and as text (UTF-8, with or without a byte-order mark), or a
+    DataError naming the line of the first byte that is not UTF-8."""
     raw = path.read_bytes()
     try:
         text = raw.decode("utf-8-sig")
@@ -156,12 +156,12 @@ def _csv_text(path: Path) -> str:
                                 "perhaps Latin-1 or Windows-1252); save it as CSV UTF-8") from None
     if "\x00" in text:
         raise _unreadable(path, f"it holds binary data, not text; give a {TABLE_KINDS} table")
-    return text
+    return raw, text
 
 
 def _read_csv(path: Path) -> pd.DataFrame:
     """Every cell as text with the header as the first row; only empty cells are missing."""
-    text = _csv_text(path)
+    raw, text = _csv_text(path)
     if not text.strip():
         raise _unreadable(path, "the file is empty; it needs a header row and rows of data")
     try:
@@ -169,8 +169,11 @@ def _read_csv(path: Path) -> pd.DataFrame:
     except csv.Error:
         sep = ","
     try:
-        return pd.read_csv(io.StringIO(text), sep=sep, dtype=str, header=None, keep_default_na=False,
-                           na_values=[""], skipinitialspace=True, skip_blank_lines=True)
+        # parsed from the bytes (checked as UTF-8 above): the parser reads them directly,
+        # where text would be encoded again on the way in
+        return pd.read_csv(io.BytesIO(raw), encoding="utf-8-sig", sep=sep, dtype=str,
+                           header=None, keep_default_na=False, na_values=[""], skipinitialspace=True,
+                           skip_blank_lines=True)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError) as exc:
         raise _unreadable(path, str(exc).strip()) from None
 
@@ -373,7 +376,7 @@ def _case_table(spec: StudySpec, data: pd.DataFrame, cases_df: pd.DataFrame | No
             case_values[col] = cases_index[col]
         else:
             case_values[col] = case_value_from_rows(data, col, ccol, out)
-    used_cases = pd.Index(sorted(data[ccol].dropna().unique(), key=natural_key), name="case")
+    used_cases = pd.Index(sorted(data[ccol].dropna().unique().tolist(), key=natural_key), name="case")
     cases = pd.DataFrame(index=used_cases)
     for col, series in case_values.items():
         cases[col] = series.reindex(used_cases)
@@ -417,15 +420,7 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
         "shown": firsts["_shown"].to_numpy(dtype=int),
         "case_mean": case_mean,
     })
-    seconds = sub.loc[sub["_nth"] == 1, ["_rater", "_case", "_judgment"]]
-    pairs = firsts[["_rater", "_case", "_judgment"]].merge(
-        seconds, on=["_rater", "_case"], suffixes=("_first", "_second"))
-    repeats = pd.DataFrame({
-        "rater": pairs["_rater"].array,
-        "case": pairs["_case"].array,
-        "first": pairs["_judgment_first"].to_numpy(dtype=float),
-        "second": pairs["_judgment_second"].to_numpy(dtype=float),
-    })
+    repeats = _repeat_pairs(sub, firsts)
     ordered = pd.DataFrame({
         "rater": sub["_rater"].array,
         "case": sub["_case"].array,
@@ -437,6 +432,26 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
     return PhaseData(name=name, first=first, repeats=repeats, ordered=ordered,
                      fit_raters=fit_raters, too_few=too_few, presentations=presentations,
                      repeat_mode=mode)
+
+
+def _repeat_pairs(sub: pd.DataFrame, firsts: pd.DataFrame) -> pd.DataFrame:
+    """Each first judgment that has a second (``_nth`` 1) beside it, in the first judgments'
+    order: the inner join on rater and case, found on integer codes (each pair is unique)."""
+    nth = sub["_nth"].to_numpy()
+    rater = pd.factorize(sub["_rater"], use_na_sentinel=False)[0].astype(np.int64)
+    case = pd.factorize(sub["_case"], use_na_sentinel=False)[0].astype(np.int64)
+    key = rater * (int(case.max(initial=0)) + 1) + case
+    first_keys, second_keys = key[nth == 0], key[nth == 1]
+    by_key = np.argsort(second_keys, kind="stable")
+    place = np.minimum(np.searchsorted(second_keys[by_key], first_keys), max(len(second_keys) - 1, 0))
+    matched = (second_keys[by_key][place] == first_keys) if len(second_keys) else np.zeros(len(first_keys), bool)
+    second = sub["_judgment"].to_numpy(dtype=float)[nth == 1][by_key[place[matched]]]
+    return pd.DataFrame({
+        "rater": firsts["_rater"].array[matched],
+        "case": firsts["_case"].array[matched],
+        "first": firsts["_judgment"].to_numpy(dtype=float)[matched],
+        "second": second,
+    })
 
 
 def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None) -> JudgmentTable | None:

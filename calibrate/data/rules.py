@@ -233,23 +233,48 @@ def check_ids(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd
     data = data.copy()
     for role in ("rater", "case"):
         col = columns[role]
-        ids = map_distinct(data[col], as_id)
-        missing = ids.isna()
+        ids, missing, odd, too_long = _checked_ids(data[col])
         for fname, rows in data.loc[missing].groupby(FILE)[ROW]:
             out.error(f"the {role} id is empty in rows {rows_text(rows.tolist())}; every judgment "
                       f"needs a {role}", file=fname, column=col)
-        odd = ids.notna() & ids.str.contains(CONTROL_CHARACTERS, na=False)
         for fname, rows in data.loc[odd].groupby(FILE)[ROW]:
             out.error(f"the {role} id in rows {rows_text(rows.tolist())} holds a line break, tab or "
                       "other control character; ids must be printable text on one line",
                       file=fname, column=col)
-        too_long = ids.notna() & (ids.str.len() > MAX_ID_CHARS)
         for fname, rows in data.loc[too_long].groupby(FILE)[ROW]:
             out.error(f"the {role} id in rows {rows_text(rows.tolist())} is longer than "
                       f"{MAX_ID_CHARS} characters; ids title the reports, so shorten them (a "
                       "code, with the long names kept elsewhere)", file=fname, column=col)
         data[col] = ids
     return data
+
+
+def _checked_ids(raw: pd.Series) -> tuple[pd.Series, np.ndarray, np.ndarray, np.ndarray]:
+    """The ids as text, and which cells are empty, hold a control character, or are too long:
+    each distinct cell checked once (a long table repeats its ids), then put back on every row."""
+    split = _distinct_cells(raw)
+    if split is None:   # unhashable cells: row by row
+        ids = map_distinct(raw, as_id)
+        return (ids, *_id_problems(ids))
+    codes, distinct = split
+    distinct_ids = map_distinct(distinct, as_id)
+    missing, odd, too_long = (pd.Series(flags) for flags in _id_problems(distinct_ids))
+    if isinstance(distinct_ids.dtype, pd.StringDtype):
+        # put back by the text array's own take: building text from 460,000 objects again
+        # is most of the cost otherwise
+        ids = pd.Series(distinct_ids.array.take(codes, allow_fill=True), index=raw.index, name=raw.name)
+    else:
+        ids = _spread(distinct_ids, codes, raw, None)
+    return (ids, _spread(missing, codes, raw, True).to_numpy(),
+            _spread(odd, codes, raw, False).to_numpy(), _spread(too_long, codes, raw, False).to_numpy())
+
+
+def _id_problems(ids: pd.Series) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(empty, holding a control character, longer than MAX_ID_CHARS) for each id."""
+    missing = ids.isna().to_numpy()
+    odd = (~missing) & ids.str.contains(CONTROL_CHARACTERS, na=False).to_numpy(dtype=bool)
+    too_long = (~missing) & (ids.str.len() > MAX_ID_CHARS).to_numpy(dtype=bool)
+    return missing, odd, too_long
 
 
 def check_phases(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.DataFrame:
@@ -437,7 +462,9 @@ def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpe
                           file=spec.cases.name, column=ccol)
         cases_df = cases_df.drop_duplicates(subset=[ccol], keep="first")
     cases_index = cases_df.set_index(ccol)
-    unknown = ~data[ccol].isin(cases_index.index)
+    # looked up in the (unique) index's hash table: isin on a text column builds an object
+    # per value of the cases table (100,000 on a linked panel)
+    unknown = cases_index.index.get_indexer(data[ccol]) < 0
     if unknown.any():
         ids = data.loc[unknown, ccol].unique()
         out.error(f"{len(ids)} case id(s) in the judgments are missing from the cases table: "
@@ -597,25 +624,51 @@ def mark_repeats(data: pd.DataFrame, out: Collector, mode: str | None = "first-t
     adds ``_nth``, ``_shown`` (presentations of the case to the rater, dropped ones
     included) and ``_position`` (0-based place in the rater's reading order). ``mode``
     None decides by :func:`repeat_mode`; the mode used is in ``data.attrs["repeats"]``."""
-    data = data.copy()
-    data["_order"] = np.arange(len(data))
-    sort_cols = [PHASE, "_rater", "_sequence", "_order"]
-    data = data.sort_values(sort_cols, kind="mergesort", na_position="last")
-    showings = data.groupby([PHASE, "_rater", "_case"], dropna=False, sort=False)  # keyed once
-    data["_nth"] = showings.cumcount()
+    # Sorted by phase, rater, sequence (missing last) and row, as a stable sort of those
+    # columns would; the ids as integer codes that sort as the ids do, so the sort and the
+    # counts below are numpy on integers, not pandas on 460,000 strings.
+    n = len(data)
+    phase, rater, case = (_sorted_codes(data[c]) for c in (PHASE, "_rater", "_case"))
+    order = np.lexsort((np.arange(n), data["_sequence"].to_numpy(dtype=float), rater, phase))
+    data = data.iloc[order].copy()
+    data["_order"] = order
+    phase, rater, case = phase[order], rater[order], case[order]
+    reader = phase * (int(rater.max(initial=0)) + 1) + rater            # one code per phase and rater
+    showing = reader * (int(case.max(initial=0)) + 1) + case            # ... and case
+    data["_nth"] = _cumcount(showing)
     # how often the case was put before the rater in all, counted before later ones are
     # dropped, so that a report can state the true number of presentations
-    group = showings.ngroup().to_numpy()
+    group = np.unique(showing, return_inverse=True)[1].reshape(-1)
     data["_shown"] = np.bincount(group)[group] if group.size else np.zeros(0, dtype=np.intp)
     mode = repeat_mode(int(data["_shown"].max()) if len(data) else 0, mode)
     third = data["_nth"] >= 2
     if third.any():
         _warn_many_presentations(data, third, mode, out)
     if mode == "first-two":
-        data = data.loc[~third].copy()
-    data["_position"] = data.groupby([PHASE, "_rater"], dropna=False).cumcount()
+        keep = ~third.to_numpy()
+        data, reader = data.loc[keep].copy(), reader[keep]
+    data["_position"] = _cumcount(reader)
     data.attrs["repeats"] = mode
     return data
+
+
+def _sorted_codes(values: pd.Series) -> np.ndarray:
+    """One integer per distinct value, in the values' sorted order, missing values last."""
+    codes, uniques = pd.factorize(values, sort=True, use_na_sentinel=True)
+    codes = codes.astype(np.int64)
+    codes[codes < 0] = len(uniques)
+    return codes
+
+
+def _cumcount(keys: np.ndarray) -> np.ndarray:
+    """Each row's place among the rows before it with the same key (0, 1, ...)."""
+    order = np.argsort(keys, kind="stable")
+    ranked = keys[order]
+    starts = np.flatnonzero(np.r_[True, ranked[1:] != ranked[:-1]]) if len(keys) else np.zeros(0, int)
+    first = np.repeat(starts, np.diff(np.r_[starts, len(keys)]))
+    out = np.empty(len(keys), dtype=np.int64)
+    out[order] = np.arange(len(keys)) - first
+    return out
 
 
 def _warn_many_presentations(data: pd.DataFrame, third: pd.Series, mode: str, out: Collector) -> None:
@@ -654,13 +707,19 @@ def too_few_cases(first: pd.DataFrame, complete: pd.Series, n_terms: int, phase_
     cues) than model terms + 2 is kept out of the policy fits and listed (a warning).
     ``phase_name`` None (a study without phases) names no phase in the warning.
     Returns (raters fit, {rater kept out: usable cases})."""
-    usable = first.loc[first["case"].map(complete).to_numpy(dtype=bool)].groupby("rater").size()
-    usable = usable.reindex(sorted(first["rater"].unique(), key=natural_key), fill_value=0)
+    # counted on integer codes: each distinct case looked up once, usable cases per rater by
+    # bincount (a first-judgment table has a row per rater and case)
+    case_codes, cases = pd.factorize(first["case"], use_na_sentinel=False)
+    rater_codes, raters = pd.factorize(first["rater"], use_na_sentinel=False)
+    usable_case = pd.Series(cases).map(complete).to_numpy(dtype=bool)
+    counts = np.bincount(rater_codes[usable_case[case_codes]], minlength=len(raters))
+    count_of = dict(zip(raters.tolist(), counts.tolist()))
+    usable = {r: count_of[r] for r in sorted(count_of, key=natural_key)}
     too_few = {r: int(n) for r, n in usable.items() if n < n_terms + 2}
     for rater, n in too_few.items():
         where = f" in phase '{phase_name}'" if phase_name is not None else ""
         out.warn(f"rater '{rater}' has {n} usable case(s){where}, fewer than the "
                  f"{n_terms + 2} a policy fit needs (cue terms + 2); kept out of policy fits",
                  kind="too_few_cases", rater=str(rater), phase=phase_name)
-    fit_raters = tuple(r for r in usable.index if r not in too_few)
+    fit_raters = tuple(r for r in usable if r not in too_few)
     return fit_raters, too_few

@@ -6,10 +6,11 @@ from __future__ import annotations
 import json
 from importlib import resources
 
+import numpy as np
 import pandas as pd
 
 from ..data.rules import map_distinct
-from ..safe_files import escape_formula
+from ..safe_files import FORMULA_START, escape_formula
 
 
 def results_schema() -> dict:
@@ -24,15 +25,51 @@ def comparison_schema() -> dict:
     return json.loads(text)
 
 
+_FLOAT_FORMAT = "%.10g"
+
+
 def csv_bytes(frame: pd.DataFrame) -> bytes:
     """A table as UTF-8 CSV; text a spreadsheet would run as a formula is escaped."""
     safe = frame.copy()
-    for col in safe.columns:
-        if pd.api.types.is_object_dtype(safe[col]) or pd.api.types.is_string_dtype(safe[col]):
-            # once per distinct value: a long table repeats its ids (460,000 rows at 2,000 raters)
-            present = safe[col].notna()
-            safe[col] = map_distinct(safe[col], escape_formula).where(present, safe[col])
-    return safe.to_csv(index=False, lineterminator="\n", float_format="%.10g").encode("utf-8")
+    for col in frame.columns:
+        values = frame[col]
+        if values.dtype == np.float64:
+            written = _formatted_repeats(values.to_numpy())
+            if written is not None:
+                safe[col] = written
+            continue
+        if not (pd.api.types.is_object_dtype(values) or pd.api.types.is_string_dtype(values)):
+            continue
+        if not _may_hold_formula_text(values):
+            continue
+        # once per distinct value: a long table repeats its ids (460,000 rows at 2,000 raters)
+        present = values.notna()
+        safe[col] = map_distinct(values, escape_formula).where(present, values)
+    return safe.to_csv(index=False, lineterminator="\n", float_format=_FLOAT_FORMAT).encode("utf-8")
+
+
+def _formatted_repeats(values: np.ndarray) -> np.ndarray | None:
+    """A float column of few distinct values (judgments on a scale) as the text the CSV
+    writer would give each (``%.10g``, empty when missing), formatted once per distinct
+    value; None when most values differ (the writer formats them as fast). Values are told
+    apart by their bits, so -0.0 stays "-0"."""
+    if len(values) < 1000:
+        return None
+    codes, distinct = pd.factorize(values.view(np.int64))
+    if len(distinct) > len(values) // 10:
+        return None
+    texts = np.array([_FLOAT_FORMAT % v for v in distinct.view(np.float64).tolist()], dtype=object)
+    written = texts[codes]
+    written[np.isnan(values)] = None
+    return written
+
+
+def _may_hold_formula_text(values: pd.Series) -> bool:
+    """False when no cell of a text column starts like a formula (one vectorised test); True
+    for a column of mixed objects, which is escaped cell by cell."""
+    if pd.api.types.is_object_dtype(values.dtype):
+        return True
+    return bool(values.str.startswith(FORMULA_START).fillna(False).any())
 
 
 TABLE_DESCRIPTIONS = {

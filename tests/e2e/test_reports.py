@@ -158,6 +158,47 @@ def test_workbook_holds_every_audit_table(demo):
         assert wb[sheet].max_row == len(result.tables[name]) + 1, name
 
 
+def test_workbook_sheets_read_back_as_the_csv_tables(demo):
+    # every sheet of the demo's workbook, read by pandas, holds what its CSV table holds
+    import numpy as np
+    import pandas as pd
+
+    from calibrate.output.tables import csv_bytes
+    from calibrate.output.workbook import sheet_names, workbook_bytes
+
+    _, result = demo
+    data = workbook_bytes(result.tables, {})
+    for name, sheet in sheet_names(result.tables).items():
+        csv = pd.read_csv(io.BytesIO(csv_bytes(result.tables[name])))
+        book = pd.read_excel(io.BytesIO(data), sheet_name=sheet)
+        assert list(book.columns) == list(csv.columns), name
+        for column in csv.columns:
+            a, b = csv[column], book[column]
+            assert (a.isna() == b.isna()).all(), (name, column)
+            if pd.api.types.is_numeric_dtype(a) and not pd.api.types.is_bool_dtype(a):
+                np.testing.assert_allclose(b[a.notna()].astype(float), a[a.notna()].astype(float),
+                                           rtol=1e-9, err_msg=f"{name}.{column}")
+            else:   # the CSV escapes formula-like text with a quote; the workbook keeps it as text
+                want = a[a.notna()].astype(str).str.replace(r"^'(?=[=+\-@\t\r])", "", regex=True)
+                assert b[a.notna()].astype(str).tolist() == want.tolist(), (name, column)
+
+
+def test_large_panels_get_compact_json_with_the_same_content(demo, tmp_path, monkeypatch):
+    import json
+
+    import calibrate.writing as writing
+
+    _, result = demo
+    writing.write_audit_files(result, tmp_path / "indented", pdf=False)
+    monkeypatch.setattr(writing, "COMPACT_RESULTS_RATERS", 0)
+    writing.write_audit_files(result, tmp_path / "compact", pdf=False)
+    for name in ("results.json", "policies.json"):
+        compact = (tmp_path / "compact" / name).read_text("utf-8")
+        indented = (tmp_path / "indented" / name).read_text("utf-8")
+        assert compact.count("\n") == 1 and len(compact) < len(indented), name
+        assert json.loads(compact) == json.loads(indented), name
+
+
 def test_no_report_text_says_from_memory_or_null(built):
     """Sources the tool doubts never reach a reader, and no phase is called "null"."""
     out, paths, *_ = built
