@@ -221,7 +221,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     step("agreement")
     several = first["rater"].nunique() >= 2
     agreement = (panel_agreement(first, scale=kind, scale_min=lo, scale_max=hi,
-                                 rng=_rng(seed, phase_index, "agreement")) if several else None)
+                                 rng=_rng(seed, phase_index, "agreement"), full_extras=full_extras)
+                 if several else None)
     peers = agreement_with_panel(first) if several else None
     sev = severity(first, scale=kind, scale_min=lo, scale_max=hi) if several else None
     gstudy = (generalizability(first, cut_off=scale.cut_off, rng=_rng(seed, phase_index, "gstudy"))
@@ -385,6 +386,7 @@ def _group_pairs_written(a: PhaseAnalyses, full_extras: bool) -> bool:
 def _reduced_forms(a: PhaseAnalyses, full_extras: bool) -> list[str]:
     """Plain statements of every extra that ran in a reduced form on this panel size."""
     out = list(a.grouping.reduced_forms) if a.grouping is not None else []
+    out += list(a.agreement.reduced_forms) if a.agreement is not None else []
     if a.grouping is not None and a.grouping.n_pairs and not _group_pairs_written(a, full_extras):
         out.append(f"How often each pair of raters shared a group ({a.grouping.n_pairs:,} pairs) "
                    f"is left out of the tables on panels of more than {GROUP_PAIRS_MAX_RATERS} "

@@ -144,3 +144,81 @@ def test_closed_form_fit_on_a_complete_design_equals_the_reduced_system(scale):
     lay2 = crossed_layout(check_first(moved))
     fit2 = fit_additive(lay2, with_variance=True)
     np.testing.assert_allclose(fit2.offset_cov_unit, _reference_pinv(lay2), rtol=1e-9, atol=1e-14)
+
+
+# ---------------------------------------------------------------------------
+# panel agreement: the same numbers from codes, and reduced forms that say so
+# ---------------------------------------------------------------------------
+
+def _ordinal_panel(seed=3, n_raters=10, n_cases=40, readers=3):
+    first, _, _ = simulate_panel(n_raters=n_raters, n_cases=n_cases, readers=readers, seed=seed)
+    return _to_scale(first, "1-7", seed)
+
+
+def test_category_counts_from_case_codes_equal_those_from_the_ids():
+    from calibrate.agreement.categories import category_agreement
+
+    first = _ordinal_panel()
+    layout = crossed_layout(check_first(first))
+    coded = pd.DataFrame({"case": layout.case_index, "judgment": layout.y})
+    by_ids = category_agreement(first, categories=range(1, 8), n_boot=200, rng=5)
+    by_codes = category_agreement(coded, categories=range(1, 8), n_boot=200, rng=5)
+    assert [c.to_dict() for c in by_codes] == [c.to_dict() for c in by_ids]
+
+
+def test_jackknife_interval_equals_a_loop_leaving_each_case_out():
+    from calibrate.agreement.categories import category_agreement, category_counts, fleiss_kappa, gwet_ac1
+
+    first = _ordinal_panel(seed=4)
+    found = category_agreement(first, categories=range(1, 8), jackknife=True)
+    counts, _ = category_counts(first["case"].to_numpy(), first["judgment"].to_numpy(), categories=range(1, 8))
+    n = counts.shape[0]
+    for result, coefficient in zip(found, (fleiss_kappa, gwet_ac1)):
+        jack = np.array([coefficient(np.delete(counts, i, axis=0)) for i in range(n)])
+        se = np.sqrt((n - 1) / n * np.sum((jack - jack.mean()) ** 2))
+        assert result.estimate == pytest.approx(coefficient(counts), rel=1e-12)
+        assert result.ci_low == pytest.approx(result.estimate - 1.959963984540054 * se, rel=1e-9)
+        assert result.ci_high == pytest.approx(result.estimate + 1.959963984540054 * se, rel=1e-9)
+        assert "jackknife" in result.method
+
+
+def test_simulated_panel_count_keeps_the_full_form_within_budget():
+    from calibrate.agreement.icc import PARAMETRIC_MIN_PANELS, simulated_panel_count
+
+    assert simulated_panel_count(80_000, 500) == 500          # 400 raters x 200 files: full
+    assert simulated_panel_count(400_000, 500) == 100         # 2,000 raters x 200 files
+    assert simulated_panel_count(10_000_000, 500) == PARAMETRIC_MIN_PANELS
+    assert simulated_panel_count(400_000, 50) == 50           # never more than asked
+
+
+@pytest.mark.parametrize("readers", [3, 10])     # incomplete, complete
+def test_large_panel_reduced_forms_are_stated_and_full_extras_restores_them(monkeypatch, readers):
+    from calibrate.agreement import icc
+
+    first = _ordinal_panel(seed=6, readers=readers)
+    full = icc.panel_agreement(first, scale="ordinal", scale_min=1, scale_max=7, n_boot=60, rng=2)
+    assert full.reduced_forms == ()
+    monkeypatch.setattr(icc, "PARAMETRIC_FULL_VALUES", 20 * len(first))
+    monkeypatch.setattr(icc, "PARAMETRIC_MIN_PANELS", 20)
+    monkeypatch.setattr(icc, "CATEGORY_BOOTSTRAP_VALUES", 10)
+    reduced = icc.panel_agreement(first, scale="ordinal", scale_min=1, scale_max=7, n_boot=60, rng=2)
+    assert len(reduced.reduced_forms) == 2
+    assert "20 simulated panels instead of 60" in reduced.reduced_forms[0]
+    assert "jackknife" in reduced.reduced_forms[1]
+    assert reduced.alpha.n_boot == 20 and "(20 simulated panels)" in reduced.alpha.method
+    assert all("jackknife" in c.method for c in reduced.categories)
+    again = icc.panel_agreement(first, scale="ordinal", scale_min=1, scale_max=7, n_boot=60, rng=2,
+                                full_extras=True)
+    assert again.reduced_forms == () and again.to_dict() == full.to_dict()
+
+
+def test_agreement_with_panel_codes_follow_the_sorted_ids():
+    from calibrate.agreement.with_panel import agreement_with_panel
+
+    first = _ordinal_panel(seed=7)
+    shuffled = first.sample(frac=1.0, random_state=1).reset_index(drop=True)
+    a, b = agreement_with_panel(first), agreement_with_panel(shuffled)
+    assert [r.rater for r in a.raters] == sorted(first["rater"].unique())
+    for x, y in zip(a.raters, b.raters):
+        assert x.rater == y.rater and x.n == y.n
+        assert x.r == pytest.approx(y.r, rel=1e-12) and x.mean_gap == pytest.approx(y.mean_gap, abs=1e-12)
