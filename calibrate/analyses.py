@@ -474,9 +474,11 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
         # The grouping warns of its own reductions; the left-out pair table is the audit's.
-        left_out = [t for t in panels[-1]["reduced_forms"]
-                    if a.grouping is None or t not in a.grouping.reduced_forms]
+        agreement_reduced = list(a.agreement.reduced_forms) if a.agreement is not None else []
+        left_out = [t for t in panels[-1]["reduced_forms"] if t not in agreement_reduced
+                    and (a.grouping is None or t not in a.grouping.reduced_forms)]
         warnings += _study_warnings(ph.name, "grouping", left_out)
+        warnings += _study_warnings(ph.name, "agreement", agreement_reduced)
         _collect_tables(tables, ph, a, full_extras)
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))
