@@ -741,7 +741,8 @@ def panel_agreement(
         alpha = _alpha_with_parametric_interval(alpha, layout, scale, scale_min, scale_max,
                                                 panels, confidence, gen, fit=fit)
         if panels < n_boot:
-            which = "Alpha's interval" if complete and method != "components" else "The ICC intervals and alpha's"
+            which = ("Alpha's interval comes" if complete and method != "components"
+                     else "The ICC intervals and alpha's interval come")
             reduced.append(f"{which} from {panels} simulated panels instead of {n_boot} on this panel "
                            f"size ({N:,} judgments; each panel simulates every judgment).")
     exact = adjacent = dom_value = dom_share = np.nan
@@ -759,8 +760,8 @@ def panel_agreement(
                                         n_boot=n_boot, confidence=confidence, rng=gen,
                                         jackknife=jackknife)
         if jackknife:
-            reduced.append(f"Fleiss' kappa and Gwet's AC1 intervals from the jackknife standard error "
-                           f"instead of a {n_boot}-resample bootstrap on this panel size ({C:,} files).")
+            reduced.append(f"The intervals of Fleiss' kappa and Gwet's AC1 come from the jackknife standard "
+                           f"error instead of a {n_boot}-resample bootstrap on this panel size ({C:,} files).")
         values, counts = np.unique(layout.y, return_counts=True)
         top = int(np.argmax(counts))
         dom_value, dom_share = float(values[top]), float(counts[top] / counts.sum())
