@@ -262,7 +262,9 @@ def fit_additive(
 
     ``iterative=True`` solves by preconditioned conjugate gradients on the sparse
     matrix instead of a dense Cholesky factor (much faster for many raters, used
-    in bootstrap loops); ``with_variance`` needs the dense route.
+    in bootstrap loops); ``with_variance`` needs the dense route. A complete design
+    (every rater read every case, no case weights) needs no solve: there the reduced
+    matrix is :math:`C (I - J/R)`.
     """
     R, C = layout.n_raters, layout.n_cases
     w_case = np.ones(C) if case_weights is None else np.asarray(case_weights, float)
