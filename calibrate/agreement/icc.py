@@ -198,7 +198,7 @@ def _icc_incomplete(layout: CrossedLayout, fit, *, n_boot: int, confidence: floa
     k = float(readers.size / np.sum(1.0 / readers))
     comps = henderson_components(fit)
     point = icc_from_components(comps, k)
-    draws = icc_parametric_draws(layout, comps, k, n_boot, gen)
+    draws = icc_parametric_draws(layout, comps, k, n_boot, gen, factor=fit.factor)
     low, high = _percentile_interval(draws, confidence)
     return tuple(
         IccEstimate(form=form, label=label, k=k if form.endswith("k") else 1.0,
@@ -209,10 +209,11 @@ def _icc_incomplete(layout: CrossedLayout, fit, *, n_boot: int, confidence: floa
 
 
 def icc_parametric_draws(layout: CrossedLayout, comps: ComponentEstimates, k: float, n_boot: int,
-                         gen: np.random.Generator) -> np.ndarray:
-    """(n_boot, 6) ICC forms (ICC_FORMS order) refitted on each panel of :func:`parametric_panels`."""
+                         gen: np.random.Generator, factor: tuple | None = None) -> np.ndarray:
+    """(n_boot, 6) ICC forms (ICC_FORMS order) refitted on each panel of :func:`parametric_panels`
+    (``factor``: the layout's reduced-system factor, when a fit already made it)."""
     draws = np.full((n_boot, len(ICC_FORMS)), np.nan)
-    design = fixed_design(layout)   # who read what stays fixed: one factor for every batch
+    design = fixed_design(layout, factor)   # who read what stays fixed: one factor for every batch
     for rows, ys in parametric_panels(layout, comps, n_boot, gen):
         values = icc_from_components(henderson_components(fit_additive_many(layout, ys, design)), k)
         draws[rows] = np.column_stack([values[form] for form, _ in ICC_FORMS])

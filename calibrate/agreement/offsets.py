@@ -233,6 +233,9 @@ class AdditiveFit:
     ss_rater_given_case: float
     ss_residual: float
     offset_cov_unit: np.ndarray | None = None   # (R, R) generalized inverse A^+ (with_variance only)
+    # cho_factor of the constrained reduced system when one was made (incomplete design,
+    # dense route), so that fixed_design need not factor the same matrix again
+    factor: tuple | None = field(default=None, repr=False)
 
     @property
     def df_residual(self) -> float:
@@ -288,7 +291,7 @@ def fit_additive(
     rhs = np.bincount(ri, weights=w * dev_case, minlength=R)
     present = part_r >= 0
     var_unit = np.full(R, np.nan)
-    cov_unit = None
+    cov_unit = factor = None
     if case_weights is None and layout.y.size == R * C:
         # complete design (every rater read every case once): the reduced matrix is
         # C (I - J/R), so the offsets are the raters' mean deviations from the case means
@@ -335,6 +338,7 @@ def fit_additive(
         ss_rater_given_case=reduction,
         ss_residual=max(ss_within - reduction, 0.0),
         offset_cov_unit=cov_unit,
+        factor=factor if case_weights is None else None,
     )
 
 
@@ -383,8 +387,10 @@ class FixedDesign:
     factor: tuple                   # scipy.linalg.cho_factor of the constrained reduced system
 
 
-def fixed_design(layout: CrossedLayout) -> FixedDesign:
-    """The fixed part of :func:`fit_additive_many` on ``layout`` (see :class:`FixedDesign`)."""
+def fixed_design(layout: CrossedLayout, factor: tuple | None = None) -> FixedDesign:
+    """The fixed part of :func:`fit_additive_many` on ``layout`` (see :class:`FixedDesign`);
+    ``factor``: the reduced system's factor from :func:`fit_additive` on the same layout
+    (``AdditiveFit.factor``), made here when absent."""
     R, C = layout.n_raters, layout.n_cases
     ci, ri = layout.case_index, layout.rater_index
     n_c = layout.readers_per_case()
@@ -392,9 +398,10 @@ def fixed_design(layout: CrossedLayout) -> FixedDesign:
     by_case = sparse.csr_matrix((np.ones(ci.size), (ci, np.arange(ci.size))), shape=(C, ci.size))
     by_rater = sparse.csr_matrix((np.ones(ri.size), (ri, np.arange(ri.size))), shape=(R, ri.size))
     n_parts, part_r, part_c = connected_parts(layout)
-    reduced, indicator, pin = _reduced_system(layout, np.ones(ci.size), n_r, n_c, n_parts, part_r)
-    system = reduced.toarray() + indicator @ indicator.T + np.diag(pin)
-    factor = sla.cho_factor(system, lower=True, check_finite=False)
+    if factor is None:
+        reduced, indicator, pin = _reduced_system(layout, np.ones(ci.size), n_r, n_c, n_parts, part_r)
+        system = reduced.toarray() + indicator @ indicator.T + np.diag(pin)
+        factor = sla.cho_factor(system, lower=True, check_finite=False)
     return FixedDesign(by_case=by_case, by_rater=by_rater, readers_per_case=n_c,
                        judgments_per_rater=n_r, n_parts=n_parts, part_of_rater=part_r,
                        part_of_case=part_c, factor=factor)
