@@ -222,7 +222,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
     step("agreement")
     several = first["rater"].nunique() >= 2
     agreement = (panel_agreement(first, scale=kind, scale_min=lo, scale_max=hi,
-                                 rng=_rng(seed, phase_index, "agreement")) if several else None)
+                                 rng=_rng(seed, phase_index, "agreement"), full_extras=full_extras)
+                 if several else None)
     peers = agreement_with_panel(first) if several else None
     sev = severity(first, scale=kind, scale_min=lo, scale_max=hi) if several else None
     gstudy = (generalizability(first, cut_off=scale.cut_off, rng=_rng(seed, phase_index, "gstudy"))
@@ -389,6 +390,7 @@ def _reduced_forms(a: PhaseAnalyses, full_extras: bool) -> list[str]:
     out = list(a.policies.reduced_forms) if a.policies is not None else []
     out += list(a.cutoffs.reduced_forms) if a.cutoffs is not None else []
     out += list(a.grouping.reduced_forms) if a.grouping is not None else []
+    out += list(a.agreement.reduced_forms) if a.agreement is not None else []
     if a.grouping is not None and a.grouping.n_pairs and not _group_pairs_written(a, full_extras):
         out.append(f"How often each pair of raters shared a group ({a.grouping.n_pairs:,} pairs) "
                    f"is left out of the tables on panels of more than {GROUP_PAIRS_MAX_RATERS} "
@@ -476,9 +478,12 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
         # The grouping warns of its own reductions; the left-out pair table is the audit's.
+        # Each analysis warns of its own reductions under its own name.
         own = {"policies": list(a.policies.reduced_forms) if a.policies is not None else [],
-               "cutoffs": list(a.cutoffs.reduced_forms) if a.cutoffs is not None else []}
-        left_out = [t for t in panels[-1]["reduced_forms"] if t not in own["policies"] + own["cutoffs"]
+               "cutoffs": list(a.cutoffs.reduced_forms) if a.cutoffs is not None else [],
+               "agreement": list(a.agreement.reduced_forms) if a.agreement is not None else []}
+        owned = [t for texts in own.values() for t in texts]
+        left_out = [t for t in panels[-1]["reduced_forms"] if t not in owned
                     and (a.grouping is None or t not in a.grouping.reduced_forms)]
         warnings += _study_warnings(ph.name, "grouping", left_out)
         for name, texts in own.items():

@@ -64,6 +64,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 from ..errors import DataError
 from ..policy.resampling import bca_interval
@@ -71,6 +72,8 @@ from ..result_base import ResultMixin
 
 CATEGORY_CI = ("bias-corrected and accelerated bootstrap over cases ({n_boot} resamples; readers of "
                "each case kept)")
+CATEGORY_JACKKNIFE_CI = ("normal interval from the leave-one-case-out (jackknife) standard error "
+                         "(readers of each case kept)")
 COEFFICIENTS = (("fleiss_kappa", "Fleiss' kappa"), ("gwet_ac1", "Gwet's AC1"))
 
 
@@ -189,7 +192,8 @@ class CategoryAgreement(ResultMixin):
 
 def category_agreement(first: pd.DataFrame, *, categories, n_boot: int = 500,
                        confidence: float = 0.95,
-                       rng: np.random.Generator | int | None = None) -> tuple[CategoryAgreement, ...]:
+                       rng: np.random.Generator | int | None = None,
+                       jackknife: bool = False) -> tuple[CategoryAgreement, ...]:
     """Fleiss' kappa and Gwet's AC1 of the panel's first judgments, each with a case-bootstrap interval.
 
     Parameters
@@ -199,6 +203,11 @@ def category_agreement(first: pd.DataFrame, *, categories, n_boot: int = 500,
     n_boot : bootstrap resamples of the cases (0: no interval).
     confidence : level of the interval.
     rng : seed or Generator.
+    jackknife : give the normal interval from the jackknife standard error instead of the
+        bootstrap (the reduced form of very many cases, where the bootstrap's resample
+        weights alone are resamples x cases draws): estimate +- z * SE with
+        :math:`SE^2 = (n-1)/n \\sum_i (\\theta_{(i)} - \\bar\\theta_{(\\cdot)})^2` (Efron &
+        Tibshirani 1993, ch. 11, from memory); ``n_boot`` is then not used.
     """
     counts, cats = category_counts(first["case"].to_numpy(), first["judgment"].to_numpy(),
                                    categories=categories)
@@ -208,7 +217,16 @@ def category_agreement(first: pd.DataFrame, *, categories, n_boot: int = 500,
     lows, highs = [np.nan, np.nan], [np.nan, np.nan]
     method = "no interval"
     n = counts.shape[0]
-    if n_boot > 0 and n >= 2:
+    if jackknife and n >= 2:
+        jack = np.column_stack(_leave_one_out(agree, shares, rated))
+        z = stats.norm.ppf(0.5 + confidence / 2.0)
+        for j, estimate in enumerate(e[0] for e in estimates):
+            finite = jack[np.isfinite(jack[:, j]), j]
+            if np.isfinite(estimate) and finite.size >= 2:
+                se = float(np.sqrt((finite.size - 1.0) / finite.size * np.sum((finite - finite.mean()) ** 2)))
+                lows[j], highs[j] = estimate - z * se, estimate + z * se
+        method = CATEGORY_JACKKNIFE_CI
+    elif n_boot > 0 and n >= 2:
         gen = np.random.default_rng(rng)
         weights = gen.multinomial(n, np.full(n, 1.0 / n), size=n_boot).astype(float)
         boot = np.column_stack(_coefficients(agree, shares, rated, weights))

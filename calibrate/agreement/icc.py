@@ -186,13 +186,19 @@ def icc_incomplete(
     (the basic interval, which reflects the draws about the estimate, covered ICC(A,1)
     less often: the rater component of 14 raters is skewed; ``benchmarks/bench_icc_coverage.py``).
     """
-    data = check_first(first)
-    layout = crossed_layout(data)
+    layout = crossed_layout(check_first(first))
+    return _icc_incomplete(layout, fit_additive(layout), n_boot=n_boot, confidence=confidence,
+                           gen=np.random.default_rng(rng))
+
+
+def _icc_incomplete(layout: CrossedLayout, fit, *, n_boot: int, confidence: float,
+                    gen: np.random.Generator) -> tuple[tuple[IccEstimate, ...], float]:
+    """:func:`icc_incomplete` on an indexed table and its additive fit."""
     readers = layout.readers_per_case()
     k = float(readers.size / np.sum(1.0 / readers))
-    comps = henderson_components(fit_additive(layout))
+    comps = henderson_components(fit)
     point = icc_from_components(comps, k)
-    draws = icc_parametric_draws(layout, comps, k, n_boot, np.random.default_rng(rng))
+    draws = icc_parametric_draws(layout, comps, k, n_boot, gen, factor=fit.factor)
     low, high = _percentile_interval(draws, confidence)
     return tuple(
         IccEstimate(form=form, label=label, k=k if form.endswith("k") else 1.0,
@@ -203,10 +209,11 @@ def icc_incomplete(
 
 
 def icc_parametric_draws(layout: CrossedLayout, comps: ComponentEstimates, k: float, n_boot: int,
-                         gen: np.random.Generator) -> np.ndarray:
-    """(n_boot, 6) ICC forms (ICC_FORMS order) refitted on each panel of :func:`parametric_panels`."""
+                         gen: np.random.Generator, factor: tuple | None = None) -> np.ndarray:
+    """(n_boot, 6) ICC forms (ICC_FORMS order) refitted on each panel of :func:`parametric_panels`
+    (``factor``: the layout's reduced-system factor, when a fit already made it)."""
     draws = np.full((n_boot, len(ICC_FORMS)), np.nan)
-    design = fixed_design(layout)   # who read what stays fixed: one factor for every batch
+    design = fixed_design(layout, factor)   # who read what stays fixed: one factor for every batch
     for rows, ys in parametric_panels(layout, comps, n_boot, gen):
         values = icc_from_components(henderson_components(fit_additive_many(layout, ys, design)), k)
         draws[rows] = np.column_stack([values[form] for form, _ in ICC_FORMS])
@@ -237,7 +244,14 @@ def parametric_panels(layout: CrossedLayout, comps: ComponentEstimates, n_draws:
         case = gen.normal(0.0, sd[0], size=(layout.n_cases, b))
         rater = gen.normal(0.0, sd[1], size=(layout.n_raters, b))
         noise = gen.normal(0.0, sd[2], size=(n, b))
-        yield slice(start, start + b), mean + case[layout.case_index] + rater[layout.rater_index] + noise
+        # ((mean + case) + rater) + noise, summed in place in that order (the same bits as
+        # the plain expression, without its three temporary N x b arrays)
+        panel = case[layout.case_index]
+        panel += mean
+        panel += rater[layout.rater_index]
+        noise += panel
+        del panel
+        yield slice(start, start + b), noise
 
 
 def _percentile_interval(draws: np.ndarray, confidence: float) -> tuple[np.ndarray, np.ndarray]:
@@ -365,9 +379,12 @@ def _bounds_below(bounds: np.ndarray, values: np.ndarray) -> np.ndarray:
     nearest category, the same as ``np.searchsorted(bounds, values)`` for finite values,
     by one comparison per bound (a handful of scale steps) instead of a binary search
     per value."""
-    below = np.zeros(values.shape, dtype=np.intp)
+    # small counts in one byte each: adding a comparison into a byte array is several times
+    # faster than into machine integers (the nearest category of 40 million values: 0.2 s
+    # against 1.1 s here)
+    below = np.zeros(values.shape, dtype=np.int8 if bounds.size < 127 else np.intp)
     for bound in bounds:
-        below += values > bound
+        np.add(below, values > bound, out=below, casting="unsafe")
     return below
 
 
@@ -392,8 +409,11 @@ def alpha_parametric_draws(layout: CrossedLayout, comps: ComponentEstimates, lev
         return draws
     V = 0 if categories is None else categories.size
     bounds = None if categories is None else (categories[1:] + categories[:-1]) / 2.0
+    every_case = bool(keep.all())
+    cells = None
     for rows, ys in parametric_panels(layout, comps, n_boot, gen):
-        ys = ys[keep]
+        if not every_case:
+            ys = ys[keep]
         if categories is None:
             draws[rows] = _interval_alpha_from_moments(m, by_unit @ ys, by_unit @ ys**2)
             continue
@@ -404,10 +424,14 @@ def alpha_parametric_draws(layout: CrossedLayout, comps: ComponentEstimates, lev
             continue
         # category counts per (unit, panel) by one bincount over the long form
         b = ys.shape[1]
-        cell = (unit[:, None] * b + np.arange(b)[None, :]) * V + nearest
+        if cells is None or cells.shape[1] != b:   # the first cell of each (unit, panel)
+            cells = (unit[:, None] * b + np.arange(b)[None, :]) * V
+        cell = cells + nearest
         counts = np.bincount(cell.ravel(), minlength=m.size * b * V).astype(float).reshape(m.size, b, V)
-        pairs = np.einsum("ubc,ubk,u->bck", counts, counts, 1.0 / (m - 1))
-        pairs -= np.einsum("ubc,u->bc", counts, 1.0 / (m - 1))[:, :, None] * np.eye(categories.size)
+        # coincidences per panel, sum_u n_uc n_uk / (m_u - 1), as one batched matrix product
+        scaled = counts / (m - 1)[:, None, None]
+        pairs = np.matmul(counts.transpose(1, 2, 0), scaled.transpose(1, 0, 2))
+        pairs -= scaled.sum(axis=0)[:, :, None] * np.eye(categories.size)
         draws[rows] = _alpha_from_coincidence(pairs, categories, level)
     return draws
 
@@ -534,6 +558,7 @@ class AgreementResult(ResultMixin):
     n_judgments: int
     warnings: tuple[str, ...] = ()
     categories: tuple[CategoryAgreement, ...] = ()   # Fleiss' kappa, Gwet's AC1 (ordinal, binary)
+    reduced_forms: tuple[str, ...] = ()   # plain sentences: intervals in a reduced form on this size
 
     def category_values(self) -> dict[str, float | None]:
         """{'fleiss_kappa': ..., 'gwet_ac1': ...}; None on a continuous scale (no categories)."""
@@ -580,6 +605,25 @@ class AgreementResult(ResultMixin):
         return pd.DataFrame(rows)
 
 
+# Simulated judgments the parametric bootstrap draws in full: 500 panels up to 80,000
+# judgments (400 raters x 200 files). A larger panel gets fewer simulated panels, no fewer
+# than PARAMETRIC_MIN_PANELS (coverage with 100: DEVELOPERS.md, "Speed at scale").
+PARAMETRIC_FULL_VALUES = 40_000_000
+PARAMETRIC_MIN_PANELS = 100
+# Resamples x files of the Fleiss/AC1 case bootstrap in full (500 resamples up to 20,000
+# files); above, the jackknife interval (its coverage: DEVELOPERS.md, "Speed at scale").
+CATEGORY_BOOTSTRAP_VALUES = 10_000_000
+
+
+def simulated_panel_count(n_judgments: int, n_boot: int) -> int:
+    """Simulated panels for a panel of ``n_judgments``: all ``n_boot`` while they hold at most
+    ``PARAMETRIC_FULL_VALUES`` judgments, else as many as that budget holds, at least
+    ``PARAMETRIC_MIN_PANELS`` (never more than asked)."""
+    if n_judgments * n_boot <= PARAMETRIC_FULL_VALUES:
+        return n_boot
+    return min(n_boot, max(PARAMETRIC_MIN_PANELS, PARAMETRIC_FULL_VALUES // max(n_judgments, 1)))
+
+
 ALPHA_PARAMETRIC_CI = ("parametric bootstrap of the crossed random-effects model (new cases, "
                        "raters and residuals on the same design{rounding}), percentile interval")
 
@@ -587,7 +631,7 @@ ALPHA_PARAMETRIC_CI = ("parametric bootstrap of the crossed random-effects model
 def _alpha_with_parametric_interval(alpha: AlphaEstimate, layout: CrossedLayout, scale: str,
                                     scale_min: float | None, scale_max: float | None,
                                     n_boot: int, confidence: float,
-                                    gen: np.random.Generator) -> AlphaEstimate:
+                                    gen: np.random.Generator, fit=None) -> AlphaEstimate:
     """``alpha`` with the interval of :func:`alpha_parametric_draws` (none when n_boot is 0)."""
     if n_boot <= 0 or not np.isfinite(alpha.estimate):
         return alpha
@@ -597,7 +641,7 @@ def _alpha_with_parametric_interval(alpha: AlphaEstimate, layout: CrossedLayout,
         whole = np.all(categories == np.round(categories))
         if scale_min is not None and scale_max is not None and whole:
             categories = np.arange(np.ceil(scale_min), np.floor(scale_max) + 1.0)
-    comps = henderson_components(fit_additive(layout))
+    comps = henderson_components(fit_additive(layout) if fit is None else fit)
     if categories is not None and categories.size > 1:
         # the residual component of rounded judgments holds the rounding error too
         # (Sheppard's correction, step^2 / 12; Sheppard 1898, from memory): the
@@ -622,6 +666,7 @@ def panel_agreement(
     n_boot: int = 500,
     confidence: float = 0.95,
     rng: np.random.Generator | int | None = None,
+    full_extras: bool = False,
 ) -> AgreementResult:
     """ICC forms, Krippendorff's alpha and raw agreement across the panel.
 
@@ -637,6 +682,10 @@ def panel_agreement(
         and, on an incomplete design, the ICC intervals.
     confidence : level of every interval.
     rng : seed or Generator (the same seed gives the same intervals).
+    full_extras : the full intervals on any panel size. By default a large panel gets
+        fewer simulated panels (:func:`simulated_panel_count`) and, with very many cases,
+        the jackknife interval of Fleiss' kappa and AC1 (``CATEGORY_BOOTSTRAP_VALUES``);
+        ``reduced_forms`` of the result says which.
 
     Notes
     -----
@@ -666,6 +715,8 @@ def panel_agreement(
             f"The ANOVA route needs every rater to judge every case ({R} raters x {C} cases = "
             f"{R * C} judgments; there are {N}). Use method='components'."
         )
+    reduced: list[str] = []
+    panels = n_boot if full_extras else simulated_panel_count(N, n_boot)
     nan_icc = tuple(IccEstimate(f, lab, np.nan, np.nan, np.nan, np.nan) for f, lab in ICC_FORMS)
     readers = layout.readers_per_case()
     level = LEVEL_OF_SCALE[scale]
@@ -676,6 +727,7 @@ def panel_agreement(
         route = "none"
         warnings.append("No case was read by two or more raters: agreement cannot be measured.")
     else:
+        fit = fit_additive(layout)   # one fit for the ICC components and alpha's simulated panels
         if complete and method != "components":
             ratings = np.full((C, R), np.nan)
             ratings[layout.case_index, layout.rater_index] = layout.y
@@ -683,21 +735,34 @@ def panel_agreement(
             route = "two-way ANOVA mean squares (Shrout & Fleiss 1979; McGraw & Wong 1996)"
             ci_method = F_CI
         else:
-            icc, k = icc_incomplete(data, n_boot=n_boot, confidence=confidence, rng=gen)
+            icc, k = _icc_incomplete(layout, fit, n_boot=panels, confidence=confidence, gen=gen)
             route = ("variance components of the crossed random-effects model, Henderson's "
                      "method III; k = harmonic mean readers per case")
-            ci_method = f"{PARAMETRIC_CI} ({n_boot} simulated panels)"
+            ci_method = f"{PARAMETRIC_CI} ({panels} simulated panels)"
         alpha = _alpha_with_parametric_interval(alpha, layout, scale, scale_min, scale_max,
-                                                n_boot, confidence, gen)
+                                                panels, confidence, gen, fit=fit)
+        if panels < n_boot:
+            which = ("Alpha's interval comes" if complete and method != "components"
+                     else "The ICC intervals and alpha's interval come")
+            reduced.append(f"{which} from {panels} simulated panels instead of {n_boot} on this panel "
+                           f"size ({N:,} judgments; each panel simulates every judgment).")
     exact = adjacent = dom_value = dom_share = np.nan
     categories = ()
     if scale != "continuous":
         exact, adjacent = pairwise_agreement(layout.case_index, layout.y)
         if scale == "binary":
             adjacent = np.nan
-        categories = category_agreement(data, categories=_scale_categories(layout.y, scale, scale_min,
-                                                                          scale_max),
-                                        n_boot=n_boot, confidence=confidence, rng=gen)
+        jackknife = not full_extras and n_boot * C > CATEGORY_BOOTSTRAP_VALUES
+        # the layout's case codes follow the sorted case ids, so the counts come in the same
+        # order as from the ids themselves, without sorting the ids as text again
+        coded = pd.DataFrame({"case": layout.case_index, "judgment": layout.y})
+        categories = category_agreement(coded, categories=_scale_categories(layout.y, scale, scale_min,
+                                                                           scale_max),
+                                        n_boot=n_boot, confidence=confidence, rng=gen,
+                                        jackknife=jackknife)
+        if jackknife:
+            reduced.append(f"The intervals of Fleiss' kappa and Gwet's AC1 come from the jackknife standard "
+                           f"error instead of a {n_boot}-resample bootstrap on this panel size ({C:,} files).")
         values, counts = np.unique(layout.y, return_counts=True)
         top = int(np.argmax(counts))
         dom_value, dom_share = float(values[top]), float(counts[top] / counts.sum())
@@ -721,6 +786,7 @@ def panel_agreement(
         n_raters=R, n_cases=C, n_judgments=N,
         warnings=tuple(warnings),
         categories=categories,
+        reduced_forms=tuple(reduced),
     )
 
 

@@ -31,9 +31,6 @@ from ..errors import DataError, DataProblem, DegenerateFitError
 from ..result_base import ResultMixin
 
 SCALES = ("continuous", "ordinal", "binary")
-# values of the (judgments x raters) and (raters x cases) blocks the robust offset
-# variances hold at once (16 MB each)
-ROBUST_BLOCK_VALUES = 2_000_000
 
 
 # ---------------------------------------------------------------------------
@@ -236,6 +233,9 @@ class AdditiveFit:
     ss_rater_given_case: float
     ss_residual: float
     offset_cov_unit: np.ndarray | None = None   # (R, R) generalized inverse A^+ (with_variance only)
+    # cho_factor of the constrained reduced system when one was made (incomplete design,
+    # dense route), so that fixed_design need not factor the same matrix again
+    factor: tuple | None = field(default=None, repr=False)
 
     @property
     def df_residual(self) -> float:
@@ -265,7 +265,9 @@ def fit_additive(
 
     ``iterative=True`` solves by preconditioned conjugate gradients on the sparse
     matrix instead of a dense Cholesky factor (much faster for many raters, used
-    in bootstrap loops); ``with_variance`` needs the dense route.
+    in bootstrap loops); ``with_variance`` needs the dense route. A complete design
+    (every rater read every case, no case weights) needs no solve: there the reduced
+    matrix is :math:`C (I - J/R)`.
     """
     R, C = layout.n_raters, layout.n_cases
     w_case = np.ones(C) if case_weights is None else np.asarray(case_weights, float)
@@ -286,17 +288,25 @@ def fit_additive(
     ss_raters = float(np.nansum(n_r * (rater_mean - grand) ** 2))
 
     n_parts, part_r, part_c = connected_parts(layout, w_case if case_weights is not None else None)
-    reduced, indicator, pin = _reduced_system(layout, w, n_r, n_c, n_parts, part_r)
     rhs = np.bincount(ri, weights=w * dev_case, minlength=R)
     present = part_r >= 0
     var_unit = np.full(R, np.nan)
-    cov_unit = None
-    if with_variance or not iterative:
+    cov_unit = factor = None
+    if case_weights is None and layout.y.size == R * C:
+        # complete design (every rater read every case once): the reduced matrix is
+        # C (I - J/R), so the offsets are the raters' mean deviations from the case means
+        # and A^+ = (I - J/R) / C, with no system to solve
+        offsets = rhs / C
+        if with_variance:
+            cov_unit = (np.eye(R) - 1.0 / R) / C
+            var_unit = np.diag(cov_unit).copy()
+    elif with_variance or not iterative:
+        reduced, indicator, pin = _reduced_system(layout, w, n_r, n_c, n_parts, part_r)
         system = reduced.toarray() + indicator @ indicator.T + np.diag(pin)
         factor = sla.cho_factor(system, lower=True, check_finite=False)
         offsets = sla.cho_solve(factor, rhs, check_finite=False)
         if with_variance:
-            inv = sla.cho_solve(factor, np.eye(R), check_finite=False)
+            inv = _inverse_from_factor(factor)
             # (A + E E')^{-1} = A^+ + sum_parts 1 1' / R_part^2 on each part's block
             raters_per_part = np.bincount(part_r[present], minlength=n_parts).astype(float)
             same_part = (part_r[:, None] == part_r[None, :]) & present[:, None] & present[None, :]
@@ -306,6 +316,7 @@ def fit_additive(
             cov_unit[:, ~present] = np.nan
             var_unit = np.diag(cov_unit).copy()
     else:
+        reduced, indicator, pin = _reduced_system(layout, w, n_r, n_c, n_parts, part_r)
         offsets = _solve_iteratively(reduced.tocsr(), indicator, pin, rhs)
     offsets[~present] = np.nan
     reduction = float(np.dot(np.where(present, offsets, 0.0), rhs))
@@ -327,7 +338,19 @@ def fit_additive(
         ss_rater_given_case=reduction,
         ss_residual=max(ss_within - reduction, 0.0),
         offset_cov_unit=cov_unit,
+        factor=factor if case_weights is None else None,
     )
+
+
+def _inverse_from_factor(factor) -> np.ndarray:
+    """The inverse of a symmetric positive definite matrix from its ``cho_factor``
+    (LAPACK ``potri``: a third of the work of solving against the identity)."""
+    c, lower = factor
+    inv, info = sla.lapack.dpotri(c, lower=lower)
+    if info != 0:
+        raise DegenerateFitError("The rater + case model could not be inverted; the rater network is too thin.")
+    inv = np.tril(inv) if lower else np.triu(inv)
+    return inv + (inv.T - np.diag(np.diag(inv)))
 
 
 def _reduced_system(layout: CrossedLayout, w: np.ndarray, n_r: np.ndarray, n_c: np.ndarray,
@@ -364,8 +387,10 @@ class FixedDesign:
     factor: tuple                   # scipy.linalg.cho_factor of the constrained reduced system
 
 
-def fixed_design(layout: CrossedLayout) -> FixedDesign:
-    """The fixed part of :func:`fit_additive_many` on ``layout`` (see :class:`FixedDesign`)."""
+def fixed_design(layout: CrossedLayout, factor: tuple | None = None) -> FixedDesign:
+    """The fixed part of :func:`fit_additive_many` on ``layout`` (see :class:`FixedDesign`);
+    ``factor``: the reduced system's factor from :func:`fit_additive` on the same layout
+    (``AdditiveFit.factor``), made here when absent."""
     R, C = layout.n_raters, layout.n_cases
     ci, ri = layout.case_index, layout.rater_index
     n_c = layout.readers_per_case()
@@ -373,9 +398,10 @@ def fixed_design(layout: CrossedLayout) -> FixedDesign:
     by_case = sparse.csr_matrix((np.ones(ci.size), (ci, np.arange(ci.size))), shape=(C, ci.size))
     by_rater = sparse.csr_matrix((np.ones(ri.size), (ri, np.arange(ri.size))), shape=(R, ri.size))
     n_parts, part_r, part_c = connected_parts(layout)
-    reduced, indicator, pin = _reduced_system(layout, np.ones(ci.size), n_r, n_c, n_parts, part_r)
-    system = reduced.toarray() + indicator @ indicator.T + np.diag(pin)
-    factor = sla.cho_factor(system, lower=True, check_finite=False)
+    if factor is None:
+        reduced, indicator, pin = _reduced_system(layout, np.ones(ci.size), n_r, n_c, n_parts, part_r)
+        system = reduced.toarray() + indicator @ indicator.T + np.diag(pin)
+        factor = sla.cho_factor(system, lower=True, check_finite=False)
     return FixedDesign(by_case=by_case, by_rater=by_rater, readers_per_case=n_c,
                        judgments_per_rater=n_r, n_parts=n_parts, part_of_rater=part_r,
                        part_of_case=part_c, factor=factor)
@@ -433,36 +459,105 @@ def robust_offset_variance(layout: CrossedLayout, fit: AdditiveFit, form: str = 
     if form not in ROBUST_FORMS:
         raise DataError(f"The robust form must be one of {', '.join(ROBUST_FORMS)}; got {form!r}.")
     pinv = np.nan_to_num(fit.offset_cov_unit)
-    R = layout.n_raters
+    R, C = layout.n_raters, layout.n_cases
     ri, ci, y = layout.rater_index, layout.case_index, layout.y
     n_c = layout.readers_per_case()
     offsets = np.nan_to_num(fit.offsets)
-    share = layout.incidence(1.0 / n_c[ci]).tocsc()          # (R, C): m_c, the case's mean indicator
-    case_mean = np.bincount(ci, weights=y, minlength=layout.n_cases) / n_c
-    mean_offset = np.bincount(ci, weights=offsets[ri], minlength=layout.n_cases) / n_c
+    case_mean = np.bincount(ci, weights=y, minlength=C) / n_c
+    mean_offset = np.bincount(ci, weights=offsets[ri], minlength=C) / n_c
     resid = y - case_mean[ci] - (offsets[ri] - mean_offset[ci])
     power = {"HC2": 1.0, "HC3": 2.0}[form]
-    pinv_diag = np.diag(pinv)
-    variance = np.zeros(R)
-    # A^+ m_c is an R-vector per case: on a linked design with many cases an (R, C) table
-    # of them does not fit in memory, so it is made only for the cases of each block of
-    # judgments (same arithmetic per case, so the same numbers as the whole table)
-    step = max(1, ROBUST_BLOCK_VALUES // max(R, 1))            # rows of Z A^+ held at once
-    for start in range(0, y.size, step):
-        rows = slice(start, start + step)
-        cases, local = np.unique(ci[rows], return_inverse=True)
-        share_block = share[:, cases]
-        pinv_m = np.asarray((share_block.T @ pinv).T)            # (R, cases): A^+ m_c
-        quad_case = np.asarray(share_block.multiply(pinv_m).sum(axis=0)).ravel()   # m_c' A^+ m_c
-        r = ri[rows]
-        leverage = (1.0 / n_c[ci[rows]] + pinv_diag[r] - 2.0 * pinv_m[r, local]
-                    + quad_case[local])
-        free = 1.0 - leverage
-        omega = np.where(free > 1e-9, resid[rows]**2 / np.where(free > 1e-9, free, 1.0) ** power, 0.0)
-        gain = pinv[r, :] - pinv_m[:, local].T                # rows of Z A^+
-        variance += omega @ gain**2
+    if y.size == R * C:
+        variance = _robust_variance_complete(resid, ri, R, C, power)
+    else:
+        variance = _robust_variance_incomplete(layout, pinv, resid, n_c, power)
     variance[fit.part_of_rater < 0] = np.nan
     return variance
+
+
+def _hc_weights(resid: np.ndarray, leverage: np.ndarray, power: float) -> np.ndarray:
+    """HC2/HC3 weights e^2 / (1 - h)^p; a judgment with h = 1 carries none."""
+    free = 1.0 - leverage
+    return np.where(free > 1e-9, resid**2 / np.where(free > 1e-9, free, 1.0) ** power, 0.0)
+
+
+def _robust_variance_complete(resid: np.ndarray, ri: np.ndarray, R: int, C: int,
+                              power: float) -> np.ndarray:
+    """The robust variances on a complete design, in closed form.
+
+    There ``A^+ = (I - J/R)/C`` and every case's mean indicator ``m_c = 1/R`` lies in its
+    null space, so every judgment has the leverage of the balanced two-way model,
+    :math:`h = 1/R + (1 - 1/R)/C`, and the rows of ``Z A^+`` are
+    :math:`(e_r - 1/R)/C`; with :math:`\\Omega_r` the summed weights of rater ``r``:
+    :math:`var(b_s) = [\\Omega_s (1 - 1/R)^2 + (\\Omega - \\Omega_s)/R^2] / C^2`.
+    """
+    leverage = np.full(resid.size, 1.0 / R + (1.0 - 1.0 / R) / C)
+    per_rater = np.bincount(ri, weights=_hc_weights(resid, leverage, power), minlength=R)
+    return (per_rater * (1.0 - 1.0 / R) ** 2 + (per_rater.sum() - per_rater) / R**2) / C**2
+
+
+# judgment pairs (i, j) on the same case that the robust offset variances of an
+# incomplete design hold at once (a few arrays of this length, 16 MB each)
+ROBUST_BLOCK_VALUES = 2_000_000
+
+
+def _case_pairs(case_index: np.ndarray, n_cases: int, max_pairs: int):
+    """Every ordered pair (i, j) of judgments of the same case (i = j included), yielded
+    as index arrays a block of cases at a time (at most ``max_pairs`` pairs a block
+    unless one case alone has more)."""
+    counts = np.bincount(case_index, minlength=n_cases)
+    order = np.argsort(case_index, kind="stable")
+    start = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    pairs_upto = np.cumsum(counts.astype(np.int64) ** 2)
+    c0 = 0
+    while c0 < n_cases:
+        done = pairs_upto[c0 - 1] if c0 else 0
+        c1 = max(int(np.searchsorted(pairs_upto, done + max_pairs, side="right")), c0 + 1)
+        rows = order[start[c0]:start[c1 - 1] + counts[c1 - 1]]
+        n = counts[case_index[rows]]
+        i = np.repeat(rows, n)
+        within = np.arange(i.size) - np.repeat(np.cumsum(n) - n, n)
+        j = order[np.repeat(start[case_index[rows]], n) + within]
+        yield i, j
+        c0 = c1
+
+
+def _robust_variance_incomplete(layout: CrossedLayout, pinv: np.ndarray, resid: np.ndarray,
+                                n_c: np.ndarray, power: float) -> np.ndarray:
+    """The robust variances on an incomplete design: :math:`diag(A^+ M A^+)` with
+    :math:`M = Z^\\top \\Omega Z`, an ``R x R`` matrix with an entry only where two raters
+    read a case in common.
+
+    For judgments ``i, j`` of one case ``c`` (:math:`n_c` readers, weights :math:`\\omega`,
+    :math:`W_c = \\sum_{i \\in c} \\omega_i`) the pair adds
+    :math:`\\delta_{ij}\\omega_i - (\\omega_i + \\omega_j)/n_c + W_c/n_c^2` to
+    :math:`M_{r_i r_j}`, and the leverages need only :math:`A^+` on those pairs:
+    :math:`(A^+ m_c)_{r_i} = \\sum_{j \\in c} A^+_{r_i r_j} / n_c` and
+    :math:`m_c^\\top A^+ m_c = \\sum_{i, j \\in c} A^+_{r_i r_j} / n_c^2`. The work grows
+    with the pairs (:math:`\\sum_c n_c^2`) and ``R^2`` per nonzero column of ``M``, never
+    with raters x cases.
+    """
+    R, C = layout.n_raters, layout.n_cases
+    ri, ci = layout.rater_index, layout.case_index
+    pair_at_i = np.zeros(resid.size)      # sum_j A+[r_i, r_j] over the judgments j of i's case
+    for i, j in _case_pairs(ci, C, ROBUST_BLOCK_VALUES):
+        pair_at_i += np.bincount(i, weights=pinv[ri[i], ri[j]], minlength=resid.size)
+    pinv_m = pair_at_i / n_c[ci]                                      # (A^+ m_c)_{r_i}
+    quad_case = np.bincount(ci, weights=pair_at_i, minlength=C) / n_c**2   # m_c' A^+ m_c
+    leverage = 1.0 / n_c[ci] + np.diag(pinv)[ri] - 2.0 * pinv_m + quad_case[ci]
+    omega = _hc_weights(resid, leverage, power)
+    omega_case = np.bincount(ci, weights=omega, minlength=C)
+    middle = sparse.csr_matrix((R, R))
+    for i, j in _case_pairs(ci, C, ROBUST_BLOCK_VALUES):
+        nc = n_c[ci[i]]
+        weight = (np.where(i == j, omega[i], 0.0) - (omega[i] + omega[j]) / nc
+                  + omega_case[ci[i]] / nc**2)
+        middle = middle + sparse.csr_matrix((weight, (ri[i], ri[j])), shape=(R, R))
+    if middle.nnz > R * R // 4:
+        product = middle.toarray() @ pinv
+    else:
+        product = np.asarray(middle @ pinv)
+    return (pinv * product).sum(axis=0)
 
 
 def _solve_iteratively(reduced, indicator, pin, rhs) -> np.ndarray:

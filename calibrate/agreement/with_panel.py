@@ -56,8 +56,10 @@ def agreement_with_panel(first: pd.DataFrame, *, confidence: float = 0.95) -> Pe
     confidence : level of the Fisher-z interval (Fisher 1921; common practice).
     """
     data = first.dropna(subset=["judgment"])
-    raters, r_idx = np.unique(data["rater"].to_numpy(dtype=str), return_inverse=True)
-    _, c_idx = np.unique(data["case"].to_numpy(dtype=str), return_inverse=True)
+    # codes in sorted id order (as np.unique of the ids as text gives), without sorting the text
+    r_idx, raters = pd.factorize(data["rater"].astype(str), sort=True)
+    c_idx, _ = pd.factorize(data["case"].astype(str), sort=True)
+    raters = np.asarray(raters, dtype=str)
     y = data["judgment"].to_numpy(dtype=float)
     case_sum = np.bincount(c_idx, weights=y)
     case_n = np.bincount(c_idx)
