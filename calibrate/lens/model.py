@@ -518,7 +518,8 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
     S = stats.sscp
     with np.errstate(invalid="ignore", divide="ignore"):
         unit = S[:, yu, yc] / np.sqrt(S[:, yu, yu] * S[:, yc, yc])
-    intervals = lens_intervals(Z[:, :p + 2], rows.group, G, p, n_boot=n_boot, rng=rng, level=level)
+    intervals = lens_intervals(Z[:, :p + 2], rows.group, G, p, n_boot=n_boot, rng=rng, level=level,
+                               case=rows.design_row)
     loo = leave_one_out_predictions(rows.X, rows.y, rows.group, G)
     usable = np.isfinite(loo)
     pair = grouped_sscp(np.column_stack([loo[usable], crit[usable], rows.y[usable]]),
@@ -587,16 +588,35 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
 _CHUNK_FLOATS = 4_000_000
 
 
+#: Raters reading exactly the same cases share one set of resamples when at least this
+#: many of them do (fewer: the per-rater path, whose batch over raters is cheaper).
+SHARED_BLOCK_MIN_RATERS = 8
+
+
 def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n_boot: int,
-                   rng: np.random.Generator, level: float = 0.95) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+                   rng: np.random.Generator, level: float = 0.95,
+                   case: np.ndarray | None = None) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """BCa case-bootstrap intervals of r_a, G, C and R_e for every rater at once.
 
     ``Z`` holds ``[cues..., judgment, criterion]`` per row, ``group`` the rater of each
-    row. A resample is a vector of counts over a rater's own cases (drawn with
-    replacement); the sums of every (rater, resample) come from one batched matrix
-    product of the counts with a table of per-case terms, and the two models of every
-    (rater, resample) from one batched solve (:func:`_lens_parts`). The jackknife for the
-    BCa acceleration is the same product with count vectors of ones and one zero.
+    row, ``case`` (optional) the case of each row. A resample is a vector of counts over
+    a rater's own cases (drawn with replacement).
+
+    Raters who read exactly the same cases (``case`` given, a block of at least
+    :data:`SHARED_BLOCK_MIN_RATERS`) share one set of resamples, drawn over the block's
+    cases: the resampled sums of the cues and the criterion are then the same for all of
+    them, so they and the cue model's inverse are computed once per resample, and only
+    the sums with the judgments per rater, as one matrix product of the counts
+    (resamples x cases) with the judgments' terms (cases x raters). The jackknife for the
+    acceleration takes one case off the full-sample sums. Each rater's resamples are
+    still a plain case bootstrap of that rater's cases; the raters' resamples are merely
+    not independent of each other, which no per-rater figure depends on.
+
+    Every other rater gets independent resamples: the sums of every (rater, resample)
+    from one batched matrix product of the counts with a table of per-case terms, and
+    the two models of every (rater, resample) from one batched solve
+    (:func:`_lens_parts`); the jackknife is the same product with count vectors of ones
+    and one zero.
 
     BCa rather than percentile because G and R_e are bounded by 1 and their sampling
     distributions are skewed near it; the bias correction and acceleration adjust for
@@ -607,6 +627,171 @@ def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n
     nan = np.full(n_groups, np.nan)
     if n_boot <= 0 or len(Z) == 0:
         return {k: (nan, nan) for k in INTERVAL_FIGURES}
+    blocks = shared_case_blocks(case, group, n_groups) if case is not None else []
+    if not blocks:
+        return _per_rater_intervals(Z, group, n_groups, p, n_boot=n_boot, rng=rng, level=level)
+    out = {k: (nan.copy(), nan.copy()) for k in INTERVAL_FIGURES}
+    in_block = np.zeros(n_groups, dtype=bool)
+    for members in blocks:
+        in_block[members] = True
+    rest = np.flatnonzero(~in_block)
+    if rest.size:
+        # The raters outside the blocks first, so that their draws are those of a panel
+        # without blocks.
+        local = np.full(n_groups, -1, dtype=np.intp)
+        local[rest] = np.arange(rest.size)
+        keep = ~in_block[group]
+        part = _per_rater_intervals(Z[keep], local[group[keep]], rest.size, p, n_boot=n_boot,
+                                    rng=rng, level=level)
+        for k in INTERVAL_FIGURES:
+            out[k][0][rest], out[k][1][rest] = part[k]
+    for members in blocks:
+        part = _block_intervals(Z, group, case, members, p, n_boot=n_boot, rng=rng, level=level)
+        for k in INTERVAL_FIGURES:
+            out[k][0][members], out[k][1][members] = part[k]
+    return out
+
+
+def shared_case_blocks(case: np.ndarray, group: np.ndarray, n_groups: int,
+                       min_raters: int = SHARED_BLOCK_MIN_RATERS) -> list[np.ndarray]:
+    """Raters (sorted arrays of group numbers) who read exactly the same set of cases, one
+    array per set read by at least ``min_raters`` raters, in the order of their first rater."""
+    if len(group) == 0:
+        return []
+    sizes = np.bincount(group, minlength=n_groups)
+    order = np.lexsort((case, group))
+    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    slot = np.arange(order.size) - starts[group[order]]
+    padded = np.full((n_groups, int(sizes.max())), -1, dtype=np.int64)
+    padded[group[order], slot] = case[order]
+    _, first, which, count = np.unique(padded, axis=0, return_index=True, return_inverse=True,
+                                       return_counts=True)
+    which = np.asarray(which).ravel()
+    blocks = [np.flatnonzero(which == b) for b in np.argsort(first, kind="stable")
+              if count[b] >= min_raters and sizes[first[b]] > 0]
+    return blocks
+
+
+def _block_intervals(Z: np.ndarray, group: np.ndarray, case: np.ndarray, members: np.ndarray,
+                     p: int, *, n_boot: int, rng: np.random.Generator,
+                     level: float) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """:func:`lens_intervals` for raters who all read the same cases: one set of resamples."""
+    G = members.size
+    local = np.full(int(group.max()) + 1, -1, dtype=np.intp)
+    local[members] = np.arange(G)
+    keep = local[group] >= 0
+    rows = np.flatnonzero(keep)[np.lexsort((case[keep], local[group[keep]]))]
+    n = rows.size // G
+    # Case i of every rater sits in row i of each column: (cases, raters).
+    X = Z[rows[:n], :p]
+    crit = Z[rows[:n], p + 1]
+    Y = Z[rows, p].reshape(G, n).T
+    sums = _BlockTerms(X, crit, Y)
+    estimate = sums.parts(np.ones((1, n)), p)
+    boot = {k: np.empty((n_boot, G)) for k in INTERVAL_FIGURES}
+    per_chunk = max(1, _CHUNK_FLOATS // max(G * (p + 3), n, 1))
+    for b0 in range(0, n_boot, per_chunk):
+        nb = min(per_chunk, n_boot - b0)
+        pick = np.floor(rng.random((nb, n)) * n).astype(np.intp)
+        counts = np.bincount((np.arange(nb)[:, None] * n + pick).ravel(),
+                             minlength=nb * n).reshape(nb, n).astype(float)
+        parts = sums.parts(counts, p)
+        for k in INTERVAL_FIGURES:
+            boot[k][b0:b0 + nb] = parts[k]
+    jack = {k: np.empty((n, G)) for k in INTERVAL_FIGURES}
+    per_jack = max(1, _CHUNK_FLOATS // max(G * (p + 3), 1))
+    for i0 in range(0, n, per_jack):
+        parts = sums.parts_without(np.arange(i0, min(i0 + per_jack, n)), p)
+        for k in INTERVAL_FIGURES:
+            jack[k][i0:i0 + per_jack] = parts[k]
+    out = {}
+    for k in INTERVAL_FIGURES:
+        est = np.where(estimate["ok"][0], estimate[k][0], np.nan)
+        jk = np.where(np.isfinite(jack[k]).any(axis=0), jack[k], 0.0)
+        out[k] = bca_interval(est, boot[k], jk, alpha=1.0 - level)
+    return out
+
+
+class _BlockTerms:
+    """Per-case terms of a block of raters on the same cases, centred at the full-sample
+    means (the cues and criterion at theirs, each rater's judgments at the rater's), so the
+    weighted sums lose no digits; :meth:`parts` turns count vectors into the lens figures."""
+
+    def __init__(self, X: np.ndarray, crit: np.ndarray, Y: np.ndarray):
+        n, p = X.shape
+        self.n_cases, self.p, self.n_raters = n, p, Y.shape[1]
+        W = np.column_stack([X, crit])
+        Wc = W - W.mean(axis=0)
+        Yc = Y - Y.mean(axis=0)
+        iu, ju = np.triu_indices(p + 1)
+        self.iu, self.ju = iu, ju
+        # Shared: [w, w_i w_j (i <= j)] for w = [cues..., criterion].
+        self.shared = np.column_stack([Wc, Wc[:, iu] * Wc[:, ju]])
+        # Per rater, laid out (cases, term * raters): y, y^2, y * w_j.
+        self.rater = np.concatenate([Yc, Yc * Yc, (Wc[:, :, None] * Yc[:, None, :]).reshape(n, -1)],
+                                    axis=1)
+
+    def parts(self, counts: np.ndarray, p: int) -> dict[str, np.ndarray]:
+        return self._parts(counts.sum(axis=1), counts @ self.shared, counts @ self.rater, p)
+
+    def parts_without(self, cases: np.ndarray, p: int) -> dict[str, np.ndarray]:
+        """The figures with each of ``cases`` left out in turn (the full sums minus its terms)."""
+        full_shared = self.shared.sum(axis=0)
+        full_rater = self.rater.sum(axis=0)
+        n = np.full(cases.size, self.n_cases - 1.0)
+        return self._parts(n, full_shared - self.shared[cases], full_rater - self.rater[cases], p)
+
+    def _parts(self, n: np.ndarray, shared: np.ndarray, rater: np.ndarray, p: int):
+        """The lens figures (N, raters) from weighted sums of N count vectors, with the same
+        rank rule and formulas as :func:`_lens_parts` (the cue model's inverse, the
+        environment model and the criterion's sums once per count vector)."""
+        N, G, q = n.size, self.n_raters, p + 1
+        iu, ju = self.iu, self.ju
+        sw = shared[:, :q]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift_w = sw / n[:, None]
+            W = np.empty((N, q, q))
+            prod = shared[:, q:] - n[:, None] * shift_w[:, iu] * shift_w[:, ju]
+            W[:, iu, ju] = prod
+            W[:, ju, iu] = prod
+            diag = np.arange(q)
+            W[:, diag, diag] = np.maximum(W[:, diag, diag], 0.0)
+            sy = rater[:, :G]
+            shift_y = sy / n[:, None]
+            Syy = np.maximum(rater[:, G:2 * G] - n[:, None] * shift_y * shift_y, 0.0)
+            Swy = rater[:, 2 * G:].reshape(N, q, G) - n[:, None, None] * shift_w[:, :, None] * shift_y[:, None, :]
+        Sxx, Sxc, Scc = W[:, :p, :p], W[:, :p, p], W[:, p, p]
+        Sxy, Syc = Swy[:, :p, :], Swy[:, p, :]
+        # The environment model once per count vector; its inverse (and rank rule) is the
+        # judge model's too, as in _lens_parts.
+        env = ols_from_sscp(GroupedSSCP(n=n, mean=np.zeros((N, q)), sscp=W), np.arange(p), p)
+        rank_ok, b_e = env.rank_ok, env.coef
+        b_s = np.matmul(env.xtx_inv, Sxy)
+        env_rss = env.rss
+        with np.errstate(invalid="ignore", divide="ignore"):
+            judge_rss = np.where(rank_ok[:, None], np.maximum(Syy - np.einsum("npg,npg->ng", b_s, Sxy), 0.0),
+                                 np.nan)
+            Sxx_b_s = np.matmul(Sxx, b_s)
+            explained_s = np.einsum("npg,npg->ng", b_s, Sxx_b_s)
+            explained_e = np.einsum("gi,gij,gj->g", b_e, Sxx, b_e)[:, None]
+            shared_fit = np.einsum("npg,np->ng", Sxx_b_s, b_e)
+            Scc_ = Scc[:, None]
+            r_a = Syc / np.sqrt(Syy * Scc_)
+            r_s = np.sqrt(np.clip(explained_s / Syy, 0.0, 1.0))
+            r_e = np.sqrt(np.clip(explained_e / Scc_, 0.0, 1.0))
+            g = shared_fit / np.sqrt(explained_s * explained_e)
+            residual_cov = Syc - np.einsum("npg,np->ng", b_s, Sxc) \
+                - np.einsum("np,npg->ng", b_e, Sxy) + shared_fit
+            exact = (judge_rss <= 1e-12 * Syy) | (env_rss <= 1e-12 * Scc)[:, None]
+            c = np.where(exact, np.nan, residual_cov / np.sqrt(judge_rss * env_rss[:, None]))
+        r_e = np.broadcast_to(r_e, (N, G))
+        ok = rank_ok[:, None] & (Syy > 0) & (Scc_ > 0)
+        return {"r_a": r_a, "g": g, "c": c, "r_e": r_e, "r_s": r_s, "ok": ok}
+
+
+def _per_rater_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n_boot: int,
+                         rng: np.random.Generator, level: float) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """:func:`lens_intervals` with independent resamples for every rater."""
     sizes = np.bincount(group, minlength=n_groups)
     terms, means = _case_terms(Z, group, n_groups, sizes)
     n_max = terms.shape[1]

@@ -1,0 +1,126 @@
+"""The batched lens-model and drift bootstraps equal a plain per-rater loop (issue 17).
+
+The references refit every (rater, resample) from its expanded rows with numpy's
+``lstsq`` and plain correlations, with the same draws, and must agree to 1e-9.
+"""
+
+import numpy as np
+import pytest
+
+from calibrate.lens.model import (INTERVAL_FIGURES, _BlockTerms, _per_rater_intervals,
+                                  lens_intervals, shared_case_blocks)
+from calibrate.policy.resampling import bca_interval
+
+
+def _corr(a, b):
+    a, b = a - a.mean(), b - b.mean()
+    den = np.sqrt((a @ a) * (b @ b))
+    return float(a @ b / den) if den > 0 else float("nan")
+
+
+def _lens_by_rows(X, y, crit):
+    """r_a, G, C, R_e of one rater from rows (NaN where a model cannot be fitted)."""
+    nan = dict.fromkeys(("g", "c", "r_e"), float("nan"))
+    r_a = _corr(y, crit)
+    D = np.column_stack([np.ones(len(y)), X])
+    if len(y) <= X.shape[1] + 1 or np.linalg.matrix_rank(D) < D.shape[1] or np.ptp(y) == 0:
+        return {"r_a": r_a, **nan}
+    fit_s = D @ np.linalg.lstsq(D, y, rcond=None)[0]
+    fit_e = D @ np.linalg.lstsq(D, crit, rcond=None)[0]
+    res_s, res_e = y - fit_s, crit - fit_e
+    exact = (res_s @ res_s <= 1e-12 * ((y - y.mean()) @ (y - y.mean()))
+             or res_e @ res_e <= 1e-12 * ((crit - crit.mean()) @ (crit - crit.mean())))
+    return {"r_a": r_a, "g": _corr(fit_s, fit_e), "c": float("nan") if exact else _corr(res_s, res_e),
+            "r_e": np.sqrt(max(1 - ((res_e @ res_e) / ((crit - crit.mean()) @ (crit - crit.mean()))), 0.0))}
+
+
+def _panel(binary: bool, seed: int = 3, n_raters: int = 9, n_cases: int = 40, p: int = 3):
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(n_cases, p))
+    crit = X @ np.array([0.6, -0.4, 0.2][:p]) + rng.normal(size=n_cases)
+    weights = rng.normal(0.5, 0.3, size=(n_raters, p))
+    latent = X @ weights.T + rng.normal(scale=0.8, size=(n_cases, n_raters))
+    if binary:
+        Y = (latent > 0.3).astype(float)
+    else:  # 1-7 with a ceiling: most raters pile up at 6 and 7
+        Y = np.clip(np.round(4.5 + 1.3 * latent), 1, 7)
+    return X, crit, Y
+
+
+@pytest.mark.parametrize("binary", [False, True])
+def test_block_resamples_equal_per_rater_refits(binary):
+    X, crit, Y = _panel(binary)
+    n, p = X.shape
+    terms = _BlockTerms(X, crit, Y)
+    rng = np.random.default_rng(11)
+    pick = np.floor(rng.random((25, n)) * n).astype(np.intp)
+    counts = np.stack([np.bincount(row, minlength=n) for row in pick]).astype(float)
+    got = terms.parts(counts, p)
+    jack = terms.parts_without(np.arange(n), p)
+    for b in range(counts.shape[0]):
+        rows = np.repeat(np.arange(n), counts[b].astype(int))
+        for r in range(Y.shape[1]):
+            want = _lens_by_rows(X[rows], Y[rows, r], crit[rows])
+            for k in INTERVAL_FIGURES:
+                np.testing.assert_allclose(got[k][b, r], want[k], rtol=1e-9, atol=1e-12, equal_nan=True)
+    for i in range(n):
+        rows = np.delete(np.arange(n), i)
+        for r in range(Y.shape[1]):
+            want = _lens_by_rows(X[rows], Y[rows, r], crit[rows])
+            for k in INTERVAL_FIGURES:
+                np.testing.assert_allclose(jack[k][i, r], want[k], rtol=1e-9, atol=1e-12, equal_nan=True)
+
+
+def _long(X, crit, Y, cases_of):
+    """Rows [cues, judgment, criterion] with group and case, raters in a shuffled row order."""
+    rows = [(g, i) for g, cases in enumerate(cases_of) for i in cases]
+    order = np.random.default_rng(5).permutation(len(rows))
+    g = np.array([rows[j][0] for j in order])
+    case = np.array([rows[j][1] for j in order])
+    Z = np.column_stack([X[case], Y[case, g], crit[case]])
+    return Z, g, case
+
+
+@pytest.mark.parametrize("binary", [False, True])
+def test_lens_intervals_of_a_block_equal_a_per_rater_loop(binary):
+    X, crit, Y = _panel(binary, n_raters=8)
+    n, p = X.shape
+    Z, g, case = _long(X, crit, Y, [range(n)] * 8)
+    n_boot = 60
+    got = lens_intervals(Z, g, 8, p, n_boot=n_boot, rng=np.random.default_rng(2), level=0.9, case=case)
+    pick = np.floor(np.random.default_rng(2).random((n_boot, n)) * n).astype(np.intp)
+    for r in range(8):
+        boot = {k: np.empty(n_boot) for k in INTERVAL_FIGURES}
+        for b in range(n_boot):
+            rows = np.sort(pick[b])
+            for k, v in _lens_by_rows(X[rows], Y[rows, r], crit[rows]).items():
+                boot[k][b] = v
+        full = _lens_by_rows(X, Y[:, r], crit)
+        loo = [_lens_by_rows(np.delete(X, i, 0), np.delete(Y[:, r], i), np.delete(crit, i))
+               for i in range(n)]
+        for k in INTERVAL_FIGURES:
+            jack = np.array([[v[k]] for v in loo])
+            jack = jack if np.isfinite(jack).any() else np.zeros_like(jack)
+            low, high = bca_interval(np.array([full[k]]), boot[k][:, None], jack, alpha=0.1)
+            np.testing.assert_allclose([got[k][0][r], got[k][1][r]], [low[0], high[0]],
+                                       rtol=1e-9, atol=1e-12, equal_nan=True)
+
+
+def test_raters_outside_blocks_keep_their_independent_draws():
+    # An incomplete design: 8 raters on cases 0-39, three raters on cases of their own.
+    X, crit, Y = _panel(False, n_raters=11, n_cases=60)
+    p = X.shape[1]
+    cases_of = [range(40)] * 8 + [range(20, 60), range(0, 60, 2), range(10, 50)]
+    Z, g, case = _long(X, crit, Y, cases_of)
+    assert [b.tolist() for b in shared_case_blocks(case, g, 11)] == [list(range(8))]
+    got = lens_intervals(Z, g, 11, p, n_boot=40, rng=np.random.default_rng(4), case=case)
+    alone = g >= 8
+    want = _per_rater_intervals(Z[alone], g[alone] - 8, 3, p, n_boot=40, rng=np.random.default_rng(4),
+                                level=0.95)
+    no_blocks = lens_intervals(Z, g, 11, p, n_boot=40, rng=np.random.default_rng(4))
+    for k in INTERVAL_FIGURES:
+        np.testing.assert_array_equal(got[k][0][8:], want[k][0])
+        np.testing.assert_array_equal(got[k][1][8:], want[k][1])
+        assert np.isfinite(got[k][0][:8]).all()
+        # Without the case of each row, every rater draws on their own, as before.
+        assert np.isfinite(no_blocks[k][0]).all()
