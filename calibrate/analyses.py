@@ -248,7 +248,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         ordered = ph.ordered.loc[ph.ordered["rater"].isin(ph.fit_raters)
                                  & ph.ordered["case"].isin(complete)].reset_index(drop=True)
         drift_result = drift(design, ordered[["rater", "case", "judgment", "position"]],
-                             rng=_rng(seed, phase_index, "drift"))
+                             rng=_rng(seed, phase_index, "drift"), scale_down=not full_extras)
     n_fit = fit_first["rater"].nunique()
     rater_pairs = homogeneity = grouping = None
     if n_fit >= 2:
@@ -385,6 +385,7 @@ def _group_pairs_written(a: PhaseAnalyses, full_extras: bool) -> bool:
 def _reduced_forms(a: PhaseAnalyses, full_extras: bool) -> list[str]:
     """Plain statements of every extra that ran in a reduced form on this panel size."""
     out = list(a.grouping.reduced_forms) if a.grouping is not None else []
+    out += list(a.drift.reduced_forms) if a.drift is not None else []
     if a.grouping is not None and a.grouping.n_pairs and not _group_pairs_written(a, full_extras):
         out.append(f"How often each pair of raters shared a group ({a.grouping.n_pairs:,} pairs) "
                    f"is left out of the tables on panels of more than {GROUP_PAIRS_MAX_RATERS} "
@@ -471,9 +472,10 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
                              ("cutoffs", a.cutoffs), ("drift", a.drift), ("rater_pairs", a.rater_pairs),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
-        # The grouping warns of its own reductions; the left-out pair table is the audit's.
-        left_out = [t for t in panels[-1]["reduced_forms"]
-                    if a.grouping is None or t not in a.grouping.reduced_forms]
+        # The grouping and drift warn of their own reductions; the left-out pair table is the audit's.
+        own = (a.grouping.reduced_forms if a.grouping is not None else ()) \
+            + (a.drift.reduced_forms if a.drift is not None else ())
+        left_out = [t for t in panels[-1]["reduced_forms"] if t not in own]
         warnings += _study_warnings(ph.name, "grouping", left_out)
         _collect_tables(tables, ph, a, full_extras)
         if a.policies is not None:

@@ -124,3 +124,90 @@ def test_raters_outside_blocks_keep_their_independent_draws():
         assert np.isfinite(got[k][0][:8]).all()
         # Without the case of each row, every rater draws on their own, as before.
         assert np.isfinite(no_blocks[k][0]).all()
+
+
+# ---- drift: the R_s change bootstrap ------------------------------------------------
+
+def _r_s_by_rows(X, y):
+    D = np.column_stack([np.ones(len(y)), X])
+    if len(y) <= X.shape[1] + 1 or np.linalg.matrix_rank(D) < D.shape[1] or np.ptp(y) == 0:
+        return float("nan")
+    res = y - D @ np.linalg.lstsq(D, y, rcond=None)[0]
+    return float(np.sqrt(max(1.0 - (res @ res) / ((y - y.mean()) @ (y - y.mean())), 0.0)))
+
+
+@pytest.mark.parametrize("binary", [False, True])
+def test_r_s_change_bootstrap_equals_a_per_rater_loop(binary):
+    from calibrate.consistency.reading_order import _bootstrap_r_s_change
+
+    rng = np.random.default_rng(8 + binary)
+    sizes = [(14, 13), (20, 20), (9, 8), (16, 15), (25, 24)]   # odd and even counts, small halves
+    p = 3
+    X_rows, y_rows, cells, positions = [], [], [], []
+    for r, halves in enumerate(sizes):
+        for h, m in enumerate(halves):
+            X = np.column_stack([rng.integers(1, 8, m), rng.integers(0, 2, m), rng.normal(size=m)])
+            latent = X @ np.array([0.4, 0.8, 0.3]) + rng.normal(size=m)
+            y = (latent > np.median(latent)).astype(float) if binary else np.clip(np.round(latent), 1, 7)
+            X_rows.append(X), y_rows.append(y), cells.append(np.full(m, 2 * r + h))
+            positions.append(np.arange(m) + h * 100.0)
+    X, y = np.concatenate(X_rows), np.concatenate(y_rows)
+    cell, position = np.concatenate(cells), np.concatenate(positions)
+    shuffle = np.random.default_rng(1).permutation(len(y))
+    Z = np.column_stack([X, y])[shuffle]
+    n_resamples = 70   # two chunks of the default 50
+    low, high = _bootstrap_r_s_change(Z, cell[shuffle], position[shuffle], 2 * len(sizes), p,
+                                      n_resamples, np.random.default_rng(3))
+    # The reference: the same uniform draws, each cell's rows in reading order, refitted one by one.
+    draws = np.random.default_rng(3)
+    longest = max(max(s) for s in sizes)
+    u = np.concatenate([draws.random((50, 2 * len(sizes), longest)),
+                        draws.random((20, 2 * len(sizes), longest))])
+    for r, halves in enumerate(sizes):
+        diffs = np.empty(n_resamples)
+        for b in range(n_resamples):
+            r_s = []
+            for h, m in enumerate(halves):
+                rows = np.flatnonzero(cell == 2 * r + h)
+                rows = rows[np.argsort(position[rows])]
+                pick = rows[np.minimum(np.floor(u[b, 2 * r + h, :m] * m).astype(int), m - 1)]
+                r_s.append(_r_s_by_rows(X[pick], y[pick]))
+            diffs[b] = r_s[1] - r_s[0]
+        want = np.nanpercentile(diffs, [2.5, 97.5])
+        np.testing.assert_allclose([low[r], high[r]], want, rtol=1e-9, atol=1e-12)
+
+
+def test_stacked_r_squared_keeps_the_rank_rule():
+    from calibrate.consistency.reading_order import _r_s_from
+    from calibrate.policy.linalg import grouped_sscp, r_squared_from_sscp
+
+    rng = np.random.default_rng(0)
+    G, n, p = 300, 12, 4
+    Z = rng.normal(size=(G * n, p + 1))
+    Z[:n * 5, 1] = 2.0                          # a constant cue
+    Z[n * 5:n * 10, 2] = 3 * Z[n * 5:n * 10, 3]  # collinear cues
+    Z[n * 10:n * 12, 3] = Z[n * 10:n * 12, 2] + 1e-9 * rng.normal(size=n * 2)  # near the line
+    Z[n * 12:n * 13, p] = 1.0                   # a constant judgment
+    stats = grouped_sscp(Z, np.repeat(np.arange(G), n), G)
+    want, _ = r_squared_from_sscp(stats, np.arange(p), p)
+    np.testing.assert_allclose(_r_s_from(stats, p), np.sqrt(np.clip(want, 0, 1)), rtol=1e-9, equal_nan=True)
+
+
+def test_drift_takes_fewer_resamples_above_the_panel_size_and_says_so(monkeypatch):
+    from calibrate.consistency import reading_order as ro
+    from tests.unit.test_drift import _setup
+
+    assert ro.drift_resamples(500, 400) == 500
+    assert ro.drift_resamples(500, 2000) == 125
+    assert ro.drift_resamples(500, 10_000) == ro.DRIFT_MIN_RESAMPLES
+    design, ordered = _setup(4, n_raters=6, length=60)
+    monkeypatch.setattr(ro, "DRIFT_FULL_RESAMPLE_RATERS", 4)
+    monkeypatch.setattr(ro, "DRIFT_RESAMPLE_WORK", 6 * 150)
+    reduced = ro.drift(design, ordered, rng=1)
+    assert reduced.n_resamples == 150
+    assert reduced.reduced_forms == ("The intervals of the change in R_s between the halves of the reading "
+                                     "order (drift) from 150 resamples instead of 500 on this panel size "
+                                     "(6 raters).",)
+    assert reduced.to_dict()["reduced_forms"] == list(reduced.reduced_forms)
+    full = ro.drift(design, ordered, rng=1, scale_down=False)
+    assert full.n_resamples == 500 and full.reduced_forms == ()
