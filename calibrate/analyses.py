@@ -232,7 +232,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         step("lens model")
         lens = lens_model(design, fit_first, table.criterion,
                           criterion_selected=spec.criterion_only_for_selected,
-                          rubric=spec.rubric, n_boot=n_boot, rng=_rng(seed, phase_index, "lens"))
+                          rubric=spec.rubric, n_boot=n_boot, rng=_rng(seed, phase_index, "lens"),
+                          scale_down=not full_extras)
     if spec.rubric and len(fit_first):
         alignment = rubric_alignment(design, fit_first, spec.rubric, basis=spec.rubric_basis)
     if spec.excluded and len(fit_first):
@@ -386,6 +387,7 @@ def _reduced_forms(a: PhaseAnalyses, full_extras: bool) -> list[str]:
     """Plain statements of every extra that ran in a reduced form on this panel size."""
     out = list(a.grouping.reduced_forms) if a.grouping is not None else []
     out += list(a.drift.reduced_forms) if a.drift is not None else []
+    out += list(a.lens.reduced_forms) if a.lens is not None else []
     if a.grouping is not None and a.grouping.n_pairs and not _group_pairs_written(a, full_extras):
         out.append(f"How often each pair of raters shared a group ({a.grouping.n_pairs:,} pairs) "
                    f"is left out of the tables on panels of more than {GROUP_PAIRS_MAX_RATERS} "
@@ -472,9 +474,10 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
                              ("cutoffs", a.cutoffs), ("drift", a.drift), ("rater_pairs", a.rater_pairs),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
-        # The grouping and drift warn of their own reductions; the left-out pair table is the audit's.
+        # The grouping, drift and lens model warn of their own reductions; the left-out pair table is the audit's.
         own = (a.grouping.reduced_forms if a.grouping is not None else ()) \
-            + (a.drift.reduced_forms if a.drift is not None else ())
+            + (a.drift.reduced_forms if a.drift is not None else ()) \
+            + (a.lens.reduced_forms if a.lens is not None else ())
         left_out = [t for t in panels[-1]["reduced_forms"] if t not in own]
         warnings += _study_warnings(ph.name, "grouping", left_out)
         _collect_tables(tables, ph, a, full_extras)

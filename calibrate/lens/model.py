@@ -163,6 +163,7 @@ class LensResult(RaterLookup, ResultMixin):
     criterion_selected: bool
     cautions: tuple[str, ...] = ()
     warnings: tuple[str, ...] = ()
+    reduced_forms: tuple[str, ...] = ()
 
 
     @property
@@ -344,6 +345,7 @@ def lens_model(
     n_boot: int = 1000,
     rng: np.random.Generator | None = None,
     level: float = 0.95,
+    scale_down: bool = True,
 ) -> LensResult:
     r"""Lens model of every rater against a criterion, with judgment bootstrapping figures.
 
@@ -358,6 +360,9 @@ def lens_model(
     n_boot : case-bootstrap resamples for the intervals of r_a, G, C and R_e (0: none).
     rng : random generator of the bootstrap (default: a fixed seed, so repeated calls agree).
     level : confidence level of those intervals.
+    scale_down : above :data:`LENS_FULL_RESAMPLE_RATERS` raters with cases of their own
+        (not shared by a block of raters), fewer resamples for those raters
+        (:func:`lens_resamples`), stated in ``reduced_forms``; False: always ``n_boot``.
 
     Returns
     -------
@@ -394,8 +399,19 @@ def lens_model(
     composite, panel_unit = _unit_weight_composite(design, crit_by_row, env_rows, signs)
 
     with_crit = rows.subset(np.isfinite(crit_by_row[rows.design_row]))
+    blocks = shared_case_blocks(with_crit.design_row, with_crit.group, with_crit.n_raters)
+    alone = with_crit.n_raters - sum(b.size for b in blocks)
+    independent = lens_resamples(n_boot, alone) if scale_down else n_boot
+    reduced = []
+    if independent < n_boot:
+        reduced.append(f"The intervals of r_a, G, C and R_e (lens model) from {independent} resamples "
+                       f"instead of {n_boot} for the {alone} raters whose cases no "
+                       f"{SHARED_BLOCK_MIN_RATERS - 1} others read too, on this panel size.")
+        warnings.append(f"The lens intervals used {independent} resamples instead of {n_boot} for {alone} "
+                        "raters to keep the run short (--full-extras uses all).")
     raters = _per_rater(with_crit, crit_by_row, composite, p, n_boot=n_boot,
-                        rng=np.random.default_rng(0) if rng is None else rng, level=level)
+                        rng=np.random.default_rng(0) if rng is None else rng, level=level,
+                        independent_resamples=independent)
     return LensResult(
         environment=environment,
         raters=raters,
@@ -404,7 +420,25 @@ def lens_model(
         criterion_selected=bool(criterion_selected),
         cautions=tuple(cautions),
         warnings=tuple(warnings),
+        reduced_forms=tuple(reduced),
     )
+
+
+#: Up to this many raters with cases of their own, their lens intervals use all resamples.
+LENS_FULL_RESAMPLE_RATERS = 500
+#: Above it (unless the full form is asked for), those raters x resamples is held to this...
+LENS_RESAMPLE_WORK = LENS_FULL_RESAMPLE_RATERS * 1000
+#: ... with never fewer resamples than this (coverage in benchmarks/bench_lens_intervals.py).
+LENS_MIN_RESAMPLES = 250
+
+
+def lens_resamples(n_boot: int, n_raters: int) -> int:
+    """Resamples for the raters with cases of their own: as asked up to
+    :data:`LENS_FULL_RESAMPLE_RATERS` of them, then raters x resamples held to
+    :data:`LENS_RESAMPLE_WORK`, never under :data:`LENS_MIN_RESAMPLES` (nor over the ask)."""
+    if n_raters <= LENS_FULL_RESAMPLE_RATERS:
+        return n_boot
+    return min(n_boot, max(LENS_MIN_RESAMPLES, LENS_RESAMPLE_WORK // n_raters))
 
 
 def _criterion_by_design_row(design: CueDesign, criterion: pd.Series) -> np.ndarray:
@@ -506,7 +540,7 @@ def _lens_parts(stats, p: int) -> dict[str, np.ndarray]:
 
 def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarray,
                p: int, *, n_boot: int, rng: np.random.Generator,
-               level: float) -> tuple[RaterLens, ...]:
+               level: float, independent_resamples: int | None = None) -> tuple[RaterLens, ...]:
     G = rows.n_raters
     crit = crit_by_row[rows.design_row]
     Z = np.column_stack([rows.X, rows.y, crit, composite[rows.design_row]])
@@ -519,7 +553,8 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
     with np.errstate(invalid="ignore", divide="ignore"):
         unit = S[:, yu, yc] / np.sqrt(S[:, yu, yu] * S[:, yc, yc])
     intervals = lens_intervals(Z[:, :p + 2], rows.group, G, p, n_boot=n_boot, rng=rng, level=level,
-                               case=rows.design_row)
+                               case=rows.design_row, independent_resamples=independent_resamples)
+    resamples_of = intervals.pop("n_boot")
     loo = leave_one_out_predictions(rows.X, rows.y, rows.group, G)
     usable = np.isfinite(loo)
     pair = grouped_sscp(np.column_stack([loo[usable], crit[usable], rows.y[usable]]),
@@ -575,7 +610,7 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
             summary=_bootstrap_sentence(verdict, float(vals["r_a"]), float(vals["cv"])),
             **bounds,
             interval_level=float(level),
-            n_boot=int(n_boot),
+            n_boot=int(resamples_of[i]),
             cases_per_term=per_term,
             small_sample=small,
             small_sample_note=small_sample_sentence(int(n[i]), p) if small else None,
@@ -595,7 +630,8 @@ SHARED_BLOCK_MIN_RATERS = 8
 
 def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n_boot: int,
                    rng: np.random.Generator, level: float = 0.95,
-                   case: np.ndarray | None = None) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+                   case: np.ndarray | None = None,
+                   independent_resamples: int | None = None) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """BCa case-bootstrap intervals of r_a, G, C and R_e for every rater at once.
 
     ``Z`` holds ``[cues..., judgment, criterion]`` per row, ``group`` the rater of each
@@ -612,7 +648,8 @@ def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n
     still a plain case bootstrap of that rater's cases; the raters' resamples are merely
     not independent of each other, which no per-rater figure depends on.
 
-    Every other rater gets independent resamples: the sums of every (rater, resample)
+    Every other rater gets ``independent_resamples`` (default ``n_boot``) independent
+    resamples: the sums of every (rater, resample)
     from one batched matrix product of the counts with a table of per-case terms, and
     the two models of every (rater, resample) from one batched solve
     (:func:`_lens_parts`); the jackknife is the same product with count vectors of ones
@@ -622,26 +659,31 @@ def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n
     distributions are skewed near it; the bias correction and acceleration adjust for
     that (Efron 1987). Resamples whose refit is degenerate (a cue constant within the
     resample) are left out; fewer than 10 usable resamples give NaN.
-    Returns figure -> (low, high), each (n_groups,).
+    Returns figure -> (low, high), each (n_groups,), and ``"n_boot"`` -> the resamples
+    of each rater (n_groups,).
     """
     nan = np.full(n_groups, np.nan)
-    if n_boot <= 0 or len(Z) == 0:
-        return {k: (nan, nan) for k in INTERVAL_FIGURES}
+    independent = n_boot if independent_resamples is None else int(independent_resamples)
     blocks = shared_case_blocks(case, group, n_groups) if case is not None else []
-    if not blocks:
-        return _per_rater_intervals(Z, group, n_groups, p, n_boot=n_boot, rng=rng, level=level)
-    out = {k: (nan.copy(), nan.copy()) for k in INTERVAL_FIGURES}
     in_block = np.zeros(n_groups, dtype=bool)
     for members in blocks:
         in_block[members] = True
+    resamples_of = np.where(in_block, n_boot, independent)
+    if n_boot <= 0 or len(Z) == 0:
+        return {**{k: (nan, nan) for k in INTERVAL_FIGURES}, "n_boot": np.zeros(n_groups, dtype=int)}
+    if not blocks:
+        return {**_per_rater_intervals(Z, group, n_groups, p, n_boot=independent, rng=rng, level=level),
+                "n_boot": resamples_of}
+    out = {k: (nan.copy(), nan.copy()) for k in INTERVAL_FIGURES}
+    out["n_boot"] = resamples_of
     rest = np.flatnonzero(~in_block)
-    if rest.size:
+    if rest.size and independent > 0:
         # The raters outside the blocks first, so that their draws are those of a panel
         # without blocks.
         local = np.full(n_groups, -1, dtype=np.intp)
         local[rest] = np.arange(rest.size)
         keep = ~in_block[group]
-        part = _per_rater_intervals(Z[keep], local[group[keep]], rest.size, p, n_boot=n_boot,
+        part = _per_rater_intervals(Z[keep], local[group[keep]], rest.size, p, n_boot=independent,
                                     rng=rng, level=level)
         for k in INTERVAL_FIGURES:
             out[k][0][rest], out[k][1][rest] = part[k]

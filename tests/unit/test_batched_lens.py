@@ -211,3 +211,23 @@ def test_drift_takes_fewer_resamples_above_the_panel_size_and_says_so(monkeypatc
     assert reduced.to_dict()["reduced_forms"] == list(reduced.reduced_forms)
     full = ro.drift(design, ordered, rng=1, scale_down=False)
     assert full.n_resamples == 500 and full.reduced_forms == ()
+
+
+def test_lens_takes_fewer_resamples_for_raters_on_their_own_cases_and_says_so(monkeypatch):
+    from calibrate.lens import model
+    from calibrate.lens.model import lens_model, lens_resamples
+    from tests.lens_panels import simulated_raters
+
+    assert lens_resamples(1000, 500) == 1000
+    assert lens_resamples(1000, 2000) == 250
+    design, first, crit = simulated_raters(np.random.default_rng(1), 6, 30)
+    monkeypatch.setattr(model, "LENS_FULL_RESAMPLE_RATERS", 4)
+    monkeypatch.setattr(model, "LENS_RESAMPLE_WORK", 6 * 40)
+    monkeypatch.setattr(model, "LENS_MIN_RESAMPLES", 20)
+    reduced = lens_model(design, first, crit, n_boot=100, rng=np.random.default_rng(2))
+    assert [r.n_boot for r in reduced.raters] == [40] * 6
+    assert reduced.reduced_forms == ("The intervals of r_a, G, C and R_e (lens model) from 40 resamples "
+                                     "instead of 100 for the 6 raters whose cases no 7 others read too, "
+                                     "on this panel size.",)
+    full = lens_model(design, first, crit, n_boot=100, rng=np.random.default_rng(2), scale_down=False)
+    assert [r.n_boot for r in full.raters] == [100] * 6 and full.reduced_forms == ()
