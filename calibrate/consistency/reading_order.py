@@ -217,7 +217,12 @@ def _lower_inverse(L: np.ndarray) -> np.ndarray:
     return M
 
 
-def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk=50):
+#: Uniform draws per chunk of resamples in the R_s change bootstrap: small enough that
+#: the chunk's arrays stay near the cache (the draws do not depend on the chunk size).
+_DRAWS_PER_CHUNK = 4_000_000
+
+
+def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk=None):
     """Percentile interval of R_s(second) - R_s(first) per rater, cases resampled per half.
 
     Each half (cell) is resampled with replacement to its own size. The resampled
@@ -249,6 +254,8 @@ def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk
                                              for j in range(k)], axis=1)  # (cells, k)
     padding = ~(np.arange(longest)[None, :] < sizes[:, None])[None]     # (1, cells, longest)
     last = np.maximum(sizes - 1, 0)[None, :, None]
+    if chunk is None:
+        chunk = int(np.clip(_DRAWS_PER_CHUNK // (n_cells * longest), 1, 50))
     diffs = []
     for done in range(0, n_resamples, chunk):
         B = min(chunk, n_resamples - done)
