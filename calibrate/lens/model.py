@@ -652,8 +652,7 @@ def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n
     resamples: the sums of every (rater, resample)
     from one batched matrix product of the counts with a table of per-case terms, and
     the two models of every (rater, resample) from one batched solve
-    (:func:`_lens_parts`); the jackknife is the same product with count vectors of ones
-    and one zero.
+    (:func:`_lens_parts`); the jackknife takes each case's terms off the full sums.
 
     BCa rather than percentile because G and R_e are bounded by 1 and their sampling
     distributions are skewed near it; the bias correction and acceleration adjust for
@@ -850,9 +849,9 @@ def _per_rater_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int
         parts = _lens_parts(_sscp_from_counts(counts.astype(float), terms, means), p)
         for k in INTERVAL_FIGURES:
             boot[k][b0:b0 + nb] = parts[k].reshape(n_groups, nb).T
-    # Jackknife: count vectors of ones with the left-out case at zero, padding at zero.
-    jack_counts = np.broadcast_to(live[:, None, :], (n_groups, n_max, n_max)) & ~np.eye(n_max, dtype=bool)
-    jack_parts = _lens_parts(_sscp_from_counts(jack_counts.astype(float), terms, means), p)
+    # Jackknife: the full sums less each case's terms (padding slots: the full sums,
+    # masked below).
+    jack_parts = _lens_parts(_sscp_from_sums(terms.sum(axis=1)[:, None, :] - terms, means), p)
     out = {}
     for k in INTERVAL_FIGURES:
         est = np.where(estimate["ok"], estimate[k], np.nan)
@@ -886,9 +885,14 @@ def _case_terms(Z: np.ndarray, group: np.ndarray, n_groups: int, sizes: np.ndarr
 def _sscp_from_counts(counts: np.ndarray, terms: np.ndarray, means: np.ndarray) -> GroupedSSCP:
     """Weighted SSCP of every (rater, count vector): counts (G, N, n_max) -> N*G groups in
     rater-major order (group g * N + j)."""
-    G, N, _ = counts.shape
+    return _sscp_from_sums(np.matmul(counts, terms), means)
+
+
+def _sscp_from_sums(sums: np.ndarray, means: np.ndarray) -> GroupedSSCP:
+    """:func:`_sscp_from_counts` from the weighted sums of the terms, (G, N, terms)."""
+    G, N, _ = sums.shape
     k = means.shape[1]
-    sums = np.matmul(counts, terms).reshape(G * N, -1)
+    sums = sums.reshape(G * N, -1)
     n = sums[:, 0]
     first = sums[:, 1:1 + k]
     iu, ju = np.triu_indices(k)

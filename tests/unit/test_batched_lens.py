@@ -231,3 +231,31 @@ def test_lens_takes_fewer_resamples_for_raters_on_their_own_cases_and_says_so(mo
                                      "on this panel size.",)
     full = lens_model(design, first, crit, n_boot=100, rng=np.random.default_rng(2), scale_down=False)
     assert [r.n_boot for r in full.raters] == [100] * 6 and full.reduced_forms == ()
+
+
+@pytest.mark.parametrize("binary", [False, True])
+def test_lens_intervals_of_raters_on_their_own_cases_equal_a_per_rater_loop(binary):
+    X, crit, Y = _panel(binary, n_raters=3, n_cases=60)
+    p = X.shape[1]
+    cases_of = [range(0, 40), range(15, 60), range(0, 60, 2)]   # unequal sizes: padding slots
+    Z, g, case = _long(X, crit, Y, cases_of)
+    n_boot = 50
+    got = lens_intervals(Z, g, 3, p, n_boot=n_boot, rng=np.random.default_rng(6), level=0.9)
+    sizes = np.bincount(g)
+    u = np.random.default_rng(6).random((3, n_boot, sizes.max()))
+    for r in range(3):
+        rows = np.flatnonzero(g == r)
+        Xr, yr, cr = Z[rows, :p], Z[rows, p], Z[rows, p + 1]
+        boot = {k: np.empty(n_boot) for k in INTERVAL_FIGURES}
+        for b in range(n_boot):
+            pick = np.floor(u[r, b, :rows.size] * rows.size).astype(int)
+            for k, v in _lens_by_rows(Xr[pick], yr[pick], cr[pick]).items():
+                boot[k][b] = v
+        full = _lens_by_rows(Xr, yr, cr)
+        loo = [_lens_by_rows(np.delete(Xr, i, 0), np.delete(yr, i), np.delete(cr, i)) for i in range(rows.size)]
+        for k in INTERVAL_FIGURES:
+            jack = np.array([[v[k]] for v in loo])
+            jack = jack if np.isfinite(jack).any() else np.zeros_like(jack)
+            low, high = bca_interval(np.array([full[k]]), boot[k][:, None], jack, alpha=0.1)
+            np.testing.assert_allclose([got[k][0][r], got[k][1][r]], [low[0], high[0]],
+                                       rtol=1e-9, atol=1e-12, equal_nan=True)
