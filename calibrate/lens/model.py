@@ -896,12 +896,14 @@ def _sscp_from_sums(sums: np.ndarray, means: np.ndarray) -> GroupedSSCP:
     n = sums[:, 0]
     first = sums[:, 1:1 + k]
     iu, ju = np.triu_indices(k)
-    raw = np.empty((G * N, k, k))
-    raw[:, iu, ju] = sums[:, 1 + k:]
-    raw[:, ju, iu] = sums[:, 1 + k:]
+    # One gather of the upper-triangle sums into full matrices (two scattered writes cost
+    # several times more on millions of small matrices).
+    where = np.empty((k, k), dtype=np.intp)
+    where[iu, ju] = where[ju, iu] = 1 + k + np.arange(iu.size)
     with np.errstate(invalid="ignore", divide="ignore"):
         shift = first / n[:, None]
-        sscp = raw - n[:, None, None] * shift[:, :, None] * shift[:, None, :]
+        sscp = sums[:, where.ravel()].reshape(G * N, k, k)
+        sscp -= n[:, None, None] * shift[:, :, None] * shift[:, None, :]
     # A column constant in a resample can come out a rounding error below zero.
     diag = np.arange(k)
     sscp[:, diag, diag] = np.maximum(sscp[:, diag, diag], 0.0)
