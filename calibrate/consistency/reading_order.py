@@ -34,6 +34,7 @@ from ..data.cues import CueDesign
 from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError, DataProblem
 from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp, r_squared_from_sscp
+from ..policy.stacked import surely_full_rank_inverse_factor
 from ..pvalues import holm_adjust
 from ..result_base import ResultMixin
 
@@ -163,12 +164,11 @@ def _r_s_stack_last(S: np.ndarray, n: np.ndarray, p: int, *, rcond: float = 1e-1
     groups' SSCPs stacked last.
 
     The same R^2 and rank rule as :func:`calibrate.policy.linalg.r_squared_from_sscp`,
-    at a fraction of its cost on the million small systems of the bootstrap: a Cholesky
-    factor ``L`` of every correlation-scaled cue matrix ``R`` and its inverse, column by
-    column across all groups at once, give ``R^2 = |L^-1 r|^2``. Full rank is certain
-    where ``1 / ||L^-1||_F^2 > rcond * trace(R)``, since
-    ``lambda_min >= 1 / ||R^-1||_F >= 1 / ||L^-1||_F^2`` and ``lambda_max <= trace(R)``;
-    the few other groups go to ``r_squared_from_sscp`` itself, which decides as ever.
+    at a fraction of its cost on the million small systems of the bootstrap:
+    ``R^2 = |L^-1 r|^2`` with ``L`` the Cholesky factor of the correlation-scaled cue
+    matrix, full rank decided for certain where a bound allows
+    (:func:`calibrate.policy.stacked.surely_full_rank_inverse_factor`) and by
+    ``r_squared_from_sscp`` itself for the few groups near the line.
     """
     Syy = S[p, p]
     scale = np.sqrt(S[np.arange(p), np.arange(p)])                     # (p, groups)
@@ -178,10 +178,8 @@ def _r_s_stack_last(S: np.ndarray, n: np.ndarray, p: int, *, rcond: float = 1e-1
     with np.errstate(invalid="ignore", divide="ignore"):
         R = np.where(ok_scale, S[:p, :p] / (safe[:, None] * safe[None, :]), 0.0)
         r = S[:p, p] / (safe * np.sqrt(Syy))
-        inverse = _lower_inverse(_cholesky(R))
-        frobenius = (inverse * inverse).sum(axis=(0, 1))
-        trace = R[np.arange(p), np.arange(p)].sum(axis=0)
-        sure = candidate & np.isfinite(frobenius) & (1.0 / frobenius > rcond * trace)
+    inverse, sure = surely_full_rank_inverse_factor(R, candidate, rcond)
+    with np.errstate(invalid="ignore", divide="ignore"):
         z = (inverse * r[None, :, :]).sum(axis=1)
         r2 = np.where(sure & (Syy > 0), (z * z).sum(axis=0), np.nan)
     near = np.flatnonzero(candidate & ~sure)
@@ -192,29 +190,6 @@ def _r_s_stack_last(S: np.ndarray, n: np.ndarray, p: int, *, rcond: float = 1e-1
                                        np.arange(p), p, rcond=rcond)[0]
     with np.errstate(invalid="ignore"):
         return np.sqrt(np.clip(r2, 0.0, 1.0))
-
-
-def _cholesky(R: np.ndarray) -> np.ndarray:
-    """Lower Cholesky factors of a stack of matrices ``R`` (p, p, groups), column by column
-    across the stack (NaN or inf where a matrix is not positive definite)."""
-    p = R.shape[0]
-    L = np.zeros_like(R)
-    for j in range(p):
-        L[j, j] = np.sqrt(R[j, j] - (L[j, :j] * L[j, :j]).sum(axis=0))
-        if j + 1 < p:
-            L[j + 1:, j] = (R[j + 1:, j] - (L[j + 1:, :j] * L[j, :j][None]).sum(axis=1)) / L[j, j]
-    return L
-
-
-def _lower_inverse(L: np.ndarray) -> np.ndarray:
-    """Inverses of a stack of lower-triangular matrices ``L`` (p, p, groups), row by row."""
-    p = L.shape[0]
-    M = np.zeros_like(L)
-    for i in range(p):
-        M[i, i] = 1.0 / L[i, i]
-        for j in range(i):  # the lower triangle only: rows j..i-1 of column j
-            M[i, j] = -np.einsum("kg,kg->g", L[i, j:i], M[j:i, j]) * M[i, i]
-    return M
 
 
 #: Uniform draws per chunk of resamples in the R_s change bootstrap: small enough that
