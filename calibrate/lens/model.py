@@ -851,8 +851,14 @@ def _per_rater_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int
         for k in INTERVAL_FIGURES:
             boot[k][b0:b0 + nb] = parts[k].reshape(n_groups, nb).T
     # Jackknife: the full sums less each case's terms (padding slots: the full sums,
-    # masked below).
-    jack_parts = _interval_figures(terms.sum(axis=1)[:, None, :] - terms, p)
+    # masked below), a block of raters at a time to bound memory.
+    jack_parts = {k: np.empty((n_groups, n_max)) for k in INTERVAL_FIGURES}
+    per_block = max(1, _CHUNK_FLOATS // (n_max * terms.shape[2]))
+    for g0 in range(0, n_groups, per_block):
+        block = terms[g0:g0 + per_block]
+        parts = _interval_figures(block.sum(axis=1)[:, None, :] - block, p)
+        for k in INTERVAL_FIGURES:
+            jack_parts[k][g0:g0 + per_block] = parts[k].reshape(-1, n_max)
     out = {}
     for k in INTERVAL_FIGURES:
         est = np.where(estimate["ok"], estimate[k], np.nan)
