@@ -227,8 +227,8 @@ def test_lens_takes_fewer_resamples_for_raters_on_their_own_cases_and_says_so(mo
     reduced = lens_model(design, first, crit, n_boot=100, rng=np.random.default_rng(2))
     assert [r.n_boot for r in reduced.raters] == [40] * 6
     assert reduced.reduced_forms == ("The intervals of r_a, G, C and R_e (lens model) from 40 resamples "
-                                     "instead of 100 for the 6 raters whose cases no 7 others read too, "
-                                     "on this panel size.",)
+                                     "instead of 100 for the 6 raters who do not read the same cases as 7 "
+                                     "or more others, on this panel size.",)
     full = lens_model(design, first, crit, n_boot=100, rng=np.random.default_rng(2), scale_down=False)
     assert [r.n_boot for r in full.raters] == [100] * 6 and full.reduced_forms == ()
 
