@@ -81,6 +81,19 @@ def _long(X, crit, Y, cases_of):
     return Z, g, case
 
 
+def _assert_bca_of_rater(got, r, boot, X, y, crit):
+    """The 90% BCa limits of rater ``r`` in ``got`` equal those of the reference resamples
+    ``boot`` with a jackknife of plain refits."""
+    full = _lens_by_rows(X, y, crit)
+    loo = [_lens_by_rows(np.delete(X, i, 0), np.delete(y, i), np.delete(crit, i)) for i in range(len(y))]
+    for k in INTERVAL_FIGURES:
+        jack = np.array([[v[k]] for v in loo])
+        jack = jack if np.isfinite(jack).any() else np.zeros_like(jack)
+        low, high = bca_interval(np.array([full[k]]), boot[k][:, None], jack, alpha=0.1)
+        np.testing.assert_allclose([got[k][0][r], got[k][1][r]], [low[0], high[0]],
+                                   rtol=1e-9, atol=1e-12, equal_nan=True)
+
+
 @pytest.mark.parametrize("binary", [False, True])
 def test_lens_intervals_of_a_block_equal_a_per_rater_loop(binary):
     X, crit, Y = _panel(binary, n_raters=8)
@@ -95,15 +108,7 @@ def test_lens_intervals_of_a_block_equal_a_per_rater_loop(binary):
             rows = np.sort(pick[b])
             for k, v in _lens_by_rows(X[rows], Y[rows, r], crit[rows]).items():
                 boot[k][b] = v
-        full = _lens_by_rows(X, Y[:, r], crit)
-        loo = [_lens_by_rows(np.delete(X, i, 0), np.delete(Y[:, r], i), np.delete(crit, i))
-               for i in range(n)]
-        for k in INTERVAL_FIGURES:
-            jack = np.array([[v[k]] for v in loo])
-            jack = jack if np.isfinite(jack).any() else np.zeros_like(jack)
-            low, high = bca_interval(np.array([full[k]]), boot[k][:, None], jack, alpha=0.1)
-            np.testing.assert_allclose([got[k][0][r], got[k][1][r]], [low[0], high[0]],
-                                       rtol=1e-9, atol=1e-12, equal_nan=True)
+        _assert_bca_of_rater(got, r, boot, X, Y[:, r], crit)
 
 
 def test_raters_outside_blocks_keep_their_independent_draws():
@@ -251,11 +256,4 @@ def test_lens_intervals_of_raters_on_their_own_cases_equal_a_per_rater_loop(bina
             pick = np.floor(u[r, b, :rows.size] * rows.size).astype(int)
             for k, v in _lens_by_rows(Xr[pick], yr[pick], cr[pick]).items():
                 boot[k][b] = v
-        full = _lens_by_rows(Xr, yr, cr)
-        loo = [_lens_by_rows(np.delete(Xr, i, 0), np.delete(yr, i), np.delete(cr, i)) for i in range(rows.size)]
-        for k in INTERVAL_FIGURES:
-            jack = np.array([[v[k]] for v in loo])
-            jack = jack if np.isfinite(jack).any() else np.zeros_like(jack)
-            low, high = bca_interval(np.array([full[k]]), boot[k][:, None], jack, alpha=0.1)
-            np.testing.assert_allclose([got[k][0][r], got[k][1][r]], [low[0], high[0]],
-                                       rtol=1e-9, atol=1e-12, equal_nan=True)
+        _assert_bca_of_rater(got, r, boot, Xr, yr, cr)
