@@ -234,7 +234,8 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         step("lens model")
         lens = lens_model(design, fit_first, table.criterion,
                           criterion_selected=spec.criterion_only_for_selected,
-                          rubric=spec.rubric, n_boot=n_boot, rng=_rng(seed, phase_index, "lens"))
+                          rubric=spec.rubric, n_boot=n_boot, rng=_rng(seed, phase_index, "lens"),
+                          scale_down=not full_extras)
     if spec.rubric and len(fit_first):
         alignment = rubric_alignment(design, fit_first, spec.rubric, basis=spec.rubric_basis)
     if spec.excluded and len(fit_first):
@@ -251,7 +252,7 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         ordered = ph.ordered.loc[ph.ordered["rater"].isin(ph.fit_raters)
                                  & ph.ordered["case"].isin(complete)].reset_index(drop=True)
         drift_result = drift(design, ordered[["rater", "case", "judgment", "position"]],
-                             rng=_rng(seed, phase_index, "drift"))
+                             rng=_rng(seed, phase_index, "drift"), scale_down=not full_extras)
     n_fit = fit_first["rater"].nunique()
     rater_pairs = homogeneity = grouping = None
     if n_fit >= 2:
@@ -391,6 +392,8 @@ def _reduced_forms(a: PhaseAnalyses, full_extras: bool) -> list[str]:
     out += list(a.cutoffs.reduced_forms) if a.cutoffs is not None else []
     out += list(a.grouping.reduced_forms) if a.grouping is not None else []
     out += list(a.agreement.reduced_forms) if a.agreement is not None else []
+    out += list(a.drift.reduced_forms) if a.drift is not None else []
+    out += list(a.lens.reduced_forms) if a.lens is not None else []
     if a.grouping is not None and a.grouping.n_pairs and not _group_pairs_written(a, full_extras):
         out.append(f"How often each pair of raters shared a group ({a.grouping.n_pairs:,} pairs) "
                    f"is left out of the tables on panels of more than {GROUP_PAIRS_MAX_RATERS} "
@@ -477,14 +480,17 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
                              ("cutoffs", a.cutoffs), ("drift", a.drift), ("rater_pairs", a.rater_pairs),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
-        # The grouping warns of its own reductions; the left-out pair table is the audit's.
-        # Each analysis warns of its own reductions under its own name.
+        # The grouping, drift and lens model warn of their own reductions (in their results'
+        # warnings); the policies', cut-off check's and agreement's are warned here under their
+        # own names; the left-out pair table is the audit's.
         own = {"policies": list(a.policies.reduced_forms) if a.policies is not None else [],
                "cutoffs": list(a.cutoffs.reduced_forms) if a.cutoffs is not None else [],
                "agreement": list(a.agreement.reduced_forms) if a.agreement is not None else []}
-        owned = [t for texts in own.values() for t in texts]
-        left_out = [t for t in panels[-1]["reduced_forms"] if t not in owned
-                    and (a.grouping is None or t not in a.grouping.reduced_forms)]
+        self_warned = ((a.grouping.reduced_forms if a.grouping is not None else ())
+                       + (a.drift.reduced_forms if a.drift is not None else ())
+                       + (a.lens.reduced_forms if a.lens is not None else ()))
+        owned = [t for texts in own.values() for t in texts] + list(self_warned)
+        left_out = [t for t in panels[-1]["reduced_forms"] if t not in owned]
         warnings += _study_warnings(ph.name, "grouping", left_out)
         for name, texts in own.items():
             warnings += _study_warnings(ph.name, name, texts)

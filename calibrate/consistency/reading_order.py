@@ -34,6 +34,7 @@ from ..data.cues import CueDesign
 from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError, DataProblem
 from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp, r_squared_from_sscp
+from ..policy.stacked import surely_full_rank_inverse_factor
 from ..pvalues import holm_adjust
 from ..result_base import ResultMixin
 
@@ -43,6 +44,14 @@ DRIFT_METHOD = (
     "residual on position (consistency); Holm across raters and both tests"
 )
 DEFAULT_DRIFT_RESAMPLES = 500
+#: Up to this many raters the R_s change intervals always use all the resamples asked for.
+DRIFT_FULL_RESAMPLE_RATERS = 500
+#: Above it (unless the full form is asked for), raters x resamples is held to this...
+DRIFT_RESAMPLE_WORK = DRIFT_FULL_RESAMPLE_RATERS * DEFAULT_DRIFT_RESAMPLES
+#: ... with never fewer resamples than this (coverage measured in benchmarks/bench_drift_resamples.py).
+DRIFT_MIN_RESAMPLES = 100
+#: A resampled sum of squares under this share of the full sample's is rounding noise.
+ROUNDING_SHARE = 1e-10
 
 
 @dataclass(frozen=True)
@@ -96,6 +105,7 @@ class DriftResult(RaterLookup, ResultMixin):
     n_resamples: int
     raters: tuple[RaterDrift, ...]
     warnings: tuple[str, ...] = ()
+    reduced_forms: tuple[str, ...] = ()
 
     @property
     def flagged_raters(self) -> tuple[str, ...]:
@@ -108,6 +118,7 @@ class DriftResult(RaterLookup, ResultMixin):
             "n_resamples": self.n_resamples,
             "raters": {r.rater: r.to_dict() for r in self.raters},
             "warnings": list(self.warnings),
+            "reduced_forms": list(self.reduced_forms),
         }
 
     def to_frame(self) -> pd.DataFrame:
@@ -145,12 +156,48 @@ def _half_of_each_row(rater: np.ndarray, position: np.ndarray, n_raters: int) ->
 
 def _r_s_from(stats: GroupedSSCP, p: int) -> np.ndarray:
     """R_s of the judgment (column p) on the p cues, per group."""
-    r2, _ = r_squared_from_sscp(stats, np.arange(p), p)
+    return _r_s_stack_last(np.ascontiguousarray(stats.sscp.transpose(1, 2, 0)), stats.n, p)
+
+
+def _r_s_stack_last(S: np.ndarray, n: np.ndarray, p: int, *, rcond: float = 1e-12) -> np.ndarray:
+    """R_s of column p on columns 0..p-1 for every group of ``S`` (k, k, groups), the
+    groups' SSCPs stacked last.
+
+    The same R^2 and rank rule as :func:`calibrate.policy.linalg.r_squared_from_sscp`,
+    at a fraction of its cost on the million small systems of the bootstrap:
+    ``R^2 = |L^-1 r|^2`` with ``L`` the Cholesky factor of the correlation-scaled cue
+    matrix, full rank decided for certain where a bound allows
+    (:func:`calibrate.policy.stacked.surely_full_rank_inverse_factor`) and by
+    ``r_squared_from_sscp`` itself for the few groups near the line.
+    """
+    Syy = S[p, p]
+    scale = np.sqrt(S[np.arange(p), np.arange(p)])                     # (p, groups)
+    ok_scale = np.all(scale > 0, axis=0) & np.all(np.isfinite(scale), axis=0)
+    candidate = ok_scale & (n > p + 1)
+    safe = np.where(ok_scale, scale, 1.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        R = np.where(ok_scale, S[:p, :p] / (safe[:, None] * safe[None, :]), 0.0)
+        r = S[:p, p] / (safe * np.sqrt(Syy))
+    inverse, sure = surely_full_rank_inverse_factor(R, candidate, rcond)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        z = (inverse * r[None, :, :]).sum(axis=1)
+        r2 = np.where(sure & (Syy > 0), (z * z).sum(axis=0), np.nan)
+    near = np.flatnonzero(candidate & ~sure)
+    if near.size:
+        k = S.shape[0]
+        r2[near] = r_squared_from_sscp(GroupedSSCP(n=n[near], mean=np.zeros((near.size, k)),
+                                                   sscp=S[:, :, near].transpose(2, 0, 1)),
+                                       np.arange(p), p, rcond=rcond)[0]
     with np.errstate(invalid="ignore"):
         return np.sqrt(np.clip(r2, 0.0, 1.0))
 
 
-def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk=50):
+#: Uniform draws per chunk of resamples in the R_s change bootstrap: small enough that
+#: the chunk's arrays stay near the cache (the draws do not depend on the chunk size).
+_DRAWS_PER_CHUNK = 4_000_000
+
+
+def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk=None):
     """Percentile interval of R_s(second) - R_s(first) per rater, cases resampled per half.
 
     Each half (cell) is resampled with replacement to its own size. The resampled
@@ -171,36 +218,50 @@ def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk
                            for j in range(k)], axis=1) / sizes[:, None]
     Zc = Z - centre[cell]
     upper_i, upper_j = np.triu_indices(k)
+    # Where each (i, j) of the k x k matrix sits among the upper-triangle products.
+    full_index = np.empty((k, k), dtype=np.intp)
+    full_index[upper_i, upper_j] = full_index[upper_j, upper_i] = np.arange(upper_i.size)
+    full_index = full_index.ravel()
     moments = np.zeros((n_cells, longest, k + upper_i.size))
     moments[cell, slot, :k] = Zc
     moments[cell, slot, k:] = Zc[:, upper_i] * Zc[:, upper_j]
-    in_cell = np.arange(longest)[None, :] < sizes[:, None]          # (cells, longest)
+    noise_floor = ROUNDING_SHARE * np.stack([np.bincount(cell, weights=Zc[:, j] ** 2, minlength=n_cells)
+                                             for j in range(k)], axis=1)  # (cells, k)
+    padding = ~(np.arange(longest)[None, :] < sizes[:, None])[None]     # (1, cells, longest)
     last = np.maximum(sizes - 1, 0)[None, :, None]
+    if chunk is None:
+        chunk = int(np.clip(_DRAWS_PER_CHUNK // (n_cells * longest), 1, 50))
     diffs = []
     for done in range(0, n_resamples, chunk):
         B = min(chunk, n_resamples - done)
-        drawn = np.minimum((rng.random((B, n_cells, longest)) * sizes[None, :, None])
-                           .astype(np.intp), last)
-        base = (np.arange(B)[:, None, None] * n_cells + np.arange(n_cells)[None, :, None]) * longest
-        flat = (base + drawn)[np.broadcast_to(in_cell, drawn.shape)]
-        counts = np.bincount(flat, minlength=B * n_cells * longest).reshape(B, n_cells, longest)
-        summed = np.matmul(counts.transpose(1, 0, 2).astype(float), moments)  # (cells, B, m)
-        n = np.broadcast_to(sizes[:, None].astype(float), (n_cells, B))
+        drawn = rng.random((B, n_cells, longest))
+        np.multiply(drawn, sizes[None, :, None], out=drawn)
+        drawn = drawn.astype(np.intp)
+        np.minimum(drawn, last, out=drawn)
+        # Each (resample, cell) counts into longest + 1 slots, the last one taking the
+        # draws of the padding beyond the cell's size (dropped below).
+        base = (np.arange(B)[:, None, None] * n_cells + np.arange(n_cells)[None, :, None]) * (longest + 1)
+        drawn += base
+        if padding.any():
+            np.copyto(drawn, np.broadcast_to(base + longest, drawn.shape), where=padding)
+        counts = np.bincount(drawn.ravel(), minlength=B * n_cells * (longest + 1)) \
+            .reshape(B, n_cells, longest + 1)
+        as_float = np.empty((n_cells, B, longest))
+        np.copyto(as_float, counts[:, :, :longest].transpose(1, 0, 2), casting="unsafe")
+        summed = np.matmul(as_float, moments)  # (cells, B, m)
         with np.errstate(invalid="ignore", divide="ignore"):
-            shift = summed[..., :k] / n[..., None]
-        sscp = np.empty((n_cells, B, k, k))
-        products = summed[..., k:] - n[..., None] * shift[..., upper_i] * shift[..., upper_j]
-        sscp[..., upper_i, upper_j] = products
-        sscp[..., upper_j, upper_i] = products
-        # A resample that repeats one row has exactly zero spread; keep rounding from
-        # turning that into a negative sum of squares.
+            shift = summed[..., :k] / sizes[:, None, None]
+        products = summed[..., k:] - sizes[:, None, None] * shift[..., upper_i] * shift[..., upper_j]
+        # Stack last, (k, k, cells * B): each step of the R_s solve then runs on contiguous rows.
+        sscp = np.ascontiguousarray(products.reshape(-1, upper_i.size).T)[full_index].reshape(k, k, -1)
+        # A column constant in the resample has no spread, but its sum of squares comes
+        # out as rounding noise (of either sign); below a tiny share of the half's own it
+        # is zero, so that the cue counts as constant (no fit) as on the rows themselves.
         diagonal = np.arange(k)
-        sscp[..., diagonal, diagonal] = np.maximum(sscp[..., diagonal, diagonal], 0.0)
-        stats = GroupedSSCP(n=n.T.ravel(), mean=(centre[:, None, :] + shift).transpose(1, 0, 2)
-                            .reshape(B * n_cells, k), sscp=sscp.transpose(1, 0, 2, 3)
-                            .reshape(B * n_cells, k, k))
-        r_s = _r_s_from(stats, p).reshape(B, n_cells // 2, 2)
-        diffs.append(r_s[:, :, 1] - r_s[:, :, 0])
+        spread = sscp[diagonal, diagonal]
+        sscp[diagonal, diagonal] = np.where(spread > np.repeat(noise_floor, B, axis=0).T, spread, 0.0)
+        r_s = _r_s_stack_last(sscp, np.repeat(sizes.astype(float), B), p).reshape(n_cells // 2, 2, B)
+        diffs.append((r_s[:, 1] - r_s[:, 0]).T)
     diffs = np.concatenate(diffs)
     with warnings.catch_warnings():
         # A rater whose halves are too small has only NaN draws; NaN is the answer.
@@ -249,6 +310,7 @@ def drift(
     alpha: float = 0.05,
     n_resamples: int = DEFAULT_DRIFT_RESAMPLES,
     rng: np.random.Generator | int | None = None,
+    scale_down: bool = True,
 ) -> DriftResult:
     """Leniency and consistency drift over each rater's reading order.
 
@@ -273,6 +335,8 @@ def drift(
     alpha : family-wise error rate for the ``drift`` flag.
     n_resamples : bootstrap draws for the R_s change interval (0 skips it).
     rng : seed or generator for the bootstrap.
+    scale_down : above :data:`DRIFT_FULL_RESAMPLE_RATERS` raters, fewer resamples
+        (:func:`drift_resamples`), stated in ``reduced_forms``; False: always all.
 
     Returns
     -------
@@ -321,8 +385,16 @@ def drift(
     r_s = _r_s_from(grouped_sscp(Zh, cell, 2 * K), p).reshape(K, 2)
     n_half = np.bincount(cell, minlength=2 * K).reshape(K, 2)
     ci_change = (np.full(K, np.nan), np.full(K, np.nan))
-    if n_resamples > 0:
-        ci_change = _bootstrap_r_s_change(Zh, cell, t, 2 * K, p, n_resamples, rng)
+    used = drift_resamples(n_resamples, K) if scale_down else n_resamples
+    reduced = []
+    if used < n_resamples:
+        reduced.append(f"The intervals of the change in R_s between the halves of the reading order "
+                       f"(drift) from {used:,} resamples instead of {n_resamples:,} on this panel size "
+                       f"({K:,} raters).")
+        notes.append(f"The R_s change intervals used {used:,} resamples instead of {n_resamples:,} to "
+                     f"keep the run short for {K:,} raters (--full-extras uses all).")
+    if used > 0:
+        ci_change = _bootstrap_r_s_change(Zh, cell, t, 2 * K, p, used, rng)
 
     n = np.bincount(g, minlength=K)
     short = [r for r, ok in zip(rows.raters, np.isfinite(p_len)) if not ok]
@@ -357,8 +429,17 @@ def drift(
             r_s_change_ci_low=float(ci_change[0][k]), r_s_change_ci_high=float(ci_change[1][k]),
             flagged=bool(reasons), reasons=reasons,
         ))
-    return DriftResult(method=DRIFT_METHOD, alpha=float(alpha), n_resamples=int(n_resamples),
-                       raters=tuple(raters), warnings=tuple(notes))
+    return DriftResult(method=DRIFT_METHOD, alpha=float(alpha), n_resamples=int(used),
+                       raters=tuple(raters), warnings=tuple(notes), reduced_forms=tuple(reduced))
 
 
-__all__ = ["DRIFT_FLAG", "DriftResult", "RaterDrift", "drift"]
+def drift_resamples(n_resamples: int, n_raters: int) -> int:
+    """Resamples for the R_s change intervals: as asked up to
+    :data:`DRIFT_FULL_RESAMPLE_RATERS` raters, then raters x resamples held to
+    :data:`DRIFT_RESAMPLE_WORK`, never under :data:`DRIFT_MIN_RESAMPLES` (nor over the ask)."""
+    if n_raters <= DRIFT_FULL_RESAMPLE_RATERS:
+        return n_resamples
+    return min(n_resamples, max(DRIFT_MIN_RESAMPLES, DRIFT_RESAMPLE_WORK // n_raters))
+
+
+__all__ = ["DRIFT_FLAG", "DriftResult", "RaterDrift", "drift", "drift_resamples"]

@@ -51,6 +51,7 @@ from ..errors import DataError
 from ..policy.diagnostics import case_influence
 from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
 from ..policy.resampling import bca_interval
+from ..policy.stacked import surely_full_rank_inverse_factor
 from ..result_base import ResultMixin
 
 SELECTION_CAUTION = (
@@ -163,6 +164,7 @@ class LensResult(RaterLookup, ResultMixin):
     criterion_selected: bool
     cautions: tuple[str, ...] = ()
     warnings: tuple[str, ...] = ()
+    reduced_forms: tuple[str, ...] = ()
 
 
     @property
@@ -344,6 +346,7 @@ def lens_model(
     n_boot: int = 1000,
     rng: np.random.Generator | None = None,
     level: float = 0.95,
+    scale_down: bool = True,
 ) -> LensResult:
     r"""Lens model of every rater against a criterion, with judgment bootstrapping figures.
 
@@ -358,6 +361,9 @@ def lens_model(
     n_boot : case-bootstrap resamples for the intervals of r_a, G, C and R_e (0: none).
     rng : random generator of the bootstrap (default: a fixed seed, so repeated calls agree).
     level : confidence level of those intervals.
+    scale_down : above :data:`LENS_FULL_RESAMPLE_RATERS` raters with cases of their own
+        (not shared by a block of raters), fewer resamples for those raters
+        (:func:`lens_resamples`), stated in ``reduced_forms``; False: always ``n_boot``.
 
     Returns
     -------
@@ -394,8 +400,19 @@ def lens_model(
     composite, panel_unit = _unit_weight_composite(design, crit_by_row, env_rows, signs)
 
     with_crit = rows.subset(np.isfinite(crit_by_row[rows.design_row]))
+    blocks = shared_case_blocks(with_crit.design_row, with_crit.group, with_crit.n_raters)
+    alone = with_crit.n_raters - sum(b.size for b in blocks)
+    independent = lens_resamples(n_boot, alone) if scale_down else n_boot
+    reduced = []
+    if independent < n_boot:
+        reduced.append(f"The intervals of r_a, G, C and R_e (lens model) from {independent:,} resamples "
+                       f"instead of {n_boot:,} for the {alone:,} raters who do not read the same cases "
+                       f"as {SHARED_BLOCK_MIN_RATERS - 1} or more others, on this panel size.")
+        warnings.append(f"The lens intervals used {independent:,} resamples instead of {n_boot:,} for "
+                        f"{alone:,} raters to keep the run short (--full-extras uses all).")
     raters = _per_rater(with_crit, crit_by_row, composite, p, n_boot=n_boot,
-                        rng=np.random.default_rng(0) if rng is None else rng, level=level)
+                        rng=np.random.default_rng(0) if rng is None else rng, level=level,
+                        independent_resamples=independent)
     return LensResult(
         environment=environment,
         raters=raters,
@@ -404,7 +421,25 @@ def lens_model(
         criterion_selected=bool(criterion_selected),
         cautions=tuple(cautions),
         warnings=tuple(warnings),
+        reduced_forms=tuple(reduced),
     )
+
+
+#: Up to this many raters with cases of their own, their lens intervals use all resamples.
+LENS_FULL_RESAMPLE_RATERS = 500
+#: Above it (unless the full form is asked for), those raters x resamples is held to this...
+LENS_RESAMPLE_WORK = LENS_FULL_RESAMPLE_RATERS * 1000
+#: ... with never fewer resamples than this (coverage in benchmarks/bench_lens_intervals.py).
+LENS_MIN_RESAMPLES = 250
+
+
+def lens_resamples(n_boot: int, n_raters: int) -> int:
+    """Resamples for the raters with cases of their own: as asked up to
+    :data:`LENS_FULL_RESAMPLE_RATERS` of them, then raters x resamples held to
+    :data:`LENS_RESAMPLE_WORK`, never under :data:`LENS_MIN_RESAMPLES` (nor over the ask)."""
+    if n_raters <= LENS_FULL_RESAMPLE_RATERS:
+        return n_boot
+    return min(n_boot, max(LENS_MIN_RESAMPLES, LENS_RESAMPLE_WORK // n_raters))
 
 
 def _criterion_by_design_row(design: CueDesign, criterion: pd.Series) -> np.ndarray:
@@ -506,7 +541,7 @@ def _lens_parts(stats, p: int) -> dict[str, np.ndarray]:
 
 def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarray,
                p: int, *, n_boot: int, rng: np.random.Generator,
-               level: float) -> tuple[RaterLens, ...]:
+               level: float, independent_resamples: int | None = None) -> tuple[RaterLens, ...]:
     G = rows.n_raters
     crit = crit_by_row[rows.design_row]
     Z = np.column_stack([rows.X, rows.y, crit, composite[rows.design_row]])
@@ -518,7 +553,9 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
     S = stats.sscp
     with np.errstate(invalid="ignore", divide="ignore"):
         unit = S[:, yu, yc] / np.sqrt(S[:, yu, yu] * S[:, yc, yc])
-    intervals = lens_intervals(Z[:, :p + 2], rows.group, G, p, n_boot=n_boot, rng=rng, level=level)
+    intervals = lens_intervals(Z[:, :p + 2], rows.group, G, p, n_boot=n_boot, rng=rng, level=level,
+                               case=rows.design_row, independent_resamples=independent_resamples)
+    resamples_of = intervals.pop("n_boot")
     loo = leave_one_out_predictions(rows.X, rows.y, rows.group, G)
     usable = np.isfinite(loo)
     pair = grouped_sscp(np.column_stack([loo[usable], crit[usable], rows.y[usable]]),
@@ -574,7 +611,7 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
             summary=_bootstrap_sentence(verdict, float(vals["r_a"]), float(vals["cv"])),
             **bounds,
             interval_level=float(level),
-            n_boot=int(n_boot),
+            n_boot=int(resamples_of[i]),
             cases_per_term=per_term,
             small_sample=small,
             small_sample_note=small_sample_sentence(int(n[i]), p) if small else None,
@@ -587,26 +624,216 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
 _CHUNK_FLOATS = 4_000_000
 
 
+#: Raters reading exactly the same cases share one set of resamples when at least this
+#: many of them do (fewer: the per-rater path, whose batch over raters is cheaper).
+SHARED_BLOCK_MIN_RATERS = 8
+
+
 def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n_boot: int,
-                   rng: np.random.Generator, level: float = 0.95) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+                   rng: np.random.Generator, level: float = 0.95,
+                   case: np.ndarray | None = None,
+                   independent_resamples: int | None = None) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """BCa case-bootstrap intervals of r_a, G, C and R_e for every rater at once.
 
     ``Z`` holds ``[cues..., judgment, criterion]`` per row, ``group`` the rater of each
-    row. A resample is a vector of counts over a rater's own cases (drawn with
-    replacement); the sums of every (rater, resample) come from one batched matrix
-    product of the counts with a table of per-case terms, and the two models of every
-    (rater, resample) from one batched solve (:func:`_lens_parts`). The jackknife for the
-    BCa acceleration is the same product with count vectors of ones and one zero.
+    row, ``case`` (optional) the case of each row. A resample is a vector of counts over
+    a rater's own cases (drawn with replacement).
+
+    Raters who read exactly the same cases (``case`` given, a block of at least
+    :data:`SHARED_BLOCK_MIN_RATERS`) share one set of resamples, drawn over the block's
+    cases: the resampled sums of the cues and the criterion are then the same for all of
+    them, so they and the cue model's inverse are computed once per resample, and only
+    the sums with the judgments per rater, as one matrix product of the counts
+    (resamples x cases) with the judgments' terms (cases x raters). The jackknife for the
+    acceleration takes one case off the full-sample sums. Each rater's resamples are
+    still a plain case bootstrap of that rater's cases; the raters' resamples are merely
+    not independent of each other, which no per-rater figure depends on.
+
+    Every other rater gets ``independent_resamples`` (default ``n_boot``) independent
+    resamples: the sums of every (rater, resample)
+    from one batched matrix product of the counts with a table of per-case terms, and
+    the two models of every (rater, resample) from one batched solve
+    (:func:`_lens_parts`); the jackknife takes each case's terms off the full sums.
 
     BCa rather than percentile because G and R_e are bounded by 1 and their sampling
     distributions are skewed near it; the bias correction and acceleration adjust for
     that (Efron 1987). Resamples whose refit is degenerate (a cue constant within the
     resample) are left out; fewer than 10 usable resamples give NaN.
-    Returns figure -> (low, high), each (n_groups,).
+    Returns figure -> (low, high), each (n_groups,), and ``"n_boot"`` -> the resamples
+    of each rater (n_groups,).
     """
     nan = np.full(n_groups, np.nan)
+    independent = n_boot if independent_resamples is None else int(independent_resamples)
+    blocks = shared_case_blocks(case, group, n_groups) if case is not None else []
+    in_block = np.zeros(n_groups, dtype=bool)
+    for members in blocks:
+        in_block[members] = True
+    resamples_of = np.where(in_block, n_boot, independent)
     if n_boot <= 0 or len(Z) == 0:
-        return {k: (nan, nan) for k in INTERVAL_FIGURES}
+        return {**{k: (nan, nan) for k in INTERVAL_FIGURES}, "n_boot": np.zeros(n_groups, dtype=int)}
+    if not blocks:
+        return {**_per_rater_intervals(Z, group, n_groups, p, n_boot=independent, rng=rng, level=level),
+                "n_boot": resamples_of}
+    out = {k: (nan.copy(), nan.copy()) for k in INTERVAL_FIGURES}
+    out["n_boot"] = resamples_of
+    rest = np.flatnonzero(~in_block)
+    if rest.size and independent > 0:
+        # The raters outside the blocks first, so that their draws are those of a panel
+        # without blocks.
+        local = np.full(n_groups, -1, dtype=np.intp)
+        local[rest] = np.arange(rest.size)
+        keep = ~in_block[group]
+        part = _per_rater_intervals(Z[keep], local[group[keep]], rest.size, p, n_boot=independent,
+                                    rng=rng, level=level)
+        for k in INTERVAL_FIGURES:
+            out[k][0][rest], out[k][1][rest] = part[k]
+    for members in blocks:
+        part = _block_intervals(Z, group, case, members, p, n_boot=n_boot, rng=rng, level=level)
+        for k in INTERVAL_FIGURES:
+            out[k][0][members], out[k][1][members] = part[k]
+    return out
+
+
+def shared_case_blocks(case: np.ndarray, group: np.ndarray, n_groups: int,
+                       min_raters: int = SHARED_BLOCK_MIN_RATERS) -> list[np.ndarray]:
+    """Raters (sorted arrays of group numbers) who read exactly the same set of cases, one
+    array per set read by at least ``min_raters`` raters, in the order of their first rater."""
+    if len(group) == 0:
+        return []
+    sizes = np.bincount(group, minlength=n_groups)
+    order = np.lexsort((case, group))
+    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    slot = np.arange(order.size) - starts[group[order]]
+    padded = np.full((n_groups, int(sizes.max())), -1, dtype=np.int64)
+    padded[group[order], slot] = case[order]
+    _, first, which, count = np.unique(padded, axis=0, return_index=True, return_inverse=True,
+                                       return_counts=True)
+    which = np.asarray(which).ravel()
+    blocks = [np.flatnonzero(which == b) for b in np.argsort(first, kind="stable")
+              if count[b] >= min_raters and sizes[first[b]] > 0]
+    return blocks
+
+
+def _block_intervals(Z: np.ndarray, group: np.ndarray, case: np.ndarray, members: np.ndarray,
+                     p: int, *, n_boot: int, rng: np.random.Generator,
+                     level: float) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """:func:`lens_intervals` for raters who all read the same cases: one set of resamples."""
+    G = members.size
+    local = np.full(int(group.max()) + 1, -1, dtype=np.intp)
+    local[members] = np.arange(G)
+    keep = local[group] >= 0
+    rows = np.flatnonzero(keep)[np.lexsort((case[keep], local[group[keep]]))]
+    n = rows.size // G
+    # Case i of every rater sits in row i of each column: (cases, raters).
+    X = Z[rows[:n], :p]
+    crit = Z[rows[:n], p + 1]
+    Y = Z[rows, p].reshape(G, n).T
+    sums = _BlockTerms(X, crit, Y)
+    estimate = sums.parts(np.ones((1, n)), p)
+    boot = {k: np.empty((n_boot, G)) for k in INTERVAL_FIGURES}
+    per_chunk = max(1, _CHUNK_FLOATS // max(G * (p + 3), n, 1))
+    for b0 in range(0, n_boot, per_chunk):
+        nb = min(per_chunk, n_boot - b0)
+        pick = np.floor(rng.random((nb, n)) * n).astype(np.intp)
+        counts = np.bincount((np.arange(nb)[:, None] * n + pick).ravel(),
+                             minlength=nb * n).reshape(nb, n).astype(float)
+        parts = sums.parts(counts, p)
+        for k in INTERVAL_FIGURES:
+            boot[k][b0:b0 + nb] = parts[k]
+    jack = {k: np.empty((n, G)) for k in INTERVAL_FIGURES}
+    per_jack = max(1, _CHUNK_FLOATS // max(G * (p + 3), 1))
+    for i0 in range(0, n, per_jack):
+        parts = sums.parts_without(np.arange(i0, min(i0 + per_jack, n)), p)
+        for k in INTERVAL_FIGURES:
+            jack[k][i0:i0 + per_jack] = parts[k]
+    out = {}
+    for k in INTERVAL_FIGURES:
+        est = np.where(estimate["ok"][0], estimate[k][0], np.nan)
+        jk = np.where(np.isfinite(jack[k]).any(axis=0), jack[k], 0.0)
+        out[k] = bca_interval(est, boot[k], jk, alpha=1.0 - level)
+    return out
+
+
+class _BlockTerms:
+    """Per-case terms of a block of raters on the same cases, centred at the full-sample
+    means (the cues and criterion at theirs, each rater's judgments at the rater's), so the
+    weighted sums lose no digits; :meth:`parts` turns count vectors into the lens figures."""
+
+    def __init__(self, X: np.ndarray, crit: np.ndarray, Y: np.ndarray):
+        n, p = X.shape
+        self.n_cases, self.p, self.n_raters = n, p, Y.shape[1]
+        W = np.column_stack([X, crit])
+        Wc = W - W.mean(axis=0)
+        Yc = Y - Y.mean(axis=0)
+        iu, ju = np.triu_indices(p + 1)
+        self.iu, self.ju = iu, ju
+        # Shared: [w, w_i w_j (i <= j)] for w = [cues..., criterion].
+        self.shared = np.column_stack([Wc, Wc[:, iu] * Wc[:, ju]])
+        # Per rater, laid out (cases, term * raters): y, y^2, y * w_j.
+        self.rater = np.concatenate([Yc, Yc * Yc, (Wc[:, :, None] * Yc[:, None, :]).reshape(n, -1)],
+                                    axis=1)
+
+    def parts(self, counts: np.ndarray, p: int) -> dict[str, np.ndarray]:
+        return self._parts(counts.sum(axis=1), counts @ self.shared, counts @ self.rater, p)
+
+    def parts_without(self, cases: np.ndarray, p: int) -> dict[str, np.ndarray]:
+        """The figures with each of ``cases`` left out in turn (the full sums minus its terms)."""
+        full_shared = self.shared.sum(axis=0)
+        full_rater = self.rater.sum(axis=0)
+        n = np.full(cases.size, self.n_cases - 1.0)
+        return self._parts(n, full_shared - self.shared[cases], full_rater - self.rater[cases], p)
+
+    def _parts(self, n: np.ndarray, shared: np.ndarray, rater: np.ndarray, p: int):
+        """The lens figures (N, raters) from weighted sums of N count vectors, with the same
+        rank rule and formulas as :func:`_lens_parts` (the cue model's inverse, the
+        environment model and the criterion's sums once per count vector)."""
+        N, G, q = n.size, self.n_raters, p + 1
+        iu, ju = self.iu, self.ju
+        sw = shared[:, :q]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift_w = sw / n[:, None]
+            W = np.empty((N, q, q))
+            prod = shared[:, q:] - n[:, None] * shift_w[:, iu] * shift_w[:, ju]
+            W[:, iu, ju] = prod
+            W[:, ju, iu] = prod
+            diag = np.arange(q)
+            W[:, diag, diag] = np.maximum(W[:, diag, diag], 0.0)
+            sy = rater[:, :G]
+            shift_y = sy / n[:, None]
+            Syy = np.maximum(rater[:, G:2 * G] - n[:, None] * shift_y * shift_y, 0.0)
+            Swy = rater[:, 2 * G:].reshape(N, q, G) - n[:, None, None] * shift_w[:, :, None] * shift_y[:, None, :]
+        Sxx, Sxc, Scc = W[:, :p, :p], W[:, :p, p], W[:, p, p]
+        Sxy, Syc = Swy[:, :p, :], Swy[:, p, :]
+        # The environment model once per count vector; its inverse (and rank rule) is the
+        # judge model's too, as in _lens_parts.
+        env = ols_from_sscp(GroupedSSCP(n=n, mean=np.zeros((N, q)), sscp=W), np.arange(p), p)
+        rank_ok, b_e = env.rank_ok, env.coef
+        b_s = np.matmul(env.xtx_inv, Sxy)
+        env_rss = env.rss
+        with np.errstate(invalid="ignore", divide="ignore"):
+            judge_rss = np.where(rank_ok[:, None], np.maximum(Syy - np.einsum("npg,npg->ng", b_s, Sxy), 0.0),
+                                 np.nan)
+            Sxx_b_s = np.matmul(Sxx, b_s)
+            explained_s = np.einsum("npg,npg->ng", b_s, Sxx_b_s)
+            explained_e = np.einsum("gi,gij,gj->g", b_e, Sxx, b_e)[:, None]
+            shared_fit = np.einsum("npg,np->ng", Sxx_b_s, b_e)
+            Scc_ = Scc[:, None]
+            r_a = Syc / np.sqrt(Syy * Scc_)
+            r_s = np.sqrt(np.clip(explained_s / Syy, 0.0, 1.0))
+            r_e = np.sqrt(np.clip(explained_e / Scc_, 0.0, 1.0))
+            g = shared_fit / np.sqrt(explained_s * explained_e)
+            residual_cov = Syc - np.einsum("npg,np->ng", b_s, Sxc) \
+                - np.einsum("np,npg->ng", b_e, Sxy) + shared_fit
+            exact = (judge_rss <= 1e-12 * Syy) | (env_rss <= 1e-12 * Scc)[:, None]
+            c = np.where(exact, np.nan, residual_cov / np.sqrt(judge_rss * env_rss[:, None]))
+        r_e = np.broadcast_to(r_e, (N, G))
+        ok = rank_ok[:, None] & (Syy > 0) & (Scc_ > 0)
+        return {"r_a": r_a, "g": g, "c": c, "r_e": r_e, "r_s": r_s, "ok": ok}
+
+
+def _per_rater_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n_boot: int,
+                         rng: np.random.Generator, level: float) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """:func:`lens_intervals` with independent resamples for every rater."""
     sizes = np.bincount(group, minlength=n_groups)
     terms, means = _case_terms(Z, group, n_groups, sizes)
     n_max = terms.shape[1]
@@ -620,12 +847,18 @@ def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n
         where = np.broadcast_to(live[:, None, :], pick.shape)
         flat = (np.arange(n_groups)[:, None, None] * nb + np.arange(nb)[None, :, None]) * n_max + pick
         counts = np.bincount(flat[where], minlength=n_groups * nb * n_max).reshape(n_groups, nb, n_max)
-        parts = _lens_parts(_sscp_from_counts(counts.astype(float), terms, means), p)
+        parts = _interval_figures(np.matmul(counts.astype(float), terms), p)
         for k in INTERVAL_FIGURES:
             boot[k][b0:b0 + nb] = parts[k].reshape(n_groups, nb).T
-    # Jackknife: count vectors of ones with the left-out case at zero, padding at zero.
-    jack_counts = np.broadcast_to(live[:, None, :], (n_groups, n_max, n_max)) & ~np.eye(n_max, dtype=bool)
-    jack_parts = _lens_parts(_sscp_from_counts(jack_counts.astype(float), terms, means), p)
+    # Jackknife: the full sums less each case's terms (padding slots: the full sums,
+    # masked below), a block of raters at a time to bound memory.
+    jack_parts = {k: np.empty((n_groups, n_max)) for k in INTERVAL_FIGURES}
+    per_block = max(1, _CHUNK_FLOATS // (n_max * terms.shape[2]))
+    for g0 in range(0, n_groups, per_block):
+        block = terms[g0:g0 + per_block]
+        parts = _interval_figures(block.sum(axis=1)[:, None, :] - block, p)
+        for k in INTERVAL_FIGURES:
+            jack_parts[k][g0:g0 + per_block] = parts[k].reshape(-1, n_max)
     out = {}
     for k in INTERVAL_FIGURES:
         est = np.where(estimate["ok"], estimate[k], np.nan)
@@ -659,19 +892,81 @@ def _case_terms(Z: np.ndarray, group: np.ndarray, n_groups: int, sizes: np.ndarr
 def _sscp_from_counts(counts: np.ndarray, terms: np.ndarray, means: np.ndarray) -> GroupedSSCP:
     """Weighted SSCP of every (rater, count vector): counts (G, N, n_max) -> N*G groups in
     rater-major order (group g * N + j)."""
-    G, N, _ = counts.shape
+    return _sscp_from_sums(np.matmul(counts, terms), means)
+
+
+def _sscp_from_sums(sums: np.ndarray, means: np.ndarray) -> GroupedSSCP:
+    """:func:`_sscp_from_counts` from the weighted sums of the terms, (G, N, terms)."""
+    G, N, _ = sums.shape
     k = means.shape[1]
-    sums = np.matmul(counts, terms).reshape(G * N, -1)
+    sums = sums.reshape(G * N, -1)
     n = sums[:, 0]
     first = sums[:, 1:1 + k]
     iu, ju = np.triu_indices(k)
-    raw = np.empty((G * N, k, k))
-    raw[:, iu, ju] = sums[:, 1 + k:]
-    raw[:, ju, iu] = sums[:, 1 + k:]
+    # One gather of the upper-triangle sums into full matrices (two scattered writes cost
+    # several times more on millions of small matrices).
+    where = np.empty((k, k), dtype=np.intp)
+    where[iu, ju] = where[ju, iu] = 1 + k + np.arange(iu.size)
     with np.errstate(invalid="ignore", divide="ignore"):
         shift = first / n[:, None]
-        sscp = raw - n[:, None, None] * shift[:, :, None] * shift[:, None, :]
+        sscp = sums[:, where.ravel()].reshape(G * N, k, k)
+        sscp -= n[:, None, None] * shift[:, :, None] * shift[:, None, :]
     # A column constant in a resample can come out a rounding error below zero.
     diag = np.arange(k)
     sscp[:, diag, diag] = np.maximum(sscp[:, diag, diag], 0.0)
     return GroupedSSCP(n=n, mean=np.repeat(means, N, axis=0) + shift, sscp=sscp)
+
+
+def _interval_figures(sums: np.ndarray, p: int) -> dict[str, np.ndarray]:
+    """r_a, G, C and R_e of every (rater, count vector) from the weighted sums of the
+    per-case terms, (G, N, terms) -> (G * N,) each, as :func:`_lens_parts` gives them on
+    :func:`_sscp_from_sums`, at a fraction of the cost on millions of resamples.
+
+    With ``L`` the Cholesky factor of a resample's correlation-scaled cue matrix and
+    ``z_s``, ``z_e`` the cue-judgment and cue-criterion cross-products (scaled) times
+    ``L^-1``, the two models' explained sums are ``|z_s|^2`` and ``|z_e|^2`` and their
+    shared part ``z_s . z_e`` (``b_s' S_xx b_e``); the residual covariance is
+    ``S_yc - z_s . z_e``. No coefficients are needed. Full rank as in
+    ``ols_from_sscp``: decided for certain where a bound allows, and the few resamples
+    near the line go through :func:`_lens_parts` itself.
+    """
+    G, N, T = sums.shape
+    k = int(round((np.sqrt(8 * (T - 1) + 9) - 3) / 2))   # T = 1 + k + k (k + 1) / 2
+    ys, yc = p, p + 1
+    ST = np.ascontiguousarray(sums.reshape(G * N, T).T)  # (terms, groups): steps on contiguous rows
+    n = ST[0]
+    iu, ju = np.triu_indices(k)
+    where = np.empty((k, k), dtype=np.intp)
+    where[iu, ju] = where[ju, iu] = 1 + k + np.arange(iu.size)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = ST[1:1 + k] / n
+        S = ST[where.ravel()].reshape(k, k, -1) - n * shift[:, None, :] * shift[None, :, :]
+        diag = np.arange(k)
+        S[diag, diag] = np.maximum(S[diag, diag], 0.0)
+        Syy, Scc, Syc = S[ys, ys], S[yc, yc], S[ys, yc]
+        scale = np.sqrt(S[np.arange(p), np.arange(p)])
+        ok_scale = np.all(scale > 0, axis=0) & np.all(np.isfinite(scale), axis=0)
+        safe = np.where(ok_scale & np.isfinite(scale), scale, 1.0)
+        R = np.where(ok_scale, S[:p, :p] / (safe[:, None] * safe[None, :]), 0.0)
+    candidate = ok_scale & (n > p + 1)
+    M, sure = surely_full_rank_inverse_factor(R, candidate)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        z_s = (M * (S[:p, ys] / safe)[None]).sum(axis=1)
+        z_e = (M * (S[:p, yc] / safe)[None]).sum(axis=1)
+        explained_s = np.where(sure, (z_s * z_s).sum(axis=0), np.nan)
+        explained_e = np.where(sure, (z_e * z_e).sum(axis=0), np.nan)
+        shared = np.where(sure, (z_s * z_e).sum(axis=0), np.nan)
+        judge_rss = np.maximum(Syy - explained_s, 0.0)
+        env_rss = np.maximum(Scc - explained_e, 0.0)
+        out = {"r_a": Syc / np.sqrt(Syy * Scc),
+               "r_e": np.sqrt(np.clip(explained_e / Scc, 0.0, 1.0)),
+               "g": shared / np.sqrt(explained_s * explained_e)}
+        exact = (judge_rss <= 1e-12 * Syy) | (env_rss <= 1e-12 * Scc)
+        out["c"] = np.where(exact | ~sure, np.nan, (Syc - shared) / np.sqrt(judge_rss * env_rss))
+    near = np.flatnonzero(candidate & ~sure)
+    if near.size:
+        near_parts = _lens_parts(GroupedSSCP(n=n[near], mean=np.zeros((near.size, k)),
+                                             sscp=np.ascontiguousarray(S[:, :, near].transpose(2, 0, 1))), p)
+        for key in INTERVAL_FIGURES:
+            out[key][near] = near_parts[key][:]
+    return out

@@ -239,11 +239,11 @@ def test_batched_bootstrap_resamples_match_statsmodels_refits(monkeypatch):
     X = rng.normal(size=(cell.size, 2)) * [8, 1] + [70, 3]
     y = X @ [0.1, 0.5] + rng.normal(size=cell.size)
     seen = []
-    original = module._r_s_from
-    monkeypatch.setattr(module, "_r_s_from", lambda st, p: seen.append(original(st, p)) or seen[-1])
+    original = module._r_s_stack_last
+    monkeypatch.setattr(module, "_r_s_stack_last", lambda S, n, p: seen.append(original(S, n, p)) or seen[-1])
     module._bootstrap_r_s_change(np.column_stack([X, y]), cell, position, 6, 2, 4,
                                  np.random.default_rng(5), chunk=4)
-    batched = seen[0].reshape(4, 6)
+    batched = seen[0].reshape(6, 4).T   # the bootstrap lays the groups out cell by cell
     u = np.random.default_rng(5).random((4, 6, sizes.max()))
     worst = 0.0
     for b in range(4):
