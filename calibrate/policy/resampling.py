@@ -59,10 +59,10 @@ def share_interval_note(n_cases: int) -> str | None:
     """
     if n_cases >= SHARE_INTERVAL_FULL_COVERAGE_CASES:
         return None
-    return (f"With {n_cases} cases (under {SHARE_INTERVAL_FULL_COVERAGE_CASES}) the intervals "
-            "of the importance shares are rough: in simulations they held the true share "
-            "about 9 times in 10 for the most important cues rather than 95 in 100, because "
-            "those cues' shares tend to come out low with few cases.")
+    return (f"With {n_cases} cases (fewer than {SHARE_INTERVAL_FULL_COVERAGE_CASES}) these "
+            "shares are rough: in simulations their 95% intervals held the true share only "
+            "about 9 times in 10 for the most important cues, whose shares tend to come out "
+            "low with few cases.")
 
 
 def percentile_interval(
