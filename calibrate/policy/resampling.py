@@ -11,8 +11,8 @@ The importance shares get the plain percentile interval instead
 (:func:`percentile_interval`). A share is bounded below by 0 and a weak cue's
 estimate sits just above it; BCa's bias correction z0 then pulls the whole
 interval down past the truth (measured in ``benchmarks/bench_importance_resamples.py``:
-at 80 cases BCa covered 74-76% for a cue with a true share of .02 and missed it
-from below, the percentile interval 96-97%). The percentile interval needs no
+at 80 cases BCa covered 74-76% for a cue with a true share of .02, its intervals
+wholly under the truth; the percentile interval 96-97%). The percentile interval needs no
 jackknife, so the 2**k subset R^2 values are not computed for the n
 leave-one-out rows. Its remaining shortfall, the strongest cue's share under-estimated
 with few cases, is stated beside the shares (:func:`share_interval_note`).
@@ -43,10 +43,10 @@ from .importance import cue_importance, importance_shares, r2_from_correlations
 _CHUNK_ELEMENTS = 16_000_000
 #: Bound the floats of one stacked product of counts with per-case terms.
 _STACK_FLOATS = 4_000_000
-#: From this many cases the percentile intervals of the importance shares covered 93-97%
+#: From this many cases the percentile intervals of the importance shares covered 92-98%
 #: for every cue strength in the benchmark (1-7 with a ceiling and continuous judgments,
-#: 120, 150 and 200 cases); below it the strongest cues' intervals covered less
-#: (88-91% at 40 and 80 cases; DEVELOPERS.md, policies).
+#: 120 and 200 cases; mostly 93-97%); below it the strongest cue's intervals covered
+#: 89-92.5% at 40 and 80 cases (DEVELOPERS.md, "Importance-share intervals").
 SHARE_INTERVAL_FULL_COVERAGE_CASES = 120
 
 
