@@ -14,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from ..result_base import ResultMixin, jsonable
+from .resampling import share_interval_note
 
 
 @dataclass(frozen=True)
@@ -105,6 +106,8 @@ class RaterPolicy(ResultMixin):
             "structure": self.structure,
             "importance_ci": {c: list(v) for c, v in self.importance_ci.items()},
             "importance_method": self.importance_method,
+            "importance_interval_note": (share_interval_note(self.n_cases) if any(
+                np.isfinite(v).all() for v in self.importance_ci.values()) else None),
             "relative_weights_r2": self.relative_weights_r2,
             "cases_per_weight": self.cases_per_weight,
             "vif": self.vif,

@@ -307,6 +307,8 @@ class RaterReport:
             series.append(("rubric", rubric, RUBRIC))
         story.append(charts.weight_chart(cues, series, width=CONTENT_WIDTH))
         story.append(text(self.chart_caption(wording.shares_caption(shares)), SMALL))
+        if policy.importance_interval_note and not on_rubric_basis:
+            story.append(text(policy.importance_interval_note, SMALL))
         cutoff = self.entry.cutoff
         if cutoff is not None and cutoff.flagged and cutoff.cue is not None:
             story.append(text(cutoff_sentence(cutoff), NOTE))

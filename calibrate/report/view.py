@@ -148,6 +148,7 @@ class PolicyView:
     std_weights: dict[str, float | None]
     importance: dict[str, float | None]                    # shares of R², by cue
     look_again: tuple[CaseToRevisit, ...]
+    importance_interval_note: str | None = None            # the shares are rough with few cases
 
     @classmethod
     def read(cls, d: Mapping, path: str) -> PolicyView:
@@ -163,7 +164,8 @@ class PolicyView:
             intervals[term] = None if lo is None or hi is None else (lo, hi)
         return cls(r=_num(d, "r", path), weights=weights, weight_intervals=intervals,
                    std_weights=_numbers(_get(d, "std_weights", path), f"{path}.std_weights"),
-                   importance=_numbers(_get(d, "importance", path), f"{path}.importance"), look_again=cases)
+                   importance=_numbers(_get(d, "importance", path), f"{path}.importance"), look_again=cases,
+                   importance_interval_note=_optional_text(d.get("importance_interval_note")))
 
 
 @dataclass(frozen=True)

@@ -103,9 +103,8 @@ def _explicit_intervals(X, y, groups, fitted, case_row, seed, alpha=0.05):
         r_lo, r_hi = bca_interval(np.sqrt([r2]), np.sqrt([[b[0]] for b in boot]),
                                   np.sqrt([[j[0]] for j in jack]), alpha=alpha)
         boot_shares = np.array([importance_shares(b[1], b[0]) for b in boot])
-        jack_shares = np.array([importance_shares(j[1], j[0]) for j in jack])
-        s_lo, s_hi = bca_interval(importance_shares(imp, r2), boot_shares, jack_shares,
-                                  alpha=alpha)
+        # the shares get the percentile interval (numpy's default linear quantile)
+        s_lo, s_hi = np.quantile(boot_shares, [alpha / 2, 1 - alpha / 2], axis=0)
         expected[g] = (r2, imp, r_lo[0], r_hi[0], s_lo, s_hi)
     return expected
 
