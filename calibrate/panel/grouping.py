@@ -449,7 +449,7 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
                              stability.jaccard, warnings)
     for g in groups:
         if g.survives is False:
-            warnings.append(f"Group {g.group} does not survive resampling of cases "
+            warnings.append(f"Group '{g.group}' does not survive resampling of cases "
                             f"(mean Jaccard similarity {g.stability:.2f}, below "
                             f"{SURVIVAL_JACCARD}); treat it as unstable.")
 

@@ -148,3 +148,13 @@ def test_command_line_flags_stay_short_on_two_thousand_raters():
     assert _flag_lines([{"rater": "a", "phase": "all", "flags": []}], named_phases=False) == ["No rater was flagged."]
     only_data = _flag_lines([{"rater": "a", "phase": "all", "flags": ["few_cases"]}], named_phases=False)
     assert "Only data conditions" in only_data[-2]
+
+
+def test_every_unstable_group_shares_one_kind():
+    # On a 2,000-rater panel 90 groups failed the resampling check and, their labels being
+    # unquoted, each became a kind of its own (102 kinds in the data-quality section).
+    from calibrate.notes import analysis_note
+    texts = [f"Group '{g}' does not survive resampling of cases (mean Jaccard similarity 0.4{i}, "
+             "below 0.5); treat it as unstable." for i, g in enumerate(("A", "aa", "ZZ9"))]
+    kinds = {analysis_note("grouping", t, phase=None)["kind"] for t in texts}
+    assert kinds == {"grouping:group-does-not-survive-resampling-of"}
