@@ -96,8 +96,8 @@ TABLE_COLUMN_NOTES: dict[str, dict[str, str]] = {
     "policy_importance": {
         "importance": "Share (0 to 1) of the policy's R² that belongs to the cue; the shares of a rater "
                       "add up to 1.",
-        "ci_low": "Lower end of the BCa case-bootstrap 95% interval of the cue's share of R².",
-        "ci_high": "Upper end of the BCa case-bootstrap 95% interval of the cue's share of R².",
+        "ci_low": "Lower end of the percentile case-bootstrap 95% interval of the cue's share of R².",
+        "ci_high": "Upper end of the percentile case-bootstrap 95% interval of the cue's share of R².",
         "importance_r2": "The cue's part of R² (0 to R²) as general dominance weight (Budescu 1993): its "
                          "average added R² over all subsets of the other cues.",
         "relative_weight_r2": "The cue's part of R² as relative weight (Johnson 2000), a fast "
