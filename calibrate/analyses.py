@@ -172,9 +172,9 @@ def _warn_texts(phase: str | None, name: str, result) -> list[dict]:
     return out
 
 
-def _study_warnings(phase: str | None, name: str, texts) -> list[dict]:
-    """Notes of the audit itself (e.g. a reduced form on a large panel) as study warnings."""
-    return [analysis_note(name, t, phase=phase) for t in texts]
+def _reduced_form_warnings(phase: str | None, name: str, texts) -> list[dict]:
+    """The reduced forms an analysis ran in on a large panel, as study warnings."""
+    return [analysis_note(name, f"{t} (--full-extras runs it in full.)", phase=phase) for t in texts]
 
 
 def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed: int,
@@ -480,20 +480,16 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
                              ("cutoffs", a.cutoffs), ("drift", a.drift), ("rater_pairs", a.rater_pairs),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
-        # The grouping, drift and lens model warn of their own reductions (in their results'
-        # warnings); the policies', cut-off check's and agreement's are warned here under their
-        # own names; the left-out pair table is the audit's.
-        own = {"policies": list(a.policies.reduced_forms) if a.policies is not None else [],
-               "cutoffs": list(a.cutoffs.reduced_forms) if a.cutoffs is not None else [],
-               "agreement": list(a.agreement.reduced_forms) if a.agreement is not None else []}
-        self_warned = ((a.grouping.reduced_forms if a.grouping is not None else ())
-                       + (a.drift.reduced_forms if a.drift is not None else ())
-                       + (a.lens.reduced_forms if a.lens is not None else ()))
-        owned = [t for texts in own.values() for t in texts] + list(self_warned)
-        left_out = [t for t in panels[-1]["reduced_forms"] if t not in owned]
-        warnings += _study_warnings(ph.name, "grouping", left_out)
+        # Every reduced form is warned once, here, under the analysis that ran it (the results
+        # carry the sentences in ``reduced_forms``); what is left is the audit's own (the
+        # left-out pair table), warned under the grouping.
+        own = {name: list(result.reduced_forms) for name, result in
+               (("policies", a.policies), ("cutoffs", a.cutoffs), ("agreement", a.agreement),
+                ("lens", a.lens), ("drift", a.drift), ("grouping", a.grouping)) if result is not None}
+        owned = {t for texts in own.values() for t in texts}
+        own["grouping"] = own.get("grouping", []) + [t for t in panels[-1]["reduced_forms"] if t not in owned]
         for name, texts in own.items():
-            warnings += _study_warnings(ph.name, name, texts)
+            warnings += _reduced_form_warnings(ph.name, name, texts)
         _collect_tables(tables, ph, a, full_extras)
         if a.policies is not None:
             policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))

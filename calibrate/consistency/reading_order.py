@@ -391,8 +391,6 @@ def drift(
         reduced.append(f"The intervals of the change in R_s between the halves of the reading order "
                        f"(drift) from {used:,} resamples instead of {n_resamples:,} on this panel size "
                        f"({K:,} raters).")
-        notes.append(f"The R_s change intervals used {used:,} resamples instead of {n_resamples:,} to "
-                     f"keep the run short for {K:,} raters (--full-extras uses all).")
     if used > 0:
         ci_change = _bootstrap_r_s_change(Zh, cell, t, 2 * K, p, used, rng)
 

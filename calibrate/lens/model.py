@@ -408,8 +408,6 @@ def lens_model(
         reduced.append(f"The intervals of r_a, G, C and R_e (lens model) from {independent:,} resamples "
                        f"instead of {n_boot:,} for the {alone:,} raters who do not read the same cases "
                        f"as {SHARED_BLOCK_MIN_RATERS - 1} or more others, on this panel size.")
-        warnings.append(f"The lens intervals used {independent:,} resamples instead of {n_boot:,} for "
-                        f"{alone:,} raters to keep the run short (--full-extras uses all).")
     raters = _per_rater(with_crit, crit_by_row, composite, p, n_boot=n_boot,
                         rng=np.random.default_rng(0) if rng is None else rng, level=level,
                         independent_resamples=independent)

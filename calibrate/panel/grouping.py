@@ -403,8 +403,6 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         if scale_down:
             n_null = resample_budget(n_null, n_eligible, floor=50)
         if n_null < asked_null:
-            warnings.append(f"The number-of-groups test simulated {n_null} panels instead of "
-                            f"{asked_null} to keep the run short for {n_eligible} raters.")
             reduced.append(f"The number-of-groups test from {n_null} simulated panels instead "
                            f"of {asked_null} on this panel size ({n_eligible} raters).")
         chosen = min(n_eligible, 1)  # the rule below decides when two or more can be fitted
@@ -434,8 +432,6 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     if n_eligible >= 2:
         used_resamples = resample_budget(n_resamples, n_eligible) if scale_down else n_resamples
     if used_resamples < n_resamples and n_eligible >= 2:
-        warnings.append(f"Stability used {used_resamples} case resamples instead of "
-                        f"{n_resamples} to keep the run short for {n_eligible} raters.")
         reduced.append(f"Grouping stability from {used_resamples} case resamples instead of "
                        f"{n_resamples} on this panel size ({n_eligible} raters).")
     stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots, eligible,

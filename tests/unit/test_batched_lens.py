@@ -257,3 +257,21 @@ def test_lens_intervals_of_raters_on_their_own_cases_equal_a_per_rater_loop(bina
             for k, v in _lens_by_rows(Xr[pick], yr[pick], cr[pick]).items():
                 boot[k][b] = v
         _assert_bca_of_rater(got, r, boot, Xr, yr, cr)
+
+
+def test_every_reduced_form_is_warned_once_under_its_analysis(monkeypatch, tmp_path):
+    # Each analysis states its reduced forms in ``reduced_forms``; the audit warns each once
+    # (with the way back to the full form), not a second time in other words.
+    from calibrate.analyses import audit
+    from calibrate.consistency import reading_order as ro
+    from calibrate.data.demo import write_demo
+
+    monkeypatch.setattr(ro, "DRIFT_FULL_RESAMPLE_RATERS", 4)
+    monkeypatch.setattr(ro, "DRIFT_RESAMPLE_WORK", 14 * 150)
+    result = audit(write_demo(tmp_path / "demo").spec, n_boot=200).to_dict()
+    for panel in result["panels"]:
+        assert any("(drift) from" in t for t in panel["reduced_forms"])
+        for text in panel["reduced_forms"]:
+            said = [w for w in result["warnings"] if text in w["message"] and w["phase"] == panel["phase"]]
+            assert len(said) == 1 and "--full-extras" in said[0]["message"], text
+    assert not any("keep the run short" in w["message"] for w in result["warnings"])
