@@ -929,10 +929,13 @@ def comparison_cautions(*, has_control: bool, same_cases: bool, apart_metrics: l
         notes.append("The trained raters started worse than the controls on "
                      f"{_listing(started_worse)}: part of their gain there may be regression to the "
                      "mean (a rater who started low tends to read higher the next time by chance).")
-    if apart_metrics:
+    # The measures where the arms started apart in the other direction (those where the
+    # trained started worse are said above), in words rather than metric keys.
+    apart_only = [w for w in (METRIC_WORDS.get(m, m) for m in apart_metrics) if w not in (started_worse or ())]
+    if apart_only:
         notes.append("The trained raters started apart from the controls on "
-                     f"{', '.join(apart_metrics)}: part of their change may be regression to the mean; "
-                     "the ANCOVA estimate, which holds the starting value constant, is shown beside it.")
+                     f"{_listing(apart_only)}: part of their change may be regression to the mean; "
+                     "the estimate that holds the starting value constant (ANCOVA) is shown beside it.")
     if has_control and min(n_trained, n_control) < 5:
         notes.append(f"With {n_trained} trained and {n_control} control raters the training effect "
                      "is measured roughly; a wide interval is expected.")
