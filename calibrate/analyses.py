@@ -443,10 +443,12 @@ def audit(study: JudgmentTable | StudySpec | str | Path, *, seed: int | None = N
     seed : resampling seed; defaults to the spec's ``[study] seed``.
     n_boot : bootstrap resamples for the policy intervals.
     progress : optional callable taking a short step name (for a progress display).
-    full_extras : run the heavy extras in full on any panel size (grouping stability and
-        its simulated test with every resample asked, the pair-level grouping table on
-        any panel). By default large panels get a reduced form, stated in each panel's
-        ``reduced_forms``.
+    full_extras : run the heavy extras in full on any panel size (every reduced form README
+        "Large panels" lists: grouping stability and its simulated test, the pair-level
+        grouping table, the importance and curvature draws, the cut-off check's stopping
+        rule, the agreement's simulated panels and bootstrap, the drift and lens-model
+        resamples). By default large panels get a reduced form, stated in each panel's
+        ``reduced_forms`` and warned.
     """
     _check_options(seed, n_boot)
     table = study if isinstance(study, JudgmentTable) else load_study(study)

@@ -23,8 +23,9 @@ INDEX_FILE = "index.csv"
 
 
 #: results.json and policies.json are written without indentation above this many raters:
-#: results.json grows by about 12 KB a rater indented and 8 KB compact (measured at 400
-#: raters), so 2,000 raters stay under 25 MB, and the compact form is written by json's C
+#: results.json grows by about 18 KB a rater indented and 10-12 KB compact (DEVELOPERS.md,
+#: "Speed at scale": 4.6 MB compact at 400 raters, 19.5 MB at 2,000), so 2,000 raters stay
+#: under 25 MB, and the compact form is written by json's C
 #: encoder (2,000 raters: 0.37 s against 1.03 s indented; policies.json 0.12 s against
 #: 0.29 s and 4.7 MB against 9.3 MB). Smaller panels keep the indented form for reading.
 COMPACT_RESULTS_RATERS = 500

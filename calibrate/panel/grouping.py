@@ -252,7 +252,8 @@ def group_raters(
     first : DataFrame with columns ``rater``, ``case``, ``judgment`` (first judgments).
     rng : seed or Generator for the case resamples (same seed, same result).
     n_resamples : case resamples for stability (0 skips it). Large panels use fewer
-        (resamples x raters^2 is capped; the number used is reported and warned).
+        (resamples x raters^2 is capped; the number used is stated in ``reduced_forms``,
+        which the audit warns).
     threshold : R^2 that the side of a merge that suffers most must lose (as a share
         of its own spread of judgments) for the merge to count as joining different
         policies. Default 0.02.
@@ -261,8 +262,8 @@ def group_raters(
     n_groups : force this many groups (the chair overrules the rule); None: the rule.
     n_null : simulated one-policy panels for the number-of-groups test.
     scale_down : on large panels, fewer resamples and simulated panels than asked
-        (resamples x raters^2 is capped; each reduction is stated in ``reduced_forms``
-        and warned). False runs the full numbers on any panel size.
+        (resamples x raters^2 is capped; each reduction is stated in ``reduced_forms``,
+        which the audit warns). False runs the full numbers on any panel size.
 
     Returns
     -------

@@ -286,7 +286,7 @@ def _importance_resamples(n_boot: int, n_raters: int, scale_down: bool) -> tuple
     """Resamples behind the importance intervals, and the sentence saying so when fewer.
 
     The dominance weights of every resample are the largest part of the policy stage on
-    a large panel (2**k subsets per rater and resample); their BCa intervals from 250
+    a large panel (2**k subsets per rater and resample); their percentile intervals from 250
     resamples covered as those from 1,000 in ``benchmarks/bench_importance_resamples.py``.
     """
     if not scale_down or n_raters <= IMPORTANCE_FULL_UP_TO or n_boot <= IMPORTANCE_REDUCED_RESAMPLES:

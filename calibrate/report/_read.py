@@ -34,8 +34,9 @@ class ReportInput:
 
     results: dict
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)
-    # Figures that are the same in every rater's report (the panel's median weight shares),
-    # computed once per input rather than once per report; keyed by what they depend on.
+    # What is the same in every rater's report (the panel's median weight shares, the id
+    # pattern of the privacy check, the groups frame), computed once per input rather than
+    # once per report; keyed by what it depends on.
     shared_figures: dict = field(default_factory=dict, repr=False, compare=False)
 
     @cached_property

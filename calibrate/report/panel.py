@@ -333,8 +333,9 @@ class PanelReport:
         rows_in = self.conversation_rows()
         # one small paragraph for every phase's chance and reach lines: page 1 stays one page
         lines = self._chance_lines()
-        lines.append(f"The data-quality section lists {len(self.all_warnings())} note(s) from reading and "
-                     "fitting the data.")
+        kinds = len(group_notes(w.as_note() for w in self.view.warnings))
+        lines.append(f"The data-quality section gives {len(self.view.warnings)} note(s) from reading and "
+                     f"fitting the data, one line for each of their {kinds} kind(s).")
         chance = [text(" ".join(lines), SMALL)]
         if rows_in:
             by_rater = self.reasons_by_rater(rows_in)

@@ -909,13 +909,13 @@ def comparison_cautions(*, has_control: bool, same_cases: bool, apart_metrics: l
     notes = []
     if outcome_selected:
         notes.append("The outcome is known only for the cases that were selected (admitted), so r_a "
-                     "and G with the outcome are biased and rest on few cases per rater: read their "
+                     "and G with the outcome are biased and may rest on few cases per rater: read their "
                      "changes, and any gain credited on them, as a rough guide only.")
     if unequal_cases:
         notes.append(f"For {unequal_cases} rater(s) the number of cases differs by more than half "
                      "between phases: R_s reads higher with fewer cases, so its change is read on "
-                     "the adjusted R_s, which removes that bias; misallocation and the cue shares "
-                     "are not corrected, and part of their change may be the change in the number "
+                     "the adjusted R_s, which removes that bias; misallocation, the cue shares and "
+                     "G with the rubric are not corrected, and part of their change may be the change in the number "
                      "of cases.")
     if not has_control:
         notes.append("There is no control group: a change cannot be credited to the training alone; "
