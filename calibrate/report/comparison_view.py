@@ -145,6 +145,7 @@ class CueShiftView:
     trained: dict[str, float | None]
     control: dict[str, float | None] | None
     toward_rubric: bool | None
+    toward_tested: bool = True  # False: the paired test could not run (older files: assumed run)
 
 
 @dataclass(frozen=True)
@@ -216,7 +217,8 @@ def _read_panel(d: Mapping, path: str) -> PanelChangeView:
                 trained=_numbers(_get(_get(s, "trained", where), "values", f"{where}.trained"), f"{where}.trained"),
                 control=None if control is None else _numbers(_get(control, "values", f"{where}.control"),
                                                               f"{where}.control"),
-                toward_rubric=None if toward is None else bool(toward))
+                toward_rubric=None if toward is None else bool(toward),
+                toward_tested=bool(s.get("toward_tested", True)))
     detectable = None
     if d.get("detectable") is not None:
         detectable = {str(k): (_num(v, "per_rater", f"{path}.detectable.{k}", default=None),

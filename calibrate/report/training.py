@@ -334,7 +334,8 @@ def cue_shift(view: ComparisonView) -> list:
         trained={c: (shift[c].trained.get(first), shift[c].trained.get(last)) for c in cues},
         control=({c: ((shift[c].control or {}).get(first), (shift[c].control or {}).get(last)) for c in cues}
                  if has_control else None),
-        toward={c: shift[c].toward_rubric for c in cues}, first=first, last=last, width=CONTENT_WIDTH))
+        toward={c: shift[c].toward_rubric if shift[c].toward_tested else "untested" for c in cues},
+        first=first, last=last, width=CONTENT_WIDTH))
     if all(s.rubric_share is None for s in shift.values()):
         story.append(text("No rubric was given, so no direction toward it is shown.", SMALL))
     return story

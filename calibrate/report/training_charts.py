@@ -122,7 +122,7 @@ def _arrow(d: Drawing, xa: float, xb: float, y: float, trained: bool) -> None:
 def cue_shift_chart(cues: Sequence[str], *, rubric: Mapping[str, float | None],
                     trained: Mapping[str, tuple[float | None, float | None]],
                     control: Mapping[str, tuple[float | None, float | None]] | None,
-                    toward: Mapping[str, bool | None], first: str, last: str, width: float) -> Drawing:
+                    toward: Mapping[str, bool | str | None], first: str, last: str, width: float) -> Drawing:
     """One row per cue: the rubric's share (a diamond), the trained raters' mean share
     moving from ``first`` to ``last`` (solid arrow) and the controls' (dashed, below)."""
     row_h = 24.0 if control is not None else 16.0
@@ -184,9 +184,11 @@ def cue_shift_chart(cues: Sequence[str], *, rubric: Mapping[str, float | None],
         # The words test each trained rater's own distance to the rubric's share (paired), which
         # can shrink while the mean arrow barely moves (raters closing in from both sides).
         if _ok(r):
-            word = {True: "closer to it", False: "further from it"}.get(toward.get(cue), "no clear change")
+            said = toward.get(cue)
+            word = {True: "closer to it", False: "further from it", "untested": "not tested"}.get(
+                said, "no clear change")
             d.add(String(x1 + 8, y_t - 2.5, word, fontName=BASE_FONT, fontSize=LABEL_SIZE - 0.5,
-                         fillColor=INK if toward.get(cue) is not None else MUTED))
+                         fillColor=INK if isinstance(said, bool) else MUTED))
     return d
 
 

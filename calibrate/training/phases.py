@@ -754,15 +754,17 @@ def _panel_extras(figs: list[_PhaseFigures], phases: tuple[str, ...], trained: n
                     continue
                 entry[arm] = {"values": {ph: float(np.nanmean(f.shares[mask, c])) if mask.any() else math.nan
                                          for ph, f in zip(phases, figs)}}
-            toward = None
+            toward, tested = None, False
             if rubric_share is not None:
                 gap = [np.abs(f.shares[trained, c] - rubric_share[c]) for f in (figs[0], figs[-1])]
                 test = paired_tests(gap[1] - gap[0], confidence)
+                tested = bool(np.isfinite(test["ci_low"]) and np.isfinite(test["ci_high"]))
                 if np.isfinite(test["ci_high"]) and test["ci_high"] < 0:
                     toward = True
                 elif np.isfinite(test["ci_low"]) and test["ci_low"] > 0:
                     toward = False
             entry["toward_rubric"] = toward
+            entry["toward_tested"] = tested
             cue_shift[cue] = entry
     out["cue_shift"] = cue_shift
     return out

@@ -215,3 +215,16 @@ def test_an_interval_end_that_is_not_zero_never_prints_as_zero():
                                            "value_to": 0.7, "delta": 0.05, "ci_low": 0.002,
                                            "ci_high": 0.09, "verdict": "better"})
     assert "+0.002 to +0.09" in sentence
+
+
+def test_the_cue_shift_chart_says_not_tested_where_no_test_ran():
+    # "no clear change" is a test's verdict; a cue whose paired test could not run says so.
+    from reportlab.graphics.shapes import String
+
+    from calibrate.report.training_charts import cue_shift_chart
+    d = cue_shift_chart(["grades", "essay"], rubric={"grades": 0.3, "essay": 0.2},
+                        trained={"grades": (0.2, 0.25), "essay": (0.2, 0.2)}, control=None,
+                        toward={"grades": None, "essay": "untested"}, first="before", last="after",
+                        width=400)
+    words = [s.text for s in d.contents if isinstance(s, String)]
+    assert "no clear change" in words and "not tested" in words
