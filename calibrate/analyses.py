@@ -386,19 +386,21 @@ def _group_pairs_written(a: PhaseAnalyses, full_extras: bool) -> bool:
     return n > 0 and (full_extras or n <= GROUP_PAIRS_MAX_RATERS * (GROUP_PAIRS_MAX_RATERS - 1) // 2)
 
 
-def _reduced_forms(a: PhaseAnalyses, full_extras: bool) -> list[str]:
-    """Plain statements of every extra that ran in a reduced form on this panel size."""
-    out = list(a.policies.reduced_forms) if a.policies is not None else []
-    out += list(a.cutoffs.reduced_forms) if a.cutoffs is not None else []
-    out += list(a.grouping.reduced_forms) if a.grouping is not None else []
-    out += list(a.agreement.reduced_forms) if a.agreement is not None else []
-    out += list(a.drift.reduced_forms) if a.drift is not None else []
-    out += list(a.lens.reduced_forms) if a.lens is not None else []
+def _reduced_forms_by_analysis(a: PhaseAnalyses, full_extras: bool) -> dict[str, list[str]]:
+    """Plain statements of every extra that ran in a reduced form on this panel size, under
+    the analysis that ran it (results.json lists them; the audit warns each once)."""
+    out = {name: list(result.reduced_forms) for name, result in
+           (("policies", a.policies), ("cutoffs", a.cutoffs), ("grouping", a.grouping),
+            ("agreement", a.agreement), ("drift", a.drift), ("lens", a.lens)) if result is not None}
     if a.grouping is not None and a.grouping.n_pairs and not _group_pairs_written(a, full_extras):
-        out.append(f"How often each pair of raters shared a group ({a.grouping.n_pairs:,} pairs) "
-                   f"is left out of the tables on panels of more than {GROUP_PAIRS_MAX_RATERS} "
-                   "grouped raters; each group's stability is in results.json.")
+        out["grouping"].append(f"How often each pair of raters shared a group ({a.grouping.n_pairs:,} pairs) "
+                               f"is left out of the tables on panels of more than {GROUP_PAIRS_MAX_RATERS} "
+                               "grouped raters; each group's stability is in results.json.")
     return out
+
+
+def _reduced_forms(a: PhaseAnalyses, full_extras: bool) -> list[str]:
+    return [t for texts in _reduced_forms_by_analysis(a, full_extras).values() for t in texts]
 
 
 def _panel_entry(ph: PhaseData, a: PhaseAnalyses, connected: bool, full_extras: bool = False) -> dict:
@@ -482,15 +484,8 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
                              ("cutoffs", a.cutoffs), ("drift", a.drift), ("rater_pairs", a.rater_pairs),
                              ("homogeneity", a.homogeneity), ("grouping", a.grouping)):
             warnings += _warn_texts(ph.name, name, result)
-        # Every reduced form is warned once, here, under the analysis that ran it (the results
-        # carry the sentences in ``reduced_forms``); what is left is the audit's own (the
-        # left-out pair table), warned under the grouping.
-        own = {name: list(result.reduced_forms) for name, result in
-               (("policies", a.policies), ("cutoffs", a.cutoffs), ("agreement", a.agreement),
-                ("lens", a.lens), ("drift", a.drift), ("grouping", a.grouping)) if result is not None}
-        owned = {t for texts in own.values() for t in texts}
-        own["grouping"] = own.get("grouping", []) + [t for t in panels[-1]["reduced_forms"] if t not in owned]
-        for name, texts in own.items():
+        # Every reduced form is warned once, here, under the analysis that ran it.
+        for name, texts in _reduced_forms_by_analysis(a, full_extras).items():
             warnings += _reduced_form_warnings(ph.name, name, texts)
         _collect_tables(tables, ph, a, full_extras)
         if a.policies is not None:
