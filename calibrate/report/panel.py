@@ -735,7 +735,9 @@ class PanelReport:
         for phase, part in parts:
             chosen = self._most_urgent_first(part[part[flag_col].astype(bool)])
             level = next((p.files_change_level for p in self.view.panels if p.phase == phase), None)
-            story += self._files_part(phase, part, chosen, per_phase, has_chance, level)
+            # a phase whose chances could not be computed (no spread estimate) says nothing of them
+            chance_here = has_chance and bool(part["change_probability"].notna().any())
+            story += self._files_part(phase, part, chosen, per_phase, chance_here, level)
         story.append(text("Every file, ranked the same way (change_rank, change_probability, reasons), is in "
                           "the files table (tables/files.csv and the workbook's files sheet).", SMALL))
         return story
