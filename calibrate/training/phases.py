@@ -526,9 +526,9 @@ def _rater_changes(figs: list[_PhaseFigures], phases: tuple[str, ...], name: str
             else:
                 low, high, p = bootstrap_difference(fa.draws[key], fb.draws[key], confidence)
             diff = fb.draws[key] - fa.draws[key]
-            with np.errstate(invalid="ignore"):
-                spread = np.array([np.nanstd(d, ddof=1) if np.isfinite(d).sum() > 2 else np.nan
-                                   for d in diff])
+            enough = np.isfinite(diff).sum(axis=1) > 2
+            spread = np.full(G, np.nan)
+            spread[enough] = np.nanstd(diff[enough], axis=1, ddof=1)
             rows = [(low[i], high[i], p[i], detectable_change(spread[i])) for i in range(G)]
             if name == "r":
                 delta = fb.values["r_adjusted"] - fa.values["r_adjusted"]
