@@ -34,7 +34,7 @@ from ..data.cues import CueDesign
 from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError, DataProblem
 from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp, r_squared_from_sscp
-from ..policy.stacked import surely_full_rank_inverse_factor
+from ..policy.stacked import scaled_cue_factor
 from ..pvalues import holm_adjust
 from ..result_base import ResultMixin
 
@@ -171,15 +171,9 @@ def _r_s_stack_last(S: np.ndarray, n: np.ndarray, p: int, *, rcond: float = 1e-1
     ``r_squared_from_sscp`` itself for the few groups near the line.
     """
     Syy = S[p, p]
-    scale = np.sqrt(S[np.arange(p), np.arange(p)])                     # (p, groups)
-    ok_scale = np.all(scale > 0, axis=0) & np.all(np.isfinite(scale), axis=0)
-    candidate = ok_scale & (n > p + 1)
-    safe = np.where(ok_scale, scale, 1.0)
+    inverse, sure, safe, candidate = scaled_cue_factor(S, n, p, rcond)
     with np.errstate(invalid="ignore", divide="ignore"):
-        R = np.where(ok_scale, S[:p, :p] / (safe[:, None] * safe[None, :]), 0.0)
         r = S[:p, p] / (safe * np.sqrt(Syy))
-    inverse, sure = surely_full_rank_inverse_factor(R, candidate, rcond)
-    with np.errstate(invalid="ignore", divide="ignore"):
         z = (inverse * r[None, :, :]).sum(axis=1)
         r2 = np.where(sure & (Syy > 0), (z * z).sum(axis=0), np.nan)
     near = np.flatnonzero(candidate & ~sure)

@@ -51,7 +51,7 @@ from ..errors import DataError
 from ..policy.diagnostics import case_influence
 from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
 from ..policy.resampling import bca_interval
-from ..policy.stacked import surely_full_rank_inverse_factor
+from ..policy.stacked import scaled_cue_factor
 from ..result_base import ResultMixin
 
 SELECTION_CAUTION = (
@@ -942,12 +942,7 @@ def _interval_figures(sums: np.ndarray, p: int) -> dict[str, np.ndarray]:
         diag = np.arange(k)
         S[diag, diag] = np.maximum(S[diag, diag], 0.0)
         Syy, Scc, Syc = S[ys, ys], S[yc, yc], S[ys, yc]
-        scale = np.sqrt(S[np.arange(p), np.arange(p)])
-        ok_scale = np.all(scale > 0, axis=0) & np.all(np.isfinite(scale), axis=0)
-        safe = np.where(ok_scale & np.isfinite(scale), scale, 1.0)
-        R = np.where(ok_scale, S[:p, :p] / (safe[:, None] * safe[None, :]), 0.0)
-    candidate = ok_scale & (n > p + 1)
-    M, sure = surely_full_rank_inverse_factor(R, candidate)
+    M, sure, safe, candidate = scaled_cue_factor(S, n, p)
     with np.errstate(invalid="ignore", divide="ignore"):
         z_s = (M * (S[:p, ys] / safe)[None]).sum(axis=1)
         z_e = (M * (S[:p, yc] / safe)[None]).sum(axis=1)

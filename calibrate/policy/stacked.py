@@ -52,3 +52,25 @@ def surely_full_rank_inverse_factor(R: np.ndarray, candidate: np.ndarray,
         trace = R[np.arange(R.shape[0]), np.arange(R.shape[0])].sum(axis=0)
         sure = candidate & np.isfinite(frobenius) & (1.0 / frobenius > rcond * trace)
     return M, sure
+
+
+def scaled_cue_factor(S: np.ndarray, n: np.ndarray, p: int,
+                      rcond: float = 1e-12) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The correlation-scaled cue system of every group of ``S`` (k, k, groups), the
+    groups' centred SSCPs stacked last, with the cues in columns 0..p-1.
+
+    Returns ``(M, sure, scale, candidate)``: ``M = L^-1`` of the scaled cue matrix where
+    full rank is certain (``sure``, :func:`surely_full_rank_inverse_factor`); ``scale``
+    each cue's root sum of squares (1 where a cue is constant or not finite, so that
+    dividing by it is safe); ``candidate`` the groups with every cue varying and more
+    cases than terms, of which those not ``sure`` sit near the rank line and need the
+    careful path.
+    """
+    root = np.sqrt(S[np.arange(p), np.arange(p)])                      # (p, groups)
+    ok_scale = np.all(root > 0, axis=0) & np.all(np.isfinite(root), axis=0)
+    scale = np.where(ok_scale, root, 1.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        R = np.where(ok_scale, S[:p, :p] / (scale[:, None] * scale[None, :]), 0.0)
+    candidate = ok_scale & (n > p + 1)
+    M, sure = surely_full_rank_inverse_factor(R, candidate, rcond)
+    return M, sure, scale, candidate
