@@ -49,7 +49,7 @@ from ..data.cues import CueDesign
 from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError
 from ..policy.diagnostics import case_influence
-from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
+from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp, padded_layout
 from ..policy.resampling import bca_interval
 from ..policy.stacked import scaled_cue_factor
 from ..result_base import ResultMixin
@@ -872,10 +872,7 @@ def _case_terms(Z: np.ndarray, group: np.ndarray, n_groups: int, sizes: np.ndarr
     """Per rater, padded to the largest rater: the terms ``[1, z, z_i z_j (i <= j)]`` of each
     case with ``z`` centred at the rater's mean (so the sums lose no digits), and those means."""
     k = Z.shape[1]
-    order = np.argsort(group, kind="stable")
-    slot_group = group[order]
-    position = np.arange(len(order)) - np.concatenate([[0], np.cumsum(sizes)[:-1]])[slot_group]
-    n_max = int(sizes.max())
+    order, slot_group, position, _, n_max = padded_layout(group, n_groups)
     with np.errstate(invalid="ignore", divide="ignore"):
         means = np.stack([np.bincount(group, weights=Z[:, j], minlength=n_groups) for j in range(k)],
                          axis=1) / sizes[:, None]

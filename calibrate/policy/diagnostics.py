@@ -36,7 +36,7 @@ import numpy as np
 from scipy import special
 from scipy import stats as sps
 
-from .linalg import BatchedOLS, GroupedSSCP, grouped_products, grouped_sscp, ols_from_sscp
+from .linalg import BatchedOLS, GroupedSSCP, grouped_products, grouped_sscp, ols_from_sscp, padded_layout
 from .linear_nulls import LinearNull, fit_linear_null
 from .logistic import fit_logistic
 
@@ -217,15 +217,10 @@ class _SharedCueBlocks:
     """
 
     def __init__(self, X: np.ndarray, groups: np.ndarray, n_groups: int):
-        m, p = X.shape
-        sizes = np.bincount(groups, minlength=n_groups)
-        order = np.argsort(groups, kind="stable")
+        p = X.shape[1]
+        order, self.group, self.slot, sizes, longest = padded_layout(groups, n_groups)
         self.rows = order
-        self.group = groups[order]
-        starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-        self.slot = np.arange(m) - starts[self.group]
-        longest = max(int(sizes.max()), 1) if m else 1
-        self.shape = (n_groups, longest)
+        self.shape = (n_groups, max(longest, 1))
         self.n = sizes.astype(float)
         self.mask = np.zeros(self.shape)
         self.mask[self.group, self.slot] = 1.0

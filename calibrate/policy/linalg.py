@@ -100,6 +100,20 @@ def grouped_sscp(
 _PADDING_ALLOWANCE = 3
 
 
+def padded_layout(groups: np.ndarray, n_groups: int) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, int]:
+    """Where each row goes when every group's rows are laid out as a padded (groups,
+    longest) block: ``(order, sorted_groups, slot, sizes, longest)``; row ``order[i]``
+    goes to ``[sorted_groups[i], slot[i]]`` (stable, so rows keep their order within a
+    group), ``longest`` the largest group's size (0 without rows)."""
+    groups = np.asarray(groups, dtype=np.intp)
+    sizes = np.bincount(groups, minlength=n_groups)
+    order = np.argsort(groups, kind="stable")
+    sorted_groups = groups[order]
+    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    slot = np.arange(groups.size) - starts[sorted_groups]
+    return order, sorted_groups, slot, sizes, int(sizes.max()) if groups.size else 0
+
+
 def _sscp_by_blocks(Z, groups, n_groups, w, n, mean, sizes, longest) -> GroupedSSCP:
     """The same sums as the column-by-column path, as one batched matrix product.
 
@@ -107,11 +121,8 @@ def _sscp_by_blocks(Z, groups, n_groups, w, n, mean, sizes, longest) -> GroupedS
     so that the k*(k+1)/2 passes over the table become one ``matmul`` per group: about
     ten times fewer passes over memory with ten or so columns.
     """
-    m, k = Z.shape
-    order = np.argsort(groups, kind="stable")
-    sorted_groups = groups[order]
-    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-    slot = np.arange(m) - starts[sorted_groups]
+    k = Z.shape[1]
+    order, sorted_groups, slot, _, _ = padded_layout(groups, n_groups)
     weight = np.zeros((n_groups, longest))
     weight[sorted_groups, slot] = w[order]
     centred = np.zeros((n_groups, longest, k))   # padding slots stay exactly zero
@@ -133,12 +144,7 @@ def grouped_products(A: np.ndarray, groups: np.ndarray, n_groups: int) -> tuple[
     m, k = A.shape
     sums = np.stack([np.bincount(groups, weights=A[:, j], minlength=n_groups)
                      for j in range(k)], axis=1)
-    sizes = np.bincount(groups, minlength=n_groups)
-    longest = int(sizes.max()) if m else 0
-    order = np.argsort(groups, kind="stable")
-    sorted_groups = groups[order]
-    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-    slot = np.arange(m) - starts[sorted_groups]
+    order, sorted_groups, slot, _, longest = padded_layout(groups, n_groups)
     block = np.zeros((n_groups, longest, k))
     block[sorted_groups, slot] = A[order]
     products = np.matmul(np.swapaxes(block, 1, 2), block)

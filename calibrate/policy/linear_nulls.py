@@ -30,7 +30,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy import special
 
-from .linalg import grouped_sscp, ols_from_sscp
+from .linalg import grouped_sscp, ols_from_sscp, padded_layout
 from .logistic import fit_logistic
 
 NULL_KINDS = ("continuous", "rounded", "binary")
@@ -137,13 +137,9 @@ class _RowBlocks:
     """
 
     def __init__(self, W, y, groups, n_groups, *, scale_min, scale_max, step):
-        m, q = W.shape
-        sizes = np.bincount(groups, minlength=n_groups)
-        order = np.argsort(groups, kind="stable")
-        g_sorted = groups[order]
-        starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-        slot = np.arange(m) - starts[g_sorted]
-        longest = max(int(sizes.max()) if m else 1, 1)
+        q = W.shape[1]
+        order, g_sorted, slot, _, longest = padded_layout(groups, n_groups)
+        longest = max(longest, 1)
         self.W = np.zeros((n_groups, longest, q))
         self.W[g_sorted, slot] = W[order]
         self.lower = np.full((n_groups, longest), -np.inf)
