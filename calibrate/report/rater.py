@@ -210,7 +210,9 @@ class RaterReport:
             note = wording.repeats_note(x.repeats_mode, x.n_repeats, x.most_presentations,
                                         None if x.retest is None else x.retest.measure)
             if note:
-                where = f"In phase {x.phase}: " if x.phase and len(self.entries) > 1 else ""
+                # the first-two sentence is said once for every phase, so it names none
+                where = (f"In phase {x.phase}: " if x.phase and len(self.entries) > 1
+                         and x.repeats_mode == "all" else "")
                 story.append(text(where + note, SMALL))
                 if x.repeats_mode != "all":
                     break  # the first-two sentence is the same for every phase
