@@ -1,8 +1,8 @@
 """Size and coverage of the tests behind `calibrate compare` (figures in DEVELOPERS.md).
 
-Run: PYTHONPATH=. python benchmarks/bench_training.py [--quick] [--rs-only] [--size-pairs N]
-(--rs-only: part 2 alone; --size-pairs: rater pairs of phases for the size under no change
-in part 2, 500 by default)
+Run: PYTHONPATH=. python benchmarks/bench_training.py [--quick] [--rs-only] [--effect-only]
+[--size-pairs N] (--rs-only: part 2 alone; --effect-only: part 3 alone; --size-pairs: rater
+pairs of phases for the size under no change in part 2, 500 by default)
 
 1. Fisher z on two retest correlations with no true change: share of p < .05 over 2,000
    comparisons (1-7 ratings with a ceiling; 25 vs 40 pairs, and 12 vs 12).
@@ -14,9 +14,13 @@ in part 2, 500 by default)
    Wherry's adjusted R_s as `compare` reads it (each phase's interval on Fisher's z scale,
    combined by Zou's method), with the percentile interval of the difference of draws
    (the method before) and the raw R_s beside for 40 vs 120.
-3. Difference in differences (Welch t on per-rater changes in adjusted R_s): coverage of
-   the true effect over 200 simulated panels of 7 trained + 7 controls, and how often it
-   includes zero when there is only a practice effect shared by both arms (100 panels).
+3. The training effect on R_s, over 2,000 simulated panels of 7 trained + 7 controls per
+   design (1-7 with ceiling 60 vs 60 cases, few cases 25 vs 25, unequal 40 vs 120 and
+   120 vs 40, binary 80 vs 80): the difference in differences (Welch t on the per-rater
+   changes in adjusted R_s), the ANCOVA on raw R_s (compare before) and the ANCOVA on
+   adjusted R_s (compare now), on the same panels: coverage of the true effect, how often
+   the interval excludes zero when only a practice effect is shared by both arms, and the
+   same when the trained arm is the 7 raters who started lowest (regression to the mean).
 4. The smallest detectable change (2.80 x the SE of the change): a true change of that
    size is detected (p < .05) in about 80% of 500 simulated comparisons, for R_s (60 vs
    60 cases) and for a retest correlation (25 vs 40 pairs, Fisher z).
@@ -34,12 +38,12 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "unit"))
 
-from training_simulation import NOISE_GRID, judgments, population_rs, rows_for, rs_draws  # noqa: E402
+from training_simulation import NOISE_GRID, population_rs, rows_for, rs_draws  # noqa: E402
 
 from calibrate.lens.model import dependent_correlation_test  # noqa: E402
 from calibrate.training.panel_change import detectable_change, detectable_correlation_change  # noqa: E402
 from calibrate.training.phases import _policy_draws, wherry_adjusted_r  # noqa: E402
-from calibrate.training.tests_of_change import (bootstrap_difference,  # noqa: E402
+from calibrate.training.tests_of_change import (ancova_difference, bootstrap_difference,  # noqa: E402
                                                 correlation_bootstrap_difference, fisher_z_difference,
                                                 welch_difference)
 
@@ -145,30 +149,79 @@ def detectable_power(rng, runs, n_boot):
                       f"{truth_r:+.3f} detected in {hits / runs:.3f}")
 
 
-def panel_changes(rng, noise_a, noise_b, n):
-    """Per-rater point change in adjusted R_s, as compare reads it (no resamples needed
-    for the Welch route)."""
-    a, b = (_policy_draws(rows_for(rng, s, n), np.arange(len(s)), None, None, None, 1, rng)[0]["r_adjusted"][:, 0]
-            for s in (noise_a, noise_b))
-    return b - a
+def phase_rs(rng, noises, n, binary=False):
+    """(raw R_s, Wherry-adjusted R_s) of raters with these noise SDs on n cases each."""
+    out = _policy_draws(rows_for(rng, noises, n, binary=binary), np.arange(len(noises)), None, None, None,
+                        1, rng)[0]
+    return out["r"][:, 0], out["r_adjusted"][:, 0]
 
 
-def did(rng, panels, *, practice=0.85, training=0.7, n=60, per_arm=7):
-    pop = np.array([population_rs(s, n=60_000) for s in NOISE_GRID])
-    true_rs = lambda s: np.interp(s, NOISE_GRID, pop)  # noqa: E731
-    # Population mean changes over the rater distribution (noise SD uniform on 0.4-1.2).
+ARM_DESIGNS = (("1-7 ceiling", 60, 60, False), ("few cases", 25, 25, False),
+               ("unequal cases", 40, 120, False), ("unequal cases", 120, 40, False),
+               ("binary", 80, 80, True))
+
+
+def did(rng, panels, n_a, n_b, binary=False, *, practice=0.85, training=0.7, per_arm=7,
+        trained_started_worst=False):
+    """Difference in differences over simulated panels of ``per_arm`` trained + ``per_arm``
+    controls (noise SD uniform on 0.4-1.2; phase b multiplies it by ``practice`` for all and by
+    ``training`` too for the trained): Welch's t on the changes in adjusted R_s (as compare
+    reads them), the ANCOVA on raw R_s (compare before) and the ANCOVA on adjusted R_s (compare
+    now), each: (coverage of the true effect, share of intervals excluding zero, mean
+    estimate). ``trained_started_worst``: the trained arm is the ``per_arm`` raters of the
+    panel with the lowest R_s in phase a (regression to the mean; only practice then).
+    Returns (true effect, {method: (coverage, excludes zero, mean estimate)})."""
+    pop = np.array([population_rs(s, binary=binary, n=60_000) for s in NOISE_GRID])
+
+    def true_rs(s):
+        return np.interp(s, NOISE_GRID, pop)
+    # Population mean changes over the rater distribution; the truth is zero when the arms
+    # are chosen by their start (every rater then changes by practice alone).
     grid = np.linspace(0.4, 1.2, 401)
-    effect = (np.mean(true_rs(grid * practice * training) - true_rs(grid))
-              - np.mean(true_rs(grid * practice) - true_rs(grid)))
-    covered = zero_in = 0
-    for _ in range(panels):
-        s_t, s_c = rng.uniform(0.4, 1.2, per_arm), rng.uniform(0.4, 1.2, per_arm)
-        d_t = panel_changes(rng, s_t, s_t * practice * training, n)
-        d_c = panel_changes(rng, s_c, s_c * practice, n)
-        w = welch_difference(d_t, d_c)
-        covered += w["ci_low"] <= effect <= w["ci_high"]
-        zero_in += w["ci_low"] <= 0 <= w["ci_high"]
-    return effect, covered / panels, zero_in / panels
+    effect = 0.0 if trained_started_worst else (
+        np.mean(true_rs(grid * practice * training) - true_rs(grid))
+        - np.mean(true_rs(grid * practice) - true_rs(grid)))
+    k = 2 * per_arm
+    noise = rng.uniform(0.4, 1.2, (panels, k))
+    raw_a, adj_a = (v.reshape(panels, k) for v in phase_rs(rng, noise.ravel(), n_a, binary))
+    if trained_started_worst:
+        trained = np.zeros((panels, k), dtype=bool)
+        np.put_along_axis(trained, np.argsort(raw_a, axis=1)[:, :per_arm], True, axis=1)
+        factor = np.full((panels, k), practice)
+    else:
+        trained = np.arange(k)[None, :] < per_arm
+        trained = np.broadcast_to(trained, (panels, k))
+        factor = np.where(trained, practice * training, practice)
+    raw_b, adj_b = (v.reshape(panels, k) for v in phase_rs(rng, (noise * factor).ravel(), n_b, binary))
+    hits = {m: [0, 0, 0.0, 0] for m in ("Welch", "ANCOVA raw", "ANCOVA adjusted")}
+    for i in range(panels):
+        t, c = trained[i], ~trained[i]
+        arm = t.astype(float)
+        change = adj_b[i] - adj_a[i]
+        for m, out in (("Welch", welch_difference(change[t], change[c])),
+                       ("ANCOVA raw", ancova_difference(raw_a[i], raw_b[i], arm)),
+                       ("ANCOVA adjusted", ancova_difference(adj_a[i], adj_b[i], arm))):
+            if not np.isfinite(out["ci_low"]):
+                continue
+            h = hits[m]
+            h[0] += out["ci_low"] <= effect <= out["ci_high"]
+            h[1] += not (out["ci_low"] <= 0 <= out["ci_high"])
+            h[2] += out["estimate"]
+            h[3] += 1
+    return effect, {m: (h[0] / h[3], h[1] / h[3], h[2] / h[3]) for m, h in hits.items()}
+
+
+def did_part(rng, panels):
+    """Part 3: the training effect's Welch and ANCOVA intervals on the same simulated panels,
+    for each design: coverage of a true effect, excluding zero under practice alone (size),
+    and size when the trained are the raters who started worst (regression to the mean)."""
+    for label, n_a, n_b, binary in ARM_DESIGNS:
+        effect, alt = did(rng, panels, n_a, n_b, binary)
+        _, null = did(rng, panels, n_a, n_b, binary, training=1.0)
+        _, worst = did(rng, panels, n_a, n_b, binary, trained_started_worst=True)
+        line = [f"{m}: covered {alt[m][0]:.3f} (mean {alt[m][2]:+.3f}), size {null[m][1]:.3f}, "
+                f"started worst {worst[m][1]:.3f} (mean {worst[m][2]:+.3f})" for m in alt]
+        print(f"Training effect, {label} ({n_a} vs {n_b}), true {effect:+.3f}: " + " | ".join(line), flush=True)
 
 
 def rs_part(rng, scale, size_pairs):
@@ -194,11 +247,16 @@ def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--quick", action="store_true")
     parser.add_argument("--rs-only", action="store_true")
+    parser.add_argument("--effect-only", action="store_true")
     parser.add_argument("--size-pairs", type=int, default=500)
     args = parser.parse_args()
     rng = np.random.default_rng(20261202)
     scale = 5 if args.quick else 1
     t0 = time.perf_counter()
+    if args.effect_only:
+        did_part(rng, 2000 // scale)
+        print(f"({time.perf_counter() - t0:.0f} s)")
+        return
     if args.rs_only:
         rs_part(rng, scale, args.size_pairs // scale)
         print(f"({time.perf_counter() - t0:.0f} s)")
@@ -210,10 +268,7 @@ def main() -> None:
     rs_part(rng, scale, args.size_pairs // scale)
     boot = 1000 // scale
     print(detectable_power(rng, 500 // scale, boot))
-    effect, cover, _ = did(rng, 200 // scale)
-    print(f"Difference in differences (Welch), true effect {effect:+.3f}: covered {cover:.3f}")
-    _, _, zero_in = did(rng, 100 // scale, training=1.0)
-    print(f"Practice effect only: interval includes zero in {zero_in:.3f} of panels")
+    did_part(rng, 2000 // scale)
     print(f"({time.perf_counter() - t0:.0f} s)")
 
 

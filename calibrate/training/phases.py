@@ -575,29 +575,42 @@ def _rater_changes(figs: list[_PhaseFigures], phases: tuple[str, ...], name: str
 
 
 def _arm_effect(arms: dict, name: str, phases: tuple[str, ...], k: int, a: int, b: int,
-                confidence: float, comparable: bool, note: str | None) -> dict:
+                confidence: float, comparable: bool, note: str | None,
+                basis: dict | None = None) -> dict:
     """Trained minus controls on the changes of pair k (phases a -> b): Welch's t on the
-    per-rater changes, and the ANCOVA of the value at b on the value at a and the arm."""
+    per-rater changes, and the ANCOVA of the value at b on the value at a and the arm.
+
+    ``basis`` (rater -> {phase: value}) gives the values the changes are read on where they
+    are not the printed ``values`` (R_s: Wherry's adjusted R_s), so that the baseline
+    screen, the ANCOVA and Welch's t all measure one quantity."""
     def column(members, getter):
         return np.array([getter(m.metrics[name]) for m in members], dtype=float)
+
+    def value_at(members, phase):
+        if basis is None:
+            return column(members, lambda blk: blk["values"][phase])
+        return np.array([basis[m.rater][phase] for m in members], dtype=float)
     d_t = column(arms["trained"], lambda blk: blk["changes"][k].delta)
     d_c = column(arms["control"], lambda blk: blk["changes"][k].delta)
     welch = welch_difference(d_t, d_c, confidence)
-    base_t = column(arms["trained"], lambda blk: blk["values"][phases[a]])
-    base_c = column(arms["control"], lambda blk: blk["values"][phases[a]])
+    base_t = value_at(arms["trained"], phases[a])
+    base_c = value_at(arms["control"], phases[a])
     baseline = welch_difference(base_t, base_c, confidence)
     apart = bool(np.isfinite(baseline["p_value"]) and baseline["p_value"] < BASELINE_P)
     direction = BETTER.get(name)
     started_worse = bool(apart and direction is not None
                          and np.sign(baseline["estimate"]) == -direction)
-    final = np.concatenate([column(arms["trained"], lambda blk: blk["values"][phases[b]]),
-                            column(arms["control"], lambda blk: blk["values"][phases[b]])])
+    final = np.concatenate([value_at(arms["trained"], phases[b]), value_at(arms["control"], phases[b])])
     ancova = ancova_difference(np.concatenate([base_t, base_c]), final,
                                np.r_[np.ones(d_t.size), np.zeros(d_c.size)], confidence)
     se = ((welch["ci_high"] - welch["ci_low"]) / (2 * stats.t.ppf(0.5 + confidence / 2, welch["df"]))
           if np.isfinite(welch["df"]) else math.nan)
+    method = "Welch t on the per-rater changes"
+    if name == "r":
+        method += ("; these changes, the starting values compared between the arms and the ANCOVA "
+                   "are all of Wherry-adjusted R_s")
     return {"from": phases[a], "to": phases[b], **welch,
-            "method": "Welch t on the per-rater changes",
+            "method": method,
             "baseline_difference": baseline["estimate"], "baseline_p": baseline["p_value"],
             "arms_differ_at_baseline": apart, "trained_started_worse": started_worse,
             "ancova": ancova, "detectable": detectable_change(se, welch["df"]),
@@ -606,7 +619,11 @@ def _arm_effect(arms: dict, name: str, phases: tuple[str, ...], k: int, a: int, 
 
 def _panel(raters: list[RaterComparison], phases: tuple[str, ...], metrics: tuple[str, ...],
            has_control: bool, confidence: float, case_sets: list | None = None,
-           arms_alike: list[bool] | None = None) -> dict:
+           arms_alike: list[bool] | None = None, bases: dict | None = None) -> dict:
+    """The paired tests per arm and the training (and follow-up) effects. ``bases``: metric ->
+    rater -> {phase: value} for a metric whose changes are read on other values than the
+    printed ones (R_s: the adjusted R_s), passed to :func:`_arm_effect`."""
+    bases = bases or {}
     arms = {"trained": [r for r in raters if r.trained]}
     if has_control:
         arms["control"] = [r for r in raters if not r.trained]
@@ -643,11 +660,13 @@ def _panel(raters: list[RaterComparison], phases: tuple[str, ...], metrics: tupl
         if effects is not None:
             last = len(pairs) - 1
             effects[name] = _arm_effect(arms, name, phases, last, 0, len(phases) - 1, confidence,
-                                        *comparability(name, same[last] or arms_alike[0] and arms_alike[-1]))
+                                        *comparability(name, same[last] or arms_alike[0] and arms_alike[-1]),
+                                        basis=bases.get(name))
         if follow is not None:
             k = len(phases) - 2  # the last consecutive pair: end of training to follow-up
             follow[name] = _arm_effect(arms, name, phases, k, k, k + 1, confidence,
-                                       *comparability(name, same[k] or arms_alike[k] and arms_alike[k + 1]))
+                                       *comparability(name, same[k] or arms_alike[k] and arms_alike[k + 1]),
+                                       basis=bases.get(name))
     out = {"metrics": panel_metrics, "training_effect": effects}
     if len(phases) > 2:
         out["follow_up_effect"] = follow
@@ -1029,7 +1048,11 @@ def compare(table: JudgmentTable, *, seed: int | None = None, n_boot: int = 1000
     arms_alike = [bool(has_control) and _jaccard(_cases_of(table, ph, trained_names),
                                                  _cases_of(table, ph, control_names)) >= ARMS_SHARED_CASES
                   for ph in phases]
-    panel = _panel(raters, phases, metrics, has_control, confidence, case_sets, arms_alike)
+    # R_s's changes are of the adjusted R_s; the training effect's baseline and ANCOVA read the same.
+    adjusted_rs = {name: {ph: float(figs[k].values["r_adjusted"][i]) for k, ph in enumerate(phases)}
+                   for i, name in enumerate(matched)}
+    panel = _panel(raters, phases, metrics, has_control, confidence, case_sets, arms_alike,
+                   bases={"r": adjusted_rs})
     trained_mask = np.array([r.trained for r in raters], dtype=bool)
     panel.update(_panel_extras(figs, phases, trained_mask, has_control, rubric_share, cues, raters,
                                confidence))

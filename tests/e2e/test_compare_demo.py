@@ -230,3 +230,35 @@ def test_a_raters_own_report_and_the_training_report_give_the_same_change(tmp_pa
                                                                         same["verdict"])
                 checked += 1
     assert checked >= 14 * 3
+
+
+def test_the_rs_training_effect_reads_one_quantity_throughout(result, tmp_path):
+    # Welch's t, the baseline screen and the ANCOVA of R_s all read Wherry's adjusted R_s:
+    # recomputed here from the printed (raw) R_s, each rater's cases and the design's terms,
+    # the per-rater changes, the ANCOVA (statsmodels OLS) and the baseline difference agree.
+    import pandas as pd
+    import statsmodels.formula.api as smf
+
+    from calibrate.data.rows import line_up
+    from calibrate.training.phases import _fit_first, wherry_adjusted_r
+
+    table = load_study(write_demo(tmp_path / "d").spec)
+    adjusted = {}
+    for ph in table.phases:
+        first = _fit_first(table, ph)
+        terms = line_up(table.phase_design(ph), first).X.shape[1]
+        cases = first.groupby("rater").size()
+        adjusted[ph.name] = np.array([wherry_adjusted_r(r.metrics["r"]["values"][ph.name], cases[r.rater], terms)
+                                      for r in result.raters])
+    before, after = adjusted["before"], adjusted["after"]
+    deltas = np.array([r.metrics["r"]["changes"][0].delta for r in result.raters])
+    assert deltas == pytest.approx(after - before, abs=1e-12)
+    arm = np.array([r.trained for r in result.raters], dtype=float)
+    effect = result.panel["training_effect"]["r"]
+    fit = smf.ols("after ~ before + arm", pd.DataFrame({"after": after, "before": before, "arm": arm})).fit()
+    assert effect["ancova"]["estimate"] == pytest.approx(fit.params["arm"], rel=1e-9)
+    assert (effect["ancova"]["ci_low"], effect["ancova"]["ci_high"]) == pytest.approx(
+        tuple(fit.conf_int().loc["arm"]), rel=1e-9)
+    assert effect["baseline_difference"] == pytest.approx(before[arm == 1].mean() - before[arm == 0].mean(),
+                                                          rel=1e-9)
+    assert "Wherry-adjusted" in effect["method"]
