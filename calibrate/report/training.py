@@ -15,6 +15,7 @@ from xml.sax.saxutils import escape
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.platypus import CondPageBreak, PageBreak, Spacer, Table, TableStyle
 
+from ..formatting import signed
 from . import training_charts, wording
 from .comparison_view import ABSENT, ABSENT_REASON, ComparisonView, SeriesView
 from .layout import fitted_table
@@ -55,18 +56,6 @@ def _absent(section: str) -> list:
 
 
 # ----------------------------------------------------------------------------- words
-
-
-def signed(value: float | None, digits: int = 2, *, end: bool = False) -> str:
-    """A change as printed: '+0.12', '-0.05', '0.00'; 'n/a' when missing. An interval's
-    ``end`` that is not zero takes up to two more decimals rather than print as '0.00', so an
-    interval that excludes zero (and carries a verdict) never looks as if it touched it."""
-    if value is None:
-        return "n/a"
-    while end and value != 0 and digits < 4 and float(f"{value:.{digits}f}") == 0:
-        digits += 1
-    out = f"{value:+.{digits}f}"
-    return out[1:] if float(out) == 0 else out
 
 
 def _interval(lo, hi) -> str:

@@ -12,6 +12,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from ..formatting import fmt, signed
+
 # --------------------------------------------------------------------- bands
 
 
@@ -107,16 +109,6 @@ MIN_PANEL_FOR_PEERS = 5
 MIN_GROUP_FOR_PEERS = 3
 
 # ------------------------------------------------------------------ readings
-
-
-def fmt(value: float | None, digits: int = 2) -> str:
-    """A figure as printed: fixed decimals, a true minus sign avoided (Latin-1 fonts)."""
-    if value is None:
-        return "n/a"
-    text = f"{value:.{digits}f}"
-    if text.startswith("-") and float(text) == 0:
-        text = text[1:]
-    return text
 
 
 def term_words(term: str) -> str:
@@ -551,14 +543,6 @@ def flag_rank(flag: str) -> int:
     return len(CONVERSATION_ORDER)
 
 
-def _signed(value: float | None, digits: int = 2) -> str:
-    """A difference with its sign ('+0.12', '-0.05'); one that rounds to zero has none."""
-    if value is None:
-        return "n/a"
-    shown = fmt(value, digits)
-    return ("+" + shown) if value > 0 and float(shown) != 0 else shown
-
-
 def _interval(interval, digits: int = 2) -> str:
     if not interval:
         return ""
@@ -585,12 +569,12 @@ def flag_figure_text(figure) -> str:
         on = f" on {figure.about} repeated cases" if figure.about else ""
         return f"test-retest r = {fmt(v)}{_interval(figure.interval)}{on}"
     if m == "offset":
-        return f"offset {_signed(v)} scale points{_interval(figure.interval)}"
+        return f"offset {signed(v)} scale points{_interval(figure.interval)}"
     if m == "drift_level":
-        return (f"{_signed(v)} scale points from first to last file{_interval(figure.interval)}"
+        return (f"{signed(v)} scale points from first to last file{_interval(figure.interval)}"
                 + (f", {p}" if p else ""))
     if m == "drift_consistency":
-        return (f"R_s from the first half to the second {_signed(v)}{_interval(figure.interval)}"
+        return (f"R_s from the first half to the second {signed(v)}{_interval(figure.interval)}"
                 + (f", {p}" if p else ""))
     if m == "cutoff":
         at = f"{figure.about} = {fmt(v)}" if figure.about else f"{fmt(v)}"
@@ -751,7 +735,7 @@ def lens_panel_sentence(verdicts, gains=()) -> str:
     named = list(gains)[:2]
     if named:
         line += (" Largest gain: " if len(named) == 1 else " Largest gains: ") + ", ".join(
-            f"{r} {_signed(g)} ({fmt(lo)} to {fmt(hi)})" for r, g, lo, hi in named) + "."
+            f"{r} {signed(g)} ({fmt(lo)} to {fmt(hi)})" for r, g, lo, hi in named) + "."
     return line
 
 
@@ -853,8 +837,8 @@ def step_readers(k_now: float | None, reached_now: float | None, target: float |
             f"rise from {fmt(reached_now)} to {fmt(reached_at_needed)} (target {fmt(target)}).")
 
 
-def lens_number(value: float | None, signed: bool = False) -> str:
-    return _signed(value) if signed else fmt(value)
+def lens_number(value: float | None, with_sign: bool = False) -> str:
+    return signed(value) if with_sign else fmt(value)
 
 
 LENS_SECTION_INTRO = (

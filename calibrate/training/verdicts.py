@@ -19,6 +19,8 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 
+from ..formatting import fmt, signed
+
 # Which way is better for each metric; severity has none (it is relative to the panel), nor
 # has a cue's share (closer to the rubric may be up or down).
 BETTER = {"r": 1, "retest_r": 1, "r_a": 1, "g": 1, "g_rubric": 1, "misallocation": -1}
@@ -47,18 +49,6 @@ def change_word(metric: str, ci_low: float | None, ci_high: float | None) -> str
     if direction is None:
         return "higher" if up else "lower"
     return "better" if up == (direction > 0) else "worse"
-
-
-def signed(value: float | None, digits: int = 2, *, end: bool = False) -> str:
-    """A change as printed: '+0.12', '-0.05', '0.00'; 'n/a' when missing. An interval's
-    ``end`` that is not zero takes up to two more decimals rather than print as '0.00', so an
-    interval that excludes zero (and carries a verdict) never looks as if it touched it."""
-    if not _finite(value):
-        return "n/a"
-    while end and value != 0 and digits < 4 and float(f"{value:.{digits}f}") == 0:
-        digits += 1
-    out = f"{value:+.{digits}f}"
-    return out[1:] if float(out) == 0 else out
 
 
 def listing(items: Sequence[str]) -> str:
@@ -245,11 +235,8 @@ def rater_change_sentence(metric: str, change: Mapping) -> str:
     words = {"better": better, "worse": worse}.get(verdict, unclear) or f"{METRIC_WORDS.get(metric, metric)} changed"
     label = METRIC_LABELS.get(metric, metric)
 
-    def plain(v):
-        return f"{v:.2f}" if _finite(v) else "n/a"
-
-    out = (f"From {change.get('from')} to {change.get('to')}, {words}: {label} {plain(change.get('value_from'))} "
-           f"-> {plain(change.get('value_to'))}, change{ADJUSTED_NOTE if metric == 'r' else ''} "
+    out = (f"From {change.get('from')} to {change.get('to')}, {words}: {label} {fmt(change.get('value_from'))} "
+           f"-> {fmt(change.get('value_to'))}, change{ADJUSTED_NOTE if metric == 'r' else ''} "
            f"{signed(change.get('delta'))}, 95% interval "
            f"{signed(change.get('ci_low'), end=True)} to {signed(change.get('ci_high'), end=True)}.")
     if change.get("note"):

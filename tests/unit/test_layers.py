@@ -25,6 +25,7 @@ PACKAGE_DIR = Path(calibrate.__file__).resolve().parent
 #: Floors from the ground up; an import may reach any lower floor, never a higher one.
 FLOORS = {
     "errors": 0, "result_base": 0, "pvalues": 0, "safe_files": 0, "notes": 0, "at_a_glance": 0, "threads": 0,
+    "formatting": 0,
     "data": 1,
     "policy": 2,
     "consistency": 3, "agreement": 3, "lens": 3, "panel": 3,

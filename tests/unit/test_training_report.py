@@ -207,7 +207,8 @@ def test_a_slope_panel_over_a_narrow_range_still_labels_two_lines():
 def test_an_interval_end_that_is_not_zero_never_prints_as_zero():
     # A "better" change whose interval is [0.004, 0.09] must not read "[0.00, +0.09]".
     from calibrate.report.training import _interval
-    from calibrate.training.verdicts import rater_change_sentence, signed
+    from calibrate.formatting import signed
+    from calibrate.training.verdicts import rater_change_sentence
     assert _interval(0.004, 0.09) == "[+0.004, +0.09]"
     assert signed(-0.0003, end=True) == "-0.0003"
     assert signed(0.0, end=True) == "0.00"
