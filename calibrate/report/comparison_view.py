@@ -167,6 +167,7 @@ class PanelChangeView:
     groups: tuple[dict[str, int | None], tuple[MergeStep, ...]] | None
     cue_shift: dict[str, CueShiftView] | None
     detectable: dict[str, tuple[float | None, float | None]] | None   # metric -> (per rater, panel)
+    detectable_reading: dict[str, str] | None = None   # metric -> compare's words beside it
 
 
 ABSENT = object()   # a key comparison.json does not hold (unlike null: held, and empty)
@@ -219,14 +220,16 @@ def _read_panel(d: Mapping, path: str) -> PanelChangeView:
                                                               f"{where}.control"),
                 toward_rubric=None if toward is None else bool(toward),
                 toward_tested=bool(s.get("toward_tested", True)))
-    detectable = None
+    detectable = reading = None
     if d.get("detectable") is not None:
         detectable = {str(k): (_num(v, "per_rater", f"{path}.detectable.{k}", default=None),
                                _num(v, "panel", f"{path}.detectable.{k}", default=None))
                       for k, v in d["detectable"].items()}
+        reading = {str(k): str(v["reading"]) for k, v in d["detectable"].items() if v.get("reading") is not None}
     return PanelChangeView(metrics=metrics, training_effect=effect, follow_up_effect=follow,
                            agreement=agreement, same_cases=same_cases, convergence=convergence,
-                           groups=groups, cue_shift=shift, detectable=detectable)
+                           groups=groups, cue_shift=shift, detectable=detectable,
+                           detectable_reading=reading)
 
 
 @dataclass(frozen=True)

@@ -1,10 +1,12 @@
 """The training coordinator's report: training-report.pdf, read from comparison.json only.
 
 The first page answers "did it work, for whom, and does it last" in a sentence each. Every
-word (the answers, each change's verdict, which way is better) is read from comparison.json,
-where :mod:`calibrate.training.verdicts` wrote it from the intervals: nothing here decides a
-word, and a comparison.json without them shows the numbers alone. Sections whose figures a comparison.json does not hold are left out
-with one line saying so (:data:`calibrate.report.comparison_view.ABSENT_REASON`).
+word (the answers, each change's verdict, which way is better, the reading beside what the
+design could detect) is read from comparison.json, where :mod:`calibrate.training.verdicts`
+wrote it from the intervals: nothing here decides a word, and a comparison.json without them
+shows the numbers alone. Numbers are printed by :mod:`calibrate.formatting`, as in the
+verdict sentences. Sections whose figures a comparison.json does not hold are left out with
+one line saying so (:data:`calibrate.report.comparison_view.ABSENT_REASON`).
 """
 
 from __future__ import annotations
@@ -336,6 +338,7 @@ def detectable_table(view: ComparisonView) -> list:
     if detect is None:
         return story + _absent("The smallest detectable change")
     first, last = view.phases[0], view.phases[-1]
+    readings = view.panel.detectable_reading or {}
     rows = [[text(h, CELL_BOLD) for h in ("measure", "estimate [95% interval]", "one rater could detect",
                                            "the panel could detect", "reading")]]
     for m in view.metrics:
@@ -344,22 +347,8 @@ def detectable_table(view: ComparisonView) -> list:
         ch = e.change if e is not None else (view.panel.metrics.get(m, {}).get("trained").change(first, last)
                                              if "trained" in view.panel.metrics.get(m, {}) else None)
         est = "n/a" if ch is None else f"{signed(ch.delta)} {_interval(ch.ci_low, ch.ci_high)}"
-        word = None if ch is None else ch.verdict
-        if panel is None:
-            reading = "not computed"
-        elif word is None:
-            reading = f"could see a change of {wording.fmt(panel)} or larger"
-        elif word == "no clear change":
-            reading = (f"this design could only have seen a change of {wording.fmt(panel)} or larger; "
-                       "a smaller one may be hidden")
-        elif word == "mixed":
-            reading = (f"mixed: the difference in changes and the estimate allowing for the start disagree, "
-                       f"so no change is credited; this design could see a change of {wording.fmt(panel)} or larger")
-        elif ch.delta is not None and abs(ch.delta) < panel:
-            reading = (f"the change is clear ({word}), though smaller than the {wording.fmt(panel)} this "
-                       "design would see 80% of the time")
-        else:
-            reading = f"the change is clear ({word}) and as large as this design could see"
+        # compare's words (verdicts.detectable_reading); an older comparison.json has none
+        reading = readings.get(m, "n/a")
         rows.append([text(LABELS.get(m, m), CELL), text(est, CELL),
                      text("n/a" if per_rater is None else wording.fmt(per_rater), CELL),
                      text("n/a" if panel is None else wording.fmt(panel), CELL), text(reading, CELL)])
@@ -378,18 +367,23 @@ def follow_up(view: ComparisonView) -> list:
     end, later = view.phases[-2], view.phases[-1]
     story = [CondPageBreak(140), text(f"Does it last? {end} to {later}", HEADING)]
     effects = view.panel.follow_up_effect
-    rows = [[text(h, CELL_BOLD) for h in ("measure", "trained change", "control change" if view.has_control else "",
-                                           "trained minus controls" if view.has_control else "")]]
+    # Without a control group the table has no control or difference columns (empty ones
+    # had no width to lay out in, and the report could not be built).
+    arm_names = ("trained", "control") if view.has_control else ("trained",)
+    head = ("measure", "trained change") + (("control change", "trained minus controls")
+                                             if view.has_control else ())
+    rows = [[text(h, CELL_BOLD) for h in head]]
     for m in view.metrics:
         arms = view.panel.metrics.get(m, {})
         cells = [text(LABELS.get(m, m), CELL)]
-        for arm in ("trained", "control"):
+        for arm in arm_names:
             ch = arms[arm].change(end, later) if arm in arms else None
-            cells.append(text("" if ch is None else f"{signed(ch.delta)} {_interval(ch.ci_low, ch.ci_high)}",
-                              CELL))
-        e = None if effects in (ABSENT, None) else effects.get(m)
-        cells.append(text("" if e is None else f"{signed(e.change.delta)} "
-                          f"{_interval(e.change.ci_low, e.change.ci_high)}", CELL))
+            cells.append(text("" if ch is None else f"{signed(ch.delta)} {_interval(ch.ci_low, ch.ci_high)}"
+                              f"{_word(ch.verdict)}", CELL))
+        if view.has_control:
+            e = None if effects in (ABSENT, None) else effects.get(m)
+            cells.append(text("" if e is None else f"{signed(e.change.delta)} "
+                              f"{_interval(e.change.ci_low, e.change.ci_high)}{_word(e.change.verdict)}", CELL))
         rows.append(cells)
     story.append(fitted_table(rows, style=table_style(), repeatRows=1))
     if view.has_control and effects is ABSENT:

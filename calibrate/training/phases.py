@@ -47,7 +47,7 @@ from ..threads import available_cores
 from .panel_change import detectable_change, detectable_correlation_change
 from .tests_of_change import (ancova_difference, bootstrap_difference, correlation_bootstrap_difference,
                               fisher_z_difference, normal_difference, paired_tests, welch_difference)
-from .verdicts import annotate
+from .verdicts import BETTER, METRIC_WORDS, annotate, change_word, comparison_summary, listing
 
 COMPARISON_SCHEMA = "calibrate.comparison/1"
 BOOTSTRAP_METRICS = ("r", "misallocation", "g_rubric")
@@ -830,98 +830,6 @@ def _share_blocks(figs: list[_PhaseFigures], phases: tuple[str, ...], cues: tupl
 
 # ----------------------------------------------------------------------------- words
 
-# Which way is better for each metric (severity has no better direction: it is relative
-# to the panel).
-BETTER = {"r": 1, "retest_r": 1, "r_a": 1, "misallocation": -1, "g_rubric": 1, "g": 1}
-METRIC_WORDS = {"r": "consistency (R_s)", "retest_r": "test-retest agreement",
-                "misallocation": "closeness to the rubric's weights",
-                "severity": "severity offset", "r_a": "accuracy against the outcome (r_a)",
-                "g_rubric": "how well their policy matches the rubric's ordering (G with the rubric)",
-                "g": "how well their policy matches the outcome's (G)"}
-
-
-def change_word(metric: str, ci_low: float, ci_high: float) -> str:
-    """'better', 'worse' or 'no clear change' (the interval holds zero or is missing); for a
-    metric without a better direction, 'higher' or 'lower'."""
-    if not (np.isfinite(ci_low) and np.isfinite(ci_high)) or ci_low <= 0 <= ci_high:
-        return "no clear change"
-    up = ci_low > 0
-    if metric not in BETTER:
-        return "higher" if up else "lower"
-    return "better" if up == (BETTER[metric] > 0) else "worse"
-
-
-def _ancova_interval(effect: dict) -> tuple[float, float]:
-    """The ANCOVA interval of a training effect, or the plain one where there is no ANCOVA."""
-    ancova = effect.get("ancova") or {}
-    low, high = ancova.get("ci_low", effect["ci_low"]), ancova.get("ci_high", effect["ci_high"])
-    return (float("nan") if low is None else low), (float("nan") if high is None else high)
-
-
-def _listing(items: list[str]) -> str:
-    return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]
-
-
-def comparison_summary(phases: tuple[str, ...], panel: dict, has_control: bool) -> tuple[str, ...]:
-    """Plain sentences: did it work, for whom, and (with three phases or more) did it last."""
-    lines = []
-    first, last = phases[0], phases[-1]
-    metrics = [m for m in panel["metrics"] if m in BETTER]
-    if has_control:
-        effects = panel["training_effect"]
-        welch = {m: change_word(m, effects[m]["ci_low"], effects[m]["ci_high"]) for m in metrics}
-        # A gain is credited only when the ANCOVA (each rater's starting value held
-        # constant) agrees with the difference in changes; otherwise the evidence is mixed.
-        adjusted = {m: change_word(m, *_ancova_interval(effects[m])) for m in metrics}
-        words = {m: welch[m] if welch[m] == adjusted[m] else "mixed" for m in metrics}
-        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better"]
-        worse = [METRIC_WORDS[m] for m in metrics if words[m] == "worse"]
-        mixed = [METRIC_WORDS[m] for m in metrics
-                 if words[m] == "mixed" and {welch[m], adjusted[m]} & {"better", "worse"}]
-        if better:
-            lines.append(f"From {first} to {last} the trained raters improved more than the controls "
-                         f"on {_listing(better)}.")
-        else:
-            lines.append(f"From {first} to {last} the trained raters did not improve clearly more than "
-                         "the controls on any measure.")
-        if worse:
-            lines.append(f"They fell behind the controls on {_listing(worse)}.")
-        if mixed:
-            lines.append(f"On {_listing(mixed)} the evidence is mixed: the difference in changes and the "
-                         "estimate that holds each rater's starting value constant disagree, so no gain "
-                         "is credited.")
-    else:
-        arm = panel["metrics"]
-        last_change = len(phase_pairs(phases)) - 1
-        words = {m: change_word(m, arm[m]["trained"]["changes"][last_change]["ci_low"],
-                                arm[m]["trained"]["changes"][last_change]["ci_high"]) for m in metrics}
-        # A figure not corrected for different cases in the two phases is named apart: its
-        # change may be the cases' (there is no control group to take that out).
-        uncorrected = {m for m in metrics
-                       if not arm[m]["trained"]["changes"][last_change].get("comparable", True)}
-        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better" and m not in uncorrected]
-        unsure = [METRIC_WORDS[m] for m in metrics if words[m] == "better" and m in uncorrected]
-        lines.append(f"From {first} to {last} the raters improved on {_listing(better)}, but with no "
-                     "control group this cannot be credited to the training alone."
-                     if better else f"From {first} to {last} the raters did not improve clearly on any "
-                     "measure that is comparable across the phases." if unsure else
-                     f"From {first} to {last} the raters did not improve clearly on any measure.")
-        if unsure:
-            lines.append(f"They also read better on {_listing(unsure)}, but the phases judged "
-                         "different cases and these figures are not corrected for that, so the "
-                         "change may be the cases'.")
-    if len(phases) > 2:
-        k = len(phases) - 2  # the last consecutive change: end of training to follow-up
-        faded = [METRIC_WORDS[m] for m in metrics
-                 if change_word(m, panel["metrics"][m]["trained"]["changes"][k]["ci_low"],
-                                panel["metrics"][m]["trained"]["changes"][k]["ci_high"]) == "worse"]
-        lines.append(f"From {phases[-2]} to {last} the trained raters slipped back on "
-                     f"{_listing(faded)}." if faded else
-                     f"From {phases[-2]} to {last} the trained raters did not slip back clearly on "
-                     "any measure.")
-    return tuple(lines)
-
-
 def comparison_cautions(*, has_control: bool, same_cases: bool, apart_metrics: list[str],
                         n_trained: int, n_control: int, unequal_cases: int = 0,
                         started_worse: list[str] | None = None,
@@ -948,14 +856,14 @@ def comparison_cautions(*, has_control: bool, same_cases: bool, apart_metrics: l
                      "so beside it.")
     if started_worse:
         notes.append("The trained raters started worse than the controls on "
-                     f"{_listing(started_worse)}: part of their gain there may be regression to the "
+                     f"{listing(started_worse)}: part of their gain there may be regression to the "
                      "mean (a rater who started low tends to read higher the next time by chance).")
     # The measures where the arms started apart in the other direction (those where the
     # trained started worse are said above), in words rather than metric keys.
     apart_only = [w for w in (METRIC_WORDS.get(m, m) for m in apart_metrics) if w not in (started_worse or ())]
     if apart_only:
         notes.append("The trained raters started apart from the controls on "
-                     f"{_listing(apart_only)}: part of their change may be regression to the mean; "
+                     f"{listing(apart_only)}: part of their change may be regression to the mean; "
                      "the estimate that holds the starting value constant (ANCOVA) is shown beside it.")
     if has_control and min(n_trained, n_control) < 5:
         notes.append(f"With {n_trained} trained and {n_control} control raters the training effect "

@@ -244,6 +244,82 @@ def rater_change_sentence(metric: str, change: Mapping) -> str:
     return out
 
 
+def comparison_summary(phases: Sequence[str], panel: Mapping, has_control: bool) -> tuple[str, ...]:
+    """The plain sentences `calibrate compare` prints and comparison.json keeps as ``summary``:
+    did it work, and (with three phases or more) did it slip back. ``panel`` is
+    comparison.json's ``panel`` (before or after :func:`annotate`)."""
+    lines = []
+    first, last = phases[0], phases[-1]
+    metrics = _directed(panel["metrics"])
+    if has_control:
+        effects = panel["training_effect"]
+        # A gain is credited only when the ANCOVA (each rater's starting value held
+        # constant) agrees with the difference in changes; otherwise the evidence is mixed.
+        words = {m: effect_word(m, effects[m]) for m in metrics}
+        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better"]
+        worse = [METRIC_WORDS[m] for m in metrics if words[m] == "worse"]
+        mixed = [METRIC_WORDS[m] for m in metrics if words[m] == "mixed"]
+        if better:
+            lines.append(f"From {first} to {last} the trained raters improved more than the controls "
+                         f"on {listing(better)}.")
+        else:
+            lines.append(f"From {first} to {last} the trained raters did not improve clearly more than "
+                         "the controls on any measure.")
+        if worse:
+            lines.append(f"They fell behind the controls on {listing(worse)}.")
+        if mixed:
+            lines.append(f"On {listing(mixed)} the evidence is mixed: the difference in changes and the "
+                         "estimate that holds each rater's starting value constant disagree, so no gain "
+                         "is credited.")
+    else:
+        overall = {m: _change_between(panel["metrics"][m]["trained"], first, last) or {} for m in metrics}
+        words = {m: change_word(m, ch.get("ci_low"), ch.get("ci_high")) for m, ch in overall.items()}
+        # A figure not corrected for different cases in the two phases is named apart: its
+        # change may be the cases' (there is no control group to take that out).
+        uncorrected = {m for m, ch in overall.items() if not ch.get("comparable", True)}
+        better = [METRIC_WORDS[m] for m in metrics if words[m] == "better" and m not in uncorrected]
+        unsure = [METRIC_WORDS[m] for m in metrics if words[m] == "better" and m in uncorrected]
+        lines.append(f"From {first} to {last} the raters improved on {listing(better)}, but with no "
+                     "control group this cannot be credited to the training alone."
+                     if better else f"From {first} to {last} the raters did not improve clearly on any "
+                     "measure that is comparable across the phases." if unsure else
+                     f"From {first} to {last} the raters did not improve clearly on any measure.")
+        if unsure:
+            lines.append(f"They also read better on {listing(unsure)}, but the phases judged "
+                         "different cases and these figures are not corrected for that, so the "
+                         "change may be the cases'.")
+    if len(phases) > 2:
+        end = phases[-2]  # the last consecutive change: end of training to follow-up
+        slips = {m: _change_between(panel["metrics"][m]["trained"], end, last) or {} for m in metrics}
+        faded = [METRIC_WORDS[m] for m, ch in slips.items()
+                 if change_word(m, ch.get("ci_low"), ch.get("ci_high")) == "worse"]
+        lines.append(f"From {end} to {last} the trained raters slipped back on "
+                     f"{listing(faded)}." if faded else
+                     f"From {end} to {last} the trained raters did not slip back clearly on "
+                     "any measure.")
+    return tuple(lines)
+
+
+def detectable_reading(verdict: str | None, delta: float | None, detectable: float | None) -> str:
+    """What a panel's estimate says beside the smallest change the design could detect:
+    ``verdict`` the estimate's word (the training effect's, or without a control group the
+    trained arm's mean change first to last), ``delta`` the estimate."""
+    if not _finite(detectable):
+        return "not computed"
+    if verdict == "no clear change":
+        return (f"this design could only have seen a change of {fmt(detectable)} or larger; "
+                "a smaller one may be hidden")
+    if verdict == "mixed":
+        return ("mixed: the difference in changes and the estimate allowing for the start disagree, "
+                f"so no change is credited; this design could see a change of {fmt(detectable)} or larger")
+    if verdict is None:
+        return f"could see a change of {fmt(detectable)} or larger"
+    if _finite(delta) and abs(delta) < detectable:
+        return (f"the change is clear ({verdict}), though smaller than the {fmt(detectable)} this "
+                "design would see 80% of the time")
+    return f"the change is clear ({verdict}) and as large as this design could see"
+
+
 # ------------------------------------------------------------- comparison.json
 
 def _change_between(block: Mapping | None, first: str, last: str) -> Mapping | None:
@@ -317,12 +393,19 @@ def annotate(comparison: dict) -> dict:
     for name, arms in (panel.get("convergence") or {}).items():
         for block in (arms or {}).values():
             mark(name, block)
+    first, last = comparison["phases"][0], comparison["phases"][-1]
+    for name, entry in (panel.get("detectable") or {}).items():
+        effect = (panel.get("training_effect") or {}).get(name)
+        estimate = (_as_change(effect) if effect else
+                    _change_between((panel["metrics"].get(name) or {}).get("trained"), first, last)) or {}
+        entry["reading"] = detectable_reading(estimate.get("verdict"), estimate.get("delta"),
+                                              entry.get("panel"))
     comparison["answers"] = answers(comparison)
     comparison["better"] = {name: {1: "higher", -1: "lower"}.get(BETTER.get(name, PANEL_BETTER.get(name)))
                             for name in [*panel["metrics"], *PANEL_BETTER]}
     return comparison
 
 
-__all__ = ["BETTER", "METRIC_LABELS", "METRIC_WORDS", "PANEL_BETTER", "annotate", "answers", "change_word", "effect_word", "for_whom_sentence",
-           "lasts_sentence", "listing", "rater_change_sentence", "regression_to_mean_sentence", "signed",
-           "worked_sentence"]
+__all__ = ["BETTER", "METRIC_LABELS", "METRIC_WORDS", "PANEL_BETTER", "annotate", "answers", "change_word",
+           "comparison_summary", "detectable_reading", "effect_word", "for_whom_sentence", "lasts_sentence",
+           "listing", "rater_change_sentence", "regression_to_mean_sentence", "worked_sentence"]

@@ -229,3 +229,25 @@ def test_the_cue_shift_chart_says_not_tested_where_no_test_ran():
                         width=400)
     words = [s.text for s in d.contents if isinstance(s, String)]
     assert "no clear change" in words and "not tested" in words
+
+
+@pytest.mark.parametrize("has_control", [True, False])
+def test_the_report_prints_compares_words_word_for_word(has_control):
+    # The readings beside what the design could detect, and the follow-up's verdicts, are
+    # comparison.json's (verdicts.annotate), printed as they stand.
+    from calibrate.formatting import signed
+
+    doc = full_comparison(9, n_phases=3, effect=0.15, fade=0.6, has_control=has_control)
+    everything = " ".join(_flat(training_pdf(doc)))
+    readings = [entry["reading"] for entry in doc["panel"]["detectable"].values()]
+    assert readings and all(" ".join(r.split()) in everything for r in readings)
+    end, later = doc["phases"][-2:]
+    cells = [(ch, ch["verdict"]) for arms in doc["panel"]["metrics"].values() for ch in arms["trained"]["changes"]
+             if (ch["from"], ch["to"]) == (end, later)]
+    cells += [({**e, "delta": e["estimate"]}, e["verdict"])
+              for e in (doc["panel"].get("follow_up_effect") or {}).values()]
+    assert {word for _, word in cells} - {"no clear change"}  # some cell carries a word
+    for ch, word in cells:
+        shown = (f"{signed(ch['delta'])} [{signed(ch['ci_low'], end=True)}, {signed(ch['ci_high'], end=True)}] "
+                 f"{word}")
+        assert shown in everything, shown

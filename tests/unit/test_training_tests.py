@@ -164,7 +164,7 @@ def test_difference_in_differences_with_a_shared_practice_effect_includes_zero()
 
 
 def test_change_words():
-    from calibrate.training.phases import change_word
+    from calibrate.training.verdicts import change_word
 
     assert change_word("r", 0.01, 0.2) == "better"
     assert change_word("misallocation", 0.01, 0.2) == "worse"
@@ -176,7 +176,7 @@ def test_change_words():
 
 def test_a_gain_is_credited_only_when_the_ancova_agrees():
     # Welch's interval excludes zero but the ANCOVA's does not: the sentence credits no gain.
-    from calibrate.training.phases import comparison_summary
+    from calibrate.training.verdicts import comparison_summary
 
     effect = {"ci_low": 0.003, "ci_high": 0.09, "ancova": {"ci_low": -0.006, "ci_high": 0.065}}
     agreed = {"ci_low": 0.01, "ci_high": 0.09, "ancova": {"ci_low": 0.005, "ci_high": 0.07}}
@@ -188,11 +188,13 @@ def test_a_gain_is_credited_only_when_the_ancova_agrees():
 
 
 def test_without_controls_a_gain_on_an_uncorrected_figure_is_named_apart():
-    from calibrate.training.phases import comparison_summary
+    from calibrate.training.verdicts import comparison_summary
 
-    change = {"ci_low": -0.3, "ci_high": -0.1, "comparable": False}
+    span = {"from": "before", "to": "after"}  # the summary finds each change by its phases
+    change = {**span, "ci_low": -0.3, "ci_high": -0.1, "comparable": False}
     panel = {"metrics": {"misallocation": {"trained": {"changes": [change]}},
-                         "r": {"trained": {"changes": [{"ci_low": -0.1, "ci_high": 0.1, "comparable": True}]}}},
+                         "r": {"trained": {"changes": [{**span, "ci_low": -0.1, "ci_high": 0.1,
+                                                        "comparable": True}]}}},
              "training_effect": None}
     lines = comparison_summary(("before", "after"), panel, False)
     assert lines[0] == ("From before to after the raters did not improve clearly on any measure that is "
