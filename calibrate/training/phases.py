@@ -22,7 +22,8 @@ Every change carries the smallest change the design could detect (80% power, 5%
 two-sided) and whether it is comparable when the phases judged different cases.
 Across raters, each arm's changes get a paired t and Wilcoxon's signed-rank test; with a
 control group the training effect is the difference in differences by Welch's t on the
-per-rater changes, with an ANCOVA estimate beside it, and with three phases or more the
+per-rater changes, with an ANCOVA estimate beside it (for R_s both, and the comparison of the
+arms' starting values, on the adjusted R_s), and with three phases or more the
 follow-up effect is the same from the second-to-last to the last phase. The panel's
 agreement, convergence, groups and cue shift between phases are in :mod:`.panel_change`
 and :func:`_panel_extras`.
