@@ -43,7 +43,7 @@ from ..errors import CalibrateError
 #: relative weights are used instead.
 MAX_DOMINANCE_CUES = 12
 #: The ways :func:`dominance_weights` can find the subset R^2 values.
-SUBSET_SOLVERS = ("solve", "sweep")
+SUBSET_SOLVERS = ("solve", "sweep", "shared")
 #: Subset R^2 arrays held before they are folded into the dominance weights.
 _SUBSETS_AT_ONCE = 16
 #: Working-set bound (floats) of one chunk of the sweep solver.
@@ -145,6 +145,13 @@ def dominance_weights(
         parent (:func:`_subset_r2_by_sweep`). No LAPACK call per matrix, so it
         is many times faster for millions of small systems (a bootstrap over
         raters who each read their own cases).
+    ``"shared"``
+        each weight as a quadratic form in the correlations with the cues,
+        ``C_j = r' M_j r``, with ``M_j`` built once per predictor matrix from the
+        inverses of its subset blocks (:func:`_dominance_by_shared_matrix`). The work
+        per response is a few products of p x p matrices whatever the number of
+        subsets, so it is the fastest when many responses share each matrix (a
+        bootstrap of raters who read the same cases).
     """
     if solver not in SUBSET_SOLVERS:
         raise CalibrateError(
@@ -156,6 +163,8 @@ def dominance_weights(
     N, _, R = corr_xy.shape
     if solver == "sweep":
         return _dominance_by_sweep(corr_xx, corr_xy, cue_groups, weights)
+    if solver == "shared":
+        return _dominance_by_shared_matrix(corr_xx, corr_xy, cue_groups, weights)
     out = np.zeros((N, R, n_cues))
     # Accumulate a few subsets at a time, so memory grows with k, not with 2**k.
     masks = np.arange(1, 2**n_cues)
@@ -268,6 +277,106 @@ def _eliminate_first(xx, xy, explained, keep):
     xx_next = xx[np.ix_(rest, rest)] - xx[rest, pivot][:, None, :] * scaled[None, :, :]
     xy_next = xy[rest] - scaled[:, None, :] * xy[pivot][None, :, :]
     return xx_next, xy_next, explained
+
+
+def _dominance_by_shared_matrix(corr_xx, corr_xy, cue_groups, weights) -> np.ndarray:
+    """Dominance weights as quadratic forms, for many responses sharing each matrix.
+
+    ``R^2(S) = r' P_S r`` with ``P_S`` the inverse of the subset block ``R_SS`` set
+    into a p x p matrix of zeros, and the dominance weights are linear in the subset
+    R^2 values (:func:`dominance_matrix`, entries ``w_{S,j}``), so
+
+    .. math:: C_j = r^\top M_j\, r, \qquad M_j = \sum_S w_{S,j} P_S
+
+    ``M_j`` depends on the predictor matrix alone. The ``P_S`` come from the same tree
+    of eliminations as :func:`_dominance_by_sweep`, here carried on the whole matrix
+    (the sweep operator, whose swept block holds ``-R_SS^{-1}``), with the same rule
+    for a collinear column (it adds nothing). Batch axis last, as there.
+    """
+    N, p, R = corr_xy.shape
+    n_cues = len(cue_groups)
+    cue_of_column = np.full(p, -1)
+    for j, cols in enumerate(cue_groups):
+        cue_of_column[cols] = j
+    columns_of = [np.array(sorted(cols), dtype=np.intp) for cols in cue_groups]
+    forms = np.empty((N, n_cues, p, p))
+    rows = max(1, _SWEEP_FLOATS // ((n_cues + _SUBSETS_AT_ONCE + 1) * p * p))
+    for first in range(0, N, rows):
+        part = slice(first, min(N, first + rows))
+        swept = np.ascontiguousarray(np.transpose(corr_xx[part], (1, 2, 0)))   # (p, p, n)
+        fold = _InverseFold(weights, swept.shape)
+        _sweep_subsets(0, -1, n_cues, columns_of, swept, np.zeros(p), fold)
+        fold.flush()
+        forms[part] = np.transpose(fold.total, (3, 0, 1, 2))
+    out = np.empty((N, R, n_cues))
+    rows = max(1, _SWEEP_FLOATS // (n_cues * p * R))   # bounds the (n, k, p, R) products
+    for first in range(0, N, rows):
+        part = slice(first, min(N, first + rows))
+        xy = corr_xy[part]                                                  # (n, p, R)
+        left = np.matmul(forms[part].reshape(-1, n_cues * p, p), xy).reshape(-1, n_cues, p, R)
+        out[part] = np.einsum("nkpr,npr->nrk", left, xy)
+    return out
+
+
+class _InverseFold:
+    """Folds each subset's embedded inverse ``P_S`` into ``M_j = sum_S w_{S,j} P_S``."""
+
+    def __init__(self, weights: np.ndarray, shape: tuple[int, int, int]):
+        self.weights = weights
+        self.total = np.zeros((weights.shape[1], *shape))   # (k, p, p, n)
+        self.pending_masks: list[int] = []
+        self.pending: list[np.ndarray] = []
+
+    def record(self, mask: int, inverse: np.ndarray) -> None:
+        self.pending_masks.append(mask)
+        self.pending.append(inverse)
+        if len(self.pending_masks) == _SUBSETS_AT_ONCE:
+            self.flush()
+
+    def flush(self) -> None:
+        if not self.pending_masks:
+            return
+        coef = self.weights[np.array(self.pending_masks)]       # (s, k)
+        self.total += np.tensordot(coef.T, np.stack(self.pending), axes=1)
+        self.pending_masks, self.pending = [], []
+
+
+def _sweep_subsets(mask, last_cue, n_cues, columns_of, swept, taken, fold) -> None:
+    """Depth-first over the subsets extending ``mask`` by later cues, ``swept`` (p, p, n)
+    being the matrix with the columns ``taken`` (those of ``mask``) swept."""
+    for cue in range(last_cue + 1, n_cues):
+        child, child_taken = swept, taken.copy()
+        for column in columns_of[cue]:
+            child = _sweep_column(child, column)
+            child_taken[column] = 1.0
+        # the swept block is -R_SS^{-1}; the rest of the matrix is not part of P_S
+        fold.record(mask | 1 << cue, child * -(child_taken[:, None, None] * child_taken[None, :, None]))
+        if cue + 1 < n_cues:
+            _sweep_subsets(mask | 1 << cue, cue, n_cues, columns_of, child, child_taken, fold)
+
+
+def _sweep_column(swept: np.ndarray, q: int) -> np.ndarray:
+    """The sweep operator on column ``q`` of every system (batch axis last):
+
+    .. math:: a_{qq} \to -1/a_{qq}, \quad a_{iq}, a_{qj} \to a_{iq}/a_{qq}, a_{qj}/a_{qq},
+              \quad a_{ij} \to a_{ij} - a_{iq} a_{qj} / a_{qq}
+
+    after which the block of the swept columns holds ``-R_SS^{-1}`` (Goodnight 1979;
+    from memory). Where the column's remainder (its variance left after the columns
+    already swept) is at most :data:`_COLLINEAR_REMAINDER`, it is not swept and its row
+    and column are set to zero instead: later sweeps keep them zero, so the column adds
+    nothing to any inverse, the rule of :func:`_eliminate_first`.
+    """
+    remainder = swept[q, q]
+    took = remainder > _COLLINEAR_REMAINDER
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inverse = np.where(took, 1.0 / remainder, 0.0)
+    column = swept[:, q] * inverse                      # (p, n): a_iq / a_qq
+    out = swept - column[:, None, :] * swept[q][None, :, :]
+    out[q] = column
+    out[:, q] = column
+    out[q, q] = -inverse
+    return out
 
 
 def relative_weights(

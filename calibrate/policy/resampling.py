@@ -48,6 +48,9 @@ _STACK_FLOATS = 4_000_000
 #: 120 and 200 cases; mostly 93-97%); below it the strongest cue's intervals covered
 #: 89-92.5% at 40 and 80 cases (DEVELOPERS.md, "Importance-share intervals").
 SHARE_INTERVAL_FULL_COVERAGE_CASES = 120
+#: Raters sharing each resample's cue matrix from which the dominance weights are found as
+#: quadratic forms (``solver="shared"``) rather than by the elimination tree per rater.
+SHARED_SOLVER_FROM = 8
 
 
 def share_interval_note(n_cases: int) -> str | None:
@@ -396,8 +399,11 @@ def _intervals_for_batch(batch, counts: _BlockCounts, cue_groups, out: PolicyInt
     # the shares needs no jackknife rows.
     starts = np.cumsum([0] + [n_boot + u.n_cases for u in batch])[:-1]
     rows = np.concatenate([np.arange(s, s + n_imp) for s in starts])
-    # Millions of small systems here: the elimination tree beats one solve per subset.
-    all_imp, _ = cue_importance(corr_xx[rows], corr_xy[rows], cue_groups, method=method, solver="sweep")
+    # Millions of small systems here: the elimination tree beats one solve per subset,
+    # and where many raters share each resample's cue matrix (they read the same cases)
+    # the quadratic forms built once per matrix beat both.
+    solver = "shared" if batch[0].Y.shape[1] >= SHARED_SOLVER_FROM else "sweep"
+    all_imp, _ = cue_importance(corr_xx[rows], corr_xy[rows], cue_groups, method=method, solver=solver)
     all_imp = np.where(bad[rows][:, :, None], np.nan, all_imp)
     with np.errstate(invalid="ignore", divide="ignore"):
         all_shares = importance_shares(all_imp, all_r2[rows])
