@@ -107,8 +107,7 @@ def _prepare(design: CueDesign, first: pd.DataFrame, scale: str,
         )
     rater_names = first["rater"].astype(str).to_numpy()
     case_names = first["case"].astype(str).to_numpy()
-    index = {c: i for i, c in enumerate(design.case_ids)}
-    rows = np.array([index.get(c, -1) for c in case_names], dtype=np.intp)
+    rows = pd.Index(design.case_ids).get_indexer(case_names).astype(np.intp)
     if (rows < 0).any():
         unknown = sorted(set(case_names[rows < 0]))
         raise DataError([DataProblem(
@@ -117,7 +116,10 @@ def _prepare(design: CueDesign, first: pd.DataFrame, scale: str,
     y = pd.to_numeric(first["judgment"], errors="coerce").to_numpy(dtype=float)
     if scale == "binary":
         y = _binary_judgments(y, scale_min, scale_max)
-    raters, group = np.unique(rater_names, return_inverse=True)
+    # the sorted distinct raters and each row's index among them (np.unique's answer,
+    # without sorting every row's Python string)
+    group, raters = pd.factorize(rater_names, sort=True)
+    raters = np.asarray(raters, dtype=object)
     usable = np.isfinite(y) & ~np.isnan(design.matrix[rows]).any(axis=1)
     dropped = np.bincount(group[~usable], minlength=raters.size)
     order = np.lexsort((rows[usable], group[usable]))
@@ -662,12 +664,13 @@ def _assemble(design: CueDesign, rows: _Rows, A: _Arrays, *, scale, n_boot, alph
 
 def _prediction_terms(rater: str, g: int, columns, A: _Arrays) -> PredictionTerms:
     used = np.flatnonzero(np.isfinite(A.coef[g]))
-    pick = lambda values: {columns[j]: float(values[j]) for j in used}
+    names = [columns[j] for j in used]
+    pick = lambda values: dict(zip(names, values[used].tolist()))
     return PredictionTerms(
         rater=rater, n_cases=int(A.n[g]), residual_variance=float(A.sigma2[g]),
-        df_resid=float(A.df_resid[g]), columns=tuple(columns[j] for j in used),
+        df_resid=float(A.df_resid[g]), columns=tuple(names),
         column_means=pick(A.x_mean[g]), column_min=pick(A.x_min[g]), column_max=pick(A.x_max[g]),
-        centred_inverse=tuple(tuple(float(v) for v in A.xtx_inv[g, j, used]) for j in used),
+        centred_inverse=tuple(map(tuple, A.xtx_inv[g][np.ix_(used, used)].tolist())),
     )
 
 
@@ -693,7 +696,7 @@ def _typical_lower_end_of_others(lower: np.ndarray) -> np.ndarray:
 
 
 def _named(names, values) -> dict[str, float]:
-    return {n: float(v) for n, v in zip(names, values)}
+    return dict(zip(names, np.asarray(values, dtype=float).tolist()))
 
 
 # --------------------------------------------------------------------------- policies.json
