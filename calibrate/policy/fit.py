@@ -483,7 +483,7 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
 
     safe_xx = np.where(ok[:, None, None], corr_xx, np.eye(n_active))
     safe_xy = np.where(ok[:, None, None], corr_xy, 0.0)
-    imp, _ = cue_importance(safe_xx, safe_xy, cue_groups, method=method)
+    imp = _point_importance(safe_xx, safe_xy, cue_groups, method)
     rw = relative_weights(safe_xx, safe_xy, cue_groups)
     cue_cols = np.array(k_idx)
     A.imp_r2[np.ix_(rows_g, cue_cols)] = np.where(ok[:, None], imp[:, 0, :], np.nan)
@@ -540,6 +540,17 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
         A.r_lo[rows_g], A.r_hi[rows_g] = intervals.r_low, intervals.r_high
         A.imp_lo[np.ix_(rows_g, cue_cols)] = intervals.share_low
         A.imp_hi[np.ix_(rows_g, cue_cols)] = intervals.share_high
+
+
+def _point_importance(corr_xx, corr_xy, cue_groups, method) -> np.ndarray:
+    """Each rater's cue importance, (G, 1, k). Raters who read the same cases have the same
+    cue correlations: then one matrix serves them all, its subsets solved once for every
+    rater's correlations with the cues (the same solves, with many right-hand sides)."""
+    flat = corr_xx.reshape(corr_xx.shape[0], -1)
+    if flat.shape[0] > 1 and (flat == flat[0]).all():
+        shared, _ = cue_importance(corr_xx[:1], corr_xy[:, :, 0].T[None], cue_groups, method=method)
+        return shared[0][:, None, :]
+    return cue_importance(corr_xx, corr_xy, cue_groups, method=method)[0]
 
 
 def _local_cue_groups(design: CueDesign, active: np.ndarray) -> list[list[int]]:

@@ -146,7 +146,7 @@ def _column_quantiles(values: np.ndarray, n_finite: np.ndarray, level: np.ndarra
 
 
 def weighted_correlations(
-    X: np.ndarray, Y: np.ndarray, counts: np.ndarray
+    X: np.ndarray, Y: np.ndarray, counts: np.ndarray, *, leave_one_out: bool = False
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Correlations of cues and judgments under each vector of case counts.
 
@@ -165,7 +165,10 @@ def weighted_correlations(
 
     with :math:`\\tilde a` centred at the full-sample mean and :math:`\\bar a_c`
     its count-weighted mean. Every sum over cases comes from one matrix
-    product of the counts with a table of per-case terms.
+    product of the counts with a table of per-case terms. With ``leave_one_out``
+    the n leave-one-out vectors (ones with one zero) follow the given counts in
+    the results, their sums taken as the column totals less each case's own terms
+    instead of n more rows of the product.
     """
     n, p = X.shape[-2:]
     R = Y.shape[-1]
@@ -183,6 +186,10 @@ def weighted_correlations(
     # against 0.097 s for numpy's own einsum loop (the same sums to 3e-14).
     sums = counts @ terms
     total = counts.sum(axis=-1)[..., None]
+    if leave_one_out:
+        sums = np.concatenate([sums, terms.sum(axis=-2, keepdims=True) - terms], axis=-2)
+        total = np.concatenate([total, np.full((*lead, n, 1), n - 1.0)], axis=-2)
+        N += n
     x_mean = sums[..., :p] / total
     y_mean = sums[..., p:p + R] / total
     at = p + 2 * R
@@ -248,10 +255,11 @@ class _BlockCounts:
         self._held: dict[int, np.ndarray] = {}
 
     def take(self, unit: _ResampleUnit) -> np.ndarray:
-        """(n_boot + n, n): bootstrap counts, then the n leave-one-out vectors."""
+        """(n_boot, n) bootstrap counts (the leave-one-out vectors are implied:
+        ``weighted_correlations(..., leave_one_out=True)``)."""
         block = unit.block
         if block not in self._held:
-            self._held[block] = _draw_counts(self._generators[block], unit.n_cases, self._n_boot)
+            self._held[block] = _draw_boot_counts(self._generators[block], unit.n_cases, self._n_boot)
         counts = self._held[block]
         self._uses[block] -= 1
         if not self._uses[block]:
@@ -259,12 +267,15 @@ class _BlockCounts:
         return counts
 
 
-def _draw_counts(generator: np.random.Generator, n: int, n_boot: int) -> np.ndarray:
+def _draw_boot_counts(generator: np.random.Generator, n: int, n_boot: int) -> np.ndarray:
+    """(n_boot, n): how often each case is drawn in each resample of n cases."""
     draws = generator.integers(0, n, size=(n_boot, n)) + n * np.arange(n_boot)[:, None]
-    counts = np.empty((n_boot + n, n))
-    counts[:n_boot] = np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n)
-    counts[n_boot:] = 1.0 - np.eye(n)
-    return counts
+    return np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n).astype(float)
+
+
+def _draw_counts(generator: np.random.Generator, n: int, n_boot: int) -> np.ndarray:
+    """(n_boot + n, n): the bootstrap counts, then the n leave-one-out vectors."""
+    return np.vstack([_draw_boot_counts(generator, n, n_boot), 1.0 - np.eye(n)])
 
 
 def case_bootstrap_intervals(
@@ -378,12 +389,12 @@ def _batch_correlations(batch, counts: _BlockCounts, n_boot: int):
             chosen = positions[first:first + step]
             if len(chosen) == 1:
                 unit = batch[chosen[0]]
-                parts = [part[None] for part in weighted_correlations(unit.X, unit.Y,
-                                                                      counts.take(unit))]
+                parts = [part[None] for part in weighted_correlations(
+                    unit.X, unit.Y, counts.take(unit), leave_one_out=True)]
             else:
                 parts = weighted_correlations(
                     np.stack([batch[i].X for i in chosen]), np.stack([batch[i].Y for i in chosen]),
-                    np.stack([counts.take(batch[i]) for i in chosen]))
+                    np.stack([counts.take(batch[i]) for i in chosen]), leave_one_out=True)
             for slot, i in enumerate(chosen):
                 span = slice(rows[i], rows[i + 1])
                 corr_xx[span], corr_xy[span], bad[span] = (part[slot] for part in parts)
