@@ -47,7 +47,7 @@ SUBSET_SOLVERS = ("solve", "sweep", "shared")
 #: Subset R^2 arrays held before they are folded into the dominance weights.
 _SUBSETS_AT_ONCE = 16
 #: Working-set bound (floats) of one chunk of the sweep solver.
-_SWEEP_FLOATS = 500_000
+_SWEEP_FLOATS = 2_000_000
 #: A column whose variance left after the columns already in the model is below this
 #: share of its own (it is collinear with them) adds nothing in the sweep solver.
 _COLLINEAR_REMAINDER = 1e-10
@@ -232,16 +232,15 @@ class _SubsetWalk:
         (c, R, N) are their correlations given the cues in ``mask``, and
         ``explained`` (R, N) is R^2(mask).
         """
+        # The carried columns are sorted by cue, so a cue's columns and those after it are
+        # a trailing block: slices, not gathered copies.
+        start = 0
         for cue in range(last_cue + 1, self.n_cues):
-            keep = np.flatnonzero(labels >= cue)
             n_pivots = int((labels == cue).sum())
-            if n_pivots == 0:  # a cue without columns adds nothing
-                cxx, cxy, cexp = xx[np.ix_(keep, keep)], xy[keep], explained
-            else:
-                cxx, cxy, cexp = xx, xy, explained
-                for _ in range(n_pivots):
-                    cxx, cxy, cexp = _eliminate_first(cxx, cxy, cexp, keep)
-                    keep = np.arange(cxx.shape[0])
+            cxx, cxy, cexp = xx[start:, start:], xy[start:], explained
+            for _ in range(n_pivots):
+                cxx, cxy, cexp = _eliminate_leading(cxx, cxy, cexp)
+            start += n_pivots
             child = mask | 1 << cue
             self._record(child, cexp)
             if cue + 1 < self.n_cues:
@@ -260,6 +259,18 @@ class _SubsetWalk:
         coef = self.weights[np.array(self.pending_masks)]         # (s, k)
         self.total += np.tensordot(coef.T, stacked, axes=1)
         self.pending_masks, self.pending_r2 = [], []
+
+
+def _eliminate_leading(xx, xy, explained):
+    """:func:`_eliminate_first` of column 0, on the whole of ``xx`` and ``xy`` (by slices)."""
+    remainder = xx[0, 0]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inverse = np.where(remainder <= _COLLINEAR_REMAINDER, 0.0, 1.0 / remainder)
+    explained = explained + xy[0] ** 2 * inverse
+    scaled = xx[0, 1:] * inverse                                         # (c', N)
+    xx_next = xx[1:, 1:] - xx[1:, 0][:, None, :] * scaled[None, :, :]
+    xy_next = xy[1:] - scaled[:, None, :] * xy[0][None, :, :]
+    return xx_next, xy_next, explained
 
 
 def _eliminate_first(xx, xy, explained, keep):

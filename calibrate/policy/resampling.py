@@ -418,22 +418,25 @@ def _intervals_for_batch(batch, counts: _BlockCounts, cue_groups, out: PolicyInt
     all_imp = np.where(bad[rows][:, :, None], np.nan, all_imp)
     with np.errstate(invalid="ignore", divide="ignore"):
         all_shares = importance_shares(all_imp, all_r2[rows])
-    start = start_imp = 0
-    for unit in batch:
-        stop = start + n_boot + unit.n_cases
-        boot = slice(start, start + n_boot)
-        jack = slice(start + n_boot, stop)
-        imp_boot = slice(start_imp, start_imp + n_imp)
-        local = unit.raters
+    # Every unit of one size at once: the intervals are column by column, so the raters
+    # of many units (one each when raters read cases of their own) are columns of one call.
+    by_cases: dict[int, list[int]] = {}
+    for position, unit in enumerate(batch):
+        by_cases.setdefault(unit.n_cases, []).append(position)
+    for n_cases, positions in by_cases.items():
+        chosen = np.array(positions)
+        local = np.concatenate([batch[i].raters for i in positions])
+        spans = starts[chosen][:, None]
+        columns = lambda offsets: np.swapaxes(all_r2[spans + offsets], 0, 1).reshape(offsets.size, -1)
+        boot_r2 = columns(np.arange(n_boot))
+        jack_r2 = columns(n_boot + np.arange(n_cases))
+        imp_spans = (n_imp * chosen)[:, None] + np.arange(n_imp)
+        boot_shares = np.swapaxes(all_shares[imp_spans], 0, 1).reshape(n_imp, -1)
         with np.errstate(invalid="ignore", divide="ignore"):
-            lo, hi = bca_interval(np.sqrt(r2[local]), np.sqrt(all_r2[boot]),
-                                  np.sqrt(all_r2[jack]), alpha=alpha)
+            lo, hi = bca_interval(np.sqrt(r2[local]), np.sqrt(boot_r2), np.sqrt(jack_r2), alpha=alpha)
             share_hat = importance_shares(imp[local], r2[local]).ravel()
         k = share_hat.size // local.size
-        s_lo, s_hi = percentile_interval(share_hat, all_shares[imp_boot].reshape(n_imp, -1),
-                                         alpha=alpha)
+        s_lo, s_hi = percentile_interval(share_hat, boot_shares, alpha=alpha)
         out.r_low[local], out.r_high[local] = lo, hi
         out.share_low[local] = s_lo.reshape(local.size, k)
         out.share_high[local] = s_hi.reshape(local.size, k)
-        start = stop
-        start_imp += n_imp
