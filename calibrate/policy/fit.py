@@ -656,7 +656,7 @@ def _assemble(design: CueDesign, rows: _Rows, A: _Arrays, *, scale, n_boot, alph
             r=float(r[g]), r_ci=(float(A.r_lo[g]), float(A.r_hi[g])), r2=float(A.r2[g]),
             r2_adj=float(A.r2_adj[g]), r_cv=float(A.r_cv[g]),
             importance=_named(cues, shares[g]), importance_r2=_named(cues, A.imp_r2[g]),
-            importance_ci={c: (float(A.imp_lo[g, i]), float(A.imp_hi[g, i])) for i, c in enumerate(cues)},
+            importance_ci=dict(zip(cues, zip(A.imp_lo[g].tolist(), A.imp_hi[g].tolist()))),
             importance_method=method, relative_weights_r2=_named(cues, A.rw_r2[g]),
             cases_per_weight=float(per_weight[g]), vif=_named(columns, A.vif[g]),
             gvif=_named(cues, A.gvif[g]), condition_number=float(A.cond[g]),
