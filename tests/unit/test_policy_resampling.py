@@ -43,6 +43,19 @@ def test_weighted_correlations_match_numpy_frequency_weights():
     assert not bad.any()
 
 
+def test_leave_one_out_sums_from_totals_equal_the_explicit_leave_one_out_counts():
+    rng = np.random.default_rng(12)
+    n = 30
+    X = rng.normal(size=(2, n, 4))
+    Y = rng.normal(size=(2, n, 3)) + X[..., :1]
+    counts = np.stack([rng.multinomial(n, np.full(n, 1 / n), size=5) for _ in range(2)]).astype(float)
+    explicit = weighted_correlations(X, Y, np.concatenate([counts, np.broadcast_to(
+        1.0 - np.eye(n), (2, n, n))], axis=1))
+    implied = weighted_correlations(X, Y, counts, leave_one_out=True)
+    for ours, expected in zip(implied, explicit):
+        np.testing.assert_allclose(ours, expected, rtol=1e-12, atol=1e-14)
+
+
 def test_a_resample_that_leaves_a_cue_constant_is_marked_bad():
     X = np.array([[0.0, 1.0], [0.0, 2.0], [1.0, 0.5], [1.0, 3.0]])
     Y = np.array([[1.0], [2.0], [0.0], [4.0]])
