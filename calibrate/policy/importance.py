@@ -219,10 +219,14 @@ class _SubsetWalk:
 
     def __init__(self, n_cues: int, weights: np.ndarray, shape: tuple[int, int]):
         self.n_cues = n_cues
-        self.weights = weights
-        self.total = np.zeros((n_cues, *shape))       # (k, R, N)
-        self.pending_masks: list[int] = []
-        self.pending_r2: list[np.ndarray] = []
+        self.fold = _SubsetFold(weights, shape)       # total (k, R, N)
+
+    @property
+    def total(self) -> np.ndarray:
+        return self.fold.total
+
+    def flush(self) -> None:
+        self.fold.flush()
 
     def visit(self, mask, last_cue, labels, xx, xy, explained) -> None:
         """Extend ``mask``, whose highest cue is ``last_cue``, by each later cue.
@@ -242,23 +246,9 @@ class _SubsetWalk:
                 cxx, cxy, cexp = _eliminate_leading(cxx, cxy, cexp)
             start += n_pivots
             child = mask | 1 << cue
-            self._record(child, cexp)
+            self.fold.record(child, cexp)
             if cue + 1 < self.n_cues:
                 self.visit(child, cue, labels[labels > cue], cxx, cxy, cexp)
-
-    def _record(self, mask: int, r2: np.ndarray) -> None:
-        self.pending_masks.append(mask)
-        self.pending_r2.append(r2)
-        if len(self.pending_masks) == _SUBSETS_AT_ONCE:
-            self.flush()
-
-    def flush(self) -> None:
-        if not self.pending_masks:
-            return
-        stacked = np.stack(self.pending_r2)                       # (s, R, N)
-        coef = self.weights[np.array(self.pending_masks)]         # (s, k)
-        self.total += np.tensordot(coef.T, stacked, axes=1)
-        self.pending_masks, self.pending_r2 = [], []
 
 
 def _eliminate_leading(xx, xy, explained):
@@ -315,7 +305,7 @@ def _dominance_by_shared_matrix(corr_xx, corr_xy, cue_groups, weights) -> np.nda
     for first in range(0, N, rows):
         part = slice(first, min(N, first + rows))
         swept = np.ascontiguousarray(np.transpose(corr_xx[part], (1, 2, 0)))   # (p, p, n)
-        fold = _InverseFold(weights, swept.shape)
+        fold = _SubsetFold(weights, swept.shape)
         _sweep_subsets(0, -1, n_cues, columns_of, swept, np.zeros(p), fold)
         fold.flush()
         forms[part] = np.transpose(fold.total, (3, 0, 1, 2))
@@ -329,18 +319,19 @@ def _dominance_by_shared_matrix(corr_xx, corr_xy, cue_groups, weights) -> np.nda
     return out
 
 
-class _InverseFold:
-    """Folds each subset's embedded inverse ``P_S`` into ``M_j = sum_S w_{S,j} P_S``."""
+class _SubsetFold:
+    """Folds a value per subset (its R^2 per system, or its embedded inverse ``P_S``) into
+    the dominance weights' sums ``sum_S w_{S,j} value_S``, a few subsets at a time."""
 
-    def __init__(self, weights: np.ndarray, shape: tuple[int, int, int]):
+    def __init__(self, weights: np.ndarray, shape: tuple[int, ...]):
         self.weights = weights
-        self.total = np.zeros((weights.shape[1], *shape))   # (k, p, p, n)
+        self.total = np.zeros((weights.shape[1], *shape))   # (k, *shape)
         self.pending_masks: list[int] = []
         self.pending: list[np.ndarray] = []
 
-    def record(self, mask: int, inverse: np.ndarray) -> None:
+    def record(self, mask: int, value: np.ndarray) -> None:
         self.pending_masks.append(mask)
-        self.pending.append(inverse)
+        self.pending.append(value)
         if len(self.pending_masks) == _SUBSETS_AT_ONCE:
             self.flush()
 
