@@ -50,7 +50,7 @@ _SUBSETS_AT_ONCE = 16
 _SWEEP_FLOATS = 2_000_000
 #: A column whose variance left after the columns already in the model is below this
 #: share of its own (it is collinear with them) adds nothing in the sweep solver.
-_COLLINEAR_REMAINDER = 1e-10
+COLLINEAR_REMAINDER = 1e-10
 
 
 def r2_from_correlations(corr_xx: np.ndarray, corr_xy: np.ndarray) -> np.ndarray:
@@ -243,7 +243,7 @@ class _SubsetWalk:
             n_pivots = int((labels == cue).sum())
             cxx, cxy, cexp = xx[start:, start:], xy[start:], explained
             for _ in range(n_pivots):
-                cxx, cxy, cexp = _eliminate_leading(cxx, cxy, cexp)
+                cxx, cxy, cexp = eliminate_leading(cxx, cxy, cexp)
             start += n_pivots
             child = mask | 1 << cue
             self.fold.record(child, cexp)
@@ -251,11 +251,11 @@ class _SubsetWalk:
                 self.visit(child, cue, labels[labels > cue], cxx, cxy, cexp)
 
 
-def _eliminate_leading(xx, xy, explained):
+def eliminate_leading(xx, xy, explained):
     """:func:`_eliminate_first` of column 0, on the whole of ``xx`` and ``xy`` (by slices)."""
     remainder = xx[0, 0]
     with np.errstate(divide="ignore", invalid="ignore"):
-        inverse = np.where(remainder <= _COLLINEAR_REMAINDER, 0.0, 1.0 / remainder)
+        inverse = np.where(remainder <= COLLINEAR_REMAINDER, 0.0, 1.0 / remainder)
     explained = explained + xy[0] ** 2 * inverse
     scaled = xx[0, 1:] * inverse                                         # (c', N)
     xx_next = xx[1:, 1:] - xx[1:, 0][:, None, :] * scaled[None, :, :]
@@ -272,7 +272,7 @@ def _eliminate_first(xx, xy, explained, keep):
     pivot, rest = keep[0], keep[1:]
     remainder = xx[pivot, pivot]
     with np.errstate(divide="ignore", invalid="ignore"):
-        inverse = np.where(remainder <= _COLLINEAR_REMAINDER, 0.0, 1.0 / remainder)
+        inverse = np.where(remainder <= COLLINEAR_REMAINDER, 0.0, 1.0 / remainder)
     explained = explained + xy[pivot] ** 2 * inverse
     scaled = xx[pivot, rest] * inverse                                   # (c', N)
     xx_next = xx[np.ix_(rest, rest)] - xx[rest, pivot][:, None, :] * scaled[None, :, :]
@@ -365,12 +365,12 @@ def _sweep_column(swept: np.ndarray, q: int) -> np.ndarray:
 
     after which the block of the swept columns holds ``-R_SS^{-1}`` (Goodnight 1979;
     from memory). Where the column's remainder (its variance left after the columns
-    already swept) is at most :data:`_COLLINEAR_REMAINDER`, it is not swept and its row
+    already swept) is at most :data:`COLLINEAR_REMAINDER`, it is not swept and its row
     and column are set to zero instead: later sweeps keep them zero, so the column adds
     nothing to any inverse, the rule of :func:`_eliminate_first`.
     """
     remainder = swept[q, q]
-    took = remainder > _COLLINEAR_REMAINDER
+    took = remainder > COLLINEAR_REMAINDER
     with np.errstate(divide="ignore", invalid="ignore"):
         inverse = np.where(took, 1.0 / remainder, 0.0)
     column = swept[:, q] * inverse                      # (p, n): a_iq / a_qq

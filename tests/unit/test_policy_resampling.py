@@ -155,3 +155,19 @@ def test_small_chunks_give_the_same_intervals(monkeypatch):
     pieces = _batched(X, y, groups, fitted, case_row, seed=2)
     for field in ("r_low", "r_high", "share_low", "share_high"):
         np.testing.assert_allclose(getattr(pieces, field), getattr(whole, field), rtol=1e-12)
+
+
+def test_resampled_r2_by_elimination_equals_the_solve_and_hands_collinear_systems_to_it():
+    from calibrate.policy.importance import r2_from_correlations
+
+    rng = np.random.default_rng(14)
+    data = rng.normal(size=(300, 30, 6))
+    data[:5, :, 2] = data[:5, :, 0] - data[:5, :, 1]   # exactly collinear cues in 5 systems
+    data -= data.mean(axis=1, keepdims=True)
+    data /= np.sqrt((data**2).sum(axis=1, keepdims=True))
+    corr = np.swapaxes(data, 1, 2) @ data
+    corr[5, :4, :4] = np.eye(4)   # a resample marked bad gets the identity
+    xx, xy = corr[:, :4, :4], corr[:, :4, 4:]
+    ours = resampling._resampled_r2(xx, xy)
+    expected = np.vstack([r2_from_correlations(xx[i:i + 1], xy[i:i + 1]) for i in range(300)])
+    np.testing.assert_allclose(ours, expected, rtol=1e-12, atol=1e-13)
