@@ -142,7 +142,7 @@ def dominance_weights(
         (many responses R sharing each matrix).
     ``"sweep"``
         the subsets are visited as a tree, each one elimination step from its
-        parent (:func:`_subset_r2_by_sweep`). No LAPACK call per matrix, so it
+        parent (:func:`_dominance_by_sweep`). No LAPACK call per matrix, so it
         is many times faster for millions of small systems (a bootstrap over
         raters who each read their own cases).
     ``"shared"``
@@ -252,7 +252,16 @@ class _SubsetWalk:
 
 
 def eliminate_leading(xx, xy, explained):
-    """:func:`_eliminate_first` of column 0, on the whole of ``xx`` and ``xy`` (by slices)."""
+    """Take column 0 into the model; return the state of the other columns.
+
+    ``xx`` (c, c, N), ``xy`` (c, R, N) are correlations given the columns already in,
+    ``explained`` (R, N) their R^2:
+
+    .. math:: r_{ab \cdot q} = r_{ab} - r_{aq} r_{qb} / r_{qq}, \qquad
+              R^2 \mathrel{+}= r_{qy}^2 / r_{qq}
+
+    A column whose remainder ``r_qq`` is at most :data:`COLLINEAR_REMAINDER` adds nothing.
+    """
     remainder = xx[0, 0]
     with np.errstate(divide="ignore", invalid="ignore"):
         inverse = np.where(remainder <= COLLINEAR_REMAINDER, 0.0, 1.0 / remainder)
@@ -260,23 +269,6 @@ def eliminate_leading(xx, xy, explained):
     scaled = xx[0, 1:] * inverse                                         # (c', N)
     xx_next = xx[1:, 1:] - xx[1:, 0][:, None, :] * scaled[None, :, :]
     xy_next = xy[1:] - scaled[:, None, :] * xy[0][None, :, :]
-    return xx_next, xy_next, explained
-
-
-def _eliminate_first(xx, xy, explained, keep):
-    """Take column ``keep[0]`` into the model; return the state of ``keep[1:]``.
-
-    .. math:: r_{ab \\cdot q} = r_{ab} - r_{aq} r_{qb} / r_{qq}, \\qquad
-              R^2 \\mathrel{+}= r_{qy}^2 / r_{qq}
-    """
-    pivot, rest = keep[0], keep[1:]
-    remainder = xx[pivot, pivot]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        inverse = np.where(remainder <= COLLINEAR_REMAINDER, 0.0, 1.0 / remainder)
-    explained = explained + xy[pivot] ** 2 * inverse
-    scaled = xx[pivot, rest] * inverse                                   # (c', N)
-    xx_next = xx[np.ix_(rest, rest)] - xx[rest, pivot][:, None, :] * scaled[None, :, :]
-    xy_next = xy[rest] - scaled[:, None, :] * xy[pivot][None, :, :]
     return xx_next, xy_next, explained
 
 
@@ -367,7 +359,7 @@ def _sweep_column(swept: np.ndarray, q: int) -> np.ndarray:
     from memory). Where the column's remainder (its variance left after the columns
     already swept) is at most :data:`COLLINEAR_REMAINDER`, it is not swept and its row
     and column are set to zero instead: later sweeps keep them zero, so the column adds
-    nothing to any inverse, the rule of :func:`_eliminate_first`.
+    nothing to any inverse, the rule of :func:`eliminate_leading`.
     """
     remainder = swept[q, q]
     took = remainder > COLLINEAR_REMAINDER
