@@ -107,8 +107,7 @@ def _prepare(design: CueDesign, first: pd.DataFrame, scale: str,
         )
     rater_names = first["rater"].astype(str).to_numpy()
     case_names = first["case"].astype(str).to_numpy()
-    index = {c: i for i, c in enumerate(design.case_ids)}
-    rows = np.array([index.get(c, -1) for c in case_names], dtype=np.intp)
+    rows = pd.Index(design.case_ids).get_indexer(case_names).astype(np.intp)
     if (rows < 0).any():
         unknown = sorted(set(case_names[rows < 0]))
         raise DataError([DataProblem(
@@ -117,7 +116,10 @@ def _prepare(design: CueDesign, first: pd.DataFrame, scale: str,
     y = pd.to_numeric(first["judgment"], errors="coerce").to_numpy(dtype=float)
     if scale == "binary":
         y = _binary_judgments(y, scale_min, scale_max)
-    raters, group = np.unique(rater_names, return_inverse=True)
+    # the sorted distinct raters and each row's index among them (np.unique's answer,
+    # without sorting every row's Python string)
+    group, raters = pd.factorize(rater_names, sort=True)
+    raters = np.asarray(raters, dtype=object)
     usable = np.isfinite(y) & ~np.isnan(design.matrix[rows]).any(axis=1)
     dropped = np.bincount(group[~usable], minlength=raters.size)
     order = np.lexsort((rows[usable], group[usable]))
@@ -481,7 +483,7 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
 
     safe_xx = np.where(ok[:, None, None], corr_xx, np.eye(n_active))
     safe_xy = np.where(ok[:, None, None], corr_xy, 0.0)
-    imp, _ = cue_importance(safe_xx, safe_xy, cue_groups, method=method)
+    imp = _point_importance(safe_xx, safe_xy, cue_groups, method)
     rw = relative_weights(safe_xx, safe_xy, cue_groups)
     cue_cols = np.array(k_idx)
     A.imp_r2[np.ix_(rows_g, cue_cols)] = np.where(ok[:, None], imp[:, 0, :], np.nan)
@@ -538,6 +540,17 @@ def _fit_pattern(design, rows: _Rows, X_all, active, members, arrays: _Arrays, *
         A.r_lo[rows_g], A.r_hi[rows_g] = intervals.r_low, intervals.r_high
         A.imp_lo[np.ix_(rows_g, cue_cols)] = intervals.share_low
         A.imp_hi[np.ix_(rows_g, cue_cols)] = intervals.share_high
+
+
+def _point_importance(corr_xx, corr_xy, cue_groups, method) -> np.ndarray:
+    """Each rater's cue importance, (G, 1, k). Raters who read the same cases have the same
+    cue correlations: then one matrix serves them all, its subsets solved once for every
+    rater's correlations with the cues (the same solves, with many right-hand sides)."""
+    flat = corr_xx.reshape(corr_xx.shape[0], -1)
+    if flat.shape[0] > 1 and (flat == flat[0]).all():
+        shared, _ = cue_importance(corr_xx[:1], corr_xy[:, :, 0].T[None], cue_groups, method=method)
+        return shared[0][:, None, :]
+    return cue_importance(corr_xx, corr_xy, cue_groups, method=method)[0]
 
 
 def _local_cue_groups(design: CueDesign, active: np.ndarray) -> list[list[int]]:
@@ -643,7 +656,7 @@ def _assemble(design: CueDesign, rows: _Rows, A: _Arrays, *, scale, n_boot, alph
             r=float(r[g]), r_ci=(float(A.r_lo[g]), float(A.r_hi[g])), r2=float(A.r2[g]),
             r2_adj=float(A.r2_adj[g]), r_cv=float(A.r_cv[g]),
             importance=_named(cues, shares[g]), importance_r2=_named(cues, A.imp_r2[g]),
-            importance_ci={c: (float(A.imp_lo[g, i]), float(A.imp_hi[g, i])) for i, c in enumerate(cues)},
+            importance_ci=dict(zip(cues, zip(A.imp_lo[g].tolist(), A.imp_hi[g].tolist()))),
             importance_method=method, relative_weights_r2=_named(cues, A.rw_r2[g]),
             cases_per_weight=float(per_weight[g]), vif=_named(columns, A.vif[g]),
             gvif=_named(cues, A.gvif[g]), condition_number=float(A.cond[g]),
@@ -662,12 +675,13 @@ def _assemble(design: CueDesign, rows: _Rows, A: _Arrays, *, scale, n_boot, alph
 
 def _prediction_terms(rater: str, g: int, columns, A: _Arrays) -> PredictionTerms:
     used = np.flatnonzero(np.isfinite(A.coef[g]))
-    pick = lambda values: {columns[j]: float(values[j]) for j in used}
+    names = [columns[j] for j in used]
+    pick = lambda values: dict(zip(names, values[used].tolist()))
     return PredictionTerms(
         rater=rater, n_cases=int(A.n[g]), residual_variance=float(A.sigma2[g]),
-        df_resid=float(A.df_resid[g]), columns=tuple(columns[j] for j in used),
+        df_resid=float(A.df_resid[g]), columns=tuple(names),
         column_means=pick(A.x_mean[g]), column_min=pick(A.x_min[g]), column_max=pick(A.x_max[g]),
-        centred_inverse=tuple(tuple(float(v) for v in A.xtx_inv[g, j, used]) for j in used),
+        centred_inverse=tuple(map(tuple, A.xtx_inv[g][np.ix_(used, used)].tolist())),
     )
 
 
@@ -693,7 +707,7 @@ def _typical_lower_end_of_others(lower: np.ndarray) -> np.ndarray:
 
 
 def _named(names, values) -> dict[str, float]:
-    return {n: float(v) for n, v in zip(names, values)}
+    return dict(zip(names, np.asarray(values, dtype=float).tolist()))
 
 
 # --------------------------------------------------------------------------- policies.json

@@ -43,14 +43,14 @@ from ..errors import CalibrateError
 #: relative weights are used instead.
 MAX_DOMINANCE_CUES = 12
 #: The ways :func:`dominance_weights` can find the subset R^2 values.
-SUBSET_SOLVERS = ("solve", "sweep")
+SUBSET_SOLVERS = ("solve", "sweep", "shared")
 #: Subset R^2 arrays held before they are folded into the dominance weights.
 _SUBSETS_AT_ONCE = 16
 #: Working-set bound (floats) of one chunk of the sweep solver.
-_SWEEP_FLOATS = 500_000
+_SWEEP_FLOATS = 2_000_000
 #: A column whose variance left after the columns already in the model is below this
 #: share of its own (it is collinear with them) adds nothing in the sweep solver.
-_COLLINEAR_REMAINDER = 1e-10
+COLLINEAR_REMAINDER = 1e-10
 
 
 def r2_from_correlations(corr_xx: np.ndarray, corr_xy: np.ndarray) -> np.ndarray:
@@ -142,9 +142,16 @@ def dominance_weights(
         (many responses R sharing each matrix).
     ``"sweep"``
         the subsets are visited as a tree, each one elimination step from its
-        parent (:func:`_subset_r2_by_sweep`). No LAPACK call per matrix, so it
+        parent (:func:`_dominance_by_sweep`). No LAPACK call per matrix, so it
         is many times faster for millions of small systems (a bootstrap over
         raters who each read their own cases).
+    ``"shared"``
+        each weight as a quadratic form in the correlations with the cues,
+        ``C_j = r' M_j r``, with ``M_j`` built once per predictor matrix from the
+        inverses of its subset blocks (:func:`_dominance_by_shared_matrix`). The work
+        per response is a few products of p x p matrices whatever the number of
+        subsets, so it is the fastest when many responses share each matrix (a
+        bootstrap of raters who read the same cases).
     """
     if solver not in SUBSET_SOLVERS:
         raise CalibrateError(
@@ -156,6 +163,8 @@ def dominance_weights(
     N, _, R = corr_xy.shape
     if solver == "sweep":
         return _dominance_by_sweep(corr_xx, corr_xy, cue_groups, weights)
+    if solver == "shared":
+        return _dominance_by_shared_matrix(corr_xx, corr_xy, cue_groups, weights)
     out = np.zeros((N, R, n_cues))
     # Accumulate a few subsets at a time, so memory grows with k, not with 2**k.
     masks = np.arange(1, 2**n_cues)
@@ -210,10 +219,14 @@ class _SubsetWalk:
 
     def __init__(self, n_cues: int, weights: np.ndarray, shape: tuple[int, int]):
         self.n_cues = n_cues
-        self.weights = weights
-        self.total = np.zeros((n_cues, *shape))       # (k, R, N)
-        self.pending_masks: list[int] = []
-        self.pending_r2: list[np.ndarray] = []
+        self.fold = _SubsetFold(weights, shape)       # total (k, R, N)
+
+    @property
+    def total(self) -> np.ndarray:
+        return self.fold.total
+
+    def flush(self) -> None:
+        self.fold.flush()
 
     def visit(self, mask, last_cue, labels, xx, xy, explained) -> None:
         """Extend ``mask``, whose highest cue is ``last_cue``, by each later cue.
@@ -223,51 +236,141 @@ class _SubsetWalk:
         (c, R, N) are their correlations given the cues in ``mask``, and
         ``explained`` (R, N) is R^2(mask).
         """
+        # The carried columns are sorted by cue, so a cue's columns and those after it are
+        # a trailing block: slices, not gathered copies.
+        start = 0
         for cue in range(last_cue + 1, self.n_cues):
-            keep = np.flatnonzero(labels >= cue)
             n_pivots = int((labels == cue).sum())
-            if n_pivots == 0:  # a cue without columns adds nothing
-                cxx, cxy, cexp = xx[np.ix_(keep, keep)], xy[keep], explained
-            else:
-                cxx, cxy, cexp = xx, xy, explained
-                for _ in range(n_pivots):
-                    cxx, cxy, cexp = _eliminate_first(cxx, cxy, cexp, keep)
-                    keep = np.arange(cxx.shape[0])
+            cxx, cxy, cexp = xx[start:, start:], xy[start:], explained
+            for _ in range(n_pivots):
+                cxx, cxy, cexp = eliminate_leading(cxx, cxy, cexp)
+            start += n_pivots
             child = mask | 1 << cue
-            self._record(child, cexp)
+            self.fold.record(child, cexp)
             if cue + 1 < self.n_cues:
                 self.visit(child, cue, labels[labels > cue], cxx, cxy, cexp)
 
-    def _record(self, mask: int, r2: np.ndarray) -> None:
+
+def eliminate_leading(xx, xy, explained):
+    """Take column 0 into the model; return the state of the other columns.
+
+    ``xx`` (c, c, N), ``xy`` (c, R, N) are correlations given the columns already in,
+    ``explained`` (R, N) their R^2:
+
+    .. math:: r_{ab \cdot q} = r_{ab} - r_{aq} r_{qb} / r_{qq}, \qquad
+              R^2 \mathrel{+}= r_{qy}^2 / r_{qq}
+
+    A column whose remainder ``r_qq`` is at most :data:`COLLINEAR_REMAINDER` adds nothing.
+    """
+    remainder = xx[0, 0]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        inverse = np.where(remainder <= COLLINEAR_REMAINDER, 0.0, 1.0 / remainder)
+    explained = explained + xy[0] ** 2 * inverse
+    scaled = xx[0, 1:] * inverse                                         # (c', N)
+    xx_next = xx[1:, 1:] - xx[1:, 0][:, None, :] * scaled[None, :, :]
+    xy_next = xy[1:] - scaled[:, None, :] * xy[0][None, :, :]
+    return xx_next, xy_next, explained
+
+
+def _dominance_by_shared_matrix(corr_xx, corr_xy, cue_groups, weights) -> np.ndarray:
+    """Dominance weights as quadratic forms, for many responses sharing each matrix.
+
+    ``R^2(S) = r' P_S r`` with ``P_S`` the inverse of the subset block ``R_SS`` set
+    into a p x p matrix of zeros, and the dominance weights are linear in the subset
+    R^2 values (:func:`dominance_matrix`, entries ``w_{S,j}``), so
+
+    .. math:: C_j = r^\top M_j\, r, \qquad M_j = \sum_S w_{S,j} P_S
+
+    ``M_j`` depends on the predictor matrix alone. The ``P_S`` come from the same tree
+    of eliminations as :func:`_dominance_by_sweep`, here carried on the whole matrix
+    (the sweep operator, whose swept block holds ``-R_SS^{-1}``), with the same rule
+    for a collinear column (it adds nothing). Batch axis last, as there.
+    """
+    N, p, R = corr_xy.shape
+    n_cues = len(cue_groups)
+    cue_of_column = np.full(p, -1)
+    for j, cols in enumerate(cue_groups):
+        cue_of_column[cols] = j
+    columns_of = [np.array(sorted(cols), dtype=np.intp) for cols in cue_groups]
+    forms = np.empty((N, n_cues, p, p))
+    rows = max(1, _SWEEP_FLOATS // ((n_cues + _SUBSETS_AT_ONCE + 1) * p * p))
+    for first in range(0, N, rows):
+        part = slice(first, min(N, first + rows))
+        swept = np.ascontiguousarray(np.transpose(corr_xx[part], (1, 2, 0)))   # (p, p, n)
+        fold = _SubsetFold(weights, swept.shape)
+        _sweep_subsets(0, -1, n_cues, columns_of, swept, np.zeros(p), fold)
+        fold.flush()
+        forms[part] = np.transpose(fold.total, (3, 0, 1, 2))
+    out = np.empty((N, R, n_cues))
+    rows = max(1, _SWEEP_FLOATS // (n_cues * p * R))   # bounds the (n, k, p, R) products
+    for first in range(0, N, rows):
+        part = slice(first, min(N, first + rows))
+        xy = corr_xy[part]                                                  # (n, p, R)
+        left = np.matmul(forms[part].reshape(-1, n_cues * p, p), xy).reshape(-1, n_cues, p, R)
+        out[part] = np.einsum("nkpr,npr->nrk", left, xy)
+    return out
+
+
+class _SubsetFold:
+    """Folds a value per subset (its R^2 per system, or its embedded inverse ``P_S``) into
+    the dominance weights' sums ``sum_S w_{S,j} value_S``, a few subsets at a time."""
+
+    def __init__(self, weights: np.ndarray, shape: tuple[int, ...]):
+        self.weights = weights
+        self.total = np.zeros((weights.shape[1], *shape))   # (k, *shape)
+        self.pending_masks: list[int] = []
+        self.pending: list[np.ndarray] = []
+
+    def record(self, mask: int, value: np.ndarray) -> None:
         self.pending_masks.append(mask)
-        self.pending_r2.append(r2)
+        self.pending.append(value)
         if len(self.pending_masks) == _SUBSETS_AT_ONCE:
             self.flush()
 
     def flush(self) -> None:
         if not self.pending_masks:
             return
-        stacked = np.stack(self.pending_r2)                       # (s, R, N)
-        coef = self.weights[np.array(self.pending_masks)]         # (s, k)
-        self.total += np.tensordot(coef.T, stacked, axes=1)
-        self.pending_masks, self.pending_r2 = [], []
+        coef = self.weights[np.array(self.pending_masks)]       # (s, k)
+        self.total += np.tensordot(coef.T, np.stack(self.pending), axes=1)
+        self.pending_masks, self.pending = [], []
 
 
-def _eliminate_first(xx, xy, explained, keep):
-    """Take column ``keep[0]`` into the model; return the state of ``keep[1:]``.
+def _sweep_subsets(mask, last_cue, n_cues, columns_of, swept, taken, fold) -> None:
+    """Depth-first over the subsets extending ``mask`` by later cues, ``swept`` (p, p, n)
+    being the matrix with the columns ``taken`` (those of ``mask``) swept."""
+    for cue in range(last_cue + 1, n_cues):
+        child, child_taken = swept, taken.copy()
+        for column in columns_of[cue]:
+            child = _sweep_column(child, column)
+            child_taken[column] = 1.0
+        # the swept block is -R_SS^{-1}; the rest of the matrix is not part of P_S
+        fold.record(mask | 1 << cue, child * -(child_taken[:, None, None] * child_taken[None, :, None]))
+        if cue + 1 < n_cues:
+            _sweep_subsets(mask | 1 << cue, cue, n_cues, columns_of, child, child_taken, fold)
 
-    .. math:: r_{ab \\cdot q} = r_{ab} - r_{aq} r_{qb} / r_{qq}, \\qquad
-              R^2 \\mathrel{+}= r_{qy}^2 / r_{qq}
+
+def _sweep_column(swept: np.ndarray, q: int) -> np.ndarray:
+    """The sweep operator on column ``q`` of every system (batch axis last):
+
+    .. math:: a_{qq} \to -1/a_{qq}, \quad a_{iq}, a_{qj} \to a_{iq}/a_{qq}, a_{qj}/a_{qq},
+              \quad a_{ij} \to a_{ij} - a_{iq} a_{qj} / a_{qq}
+
+    after which the block of the swept columns holds ``-R_SS^{-1}`` (Goodnight 1979;
+    from memory). Where the column's remainder (its variance left after the columns
+    already swept) is at most :data:`COLLINEAR_REMAINDER`, it is not swept and its row
+    and column are set to zero instead: later sweeps keep them zero, so the column adds
+    nothing to any inverse, the rule of :func:`eliminate_leading`.
     """
-    pivot, rest = keep[0], keep[1:]
-    remainder = xx[pivot, pivot]
+    remainder = swept[q, q]
+    took = remainder > COLLINEAR_REMAINDER
     with np.errstate(divide="ignore", invalid="ignore"):
-        inverse = np.where(remainder <= _COLLINEAR_REMAINDER, 0.0, 1.0 / remainder)
-    explained = explained + xy[pivot] ** 2 * inverse
-    scaled = xx[pivot, rest] * inverse                                   # (c', N)
-    xx_next = xx[np.ix_(rest, rest)] - xx[rest, pivot][:, None, :] * scaled[None, :, :]
-    xy_next = xy[rest] - scaled[:, None, :] * xy[pivot][None, :, :]
-    return xx_next, xy_next, explained
+        inverse = np.where(took, 1.0 / remainder, 0.0)
+    column = swept[:, q] * inverse                      # (p, n): a_iq / a_qq
+    out = swept - column[:, None, :] * swept[q][None, :, :]
+    out[q] = column
+    out[:, q] = column
+    out[q, q] = -inverse
+    return out
 
 
 def relative_weights(

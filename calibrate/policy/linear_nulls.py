@@ -122,9 +122,14 @@ def fit_rounded_normal(X: np.ndarray, y: np.ndarray, groups: np.ndarray, n_group
 
 def _ascent_direction(grad, hess, eye):
     """Newton direction ``-H^-1 g`` where ``-H`` is positive definite, else the BHHH one."""
-    info = -hess[0]
+    second, scores = hess
+    info = -second
     definite = np.linalg.eigvalsh(info)[:, 0] > 1e-10 * np.maximum(np.abs(np.einsum("gii->g", info)), 1e-300)
-    curvature = np.where(definite[:, None, None], info, hess[1] + 1e-9 * eye)
+    curvature = info.copy()
+    if not definite.all():
+        # the outer product of the row scores, only where it is used
+        far = np.flatnonzero(~definite)
+        curvature[far] = np.matmul(np.swapaxes(scores[far], 1, 2), scores[far]) + 1e-9 * eye
     direction = np.linalg.solve(curvature, grad[..., None])[..., 0]
     return direction, np.einsum("gi,gi->g", grad, direction)
 
@@ -150,7 +155,8 @@ class _RowBlocks:
 
     def loglik(self, theta, which, derivatives=False):
         """Log-likelihood of groups ``which`` at ``theta`` (len(which), q + 1); with
-        ``derivatives`` also the gradient and ``(hessian, outer product of row scores)``."""
+        ``derivatives`` also the gradient and ``(hessian, row scores)`` (the scores'
+        outer product is the BHHH curvature, formed where the hessian is not used)."""
         W = self.W[which]
         q = W.shape[2]
         mu = np.matmul(W, theta[:, :q, None])[..., 0]
@@ -177,13 +183,12 @@ class _RowBlocks:
         Wt = np.swapaxes(W, 1, 2)
         scores = np.concatenate([d_mu[..., None] * W, d_log_sigma[..., None]], axis=2)
         grad = scores.sum(axis=1)
-        outer = np.matmul(np.swapaxes(scores, 1, 2), scores)
         G = W.shape[0]
         hess = np.empty((G, q + 1, q + 1))
         hess[:, :q, :q] = np.matmul(Wt * h_mumu[:, None, :], W)
         hess[:, :q, q] = hess[:, q, :q] = np.matmul(Wt, h_mus[..., None])[..., 0]
         hess[:, q, q] = h_ss.sum(axis=1)
-        return ll, grad, (hess, outer)
+        return ll, grad, (hess, scores)
 
 
 def whole_step_bounds(y: np.ndarray, scale: str, scale_min: float | None,

@@ -22,7 +22,11 @@ the work is millions of tiny systems (raters x resamples). Blocks of the same
 size are stacked so one product gives several blocks' cross-products, and the
 2**k subset R^2 values of the dominance weights come from the elimination tree
 of :func:`calibrate.policy.importance.dominance_weights` (``solver="sweep"``) rather
-than one linear solve per subset and system.
+than one linear solve per subset and system. When many raters read the same cases
+the work is the other way round (few cue matrices, many raters each): each
+resample's dominance weights are quadratic forms in the raters' correlations with
+the cues, their matrices built once per resample (``solver="shared"``), and the
+leave-one-out sums are the column totals less each case's terms.
 
 References
 ----------
@@ -37,7 +41,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
-from .importance import cue_importance, importance_shares, r2_from_correlations
+from .importance import (COLLINEAR_REMAINDER, cue_importance, eliminate_leading,
+                         importance_shares, r2_from_correlations)
 
 #: Bound the float count of one bootstrap chunk (resamples x raters x subsets).
 _CHUNK_ELEMENTS = 16_000_000
@@ -48,6 +53,12 @@ _STACK_FLOATS = 4_000_000
 #: 120 and 200 cases; mostly 93-97%); below it the strongest cue's intervals covered
 #: 89-92.5% at 40 and 80 cases (DEVELOPERS.md, "Importance-share intervals").
 SHARE_INTERVAL_FULL_COVERAGE_CASES = 120
+#: Raters sharing each resample's cue matrix from which the dominance weights are found as
+#: quadratic forms (``solver="shared"``) rather than by the elimination tree per rater.
+#: Measured on 1,000 resamples, one thread: 8 cues, the tree 0.12 s with 32 raters and 0.21 s
+#: with 64, the quadratic forms 0.15-0.18 s at any count (4.9 s against 0.7 s with 500
+#: raters); 4 cues, the two even at about 20 raters.
+SHARED_SOLVER_FROM = 48
 
 
 def share_interval_note(n_cases: int) -> str | None:
@@ -143,7 +154,7 @@ def _column_quantiles(values: np.ndarray, n_finite: np.ndarray, level: np.ndarra
 
 
 def weighted_correlations(
-    X: np.ndarray, Y: np.ndarray, counts: np.ndarray
+    X: np.ndarray, Y: np.ndarray, counts: np.ndarray, *, leave_one_out: bool = False
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Correlations of cues and judgments under each vector of case counts.
 
@@ -162,7 +173,10 @@ def weighted_correlations(
 
     with :math:`\\tilde a` centred at the full-sample mean and :math:`\\bar a_c`
     its count-weighted mean. Every sum over cases comes from one matrix
-    product of the counts with a table of per-case terms.
+    product of the counts with a table of per-case terms. With ``leave_one_out``
+    the n leave-one-out vectors (ones with one zero) follow the given counts in
+    the results, their sums taken as the column totals less each case's own terms
+    instead of n more rows of the product.
     """
     n, p = X.shape[-2:]
     R = Y.shape[-1]
@@ -170,9 +184,14 @@ def weighted_correlations(
     lead = counts.shape[:-2]
     Xc = X - X.mean(axis=-2, keepdims=True)
     Yc = Y - Y.mean(axis=-2, keepdims=True)
+    # The cue cross-products once per pair (Sxx is symmetric): with one rater per block,
+    # 54 columns of per-case terms instead of 82 for 8 cues.
+    upper_i, upper_j = np.triu_indices(p)
+    pair_of = np.zeros((p, p), dtype=np.intp)
+    pair_of[upper_i, upper_j] = pair_of[upper_j, upper_i] = np.arange(upper_i.size)
+    n_pairs = upper_i.size
     terms = np.concatenate([
-        Xc, Yc, Yc**2,
-        (Xc[..., :, None] * Xc[..., None, :]).reshape(*lead, n, p * p),
+        Xc, Yc, Yc**2, Xc[..., upper_i] * Xc[..., upper_j],
         (Xc[..., :, None] * Yc[..., None, :]).reshape(*lead, n, p * R),
     ], axis=-1)
     # One BLAS product per block, stacked blocks included: with BLAS on one thread (as the
@@ -180,12 +199,16 @@ def weighted_correlations(
     # against 0.097 s for numpy's own einsum loop (the same sums to 3e-14).
     sums = counts @ terms
     total = counts.sum(axis=-1)[..., None]
+    if leave_one_out:
+        sums = np.concatenate([sums, terms.sum(axis=-2, keepdims=True) - terms], axis=-2)
+        total = np.concatenate([total, np.full((*lead, n, 1), n - 1.0)], axis=-2)
+        N += n
     x_mean = sums[..., :p] / total
     y_mean = sums[..., p:p + R] / total
     at = p + 2 * R
-    Sxx = sums[..., at:at + p * p].reshape(*lead, N, p, p)
+    Sxx = sums[..., at:at + n_pairs][..., pair_of.ravel()].reshape(*lead, N, p, p)
     Sxx -= total[..., None] * x_mean[..., :, None] * x_mean[..., None, :]
-    Sxy = sums[..., at + p * p:].reshape(*lead, N, p, R)
+    Sxy = sums[..., at + n_pairs:].reshape(*lead, N, p, R)
     Sxy -= total[..., None] * x_mean[..., :, None] * y_mean[..., None, :]
     Syy = sums[..., p + R:at] - total * y_mean**2
     dx = np.sqrt(np.clip(np.diagonal(Sxx, axis1=-2, axis2=-1), 0.0, None))
@@ -245,10 +268,11 @@ class _BlockCounts:
         self._held: dict[int, np.ndarray] = {}
 
     def take(self, unit: _ResampleUnit) -> np.ndarray:
-        """(n_boot + n, n): bootstrap counts, then the n leave-one-out vectors."""
+        """(n_boot, n) bootstrap counts (the leave-one-out vectors are implied:
+        ``weighted_correlations(..., leave_one_out=True)``)."""
         block = unit.block
         if block not in self._held:
-            self._held[block] = _draw_counts(self._generators[block], unit.n_cases, self._n_boot)
+            self._held[block] = _draw_boot_counts(self._generators[block], unit.n_cases, self._n_boot)
         counts = self._held[block]
         self._uses[block] -= 1
         if not self._uses[block]:
@@ -256,12 +280,16 @@ class _BlockCounts:
         return counts
 
 
+def _draw_boot_counts(generator: np.random.Generator, n: int, n_boot: int) -> np.ndarray:
+    """(n_boot, n): how often each case is drawn in each resample of n cases."""
+    draws = generator.integers(0, n, size=(n_boot, n))
+    draws += n * np.arange(n_boot)[:, None]   # resample b counts into bins b*n .. b*n + n-1
+    return np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n).astype(float)
+
+
 def _draw_counts(generator: np.random.Generator, n: int, n_boot: int) -> np.ndarray:
-    draws = generator.integers(0, n, size=(n_boot, n)) + n * np.arange(n_boot)[:, None]
-    counts = np.empty((n_boot + n, n))
-    counts[:n_boot] = np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n)
-    counts[n_boot:] = 1.0 - np.eye(n)
-    return counts
+    """(n_boot + n, n): the bootstrap counts, then the n leave-one-out vectors."""
+    return np.vstack([_draw_boot_counts(generator, n, n_boot), 1.0 - np.eye(n)])
 
 
 def case_bootstrap_intervals(
@@ -375,48 +403,91 @@ def _batch_correlations(batch, counts: _BlockCounts, n_boot: int):
             chosen = positions[first:first + step]
             if len(chosen) == 1:
                 unit = batch[chosen[0]]
-                parts = [part[None] for part in weighted_correlations(unit.X, unit.Y,
-                                                                      counts.take(unit))]
+                parts = [part[None] for part in weighted_correlations(
+                    unit.X, unit.Y, counts.take(unit), leave_one_out=True)]
             else:
                 parts = weighted_correlations(
                     np.stack([batch[i].X for i in chosen]), np.stack([batch[i].Y for i in chosen]),
-                    np.stack([counts.take(batch[i]) for i in chosen]))
+                    np.stack([counts.take(batch[i]) for i in chosen]), leave_one_out=True)
             for slot, i in enumerate(chosen):
                 span = slice(rows[i], rows[i + 1])
                 corr_xx[span], corr_xy[span], bad[span] = (part[slot] for part in parts)
     return corr_xx, corr_xy, bad
 
 
+#: Systems per chunk of :func:`_resampled_r2` (300,000 systems of 8 cues: 0.23 s in chunks of
+#: 2,048, 0.31 s by one solve per system, one thread on the shared machine).
+_R2_CHUNK_SYSTEMS = 2_048
+
+
+def _resampled_r2(corr_xx: np.ndarray, corr_xy: np.ndarray) -> np.ndarray:
+    """``r' R^{-1} r`` of every resample, (N, R): :func:`r2_from_correlations`'s values.
+
+    With one or a few raters per cue matrix (raters who read cases of their own) there are
+    millions of p x p systems and LAPACK's call per system costs more than its arithmetic;
+    there the columns are eliminated one by one across the whole stack (batch axis last,
+    :func:`calibrate.policy.importance.eliminate_leading`), ``R^2`` adding
+    ``r_{qy.S}^2 / r_{qq.S}`` at each. A system in which some column's remainder is at
+    most the elimination's collinearity bound goes to :func:`r2_from_correlations`, so
+    every system is decided as before.
+    """
+    N, p, R = corr_xy.shape
+    if R >= SHARED_SOLVER_FROM or N == 0 or p == 0:
+        return r2_from_correlations(corr_xx, corr_xy)
+    out = np.empty((N, R))
+    for first in range(0, N, _R2_CHUNK_SYSTEMS):
+        part = slice(first, min(N, first + _R2_CHUNK_SYSTEMS))
+        xx = np.ascontiguousarray(np.transpose(corr_xx[part], (1, 2, 0)))   # (p, p, n)
+        xy = np.ascontiguousarray(np.transpose(corr_xy[part], (1, 2, 0)))   # (p, R, n)
+        explained = np.zeros(xy.shape[1:])
+        smallest = np.full(xx.shape[2], np.inf)
+        for _ in range(p):
+            smallest = np.minimum(smallest, xx[0, 0])
+            xx, xy, explained = eliminate_leading(xx, xy, explained)
+        near = ~(smallest > COLLINEAR_REMAINDER)
+        if near.any():
+            where = np.flatnonzero(near) + first
+            explained[:, near] = r2_from_correlations(corr_xx[where], corr_xy[where]).T
+        out[part] = explained.T
+    return out
+
+
 def _intervals_for_batch(batch, counts: _BlockCounts, cue_groups, out: PolicyIntervals, *,
                          n_boot, alpha, method, r2, imp, n_imp):
     corr_xx, corr_xy, bad = _batch_correlations(batch, counts, n_boot)
-    all_r2 = r2_from_correlations(corr_xx, corr_xy)
+    all_r2 = _resampled_r2(corr_xx, corr_xy)
     all_r2 = np.where(bad, np.nan, np.clip(all_r2, 0.0, 1.0))
     # The importance of each unit's first n_imp resamples; the percentile interval of
     # the shares needs no jackknife rows.
     starts = np.cumsum([0] + [n_boot + u.n_cases for u in batch])[:-1]
     rows = np.concatenate([np.arange(s, s + n_imp) for s in starts])
-    # Millions of small systems here: the elimination tree beats one solve per subset.
-    all_imp, _ = cue_importance(corr_xx[rows], corr_xy[rows], cue_groups, method=method, solver="sweep")
+    # Millions of small systems here: the elimination tree beats one solve per subset,
+    # and where many raters share each resample's cue matrix (they read the same cases)
+    # the quadratic forms built once per matrix beat both.
+    solver = "shared" if batch[0].Y.shape[1] >= SHARED_SOLVER_FROM else "sweep"
+    all_imp, _ = cue_importance(corr_xx[rows], corr_xy[rows], cue_groups, method=method, solver=solver)
     all_imp = np.where(bad[rows][:, :, None], np.nan, all_imp)
     with np.errstate(invalid="ignore", divide="ignore"):
         all_shares = importance_shares(all_imp, all_r2[rows])
-    start = start_imp = 0
-    for unit in batch:
-        stop = start + n_boot + unit.n_cases
-        boot = slice(start, start + n_boot)
-        jack = slice(start + n_boot, stop)
-        imp_boot = slice(start_imp, start_imp + n_imp)
-        local = unit.raters
+    # Every unit of one size at once: the intervals are column by column, so the raters
+    # of many units (one each when raters read cases of their own) are columns of one call.
+    by_cases: dict[int, list[int]] = {}
+    for position, unit in enumerate(batch):
+        by_cases.setdefault(unit.n_cases, []).append(position)
+    for n_cases, positions in by_cases.items():
+        chosen = np.array(positions)
+        local = np.concatenate([batch[i].raters for i in positions])
+        spans = starts[chosen][:, None]
+        columns = lambda offsets: np.swapaxes(all_r2[spans + offsets], 0, 1).reshape(offsets.size, -1)
+        boot_r2 = columns(np.arange(n_boot))
+        jack_r2 = columns(n_boot + np.arange(n_cases))
+        imp_spans = (n_imp * chosen)[:, None] + np.arange(n_imp)
+        boot_shares = np.swapaxes(all_shares[imp_spans], 0, 1).reshape(n_imp, -1)
         with np.errstate(invalid="ignore", divide="ignore"):
-            lo, hi = bca_interval(np.sqrt(r2[local]), np.sqrt(all_r2[boot]),
-                                  np.sqrt(all_r2[jack]), alpha=alpha)
+            lo, hi = bca_interval(np.sqrt(r2[local]), np.sqrt(boot_r2), np.sqrt(jack_r2), alpha=alpha)
             share_hat = importance_shares(imp[local], r2[local]).ravel()
         k = share_hat.size // local.size
-        s_lo, s_hi = percentile_interval(share_hat, all_shares[imp_boot].reshape(n_imp, -1),
-                                         alpha=alpha)
+        s_lo, s_hi = percentile_interval(share_hat, boot_shares, alpha=alpha)
         out.r_low[local], out.r_high[local] = lo, hi
         out.share_low[local] = s_lo.reshape(local.size, k)
         out.share_high[local] = s_hi.reshape(local.size, k)
-        start = stop
-        start_imp += n_imp

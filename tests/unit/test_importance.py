@@ -144,12 +144,13 @@ def _correlations(data):
     [[3], [0, 1, 2], [4]],   # cues need not follow the column order
     [[0], [], [1, 2, 3, 4]],  # a cue with no column in this fit
 ])
-def test_elimination_tree_equals_statsmodels_brute_force(groups):
+@pytest.mark.parametrize("solver", ["sweep", "shared"])
+def test_elimination_tree_equals_statsmodels_brute_force(groups, solver):
     rng = np.random.default_rng(len(groups))
     X = rng.normal(size=(70, 5)) @ rng.normal(size=(5, 5))
     y = X @ rng.normal(size=5) + rng.normal(size=70)
     corr = _correlations(np.column_stack([X, y]))
-    swept = dominance_weights(corr[None, :5, :5], corr[None, :5, 5:], groups, solver="sweep")
+    swept = dominance_weights(corr[None, :5, :5], corr[None, :5, 5:], groups, solver=solver)
     present = [g for g in groups if g]
     expected = brute_force_dominance(X, y, present)
     ours = swept[0, 0, [j for j, g in enumerate(groups) if g]]
@@ -158,7 +159,8 @@ def test_elimination_tree_equals_statsmodels_brute_force(groups):
 
 
 @pytest.mark.filterwarnings("ignore:The design matrix is rank-deficient")  # the point of the test
-def test_elimination_tree_treats_an_exactly_collinear_column_as_a_projection():
+@pytest.mark.parametrize("solver", ["sweep", "shared"])
+def test_elimination_tree_treats_an_exactly_collinear_column_as_a_projection(solver):
     # Column 2 = column 0 + column 1: statsmodels' pseudo-inverse R^2 is the reference.
     rng = np.random.default_rng(8)
     base = rng.normal(size=(50, 3))
@@ -166,11 +168,12 @@ def test_elimination_tree_treats_an_exactly_collinear_column_as_a_projection():
     y = X @ [0.4, -0.3, 0.0, 0.6] + rng.normal(size=50)
     corr = _correlations(np.column_stack([X, y]))
     groups = [[0], [1], [2], [3]]
-    swept = dominance_weights(corr[None, :4, :4], corr[None, :4, 4:], groups, solver="sweep")
+    swept = dominance_weights(corr[None, :4, :4], corr[None, :4, 4:], groups, solver=solver)
     np.testing.assert_allclose(swept[0, 0], brute_force_dominance(X, y, groups), atol=1e-9)
 
 
-def test_both_solvers_agree_on_many_stacked_systems():
+@pytest.mark.parametrize("solver", ["sweep", "shared"])
+def test_both_solvers_agree_on_many_stacked_systems(solver):
     # Many small systems with several responses each, as in a case bootstrap; the
     # solve path's own accuracy is checked against statsmodels above.
     rng = np.random.default_rng(13)
@@ -181,7 +184,7 @@ def test_both_solvers_agree_on_many_stacked_systems():
     groups = [[0], [1, 2], [3], [4, 5], [6]]
     args = (corr[:, :7, :7], corr[:, :7, 7:], groups)
     solved = dominance_weights(*args)
-    swept = dominance_weights(*args, solver="sweep")
+    swept = dominance_weights(*args, solver=solver)
     np.testing.assert_allclose(swept, solved, rtol=1e-10, atol=1e-13)
     r2 = (corr[:, :7, 7:] * np.linalg.solve(corr[:, :7, :7], corr[:, :7, 7:])).sum(axis=1)
     np.testing.assert_allclose(swept.sum(axis=2), r2, rtol=1e-11)
@@ -190,3 +193,19 @@ def test_both_solvers_agree_on_many_stacked_systems():
 def test_unknown_solver_is_a_clear_error():
     with pytest.raises(CalibrateError, match="'solver' option of dominance_weights"):
         dominance_weights(np.eye(2)[None], np.zeros((1, 2, 1)), [[0], [1]], solver="qr")
+
+
+def test_shared_matrix_solver_keeps_a_collinear_column_out_only_where_it_is_collinear():
+    # Half the systems have column 1 equal to column 0, the other half do not: each half
+    # must equal the elimination tree on that half alone, many responses per matrix.
+    rng = np.random.default_rng(21)
+    data = rng.normal(size=(30, 60, 12))
+    data[:15, :, 1] = data[:15, :, 0]
+    data -= data.mean(axis=1, keepdims=True)
+    data /= np.sqrt((data**2).sum(axis=1, keepdims=True))
+    corr = np.swapaxes(data, 1, 2) @ data
+    groups = [[0], [1], [2, 3], [4]]
+    shared = dominance_weights(corr[:, :5, :5], corr[:, :5, 5:], groups, solver="shared")
+    for half in (slice(0, 15), slice(15, 30)):
+        swept = dominance_weights(corr[half, :5, :5], corr[half, :5, 5:], groups, solver="sweep")
+        np.testing.assert_allclose(shared[half], swept, rtol=1e-10, atol=1e-13)

@@ -43,6 +43,19 @@ def test_weighted_correlations_match_numpy_frequency_weights():
     assert not bad.any()
 
 
+def test_leave_one_out_sums_from_totals_equal_the_explicit_leave_one_out_counts():
+    rng = np.random.default_rng(12)
+    n = 30
+    X = rng.normal(size=(2, n, 4))
+    Y = rng.normal(size=(2, n, 3)) + X[..., :1]
+    counts = np.stack([rng.multinomial(n, np.full(n, 1 / n), size=5) for _ in range(2)]).astype(float)
+    explicit = weighted_correlations(X, Y, np.concatenate([counts, np.broadcast_to(
+        1.0 - np.eye(n), (2, n, n))], axis=1))
+    implied = weighted_correlations(X, Y, counts, leave_one_out=True)
+    for ours, expected in zip(implied, explicit):
+        np.testing.assert_allclose(ours, expected, rtol=1e-12, atol=1e-14)
+
+
 def test_a_resample_that_leaves_a_cue_constant_is_marked_bad():
     X = np.array([[0.0, 1.0], [0.0, 2.0], [1.0, 0.5], [1.0, 3.0]])
     Y = np.array([[1.0], [2.0], [0.0], [4.0]])
@@ -142,3 +155,19 @@ def test_small_chunks_give_the_same_intervals(monkeypatch):
     pieces = _batched(X, y, groups, fitted, case_row, seed=2)
     for field in ("r_low", "r_high", "share_low", "share_high"):
         np.testing.assert_allclose(getattr(pieces, field), getattr(whole, field), rtol=1e-12)
+
+
+def test_resampled_r2_by_elimination_equals_the_solve_and_hands_collinear_systems_to_it():
+    from calibrate.policy.importance import r2_from_correlations
+
+    rng = np.random.default_rng(14)
+    data = rng.normal(size=(300, 30, 6))
+    data[:5, :, 2] = data[:5, :, 0] - data[:5, :, 1]   # exactly collinear cues in 5 systems
+    data -= data.mean(axis=1, keepdims=True)
+    data /= np.sqrt((data**2).sum(axis=1, keepdims=True))
+    corr = np.swapaxes(data, 1, 2) @ data
+    corr[5, :4, :4] = np.eye(4)   # a resample marked bad gets the identity
+    xx, xy = corr[:, :4, :4], corr[:, :4, 4:]
+    ours = resampling._resampled_r2(xx, xy)
+    expected = np.vstack([r2_from_correlations(xx[i:i + 1], xy[i:i + 1]) for i in range(300)])
+    np.testing.assert_allclose(ours, expected, rtol=1e-12, atol=1e-13)
