@@ -34,6 +34,7 @@ from ..data.cues import CueDesign
 from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError, DataProblem
 from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp, r_squared_from_sscp
+from ..policy.resampling import held_resamples
 from ..policy.stacked import scaled_cue_factor
 from ..pvalues import holm_adjust
 from ..result_base import ResultMixin
@@ -429,9 +430,8 @@ def drift_resamples(n_resamples: int, n_raters: int) -> int:
     """Resamples for the R_s change intervals: as asked up to
     :data:`DRIFT_FULL_RESAMPLE_RATERS` raters, then raters x resamples held to
     :data:`DRIFT_RESAMPLE_WORK`, never under :data:`DRIFT_MIN_RESAMPLES` (nor over the ask)."""
-    if n_raters <= DRIFT_FULL_RESAMPLE_RATERS:
-        return n_resamples
-    return min(n_resamples, max(DRIFT_MIN_RESAMPLES, DRIFT_RESAMPLE_WORK // n_raters))
+    return held_resamples(n_resamples, n_raters, full_up_to=DRIFT_FULL_RESAMPLE_RATERS,
+                          work=DRIFT_RESAMPLE_WORK, at_least=DRIFT_MIN_RESAMPLES)
 
 
 __all__ = ["DRIFT_FLAG", "DriftResult", "RaterDrift", "drift", "drift_resamples"]

@@ -124,7 +124,9 @@ class _StepPlan:
     """What the threshold search needs from one rater's design, computed once.
 
     ``Q`` is an orthonormal basis of [1, X]; per searched column, the case order,
-    the admissible counts below a threshold and ``1 / d'Md`` for each.
+    the admissible counts below a threshold and ``1 / d'Md`` for each; ``weights`` holds
+    the same ``1 / d'Md`` at row ``count - 1`` of a column of zeros (one row per case up
+    to the largest count), for the cases-first search.
     """
 
     Q: np.ndarray
@@ -132,14 +134,21 @@ class _StepPlan:
     orders: tuple[np.ndarray, ...]
     cuts: tuple[np.ndarray, ...]
     inverse_spread: tuple[np.ndarray, ...]
+    weights: tuple[np.ndarray, ...] = ()
 
 
 def _plan_steps(X: np.ndarray, search_columns: list[int], min_side: int) -> _StepPlan:
     n = X.shape[0]
     Q, r_factor = np.linalg.qr(np.column_stack([np.ones(n), X]))
+    return _plan_from_basis(X, Q, r_factor, search_columns, min_side)
+
+
+def _plan_from_basis(X: np.ndarray, Q: np.ndarray, r_factor: np.ndarray, search_columns: list[int],
+                     min_side: int) -> _StepPlan:
+    """:func:`_plan_steps` from the QR factors of ``[1, X]``."""
     diag = np.abs(np.diag(r_factor))
     Q = Q[:, diag > 1e-10 * diag.max()]
-    positions, orders, cuts_all, inverse = [], [], [], []
+    positions, orders, cuts_all, inverse, weights = [], [], [], [], []
     for pos, j in enumerate(search_columns):
         order = np.argsort(X[:, j], kind="stable")
         cuts = _candidate_cuts(X[order, j], min_side)
@@ -154,11 +163,74 @@ def _plan_steps(X: np.ndarray, search_columns: list[int], min_side: int) -> _Ste
             orders.append(order)
             cuts_all.append(cuts[usable])
             inverse.append(1.0 / spread[usable])
-    return _StepPlan(Q, tuple(positions), tuple(orders), tuple(cuts_all), tuple(inverse))
+            weight = np.zeros((int(cuts[usable][-1]), 1))
+            weight[cuts[usable] - 1, 0] = inverse[-1]
+            weights.append(weight)
+    return _StepPlan(Q, tuple(positions), tuple(orders), tuple(cuts_all), tuple(inverse), tuple(weights))
+
+
+def _plans_of_blocks(Xs: list[np.ndarray], search_columns: list[int], min_side: int) -> list[_StepPlan]:
+    """:func:`_plan_steps` of many designs at once, one batched pass per case count: the QR
+    factors in one call (each matrix factored as on its own), and per searched column the
+    case orders, the admissible counts and ``d'Md`` of every design as arrays. A design
+    whose ``[1, X]`` is not of full rank takes :func:`_plan_from_basis` on its own."""
+    plans: list[_StepPlan | None] = [None] * len(Xs)
+    by_size: dict[int, list[int]] = {}
+    for i, X in enumerate(Xs):
+        by_size.setdefault(X.shape[0], []).append(i)
+    for n, members in by_size.items():
+        X = np.stack([Xs[i] for i in members])                                  # (B, n, p)
+        Q, r_factor = np.linalg.qr(np.concatenate([np.ones((len(members), n, 1)), X], axis=2))
+        diag = np.abs(np.diagonal(r_factor, axis1=1, axis2=2))
+        full = (diag > 1e-10 * diag.max(axis=1, keepdims=True)).all(axis=1)
+        for b in np.flatnonzero(~full):
+            plans[members[b]] = _plan_from_basis(Xs[members[b]], Q[b], r_factor[b], search_columns, min_side)
+        keep = np.flatnonzero(full)
+        if not keep.size:
+            continue
+        X, Q = X[keep], Q[keep]
+        count = np.arange(1, n)
+        first_row = (np.arange(keep.size) * n)[:, None]
+        per_column = []
+        for j in search_columns:
+            order = np.argsort(X[:, :, j], axis=1, kind="stable")
+            rows_in_order = (order + first_row).ravel()
+            xs = X[:, :, j].ravel()[rows_in_order].reshape(order.shape)
+            admissible = (xs[:, 1:] > xs[:, :-1]) & (count >= min_side) & (count <= n - min_side)
+            q_run = np.cumsum(Q.reshape(-1, Q.shape[2])[rows_in_order].reshape(Q.shape), axis=1)[:, :-1]
+            spread = count - np.einsum("bkq,bkq->bk", q_run, q_run)             # d'Md
+            per_column.append((order, admissible & (spread > 1e-8 * count), spread))
+        for b, i in enumerate(keep):
+            positions, orders, cuts_all, inverse, weights = [], [], [], [], []
+            for pos, (order, usable, spread) in enumerate(per_column):
+                if not usable[b].any():
+                    continue
+                cuts = count[usable[b]]
+                positions.append(pos)
+                orders.append(order[b])
+                cuts_all.append(cuts)
+                inverse.append(1.0 / spread[b, usable[b]])
+                weight = np.zeros((int(cuts[-1]), 1))
+                weight[cuts - 1, 0] = inverse[-1]
+                weights.append(weight)
+            plans[members[i]] = _StepPlan(Q[b], tuple(positions), tuple(orders), tuple(cuts_all),
+                                          tuple(inverse), tuple(weights))
+    return plans
+
+
+#: From this many response sets a search lays cases first (sets along the contiguous
+#: axis), where each step of a running sum is one vector operation over the sets.
+_CASES_FIRST_FROM = 96
+#: Sets searched together in the cases-first layout (its arrays stay near the cache).
+_CASES_FIRST_SETS = 512
+#: Cases per block of the blocked running sum.
+_RUN_BLOCK = 12
 
 
 def _best_steps(plan: _StepPlan, responses: np.ndarray, *, locate: bool = False):
     """Statistic per response row; with ``locate`` also the winning (column position, count below)."""
+    if not locate and responses.shape[0] >= _CASES_FIRST_FROM and plan.weights:
+        return _best_steps_cases_first(plan, responses), None
     resid = responses - (responses @ plan.Q) @ plan.Q.T
     rss = np.einsum("sn,sn->s", resid, resid)
     S = responses.shape[0]
@@ -180,6 +252,45 @@ def _best_steps(plan: _StepPlan, responses: np.ndarray, *, locate: bool = False)
     with np.errstate(invalid="ignore", divide="ignore"):
         statistic = np.where(np.isfinite(best), best / rss, np.nan)
     return statistic, where
+
+
+def _best_steps_cases_first(plan: _StepPlan, responses: np.ndarray) -> np.ndarray:
+    """The statistic of :func:`_best_steps` with the response sets along the contiguous axis.
+
+    The running sums ``e'd`` are formed in blocks of :data:`_RUN_BLOCK` cases (a sum
+    within each block, then the blocks' totals carried on), so that every step is one
+    vector operation over all the sets; the sums differ from a case-by-case running sum
+    only by rounding (about 1e-15 of their size). Non-admissible counts get weight zero
+    in ``plan.weights``, so the largest weighted square is the largest admissible gain.
+    """
+    S, n = responses.shape
+    out = np.empty(S)
+    longest = max(w.shape[0] for w in plan.weights)
+    padded = -(-longest // _RUN_BLOCK) * _RUN_BLOCK
+    for s0 in range(0, S, _CASES_FIRST_SETS):
+        Yt = np.ascontiguousarray(responses[s0:s0 + _CASES_FIRST_SETS].T)      # (n, sets)
+        resid = Yt - plan.Q @ (plan.Q.T @ Yt)
+        rss = np.einsum("ns,ns->s", resid, resid)
+        best = np.full(Yt.shape[1], -np.inf)
+        run = np.empty((padded, Yt.shape[1]))
+        blocks = run.reshape(padded // _RUN_BLOCK, _RUN_BLOCK, -1)
+        for order, weight in zip(plan.orders, plan.weights):
+            reach = weight.shape[0]
+            np.take(resid, order[:reach], axis=0, out=run[:reach])
+            run[reach:] = 0.0
+            for i in range(1, _RUN_BLOCK):
+                np.add(blocks[:, i], blocks[:, i - 1], out=blocks[:, i])
+            totals = blocks[:, -1]
+            for b in range(1, totals.shape[0]):
+                np.add(totals[b], totals[b - 1], out=totals[b])
+            blocks[1:, :-1] += totals[:-1, None, :]
+            gains = run[:reach]
+            np.square(gains, out=gains)
+            gains *= weight
+            np.maximum(best, gains.max(axis=0), out=best)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            out[s0:s0 + Yt.shape[1]] = np.where(np.isfinite(best), best / rss, np.nan)
+    return out
 
 
 def step_search(X: np.ndarray, responses: np.ndarray, search_columns: list[int],
@@ -339,9 +450,14 @@ def cutoff_check(
     blocks: dict[tuple[bytes, int], list[int]] = {}
     for g, side in sides.items():
         blocks.setdefault((rows.design_row[per_rater[g]].tobytes(), side), []).append(g)
-    for (_, side), members in blocks.items():
+    plans = {}
+    for side in set(sides.values()):
+        keys = [key for key in blocks if key[1] == side]
+        designs = [rows.X[per_rater[blocks[key][0]]] for key in keys]
+        plans.update(zip(keys, _plans_of_blocks(designs, search, side)))
+    for key, members in blocks.items():
         X = rows.X[per_rater[members[0]]]
-        plan = _plan_steps(X, search, side)
+        plan = plans[key]
         Y = np.stack([rows.y[per_rater[g]] for g in members])
         stat, where = _best_steps(plan, Y, locate=True)
         tested = []
@@ -376,7 +492,7 @@ def cutoff_check(
         p_values = sequential_p_values(plan, stat[tested], simulate, n_sim, enough_hits)
         for i, p_value in zip(tested, p_values):
             g = members[i]
-            results[g] = _rater_result(rows.raters[g], X, Y[i], search, where[i], stat[i],
+            results[g] = _rater_result(rows.raters[g], X, Y[i], plan, search, where[i], stat[i],
                                        p_value, design, alpha)
     adjusted = holm_adjust(np.array([r.p_value for r in results]))
     results = [replace(r, p_adjusted=float(a)) for r, a in zip(results, adjusted)]
@@ -389,22 +505,28 @@ def _untested(name: str, n: int) -> RaterCutoff:
                        float("nan"), float("nan"), float("nan"), False)
 
 
-def _rater_result(name, X, y, search, where, observed, p_value, design, alpha) -> RaterCutoff:
-    """One tested rater's best threshold, its step and gain, and the p-value."""
+def _rater_result(name, X, y, plan, search, where, observed, p_value, design, alpha) -> RaterCutoff:
+    """One tested rater's best threshold, its step and gain, and the p-value.
+
+    From the plan, without a refit: the linear policy's residuals ``e = y - QQ'y``, and by
+    the Frisch-Waugh-Lovell theorem the step's least-squares weight in ``[1, X, d]`` is
+    ``e'd / d'Md`` (:func:`step_coefficient` gives the same from the full fit).
+    """
     n = y.size
     column = search[where[0]]
-    order = np.argsort(X[:, column], kind="stable")
+    entry = plan.positions.index(int(where[0]))
+    order = plan.orders[entry]
     below_count = int(where[1])
     xs = X[order, column]
     threshold = 0.5 * (xs[below_count - 1] + xs[below_count])
     below = X[:, column] < threshold
     tss = float(((y - y.mean()) ** 2).sum())
-    linear = np.column_stack([np.ones(n), X])
-    coef, *_ = np.linalg.lstsq(linear, y, rcond=None)
-    rss0 = float(((y - linear @ coef) ** 2).sum())
+    resid = y - plan.Q @ (plan.Q.T @ y)
+    rss0 = float(resid @ resid)
+    inverse = plan.inverse_spread[entry][np.searchsorted(plan.cuts[entry], below_count)]
     return RaterCutoff(
         rater=name, n=n, cue=design.cue_of_column[column], threshold=float(threshold),
-        n_below=int(below.sum()), step=step_coefficient(X, y, below),
+        n_below=int(below.sum()), step=float(resid[order[:below_count]].sum() * inverse),
         delta_r2=float(observed * rss0 / tss), statistic=float(observed),
         p_value=float(p_value), p_adjusted=float("nan"), flagged=bool(p_value < alpha),
     )

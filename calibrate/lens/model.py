@@ -50,7 +50,7 @@ from ..data.rows import JudgmentRows, RaterLookup, line_up
 from ..errors import DataError
 from ..policy.diagnostics import case_influence
 from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp, padded_layout
-from ..policy.resampling import bca_interval
+from ..policy.resampling import bca_interval, held_resamples
 from ..policy.stacked import scaled_cue_factor
 from ..result_base import ResultMixin
 
@@ -279,22 +279,38 @@ def model_versus_rater(r_a: float, model_cv: float, r_model_judgment: float, n: 
     (both near zero or negative: no winner is worth naming); otherwise a winner only
     when the interval of the gain excludes zero, else ``about_same``.
     """
-    if not all(np.isfinite(v) for v in (r_a, model_cv, r_model_judgment)) or n < 5:
-        nan = float("nan")
-        return ModelVersusRater("not_available", nan, nan, nan, nan)
-    _, _, p, low, high = dependent_correlation_test(model_cv, r_a, r_model_judgment, n, level=level)
-    z_crit = float(st.norm.ppf(0.5 + level / 2.0))
-    low_a, _ = _fisher_interval(np.array(r_a), np.array(float(n)), z_crit)
-    low_m, _ = _fisher_interval(np.array(model_cv), np.array(float(n)), z_crit)
-    if low_a <= 0 and low_m <= 0:
-        verdict = "neither_tracks"
-    elif low > 0:
-        verdict = "model_better"
-    elif high < 0:
-        verdict = "rater_better"
-    else:
-        verdict = "about_same"
-    return ModelVersusRater(verdict, float(model_cv - r_a), float(low), float(high), float(p))
+    return models_versus_raters(np.array([r_a], dtype=float), np.array([model_cv], dtype=float),
+                                np.array([r_model_judgment], dtype=float), np.array([n]), level=level)[0]
+
+
+def models_versus_raters(r_a: np.ndarray, model_cv: np.ndarray, r_model_judgment: np.ndarray,
+                         n: np.ndarray, *, level: float = 0.95) -> list[ModelVersusRater]:
+    """:func:`model_versus_rater` of every rater at once (one vectorised test, the same numbers)."""
+    r_a, model_cv, r_model_judgment = (np.asarray(v, dtype=float) for v in (r_a, model_cv, r_model_judgment))
+    n = np.asarray(n, dtype=float)
+    available = np.isfinite(r_a) & np.isfinite(model_cv) & np.isfinite(r_model_judgment) & (n >= 5)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        _, _, p, low, high = dependent_correlation_test(model_cv, r_a, r_model_judgment, n, level=level)
+        z_crit = float(st.norm.ppf(0.5 + level / 2.0))
+        low_a, _ = _fisher_interval(r_a, n, z_crit)
+        low_m, _ = _fisher_interval(model_cv, n, z_crit)
+    nan = float("nan")
+    out = []
+    for i in range(r_a.size):
+        if not available[i]:
+            out.append(ModelVersusRater("not_available", nan, nan, nan, nan))
+            continue
+        if low_a[i] <= 0 and low_m[i] <= 0:
+            verdict = "neither_tracks"
+        elif low[i] > 0:
+            verdict = "model_better"
+        elif high[i] < 0:
+            verdict = "rater_better"
+        else:
+            verdict = "about_same"
+        out.append(ModelVersusRater(verdict, float(model_cv[i] - r_a[i]), float(low[i]), float(high[i]),
+                                    float(p[i])))
+    return out
 
 
 def leave_one_out_predictions(X: np.ndarray, y: np.ndarray, group: np.ndarray,
@@ -410,7 +426,7 @@ def lens_model(
                        f"as {SHARED_BLOCK_MIN_RATERS - 1} or more others, on this panel size.")
     raters = _per_rater(with_crit, crit_by_row, composite, p, n_boot=n_boot,
                         rng=np.random.default_rng(0) if rng is None else rng, level=level,
-                        independent_resamples=independent)
+                        independent_resamples=independent, blocks=blocks)
     return LensResult(
         environment=environment,
         raters=raters,
@@ -435,9 +451,8 @@ def lens_resamples(n_boot: int, n_raters: int) -> int:
     """Resamples for the raters with cases of their own: as asked up to
     :data:`LENS_FULL_RESAMPLE_RATERS` of them, then raters x resamples held to
     :data:`LENS_RESAMPLE_WORK`, never under :data:`LENS_MIN_RESAMPLES` (nor over the ask)."""
-    if n_raters <= LENS_FULL_RESAMPLE_RATERS:
-        return n_boot
-    return min(n_boot, max(LENS_MIN_RESAMPLES, LENS_RESAMPLE_WORK // n_raters))
+    return held_resamples(n_boot, n_raters, full_up_to=LENS_FULL_RESAMPLE_RATERS,
+                          work=LENS_RESAMPLE_WORK, at_least=LENS_MIN_RESAMPLES)
 
 
 def _criterion_by_design_row(design: CueDesign, criterion: pd.Series) -> np.ndarray:
@@ -539,7 +554,8 @@ def _lens_parts(stats, p: int) -> dict[str, np.ndarray]:
 
 def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarray,
                p: int, *, n_boot: int, rng: np.random.Generator,
-               level: float, independent_resamples: int | None = None) -> tuple[RaterLens, ...]:
+               level: float, independent_resamples: int | None = None,
+               blocks: list[np.ndarray] | None = None) -> tuple[RaterLens, ...]:
     G = rows.n_raters
     crit = crit_by_row[rows.design_row]
     Z = np.column_stack([rows.X, rows.y, crit, composite[rows.design_row]])
@@ -552,7 +568,8 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
     with np.errstate(invalid="ignore", divide="ignore"):
         unit = S[:, yu, yc] / np.sqrt(S[:, yu, yu] * S[:, yc, yc])
     intervals = lens_intervals(Z[:, :p + 2], rows.group, G, p, n_boot=n_boot, rng=rng, level=level,
-                               case=rows.design_row, independent_resamples=independent_resamples)
+                               case=rows.design_row, independent_resamples=independent_resamples,
+                               blocks=blocks)
     resamples_of = intervals.pop("n_boot")
     loo = leave_one_out_predictions(rows.X, rows.y, rows.group, G)
     usable = np.isfinite(loo)
@@ -568,6 +585,9 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
     model_judgment[complete] = pair_r[complete, 0, 2]
     results = []
     n = rows.counts()
+    fitted = parts["ok"]
+    verdicts = models_versus_raters(np.where(fitted, r_a, np.nan), np.where(fitted, cv, np.nan),
+                                    np.where(fitted, model_judgment, np.nan), n)
     for i, name in enumerate(rows.raters):
         notes = []
         ok = bool(parts["ok"][i])
@@ -585,7 +605,7 @@ def _per_rater(rows: JudgmentRows, crit_by_row: np.ndarray, composite: np.ndarra
             if not np.isfinite(cv[i]):
                 notes.append(f"Rater '{name}': a case's cue values are unique to it, so the "
                              "leave-one-out validity cannot be computed.")
-        verdict = model_versus_rater(float(vals["r_a"]), float(vals["cv"]), float(vals["mj"]), int(n[i]))
+        verdict = verdicts[i]
         bounds = {f"{k}_ci_{end}": float(intervals[k][j][i]) if ok else float("nan")
                   for k in INTERVAL_FIGURES for j, end in enumerate(("low", "high"))}
         per_term = float(n[i]) / p if p else float("nan")
@@ -630,7 +650,8 @@ SHARED_BLOCK_MIN_RATERS = 8
 def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n_boot: int,
                    rng: np.random.Generator, level: float = 0.95,
                    case: np.ndarray | None = None,
-                   independent_resamples: int | None = None) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+                   independent_resamples: int | None = None,
+                   blocks: list[np.ndarray] | None = None) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """BCa case-bootstrap intervals of r_a, G, C and R_e for every rater at once.
 
     ``Z`` holds ``[cues..., judgment, criterion]`` per row, ``group`` the rater of each
@@ -657,12 +678,15 @@ def lens_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int, *, n
     distributions are skewed near it; the bias correction and acceleration adjust for
     that (Efron 1987). Resamples whose refit is degenerate (a cue constant within the
     resample) are left out; fewer than 10 usable resamples give NaN.
+    ``blocks`` (optional) are those blocks when the caller has found them already
+    (:func:`shared_case_blocks` of the same ``case`` and ``group``).
     Returns figure -> (low, high), each (n_groups,), and ``"n_boot"`` -> the resamples
     of each rater (n_groups,).
     """
     nan = np.full(n_groups, np.nan)
     independent = n_boot if independent_resamples is None else int(independent_resamples)
-    blocks = shared_case_blocks(case, group, n_groups) if case is not None else []
+    if blocks is None:
+        blocks = shared_case_blocks(case, group, n_groups) if case is not None else []
     in_block = np.zeros(n_groups, dtype=bool)
     for members in blocks:
         in_block[members] = True
@@ -838,13 +862,17 @@ def _per_rater_intervals(Z: np.ndarray, group: np.ndarray, n_groups: int, p: int
     live = np.arange(n_max)[None, :] < sizes[:, None]
     estimate = _lens_parts(_sscp_from_counts(live[:, None, :].astype(float), terms, means), p)
     boot = {k: np.empty((n_boot, n_groups)) for k in INTERVAL_FIGURES}
+    every_slot_live = bool(live.all())   # raters of one size: no padding to drop
     per_chunk = max(1, _CHUNK_FLOATS // max(n_groups * n_max, 1))
     for b0 in range(0, n_boot, per_chunk):
         nb = min(per_chunk, n_boot - b0)
-        pick = np.floor(rng.random((n_groups, nb, n_max)) * sizes[:, None, None]).astype(np.intp)
-        where = np.broadcast_to(live[:, None, :], pick.shape)
-        flat = (np.arange(n_groups)[:, None, None] * nb + np.arange(nb)[None, :, None]) * n_max + pick
-        counts = np.bincount(flat[where], minlength=n_groups * nb * n_max).reshape(n_groups, nb, n_max)
+        drawn = rng.random((n_groups, nb, n_max))
+        drawn *= sizes[:, None, None]
+        flat = drawn.astype(np.intp)   # the floor, the draws being non-negative
+        flat += (np.arange(n_groups)[:, None, None] * nb + np.arange(nb)[None, :, None]) * n_max
+        if not every_slot_live:
+            flat = flat[np.broadcast_to(live[:, None, :], flat.shape)]
+        counts = np.bincount(flat.ravel(), minlength=n_groups * nb * n_max).reshape(n_groups, nb, n_max)
         parts = _interval_figures(np.matmul(counts.astype(float), terms), p)
         for k in INTERVAL_FIGURES:
             boot[k][b0:b0 + nb] = parts[k].reshape(n_groups, nb).T

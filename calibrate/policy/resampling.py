@@ -61,6 +61,15 @@ SHARE_INTERVAL_FULL_COVERAGE_CASES = 120
 SHARED_SOLVER_FROM = 48
 
 
+def held_resamples(asked: int, n_raters: int, *, full_up_to: int, work: int, at_least: int) -> int:
+    """Resamples per rater on a panel of ``n_raters``: as ``asked`` up to ``full_up_to``
+    raters, then raters x resamples held to ``work``, never under ``at_least`` (nor over the
+    ask). The one rule behind the reduced resamples of the lens intervals and of drift."""
+    if n_raters <= full_up_to:
+        return asked
+    return min(asked, max(at_least, work // n_raters))
+
+
 def share_interval_note(n_cases: int) -> str | None:
     """The sentence that goes beside a rater's importance-share intervals, or None.
 

@@ -181,3 +181,58 @@ def test_early_stopping_agrees_with_the_full_simulation_on_the_flag():
     clear = (full.p_value < 0.01) | (full.p_value > 0.15)
     assert (quick.flagged[clear] == full.flagged[clear]).all()
     assert np.allclose(quick.statistic, full.statistic)
+
+
+def test_cases_first_search_equals_the_case_by_case_running_sums():
+    # The blocked running sums over sets laid cases first against the plain cumulative
+    # sums of each set (and, through step_search, statsmodels above): rounding only.
+    from calibrate.lens.cutoffs import (_CASES_FIRST_FROM, _CASES_FIRST_SETS, _best_steps,
+                                        _best_steps_cases_first, _plan_steps)
+
+    rng = np.random.default_rng(61)
+    n = 77                                               # not a multiple of the block
+    X = np.column_stack([rng.standard_normal(n), np.round(rng.standard_normal(n)),
+                         rng.integers(0, 2, n)])         # ties, and a cue with two values
+    plan = _plan_steps(X, [0, 1, 2], 6)
+    S = _CASES_FIRST_SETS + 37                           # more than one group of sets
+    sets = np.clip(np.round(3 + X @ np.array([0.8, 0.4, 0.5]) + rng.standard_normal((S, n))), 1, 5)
+    reference, _ = _best_steps(plan, sets, locate=True)  # the case-by-case path
+    ours = _best_steps_cases_first(plan, sets)
+    np.testing.assert_allclose(ours, reference, rtol=1e-12, atol=0, equal_nan=True)
+    assert np.isfinite(ours).all()
+    assert S >= _CASES_FIRST_FROM
+    np.testing.assert_array_equal(_best_steps(plan, sets)[0], ours)
+
+
+def test_plans_of_many_designs_equal_each_plan_alone():
+    from calibrate.lens.cutoffs import _plan_steps, _plans_of_blocks
+
+    rng = np.random.default_rng(62)
+    designs = [np.round(rng.standard_normal((n, 3)), 1) for n in (40, 40, 55, 40)]
+    designs[1][:, 2] = designs[1][:, 0]                  # not of full rank: planned alone
+    together = _plans_of_blocks(designs, [0, 1, 2], 5)
+    for X, plan in zip(designs, together):
+        alone = _plan_steps(X, [0, 1, 2], 5)
+        assert plan.positions == alone.positions
+        np.testing.assert_allclose(plan.Q, alone.Q, rtol=0, atol=1e-15)
+        for name in ("orders", "cuts", "inverse_spread", "weights"):
+            for a, b in zip(getattr(plan, name), getattr(alone, name)):
+                np.testing.assert_allclose(a, b, rtol=1e-12, atol=0)
+
+
+def test_reported_step_equals_the_least_squares_weight_of_the_full_fit():
+    # The step from e'd / d'Md (Frisch-Waugh-Lovell) against statsmodels on [1, X, d].
+    rng = np.random.default_rng(63)
+    n = 60
+    X = rng.standard_normal((n, 2))
+    y = X @ np.array([0.7, -0.4]) - 1.2 * (X[:, 0] < -0.2) + 0.5 * rng.standard_normal(n)
+    cases = pd.DataFrame({"a": X[:, 0], "b": X[:, 1]}, index=[f"c{i}" for i in range(n)])
+    design = build_cue_design(cases, [CueRule("a", "numeric"), CueRule("b", "numeric")])
+    first = pd.DataFrame({"rater": "r", "case": cases.index, "judgment": y})
+    res = cutoff_check(design, first, rng=1, n_sim=99).raters[0]
+    column = 0 if res.cue == "a" else 1
+    below = (X[:, column] < res.threshold).astype(float)
+    full = sm.OLS(y, sm.add_constant(np.column_stack([X, below]))).fit()
+    assert res.step == pytest.approx(full.params[-1], rel=1e-10)
+    linear = sm.OLS(y, sm.add_constant(X)).fit()
+    assert res.delta_r2 == pytest.approx((linear.ssr - full.ssr) / linear.centered_tss, rel=1e-10)

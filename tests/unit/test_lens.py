@@ -141,3 +141,17 @@ def test_small_sample_caution_under_ten_cases_per_term(panel_and_criterion):
         assert r.small_sample and r.cases_per_term == pytest.approx(25 / 3)
         assert r.small_sample_note and "8.3 per term" in r.small_sample_note
         assert r.to_dict()["small_sample"] is True
+
+
+def test_verdicts_of_all_raters_at_once_equal_each_verdict_alone():
+    from calibrate.lens.model import model_versus_rater, models_versus_raters
+
+    rng = np.random.default_rng(70)
+    r_a, cv, mj = rng.uniform(-0.3, 0.9, (3, 40))
+    n = rng.integers(3, 200, 40)
+    r_a[[1, 7]] = np.nan                                   # not available
+    together = models_versus_raters(r_a, cv, mj, n)
+    for i, verdict in enumerate(together):
+        alone = model_versus_rater(float(r_a[i]), float(cv[i]), float(mj[i]), int(n[i]))
+        assert verdict.to_dict() == alone.to_dict() or (verdict.verdict == alone.verdict == "not_available")
+    assert {v.verdict for v in together} >= {"not_available", "about_same"}
