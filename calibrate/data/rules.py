@@ -36,6 +36,43 @@ def natural_key(text: str):
     return [int(t) if t.isdigit() else t.lower() for t in _DIGIT_RUNS.split(str(text))]
 
 
+# An id of at most three tokens (text, one run of at most 18 digits, text) in ASCII: its
+# natural_key is computed column-wise (the digit run fits an int64)
+_SIMPLE_ID = r"[^0-9]*[0-9]{0,18}[^0-9]*"
+# Below this many ids one key per id is quicker than the column operations' fixed cost
+COLUMNWISE_FROM = 5000
+
+
+def natural_order(ids: pd.Series) -> np.ndarray:
+    """Positions that put ``ids`` in the order of ``sorted(..., key=natural_key)`` (stable).
+
+    Ids of the simple form above are ranked on whole columns: the text before the digits
+    (lower case), then whether there are digits (an id without sorts first, as a shorter
+    key does), the number, the text after (lower case), then the place (sorted is stable).
+    Any other id (missing, non-ASCII, two digit runs) sorts by natural_key itself.
+    """
+    ids = pd.Series(ids).reset_index(drop=True)
+    if ids.empty:
+        return np.zeros(0, dtype=np.intp)
+    if (len(ids) < COLUMNWISE_FROM or ids.dtype != "str" or ids.isna().any() or not ids.str.isascii().all()
+            or not ids.str.fullmatch(_SIMPLE_ID).all()):
+        keys = [natural_key(v) for v in ids.tolist()]
+        return np.array(sorted(range(len(keys)), key=keys.__getitem__), dtype=np.intp)
+    lower = ids.str.lower()
+    head = pd.factorize(lower.str.replace(r"[0-9].*$", "", regex=True), sort=True)[0]
+    tail = pd.factorize(lower.str.replace(r"^[^0-9]*[0-9]*", "", regex=True), sort=True)[0]
+    digits = ids.str.replace(r"^[^0-9]*", "", regex=True).str.replace(r"[^0-9].*$", "", regex=True)
+    has_digits = (digits != "").to_numpy(dtype=bool)
+    number = digits.where(has_digits, "0").astype("int64").to_numpy()
+    return np.lexsort((np.arange(len(ids)), tail, number, has_digits, head))
+
+
+def natural_sorted(ids) -> list:
+    """``sorted(ids, key=natural_key)``, on whole columns where :func:`natural_order` can."""
+    ids = pd.Series(ids)
+    return ids.iloc[natural_order(ids)].tolist()
+
+
 def as_id(value) -> str | None:
     """Ids as text; a float that is a whole number (from a spreadsheet) loses its '.0'."""
     if value is None or (isinstance(value, float) and np.isnan(value)) or value is pd.NA:
@@ -116,12 +153,39 @@ def to_numbers(series: pd.Series, missing_words: tuple[str, ...] = ()) -> tuple[
     of ``missing_words`` is missing. Infinite and overflowing values (inf, 1e400) come back
     as +-inf, for :func:`report_non_finite` to refuse. A long table repeats its scores and
     positions, so each distinct cell is converted once."""
+    if series.dtype.kind == "f":   # read as numbers already: each cell is its own value
+        return (pd.Series(series.to_numpy(dtype=float), index=series.index, name=series.name),
+                pd.Series(np.zeros(len(series), dtype=bool), index=series.index, name=series.name))
+    plain = _plain_decimals(series, missing_words)
+    if plain is not None:
+        return plain
     split = _distinct_cells(series)
     if split is None:
         return _cells_to_numbers(series, missing_words)
     codes, distinct = split
     values, bad = _cells_to_numbers(distinct, missing_words)
     return _spread(values, codes, series, np.nan), _spread(bad, codes, series, False)
+
+
+# A number as written in a table: sign, digits with at most one point, exponent. Such text
+# converts to the same float by the column's own cast as by to_numeric or float().
+_DECIMAL = r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?"
+
+
+def _plain_decimals(series: pd.Series, missing_words: tuple[str, ...]) -> tuple[pd.Series, pd.Series] | None:
+    """:func:`to_numbers` of a text column whose every present cell is a plain decimal (and no
+    missing word is one), converted by one cast of the column; None for any other column."""
+    if series.dtype != "str" or any(re.fullmatch(_DECIMAL, " ".join(w.split())) for w in missing_words):
+        return None
+    present = series.notna()
+    if not series[present].str.fullmatch(_DECIMAL).all():
+        return None
+    try:
+        values = series.astype(float)
+    except (TypeError, ValueError, OverflowError):
+        return None
+    return (pd.Series(values.to_numpy(dtype=float), index=series.index, name=series.name),
+            pd.Series(np.zeros(len(series), dtype=bool), index=series.index, name=series.name))
 
 
 def _cells_to_numbers(series: pd.Series, missing_words: tuple[str, ...]) -> tuple[pd.Series, pd.Series]:
@@ -153,6 +217,12 @@ NON_FINITE_FIX = ("is not a finite number (infinite, or too large to hold); give
 # Ids title the reports and their tables; a longer id cannot be laid out on a page.
 MAX_ID_CHARS = 100
 CONTROL_CHARACTERS = re.compile(r"[\x00-\x1f\x7f-\x9f]")
+
+
+class TextNeeded(Exception):
+    """Cells read as numbers (:func:`calibrate.data.ingest.read_table`'s ``numbers``) met a
+    rule that compares rows as written ("4" and "4.0" are two values there): the study is
+    read again as text."""
 
 
 class Collector:
@@ -257,6 +327,8 @@ def _checked_ids(raw: pd.Series) -> tuple[pd.Series, np.ndarray, np.ndarray, np.
         ids = map_distinct(raw, as_id)
         return (ids, *_id_problems(ids))
     codes, distinct = split
+    if _plain_ids(distinct):   # each id is its own text: nothing to strip, nothing to report
+        return (raw, codes < 0, np.zeros(len(raw), dtype=bool), np.zeros(len(raw), dtype=bool))
     distinct_ids = map_distinct(distinct, as_id)
     missing, odd, too_long = (pd.Series(flags) for flags in _id_problems(distinct_ids))
     if isinstance(distinct_ids.dtype, pd.StringDtype):
@@ -267,6 +339,16 @@ def _checked_ids(raw: pd.Series) -> tuple[pd.Series, np.ndarray, np.ndarray, np.
         ids = _spread(distinct_ids, codes, raw, None)
     return (ids, _spread(missing, codes, raw, True).to_numpy(),
             _spread(odd, codes, raw, False).to_numpy(), _spread(too_long, codes, raw, False).to_numpy())
+
+
+# Printable ASCII, no space at either end, at most MAX_ID_CHARS characters: as_id keeps
+# such an id as it is and no id rule reports it
+_PLAIN_ID = r"[!-~](?:[ -~]{0,%d}[!-~])?" % (MAX_ID_CHARS - 2)
+
+
+def _plain_ids(distinct: pd.Series) -> bool:
+    """Whether every one of these distinct ids (text read from a file) is a plain id."""
+    return distinct.dtype == "str" and bool(distinct.str.fullmatch(_PLAIN_ID).all())
 
 
 def _id_problems(ids: pd.Series) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -297,13 +379,32 @@ def drop_duplicates(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
     """Rows identical in every column, sequence included, are duplicates: dropped with a
     warning, never taken as a repeat."""
     original = [c for c in data.columns if not c.startswith("_")] + [PHASE]
-    dup = data.duplicated(subset=original, keep="first")
+    dup = duplicated_rows(data, original)
     if not dup.any():
         return data
+    if any(data[c].dtype.kind == "f" for c in original):
+        raise TextNeeded("rows equal as numbers may differ as written")
     for fname, rows in data.loc[dup].groupby(FILE)[ROW]:
         out.warn(f"{len(rows)} row(s) identical in every column to an earlier row were dropped as "
                  f"duplicates (rows {rows_text(rows.tolist())})", file=fname, kind="duplicate_rows")
     return data.loc[~dup].copy()
+
+
+def duplicated_rows(data: pd.DataFrame, columns: list[str]) -> pd.Series:
+    """``data.duplicated(subset=columns)``: each column factorized (missing cells alike), the
+    codes folded into one integer per row; the key is renumbered before it could outgrow an
+    int64."""
+    key, key_values = np.zeros(len(data), dtype=np.int64), 1
+    for col in columns:
+        try:
+            codes, uniques = pd.factorize(data[col], use_na_sentinel=False)
+        except TypeError:   # unhashable cells: pandas' own
+            return data.duplicated(subset=columns, keep="first")
+        if key_values * (len(uniques) + 1) >= 2 ** 62:
+            key, key_values = pd.factorize(key)[0].astype(np.int64), len(data) + 1
+        key = key * (len(uniques) + 1) + codes
+        key_values *= len(uniques) + 1
+    return pd.Series(pd.Series(key).duplicated(keep="first").to_numpy(), index=data.index)
 
 
 def judgment_values(raw: pd.Series, labels: dict[str, float],
@@ -311,6 +412,9 @@ def judgment_values(raw: pd.Series, labels: dict[str, float],
     """Judgments as numbers; words only through [judgment] labels (case and spaces ignored),
     and a label wins over a missing word of the same spelling. Returns (values, mask of
     present judgments)."""
+    if raw.dtype.kind == "f" and not labels:   # read as numbers: present where not empty
+        return (pd.Series(raw.to_numpy(dtype=float), index=raw.index, name=raw.name),
+                pd.Series(raw.notna().to_numpy(), index=raw.index, name=raw.name))
     split = _distinct_cells(raw)
     if split is None:
         return _cells_judgment_values(raw, labels, missing_words)
@@ -439,14 +543,17 @@ def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector,
 
 
 def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpec,
-                      out: Collector) -> pd.DataFrame:
+                      out: Collector, judged: pd.Series | None = None) -> pd.DataFrame:
     """Cues belong to the case (cases table): every row needs a case id; a case id listed
     twice with different values is an error; every judged case must be in the table.
-    Returns the cases table indexed by case id, one row per case."""
+    Returns the cases table indexed by case id, one row per case. ``judged``: the judgments'
+    distinct case ids in order of appearance, when the caller has them."""
     ccol = spec.columns["case"]
     case_level = case_level_columns(spec)
-    cases_df = cases_df.copy()
-    cases_df[ccol] = map_distinct(cases_df[ccol], as_id)
+    cases_df = cases_df.copy(deep=False)
+    split = _distinct_cells(cases_df[ccol])
+    if split is None or not _plain_ids(split[1]):
+        cases_df[ccol] = map_distinct(cases_df[ccol], as_id)
     empty = cases_df[ccol].isna()
     if empty.any():
         out.error(f"the case id is empty in rows {rows_text(cases_df.loc[empty, ROW].tolist())}",
@@ -455,6 +562,8 @@ def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpe
     dup_ids = cases_df[ccol].duplicated(keep=False)
     if dup_ids.any():
         keep_cols = [c for c in cases_df.columns if c in case_level]
+        if any(cases_df[c].dtype.kind == "f" for c in keep_cols):
+            raise TextNeeded("a case listed twice: its values are compared as written")
         for cid, grp in cases_df.loc[dup_ids].groupby(ccol):
             if len(grp[keep_cols].drop_duplicates()) > 1:
                 out.error(f"case '{cid}' appears in rows {rows_text(grp[ROW].tolist())} with "
@@ -462,15 +571,27 @@ def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpe
                           file=spec.cases.name, column=ccol)
         cases_df = cases_df.drop_duplicates(subset=[ccol], keep="first")
     cases_index = cases_df.set_index(ccol)
-    # looked up in the (unique) index's hash table: isin on a text column builds an object
-    # per value of the cases table (100,000 on a linked panel)
-    unknown = cases_index.index.get_indexer(data[ccol]) < 0
+    # each distinct judged id looked up once (in order of appearance, as the message lists them)
+    judged = pd.Series(data[ccol].unique()) if judged is None else judged
+    unknown = positions_in(cases_index.index, judged) < 0
     if unknown.any():
-        ids = data.loc[unknown, ccol].unique()
+        ids = judged[unknown].to_numpy()
         out.error(f"{len(ids)} case id(s) in the judgments are missing from the cases table: "
                   + ", ".join(map(str, ids[:MAX_LISTED])) + (" ..." if len(ids) > MAX_LISTED else ""),
                   file=spec.cases.name, column=ccol)
     return cases_index
+
+
+def positions_in(keys: pd.Index, wanted) -> np.ndarray:
+    """The place of each of ``wanted`` among the distinct ``keys`` (-1 where absent): both
+    factorized together, so each value is hashed once (an index of text looks each value up
+    far more slowly)."""
+    if not keys.is_unique:
+        raise ValueError("positions_in needs distinct keys")
+    codes = pd.factorize(pd.concat([pd.Series(keys, dtype=keys.dtype), pd.Series(wanted)],
+                                   ignore_index=True), use_na_sentinel=True)[0]
+    found = codes[len(keys):]
+    return np.where(found < len(keys), found, -1).astype(np.intp)
 
 
 def case_value_from_rows(data: pd.DataFrame, col: str, case_col: str, out: Collector) -> pd.Series:
@@ -711,10 +832,12 @@ def too_few_cases(first: pd.DataFrame, complete: pd.Series, n_terms: int, phase_
     # bincount (a first-judgment table has a row per rater and case)
     case_codes, cases = pd.factorize(first["case"], use_na_sentinel=False)
     rater_codes, raters = pd.factorize(first["rater"], use_na_sentinel=False)
-    usable_case = pd.Series(cases).map(complete).to_numpy(dtype=bool)
+    # complete has a row per case of the design (every judged case): looked up, not mapped
+    where = positions_in(complete.index, cases)
+    usable_case = np.where(where >= 0, complete.to_numpy(dtype=bool)[np.maximum(where, 0)], True)
     counts = np.bincount(rater_codes[usable_case[case_codes]], minlength=len(raters))
     count_of = dict(zip(raters.tolist(), counts.tolist()))
-    usable = {r: count_of[r] for r in sorted(count_of, key=natural_key)}
+    usable = {r: count_of[r] for r in natural_sorted(list(count_of))}
     too_few = {r: int(n) for r, n in usable.items() if n < n_terms + 2}
     for rater, n in too_few.items():
         where = f" in phase '{phase_name}'" if phase_name is not None else ""
