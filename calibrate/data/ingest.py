@@ -497,6 +497,10 @@ def _taken(series: pd.Series, place: np.ndarray, index: pd.Index) -> pd.Series:
     return pd.Series(series.array.take(place, allow_fill=True), index=index, name=series.name)
 
 
+# The columns of the long table that the phase frames are made of
+_PHASE_COLUMNS = ["_rater", "_case", "_judgment", "_sequence", "_nth", "_shown", "_position", FILE, ROW]
+
+
 def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_terms: int,
                 out: Collector, mode: str = "first-two") -> PhaseData:
     """Split one phase's judgments into first judgments, repeat pairs and reading order
@@ -505,7 +509,7 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
         out.warn(f"phase '{name}' has no judgments", kind="empty_phase", phase=name)
     # ids as text once: the frames below share these arrays instead of each converting
     # the same object arrays again
-    sub = sub.astype({"_rater": "str", "_case": "str"})
+    sub = sub[_PHASE_COLUMNS].astype({"_rater": "str", "_case": "str"})   # no other column is carried
     firsts = sub.loc[sub["_nth"] == 0]
     case_mean = firsts["_judgment"].to_numpy(dtype=float)
     presentations = PhaseData.__dataclass_fields__["presentations"].default_factory()

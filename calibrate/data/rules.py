@@ -8,6 +8,11 @@ stated as README.md's "Input" section states them.
 
 Row numbers are the ones a person sees: in a CSV or a worksheet the header is
 row 1 and the first data row is row 2.
+
+A rule never changes the frame it is given, and copies no column it does not change: it
+takes a shallow copy (``copy(deep=False)``) and sets whole columns on it, which replaces
+them there only (pandas sets a whole column as a new array; with copy-on-write, pandas 3,
+nothing is shared that one side could write into).
 """
 
 from __future__ import annotations
@@ -39,7 +44,8 @@ def natural_key(text: str):
 # An id of at most three tokens (text, one run of at most 18 digits, text) in ASCII: its
 # natural_key is computed column-wise (the digit run fits an int64)
 _SIMPLE_ID = r"[^0-9]*[0-9]{0,18}[^0-9]*"
-# Below this many ids one key per id is quicker than the column operations' fixed cost
+# Below this many cells (ids to sort, distinct ids, numbers to convert) the cell-by-cell
+# route is quicker than the column operations' fixed cost
 COLUMNWISE_FROM = 5000
 
 
@@ -175,7 +181,8 @@ _DECIMAL = r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?"
 def _plain_decimals(series: pd.Series, missing_words: tuple[str, ...]) -> tuple[pd.Series, pd.Series] | None:
     """:func:`to_numbers` of a text column whose every present cell is a plain decimal (and no
     missing word is one), converted by one cast of the column; None for any other column."""
-    if series.dtype != "str" or any(re.fullmatch(_DECIMAL, " ".join(w.split())) for w in missing_words):
+    if (len(series) < COLUMNWISE_FROM or series.dtype != "str"
+            or any(re.fullmatch(_DECIMAL, " ".join(w.split())) for w in missing_words)):
         return None
     present = series.notna()
     if not series[present].str.fullmatch(_DECIMAL).all():
@@ -300,7 +307,7 @@ def check_columns_exist(spec: StudySpec, frames: list[pd.DataFrame], cases_df: p
 def check_ids(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd.DataFrame:
     """Every judgment needs a rater id and a case id; ids are read as text, one printable
     line of at most MAX_ID_CHARS characters (an id "NA" or "None" is an id)."""
-    data = data.copy()
+    data = data.copy(deep=False)
     for role in ("rater", "case"):
         col = columns[role]
         ids, missing, odd, too_long = _checked_ids(data[col])
@@ -348,7 +355,8 @@ _PLAIN_ID = r"[!-~](?:[ -~]{0,%d}[!-~])?" % (MAX_ID_CHARS - 2)
 
 def _plain_ids(distinct: pd.Series) -> bool:
     """Whether every one of these distinct ids (text read from a file) is a plain id."""
-    return distinct.dtype == "str" and bool(distinct.str.fullmatch(_PLAIN_ID).all())
+    return (len(distinct) >= COLUMNWISE_FROM and distinct.dtype == "str"
+            and bool(distinct.str.fullmatch(_PLAIN_ID).all()))
 
 
 def _id_problems(ids: pd.Series) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -363,7 +371,7 @@ def check_phases(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.Data
     """Phases: with [phases] order, a phase value not in the order (or empty) is an error."""
     if spec.phase_order is None:
         return data
-    data = data.copy()
+    data = data.copy(deep=False)
     ph = map_distinct(data[PHASE], as_id)
     bad = ph.isna() | ~ph.isin(spec.phase_order)
     for (fname, value), rows in data.loc[bad].assign(_v=ph[bad].fillna("(empty)")).groupby(
@@ -387,7 +395,7 @@ def drop_duplicates(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
     for fname, rows in data.loc[dup].groupby(FILE)[ROW]:
         out.warn(f"{len(rows)} row(s) identical in every column to an earlier row were dropped as "
                  f"duplicates (rows {rows_text(rows.tolist())})", file=fname, kind="duplicate_rows")
-    return data.loc[~dup].copy()
+    return data.loc[~dup].copy(deep=False)
 
 
 def duplicated_rows(data: pd.DataFrame, columns: list[str]) -> pd.Series:
@@ -486,9 +494,9 @@ def check_judgments(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.D
         for fname, rows in data.loc[no_judgment].groupby(FILE)[ROW]:
             out.warn(f"{len(rows)} row(s) without a judgment were dropped (rows "
                      f"{rows_text(rows.tolist())})", file=fname, column=jcol, kind="no_judgment")
-    data = data.copy()
+    data = data.copy(deep=False)
     data["_judgment"] = values
-    return data.loc[present].copy()
+    return data if present.all() else data.loc[present].copy(deep=False)
 
 
 ZONE_SUFFIX = re.compile(r"(?:Z|[+-]\d{2}(?::?\d{2})?|\s*(?:UTC|GMT))$", re.IGNORECASE)
@@ -514,7 +522,7 @@ def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector,
                    missing_words: tuple[str, ...] = ()) -> pd.DataFrame:
     """A sequence is a finite number (position in the reading order) or a date-time; anything
     else is an error naming its row. Adds ``_sequence`` (NaN when there is no sequence column)."""
-    data = data.copy()
+    data = data.copy(deep=False)
     if "sequence" not in columns:
         data["_sequence"] = np.nan
         return data
@@ -629,7 +637,7 @@ def check_numeric_cues(cases: pd.DataFrame, cues: tuple[CueRule, ...], row_of_ca
     """A numeric cue holds finite numbers or nothing (an empty cell or one of the missing
     words); a word is an error (or declare it categorical), and so is inf or a number too
     large to hold."""
-    cases = cases.copy()
+    cases = cases.copy(deep=False)
     for rule in cues:
         if rule.kind != "numeric":
             continue
@@ -650,7 +658,7 @@ def blank_categorical_missing(cases: pd.DataFrame, columns: list[str],
                               missing_words: tuple[str, ...]) -> pd.DataFrame:
     """Categorical cues: only an empty cell is missing, unless the spec lists missing_words;
     so a level written "None" or "NA" stays a level by default."""
-    cases = cases.copy()
+    cases = cases.copy(deep=False)
     for col in columns:
         cases[col] = blank_missing_words(cases[col], missing_words)
     return cases
@@ -661,7 +669,7 @@ def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | pd.Series |
                     row_of_case: pd.Series | None = None) -> pd.DataFrame:
     """The criterion holds finite numbers or nothing. A missing criterion only removes that
     case from the lens model (a warning). Adds the numeric criterion as ``__criterion__``."""
-    cases = cases.copy()
+    cases = cases.copy(deep=False)
     rows = pd.Series(dtype=float) if row_of_case is None else row_of_case
     vals, bad = to_numbers(cases[crit], missing_words)
     for cid in cases.index[bad][:MAX_ROW_MESSAGES]:
@@ -711,7 +719,7 @@ def excluded_types(cases: pd.DataFrame, excluded: tuple[str, ...],
     """An excluded attribute is numeric when every present value is a finite number (and is
     then converted, the numeric missing words read as missing), else categorical (only the
     spec's own missing words read as missing)."""
-    cases = cases.copy()
+    cases = cases.copy(deep=False)
     types = {}
     for col in excluded:
         vals, bad = to_numbers(cases[col], numeric_words)
@@ -749,9 +757,10 @@ def mark_repeats(data: pd.DataFrame, out: Collector, mode: str | None = "first-t
     # columns would; the ids as integer codes that sort as the ids do, so the sort and the
     # counts below are numpy on integers, not pandas on 460,000 strings.
     n = len(data)
-    phase, rater, case = (_sorted_codes(data[c]) for c in (PHASE, "_rater", "_case"))
+    phase, rater = _sorted_codes(data[PHASE]), _sorted_codes(data["_rater"])
+    case = _sorted_codes(data["_case"], sort=False)   # only told apart, never ordered
     order = np.lexsort((np.arange(n), data["_sequence"].to_numpy(dtype=float), rater, phase))
-    data = data.iloc[order].copy()
+    data = data.iloc[order].copy(deep=False)
     data["_order"] = order
     phase, rater, case = phase[order], rater[order], case[order]
     reader = phase * (int(rater.max(initial=0)) + 1) + rater            # one code per phase and rater
@@ -767,15 +776,16 @@ def mark_repeats(data: pd.DataFrame, out: Collector, mode: str | None = "first-t
         _warn_many_presentations(data, third, mode, out)
     if mode == "first-two":
         keep = ~third.to_numpy()
-        data, reader = data.loc[keep].copy(), reader[keep]
+        data, reader = data.loc[keep].copy(deep=False), reader[keep]
     data["_position"] = _cumcount(reader)
     data.attrs["repeats"] = mode
     return data
 
 
-def _sorted_codes(values: pd.Series) -> np.ndarray:
-    """One integer per distinct value, in the values' sorted order, missing values last."""
-    codes, uniques = pd.factorize(values, sort=True, use_na_sentinel=True)
+def _sorted_codes(values: pd.Series, sort: bool = True) -> np.ndarray:
+    """One integer per distinct value, in the values' sorted order (with ``sort``), missing
+    values last."""
+    codes, uniques = pd.factorize(values, sort=sort, use_na_sentinel=True)
     codes = codes.astype(np.int64)
     codes[codes < 0] = len(uniques)
     return codes
@@ -830,12 +840,12 @@ def too_few_cases(first: pd.DataFrame, complete: pd.Series, n_terms: int, phase_
     Returns (raters fit, {rater kept out: usable cases})."""
     # counted on integer codes: each distinct case looked up once, usable cases per rater by
     # bincount (a first-judgment table has a row per rater and case)
-    case_codes, cases = pd.factorize(first["case"], use_na_sentinel=False)
     rater_codes, raters = pd.factorize(first["rater"], use_na_sentinel=False)
-    # complete has a row per case of the design (every judged case): looked up, not mapped
-    where = positions_in(complete.index, cases)
-    usable_case = np.where(where >= 0, complete.to_numpy(dtype=bool)[np.maximum(where, 0)], True)
-    counts = np.bincount(rater_codes[usable_case[case_codes]], minlength=len(raters))
+    # each row's case looked up among the design's cases (a case not there counts as usable,
+    # as mapping it did)
+    where = positions_in(complete.index, first["case"])
+    usable = np.where(where >= 0, complete.to_numpy(dtype=bool)[np.maximum(where, 0)], True)
+    counts = np.bincount(rater_codes[usable], minlength=len(raters))
     count_of = dict(zip(raters.tolist(), counts.tolist()))
     usable = {r: count_of[r] for r in natural_sorted(list(count_of))}
     too_few = {r: int(n) for r, n in usable.items() if n < n_terms + 2}

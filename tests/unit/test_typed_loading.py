@@ -13,7 +13,7 @@ import pandas as pd
 import pytest
 
 from calibrate.data.ingest import load_study, read_table
-from calibrate.data.rules import (_cells_to_numbers, duplicated_rows, natural_key, natural_sorted,
+from calibrate.data.rules import (_cells_to_numbers, _plain_decimals, duplicated_rows, natural_key, natural_sorted,
                                   positions_in, to_numbers)
 
 TRICKY_NUMBERS = ["3", " 3", "3 ", "+4", "-0", ".5", "5.", "1e5", "1E-5", "2.50", "", "nan", "NaN",
@@ -41,7 +41,9 @@ def test_natural_sorted_equals_sorted_by_natural_key():
 def test_numbers_of_a_text_column_equal_the_cell_by_cell_conversion(words):
     rng = np.random.default_rng(5)
     plain = [f"{x:.{k}g}" for x, k in zip(rng.standard_normal(300) * 10.0 ** rng.integers(-30, 30, 300),
-                                           rng.integers(1, 18, 300))] + ["-99", "", None]
+                                           rng.integers(1, 18, 300))] + ["-99", None]
+    # the whole-column route takes the plain column unless a missing word is a number
+    assert (_plain_decimals(pd.Series(plain, dtype="str"), words) is None) == ("-99" in words)
     for cells in (plain, plain + TRICKY_NUMBERS):
         series = pd.Series(cells, dtype="str", name="x")
         got, expected = to_numbers(series, words), _cells_to_numbers(series, words)
@@ -51,9 +53,29 @@ def test_numbers_of_a_text_column_equal_the_cell_by_cell_conversion(words):
 
 @pytest.fixture(autouse=True)
 def typed_small_files(monkeypatch):
-    """The typed reading is kept for large files; these small ones take it too."""
-    from calibrate.data import ingest
+    """The typed reading and the column-wise routes are kept for large tables; these small
+    ones take them too."""
+    from calibrate.data import ingest, rules
     monkeypatch.setattr(ingest, "TYPED_FROM_BYTES", 0)
+    monkeypatch.setattr(rules, "COLUMNWISE_FROM", 0)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_plain_ids_are_checked_as_row_by_row(seed):
+    from calibrate.data.rules import FILE, ROW, Collector, check_ids
+    from tests.unit.test_batched_loading import reference_check_ids
+
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(1, 300))
+    pick = np.array([f"r{i}" for i in range(30)] + ["A-7", "x" * 100, "~!"] + ([None, "x" * 101, " r1"]
+                                                                              if seed % 2 else []), dtype=object)
+    frame = pd.DataFrame({"rater": pd.array(pick[rng.integers(0, len(pick), n)], dtype="str"),
+                          "case": pd.array(pick[rng.integers(0, len(pick), n)], dtype="str"),
+                          FILE: rng.choice(["a.csv", "b.csv"], n), ROW: np.arange(n) + 2})
+    columns = {"rater": "rater", "case": "case"}
+    new_out, old_out = Collector(), Collector()
+    pd.testing.assert_frame_equal(check_ids(frame, columns, new_out), reference_check_ids(frame, columns, old_out))
+    assert new_out.items == old_out.items
 
 
 def _write(tmp_path, name, text):
