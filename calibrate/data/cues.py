@@ -90,8 +90,12 @@ class CueDesign(ResultMixin):
         values are read back from the matrix: a row whose ``cue:missing`` column is 0
         holds the cue's own value. The columns and reference levels do not change.
         """
-        wanted = pd.Series(list(case_ids), dtype=object).astype(str).unique()   # any iterable, a set too
-        keep = pd.Index(self.case_ids, dtype=object).isin(wanted)
+        # the ids out of a column in one conversion (iterating a text column is slow)
+        columnar = (pd.Series, pd.Index, np.ndarray, pd.api.extensions.ExtensionArray)
+        given = (pd.Series(case_ids, dtype=object).tolist() if isinstance(case_ids, columnar)
+                 else list(case_ids))
+        wanted = set(map(str, given))
+        keep = np.fromiter((c in wanted for c in self.case_ids), dtype=bool, count=len(self.case_ids))
         matrix = self.matrix[keep].copy()
         fills = dict(self.fill_values)
         for cue in self.fill_values:
