@@ -90,8 +90,12 @@ class CueDesign(ResultMixin):
         values are read back from the matrix: a row whose ``cue:missing`` column is 0
         holds the cue's own value. The columns and reference levels do not change.
         """
-        wanted = set(map(str, case_ids))
-        keep = np.array([c in wanted for c in self.case_ids], dtype=bool)
+        # the ids out of a column in one conversion (iterating a text column is slow)
+        columnar = (pd.Series, pd.Index, np.ndarray, pd.api.extensions.ExtensionArray)
+        given = (pd.Series(case_ids, dtype=object).tolist() if isinstance(case_ids, columnar)
+                 else list(case_ids))
+        wanted = set(map(str, given))
+        keep = np.fromiter((c in wanted for c in self.case_ids), dtype=bool, count=len(self.case_ids))
         matrix = self.matrix[keep].copy()
         fills = dict(self.fill_values)
         for cue in self.fill_values:
@@ -169,7 +173,7 @@ def build_cue_design(cases: pd.DataFrame, rules: list[CueRule]) -> CueDesign:
                 owner.append(rule.name)
     matrix = np.column_stack(blocks) if blocks else np.empty((len(cases), 0))
     return CueDesign(
-        case_ids=tuple(str(c) for c in cases.index),
+        case_ids=tuple(cases.index.astype(str).tolist()),
         matrix=matrix,
         columns=tuple(columns),
         cue_of_column=tuple(owner),

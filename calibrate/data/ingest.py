@@ -47,7 +47,9 @@ from .rules import (
     excluded_types,
     index_cases_table,
     mark_repeats,
-    natural_key,
+    natural_sorted,
+    TextNeeded,
+    positions_in,
     report_missing_cue,
     too_few_cases,
 )
@@ -91,7 +93,7 @@ class PhaseData:
 
     @property
     def raters(self) -> tuple[str, ...]:
-        return tuple(sorted(self.first["rater"].unique(), key=natural_key))
+        return tuple(natural_sorted(self.first["rater"].unique()))
 
     @property
     def label(self) -> str:
@@ -120,7 +122,7 @@ class JudgmentTable:
         """The design on the cases judged in phase ``ph`` only: the study's coding, the
         phase's own fill values (:meth:`CueDesign.for_cases`). Every per-phase analysis
         fits on this, so a phase gives the same numbers as that phase audited alone."""
-        return self.design.for_cases(ph.first["case"].astype(str).unique())
+        return self.design.for_cases(ph.first["case"].unique())
 
     @property
     def criterion(self) -> pd.Series | None:
@@ -165,17 +167,81 @@ def _read_csv(path: Path) -> pd.DataFrame:
     if not text.strip():
         raise _unreadable(path, "the file is empty; it needs a header row and rows of data")
     try:
+        # parsed from the bytes (checked as UTF-8 above): the parser reads them directly,
+        # where text would be encoded again on the way in
+        return pd.read_csv(io.BytesIO(raw), dtype=str, header=None, **_csv_options(text))
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError) as exc:
+        raise _unreadable(path, str(exc).strip()) from None
+
+
+def _csv_options(text: str) -> dict:
+    """The parser's options for this file: the delimiter sniffed from its first 64 KB (a comma
+    when the sniffer cannot tell); only empty cells missing; spaces after a delimiter skipped."""
+    try:
         sep = csv.Sniffer().sniff(text[:64 * 1024], delimiters=",;\t|").delimiter
     except csv.Error:
         sep = ","
+    return {"encoding": "utf-8-sig", "sep": sep, "keep_default_na": False, "na_values": [""],
+            "skipinitialspace": True, "skip_blank_lines": True}
+
+
+# An integer column is taken as numbers only below 2**53, where every integer is a float
+# exactly; a larger one is read as text and converted by the rules, as before.
+EXACT_INTEGERS = 2 ** 53
+# A smaller file is read as text: its two or three parses cost more than its conversions
+TYPED_FROM_BYTES = 256 * 1024
+
+
+def _read_csv_typed(path: Path, numbers: tuple[str, ...]) -> pd.DataFrame | None:
+    """The table with header names and the columns of ``numbers`` as floats, read in one pass
+    with the parser's own type guess; None when the text reader must decide (a damaged or
+    odd file, whose problem it names).
+
+    A column of ``numbers`` whose every cell is a number (or empty) comes back as float64:
+    those cells convert to the floats :func:`rules.to_numbers` gives their text. Any other
+    column, and a numbers column holding a word, comes back as the text reader's text: the
+    parser's guess is kept for a column guessed as text, else the column is read again as
+    text. Nothing here records a problem: the rules see the same cells either way.
+    """
+    raw, text = _csv_text(path)
+    if not text.strip() or len(raw) < TYPED_FROM_BYTES:
+        return None
+    options = _csv_options(text)
     try:
-        # parsed from the bytes (checked as UTF-8 above): the parser reads them directly,
-        # where text would be encoded again on the way in
-        return pd.read_csv(io.BytesIO(raw), encoding="utf-8-sig", sep=sep, dtype=str,
-                           header=None, keep_default_na=False, na_values=[""], skipinitialspace=True,
-                           skip_blank_lines=True)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError) as exc:
-        raise _unreadable(path, str(exc).strip()) from None
+        header = pd.read_csv(io.BytesIO(raw), dtype=str, header=None, nrows=1, **options)
+        names = _header_names(path, header)
+        # header=0: the first row read as the header and replaced by the names just checked
+        guessed = pd.read_csv(io.BytesIO(raw), header=0, **options)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError, DataError):
+        return None
+    if not isinstance(guessed.index, pd.RangeIndex) or guessed.shape[1] != len(names):
+        return None   # a first data row longer than the header: the text reader names it
+    guessed.columns = names
+    as_text = [i for i, name in enumerate(names) if not _typed_as_wanted(guessed[name], name in numbers)]
+    if as_text:
+        try:
+            again = pd.read_csv(io.BytesIO(raw), dtype=str, header=None, usecols=as_text, **options)
+        except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError):
+            return None
+        if len(again) != len(guessed) + 1:
+            return None
+        for i in as_text:
+            guessed[names[i]] = again[i].iloc[1:].reset_index(drop=True)
+    for name in numbers:
+        if name in guessed.columns and guessed[name].dtype.kind == "i":
+            guessed[name] = guessed[name].astype(float)
+    return guessed
+
+
+def _typed_as_wanted(column: pd.Series, number: bool) -> bool:
+    """Whether the parser's guess for a column is what the rules would make of its text:
+    floats, or integers a float holds exactly, for a numbers column; text for any other."""
+    kind = column.dtype.kind
+    if not number:
+        return isinstance(column.dtype, pd.StringDtype)
+    if kind == "f":
+        return True
+    return kind == "i" and (column.empty or int(column.abs().max()) < EXACT_INTEGERS)
 
 
 def _read_excel(path: Path) -> pd.DataFrame:
@@ -208,6 +274,13 @@ def _with_header(path: Path, grid: pd.DataFrame) -> pd.DataFrame:
     name given twice is an error (pandas would otherwise rename it silently)."""
     if grid.empty:
         raise _unreadable(path, "the file is empty; it needs a header row and rows of data")
+    df = grid.iloc[1:].reset_index(drop=True)
+    df.columns = _header_names(path, grid)
+    return df
+
+
+def _header_names(path: Path, grid: pd.DataFrame) -> list[str]:
+    """The column names of a grid's first row, checked as :func:`_with_header` says."""
     names = []
     for i, cell in enumerate(grid.iloc[0].tolist()):
         empty = cell is None or (isinstance(cell, float) and np.isnan(cell)) or not str(cell).strip()
@@ -219,13 +292,11 @@ def _with_header(path: Path, grid: pd.DataFrame) -> pd.DataFrame:
                 f"the header names column '{name}' twice (columns {seen[name] + 1} and {i + 1}); "
                 "give each column its own name", file=path.name, row=1, column=name)])
         seen[name] = i
-    df = grid.iloc[1:].reset_index(drop=True)
-    df.columns = names
-    return df
+    return names
 
 
 def read_table(path: Path, *, missing_words: tuple[str, ...] | None = DEFAULT_MISSING_WORDS,
-               id_columns: tuple[str, ...] = ()) -> pd.DataFrame:
+               id_columns: tuple[str, ...] = (), numbers: tuple[str, ...] = ()) -> pd.DataFrame:
     """Read a CSV (delimiter sniffed, UTF-8 with or without BOM), XLSX or Parquet file.
 
     Values are kept as read (text for CSV) so that conversion problems can be
@@ -235,11 +306,19 @@ def read_table(path: Path, *, missing_words: tuple[str, ...] | None = DEFAULT_MI
     ``id_columns`` are never touched by the missing words: an id "NA" is an id.
     A damaged or unreadable file is a DataError naming it. Adds the spreadsheet row
     number as ``_row``.
+
+    ``numbers`` (CSV only, with ``missing_words=()``): columns that come back as floats
+    when every cell is a number or empty (:func:`_read_csv_typed`); text otherwise.
     """
     path = Path(path)
     suffix = path.suffix.lower()
     if path.is_dir():
         raise _unreadable(path, f"{path} is a folder; give a {TABLE_KINDS} file")
+    typed = (_read_csv_typed(path, numbers) if numbers and not missing_words
+             and suffix not in (".xlsx", ".xlsm", ".parquet", ".xls", ".ods", ".numbers") else None)
+    if typed is not None:
+        typed[ROW] = np.arange(len(typed)) + 2
+        return typed
     if suffix in (".xlsx", ".xlsm"):
         grid = _read_excel(path)
     elif suffix == ".parquet":
@@ -285,13 +364,36 @@ def inspect_study(spec: StudySpec | str | Path | Mapping, *, data=None,
     given = given_tables(data, cases)
     spec = study_spec(spec, given)
     out = Collector()
-    table = _build(spec, out, given)
+    try:
+        table = _build(spec, out, given, typed=True)
+    except TextNeeded:
+        table = None
+    if table is None:
+        # a problem to name (or rows whose text must be compared): the cells as text, so that
+        # every message quotes them as written
+        out = Collector()
+        table = _build(spec, out, given, typed=False)
     if out.errors:
         return None, out.items
     return table, out.items
 
 
-def _read_one(path: Path, what: str, key: str, out: Collector) -> pd.DataFrame | None:
+def _typed_columns(spec: StudySpec) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """The columns read as numbers when every cell is one: (in the judgments tables, in the
+    cases table). Only columns the rules convert cell by cell: the judgment (without labels,
+    whose words are text) and the sequence; the numeric cues of a cases table. A value
+    repeated on judgment rows, the criterion (kept as written in ``cases``) and the excluded
+    attributes stay text."""
+    cols = spec.columns
+    judged = tuple(cols[role] for role in ("judgment", "sequence")
+                   if role in cols and not (role == "judgment" and spec.judgment.labels))
+    cues = tuple(c.name for c in spec.cues if c.kind == "numeric"
+                 and c.name != cols.get("criterion") and c.name not in spec.excluded)
+    return judged, cues
+
+
+def _read_one(path: Path, what: str, key: str, out: Collector,
+              numbers: tuple[str, ...] = ()) -> pd.DataFrame | None:
     """One input table, or None with its problem recorded (absent, a folder, unreadable)."""
     if path.is_dir():
         out.error(f"the {what} {path} is a folder, not a table; fix [study] {key} in the spec",
@@ -301,7 +403,7 @@ def _read_one(path: Path, what: str, key: str, out: Collector) -> pd.DataFrame |
         out.error(f"the {what} {path} does not exist; fix [study] {key} in the spec", file=path.name)
         return None
     try:
-        return read_table(path, missing_words=())
+        return read_table(path, missing_words=(), numbers=numbers)
     except DataError as exc:
         out.items.extend(exc.problems)
         return None
@@ -319,17 +421,19 @@ def _given_table(name: str, grid: pd.DataFrame, out: Collector) -> pd.DataFrame 
 
 
 def _read_sources(spec: StudySpec, out: Collector, given: GivenTables | None = None,
-                  ) -> tuple[list[pd.DataFrame], pd.DataFrame | None, list[dict]]:
+                  typed: bool = False) -> tuple[list[pd.DataFrame], pd.DataFrame | None, list[dict]]:
     """Read every judgments table (tagged with its file and phase) and the cases table; tables
-    the caller passed (``given``) stand in for the spec's files."""
+    the caller passed (``given``) stand in for the spec's files. ``typed``: CSV columns of
+    :func:`_typed_columns` read as numbers where every cell is one."""
     given = given or GivenTables()
+    judged_numbers, case_numbers = _typed_columns(spec) if typed else ((), ())
     frames = []
     inputs = []
     grids = {name: grid for name, _, grid in given.data}
     for source in spec.data:
         grid = grids.get(str(source.path))   # None: a file named in the spec
         df = (_given_table(str(source.path), grid, out) if grid is not None
-              else _read_one(source.path, "judgments table", "data", out))
+              else _read_one(source.path, "judgments table", "data", out, judged_numbers))
         if df is None:
             continue
         inputs.append({"path": source.path.name,
@@ -345,7 +449,7 @@ def _read_sources(spec: StudySpec, out: Collector, given: GivenTables | None = N
         if cases_df is not None:
             inputs.append({"path": spec.cases.name, "sha256": grid_sha256(given.cases)})
     elif spec.cases is not None:
-        cases_df = _read_one(spec.cases, "cases table", "cases", out)
+        cases_df = _read_one(spec.cases, "cases table", "cases", out, case_numbers)
         if cases_df is not None:
             inputs.append({"path": spec.cases.name, "sha256": sha256_of(spec.cases)})
     return frames, cases_df, inputs
@@ -369,22 +473,32 @@ def _case_table(spec: StudySpec, data: pd.DataFrame, cases_df: pd.DataFrame | No
     cases table's file name, or the judgments file of each case's first row).
     """
     ccol = spec.columns["case"]
-    cases_index = None if cases_df is None else index_cases_table(cases_df, data, spec, out)
-    case_values: dict[str, pd.Series] = {}
-    for col in case_level_columns(spec):
-        if cases_index is not None and col in cases_index.columns:
-            case_values[col] = cases_index[col]
-        else:
-            case_values[col] = case_value_from_rows(data, col, ccol, out)
-    used_cases = pd.Index(sorted(data[ccol].dropna().unique().tolist(), key=natural_key), name="case")
+    judged = pd.Series(data[ccol].unique())   # in order of appearance, missing ids included
+    cases_index = None if cases_df is None else index_cases_table(cases_df, data, spec, out, judged)
+    used_cases = pd.Index(natural_sorted(judged.dropna()), name="case")
+    # the cases table's row of each judged case, found once (not one reindex per column)
+    place = None if cases_index is None else positions_in(cases_index.index, used_cases)
     cases = pd.DataFrame(index=used_cases)
-    for col, series in case_values.items():
-        cases[col] = series.reindex(used_cases)
+    for col in case_level_columns(spec):
+        if place is not None and col in cases_index.columns:
+            cases[col] = _taken(cases_index[col], place, used_cases)
+        else:
+            values = case_value_from_rows(data, col, ccol, out)
+            cases[col] = _taken(values, positions_in(values.index, used_cases), used_cases)
+    if place is not None:
+        return cases, _taken(cases_index[ROW], place, used_cases), spec.cases.name
     first_rows = data.drop_duplicates(ccol).set_index(ccol)
-    row_of_case = (cases_index[ROW] if cases_index is not None
-                   else first_rows[ROW]).reindex(used_cases)
-    case_file = spec.cases.name if cases_index is not None else first_rows[FILE]
-    return cases, row_of_case, case_file
+    return cases, first_rows[ROW].reindex(used_cases), first_rows[FILE]
+
+
+def _taken(series: pd.Series, place: np.ndarray, index: pd.Index) -> pd.Series:
+    """``series`` at the rows ``place`` (missing where -1), on ``index``: a reindex whose
+    lookup is already done."""
+    return pd.Series(series.array.take(place, allow_fill=True), index=index, name=series.name)
+
+
+# The columns of the long table that the phase frames are made of
+_PHASE_COLUMNS = ["_rater", "_case", "_judgment", "_sequence", "_nth", "_shown", "_position", FILE, ROW]
 
 
 def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_terms: int,
@@ -395,7 +509,7 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
         out.warn(f"phase '{name}' has no judgments", kind="empty_phase", phase=name)
     # ids as text once: the frames below share these arrays instead of each converting
     # the same object arrays again
-    sub = sub.astype({"_rater": "str", "_case": "str"})
+    sub = sub[_PHASE_COLUMNS].astype({"_rater": "str", "_case": "str"})   # no other column is carried
     firsts = sub.loc[sub["_nth"] == 0]
     case_mean = firsts["_judgment"].to_numpy(dtype=float)
     presentations = PhaseData.__dataclass_fields__["presentations"].default_factory()
@@ -454,14 +568,17 @@ def _repeat_pairs(sub: pd.DataFrame, firsts: pd.DataFrame) -> pd.DataFrame:
     })
 
 
-def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None) -> JudgmentTable | None:
+def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None,
+           typed: bool = False) -> JudgmentTable | None:
     """The door: read, apply the input rules in order, split by phase.
 
     Returns None as soon as a step has found an error (every error of that step
-    is collected first).
+    is collected first). ``typed`` reads numeric columns as numbers (:func:`_read_sources`);
+    the caller then reads again as text when this finds an error (raises TextNeeded on
+    rows the rules compare as text).
     """
     cols = spec.columns
-    frames, cases_df, inputs = _read_sources(spec, out, given)
+    frames, cases_df, inputs = _read_sources(spec, out, given, typed)
     if not frames or out.errors:
         return None
     cases_df = check_columns_exist(spec, frames, cases_df, out)
@@ -497,7 +614,7 @@ def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None) ->
     if out.errors:
         return None
     design = build_cue_design(cases, list(spec.cues))
-    complete = pd.Series(design.complete_rows(), index=list(design.case_ids))
+    complete = pd.Series(design.complete_rows(), index=cases.index)   # the design's rows are the cases
 
     data = data.rename(columns={cols["rater"]: "_rater", cols["case"]: "_case"})
     data = mark_repeats(data, out, spec.judgment.repeats)

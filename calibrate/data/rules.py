@@ -8,6 +8,11 @@ stated as README.md's "Input" section states them.
 
 Row numbers are the ones a person sees: in a CSV or a worksheet the header is
 row 1 and the first data row is row 2.
+
+A rule never changes the frame it is given, and copies no column it does not change: it
+takes a shallow copy (``copy(deep=False)``) and sets whole columns on it, which replaces
+them there only (pandas sets a whole column as a new array; with copy-on-write, pandas 3,
+nothing is shared that one side could write into).
 """
 
 from __future__ import annotations
@@ -34,6 +39,44 @@ _DIGIT_RUNS = re.compile(r"(\d+)")
 def natural_key(text: str):
     """Sort 'r2' before 'r10' (called once per id: the pattern is compiled once)."""
     return [int(t) if t.isdigit() else t.lower() for t in _DIGIT_RUNS.split(str(text))]
+
+
+# An id of at most three tokens (text, one run of at most 18 digits, text) in ASCII: its
+# natural_key is computed column-wise (the digit run fits an int64)
+_SIMPLE_ID = r"[^0-9]*[0-9]{0,18}[^0-9]*"
+# Below this many cells (ids to sort, distinct ids, numbers to convert) the cell-by-cell
+# route is quicker than the column operations' fixed cost
+COLUMNWISE_FROM = 5000
+
+
+def natural_order(ids: pd.Series) -> np.ndarray:
+    """Positions that put ``ids`` in the order of ``sorted(..., key=natural_key)`` (stable).
+
+    Ids of the simple form above are ranked on whole columns: the text before the digits
+    (lower case), then whether there are digits (an id without sorts first, as a shorter
+    key does), the number, the text after (lower case), then the place (sorted is stable).
+    Any other id (missing, non-ASCII, two digit runs) sorts by natural_key itself.
+    """
+    ids = pd.Series(ids).reset_index(drop=True)
+    if ids.empty:
+        return np.zeros(0, dtype=np.intp)
+    if (len(ids) < COLUMNWISE_FROM or ids.dtype != "str" or ids.isna().any() or not ids.str.isascii().all()
+            or not ids.str.fullmatch(_SIMPLE_ID).all()):
+        keys = [natural_key(v) for v in ids.tolist()]
+        return np.array(sorted(range(len(keys)), key=keys.__getitem__), dtype=np.intp)
+    lower = ids.str.lower()
+    head = pd.factorize(lower.str.replace(r"[0-9].*$", "", regex=True), sort=True)[0]
+    tail = pd.factorize(lower.str.replace(r"^[^0-9]*[0-9]*", "", regex=True), sort=True)[0]
+    digits = ids.str.replace(r"^[^0-9]*", "", regex=True).str.replace(r"[^0-9].*$", "", regex=True)
+    has_digits = (digits != "").to_numpy(dtype=bool)
+    number = digits.where(has_digits, "0").astype("int64").to_numpy()
+    return np.lexsort((np.arange(len(ids)), tail, number, has_digits, head))
+
+
+def natural_sorted(ids) -> list:
+    """``sorted(ids, key=natural_key)``, on whole columns where :func:`natural_order` can."""
+    ids = pd.Series(ids)
+    return ids.iloc[natural_order(ids)].tolist()
 
 
 def as_id(value) -> str | None:
@@ -116,12 +159,40 @@ def to_numbers(series: pd.Series, missing_words: tuple[str, ...] = ()) -> tuple[
     of ``missing_words`` is missing. Infinite and overflowing values (inf, 1e400) come back
     as +-inf, for :func:`report_non_finite` to refuse. A long table repeats its scores and
     positions, so each distinct cell is converted once."""
+    if series.dtype.kind == "f":   # read as numbers already: each cell is its own value
+        return (pd.Series(series.to_numpy(dtype=float), index=series.index, name=series.name),
+                pd.Series(np.zeros(len(series), dtype=bool), index=series.index, name=series.name))
+    plain = _plain_decimals(series, missing_words)
+    if plain is not None:
+        return plain
     split = _distinct_cells(series)
     if split is None:
         return _cells_to_numbers(series, missing_words)
     codes, distinct = split
     values, bad = _cells_to_numbers(distinct, missing_words)
     return _spread(values, codes, series, np.nan), _spread(bad, codes, series, False)
+
+
+# A number as written in a table: sign, digits with at most one point, exponent. Such text
+# converts to the same float by the column's own cast as by to_numeric or float().
+_DECIMAL = r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?"
+
+
+def _plain_decimals(series: pd.Series, missing_words: tuple[str, ...]) -> tuple[pd.Series, pd.Series] | None:
+    """:func:`to_numbers` of a text column whose every present cell is a plain decimal (and no
+    missing word is one), converted by one cast of the column; None for any other column."""
+    if (len(series) < COLUMNWISE_FROM or series.dtype != "str"
+            or any(re.fullmatch(_DECIMAL, " ".join(w.split())) for w in missing_words)):
+        return None
+    present = series.notna()
+    if not series[present].str.fullmatch(_DECIMAL).all():
+        return None
+    try:
+        values = series.astype(float)
+    except (TypeError, ValueError, OverflowError):
+        return None
+    return (pd.Series(values.to_numpy(dtype=float), index=series.index, name=series.name),
+            pd.Series(np.zeros(len(series), dtype=bool), index=series.index, name=series.name))
 
 
 def _cells_to_numbers(series: pd.Series, missing_words: tuple[str, ...]) -> tuple[pd.Series, pd.Series]:
@@ -153,6 +224,12 @@ NON_FINITE_FIX = ("is not a finite number (infinite, or too large to hold); give
 # Ids title the reports and their tables; a longer id cannot be laid out on a page.
 MAX_ID_CHARS = 100
 CONTROL_CHARACTERS = re.compile(r"[\x00-\x1f\x7f-\x9f]")
+
+
+class TextNeeded(Exception):
+    """Cells read as numbers (:func:`calibrate.data.ingest.read_table`'s ``numbers``) met a
+    rule that compares rows as written ("4" and "4.0" are two values there): the study is
+    read again as text."""
 
 
 class Collector:
@@ -230,7 +307,7 @@ def check_columns_exist(spec: StudySpec, frames: list[pd.DataFrame], cases_df: p
 def check_ids(data: pd.DataFrame, columns: dict[str, str], out: Collector) -> pd.DataFrame:
     """Every judgment needs a rater id and a case id; ids are read as text, one printable
     line of at most MAX_ID_CHARS characters (an id "NA" or "None" is an id)."""
-    data = data.copy()
+    data = data.copy(deep=False)
     for role in ("rater", "case"):
         col = columns[role]
         ids, missing, odd, too_long = _checked_ids(data[col])
@@ -257,6 +334,8 @@ def _checked_ids(raw: pd.Series) -> tuple[pd.Series, np.ndarray, np.ndarray, np.
         ids = map_distinct(raw, as_id)
         return (ids, *_id_problems(ids))
     codes, distinct = split
+    if _plain_ids(distinct):   # each id is its own text: nothing to strip, nothing to report
+        return (raw, codes < 0, np.zeros(len(raw), dtype=bool), np.zeros(len(raw), dtype=bool))
     distinct_ids = map_distinct(distinct, as_id)
     missing, odd, too_long = (pd.Series(flags) for flags in _id_problems(distinct_ids))
     if isinstance(distinct_ids.dtype, pd.StringDtype):
@@ -267,6 +346,17 @@ def _checked_ids(raw: pd.Series) -> tuple[pd.Series, np.ndarray, np.ndarray, np.
         ids = _spread(distinct_ids, codes, raw, None)
     return (ids, _spread(missing, codes, raw, True).to_numpy(),
             _spread(odd, codes, raw, False).to_numpy(), _spread(too_long, codes, raw, False).to_numpy())
+
+
+# Printable ASCII, no space at either end, at most MAX_ID_CHARS characters: as_id keeps
+# such an id as it is and no id rule reports it
+_PLAIN_ID = r"[!-~](?:[ -~]{0,%d}[!-~])?" % (MAX_ID_CHARS - 2)
+
+
+def _plain_ids(distinct: pd.Series) -> bool:
+    """Whether every one of these distinct ids (text read from a file) is a plain id."""
+    return (len(distinct) >= COLUMNWISE_FROM and distinct.dtype == "str"
+            and bool(distinct.str.fullmatch(_PLAIN_ID).all()))
 
 
 def _id_problems(ids: pd.Series) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -281,7 +371,7 @@ def check_phases(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.Data
     """Phases: with [phases] order, a phase value not in the order (or empty) is an error."""
     if spec.phase_order is None:
         return data
-    data = data.copy()
+    data = data.copy(deep=False)
     ph = map_distinct(data[PHASE], as_id)
     bad = ph.isna() | ~ph.isin(spec.phase_order)
     for (fname, value), rows in data.loc[bad].assign(_v=ph[bad].fillna("(empty)")).groupby(
@@ -297,13 +387,32 @@ def drop_duplicates(data: pd.DataFrame, out: Collector) -> pd.DataFrame:
     """Rows identical in every column, sequence included, are duplicates: dropped with a
     warning, never taken as a repeat."""
     original = [c for c in data.columns if not c.startswith("_")] + [PHASE]
-    dup = data.duplicated(subset=original, keep="first")
+    dup = duplicated_rows(data, original)
     if not dup.any():
         return data
+    if any(data[c].dtype.kind == "f" for c in original):
+        raise TextNeeded("rows equal as numbers may differ as written")
     for fname, rows in data.loc[dup].groupby(FILE)[ROW]:
         out.warn(f"{len(rows)} row(s) identical in every column to an earlier row were dropped as "
                  f"duplicates (rows {rows_text(rows.tolist())})", file=fname, kind="duplicate_rows")
-    return data.loc[~dup].copy()
+    return data.loc[~dup].copy(deep=False)
+
+
+def duplicated_rows(data: pd.DataFrame, columns: list[str]) -> pd.Series:
+    """``data.duplicated(subset=columns)``: each column factorized (missing cells alike), the
+    codes folded into one integer per row; the key is renumbered before it could outgrow an
+    int64."""
+    key, key_values = np.zeros(len(data), dtype=np.int64), 1
+    for col in columns:
+        try:
+            codes, uniques = pd.factorize(data[col], use_na_sentinel=False)
+        except TypeError:   # unhashable cells: pandas' own
+            return data.duplicated(subset=columns, keep="first")
+        if key_values * (len(uniques) + 1) >= 2 ** 62:
+            key, key_values = pd.factorize(key)[0].astype(np.int64), len(data) + 1
+        key = key * (len(uniques) + 1) + codes
+        key_values *= len(uniques) + 1
+    return pd.Series(pd.Series(key).duplicated(keep="first").to_numpy(), index=data.index)
 
 
 def judgment_values(raw: pd.Series, labels: dict[str, float],
@@ -311,6 +420,9 @@ def judgment_values(raw: pd.Series, labels: dict[str, float],
     """Judgments as numbers; words only through [judgment] labels (case and spaces ignored),
     and a label wins over a missing word of the same spelling. Returns (values, mask of
     present judgments)."""
+    if raw.dtype.kind == "f" and not labels:   # read as numbers: present where not empty
+        return (pd.Series(raw.to_numpy(dtype=float), index=raw.index, name=raw.name),
+                pd.Series(raw.notna().to_numpy(), index=raw.index, name=raw.name))
     split = _distinct_cells(raw)
     if split is None:
         return _cells_judgment_values(raw, labels, missing_words)
@@ -382,9 +494,9 @@ def check_judgments(data: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.D
         for fname, rows in data.loc[no_judgment].groupby(FILE)[ROW]:
             out.warn(f"{len(rows)} row(s) without a judgment were dropped (rows "
                      f"{rows_text(rows.tolist())})", file=fname, column=jcol, kind="no_judgment")
-    data = data.copy()
+    data = data.copy(deep=False)
     data["_judgment"] = values
-    return data.loc[present].copy()
+    return data if present.all() else data.loc[present].copy(deep=False)
 
 
 ZONE_SUFFIX = re.compile(r"(?:Z|[+-]\d{2}(?::?\d{2})?|\s*(?:UTC|GMT))$", re.IGNORECASE)
@@ -410,7 +522,7 @@ def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector,
                    missing_words: tuple[str, ...] = ()) -> pd.DataFrame:
     """A sequence is a finite number (position in the reading order) or a date-time; anything
     else is an error naming its row. Adds ``_sequence`` (NaN when there is no sequence column)."""
-    data = data.copy()
+    data = data.copy(deep=False)
     if "sequence" not in columns:
         data["_sequence"] = np.nan
         return data
@@ -439,14 +551,17 @@ def check_sequence(data: pd.DataFrame, columns: dict[str, str], out: Collector,
 
 
 def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpec,
-                      out: Collector) -> pd.DataFrame:
+                      out: Collector, judged: pd.Series | None = None) -> pd.DataFrame:
     """Cues belong to the case (cases table): every row needs a case id; a case id listed
     twice with different values is an error; every judged case must be in the table.
-    Returns the cases table indexed by case id, one row per case."""
+    Returns the cases table indexed by case id, one row per case. ``judged``: the judgments'
+    distinct case ids in order of appearance, when the caller has them."""
     ccol = spec.columns["case"]
     case_level = case_level_columns(spec)
-    cases_df = cases_df.copy()
-    cases_df[ccol] = map_distinct(cases_df[ccol], as_id)
+    cases_df = cases_df.copy(deep=False)
+    split = _distinct_cells(cases_df[ccol])
+    if split is None or not _plain_ids(split[1]):
+        cases_df[ccol] = map_distinct(cases_df[ccol], as_id)
     empty = cases_df[ccol].isna()
     if empty.any():
         out.error(f"the case id is empty in rows {rows_text(cases_df.loc[empty, ROW].tolist())}",
@@ -455,6 +570,8 @@ def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpe
     dup_ids = cases_df[ccol].duplicated(keep=False)
     if dup_ids.any():
         keep_cols = [c for c in cases_df.columns if c in case_level]
+        if any(cases_df[c].dtype.kind == "f" for c in keep_cols):
+            raise TextNeeded("a case listed twice: its values are compared as written")
         for cid, grp in cases_df.loc[dup_ids].groupby(ccol):
             if len(grp[keep_cols].drop_duplicates()) > 1:
                 out.error(f"case '{cid}' appears in rows {rows_text(grp[ROW].tolist())} with "
@@ -462,15 +579,27 @@ def index_cases_table(cases_df: pd.DataFrame, data: pd.DataFrame, spec: StudySpe
                           file=spec.cases.name, column=ccol)
         cases_df = cases_df.drop_duplicates(subset=[ccol], keep="first")
     cases_index = cases_df.set_index(ccol)
-    # looked up in the (unique) index's hash table: isin on a text column builds an object
-    # per value of the cases table (100,000 on a linked panel)
-    unknown = cases_index.index.get_indexer(data[ccol]) < 0
+    # each distinct judged id looked up once (in order of appearance, as the message lists them)
+    judged = pd.Series(data[ccol].unique()) if judged is None else judged
+    unknown = positions_in(cases_index.index, judged) < 0
     if unknown.any():
-        ids = data.loc[unknown, ccol].unique()
+        ids = judged[unknown].to_numpy()
         out.error(f"{len(ids)} case id(s) in the judgments are missing from the cases table: "
                   + ", ".join(map(str, ids[:MAX_LISTED])) + (" ..." if len(ids) > MAX_LISTED else ""),
                   file=spec.cases.name, column=ccol)
     return cases_index
+
+
+def positions_in(keys: pd.Index, wanted) -> np.ndarray:
+    """The place of each of ``wanted`` among the distinct ``keys`` (-1 where absent): both
+    factorized together, so each value is hashed once (an index of text looks each value up
+    far more slowly)."""
+    if not keys.is_unique:
+        raise ValueError("positions_in needs distinct keys")
+    codes = pd.factorize(pd.concat([pd.Series(keys, dtype=keys.dtype), pd.Series(wanted)],
+                                   ignore_index=True), use_na_sentinel=True)[0]
+    found = codes[len(keys):]
+    return np.where(found < len(keys), found, -1).astype(np.intp)
 
 
 def case_value_from_rows(data: pd.DataFrame, col: str, case_col: str, out: Collector) -> pd.Series:
@@ -508,7 +637,7 @@ def check_numeric_cues(cases: pd.DataFrame, cues: tuple[CueRule, ...], row_of_ca
     """A numeric cue holds finite numbers or nothing (an empty cell or one of the missing
     words); a word is an error (or declare it categorical), and so is inf or a number too
     large to hold."""
-    cases = cases.copy()
+    cases = cases.copy(deep=False)
     for rule in cues:
         if rule.kind != "numeric":
             continue
@@ -529,7 +658,7 @@ def blank_categorical_missing(cases: pd.DataFrame, columns: list[str],
                               missing_words: tuple[str, ...]) -> pd.DataFrame:
     """Categorical cues: only an empty cell is missing, unless the spec lists missing_words;
     so a level written "None" or "NA" stays a level by default."""
-    cases = cases.copy()
+    cases = cases.copy(deep=False)
     for col in columns:
         cases[col] = blank_missing_words(cases[col], missing_words)
     return cases
@@ -540,7 +669,7 @@ def check_criterion(cases: pd.DataFrame, crit: str, case_file: str | pd.Series |
                     row_of_case: pd.Series | None = None) -> pd.DataFrame:
     """The criterion holds finite numbers or nothing. A missing criterion only removes that
     case from the lens model (a warning). Adds the numeric criterion as ``__criterion__``."""
-    cases = cases.copy()
+    cases = cases.copy(deep=False)
     rows = pd.Series(dtype=float) if row_of_case is None else row_of_case
     vals, bad = to_numbers(cases[crit], missing_words)
     for cid in cases.index[bad][:MAX_ROW_MESSAGES]:
@@ -590,7 +719,7 @@ def excluded_types(cases: pd.DataFrame, excluded: tuple[str, ...],
     """An excluded attribute is numeric when every present value is a finite number (and is
     then converted, the numeric missing words read as missing), else categorical (only the
     spec's own missing words read as missing)."""
-    cases = cases.copy()
+    cases = cases.copy(deep=False)
     types = {}
     for col in excluded:
         vals, bad = to_numbers(cases[col], numeric_words)
@@ -628,9 +757,10 @@ def mark_repeats(data: pd.DataFrame, out: Collector, mode: str | None = "first-t
     # columns would; the ids as integer codes that sort as the ids do, so the sort and the
     # counts below are numpy on integers, not pandas on 460,000 strings.
     n = len(data)
-    phase, rater, case = (_sorted_codes(data[c]) for c in (PHASE, "_rater", "_case"))
+    phase, rater = _sorted_codes(data[PHASE]), _sorted_codes(data["_rater"])
+    case = _sorted_codes(data["_case"], sort=False)   # only told apart, never ordered
     order = np.lexsort((np.arange(n), data["_sequence"].to_numpy(dtype=float), rater, phase))
-    data = data.iloc[order].copy()
+    data = data.iloc[order].copy(deep=False)
     data["_order"] = order
     phase, rater, case = phase[order], rater[order], case[order]
     reader = phase * (int(rater.max(initial=0)) + 1) + rater            # one code per phase and rater
@@ -646,15 +776,16 @@ def mark_repeats(data: pd.DataFrame, out: Collector, mode: str | None = "first-t
         _warn_many_presentations(data, third, mode, out)
     if mode == "first-two":
         keep = ~third.to_numpy()
-        data, reader = data.loc[keep].copy(), reader[keep]
+        data, reader = data.loc[keep].copy(deep=False), reader[keep]
     data["_position"] = _cumcount(reader)
     data.attrs["repeats"] = mode
     return data
 
 
-def _sorted_codes(values: pd.Series) -> np.ndarray:
-    """One integer per distinct value, in the values' sorted order, missing values last."""
-    codes, uniques = pd.factorize(values, sort=True, use_na_sentinel=True)
+def _sorted_codes(values: pd.Series, sort: bool = True) -> np.ndarray:
+    """One integer per distinct value, in the values' sorted order (with ``sort``), missing
+    values last."""
+    codes, uniques = pd.factorize(values, sort=sort, use_na_sentinel=True)
     codes = codes.astype(np.int64)
     codes[codes < 0] = len(uniques)
     return codes
@@ -709,12 +840,14 @@ def too_few_cases(first: pd.DataFrame, complete: pd.Series, n_terms: int, phase_
     Returns (raters fit, {rater kept out: usable cases})."""
     # counted on integer codes: each distinct case looked up once, usable cases per rater by
     # bincount (a first-judgment table has a row per rater and case)
-    case_codes, cases = pd.factorize(first["case"], use_na_sentinel=False)
     rater_codes, raters = pd.factorize(first["rater"], use_na_sentinel=False)
-    usable_case = pd.Series(cases).map(complete).to_numpy(dtype=bool)
-    counts = np.bincount(rater_codes[usable_case[case_codes]], minlength=len(raters))
+    # each row's case looked up among the design's cases (a case not there counts as usable,
+    # as mapping it did)
+    where = positions_in(complete.index, first["case"])
+    usable = np.where(where >= 0, complete.to_numpy(dtype=bool)[np.maximum(where, 0)], True)
+    counts = np.bincount(rater_codes[usable], minlength=len(raters))
     count_of = dict(zip(raters.tolist(), counts.tolist()))
-    usable = {r: count_of[r] for r in sorted(count_of, key=natural_key)}
+    usable = {r: count_of[r] for r in natural_sorted(list(count_of))}
     too_few = {r: int(n) for r, n in usable.items() if n < n_terms + 2}
     for rater, n in too_few.items():
         where = f" in phase '{phase_name}'" if phase_name is not None else ""
