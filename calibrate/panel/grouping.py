@@ -45,6 +45,7 @@ from .stability import (
     groups_by_rule,
     keep_apart_rule,
     merge_side_loss,
+    null_panel_budget,
     resample_budget,
     resampling_stability,
     tree_side_losses,
@@ -262,8 +263,11 @@ def group_raters(
     n_groups : force this many groups (the chair overrules the rule); None: the rule.
     n_null : simulated one-policy panels for the number-of-groups test.
     scale_down : on large panels, fewer resamples and simulated panels than asked
-        (resamples x raters^2 is capped; each reduction is stated in ``reduced_forms``,
-        which the audit warns). False runs the full numbers on any panel size.
+        (resamples x raters^2 is capped, never below 20 resamples and 50 simulated
+        panels; above 1,000 raters the number-of-groups test runs the fewest simulated
+        panels that let its p-value fall below ``alpha``, 20 at 0.05; each reduction is
+        stated in ``reduced_forms``, which the audit warns). False runs the full
+        numbers on any panel size.
 
     Returns
     -------
@@ -398,7 +402,7 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     else:
         asked_null = n_null
         if scale_down:
-            n_null = resample_budget(n_null, n_eligible, floor=50)
+            n_null = null_panel_budget(n_null, n_eligible, alpha)
         if n_null < asked_null:
             reduced.append(f"The number-of-groups test from {n_null} simulated panels instead "
                            f"of {asked_null} on this panel size ({n_eligible} raters).")

@@ -42,7 +42,9 @@ __all__ = [
     "groups_by_rule",
     "keep_apart_rule",
     "matched_share",
+    "fewest_null_panels",
     "merge_side_loss",
+    "null_panel_budget",
     "resample_budget",
     "resampled_labels",
     "resampling_stability",
@@ -100,6 +102,35 @@ def resample_budget(n_resamples: int, n_raters: int, *, floor: int = 20) -> int:
     if n_raters < 2:
         return n_resamples
     return min(n_resamples, max(floor, _RESAMPLE_WORK_BUDGET // (n_raters * n_raters)))
+
+
+#: Above this many raters the number-of-groups test runs the fewest simulated panels
+#: whose p-value can still fall below alpha (20 at alpha 0.05) instead of the floor of
+#: 50: at 2,000 raters each simulated panel is a whole 2,000-rater grouping. Measured
+#: size and power with 50 and 20 panels are in DEVELOPERS.md (number of groups).
+LARGE_PANEL_RATERS = 1000
+
+
+def fewest_null_panels(alpha: float) -> int:
+    """The fewest simulated panels n whose smallest p-value, 1 / (n + 1), is below alpha."""
+    n = max(int(np.ceil(1.0 / alpha)) - 1, 1)
+    while 1.0 / (n + 1.0) >= alpha:
+        n += 1
+    return n
+
+
+def null_panel_budget(n_null: int, n_raters: int, alpha: float) -> int:
+    """Simulated one-policy panels for the number-of-groups test (never more than asked).
+
+    As :func:`resample_budget` with a floor of 50; above ``LARGE_PANEL_RATERS`` raters
+    no more than :func:`fewest_null_panels` (a Monte Carlo test with 20 panels rejects
+    at 0.05 only when the panel's statistic beats all 20: size 1/21, against 2/51 with
+    50 panels; the power lost is measured in DEVELOPERS.md).
+    """
+    budget = resample_budget(n_null, n_raters, floor=50)
+    if n_raters > LARGE_PANEL_RATERS:
+        budget = min(budget, max(fewest_null_panels(alpha), 1))
+    return budget
 
 
 def merge_side_loss(sscp_a: np.ndarray, sscp_b: np.ndarray, p: int, *,
@@ -275,63 +306,102 @@ def groups_by_rule(sscp, n, active, history, losses, smaller, rule: KeepApartRul
             moved = piece[join] == jj[:, None]
             piece[join] = np.where(moved, ji[:, None], piece[join])
         done[todo] += 1
-    for b in np.flatnonzero(tainted.any(axis=1)):
-        piece[b] = _join_pieces(sscp[b], n[b], piece[b], rule, p)
+    joined = np.flatnonzero(tainted.any(axis=1))
+    if joined.size:
+        piece[joined] = _join_pieces_lockstep(sscp[joined], n[joined], piece[joined], rule, p)
     return piece
 
 
 def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
-    """Join pieces of one batch, cheapest merge first, while the rule allows it.
+    """:func:`_join_pieces_lockstep` for one batch (``sscp`` (R, k, k), ``piece`` (R,))."""
+    return _join_pieces_lockstep(sscp[None], n[None], piece[None], rule, p)[0]
 
-    Every pair's cost and verdict is computed once and only the merged piece's pairs
-    again after a merge (the others' sums have not changed), so joining P pieces costs
-    O(P^2) fits instead of O(P^3). Each piece's own RSS and common weights are kept
-    between merges, so scoring a pair solves only the merged system (the same solves,
-    matrix by matrix, as :func:`merged_rss` and :func:`merge_side_loss`: the same
-    digits). The pick is the same as scanning every pair in (first, second) order: the
-    cheapest allowed pair, the first one on a tie (row-major order of the upper
-    triangle).
+
+def _join_pieces_lockstep(sscp, n, piece, rule, p) -> np.ndarray:
+    """Join pieces, cheapest merge first, while the rule allows it; every batch at once.
+
+    ``sscp`` (B, R, k, k), ``n`` and ``piece`` (B, R). Every pair's cost and verdict is
+    computed once and only the merged piece's pairs again after a merge (the others'
+    sums have not changed), so joining P pieces costs O(P^2) fits instead of O(P^3).
+    Each piece's own RSS and common weights are kept between merges, so scoring a pair
+    solves only the merged system (the same solves, matrix by matrix, as
+    :func:`merged_rss` and :func:`merge_side_loss`: the same digits). The pick is the
+    same as scanning every pair in (first, second) order: the cheapest allowed pair, the
+    first one on a tie (row-major order of the upper triangle). The batches merge in
+    lockstep, one pick each per round, padded to the largest number of pieces: a
+    resample's pieces were joined one batch at a time before, 3,216 rounds of small
+    solves for the 21 groupings of a 2,000-rater panel.
     """
-    piece = piece.copy()
-    ids = [int(g) for g in np.unique(piece[piece >= 0])]
-    P = len(ids)
-    if P < 2:
-        return piece
-    group = np.array([sscp[piece == g].sum(axis=0) for g in ids])
-    count = np.array([float(n[piece == g].sum()) for g in ids])
-    size = np.array([np.sum(piece == g) for g in ids])
-    own_rss = merged_rss(group, count, p)
-    own_weights = common_weights(group, p)
-    cost = np.full((P, P), np.nan)
-    allowed = np.zeros((P, P), dtype=bool)   # upper triangle only, live pieces only
-    alive = np.ones(P, dtype=bool)
+    B, R = piece.shape
+    ids = [np.unique(row[row >= 0]) for row in piece]
+    P = max(len(i) for i in ids)
+    k = sscp.shape[-1]
+    group = np.zeros((B, P, k, k))
+    count = np.zeros((B, P))
+    size = np.zeros((B, P), dtype=int)
+    alive = np.zeros((B, P), dtype=bool)
+    for b, own in enumerate(ids):
+        for g, label in enumerate(own):  # summed rater by rater, in rater order, as before
+            member = piece[b] == label
+            group[b, g] = sscp[b, member].sum(axis=0)
+            count[b, g] = float(n[b, member].sum())
+            size[b, g] = int(member.sum())
+        alive[b, :own.size] = True
+    own_rss = np.zeros((B, P))
+    own_weights = np.zeros((B, P, p))
+    own_rss[alive] = merged_rss(group[alive], count[alive], p)
+    own_weights[alive] = common_weights(group[alive], p)
+    cost = np.full((B, P, P), np.inf)
+    allowed = np.zeros((B, P, P), dtype=bool)   # upper triangle only, live pieces only
 
-    def score(first, second):
-        a, b = group[first], group[second]
-        cost[first, second] = (merged_rss(a + b, count[first] + count[second], p)
-                               - own_rss[first] - own_rss[second])
-        loss = merge_side_loss(a, b, p, weights=(own_weights[first], own_weights[second]))
-        allowed[first, second] = ~rule.apart(loss, np.minimum(size[first], size[second]))
+    def score(bb, first, second):
+        a, b = group[bb, first], group[bb, second]
+        cost[bb, first, second] = (merged_rss(a + b, count[bb, first] + count[bb, second], p)
+                                   - own_rss[bb, first] - own_rss[bb, second])
+        loss = merge_side_loss(a, b, p, weights=(own_weights[bb, first],
+                                                 own_weights[bb, second]))
+        allowed[bb, first, second] = ~rule.apart(loss, np.minimum(size[bb, first],
+                                                                  size[bb, second]))
 
-    score(*np.triu_indices(P, k=1))
-    while alive.sum() > 1:
-        candidates = np.flatnonzero(allowed)
-        if candidates.size == 0:
-            break
-        keep, gone = divmod(int(candidates[np.argmin(cost.reshape(-1)[candidates])]), P)
-        piece[piece == ids[gone]] = ids[keep]
-        group[keep] = group[keep] + group[gone]
-        count[keep] += count[gone]
-        size[keep] += size[gone]
-        alive[gone] = False
-        allowed[gone, :] = allowed[:, gone] = False
-        allowed[keep, :] = allowed[:, keep] = False
-        own_rss[keep] = merged_rss(group[keep:keep + 1], count[keep:keep + 1], p)[0]
-        own_weights[keep] = common_weights(group[keep:keep + 1], p)[0]
-        others = np.flatnonzero(alive & (np.arange(P) != keep))
-        if others.size:
-            score(np.minimum(others, keep), np.maximum(others, keep))
-    return piece
+    upper_first, upper_second = np.triu_indices(P, k=1)
+    bb, pair = np.nonzero(alive[:, upper_first] & alive[:, upper_second])
+    score(bb, upper_first[pair], upper_second[pair])
+    joins = []   # (batches, piece kept, piece absorbed) per round
+    flat_allowed = allowed.reshape(B, -1)
+    todo = np.flatnonzero(flat_allowed.any(axis=1))
+    while todo.size:
+        # The cheapest allowed pair of each batch, the first one in row-major order on a
+        # tie (a NaN cost is picked first, as argmin over the allowed pairs picks it).
+        pick = np.where(flat_allowed[todo], cost.reshape(B, -1)[todo], np.inf).argmin(axis=1)
+        first_allowed = flat_allowed[todo].argmax(axis=1)
+        pick = np.where(flat_allowed[todo, pick], pick, first_allowed)
+        keep, gone = np.divmod(pick, P)
+        joins.append((todo, keep, gone))
+        group[todo, keep] = group[todo, keep] + group[todo, gone]
+        count[todo, keep] += count[todo, gone]
+        size[todo, keep] += size[todo, gone]
+        alive[todo, gone] = False
+        for slot in (gone, keep):
+            allowed[todo, slot, :] = False
+            allowed[todo, :, slot] = False
+        own_rss[todo, keep] = merged_rss(group[todo, keep], count[todo, keep], p)
+        own_weights[todo, keep] = common_weights(group[todo, keep], p)
+        others = alive[todo]
+        others[np.arange(todo.size), keep] = False
+        m, other = np.nonzero(others)
+        if m.size:
+            score(todo[m], np.minimum(other, keep[m]), np.maximum(other, keep[m]))
+        todo = todo[flat_allowed[todo].any(axis=1)]
+    # Each piece's final piece, from the last join back (as in the merge loop's labels).
+    final = np.broadcast_to(np.arange(P), (B, P)).copy()
+    for todo, keep, gone in reversed(joins):
+        final[todo, gone] = final[todo, keep]
+    out = piece.copy()
+    for b, own in enumerate(ids):
+        if own.size:
+            where = out[b] >= 0
+            out[b, where] = own[final[b, np.searchsorted(own, out[b, where])]]
+    return out
 
 
 def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,

@@ -15,7 +15,12 @@ from calibrate.data.cues import CueRule, build_cue_design
 from calibrate.errors import DataError
 from calibrate.panel.grouping import group_raters
 from calibrate.panel.merges import stacked_sscp
-from calibrate.panel.stability import resample_budget, resampled_labels
+from calibrate.panel.stability import (
+    fewest_null_panels,
+    null_panel_budget,
+    resample_budget,
+    resampled_labels,
+)
 from calibrate.policy.linalg import grouped_sscp
 
 
@@ -313,6 +318,19 @@ def test_resample_budget_shrinks_for_large_panels():
     assert resample_budget(200, 2000) == 20
     assert resample_budget(100, 2000, floor=50) == 50
     assert resample_budget(30, 2000, floor=50) == 30  # never more than asked
+
+
+def test_large_panels_run_the_fewest_simulated_panels_that_reach_alpha():
+    # A Monte Carlo p-value (1 + #{null >= observed}) / (n + 1) is at least 1 / (n + 1):
+    # below 0.05 from n = 20 on, below 0.01 from n = 100 on (an exact identity).
+    assert fewest_null_panels(0.05) == 20 and 1 / 21 < 0.05 <= 1 / 20
+    assert fewest_null_panels(0.01) == 100 and fewest_null_panels(0.03) == 33
+    assert fewest_null_panels(1.0) == 1
+    assert null_panel_budget(100, 1000, 0.05) == 50
+    assert null_panel_budget(100, 1001, 0.05) == 20
+    assert null_panel_budget(100, 2000, 0.01) == 50   # never more than the floor gave
+    assert null_panel_budget(10, 2000, 0.05) == 10    # never more than asked
+    assert null_panel_budget(100, 40, 0.05) == 100
 
 
 def test_group_importance_is_general_dominance_on_the_pooled_judgments():
