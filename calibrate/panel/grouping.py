@@ -43,11 +43,12 @@ from .stability import (
     SURVIVAL_JACCARD,
     adjusted_rand_index,
     groups_by_rule,
-    keep_apart_rule,
     merge_side_loss,
     null_panel_budget,
     resample_budget,
     resampling_stability,
+    rule_and_resampled_groups,
+    stability_of,
     tree_side_losses,
     ward_cross_check,
 )
@@ -392,7 +393,10 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     merges = _merge_steps(agg.history, start_labels, raters, full.sscp, tss=tss,
                           n_residual=n_total - n_eligible, p=p)
 
-    keep_apart = None
+    used_resamples = 0
+    if n_eligible >= 2:
+        used_resamples = resample_budget(n_resamples, n_eligible) if scale_down else n_resamples
+    keep_apart = boot_slots = None
     if n_groups is not None:
         if not 1 <= n_groups <= max(n_eligible, 1):
             raise DataError(f"n_groups must be between 1 and {max(n_eligible, 1)} "
@@ -408,8 +412,10 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
                            f"of {asked_null} on this panel size ({n_eligible} raters).")
         chosen = min(n_eligible, 1)  # the rule below decides when two or more can be fitted
         if n_eligible >= 2:
-            keep_apart = keep_apart_rule(Z, who, eligible, own.rss, own.df_resid, p, n_null,
-                                         generator, threshold=threshold, alpha=alpha, base=full)
+            # The simulated panels and the resamples merge in one lockstep (same draws).
+            keep_apart, boot_slots = rule_and_resampled_groups(
+                Z, who, case_row, len(design.case_ids), eligible, own.rss, own.df_resid, p,
+                n_null, used_resamples, generator, threshold=threshold, alpha=alpha, base=full)
             losses, smaller = tree_side_losses(full.sscp[None], eligible[None], agg.history, p)
             p_values = keep_apart.p_value(losses[0], smaller[0])
             merges = [dataclasses.replace(m, p_value=float(pv)) for m, pv in zip(merges, p_values)]
@@ -429,14 +435,15 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     names = name_groups(slots, raters)
     rater_group = dict(zip(raters, names))
 
-    used_resamples = 0
-    if n_eligible >= 2:
-        used_resamples = resample_budget(n_resamples, n_eligible) if scale_down else n_resamples
     if used_resamples < n_resamples and n_eligible >= 2:
         reduced.append(f"Grouping stability from {used_resamples} case resamples instead of "
                        f"{n_resamples} on this panel size ({n_eligible} raters).")
-    stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots, eligible,
-                                     p, chosen, used_resamples, generator, keep_apart, base=full)
+    if boot_slots is not None:
+        stability = stability_of(slots, boot_slots, eligible)
+    else:
+        stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots,
+                                         eligible, p, chosen, used_resamples, generator,
+                                         keep_apart, base=full)
     if stability.n_sat_out:
         warnings.append(f"In {stability.n_sat_out} of {used_resamples} resamples some rater "
                         "had too few distinct cases for an equation and sat that resample out.")

@@ -193,6 +193,7 @@ class _PairCosts:
         self.u = np.zeros((B, R, p))
         self.norm = np.zeros((B, R))
         self.inv_a = np.full((B, R), np.inf)
+        self.low = np.zeros((B, R))   # the a of each group, its safety margin folded in
         self.slack = _BOUND_ABSOLUTE_SLACK * group_sscp[:, :, p, p]
         if self.prune:
             pooled = group_sscp[active][:, :p, :p].sum(axis=0) / group_n[active].sum()
@@ -244,22 +245,31 @@ class _PairCosts:
 
     # ------------------------------------------------------------------ profiles, bounds
 
-    def refresh_profiles(self, bb, gg):
-        """Metric weights ``W^1/2 beta`` and ``lambda_min`` of groups (bb, gg)."""
+    def refresh_profiles(self, bb, gg, low=None):
+        """Metric weights ``W^1/2 beta`` and ``lambda_min`` of groups (bb, gg).
+
+        ``low``: a lower bound on each group's ``a`` already known (with its margin),
+        instead of an eigen-decomposition: for a merged group the sum of its two sides'
+        (Weyl's inequality: ``lambda_min(A + B) >= lambda_min(A) + lambda_min(B)``).
+        A smaller ``a`` only loosens the bound; the merges and digits do not change.
+        """
         if not self.prune or bb.size == 0:
             return
         p = self.p
         cues = self.sscp[bb, gg, :p, :p]
         try:
             beta = np.linalg.solve(cues, self.sscp[bb, gg, :p, p:])[..., 0]
-            low = np.linalg.eigvalsh(self.inv_root @ cues @ self.inv_root)[:, 0]
+            if low is None:
+                low = np.linalg.eigvalsh(self.inv_root @ cues @ self.inv_root)[:, 0]
+                low = low * (1.0 - _BOUND_RELATIVE_SLACK)
         except np.linalg.LinAlgError:  # a sum of full-rank SSCPs is never singular
             beta, low = np.zeros((bb.size, p)), np.zeros(bb.size)
         u = beta @ self.root
         ok = np.isfinite(u).all(axis=1) & np.isfinite(low)
         # A group without a usable profile gets a = 0: its bounds are never above a cost.
         u = np.where(ok[:, None], u, 0.0)
-        low = np.where(ok, low, 0.0) * (1.0 - _BOUND_RELATIVE_SLACK)
+        low = np.where(ok, low, 0.0)
+        self.low[bb, gg] = low
         self.u[bb, gg] = u
         # Rounding of |u_x - u_y|^2 by expansion is far below 1e-12 of |u_x|^2 + |u_y|^2.
         self.norm[bb, gg] = (1.0 - 1e-12) * np.einsum("mp,mp->m", u, u)
@@ -399,7 +409,7 @@ class _PairCosts:
         self.last_merge[todo, i] = step
         self.alive[todo, j] = False
         self.row_min[todo, j] = np.inf
-        self.refresh_profiles(todo, i)
+        self.refresh_profiles(todo, i, low=self.low[todo, i] + self.low[todo, j])
         others = self.alive.copy() if whole else self.alive[todo]
         others[at, i] = False
         bound = np.where(others, self.row_bounds(todo, i), np.inf)
@@ -450,7 +460,7 @@ class _PairCosts:
         self.row_arg = np.where(live, np.take_along_axis(position, np.maximum(arg, 0), axis=1), -1)
         self.row_min = np.where(live, np.take_along_axis(self.row_min, order, axis=1), np.inf)
         self.slot_of = np.where(live, np.take_along_axis(self.slot_of, order, axis=1), -1)
-        for name in ("n", "rss", "last_merge", "u", "norm", "inv_a", "slack"):
+        for name in ("n", "rss", "last_merge", "u", "norm", "inv_a", "low", "slack"):
             setattr(self, name, getattr(self, name)[at, order])
         # The big ones are compacted in their own memory (see _SPARE).
         self.sscp = _compact_slots(self.sscp, order, square=False)

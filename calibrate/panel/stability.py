@@ -38,17 +38,23 @@ __all__ = [
     "adjusted_rand_index",
     "co_assignment",
     "common_weights",
+    "fewest_null_panels",
     "group_jaccard",
     "groups_by_rule",
     "keep_apart_rule",
     "matched_share",
-    "fewest_null_panels",
     "merge_side_loss",
     "null_panel_budget",
+    "null_panels",
     "resample_budget",
+    "resample_counts",
+    "resample_panels",
     "resampled_labels",
     "resampling_stability",
+    "rule_and_resampled_groups",
+    "rule_from_null_trees",
     "size_class",
+    "stability_of",
     "tree_side_losses",
     "ward_cross_check",
 ]
@@ -103,6 +109,9 @@ def resample_budget(n_resamples: int, n_raters: int, *, floor: int = 20) -> int:
         return n_resamples
     return min(n_resamples, max(floor, _RESAMPLE_WORK_BUDGET // (n_raters * n_raters)))
 
+
+#: Merges whose side losses are solved in one call (bounds the gathered sides' memory).
+_SIDE_BLOCK = 50_000
 
 #: Above this many raters the number-of-groups test runs the fewest simulated panels
 #: whose p-value can still fall below alpha (20 at alpha 0.05) instead of the floor of
@@ -186,13 +195,24 @@ def tree_side_losses(sscp: np.ndarray, active: np.ndarray, history: list,
     out = np.full((B, max(R - 1, 0)), np.nan)
     smaller = np.zeros((B, max(R - 1, 0)), dtype=int)
     done = np.zeros(B, dtype=int)
-    for todo, i, j, *_ in history:
-        a, b = group[todo, i], group[todo, j]
-        out[todo, done[todo]] = merge_side_loss(a, b, p)
-        smaller[todo, done[todo]] = np.minimum(size[todo, i], size[todo, j])
-        group[todo, i] = a + b
-        size[todo, i] += size[todo, j]
-        done[todo] += 1
+    # The sides of a block of steps are gathered first and their losses solved in one
+    # call (the same solves, matrix by matrix): one call per step cost 2,000 rounds of
+    # small solves per grouping of 2,000 raters.
+    per_block = max(1, _SIDE_BLOCK // max(B, 1))
+    for start in range(0, len(history), per_block):
+        sides_a, sides_b, where = [], [], []
+        for todo, i, j, *_ in history[start:start + per_block]:
+            a, b = group[todo, i], group[todo, j]
+            sides_a.append(a)
+            sides_b.append(b)
+            where.append((todo, done[todo]))
+            smaller[todo, done[todo]] = np.minimum(size[todo, i], size[todo, j])
+            group[todo, i] = a + b
+            size[todo, i] += size[todo, j]
+            done[todo] += 1
+        if where:
+            loss = merge_side_loss(np.concatenate(sides_a), np.concatenate(sides_b), p)
+            out[np.concatenate([t for t, _ in where]), np.concatenate([d for _, d in where])] = loss
     return out, smaller
 
 
@@ -253,6 +273,16 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     side are kept (McLachlan 1987, Applied Statistics 36:318-324, bootstraps the
     test for the number of mixture components this way; from memory).
     """
+    sscp, n, active = null_panels(Z, who, eligible, own_rss, own_df, p, n_sims, generator,
+                                  base=base)
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
+    losses, smaller = tree_side_losses(sscp, active, agg.history, p)
+    return rule_from_null_trees(losses, smaller, threshold=threshold, alpha=alpha)
+
+
+def null_panels(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *, base=None):
+    """Per-rater SSCPs (B, R, k, k), counts (B, R) and active raters of ``n_sims``
+    panels simulated from the one-group model (see :func:`keep_apart_rule`)."""
     R = eligible.size
     base = grouped_sscp(Z, who, R) if base is None else base  # ``base``: the caller's
     pooled = base.sscp[eligible].sum(axis=0)[None]
@@ -264,9 +294,11 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     signal = Z[:, :p] @ fit.coef[0]
     noise = generator.standard_normal((n_sims, Z.shape[0])) * sigma[who]
     sscp, n = stacked_sscp(Z, who, R, judgments=signal[None, :] + noise, base=base)
-    active = np.broadcast_to(eligible, (n_sims, R))
-    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
-    losses, smaller = tree_side_losses(sscp, active, agg.history, p)
+    return sscp, n, np.broadcast_to(eligible, (n_sims, R))
+
+
+def rule_from_null_trees(losses, smaller, *, threshold: float, alpha: float) -> KeepApartRule:
+    """The rule from the side losses and smaller sides of the simulated panels' trees."""
     finite = np.isfinite(losses)
     if not finite.any():
         return KeepApartRule(threshold, alpha, np.zeros(0), np.zeros(0))
@@ -279,6 +311,46 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     rule = KeepApartRule(threshold, alpha, np.array(scale), np.zeros(0))
     scaled = np.where(finite, rule.scaled(np.where(finite, losses, 0.0), smaller), -np.inf)
     return KeepApartRule(threshold, alpha, np.array(scale), np.sort(scaled.max(axis=1)))
+
+
+def rule_and_resampled_groups(Z, who, case_row, n_cases, eligible, own_rss, own_df, p,
+                              n_sims, n_resamples, generator, *, threshold: float,
+                              alpha: float, base=None):
+    """:func:`keep_apart_rule` and the resamples' groups by that rule, in one lockstep.
+
+    The simulated panels and the case resamples are merged in one call of
+    :func:`agglomerate` (the resamples' trees do not depend on the rule, only their
+    cut does): one merge loop of 2,000 steps instead of two at 2,000 raters, each
+    step's fixed cost paid once. The random draws come in the order of the two
+    separate calls (simulated judgments, then case counts), so the results are the
+    same to the bit. Returns the rule and the (n_resamples, R) slot labels of
+    :func:`resampled_labels` (None without resamples).
+    """
+    null = null_panels(Z, who, eligible, own_rss, own_df, p, n_sims, generator, base=base)
+    if not n_resamples:
+        agg = agglomerate(*null, p, stop_at=1, record=True, compact=True)
+        losses, smaller = tree_side_losses(null[0], null[2], agg.history, p)
+        return rule_from_null_trees(losses, smaller, threshold=threshold, alpha=alpha), None
+    counts = resample_counts(generator, n_cases, n_resamples)
+    boot = resample_panels(Z, who, case_row, counts, eligible, p, base=base)
+    sscp, n, active = (np.concatenate([a, b]) for a, b in zip(null, boot))
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
+    losses, smaller = tree_side_losses(sscp, active, agg.history, p)
+    rule = rule_from_null_trees(losses[:n_sims], smaller[:n_sims], threshold=threshold,
+                                alpha=alpha)
+    history = _batches_from(agg.history, n_sims)
+    boot_slots = groups_by_rule(*boot, history, losses[n_sims:], smaller[n_sims:], rule, p)
+    return rule, boot_slots
+
+
+def _batches_from(history: list, first: int) -> list:
+    """The recorded merges of batches ``first`` onwards, renumbered from 0."""
+    out = []
+    for todo, *rest in history:
+        keep = todo >= first
+        if keep.any():
+            out.append((todo[keep] - first, *(part[keep] for part in rest)))
+    return out
 
 
 def groups_by_rule(sscp, n, active, history, losses, smaller, rule: KeepApartRule,
@@ -414,16 +486,30 @@ def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
     ``chosen`` groups. Returns (B, R) slot labels; -1 for a rater left out of that
     resample.
     """
-    R = eligible.size
-    sscp, n = stacked_sscp(Z, who, R, weights=counts[:, case_row], base=base)
-    own_rss = batched_rss(sscp, n, p)
-    active = eligible[None, :] & np.isfinite(own_rss) & (sscp[:, :, p, p] > 0)
+    sscp, n, active = resample_panels(Z, who, case_row, counts, eligible, p, base=base)
     if rule is None:
         agg = agglomerate(sscp, n, active, p, stop_at=max(chosen, 1), record=False)
         return agg.labels
     agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
     losses, smaller = tree_side_losses(sscp, active, agg.history, p)
     return groups_by_rule(sscp, n, active, agg.history, losses, smaller, rule, p)
+
+
+def resample_panels(Z, who, case_row, counts, eligible, p, *, base=None):
+    """Per-rater SSCPs, counts and active raters of the case resamples (rows of ``counts``).
+
+    A rater takes part in a resample when their own equation can be fitted on it.
+    """
+    R = eligible.size
+    sscp, n = stacked_sscp(Z, who, R, weights=counts[:, case_row], base=base)
+    own_rss = batched_rss(sscp, n, p)
+    return sscp, n, eligible[None, :] & np.isfinite(own_rss) & (sscp[:, :, p, p] > 0)
+
+
+def resample_counts(generator, n_cases: int, n_resamples: int) -> np.ndarray:
+    """(n_resamples, n_cases) counts of cases drawn with replacement."""
+    return generator.multinomial(n_cases, np.full(n_cases, 1.0 / n_cases),
+                                 size=n_resamples).astype(float)
 
 
 def group_jaccard(slots: np.ndarray, boot_slots: np.ndarray, eligible: np.ndarray) -> dict:
@@ -535,18 +621,24 @@ def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
     resample is grouped by the same merges and then by ``rule`` (or, without one,
     cut at ``chosen`` groups), as in Hennig 2007.
     """
-    R = eligible.size
     if not n_resamples:
+        return stability_of(slots, np.zeros((0, eligible.size), dtype=int), eligible)
+    counts = resample_counts(generator, n_cases, n_resamples)
+    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule, base=base)
+    return stability_of(slots, boot_slots, eligible)
+
+
+def stability_of(slots, boot_slots, eligible) -> ResamplingStability:
+    """Co-assignment, ARI against ``slots`` and Jaccard matches of the resamples' groups."""
+    R = eligible.size
+    if boot_slots.shape[0] == 0:
         return ResamplingStability(co_assignment=np.full((R, R), np.nan), ari=np.array([]),
                                    jaccard={}, n_sat_out=0)
-    counts = generator.multinomial(n_cases, np.full(n_cases, 1.0 / n_cases),
-                                   size=n_resamples).astype(float)
-    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule, base=base)
     present = boot_slots >= 0
     co = co_assignment(boot_slots)
     ari = np.array([adjusted_rand_index(slots[present[b] & eligible],
                                         boot_slots[b][present[b] & eligible])
-                    for b in range(n_resamples)])
+                    for b in range(boot_slots.shape[0])])
     return ResamplingStability(
         co_assignment=co,
         ari=ari,
