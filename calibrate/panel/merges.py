@@ -79,6 +79,15 @@ def _compact_slots(array: np.ndarray, order: np.ndarray, square: bool) -> np.nda
     return out
 
 
+def _nonzero(mask: np.ndarray) -> tuple[np.ndarray, ...]:
+    """``np.nonzero(mask)``, from the flat positions (the same indices in the same order).
+
+    Measured on a (20, 1,200) mask with 20 entries set: 62 us for np.nonzero, 8 us
+    this way; the merge loop calls it five times a step.
+    """
+    return np.unravel_index(np.flatnonzero(mask), mask.shape)
+
+
 def group_label(i: int) -> str:
     """'A'..'Z', then 'AA', 'AB', ... (spreadsheet-style)."""
     label = ""
@@ -230,13 +239,13 @@ class _PairCosts:
         cost[:, np.arange(R), np.arange(R)] = np.inf
         # First each row's smallest bound (all entries are bounds yet), then every
         # entry bounded below the row's exact minimum so far.
-        pb, pr = np.nonzero(live)
+        pb, pr = _nonzero(live)
         b, x, y, value = self.fill_exact(part.start + pb, pr, cost.argmin(axis=2)[pb, pr])
         known_min = np.where(live, np.inf, -np.inf)
         b -= part.start
         np.minimum.at(known_min, (b, x), value)
         np.minimum.at(known_min, (b, y), value)
-        b, x, y = np.nonzero(cost <= known_min[:, :, None])
+        b, x, y = _nonzero(cost <= known_min[:, :, None])
         self.fill_exact(part.start + b, x, y)
         arg = cost.argmin(axis=2)
         self.row_arg[part] = np.where(live, arg, -1)
@@ -390,7 +399,7 @@ class _PairCosts:
             m, other = np.concatenate([m, extra[0]]), np.concatenate([other, extra[1]])
         fill(m, other)
         np.minimum.at(known_min, m, stored[m, other])
-        m, other = np.nonzero(bounded & (stored <= known_min[:, None]))
+        m, other = _nonzero(bounded & (stored <= known_min[:, None]))
         fill(m, other)
         arg = stored.argmin(axis=1)
         self.row_arg[bb, rows] = arg
@@ -424,13 +433,13 @@ class _PairCosts:
         current = self.row_min if whole else self.row_min[todo]
         # Row i and the rows whose minimum was i or j are settled together. A row whose
         # minimum lies elsewhere needs the new cost only if it could undercut it.
-        m, other = np.nonzero(stale)
+        m, other = _nonzero(stale)
         wanted = fresh & (bound <= current) if self.prune else others
         self.settle_rows(np.concatenate([todo, todo[m]]), np.concatenate([i, other]),
-                         extra=np.nonzero(wanted))
+                         extra=_nonzero(wanted))
         # A fresh row's minimum moves to i only where its cost to i was made exact above
         # (few entries): compare those alone.
-        m, other = np.nonzero(fresh & self.exact[todo, i, :])
+        m, other = _nonzero(fresh & self.exact[todo, i, :])
         value = self.cost[todo[m], i[m], other]
         was = current[m, other]
         better = (value < was) | ((value == was) & (i[m] < arg[m, other]))
@@ -521,7 +530,7 @@ class _AllCosts:
         self.alive[todo, j] = False
         live = self.alive[todo]
         live[np.arange(todo.size), i] = False
-        rows, other = np.nonzero(live)
+        rows, other = _nonzero(live)
         self.n_exact += rows.size
         self._fill(todo[rows], i[rows], other)
         self._minima()
