@@ -439,31 +439,67 @@ def _join_pieces_lockstep(sscp, n, piece, rule, p) -> np.ndarray:
     bb, pair = np.nonzero(alive[:, upper_first] & alive[:, upper_second])
     score(bb, upper_first[pair], upper_second[pair])
     joins = []   # (batches, piece kept, piece absorbed) per round
-    flat_allowed = allowed.reshape(B, -1)
-    todo = np.flatnonzero(flat_allowed.any(axis=1))
+    # Each row's cheapest allowed pair (first column on a tie) is kept, so a round scans
+    # B x P row minima instead of every pair (as in the merge engine). A NaN cost ranks
+    # first, as argmin over the allowed pairs ranks it.
+    def key_of(bb, rows):
+        return np.where(allowed[bb, rows], np.nan_to_num(cost[bb, rows], nan=-np.inf,
+                                                         posinf=np.inf), np.inf)
+
+    every = np.arange(P)
+    row_arg = np.zeros((B, P), dtype=int)
+    row_best = np.full((B, P), np.inf)
+    n_allowed = allowed.reshape(B, -1).sum(axis=1)
+    for b in range(B):
+        key = key_of(b, every)
+        row_arg[b] = key.argmin(axis=1)
+        row_best[b] = key[every, row_arg[b]]
+    todo = np.flatnonzero(n_allowed > 0)
     while todo.size:
-        # The cheapest allowed pair of each batch, the first one in row-major order on a
-        # tie (a NaN cost is picked first, as argmin over the allowed pairs picks it).
-        pick = np.where(flat_allowed[todo], cost.reshape(B, -1)[todo], np.inf).argmin(axis=1)
-        first_allowed = flat_allowed[todo].argmax(axis=1)
-        pick = np.where(flat_allowed[todo, pick], pick, first_allowed)
-        keep, gone = np.divmod(pick, P)
+        at = np.arange(todo.size)
+        keep = row_best[todo].argmin(axis=1)
+        gone = row_arg[todo, keep]
+        stuck = np.flatnonzero(row_best[todo, keep] == np.inf)
+        if stuck.size:  # every allowed pair costs +inf: the first allowed in row-major order
+            first = allowed[todo[stuck]].reshape(stuck.size, -1).argmax(axis=1)
+            keep[stuck], gone[stuck] = np.divmod(first, P)
         joins.append((todo, keep, gone))
         group[todo, keep] = group[todo, keep] + group[todo, gone]
         count[todo, keep] += count[todo, gone]
         size[todo, keep] += size[todo, gone]
         alive[todo, gone] = False
         for slot in (gone, keep):
+            n_allowed[todo] -= allowed[todo, slot, :].sum(axis=1) + allowed[todo, :, slot].sum(axis=1)
             allowed[todo, slot, :] = False
             allowed[todo, :, slot] = False
         own_rss[todo, keep] = merged_rss(group[todo, keep], count[todo, keep], p)
         own_weights[todo, keep] = common_weights(group[todo, keep], p)
         others = alive[todo]
-        others[np.arange(todo.size), keep] = False
+        others[at, keep] = False
         m, other = np.nonzero(others)
         if m.size:
-            score(todo[m], np.minimum(other, keep[m]), np.maximum(other, keep[m]))
-        todo = todo[flat_allowed[todo].any(axis=1)]
+            lo, hi = np.minimum(other, keep[m]), np.maximum(other, keep[m])
+            score(todo[m], lo, hi)
+            np.add.at(n_allowed, todo[m], allowed[todo[m], lo, hi])
+        # Rows whose cheapest pair was cleared, and the two merged rows, in full; a row
+        # below ``keep`` gained one new pair (column keep) and keeps its minimum unless
+        # that pair undercuts it.
+        arg = row_arg[todo]
+        stale = (arg == keep[:, None]) | (arg == gone[:, None])
+        stale[at, keep] = True
+        stale[at, gone] = True
+        sm, sx = np.nonzero(stale)
+        key = key_of(todo[sm], sx)
+        row_arg[todo[sm], sx] = key.argmin(axis=1)
+        row_best[todo[sm], sx] = key[np.arange(sm.size), row_arg[todo[sm], sx]]
+        gained = others & (every[None, :] < keep[:, None]) & ~stale
+        gm, gx = np.nonzero(gained)
+        value = key_of(todo[gm], gx)[np.arange(gm.size), keep[gm]] if gm.size else np.zeros(0)
+        best, where = row_best[todo[gm], gx], row_arg[todo[gm], gx]
+        better = (value < best) | ((value == best) & (keep[gm] < where))
+        row_best[todo[gm][better], gx[better]] = value[better]
+        row_arg[todo[gm][better], gx[better]] = keep[gm][better]
+        todo = todo[n_allowed[todo] > 0]
     # Each piece's final piece, from the last join back (as in the merge loop's labels).
     final = np.broadcast_to(np.arange(P), (B, P)).copy()
     for todo, keep, gone in reversed(joins):
