@@ -113,6 +113,10 @@ def resample_budget(n_resamples: int, n_raters: int, *, floor: int = 20) -> int:
 #: Merges whose side losses are solved in one call (bounds the gathered sides' memory).
 _SIDE_BLOCK = 50_000
 
+#: Relative margin of the cost bracket on a join's side loss (rounding is about 1e-12
+#: of the sums involved; ours, generous on purpose).
+_BRACKET_SLACK = 1e-9
+
 #: Above this many raters the number-of-groups test runs the fewest simulated panels
 #: whose p-value can still fall below alpha (20 at alpha 0.05) instead of the floor of
 #: 50: at 2,000 raters each simulated panel is a whole 2,000-rater grouping. Measured
@@ -428,12 +432,30 @@ def _join_pieces_lockstep(sscp, n, piece, rule, p) -> np.ndarray:
 
     def score(bb, first, second):
         a, b = group[bb, first], group[bb, second]
-        cost[bb, first, second] = (merged_rss(a + b, count[bb, first] + count[bb, second], p)
-                                   - own_rss[bb, first] - own_rss[bb, second])
-        loss = merge_side_loss(a, b, p, weights=(own_weights[bb, first],
-                                                 own_weights[bb, second]))
-        allowed[bb, first, second] = ~rule.apart(loss, np.minimum(size[bb, first],
-                                                                  size[bb, second]))
+        merged = merged_rss(a + b, count[bb, first] + count[bb, second], p)
+        value = merged - own_rss[bb, first] - own_rss[bb, second]
+        cost[bb, first, second] = value
+        smaller = np.minimum(size[bb, first], size[bb, second])
+        # The verdict from the cost alone where it is certain: the cost is the two sides'
+        # losses weighted by their sums of squares of judgments (an exact identity, see
+        # merge_side_loss), so the larger loss lies between cost / (S_yy,a + S_yy,b) and
+        # cost / min(S_yy); the rule is monotone in the loss. Margins far above rounding.
+        # Only pairs the bracket leaves open get the side loss solved.
+        syy_a, syy_b = a[:, p, p], b[:, p, p]
+        slack = _BRACKET_SLACK * (np.abs(merged) + own_rss[bb, first] + own_rss[bb, second])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            low = (value - slack) / (syy_a + syy_b) * (1.0 - _BRACKET_SLACK)
+            high = (value + slack) / np.minimum(syy_a, syy_b) * (1.0 + _BRACKET_SLACK)
+        verdict = ~rule.apart(high, smaller)       # together for certain
+        sure = verdict | rule.apart(low, smaller)  # or apart for certain
+        sure &= np.isfinite(low) & np.isfinite(high)
+        open_ = np.flatnonzero(~sure)
+        if open_.size:
+            loss = merge_side_loss(a[open_], b[open_], p,
+                                   weights=(own_weights[bb[open_], first[open_]],
+                                            own_weights[bb[open_], second[open_]]))
+            verdict[open_] = ~rule.apart(loss, smaller[open_])
+        allowed[bb, first, second] = verdict
 
     upper_first, upper_second = np.triu_indices(P, k=1)
     bb, pair = np.nonzero(alive[:, upper_first] & alive[:, upper_second])
