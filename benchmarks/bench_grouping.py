@@ -6,6 +6,9 @@ Run: python benchmarks/bench_grouping.py [--full] [--audit-panels] [--rule [N]]
 reversed policy among 24 and 99, one-policy panels of 25 and 100 (also with each
 rater's weights off by SD 0.1), and two groups of 10 + 10. Figures in DEVELOPERS.md.
 Invented panels: three planted policies, each rater sees 70% of the cases.
+``--null-panels [N] [--null-sizes "30;29,1;15,15"]`` measures the rule's size and power
+with 50 and with 20 simulated one-policy panels (the reduced form above 1,000 raters) on
+the same N invented panels and draws per setting (figures in DEVELOPERS.md).
 ``--full`` adds the large sizes and the full-size one-policy check (1,000 panels).
 ``--audit-panels`` times the panels of benchmarks/bench_audit.py as the audit hands
 them over (each rater with own weights judges 100 of 20 x raters cases; 6 cues, one
