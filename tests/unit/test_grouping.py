@@ -534,3 +534,19 @@ def test_large_panel_reductions_are_stated_and_can_be_turned_off(monkeypatch):
     assert reduced.to_dict()["reduced_forms"] == list(reduced.reduced_forms)
     full = group_raters(design, first, rng=2, n_resamples=40, n_null=60, scale_down=False)
     assert full.n_resamples == 40 and full.reduced_forms == ()
+
+
+def test_large_panels_state_the_fewer_simulated_panels_and_can_run_them_all(monkeypatch):
+    # The size above which the test runs 20 simulated panels shrunk to 5 raters: the
+    # reduction is stated; scale_down=False runs the panels asked for.
+    import calibrate.panel.stability as stability
+
+    monkeypatch.setattr(stability, "LARGE_PANEL_RATERS", 5)
+    design, first, _ = make_panel(4, THREE_POLICIES, [2, 2, 2])
+    reduced = group_raters(design, first, rng=2, n_resamples=0, n_null=60)
+    assert reduced.reduced_forms == (
+        "The number-of-groups test from 20 simulated panels instead of 60 on this panel size "
+        "(6 raters).",)
+    assert "20 simulations" in reduced.rule
+    full = group_raters(design, first, rng=2, n_resamples=0, n_null=60, scale_down=False)
+    assert full.reduced_forms == () and "60 simulations" in full.rule
