@@ -6,6 +6,9 @@ Run: python benchmarks/bench_grouping.py [--full] [--audit-panels] [--rule [N]]
 reversed policy among 24 and 99, one-policy panels of 25 and 100 (also with each
 rater's weights off by SD 0.1), and two groups of 10 + 10. Figures in DEVELOPERS.md.
 Invented panels: three planted policies, each rater sees 70% of the cases.
+``--null-panels [N] [--null-sizes "30;29,1;15,15"]`` measures the rule's size and power
+with 50 and with 20 simulated one-policy panels (the reduced form above 1,000 raters) on
+the same N invented panels and draws per setting (figures in DEVELOPERS.md).
 ``--full`` adds the large sizes and the full-size one-policy check (1,000 panels).
 ``--audit-panels`` times the panels of benchmarks/bench_audit.py as the audit hands
 them over (each rater with own weights judges 100 of 20 x raters cases; 6 cues, one
@@ -167,6 +170,49 @@ def measure_rule(n_panels: int, *, parts: bool = True, jitter: bool = True) -> N
               flush=True)
 
 
+def measure_null_panels(n_panels: int, counts: tuple[int, ...], sizes_list) -> None:
+    """The rule's size and power with each number of simulated one-policy panels.
+
+    Same invented panels and seed for every count: the first n of the simulated panels
+    are the same draws whatever the count, so the counts are compared on paired data.
+    Size: share of one-policy panels split into two or more groups. Power: the lone
+    rater of the reversed policy kept apart, or the two planted halves found exactly.
+    """
+    def split(result, truth):
+        return result.n_groups >= 2
+
+    def two_found(result, truth):
+        planted = [truth[r] for r in result.raters]
+        found = [result.rater_group[r] for r in result.raters]
+        return result.n_groups == 2 and stats.contingency.crosstab(planted, found)[1].min() == 0
+
+    print(f"{'setting':<34} " + " ".join(f"{f'{c} panels':>22}" for c in counts)
+          + f" {'both agree':>11} {'s/panel':>8}")
+    for sizes in sizes_list:
+        if len(sizes) == 1:
+            name, right = f"one policy, {sizes[0]} raters: split", split
+        elif sizes[-1] == 1:
+            name, right = f"lone rater among {sizes[0]}: kept apart", lone_rater_kept_apart
+        else:
+            name, right = f"two groups {sizes[0]} + {sizes[1]}: found", two_found
+        hits = {c: 0 for c in counts}
+        agree = 0
+        t0 = time.process_time()
+        for seed in range(n_panels):
+            design, first, truth = scale_panel(20261203 + seed, sizes)
+            verdicts = []
+            for c in counts:
+                result = group_raters(design, first, rng=seed, n_resamples=0, n_null=c,
+                                      scale_down=False)
+                verdicts.append(bool(right(result, truth)))
+                hits[c] += verdicts[-1]
+            agree += len(set(verdicts)) == 1
+        took = (time.process_time() - t0) / n_panels
+        print(f"{name:<34} " + " ".join(f"{share_with_interval(hits[c], n_panels):>22}"
+                                        for c in counts)
+              + f" {agree / n_panels:>11.1%} {took:>8.2f}", flush=True)
+
+
 def main():
     parser = argparse.ArgumentParser()
     parser.add_argument("--full", action="store_true")
@@ -174,7 +220,16 @@ def main():
     parser.add_argument("--rule", type=int, nargs="?", const=200, default=None)
     parser.add_argument("--rule-only", action="store_true",
                         help="with --rule: skip the test-alone rerun and the +-0.1 settings")
+    parser.add_argument("--null-panels", type=int, nargs="?", const=100, default=None,
+                        help="measure the rule's size and power with 50 and 20 simulated "
+                             "panels on N invented panels per setting (default 100)")
+    parser.add_argument("--null-sizes", default="100;99,1;50,50",
+                        help="with --null-panels: settings, ';' between them")
     args = parser.parse_args()
+    if args.null_panels:
+        settings = [[int(x) for x in part.split(",")] for part in args.null_sizes.split(";")]
+        measure_null_panels(args.null_panels, (50, 20), settings)
+        return
     if args.audit_panels:
         audit_panels()
         return

@@ -43,10 +43,12 @@ from .stability import (
     SURVIVAL_JACCARD,
     adjusted_rand_index,
     groups_by_rule,
-    keep_apart_rule,
     merge_side_loss,
+    null_panel_budget,
     resample_budget,
     resampling_stability,
+    rule_and_resampled_groups,
+    stability_of,
     tree_side_losses,
     ward_cross_check,
 )
@@ -262,8 +264,11 @@ def group_raters(
     n_groups : force this many groups (the chair overrules the rule); None: the rule.
     n_null : simulated one-policy panels for the number-of-groups test.
     scale_down : on large panels, fewer resamples and simulated panels than asked
-        (resamples x raters^2 is capped; each reduction is stated in ``reduced_forms``,
-        which the audit warns). False runs the full numbers on any panel size.
+        (resamples x raters^2 is capped, never below 20 resamples and 50 simulated
+        panels; above 1,000 raters the number-of-groups test runs the fewest simulated
+        panels that let its p-value fall below ``alpha``, 20 at 0.05; each reduction is
+        stated in ``reduced_forms``, which the audit warns). False runs the full
+        numbers on any panel size.
 
     Returns
     -------
@@ -343,11 +348,8 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     reduced: list[str] = []   # the plain statements of what ran in a reduced form
 
     raters = sorted(str(r) for r in pd.unique(first["rater"]))
-    known = set(design.case_ids)
-    unknown = sorted({str(c) for c in first["case"]} - known)
-    if unknown:
-        raise DataError(f"{len(unknown)} case(s) in the judgments are not in the cue design, "
-                        f"e.g. '{unknown[0]}'. Every judged case needs its cues.")
+    first = first.assign(rater=first["rater"].astype(str), case=first["case"].astype(str))
+    rows_unsorted = _design_rows(design, first["case"])
     p = design.n_columns
     cue_columns = [cols for cols in design.cue_groups() if cols]
     cue_names = [c for c, cols in zip(design.cues, design.cue_groups()) if cols]
@@ -355,9 +357,8 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         raise DataError("The cue design has no columns; there is no policy to group by.")
 
     # Sorted rows make every sum, and so every digit, independent of the input's row order.
-    first = first.assign(rater=first["rater"].astype(str), case=first["case"].astype(str))
-    first = first.sort_values(["rater", "case"], kind="stable")
-    rows = design.row_of(first["case"])
+    first = first.assign(design_row=rows_unsorted).sort_values(["rater", "case"], kind="stable")
+    rows = first["design_row"].to_numpy()
     y = pd.to_numeric(first["judgment"], errors="coerce").to_numpy(dtype=float)
     X = design.matrix[rows]
     usable = np.isfinite(y) & np.isfinite(X).all(axis=1)
@@ -392,7 +393,10 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     merges = _merge_steps(agg.history, start_labels, raters, full.sscp, tss=tss,
                           n_residual=n_total - n_eligible, p=p)
 
-    keep_apart = None
+    used_resamples = 0
+    if n_eligible >= 2:
+        used_resamples = resample_budget(n_resamples, n_eligible) if scale_down else n_resamples
+    keep_apart = boot_slots = None
     if n_groups is not None:
         if not 1 <= n_groups <= max(n_eligible, 1):
             raise DataError(f"n_groups must be between 1 and {max(n_eligible, 1)} "
@@ -402,14 +406,16 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     else:
         asked_null = n_null
         if scale_down:
-            n_null = resample_budget(n_null, n_eligible, floor=50)
+            n_null = null_panel_budget(n_null, n_eligible, alpha)
         if n_null < asked_null:
             reduced.append(f"The number-of-groups test from {n_null} simulated panels instead "
                            f"of {asked_null} on this panel size ({n_eligible} raters).")
         chosen = min(n_eligible, 1)  # the rule below decides when two or more can be fitted
         if n_eligible >= 2:
-            keep_apart = keep_apart_rule(Z, who, eligible, own.rss, own.df_resid, p, n_null,
-                                         generator, threshold=threshold, alpha=alpha, base=full)
+            # The simulated panels and the resamples merge in one lockstep (same draws).
+            keep_apart, boot_slots = rule_and_resampled_groups(
+                Z, who, case_row, len(design.case_ids), eligible, own.rss, own.df_resid, p,
+                n_null, used_resamples, generator, threshold=threshold, alpha=alpha, base=full)
             losses, smaller = tree_side_losses(full.sscp[None], eligible[None], agg.history, p)
             p_values = keep_apart.p_value(losses[0], smaller[0])
             merges = [dataclasses.replace(m, p_value=float(pv)) for m, pv in zip(merges, p_values)]
@@ -429,14 +435,15 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
     names = name_groups(slots, raters)
     rater_group = dict(zip(raters, names))
 
-    used_resamples = 0
-    if n_eligible >= 2:
-        used_resamples = resample_budget(n_resamples, n_eligible) if scale_down else n_resamples
     if used_resamples < n_resamples and n_eligible >= 2:
         reduced.append(f"Grouping stability from {used_resamples} case resamples instead of "
                        f"{n_resamples} on this panel size ({n_eligible} raters).")
-    stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots, eligible,
-                                     p, chosen, used_resamples, generator, keep_apart, base=full)
+    if boot_slots is not None:
+        stability = stability_of(slots, boot_slots, eligible)
+    else:
+        stability = resampling_stability(Z, who, case_row, len(design.case_ids), slots,
+                                         eligible, p, chosen, used_resamples, generator,
+                                         keep_apart, base=full)
     if stability.n_sat_out:
         warnings.append(f"In {stability.n_sat_out} of {used_resamples} resamples some rater "
                         "had too few distinct cases for an equation and sat that resample out.")
@@ -475,6 +482,25 @@ def _group_raters(design, first, *, rng, n_resamples, threshold, alpha, n_groups
         reduced_forms=tuple(reduced),
     )
 
+
+def _design_rows(design: CueDesign, cases: pd.Series) -> np.ndarray:
+    """Row of ``design.matrix`` for each case id (text); DataError naming unknown ids.
+
+    One hash lookup over the column: a Python set of 400,000 ids took 1.4 s, and
+    :meth:`CueDesign.row_of`'s dictionary as long again. The same rows as ``row_of``
+    (a repeated id maps to its last row).
+    """
+    index = pd.Index(design.case_ids)
+    position = np.arange(len(index))
+    if not index.is_unique:
+        last = ~index.duplicated(keep="last")
+        index, position = index[last], position[last]
+    found = index.get_indexer(cases)
+    unknown = sorted(set(cases[found < 0]))
+    if unknown:
+        raise DataError(f"{len(unknown)} case(s) in the judgments are not in the cue design, "
+                        f"e.g. '{unknown[0]}'. Every judged case needs its cues.")
+    return position[found]
 
 def _merge_steps(history, start_labels, raters, sscp, *, tss, n_residual, p) -> list[MergeStep]:
     """The merge table of one grouping, from the recorded history of :func:`agglomerate`.

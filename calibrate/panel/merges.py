@@ -79,6 +79,15 @@ def _compact_slots(array: np.ndarray, order: np.ndarray, square: bool) -> np.nda
     return out
 
 
+def _nonzero(mask: np.ndarray) -> tuple[np.ndarray, ...]:
+    """``np.nonzero(mask)``, from the flat positions (the same indices in the same order).
+
+    Measured on a (20, 1,200) mask with 20 entries set: 62 us for np.nonzero, 8 us
+    this way; the merge loop calls it five times a step.
+    """
+    return np.unravel_index(np.flatnonzero(mask), mask.shape)
+
+
 def group_label(i: int) -> str:
     """'A'..'Z', then 'AA', 'AB', ... (spreadsheet-style)."""
     label = ""
@@ -193,6 +202,7 @@ class _PairCosts:
         self.u = np.zeros((B, R, p))
         self.norm = np.zeros((B, R))
         self.inv_a = np.full((B, R), np.inf)
+        self.low = np.zeros((B, R))   # the a of each group, its safety margin folded in
         self.slack = _BOUND_ABSOLUTE_SLACK * group_sscp[:, :, p, p]
         if self.prune:
             pooled = group_sscp[active][:, :p, :p].sum(axis=0) / group_n[active].sum()
@@ -229,13 +239,13 @@ class _PairCosts:
         cost[:, np.arange(R), np.arange(R)] = np.inf
         # First each row's smallest bound (all entries are bounds yet), then every
         # entry bounded below the row's exact minimum so far.
-        pb, pr = np.nonzero(live)
+        pb, pr = _nonzero(live)
         b, x, y, value = self.fill_exact(part.start + pb, pr, cost.argmin(axis=2)[pb, pr])
         known_min = np.where(live, np.inf, -np.inf)
         b -= part.start
         np.minimum.at(known_min, (b, x), value)
         np.minimum.at(known_min, (b, y), value)
-        b, x, y = np.nonzero(cost <= known_min[:, :, None])
+        b, x, y = _nonzero(cost <= known_min[:, :, None])
         self.fill_exact(part.start + b, x, y)
         arg = cost.argmin(axis=2)
         self.row_arg[part] = np.where(live, arg, -1)
@@ -244,22 +254,31 @@ class _PairCosts:
 
     # ------------------------------------------------------------------ profiles, bounds
 
-    def refresh_profiles(self, bb, gg):
-        """Metric weights ``W^1/2 beta`` and ``lambda_min`` of groups (bb, gg)."""
+    def refresh_profiles(self, bb, gg, low=None):
+        """Metric weights ``W^1/2 beta`` and ``lambda_min`` of groups (bb, gg).
+
+        ``low``: a lower bound on each group's ``a`` already known (with its margin),
+        instead of an eigen-decomposition: for a merged group the sum of its two sides'
+        (Weyl's inequality: ``lambda_min(A + B) >= lambda_min(A) + lambda_min(B)``).
+        A smaller ``a`` only loosens the bound; the merges and digits do not change.
+        """
         if not self.prune or bb.size == 0:
             return
         p = self.p
         cues = self.sscp[bb, gg, :p, :p]
         try:
             beta = np.linalg.solve(cues, self.sscp[bb, gg, :p, p:])[..., 0]
-            low = np.linalg.eigvalsh(self.inv_root @ cues @ self.inv_root)[:, 0]
+            if low is None:
+                low = np.linalg.eigvalsh(self.inv_root @ cues @ self.inv_root)[:, 0]
+                low = low * (1.0 - _BOUND_RELATIVE_SLACK)
         except np.linalg.LinAlgError:  # a sum of full-rank SSCPs is never singular
             beta, low = np.zeros((bb.size, p)), np.zeros(bb.size)
         u = beta @ self.root
         ok = np.isfinite(u).all(axis=1) & np.isfinite(low)
         # A group without a usable profile gets a = 0: its bounds are never above a cost.
         u = np.where(ok[:, None], u, 0.0)
-        low = np.where(ok, low, 0.0) * (1.0 - _BOUND_RELATIVE_SLACK)
+        low = np.where(ok, low, 0.0)
+        self.low[bb, gg] = low
         self.u[bb, gg] = u
         # Rounding of |u_x - u_y|^2 by expansion is far below 1e-12 of |u_x|^2 + |u_y|^2.
         self.norm[bb, gg] = (1.0 - 1e-12) * np.einsum("mp,mp->m", u, u)
@@ -380,7 +399,7 @@ class _PairCosts:
             m, other = np.concatenate([m, extra[0]]), np.concatenate([other, extra[1]])
         fill(m, other)
         np.minimum.at(known_min, m, stored[m, other])
-        m, other = np.nonzero(bounded & (stored <= known_min[:, None]))
+        m, other = _nonzero(bounded & (stored <= known_min[:, None]))
         fill(m, other)
         arg = stored.argmin(axis=1)
         self.row_arg[bb, rows] = arg
@@ -399,7 +418,7 @@ class _PairCosts:
         self.last_merge[todo, i] = step
         self.alive[todo, j] = False
         self.row_min[todo, j] = np.inf
-        self.refresh_profiles(todo, i)
+        self.refresh_profiles(todo, i, low=self.low[todo, i] + self.low[todo, j])
         others = self.alive.copy() if whole else self.alive[todo]
         others[at, i] = False
         bound = np.where(others, self.row_bounds(todo, i), np.inf)
@@ -414,13 +433,13 @@ class _PairCosts:
         current = self.row_min if whole else self.row_min[todo]
         # Row i and the rows whose minimum was i or j are settled together. A row whose
         # minimum lies elsewhere needs the new cost only if it could undercut it.
-        m, other = np.nonzero(stale)
+        m, other = _nonzero(stale)
         wanted = fresh & (bound <= current) if self.prune else others
         self.settle_rows(np.concatenate([todo, todo[m]]), np.concatenate([i, other]),
-                         extra=np.nonzero(wanted))
+                         extra=_nonzero(wanted))
         # A fresh row's minimum moves to i only where its cost to i was made exact above
         # (few entries): compare those alone.
-        m, other = np.nonzero(fresh & self.exact[todo, i, :])
+        m, other = _nonzero(fresh & self.exact[todo, i, :])
         value = self.cost[todo[m], i[m], other]
         was = current[m, other]
         better = (value < was) | ((value == was) & (i[m] < arg[m, other]))
@@ -450,7 +469,7 @@ class _PairCosts:
         self.row_arg = np.where(live, np.take_along_axis(position, np.maximum(arg, 0), axis=1), -1)
         self.row_min = np.where(live, np.take_along_axis(self.row_min, order, axis=1), np.inf)
         self.slot_of = np.where(live, np.take_along_axis(self.slot_of, order, axis=1), -1)
-        for name in ("n", "rss", "last_merge", "u", "norm", "inv_a", "slack"):
+        for name in ("n", "rss", "last_merge", "u", "norm", "inv_a", "low", "slack"):
             setattr(self, name, getattr(self, name)[at, order])
         # The big ones are compacted in their own memory (see _SPARE).
         self.sscp = _compact_slots(self.sscp, order, square=False)
@@ -511,7 +530,7 @@ class _AllCosts:
         self.alive[todo, j] = False
         live = self.alive[todo]
         live[np.arange(todo.size), i] = False
-        rows, other = np.nonzero(live)
+        rows, other = _nonzero(live)
         self.n_exact += rows.size
         self._fill(todo[rows], i[rows], other)
         self._minima()

@@ -38,15 +38,23 @@ __all__ = [
     "adjusted_rand_index",
     "co_assignment",
     "common_weights",
+    "fewest_null_panels",
     "group_jaccard",
     "groups_by_rule",
     "keep_apart_rule",
     "matched_share",
     "merge_side_loss",
+    "null_panel_budget",
+    "null_panels",
     "resample_budget",
+    "resample_counts",
+    "resample_panels",
     "resampled_labels",
     "resampling_stability",
+    "rule_and_resampled_groups",
+    "rule_from_null_trees",
     "size_class",
+    "stability_of",
     "tree_side_losses",
     "ward_cross_check",
 ]
@@ -102,6 +110,42 @@ def resample_budget(n_resamples: int, n_raters: int, *, floor: int = 20) -> int:
     return min(n_resamples, max(floor, _RESAMPLE_WORK_BUDGET // (n_raters * n_raters)))
 
 
+#: Merges whose side losses are solved in one call (bounds the gathered sides' memory).
+_SIDE_BLOCK = 50_000
+
+#: Relative margin of the cost bracket on a join's side loss (rounding is about 1e-12
+#: of the sums involved; ours, generous on purpose).
+_BRACKET_SLACK = 1e-9
+
+#: Above this many raters the number-of-groups test runs the fewest simulated panels
+#: whose p-value can still fall below alpha (20 at alpha 0.05) instead of the floor of
+#: 50: at 2,000 raters each simulated panel is a whole 2,000-rater grouping. Measured
+#: size and power with 50 and 20 panels are in DEVELOPERS.md (number of groups).
+LARGE_PANEL_RATERS = 1000
+
+
+def fewest_null_panels(alpha: float) -> int:
+    """The fewest simulated panels n whose smallest p-value, 1 / (n + 1), is below alpha."""
+    n = max(int(np.ceil(1.0 / alpha)) - 1, 1)
+    while 1.0 / (n + 1.0) >= alpha:
+        n += 1
+    return n
+
+
+def null_panel_budget(n_null: int, n_raters: int, alpha: float) -> int:
+    """Simulated one-policy panels for the number-of-groups test (never more than asked).
+
+    As :func:`resample_budget` with a floor of 50; above ``LARGE_PANEL_RATERS`` raters
+    no more than :func:`fewest_null_panels` (a Monte Carlo test with 20 panels rejects
+    at 0.05 only when the panel's statistic beats all 20: size 1/21, against 2/51 with
+    50 panels; the power lost is measured in DEVELOPERS.md).
+    """
+    budget = resample_budget(n_null, n_raters, floor=50)
+    if n_raters > LARGE_PANEL_RATERS:
+        budget = min(budget, max(fewest_null_panels(alpha), 1))
+    return budget
+
+
 def merge_side_loss(sscp_a: np.ndarray, sscp_b: np.ndarray, p: int, *,
                     weights: tuple[np.ndarray, np.ndarray] | None = None) -> np.ndarray:
     """What a merge costs the side that suffers most, as a share of its own spread.
@@ -155,13 +199,24 @@ def tree_side_losses(sscp: np.ndarray, active: np.ndarray, history: list,
     out = np.full((B, max(R - 1, 0)), np.nan)
     smaller = np.zeros((B, max(R - 1, 0)), dtype=int)
     done = np.zeros(B, dtype=int)
-    for todo, i, j, *_ in history:
-        a, b = group[todo, i], group[todo, j]
-        out[todo, done[todo]] = merge_side_loss(a, b, p)
-        smaller[todo, done[todo]] = np.minimum(size[todo, i], size[todo, j])
-        group[todo, i] = a + b
-        size[todo, i] += size[todo, j]
-        done[todo] += 1
+    # The sides of a block of steps are gathered first and their losses solved in one
+    # call (the same solves, matrix by matrix): one call per step cost 2,000 rounds of
+    # small solves per grouping of 2,000 raters.
+    per_block = max(1, _SIDE_BLOCK // max(B, 1))
+    for start in range(0, len(history), per_block):
+        sides_a, sides_b, where = [], [], []
+        for todo, i, j, *_ in history[start:start + per_block]:
+            a, b = group[todo, i], group[todo, j]
+            sides_a.append(a)
+            sides_b.append(b)
+            where.append((todo, done[todo]))
+            smaller[todo, done[todo]] = np.minimum(size[todo, i], size[todo, j])
+            group[todo, i] = a + b
+            size[todo, i] += size[todo, j]
+            done[todo] += 1
+        if where:
+            loss = merge_side_loss(np.concatenate(sides_a), np.concatenate(sides_b), p)
+            out[np.concatenate([t for t, _ in where]), np.concatenate([d for _, d in where])] = loss
     return out, smaller
 
 
@@ -222,6 +277,16 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     side are kept (McLachlan 1987, Applied Statistics 36:318-324, bootstraps the
     test for the number of mixture components this way; from memory).
     """
+    sscp, n, active = null_panels(Z, who, eligible, own_rss, own_df, p, n_sims, generator,
+                                  base=base)
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
+    losses, smaller = tree_side_losses(sscp, active, agg.history, p)
+    return rule_from_null_trees(losses, smaller, threshold=threshold, alpha=alpha)
+
+
+def null_panels(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *, base=None):
+    """Per-rater SSCPs (B, R, k, k), counts (B, R) and active raters of ``n_sims``
+    panels simulated from the one-group model (see :func:`keep_apart_rule`)."""
     R = eligible.size
     base = grouped_sscp(Z, who, R) if base is None else base  # ``base``: the caller's
     pooled = base.sscp[eligible].sum(axis=0)[None]
@@ -233,9 +298,11 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     signal = Z[:, :p] @ fit.coef[0]
     noise = generator.standard_normal((n_sims, Z.shape[0])) * sigma[who]
     sscp, n = stacked_sscp(Z, who, R, judgments=signal[None, :] + noise, base=base)
-    active = np.broadcast_to(eligible, (n_sims, R))
-    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
-    losses, smaller = tree_side_losses(sscp, active, agg.history, p)
+    return sscp, n, np.broadcast_to(eligible, (n_sims, R))
+
+
+def rule_from_null_trees(losses, smaller, *, threshold: float, alpha: float) -> KeepApartRule:
+    """The rule from the side losses and smaller sides of the simulated panels' trees."""
     finite = np.isfinite(losses)
     if not finite.any():
         return KeepApartRule(threshold, alpha, np.zeros(0), np.zeros(0))
@@ -248,6 +315,46 @@ def keep_apart_rule(Z, who, eligible, own_rss, own_df, p, n_sims, generator, *,
     rule = KeepApartRule(threshold, alpha, np.array(scale), np.zeros(0))
     scaled = np.where(finite, rule.scaled(np.where(finite, losses, 0.0), smaller), -np.inf)
     return KeepApartRule(threshold, alpha, np.array(scale), np.sort(scaled.max(axis=1)))
+
+
+def rule_and_resampled_groups(Z, who, case_row, n_cases, eligible, own_rss, own_df, p,
+                              n_sims, n_resamples, generator, *, threshold: float,
+                              alpha: float, base=None):
+    """:func:`keep_apart_rule` and the resamples' groups by that rule, in one lockstep.
+
+    The simulated panels and the case resamples are merged in one call of
+    :func:`agglomerate` (the resamples' trees do not depend on the rule, only their
+    cut does): one merge loop of 2,000 steps instead of two at 2,000 raters, each
+    step's fixed cost paid once. The random draws come in the order of the two
+    separate calls (simulated judgments, then case counts), so the results are the
+    same to the bit. Returns the rule and the (n_resamples, R) slot labels of
+    :func:`resampled_labels` (None without resamples).
+    """
+    null = null_panels(Z, who, eligible, own_rss, own_df, p, n_sims, generator, base=base)
+    if not n_resamples:
+        agg = agglomerate(*null, p, stop_at=1, record=True, compact=True)
+        losses, smaller = tree_side_losses(null[0], null[2], agg.history, p)
+        return rule_from_null_trees(losses, smaller, threshold=threshold, alpha=alpha), None
+    counts = resample_counts(generator, n_cases, n_resamples)
+    boot = resample_panels(Z, who, case_row, counts, eligible, p, base=base)
+    sscp, n, active = (np.concatenate([a, b]) for a, b in zip(null, boot))
+    agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
+    losses, smaller = tree_side_losses(sscp, active, agg.history, p)
+    rule = rule_from_null_trees(losses[:n_sims], smaller[:n_sims], threshold=threshold,
+                                alpha=alpha)
+    history = _batches_from(agg.history, n_sims)
+    boot_slots = groups_by_rule(*boot, history, losses[n_sims:], smaller[n_sims:], rule, p)
+    return rule, boot_slots
+
+
+def _batches_from(history: list, first: int) -> list:
+    """The recorded merges of batches ``first`` onwards, renumbered from 0."""
+    out = []
+    for todo, *rest in history:
+        keep = todo >= first
+        if keep.any():
+            out.append((todo[keep] - first, *(part[keep] for part in rest)))
+    return out
 
 
 def groups_by_rule(sscp, n, active, history, losses, smaller, rule: KeepApartRule,
@@ -275,63 +382,156 @@ def groups_by_rule(sscp, n, active, history, losses, smaller, rule: KeepApartRul
             moved = piece[join] == jj[:, None]
             piece[join] = np.where(moved, ji[:, None], piece[join])
         done[todo] += 1
-    for b in np.flatnonzero(tainted.any(axis=1)):
-        piece[b] = _join_pieces(sscp[b], n[b], piece[b], rule, p)
+    joined = np.flatnonzero(tainted.any(axis=1))
+    if joined.size:
+        piece[joined] = _join_pieces_lockstep(sscp[joined], n[joined], piece[joined], rule, p)
     return piece
 
 
 def _join_pieces(sscp, n, piece, rule, p) -> np.ndarray:
-    """Join pieces of one batch, cheapest merge first, while the rule allows it.
+    """:func:`_join_pieces_lockstep` for one batch (``sscp`` (R, k, k), ``piece`` (R,))."""
+    return _join_pieces_lockstep(sscp[None], n[None], piece[None], rule, p)[0]
 
-    Every pair's cost and verdict is computed once and only the merged piece's pairs
-    again after a merge (the others' sums have not changed), so joining P pieces costs
-    O(P^2) fits instead of O(P^3). Each piece's own RSS and common weights are kept
-    between merges, so scoring a pair solves only the merged system (the same solves,
-    matrix by matrix, as :func:`merged_rss` and :func:`merge_side_loss`: the same
-    digits). The pick is the same as scanning every pair in (first, second) order: the
-    cheapest allowed pair, the first one on a tie (row-major order of the upper
-    triangle).
+
+def _join_pieces_lockstep(sscp, n, piece, rule, p) -> np.ndarray:
+    """Join pieces, cheapest merge first, while the rule allows it; every batch at once.
+
+    ``sscp`` (B, R, k, k), ``n`` and ``piece`` (B, R). Every pair's cost and verdict is
+    computed once and only the merged piece's pairs again after a merge (the others'
+    sums have not changed), so joining P pieces costs O(P^2) fits instead of O(P^3).
+    Each piece's own RSS and common weights are kept between merges, so scoring a pair
+    solves only the merged system (the same solves, matrix by matrix, as
+    :func:`merged_rss` and :func:`merge_side_loss`: the same digits). The pick is the
+    same as scanning every pair in (first, second) order: the cheapest allowed pair, the
+    first one on a tie (row-major order of the upper triangle). The batches merge in
+    lockstep, one pick each per round, padded to the largest number of pieces: a
+    resample's pieces were joined one batch at a time before, 3,216 rounds of small
+    solves for the 21 groupings of a 2,000-rater panel.
     """
-    piece = piece.copy()
-    ids = [int(g) for g in np.unique(piece[piece >= 0])]
-    P = len(ids)
-    if P < 2:
-        return piece
-    group = np.array([sscp[piece == g].sum(axis=0) for g in ids])
-    count = np.array([float(n[piece == g].sum()) for g in ids])
-    size = np.array([np.sum(piece == g) for g in ids])
-    own_rss = merged_rss(group, count, p)
-    own_weights = common_weights(group, p)
-    cost = np.full((P, P), np.nan)
-    allowed = np.zeros((P, P), dtype=bool)   # upper triangle only, live pieces only
-    alive = np.ones(P, dtype=bool)
+    B, R = piece.shape
+    ids = [np.unique(row[row >= 0]) for row in piece]
+    P = max(len(i) for i in ids)
+    k = sscp.shape[-1]
+    group = np.zeros((B, P, k, k))
+    count = np.zeros((B, P))
+    size = np.zeros((B, P), dtype=int)
+    alive = np.zeros((B, P), dtype=bool)
+    for b, own in enumerate(ids):
+        for g, label in enumerate(own):  # summed rater by rater, in rater order, as before
+            member = piece[b] == label
+            group[b, g] = sscp[b, member].sum(axis=0)
+            count[b, g] = float(n[b, member].sum())
+            size[b, g] = int(member.sum())
+        alive[b, :own.size] = True
+    own_rss = np.zeros((B, P))
+    own_weights = np.zeros((B, P, p))
+    own_rss[alive] = merged_rss(group[alive], count[alive], p)
+    own_weights[alive] = common_weights(group[alive], p)
+    cost = np.full((B, P, P), np.inf)
+    allowed = np.zeros((B, P, P), dtype=bool)   # upper triangle only, live pieces only
 
-    def score(first, second):
-        a, b = group[first], group[second]
-        cost[first, second] = (merged_rss(a + b, count[first] + count[second], p)
-                               - own_rss[first] - own_rss[second])
-        loss = merge_side_loss(a, b, p, weights=(own_weights[first], own_weights[second]))
-        allowed[first, second] = ~rule.apart(loss, np.minimum(size[first], size[second]))
+    def score(bb, first, second):
+        a, b = group[bb, first], group[bb, second]
+        merged = merged_rss(a + b, count[bb, first] + count[bb, second], p)
+        value = merged - own_rss[bb, first] - own_rss[bb, second]
+        cost[bb, first, second] = value
+        smaller = np.minimum(size[bb, first], size[bb, second])
+        # The verdict from the cost alone where it is certain: the cost is the two sides'
+        # losses weighted by their sums of squares of judgments (an exact identity, see
+        # merge_side_loss), so the larger loss lies between cost / (S_yy,a + S_yy,b) and
+        # cost / min(S_yy); the rule is monotone in the loss. Margins far above rounding.
+        # Only pairs the bracket leaves open get the side loss solved.
+        syy_a, syy_b = a[:, p, p], b[:, p, p]
+        slack = _BRACKET_SLACK * (np.abs(merged) + own_rss[bb, first] + own_rss[bb, second])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            low = (value - slack) / (syy_a + syy_b) * (1.0 - _BRACKET_SLACK)
+            high = (value + slack) / np.minimum(syy_a, syy_b) * (1.0 + _BRACKET_SLACK)
+        verdict = ~rule.apart(high, smaller)       # together for certain
+        sure = verdict | rule.apart(low, smaller)  # or apart for certain
+        sure &= np.isfinite(low) & np.isfinite(high)
+        open_ = np.flatnonzero(~sure)
+        if open_.size:
+            loss = merge_side_loss(a[open_], b[open_], p,
+                                   weights=(own_weights[bb[open_], first[open_]],
+                                            own_weights[bb[open_], second[open_]]))
+            verdict[open_] = ~rule.apart(loss, smaller[open_])
+        allowed[bb, first, second] = verdict
 
-    score(*np.triu_indices(P, k=1))
-    while alive.sum() > 1:
-        candidates = np.flatnonzero(allowed)
-        if candidates.size == 0:
-            break
-        keep, gone = divmod(int(candidates[np.argmin(cost.reshape(-1)[candidates])]), P)
-        piece[piece == ids[gone]] = ids[keep]
-        group[keep] = group[keep] + group[gone]
-        count[keep] += count[gone]
-        size[keep] += size[gone]
-        alive[gone] = False
-        allowed[gone, :] = allowed[:, gone] = False
-        allowed[keep, :] = allowed[:, keep] = False
-        own_rss[keep] = merged_rss(group[keep:keep + 1], count[keep:keep + 1], p)[0]
-        own_weights[keep] = common_weights(group[keep:keep + 1], p)[0]
-        others = np.flatnonzero(alive & (np.arange(P) != keep))
-        if others.size:
-            score(np.minimum(others, keep), np.maximum(others, keep))
-    return piece
+    upper_first, upper_second = np.triu_indices(P, k=1)
+    bb, pair = np.nonzero(alive[:, upper_first] & alive[:, upper_second])
+    score(bb, upper_first[pair], upper_second[pair])
+    joins = []   # (batches, piece kept, piece absorbed) per round
+    # Each row's cheapest allowed pair (first column on a tie) is kept, so a round scans
+    # B x P row minima instead of every pair (as in the merge engine). A NaN cost ranks
+    # first, as argmin over the allowed pairs ranks it.
+    def key_of(bb, rows):
+        return np.where(allowed[bb, rows], np.nan_to_num(cost[bb, rows], nan=-np.inf,
+                                                         posinf=np.inf), np.inf)
+
+    every = np.arange(P)
+    row_arg = np.zeros((B, P), dtype=int)
+    row_best = np.full((B, P), np.inf)
+    n_allowed = allowed.reshape(B, -1).sum(axis=1)
+    for b in range(B):
+        key = key_of(b, every)
+        row_arg[b] = key.argmin(axis=1)
+        row_best[b] = key[every, row_arg[b]]
+    todo = np.flatnonzero(n_allowed > 0)
+    while todo.size:
+        at = np.arange(todo.size)
+        keep = row_best[todo].argmin(axis=1)
+        gone = row_arg[todo, keep]
+        stuck = np.flatnonzero(row_best[todo, keep] == np.inf)
+        if stuck.size:  # every allowed pair costs +inf: the first allowed in row-major order
+            first = allowed[todo[stuck]].reshape(stuck.size, -1).argmax(axis=1)
+            keep[stuck], gone[stuck] = np.divmod(first, P)
+        joins.append((todo, keep, gone))
+        group[todo, keep] = group[todo, keep] + group[todo, gone]
+        count[todo, keep] += count[todo, gone]
+        size[todo, keep] += size[todo, gone]
+        alive[todo, gone] = False
+        for slot in (gone, keep):
+            n_allowed[todo] -= allowed[todo, slot, :].sum(axis=1) + allowed[todo, :, slot].sum(axis=1)
+            allowed[todo, slot, :] = False
+            allowed[todo, :, slot] = False
+        own_rss[todo, keep] = merged_rss(group[todo, keep], count[todo, keep], p)
+        own_weights[todo, keep] = common_weights(group[todo, keep], p)
+        others = alive[todo]
+        others[at, keep] = False
+        m, other = np.nonzero(others)
+        if m.size:
+            lo, hi = np.minimum(other, keep[m]), np.maximum(other, keep[m])
+            score(todo[m], lo, hi)
+            np.add.at(n_allowed, todo[m], allowed[todo[m], lo, hi])
+        # Rows whose cheapest pair was cleared, and the two merged rows, in full; a row
+        # below ``keep`` gained one new pair (column keep) and keeps its minimum unless
+        # that pair undercuts it.
+        arg = row_arg[todo]
+        stale = (arg == keep[:, None]) | (arg == gone[:, None])
+        stale[at, keep] = True
+        stale[at, gone] = True
+        sm, sx = np.nonzero(stale)
+        key = key_of(todo[sm], sx)
+        row_arg[todo[sm], sx] = key.argmin(axis=1)
+        row_best[todo[sm], sx] = key[np.arange(sm.size), row_arg[todo[sm], sx]]
+        gained = others & (every[None, :] < keep[:, None]) & ~stale
+        gm, gx = np.nonzero(gained)
+        value = key_of(todo[gm], gx)[np.arange(gm.size), keep[gm]] if gm.size else np.zeros(0)
+        best, where = row_best[todo[gm], gx], row_arg[todo[gm], gx]
+        better = (value < best) | ((value == best) & (keep[gm] < where))
+        row_best[todo[gm][better], gx[better]] = value[better]
+        row_arg[todo[gm][better], gx[better]] = keep[gm][better]
+        todo = todo[n_allowed[todo] > 0]
+    # Each piece's final piece, from the last join back (as in the merge loop's labels).
+    final = np.broadcast_to(np.arange(P), (B, P)).copy()
+    for todo, keep, gone in reversed(joins):
+        final[todo, gone] = final[todo, keep]
+    out = piece.copy()
+    for b, own in enumerate(ids):
+        if own.size:
+            where = out[b] >= 0
+            out[b, where] = own[final[b, np.searchsorted(own, out[b, where])]]
+    return out
 
 
 def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
@@ -344,16 +544,30 @@ def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,
     ``chosen`` groups. Returns (B, R) slot labels; -1 for a rater left out of that
     resample.
     """
-    R = eligible.size
-    sscp, n = stacked_sscp(Z, who, R, weights=counts[:, case_row], base=base)
-    own_rss = batched_rss(sscp, n, p)
-    active = eligible[None, :] & np.isfinite(own_rss) & (sscp[:, :, p, p] > 0)
+    sscp, n, active = resample_panels(Z, who, case_row, counts, eligible, p, base=base)
     if rule is None:
         agg = agglomerate(sscp, n, active, p, stop_at=max(chosen, 1), record=False)
         return agg.labels
     agg = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)
     losses, smaller = tree_side_losses(sscp, active, agg.history, p)
     return groups_by_rule(sscp, n, active, agg.history, losses, smaller, rule, p)
+
+
+def resample_panels(Z, who, case_row, counts, eligible, p, *, base=None):
+    """Per-rater SSCPs, counts and active raters of the case resamples (rows of ``counts``).
+
+    A rater takes part in a resample when their own equation can be fitted on it.
+    """
+    R = eligible.size
+    sscp, n = stacked_sscp(Z, who, R, weights=counts[:, case_row], base=base)
+    own_rss = batched_rss(sscp, n, p)
+    return sscp, n, eligible[None, :] & np.isfinite(own_rss) & (sscp[:, :, p, p] > 0)
+
+
+def resample_counts(generator, n_cases: int, n_resamples: int) -> np.ndarray:
+    """(n_resamples, n_cases) counts of cases drawn with replacement."""
+    return generator.multinomial(n_cases, np.full(n_cases, 1.0 / n_cases),
+                                 size=n_resamples).astype(float)
 
 
 def group_jaccard(slots: np.ndarray, boot_slots: np.ndarray, eligible: np.ndarray) -> dict:
@@ -465,18 +679,24 @@ def resampling_stability(Z, who, case_row, n_cases, slots, eligible, p, chosen,
     resample is grouped by the same merges and then by ``rule`` (or, without one,
     cut at ``chosen`` groups), as in Hennig 2007.
     """
-    R = eligible.size
     if not n_resamples:
+        return stability_of(slots, np.zeros((0, eligible.size), dtype=int), eligible)
+    counts = resample_counts(generator, n_cases, n_resamples)
+    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule, base=base)
+    return stability_of(slots, boot_slots, eligible)
+
+
+def stability_of(slots, boot_slots, eligible) -> ResamplingStability:
+    """Co-assignment, ARI against ``slots`` and Jaccard matches of the resamples' groups."""
+    R = eligible.size
+    if boot_slots.shape[0] == 0:
         return ResamplingStability(co_assignment=np.full((R, R), np.nan), ari=np.array([]),
                                    jaccard={}, n_sat_out=0)
-    counts = generator.multinomial(n_cases, np.full(n_cases, 1.0 / n_cases),
-                                   size=n_resamples).astype(float)
-    boot_slots = resampled_labels(Z, who, case_row, counts, eligible, p, chosen, rule, base=base)
     present = boot_slots >= 0
     co = co_assignment(boot_slots)
     ari = np.array([adjusted_rand_index(slots[present[b] & eligible],
                                         boot_slots[b][present[b] & eligible])
-                    for b in range(n_resamples)])
+                    for b in range(boot_slots.shape[0])])
     return ResamplingStability(
         co_assignment=co,
         ari=ari,

@@ -158,6 +158,30 @@ def test_joining_pieces_equals_the_pairwise_scan(which, threshold):
                                       _reference_join_pieces(full.sscp, full.n, start, rule, p))
 
 
+def test_joining_pieces_of_many_batches_at_once_equals_each_batch_alone():
+    # The resamples' pieces are joined in lockstep, padded to the largest number of
+    # pieces; every batch must come out as the pairwise scan gives it on its own
+    # (batches with one piece, no pieces and many, raters left out of some).
+    from calibrate.panel.stability import KeepApartRule, _join_pieces_lockstep
+
+    design, first = next((d, f) for name, d, f in _panels() if name == "incomplete 1-7")
+    Z, who, full = _rater_sscp(design, first)
+    p = design.n_columns
+    R = full.n.size
+    rng = np.random.default_rng(8)
+    starts = np.stack([np.arange(R), rng.integers(0, 5, R), np.zeros(R, dtype=int),
+                       np.full(R, -1), np.where(rng.random(R) < 0.2, -1, rng.integers(0, 9, R))])
+    for threshold in (0.0, 0.02):
+        rule = KeepApartRule(threshold, 0.05, np.array([0.05, 0.1]),
+                             np.sort(rng.uniform(0.0, 3.0, 40)))
+        sscp = np.broadcast_to(full.sscp, (len(starts),) + full.sscp.shape)
+        n = np.broadcast_to(full.n, (len(starts), R))
+        together = _join_pieces_lockstep(sscp, n, starts, rule, p)
+        for b, start in enumerate(starts):
+            np.testing.assert_array_equal(
+                together[b], _reference_join_pieces(full.sscp, full.n, start, rule, p))
+
+
 # --------------------------------------------------------------------------- stability counts
 
 
@@ -257,3 +281,39 @@ def test_grouping_of_a_panel_equals_the_grouping_without_dropped_slots(which, mo
     plain = group_raters(design, first, rng=3, n_resamples=8, n_null=10)
     assert json.dumps(fast.to_dict()) == json.dumps(plain.to_dict())
     np.testing.assert_array_equal(fast.co_assignment, plain.co_assignment)
+
+
+@pytest.mark.parametrize("which", ["shared 1-7", "incomplete 0/1"])
+def test_simulated_panels_and_resamples_in_one_lockstep_equal_the_two_runs(which):
+    # The grouping merges its simulated one-policy panels and its case resamples in one
+    # call; the rule and every resample's groups must be those of the two separate runs
+    # with the same draws (the simulated judgments first, then the case counts). 36
+    # raters: the pair-cost engine.
+    from calibrate.panel.stability import (
+        keep_apart_rule,
+        resample_counts,
+        resampled_labels,
+        rule_and_resampled_groups,
+    )
+    from calibrate.policy.linalg import ols_from_sscp
+
+    design, first, _ = scale_panel(6, [30, 6], share_seen=1.0 if which == "shared 1-7" else 0.7)
+    if which.endswith("0/1"):
+        first = _binary(first)
+    Z, who, full = _rater_sscp(design, first)
+    p = design.n_columns
+    case_row = design.row_of(first.sort_values(["rater", "case"], kind="stable")["case"])
+    own = ols_from_sscp(full, np.arange(p), p)
+    eligible = own.rank_ok & (full.sscp[:, p, p] > 0)
+    n_cases = len(design.case_ids)
+    rule, boot = rule_and_resampled_groups(Z, who, case_row, n_cases, eligible, own.rss,
+                                           own.df_resid, p, 12, 7, np.random.default_rng(4),
+                                           threshold=0.02, alpha=0.05, base=full)
+    generator = np.random.default_rng(4)
+    alone = keep_apart_rule(Z, who, eligible, own.rss, own.df_resid, p, 12, generator,
+                            threshold=0.02, alpha=0.05, base=full)
+    counts = resample_counts(generator, n_cases, 7)
+    np.testing.assert_array_equal(rule.scale, alone.scale)
+    np.testing.assert_array_equal(rule.null_max, alone.null_max)
+    np.testing.assert_array_equal(boot, resampled_labels(Z, who, case_row, counts, eligible, p,
+                                                         1, alone, base=full))

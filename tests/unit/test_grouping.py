@@ -15,7 +15,12 @@ from calibrate.data.cues import CueRule, build_cue_design
 from calibrate.errors import DataError
 from calibrate.panel.grouping import group_raters
 from calibrate.panel.merges import stacked_sscp
-from calibrate.panel.stability import resample_budget, resampled_labels
+from calibrate.panel.stability import (
+    fewest_null_panels,
+    null_panel_budget,
+    resample_budget,
+    resampled_labels,
+)
 from calibrate.policy.linalg import grouped_sscp
 
 
@@ -315,6 +320,19 @@ def test_resample_budget_shrinks_for_large_panels():
     assert resample_budget(30, 2000, floor=50) == 30  # never more than asked
 
 
+def test_large_panels_run_the_fewest_simulated_panels_that_reach_alpha():
+    # A Monte Carlo p-value (1 + #{null >= observed}) / (n + 1) is at least 1 / (n + 1):
+    # below 0.05 from n = 20 on, below 0.01 from n = 100 on (an exact identity).
+    assert fewest_null_panels(0.05) == 20 and 1 / 21 < 0.05 <= 1 / 20
+    assert fewest_null_panels(0.01) == 100 and fewest_null_panels(0.03) == 33
+    assert fewest_null_panels(1.0) == 1
+    assert null_panel_budget(100, 1000, 0.05) == 50
+    assert null_panel_budget(100, 1001, 0.05) == 20
+    assert null_panel_budget(100, 2000, 0.01) == 50   # never more than the floor gave
+    assert null_panel_budget(10, 2000, 0.05) == 10    # never more than asked
+    assert null_panel_budget(100, 40, 0.05) == 100
+
+
 def test_group_importance_is_general_dominance_on_the_pooled_judgments():
     # Reference: a group's pooled equation is OLS on rater-centred rows; every subset's
     # R^2 refitted with statsmodels and averaged by subset size as in Budescu (1993)
@@ -516,3 +534,19 @@ def test_large_panel_reductions_are_stated_and_can_be_turned_off(monkeypatch):
     assert reduced.to_dict()["reduced_forms"] == list(reduced.reduced_forms)
     full = group_raters(design, first, rng=2, n_resamples=40, n_null=60, scale_down=False)
     assert full.n_resamples == 40 and full.reduced_forms == ()
+
+
+def test_large_panels_state_the_fewer_simulated_panels_and_can_run_them_all(monkeypatch):
+    # The size above which the test runs 20 simulated panels shrunk to 5 raters: the
+    # reduction is stated; scale_down=False runs the panels asked for.
+    import calibrate.panel.stability as stability
+
+    monkeypatch.setattr(stability, "LARGE_PANEL_RATERS", 5)
+    design, first, _ = make_panel(4, THREE_POLICIES, [2, 2, 2])
+    reduced = group_raters(design, first, rng=2, n_resamples=0, n_null=60)
+    assert reduced.reduced_forms == (
+        "The number-of-groups test from 20 simulated panels instead of 60 on this panel size "
+        "(6 raters).",)
+    assert "20 simulations" in reduced.rule
+    full = group_raters(design, first, rng=2, n_resamples=0, n_null=60, scale_down=False)
+    assert full.reduced_forms == () and "60 simulations" in full.rule
