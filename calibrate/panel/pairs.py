@@ -135,22 +135,55 @@ class _RaterCaseTable:
     """The judgments by rater and design row, dense (NaN where not judged) or sparse.
 
     ``screen()`` gives every pair's shared-case count and judgment correlation by
-    matrix products; ``rows_for(a, b)`` the dense rows that a chunk of pairs needs, with
-    the pairs' indices into them.
+    matrix products; ``shared_rows(a, b)`` the cases both raters of each pair read, from
+    each rater's run of judgments sorted by case (no dense row is made for a pair).
     """
 
     def __init__(self, rows: JudgmentRows, n_cases: int, *, dense_cells: int | None = None):
-        flat = np.sort(rows.group * n_cases + rows.design_row)  # a sort: faster than unique here
-        if (flat[1:] == flat[:-1]).any():
+        key = rows.group * n_cases + rows.design_row
+        order = np.argsort(key, kind="stable")
+        key = key[order]
+        if (key[1:] == key[:-1]).any():
             raise DataError("The first-judgment table has more than one row for some "
                             "(rater, case); keep only each rater's first judgment of a case.")
         self.shape = (rows.n_raters, n_cases)
         self.group, self.case, self.y = rows.group, rows.design_row, rows.y
+        # each rater's judgments as one run, cases ascending
+        self.sorted_case, self.sorted_y = rows.design_row[order], rows.y[order]
+        self.count = np.bincount(rows.group, minlength=rows.n_raters)
+        self.start = np.cumsum(self.count) - self.count
         limit = _DENSE_CELLS if dense_cells is None else dense_cells
         self.dense = None
         if rows.n_raters * n_cases <= limit:
             self.dense = np.full(self.shape, np.nan)
             self.dense[self.group, self.case] = self.y
+
+    def _runs(self, raters: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The judgments of ``raters[k]`` one run after another: (k of each entry, entry)."""
+        counts = self.count[raters]
+        total = int(counts.sum())
+        owner = np.repeat(np.arange(raters.size), counts)
+        first_of_run = np.cumsum(counts) - counts
+        entry = np.repeat(self.start[raters] - first_of_run, counts) + np.arange(total)
+        return owner, entry
+
+    def shared_rows(self, a: np.ndarray, b: np.ndarray):
+        """Every case read by both raters of pair k = (a[k], b[k]): ``(pair, case, y_a, y_b)``,
+        ordered by pair, then case (the order of ``np.nonzero`` on a pairs x cases mask)."""
+        n_cases = self.shape[1]
+        pair_a, entry_a = self._runs(a)
+        pair_b, entry_b = self._runs(b)
+        key_a = pair_a * n_cases + self.sorted_case[entry_a]   # ascending: by pair, then case
+        key_b = pair_b * n_cases + self.sorted_case[entry_b]
+        if key_b.size == 0:
+            hit = np.zeros(key_a.size, dtype=bool)
+            at = np.zeros(key_a.size, dtype=np.intp)
+        else:
+            at = np.minimum(np.searchsorted(key_b, key_a), key_b.size - 1)
+            hit = key_b[at] == key_a
+        entry_a = entry_a[hit]
+        return (pair_a[hit], self.sorted_case[entry_a], self.sorted_y[entry_a],
+                self.sorted_y[entry_b[at[hit]]])
 
     def screen(self) -> tuple[np.ndarray, np.ndarray]:
         """Shared-case counts and judgment correlations for every pair, by matrix products.
@@ -173,17 +206,6 @@ class _RaterCaseTable:
         sq_a = (Y0.multiply(Y0) @ M.T).toarray()
         cross = (Y0 @ Y0.T).toarray()
         return n, _screen_correlations(n, sum_a, sq_a, cross)
-
-    def rows_for(self, a: np.ndarray, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        if self.dense is not None:
-            return self.dense, a, b
-        needed = np.unique(np.concatenate([a, b]))
-        local = np.full(self.shape[0], -1)
-        local[needed] = np.arange(needed.size)
-        block = np.full((needed.size, self.shape[1]), np.nan)
-        mine = local[self.group] >= 0
-        block[local[self.group[mine]], self.case[mine]] = self.y[mine]
-        return block, local[a], local[b]
 
 
 def _screen_pairs(Y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -276,12 +298,13 @@ def compare_rater_pairs(
         warnings.append(f"The rater-pairs view is empty: {left_out}.")
     if n_eligible > max_pairs:
         screen = r_screen[a_idx, b_idx]
-        order = np.lexsort((b_idx, a_idx, np.where(np.isnan(screen), np.inf, screen)))
-        keep = np.sort(order[:max_pairs])
+        keep = _lowest(np.where(np.isnan(screen), np.inf, screen), max_pairs)
         a_idx, b_idx = a_idx[keep], b_idx[keep]
         warnings.append(f"{n_eligible} rater pairs share enough cases; only the "
                         f"{max_pairs} furthest apart are kept.")
-    parts = [_pair_lens(X, *table.rows_for(a_idx[s], b_idx[s]))
+    complete = np.isfinite(X).all(axis=1)
+    column_ss = ((X[complete] - X[complete].mean(axis=0)) ** 2).sum(axis=0)
+    parts = [_pair_lens(X, column_ss, s.stop - s.start, *table.shared_rows(a_idx[s], b_idx[s]))
              for s in _chunks(a_idx.size, max(1, _CELLS_PER_CHUNK // max(1, X.shape[0])))]
     fields = {k: np.concatenate([part[k] for part in parts]) if parts else np.zeros(0)
               for k in ("n", "r", "g", "c", "r_s_a", "r_s_b", "mean_gap", "unmodelled",
@@ -355,6 +378,19 @@ def _left_out_reason(shared: np.ndarray, need: int, threshold: str, most: int) -
             f"the most such a pair shares is {int(shared[short].max())}")
 
 
+def _lowest(key: np.ndarray, count: int) -> np.ndarray:
+    """Positions of the ``count`` smallest keys, ties to the earlier position, in position
+    order: ``np.sort(np.lexsort((positions, key))[:count])`` by one partition instead of a
+    full sort (two million pairs of a 2,000-rater panel: 0.55 s to 0.02 s)."""
+    if count >= key.size:
+        return np.arange(key.size)
+    cut = np.partition(key, count - 1)[count - 1]
+    below = key < cut
+    at_cut = np.flatnonzero(key == cut)[:count - int(below.sum())]
+    below[at_cut] = True
+    return np.flatnonzero(below)
+
+
 def _chunks(total: int, size: int):
     for start in range(0, total, size):
         yield slice(start, min(total, start + size))
@@ -383,19 +419,18 @@ def _drop_constant_columns(st, column_ss: np.ndarray, p: int) -> np.ndarray:
     return dropped
 
 
-def _pair_lens(X: np.ndarray, Y: np.ndarray, a: np.ndarray, b: np.ndarray) -> dict:
-    """Exact lens-model components for pairs (a[k], b[k]) on their shared cases.
+def _pair_lens(X: np.ndarray, column_ss: np.ndarray, n_pairs: int, pair: np.ndarray,
+               case: np.ndarray, y_a: np.ndarray, y_b: np.ndarray) -> dict:
+    """Exact lens-model components for ``n_pairs`` pairs from the rows of their shared cases
+    (``pair``, ``case``, and the two raters' judgments ``y_a``, ``y_b``, by pair then case).
 
-    Design columns constant on a pair's shared cases are dropped for that pair
+    Design columns constant on a pair's shared cases (against ``column_ss``, each column's
+    sum of squares over the design) are dropped for that pair
     (:func:`_drop_constant_columns`) rather than leaving the pair without figures.
     """
     p = X.shape[1]
-    shared = np.isfinite(Y[a]) & np.isfinite(Y[b])
-    pair, case = np.nonzero(shared)
-    Z = np.column_stack([X[case], Y[a[pair], case], Y[b[pair], case]])
-    st = grouped_sscp(Z, pair, a.size)
-    complete = np.isfinite(X).all(axis=1)
-    column_ss = ((X[complete] - X[complete].mean(axis=0)) ** 2).sum(axis=0)
+    Z = np.column_stack([X[case], y_a, y_b])
+    st = grouped_sscp(Z, pair, n_pairs)
     dropped = _drop_constant_columns(st, column_ss, p)
     cues = np.arange(p)
     fit_a = ols_from_sscp(st, cues, p)
