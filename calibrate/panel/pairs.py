@@ -571,36 +571,74 @@ def heterogeneity_wald(estimates: np.ndarray, precisions: np.ndarray) -> np.ndar
     return np.einsum("...ri,...rij,...rj->...", d, precisions, d)
 
 
-def null_wald(estimates: np.ndarray, precision: np.ndarray, scale: np.ndarray) -> np.ndarray:
-    """:func:`heterogeneity_wald` for many draws that share each rater's precision shape.
+#: Draws x raters x cues of the homogeneity bootstrap handled at a time: 2 MB blocks, so
+#: each block's drawn weights are read by every test while still in cache.
+_NULL_BLOCK_CELLS = 1 << 18
 
-    Draw ``b`` has ``W_br = scale[b, r] * precision[r]`` (the bootstrap keeps each
-    rater's ``(X_r'X_r)`` and redraws only the error variance), so every sum over raters
-    is a matrix product and no (draws, raters, q, q) array is built:
+
+def null_wald(z: np.ndarray, factor: np.ndarray, scale: np.ndarray,
+              tests: list[tuple[np.ndarray | None, np.ndarray]]) -> list[np.ndarray]:
+    """:func:`heterogeneity_wald` of every test for many null draws, a block of draws at a time.
+
+    Draw ``b`` of rater ``r`` has weights ``b_br = factor[r] z[b, r]`` (all columns) and
+    precision ``W_br = scale[b, r] * precision`` on a test's columns (the bootstrap keeps each
+    rater's ``(X_r'X_r)`` and redraws only the error variance), so every sum over raters is
+    a product with the draw's scales and no (draws, raters, q, q) array is built:
     ``sum_r W_br = scale @ precision`` and, with ``b_bar`` solving
     ``(sum_r W_br) b_bar = sum_r W_br b_br``,
     ``T_b = sum_r b_br' W_br b_br - b_bar' sum_r W_br b_br`` (expanding the quadratic form
-    of :func:`heterogeneity_wald`; exact identity).
+    of :func:`heterogeneity_wald`; exact identity). The drawn weights exist only a block
+    of draws at a time, read by every test while in cache (the whole (raters, p, draws)
+    array of 2,000 raters was 256 MB, read once per test).
 
     Parameters
     ----------
-    estimates : (K, q, B) draws laid out rater-first (one q x q by q x B product per rater).
-    precision : (K, q, q).
-    scale : (B, K).
+    z : (B, K, p) standard normal draws.
+    factor : (K, p, p) with ``factor[r] @ factor[r].T`` each rater's null covariance of the
+        weights (``s_r^2 (X_r'X_r)^-1``: its Cholesky factor times ``s_r``).
+    scale : (B, K) each draw's precision multiplier per rater (``1 / s_r*^2``).
+    tests : ``(cols, precision)`` per test: the columns tested (None: every column) and
+        the (K, q, q) precisions on them.
 
     Returns
     -------
-    (B,) array of T.
+    One (B,) array of T per test.
     """
-    K, q, B = estimates.shape
-    weighted_each = np.matmul(precision, estimates)                 # (K, q, B): W_r b_r / scale
-    along = np.ascontiguousarray(scale.T)                           # (K, B)
-    weighted = np.einsum("rib,rb->bi", weighted_each, along)       # (B, q)
-    total = (scale @ precision.reshape(K, q * q)).reshape(B, q, q)
-    b_bar = np.linalg.solve(total, weighted[..., None])[..., 0]
-    # Two steps: a three-operand einsum here took nine times as long (measured).
-    quad = (np.einsum("rib,rib->rb", estimates, weighted_each) * along).sum(axis=0)
-    return quad - np.einsum("bi,bi->b", b_bar, weighted)
+    B, K, p = z.shape
+    rows_of = np.swapaxes(factor, 1, 2)                 # row form: b_br' = z_br' factor_r'
+    # Tests of one column each are run together: their precisions are scalars per rater.
+    single = [t for t, (cols, P) in enumerate(tests) if cols is not None and cols.size == 1]
+    several = [t for t in range(len(tests)) if t not in single]
+    one_cols = np.array([int(tests[t][0][0]) for t in single], dtype=np.intp)
+    one_precision = np.stack([tests[t][1][:, 0, 0] for t in single], axis=1) if single else None
+    one_total = scale @ one_precision if single else None                  # (B, tests)
+    totals = {t: (scale @ tests[t][1].reshape(K, -1)).reshape(B, *tests[t][1].shape[1:])
+              for t in several}
+    out = [np.empty(B) for _ in tests]
+    block = max(1, _NULL_BLOCK_CELLS // max(1, K * p))
+    for start in range(0, B, block):
+        stop = min(B, start + block)
+        drawn = np.matmul(z[start:stop].transpose(1, 0, 2), rows_of)   # (K, draws, p)
+        along = scale[start:stop].T[:, :, None]                        # (K, draws, 1)
+        for t in several:
+            cols, P = tests[t]
+            est = drawn if cols is None else drawn[:, :, cols]
+            weighted_each = np.matmul(est, P)                          # P symmetric
+            weighted_each *= along
+            weighted = weighted_each.sum(axis=0)                       # (draws, q)
+            quad = np.einsum("rbi,rbi->b", est, weighted_each)
+            b_bar = np.linalg.solve(totals[t][start:stop], weighted[..., None])[..., 0]
+            out[t][start:stop] = quad - np.einsum("bi,bi->b", b_bar, weighted)
+        if single:
+            est = drawn[:, :, one_cols]                                # (K, draws, tests)
+            weighted_each = est * one_precision[:, None, :]
+            weighted_each *= along
+            weighted = weighted_each.sum(axis=0)                       # (draws, tests)
+            quad = np.einsum("rbt,rbt->bt", est, weighted_each)
+            T = quad - weighted * weighted / one_total[start:stop]
+            for i, t in enumerate(single):
+                out[t][start:stop] = T[:, i]
+    return out
 
 
 def _partial_sscp(sscp: np.ndarray, keep: np.ndarray, given: np.ndarray) -> np.ndarray:
@@ -724,28 +762,26 @@ def policy_homogeneity(
     rss_full = float(fit.rss[usable].sum())
     # Null draws shared by every test, so overall and per-cue p-values agree in
     # their randomness: b* ~ N(0, s2 M), s2* = s2 chi2_f / f.
-    chol = np.linalg.cholesky(M)
+    factor = np.linalg.cholesky(M) * np.sqrt(s2)[:, None, None]
     z = rng.standard_normal((n_resamples, K, p))
-    # Laid out (K, p, B): one p x p by p x B product per rater draws them all.
-    b_star = np.matmul(chol, z.transpose(1, 2, 0))
-    del z
-    b_star *= np.sqrt(s2)[:, None, None]   # in place: a new 256 MB array costs its page faults
     s2_star = s2[None, :] * rng.chisquare(f[None, :].repeat(n_resamples, 0)) / f[None, :]
-    scale_star = 1.0 / s2_star
+    every = [np.arange(p)] + groups
+    precisions = [np.linalg.inv(M[:, cols[:, None], cols[None, :]]) for cols in every]
+    T_stars = null_wald(z, factor, 1.0 / s2_star,
+                        [(None if cols.size == p else cols, P) for cols, P in zip(every, precisions)])
+    del z
 
-    def one_test(cue: str | None, cols: np.ndarray) -> SlopeEqualityTest:
-        M_inv = np.linalg.inv(M[:, cols[:, None], cols[None, :]])
+    def one_test(cue: str | None, cols: np.ndarray, M_inv: np.ndarray, T_star: np.ndarray) -> SlopeEqualityTest:
         T = float(heterogeneity_wald(b[:, cols], M_inv / s2[:, None, None]))
-        drawn = b_star if cols.size == p and (cols == np.arange(p)).all() else b_star[:, cols, :]
-        T_star = null_wald(drawn, M_inv, scale_star)
         df = float((K - 1) * cols.size)
         p_boot = (1.0 + np.count_nonzero(T_star >= T)) / (n_resamples + 1.0)
         cF, cd1, cd2, cp = _classical_f(st.sscp[usable], cols, p, n_total, rss_full)
         return SlopeEqualityTest(cue, T, df, float(p_boot), float(sps.chi2.sf(T, df)),
                                  cF, cd1, cd2, cp)
 
-    overall = one_test(None, np.arange(p))
-    per_cue = tuple(one_test(c, g) for c, g in zip(cue_names, groups))
+    tests = [one_test(cue, cols, P, T_star)
+             for cue, cols, P, T_star in zip([None] + cue_names, every, precisions, T_stars)]
+    overall, per_cue = tests[0], tuple(tests[1:])
     return HomogeneityResult(
         method=HOMOGENEITY_METHOD, statistic=overall.statistic, df=overall.df,
         p_value=overall.p_value, classical_statistic=overall.classical_statistic,
