@@ -427,7 +427,7 @@ def fit_additive_many(layout: CrossedLayout, ys: np.ndarray,
     N = float(ys.shape[0])
     n_c, n_r = d.readers_per_case, d.judgments_per_rater
     grand = ys.mean(axis=0)
-    dev_case = ys - (d.by_case @ ys / n_c[:, None])[ci]
+    dev_case = ys - np.take(d.by_case @ ys / n_c[:, None], ci, axis=0)   # take: rows of a few panels, fast
     ss_total = ((ys - grand) ** 2).sum(axis=0)
     ss_within = (dev_case**2).sum(axis=0)
     ss_raters = (n_r[:, None] * (d.by_rater @ ys / n_r[:, None] - grand) ** 2).sum(axis=0)
