@@ -129,6 +129,12 @@ class RaterPairsResult(ResultMixin):
 #: design of 2,000 raters and 100,000 cases would take 1.6 GB a dense copy, and its
 #: pair products would run over every empty cell).
 _DENSE_CELLS = 20_000_000
+#: ... and below this share of judged cells, whatever the size: the sparse products then
+#: cost less (400 raters x 2,000 cases, measured: at 5% 0.048 s sparse against 0.085 s
+#: dense, at 10% 0.074 against 0.085, at 20% 0.197 against 0.091; the linked 400-rater
+#: bench panel, 1% judged, 0.03 s against 0.90 s). Shared-case counts are the same either
+#: way, the screening correlations agree to about 1e-15.
+_DENSE_FILL = 0.10
 
 
 class _RaterCaseTable:
@@ -154,7 +160,8 @@ class _RaterCaseTable:
         self.start = np.cumsum(self.count) - self.count
         limit = _DENSE_CELLS if dense_cells is None else dense_cells
         self.dense = None
-        if rows.n_raters * n_cases <= limit:
+        cells = rows.n_raters * n_cases
+        if cells <= limit and rows.y.size >= _DENSE_FILL * cells:
             self.dense = np.full(self.shape, np.nan)
             self.dense[self.group, self.case] = self.y
 
