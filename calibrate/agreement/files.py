@@ -213,22 +213,21 @@ def file_view(
                                     mean=float(np.mean(adjusted[finite])), case_variance=case_variance)
     else:
         change = np.full(C, np.nan)
-    rows = []
-    for c in range(C):
-        reasons = []
-        if change[c] >= change_level:
-            reasons.append("may_change")
-        if p_dis[c] < disagreement_level:
-            reasons.append("high_disagreement")
-        near = cut_off is not None and bool(abs(adjusted[c] - cut_off) < zcrit * se[c])
-        rows.append(FileRow(
-            case=layout.cases[c], n_readers=int(n[c]), raw_mean=float(raw_mean[c]),
-            adjusted=float(adjusted[c]), se=float(se[c]),
-            spread_sd=float(spread_sd[c]), spread_range=float(highest[c] - lowest[c]),
-            disagreement_p=float(p_dis[c]), part=int(part[c]),
-            needs_another_read=bool(reasons), reasons=tuple(reasons),
-            change_probability=float(change[c]), near_cut_off=near,
-        ))
+    # every file's flags at once, and the rows from plain lists (a per-file loop over numpy
+    # scalars took 0.9 s for the 100,000 files of a linked 2,000-rater panel)
+    may_change = change >= change_level
+    disagrees = p_dis < disagreement_level
+    near = (np.abs(adjusted - cut_off) < zcrit * se) if cut_off is not None else np.zeros(C, dtype=bool)
+    reason_words = {(False, False): (), (True, False): ("may_change",),
+                    (False, True): ("high_disagreement",), (True, True): ("may_change", "high_disagreement")}
+    rows = [FileRow(case=case, n_readers=readers, raw_mean=raw, adjusted=adj, se=s_e, spread_sd=sd,
+                    spread_range=width, disagreement_p=p_value, part=piece,
+                    needs_another_read=m or d, reasons=reason_words[m, d], change_probability=chance,
+                    near_cut_off=close)
+            for case, readers, raw, adj, s_e, sd, width, p_value, piece, m, d, chance, close in zip(
+                layout.cases, n.astype(int).tolist(), raw_mean.tolist(), adjusted.tolist(), se.tolist(),
+                spread_sd.tolist(), (highest - lowest).tolist(), p_dis.tolist(), part.tolist(),
+                may_change.tolist(), disagrees.tolist(), change.tolist(), near.tolist())]
     return FileView(
         files=tuple(rows), cut_off=None if cut_off is None else float(cut_off),
         confidence=float(confidence), disagreement_level=float(disagreement_level),

@@ -78,10 +78,10 @@ def line_up(design: CueDesign, first: pd.DataFrame) -> JudgmentRows:
             f"The first-judgment table lacks column(s) {', '.join(missing)}; "
             f"it needs {', '.join(_FIRST_COLUMNS)} (available: {', '.join(map(str, first.columns))})."
         )
-    known = {c: i for i, c in enumerate(design.case_ids)}
-    cases = first["case"].astype(str).to_numpy()
-    rows = np.fromiter((known.get(c, -1) for c in cases), dtype=np.intp, count=len(cases))
+    cases = first["case"].astype(str)
+    rows = _design_rows(design.case_ids, cases)
     if (rows < 0).any():
+        cases = cases.to_numpy()
         unknown = sorted(set(cases[rows < 0]))
         shown = ", ".join(repr(c) for c in unknown[:10])
         more = f" and {len(unknown) - 10} more" if len(unknown) > 10 else ""
@@ -90,8 +90,7 @@ def line_up(design: CueDesign, first: pd.DataFrame) -> JudgmentRows:
             "Add these cases to the cases table or remove their judgments.",
             column="case",
         )])
-    rater_labels = first["rater"].astype(str).to_numpy()
-    raters, group = np.unique(rater_labels, return_inverse=True)
+    raters, group = _sorted_codes(first["rater"].astype(str))
     y = pd.to_numeric(first["judgment"], errors="coerce").to_numpy(dtype=float)
     X = design.matrix[rows]
     usable = np.isfinite(y) & np.isfinite(X).all(axis=1)
@@ -103,6 +102,27 @@ def line_up(design: CueDesign, first: pd.DataFrame) -> JudgmentRows:
         y=y[usable],
         n_dropped=int((~usable).sum()),
     )
+
+
+def _design_rows(case_ids, cases: pd.Series) -> np.ndarray:
+    """The design row of each case id, -1 where the design lacks it: one hash lookup in C
+    (a Python dict lookup per judgment took 0.35 s of 400,000; repeated ids in the design,
+    which a hash index refuses, keep the dict, whose last row wins)."""
+    index = pd.Index(case_ids)
+    if index.is_unique:
+        return index.get_indexer(cases).astype(np.intp, copy=False)
+    known = {c: i for i, c in enumerate(case_ids)}
+    return np.fromiter((known.get(c, -1) for c in cases.to_numpy()), dtype=np.intp, count=len(cases))
+
+
+def _sorted_codes(labels: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """``np.unique(labels, return_inverse=True)`` by hashing rather than sorting every label
+    (0.2 s against 0.01 s for 400,000 labels); the distinct labels are sorted the same way
+    (code point order, which UTF-8 bytes keep). A missing label keeps the sorting route."""
+    codes, uniques = pd.factorize(labels, sort=True)
+    if (codes < 0).any():
+        return np.unique(labels.to_numpy(), return_inverse=True)
+    return np.asarray(uniques, dtype=object), codes
 
 
 def standard_deviations(design: CueDesign, rows: np.ndarray) -> np.ndarray:

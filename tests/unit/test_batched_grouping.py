@@ -34,16 +34,27 @@ def _panels():
 # --------------------------------------------------------------------------- homogeneity
 
 
-def test_null_wald_equals_the_per_draw_wald_statistic():
+@pytest.mark.parametrize("block", [1 << 18, 20])   # one block, and blocks of a few draws
+def test_null_wald_equals_the_per_draw_wald_statistic(monkeypatch, block):
+    import calibrate.panel.pairs as pairs
+
+    monkeypatch.setattr(pairs, "_NULL_BLOCK_CELLS", block)
     rng = np.random.default_rng(0)
-    B, K, q = 7, 9, 3
-    est = rng.normal(size=(B, K, q))
-    A = rng.normal(size=(K, q, q))
-    precision = A @ A.transpose(0, 2, 1) + np.eye(q)
+    B, K, p = 7, 9, 4
+    z = rng.normal(size=(B, K, p))
+    A = rng.normal(size=(K, p, p))
+    factor = np.linalg.cholesky(A @ A.transpose(0, 2, 1) + np.eye(p))
+    est = np.einsum("rij,brj->bri", factor, z)
     scale = rng.uniform(0.2, 3.0, size=(B, K))
-    reference = heterogeneity_wald(est, precision[None] * scale[:, :, None, None])
-    batched = null_wald(est.transpose(1, 2, 0).copy(), precision, scale)
-    np.testing.assert_allclose(batched, reference, rtol=1e-9)
+    B_ = rng.normal(size=(K, p, p))
+    precision = B_ @ B_.transpose(0, 2, 1) + np.eye(p)
+    tests = [(None, precision), (np.array([1, 3]), precision[:, [1, 3]][:, :, [1, 3]]),
+             (np.array([2]), precision[:, 2:3, 2:3]), (np.array([0]), precision[:, :1, :1])]
+    batched = null_wald(z, factor, scale, tests)
+    for (cols, P), T in zip(tests, batched):
+        e = est if cols is None else est[:, :, cols]
+        reference = heterogeneity_wald(e, P[None] * scale[:, :, None, None])
+        np.testing.assert_allclose(T, reference, rtol=1e-9)
 
 
 def _reference_homogeneity_draws(design, first, n_resamples, seed):

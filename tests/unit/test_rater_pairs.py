@@ -257,3 +257,18 @@ def test_a_fixed_number_still_keeps_terms_plus_three():
     assert result.min_shared == terms + 3 and result.cases_per_term is None
     assert result.threshold == f"{terms + 3} cases (a fixed number; at least terms + 3 = {terms + 3})"
     assert result.left_out is None
+
+
+def test_lowest_keys_are_those_of_a_full_sort():
+    # the pairs kept above max_pairs come from a partition, not a sort of every pair:
+    # the same positions as a stable sort of the keys, ties and infinities included
+    from calibrate.panel.pairs import _lowest
+
+    rng = np.random.default_rng(5)
+    for trial in range(400):
+        n = int(rng.integers(1, 200))
+        count = int(rng.integers(1, n + 3))
+        key = rng.integers(0, 4, n).astype(float) if trial % 2 else rng.standard_normal(n)
+        key[rng.random(n) < 0.2] = np.inf
+        expected = np.sort(np.lexsort((np.arange(n), key))[:count])
+        np.testing.assert_array_equal(_lowest(key, count), expected)

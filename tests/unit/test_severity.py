@@ -175,3 +175,16 @@ def test_to_dict_is_json_safe_and_has_contract_keys():
     rater = payload["raters"][0]
     assert {"offset", "se"} <= set(rater)
     assert any("observed lowest" in w for w in result.warnings)
+
+
+def test_repeated_pair_check_agrees_with_duplicated():
+    # the agreement functions find a repeated (rater, case) from integer codes; a missing
+    # id must count as one id, as pandas' duplicated counts it
+    from calibrate.agreement.offsets import _repeats_a_pair
+
+    rng = np.random.default_rng(3)
+    for _ in range(500):
+        n = int(rng.integers(1, 10))
+        table = pd.DataFrame({"rater": pd.array(rng.choice(["a", "b", "c", None], n), dtype="str"),
+                              "case": pd.array(rng.choice(["x", "y", None], n), dtype="str")})
+        assert _repeats_a_pair(table) == bool(table.duplicated(["rater", "case"], keep=False).any())
