@@ -195,6 +195,17 @@ class _Styles:
 
     def __init__(self):
         self.index: dict[tuple, int] = {(False, False, None, False): 0}
+        self._text_ends: dict = {}
+
+    def text_end(self, raw) -> tuple[str, str]:
+        """A text cell's value (as :func:`_cell_value` makes it) and what follows its
+        reference's row number ('' for an empty cell), made once per distinct text."""
+        found = self._text_ends.get(raw)
+        if found is None:
+            text = _cell_value(raw)
+            end = _text_end(text, self)
+            found = self._text_ends[raw] = (text, f'"{end}' if end else "")
+        return found
 
     def of(self, *, bold: bool = False, quote: bool = False, number_format: str | None = None,
            wrap: bool = False) -> int:
@@ -295,46 +306,53 @@ def _readme_sheet_xml(tables, descriptions, notes, left_out, names, styles: _Sty
 def _table_sheet_xml(frame: pd.DataFrame, styles: _Styles) -> str:
     """One table's sheet: a bold header, then each column's cells built column by column."""
     n = len(frame)
+    row_numbers = list(map(str, range(2, n + 2)))   # formatted once for every column
     header, columns, widths = [], [], []
     for j, col in enumerate(frame.columns, start=1):
         letter = _column_letter(j)
         title = _cell_value(str(col))
         quote = title.startswith(FORMULA_START)
         header.append(_text_cell(f"{letter}1", title, styles.of(bold=True, quote=quote)) if title else "")
-        cells, longest = _column_cells(letter, frame[col], _number_format(str(col), frame[col]), styles)
+        cells, longest = _column_cells(letter, frame[col], _number_format(str(col), frame[col]), styles,
+                                       row_numbers)
         columns.append(cells)
         widths.append(min(max(max(len(str(col)), longest) + 2, 8), 60))
     rows = [f'<row r="1">{"".join(header)}</row>']
     if n and columns:
-        rows += [f'<row r="{r}">{"".join(cells)}</row>' for r, cells in enumerate(zip(*columns), start=2)]
+        rows += [f'<row r="{r}">{"".join(cells)}</row>' for r, cells in zip(row_numbers, zip(*columns))]
     elif n:
-        rows += [f'<row r="{r}"></row>' for r in range(2, n + 2)]
+        rows += [f'<row r="{r}"></row>' for r in row_numbers]
     return _sheet_xml(rows, n + 1, len(frame.columns), widths, autofilter=n > 0)
 
 
 def _column_cells(letter: str, values: pd.Series, number_format: str | None,
-                  styles: _Styles) -> tuple[list[str], int]:
+                  styles: _Styles, row_numbers: list[str]) -> tuple[list[str], int]:
     """The cells of one column (rows 2, 3, ...; '' for an empty cell) and its longest entry.
 
     Plain numeric and true/false columns are formatted in bulk; text columns once per
-    distinct value; anything else (mixed object columns) cell by cell, as the value says.
+    distinct value (each text's cell tail kept in ``styles`` for the other sheets: the
+    rater ids recur in every table); anything else (mixed object columns) cell by cell, as
+    the value says. Each cell is one formatted string: its reference (``row_numbers``
+    holds the rows as text) and its value.
     """
-    refs = [f'<c r="{letter}{r}"' for r in range(2, len(values) + 2)]
+    start = f'<c r="{letter}'
     dtype = values.dtype
     if isinstance(dtype, np.dtype) and dtype.kind == "b":
-        return [f'{ref} t="b"><v>{int(v)}</v></c>' for ref, v in zip(refs, values.tolist())], 0
+        tails = np.array(['" t="b"><v>0</v></c>', '" t="b"><v>1</v></c>'], dtype=object)
+        ends = tails[values.to_numpy().astype(np.intp)].tolist()
+        return [f"{start}{r}{end}" for r, end in zip(row_numbers, ends)], 0
     if isinstance(dtype, np.dtype) and dtype.kind in "iu":
         data = values.to_numpy()
-        s = f' s="{styles.of(number_format="0")}"'
+        middle = f'" s="{styles.of(number_format="0")}"><v>'
         longest = max(len(str(data.max())), len(str(data.min()))) if len(data) else 0
-        return [f"{ref}{s}><v>{v}</v></c>" for ref, v in zip(refs, data.tolist())], longest
+        return [f"{start}{r}{middle}{v}</v></c>" for r, v in zip(row_numbers, data.tolist())], longest
     if isinstance(dtype, np.dtype) and dtype.kind == "f":
         data = values.to_numpy(dtype=float)
         finite = np.isfinite(data)
         style = styles.of(number_format=number_format) if number_format else 0
-        s = f' s="{style}"' if style else ""
+        middle = f'" s="{style}"><v>' if style else '"><v>'
         # "%.16g" is how numbers have always been written here (a whole number reads back as one)
-        cells = [f"{ref}{s}><v>{v:.16g}</v></c>" for ref, v in zip(refs, data.tolist())]
+        cells = [f"{start}{r}{middle}{v:.16g}</v></c>" for r, v in zip(row_numbers, data.tolist())]
         if not finite.all():
             for i in np.flatnonzero(~finite).tolist():
                 cells[i] = ""
@@ -342,28 +360,29 @@ def _column_cells(letter: str, values: pd.Series, number_format: str | None,
     objects = values.to_numpy(dtype=object)
     if pd.api.types.infer_dtype(objects, skipna=True) in ("string", "empty"):
         codes, uniques = pd.factorize(objects, use_na_sentinel=True)
-        texts = [_cell_value(u) for u in uniques.tolist()]
-        if not texts:
+        if not len(uniques):
             return [""] * len(values), 0
-        ends = np.array([_text_end(t, styles) for t in texts] + [""], dtype=object)
-        cells = [f"{ref}{end}" if end else "" for ref, end in zip(refs, ends[codes].tolist())]
-        used = np.zeros(len(texts), dtype=bool)
+        texts_ends = [styles.text_end(u) for u in uniques.tolist()]
+        ends = np.array([end for _text, end in texts_ends] + [""], dtype=object)
+        cells = [f"{start}{r}{end}" if end else "" for r, end in zip(row_numbers, ends[codes].tolist())]
+        used = np.zeros(len(uniques), dtype=bool)
         used[codes[codes >= 0]] = True
-        return cells, max((len(t) for t, u in zip(texts, used) if u), default=0)
+        return cells, max((len(t) for (t, _end), u in zip(texts_ends, used) if u), default=0)
     cells, longest = [], 0
-    for ref, raw in zip(refs, objects.tolist()):
+    for r, raw in zip(row_numbers, objects.tolist()):
+        ref = f"{start}{r}"
         value = _cell_value(raw)
         if value is None or value == "":
             cells.append("")
         elif isinstance(value, bool):
-            cells.append(f'{ref} t="b"><v>{int(value)}</v></c>')
+            cells.append(f'{ref}" t="b"><v>{int(value)}</v></c>')
         elif isinstance(value, int):
-            cells.append(f'{ref} s="{styles.of(number_format="0")}"><v>{value}</v></c>')
+            cells.append(f'{ref}" s="{styles.of(number_format="0")}"><v>{value}</v></c>')
             longest = max(longest, len(str(value)))
         elif isinstance(value, float):
-            cells.append(f"{ref}><v>{value:.16g}</v></c>")
+            cells.append(f'{ref}"><v>{value:.16g}</v></c>')
         else:
-            cells.append(f"{ref}{_text_end(value, styles)}")
+            cells.append(f'{ref}"{_text_end(value, styles)}')
             longest = max(longest, len(value))
     return cells, longest
 
