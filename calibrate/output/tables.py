@@ -40,7 +40,7 @@ def csv_bytes(frame: pd.DataFrame) -> bytes:
     The bytes are those of pandas' ``to_csv`` (:func:`pandas_csv_bytes`, the reference the
     tests hold this to). A table of plain columns (float, whole-number, true/false and text)
     is written here, each column's texts made in bulk and text once per distinct value:
-    the 23 tables of a 2,000-rater audit (460,000 rows of reading order) took 2.3 s CPU
+    the tables of a 2,000-rater audit (460,000 rows of reading order) took 2.5 s CPU
     through pandas and 0.6 s here (DEVELOPERS.md, "Speed at scale"). Other tables (nullable
     integers, mixed objects, one column) go through pandas.
     """
