@@ -37,7 +37,7 @@ from .panel.grouping import GroupingResult, group_raters
 from .panel.pairs import RaterPairsResult, HomogeneityResult, compare_rater_pairs, policy_homogeneity
 from .policy.fit import CURVATURE_NOTE, POLICIES_SCHEMA, PolicySet, captured_policies, fit_policies
 from .pvalues import holm_adjust
-from .result_base import jsonable
+from .result_base import collector_paused, jsonable
 from .training import compare
 from .training.verdicts import rater_change_sentence
 from .threads import one_blas_thread
@@ -141,14 +141,14 @@ def _rng(seed: int, phase_index: int, name: str) -> np.random.Generator:
                                                                          _STREAMS.index(name))))
 
 
-def _lookup(result, rater: str):
-    """``result.for_rater(rater)`` or None when the analysis has nothing for that rater."""
-    if result is None:
-        return None
-    try:
-        return result.for_rater(rater)
-    except KeyError:
-        return None
+def _items_by_rater(result) -> dict:
+    """Rater -> the result's item for that rater (the first, as ``for_rater`` finds it); empty
+    without a result. Built once per phase: ``for_rater`` searches the tuple, and once per
+    rater that made the entries of 2,000 raters quadratic (4-5 s CPU of lookups)."""
+    found: dict = {}
+    for item in () if result is None else result.raters:
+        found.setdefault(item.rater, item)
+    return found
 
 
 def _warn_texts(phase: str | None, name: str, result) -> list[dict]:
@@ -266,8 +266,9 @@ def analyse_phase(table: JudgmentTable, ph: PhaseData, phase_index: int, *, seed
         policies, cutoffs, drift_result, excluded, retest_set)
     verdicts = {}
     if policies is not None:
+        retest_of = _items_by_rater(retest_set)
         for pol in policies.raters:
-            rt = _lookup(retest_set, pol.rater)
+            rt = retest_of.get(pol.rater)
             if rt is None or not np.isfinite(rt.r):
                 continue
             r_tt, r_tt_ci = rt.r, (rt.r_ci_low, rt.r_ci_high)
@@ -325,19 +326,32 @@ def _unavailable_reasons(entry: dict, rater: str, ph: PhaseData, spec: StudySpec
     return reasons
 
 
-def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict, spec: StudySpec) -> dict:
+#: The sections of a rater entry read from one per-rater result each: (entry key, analysis).
+_ENTRY_SECTIONS = (("retest", "retest"), ("agreement", "peer_agreement"), ("lens", "lens"),
+                   ("severity", "severity"), ("alignment", "alignment"), ("drift", "drift"),
+                   ("cutoff", "cutoffs"))
+
+
+def _rater_entries(ph: PhaseData, a: PhaseAnalyses, per_rater: dict, spec: StudySpec) -> list[dict]:
+    """The results.json entry of every rater of the phase, in ``ph.raters`` order."""
+    items = {key: _items_by_rater(getattr(a, name)) for key, name in
+             (("policy", "policies"), *_ENTRY_SECTIONS, ("excluded", "excluded"))}
+    fit = frozenset(ph.fit_raters)
+    return [_rater_entry(rater, ph, a, per_rater[rater], spec, items, rater in fit) for rater in ph.raters]
+
+
+def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict, spec: StudySpec,
+                 items: dict[str, dict], fitted: bool) -> dict:
+    """One rater's entry; ``items`` holds each analysis' per-rater items by rater
+    (:func:`_items_by_rater`), ``fitted`` whether the rater is among the phase's fit raters."""
     flags: list[str] = []
     if rater in ph.too_few:
         flags.append("too_few_cases")
     policy = None
-    if a.policies is not None and rater in ph.fit_raters:
-        try:
-            pol = a.policies[rater]
-        except KeyError:
-            pol = None
-        if pol is not None:
-            policy = pol.policy_dict()
-            flags += list(pol.flags)
+    pol = items["policy"].get(rater) if fitted else None
+    if pol is not None:
+        policy = pol.policy_dict()
+        flags += list(pol.flags)
     entry = {
         "rater": rater,
         "phase": ph.label,
@@ -348,9 +362,8 @@ def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict, spec
         "repeats_mode": ph.repeat_mode,
         "policy": policy,
     }
-    for key, result in (("retest", a.retest), ("agreement", a.peer_agreement), ("lens", a.lens), ("severity", a.severity),
-                        ("alignment", a.alignment), ("drift", a.drift), ("cutoff", a.cutoffs)):
-        item = _lookup(result, rater)
+    for key, _name in _ENTRY_SECTIONS:
+        item = items[key].get(rater)
         entry[key] = None if item is None else item.to_dict()
         if item is not None:
             flags += list(getattr(item, "flags", ()) or ())
@@ -361,7 +374,7 @@ def _rater_entry(rater: str, ph: PhaseData, a: PhaseAnalyses, counts: dict, spec
     verdict = a.verdicts.get(rater)
     entry["consistency"] = None if verdict is None else verdict.to_dict()
     entry["group"] = None if a.grouping is None else a.grouping.rater_group.get(rater)
-    excl = _lookup(a.excluded, rater)
+    excl = items["excluded"].get(rater)
     entry["excluded"] = {} if excl is None else excl.to_dict()
     if excl is not None and any(t.get("flagged") for t in entry["excluded"].values()
                                 if isinstance(t, dict)):
@@ -473,9 +486,9 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
                           full_extras=full_extras)
         analyses[ph.label] = a
         per_rater = {r["rater"]: r for r in ph_summary.per_rater}
-        for rater in ph.raters:
-            raters.append(_rater_entry(rater, ph, a, per_rater[rater], spec))
-        panels.append(_panel_entry(ph, a, ph_summary.connectedness.connected, full_extras))
+        with collector_paused():  # plain dicts and lists: no cycles to collect
+            raters += _rater_entries(ph, a, per_rater, spec)
+            panels.append(_panel_entry(ph, a, ph_summary.connectedness.connected, full_extras))
         for name, result in (("policies", a.policies), ("retest", a.retest),
                              ("agreement", a.agreement), ("peer_agreement", a.peer_agreement),
                              ("severity", a.severity),
@@ -489,7 +502,8 @@ def _audit(table: JudgmentTable, *, seed, n_boot, progress, full_extras) -> Audi
             warnings += _reduced_form_warnings(ph.name, name, texts)
         _collect_tables(tables, ph, a, full_extras)
         if a.policies is not None:
-            policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))
+            with collector_paused():
+                policies_out["phases"][ph.label] = captured_policies(a.policies, table.phase_design(ph))
             if a.grouping is not None:  # each group's common equation, for `calibrate score --group`
                 policies_out["phases"][ph.label]["groups"] = [
                     {"group": g.group, "raters": list(g.raters), "weights": dict(g.weights)}

@@ -15,7 +15,7 @@ from .errors import CalibrateError
 from .output.pseudonyms import PseudonymKey
 from .output.folder import OutputFolder, write_failure
 from .output.tables import TABLE_DESCRIPTIONS, csv_bytes
-from .result_base import jsonable
+from .result_base import collector_paused, jsonable
 from .safe_files import atomic_write_bytes, atomic_write_text, dump_json
 
 
@@ -72,6 +72,21 @@ def _results_dict(result: AuditResult, key: PseudonymKey | None) -> dict:
     return data
 
 
+def _write_data_files(result: AuditResult, folder: Path, index: pd.DataFrame, key: PseudonymKey | None) -> None:
+    """results.json, policies.json, the tables and the workbook."""
+    from .output.workbook import workbook_bytes
+
+    compact = len(index) > COMPACT_RESULTS_RATERS
+    atomic_write_text(folder / "results.json", dump_json(_results_dict(result, key), compact=compact))
+    if result.policies:
+        atomic_write_text(folder / "policies.json", dump_json(jsonable(result.policies), compact=compact))
+    tables_dir = folder / "tables"
+    for name, frame in result.tables.items():
+        atomic_write_bytes(tables_dir / f"{name}.csv", csv_bytes(frame))
+    atomic_write_bytes(folder / INDEX_FILE, csv_bytes(index))
+    atomic_write_bytes(folder / "audit.xlsx", workbook_bytes(result.tables, TABLE_DESCRIPTIONS))
+
+
 def write_audit_files(result: AuditResult, folder: Path, *, pdf: bool = True, jobs: int = 1,
                       include_excluded: bool = False, progress=None, shown: Path | None = None,
                       pseudonymise: PseudonymKey | None = None) -> None:
@@ -79,8 +94,6 @@ def write_audit_files(result: AuditResult, folder: Path, *, pdf: bool = True, jo
 
     A failed write (full disk, read-only place) becomes one clear error naming ``shown``.
     """
-    from .output.workbook import workbook_bytes
-
     index = _index_frame(result, pdf)
     key = pseudonymise
     if key is not None:
@@ -91,15 +104,8 @@ def write_audit_files(result: AuditResult, folder: Path, *, pdf: bool = True, jo
                 "audit ran on the real ids. Pseudonymise the table first "
                 "(calibrate.output.pseudonyms.pseudonymise_table), then audit() it.")
     try:
-        compact = len(index) > COMPACT_RESULTS_RATERS
-        atomic_write_text(folder / "results.json", dump_json(_results_dict(result, key), compact=compact))
-        if result.policies:
-            atomic_write_text(folder / "policies.json", dump_json(jsonable(result.policies), compact=compact))
-        tables_dir = folder / "tables"
-        for name, frame in result.tables.items():
-            atomic_write_bytes(tables_dir / f"{name}.csv", csv_bytes(frame))
-        atomic_write_bytes(folder / INDEX_FILE, csv_bytes(index))
-        atomic_write_bytes(folder / "audit.xlsx", workbook_bytes(result.tables, TABLE_DESCRIPTIONS))
+        with collector_paused():  # plain data and text: no cycles to collect
+            _write_data_files(result, folder, index, key)
         if key is not None:
             # Before the reports: the folder is swapped in only after this, so a results folder
             # never exists whose codes cannot be turned back.

@@ -1,28 +1,30 @@
 """How large a panel one machine can audit: a memory estimate made before any analysis.
 
-The model is linear in three terms, fitted by least squares to the peak resident memory of
-`calibrate audit --no-pdf` on invented complete panels (benchmarks/bench_memory.py; the
-sizes and figures are in DEVELOPERS.md, "Limits"): a fixed base (Python, numpy, pandas,
-the libraries), the judgment rows times the design terms (the per-rater design blocks and
-their bootstrap resamples), and the rater pairs (the per-pair comparisons grow with the
-square of the panel).
+The model is linear in three terms, set from the peak resident memory of `calibrate audit
+--no-pdf` on the invented panels of benchmarks/bench_scale.py (measured with
+benchmarks/bench_memory.py --specs; the figures are in DEVELOPERS.md, "Limits"): a fixed
+base (Python, numpy, pandas, the libraries), the judgment rows times the design terms (the
+per-rater design blocks and their resamples), and the rater pairs (the per-pair
+comparisons grow with the square of the panel).
 """
 
 from __future__ import annotations
 
 import os
 
-# GB (binary: GiB, as /usr/bin/time and /proc/meminfo count) per term. Measured with
-# benchmarks/bench_memory.py on complete panels, 7 design terms (DEVELOPERS.md, "Limits"):
-# 100x100 0.90, 200x150 0.91, 400x150 0.92, 600x200 0.99, 1500x150 2.11 GB peak. The rater
-# pairs dominate (least squares: 0.85 GB + 1.11e-6 GB a pair); the runs are too small to
-# fix the row term, so it is set to match the one larger panel on record (issue 13: 3,000
-# raters x 300 cases, 930,000 rows, 7.7 GB), which makes the model overestimate the
-# 1500x150 run by a quarter (2.61 against 2.11 GB): on the safe side.
-BASE_GB = 0.85
-GB_PER_ROW_TERM = 2.5e-7
-GB_PER_RATER_PAIR = 1.11e-6
-SAFETY = 1.25  # the estimate is raised by a quarter: extrapolated beyond the runs measured
+# GB (binary: GiB, as /usr/bin/time and /proc/meminfo count) per term. Peaks measured
+# 2026-12-03 on the bench_scale.py panels (200 cases per rater, 15% repeats, 8 cues: 8
+# design terms), shared / linked design: 40 raters 0.39 / 0.41 GB, 400 raters 0.57 / 0.80,
+# 2,000 raters 2.81 / 2.95 (DEVELOPERS.md, "Limits"). The three terms cannot tell the two
+# designs apart (the same rows, raters and terms; the linked one has 100 times the cases),
+# so the estimate is set to cover both: of the coefficients that keep every measured peak
+# covered, with no estimate above 1.41 times its peak, these take the steepest pair term
+# (the term that grows fastest, so that panels beyond those measured stay on the safe
+# side). With the margin below, the estimates are 1.05 to 1.49 times the six peaks.
+BASE_GB = 0.53
+GB_PER_ROW_TERM = 2.0e-7
+GB_PER_RATER_PAIR = 1.3e-6
+SAFETY = 1.05  # a peak varies from run to run by a few per cent
 
 MACHINE_GB_FALLBACK = 24.0
 

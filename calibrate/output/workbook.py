@@ -17,6 +17,7 @@ import math
 import re
 import zipfile
 from collections.abc import Mapping
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -150,9 +151,9 @@ def workbook_bytes(tables: Mapping[str, pd.DataFrame], descriptions: Mapping[str
     row_limit : a table with more rows is left out (listed on the read-me sheet with a
         pointer to its CSV); None keeps every table.
 
-    The file is written here, part by part (an .xlsx is a zip of XML parts), one column
-    at a time: a general-purpose writer builds an object per cell, 11 s for the 800,000
-    cells of a 2,000-rater audit against well under a second here.
+    The file is written here, part by part (an .xlsx is a zip of XML parts), each row from
+    a template its columns make: a general-purpose writer builds an object per cell, 11 s
+    for the 800,000 cells of a 2,000-rater audit against well under a second here.
     """
     notes = dict(column_notes or {})
     tables, descriptions, left_out = leave_out_long_tables(tables, descriptions, row_limit=row_limit)
@@ -195,6 +196,17 @@ class _Styles:
 
     def __init__(self):
         self.index: dict[tuple, int] = {(False, False, None, False): 0}
+        self._text_ends: dict = {}
+
+    def text_end(self, raw) -> tuple[str, str]:
+        """A text cell's value (as :func:`_cell_value` makes it) and what follows its
+        reference's row number ('' for an empty cell), made once per distinct text."""
+        found = self._text_ends.get(raw)
+        if found is None:
+            text = _cell_value(raw)
+            end = _text_end(text, self)
+            found = self._text_ends[raw] = (text, f'"{end}' if end else "")
+        return found
 
     def of(self, *, bold: bool = False, quote: bool = False, number_format: str | None = None,
            wrap: bool = False) -> int:
@@ -293,79 +305,136 @@ def _readme_sheet_xml(tables, descriptions, notes, left_out, names, styles: _Sty
 
 
 def _table_sheet_xml(frame: pd.DataFrame, styles: _Styles) -> str:
-    """One table's sheet: a bold header, then each column's cells built column by column."""
+    """One table's sheet: a bold header, then the data rows (see :func:`_data_rows`)."""
     n = len(frame)
-    header, columns, widths = [], [], []
+    row_numbers = list(map(str, range(2, n + 2)))   # formatted once for every column
+    header, parts, widths = [], [], []
     for j, col in enumerate(frame.columns, start=1):
         letter = _column_letter(j)
         title = _cell_value(str(col))
         quote = title.startswith(FORMULA_START)
         header.append(_text_cell(f"{letter}1", title, styles.of(bold=True, quote=quote)) if title else "")
-        cells, longest = _column_cells(letter, frame[col], _number_format(str(col), frame[col]), styles)
-        columns.append(cells)
-        widths.append(min(max(max(len(str(col)), longest) + 2, 8), 60))
+        part = _column_part(letter, frame[col], _number_format(str(col), frame[col]), styles, row_numbers)
+        parts.append(part)
+        widths.append(min(max(max(len(str(col)), part.longest) + 2, 8), 60))
     rows = [f'<row r="1">{"".join(header)}</row>']
-    if n and columns:
-        rows += [f'<row r="{r}">{"".join(cells)}</row>' for r, cells in enumerate(zip(*columns), start=2)]
+    if n and parts:
+        rows += _data_rows(parts, row_numbers)
     elif n:
-        rows += [f'<row r="{r}"></row>' for r in range(2, n + 2)]
+        rows += [f'<row r="{r}"></row>' for r in row_numbers]
     return _sheet_xml(rows, n + 1, len(frame.columns), widths, autofilter=n > 0)
 
 
-def _column_cells(letter: str, values: pd.Series, number_format: str | None,
-                  styles: _Styles) -> tuple[list[str], int]:
-    """The cells of one column (rows 2, 3, ...; '' for an empty cell) and its longest entry.
+@dataclass(frozen=True)
+class _ColumnPart:
+    """One column of a sheet: ``cell`` is its cell as a ``str.format`` template (field 0 the
+    row number, field 1 the value), ``values`` the values in row order, ``present`` which
+    rows have a cell (None: every row)."""
 
-    Plain numeric and true/false columns are formatted in bulk; text columns once per
-    distinct value; anything else (mixed object columns) cell by cell, as the value says.
+    cell: str
+    values: list
+    present: np.ndarray | None
+    longest: int
+
+    def piece(self, index: int) -> str:
+        """The cell as field ``index`` of a row template (no other brace is in a cell)."""
+        return self.cell.replace("{1", f"{{{index}", 1)
+
+
+# A table whose rows fall into more patterns of empty cells than one in this many rows is
+# written cell by cell: a template per pattern would be made for a few rows each.
+_ROWS_PER_PATTERN = 8
+
+
+def _data_rows(parts: list[_ColumnPart], row_numbers: list[str]) -> list[str]:
+    """The data rows, each made by one ``str.format`` of a row template holding every
+    cell's reference and value (a number is formatted there, in C, not one string per
+    cell first: DEVELOPERS.md, "Speed at scale"). Rows with the same cells empty share a
+    template."""
+    values = [part.values for part in parts]
+    pieces = [part.piece(index) for index, part in enumerate(parts, start=1)]
+    if all(part.present is None for part in parts):
+        template = "".join(['<row r="{0}">', *pieces, "</row>"]).format
+        return list(map(template, row_numbers, *values))
+    present = np.ones((len(row_numbers), len(parts)), dtype=bool)
+    for j, part in enumerate(parts):
+        if part.present is not None:
+            present[:, j] = part.present
+    patterns, pattern_of_row = np.unique(np.packbits(present, axis=1), axis=0, return_inverse=True)
+    if len(patterns) * _ROWS_PER_PATTERN > len(row_numbers):
+        return _rows_cell_by_cell(parts, present, row_numbers)
+    templates = ["".join(['<row r="{0}">', *(p for p, kept in zip(pieces, row) if kept), "</row>"]).format
+                 for row in np.unpackbits(patterns, axis=1, count=len(parts)).astype(bool).tolist()]
+    return [templates[p](r, *cells) for p, r, cells in
+            zip(pattern_of_row.ravel().tolist(), row_numbers, zip(*values))]
+
+
+def _rows_cell_by_cell(parts: list[_ColumnPart], present: np.ndarray, row_numbers: list[str]) -> list[str]:
+    """The data rows with each cell formatted alone (for tables of many empty-cell patterns)."""
+    columns = []
+    for j, part in enumerate(parts):
+        cell = part.cell.format
+        columns.append([cell(r, v) if kept else "" for r, v, kept in
+                        zip(row_numbers, part.values, present[:, j].tolist())])
+    return [f'<row r="{r}">{"".join(cells)}</row>' for r, cells in zip(row_numbers, zip(*columns))]
+
+
+def _column_part(letter: str, values: pd.Series, number_format: str | None,
+                 styles: _Styles, row_numbers: list[str]) -> _ColumnPart:
+    """One column of a sheet, with its longest entry.
+
+    Plain numeric and true/false columns give their values as they are (the template
+    formats them); text columns a cell ending made once per distinct value (kept in
+    ``styles`` for the other sheets: the rater ids recur in every table); anything else
+    (mixed object columns) a whole cell per row, made as the value says.
     """
-    refs = [f'<c r="{letter}{r}"' for r in range(2, len(values) + 2)]
+    start = f'<c r="{letter}{{0}}'
     dtype = values.dtype
     if isinstance(dtype, np.dtype) and dtype.kind == "b":
-        return [f'{ref} t="b"><v>{int(v)}</v></c>' for ref, v in zip(refs, values.tolist())], 0
+        return _ColumnPart(f'{start}" t="b"><v>{{1:d}}</v></c>', values.tolist(), None, 0)
     if isinstance(dtype, np.dtype) and dtype.kind in "iu":
         data = values.to_numpy()
-        s = f' s="{styles.of(number_format="0")}"'
         longest = max(len(str(data.max())), len(str(data.min()))) if len(data) else 0
-        return [f"{ref}{s}><v>{v}</v></c>" for ref, v in zip(refs, data.tolist())], longest
+        return _ColumnPart(f'{start}" s="{styles.of(number_format="0")}"><v>{{1}}</v></c>',
+                           data.tolist(), None, longest)
     if isinstance(dtype, np.dtype) and dtype.kind == "f":
         data = values.to_numpy(dtype=float)
         finite = np.isfinite(data)
         style = styles.of(number_format=number_format) if number_format else 0
         s = f' s="{style}"' if style else ""
-        # "%.16g" is how numbers have always been written here (a whole number reads back as one)
-        cells = [f"{ref}{s}><v>{v:.16g}</v></c>" for ref, v in zip(refs, data.tolist())]
-        if not finite.all():
-            for i in np.flatnonzero(~finite).tolist():
-                cells[i] = ""
-        return cells, (9 if number_format and finite.any() else 0)
+        # ".16g" is how numbers have always been written here (a whole number reads back as one)
+        return _ColumnPart(f'{start}"{s}><v>{{1:.16g}}</v></c>', data.tolist(),
+                           None if finite.all() else finite, 9 if number_format and finite.any() else 0)
     objects = values.to_numpy(dtype=object)
     if pd.api.types.infer_dtype(objects, skipna=True) in ("string", "empty"):
         codes, uniques = pd.factorize(objects, use_na_sentinel=True)
-        texts = [_cell_value(u) for u in uniques.tolist()]
-        if not texts:
-            return [""] * len(values), 0
-        ends = np.array([_text_end(t, styles) for t in texts] + [""], dtype=object)
-        cells = [f"{ref}{end}" if end else "" for ref, end in zip(refs, ends[codes].tolist())]
-        used = np.zeros(len(texts), dtype=bool)
+        texts_ends = [styles.text_end(u) for u in uniques.tolist()]
+        ends = np.array([end for _text, end in texts_ends] + [""], dtype=object)
+        row_ends = ends[codes]
+        used = np.zeros(len(uniques), dtype=bool)
         used[codes[codes >= 0]] = True
-        return cells, max((len(t) for t, u in zip(texts, used) if u), default=0)
+        longest = max((len(t) for (t, _end), u in zip(texts_ends, used) if u), default=0)
+        present = row_ends != ""
+        return _ColumnPart(f"{start}{{1}}", row_ends.tolist(), None if present.all() else present,
+                           longest)
     cells, longest = [], 0
-    for ref, raw in zip(refs, objects.tolist()):
+    ref_start = f'<c r="{letter}'
+    for r, raw in zip(row_numbers, objects.tolist()):
+        ref = f"{ref_start}{r}"
         value = _cell_value(raw)
         if value is None or value == "":
             cells.append("")
         elif isinstance(value, bool):
-            cells.append(f'{ref} t="b"><v>{int(value)}</v></c>')
+            cells.append(f'{ref}" t="b"><v>{int(value)}</v></c>')
         elif isinstance(value, int):
-            cells.append(f'{ref} s="{styles.of(number_format="0")}"><v>{value}</v></c>')
+            cells.append(f'{ref}" s="{styles.of(number_format="0")}"><v>{value}</v></c>')
             longest = max(longest, len(str(value)))
         elif isinstance(value, float):
-            cells.append(f"{ref}><v>{value:.16g}</v></c>")
+            cells.append(f'{ref}"><v>{value:.16g}</v></c>')
         else:
-            cells.append(f"{ref}{_text_end(value, styles)}")
+            cells.append(f'{ref}"{_text_end(value, styles)}')
             longest = max(longest, len(value))
-    return cells, longest
+    return _ColumnPart("{1}", cells, None, longest)
 
 
 def _text_end(text: str, styles: _Styles) -> str:

@@ -31,3 +31,17 @@ def test_a_panel_over_the_memory_limit_is_refused_before_the_analysis(tmp_path):
     assert "GB of memory" in proc.stderr and "--memory-limit" in proc.stderr
     assert "Traceback" not in proc.stderr and "Audited" not in proc.stdout
     assert not (tmp_path / "o").exists()
+
+
+# Peaks of `calibrate audit --no-pdf` measured 2026-12-03 (/usr/bin/time -v, GiB) on the
+# benchmarks/bench_scale.py panels: (judgment rows, raters, design terms) -> peak.
+MEASURED_PEAKS = {
+    "shared 40": ((9_200, 40, 8), 0.387), "linked 40": ((9_200, 40, 8), 0.408),
+    "shared 400": ((92_000, 400, 8), 0.571), "linked 400": ((92_000, 400, 8), 0.799),
+    "shared 2,000": ((460_000, 2_000, 8), 2.811), "linked 2,000": ((460_000, 2_000, 8), 2.951),
+}
+
+
+def test_the_estimate_covers_every_measured_peak_within_half_again():
+    for name, (size, peak) in MEASURED_PEAKS.items():
+        assert peak <= estimated_gb(*size) <= 1.5 * peak, name
