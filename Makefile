@@ -29,7 +29,7 @@ demo: $(STAMP_RUN) demo_data/study.toml
 	@echo "Outputs are in reports/demo/ (results.json, tables/, audit.xlsx, reports)."
 
 test: $(STAMP_TEST)
-	$(BIN)/python -m pytest
+	$(BIN)/python -m pytest -n 2
 
 bench: $(STAMP_TEST)
 	for f in benchmarks/bench_*.py; do $(BIN)/python $$f || exit 1; done
