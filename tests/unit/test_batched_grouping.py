@@ -249,15 +249,11 @@ def test_recorded_runs_that_drop_dead_slots_make_the_same_merges():
     # The number-of-groups test and the resamples record their merges and drop dead
     # slots (compact=True); the merged pairs and their costs must be those of the run
     # that keeps every slot, the recorded RSS totals equal but for summation order.
-    from calibrate.panel.merges import agglomerate, batched_rss, stacked_sscp
-    from tests.unit.test_grouping_merges import random_panel
+    from calibrate.panel.merges import agglomerate
+    from tests.unit.test_grouping_merges import resampled_panel
 
     n_raters, p = 45, 4
-    Z, who, case = random_panel(31, n_raters, 150, p, share_seen=0.5)
-    rng = np.random.default_rng(9)
-    counts = rng.multinomial(150, np.full(150, 1.0 / 150), size=6).astype(float)
-    sscp, n = stacked_sscp(Z, who, n_raters, weights=counts[:, case])
-    active = np.isfinite(batched_rss(sscp, n, p)) & (n > p + 1)
+    sscp, n, active = resampled_panel(31, n_raters, p, count_seed=9, n_resamples=6)
     active[2, ::4] = False
     kept = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=False)
     dropped = agglomerate(sscp, n, active, p, stop_at=1, record=True, compact=True)

@@ -33,6 +33,16 @@ def random_panel(seed, n_raters, n_cases, p, *, n_policies=3, share_seen=0.7):
     return np.column_stack([X[case], y]), who, case
 
 
+
+def resampled_panel(seed, n_raters, p, *, count_seed, n_resamples, n_cases=150):
+    """Case resamples of a :func:`random_panel` (half the cases seen by each rater):
+    their stacked SSCPs, counts and the raters each can fit (enough cases, finite RSS)."""
+    Z, who, case = random_panel(seed, n_raters, n_cases, p, share_seen=0.5)
+    rng = np.random.default_rng(count_seed)
+    counts = rng.multinomial(n_cases, np.full(n_cases, 1.0 / n_cases), size=n_resamples).astype(float)
+    sscp, n = stacked_sscp(Z, who, n_raters, weights=counts[:, case])
+    return sscp, n, np.isfinite(batched_rss(sscp, n, p)) & (n > p + 1)
+
 def reference_greedy(Z, who, raters, p, weights=None):
     """Plain greedy grouping: at every step refit every pair of groups from raw rows.
 
@@ -145,11 +155,7 @@ def test_unrecorded_runs_drop_dead_slots_and_end_alike():
     # Without a record the engine drops dead groups' slots as it goes (40 raters, so
     # the slots are compacted several times); labels and last costs must not change.
     n_raters, p = 40, 4
-    Z, who, case = random_panel(21, n_raters, 150, p, share_seen=0.5)
-    rng = np.random.default_rng(8)
-    counts = rng.multinomial(150, np.full(150, 1.0 / 150), size=5).astype(float)
-    sscp, n = stacked_sscp(Z, who, n_raters, weights=counts[:, case])
-    active = np.isfinite(batched_rss(sscp, n, p)) & (n > p + 1)
+    sscp, n, active = resampled_panel(21, n_raters, p, count_seed=8, n_resamples=5)
     active[0, ::3] = False  # batches of unequal size: the smaller ones get padded
     for stop_at in (1, 3, 9):
         kept = agglomerate(sscp, n, active, p, stop_at=stop_at, record=True)
