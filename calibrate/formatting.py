@@ -35,3 +35,9 @@ def signed(value: float | None, digits: int = 2, *, end: bool = False) -> str:
         digits += 1
     out = f"{value:+.{digits}f}"
     return out[1:] if float(out) == 0 else out
+
+
+#: The short name a comparison metric is printed under (table headings, chart titles), shared
+#: by ``training/verdicts.py``'s sentences and the training report so the two never disagree.
+METRIC_LABELS = {"r": "R_s", "retest_r": "retest r", "misallocation": "misallocation", "g_rubric": "G rubric",
+                 "severity": "severity", "r_a": "r_a", "g": "G"}

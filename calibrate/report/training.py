@@ -17,7 +17,7 @@ from xml.sax.saxutils import escape
 from reportlab.lib.styles import ParagraphStyle
 from reportlab.platypus import CondPageBreak, PageBreak, Spacer, Table, TableStyle
 
-from ..formatting import signed
+from ..formatting import METRIC_LABELS as LABELS, signed
 from . import training_charts, wording
 from .comparison_view import ABSENT, ABSENT_REASON, ComparisonView, SeriesView
 from .layout import fitted_table
@@ -30,8 +30,6 @@ PRIVACY_NOTE = ("For the training coordinator: it names every rater with their o
                 "within those responsible for the training (each rater sees only their own change, in their "
                 "private report). Decisions about people follow the institution's own policies and the "
                 "applicable law, not these figures alone.")
-LABELS = {"r": "R_s", "retest_r": "retest r", "misallocation": "misallocation", "g_rubric": "G rubric",
-          "severity": "severity", "r_a": "r_a", "g": "G"}
 MEANINGS = {"r": "consistency", "retest_r": "test-retest agreement", "misallocation": "distance from the rubric",
             "g_rubric": "match with the rubric", "severity": "offset from the panel", "r_a": "accuracy against the outcome",
             "g": "match with the outcome's model"}

@@ -19,7 +19,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 
-from ..formatting import fmt, signed
+from ..formatting import METRIC_LABELS, fmt, signed
 
 # Which way is better for each metric; severity has none (it is relative to the panel), nor
 # has a cue's share (closer to the rubric may be up or down).
@@ -31,8 +31,6 @@ METRIC_WORDS = {"r": "consistency (R_s)", "retest_r": "test-retest agreement",
                 "misallocation": "closeness to the rubric's weights", "g_rubric": "match with the rubric (G)",
                 "severity": "severity offset", "r_a": "accuracy against the outcome (r_a)",
                 "g": "match with the outcome's model (G)"}
-METRIC_LABELS = {"r": "R_s", "retest_r": "retest r", "misallocation": "misallocation", "g_rubric": "G rubric",
-                 "severity": "severity", "r_a": "r_a", "g": "G"}
 
 
 def _finite(x) -> bool:
