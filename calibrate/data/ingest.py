@@ -582,59 +582,75 @@ def _taken(series: pd.Series, place: np.ndarray, index: pd.Index) -> pd.Series:
     return pd.Series(series.array.take(place, allow_fill=True), index=index, name=series.name)
 
 
-# The columns of the long table that the phase frames are made of
-_PHASE_COLUMNS = ["_rater", "_case", "_judgment", "_sequence", "_nth", "_shown", "_position", FILE, ROW]
-
-
 def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_terms: int,
                 out: Collector, mode: str = "first-two", row_of_code: np.ndarray | None = None) -> PhaseData:
     """Split one phase's judgments into first judgments, repeat pairs and reading order
     (and, with ``mode`` "all", every presentation of the repeated cases). ``row_of_code``:
-    the row of ``complete`` of each CASE_CODE, when the rows carry the codes."""
+    the row of ``complete`` of each CASE_CODE, when the rows carry the codes. Each frame is
+    built from the columns it needs, taken at the rows it needs (selecting the columns
+    first copied all of them, and taking the first judgments' rows took every column)."""
     if sub.empty:
         out.warn(f"phase '{name}' has no judgments", kind="empty_phase", phase=name)
     # ids as text once: the frames below share these arrays instead of each converting
     # the same object arrays again
-    coded = [c for c in (RATER_CODE, CASE_CODE) if c in sub.columns]
-    sub = sub[_PHASE_COLUMNS + coded].astype({"_rater": "str", "_case": "str"})   # no other column is carried
-    firsts = sub.loc[sub["_nth"] == 0]
-    case_mean = firsts["_judgment"].to_numpy(dtype=float)
+    rater, case = _text_array(sub["_rater"]), _text_array(sub["_case"])
+    at_first = np.flatnonzero(sub["_nth"].to_numpy() == 0)
+    judgment = sub["_judgment"].to_numpy(dtype=float)
+    sequence = sub["_sequence"].to_numpy(dtype=float)
+    case_mean = judgment[at_first]
     presentations = PhaseData.__dataclass_fields__["presentations"].default_factory()
     if mode == "all":
-        keys = ["_rater", "_case"]
-        means = sub.groupby(keys, sort=False)["_judgment"].mean()
-        case_mean = means.reindex(pd.MultiIndex.from_frame(firsts[keys])).to_numpy(dtype=float)
-        many = sub.loc[sub["_shown"] >= 2]
-        presentations = pd.DataFrame({
-            "rater": many["_rater"].array,
-            "case": many["_case"].array,
-            "nth": many["_nth"].to_numpy(dtype=int),
-            "judgment": many["_judgment"].to_numpy(dtype=float),
-        })
+        case_mean, presentations = _every_presentation(sub, rater, case, judgment, at_first)
     first = pd.DataFrame({
-        "rater": firsts["_rater"].array,
-        "case": firsts["_case"].array,
-        "judgment": firsts["_judgment"].to_numpy(dtype=float),
-        "sequence": firsts["_sequence"].to_numpy(dtype=float),
-        "file": _as_built_from_objects(firsts[FILE]),
-        "row": firsts[ROW].to_numpy(dtype=int),
-        "shown": firsts["_shown"].to_numpy(dtype=int),
+        "rater": rater[at_first],
+        "case": case[at_first],
+        "judgment": judgment[at_first],
+        "sequence": sequence[at_first],
+        "file": _as_built_from_objects(sub[FILE])[at_first],
+        "row": sub[ROW].to_numpy(dtype=int)[at_first],
+        "shown": sub["_shown"].to_numpy(dtype=int)[at_first],
         "case_mean": case_mean,
     })
+    firsts = pd.DataFrame({"_rater": first["rater"].array, "_case": first["case"].array,
+                           "_judgment": first["judgment"].to_numpy()})
     repeats = _repeat_pairs(sub, firsts)
     ordered = pd.DataFrame({
-        "rater": sub["_rater"].array,
-        "case": sub["_case"].array,
-        "judgment": sub["_judgment"].to_numpy(dtype=float),
+        "rater": rater,
+        "case": case,
+        "judgment": judgment,
         "position": sub["_position"].to_numpy(dtype=int),
-        "sequence": sub["_sequence"].to_numpy(dtype=float),
+        "sequence": sequence,
     })
-    case_rows = None if row_of_code is None else row_of_code[firsts[CASE_CODE].to_numpy()]
-    rater_codes = firsts[RATER_CODE].to_numpy() if RATER_CODE in firsts.columns else None
+    coded = RATER_CODE in sub.columns and row_of_code is not None
+    case_rows = row_of_code[sub[CASE_CODE].to_numpy()[at_first]] if coded else None
+    rater_codes = sub[RATER_CODE].to_numpy()[at_first] if coded else None
     fit_raters, too_few = too_few_cases(first, complete, n_terms, name, out, case_rows, rater_codes)
     return PhaseData(name=name, first=first, repeats=repeats, ordered=ordered,
                      fit_raters=fit_raters, too_few=too_few, presentations=presentations,
                      repeat_mode=mode)
+
+
+def _text_array(ids: pd.Series):
+    """The ids as pandas' text array (``astype("str")``, which leaves text as it is)."""
+    return (ids if ids.dtype == _DEFAULT_TEXT else ids.astype("str")).array
+
+
+def _every_presentation(sub: pd.DataFrame, rater, case, judgment: np.ndarray,
+                        at_first: np.ndarray) -> tuple[np.ndarray, pd.DataFrame]:
+    """With ``[judgment] repeats = "all"``: each first judgment's mean over every presentation
+    of its case (in the first judgments' order), and every presentation of the cases shown
+    more than once."""
+    ids = pd.DataFrame({"_rater": rater, "_case": case, "_judgment": judgment})
+    keys = ["_rater", "_case"]
+    means = ids.groupby(keys, sort=False)["_judgment"].mean()
+    case_mean = means.reindex(pd.MultiIndex.from_frame(ids.iloc[at_first][keys])).to_numpy(dtype=float)
+    many = np.flatnonzero(sub["_shown"].to_numpy() >= 2)
+    return case_mean, pd.DataFrame({
+        "rater": rater[many],
+        "case": case[many],
+        "nth": sub["_nth"].to_numpy(dtype=int)[many],
+        "judgment": judgment[many],
+    })
 
 
 def _as_built_from_objects(column: pd.Series):
