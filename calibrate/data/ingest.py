@@ -594,7 +594,8 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
     # ids as text once: the frames below share these arrays instead of each converting
     # the same object arrays again
     rater, case = _text_array(sub["_rater"]), _text_array(sub["_case"])
-    at_first = np.flatnonzero(sub["_nth"].to_numpy() == 0)
+    is_first = sub["_nth"].to_numpy() == 0
+    at_first = np.flatnonzero(is_first)   # numbers are taken by place, text by mask (quicker each)
     judgment = sub["_judgment"].to_numpy(dtype=float)
     sequence = sub["_sequence"].to_numpy(dtype=float)
     case_mean = judgment[at_first]
@@ -602,11 +603,11 @@ def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_term
     if mode == "all":
         case_mean, presentations = _every_presentation(sub, rater, case, judgment, at_first)
     first = pd.DataFrame({
-        "rater": rater[at_first],
-        "case": case[at_first],
+        "rater": rater[is_first],
+        "case": case[is_first],
         "judgment": judgment[at_first],
         "sequence": sequence[at_first],
-        "file": _as_built_from_objects(sub[FILE])[at_first],
+        "file": _as_built_from_objects(sub[FILE])[is_first],
         "row": sub[ROW].to_numpy(dtype=int)[at_first],
         "shown": sub["_shown"].to_numpy(dtype=int)[at_first],
         "case_mean": case_mean,

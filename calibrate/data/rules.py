@@ -683,15 +683,18 @@ def cases_by_id(cases_df: pd.DataFrame, spec: StudySpec, out: Collector) -> pd.D
     case_level = case_level_columns(spec)
     cases_df = cases_df.copy(deep=False)
     split = _distinct_cells(cases_df[ccol])
-    if split is None or not _plain_ids(split[1]):
+    plain = split is not None and _plain_ids(split[1], len(cases_df))
+    if not plain:
         cases_df[ccol] = map_distinct(cases_df[ccol], as_id)
     empty = cases_df[ccol].isna()
     if empty.any():
         out.error(f"the case id is empty in rows {rows_text(cases_df.loc[empty, ROW].tolist())}",
                   file=spec.cases.name, column=ccol)
-    cases_df = cases_df.loc[~empty]
-    dup_ids = cases_df[ccol].duplicated(keep=False)
-    if dup_ids.any():
+        cases_df = cases_df.loc[~empty]
+    # plain ids are their own distinct cells: as many as the rows, none is listed twice
+    all_distinct = plain and len(split[1]) == len(cases_df)
+    dup_ids = cases_df[ccol].duplicated(keep=False) if not all_distinct else None
+    if dup_ids is not None and dup_ids.any():
         keep_cols = [c for c in cases_df.columns if c in case_level]
         if any(cases_df[c].dtype.kind == "f" for c in keep_cols):
             raise TextNeeded("a case listed twice: its values are compared as written")
