@@ -166,10 +166,15 @@ def _csv_text(path: Path) -> tuple[bytes, str]:
     return raw, text
 
 
+def _blank(text: str) -> bool:
+    """``not text.strip()`` without copying the text (11 MB for 460,000 rows)."""
+    return not text or text.isspace()
+
+
 def _read_csv(path: Path) -> pd.DataFrame:
     """Every cell as text with the header as the first row; only empty cells are missing."""
     raw, text = _csv_text(path)
-    if not text.strip():
+    if _blank(text):
         raise _unreadable(path, "the file is empty; it needs a header row and rows of data")
     try:
         # parsed from the bytes (checked as UTF-8 above): the parser reads them directly,
@@ -228,7 +233,7 @@ def _read_csv_typed(path: Path, numbers: tuple[str, ...]) -> pd.DataFrame | None
     as text. Nothing here records a problem: the rules see the same cells either way.
     """
     raw, text = _csv_text(path)
-    if not text.strip() or len(raw) < TYPED_FROM_BYTES:
+    if _blank(text) or len(raw) < TYPED_FROM_BYTES:
         return None
     options = _csv_options(text, raw)
     try:
