@@ -13,6 +13,7 @@ row 1 and the first data row is row 2.
 from __future__ import annotations
 
 import csv
+import hashlib
 import io
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -45,8 +46,12 @@ from .rules import (
     check_trained,
     drop_duplicates,
     excluded_types,
-    index_cases_table,
+    CASE_CODE,
+    RATER_CODE,
+    cases_by_id,
+    check_judged_listed,
     mark_repeats,
+    natural_order,
     natural_sorted,
     TextNeeded,
     positions_in,
@@ -161,20 +166,25 @@ def _csv_text(path: Path) -> tuple[bytes, str]:
     return raw, text
 
 
+def _blank(text: str) -> bool:
+    """``not text.strip()`` without copying the text (11 MB for 460,000 rows)."""
+    return not text or text.isspace()
+
+
 def _read_csv(path: Path) -> pd.DataFrame:
     """Every cell as text with the header as the first row; only empty cells are missing."""
     raw, text = _csv_text(path)
-    if not text.strip():
+    if _blank(text):
         raise _unreadable(path, "the file is empty; it needs a header row and rows of data")
     try:
         # parsed from the bytes (checked as UTF-8 above): the parser reads them directly,
         # where text would be encoded again on the way in
-        return pd.read_csv(io.BytesIO(raw), dtype=str, header=None, **_csv_options(text))
+        return pd.read_csv(io.BytesIO(raw), dtype=str, header=None, **_csv_options(text, raw))
     except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError) as exc:
         raise _unreadable(path, str(exc).strip()) from None
 
 
-def _csv_options(text: str) -> dict:
+def _csv_options(text: str, raw: bytes) -> dict:
     """The parser's options for this file: the delimiter sniffed from its first 64 KB (a comma
     when the sniffer cannot tell); only empty cells missing; spaces after a delimiter skipped."""
     try:
@@ -182,7 +192,25 @@ def _csv_options(text: str) -> dict:
     except csv.Error:
         sep = ","
     return {"encoding": "utf-8-sig", "sep": sep, "keep_default_na": False, "na_values": [""],
-            "skipinitialspace": True, "skip_blank_lines": True}
+            "skipinitialspace": _space_opens_a_field(raw, sep), "skip_blank_lines": True}
+
+
+def _space_opens_a_field(raw: bytes, sep: str) -> bool:
+    """Whether a space opens a cell (first in the file, or after a delimiter or a line break):
+    only then has the parser a space to skip (it skips spaces, not tabs: checked). Asking it
+    to skip took 0.04 s of a 0.09 s parse of 460,000 rows (measured); a file without such a
+    space reads the same cells either way."""
+    if b" " not in raw:
+        return False
+    body = np.frombuffer(raw, dtype=np.uint8)[len(UTF8_BOM) if raw.startswith(UTF8_BOM) else 0:]
+    spaces = np.flatnonzero(body == ord(" "))
+    if spaces.size and spaces[0] == 0:
+        return True
+    before = body[spaces[spaces > 0] - 1]
+    return bool(np.isin(before, np.frombuffer((sep + "\n\r").encode(), dtype=np.uint8)).any())
+
+
+UTF8_BOM = b"\xef\xbb\xbf"
 
 
 # An integer column is taken as numbers only below 2**53, where every integer is a float
@@ -200,37 +228,64 @@ def _read_csv_typed(path: Path, numbers: tuple[str, ...]) -> pd.DataFrame | None
     A column of ``numbers`` whose every cell is a number (or empty) comes back as float64:
     those cells convert to the floats :func:`rules.to_numbers` gives their text. Any other
     column, and a numbers column holding a word, comes back as the text reader's text: the
-    parser's guess is kept for a column guessed as text, else the column is read again as
-    text. Nothing here records a problem: the rules see the same cells either way.
+    parser's guess is kept for a column guessed as text; a column the first rows show to be
+    numbers is read as text in the same pass, and any other the guess got wrong is read again
+    as text. Nothing here records a problem: the rules see the same cells either way.
     """
     raw, text = _csv_text(path)
-    if not text.strip() or len(raw) < TYPED_FROM_BYTES:
+    if _blank(text) or len(raw) < TYPED_FROM_BYTES:
         return None
-    options = _csv_options(text)
+    options = _csv_options(text, raw)
     try:
         header = pd.read_csv(io.BytesIO(raw), dtype=str, header=None, nrows=1, **options)
         names = _header_names(path, header)
         # header=0: the first row read as the header and replaced by the names just checked
-        guessed = pd.read_csv(io.BytesIO(raw), header=0, **options)
+        first_rows = pd.read_csv(io.BytesIO(raw), header=0, nrows=GUESSED_FROM_ROWS, **options)
+        as_text = _text_in_one_pass(first_rows, names, numbers)
+        guessed = pd.read_csv(io.BytesIO(raw), header=0, dtype=dict.fromkeys(as_text, str), **options)
     except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError, DataError):
         return None
     if not isinstance(guessed.index, pd.RangeIndex) or guessed.shape[1] != len(names):
         return None   # a first data row longer than the header: the text reader names it
     guessed.columns = names
-    as_text = [i for i, name in enumerate(names) if not _typed_as_wanted(guessed[name], name in numbers)]
-    if as_text:
-        try:
-            again = pd.read_csv(io.BytesIO(raw), dtype=str, header=None, usecols=as_text, **options)
-        except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError):
-            return None
-        if len(again) != len(guessed) + 1:
-            return None
-        for i in as_text:
-            guessed[names[i]] = again[i].iloc[1:].reset_index(drop=True)
+    again = [i for i, name in enumerate(names) if not _typed_as_wanted(guessed[name], name in numbers)]
+    if again and not _read_again_as_text(raw, options, guessed, again):
+        return None
     for name in numbers:
         if name in guessed.columns and guessed[name].dtype.kind == "i":
             guessed[name] = guessed[name].astype(float)
+    guessed.attrs["sha256"] = hashlib.sha256(raw).hexdigest()
     return guessed
+
+
+# The rows whose guessed types say which columns to read as text in the one pass. Asking
+# for text costs the parser more than its own guess of text (about 0.17 us a cell against
+# next to nothing for the ids of the bench panels, measured), so only columns the first
+# rows show to be numbers are asked for.
+GUESSED_FROM_ROWS = 100
+
+
+def _text_in_one_pass(first_rows: pd.DataFrame, names: list[str], numbers: tuple[str, ...]) -> list[int]:
+    """The places of the columns outside ``numbers`` that the parser guesses as numbers in
+    the first rows: read as text in the main pass instead of being read twice."""
+    if first_rows.shape[1] != len(names):
+        return []
+    return [i for i, name in enumerate(names) if name not in numbers
+            and not isinstance(first_rows.iloc[:, i].dtype, pd.StringDtype)]
+
+
+def _read_again_as_text(raw: bytes, options: dict, guessed: pd.DataFrame, places: list[int]) -> bool:
+    """Put the text reader's text in the columns at ``places`` of ``guessed``; False when the
+    second read does not line up with the first."""
+    try:
+        again = pd.read_csv(io.BytesIO(raw), dtype=str, header=None, usecols=places, **options)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError, csv.Error, ValueError):
+        return False
+    if len(again) != len(guessed) + 1:
+        return False
+    for i in places:
+        guessed[guessed.columns[i]] = again[i].iloc[1:].reset_index(drop=True)
+    return True
 
 
 def _typed_as_wanted(column: pd.Series, number: bool) -> bool:
@@ -437,7 +492,7 @@ def _read_sources(spec: StudySpec, out: Collector, given: GivenTables | None = N
         if df is None:
             continue
         inputs.append({"path": source.path.name,
-                       "sha256": grid_sha256(grid) if grid is not None else sha256_of(source.path)})
+                       "sha256": grid_sha256(grid) if grid is not None else _file_sha256(df, source.path)})
         df[FILE] = source.path.name
         df.attrs["file"] = source.path.name
         if source.phase is not None:
@@ -451,8 +506,13 @@ def _read_sources(spec: StudySpec, out: Collector, given: GivenTables | None = N
     elif spec.cases is not None:
         cases_df = _read_one(spec.cases, "cases table", "cases", out, case_numbers)
         if cases_df is not None:
-            inputs.append({"path": spec.cases.name, "sha256": sha256_of(spec.cases)})
+            inputs.append({"path": spec.cases.name, "sha256": _file_sha256(cases_df, spec.cases)})
     return frames, cases_df, inputs
+
+
+def _file_sha256(df: pd.DataFrame, path: Path) -> str:
+    """The file's fingerprint: the one its reader took of the bytes it parsed, else read again."""
+    return df.attrs.pop("sha256", None) or sha256_of(path)
 
 
 def _stack(frames: list[pd.DataFrame], columns: dict[str, str]) -> pd.DataFrame:
@@ -466,18 +526,26 @@ def _stack(frames: list[pd.DataFrame], columns: dict[str, str]) -> pd.DataFrame:
 
 
 def _case_table(spec: StudySpec, data: pd.DataFrame, cases_df: pd.DataFrame | None,
-                out: Collector) -> tuple[pd.DataFrame, pd.Series, str | None]:
+                out: Collector) -> tuple[pd.DataFrame, pd.Series, str | None, np.ndarray | None]:
     """The per-case values, from the cases table, else from the judgment rows.
 
     Returns (cases indexed by the judged case ids, spreadsheet row of each case, the
-    cases table's file name, or the judgments file of each case's first row).
+    cases table's file name, or the judgments file of each case's first row, and for
+    each CASE_CODE its case's row of the cases returned: None when the rows carry no codes).
     """
     ccol = spec.columns["case"]
-    judged = pd.Series(data[ccol].unique())   # in order of appearance, missing ids included
-    cases_index = None if cases_df is None else index_cases_table(cases_df, data, spec, out, judged)
-    used_cases = pd.Index(natural_sorted(judged.dropna()), name="case")
+    judged, judged_codes = _judged_cases(data, ccol)   # in order of appearance, missing ids included
+    cases_index = None if cases_df is None else cases_by_id(cases_df, spec, out)
+    judged_place = None if cases_index is None else check_judged_listed(cases_index, judged, spec, out)
+    present = judged.notna().to_numpy()
+    order = natural_order(judged[present])
+    used_cases = _case_index(judged[present].iloc[order])
+    row_of_code = None
+    if judged_codes is not None:
+        row_of_code = np.full(int(judged_codes.max(initial=-1)) + 1, -1, dtype=np.intp)
+        row_of_code[judged_codes[present][order]] = np.arange(len(used_cases))
     # the cases table's row of each judged case, found once (not one reindex per column)
-    place = None if cases_index is None else positions_in(cases_index.index, used_cases)
+    place = None if cases_index is None else judged_place[present][order]
     cases = pd.DataFrame(index=used_cases)
     for col in case_level_columns(spec):
         if place is not None and col in cases_index.columns:
@@ -486,9 +554,31 @@ def _case_table(spec: StudySpec, data: pd.DataFrame, cases_df: pd.DataFrame | No
             values = case_value_from_rows(data, col, ccol, out)
             cases[col] = _taken(values, positions_in(values.index, used_cases), used_cases)
     if place is not None:
-        return cases, _taken(cases_index[ROW], place, used_cases), spec.cases.name
+        return cases, _taken(cases_index[ROW], place, used_cases), spec.cases.name, row_of_code
     first_rows = data.drop_duplicates(ccol).set_index(ccol)
-    return cases, first_rows[ROW].reindex(used_cases), first_rows[FILE]
+    return cases, first_rows[ROW].reindex(used_cases), first_rows[FILE], row_of_code
+
+
+def _judged_cases(data: pd.DataFrame, ccol: str) -> tuple[pd.Series, np.ndarray | None]:
+    """The distinct case ids of the judgments in order of appearance (a missing id once, as
+    ``unique`` gives it) and their CASE_CODE (None when the rows carry no codes): the codes,
+    integers, are what is hashed."""
+    if CASE_CODE not in data.columns:
+        return pd.Series(data[ccol].unique()), None
+    codes = data[CASE_CODE].to_numpy()
+    first_rows = np.flatnonzero(~pd.Series(codes).duplicated().to_numpy())
+    return data[ccol].iloc[first_rows].reset_index(drop=True).rename(None), codes[first_rows]
+
+
+_DEFAULT_TEXT = pd.Index(["text"]).dtype   # the dtype pandas gives a list of text
+
+
+def _case_index(ids: pd.Series) -> pd.Index:
+    """The cases' index: as ``pd.Index(list of ids)`` makes it, the ids' text taken as it is
+    when they are text already."""
+    if ids.dtype == _DEFAULT_TEXT:
+        return pd.Index(ids.array, name="case")
+    return pd.Index(ids.tolist(), name="case")
 
 
 def _taken(series: pd.Series, place: np.ndarray, index: pd.Index) -> pd.Series:
@@ -497,75 +587,124 @@ def _taken(series: pd.Series, place: np.ndarray, index: pd.Index) -> pd.Series:
     return pd.Series(series.array.take(place, allow_fill=True), index=index, name=series.name)
 
 
-# The columns of the long table that the phase frames are made of
-_PHASE_COLUMNS = ["_rater", "_case", "_judgment", "_sequence", "_nth", "_shown", "_position", FILE, ROW]
-
-
 def _phase_data(name: str | None, sub: pd.DataFrame, complete: pd.Series, n_terms: int,
-                out: Collector, mode: str = "first-two") -> PhaseData:
+                out: Collector, mode: str = "first-two", row_of_code: np.ndarray | None = None) -> PhaseData:
     """Split one phase's judgments into first judgments, repeat pairs and reading order
-    (and, with ``mode`` "all", every presentation of the repeated cases)."""
+    (and, with ``mode`` "all", every presentation of the repeated cases). ``row_of_code``:
+    the row of ``complete`` of each CASE_CODE, when the rows carry the codes. Each frame is
+    built from the columns it needs, taken at the rows it needs (selecting the columns
+    first copied all of them, and taking the first judgments' rows took every column)."""
     if sub.empty:
         out.warn(f"phase '{name}' has no judgments", kind="empty_phase", phase=name)
     # ids as text once: the frames below share these arrays instead of each converting
     # the same object arrays again
-    sub = sub[_PHASE_COLUMNS].astype({"_rater": "str", "_case": "str"})   # no other column is carried
-    firsts = sub.loc[sub["_nth"] == 0]
-    case_mean = firsts["_judgment"].to_numpy(dtype=float)
+    rater, case = _text_array(sub["_rater"]), _text_array(sub["_case"])
+    is_first = sub["_nth"].to_numpy() == 0
+    at_first = np.flatnonzero(is_first)   # numbers are taken by place, text by mask (quicker each)
+    judgment = sub["_judgment"].to_numpy(dtype=float)
+    sequence = sub["_sequence"].to_numpy(dtype=float)
+    case_mean = judgment[at_first]
     presentations = PhaseData.__dataclass_fields__["presentations"].default_factory()
     if mode == "all":
-        keys = ["_rater", "_case"]
-        means = sub.groupby(keys, sort=False)["_judgment"].mean()
-        case_mean = means.reindex(pd.MultiIndex.from_frame(firsts[keys])).to_numpy(dtype=float)
-        many = sub.loc[sub["_shown"] >= 2]
-        presentations = pd.DataFrame({
-            "rater": many["_rater"].array,
-            "case": many["_case"].array,
-            "nth": many["_nth"].to_numpy(dtype=int),
-            "judgment": many["_judgment"].to_numpy(dtype=float),
-        })
+        case_mean, presentations = _every_presentation(sub, rater, case, judgment, at_first)
     first = pd.DataFrame({
-        "rater": firsts["_rater"].array,
-        "case": firsts["_case"].array,
-        "judgment": firsts["_judgment"].to_numpy(dtype=float),
-        "sequence": firsts["_sequence"].to_numpy(dtype=float),
-        "file": firsts[FILE].to_numpy(),
-        "row": firsts[ROW].to_numpy(dtype=int),
-        "shown": firsts["_shown"].to_numpy(dtype=int),
+        "rater": rater[is_first],
+        "case": case[is_first],
+        "judgment": judgment[at_first],
+        "sequence": sequence[at_first],
+        "file": _as_built_from_objects(sub[FILE])[is_first],
+        "row": sub[ROW].to_numpy(dtype=int)[at_first],
+        "shown": sub["_shown"].to_numpy(dtype=int)[at_first],
         "case_mean": case_mean,
     })
+    firsts = pd.DataFrame({"_rater": first["rater"].array, "_case": first["case"].array,
+                           "_judgment": first["judgment"].to_numpy()})
     repeats = _repeat_pairs(sub, firsts)
     ordered = pd.DataFrame({
-        "rater": sub["_rater"].array,
-        "case": sub["_case"].array,
-        "judgment": sub["_judgment"].to_numpy(dtype=float),
+        "rater": rater,
+        "case": case,
+        "judgment": judgment,
         "position": sub["_position"].to_numpy(dtype=int),
-        "sequence": sub["_sequence"].to_numpy(dtype=float),
+        "sequence": sequence,
     })
-    fit_raters, too_few = too_few_cases(first, complete, n_terms, name, out)
+    coded = RATER_CODE in sub.columns and row_of_code is not None
+    case_rows = row_of_code[sub[CASE_CODE].to_numpy()[at_first]] if coded else None
+    rater_codes = sub[RATER_CODE].to_numpy()[at_first] if coded else None
+    fit_raters, too_few = too_few_cases(first, complete, n_terms, name, out, case_rows, rater_codes)
     return PhaseData(name=name, first=first, repeats=repeats, ordered=ordered,
                      fit_raters=fit_raters, too_few=too_few, presentations=presentations,
                      repeat_mode=mode)
 
 
+def _text_array(ids: pd.Series):
+    """The ids as pandas' text array (``astype("str")``, which leaves text as it is)."""
+    return (ids if ids.dtype == _DEFAULT_TEXT else ids.astype("str")).array
+
+
+def _every_presentation(sub: pd.DataFrame, rater, case, judgment: np.ndarray,
+                        at_first: np.ndarray) -> tuple[np.ndarray, pd.DataFrame]:
+    """With ``[judgment] repeats = "all"``: each first judgment's mean over every presentation
+    of its case (in the first judgments' order), and every presentation of the cases shown
+    more than once."""
+    ids = pd.DataFrame({"_rater": rater, "_case": case, "_judgment": judgment})
+    keys = ["_rater", "_case"]
+    means = ids.groupby(keys, sort=False)["_judgment"].mean()
+    case_mean = means.reindex(pd.MultiIndex.from_frame(ids.iloc[at_first][keys])).to_numpy(dtype=float)
+    many = np.flatnonzero(sub["_shown"].to_numpy() >= 2)
+    return case_mean, pd.DataFrame({
+        "rater": rater[many],
+        "case": case[many],
+        "nth": sub["_nth"].to_numpy(dtype=int)[many],
+        "judgment": judgment[many],
+    })
+
+
+def _as_built_from_objects(column: pd.Series):
+    """What a frame built from ``column.to_numpy()`` holds: the text array itself when it is
+    the text pandas would make of those objects (converting 400,000 file names to objects
+    and back cost 0.05 s)."""
+    return column.array if column.dtype == _DEFAULT_TEXT else column.to_numpy()
+
+
 def _repeat_pairs(sub: pd.DataFrame, firsts: pd.DataFrame) -> pd.DataFrame:
-    """Each first judgment that has a second (``_nth`` 1) beside it, in the first judgments'
-    order: the inner join on rater and case, found on integer codes (each pair is unique)."""
+    """Each first judgment (``firsts``, the rows of ``sub`` with ``_nth`` 0) that has a second
+    (``_nth`` 1) beside it, in the first judgments' order: the inner join on rater and case,
+    found on integer codes (each pair is unique)."""
     nth = sub["_nth"].to_numpy()
-    rater = pd.factorize(sub["_rater"], use_na_sentinel=False)[0].astype(np.int64)
-    case = pd.factorize(sub["_case"], use_na_sentinel=False)[0].astype(np.int64)
-    key = rater * (int(case.max(initial=0)) + 1) + case
-    first_keys, second_keys = key[nth == 0], key[nth == 1]
-    by_key = np.argsort(second_keys, kind="stable")
-    place = np.minimum(np.searchsorted(second_keys[by_key], first_keys), max(len(second_keys) - 1, 0))
-    matched = (second_keys[by_key][place] == first_keys) if len(second_keys) else np.zeros(len(first_keys), bool)
-    second = sub["_judgment"].to_numpy(dtype=float)[nth == 1][by_key[place[matched]]]
+    judgment = sub["_judgment"].to_numpy(dtype=float)
+    if RATER_CODE in sub.columns and CASE_CODE in sub.columns:
+        matched, second = _seconds_of_shown_again(sub)
+    else:
+        rater = pd.factorize(sub["_rater"], use_na_sentinel=False)[0].astype(np.int64)
+        case = pd.factorize(sub["_case"], use_na_sentinel=False)[0].astype(np.int64)
+        key = rater * (int(case.max(initial=0)) + 1) + case
+        first_keys, second_keys = key[nth == 0], key[nth == 1]
+        by_key = np.argsort(second_keys, kind="stable")
+        place = np.minimum(np.searchsorted(second_keys[by_key], first_keys), max(len(second_keys) - 1, 0))
+        matched = (second_keys[by_key][place] == first_keys) if len(second_keys) else np.zeros(len(first_keys), bool)
+        second = judgment[nth == 1][by_key[place[matched]]]
     return pd.DataFrame({
         "rater": firsts["_rater"].array[matched],
         "case": firsts["_case"].array[matched],
         "first": firsts["_judgment"].to_numpy(dtype=float)[matched],
         "second": second,
     })
+
+
+def _seconds_of_shown_again(sub: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """For rows marked by :func:`mark_repeats` and carrying the id codes: which first
+    judgments have a second (their case was shown the rater twice or more, ``_shown``), and
+    those seconds' judgments in the firsts' order. Only the repeated cases' two first rows
+    are sorted, by rater and case; each such pair then lies side by side, first before second
+    (the rows are in reading order)."""
+    nth, shown = sub["_nth"].to_numpy(), sub["_shown"].to_numpy()
+    rater, case = sub[RATER_CODE].to_numpy(), sub[CASE_CODE].to_numpy()
+    rows = np.flatnonzero((shown >= 2) & (nth <= 1))
+    key = rater[rows] * (int(case.max(initial=0)) + 1) + case[rows]
+    paired = rows[np.argsort(key, kind="stable")]
+    first_rows, second_rows = paired[0::2], paired[1::2]
+    second = sub["_judgment"].to_numpy(dtype=float)[second_rows[np.argsort(first_rows)]]
+    return shown[nth == 0] >= 2, second
 
 
 def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None,
@@ -586,9 +725,9 @@ def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None,
         return None
 
     data = _stack(frames, cols)
-    data = check_ids(data, cols, out)
+    data = check_ids(data, cols, out, with_codes=True)
     data = check_phases(data, spec, out)
-    data = drop_duplicates(data, out)
+    data = drop_duplicates(data, out, (cols["rater"], cols["case"]))
     data = check_judgments(data, spec, out)
     if data.empty and not out.errors:
         out.error("no row has a judgment; fill in the judgment column "
@@ -598,7 +737,7 @@ def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None,
 
     if not spec.cues:
         out.warn(NO_CUES_NOTE, kind="no_cues")
-    cases, row_of_case, case_file = _case_table(spec, data, cases_df, out)
+    cases, row_of_case, case_file, row_of_code = _case_table(spec, data, cases_df, out)
     cases = check_numeric_cues(cases, spec.cues, row_of_case, case_file, out,
                                spec.numeric_missing_words)
     cases = blank_categorical_missing(cases, [c.name for c in spec.cues if c.kind == "categorical"],
@@ -619,13 +758,14 @@ def _build(spec: StudySpec, out: Collector, given: GivenTables | None = None,
     data = data.rename(columns={cols["rater"]: "_rater", cols["case"]: "_case"})
     data = mark_repeats(data, out, spec.judgment.repeats)
     mode = data.attrs.get("repeats", "first-two")
-    check_trained(set(data["_rater"].unique()), spec.trained, out)
+    if spec.trained is not None:   # the raters' distinct ids are only needed then
+        check_trained(set(data["_rater"].unique()), spec.trained, out)
     if out.errors:
         return None
 
     phase_names: list[str | None] = list(spec.phase_order) if spec.phase_order else [None]
     phases = tuple(_phase_data(name, data if name is None else data.loc[data[PHASE] == name],
-                               complete, design.n_columns, out, mode) for name in phase_names)
+                               complete, design.n_columns, out, mode, row_of_code) for name in phase_names)
     cases, types = excluded_types(cases, spec.excluded, spec.numeric_missing_words,
                                   spec.categorical_missing_words)
     return JudgmentTable(spec=spec, cases=cases, design=design, phases=phases,

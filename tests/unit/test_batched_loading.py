@@ -171,3 +171,58 @@ def test_repeat_pairs_equal_the_merge(seed):
     pd.testing.assert_frame_equal(_repeat_pairs(marked, firsts), expected)
     none = marked.loc[marked["_nth"] == 0]
     assert _repeat_pairs(none, none).empty
+
+
+def _with_codes(frame: pd.DataFrame) -> pd.DataFrame:
+    """The rows as the door carries them: the id check's integer codes added."""
+    ids = {"rater": "rater", "case": "case"}
+    named = frame.rename(columns={"_rater": "rater", "_case": "case"})
+    return check_ids(named, ids, Collector(), with_codes=True).rename(columns={"rater": "_rater", "case": "_case"})
+
+
+@pytest.mark.parametrize("seed", range(12))
+@pytest.mark.parametrize("mode", ["first-two", "all", None])
+def test_rules_on_carried_codes_equal_the_rules_without(seed, mode):
+    """The door's rows carry RATER_CODE, CASE_CODE and PAIR_CODE from the id check; the
+    repeats, the repeat pairs and the usable-case count made from them equal the ones the
+    rules compute from the ids themselves."""
+    from calibrate.data.ingest import _repeat_pairs
+    from calibrate.data.rules import CASE_CODE, PAIR_CODE, RATER_CODE, natural_sorted, positions_in
+
+    frame = judgments(seed, phases=seed % 2 == 0, sequence=seed % 3 != 0)
+    plain_out, coded_out = Collector(), Collector()
+    plain = mark_repeats(frame, plain_out, mode)
+    carried = mark_repeats(_with_codes(frame), coded_out, mode)
+    pd.testing.assert_frame_equal(carried.drop(columns=[RATER_CODE, CASE_CODE, PAIR_CODE]), plain)
+    assert carried.attrs == plain.attrs and coded_out.items == plain_out.items
+    for marked in (plain, carried):
+        marked["_judgment"] = marked["score"]
+    # each phase alone, as the door splits them (a phase column needs [phases] order)
+    for name in (["before", "after"] if seed % 2 == 0 else [None]):
+        rows = {k: m if name is None else m.loc[m[PHASE] == name] for k, m in (("plain", plain), ("coded", carried))}
+        pd.testing.assert_frame_equal(_repeat_pairs(rows["coded"], rows["coded"].loc[rows["coded"]["_nth"] == 0]),
+                                      _repeat_pairs(rows["plain"], rows["plain"].loc[rows["plain"]["_nth"] == 0]))
+    firsts = carried.loc[carried["_nth"] == 0]
+    first = pd.DataFrame({"rater": firsts["_rater"].array, "case": firsts["_case"].array})
+    cases = natural_sorted(first["case"].unique())
+    complete = pd.Series(np.random.default_rng(seed).random(len(cases)) < 0.7, index=pd.Index(cases))
+    plain_out, coded_out = Collector(), Collector()
+    expected = too_few_cases(first, complete, 1, None, plain_out)
+    got = too_few_cases(first, complete, 1, None, coded_out, positions_in(complete.index, first["case"]),
+                        firsts[RATER_CODE].to_numpy())
+    assert got == expected and coded_out.items == plain_out.items
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_duplicates_found_within_pairs_equal_every_row_compared(seed):
+    from calibrate.data.rules import CASE_CODE, PAIR_CODE, RATER_CODE, drop_duplicates
+
+    frame = judgments(seed, phases=seed % 2 == 0, sequence=True)
+    frame["score"] = frame["score"].map(lambda v: f"{v:g}").astype("str")   # compared as written
+    frame = frame.drop(columns=["_sequence"]).rename(columns={"_rater": "rater", "_case": "case"})
+    ids = {"rater": "rater", "case": "case"}
+    plain_out, coded_out = Collector(), Collector()
+    plain = drop_duplicates(check_ids(frame, ids, Collector()), plain_out)
+    coded = drop_duplicates(check_ids(frame, ids, Collector(), with_codes=True), coded_out, ("rater", "case"))
+    pd.testing.assert_frame_equal(coded.drop(columns=[RATER_CODE, CASE_CODE, PAIR_CODE]), plain)
+    assert coded_out.items == plain_out.items

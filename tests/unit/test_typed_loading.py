@@ -37,6 +37,19 @@ def test_natural_sorted_equals_sorted_by_natural_key():
     assert simple
 
 
+def test_ids_of_one_layout_sort_as_sorted_by_natural_key():
+    """ASCII ids of one length with digits at the same places are ranked on their bytes
+    (``rules._same_layout_order``); mixed case, several digit runs and long runs included."""
+    rng = np.random.default_rng(11)
+    for _ in range(200):
+        width = int(rng.integers(1, 25))
+        layout = rng.random(width) < 0.5
+        letters = rng.choice(["ab", "aB", "Zz_-", "x", "q. "])
+        ids = ["".join(str(rng.integers(0, 10)) if digit else rng.choice(list(letters)) for digit in layout)
+               for _ in range(int(rng.integers(1, 300)))]
+        assert natural_sorted(pd.array(ids, dtype="str")) == sorted(ids, key=natural_key)
+
+
 @pytest.mark.parametrize("words", [(), ("NA", "-", "."), ("-99",)])
 def test_numbers_of_a_text_column_equal_the_cell_by_cell_conversion(words):
     rng = np.random.default_rng(5)
@@ -58,6 +71,8 @@ def typed_small_files(monkeypatch):
     from calibrate.data import ingest, rules
     monkeypatch.setattr(ingest, "TYPED_FROM_BYTES", 0)
     monkeypatch.setattr(rules, "COLUMNWISE_FROM", 0)
+    monkeypatch.setattr(rules, "DECIMALS_CAST_FROM", 0)
+    monkeypatch.setattr(rules, "SAME_LAYOUT_FROM", 0)
 
 
 @pytest.mark.parametrize("seed", range(6))
@@ -101,6 +116,25 @@ def test_a_column_read_as_numbers_converts_as_its_text_does(tmp_path, cell):
             assert np.array_equal(typed[col].to_numpy(), values.to_numpy(), equal_nan=True)
         else:                              # anything else is the text, as read
             pd.testing.assert_series_equal(typed[col], text[col])
+
+
+@pytest.mark.parametrize("text", ["id,score\nr1, 2\nr2,3\n", " id,score\nr1,2\n", "id,score\n r1,2\n",
+                                  "id;score\nr1; 2\n", "id,score\nr 1,2\nr2,\t3\n", "id,score\r\n r1,2\r\n",
+                                  "\ufeff id,score\nr1,2\n", "id,score\nr1,2\n"])
+def test_spaces_opening_a_cell_are_skipped_as_before(tmp_path, text):
+    """The parser is asked to skip spaces only when some cell opens with one; the cells read
+    are those of a reading that always skips them."""
+    import io
+
+    from calibrate.data.ingest import _csv_options
+    path = _write(tmp_path, "s.csv", text)
+    raw = path.read_bytes()
+    options = _csv_options(raw.decode("utf-8-sig"), raw)
+    always = {**options, "skipinitialspace": True}
+    expected = pd.read_csv(io.BytesIO(raw), dtype=str, header=None, **always)
+    pd.testing.assert_frame_equal(pd.read_csv(io.BytesIO(raw), dtype=str, header=None, **options), expected)
+    for numbers in ((), ("score",)):
+        read_table(path, missing_words=(), numbers=numbers)
 
 
 def test_an_odd_file_is_left_to_the_text_reader(tmp_path):
