@@ -351,8 +351,13 @@ def _alpha_from_weights(units: _Units, level: str, weights: np.ndarray) -> np.nd
             expected = 2 * n * s2 - 2 * s1**2
             return 1.0 - (n - 1) * observed / expected
         V = units.categories.size
-        per_unit = (units.counts[:, :, None] * units.counts[:, None, :]
-                    - units.counts[:, :, None] * np.eye(V)[None]) / (units.m - 1)[:, None, None]
+        # (n_uc n_uk - n_uc [c = k]) / (m_u - 1), entry by entry as that expression computes
+        # it (n_uc * 0 is an exact zero off the diagonal), without its broadcasts over V x V
+        per_unit = np.einsum("uc,uk->uck", units.counts, units.counts)
+        diagonal = per_unit.reshape(-1, V * V)[:, ::V + 1]
+        diagonal -= units.counts
+        per_unit.reshape(-1, V * V)[:, ::V + 1] = diagonal
+        per_unit /= (units.m - 1)[:, None, None]
         coincidence = (weights @ per_unit.reshape(per_unit.shape[0], -1)).reshape(-1, V, V)
     return _alpha_from_coincidence(coincidence, units.categories, level)
 

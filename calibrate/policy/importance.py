@@ -194,24 +194,52 @@ def _dominance_by_sweep(corr_xx, corr_xy, cue_groups, weights) -> np.ndarray:
     in chunks that keep the working set near :data:`_SWEEP_FLOATS` floats.
     """
     N, p, R = corr_xy.shape
-    n_cues = len(cue_groups)
+    labels, used, rows = _sweep_plan(p, R, cue_groups)
+    out = np.empty((N, R, len(cue_groups)))
+    for first in range(0, N, rows):
+        part = slice(first, min(N, first + rows))
+        xx = np.ascontiguousarray(np.transpose(corr_xx[part][:, used][:, :, used], (1, 2, 0)))
+        xy = np.ascontiguousarray(np.transpose(corr_xy[part][:, used, :], (1, 2, 0)))
+        out[part] = _sweep_chunk(xx, xy, labels, weights)
+    return out
+
+
+def dominance_by_sweep_batch_last(corr_xx: np.ndarray, corr_xy: np.ndarray,
+                                  cue_groups: list[list[int]]) -> np.ndarray:
+    """:func:`dominance_weights` with ``solver="sweep"`` for systems laid out last: corr_xx
+    (p, p, M) and corr_xy (p, R, M) give (M, R, k), the same numbers (the same eliminations
+    on the same values, without transposing each chunk first)."""
+    p, R, M = corr_xy.shape
+    labels, used, rows = _sweep_plan(p, R, cue_groups)
+    weights = dominance_matrix(len(cue_groups))
+    in_order = used.size == p and bool((used == np.arange(p)).all())
+    out = np.empty((M, R, len(cue_groups)))
+    for first in range(0, M, rows):
+        part = slice(first, min(M, first + rows))
+        xx, xy = corr_xx[:, :, part], corr_xy[:, :, part]
+        if not in_order:
+            xx, xy = xx[used][:, used], xy[used]
+        out[part] = _sweep_chunk(xx, xy, labels, weights)
+    return out
+
+
+def _sweep_plan(p: int, R: int, cue_groups) -> tuple[np.ndarray, np.ndarray, int]:
+    """The sweep's columns in cue order, their cues, and the systems per chunk."""
     cue_of_column = np.full(p, -1)
     for j, cols in enumerate(cue_groups):
         cue_of_column[cols] = j
     used = np.flatnonzero(cue_of_column >= 0)
     used = used[np.argsort(cue_of_column[used], kind="stable")]
     held = sum(c * c for c in range(1, used.size + 1)) + (used.size + _SUBSETS_AT_ONCE + 2) * R
-    rows = max(1, _SWEEP_FLOATS // held)
-    out = np.empty((N, R, n_cues))
-    for first in range(0, N, rows):
-        part = slice(first, min(N, first + rows))
-        xx = np.ascontiguousarray(np.transpose(corr_xx[part][:, used][:, :, used], (1, 2, 0)))
-        xy = np.ascontiguousarray(np.transpose(corr_xy[part][:, used, :], (1, 2, 0)))
-        walk = _SubsetWalk(n_cues, weights, xy.shape[1:])
-        walk.visit(0, -1, cue_of_column[used], xx, xy, np.zeros(xy.shape[1:]))
-        walk.flush()
-        out[part] = np.transpose(walk.total, (2, 1, 0))
-    return out
+    return cue_of_column[used], used, max(1, _SWEEP_FLOATS // held)
+
+
+def _sweep_chunk(xx, xy, labels, weights) -> np.ndarray:
+    """(n, R, k) dominance weights of the systems xx (c, c, n), xy (c, R, n), columns in cue order."""
+    walk = _SubsetWalk(weights.shape[1], weights, xy.shape[1:])
+    walk.visit(0, -1, labels, xx, xy, np.zeros(xy.shape[1:]))
+    walk.flush()
+    return np.transpose(walk.total, (2, 1, 0))
 
 
 class _SubsetWalk:

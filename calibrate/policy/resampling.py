@@ -41,13 +41,16 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
-from .importance import (COLLINEAR_REMAINDER, cue_importance, eliminate_leading,
-                         importance_shares, r2_from_correlations)
+from .importance import (COLLINEAR_REMAINDER, cue_importance, dominance_by_sweep_batch_last,
+                         eliminate_leading, importance_shares, r2_from_correlations)
 
 #: Bound the float count of one bootstrap chunk (resamples x raters x subsets).
 _CHUNK_ELEMENTS = 16_000_000
 #: Bound the floats of one stacked product of counts with per-case terms.
 _STACK_FLOATS = 4_000_000
+#: Importance systems solved together in the systems-last layout (about one chunk of the
+#: dominance sweep for 8 cues, :data:`calibrate.policy.importance._SWEEP_FLOATS`).
+_SWEEP_SYSTEMS = 8_000
 #: From this many cases the percentile intervals of the importance shares covered 92-98%
 #: for every cue strength in the benchmark (1-7 with a ceiling and continuous judgments,
 #: 120 and 200 cases; mostly 93-97%); below it the strongest cue's intervals covered
@@ -162,6 +165,42 @@ def _column_quantiles(values: np.ndarray, n_finite: np.ndarray, level: np.ndarra
 
 
 
+def _resampled_sums(X, Y, counts, *, leave_one_out: bool):
+    """The count-weighted sums behind :func:`weighted_correlations`: the centred columns,
+    the sums (..., N, terms) of every resample (and leave-one-out row), their totals
+    (..., N, 1) and the position of each cue pair's cross-product among the terms (p, p)."""
+    n, p = X.shape[-2:]
+    R = Y.shape[-1]
+    N = counts.shape[-2]
+    lead = counts.shape[:-2]
+    Xc = X - X.mean(axis=-2, keepdims=True)
+    Yc = Y - Y.mean(axis=-2, keepdims=True)
+    # The cue cross-products once per pair (Sxx is symmetric): with one rater per block,
+    # 54 columns of per-case terms instead of 82 for 8 cues.
+    upper_i, upper_j = np.triu_indices(p)
+    pair_of = np.zeros((p, p), dtype=np.intp)
+    pair_of[upper_i, upper_j] = pair_of[upper_j, upper_i] = np.arange(upper_i.size)
+    # The last column of ones gives each resample's total count in the same product (the
+    # counts are whole numbers, so their sum is exact in any order: the same totals as
+    # summing the counts, without another pass over them).
+    terms = np.concatenate([
+        Xc, Yc, Yc**2, Xc[..., upper_i] * Xc[..., upper_j],
+        (Xc[..., :, None] * Yc[..., None, :]).reshape(*lead, n, p * R), np.ones((*lead, n, 1)),
+    ], axis=-1)
+    # One BLAS product per block, stacked blocks included: with BLAS on one thread (as the
+    # audit runs it, calibrate/threads.py) 20 blocks of 1,200 x 200 by 200 x 82 took 0.026 s
+    # against 0.097 s for numpy's own einsum loop (the same sums to 3e-14).
+    if leave_one_out:
+        # the product written straight into the rows it fills, then the n leave-one-out rows
+        # below it (no concatenated copy of the whole table)
+        sums = np.empty((*lead, N + n, terms.shape[-1]))
+        np.matmul(counts, terms, out=sums[..., :N, :])
+        np.subtract(terms.sum(axis=-2, keepdims=True), terms, out=sums[..., N:, :])
+    else:
+        sums = counts @ terms
+    return Xc, Yc, sums[..., :-1], sums[..., -1:], pair_of
+
+
 def weighted_correlations(
     X: np.ndarray, Y: np.ndarray, counts: np.ndarray, *, leave_one_out: bool = False
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -187,48 +226,70 @@ def weighted_correlations(
     the results, their sums taken as the column totals less each case's own terms
     instead of n more rows of the product.
     """
-    n, p = X.shape[-2:]
-    R = Y.shape[-1]
-    N = counts.shape[-2]
+    p, R = X.shape[-1], Y.shape[-1]
     lead = counts.shape[:-2]
-    Xc = X - X.mean(axis=-2, keepdims=True)
-    Yc = Y - Y.mean(axis=-2, keepdims=True)
-    # The cue cross-products once per pair (Sxx is symmetric): with one rater per block,
-    # 54 columns of per-case terms instead of 82 for 8 cues.
-    upper_i, upper_j = np.triu_indices(p)
-    pair_of = np.zeros((p, p), dtype=np.intp)
-    pair_of[upper_i, upper_j] = pair_of[upper_j, upper_i] = np.arange(upper_i.size)
-    n_pairs = upper_i.size
-    terms = np.concatenate([
-        Xc, Yc, Yc**2, Xc[..., upper_i] * Xc[..., upper_j],
-        (Xc[..., :, None] * Yc[..., None, :]).reshape(*lead, n, p * R),
-    ], axis=-1)
-    # One BLAS product per block, stacked blocks included: with BLAS on one thread (as the
-    # audit runs it, calibrate/threads.py) 20 blocks of 1,200 x 200 by 200 x 82 took 0.026 s
-    # against 0.097 s for numpy's own einsum loop (the same sums to 3e-14).
-    sums = counts @ terms
-    total = counts.sum(axis=-1)[..., None]
-    if leave_one_out:
-        sums = np.concatenate([sums, terms.sum(axis=-2, keepdims=True) - terms], axis=-2)
-        total = np.concatenate([total, np.full((*lead, n, 1), n - 1.0)], axis=-2)
-        N += n
+    Xc, Yc, sums, total, pair_of = _resampled_sums(X, Y, counts, leave_one_out=leave_one_out)
+    N, n_pairs = sums.shape[-2], p * (p + 1) // 2
     x_mean = sums[..., :p] / total
     y_mean = sums[..., p:p + R] / total
     at = p + 2 * R
-    Sxx = sums[..., at:at + n_pairs][..., pair_of.ravel()].reshape(*lead, N, p, p)
-    Sxx -= total[..., None] * x_mean[..., :, None] * x_mean[..., None, :]
+    # The arithmetic of every entry as written plainly (S - (n m_a) m_b, then S / (d_a d_b)),
+    # with the products and quotients put into the arrays that hold them
+    Sxx = np.take(sums, at + pair_of.ravel(), axis=-1).reshape(*lead, N, p, p)
+    weighted_mean = total * x_mean
+    Sxx -= np.multiply(weighted_mean[..., :, None], x_mean[..., None, :])
     Sxy = sums[..., at + n_pairs:].reshape(*lead, N, p, R)
-    Sxy -= total[..., None] * x_mean[..., :, None] * y_mean[..., None, :]
+    Sxy -= weighted_mean[..., :, None] * y_mean[..., None, :]
     Syy = sums[..., p + R:at] - total * y_mean**2
     dx = np.sqrt(np.clip(np.diagonal(Sxx, axis1=-2, axis2=-1), 0.0, None))
     x_bad = np.any(dx**2 <= 1e-10 * (Xc**2).sum(axis=-2)[..., None, :], axis=-1)
     y_bad = Syy <= 1e-10 * (Yc**2).sum(axis=-2)[..., None, :]
     dx = np.where(dx > 0, dx, 1.0)
     dy = np.sqrt(np.where(y_bad, 1.0, Syy))
-    corr_xx = Sxx / (dx[..., :, None] * dx[..., None, :])
-    corr_xx[x_bad] = np.eye(p)
-    corr_xy = Sxy / (dx[..., :, None] * dy[..., None, :])
+    corr_xx = np.divide(Sxx, np.multiply(dx[..., :, None], dx[..., None, :]), out=Sxx)
+    if x_bad.any():
+        corr_xx[x_bad] = np.eye(p)
+    corr_xy = np.divide(Sxy, np.multiply(dx[..., :, None], dy[..., None, :]), out=Sxy)
     return corr_xx, corr_xy, y_bad | x_bad[..., None]
+
+
+def _correlations_batch_last(X: np.ndarray, Y: np.ndarray, counts: np.ndarray):
+    """:func:`weighted_correlations` of U stacked blocks with their leave-one-out rows, laid
+    out with the systems last: corr_xx (p, p, U, N + n), corr_xy (p, R, U, N + n) and
+    ``bad`` (R, U, N + n), from X (U, n, p), Y (U, n, R) and counts (U, N, n).
+
+    Every entry comes from the same operations on the same sums as there, so the values
+    are the same to the bit; only the layout differs. With one or a few raters per block
+    the systems-first layout makes every step a loop over 8 x 8 matrices (products
+    broadcast over axes of 8), and the eliminations that follow want the systems last
+    anyway (:func:`_r2_batch_last`, the sweep of the dominance weights).
+    """
+    U, n, p = X.shape
+    R = Y.shape[-1]
+    Xc, Yc, sums, total, pair_of = _resampled_sums(X, Y, counts, leave_one_out=True)
+    N = sums.shape[-2]
+    n_pairs = p * (p + 1) // 2
+    sums = np.ascontiguousarray(np.moveaxis(sums, -1, 0))        # (terms, U, N)
+    total = total[..., 0]                                          # (U, N)
+    x_mean = sums[:p] / total
+    y_mean = sums[p:p + R] / total
+    at = p + 2 * R
+    Sxx = sums[at + pair_of.ravel()].reshape(p, p, U, N)
+    weighted_mean = total * x_mean
+    Sxx -= np.multiply(weighted_mean[:, None], x_mean[None, :])
+    Sxy = sums[at + n_pairs:].reshape(p, R, U, N)
+    Sxy -= weighted_mean[:, None] * y_mean[None, :]
+    Syy = sums[p + R:at] - total * y_mean**2
+    dx = np.sqrt(np.clip(np.diagonal(Sxx, axis1=0, axis2=1), 0.0, None))   # (U, N, p)
+    x_bad = np.any(dx**2 <= 1e-10 * (Xc**2).sum(axis=-2)[:, None, :], axis=-1)
+    y_bad = Syy <= 1e-10 * (Yc**2).sum(axis=-2).T[:, :, None]
+    dx = np.moveaxis(np.where(dx > 0, dx, 1.0), -1, 0)                       # (p, U, N)
+    dy = np.sqrt(np.where(y_bad, 1.0, Syy))
+    corr_xx = np.divide(Sxx, np.multiply(dx[:, None], dx[None, :]), out=Sxx)
+    if x_bad.any():
+        corr_xx[:, :, x_bad] = np.eye(p)[:, :, None]
+    corr_xy = np.divide(Sxy, np.multiply(dx[:, None], dy[None, :]), out=Sxy)
+    return corr_xx, corr_xy, y_bad | x_bad[None]
 
 
 @dataclass(frozen=True)
@@ -275,6 +336,7 @@ class _BlockCounts:
         for unit in units:
             self._uses[unit.block] = self._uses.get(unit.block, 0) + 1
         self._held: dict[int, np.ndarray] = {}
+        self._stack: np.ndarray | None = None
 
     def take(self, unit: _ResampleUnit) -> np.ndarray:
         """(n_boot, n) bootstrap counts (the leave-one-out vectors are implied:
@@ -288,12 +350,41 @@ class _BlockCounts:
             del self._held[block]
         return counts
 
+    def stack(self, units: list[_ResampleUnit]) -> np.ndarray:
+        """(len(units), n_boot, n): :meth:`take` of each unit (all of one size), the counts
+        of a block used once drawn straight into the stack. The stack is one array kept
+        for every call of the same shape, so it holds until the next call: on this
+        virtual machine a fresh array's first touch costs more than the counting (drawing
+        and counting one rater's 1,000 x 200 counts: 3.4-3.6 ms into fresh arrays, 1.2-1.6
+        ms into a kept one, the same counts)."""
+        shape = (len(units), self._n_boot, units[0].n_cases)
+        if self._stack is None or self._stack.shape != shape:
+            self._stack = np.empty(shape)
+        for slot, unit in enumerate(units):
+            if unit.block in self._held or self._uses[unit.block] > 1:
+                self._stack[slot] = self.take(unit)
+            else:
+                self._uses[unit.block] -= 1
+                _count_draws(self._generators[unit.block], self._stack[slot])
+        return self._stack
+
 
 def _draw_boot_counts(generator: np.random.Generator, n: int, n_boot: int) -> np.ndarray:
     """(n_boot, n): how often each case is drawn in each resample of n cases."""
+    counts = np.empty((n_boot, n))
+    _count_draws(generator, counts)
+    return counts
+
+
+def _count_draws(generator: np.random.Generator, out: np.ndarray) -> None:
+    """Draw ``out.shape`` (n_boot, n) case numbers and count them into ``out`` (C-contiguous):
+    how often each case is drawn in each resample of n cases."""
+    n_boot, n = out.shape
     draws = generator.integers(0, n, size=(n_boot, n))
     draws += n * np.arange(n_boot)[:, None]   # resample b counts into bins b*n .. b*n + n-1
-    return np.bincount(draws.ravel(), minlength=n_boot * n).reshape(n_boot, n).astype(float)
+    flat = out.reshape(-1)
+    flat[:] = 0.0
+    np.add.at(flat, draws.ravel(), 1.0)   # whole numbers: the same counts as a bincount
 
 
 def _draw_counts(generator: np.random.Generator, n: int, n_boot: int) -> np.ndarray:
@@ -391,17 +482,30 @@ def _resampled_intervals(units: list[_ResampleUnit], counts: _BlockCounts, cue_g
             _intervals_for_batch(batch, counts, cue_groups, out, **options)
 
 
-def _batch_correlations(batch, counts: _BlockCounts, n_boot: int):
-    """Resampled correlations of every unit of a batch, concatenated in unit order.
+def _batch_resampled_values(batch, counts: _BlockCounts, n_boot: int, n_imp: int, cue_groups,
+                            method: str):
+    """R^2 of every resample and leave-one-out row of a batch's units, (rows, R), and the cue
+    importance of each unit's first ``n_imp`` resamples, (units * n_imp, R, k); both NaN
+    where the resample left a cue or the judgments constant.
 
-    Units with the same number of cases are stacked, a few at a time, so one
-    matrix product serves several raters' blocks.
+    Units with the same number of cases are stacked, a few at a time, so one matrix
+    product serves several raters' blocks, and each stack's correlations go to R^2 and
+    importance at once. With few raters per block (raters who read cases of their own)
+    the stack is laid out with its systems last (:func:`_correlations_batch_last`), the
+    layout of the eliminations that follow; the correlations of a whole batch (555
+    raters x 1,200 rows of 8 x 8 matrices, 340 MB) were copied into one array, gathered
+    again for the importance and transposed chunk by chunk before. Every system is solved
+    by the same operations on the same numbers, so the values are the same.
     """
     rows = np.cumsum([0] + [n_boot + u.n_cases for u in batch])
     p, width = batch[0].X.shape[1], batch[0].Y.shape[1]
-    corr_xx = np.empty((rows[-1], p, p))
-    corr_xy = np.empty((rows[-1], p, width))
-    bad = np.empty((rows[-1], width), dtype=bool)
+    all_r2 = np.empty((rows[-1], width))
+    all_imp = np.empty((len(batch) * n_imp, width, len(cue_groups)))
+    # Millions of small systems here: the elimination tree beats one solve per subset,
+    # and where many raters share each resample's cue matrix (they read the same cases)
+    # the quadratic forms built once per matrix beat both.
+    shared = width >= SHARED_SOLVER_FROM
+    pending = _PendingImportance(all_imp, n_imp, cue_groups, method)
     by_size: dict[int, list[int]] = {}
     for position, unit in enumerate(batch):
         by_size.setdefault(unit.n_cases, []).append(position)
@@ -410,18 +514,79 @@ def _batch_correlations(batch, counts: _BlockCounts, n_boot: int):
         step = max(1, _STACK_FLOATS // per_unit)
         for first in range(0, len(positions), step):
             chosen = positions[first:first + step]
-            if len(chosen) == 1:
-                unit = batch[chosen[0]]
-                parts = [part[None] for part in weighted_correlations(
-                    unit.X, unit.Y, counts.take(unit), leave_one_out=True)]
+            X = np.stack([batch[i].X for i in chosen])
+            Y = np.stack([batch[i].Y for i in chosen])
+            stacked = counts.stack([batch[i] for i in chosen])
+            if shared:
+                r2, imp = _stack_values_systems_first(X, Y, stacked, n_imp, cue_groups, method)
+                for slot, i in enumerate(chosen):
+                    all_imp[i * n_imp:(i + 1) * n_imp] = imp[slot]
             else:
-                parts = weighted_correlations(
-                    np.stack([batch[i].X for i in chosen]), np.stack([batch[i].Y for i in chosen]),
-                    np.stack([counts.take(batch[i]) for i in chosen]), leave_one_out=True)
+                r2 = pending.add(chosen, *_correlations_batch_last(X, Y, stacked))
             for slot, i in enumerate(chosen):
-                span = slice(rows[i], rows[i + 1])
-                corr_xx[span], corr_xy[span], bad[span] = (part[slot] for part in parts)
-    return corr_xx, corr_xy, bad
+                all_r2[rows[i]:rows[i + 1]] = r2[slot]
+    pending.solve()
+    return all_r2, all_imp
+
+
+def _stack_values_systems_first(X, Y, counts, n_imp, cue_groups, method):
+    """(U, N + n, R) R^2 and (U, n_imp, R, k) importance of a stack of wide units (many
+    raters per block: the quadratic forms of the dominance weights)."""
+    corr_xx, corr_xy, bad = weighted_correlations(X, Y, counts, leave_one_out=True)
+    U, N, p, width = corr_xy.shape
+    r2 = _resampled_r2(corr_xx.reshape(-1, p, p), corr_xy.reshape(-1, p, width))
+    r2 = np.where(bad.reshape(-1, width), np.nan, np.clip(r2, 0.0, 1.0)).reshape(U, N, width)
+    imp, _ = cue_importance(corr_xx[:, :n_imp].reshape(-1, p, p), corr_xy[:, :n_imp].reshape(-1, p, width),
+                            cue_groups, method=method, solver="shared")
+    imp = np.where(bad[:, :n_imp].reshape(-1, width)[:, :, None], np.nan, imp)
+    return r2, imp.reshape(U, n_imp, width, -1)
+
+
+class _PendingImportance:
+    """The systems-last stacks of a batch: R^2 of each stack at once, the importance of
+    several stacks' first ``n_imp`` resamples together, into ``out`` at each unit's
+    position. The sweep of the dominance weights makes the same few hundred numpy calls
+    per chunk whatever its number of systems, so a stack of eleven raters (2,750 systems, a third
+    of one sweep chunk) swept alone cost about 1.5x on the linked 2,000-rater panel."""
+
+    def __init__(self, out: np.ndarray, n_imp: int, cue_groups, method: str):
+        self.out, self.n_imp, self.cue_groups, self.method = out, n_imp, cue_groups, method
+        self.parts: list[tuple] = []
+        self.held = 0
+
+    def add(self, positions, corr_xx, corr_xy, bad) -> np.ndarray:
+        """Hold a stack's importance systems; return its (U, N + n, R) R^2 (NaN where bad)."""
+        p, width, U, N = corr_xy.shape
+        r2 = _r2_batch_last(corr_xx.reshape(p, p, -1), corr_xy.reshape(p, width, -1))
+        r2 = np.where(bad.reshape(width, -1), np.nan, np.clip(r2, 0.0, 1.0)).reshape(width, U, N)
+        # The percentile interval of the shares needs no jackknife rows.
+        n_imp = self.n_imp
+        self.parts.append((list(positions), corr_xx[:, :, :, :n_imp], corr_xy[:, :, :, :n_imp],
+                           bad[:, :, :n_imp]))
+        self.held += U * n_imp
+        if self.held >= _SWEEP_SYSTEMS:
+            self.solve()
+        return np.moveaxis(r2, 0, -1)
+
+    def solve(self) -> None:
+        if not self.parts:
+            return
+        p, width = self.parts[0][2].shape[:2]
+        xx = np.concatenate([part[1].reshape(p, p, -1) for part in self.parts], axis=-1)
+        xy = np.concatenate([part[2].reshape(p, width, -1) for part in self.parts], axis=-1)
+        bad = np.concatenate([part[3].reshape(width, -1) for part in self.parts], axis=-1)
+        if self.method == "dominance":
+            imp = dominance_by_sweep_batch_last(xx, xy, self.cue_groups)
+        else:
+            imp, _ = cue_importance(np.moveaxis(xx, -1, 0), np.moveaxis(xy, -1, 0), self.cue_groups,
+                                    method=self.method, solver="sweep")
+        imp = np.where(bad.T[:, :, None], np.nan, imp)
+        n_imp, at = self.n_imp, 0
+        for part in self.parts:
+            for i in part[0]:
+                self.out[i * n_imp:(i + 1) * n_imp] = imp[at:at + n_imp]
+                at += n_imp
+        self.parts, self.held = [], 0
 
 
 #: Systems per chunk of :func:`_resampled_r2` (300,000 systems of 8 cues: 0.23 s in chunks of
@@ -446,36 +611,44 @@ def _resampled_r2(corr_xx: np.ndarray, corr_xy: np.ndarray) -> np.ndarray:
     out = np.empty((N, R))
     for first in range(0, N, _R2_CHUNK_SYSTEMS):
         part = slice(first, min(N, first + _R2_CHUNK_SYSTEMS))
-        xx = np.ascontiguousarray(np.transpose(corr_xx[part], (1, 2, 0)))   # (p, p, n)
-        xy = np.ascontiguousarray(np.transpose(corr_xy[part], (1, 2, 0)))   # (p, R, n)
-        explained = np.zeros(xy.shape[1:])
-        smallest = np.full(xx.shape[2], np.inf)
-        for _ in range(p):
-            smallest = np.minimum(smallest, xx[0, 0])
-            xx, xy, explained = eliminate_leading(xx, xy, explained)
-        near = ~(smallest > COLLINEAR_REMAINDER)
-        if near.any():
-            where = np.flatnonzero(near) + first
-            explained[:, near] = r2_from_correlations(corr_xx[where], corr_xy[where]).T
-        out[part] = explained.T
+        out[part] = _r2_of_chunk(np.ascontiguousarray(np.transpose(corr_xx[part], (1, 2, 0))),
+                                 np.ascontiguousarray(np.transpose(corr_xy[part], (1, 2, 0)))).T
     return out
+
+
+def _r2_batch_last(corr_xx: np.ndarray, corr_xy: np.ndarray) -> np.ndarray:
+    """:func:`_resampled_r2` of systems laid out last, corr_xx (p, p, M) and corr_xy (p, R, M),
+    as (R, M); the same eliminations on the same numbers, without the transposed copies."""
+    M = corr_xy.shape[-1]
+    out = np.empty(corr_xy.shape[1:])
+    for first in range(0, M, _R2_CHUNK_SYSTEMS):
+        part = slice(first, min(M, first + _R2_CHUNK_SYSTEMS))
+        out[:, part] = _r2_of_chunk(corr_xx[:, :, part], corr_xy[:, :, part])
+    return out
+
+
+def _r2_of_chunk(xx: np.ndarray, xy: np.ndarray) -> np.ndarray:
+    """(R, n) ``R^2`` of the systems xx (p, p, n), xy (p, R, n) by elimination, those with a
+    column at the collinearity bound solved by :func:`r2_from_correlations` instead."""
+    p = xx.shape[0]
+    corr_xx, corr_xy = xx, xy
+    explained = np.zeros(xy.shape[1:])
+    smallest = np.full(xx.shape[2], np.inf)
+    for _ in range(p):
+        smallest = np.minimum(smallest, xx[0, 0])
+        xx, xy, explained = eliminate_leading(xx, xy, explained)
+    near = ~(smallest > COLLINEAR_REMAINDER)
+    if near.any():
+        explained[:, near] = r2_from_correlations(np.moveaxis(corr_xx[:, :, near], -1, 0),
+                                                  np.moveaxis(corr_xy[:, :, near], -1, 0)).T
+    return explained
 
 
 def _intervals_for_batch(batch, counts: _BlockCounts, cue_groups, out: PolicyIntervals, *,
                          n_boot, alpha, method, r2, imp, n_imp):
-    corr_xx, corr_xy, bad = _batch_correlations(batch, counts, n_boot)
-    all_r2 = _resampled_r2(corr_xx, corr_xy)
-    all_r2 = np.where(bad, np.nan, np.clip(all_r2, 0.0, 1.0))
-    # The importance of each unit's first n_imp resamples; the percentile interval of
-    # the shares needs no jackknife rows.
+    all_r2, all_imp = _batch_resampled_values(batch, counts, n_boot, n_imp, cue_groups, method)
     starts = np.cumsum([0] + [n_boot + u.n_cases for u in batch])[:-1]
     rows = np.concatenate([np.arange(s, s + n_imp) for s in starts])
-    # Millions of small systems here: the elimination tree beats one solve per subset,
-    # and where many raters share each resample's cue matrix (they read the same cases)
-    # the quadratic forms built once per matrix beat both.
-    solver = "shared" if batch[0].Y.shape[1] >= SHARED_SOLVER_FROM else "sweep"
-    all_imp, _ = cue_importance(corr_xx[rows], corr_xy[rows], cue_groups, method=method, solver=solver)
-    all_imp = np.where(bad[rows][:, :, None], np.nan, all_imp)
     with np.errstate(invalid="ignore", divide="ignore"):
         all_shares = importance_shares(all_imp, all_r2[rows])
     # Every unit of one size at once: the intervals are column by column, so the raters

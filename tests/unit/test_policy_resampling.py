@@ -171,3 +171,41 @@ def test_resampled_r2_by_elimination_equals_the_solve_and_hands_collinear_system
     ours = resampling._resampled_r2(xx, xy)
     expected = np.vstack([r2_from_correlations(xx[i:i + 1], xy[i:i + 1]) for i in range(300)])
     np.testing.assert_allclose(ours, expected, rtol=1e-12, atol=1e-13)
+
+
+def _stacked_blocks(seed: int, units: int, n: int, p: int, width: int):
+    """Stacked blocks of raters with bootstrap counts, one resample leaving a cue constant."""
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(units, n, p))
+    X[:, :4, 0] = 2.0
+    Y = X[..., :1] * 0.5 + rng.normal(size=(units, n, width))
+    counts = np.stack([resampling._draw_boot_counts(rng, n, 40) for _ in range(units)])
+    counts[:, 0] = 0.0
+    counts[:, 0, :4] = n / 4   # only the rows where cue 0 is constant
+    return X, Y, counts
+
+
+@pytest.mark.parametrize("units, n, p, width", [(5, 30, 4, 1), (3, 25, 3, 6), (1, 12, 2, 2)])
+def test_systems_last_correlations_are_the_systems_first_ones_to_the_bit(units, n, p, width):
+    X, Y, counts = _stacked_blocks(15, units, n, p, width)
+    first = weighted_correlations(X, Y, counts, leave_one_out=True)
+    corr_xx, corr_xy, bad = resampling._correlations_batch_last(X, Y, counts)
+    assert np.array_equal(np.moveaxis(corr_xx, (2, 3), (0, 1)), first[0])
+    assert np.array_equal(np.moveaxis(corr_xy, (2, 3), (0, 1)), first[1])
+    assert np.array_equal(np.moveaxis(bad, 0, -1), first[2])
+    assert first[2][:, 0].all()
+
+
+def test_systems_last_r2_and_dominance_sweep_are_the_systems_first_ones_to_the_bit():
+    from calibrate.policy.importance import dominance_by_sweep_batch_last
+
+    X, Y, counts = _stacked_blocks(16, 4, 30, 3, 2)
+    corr_xx, corr_xy, _ = weighted_correlations(X, Y, counts, leave_one_out=True)
+    xx, xy = corr_xx.reshape(-1, 3, 3), corr_xy.reshape(-1, 3, 2)
+    xx[7, 2] = xx[7, 1]     # a collinear system goes to the solve in both layouts
+    xx[7, :, 2] = xx[7, :, 1]
+    last_xx, last_xy = np.moveaxis(xx, 0, -1).copy(), np.moveaxis(xy, 0, -1).copy()
+    assert np.array_equal(resampling._r2_batch_last(last_xx, last_xy).T, resampling._resampled_r2(xx, xy))
+    for groups in (CUE_GROUPS, [[2], [0, 1]]):   # the second sweeps the columns out of order
+        assert np.array_equal(dominance_by_sweep_batch_last(last_xx, last_xy, groups),
+                              dominance_weights(xx, xy, groups, solver="sweep"))
