@@ -157,6 +157,50 @@ _BOUND_BLOCK = 131_072
 #: 0.145 s with :class:`_PairCosts`, 24 raters 0.256 s against 0.237 s.
 _SMALL_PANEL = 20
 
+#: Panels of at least this many raters use the compiled engine
+#: (:mod:`calibrate.panel.compiled_merges`). Measured: CPU seconds of every merge of one
+#: ``group_raters`` (numpy engine / compiled with numba's import and cache load, medians
+#: of 3 fresh processes): 20 raters 0.24 / 0.53, 50 0.70 / 0.77, 100 0.82 / 0.95,
+#: 200 0.89 / 0.72, 400 2.50 / 1.45, 2,000 20.4 / 9.0 (DEVELOPERS.md, "Speed at scale").
+_COMPILED_PANEL = 200
+
+
+def bound_metric(group_sscp, group_n, active, p):
+    """``(W^1/2, W^-1/2)`` of the panel's pooled cue covariance W, the metric of the
+    lower bound (see :class:`_PairCosts`); None when W is not positive definite."""
+    pooled = group_sscp[active][:, :p, :p].sum(axis=0) / group_n[active].sum()
+    evals, evecs = np.linalg.eigh(pooled)
+    if not evals[0] > 0:
+        return None
+    return (evecs * np.sqrt(evals)) @ evecs.T, (evecs / np.sqrt(evals)) @ evecs.T
+
+
+def bound_profiles(sscp, p, root, inv_root, low=None):
+    """What the lower bound needs of each group of ``sscp`` (M, k, k): ``u = W^1/2 beta``,
+    its squared length, ``1 / a``, ``a`` and the absolute slack (margins folded in).
+
+    ``low``: a lower bound on each group's ``a`` already known (with its margin),
+    instead of an eigen-decomposition (see :meth:`_PairCosts.refresh_profiles`).
+    """
+    cues = sscp[:, :p, :p]
+    try:
+        beta = np.linalg.solve(cues, sscp[:, :p, p:])[..., 0]
+        if low is None:
+            low = np.linalg.eigvalsh(inv_root @ cues @ inv_root)[:, 0]
+            low = low * (1.0 - _BOUND_RELATIVE_SLACK)
+    except np.linalg.LinAlgError:  # a sum of full-rank SSCPs is never singular
+        beta, low = np.zeros((len(sscp), p)), np.zeros(len(sscp))
+    u = beta @ root
+    ok = np.isfinite(u).all(axis=1) & np.isfinite(low)
+    # A group without a usable profile gets a = 0: its bounds are never above a cost.
+    u = np.where(ok[:, None], u, 0.0)
+    low = np.where(ok, low, 0.0)
+    # Rounding of |u_x - u_y|^2 by expansion is far below 1e-12 of |u_x|^2 + |u_y|^2.
+    norm = (1.0 - 1e-12) * np.einsum("mp,mp->m", u, u)
+    with np.errstate(divide="ignore"):
+        inv_a = np.where(low > 0, 1.0 / np.maximum(low, 1e-300), np.inf)
+    return u, norm, inv_a, low, _BOUND_ABSOLUTE_SLACK * sscp[:, p, p]
+
 
 @dataclass
 class Agglomeration:
@@ -205,12 +249,10 @@ class _PairCosts:
         self.low = np.zeros((B, R))   # the a of each group, its safety margin folded in
         self.slack = _BOUND_ABSOLUTE_SLACK * group_sscp[:, :, p, p]
         if self.prune:
-            pooled = group_sscp[active][:, :p, :p].sum(axis=0) / group_n[active].sum()
-            evals, evecs = np.linalg.eigh(pooled)
-            self.prune = bool(evals[0] > 0)
+            metric = bound_metric(group_sscp, group_n, active, p)
+            self.prune = metric is not None
             if self.prune:
-                self.root = (evecs * np.sqrt(evals)) @ evecs.T
-                self.inv_root = (evecs / np.sqrt(evals)) @ evecs.T
+                self.root, self.inv_root = metric
         # Every batch of cost is set below; dead groups are masked by alive.
         self.cost_memory = _borrow("cost", B * R * R, float)
         self.exact_memory = _borrow("exact", B * R * R, bool)
@@ -264,27 +306,9 @@ class _PairCosts:
         """
         if not self.prune or bb.size == 0:
             return
-        p = self.p
-        cues = self.sscp[bb, gg, :p, :p]
-        try:
-            beta = np.linalg.solve(cues, self.sscp[bb, gg, :p, p:])[..., 0]
-            if low is None:
-                low = np.linalg.eigvalsh(self.inv_root @ cues @ self.inv_root)[:, 0]
-                low = low * (1.0 - _BOUND_RELATIVE_SLACK)
-        except np.linalg.LinAlgError:  # a sum of full-rank SSCPs is never singular
-            beta, low = np.zeros((bb.size, p)), np.zeros(bb.size)
-        u = beta @ self.root
-        ok = np.isfinite(u).all(axis=1) & np.isfinite(low)
-        # A group without a usable profile gets a = 0: its bounds are never above a cost.
-        u = np.where(ok[:, None], u, 0.0)
-        low = np.where(ok, low, 0.0)
-        self.low[bb, gg] = low
-        self.u[bb, gg] = u
-        # Rounding of |u_x - u_y|^2 by expansion is far below 1e-12 of |u_x|^2 + |u_y|^2.
-        self.norm[bb, gg] = (1.0 - 1e-12) * np.einsum("mp,mp->m", u, u)
-        with np.errstate(divide="ignore"):
-            self.inv_a[bb, gg] = np.where(low > 0, 1.0 / np.maximum(low, 1e-300), np.inf)
-        self.slack[bb, gg] = _BOUND_ABSOLUTE_SLACK * self.sscp[bb, gg, p, p]
+        profile = bound_profiles(self.sscp[bb, gg], self.p, self.root, self.inv_root, low)
+        for name, values in zip(("u", "norm", "inv_a", "low", "slack"), profile):
+            getattr(self, name)[bb, gg] = values
 
     @staticmethod
     def _bound(dot, x, y):
@@ -557,7 +581,9 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
     recorded RSS totals then sum over fewer slots (a last-digit change: the number-of-
     groups test and the resamples, which read only the merged pairs, compact).
     Panels under ``_SMALL_PANEL`` raters use the
-    plain :class:`_AllCosts` instead (again the same merges and digits).
+    plain :class:`_AllCosts` instead (again the same merges and digits); panels of
+    ``_COMPILED_PANEL`` raters and more (with ``prune``) the compiled loop of
+    :mod:`calibrate.panel.compiled_merges` (the same merges, costs equal to rounding).
     """
     R = active.shape[1]
     group_sscp = np.where(active[:, :, None, None], sscp, 0.0)
@@ -567,6 +593,14 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
     if R < _SMALL_PANEL:
         costs = _AllCosts(group_sscp, group_n, group_rss, active, p)
         history, last_cost = _merge_until(costs, labels, active, stop_at, record)
+    elif prune and R >= _COMPILED_PANEL:
+        from .compiled_merges import merge_batches  # loads numba: only for panels this big
+
+        labels, history, last_cost, n_exact = merge_batches(group_sscp, group_n, group_rss,
+                                                            active, p, stop_at, record)
+        tss = np.where(active, sscp[:, :, p, p], 0.0).sum(axis=1)
+        return Agglomeration(labels=labels, history=history, last_cost=last_cost, tss=tss,
+                             n_exact=n_exact)
     else:
         costs = _PairCosts(group_sscp, group_n, group_rss, active, p, prune)
         try:

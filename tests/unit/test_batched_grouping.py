@@ -245,7 +245,7 @@ def test_jaccard_and_co_assignment_equal_the_resample_by_resample_counts(n_label
 # --------------------------------------------------------------------------- merging
 
 
-def test_recorded_runs_that_drop_dead_slots_make_the_same_merges():
+def test_recorded_runs_that_drop_dead_slots_make_the_same_merges(merge_engine):
     # The number-of-groups test and the resamples record their merges and drop dead
     # slots (compact=True); the merged pairs and their costs must be those of the run
     # that keeps every slot, the recorded RSS totals equal but for summation order.
@@ -291,7 +291,7 @@ def test_grouping_of_a_panel_equals_the_grouping_without_dropped_slots(which, mo
 
 
 @pytest.mark.parametrize("which", ["shared 1-7", "incomplete 0/1"])
-def test_simulated_panels_and_resamples_in_one_lockstep_equal_the_two_runs(which):
+def test_simulated_panels_and_resamples_in_one_lockstep_equal_the_two_runs(which, merge_engine):
     # The grouping merges its simulated one-policy panels and its case resamples in one
     # call; the rule and every resample's groups must be those of the two separate runs
     # with the same draws (the simulated judgments first, then the case counts). 36

@@ -19,6 +19,11 @@ from calibrate.panel.merges import _PairCosts, agglomerate, batched_rss, stacked
 from calibrate.policy.linalg import grouped_sscp
 
 
+def numpy_engine(monkeypatch):
+    """Keep the panel on the numpy engines, whatever its size (tests of their digits)."""
+    monkeypatch.setattr(grouping_merges, "_COMPILED_PANEL", 10**9)
+
+
 def random_panel(seed, n_raters, n_cases, p, *, n_policies=3, share_seen=0.7):
     """Raw rows of an invented panel: cues Z[:, :p], judgment Z[:, p], rater index ``who``."""
     rng = np.random.default_rng(seed)
@@ -106,7 +111,7 @@ def assert_same_merges(engine, reference, gap, scale):
 @pytest.mark.parametrize("seed, n_raters, n_cases, p", [
     (1, 9, 40, 3), (2, 14, 60, 4), (3, 20, 50, 5), (4, 26, 80, 3),
 ])
-def test_merge_sequence_matches_a_straightforward_greedy(seed, n_raters, n_cases, p):
+def test_merge_sequence_matches_a_straightforward_greedy(seed, n_raters, n_cases, p, merge_engine):
     # Reference: the greedy above, refitting every pair from raw rows at every step
     # (numpy lstsq; Ward 1963 error sum of squares criterion on rater policies).
     Z, who, _ = random_panel(seed, n_raters, n_cases, p)
@@ -118,7 +123,7 @@ def test_merge_sequence_matches_a_straightforward_greedy(seed, n_raters, n_cases
     assert_same_merges(engine_merges(agg.history, np.arange(n_raters), 0), reference, gap, scale)
 
 
-def test_lockstep_batches_each_match_the_straightforward_greedy():
+def test_lockstep_batches_each_match_the_straightforward_greedy(merge_engine):
     # Several groupings at once, as the stability check runs them: case resamples
     # (count weights) with some raters sitting out, each batch held to the greedy on
     # its own weighted rows.
@@ -139,7 +144,7 @@ def test_lockstep_batches_each_match_the_straightforward_greedy():
         assert_same_merges(engine_merges(agg.history, start, b), reference, gap, scale)
 
 
-def test_stopping_early_gives_the_first_merges_and_the_last_cost():
+def test_stopping_early_gives_the_first_merges_and_the_last_cost(merge_engine):
     Z, who, _ = random_panel(5, 15, 60, 4)
     stats = grouped_sscp(Z, who, 15)
     active = np.ones((1, 15), bool)
@@ -151,7 +156,7 @@ def test_stopping_early_gives_the_first_merges_and_the_last_cost():
     assert part.last_cost[0] == full.history[10][3][0]
 
 
-def test_unrecorded_runs_drop_dead_slots_and_end_alike():
+def test_unrecorded_runs_drop_dead_slots_and_end_alike(merge_engine):
     # Without a record the engine drops dead groups' slots as it goes (40 raters, so
     # the slots are compacted several times); labels and last costs must not change.
     n_raters, p = 40, 4
@@ -166,7 +171,7 @@ def test_unrecorded_runs_drop_dead_slots_and_end_alike():
             assert len(np.unique(compacted.labels[1])) == 1
 
 
-def test_reused_work_memory_leaves_no_trace():
+def test_reused_work_memory_leaves_no_trace(monkeypatch):
     # The pair-cost matrices are kept between groupings; a grouping run after a bigger
     # one (whose numbers still fill that memory) must come out as it did before it,
     # and group_raters hands the memory back when it is done.
@@ -177,6 +182,7 @@ def test_reused_work_memory_leaves_no_trace():
         active = np.ones((3, n_raters), bool)
         return agglomerate(sims, n, active, 4, stop_at=2, record=record)
 
+    numpy_engine(monkeypatch)  # the compiled engine keeps no memory between groupings
     grouping_merges.release_work_memory()
     before = run(1, 36, record=False)
     run(2, 70, record=False)
@@ -208,6 +214,7 @@ def test_pruning_changes_no_digit_and_skips_most_pairs(monkeypatch):
     counts = np.concatenate([stats.n[None], n])
     active = np.ones((4, n_raters), bool)
     active[2, :7] = False
+    numpy_engine(monkeypatch)
     fast = agglomerate(sscp, counts, active, p, stop_at=1, record=True)
     every = agglomerate(sscp, counts, active, p, stop_at=1, record=True, prune=False)
     monkeypatch.setattr(grouping_merges, "_SMALL_PANEL", 10_000)

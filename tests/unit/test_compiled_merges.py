@@ -1,0 +1,152 @@
+"""The compiled merge engine (calibrate.panel.compiled_merges) against the numpy one.
+
+Both run the same greedy with the same bound, tie rule and subtraction order; only the
+small solves differ (a written-out Cholesky against LAPACK's LU), so the merges must be
+the same pairs in the same order and the costs and RSS totals equal to rounding.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from calibrate.panel import merges
+from calibrate.policy.linalg import grouped_sscp
+from tests.unit.test_grouping_merges import random_panel, resampled_panel
+
+pytest.importorskip("numba")
+
+#: Costs and totals agree to this relative difference; a cost near zero (exact
+#: duplicates) to 1e-12 of the panel's total sum of squares of judgments.
+RELATIVE = 1e-9
+
+
+def run(engine, monkeypatch, *args, **kwargs):
+    with monkeypatch.context() as patch:
+        patch.setattr(merges, "_COMPILED_PANEL", 0 if engine == "compiled" else 10**9)
+        return merges.agglomerate(*args, **kwargs)
+
+
+def assert_same_merges(compiled, plain, scale):
+    assert len(compiled.history) == len(plain.history)
+    for step, (ours, theirs) in enumerate(zip(compiled.history, plain.history)):
+        for k in (0, 1, 2, 5):  # batches, slot kept, slot absorbed, groups before
+            np.testing.assert_array_equal(ours[k], theirs[k], err_msg=f"step {step}")
+            assert ours[k].dtype == theirs[k].dtype
+        for k in (3, 4):  # cost, RSS total
+            np.testing.assert_allclose(ours[k], theirs[k], rtol=RELATIVE, atol=1e-12 * scale,
+                                       err_msg=f"step {step}")
+    np.testing.assert_array_equal(compiled.labels, plain.labels)
+    np.testing.assert_allclose(compiled.last_cost, plain.last_cost, rtol=RELATIVE,
+                               atol=1e-12 * scale)
+    np.testing.assert_array_equal(compiled.tss, plain.tss)
+
+
+@pytest.mark.parametrize("seed, n_raters, p, n_resamples", [
+    (1, 24, 3, 3), (2, 40, 4, 5), (3, 65, 5, 4), (4, 90, 6, 2),
+])
+@pytest.mark.parametrize("stop_at, record, compact", [
+    (1, True, False), (1, True, True), (3, True, None), (1, False, None), (5, False, None),
+])
+def test_compiled_engine_makes_the_numpy_engines_merges(seed, n_raters, p, n_resamples,
+                                                        stop_at, record, compact, monkeypatch):
+    # Case resamples in lockstep, batches of different sizes (raters sitting out some).
+    sscp, n, active = resampled_panel(seed, n_raters, p, count_seed=seed + 50,
+                                      n_resamples=n_resamples)
+    active[0, ::3] = False
+    if n_resamples > 2:
+        active[2, : n_raters // 2] = False
+    options = dict(stop_at=stop_at, record=record, compact=compact)
+    plain = run("numpy", monkeypatch, sscp, n, active, p, **options)
+    compiled = run("compiled", monkeypatch, sscp, n, active, p, **options)
+    assert bool(compiled.history) == record
+    assert_same_merges(compiled, plain, float(sscp[..., p, p][active].sum()))
+
+
+def test_simulated_panels_and_a_panel_too_small_to_merge(monkeypatch):
+    # Simulated judgments for the same raters (the number-of-groups test), plus a batch
+    # with a single active rater (no merge: last cost NaN) and one with none.
+    n_raters, p = 50, 4
+    Z, who, _ = random_panel(8, n_raters, 120, p, share_seen=0.6)
+    noise = np.random.default_rng(8).normal(size=(4, len(Z)))
+    sims, n = merges.stacked_sscp(Z, who, n_raters, judgments=Z[:, p] + noise)
+    active = np.ones((4, n_raters), bool)
+    active[1] = False
+    active[1, 7] = True
+    active[3] = False
+    plain = run("numpy", monkeypatch, sims, n, active, p, stop_at=1, record=True)
+    compiled = run("compiled", monkeypatch, sims, n, active, p, stop_at=1, record=True)
+    assert np.isnan(compiled.last_cost[[1, 3]]).all()
+    assert_same_merges(compiled, plain, float(sims[..., p, p][active].sum()))
+
+
+def test_exact_ties_go_to_the_lowest_pair_in_both_engines(monkeypatch):
+    # Raters 3, 11 and 20 are one rater three times over: their three pair costs are the
+    # same number, so the first merge must be the lowest pair, (3, 11), then 20 joins.
+    n_raters, p = 30, 4
+    Z, who, _ = random_panel(12, n_raters, 90, p)
+    stats = grouped_sscp(Z, who, n_raters)
+    sscp, n = stats.sscp[None].copy(), stats.n[None].copy()
+    sscp[0, [11, 20]] = sscp[0, 3]
+    n[0, [11, 20]] = n[0, 3]
+    active = np.ones((1, n_raters), bool)
+    plain = run("numpy", monkeypatch, sscp, n, active, p, stop_at=1, record=True)
+    compiled = run("compiled", monkeypatch, sscp, n, active, p, stop_at=1, record=True)
+    assert (int(compiled.history[0][1][0]), int(compiled.history[0][2][0])) == (3, 11)
+    assert (int(compiled.history[1][1][0]), int(compiled.history[1][2][0])) == (3, 20)
+    assert_same_merges(compiled, plain, float(sscp[0, :, p, p].sum()))
+
+
+def test_the_engine_is_picked_by_panel_size_and_numba_loads_only_then():
+    # Below the threshold the numpy engine runs and numba is never imported; at it the
+    # compiled engine runs (its first call loads numba).
+    code = (
+        "import sys, numpy as np\n"
+        "from calibrate.panel import merges\n"
+        "from tests.unit.test_grouping_merges import resampled_panel\n"
+        "R = merges._COMPILED_PANEL\n"
+        "for size in (R - 1, R):\n"
+        "    sscp, n, active = resampled_panel(5, size, 3, count_seed=6, n_resamples=1)\n"
+        "    merges.agglomerate(sscp, n, active, 3, stop_at=1, record=False)\n"
+        "    print('numba' in sys.modules, flush=True)\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         check=True).stdout.split()
+    assert out == ["False", "True"]
+
+
+def test_group_raters_gives_the_same_groups_with_either_engine(monkeypatch):
+    from calibrate.panel.grouping import group_raters
+    from tests.unit.grouping_panels import scale_panel
+
+    design, first, _ = scale_panel(6, [30, 6], share_seen=0.7)
+    results = {}
+    for engine in ("numpy", "compiled"):
+        with monkeypatch.context() as patch:
+            patch.setattr(merges, "_COMPILED_PANEL", 0 if engine == "compiled" else 10**9)
+            results[engine] = group_raters(design, first, rng=3, n_resamples=8, n_null=10)
+    plain, compiled = (json.loads(json.dumps(results[e].to_dict())) for e in ("numpy", "compiled"))
+    assert_close_tree(compiled, plain)
+    np.testing.assert_array_equal(results["compiled"].co_assignment,
+                                  results["numpy"].co_assignment)
+
+
+def assert_close_tree(ours, theirs, path=""):
+    """Equal structures and non-float leaves; floats within RELATIVE."""
+    assert type(ours) is type(theirs), path
+    if isinstance(ours, dict):
+        assert ours.keys() == theirs.keys(), path
+        for key in ours:
+            assert_close_tree(ours[key], theirs[key], f"{path}/{key}")
+    elif isinstance(ours, list):
+        assert len(ours) == len(theirs), path
+        for k, (a, b) in enumerate(zip(ours, theirs)):
+            assert_close_tree(a, b, f"{path}[{k}]")
+    elif isinstance(ours, float):
+        assert ours == pytest.approx(theirs, rel=RELATIVE, abs=1e-12), path
+    else:
+        assert ours == theirs, path
