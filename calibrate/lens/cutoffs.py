@@ -215,20 +215,22 @@ def _plans_of_blocks(Xs: list[np.ndarray], search_columns: list[int], min_side: 
             q_run = np.cumsum(Q.reshape(-1, Q.shape[2])[rows_in_order].reshape(Q.shape), axis=1)[:, :-1]
             spread = count - np.einsum("bkq,bkq->bk", q_run, q_run)             # d'Md
             per_column.append((order, admissible & (spread > 1e-8 * count), spread))
+        # Every design's weights at once, (designs, columns, cases); each plan takes views.
+        orders_all = np.stack([order for order, _, _ in per_column], axis=1)
+        usable_all = np.stack([usable for _, usable, _ in per_column], axis=1)
+        weights_all = np.zeros(orders_all.shape)
+        with np.errstate(divide="ignore"):
+            weights_all[:, :, :-1] = np.where(usable_all, 1.0 / np.stack([s for _, _, s in per_column], axis=1), 0.0)
+        searched = usable_all.any(axis=2)
+        reach = n - 1 - np.argmax(usable_all[:, :, ::-1], axis=2)   # the largest admissible count
         for b, i in enumerate(keep):
-            positions, orders, cuts_all, inverse, weights = [], [], [], [], []
-            for pos, (order, usable, spread) in enumerate(per_column):
-                if not usable[b].any():
-                    continue
-                cuts = count[usable[b]]
-                positions.append(pos)
-                orders.append(order[b])
-                cuts_all.append(cuts)
-                inverse.append(1.0 / spread[b, usable[b]])
-                weight = np.zeros((int(cuts[-1]), 1))
-                weight[cuts - 1, 0] = inverse[-1]
-                weights.append(weight)
-            plans[members[i]] = _step_plan(Q[b], positions, orders, cuts_all, inverse, weights)
+            columns = np.flatnonzero(searched[b])
+            plans[members[i]] = _StepPlan(
+                Q[b], tuple(columns.tolist()), tuple(orders_all[b, columns]),
+                tuple(count[usable_all[b, c]] for c in columns),
+                tuple(weights_all[b, c, :-1][usable_all[b, c]] for c in columns),
+                tuple(weights_all[b, c, :reach[b, c], None] for c in columns),
+                orders_all[b, columns].ravel(), weights_all[b, columns])
     return plans
 
 

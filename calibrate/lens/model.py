@@ -968,7 +968,13 @@ def _interval_figures(sums: np.ndarray, p: int) -> dict[str, np.ndarray]:
     where[iu, ju] = where[ju, iu] = 1 + k + np.arange(iu.size)
     with np.errstate(invalid="ignore", divide="ignore"):
         shift = ST[1:1 + k] / n
-        S = ST[where.ravel()].reshape(k, k, -1) - n * shift[:, None, :] * shift[None, :, :]
+        S = ST[where.ravel()].reshape(k, k, -1)
+        # S_ij -= (n shift_i) shift_j a row at a time: the same products as one broadcast
+        # expression, without its two temporaries of k x k x resamples.
+        scaled, product = n * shift, np.empty_like(shift)
+        for i in range(k):
+            np.multiply(scaled[i], shift, out=product)
+            S[i] -= product
         diag = np.arange(k)
         S[diag, diag] = np.maximum(S[diag, diag], 0.0)
         Syy, Scc, Syc = S[ys, ys], S[yc, yc], S[ys, yc]
