@@ -294,7 +294,10 @@ def _line_up_ordered(design: CueDesign, ordered: pd.DataFrame) -> tuple[Judgment
             "numeric reading position.", column="position")])
     # Rater by rater in reading order, so the sums (and the bootstrap draws) do
     # not depend on the row order of the input table.
-    in_order = np.lexsort((position, ordered["rater"].astype(str).to_numpy()))
+    # The raters' codes in sorted order of their names: the same order as sorting the names
+    # themselves, at a fraction of the cost of comparing strings row by row.
+    rater_rank, _ = pd.factorize(ordered["rater"].astype(str), sort=True)
+    in_order = np.lexsort((position, rater_rank))
     ordered, position = ordered.iloc[in_order], position[in_order]
     judgment = pd.to_numeric(ordered["judgment"], errors="coerce").to_numpy(dtype=float)
     numbered = pd.DataFrame({"rater": ordered["rater"].to_numpy(),

@@ -330,35 +330,37 @@ def _best_steps_cases_first(plan: _StepPlan, responses: np.ndarray) -> np.ndarra
 
     The running sums ``e'd`` are formed in blocks of :data:`_RUN_BLOCK` cases (a sum
     within each block, then the blocks' totals carried on), so that every step is one
-    vector operation over all the sets; the sums differ from a case-by-case running sum
-    only by rounding (about 1e-15 of their size). Non-admissible counts get weight zero
-    in ``plan.weights``, so the largest weighted square is the largest admissible gain.
+    vector operation over all the sets, and over all the searched columns at once; the
+    sums differ from a case-by-case running sum only by rounding (about 1e-15 of their
+    size). Non-admissible counts get weight zero in ``plan.step_weights``, so the largest
+    weighted square is the largest admissible gain.
     """
     S, n = responses.shape
     out = np.empty(S)
-    longest = max(w.shape[0] for w in plan.weights)
-    padded = -(-longest // _RUN_BLOCK) * _RUN_BLOCK
+    columns = plan.step_weights.shape[0]
+    padded = -(-n // _RUN_BLOCK) * _RUN_BLOCK
+    weight = np.zeros((columns, padded, 1))
+    weight[:, :n, 0] = plan.step_weights
+    order = plan.case_orders.reshape(columns, n)
+    run = None
     for s0 in range(0, S, _CASES_FIRST_SETS):
         Yt = np.ascontiguousarray(responses[s0:s0 + _CASES_FIRST_SETS].T)      # (n, sets)
         resid = Yt - plan.Q @ (plan.Q.T @ Yt)
         rss = np.einsum("ns,ns->s", resid, resid)
-        best = np.full(Yt.shape[1], -np.inf)
-        run = np.empty((padded, Yt.shape[1]))
-        blocks = run.reshape(padded // _RUN_BLOCK, _RUN_BLOCK, -1)
-        for order, weight in zip(plan.orders, plan.weights):
-            reach = weight.shape[0]
-            np.take(resid, order[:reach], axis=0, out=run[:reach])
-            run[reach:] = 0.0
-            for i in range(1, _RUN_BLOCK):
-                np.add(blocks[:, i], blocks[:, i - 1], out=blocks[:, i])
-            totals = blocks[:, -1]
-            for b in range(1, totals.shape[0]):
-                np.add(totals[b], totals[b - 1], out=totals[b])
-            blocks[1:, :-1] += totals[:-1, None, :]
-            gains = run[:reach]
-            np.square(gains, out=gains)
-            gains *= weight
-            np.maximum(best, gains.max(axis=0), out=best)
+        if run is None or run.shape[2] != Yt.shape[1]:
+            run = np.empty((columns, padded, Yt.shape[1]))   # (columns, cases, sets)
+        np.take(resid, order, axis=0, out=run[:, :n])
+        run[:, n:] = 0.0
+        blocks = run.reshape(columns, padded // _RUN_BLOCK, _RUN_BLOCK, -1)
+        for i in range(1, _RUN_BLOCK):
+            np.add(blocks[:, :, i], blocks[:, :, i - 1], out=blocks[:, :, i])
+        totals = blocks[:, :, -1]
+        for b in range(1, totals.shape[1]):
+            np.add(totals[:, b], totals[:, b - 1], out=totals[:, b])
+        blocks[:, 1:, :-1] += totals[:, :-1, None, :]
+        np.square(run, out=run)
+        run *= weight
+        best = run.reshape(-1, run.shape[2]).max(axis=0)
         with np.errstate(invalid="ignore", divide="ignore"):
             out[s0:s0 + Yt.shape[1]] = np.where(np.isfinite(best), best / rss, np.nan)
     return out
