@@ -313,8 +313,8 @@ def _observed_steps(plans: list[_StepPlan], responses: list[np.ndarray], max_flo
         for r0 in range(0, Y.shape[0], per_chunk):
             rows = slice(r0, r0 + per_chunk)
             at = plan_of_row[rows]
-            y = Y[rows, None, :]
-            resid = (y - np.matmul(np.matmul(y, Q[at]), np.swapaxes(Q[at], 1, 2)))[:, 0]
+            y, basis = Y[rows, None, :], Q[at]
+            resid = (y - np.matmul(np.matmul(y, basis), np.swapaxes(basis, 1, 2)))[:, 0]
             statistic[rows], found = _steps_from_residuals(resid, case_orders[at], step_weights[at],
                                                            np.arange(C), locate=True)
             where[rows, 0] = positions[at, found[:, 0]]
