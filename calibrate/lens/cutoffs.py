@@ -218,9 +218,10 @@ def _plans_of_blocks(Xs: list[np.ndarray], search_columns: list[int], min_side: 
         # Every design's weights at once, (designs, columns, cases); each plan takes views.
         orders_all = np.stack([order for order, _, _ in per_column], axis=1)
         usable_all = np.stack([usable for _, usable, _ in per_column], axis=1)
+        spread_all = np.stack([spread for _, _, spread in per_column], axis=1)
         weights_all = np.zeros(orders_all.shape)
         with np.errstate(divide="ignore"):
-            weights_all[:, :, :-1] = np.where(usable_all, 1.0 / np.stack([s for _, _, s in per_column], axis=1), 0.0)
+            weights_all[:, :, :-1] = np.where(usable_all, 1.0 / spread_all, 0.0)
         searched = usable_all.any(axis=2)
         reach = n - 1 - np.argmax(usable_all[:, :, ::-1], axis=2)   # the largest admissible count
         for b, i in enumerate(keep):
