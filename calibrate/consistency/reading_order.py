@@ -217,9 +217,14 @@ def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk
     full_index = np.empty((k, k), dtype=np.intp)
     full_index[upper_i, upper_j] = full_index[upper_j, upper_i] = np.arange(upper_i.size)
     full_index = full_index.ravel()
-    moments = np.zeros((n_cells, longest, k + upper_i.size))
-    moments[cell, slot, :k] = Zc
-    moments[cell, slot, k:] = Zc[:, upper_i] * Zc[:, upper_j]
+    # Whole rows, row-major, scattered by one flat index: ``Zc[:, upper_i]`` comes out
+    # column-major, and scattering it by two index arrays took about 1.8 s wall at 2,000 raters.
+    per_row = np.empty((len(Zc), k + upper_i.size))
+    per_row[:, :k] = Zc
+    np.multiply(np.take(Zc, upper_i, axis=1), np.take(Zc, upper_j, axis=1), out=per_row[:, k:])
+    moments = np.zeros((n_cells, longest, per_row.shape[1]))
+    moments.reshape(n_cells * longest, -1)[cell * longest + slot] = per_row
+    del per_row
     noise_floor = ROUNDING_SHARE * np.stack([np.bincount(cell, weights=Zc[:, j] ** 2, minlength=n_cells)
                                              for j in range(k)], axis=1)  # (cells, k)
     padding = ~(np.arange(longest)[None, :] < sizes[:, None])[None]     # (1, cells, longest)
@@ -258,10 +263,16 @@ def _bootstrap_r_s_change(Z, cell, position, n_cells, p, n_resamples, rng, chunk
         r_s = _r_s_stack_last(sscp, np.repeat(sizes.astype(float), B), p).reshape(n_cells // 2, 2, B)
         diffs.append((r_s[:, 1] - r_s[:, 0]).T)
     diffs = np.concatenate(diffs)
-    with warnings.catch_warnings():
-        # A rater whose halves are too small has only NaN draws; NaN is the answer.
-        warnings.simplefilter("ignore", RuntimeWarning)
-        low, high = np.nanpercentile(diffs, [2.5, 97.5], axis=0)
+    # nanpercentile goes rater by rater in Python; the raters without a NaN draw (nearly
+    # all) take the same percentiles in one call.
+    whole = ~np.isnan(diffs).any(axis=0)
+    low, high = np.empty(diffs.shape[1]), np.empty(diffs.shape[1])
+    low[whole], high[whole] = np.percentile(diffs[:, whole], [2.5, 97.5], axis=0)
+    if not whole.all():
+        with warnings.catch_warnings():
+            # A rater whose halves are too small has only NaN draws; NaN is the answer.
+            warnings.simplefilter("ignore", RuntimeWarning)
+            low[~whole], high[~whole] = np.nanpercentile(diffs[:, ~whole], [2.5, 97.5], axis=0)
     return low, high
 
 
@@ -284,7 +295,10 @@ def _line_up_ordered(design: CueDesign, ordered: pd.DataFrame) -> tuple[Judgment
             "numeric reading position.", column="position")])
     # Rater by rater in reading order, so the sums (and the bootstrap draws) do
     # not depend on the row order of the input table.
-    in_order = np.lexsort((position, ordered["rater"].astype(str).to_numpy()))
+    # The raters' codes in sorted order of their names: the same order as sorting the names
+    # themselves, at a fraction of the cost of comparing strings row by row.
+    rater_rank, _ = pd.factorize(ordered["rater"].astype(str), sort=True)
+    in_order = np.lexsort((position, rater_rank))
     ordered, position = ordered.iloc[in_order], position[in_order]
     judgment = pd.to_numeric(ordered["judgment"], errors="coerce").to_numpy(dtype=float)
     numbered = pd.DataFrame({"rater": ordered["rater"].to_numpy(),

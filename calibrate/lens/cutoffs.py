@@ -47,7 +47,7 @@ the cut-off get all ``n_sim``.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -126,7 +126,9 @@ class _StepPlan:
     ``Q`` is an orthonormal basis of [1, X]; per searched column, the case order,
     the admissible counts below a threshold and ``1 / d'Md`` for each; ``weights`` holds
     the same ``1 / d'Md`` at row ``count - 1`` of a column of zeros (one row per case up
-    to the largest count), for the cases-first search.
+    to the largest count), for the cases-first search. ``case_orders`` and ``step_weights``
+    are the same for all searched columns at once: the orders end to end, and
+    ``(columns, cases)`` weights, zero past each column's largest count.
     """
 
     Q: np.ndarray
@@ -135,6 +137,19 @@ class _StepPlan:
     cuts: tuple[np.ndarray, ...]
     inverse_spread: tuple[np.ndarray, ...]
     weights: tuple[np.ndarray, ...] = ()
+    case_orders: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+    step_weights: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+
+
+def _step_plan(Q, positions, orders, cuts, inverse, weights) -> _StepPlan:
+    """A :class:`_StepPlan` with its all-columns layout laid out from the per-column one."""
+    n = Q.shape[0]
+    step_weights = np.zeros((len(orders), n))
+    for row, weight in zip(step_weights, weights):
+        row[:weight.shape[0]] = weight[:, 0]
+    case_orders = np.concatenate(orders) if orders else np.zeros(0, dtype=np.intp)
+    return _StepPlan(Q, tuple(positions), tuple(orders), tuple(cuts), tuple(inverse), tuple(weights),
+                     case_orders, step_weights)
 
 
 def _plan_steps(X: np.ndarray, search_columns: list[int], min_side: int) -> _StepPlan:
@@ -166,7 +181,7 @@ def _plan_from_basis(X: np.ndarray, Q: np.ndarray, r_factor: np.ndarray, search_
             weight = np.zeros((int(cuts[usable][-1]), 1))
             weight[cuts[usable] - 1, 0] = inverse[-1]
             weights.append(weight)
-    return _StepPlan(Q, tuple(positions), tuple(orders), tuple(cuts_all), tuple(inverse), tuple(weights))
+    return _step_plan(Q, positions, orders, cuts_all, inverse, weights)
 
 
 def _plans_of_blocks(Xs: list[np.ndarray], search_columns: list[int], min_side: int) -> list[_StepPlan]:
@@ -200,21 +215,23 @@ def _plans_of_blocks(Xs: list[np.ndarray], search_columns: list[int], min_side: 
             q_run = np.cumsum(Q.reshape(-1, Q.shape[2])[rows_in_order].reshape(Q.shape), axis=1)[:, :-1]
             spread = count - np.einsum("bkq,bkq->bk", q_run, q_run)             # d'Md
             per_column.append((order, admissible & (spread > 1e-8 * count), spread))
+        # Every design's weights at once, (designs, columns, cases); each plan takes views.
+        orders_all = np.stack([order for order, _, _ in per_column], axis=1)
+        usable_all = np.stack([usable for _, usable, _ in per_column], axis=1)
+        spread_all = np.stack([spread for _, _, spread in per_column], axis=1)
+        weights_all = np.zeros(orders_all.shape)
+        with np.errstate(divide="ignore"):
+            weights_all[:, :, :-1] = np.where(usable_all, 1.0 / spread_all, 0.0)
+        searched = usable_all.any(axis=2)
+        reach = n - 1 - np.argmax(usable_all[:, :, ::-1], axis=2)   # the largest admissible count
         for b, i in enumerate(keep):
-            positions, orders, cuts_all, inverse, weights = [], [], [], [], []
-            for pos, (order, usable, spread) in enumerate(per_column):
-                if not usable[b].any():
-                    continue
-                cuts = count[usable[b]]
-                positions.append(pos)
-                orders.append(order[b])
-                cuts_all.append(cuts)
-                inverse.append(1.0 / spread[b, usable[b]])
-                weight = np.zeros((int(cuts[-1]), 1))
-                weight[cuts - 1, 0] = inverse[-1]
-                weights.append(weight)
-            plans[members[i]] = _StepPlan(Q[b], tuple(positions), tuple(orders), tuple(cuts_all),
-                                          tuple(inverse), tuple(weights))
+            columns = np.flatnonzero(searched[b])
+            plans[members[i]] = _StepPlan(
+                Q[b], tuple(columns.tolist()), tuple(orders_all[b, columns]),
+                tuple(count[usable_all[b, c]] for c in columns),
+                tuple(weights_all[b, c, :-1][usable_all[b, c]] for c in columns),
+                tuple(weights_all[b, c, :reach[b, c], None] for c in columns),
+                orders_all[b, columns].ravel(), weights_all[b, columns])
     return plans
 
 
@@ -232,26 +249,81 @@ def _best_steps(plan: _StepPlan, responses: np.ndarray, *, locate: bool = False)
     if not locate and responses.shape[0] >= _CASES_FIRST_FROM and plan.weights:
         return _best_steps_cases_first(plan, responses), None
     resid = responses - (responses @ plan.Q) @ plan.Q.T
+    return _steps_from_residuals(resid, plan.case_orders[None, :], plan.step_weights[None],
+                                 np.asarray(plan.positions, dtype=np.intp), locate=locate)
+
+
+def _steps_from_residuals(resid: np.ndarray, case_orders: np.ndarray, step_weights: np.ndarray,
+                          positions: np.ndarray, *, locate: bool):
+    """:func:`_best_steps` from the residuals of the linear policy, (S, n), with each row's
+    ``case_orders`` (S or 1, columns * n) and ``step_weights`` (S or 1, columns, n).
+
+    Every searched column's running sums ``e'd`` in one pass, each in its own order (the
+    same additions as a running sum per column); a count that is no admissible threshold
+    has weight zero, and the best gain is never below zero, so the largest weighted square
+    is the largest admissible gain. The winner is the first column, then the first count,
+    that reaches it.
+    """
+    S, n = resid.shape
+    C = step_weights.shape[1]
     rss = np.einsum("sn,sn->s", resid, resid)
-    S = responses.shape[0]
-    best = np.full(S, -np.inf)
     where = np.zeros((S, 2), dtype=np.intp) if locate else None
-    for pos, order, cuts, inverse in zip(plan.positions, plan.orders, plan.cuts, plan.inverse_spread):
-        gains = np.cumsum(resid[:, order], axis=1)[:, cuts - 1]   # e'd, (S, K)
-        np.square(gains, out=gains)
-        gains *= inverse
-        if locate:
-            k_best = np.argmax(gains, axis=1)
-            g_best = gains[np.arange(S), k_best]
-            better = g_best > best
-            where[better, 0] = pos
-            where[better, 1] = cuts[k_best[better]]
-        else:
-            g_best = gains.max(axis=1)
-        best = np.maximum(best, g_best)
+    if not C:
+        return np.full(S, np.nan), where
+    if case_orders.shape[0] == 1:
+        gains = resid[:, case_orders[0]]
+    else:
+        gains = np.take_along_axis(resid, case_orders, axis=1)
+    gains = np.cumsum(gains.reshape(S, C, n), axis=2)
+    np.square(gains, out=gains)
+    gains *= step_weights
+    gains = gains.reshape(S, C * n)
+    if locate:
+        gains[np.broadcast_to(step_weights.reshape(-1, C * n) == 0, gains.shape)] = -np.inf
+        at = np.argmax(gains, axis=1)
+        best = gains[np.arange(S), at]
+        where[:, 0] = positions[at // n]
+        where[:, 1] = at % n + 1
+    else:
+        best = gains.max(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         statistic = np.where(np.isfinite(best), best / rss, np.nan)
     return statistic, where
+
+
+def _observed_steps(plans: list[_StepPlan], responses: list[np.ndarray], max_floats: int = 1_000_000):
+    """:func:`_best_steps` with ``locate`` of each (plan, response rows) pair, the pairs whose
+    plans have the same shape searched together (rows from many plans in one pass)."""
+    out: list = [None] * len(plans)
+    by_shape: dict[tuple[int, ...], list[int]] = {}
+    for i, plan in enumerate(plans):
+        by_shape.setdefault(plan.Q.shape + plan.step_weights.shape, []).append(i)
+    for (n, q, C, _), members in by_shape.items():
+        if len(members) == 1 or not C:
+            for i in members:
+                out[i] = _best_steps(plans[i], responses[i], locate=True)
+            continue
+        Y = np.concatenate([responses[i] for i in members])
+        plan_of_row = np.repeat(np.arange(len(members)), [responses[i].shape[0] for i in members])
+        Q = np.stack([plans[i].Q for i in members])
+        case_orders = np.stack([plans[i].case_orders for i in members])
+        step_weights = np.stack([plans[i].step_weights for i in members])
+        positions = np.stack([np.asarray(plans[i].positions, dtype=np.intp) for i in members])
+        statistic, where = np.empty(Y.shape[0]), np.empty((Y.shape[0], 2), dtype=np.intp)
+        per_chunk = max(1, max_floats // (C * n))
+        for r0 in range(0, Y.shape[0], per_chunk):
+            rows = slice(r0, r0 + per_chunk)
+            at = plan_of_row[rows]
+            y, basis = Y[rows, None, :], Q[at]
+            resid = (y - np.matmul(np.matmul(y, basis), np.swapaxes(basis, 1, 2)))[:, 0]
+            statistic[rows], found = _steps_from_residuals(resid, case_orders[at], step_weights[at],
+                                                           np.arange(C), locate=True)
+            where[rows, 0] = positions[at, found[:, 0]]
+            where[rows, 1] = found[:, 1]
+        starts = np.r_[0, np.cumsum([responses[i].shape[0] for i in members])]
+        for j, i in enumerate(members):
+            out[i] = statistic[starts[j]:starts[j + 1]], where[starts[j]:starts[j + 1]]
+    return out
 
 
 def _best_steps_cases_first(plan: _StepPlan, responses: np.ndarray) -> np.ndarray:
@@ -259,35 +331,37 @@ def _best_steps_cases_first(plan: _StepPlan, responses: np.ndarray) -> np.ndarra
 
     The running sums ``e'd`` are formed in blocks of :data:`_RUN_BLOCK` cases (a sum
     within each block, then the blocks' totals carried on), so that every step is one
-    vector operation over all the sets; the sums differ from a case-by-case running sum
-    only by rounding (about 1e-15 of their size). Non-admissible counts get weight zero
-    in ``plan.weights``, so the largest weighted square is the largest admissible gain.
+    vector operation over all the sets, and over all the searched columns at once; the
+    sums differ from a case-by-case running sum only by rounding (about 1e-15 of their
+    size). Non-admissible counts get weight zero in ``plan.step_weights``, so the largest
+    weighted square is the largest admissible gain.
     """
     S, n = responses.shape
     out = np.empty(S)
-    longest = max(w.shape[0] for w in plan.weights)
-    padded = -(-longest // _RUN_BLOCK) * _RUN_BLOCK
+    columns = plan.step_weights.shape[0]
+    padded = -(-n // _RUN_BLOCK) * _RUN_BLOCK
+    weight = np.zeros((columns, padded, 1))
+    weight[:, :n, 0] = plan.step_weights
+    order = plan.case_orders.reshape(columns, n)
+    run = None
     for s0 in range(0, S, _CASES_FIRST_SETS):
         Yt = np.ascontiguousarray(responses[s0:s0 + _CASES_FIRST_SETS].T)      # (n, sets)
         resid = Yt - plan.Q @ (plan.Q.T @ Yt)
         rss = np.einsum("ns,ns->s", resid, resid)
-        best = np.full(Yt.shape[1], -np.inf)
-        run = np.empty((padded, Yt.shape[1]))
-        blocks = run.reshape(padded // _RUN_BLOCK, _RUN_BLOCK, -1)
-        for order, weight in zip(plan.orders, plan.weights):
-            reach = weight.shape[0]
-            np.take(resid, order[:reach], axis=0, out=run[:reach])
-            run[reach:] = 0.0
-            for i in range(1, _RUN_BLOCK):
-                np.add(blocks[:, i], blocks[:, i - 1], out=blocks[:, i])
-            totals = blocks[:, -1]
-            for b in range(1, totals.shape[0]):
-                np.add(totals[b], totals[b - 1], out=totals[b])
-            blocks[1:, :-1] += totals[:-1, None, :]
-            gains = run[:reach]
-            np.square(gains, out=gains)
-            gains *= weight
-            np.maximum(best, gains.max(axis=0), out=best)
+        if run is None or run.shape[2] != Yt.shape[1]:
+            run = np.empty((columns, padded, Yt.shape[1]))   # (columns, cases, sets)
+        np.take(resid, order, axis=0, out=run[:, :n])
+        run[:, n:] = 0.0
+        blocks = run.reshape(columns, padded // _RUN_BLOCK, _RUN_BLOCK, -1)
+        for i in range(1, _RUN_BLOCK):
+            np.add(blocks[:, :, i], blocks[:, :, i - 1], out=blocks[:, :, i])
+        totals = blocks[:, :, -1]
+        for b in range(1, totals.shape[1]):
+            np.add(totals[:, b], totals[:, b - 1], out=totals[:, b])
+        blocks[:, 1:, :-1] += totals[:, :-1, None, :]
+        np.square(run, out=run)
+        run *= weight
+        best = run.reshape(-1, run.shape[2]).max(axis=0)
         with np.errstate(invalid="ignore", divide="ignore"):
             out[s0:s0 + Yt.shape[1]] = np.where(np.isfinite(best), best / rss, np.nan)
     return out
@@ -455,11 +529,13 @@ def cutoff_check(
         keys = [key for key in blocks if key[1] == side]
         designs = [rows.X[per_rater[blocks[key][0]]] for key in keys]
         plans.update(zip(keys, _plans_of_blocks(designs, search, side)))
+    responses = {key: np.stack([rows.y[per_rater[g]] for g in members]) for key, members in blocks.items()}
+    observed = dict(zip(blocks, _observed_steps([plans[key] for key in blocks], list(responses.values()))))
     for key, members in blocks.items():
         X = rows.X[per_rater[members[0]]]
         plan = plans[key]
-        Y = np.stack([rows.y[per_rater[g]] for g in members])
-        stat, where = _best_steps(plan, Y, locate=True)
+        Y = responses[key]
+        stat, where = observed[key]
         tested = []
         for i, g in enumerate(members):
             name, n = rows.raters[g], Y.shape[1]
