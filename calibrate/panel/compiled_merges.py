@@ -11,9 +11,13 @@ O(B R^2)), and a step visits the live groups one at a time instead of gathering
 here, so a cost can differ from the numpy engine's in its last digits (tested: within
 1e-9 relative, with the same merges).
 
-Imported only when :func:`calibrate.panel.merges.agglomerate` picks this engine, so
-small panels, the demo and ``calibrate --help`` never load numba. The first call on a
-machine compiles (seconds) into numba's cache beside this file; ``make`` runs
+The join of the keep-apart rule's pieces (:func:`join_pieces`, for
+``stability._join_pieces_lockstep``) is compiled here too, on the same terms: the
+numpy join's pick and verdicts, one batch after another, one P x P pair matrix.
+
+Imported only when :func:`calibrate.panel.merges.agglomerate` or the join picks this
+engine, so small panels, the demo and ``calibrate --help`` never load numba. The first
+call on a machine compiles (seconds) into numba's cache beside this file; ``make`` runs
 :func:`warm_up` after installing, so that an audit only loads the compiled code.
 """
 
@@ -23,8 +27,9 @@ import numpy as np
 from numba import njit
 
 from .merges import _BOUND_ABSOLUTE_SLACK, batched_rss, bound_metric, bound_profiles
+from .stability import _BRACKET_SLACK, KeepApartRule, common_weights
 
-__all__ = ["merge_batches", "warm_up"]
+__all__ = ["join_pieces", "merge_batches", "warm_up"]
 
 
 @njit(cache=True)
@@ -150,6 +155,16 @@ def _settle_bounded(x, known, column, best, best_column, live, n_live, groups, p
 
 
 @njit(cache=True)
+def _back_solve(chol, solved, p):
+    """``solved`` from ``L^-1 rhs`` to ``L'^-1 L^-1 rhs``, in place (``chol``: L)."""
+    for a in range(p - 1, -1, -1):
+        value = solved[a]
+        for t in range(a + 1, p):
+            value -= chol[t, a] * solved[t]
+        solved[a] = value / chol[a, a]
+
+
+@njit(cache=True)
 def _refresh_profile(i, low_merged, groups, profiles, root, work):
     """The bound's profile of merged group i (as :func:`merges.bound_profiles` with
     ``low`` given): beta by Cholesky of the cue block, ``u = beta W^1/2``."""
@@ -158,11 +173,7 @@ def _refresh_profile(i, low_merged, groups, profiles, root, work):
     chol, beta = work[0], work[1]
     usable = np.isfinite(_forward_solve(sscp[i], sscp[i, :p, p], p, chol, beta))
     if usable:
-        for a in range(p - 1, -1, -1):
-            value = beta[a]
-            for t in range(a + 1, p):
-                value -= chol[t, a] * beta[t]
-            beta[a] = value / chol[a, a]
+        _back_solve(chol, beta, p)
     length = 0.0
     for t in range(p):
         value = 0.0
@@ -359,8 +370,230 @@ def merge_batches(group_sscp, group_n, group_rss, active, p, stop_at, record):
     return labels, history, last_cost, int(n_exact)
 
 
+@njit(cache=True)
+def _size_class(smaller):
+    """:func:`stability.size_class` of one count: floor(log2(max(n, 1))), in whole numbers."""
+    remaining, out = max(smaller, 1), -1
+    while remaining:
+        remaining >>= 1
+        out += 1
+    return out
+
+
+@njit(cache=True, error_model="numpy")
+def _kept_apart(loss, smaller, rule):
+    """:meth:`stability.KeepApartRule.apart` of one merge (NaN never kept apart)."""
+    threshold, alpha, scale, null_max = rule
+    if not loss > threshold or scale.size == 0:
+        return False
+    scaled = loss / scale[min(_size_class(smaller), scale.size - 1)]
+    if not np.isfinite(scaled):
+        return False
+    # numpy's searchsorted (side "left"): how many of the sorted null_max lie below
+    # scaled; a NaN there sorts last and is never below.
+    lo, hi = 0, null_max.size
+    while lo < hi:
+        middle = (lo + hi) // 2
+        if null_max[middle] < scaled:
+            lo = middle + 1
+        else:
+            hi = middle
+    return (1.0 + (null_max.size - lo)) / (null_max.size + 1.0) < alpha
+
+
+@njit(cache=True)
+def _common_weights(sscp, lo, hi, p, work, out):
+    """Common weights of the summed SSCPs of groups ``lo`` and ``hi`` into ``out``
+    (Cholesky of the cue block; NaN when it proves not positive definite)."""
+    chol, rhs, summed = work[0], work[2], work[3]
+    for a in range(p):
+        for c in range(a + 1):
+            summed[a, c] = sscp[lo, a, c] + sscp[hi, a, c]
+        rhs[a] = sscp[lo, a, p] + sscp[hi, a, p]
+    if np.isfinite(_forward_solve(summed, rhs, p, chol, out)):
+        _back_solve(chol, out, p)
+    else:
+        out[:] = np.nan
+
+
+@njit(cache=True, error_model="numpy")
+def _side_loss(first, second, pieces, work, merged):
+    """:func:`stability.merge_side_loss` of joining two pieces, their own weights kept."""
+    group, _, own_weights, _, p = pieces
+    _common_weights(group, first, second, p, work, merged)
+    worst = -np.inf
+    for side in (first, second):
+        quadratic = 0.0
+        for a in range(p):
+            gap_a = merged[a] - own_weights[side, a]
+            for c in range(p):
+                quadratic += gap_a * group[side, a, c] * (merged[c] - own_weights[side, c])
+        loss = quadratic / group[side, p, p]
+        if np.isnan(loss) or np.isnan(worst):  # np.maximum: a NaN side wins
+            worst = np.nan
+        elif loss > worst:
+            worst = loss
+    return worst
+
+
+@njit(cache=True, error_model="numpy")
+def _score_pieces(first, second, pieces, rule, pairs, work):
+    """Cost and verdict of joining pieces ``first < second`` (as the numpy join's
+    ``score``: the verdict from the cost's bracket where it is certain, else from the
+    side loss)."""
+    group, own_rss, _, size, p = pieces
+    cost, allowed, nothing, merged = pairs
+    both = _merged_rss(group, first, second, p, work)
+    value = both - own_rss[first] - own_rss[second]
+    cost[first, second] = value
+    smaller = min(size[first], size[second])
+    syy_a, syy_b = group[first, p, p], group[second, p, p]
+    slack = _BRACKET_SLACK * (abs(both) + own_rss[first] + own_rss[second])
+    low = (value - slack) / (syy_a + syy_b) * (1.0 - _BRACKET_SLACK)
+    high = (value + slack) / min(syy_a, syy_b) * (1.0 + _BRACKET_SLACK)
+    together = not _kept_apart(high, smaller, rule)
+    sure = (together or _kept_apart(low, smaller, rule)) and np.isfinite(low) and np.isfinite(high)
+    if not sure:
+        together = not _kept_apart(_side_loss(first, second, pieces, work, merged), smaller, rule)
+    allowed[first, second] = together
+    return together
+
+
+@njit(cache=True)
+def _join_key(cost, allowed, x, y):
+    """The numpy join's ranking of pair (x, y): its cost if allowed (NaN first, then a
+    cost of -inf, as ``nan_to_num(nan=-inf)`` orders them), +inf if not."""
+    if not allowed[x, y]:
+        return np.inf
+    value = cost[x, y]
+    if np.isnan(value):
+        return -np.inf
+    if value == -np.inf:
+        return -np.finfo(np.float64).max
+    return value
+
+
+@njit(cache=True)
+def _row_minimum(x, n_pieces, cost, allowed, row_best, row_arg):
+    """Row x's cheapest allowed pair (the first column on a tie; column 0 if none)."""
+    best, column = np.inf, 0
+    for y in range(n_pieces):
+        value = _join_key(cost, allowed, x, y)
+        if value < best:
+            best, column = value, y
+    row_best[x] = best
+    row_arg[x] = column
+
+
+@njit(cache=True, error_model="numpy")
+def _join_batch(n_pieces, pieces, rule, pairs, work, final):
+    """Join one batch's pieces, cheapest allowed pair first, while any pair is allowed.
+
+    Writes each piece's final piece into ``final``. The order and bookkeeping are the
+    numpy join's (``stability._join_pieces_lockstep``) for one batch.
+    """
+    group, own_rss, own_weights, size, p = pieces
+    cost, allowed, nothing, _ = pairs
+    alive = np.zeros(n_pieces, np.bool_)
+    alive[:] = True
+    n_allowed = 0
+    for x in range(n_pieces):
+        for y in range(n_pieces):
+            allowed[x, y] = False
+    for x in range(n_pieces):
+        for y in range(x + 1, n_pieces):
+            n_allowed += int(_score_pieces(x, y, pieces, rule, pairs, work))
+    row_best, row_arg = np.full(n_pieces, np.inf), np.zeros(n_pieces, np.int64)
+    for x in range(n_pieces):
+        _row_minimum(x, n_pieces, cost, allowed, row_best, row_arg)
+    kept, absorbed = np.empty(n_pieces, np.int64), np.empty(n_pieces, np.int64)
+    n_joins = 0
+    while n_allowed > 0:
+        keep = 0
+        for x in range(1, n_pieces):
+            if row_best[x] < row_best[keep]:
+                keep = x
+        gone = row_arg[keep]
+        if row_best[keep] == np.inf:  # every allowed pair costs +inf: the first allowed
+            found = False
+            for x in range(n_pieces):
+                for y in range(x + 1, n_pieces):
+                    if allowed[x, y] and not found:
+                        keep, gone, found = x, y, True
+        kept[n_joins], absorbed[n_joins] = keep, gone
+        n_joins += 1
+        for a in range(p + 1):
+            for c in range(p + 1):
+                group[keep, a, c] = group[keep, a, c] + group[gone, a, c]
+        size[keep] += size[gone]
+        alive[gone] = False
+        for slot in (gone, keep):
+            for y in range(n_pieces):
+                n_allowed -= int(allowed[slot, y]) + int(allowed[y, slot])
+                allowed[slot, y] = False
+                allowed[y, slot] = False
+        own_rss[keep] = _merged_rss(group, keep, nothing, p, work)
+        _common_weights(group, keep, nothing, p, work, own_weights[keep])
+        for y in range(n_pieces):
+            if alive[y] and y != keep:
+                n_allowed += int(_score_pieces(min(y, keep), max(y, keep), pieces, rule, pairs,
+                                               work))
+        # Rows whose cheapest pair was cleared, and the two joined rows, in full; a row
+        # below ``keep`` gained one new pair (column keep) and keeps its minimum unless
+        # that pair undercuts it.
+        for x in range(n_pieces):
+            if x == keep or x == gone or row_arg[x] == keep or row_arg[x] == gone:
+                _row_minimum(x, n_pieces, cost, allowed, row_best, row_arg)
+            elif alive[x] and x < keep:
+                value = _join_key(cost, allowed, x, keep)
+                if value < row_best[x] or (value == row_best[x] and keep < row_arg[x]):
+                    row_best[x], row_arg[x] = value, keep
+    for x in range(n_pieces):  # each piece's final piece, from the last join back
+        final[x] = x
+    for s in range(n_joins - 1, -1, -1):
+        final[absorbed[s]] = final[kept[s]]
+
+
+@njit(cache=True)
+def _join_all(group, n_pieces, own_rss, own_weights, size, p, rule):
+    """Every batch's joins, one batch after another, on one P x P pair matrix.
+
+    ``group`` (B, P + 1, k, k) with an all-zero last slot (a piece's own fit is the
+    merged fit of it and that slot); the arrays are work copies (overwritten).
+    """
+    B, P = size.shape
+    pairs = (np.empty((P, P)), np.zeros((P, P), np.bool_), P, np.empty(p))
+    work = (np.empty((p, p)), np.empty(p), np.empty(p), np.empty((p, p)))
+    final = np.zeros((B, P), np.int64)
+    for x in range(P):
+        final[:, x] = x
+    for b in range(B):
+        pieces = (group[b], own_rss[b], own_weights[b], size[b], p)
+        _join_batch(n_pieces[b], pieces, rule, pairs, work, final[b])
+    return final
+
+
+def join_pieces(group, n_pieces, own_rss, own_weights, size, rule, p):
+    """The joins of :func:`calibrate.panel.stability._join_pieces_lockstep`, compiled.
+
+    ``group`` (B, P, k, k), ``own_rss`` (B, P), ``own_weights`` (B, P, p) and ``size``
+    (B, P) of every batch's pieces, live in the first ``n_pieces[b]`` slots; not
+    modified. Returns (B, P) each slot's final slot.
+    """
+    B, P = size.shape
+    padded = np.zeros((B, P + 1) + group.shape[2:])
+    padded[:, :P] = group
+    rule_arrays = (float(rule.threshold), float(rule.alpha),
+                   np.ascontiguousarray(rule.scale, dtype=float),
+                   np.ascontiguousarray(rule.null_max, dtype=float))
+    return _join_all(padded, np.asarray(n_pieces, dtype=np.int64),
+                     np.array(own_rss, dtype=float), np.array(own_weights, dtype=float),
+                     np.array(size, dtype=np.int64), int(p), rule_arrays)
+
+
 def warm_up() -> None:
-    """Compile the engine into numba's cache (or load it from there) on a tiny panel."""
+    """Compile the merge loop and the join into numba's cache (or load them from
+    there) on a tiny panel."""
     rng = np.random.default_rng(0)
     B, R, p = 2, 6, 2
     rows = rng.normal(size=(B, R, 12, p + 1))
@@ -369,3 +602,7 @@ def warm_up() -> None:
     n = np.full((B, R), 12.0)
     active = np.ones((B, R), bool)
     merge_batches(sscp.copy(), n, batched_rss(sscp, n, p), active, p, 1, True)
+    rule = KeepApartRule(0.0, 0.05, np.array([0.01]), np.array([0.0, 1.0]))
+    join_pieces(sscp, np.full(B, R), batched_rss(sscp, n, p),
+                common_weights(sscp.reshape(B * R, p + 1, p + 1), p).reshape(B, R, p),
+                np.ones((B, R), int), rule, p)

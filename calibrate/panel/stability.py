@@ -22,6 +22,7 @@ from scipy.cluster.hierarchy import fcluster, linkage
 from scipy.optimize import linear_sum_assignment
 
 from ..policy.linalg import GroupedSSCP, grouped_sscp, ols_from_sscp
+from . import merges
 from .merges import (
     agglomerate,
     batched_rss,
@@ -406,9 +407,31 @@ def _join_pieces_lockstep(sscp, n, piece, rule, p) -> np.ndarray:
     first one on a tie (row-major order of the upper triangle). The batches merge in
     lockstep, one pick each per round, padded to the largest number of pieces: a
     resample's pieces were joined one batch at a time before, 3,216 rounds of small
-    solves for the 21 groupings of a 2,000-rater panel.
+    solves for the 21 groupings of a 2,000-rater panel. From ``merges._COMPILED_PANEL``
+    raters on, the same joins run compiled, one batch after another
+    (:func:`calibrate.panel.compiled_merges.join_pieces`: the same pieces; costs and
+    weights by Cholesky, so their last digits can differ).
     """
-    B, R = piece.shape
+    ids, *pieces = _piece_sums(sscp, n, piece, p)
+    if piece.shape[1] >= merges._COMPILED_PANEL:
+        from .compiled_merges import join_pieces  # loads numba: only for panels this big
+        group, _, size, alive, own_rss, own_weights = pieces
+        final = join_pieces(group, alive.sum(axis=1), own_rss, own_weights, size, rule, p)
+    else:
+        final = _join_in_lockstep(*pieces, rule, p)
+    out = piece.copy()
+    for b, own in enumerate(ids):
+        if own.size:
+            where = out[b] >= 0
+            out[b, where] = own[final[b, np.searchsorted(own, out[b, where])]]
+    return out
+
+
+def _piece_sums(sscp, n, piece, p):
+    """Each batch's piece labels and, per piece slot, summed SSCP, count, number of
+    raters, liveness, own RSS and own common weights (the pieces of a batch in the
+    first slots, in label order)."""
+    B = piece.shape[0]
     ids = [np.unique(row[row >= 0]) for row in piece]
     P = max(len(i) for i in ids)
     k = sscp.shape[-1]
@@ -427,6 +450,15 @@ def _join_pieces_lockstep(sscp, n, piece, rule, p) -> np.ndarray:
     own_weights = np.zeros((B, P, p))
     own_rss[alive] = merged_rss(group[alive], count[alive], p)
     own_weights[alive] = common_weights(group[alive], p)
+    return ids, group, count, size, alive, own_rss, own_weights
+
+
+def _join_in_lockstep(group, count, size, alive, own_rss, own_weights, rule, p):
+    """The numpy join of :func:`_join_pieces_lockstep`: (B, P) each slot's final slot.
+
+    The arrays of :func:`_piece_sums` are worked on in place.
+    """
+    B, P = alive.shape
     cost = np.full((B, P, P), np.inf)
     allowed = np.zeros((B, P, P), dtype=bool)   # upper triangle only, live pieces only
 
@@ -526,12 +558,7 @@ def _join_pieces_lockstep(sscp, n, piece, rule, p) -> np.ndarray:
     final = np.broadcast_to(np.arange(P), (B, P)).copy()
     for todo, keep, gone in reversed(joins):
         final[todo, gone] = final[todo, keep]
-    out = piece.copy()
-    for b, own in enumerate(ids):
-        if own.size:
-            where = out[b] >= 0
-            out[b, where] = own[final[b, np.searchsorted(own, out[b, where])]]
-    return out
+    return final
 
 
 def resampled_labels(Z, who, case_row, counts, eligible, p, chosen,

@@ -151,18 +151,25 @@ def _rater_sscp(design, first):
     return Z, who, grouped_sscp(Z, who, len(raters))
 
 
+def starting_pieces(which):
+    """A small panel's per-rater SSCPs, its number of cues, a generator and three
+    starting pieces: every rater alone, five pieces, eight with some raters left out."""
+    design, first = next((d, f) for name, d, f in _panels() if name == which)
+    _, _, full = _rater_sscp(design, first)
+    R = full.n.size
+    rng = np.random.default_rng(5)
+    starts = (np.arange(R), rng.integers(0, 5, R),
+              np.where(rng.random(R) < 0.2, -1, rng.integers(0, 8, R)))
+    return full, design.n_columns, rng, starts
+
+
 @pytest.mark.parametrize("which", ["shared 1-7", "incomplete 1-7", "incomplete 0/1"])
 @pytest.mark.parametrize("threshold", [0.0, 0.02, 0.5])
 def test_joining_pieces_equals_the_pairwise_scan(which, threshold):
     from calibrate.panel.stability import KeepApartRule, _join_pieces
 
-    design, first = next((d, f) for name, d, f in _panels() if name == which)
-    Z, who, full = _rater_sscp(design, first)
-    p = design.n_columns
-    R = full.n.size
-    rng = np.random.default_rng(5)
-    for start in (np.arange(R), rng.integers(0, 5, R), np.where(rng.random(R) < 0.2, -1,
-                                                                  rng.integers(0, 8, R))):
+    full, p, rng, starts = starting_pieces(which)
+    for start in starts:
         rule = KeepApartRule(threshold, 0.05, np.array([0.05, 0.1]),
                              np.sort(rng.uniform(0.0, 3.0, 40)))
         np.testing.assert_array_equal(_join_pieces(full.sscp, full.n, start, rule, p),

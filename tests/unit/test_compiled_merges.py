@@ -15,6 +15,7 @@ import numpy as np
 import pytest
 
 from calibrate.panel import merges
+from calibrate.panel.stability import KeepApartRule
 from calibrate.policy.linalg import grouped_sscp
 from tests.unit.test_grouping_merges import random_panel, resampled_panel
 
@@ -150,3 +151,117 @@ def assert_close_tree(ours, theirs, path=""):
         assert ours == pytest.approx(theirs, rel=RELATIVE, abs=1e-12), path
     else:
         assert ours == theirs, path
+
+
+# --------------------------------------------------------------------------- joining pieces
+
+
+def join(engine, monkeypatch, *args):
+    from calibrate.panel.stability import _join_pieces_lockstep
+
+    with monkeypatch.context() as patch:
+        patch.setattr(merges, "_COMPILED_PANEL", 0 if engine == "compiled" else 10**9)
+        return _join_pieces_lockstep(*args)
+
+
+def random_rules(rng):
+    """Rules from lenient to strict, with zero to three size classes (none: never apart)."""
+    for threshold in (0.0, 0.001, 0.003, 0.01):
+        n_classes = int(rng.integers(0, 4))
+        yield KeepApartRule(threshold, 0.05, np.array([0.002, 0.004, 0.01])[:n_classes],
+                            np.sort(rng.uniform(0.0, 3.0, 40)))
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_compiled_join_gives_the_numpy_joins_pieces_batch_by_batch(seed, monkeypatch):
+    # Case resamples of one panel, each with its own random pieces (raters sitting out
+    # some resamples, one resample starting from every rater alone), joined in lockstep
+    # by numpy and one batch after another compiled.
+    rng = np.random.default_rng(seed)
+    n_raters, p = int(rng.integers(15, 60)), int(rng.integers(2, 6))
+    sscp, n, active = resampled_panel(seed, n_raters, p, count_seed=seed + 50, n_resamples=5)
+    start = np.where(active, rng.integers(0, int(rng.integers(2, 20)), active.shape), -1)
+    start[0] = np.where(active[0], np.arange(n_raters), -1)
+    start[3] = -1   # a batch with no pieces
+    kept = start.copy()
+    n_groups = set()
+    for rule in random_rules(rng):
+        plain = join("numpy", monkeypatch, sscp, n, start, rule, p)
+        compiled = join("compiled", monkeypatch, sscp, n, start, rule, p)
+        np.testing.assert_array_equal(compiled, plain)
+        n_groups.update(len(np.unique(row[row >= 0])) for row in plain[[0, 1, 2, 4]])
+    np.testing.assert_array_equal(start, kept)
+    assert len(n_groups) > 1   # the rules kept pieces apart and joined them
+
+
+@pytest.mark.parametrize("which", ["shared 1-7", "incomplete 1-7", "incomplete 0/1"])
+def test_compiled_join_of_one_batch_gives_the_numpy_joins_pieces(which, monkeypatch):
+    from calibrate.panel.stability import _join_pieces
+    from tests.unit.test_batched_grouping import starting_pieces
+
+    full, p, rng, starts = starting_pieces(which)
+    for start in starts:
+        for rule in random_rules(rng):
+            with monkeypatch.context() as patch:
+                patch.setattr(merges, "_COMPILED_PANEL", 0)
+                compiled = _join_pieces(full.sscp, full.n, start, rule, p)
+            np.testing.assert_array_equal(compiled, join("numpy", monkeypatch, full.sscp[None],
+                                                         full.n[None], start[None], rule, p)[0])
+
+
+def test_compiled_join_breaks_exact_ties_as_the_numpy_join(monkeypatch):
+    # Raters 3, 11 and 20 are one rater three times over, and 5 and 8 another: their
+    # pair costs tie exactly, and the first pair in row-major order must go first.
+    n_raters, p = 30, 4
+    Z, who, _ = random_panel(12, n_raters, 90, p)
+    stats = grouped_sscp(Z, who, n_raters)
+    sscp, n = stats.sscp.copy(), stats.n.copy()
+    sscp[[11, 20]], n[[11, 20]] = sscp[3], n[3]
+    sscp[8], n[8] = sscp[5], n[5]
+    start = np.arange(n_raters)[None]
+    for rule in random_rules(np.random.default_rng(3)):
+        plain = join("numpy", monkeypatch, sscp[None], n[None], start, rule, p)
+        compiled = join("compiled", monkeypatch, sscp[None], n[None], start, rule, p)
+        np.testing.assert_array_equal(compiled, plain)
+
+
+def bench_panel(name, tmp_path):
+    """A panel of benchmarks/bench_scale.py: the one under /tmp/prof if it is there,
+    else written afresh (the same seed)."""
+    import importlib.util
+    from pathlib import Path
+
+    from calibrate.data.ingest import load_study
+
+    spec = Path("/tmp/prof") / name / "study.toml"
+    if not spec.exists():
+        where = Path(__file__).resolve().parents[2] / "benchmarks" / "bench_scale.py"
+        loader = importlib.util.spec_from_file_location("bench_scale", where)
+        bench_scale = importlib.util.module_from_spec(loader)
+        loader.loader.exec_module(bench_scale)
+        spec = bench_scale.make_panel(tmp_path, int(name[-3:]), name[:-3])
+    table = load_study(spec)
+    phase = table.phases[0]
+    design = table.phase_design(phase)
+    first = phase.first.loc[phase.first["rater"].isin(phase.fit_raters),
+                            ["rater", "case", "case_mean"]]
+    first = first.rename(columns={"case_mean": "judgment"})
+    complete = set(np.asarray(design.case_ids)[design.complete_rows()])
+    return design, first.loc[first["case"].isin(complete)].reset_index(drop=True)
+
+
+def test_group_raters_on_400_shared_raters_gives_the_same_groups_with_either_engine(
+        monkeypatch, tmp_path):
+    from calibrate.panel.grouping import group_raters
+
+    design, first = bench_panel("shared400", tmp_path)
+    results = {}
+    for engine in ("numpy", "compiled"):
+        with monkeypatch.context() as patch:
+            patch.setattr(merges, "_COMPILED_PANEL", 0 if engine == "compiled" else 10**9)
+            results[engine] = group_raters(design, first, rng=np.random.default_rng(17),
+                                           scale_down=True)
+    plain, compiled = (json.loads(json.dumps(results[e].to_dict())) for e in ("numpy", "compiled"))
+    assert_close_tree(compiled, plain)
+    np.testing.assert_array_equal(results["compiled"].co_assignment,
+                                  results["numpy"].co_assignment)
