@@ -226,20 +226,17 @@ def test_compiled_join_breaks_exact_ties_as_the_numpy_join(monkeypatch):
 
 
 def bench_panel(name, tmp_path):
-    """A panel of benchmarks/bench_scale.py: the one under /tmp/prof if it is there,
-    else written afresh (the same seed)."""
+    """A panel of benchmarks/bench_scale.py, written afresh into ``tmp_path`` (its own seed)."""
     import importlib.util
     from pathlib import Path
 
     from calibrate.data.ingest import load_study
 
-    spec = Path("/tmp/prof") / name / "study.toml"
-    if not spec.exists():
-        where = Path(__file__).resolve().parents[2] / "benchmarks" / "bench_scale.py"
-        loader = importlib.util.spec_from_file_location("bench_scale", where)
-        bench_scale = importlib.util.module_from_spec(loader)
-        loader.loader.exec_module(bench_scale)
-        spec = bench_scale.make_panel(tmp_path, int(name[-3:]), name[:-3])
+    where = Path(__file__).resolve().parents[2] / "benchmarks" / "bench_scale.py"
+    loader = importlib.util.spec_from_file_location("bench_scale", where)
+    bench_scale = importlib.util.module_from_spec(loader)
+    loader.loader.exec_module(bench_scale)
+    spec = bench_scale.make_panel(tmp_path, int(name[-3:]), name[:-3])
     table = load_study(spec)
     phase = table.phases[0]
     design = table.phase_design(phase)
