@@ -13,19 +13,20 @@ from __future__ import annotations
 import os
 
 # GB (binary: GiB, as /usr/bin/time and /proc/meminfo count) per term. Peaks measured
-# 2026-12-03 on the bench_scale.py panels (200 cases per rater, 15% repeats, 8 cues: 8
-# design terms), shared / linked design: 40 raters 0.37 / 0.40 GB, 400 raters 0.79 / 0.82,
-# 2,000 raters 3.47 / 4.69 (the linked figure is the grouping stage alone, above the whole
-# audit's 4.45: since the grouping's simulated panels and resamples merge in one lockstep,
-# its peak rose from 2.9 GB; DEVELOPERS.md, "Limits"). The three terms cannot tell the two
-# designs apart (the same rows, raters and terms; the linked one has 100 times the cases),
-# so the estimate is set to cover both, with the steepest pair term that keeps every
-# estimate within 1.5 times its peak (the term that grows fastest, so that panels beyond
-# those measured stay on the safe side). With the margin below, the estimates are 1.03 to
-# 1.47 times the six peaks.
-BASE_GB = 0.50
-GB_PER_ROW_TERM = 2.2e-7
-GB_PER_RATER_PAIR = 1.6e-6
+# 2026-12-04 on the bench_scale.py panels (200 cases per rater, 15% repeats, 8 cues: 8
+# design terms), shared / linked design: 40 raters 0.36 / 0.39 GB, 400 raters 0.54 / 0.65,
+# 2,000 raters 1.21 / 1.43 (DEVELOPERS.md, "Limits"; the compiled grouping keeps one
+# raters x raters cost matrix at a time, where the numpy lockstep kept one per resample:
+# 3.47 / 4.45 GB the day before). The three terms cannot tell the two designs apart (the
+# same rows, raters and terms; the linked one has 100 times the cases), so the estimate
+# covers both: the pair term is set to what the grouping's matrices need (three float
+# matrices of raters x raters, about 5e-8 GB a pair, taken as 8e-8 for the rest that grows
+# so), and base and row term by a linear programme keeping every estimate between its peak
+# and 1.5 times it with the widest margin above the peaks. With the safety factor below
+# the estimates are 1.15 to 1.50 times the six peaks.
+BASE_GB = 0.49
+GB_PER_ROW_TERM = 2.6e-7
+GB_PER_RATER_PAIR = 8e-8
 SAFETY = 1.05  # a peak varies from run to run by a few per cent
 
 MACHINE_GB_FALLBACK = 24.0

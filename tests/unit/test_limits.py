@@ -33,13 +33,12 @@ def test_a_panel_over_the_memory_limit_is_refused_before_the_analysis(tmp_path):
     assert not (tmp_path / "o").exists()
 
 
-# Peaks of `calibrate audit --no-pdf` measured 2026-12-03 (/usr/bin/time -v, GiB) on the
-# benchmarks/bench_scale.py panels: (judgment rows, raters, design terms) -> peak. The
-# linked 2,000-rater figure is the grouping stage alone (above the whole audit's 4.45).
+# Peaks of `calibrate audit --no-pdf` measured 2026-12-04 (/usr/bin/time -v, GiB) on the
+# benchmarks/bench_scale.py panels: (judgment rows, raters, design terms) -> peak.
 MEASURED_PEAKS = {
-    "shared 40": ((9_200, 40, 8), 0.37), "linked 40": ((9_200, 40, 8), 0.40),
-    "shared 400": ((92_000, 400, 8), 0.79), "linked 400": ((92_000, 400, 8), 0.82),
-    "shared 2,000": ((460_000, 2_000, 8), 3.47), "linked 2,000": ((460_000, 2_000, 8), 4.69),
+    "shared 40": ((9_200, 40, 8), 0.36), "linked 40": ((9_200, 40, 8), 0.39),
+    "shared 400": ((92_000, 400, 8), 0.54), "linked 400": ((92_000, 400, 8), 0.65),
+    "shared 2,000": ((460_000, 2_000, 8), 1.21), "linked 2,000": ((460_000, 2_000, 8), 1.43),
 }
 
 
