@@ -49,6 +49,7 @@ def assert_same_merges(compiled, plain, scale):
 
 @pytest.mark.parametrize("seed, n_raters, p, n_resamples", [
     (1, 24, 3, 3), (2, 40, 4, 5), (3, 65, 5, 4), (4, 90, 6, 2),
+    (5, 30, 1, 3), (6, 30, 2, 2), (7, 40, 12, 2),  # one cue, two, many
 ])
 @pytest.mark.parametrize("stop_at, record, compact", [
     (1, True, False), (1, True, True), (3, True, None), (1, False, None), (5, False, None),
