@@ -13,9 +13,10 @@ $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 
-# The grouping's compiled merge loop is compiled once into numba's cache here (13-28 s measured here),
-# so that an audit of a large panel only loads it.
+# The grouping's compiled merge loop (13-28 s measured here) and the cut-off check's compiled
+# search are compiled once into numba's cache here, so that an audit of a large panel only loads them.
 WARM_UP := $(BIN)/python -c "from calibrate.panel.compiled_merges import warm_up; warm_up()"
+WARM_UP += && $(BIN)/python -c "from calibrate.lens.compiled_search import warm_up; warm_up()"
 
 $(STAMP_RUN): pyproject.toml | $(BIN)/python
 	$(BIN)/python -m pip install --quiet -e .

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import subprocess
+import sys
 import textwrap
 from pathlib import Path
 
@@ -61,3 +63,10 @@ def simple_judgments(n_raters: int = 3, n_cases: int = 12, seed: int = 1) -> pd.
             rows.append({"rater": f"r{r + 1}", "case": f"c{c + 1}", "score": score,
                          "x1": x1[c], "x2": x2[c]})
     return pd.DataFrame(rows)
+
+
+def printed_words(code: str) -> list[str]:
+    """What a fresh Python process running ``code`` prints, split into words (for checks
+    of what a path imports, which the test process itself has long since loaded)."""
+    return subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          check=True).stdout.split()

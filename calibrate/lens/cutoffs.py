@@ -42,7 +42,8 @@ one generator draws every round's sets, so a rater's draws depend on the panel, 
 when raters drew one after another). Simulation stops
 early for a rater once enough simulated values have reached the observed one (Besag &
 Clifford 1991), so ordinary raters cost a few dozen draws and only raters near or past
-the cut-off get all ``n_sim``.
+the cut-off get all ``n_sim``. On panels of :data:`COMPILED_SEARCH_FROM` tested raters and
+more, the rounds' searches run compiled (``lens/compiled_search.py``), with the same numbers.
 """
 
 from __future__ import annotations
@@ -242,13 +243,23 @@ _CASES_FIRST_FROM = 96
 _CASES_FIRST_SETS = 512
 #: Cases per block of the blocked running sum.
 _RUN_BLOCK = 12
+#: From this many tested raters the simulated rounds' searches run compiled
+#: (:mod:`calibrate.lens.compiled_search`, the same numbers to the bit); smaller panels keep
+#: numpy and never load numba (its import and cache load: 2.1 s CPU in a bare process,
+#: 0.1-0.5 s inside the stage of an audit, measured here; DEVELOPERS.md "Speed at scale").
+COMPILED_SEARCH_FROM = 400
 
 
-def _best_steps(plan: _StepPlan, responses: np.ndarray, *, locate: bool = False):
-    """Statistic per response row; with ``locate`` also the winning (column position, count below)."""
+def _best_steps(plan: _StepPlan, responses: np.ndarray, *, locate: bool = False, compiled: bool = False):
+    """Statistic per response row; with ``locate`` also the winning (column position, count below).
+    ``compiled`` (without ``locate``) runs the search of :mod:`calibrate.lens.compiled_search`."""
     if not locate and responses.shape[0] >= _CASES_FIRST_FROM and plan.weights:
-        return _best_steps_cases_first(plan, responses), None
+        return _best_steps_cases_first(plan, responses, compiled=compiled), None
     resid = responses - (responses @ plan.Q) @ plan.Q.T
+    if not locate and compiled and plan.step_weights.shape[0]:
+        from .compiled_search import best_running_gain
+        best = best_running_gain(resid, plan.case_orders, plan.step_weights)
+        return _share_of_rss(best, np.einsum("sn,sn->s", resid, resid)), None
     return _steps_from_residuals(resid, plan.case_orders[None, :], plan.step_weights[None],
                                  np.asarray(plan.positions, dtype=np.intp), locate=locate)
 
@@ -286,9 +297,13 @@ def _steps_from_residuals(resid: np.ndarray, case_orders: np.ndarray, step_weigh
         where[:, 1] = at % n + 1
     else:
         best = gains.max(axis=1)
+    return _share_of_rss(best, rss), where
+
+
+def _share_of_rss(best: np.ndarray, rss: np.ndarray) -> np.ndarray:
+    """The statistic from the best gain: its share of the linear policy's RSS, NaN where undefined."""
     with np.errstate(invalid="ignore", divide="ignore"):
-        statistic = np.where(np.isfinite(best), best / rss, np.nan)
-    return statistic, where
+        return np.where(np.isfinite(best), best / rss, np.nan)
 
 
 def _observed_steps(plans: list[_StepPlan], responses: list[np.ndarray], max_floats: int = 1_000_000):
@@ -326,7 +341,7 @@ def _observed_steps(plans: list[_StepPlan], responses: list[np.ndarray], max_flo
     return out
 
 
-def _best_steps_cases_first(plan: _StepPlan, responses: np.ndarray) -> np.ndarray:
+def _best_steps_cases_first(plan: _StepPlan, responses: np.ndarray, *, compiled: bool = False) -> np.ndarray:
     """The statistic of :func:`_best_steps` with the response sets along the contiguous axis.
 
     The running sums ``e'd`` are formed in blocks of :data:`_RUN_BLOCK` cases (a sum
@@ -348,23 +363,32 @@ def _best_steps_cases_first(plan: _StepPlan, responses: np.ndarray) -> np.ndarra
         Yt = np.ascontiguousarray(responses[s0:s0 + _CASES_FIRST_SETS].T)      # (n, sets)
         resid = Yt - plan.Q @ (plan.Q.T @ Yt)
         rss = np.einsum("ns,ns->s", resid, resid)
-        if run is None or run.shape[2] != Yt.shape[1]:
-            run = np.empty((columns, padded, Yt.shape[1]))   # (columns, cases, sets)
-        np.take(resid, order, axis=0, out=run[:, :n])
-        run[:, n:] = 0.0
-        blocks = run.reshape(columns, padded // _RUN_BLOCK, _RUN_BLOCK, -1)
-        for i in range(1, _RUN_BLOCK):
-            np.add(blocks[:, :, i], blocks[:, :, i - 1], out=blocks[:, :, i])
-        totals = blocks[:, :, -1]
-        for b in range(1, totals.shape[1]):
-            np.add(totals[:, b], totals[:, b - 1], out=totals[:, b])
-        blocks[:, 1:, :-1] += totals[:, :-1, None, :]
-        np.square(run, out=run)
-        run *= weight
-        best = run.reshape(-1, run.shape[2]).max(axis=0)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            out[s0:s0 + Yt.shape[1]] = np.where(np.isfinite(best), best / rss, np.nan)
+        if compiled:
+            from .compiled_search import best_blocked_gain
+            best = best_blocked_gain(resid, plan.case_orders, plan.step_weights, _RUN_BLOCK)
+        else:
+            if run is None or run.shape[2] != Yt.shape[1]:
+                run = np.empty((columns, padded, Yt.shape[1]))   # (columns, cases, sets)
+            best = _blocked_gain(resid, order, weight, run, n, padded)
+        out[s0:s0 + Yt.shape[1]] = _share_of_rss(best, rss)
     return out
+
+
+def _blocked_gain(resid, order, weight, run, n, padded):
+    """The best weighted square per set of the cases-first search, its numpy form."""
+    columns = order.shape[0]
+    np.take(resid, order, axis=0, out=run[:, :n])
+    run[:, n:] = 0.0
+    blocks = run.reshape(columns, padded // _RUN_BLOCK, _RUN_BLOCK, -1)
+    for i in range(1, _RUN_BLOCK):
+        np.add(blocks[:, :, i], blocks[:, :, i - 1], out=blocks[:, :, i])
+    totals = blocks[:, :, -1]
+    for b in range(1, totals.shape[1]):
+        np.add(totals[:, b], totals[:, b - 1], out=totals[:, b])
+    blocks[:, 1:, :-1] += totals[:, :-1, None, :]
+    np.square(run, out=run)
+    run *= weight
+    return run.reshape(-1, run.shape[2]).max(axis=0)
 
 
 def step_search(X: np.ndarray, responses: np.ndarray, search_columns: list[int],
@@ -390,7 +414,7 @@ def step_search(X: np.ndarray, responses: np.ndarray, search_columns: list[int],
 
 def sequential_p_values(plan: _StepPlan, observed: np.ndarray, simulate, n_sim: int,
                         enough_hits: int | None, first_chunk: int = 40,
-                        max_floats: int = 250_000) -> np.ndarray:
+                        max_floats: int = 250_000, compiled: bool = False) -> np.ndarray:
     """Monte Carlo p-values of raters who share one design, stopping early per rater.
 
     ``simulate(size, raters)`` returns ``(size, len(raters), n)`` simulated judgment sets
@@ -401,7 +425,8 @@ def sequential_p_values(plan: _StepPlan, observed: np.ndarray, simulate, n_sim: 
     p-value ``h / l``; otherwise ``(1 + g) / (1 + usable)`` with ``g`` hits in all
     ``n_sim`` draws (draws whose statistic is undefined not counted). Both are valid
     p-values (Besag & Clifford 1991, Biometrika 78:301-304, from memory); a rater whose
-    pattern is ordinary costs a few dozen draws instead of ``n_sim``.
+    pattern is ordinary costs a few dozen draws instead of ``n_sim``. ``compiled`` runs each
+    search compiled (:mod:`calibrate.lens.compiled_search`, the same statistics to the bit).
     """
     n = plan.Q.shape[0]
     p_value = np.full(observed.size, np.nan)
@@ -416,7 +441,7 @@ def sequential_p_values(plan: _StepPlan, observed: np.ndarray, simulate, n_sim: 
         for start in range(0, running.size, per_call):
             some = running[start:start + per_call]
             sets = simulate(size, some)
-            found, _ = _best_steps(plan, np.swapaxes(sets, 0, 1).reshape(-1, n))
+            found, _ = _best_steps(plan, np.swapaxes(sets, 0, 1).reshape(-1, n), compiled=compiled)
             stat[start:start + some.size] = found.reshape(some.size, size)
         finite = np.isfinite(stat)   # an undefined statistic is no draw of the null
         so_far = hits[running, None] + np.cumsum(finite & (stat >= margin[running, None]), axis=1)
@@ -514,6 +539,7 @@ def cutoff_check(
                    f"values reach its own instead of {enough_hits}, on panels of more than "
                    f"{FULL_HITS_UP_TO:,} raters.",)
         enough_hits = REDUCED_ENOUGH_HITS
+    compiled = len(sides) >= COMPILED_SEARCH_FROM
     results: list[RaterCutoff | None] = [None] * len(rows.raters)
     for g, name in enumerate(rows.raters):
         if g not in sides:
@@ -565,7 +591,7 @@ def cutoff_check(
             picked = np.concatenate([null_rows[i] for i in which])
             return null.draw(rng, size, picked).reshape(size, which.size, -1)
 
-        p_values = sequential_p_values(plan, stat[tested], simulate, n_sim, enough_hits)
+        p_values = sequential_p_values(plan, stat[tested], simulate, n_sim, enough_hits, compiled=compiled)
         for i, p_value in zip(tested, p_values):
             g = members[i]
             results[g] = _rater_result(rows.raters[g], X, Y[i], plan, search, where[i], stat[i],

@@ -8,8 +8,6 @@ the same pairs in the same order and the costs and RSS totals equal to rounding.
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 
 import numpy as np
 import pytest
@@ -17,6 +15,7 @@ import pytest
 from calibrate.panel import merges
 from calibrate.panel.stability import KeepApartRule
 from calibrate.policy.linalg import grouped_sscp
+from tests.helpers import printed_words
 from tests.unit.test_grouping_merges import random_panel, resampled_panel
 
 pytest.importorskip("numba")
@@ -116,9 +115,7 @@ def test_the_engine_is_picked_by_panel_size_and_numba_loads_only_then():
         "    merges.agglomerate(sscp, n, active, 3, stop_at=1, record=False)\n"
         "    print('numba' in sys.modules, flush=True)\n"
     )
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                         check=True).stdout.split()
-    assert out == ["False", "True"]
+    assert printed_words(code) == ["False", "True"]
 
 
 def test_group_raters_gives_the_same_groups_with_either_engine(monkeypatch):
