@@ -588,7 +588,8 @@ def _check_options(seed, n_boot) -> None:
 
 # The libraries whose versions can change a figure or a report; read from the installed
 # distributions (no time, no host name), so a rerun in the same environment gives the same bytes.
-_KEY_LIBRARIES = ("numpy", "scipy", "pandas", "statsmodels", "matplotlib", "reportlab", "openpyxl")
+# numba: the compiled grouping and cut-off search of panels of 200 or 400 raters and more.
+_KEY_LIBRARIES = ("numpy", "scipy", "pandas", "statsmodels", "matplotlib", "reportlab", "openpyxl", "numba")
 
 
 def library_versions() -> dict[str, str | None]:
