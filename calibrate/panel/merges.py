@@ -593,14 +593,12 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
     if R < _SMALL_PANEL:
         costs = _AllCosts(group_sscp, group_n, group_rss, active, p)
         history, last_cost = _merge_until(costs, labels, active, stop_at, record)
+        n_exact = costs.n_exact
     elif prune and R >= _COMPILED_PANEL:
         from .compiled_merges import merge_batches  # loads numba: only for panels this big
 
         labels, history, last_cost, n_exact = merge_batches(group_sscp, group_n, group_rss,
                                                             active, p, stop_at, record)
-        tss = np.where(active, sscp[:, :, p, p], 0.0).sum(axis=1)
-        return Agglomeration(labels=labels, history=history, last_cost=last_cost, tss=tss,
-                             n_exact=n_exact)
     else:
         costs = _PairCosts(group_sscp, group_n, group_rss, active, p, prune)
         try:
@@ -609,9 +607,10 @@ def agglomerate(sscp: np.ndarray, n: np.ndarray, active: np.ndarray, p: int,
         finally:
             _give_back("cost", costs.cost_memory)
             _give_back("exact", costs.exact_memory)
+        n_exact = costs.n_exact
     tss = np.where(active, sscp[:, :, p, p], 0.0).sum(axis=1)
     return Agglomeration(labels=labels, history=history, last_cost=last_cost, tss=tss,
-                         n_exact=costs.n_exact)
+                         n_exact=n_exact)
 
 
 def _merge_until(costs, labels, active, stop_at, record, compact=None):
